@@ -1,0 +1,103 @@
+"""``wellwright iv``: the I-V of one stack, its figures of merit and figures."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from physics.errors import InputError
+from physics.iv import external_bias_v, stack_iv
+from physics.stack import load_stack
+
+from .outputs import json_ready, write_csv, write_json
+
+MAX_POINTS = 2001
+MAX_ABS_BIAS_V = 10.0
+
+
+def register(sub) -> None:
+    p = sub.add_parser(
+        "iv",
+        help="I-V curve, figures of merit and figures of one stack",
+        description="Compute the coherent Tsu-Esaki I-V of a stack file, its peak, valley and PVCR, "
+        "and write iv.csv, metrics.json and three PNG figures.",
+    )
+    p.add_argument("stack", help="stack file (TOML)")
+    p.add_argument("--bias-min", type=float, default=0.0, metavar="V", help="first bias, V (default 0)")
+    p.add_argument("--bias-max", type=float, default=1.0, metavar="V", help="last bias, V (default 1.0)")
+    p.add_argument("--points", type=int, default=61, metavar="N", help="evenly spaced biases (default 61)")
+    p.add_argument("--out", metavar="DIR", help="output folder (default: <stack name>_iv)")
+    p.add_argument("--json", action="store_true", help="print the results as JSON on stdout")
+    p.add_argument("--no-figures", action="store_true", help="skip the PNG figures")
+    p.set_defaults(func=run)
+
+
+def check_sweep(bias_min: float, bias_max: float, points: int) -> np.ndarray:
+    """The sweep's biases, or an InputError naming the option."""
+    for key, v in (("--bias-min", bias_min), ("--bias-max", bias_max)):
+        if not np.isfinite(v) or abs(v) > MAX_ABS_BIAS_V:
+            raise InputError(f"{v:g} outside [-{MAX_ABS_BIAS_V:g}, {MAX_ABS_BIAS_V:g}] V", key=key)
+    if bias_max <= bias_min:
+        raise InputError(f"must be above --bias-min ({bias_min:g} V)", key="--bias-max")
+    if not 2 <= points <= MAX_POINTS:
+        raise InputError(f"{points} outside [2, {MAX_POINTS}]", key="--points")
+    return np.linspace(bias_min, bias_max, points)
+
+
+def iv_record(stack, curves) -> dict:
+    """The JSON record of ``wellwright iv``: biases, currents, metrics, device-level values."""
+    j = curves.current_density_a_cm2[0]
+    record = {
+        "stack": stack.source,
+        "temperature_k": stack.temperature_k,
+        "bias_v": curves.bias_v,
+        "current_density_a_cm2": j,
+        "metrics": curves.metrics_of(0),
+    }
+    dev = stack.device
+    if dev.series_resistance_ohm_um2 > 0:
+        record["external_bias_v"] = external_bias_v(curves.bias_v, j, dev.series_resistance_ohm_um2)
+        m = record["metrics"]
+        for name in ("peak", "valley"):
+            v, jj = m[f"{name}_voltage_v"], m[f"{name}_current_density_a_cm2"]
+            m[f"{name}_voltage_external_v"] = None if v is None else float(
+                external_bias_v(v, jj, dev.series_resistance_ohm_um2))
+    if dev.area_um2 is not None:
+        record["current_ma"] = j * dev.area_um2 * 1e-8 * 1e3
+        m = record["metrics"]
+        for name in ("peak", "valley"):
+            jj = m[f"{name}_current_density_a_cm2"]
+            m[f"{name}_current_ma"] = None if jj is None else jj * dev.area_um2 * 1e-5
+    return json_ready(record)
+
+
+def run(args) -> int:
+    bias = check_sweep(args.bias_min, args.bias_max, args.points)
+    stack = load_stack(args.stack)
+    out = Path(args.out) if args.out else Path(f"{Path(args.stack).stem}_iv")
+    curves = stack_iv(stack, bias)
+    record = iv_record(stack, curves)
+    cols = ["bias_v", "current_density_a_cm2"] + [k for k in ("external_bias_v", "current_ma") if k in record]
+    write_csv(out / "iv.csv", cols, zip(*(record[c] for c in cols)))
+    write_json(out / "metrics.json", {"stack": stack.source, "metrics": record["metrics"]})
+    if not args.no_figures:
+        from .figures import iv_figures
+
+        iv_figures(stack, curves, out)
+    if args.json:
+        json.dump(record, sys.stdout, indent=2)
+        print()
+    else:
+        m = record["metrics"]
+        print(f"{stack.source}: {len(bias)} biases from {bias[0]:g} to {bias[-1]:g} V")
+        if m["peak_current_density_a_cm2"] is None:
+            print("  no negative differential resistance in this sweep")
+        else:
+            print(f"  peak   {m['peak_current_density_a_cm2'] / 1e3:10.2f} kA/cm^2 at {m['peak_voltage_v']:.3f} V")
+            print(f"  valley {m['valley_current_density_a_cm2'] / 1e3:10.2f} kA/cm^2 at {m['valley_voltage_v']:.3f} V")
+            print(f"  PVCR   {m['pvcr']:10.2f}")
+        print(f"  results in {out}/")
+    return 0

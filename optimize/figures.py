@@ -1,0 +1,180 @@
+"""Figures of one stack: I-V with peak and valley, band diagram with resonances, T(E).
+
+Matplotlib lives here and in the other figure modules of ``optimize``, never
+in ``physics``. Colours are the Okabe-Ito colour-blind-safe palette.
+"""
+
+from __future__ import annotations
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+from physics.bands import linear_profile  # noqa: E402
+from physics.current import contact_fermi_levels_ev  # noqa: E402
+from physics.iv import IVCurves  # noqa: E402
+from physics.resonances import find_resonances  # noqa: E402
+from physics.stack import Stack  # noqa: E402
+from physics.transmission import transmission  # noqa: E402
+
+__all__ = ["PALETTE", "iv_figure", "band_diagram_figure", "transmission_figure", "iv_figures", "style"]
+
+#: Okabe-Ito palette (M. Okabe and K. Ito, "Color Universal Design", 2002).
+PALETTE = {
+    "black": "#000000",
+    "orange": "#E69F00",
+    "sky": "#56B4E9",
+    "green": "#009E73",
+    "yellow": "#F0E442",
+    "blue": "#0072B2",
+    "vermillion": "#D55E00",
+    "purple": "#CC79A7",
+}
+CONTACT_DRAW_NM = 8.0
+
+
+def style() -> None:
+    """Readable defaults for report-sized figures."""
+    plt.rcParams.update(
+        {
+            "font.size": 11,
+            "axes.titlesize": 12,
+            "axes.labelsize": 11,
+            "axes.grid": True,
+            "grid.alpha": 0.3,
+            "axes.spines.top": False,
+            "axes.spines.right": False,
+            "figure.dpi": 100,
+        }
+    )
+
+
+def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
+    """J(V) in kA/cm^2 with the peak and valley marked."""
+    style()
+    fig, ax = plt.subplots(figsize=(6.4, 4.2))
+    v = curves.bias_v
+    j = curves.current_density_a_cm2[i] / 1e3
+    ax.plot(v, j, color=PALETTE["blue"], lw=2, label="Tsu-Esaki current")
+    m = curves.metrics_of(i)
+    if m["peak_voltage_v"] is not None:
+        ax.plot(m["peak_voltage_v"], m["peak_current_density_a_cm2"] / 1e3, "o", ms=9, mfc="none",
+                mec=PALETTE["vermillion"], mew=2, label="peak")
+        ax.plot(m["valley_voltage_v"], m["valley_current_density_a_cm2"] / 1e3, "s", ms=9, mfc="none",
+                mec=PALETTE["green"], mew=2, label="valley")
+        ax.annotate(
+            f"$J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.1f} kA/cm$^2$ at {m['peak_voltage_v'] * 1e3:.0f} mV\n"
+            f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.2f} kA/cm$^2$ at {m['valley_voltage_v'] * 1e3:.0f} mV\n"
+            f"PVCR = {m['pvcr']:.1f}",
+            xy=(0.03, 0.97), xycoords="axes fraction", va="top", fontsize=10,
+            bbox={"boxstyle": "round", "fc": "white", "ec": "0.7"},
+        )
+    else:
+        ax.text(0.03, 0.95, "no NDR in this sweep", transform=ax.transAxes, va="top")
+    ax.set_xlabel("bias (V)")
+    ax.set_ylabel("current density (kA/cm$^2$)")
+    ax.legend(loc="lower right")
+    ax.set_title(title or "I-V (coherent Tsu-Esaki)")
+    return fig
+
+
+def _layer_spans(stack: Stack) -> list[tuple[float, float, int]]:
+    z = 0.0
+    spans = []
+    for idx, layer in enumerate(stack.layers[1:-1], start=1):
+        spans.append((z, z + layer.thickness_nm, idx))
+        z += layer.thickness_nm
+    return spans
+
+
+def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
+    """Conduction-band edge at ``bias_v`` with the resonance levels and Fermi levels."""
+    style()
+    table = stack.table()
+    profile = linear_profile(table, [bias_v], slice_nm=stack.model.slice_nm).take((0, 0))
+    edge = profile.edge_ev
+    width = profile.width_nm
+    bounds = np.concatenate([[0.0], np.cumsum(width[1:-1])])
+    length = bounds[-1]
+    fig, ax = plt.subplots(figsize=(7.0, 4.4))
+    xs = np.concatenate([[-CONTACT_DRAW_NM], bounds, [length + CONTACT_DRAW_NM]])
+    ys = np.concatenate([[edge[0]], edge[1:-1], [edge[-1], edge[-1]]])
+    ax.step(xs, ys, where="post", color=PALETTE["black"], lw=1.8, label="conduction-band edge")
+    top = float(edge[1:-1].max())
+    for z0, z1, idx in _layer_spans(stack):
+        layer = stack.layers[idx]
+        if layer.conduction_band_ev > stack.layers[0].conduction_band_ev + 0.05:
+            ax.axvspan(z0, z1, color=PALETTE["sky"], alpha=0.25, lw=0)
+        ax.text(0.5 * (z0 + z1), top * 1.04 + 0.02, f"{layer.name}\n{layer.label}", ha="center",
+                va="bottom", fontsize=7, rotation=90)
+    mu_e, mu_c = (float(x[0]) for x in contact_fermi_levels_ev(table))
+    ax.hlines(mu_e, -CONTACT_DRAW_NM, 0, colors=PALETTE["orange"], linestyles="--", lw=2, label="Fermi levels")
+    ax.hlines(edge[-1] + mu_c, length, length + CONTACT_DRAW_NM, colors=PALETTE["orange"], linestyles="--", lw=2)
+    res = find_resonances(profile, energy_min_ev=max(0.0, float(edge[-1])) - 0.3, energy_max_ev=top, n_max=4)
+    barrier_z = [(z0, z1) for z0, z1, idx in _layer_spans(stack)
+                 if stack.layers[idx].conduction_band_ev > stack.layers[0].conduction_band_ev + 0.05]
+    w0, w1 = (barrier_z[0][1], barrier_z[-1][0]) if len(barrier_z) >= 2 else (0.0, length)
+    order = np.argsort(res.energy_ev)
+    for n, k in enumerate([k for k in order if res.valid[k]], start=1):
+        e_r, g = float(res.energy_ev[k]), float(res.width_ev[k])
+        ax.hlines(e_r, w0, w1, colors=PALETTE["vermillion"], lw=2, label="resonances" if n == 1 else None)
+        ax.text(w1 + 0.2, e_r, f"E{n} = {e_r * 1e3:.0f} meV, Γ = {_fmt_energy(g)}", fontsize=8,
+                va="center", color=PALETTE["vermillion"])
+    ax.set_xlabel("position (nm)")
+    ax.set_ylabel("energy from emitter band edge (eV)")
+    ax.set_xlim(-CONTACT_DRAW_NM, length + CONTACT_DRAW_NM)
+    ax.set_ylim(min(float(edge.min()), 0.0) - 0.1, top * 1.35 + 0.15)
+    ax.legend(loc="lower left", fontsize=8)
+    ax.set_title(title or f"band diagram at {bias_v * 1e3:.0f} mV (linear drop)")
+    return fig
+
+
+def _fmt_energy(value_ev: float) -> str:
+    if value_ev >= 1e-3:
+        return f"{value_ev * 1e3:.2f} meV"
+    return f"{value_ev * 1e6:.1f} µeV"
+
+
+def transmission_figure(stack: Stack, biases_v: list[float], *, title: str = ""):
+    """T(E) on a log scale at each bias."""
+    style()
+    table = stack.table()
+    profile = linear_profile(table, biases_v, slice_nm=stack.model.slice_nm)
+    top = float(profile.edge_ev[0, 0, 1:-1].max())
+    energy = np.linspace(1e-4, max(top * 1.3, 0.3), 4000)
+    t = transmission(energy, profile=profile)[0]
+    res = find_resonances(profile, energy_min_ev=0.0, energy_max_ev=energy[-1], n_max=4)
+    fig, ax = plt.subplots(figsize=(6.4, 4.2))
+    colors = [PALETTE["blue"], PALETTE["vermillion"], PALETTE["green"], PALETTE["purple"]]
+    for b, (bias, color) in enumerate(zip(biases_v, colors)):
+        # add the exact resonance peaks so narrow ones are drawn at full height
+        e = np.concatenate([energy, res.energy_ev[0, b][res.valid[0, b]]])
+        tt = np.concatenate([t[b], res.peak_transmission[0, b][res.valid[0, b]]])
+        o = np.argsort(e)
+        ax.semilogy(e[o] * 1e3, np.maximum(tt[o], 1e-30), color=color, lw=1.6, label=f"{bias * 1e3:.0f} mV")
+    ax.set_xlabel("energy from emitter band edge (meV)")
+    ax.set_ylabel("transmission T(E)")
+    ax.set_ylim(bottom=max(1e-20, float(np.nanmin(np.maximum(t, 1e-20)))), top=2.0)
+    ax.legend(title="bias")
+    ax.set_title(title or "transmission")
+    return fig
+
+
+def iv_figures(stack: Stack, curves: IVCurves, out_dir, *, i: int = 0, prefix: str = "") -> dict[str, str]:
+    """Write the three standard figures of one design; returns ``{name: path}``."""
+    from pathlib import Path
+
+    from .outputs import save_figure
+
+    out = Path(out_dir)
+    m = curves.metrics_of(i)
+    peak = m["peak_voltage_v"] if m["peak_voltage_v"] is not None else float(curves.bias_v[-1]) / 2
+    paths = {
+        "iv": save_figure(iv_figure(curves, i), out / f"{prefix}iv.png"),
+        "band_diagram": save_figure(band_diagram_figure(stack, peak), out / f"{prefix}band_diagram.png"),
+        "transmission": save_figure(transmission_figure(stack, [0.0, peak]), out / f"{prefix}transmission.png"),
+    }
+    return {k: str(v) for k, v in paths.items()}

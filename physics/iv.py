@@ -1,0 +1,240 @@
+"""I-V sweeps and their figures of merit.
+
+The peak is the first local maximum of ``J(V)`` along increasing ``|V|``
+that is followed by negative differential resistance (the current falls by
+more than ``NDR_DROP`` of the peak before rising above it again); the
+valley is the lowest current after it, before the current first exceeds
+the peak again or the sweep ends. Both are then located more finely than
+the sweep grid by two rounds of extra biases around them and a parabola
+through the three best points.
+
+A valley that falls on the last point of the sweep is reported there; the
+true valley can only be lower, so the PVCR is then a lower bound.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .bands import linear_profile
+from .current import EnergyGrid, current_density_a_cm2
+from .stack import LayerTable, ModelOptions, Stack
+
+__all__ = [
+    "METRIC_NAMES",
+    "IVCurves",
+    "sweep",
+    "stack_iv",
+    "current_at_bias",
+    "locate_peak_valley",
+    "external_bias_v",
+]
+
+METRIC_NAMES = (
+    "peak_current_density_a_cm2",
+    "peak_voltage_v",
+    "valley_current_density_a_cm2",
+    "valley_voltage_v",
+    "pvcr",
+    "delta_current_density_a_cm2",
+    "delta_voltage_v",
+)
+#: Smallest relative current drop after a maximum that counts as NDR.
+NDR_DROP = 0.02
+
+
+@dataclass(frozen=True)
+class IVCurves:
+    """I-V curves of a batch of stacks on a common bias grid.
+
+    Attributes
+    ----------
+    bias_v
+        ``(n_biases,)`` applied bias across the device between the contacts.
+    current_density_a_cm2
+        ``(n_stacks, n_biases)``.
+    metrics
+        Each of :data:`METRIC_NAMES` -> ``(n_stacks,)``; NaN where there is no NDR in the sweep.
+    """
+
+    bias_v: np.ndarray
+    current_density_a_cm2: np.ndarray
+    metrics: dict[str, np.ndarray] = field(default_factory=dict)
+
+    def metrics_of(self, i: int = 0) -> dict[str, float | None]:
+        """Metrics of stack ``i`` as plain floats, ``None`` for NaN (JSON-ready)."""
+        return {k: (None if not np.isfinite(v[i]) else float(v[i])) for k, v in self.metrics.items()}
+
+
+def current_at_bias(
+    table: LayerTable,
+    bias_v: np.ndarray,
+    *,
+    model: ModelOptions = ModelOptions(),
+    grid: EnergyGrid = EnergyGrid(),
+) -> np.ndarray:
+    """Current density, A/cm^2, ``(n_stacks, n_biases)`` for biases ``(n_biases,)`` or ``(n_stacks, n_biases)``."""
+    profile = linear_profile(table, bias_v, slice_nm=model.slice_nm)
+    return current_density_a_cm2(profile, table=table, bias_v=_bias_2d(bias_v, table.n_stacks), grid=grid)
+
+
+def _bias_2d(bias_v, n_stacks: int) -> np.ndarray:
+    bias = np.asarray(bias_v, float)
+    return np.broadcast_to(bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :], (n_stacks, np.shape(np.atleast_1d(bias))[-1]))
+
+
+def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Grid indices of the first NDR peak and its valley along increasing ``|V|``.
+
+    Parameters
+    ----------
+    bias_v
+        ``(n,)`` increasing biases on one side of zero (all >= 0 or all <= 0).
+    current
+        ``(n_stacks, n)`` current magnitudes.
+
+    Returns
+    -------
+    peak, valley
+        ``(n_stacks,)`` indices, -1 where there is no NDR.
+    """
+    n_stacks, n = current.shape
+    peak = np.full(n_stacks, -1)
+    valley = np.full(n_stacks, -1)
+    for s in range(n_stacks):  # per stack: short loop over a sweep, not over the physics
+        j = current[s]
+        for i in range(1, n - 1):
+            if not (j[i] >= j[i - 1] and j[i] > j[i + 1]):
+                continue
+            after = j[i + 1 :]
+            above = np.nonzero(after > j[i])[0]
+            stop = above[0] if above.size else after.size
+            if stop == 0:
+                continue
+            k = int(np.argmin(after[:stop]))
+            if after[k] < (1.0 - NDR_DROP) * j[i]:
+                peak[s], valley[s] = i, i + 1 + k
+                break
+    return peak, valley
+
+
+def _parabola_vertex(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Vertex of the parabola through three points per row (x: (..., 3))."""
+    x0, x1, x2 = x[..., 0], x[..., 1], x[..., 2]
+    y0, y1, y2 = y[..., 0], y[..., 1], y[..., 2]
+    d01, d12, d02 = x0 - x1, x1 - x2, x0 - x2
+    a = (y0 / (d01 * d02)) - (y1 / (d01 * d12)) + (y2 / (d02 * d12))
+    b = (y1 - y0) / (x1 - x0) - a * (x0 + x1)
+    c = y0 - a * x0**2 - b * x0
+    ok = np.abs(a) > 0
+    xv = np.where(ok, -b / (2.0 * np.where(ok, a, 1.0)), x1)
+    xv = np.clip(xv, x0, x2)
+    return xv, np.where(ok, a * xv**2 + b * xv + c, y1)
+
+
+def _refine(table, model, grid, center_v, half_span_v, sign, rounds=2, points=7):
+    """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
+
+    ``rounds`` of ``points`` extra biases around each centre (one batched
+    sweep per round), then a parabola through the best three points.
+    """
+    center = center_v.copy()
+    half = half_span_v.copy()
+    offsets = np.linspace(-1.0, 1.0, points)
+    rows = np.arange(center.size)[:, None]
+    for _ in range(rounds):
+        v = center[:, None] + half[:, None] * offsets
+        j = sign[:, None] * current_at_bias(table, v, model=model, grid=grid)
+        best = np.clip(np.argmax(j, axis=1), 1, points - 2)
+        pick = best[:, None] + np.array([-1, 0, 1])
+        center, y = _parabola_vertex(v[rows, pick], j[rows, pick])
+        half = half * 2.0 / (points - 1)
+    return center, sign * y
+
+
+def sweep(
+    table: LayerTable,
+    bias_v: np.ndarray,
+    *,
+    model: ModelOptions = ModelOptions(),
+    grid: EnergyGrid = EnergyGrid(),
+    refine: bool = True,
+) -> IVCurves:
+    """I-V sweep of every stack in ``table`` with figures of merit.
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks (same layer count).
+    bias_v
+        ``(n_biases,)`` biases, sorted increasing. Metrics are taken on the
+        forward branch (``V > 0``) when it has at least three points, else on
+        the reverse branch with magnitudes.
+    model
+        Model options (slice width; electrostatics and broadening as selected).
+    grid
+        Adaptive energy grid settings.
+    refine
+        Locate peak and valley more finely than the sweep grid.
+    """
+    bias = np.asarray(bias_v, float)
+    if bias.ndim != 1 or bias.size < 1 or np.any(np.diff(bias) <= 0):
+        raise ValueError("bias_v must be a 1-D strictly increasing array")
+    j = current_at_bias(table, bias, model=model, grid=grid)
+    metrics = {name: np.full(table.n_stacks, np.nan) for name in METRIC_NAMES}
+
+    forward = bias >= 0
+    if np.count_nonzero(bias > 0) >= 3:
+        sel, sign = np.nonzero(forward)[0], 1.0
+    elif np.count_nonzero(bias < 0) >= 3:
+        sel, sign = np.nonzero(~forward)[0][::-1], -1.0
+    else:
+        return IVCurves(bias, j, metrics)
+    v_side = bias[sel]
+    j_side = sign * j[:, sel]
+    ip, iv = locate_peak_valley(np.abs(v_side), j_side)
+    has = ip >= 0
+    if not np.any(has):
+        return IVCurves(bias, j, metrics)
+
+    rows = np.nonzero(has)[0]
+    vp, jp = v_side[ip[rows]], j_side[rows, ip[rows]]
+    vv, jv = v_side[iv[rows]], j_side[rows, iv[rows]]
+    if refine:
+        step = np.abs(np.diff(v_side)).max() if v_side.size > 1 else 0.0
+        sub = table.take(rows)
+        n = rows.size
+        extremum = np.concatenate([np.ones(n), -np.ones(n)])  # maximise J at peaks, -J at valleys
+        c, y = _refine(
+            LayerTable.concatenate([sub, sub]),
+            model,
+            grid,
+            np.concatenate([vp, vv]),
+            np.full(2 * n, step),
+            extremum * sign,
+        )
+        y = sign * y  # back to magnitudes on this branch
+        vp, jp = c[:n], np.maximum(y[:n], jp)
+        interior = iv[rows] < v_side.size - 1  # a valley on the sweep's last point stays there
+        vv = np.where(interior, c[n:], vv)
+        jv = np.where(interior, np.minimum(y[n:], jv), jv)
+    metrics["peak_current_density_a_cm2"][rows] = jp
+    metrics["peak_voltage_v"][rows] = vp
+    metrics["valley_current_density_a_cm2"][rows] = jv
+    metrics["valley_voltage_v"][rows] = vv
+    metrics["pvcr"][rows] = jp / np.where(jv > 0, jv, np.nan)
+    metrics["delta_current_density_a_cm2"][rows] = jp - jv
+    metrics["delta_voltage_v"][rows] = np.abs(vv - vp)
+    return IVCurves(bias, j, metrics)
+
+
+def stack_iv(stack: Stack, bias_v: np.ndarray, *, grid: EnergyGrid = EnergyGrid(), refine: bool = True) -> IVCurves:
+    """I-V sweep of one stack (``n_stacks = 1``) with the stack's own model options."""
+    return sweep(stack.table(), bias_v, model=stack.model, grid=grid, refine=refine)
+
+
+def external_bias_v(bias_v: np.ndarray, current_density_a_cm2: np.ndarray, series_resistance_ohm_um2: float) -> np.ndarray:
+    """Terminal bias with a series resistance: ``V_ext = V + J R`` (R in ohm um^2, J in A/cm^2)."""
+    return np.asarray(bias_v) + np.asarray(current_density_a_cm2) * series_resistance_ohm_um2 * 1e-8

@@ -1,0 +1,488 @@
+"""Stack files: parse and validate a layer stack, resolve its materials.
+
+A stack file is TOML. The first and last layers are the contacts
+(semi-infinite, n-doped); every layer between them needs exactly one of
+``thickness_ml`` or ``thickness_nm``. See ``studies/README.md`` for the
+format key by key.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+import warnings
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from . import materials
+from .errors import InputError
+
+__all__ = [
+    "Layer",
+    "ModelOptions",
+    "DeviceOptions",
+    "Stack",
+    "LayerTable",
+    "load_stack",
+    "parse_stack",
+    "CriticalThicknessWarning",
+]
+
+#: Largest layer thickness accepted between the contacts; thicker is surely a typo.
+MAX_THICKNESS_NM = 1000.0
+MAX_DOPING_CM3 = 1e21
+TEMPERATURE_RANGE_K = (1.0, 1000.0)
+ELECTROSTATICS_MODELS = ("linear", "self-consistent")
+
+LAYER_KEYS = {
+    "name": str,
+    "material": str,
+    "x": float,
+    "thickness_ml": float,
+    "thickness_nm": float,
+    "doping_cm3": float,
+    "conduction_band_ev": float,
+    "mass_m0": float,
+    "nonparabolicity_per_ev": float,
+    "monolayer_nm": float,
+    "permittivity_r": float,
+}
+CUSTOM_REQUIRED = ("conduction_band_ev", "mass_m0")
+MODEL_KEYS = {
+    "nonparabolicity": bool,
+    "strain": bool,
+    "electrostatics": str,
+    "broadening_mev": float,
+    "slice_nm": float,
+}
+DEVICE_KEYS = {"area_um2": float, "series_resistance_ohm_um2": float}
+TOP_KEYS = {"temperature_k", "substrate", "model", "device", "layers"}
+
+
+class CriticalThicknessWarning(UserWarning):
+    """A strained layer is thicker than its Matthews-Blakeslee critical thickness."""
+
+
+@dataclass(frozen=True)
+class Layer:
+    """One resolved layer: what was asked for and the parameters the physics uses."""
+
+    name: str
+    material: str  #: canonical material name, or "custom"
+    x: float | None
+    thickness_nm: float  #: 0 for a contact given without thickness
+    thickness_ml: float | None  #: monolayers, when the layer has a monolayer thickness
+    doping_cm3: float
+    conduction_band_ev: float  #: band edge on the materials' common scale
+    mass_m0: float
+    nonparabolicity_per_ev: float
+    monolayer_nm: float | None
+    permittivity_r: float
+    strain_xx: float = 0.0
+
+    @property
+    def label(self) -> str:
+        """Trade notation, e.g. ``In0.53Ga0.47As``."""
+        if self.material == "custom":
+            return "custom"
+        return materials.trade_name(self.material, self.x)
+
+
+@dataclass(frozen=True)
+class ModelOptions:
+    """Physics switches of a stack file's ``[model]`` table."""
+
+    nonparabolicity: bool = True
+    strain: bool = True
+    electrostatics: str = "linear"
+    broadening_mev: float = 0.0
+    slice_nm: float = 0.25  #: slice width for the linear potential inside layers
+
+
+@dataclass(frozen=True)
+class DeviceOptions:
+    """Optional ``[device]`` table: mesa area and series resistance."""
+
+    area_um2: float | None = None
+    series_resistance_ohm_um2: float = 0.0
+
+
+@dataclass(frozen=True)
+class Stack:
+    """A validated layer stack. Data only; the physics is in functions."""
+
+    layers: tuple[Layer, ...]
+    temperature_k: float = 300.0
+    substrate: str | None = None
+    model: ModelOptions = field(default_factory=ModelOptions)
+    device: DeviceOptions = field(default_factory=DeviceOptions)
+    source: str = "<dict>"
+
+    @property
+    def active_thickness_nm(self) -> float:
+        """Total thickness between the contacts."""
+        return float(sum(layer.thickness_nm for layer in self.layers[1:-1]))
+
+    def table(self) -> LayerTable:
+        """The stack as a one-row :class:`LayerTable` for the kernel."""
+        return LayerTable.from_stacks([self])
+
+
+@dataclass(frozen=True)
+class LayerTable:
+    """Layer parameters of one or more stacks with the same layer count.
+
+    Every array has shape ``(n_stacks, n_layers)`` except ``temperature_k``
+    ``(n_stacks,)``. This is the plain record the kernel, the search and the
+    tolerance analysis exchange; contacts are columns 0 and -1 (their
+    thickness is ignored by the physics).
+    """
+
+    edge_ev: np.ndarray
+    mass_m0: np.ndarray
+    nonparabolicity_per_ev: np.ndarray
+    thickness_nm: np.ndarray
+    doping_cm3: np.ndarray
+    permittivity_r: np.ndarray
+    temperature_k: np.ndarray
+
+    @property
+    def n_stacks(self) -> int:
+        return self.edge_ev.shape[0]
+
+    @property
+    def n_layers(self) -> int:
+        return self.edge_ev.shape[1]
+
+    @classmethod
+    def from_stacks(cls, stacks: list[Stack] | tuple[Stack, ...]) -> LayerTable:
+        """Stack the layer parameters of stacks with equal layer counts."""
+        counts = {len(s.layers) for s in stacks}
+        if len(counts) != 1:
+            raise ValueError(f"stacks in one table need the same layer count, got {sorted(counts)}")
+
+        def col(attr: str) -> np.ndarray:
+            return np.array([[getattr(layer, attr) for layer in s.layers] for s in stacks], float)
+
+        alpha = col("nonparabolicity_per_ev")
+        alpha *= np.array([[s.model.nonparabolicity] for s in stacks], float)
+        return cls(
+            edge_ev=col("conduction_band_ev"),
+            mass_m0=col("mass_m0"),
+            nonparabolicity_per_ev=alpha,
+            thickness_nm=col("thickness_nm"),
+            doping_cm3=col("doping_cm3"),
+            permittivity_r=col("permittivity_r"),
+            temperature_k=np.array([s.temperature_k for s in stacks], float),
+        )
+
+    def with_thickness_nm(self, thickness_nm: np.ndarray) -> LayerTable:
+        """A copy with new thicknesses, broadcast to ``(n_stacks, n_layers)``."""
+        return replace(self, thickness_nm=np.broadcast_to(thickness_nm, self.edge_ev.shape).copy())
+
+    def take(self, index: np.ndarray | slice) -> LayerTable:
+        """Rows ``index`` of every array."""
+        return LayerTable(**{k: v[index] for k, v in self.__dict__.items()})
+
+    @classmethod
+    def concatenate(cls, tables: list[LayerTable]) -> LayerTable:
+        """Rows of several tables (same layer count) in one."""
+        return cls(**{k: np.concatenate([t.__dict__[k] for t in tables]) for k in cls.__dataclass_fields__})
+
+
+# --------------------------------------------------------------------------- parsing
+
+
+def load_stack(path: str | Path) -> Stack:
+    """Read and validate a stack file.
+
+    Raises
+    ------
+    InputError
+        For a missing or unreadable file, bad TOML or any invalid entry.
+    """
+    path = Path(path)
+    source = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("file not found", source=source) from None
+    except OSError as exc:
+        raise InputError(f"cannot read file ({exc.strerror})", source=source) from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc})", source=source) from None
+    return parse_stack(data, source=source)
+
+
+def _typed(value: Any, kind: type, *, source: str, layer: int | None, key: str) -> Any:
+    """Check one value's type (ints are accepted for floats, bools are not)."""
+    if kind is float:
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise InputError(f"must be a number, got {value!r}", source=source, layer=layer, key=key)
+        value = float(value)
+        if not math.isfinite(value):
+            raise InputError(f"must be finite, got {value!r}", source=source, layer=layer, key=key)
+        return value
+    if not isinstance(value, kind):
+        raise InputError(
+            f"must be a {kind.__name__}, got {value!r}", source=source, layer=layer, key=key
+        )
+    return value
+
+
+def _table(data: Any, allowed: dict[str, type], *, source: str, name: str) -> dict[str, Any]:
+    if not isinstance(data, dict):
+        raise InputError("must be a table", source=source, key=name)
+    out = {}
+    for key, value in data.items():
+        if key not in allowed:
+            raise InputError(
+                f"unknown key; allowed: {', '.join(sorted(allowed))}", source=source, key=f"{name}.{key}"
+            )
+        out[key] = _typed(value, allowed[key], source=source, layer=None, key=f"{name}.{key}")
+    return out
+
+
+def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
+    """Validate a stack given as the dictionary of a parsed stack file.
+
+    Parameters
+    ----------
+    data
+        The TOML document as a dictionary (keys as in the stack file).
+    source
+        Name used in error messages.
+
+    Raises
+    ------
+    InputError
+        Naming the file, the layer index and the key, with the allowed range.
+    """
+    if not isinstance(data, dict):
+        raise InputError("stack must be a table", source=source)
+    for key in data:
+        if key not in TOP_KEYS:
+            raise InputError(f"unknown key; allowed: {', '.join(sorted(TOP_KEYS))}", source=source, key=key)
+
+    temperature_k = _typed(data.get("temperature_k", 300.0), float, source=source, layer=None, key="temperature_k")
+    lo, hi = TEMPERATURE_RANGE_K
+    if not lo <= temperature_k <= hi:
+        raise InputError(f"{temperature_k:g} outside [{lo:g}, {hi:g}] K", source=source, key="temperature_k")
+
+    model = ModelOptions(**_table(data.get("model", {}), MODEL_KEYS, source=source, name="model"))
+    if model.electrostatics not in ELECTROSTATICS_MODELS:
+        raise InputError(
+            f"'{model.electrostatics}' is not one of {', '.join(ELECTROSTATICS_MODELS)}",
+            source=source,
+            key="model.electrostatics",
+        )
+    if not 0.0 <= model.broadening_mev <= 100.0:
+        raise InputError(f"{model.broadening_mev:g} outside [0, 100] meV", source=source, key="model.broadening_mev")
+    if not 0.01 <= model.slice_nm <= 2.0:
+        raise InputError(f"{model.slice_nm:g} outside [0.01, 2] nm", source=source, key="model.slice_nm")
+
+    device = DeviceOptions(**_table(data.get("device", {}), DEVICE_KEYS, source=source, name="device"))
+    if device.area_um2 is not None and not 0.0 < device.area_um2 <= 1e8:
+        raise InputError(f"{device.area_um2:g} outside (0, 1e8] um^2", source=source, key="device.area_um2")
+    if not 0.0 <= device.series_resistance_ohm_um2 <= 1e6:
+        raise InputError(
+            f"{device.series_resistance_ohm_um2:g} outside [0, 1e6] ohm um^2",
+            source=source,
+            key="device.series_resistance_ohm_um2",
+        )
+
+    raw_layers = data.get("layers")
+    if not isinstance(raw_layers, list) or not all(isinstance(x, dict) for x in raw_layers):
+        raise InputError("needs a list of [[layers]] tables", source=source, key="layers")
+    if len(raw_layers) < 3:
+        raise InputError(
+            f"needs at least 3 layers (two contacts and one between), got {len(raw_layers)}",
+            source=source,
+            key="layers",
+        )
+
+    substrate = data.get("substrate")
+    if substrate is not None:
+        substrate = _typed(substrate, str, source=source, layer=None, key="substrate")
+        try:
+            sub_name, sub_x = materials.parse_material(substrate)
+        except ValueError as exc:
+            raise InputError(str(exc), source=source, key="substrate") from None
+    else:
+        first = raw_layers[0]
+        if first.get("material", "custom") == "custom":
+            sub_name, sub_x = None, None
+        else:
+            try:
+                sub_name, sub_x = materials.parse_material(str(first["material"]), first.get("x"))
+            except (ValueError, TypeError):
+                sub_name, sub_x = None, None  # the layer check below reports it
+    substrate_lattice_nm = (
+        None
+        if sub_name is None
+        else float(materials.lattice_constant_nm(sub_name, sub_x, temperature_k=temperature_k))
+    )
+
+    layers = []
+    names: set[str] = set()
+    n = len(raw_layers)
+    for i, raw in enumerate(raw_layers):
+        layer = _parse_layer(
+            raw,
+            index=i,
+            is_contact=i in (0, n - 1),
+            source=source,
+            temperature_k=temperature_k,
+            substrate_lattice_nm=substrate_lattice_nm,
+            model=model,
+        )
+        if layer.name in names:
+            raise InputError(f"name '{layer.name}' used twice", source=source, layer=i, key="name")
+        names.add(layer.name)
+        layers.append(layer)
+    return Stack(
+        layers=tuple(layers),
+        temperature_k=temperature_k,
+        substrate=None if sub_name is None else materials.trade_name(sub_name, sub_x),
+        model=model,
+        device=device,
+        source=source,
+    )
+
+
+def _parse_layer(
+    raw: dict[str, Any],
+    *,
+    index: int,
+    is_contact: bool,
+    source: str,
+    temperature_k: float,
+    substrate_lattice_nm: float | None,
+    model: ModelOptions,
+) -> Layer:
+    def err(message: str, key: str | None) -> InputError:
+        return InputError(message, source=source, layer=index, key=key)
+
+    values = {}
+    for key, value in raw.items():
+        if key not in LAYER_KEYS:
+            raise err(f"unknown key; allowed: {', '.join(sorted(LAYER_KEYS))}", key)
+        values[key] = _typed(value, LAYER_KEYS[key], source=source, layer=index, key=key)
+
+    if "material" not in values:
+        raise err("missing; give a material name such as 'GaAs' or 'In0.53Ga0.47As', or 'custom'", "material")
+    default_name = "emitter" if index == 0 else ("collector" if is_contact else f"layer{index}")
+    name = values.get("name", default_name)
+
+    # material parameters
+    if values["material"] == "custom":
+        for key in CUSTOM_REQUIRED:
+            if key not in values:
+                raise err("missing; a custom material needs conduction_band_ev and mass_m0", key)
+        if "x" in values:
+            raise err("a custom material takes no composition", "x")
+        material, x = "custom", None
+        edge = values["conduction_band_ev"]
+        mass = values["mass_m0"]
+        alpha = values.get("nonparabolicity_per_ev", 0.0)
+        monolayer = values.get("monolayer_nm")
+        permittivity = values.get("permittivity_r", 12.9)  # GaAs-like default, see docs
+        strain_xx = 0.0
+    else:
+        if "x" in values and not 0.0 <= values["x"] <= 1.0:
+            raise err(f"{values['x']:g} outside [0, 1]", "x")
+        try:
+            material, x = materials.parse_material(values["material"], values.get("x"))
+        except ValueError as exc:
+            raise err(str(exc), "x" if "x" in values and "allowed range" in str(exc) else "material") from None
+        params = materials.material_parameters(
+            material,
+            x,
+            temperature_k=temperature_k,
+            substrate_lattice_nm=substrate_lattice_nm,
+            strain=model.strain,
+        )
+        edge = values.get("conduction_band_ev", float(params.conduction_band_ev))
+        mass = values.get("mass_m0", float(params.mass_m0))
+        alpha = values.get("nonparabolicity_per_ev", float(params.nonparabolicity_per_ev))
+        monolayer = values.get("monolayer_nm", float(params.monolayer_nm))
+        permittivity = values.get("permittivity_r", float(params.permittivity_r))
+        strain_xx = float(params.strain_xx)
+
+    if not 0.001 <= mass <= 10.0:
+        raise err(f"{mass:g} outside [0.001, 10]", "mass_m0")
+    if not 0.0 <= alpha <= 50.0:
+        raise err(f"{alpha:g} outside [0, 50] 1/eV", "nonparabolicity_per_ev")
+    if not -20.0 <= edge <= 20.0:
+        raise err(f"{edge:g} outside [-20, 20] eV", "conduction_band_ev")
+    if monolayer is not None and not 0.05 <= monolayer <= 2.0:
+        raise err(f"{monolayer:g} outside [0.05, 2] nm", "monolayer_nm")
+    if not 1.0 <= permittivity <= 100.0:
+        raise err(f"{permittivity:g} outside [1, 100]", "permittivity_r")
+
+    doping = values.get("doping_cm3", 0.0)
+    if not 0.0 <= doping <= MAX_DOPING_CM3:
+        raise err(f"{doping:g} outside [0, {MAX_DOPING_CM3:g}] cm^-3", "doping_cm3")
+    if is_contact and doping <= 0.0:
+        raise err("contacts must be n-doped; give doping_cm3 > 0 (typically 1e17 to 5e18)", "doping_cm3")
+
+    # thickness
+    has_ml, has_nm = "thickness_ml" in values, "thickness_nm" in values
+    if has_ml and has_nm:
+        raise err("give exactly one of thickness_ml and thickness_nm, not both", "thickness_nm")
+    if not is_contact and not (has_ml or has_nm):
+        raise err("missing; give thickness_ml or thickness_nm", "thickness_ml")
+    thickness_ml = None
+    thickness_nm = 0.0
+    if has_ml:
+        if monolayer is None:
+            raise err("thickness_ml needs monolayer_nm for a custom material", "thickness_ml")
+        thickness_ml = values["thickness_ml"]
+        max_ml = MAX_THICKNESS_NM / monolayer
+        if not 0.0 < thickness_ml <= max_ml:
+            raise err(f"{thickness_ml:g} outside (0, {max_ml:.0f}] monolayers", "thickness_ml")
+        thickness_nm = thickness_ml * monolayer
+    elif has_nm:
+        thickness_nm = values["thickness_nm"]
+        if not 0.0 < thickness_nm <= MAX_THICKNESS_NM:
+            raise err(f"{thickness_nm:g} outside (0, {MAX_THICKNESS_NM:g}] nm", "thickness_nm")
+        if monolayer is not None:
+            thickness_ml = thickness_nm / monolayer
+
+    if (
+        not is_contact
+        and material != "custom"
+        and model.strain
+        and substrate_lattice_nm is not None
+        and abs(strain_xx) > 1e-5
+    ):
+        h_c = materials.critical_thickness_nm(
+            material, x, substrate_lattice_nm=substrate_lattice_nm, temperature_k=temperature_k
+        )
+        if thickness_nm > h_c:
+            warnings.warn(
+                f"{source}, layer {index} ('{name}'): {thickness_nm:.2f} nm exceeds the "
+                f"Matthews-Blakeslee critical thickness {h_c:.2f} nm; it may relax",
+                CriticalThicknessWarning,
+                stacklevel=4,
+            )
+
+    return Layer(
+        name=name,
+        material=material,
+        x=x,
+        thickness_nm=float(thickness_nm),
+        thickness_ml=None if thickness_ml is None else float(thickness_ml),
+        doping_cm3=float(doping),
+        conduction_band_ev=float(edge),
+        mass_m0=float(mass),
+        nonparabolicity_per_ev=float(alpha),
+        monolayer_nm=None if monolayer is None else float(monolayer),
+        permittivity_r=float(permittivity),
+        strain_xx=strain_xx,
+    )

@@ -1,0 +1,407 @@
+"""Tests of physics.materials.
+
+Reference values: V = I. Vurgaftman, J. R. Meyer and L. R. Ram-Mohan, J. Appl.
+Phys. 89, 5815 (2001), recommended-parameter tables, check values from memory
+of the tables (the same memory as the data module, so these checks pin the
+transcription and the formulas; they are not an independent reading of the
+paper). Other sources are named beside each check.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from physics import materials as m
+from physics.material_data import BINARIES, TERNARIES
+
+INP_NM = m.lattice_constant_nm("InP")
+GAAS_NM = m.lattice_constant_nm("GaAs")
+
+
+def varshni(eg0: float, alpha_mev_k: float, beta_k: float, t: float) -> float:
+    """Varshni, Physica 34, 149 (1967), written out independently of the module."""
+    return eg0 - alpha_mev_k * 1e-3 * t * t / (t + beta_k)
+
+
+# ----------------------------------------------------------------------------- reference values
+
+
+def test_gaas_table_values() -> None:
+    gaas = BINARIES["GaAs"]
+    assert gaas.gap_gamma_0k_ev == 1.519  # V, GaAs: Eg(Gamma, 0 K) = 1.519 eV (from memory)
+    assert gaas.varshni_alpha_mev_per_k == 0.5405  # V, GaAs: alpha = 0.5405 meV/K (from memory)
+    assert gaas.varshni_beta_k == 204.0  # V, GaAs: beta = 204 K (from memory)
+    # Near 0 K the Varshni gap returns Eg(0); 1e-6 eV covers T = 0.01 K.
+    assert m.band_parameters("GaAs", temperature_k=0.01)["gap_ev"] == pytest.approx(1.519, abs=1e-6)
+
+
+def test_gaas_gap_300k_widely_quoted_value() -> None:
+    # 1.424 eV at 300 K: J. S. Blakemore, J. Appl. Phys. 53, R123 (1982) (from memory),
+    # the widely quoted value. Varshni with V's parameters gives 1.4225 eV: 3 meV tolerance.
+    assert m.material_parameters("GaAs").gap_ev == pytest.approx(1.424, abs=3e-3)
+
+
+@pytest.mark.parametrize(
+    ("name", "mass"),
+    [("GaAs", 0.067), ("InAs", 0.026), ("InP", 0.0795), ("AlAs", 0.15)],  # V (from memory)
+)
+def test_gamma_masses(name: str, mass: float) -> None:
+    assert m.material_parameters(name).mass_m0 == pytest.approx(mass, rel=1e-12)
+
+
+def test_lattice_constants_300k() -> None:
+    assert m.lattice_constant_nm("AlAs") == pytest.approx(0.56611, rel=1e-12)  # V: 5.6611 A
+    assert GAAS_NM == pytest.approx(0.565325, rel=1e-12)  # V: 5.65325 A (from memory)
+    assert INP_NM == pytest.approx(0.58697, rel=1e-12)  # V: 5.8697 A (from memory)
+
+
+def test_thermal_expansion() -> None:
+    # V, GaAs: da/dT = 3.88e-5 A/K (from memory); a(T) = a(300 K) + da/dT (T - 300 K).
+    delta_nm = m.lattice_constant_nm("GaAs", temperature_k=77.0) - GAAS_NM
+    assert delta_nm == pytest.approx(3.88e-6 * (77.0 - 300.0), rel=1e-9)
+
+
+def test_inp_valence_band_offset() -> None:
+    # V: VBO(InP) = -0.94 eV on the scale with the InSb VBM at 0 (from memory).
+    assert m.band_parameters("InP")["valence_band_offset_ev"] == pytest.approx(-0.94, abs=1e-12)
+    assert m.band_parameters("InSb")["valence_band_offset_ev"] == 0.0
+
+
+def test_ingaas_lattice_matched_to_inp() -> None:
+    # In0.53Ga0.47As is the alloy lattice matched to InP (common practice); Vegard with V's
+    # binaries gives 1.7e-4 relative mismatch, checked to the 1e-3 the trade calls matched.
+    a = m.lattice_constant_nm("InGaAs", 0.53)
+    assert abs(a - INP_NM) / INP_NM < 1e-3
+    a = m.lattice_constant_nm("InAlAs", 0.52)  # In0.52Al0.48As likewise (common practice)
+    assert abs(a - INP_NM) / INP_NM < 1e-3
+
+
+def test_ingaas_gap_300k() -> None:
+    # Measured room-temperature gap of In0.53Ga0.47As about 0.74-0.75 eV (common practice;
+    # e.g. T. P. Pearsall (ed.), GaInAsP Alloy Semiconductors (Wiley 1982), from memory).
+    # V's bowing 0.477 eV gives 0.737 eV; 12 meV tolerance around 0.745 eV.
+    assert m.material_parameters("InGaAs", 0.53).gap_ev == pytest.approx(0.745, abs=0.012)
+
+
+def test_gaas_alas_gamma_offset() -> None:
+    # Gamma-Gamma conduction-band offset AlAs/GaAs about 1.0 eV: V's VBO difference 0.53 eV
+    # plus gap difference (from memory); 0.1 eV tolerance for the spread quoted in practice.
+    offset = m.material_parameters("AlAs").conduction_band_ev
+    offset -= m.material_parameters("GaAs").conduction_band_ev
+    assert offset == pytest.approx(1.05, abs=0.1)
+
+
+def test_ingaas_inalas_offset() -> None:
+    # In0.53Ga0.47As / In0.52Al0.48As conduction-band offset about 0.52 eV (common practice,
+    # widely quoted for the InP-matched pair); 50 meV tolerance.
+    offset = m.material_parameters("InAlAs", 0.52).conduction_band_ev
+    offset -= m.material_parameters("InGaAs", 0.53).conduction_band_ev
+    assert offset == pytest.approx(0.52, abs=0.05)
+
+
+def test_conduction_band_is_vbo_plus_gap() -> None:
+    p = m.material_parameters("InP", temperature_k=77.0)
+    assert p.conduction_band_ev == pytest.approx(-0.94 + varshni(1.4236, 0.363, 162.0, 77.0))
+
+
+def test_nonparabolicity_kane_form() -> None:
+    # alpha = (1 - m*/m0)^2 / Eg: Nelson, Miller, Kleinman, PRB 35, 7770 (1987) (form from memory).
+    p = m.material_parameters("GaAs")
+    assert p.nonparabolicity_per_ev == pytest.approx((1 - 0.067) ** 2 / p.gap_ev, rel=1e-12)
+    assert 0.5 < p.nonparabolicity_per_ev < 0.7  # GaAs ~0.6 1/eV (common practice)
+
+
+def test_permittivity() -> None:
+    # Static permittivity of GaAs 12.9: S. Adachi, Properties of Group-IV, III-V and II-VI
+    # Semiconductors (Wiley 2005), from memory.
+    assert m.material_parameters("GaAs").permittivity_r == pytest.approx(12.9, abs=0.05)
+
+
+# ----------------------------------------------------------------------------- ternaries
+
+_FIELDS = (
+    "conduction_band_ev",
+    "mass_m0",
+    "nonparabolicity_per_ev",
+    "gap_ev",
+    "lattice_nm",
+    "monolayer_nm",
+    "strain_xx",
+    "permittivity_r",
+)
+
+
+@pytest.mark.parametrize("name", list(TERNARIES))
+def test_ternary_end_points_are_binaries(name: str) -> None:
+    alloy = TERNARIES[name]
+    for x, binary in ((0.0, alloy.binary_x0), (1.0, alloy.binary_x1)):
+        for kw in ({}, {"substrate_lattice_nm": INP_NM}):
+            a = m.material_parameters(name, x, temperature_k=77.0, **kw)
+            b = m.material_parameters(binary, temperature_k=77.0, **kw)
+            for f in _FIELDS:
+                assert getattr(a, f) == pytest.approx(getattr(b, f), rel=1e-12, abs=1e-15), f
+        tern, bin_ = m.band_parameters(name, x), m.band_parameters(binary)
+        assert tern == pytest.approx(bin_, rel=1e-12, abs=1e-15)
+
+
+def test_ingaas_gap_bowing_midpoint() -> None:
+    # V: In(x)Ga(1-x)As Gamma-gap bowing 0.477 eV (from memory); midpoint at 300 K.
+    expected = 0.5 * varshni(0.417, 0.276, 93.0, 300.0) + 0.5 * varshni(1.519, 0.5405, 204.0, 300.0)
+    expected -= 0.25 * 0.477
+    assert m.material_parameters("InGaAs", 0.5).gap_ev == pytest.approx(expected, rel=1e-12)
+
+
+def test_algaas_x_dependent_gap_bowing() -> None:
+    # V: Al(x)Ga(1-x)As Gamma-gap bowing C = -0.127 + 1.310 x (from memory); 0 K limit, x = 0.5.
+    expected = 0.5 * 1.519 + 0.5 * 3.099 - 0.25 * (-0.127 + 1.310 * 0.5)
+    gap = m.band_parameters("AlGaAs", 0.5, temperature_k=1e-3)["gap_ev"]
+    assert gap == pytest.approx(expected, abs=1e-6)
+
+
+def test_inalas_bowed_vbo_and_mass() -> None:
+    # V: In(x)Al(1-x)As bowing of VBO -0.64 eV and of the mass 0.049 (from memory).
+    p = m.band_parameters("InAlAs", 0.5)
+    assert p["valence_band_offset_ev"] == pytest.approx(0.5 * (-0.59 - 1.33) + 0.25 * 0.64)
+    assert p["mass_m0"] == pytest.approx(0.5 * (0.026 + 0.15) - 0.25 * 0.049)
+
+
+# ----------------------------------------------------------------------------- strain
+
+
+def test_matched_layer_has_no_strain() -> None:
+    for name, substrate in (("InP", INP_NM), ("GaAs", GAAS_NM)):
+        p = m.material_parameters(name, substrate_lattice_nm=substrate)
+        relaxed = m.material_parameters(name)
+        assert p.strain_xx == 0.0
+        assert p.conduction_band_ev == relaxed.conduction_band_ev
+        assert p.monolayer_nm == pytest.approx(relaxed.lattice_nm / 2, rel=1e-15)
+    # In0.53Ga0.47As on InP: 1.7e-4 from matched, so |a_c| (2 - 2 c12/c11) 1.7e-4 ~ 2 meV.
+    shift = m.material_parameters("InGaAs", 0.53, substrate_lattice_nm=INP_NM).conduction_band_ev
+    shift -= m.material_parameters("InGaAs", 0.53).conduction_band_ev
+    assert abs(shift) < 3e-3
+
+
+def test_alas_on_inp_tensile() -> None:
+    p = m.material_parameters("AlAs", substrate_lattice_nm=INP_NM)
+    relaxed = m.material_parameters("AlAs")
+    eps_xx = (0.58697 - 0.56611) / 0.56611  # V lattice constants (from memory)
+    assert p.strain_xx == pytest.approx(eps_xx, rel=1e-12)
+    assert p.strain_xx > 0  # tension
+    eps_zz = -2 * 534 / 1250 * eps_xx  # V: c12 = 534, c11 = 1250 GPa (from memory)
+    assert p.monolayer_nm == pytest.approx(0.56611 * (1 + eps_zz) / 2, rel=1e-12)
+    assert p.monolayer_nm < relaxed.monolayer_nm
+    # Van de Walle, PRB 39, 1871 (1989): dEc = a_c (2 eps_xx + eps_zz), a_c = -5.64 eV (V).
+    shift = p.conduction_band_ev - relaxed.conduction_band_ev
+    assert shift == pytest.approx(-5.64 * (2 * eps_xx + eps_zz), rel=1e-12)
+    assert shift < 0
+    assert p.gap_ev == relaxed.gap_ev  # gap_ev stays unstrained
+
+
+def test_inas_on_inp_compressive() -> None:
+    p = m.material_parameters("InAs", substrate_lattice_nm=INP_NM)
+    relaxed = m.material_parameters("InAs")
+    assert p.strain_xx < 0
+    assert p.monolayer_nm > relaxed.monolayer_nm
+    assert p.conduction_band_ev > relaxed.conduction_band_ev  # a_c < 0, compressed volume
+
+
+def test_strain_false_or_no_substrate_is_relaxed() -> None:
+    a = m.material_parameters("InAs", substrate_lattice_nm=INP_NM, strain=False)
+    assert a == m.material_parameters("InAs")
+    assert a.strain_xx == 0.0 and a.monolayer_nm == a.lattice_nm / 2
+
+
+# ----------------------------------------------------------------------------- critical thickness
+
+
+def test_critical_thickness_infinite_when_matched() -> None:
+    assert m.critical_thickness_nm("InP", substrate_lattice_nm=INP_NM) == math.inf
+    assert m.critical_thickness_nm("GaAs", substrate_lattice_nm=GAAS_NM) == math.inf
+
+
+def test_critical_thickness_decreases_with_mismatch() -> None:
+    x = np.linspace(0.05, 1.0, 40)
+    h = m.critical_thickness_nm("InGaAs", x, substrate_lattice_nm=GAAS_NM)
+    assert h.shape == x.shape
+    assert np.all(np.diff(h) < 0)
+
+
+@pytest.mark.parametrize(("name", "x"), [("AlAs", None), ("InAs", None), ("InGaAs", 0.2)])
+def test_critical_thickness_solves_its_equation(name: str, x: float | None) -> None:
+    # Matthews and Blakeslee, J. Cryst. Growth 27, 118 (1974), 60-degree dislocations.
+    h = m.critical_thickness_nm(name, x, substrate_lattice_nm=INP_NM if x is None else GAAS_NM)
+    bp = m.band_parameters(name, x)
+    a = bp["lattice_nm"]
+    s = INP_NM if x is None else GAAS_NM
+    b, f = a / math.sqrt(2), abs(s - a) / a
+    nu = bp["c12_gpa"] / (bp["c11_gpa"] + bp["c12_gpa"])
+    rhs = b * (1 - nu * 0.25) / (2 * math.pi * f * (1 + nu) * 0.5) * (math.log(h / b) + 1)
+    assert h == pytest.approx(rhs, rel=1e-10)
+    assert h > b * (1 - nu * 0.25) / (2 * math.pi * f * (1 + nu) * 0.5)  # the larger root
+
+
+def test_alas_on_inp_critical_thickness_magnitude() -> None:
+    # Common practice: pseudomorphic AlAs barriers on InP are kept to a few nm. Matthews-
+    # Blakeslee for the 3.7 % misfit gives about 10 nm; check the order of magnitude.
+    h = m.critical_thickness_nm("AlAs", substrate_lattice_nm=INP_NM)
+    assert 2.0 < h < 20.0
+
+
+def test_matthews_blakeslee_limits() -> None:
+    assert m.matthews_blakeslee_thickness_nm(0.0, burgers_nm=0.4, poisson_ratio=0.3) == math.inf
+    assert m.matthews_blakeslee_thickness_nm(9e-6, burgers_nm=0.4, poisson_ratio=0.3) == math.inf
+    # Misfit so large that no root exists (prefactor K < 1): documented to return 0.
+    assert m.matthews_blakeslee_thickness_nm(0.3, burgers_nm=0.4, poisson_ratio=0.3) == 0.0
+    # At K = 1 exactly the double root is h = b.
+    f = (1 - 0.3 * 0.25) / (math.pi * (1 + 0.3))
+    h = m.matthews_blakeslee_thickness_nm(f, burgers_nm=0.4, poisson_ratio=0.3)
+    assert h == pytest.approx(0.4, rel=1e-6)
+
+
+# ----------------------------------------------------------------------------- names
+
+
+@pytest.mark.parametrize(
+    ("args", "expected"),
+    [
+        (("In0.53Ga0.47As",), ("InGaAs", 0.53)),
+        (("Al0.3Ga0.7As",), ("AlGaAs", 0.3)),
+        (("In0.52Al0.48As",), ("InAlAs", 0.52)),
+        (("Ga0.47In0.53As",), ("InGaAs", 0.53)),
+        (("GaAs0.51Sb0.49",), ("GaAsSb", 0.49)),
+        (("InGaAs", 0.53), ("InGaAs", 0.53)),
+        (("ingaas", 0.53), ("InGaAs", 0.53)),
+        (("In0.53Ga0.47As", 0.53), ("InGaAs", 0.53)),
+        (("AlGaAs", 1), ("AlGaAs", 1.0)),
+        (("GaAs",), ("GaAs", None)),
+        ((" InP ",), ("InP", None)),
+    ],
+)
+def test_parse_material(args: tuple, expected: tuple) -> None:
+    assert m.parse_material(*args) == expected
+
+
+@pytest.mark.parametrize(
+    ("args", "match"),
+    [
+        (("Unobtainium",), r"unknown material 'Unobtainium'; known materials: GaAs, AlAs, InAs"),
+        (("In0.53Ga0.47P",), r"known materials: .*InGaAs"),
+        (("InGaAs", 1.3), r"x = 1.3 outside the allowed range \[0, 1\]"),
+        (("AlGaAs", -0.1), r"allowed range \[0, 1\]"),
+        (("AlGaAs", float("nan")), r"allowed range \[0, 1\]"),
+        (("In1.2Ga-0.2As",), r"known materials"),
+        (("In1.2Ga0.2As",), r"allowed range \[0, 1\]"),
+        (("In0.53Ga0.48As",), r"sum to 1.01; they must sum to 1"),
+        (("In0.53Ga0.47As", 0.5), r"has x = 0.53 but x = 0.5 was also given"),
+        (("GaAs", 0.2), r"GaAs is a binary and takes no composition"),
+        (("InGaAs",), r"InGaAs needs a composition x .* e.g. In0.53Ga0.47As"),
+        (("InGaAs", "a lot"), r"not a number"),
+    ],
+)
+def test_parse_material_errors(args: tuple, match: str) -> None:
+    with pytest.raises(ValueError, match=match) as info:
+        m.parse_material(*args)
+    assert "\n" not in str(info.value)
+
+
+def test_unknown_message_lists_all_known() -> None:
+    with pytest.raises(ValueError) as info:
+        m.parse_material("Si")
+    assert all(name in str(info.value) for name in m.KNOWN_MATERIALS)
+
+
+@pytest.mark.parametrize(
+    ("name", "x", "expected"),
+    [
+        ("InGaAs", 0.53, "In0.53Ga0.47As"),
+        ("AlGaAs", 0.3, "Al0.3Ga0.7As"),
+        ("InAlAs", 0.52, "In0.52Al0.48As"),
+        ("AlGaAs", 0.12345, "Al0.123Ga0.877As"),
+        ("InGaAs", 1.0, "In1Ga0As"),
+        ("AlAsSb", 0.44, "AlAs0.56Sb0.44"),
+        ("InP", None, "InP"),
+    ],
+)
+def test_trade_name(name: str, x: float | None, expected: str) -> None:
+    assert m.trade_name(name, x) == expected
+
+
+@given(st.integers(min_value=0, max_value=1000), st.sampled_from(list(TERNARIES)))
+def test_trade_name_round_trip(milli_x: int, name: str) -> None:
+    x = milli_x / 1000
+    assert m.parse_material(m.trade_name(name, x)) == (name, pytest.approx(x, abs=1e-12))
+
+
+def test_known_materials() -> None:
+    for name in ("GaAs", "AlAs", "InAs", "InP", "AlGaAs", "InGaAs", "InAlAs"):
+        assert name in m.KNOWN_MATERIALS
+
+
+# ----------------------------------------------------------------------------- validation
+
+
+@pytest.mark.parametrize("t", [0.0, -10.0, float("nan")])
+def test_bad_temperature(t: float) -> None:
+    with pytest.raises(ValueError, match="temperature_k"):
+        m.material_parameters("GaAs", temperature_k=t)
+    with pytest.raises(ValueError, match="temperature_k"):
+        m.lattice_constant_nm("GaAs", temperature_k=t)
+
+
+def test_bad_x_in_functions() -> None:
+    with pytest.raises(ValueError, match=r"allowed range \[0, 1\]"):
+        m.material_parameters("InGaAs", np.array([0.2, 1.5]))
+    with pytest.raises(ValueError, match=r"allowed range \[0, 1\]"):
+        m.critical_thickness_nm("InGaAs", 2.0, substrate_lattice_nm=INP_NM)
+    with pytest.raises(ValueError, match="binary"):
+        m.lattice_constant_nm("InP", 0.3)
+
+
+def test_bad_substrate() -> None:
+    with pytest.raises(ValueError, match="substrate_lattice_nm"):
+        m.material_parameters("InAs", substrate_lattice_nm=-1.0)
+
+
+# ----------------------------------------------------------------------------- vectorised
+
+
+@pytest.mark.parametrize("name", list(TERNARIES))
+def test_vectorised_matches_scalar(name: str) -> None:
+    x = np.linspace(0.0, 1.0, 7)
+    vec = m.material_parameters(name, x, temperature_k=150.0, substrate_lattice_nm=INP_NM)
+    h_vec = m.critical_thickness_nm(name, x, substrate_lattice_nm=INP_NM)
+    for i, xi in enumerate(x):
+        one = m.material_parameters(
+            name, float(xi), temperature_k=150.0, substrate_lattice_nm=INP_NM
+        )
+        for f in _FIELDS:
+            assert getattr(vec, f)[i] == pytest.approx(getattr(one, f), rel=1e-13, abs=1e-15), f
+        assert h_vec[i] == m.critical_thickness_nm(name, float(xi), substrate_lattice_nm=INP_NM)
+
+
+def test_vectorised_shape_and_types() -> None:
+    x = np.random.default_rng(0).uniform(0, 1, size=(100, 50))
+    p = m.material_parameters("InGaAs", x, substrate_lattice_nm=INP_NM)
+    for f in _FIELDS:
+        assert getattr(p, f).shape == x.shape
+    scalar = m.material_parameters("InGaAs", 0.53)
+    assert all(type(getattr(scalar, f)) is float for f in _FIELDS)
+
+
+def test_material_table() -> None:
+    rows = m.material_table()
+    keys = {
+        "material", "x", "lattice_nm", "gap_ev", "conduction_band_ev", "mass_m0",
+        "nonparabolicity_per_ev", "monolayer_nm", "permittivity_r", "source",
+    }  # fmt: skip
+    assert all(set(r) == keys for r in rows)
+    by_name = {r["material"]: r for r in rows}
+    for name in ("GaAs", "AlAs", "InAs", "InP", "In0.53Ga0.47As", "In0.52Al0.48As", "Al0.3Ga0.7As"):
+        assert name in by_name
+    assert "Vurgaftman" in by_name["In0.53Ga0.47As"]["source"]
+    assert by_name["In0.53Ga0.47As"]["x"] == 0.53
