@@ -66,9 +66,9 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
         ax.plot(m["valley_voltage_v"], m["valley_current_density_a_cm2"] / 1e3, "s", ms=9, mfc="none",
                 mec=PALETTE["green"], mew=2, label="valley")
         ax.annotate(
-            f"$J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.1f} kA/cm$^2$ at {m['peak_voltage_v'] * 1e3:.0f} mV\n"
-            f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.2f} kA/cm$^2$ at {m['valley_voltage_v'] * 1e3:.0f} mV\n"
-            f"PVCR = {m['pvcr']:.1f}",
+            f"$J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['peak_voltage_v'] * 1e3:.0f} mV\n"
+            f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['valley_voltage_v'] * 1e3:.0f} mV\n"
+            f"PVCR = {m['pvcr']:.1f}" if m["pvcr"] is not None else "PVCR undefined (valley current <= 0)",
             xy=(0.03, 0.97), xycoords="axes fraction", va="top", fontsize=10,
             bbox={"boxstyle": "round", "fc": "white", "ec": "0.7"},
         )
@@ -76,7 +76,7 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
         ax.text(0.03, 0.95, "no NDR in this sweep", transform=ax.transAxes, va="top")
     ax.set_xlabel("bias (V)")
     ax.set_ylabel("current density (kA/cm$^2$)")
-    ax.legend(loc="lower right")
+    ax.legend(loc="best")
     ax.set_title(title or "I-V (coherent Tsu-Esaki)")
     return fig
 

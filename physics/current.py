@@ -47,9 +47,9 @@ WINDOW_KT = 30.0
 class EnergyGrid:
     """Settings of the adaptive energy grid."""
 
-    n_coarse: int = 96  #: uniform points over the window
-    n_resonances: int = 3  #: resonances resolved per (stack, bias)
-    n_per_resonance: int = 48  #: Lorentzian-mapped points per resonance
+    n_coarse: int = 64  #: points over the window (quadratic map, dense at its lower edge)
+    n_resonances: int = 2  #: resonances resolved per (stack, bias), those carrying most current
+    n_per_resonance: int = 32  #: Gauss-Legendre nodes per resonance (sinh map)
     refine_iterations: int = 5
 
 
@@ -78,15 +78,53 @@ def energy_window_ev(profile: Profile, mu_emitter_ev, bias_v, kt_ev) -> tuple[np
     return low, high
 
 
-def _lorentzian_points(center, width, low, high, n):
-    """``n`` points per resonance from the map E = E_r + (G/2) tan(theta) over [low, high]."""
+_GL_NODES, _GL_WEIGHTS = np.polynomial.legendre.leggauss(32)
+
+
+def _linear_weights(nodes: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Weights ``w`` with ``sum(w f)`` = integral over [a, b] of the piecewise-linear interpolant of f.
+
+    ``nodes`` is ``batch + (n,)`` and sorted; ``a``, ``b`` are ``batch``.
+    """
+    e0, e1 = nodes[..., :-1], nodes[..., 1:]
+    h = np.maximum(e1 - e0, 1e-300)
+    lo = np.clip(a[..., None], e0, e1)
+    hi = np.clip(b[..., None], e0, e1)
+    w = np.zeros(nodes.shape)
+    w[..., :-1] += ((e1 - lo) ** 2 - (e1 - hi) ** 2) / (2.0 * h)
+    w[..., 1:] += ((hi - e0) ** 2 - (lo - e0) ** 2) / (2.0 * h)
+    return w
+
+
+def _resonance_intervals(center, width, spacing, low, high):
+    """Non-overlapping integration intervals around sorted resonances, ``batch + (n_res,)`` each."""
+    half_span = np.maximum(4.0 * spacing, 30.0 * width)
+    a = np.maximum(center - half_span, low[..., None])
+    b = np.minimum(center + half_span, high[..., None])
+    for r in range(center.shape[-1] - 1):  # cut overlapping neighbours halfway between centres
+        cut = 0.5 * (center[..., r] + center[..., r + 1])
+        overlap = b[..., r] > a[..., r + 1]
+        b[..., r] = np.where(overlap, np.maximum(np.minimum(b[..., r], cut), a[..., r]), b[..., r])
+        a[..., r + 1] = np.where(overlap, np.minimum(np.maximum(a[..., r + 1], cut), b[..., r + 1]), a[..., r + 1])
+    return a, np.maximum(a, b)
+
+
+def _resonance_rule(center, width, a, b, n):
+    """Nodes and weights for [a, b] under the map E = E_r + (G/2) sinh(s), Gauss-Legendre in s.
+
+    A Lorentzian becomes (G/2) sech(s) ds, smooth on any scale, so the rule
+    resolves a resonance of any width with a fixed number of nodes.
+    """
+    nodes, weights = np.polynomial.legendre.leggauss(n) if n != _GL_NODES.size else (_GL_NODES, _GL_WEIGHTS)
     half = 0.5 * width
-    th_lo = np.arctan((low[..., None] - center) / half)
-    th_hi = np.arctan((high[..., None] - center) / half)
-    frac = (np.arange(n) + 0.5) / n
-    theta = th_lo[..., None] + (th_hi - th_lo)[..., None] * frac
-    points = center[..., None] + half[..., None] * np.tan(theta)
-    return points.reshape(points.shape[:-2] + (-1,))
+    s_a = np.arcsinh((a - center) / half)
+    s_b = np.arcsinh((b - center) / half)
+    mid, rad = 0.5 * (s_a + s_b), 0.5 * (s_b - s_a)
+    s = mid[..., None] + rad[..., None] * nodes
+    energy = center[..., None] + half[..., None] * np.sinh(s)
+    w = rad[..., None] * weights * half[..., None] * np.cosh(s)
+    shape = energy.shape[:-2] + (-1,)
+    return energy.reshape(shape), w.reshape(shape)
 
 
 def current_density_a_cm2(
@@ -124,30 +162,42 @@ def current_density_a_cm2(
     mu_c = mu_e - bias
     low, high = energy_window_ev(profile, mu_e, bias, kt)
 
-    coarse = low[..., None] + (high - low)[..., None] * np.linspace(0.0, 1.0, grid.n_coarse)
+    # quadratic map: dense at the window's lower edge, where T rises like sqrt(E - low)
+    u = np.linspace(0.0, 1.0, grid.n_coarse)
+    coarse = low[..., None] + (high - low)[..., None] * u**2
     t_coarse = transmission(coarse, profile=profile)
     energies = [coarse]
     values = [t_coarse]
     if grid.n_resonances > 0:
-        index, valid = local_peaks(coarse, np.log(np.maximum(t_coarse, 1e-300)), grid.n_resonances)
+        supply = np.abs(supply_function_ev(coarse, mu_e[..., None], mu_c[..., None], kt[..., None]))
+        index, valid = local_peaks(t_coarse, grid.n_resonances, weight=supply)  # peaks that carry current
         guess = np.take_along_axis(coarse, index, axis=-1)
-        spacing = ((high - low) / (grid.n_coarse - 1))[..., None]
+        spacing = np.take_along_axis(np.gradient(coarse, axis=-1), index, axis=-1)
         center, width, _ = refine_peaks(guess, 0.5 * spacing, profile=profile, iterations=grid.refine_iterations)
         valid &= np.isfinite(width) & (width > 0) & (center > low[..., None]) & (center < high[..., None])
         # padding: spread unused points uniformly (a broad pseudo-resonance mid-window)
         center = np.where(valid, center, 0.5 * (low + high)[..., None])
         width = np.where(valid, np.maximum(width, 1e-12), (high - low)[..., None])
-        extra = _lorentzian_points(center, width, low, high, grid.n_per_resonance)
+        order = np.argsort(center, axis=-1)
+        center = np.take_along_axis(center, order, axis=-1)
+        width = np.take_along_axis(width, order, axis=-1)
+        spacing = np.take_along_axis(np.where(valid, spacing, 0.0), order, axis=-1)
+        valid = np.take_along_axis(valid, order, axis=-1)
+        a, b = _resonance_intervals(center, width, spacing, low, high)
+        b = np.where(valid, b, a)  # unused resonance slots integrate over nothing
+        weights = _linear_weights(coarse, low, high)
+        for r in range(a.shape[-1]):
+            weights -= _linear_weights(coarse, a[..., r], b[..., r])
+        extra, extra_weights = _resonance_rule(center, width, a, b, grid.n_per_resonance)
         energies.append(extra)
         values.append(transmission(extra, profile=profile))
+        weights = np.concatenate([weights, extra_weights], axis=-1)
+    else:
+        weights = _linear_weights(coarse, low, high)
     energy = np.concatenate(energies, axis=-1)
     t = np.concatenate(values, axis=-1)
-    order = np.argsort(energy, axis=-1)
-    energy = np.take_along_axis(energy, order, axis=-1)
-    t = np.take_along_axis(t, order, axis=-1)
-
     integrand = t * supply_function_ev(energy, mu_e[..., None], mu_c[..., None], kt[..., None])
-    integral = np.sum(0.5 * (integrand[..., 1:] + integrand[..., :-1]) * np.diff(energy, axis=-1), axis=-1)
+    integral = np.sum(weights * integrand, axis=-1)
     mass_e = table.mass_m0[:, 0][:, None]
     j = TSU_ESAKI_A_M2_EV2 * mass_e * integral * 1e-4
     if return_spectrum:

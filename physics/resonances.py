@@ -48,15 +48,25 @@ class Resonances:
         return HBAR_EV_FS / self.width_ev
 
 
-def local_peaks(energy_ev: np.ndarray, values: np.ndarray, n_max: int) -> tuple[np.ndarray, np.ndarray]:
-    """Indices of the ``n_max`` largest interior local maxima along the last axis.
+def local_peaks(values: np.ndarray, n_max: int, *, weight: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Indices of the ``n_max`` highest interior local maxima of ``values`` along the last axis.
+
+    Parameters
+    ----------
+    values
+        Sampled function, ``batch + (n,)``.
+    n_max
+        Number of peaks kept.
+    weight
+        Optional ranking: peaks are ordered by ``values * weight`` instead of ``values``.
 
     Returns ``(index, valid)``, both of shape ``batch + (n_max,)``; missing
     peaks are padded with index 1 and ``valid = False``.
     """
     v = values
     inner = (v[..., 1:-1] > v[..., :-2]) & (v[..., 1:-1] >= v[..., 2:])
-    score = np.where(inner, v[..., 1:-1], -np.inf)
+    rank = v if weight is None else v * weight
+    score = np.where(inner, rank[..., 1:-1], -np.inf)
     order = np.argsort(-score, axis=-1)[..., :n_max]
     valid = np.take_along_axis(score, order, axis=-1) > -np.inf
     index = np.where(valid, order + 1, 1)
@@ -145,7 +155,7 @@ def find_resonances(
     hi = np.broadcast_to(np.asarray(energy_max_ev, float), profile.batch_shape)
     grid = lo[..., None] + (hi - lo)[..., None] * np.linspace(0.0, 1.0, n_coarse)
     t = transmission(grid, profile=profile)
-    index, valid = local_peaks(grid, np.log(np.maximum(t, 1e-300)), n_max)
+    index, valid = local_peaks(t, n_max)
     guess = np.take_along_axis(grid, index, axis=-1)
     spacing = (hi - lo)[..., None] / (n_coarse - 1)
     energy, width, peak = refine_peaks(guess, 0.5 * spacing, profile=profile)

@@ -46,9 +46,6 @@ __all__ = ["transmission", "wave_numbers_per_nm"]
 _MIN_MASS_FACTOR = 0.5
 
 
-def _mass_factor(energy_ev: np.ndarray, edge_ev: np.ndarray, alpha_per_ev: np.ndarray) -> np.ndarray:
-    return np.maximum(1.0 + alpha_per_ev * (energy_ev - edge_ev), _MIN_MASS_FACTOR)
-
 
 def wave_numbers_per_nm(
     energy_ev: np.ndarray, edge_ev: np.ndarray, mass_m0: np.ndarray, alpha_per_ev: np.ndarray
@@ -57,10 +54,15 @@ def wave_numbers_per_nm(
 
     All arguments broadcast together; energies and edges in eV.
     """
-    mass = mass_m0 * _mass_factor(energy_ev, edge_ev, alpha_per_ev)
     kinetic = energy_ev - edge_ev
-    kinetic = np.where(np.abs(kinetic) < 1e-12, 1e-12, kinetic)  # k = 0 exactly makes eta singular
-    k = np.sqrt((mass * kinetic / HBAR2_2M0_EV_NM2).astype(complex))
+    mass = alpha_per_ev * kinetic
+    mass += 1.0
+    np.maximum(mass, _MIN_MASS_FACTOR, out=mass)
+    mass *= mass_m0
+    k2 = mass * kinetic
+    k2 *= 1.0 / HBAR2_2M0_EV_NM2
+    k2 += 1e-18  # k = 0 exactly (E on a band edge) would make eta singular
+    k = np.sqrt(k2.astype(complex))
     return k, k / mass
 
 
@@ -102,21 +104,30 @@ def transmission(
     q_collector = q_next
     shape = np.broadcast_shapes(energy.shape, edge.shape[:-1])
     rho = np.zeros(shape, complex)
-    log_gain = np.zeros(shape)  # log |a_j / a_C|
+    log_gain = np.zeros(shape)  # log |a_j / a_C|, accumulated in part through `product`
+    product = np.ones(shape, complex)  # running product of den/2, renormalised now and then
+    u = np.empty(shape, complex)
+    v = np.empty(shape, complex)
     for j in range(n - 2, -1, -1):
         k_j, q_j = slice_waves(j)
-        eta = q_next / q_j
-        u = 1.0 + rho
-        v = eta * (1.0 - rho)
-        den = u + v
-        rho = (u - v) / den
-        log_gain += np.log(0.5 * np.abs(den))
+        np.add(rho, 1.0, out=u)
+        np.subtract(1.0, rho, out=v)
+        v *= q_next
+        v /= q_j  # v = eta (1 - rho)
+        np.subtract(u, v, out=rho)
+        u += v  # u = den
+        rho /= u
+        product *= u
         if j > 0:
-            phase_arg = 2j * k_j * width[..., j]
-            rho *= np.exp(phase_arg)
+            rho *= np.exp(2j * width[..., j] * k_j)
             log_gain += k_j.imag * width[..., j]
+        if (n - j) % 24 == 0:  # keep the product inside the floating-point range
+            mag = np.abs(product)
+            log_gain += np.log(mag)
+            product /= mag
         q_next = q_j
     q_emitter = q_next
+    log_gain += np.log(np.abs(product)) - (n - 1) * np.log(2.0)
 
     flux_in = q_emitter.real
     flux_out = q_collector.real

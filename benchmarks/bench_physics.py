@@ -1,0 +1,135 @@
+"""Benchmark of the physics core: adaptive energy grid against uniform grids, batch throughput.
+
+Prints, measured side by side in one run (shared machines are noisy, so
+ratios matter more than absolute times):
+
+1. median time of a 61-point I-V with the adaptive grid (peak/valley refinement included
+   and excluded);
+2. the uniform energy grid of the same kernel that reaches the same peak-current accuracy
+   (0.5 % of a converged reference), its time for the same 61 biases, and the ratio;
+3. throughput of a batch of stack variants (curves per second, one core).
+
+Run: ``python benchmarks/bench_physics.py [--quick]``. Targets (issue 2): ratio >= 30,
+61-point I-V under 30 ms median, >= 200 curves/s per core.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import time
+from pathlib import Path
+
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import numpy as np  # noqa: E402
+
+from physics.bands import linear_profile  # noqa: E402
+from physics.current import (  # noqa: E402
+    TSU_ESAKI_A_M2_EV2,
+    EnergyGrid,
+    contact_fermi_levels_ev,
+    current_density_a_cm2,
+    energy_window_ev,
+    supply_function_ev,
+)
+from physics.constants import BOLTZMANN_EV_K  # noqa: E402
+from physics.iv import locate_peak_valley, sweep  # noqa: E402
+from physics.stack import LayerTable, load_stack  # noqa: E402
+from physics.transmission import transmission  # noqa: E402
+
+STACK = Path(__file__).resolve().parents[1] / "studies" / "inp_thz_oscillator.toml"
+
+
+def median_time(fn, repeats: int) -> float:
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times))
+
+
+def uniform_current(table: LayerTable, bias_v: np.ndarray, n_energy: int, slice_nm: float) -> np.ndarray:
+    """Tsu-Esaki current on a uniform energy grid of ``n_energy`` points (trapezoid rule)."""
+    profile = linear_profile(table, bias_v, slice_nm=slice_nm)
+    kt = BOLTZMANN_EV_K * table.temperature_k[:, None]
+    mu_e = contact_fermi_levels_ev(table)[0][:, None] * np.ones(profile.batch_shape)
+    bias = np.broadcast_to(bias_v, profile.batch_shape)
+    low, high = energy_window_ev(profile, mu_e, bias, kt)
+    out = np.empty(profile.batch_shape)
+    chunk = max(1, 400_000 // n_energy)  # keep arrays in memory bounds
+    for b0 in range(0, bias.shape[1], chunk):
+        sl = slice(b0, b0 + chunk)
+        e = low[:, sl, None] + (high - low)[:, sl, None] * np.linspace(0.0, 1.0, n_energy)
+        t = transmission(e, profile=profile.take((slice(None), sl)))
+        s = supply_function_ev(e, mu_e[:, sl, None], mu_e[:, sl, None] - bias[:, sl, None], kt[..., None])
+        out[:, sl] = np.trapezoid(t * s, e, axis=-1)
+    return TSU_ESAKI_A_M2_EV2 * table.mass_m0[:, :1] * out * 1e-4
+
+
+def grid_peak(bias_v: np.ndarray, j: np.ndarray) -> float:
+    ip, _ = locate_peak_valley(bias_v, j)
+    return float(j[0, ip[0]]) if ip[0] >= 0 else float("nan")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="fewer repeats and a smaller batch")
+    args = parser.parse_args()
+    repeats = 3 if args.quick else 9
+    stack = load_stack(STACK)
+    table = stack.table()
+    bias = np.linspace(0.0, 1.0, 61)
+    slice_nm = stack.model.slice_nm
+
+    # converged reference of the peak current on the sweep grid
+    fine = EnergyGrid(n_coarse=600, n_resonances=4, n_per_resonance=400)
+    j_ref = current_density_a_cm2(linear_profile(table, bias, slice_nm=slice_nm), table=table, bias_v=bias, grid=fine)
+    jp_ref = grid_peak(bias, j_ref)
+
+    def adaptive() -> np.ndarray:
+        profile = linear_profile(table, bias, slice_nm=slice_nm)
+        return current_density_a_cm2(profile, table=table, bias_v=bias)
+
+    jp_adaptive = grid_peak(bias, adaptive())
+    t_adaptive = median_time(adaptive, repeats)
+    t_full = median_time(lambda: sweep(table, bias, model=stack.model), repeats)
+
+    # smallest uniform grid with the same accuracy (0.5 %)
+    n_uniform = 250
+    while True:
+        jp_u = grid_peak(bias, uniform_current(table, bias, n_uniform, slice_nm))
+        if abs(jp_u / jp_ref - 1.0) <= 0.005 or n_uniform > 200_000:
+            break
+        n_uniform = int(n_uniform * 1.4)
+    t_uniform = median_time(lambda: uniform_current(table, bias, n_uniform, slice_nm), max(1, repeats // 3))
+
+    print(f"stack: {STACK.name}, {table.n_layers} layers, 61 biases 0..1 V, one core")
+    print(f"{'method':46s} {'time (ms)':>10s} {'Jp error':>10s}")
+    print(f"{'adaptive grid, current only':46s} {t_adaptive * 1e3:10.1f} {jp_adaptive / jp_ref - 1:+10.3%}")
+    print(f"{'adaptive grid, full sweep with peak/valley refine':46s} {t_full * 1e3:10.1f}")
+    print(f"{f'uniform grid, {n_uniform} energies (0.5 % on Jp)':46s} {t_uniform * 1e3:10.1f} {jp_u / jp_ref - 1:+10.3%}")
+    print(f"ratio uniform / adaptive (same accuracy): {t_uniform / t_adaptive:.1f}  (target >= 30)")
+    print(f"61-point I-V median: {t_full * 1e3:.1f} ms  (target < 30 ms)")
+
+    # batch throughput: stack variants with random whole-monolayer changes
+    n_batch = 200 if args.quick else 1000
+    rng = np.random.default_rng(1)
+    base = table.thickness_nm[0]
+    ml = np.array([layer.monolayer_nm or 0.0 for layer in stack.layers])
+    thick = base + rng.integers(-2, 3, size=(n_batch, base.size)) * ml
+    thick[:, 1:-1] = np.maximum(thick[:, 1:-1], ml[1:-1])
+    variants = LayerTable.concatenate([table] * n_batch).with_thickness_nm(thick)
+    chunk = 50
+    t0 = time.perf_counter()
+    for i in range(0, n_batch, chunk):
+        sweep(variants.take(slice(i, i + chunk)), bias, model=stack.model)
+    t_batch = time.perf_counter() - t0
+    print(f"batch of {n_batch} variants, 61-point sweeps with refinement: {n_batch / t_batch:.0f} curves/s "
+          f"(target >= 200 per core)")
+
+
+if __name__ == "__main__":
+    main()
