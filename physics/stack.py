@@ -36,6 +36,8 @@ MAX_THICKNESS_NM = 1000.0
 MAX_DOPING_CM3 = 1e21
 TEMPERATURE_RANGE_K = (1.0, 1000.0)
 ELECTROSTATICS_MODELS = ("linear", "self-consistent")
+#: Set to True by the module that implements self-consistent electrostatics.
+_ELECTROSTATICS_AVAILABLE = False
 
 LAYER_KEYS = {
     "name": str,
@@ -280,6 +282,10 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
             f"'{model.electrostatics}' is not one of {', '.join(ELECTROSTATICS_MODELS)}",
             source=source,
             key="model.electrostatics",
+        )
+    if model.electrostatics != "linear" and not _ELECTROSTATICS_AVAILABLE:
+        raise InputError(
+            "only 'linear' is available in this version", source=source, key="model.electrostatics"
         )
     if not 0.0 <= model.broadening_mev <= 100.0:
         raise InputError(f"{model.broadening_mev:g} outside [0, 100] meV", source=source, key="model.broadening_mev")
