@@ -18,6 +18,9 @@ from physics.errors import InputError
 COMMAND_MODULES = (
     "optimize.cmd_iv",
     "optimize.cmd_materials",
+    "optimize.cmd_search",
+    "optimize.cmd_packet",
+    "optimize.cmd_tolerance",
 )
 
 

@@ -14,6 +14,14 @@ from typing import Any, Iterable
 __all__ = ["atomic_write_text", "write_json", "write_csv", "save_figure", "json_ready"]
 
 
+def _publish(tmp: str, path: Path) -> None:
+    """Give the temporary file the usual permissions (mkstemp makes it 0600) and rename it."""
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
+    os.replace(tmp, path)
+
+
 def atomic_write_text(path: str | Path, text: str) -> Path:
     """Write ``text`` to ``path`` via a temporary file in the same folder and a rename."""
     path = Path(path)
@@ -22,7 +30,7 @@ def atomic_write_text(path: str | Path, text: str) -> Path:
     try:
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as f:
             f.write(text)
-        os.replace(tmp, path)
+        _publish(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
@@ -65,7 +73,7 @@ def save_figure(fig, path: str | Path, *, dpi: int = 130) -> Path:
     os.close(fd)
     try:
         fig.savefig(tmp, dpi=dpi, bbox_inches="tight")
-        os.replace(tmp, path)
+        _publish(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise

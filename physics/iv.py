@@ -20,6 +20,7 @@ import numpy as np
 
 from .bands import linear_profile
 from .current import EnergyGrid, current_density_a_cm2
+from .electrostatics import self_consistent_profile
 from .stack import LayerTable, ModelOptions, Stack
 
 __all__ = [
@@ -75,9 +76,24 @@ def current_at_bias(
     model: ModelOptions = ModelOptions(),
     grid: EnergyGrid = EnergyGrid(),
 ) -> np.ndarray:
-    """Current density, A/cm^2, ``(n_stacks, n_biases)`` for biases ``(n_biases,)`` or ``(n_stacks, n_biases)``."""
-    profile = linear_profile(table, bias_v, slice_nm=model.slice_nm)
-    return current_density_a_cm2(profile, table=table, bias_v=_bias_2d(bias_v, table.n_stacks), grid=grid)
+    """Current density, A/cm^2, ``(n_stacks, n_biases)`` for biases ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+
+    The band profile comes from the model ``model.electrostatics`` selects
+    (:func:`physics.bands.linear_profile` or
+    :func:`physics.electrostatics.self_consistent_profile`); the scattering
+    broadening ``model.broadening_mev`` is applied in the kernel.
+    """
+    if model.electrostatics == "self-consistent":
+        profile = self_consistent_profile(table, bias_v, slice_nm=model.slice_nm)
+    else:
+        profile = linear_profile(table, bias_v, slice_nm=model.slice_nm)
+    return current_density_a_cm2(
+        profile,
+        table=table,
+        bias_v=_bias_2d(bias_v, table.n_stacks),
+        grid=grid,
+        broadening_ev=1e-3 * model.broadening_mev,
+    )
 
 
 def _bias_2d(bias_v, n_stacks: int) -> np.ndarray:

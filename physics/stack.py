@@ -37,7 +37,7 @@ MAX_DOPING_CM3 = 1e21
 TEMPERATURE_RANGE_K = (1.0, 1000.0)
 ELECTROSTATICS_MODELS = ("linear", "self-consistent")
 #: Set to True by the module that implements self-consistent electrostatics.
-_ELECTROSTATICS_AVAILABLE = False
+_ELECTROSTATICS_AVAILABLE = True
 
 LAYER_KEYS = {
     "name": str,

@@ -1,0 +1,67 @@
+"""Benchmark: self-consistent electrostatics against the linear drop (issue 7).
+
+Prints the median time of a 61-point I-V (peak/valley refinement included)
+of the demo stack with ``electrostatics = "linear"`` and with
+``"self-consistent"``, measured side by side in one run, and their ratio.
+Also the same with scattering broadening (3 meV), and an up/down
+hysteresis sweep. Target (issue 7): ratio < 10.
+
+Run: ``python benchmarks/bench_electrostatics.py [--quick]``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import time
+from dataclasses import replace
+from pathlib import Path
+
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import numpy as np  # noqa: E402
+
+from physics.electrostatics import sweep_hysteresis  # noqa: E402
+from physics.iv import sweep  # noqa: E402
+from physics.stack import load_stack  # noqa: E402
+
+STUDY = Path(__file__).resolve().parents[1] / "studies" / "gaas_low_power_memory.toml"
+
+
+def _median_time(fn, repeats: int) -> float:
+    fn()  # warm-up (tables, caches)
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times))
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="fewer repeats")
+    args = parser.parse_args()
+    repeats = 3 if args.quick else 9
+    stack = load_stack(STUDY)
+    table = stack.table()
+    bias = np.linspace(0.0, 0.8, 61)
+    results = {}
+    for name, model in {
+        "linear": replace(stack.model, electrostatics="linear"),
+        "self-consistent": replace(stack.model, electrostatics="self-consistent"),
+        "linear + 3 meV broadening": replace(stack.model, electrostatics="linear", broadening_mev=3.0),
+        "self-consistent + 3 meV": replace(stack.model, electrostatics="self-consistent", broadening_mev=3.0),
+    }.items():
+        results[name] = _median_time(lambda m=model: sweep(table, bias, model=m), repeats)
+        print(f"61-point I-V, {name:28s} {1e3 * results[name]:8.1f} ms")
+    ratio = results["self-consistent"] / results["linear"]
+    print(f"ratio self-consistent / linear: {ratio:.2f} (target < 10)")
+    sc = replace(stack.model, electrostatics="self-consistent")
+    t_h = _median_time(lambda: sweep_hysteresis(table, bias, model=sc), max(1, repeats // 3))
+    print(f"up+down hysteresis sweep, 61 points each, self-consistent: {1e3 * t_h:.1f} ms")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,84 @@
+"""``wellwright search``: find stacks that meet a study file's spec."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from physics.errors import InputError
+
+from .search import check_storage_url, run_search
+from .study import MAX_TRIALS, MAX_WORKERS, load_study
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser(
+        "search",
+        help="search a study file's design space for stacks that meet its spec",
+        description="Search the ranges of a study file with Optuna for stacks that meet its [targets], "
+        "keeping every trial in a database so that rerunning the command resumes the study. "
+        "Writes designs.csv, designs.json, growth sheets, history/Pareto/importance figures "
+        "and the I-V figures of the best design.",
+    )
+    p.add_argument("study", help="study file (TOML): a stack file with ranges, [targets], [search], ...")
+    p.add_argument("--trials", type=int, metavar="N",
+                   help="complete trials the study should hold when done, counting those already in "
+                        "storage (default: [search] trials)")
+    p.add_argument("--workers", type=int, metavar="K", help="processes sharing the study (default: [search] workers)")
+    p.add_argument("--storage", metavar="URL",
+                   help="SQLAlchemy database URL, e.g. postgresql+psycopg2://user@host/db, to share the "
+                        "study between machines (default: SQLite file DIR/study.db)")
+    p.add_argument("--out", metavar="DIR", help="output folder (default: <study name>_out)")
+    p.add_argument("--seed", type=int, metavar="S", help="sampler seed (default: [search] seed)")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.set_defaults(func=run)
+
+
+def _check_args(args: argparse.Namespace) -> None:
+    if args.trials is not None and not 0 <= args.trials <= MAX_TRIALS:
+        raise InputError(f"{args.trials} outside [0, {MAX_TRIALS}]", key="--trials")
+    if args.workers is not None and not 1 <= args.workers <= MAX_WORKERS:
+        raise InputError(f"{args.workers} outside [1, {MAX_WORKERS}]", key="--workers")
+    if args.seed is not None and not 0 <= args.seed < 2**32:
+        raise InputError(f"{args.seed} outside [0, 2^32)", key="--seed")
+    if args.storage is not None:
+        check_storage_url(args.storage)
+    if args.out is not None and Path(args.out).exists() and not Path(args.out).is_dir():
+        raise InputError(f"{args.out!r} exists and is not a folder", key="--out")
+
+
+def _fmt(value: float | None, factor: float = 1.0, spec: str = ".3g") -> str:
+    return "-" if value is None else format(value * factor, spec)
+
+
+def run(args: argparse.Namespace) -> int:
+    _check_args(args)
+    study = load_study(args.study)
+    out = Path(args.out) if args.out else Path(f"{study.name}_out")
+    result = run_search(
+        study,
+        trials=args.trials,
+        workers=args.workers,
+        storage=args.storage,
+        out_dir=out,
+        seed=args.seed,
+        progress=not args.no_progress,
+    )
+    print(f"study '{result.study_name}': {result.n_complete} complete trials, "
+          f"{result.n_feasible} meet the spec and constraints")
+    print(f"storage: {result.storage}")
+    if result.designs:
+        print(f"{'rank':>4} {'trial':>6} {'ok':>3} {'Jp kA/cm2':>10} {'Vp mV':>7} {'PVCR':>7}  parameters")
+        for d in result.designs[:5]:
+            m = d["metrics"]
+            params = ", ".join(f"{k}={v:.4g}" for k, v in d["params"].items())
+            print(f"{d['rank']:>4} {d['trial']:>6} {'yes' if d['feasible'] else 'no':>3} "
+                  f"{_fmt(m['peak_current_density_a_cm2'], 1e-3, '.1f'):>10} "
+                  f"{_fmt(m['peak_voltage_v'], 1e3, '.0f'):>7} {_fmt(m['pvcr'], 1.0, '.2f'):>7}  {params}")
+    if result.best is None:
+        print("no design meets the spec yet: widen the ranges, relax the targets or run more trials")
+    for note in result.notes:
+        print(f"note: {note}", file=sys.stderr)
+    print(f"results in {result.out_dir}/ (designs.csv, designs.json, growth_sheets/, history.png)")
+    return 0

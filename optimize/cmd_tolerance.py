@@ -1,0 +1,257 @@
+"""``wellwright tolerance``: will a design survive growth? Yield, ranking, allocation."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import tomllib
+import warnings
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from physics.errors import InputError
+from physics.stack import CriticalThicknessWarning, Stack, parse_stack
+
+from .growth import growth_model, parse_growth, split_layer_growth
+from .study import Study, load_study
+from .tolerance import METHODS, Runner, Spec, run_tolerance
+
+MAX_SAMPLES = 1_000_000
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser(
+        "tolerance",
+        help="growth tolerance of a design: Monte Carlo yield, Sobol/Morris ranking, tornado, allocation",
+        description="Draw as-grown samples of a design with the study's [growth] spreads, evaluate them "
+        "against its [targets] and write DIR/tolerance.json with CSV tables and PNG figures beside it.",
+    )
+    p.add_argument("study", help="study file (TOML) with [targets] and optionally [growth]")
+    p.add_argument(
+        "--design",
+        default="best",
+        metavar="best|RANK|FILE",
+        help="'best' or a rank from the study's finished search (designs.json), "
+        "or a stack file whose layers carry the study's layer names (default: best)",
+    )
+    p.add_argument(
+        "--search-dir",
+        metavar="DIR",
+        help="folder of the finished search (default: <study name>_out)",
+    )
+    p.add_argument(
+        "--samples",
+        type=int,
+        default=256,
+        metavar="N",
+        help="Monte Carlo samples; also the evaluation budget of Sobol/Morris (default: 256)",
+    )
+    p.add_argument(
+        "--method",
+        choices=METHODS,
+        default="sobol",
+        help="sobol (default), morris (cheap screening) or mc (yield, tornado, allocation only)",
+    )
+    p.add_argument(
+        "--bias-points",
+        type=int,
+        metavar="P",
+        help="bias points per I-V over the study's [sweep] range (default: its points)",
+    )
+    p.add_argument(
+        "--allocate",
+        type=int,
+        default=3,
+        metavar="K",
+        help="allocate tolerances of the K top-ranked parameters (default: 3; 0: none)",
+    )
+    p.add_argument(
+        "--target-yield",
+        type=float,
+        default=0.9,
+        metavar="Y",
+        help="yield the allocation must keep, in (0, 1) (default: 0.9)",
+    )
+    p.add_argument("--jobs", type=int, metavar="J", help="worker processes (default: all cores)")
+    p.add_argument(
+        "--cluster",
+        metavar="tcp://HOST:8786",
+        help="run the batches on a Dask cluster (joblib dask backend)",
+    )
+    p.add_argument(
+        "--out", metavar="DIR", help="output folder (default: <search dir>/tolerance_<design>)"
+    )
+    p.add_argument(
+        "--seed", type=int, default=0, metavar="S", help="seed of every random step (default: 0)"
+    )
+    p.add_argument("--no-progress", action="store_true", help="no progress bars")
+    p.set_defaults(func=run)
+
+
+def _check_args(args: argparse.Namespace) -> None:
+    if not 8 <= args.samples <= MAX_SAMPLES:
+        raise InputError(f"{args.samples} outside [8, {MAX_SAMPLES}]", key="--samples")
+    if args.bias_points is not None and not 5 <= args.bias_points <= 2001:
+        raise InputError(f"{args.bias_points} outside [5, 2001]", key="--bias-points")
+    if not 0 <= args.allocate <= 50:
+        raise InputError(f"{args.allocate} outside [0, 50]", key="--allocate")
+    if not 0.0 < args.target_yield < 1.0:
+        raise InputError(f"{args.target_yield:g} outside (0, 1)", key="--target-yield")
+    if args.jobs is not None and not 1 <= args.jobs <= 256:
+        raise InputError(f"{args.jobs} outside [1, 256]", key="--jobs")
+    if not 0 <= args.seed < 2**32:
+        raise InputError(f"{args.seed} outside [0, 2^32)", key="--seed")
+    if args.cluster is not None and not args.cluster.startswith(("tcp://", "tls://")):
+        raise InputError(
+            f"{args.cluster!r} is not a scheduler address like tcp://HOST:8786", key="--cluster"
+        )
+    if args.out is not None and Path(args.out).exists() and not Path(args.out).is_dir():
+        raise InputError(f"{args.out!r} exists and is not a folder", key="--out")
+
+
+def _from_search(study: Study, which: str, search_dir: Path) -> tuple[Stack, dict[str, Any]]:
+    path = search_dir / "designs.json"
+    if not path.is_file():
+        raise InputError(
+            f"no finished search: {path} not found; run 'wellwright search' first "
+            "or give --search-dir or a stack FILE",
+            key="--design",
+        )
+    designs = json.loads(path.read_text(encoding="utf-8"))
+    rank = 1 if which == "best" else int(which)
+    match = [d for d in designs if d.get("rank") == rank]
+    if not match:
+        raise InputError(f"rank {rank} not in {path} (ranks 1 to {len(designs)})", key="--design")
+    rec = match[0]
+    if which == "best" and not rec.get("feasible"):
+        raise InputError(
+            f"the search in {search_dir} has no design meeting the spec; give a RANK to "
+            "analyse an off-spec design",
+            key="--design",
+        )
+    stack = study.stack(rec["params"])
+    return stack, {
+        "source": str(path),
+        "rank": rank,
+        "trial": rec.get("trial"),
+        "params": rec["params"],
+    }
+
+
+def _from_file(study: Study, path: Path) -> tuple[Stack, dict[str, Any], dict[str, Any]]:
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise InputError(f"cannot read ({exc.strerror})", source=str(path)) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc})", source=str(path)) from None
+    data, layer_growth = split_layer_growth(data)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CriticalThicknessWarning)
+        stack = parse_stack(data, source=str(path))
+    names = [layer.name for layer in stack.layers]
+    missing = [n for n in study.layer_names if n not in names]
+    if missing:
+        raise InputError(
+            f"has no layer named {', '.join(repr(m) for m in missing)}; its layers must carry the "
+            f"study's layer names ({', '.join(study.layer_names)})",
+            source=str(path),
+            key="name",
+        )
+    return stack, {"source": str(path)}, layer_growth
+
+
+def run(args: argparse.Namespace) -> int:
+    _check_args(args)
+    study = load_study(args.study)
+    search_dir = Path(args.search_dir) if args.search_dir else Path(f"{study.name}_out")
+    file_growth: dict[str, Any] = {}
+    if args.design == "best" or args.design.isdigit():
+        if args.design.isdigit() and int(args.design) < 1:
+            raise InputError("ranks start at 1", key="--design")
+        stack, design = _from_search(study, args.design, search_dir)
+        label = "best" if args.design == "best" else f"rank{int(args.design)}"
+    else:
+        path = Path(args.design)
+        if not path.is_file():
+            raise InputError(
+                f"{args.design!r} is neither 'best', a rank nor an existing stack file",
+                key="--design",
+            )
+        stack, design, file_growth = _from_file(study, path)
+        label = path.stem
+    settings, per_layer = parse_growth(
+        study.reserved.get("growth"),
+        {**study.layer_growth, **file_growth},
+        layer_names=[layer.name for layer in stack.layers],
+        source=study.source,
+    )
+    model = growth_model(stack, settings, per_layer)
+    if not study.targets:
+        raise InputError(
+            "needs at least one window (e.g. pvcr = {min = 3}) for a yield",
+            source=study.source,
+            key="targets",
+        )
+    sw = study.sweep
+    bias = (
+        sw.bias_v
+        if args.bias_points is None
+        else np.linspace(sw.bias_min_v, sw.bias_max_v, args.bias_points)
+    )
+    out = Path(args.out) if args.out else search_dir / f"tolerance_{label}"
+
+    backend = None
+    n_jobs = args.jobs or os.cpu_count() or 1
+    if args.cluster:
+        try:
+            from dask.distributed import Client
+        except ImportError:
+            raise InputError(
+                "needs dask.distributed installed (pip install 'dask[distributed]')",
+                key="--cluster",
+            ) from None
+        Client(args.cluster)  # registers itself as joblib's dask backend target
+        backend, n_jobs = "dask", -1
+    runner = Runner(
+        bias, model=stack.model, n_jobs=n_jobs, backend=backend, progress=not args.no_progress
+    )
+    rec = run_tolerance(
+        model,
+        Spec.from_study(study),
+        runner,
+        method=args.method,
+        samples=args.samples,
+        seed=args.seed,
+        allocate=args.allocate,
+        target_yield=args.target_yield,
+        out_dir=out,
+        design=design,
+    )
+    y = rec["yield"]
+    print(
+        f"yield {100 * y['value']:.1f} % (95 % Wilson interval {100 * y['ci_low']:.1f} to "
+        f"{100 * y['ci_high']:.1f} %) over {y['samples']} as-grown samples"
+    )
+    fails = {k: v for k, v in rec["failures"].items() if v}
+    if fails:
+        print("failures: " + ", ".join(f"{k} {v}" for k, v in fails.items()))
+    if rec["sobol"].get("pass"):
+        print(
+            "ranking (total Sobol index of pass/fail): "
+            + ", ".join(
+                f"{r['parameter']} {r['total_index']:.2f}" for r in rec["sobol"]["pass"][:5]
+            )
+        )
+    for a in rec["allocation"]:
+        allowed = "-" if a["allowed_sigma"] is None else f"{a['allowed_sigma']:.3g} {a['unit']}"
+        print(
+            f"allocation {a['parameter']}: sigma {a['nominal_sigma']:.3g} -> allowed {allowed} {a['note']}"
+        )
+    for note in rec["notes"]:
+        print(f"note: {note}")
+    print(f"results in {out}/ (tolerance.json, samples.csv, figures)")
+    return 0

@@ -1,0 +1,692 @@
+"""Growth tolerance of a design: Monte Carlo yield, Sobol and Morris ranking, tornado, allocation.
+
+Every as-grown sample comes from :mod:`optimize.growth` and goes through the
+same physics as the search (:func:`physics.iv.sweep`), many stacks per call,
+batches spread over processes with joblib (loky by default, or any joblib
+backend such as dask's).
+
+The spec is the study's ``[targets]`` windows: a sample passes when every
+figure of merit named there lies in its window (NaN, no NDR in the sweep,
+fails). The plain record this module produces (``tolerance.json``) is
+described in :func:`run_tolerance`.
+
+References
+----------
+.. [1] E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927) (score interval).
+.. [2] A. Saltelli et al., Comput. Phys. Commun. 181, 259 (2010) (Sobol
+   estimators, as implemented by SALib).
+.. [3] M. D. Morris, Technometrics 33, 161 (1991) (elementary effects; from memory).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from physics.iv import METRIC_NAMES, sweep
+from physics.stack import LayerTable, ModelOptions, Stack
+
+from .growth import GrowthModel, as_generator
+
+__all__ = [
+    "Spec",
+    "wilson_interval",
+    "evaluate_metrics",
+    "monte_carlo_yield",
+    "saltelli_design",
+    "sobol_table",
+    "sobol_analysis",
+    "morris_analysis",
+    "tornado",
+    "allocate_tolerances",
+    "run_tolerance",
+    "METHODS",
+]
+
+METHODS = ("sobol", "morris", "mc")
+#: z is clipped to this many sigma when uniform design points are mapped to normals.
+Z_CLIP = 6.0
+
+
+# --------------------------------------------------------------------------- spec
+
+
+@dataclass(frozen=True)
+class Spec:
+    """Windows ``metric -> (low, high)`` a sample must meet (``-inf``/``inf`` when open)."""
+
+    windows: tuple[tuple[str, float, float], ...]
+
+    @classmethod
+    def from_study(cls, study: Any) -> Spec:
+        """The study's ``[targets]`` windows (objectives to push are not part of the spec)."""
+        return cls(tuple((w.metric, float(w.low), float(w.high)) for w in study.targets))
+
+    def misses(self, metrics: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+        """Per window, ``(n,)`` True where the sample misses it (NaN misses)."""
+        out = {}
+        for name, lo, hi in self.windows:
+            v = np.asarray(metrics[name], float)
+            with np.errstate(invalid="ignore"):
+                out[name] = ~((v >= lo) & (v <= hi))
+        return out
+
+    def passes(self, metrics: dict[str, np.ndarray]) -> np.ndarray:
+        n = len(next(iter(metrics.values())))
+        ok = np.ones(n, bool)
+        for miss in self.misses(metrics).values():
+            ok &= ~miss
+        return ok
+
+
+def wilson_interval(successes: int, n: int, *, confidence: float = 0.95) -> tuple[float, float]:
+    """Wilson score interval of a binomial proportion.
+
+    .. math:: \\frac{\\hat p + z^2/2n \\pm z\\sqrt{\\hat p(1-\\hat p)/n + z^2/4n^2}}{1 + z^2/n}
+
+    References
+    ----------
+    .. [1] E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927).
+    """
+    from scipy.stats import norm
+
+    if n <= 0:
+        return (0.0, 1.0)
+    z = float(norm.ppf(0.5 + confidence / 2.0))
+    p = successes / n
+    denom = 1.0 + z * z / n
+    centre = (p + z * z / (2 * n)) / denom
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / denom
+    return (max(0.0, centre - half), min(1.0, centre + half))
+
+
+# --------------------------------------------------------------------------- evaluation
+
+
+def _metrics_batch(
+    table: LayerTable, bias_v: np.ndarray, model: ModelOptions
+) -> dict[str, np.ndarray]:
+    return sweep(table, bias_v, model=model).metrics
+
+
+def evaluate_metrics(
+    table: LayerTable,
+    bias_v: np.ndarray,
+    *,
+    model: ModelOptions = ModelOptions(),
+    batch_size: int = 16,
+    n_jobs: int = 1,
+    backend: str | None = None,
+    progress: bool = False,
+    desc: str = "samples",
+) -> dict[str, np.ndarray]:
+    """Figures of merit of every row of ``table``: batches of ``batch_size`` stacks per
+    kernel call, spread over ``n_jobs`` joblib workers (``backend`` None: loky)."""
+    from joblib import Parallel, delayed, parallel_config
+
+    n = table.n_stacks
+    starts = list(range(0, n, batch_size))
+    jobs = (
+        delayed(_metrics_batch)(table.take(slice(s, s + batch_size)), bias_v, model) for s in starts
+    )
+    bar = None
+    if progress:
+        from tqdm import tqdm
+
+        bar = tqdm(total=n, desc=desc, unit="stack", leave=False)
+    parts = []
+    # parallel_config (not Parallel(backend=...)) also registers joblib's dask backend
+    with parallel_config(backend=backend) if backend is not None else contextlib.nullcontext():
+        results = Parallel(n_jobs=n_jobs, return_as="generator")(jobs)
+        for s, r in zip(starts, results, strict=True):
+            parts.append(r)
+            if bar is not None:
+                bar.update(min(batch_size, n - s))
+    if bar is not None:
+        bar.close()
+    return {
+        k: np.concatenate([p[k] for p in parts]) if parts else np.zeros(0) for k in METRIC_NAMES
+    }
+
+
+@dataclass(frozen=True)
+class Runner:
+    """How samples are evaluated: bias grid, model, batching and parallelism."""
+
+    bias_v: np.ndarray
+    model: ModelOptions = ModelOptions()
+    batch_size: int = 16
+    n_jobs: int = 1
+    backend: str | None = None
+    progress: bool = False
+
+    def __call__(self, table: LayerTable, desc: str = "samples") -> dict[str, np.ndarray]:
+        return evaluate_metrics(
+            table,
+            self.bias_v,
+            model=self.model,
+            batch_size=self.batch_size,
+            n_jobs=self.n_jobs,
+            backend=self.backend,
+            progress=self.progress,
+            desc=desc,
+        )
+
+
+# --------------------------------------------------------------------------- Monte Carlo
+
+
+def _yield_record(ok: np.ndarray, confidence: float = 0.95) -> dict[str, Any]:
+    k, n = int(np.count_nonzero(ok)), int(ok.size)
+    lo, hi = wilson_interval(k, n, confidence=confidence)
+    return {
+        "value": k / n if n else float("nan"),
+        "ci_low": lo,
+        "ci_high": hi,
+        "samples": n,
+        "passed": k,
+        "confidence": confidence,
+    }
+
+
+def monte_carlo_yield(
+    model: GrowthModel,
+    spec: Spec,
+    run: Runner,
+    *,
+    samples: int,
+    seed: int | np.random.Generator | None = None,
+) -> dict[str, Any]:
+    """Monte Carlo yield with the Wilson interval and the failure breakdown.
+
+    Returns ``yield`` (see :func:`_yield_record`), ``failures`` (per window:
+    samples missing it; ``no_ndr``: samples with no NDR in the sweep),
+    ``metrics`` (arrays), ``passed`` (bool array), ``z`` and ``island_u`` (the
+    random numbers, reused as common random numbers by the allocation).
+    """
+    rng = as_generator(seed)
+    z = model.draw_z(samples, rng)
+    u = model.draw_island_u(samples, rng)
+    metrics = run(model.as_grown(z, island_u=u), desc="Monte Carlo")
+    ok = spec.passes(metrics)
+    failures = {name: int(np.count_nonzero(m)) for name, m in spec.misses(metrics).items()}
+    failures["no_ndr"] = int(np.count_nonzero(~np.isfinite(metrics["peak_current_density_a_cm2"])))
+    return {
+        "yield": _yield_record(ok),
+        "failures": failures,
+        "metrics": metrics,
+        "passed": ok,
+        "z": z,
+        "island_u": u,
+    }
+
+
+# --------------------------------------------------------------------------- Sobol
+
+
+def _int_seed(rng: np.random.Generator) -> int:
+    return int(rng.integers(0, 2**31 - 1))
+
+
+def saltelli_design(
+    n_params: int, base_samples: int, *, seed: int | np.random.Generator | None = None
+) -> np.ndarray:
+    """Saltelli design points in the unit cube, ``(base_samples * (n_params + 2), n_params)``
+    (first and total order, SALib's scrambled Sobol' sampler; ``base_samples`` a power of 2)."""
+    from SALib.sample import sobol as sobol_sample
+
+    problem = {
+        "num_vars": n_params,
+        "names": [f"p{i}" for i in range(n_params)],
+        "bounds": [[0.0, 1.0]] * n_params,
+    }
+    return sobol_sample.sample(
+        problem, base_samples, calc_second_order=False, seed=_int_seed(as_generator(seed))
+    )
+
+
+def sobol_table(
+    names: Sequence[str],
+    y: np.ndarray,
+    *,
+    seed: int | np.random.Generator | None = None,
+    confidence: float = 0.95,
+    resamples: int = 200,
+) -> list[dict[str, Any]]:
+    """First and total Sobol indices of outputs ``y`` on a :func:`saltelli_design`, ordered by
+    total index, most important first: ``{parameter, first_index, first_conf, total_index, total_conf}``."""
+    from SALib.analyze import sobol as sobol_analyze
+
+    problem = {"num_vars": len(names), "names": list(names), "bounds": [[0.0, 1.0]] * len(names)}
+    y = np.asarray(y, float)
+    if np.nanstd(y) == 0.0:
+        rows = [
+            {
+                "parameter": p,
+                "first_index": 0.0,
+                "first_conf": 0.0,
+                "total_index": 0.0,
+                "total_conf": 0.0,
+            }
+            for p in names
+        ]
+        return rows
+    res = sobol_analyze.analyze(
+        problem,
+        y,
+        calc_second_order=False,
+        num_resamples=resamples,
+        conf_level=confidence,
+        seed=_int_seed(as_generator(seed)),
+    )
+    rows = [
+        {
+            "parameter": p,
+            "first_index": float(res["S1"][i]),
+            "first_conf": float(res["S1_conf"][i]),
+            "total_index": float(res["ST"][i]),
+            "total_conf": float(res["ST_conf"][i]),
+        }
+        for i, p in enumerate(names)
+    ]
+    return sorted(rows, key=lambda r: -r["total_index"])
+
+
+def _normal(u: np.ndarray) -> np.ndarray:
+    from scipy.stats import norm
+
+    return np.clip(norm.ppf(np.clip(u, 1e-12, 1 - 1e-12)), -Z_CLIP, Z_CLIP)
+
+
+def sobol_analysis(
+    model: GrowthModel,
+    spec: Spec,
+    run: Runner,
+    *,
+    base_samples: int,
+    seed: int | np.random.Generator | None = None,
+) -> dict[str, Any]:
+    """Sobol indices of each figure of merit and of pass/fail w.r.t. every growth parameter.
+
+    Uses the deterministic island model (``islands="nearest"``, see
+    :mod:`optimize.growth`). A figure of merit that is NaN (no NDR) in some
+    sample is skipped with a note. Returns ``sobol`` (name -> ordered list),
+    ``notes`` and ``evaluations``.
+    """
+    rng = as_generator(seed)
+    u = saltelli_design(len(model.parameters), base_samples, seed=rng)
+    metrics = run(model.as_grown(_normal(u), islands="nearest"), desc="Sobol")
+    out: dict[str, list] = {}
+    notes = []
+    for name in METRIC_NAMES:
+        y = metrics[name]
+        bad = int(np.count_nonzero(~np.isfinite(y)))
+        if bad:
+            notes.append(f"sobol of {name} skipped: no NDR in {bad} of {y.size} samples")
+            continue
+        out[name] = sobol_table(model.names, y, seed=rng)
+    out["pass"] = sobol_table(model.names, spec.passes(metrics).astype(float), seed=rng)
+    return {"sobol": out, "notes": notes, "evaluations": int(u.shape[0])}
+
+
+# --------------------------------------------------------------------------- Morris
+
+
+def morris_analysis(
+    model: GrowthModel,
+    spec: Spec,
+    run: Runner,
+    *,
+    trajectories: int,
+    levels: int = 4,
+    seed: int | np.random.Generator | None = None,
+) -> dict[str, Any]:
+    """Morris elementary effects (mu*, sigma) per figure of merit and pass/fail, ordered by mu*.
+
+    Parameters span +-2.5 sigma on a uniform grid of ``levels`` (2.5, not 3, so
+    that the levels of a 0.5 ML sigma do not fall on half monolayers, where
+    the rounding of the deterministic island model would flip); elementary
+    effects are per unit of the unit cube (5 sigma).
+    """
+    from SALib.analyze import morris as morris_analyze
+    from SALib.sample import morris as morris_sample
+
+    rng = as_generator(seed)
+    d = len(model.parameters)
+    problem = {"num_vars": d, "names": list(model.names), "bounds": [[0.0, 1.0]] * d}
+    x = morris_sample.sample(problem, trajectories, num_levels=levels, seed=_int_seed(rng))
+    z = (x - 0.5) * 5.0  # [0, 1] -> [-2.5, 2.5] sigma
+    metrics = run(model.as_grown(z, islands="nearest"), desc="Morris")
+    out: dict[str, list] = {}
+    notes = []
+    outputs = {**metrics, "pass": spec.passes(metrics).astype(float)}
+    for name, y in outputs.items():
+        if not np.all(np.isfinite(y)):
+            notes.append(f"morris of {name} skipped: no NDR in some samples")
+            continue
+        res = morris_analyze.analyze(
+            problem,
+            x,
+            np.asarray(y, float),
+            num_resamples=200,
+            num_levels=levels,
+            seed=_int_seed(rng),
+        )
+        rows = [
+            {
+                "parameter": p,
+                "mu_star": float(res["mu_star"][i]),
+                "mu_star_conf": float(res["mu_star_conf"][i]),
+                "sigma": float(res["sigma"][i]),
+            }
+            for i, p in enumerate(model.names)
+        ]
+        out[name] = sorted(rows, key=lambda r: -r["mu_star"])
+    return {"morris": out, "notes": notes, "evaluations": int(x.shape[0])}
+
+
+# --------------------------------------------------------------------------- tornado
+
+
+def tornado(stack: Stack, run: Runner) -> dict[str, Any]:
+    """One-at-a-time: each layer between the contacts -1 and +1 monolayer, all else nominal.
+
+    Returns ``nominal`` (metrics) and ``layers``: a list of ``{layer, minus,
+    plus}`` (metrics at -1 / +1 ML), ordered by the swing of the peak
+    current density, largest first. One batched evaluation of ``1 + 2k`` stacks.
+    """
+    idx = [i for i, lay in enumerate(stack.layers[1:-1], start=1) if lay.monolayer_nm is not None]
+    table = stack.table()
+    rows = [table.thickness_nm[0].copy()]
+    for i in idx:
+        for step in (-1, 1):
+            t = table.thickness_nm[0].copy()
+            t[i] = max(t[i] + step * stack.layers[i].monolayer_nm, stack.layers[i].monolayer_nm)
+            rows.append(t)
+    big = table.take(np.zeros(len(rows), int)).with_thickness_nm(np.array(rows))
+    m = run(big, desc="tornado")
+    pick = lambda r: {k: (None if not np.isfinite(v[r]) else float(v[r])) for k, v in m.items()}  # noqa: E731
+    layers = [
+        {"layer": stack.layers[i].name, "minus": pick(1 + 2 * j), "plus": pick(2 + 2 * j)}
+        for j, i in enumerate(idx)
+    ]
+
+    def swing(rec: dict) -> float:
+        a, b = rec["minus"]["peak_current_density_a_cm2"], rec["plus"]["peak_current_density_a_cm2"]
+        return abs(b - a) if a is not None and b is not None else math.inf
+
+    return {"nominal": pick(0), "layers": sorted(layers, key=lambda r: -swing(r))}
+
+
+# --------------------------------------------------------------------------- allocation
+
+
+def allocate_tolerances(
+    model: GrowthModel,
+    spec: Spec,
+    run: Runner,
+    *,
+    parameters: Sequence[str],
+    z: np.ndarray,
+    island_u: np.ndarray,
+    target_yield: float = 0.9,
+    max_scale: float = 4.0,
+    steps: int = 6,
+) -> list[dict[str, Any]]:
+    """Largest sigma of each named parameter that still gives ``target_yield``.
+
+    Bisection on the Monte Carlo yield over a factor ``s`` in ``[0, max_scale]``
+    on that parameter's sigma (the others at theirs), with common random
+    numbers: the same ``z`` and island uniforms at every step, so the yield
+    changes only through ``s``. Returns ``{parameter, nominal_sigma,
+    allowed_sigma, unit, yield_at_allowed, note}``; ``allowed_sigma`` is
+    None when even ``s = 0`` misses the target, and ``max_scale * sigma``
+    (with a note) when the target holds up to there.
+    """
+    names = list(model.names)
+    out = []
+    for p in parameters:
+        j = names.index(p)
+        sig = model.sigmas[j]
+
+        def yield_at(s: float, j: int = j, p: str = p) -> float:
+            scale = np.ones(len(names))
+            scale[j] = s
+            metrics = run(
+                model.as_grown(z, island_u=island_u, sigma_scale=scale), desc=f"allocate {p}"
+            )
+            return float(np.mean(spec.passes(metrics)))
+
+        rec: dict[str, Any] = {
+            "parameter": p,
+            "nominal_sigma": float(sig),
+            "unit": model.parameters[j].unit,
+            "target_yield": target_yield,
+            "note": "",
+        }
+        y_hi = yield_at(max_scale)
+        if y_hi >= target_yield:
+            rec.update(
+                allowed_sigma=float(max_scale * sig),
+                yield_at_allowed=y_hi,
+                note=f"target met up to {max_scale:g} x the nominal sigma (search bound)",
+            )
+            out.append(rec)
+            continue
+        y_lo = yield_at(0.0)
+        if y_lo < target_yield:
+            rec.update(
+                allowed_sigma=None,
+                yield_at_allowed=y_lo,
+                note="target missed even with this parameter held exactly; other spreads dominate",
+            )
+            out.append(rec)
+            continue
+        lo, hi, y_best = 0.0, max_scale, y_lo
+        for _ in range(steps):
+            mid = 0.5 * (lo + hi)
+            y = yield_at(mid)
+            if y >= target_yield:
+                lo, y_best = mid, y
+            else:
+                hi = mid
+        rec.update(allowed_sigma=float(lo * sig), yield_at_allowed=y_best)
+        out.append(rec)
+    return out
+
+
+# --------------------------------------------------------------------------- driver
+
+
+def _clean(metrics: dict[str, np.ndarray], i: int) -> dict[str, float | None]:
+    return {k: (None if not np.isfinite(v[i]) else float(v[i])) for k, v in metrics.items()}
+
+
+def run_tolerance(
+    model: GrowthModel,
+    spec: Spec,
+    run: Runner,
+    *,
+    method: str = "sobol",
+    samples: int = 256,
+    seed: int | np.random.Generator | None = None,
+    allocate: int = 3,
+    target_yield: float = 0.9,
+    out_dir: str | Path | None = None,
+    design: dict[str, Any] | None = None,
+    figures: bool = True,
+) -> dict[str, Any]:
+    """The whole tolerance analysis of one design; optionally writes ``out_dir``.
+
+    ``method``: ``mc`` (yield, tornado, allocation), ``morris`` (adds Morris
+    screening with ``max(2, samples // (n_params + 1))`` trajectories) or
+    ``sobol`` (adds Sobol indices with the largest power of two
+    ``<= samples // (n_params + 2)`` base samples, at least 8).
+
+    The record (``tolerance.json``): ``yield`` {value, ci_low, ci_high,
+    samples, passed, confidence}; ``failures``; ``sobol`` {metric name and
+    ``pass`` -> list ordered by total index of {parameter, first_index,
+    first_conf, total_index, total_conf}} (empty unless ``sobol``);
+    ``morris``; ``tornado``; ``allocation``; ``parameters`` [{name, kind,
+    sigma, unit}]; ``nominal`` metrics; ``spec``; ``settings``; ``notes``.
+    """
+    if method not in METHODS:
+        raise ValueError(f"method must be one of {METHODS}")
+    rng = as_generator(seed)
+    seeds = rng.spawn(4)
+    notes: list[str] = []
+    mc = monte_carlo_yield(model, spec, run, samples=samples, seed=seeds[0])
+    record: dict[str, Any] = {
+        "design": design or {},
+        "parameters": [
+            {"name": p.name, "kind": p.kind, "sigma": p.sigma, "unit": p.unit}
+            for p in model.parameters
+        ],
+        "spec": [
+            {
+                "metric": m,
+                "min": lo if math.isfinite(lo) else None,
+                "max": hi if math.isfinite(hi) else None,
+            }
+            for m, lo, hi in spec.windows
+        ],
+        "yield": mc["yield"],
+        "failures": mc["failures"],
+        "sobol": {},
+        "morris": {},
+    }
+    tor = tornado(model.stack, run)
+    record["nominal"] = tor["nominal"]
+    record["tornado"] = tor["layers"]
+    d = len(model.parameters)
+    ranking_source = None
+    if method == "sobol":
+        n_base = max(8, 2 ** int(math.floor(math.log2(max(1, samples // (d + 2))))))
+        s = sobol_analysis(model, spec, run, base_samples=n_base, seed=seeds[1])
+        record["sobol"] = s["sobol"]
+        notes += s["notes"]
+        record["sobol_evaluations"] = s["evaluations"]
+        ranking_source = [r["parameter"] for r in s["sobol"]["pass"]]
+        if all(r["total_index"] == 0 for r in s["sobol"]["pass"]):
+            ranking_source = None
+    elif method == "morris":
+        m = morris_analysis(
+            model, spec, run, trajectories=max(2, samples // (d + 1)), seed=seeds[1]
+        )
+        record["morris"] = m["morris"]
+        notes += m["notes"]
+        if "pass" in m["morris"] and any(r["mu_star"] > 0 for r in m["morris"]["pass"]):
+            ranking_source = [r["parameter"] for r in m["morris"]["pass"]]
+    if ranking_source is None:
+        # rank by the Monte Carlo correlation of |z| with failure (cheap fallback)
+        fail = (~mc["passed"]).astype(float)
+        score = [
+            abs(np.corrcoef(np.abs(mc["z"][:, j]), fail)[0, 1]) if fail.std() > 0 else 0.0
+            for j in range(d)
+        ]
+        ranking_source = [model.names[j] for j in np.argsort(score)[::-1]]
+        notes.append(
+            "allocation parameters ranked by correlation of |deviation| with failure in the Monte Carlo"
+        )
+    if allocate > 0 and d:
+        record["allocation"] = allocate_tolerances(
+            model,
+            spec,
+            run,
+            parameters=ranking_source[:allocate],
+            z=mc["z"],
+            island_u=mc["island_u"],
+            target_yield=target_yield,
+        )
+    else:
+        record["allocation"] = []
+    record["settings"] = {
+        "method": method,
+        "samples": samples,
+        "bias_points": int(run.bias_v.size),
+        "bias_min_v": float(run.bias_v[0]),
+        "bias_max_v": float(run.bias_v[-1]),
+        "seed": seed if isinstance(seed, int) else None,
+        "target_yield": target_yield,
+    }
+    record["notes"] = notes
+    if out_dir is not None:
+        write_outputs(record, mc, Path(out_dir), figures=figures)
+    return record
+
+
+def write_outputs(
+    record: dict[str, Any], mc: dict[str, Any], out: Path, *, figures: bool = True
+) -> dict[str, str]:
+    """``tolerance.json``, ``samples.csv``, ``sobol_<metric>.csv``, ``tornado.csv``,
+    ``allocation.csv`` and the PNG figures, each written to a temporary name and renamed."""
+    from .outputs import write_csv, write_json
+
+    files = {}
+    n = mc["passed"].size
+    names = [p["name"] for p in record["parameters"]]
+    head = ["sample", "passed", *METRIC_NAMES, *[f"z:{p}" for p in names]]
+    rows = (
+        [
+            i,
+            int(mc["passed"][i]),
+            *[_clean(mc["metrics"], i)[k] for k in METRIC_NAMES],
+            *mc["z"][i].tolist(),
+        ]
+        for i in range(n)
+    )
+    files["samples_csv"] = str(write_csv(out / "samples.csv", head, rows))
+    for metric, table in record["sobol"].items():
+        files[f"sobol_{metric}"] = str(
+            write_csv(
+                out / f"sobol_{metric}.csv",
+                ["parameter", "first_index", "first_conf", "total_index", "total_conf"],
+                (
+                    [
+                        r["parameter"],
+                        r["first_index"],
+                        r["first_conf"],
+                        r["total_index"],
+                        r["total_conf"],
+                    ]
+                    for r in table
+                ),
+            )
+        )
+    tor_rows = []
+    for r in record["tornado"]:
+        for side in ("minus", "plus"):
+            tor_rows.append([r["layer"], side, *[r[side][k] for k in METRIC_NAMES]])
+    files["tornado_csv"] = str(
+        write_csv(out / "tornado.csv", ["layer", "step", *METRIC_NAMES], tor_rows)
+    )
+    files["allocation_csv"] = str(
+        write_csv(
+            out / "allocation.csv",
+            ["parameter", "unit", "nominal_sigma", "allowed_sigma", "yield_at_allowed", "note"],
+            (
+                [
+                    a["parameter"],
+                    a["unit"],
+                    a["nominal_sigma"],
+                    a["allowed_sigma"],
+                    a["yield_at_allowed"],
+                    a["note"],
+                ]
+                for a in record["allocation"]
+            ),
+        )
+    )
+    if figures:
+        from . import tolerance_figures as tf
+
+        files.update(tf.save_all(record, mc, out))
+    record["files"] = files
+    write_json(out / "tolerance.json", record)
+    return files

@@ -1,0 +1,566 @@
+"""Self-consistent electrostatics: 1D Poisson with Thomas-Fermi electrons.
+
+An alternative to the linear bias drop (:func:`physics.bands.linear_profile`)
+selected by ``[model] electrostatics = "self-consistent"``. Poisson's
+equation for the electron potential energy ``U`` (eV) [1]_,
+
+    d/dx (eps dU/dx) = q (N_D^+ - n),
+
+is solved on the slices of the stack plus a finite length of each contact
+(``contact_nm``, default 80 nm, several depletion widths at 1e17-1e18
+cm^-3) by a finite-volume scheme (harmonic mean of the permittivity between
+slice centres). The donors are fully ionised. The electrons outside the
+double-barrier region follow the Thomas-Fermi approximation with
+Fermi-Dirac statistics [2]_,
+
+    n(x) = N_c(x) F_1/2((mu(x) - E_c(x)) / kT),
+
+with the emitter's quasi-Fermi level ``mu_E`` on the emitter side of the
+middle of the barrier region and the collector's ``mu_C = mu_E - qV`` on the
+collector side. Inside the barrier region (first barrier to last barrier,
+a barrier being a layer whose edge is more than :data:`BARRIER_EV` above both
+contacts) no free charge is counted: the well's charge is not modelled in
+this version, so there is no charge-induced bistability yet. Boundary
+conditions at the far ends of the contact regions are Dirichlet values of
+bulk charge neutrality (emitter edge at 0, collector edge at
+``mu_E - mu_C - V``), the same as the linear model's end points; the field
+there is then close to zero when the contact regions are long enough
+(checked by the tests).
+
+The nonlinear system is solved by Newton's method with a tridiagonal
+Jacobian (:func:`scipy.linalg.solve_banded`), each step scaled down so that
+no node moves by more than :data:`MAX_STEP_EV` (damping), from the linear
+drop or a given start; it stops when the largest update is below
+``tolerance_ev`` and raises :class:`ElectrostaticsConvergenceError`
+after ``max_iterations``.
+
+The resulting potential, including the band bending in both contact
+regions (accumulation in front of the emitter barrier, depletion behind the
+collector barrier), feeds :func:`physics.bands.profile_from_potential`; the
+contact regions become slices of the profile, so the kernel sees the
+accumulation notch and the depletion region.
+
+References
+----------
+.. [1] S. M. Sze and K. K. Ng, Physics of Semiconductor Devices, 3rd ed.
+   (Wiley, 2007), ch. 1-2 (Poisson's equation, depletion approximation).
+.. [2] J. S. Blakemore, Solid-State Electron. 25, 1067 (1982) (F_1/2).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING
+
+import numpy as np
+from scipy.linalg import solve_banded
+
+from .bands import Profile, SliceGrid, builtin_offset_ev, profile_from_potential, slice_grid
+from .constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, VACUUM_PERMITTIVITY_F_M
+from .fermi import effective_density_of_states_cm3, fermi_dirac_half, fermi_level_ev
+
+if TYPE_CHECKING:
+    from .stack import LayerTable
+
+__all__ = [
+    "ElectrostaticsConvergenceError",
+    "PoissonSolution",
+    "solve_poisson_1d",
+    "extended_slice_grid",
+    "solve_stack_poisson",
+    "self_consistent_profile",
+    "well_sheet_density_cm2",
+    "HysteresisCurves",
+    "sweep_hysteresis",
+]
+
+#: Layers whose edge lies this far above both contacts' edges count as barriers, eV.
+BARRIER_EV = 0.05
+#: Largest change of the potential of any node in one Newton step, eV.
+MAX_STEP_EV = 0.1
+CONTACT_NM = 80.0
+#: Width of the contact-region slice next to the stack, nm; the slices grow outwards.
+CONTACT_SLICE_NM = 0.5
+CONTACT_GRADING = 1.15
+#: Well-charge iteration: mixing step, relative tolerance and absolute tolerance (cm^-2;
+#: 1e7 cm^-2 changes the field by about 14 V/cm).
+WELL_MIXING = 0.5
+WELL_TOLERANCE = 1e-4
+WELL_ABS_CM2 = 1e7
+
+
+class ElectrostaticsConvergenceError(RuntimeError):
+    """The Poisson-Newton iteration did not converge in its bounded number of steps."""
+
+
+@dataclass(frozen=True)
+class PoissonSolution:
+    """Result of :func:`solve_poisson_1d`; arrays ``batch + (n_nodes,)``."""
+
+    potential_ev: np.ndarray  #: electron potential energy U, eV
+    electron_cm3: np.ndarray  #: Thomas-Fermi electrons plus the well charge
+    iterations: int
+    well_sheet_cm2: np.ndarray | None = None  #: electrons in the well, cm^-2, ``batch``
+
+
+_TABLE: dict[str, object] = {}
+_ETA_LO, _ETA_HI, _ETA_STEP = -30.0, 120.0, 0.01
+
+
+def _fermi_half_and_derivative(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """F_1/2(eta) and dF_1/2/d eta, fast, for the Newton iteration.
+
+    ``ln F_1/2`` is tabulated once with :func:`physics.fermi.fermi_dirac_half`
+    on ``[-30, 120]`` (step 0.01) and interpolated by a cubic spline (relative
+    error about 1e-9); below ``-30`` the nondegenerate limit ``F_1/2 = exp(eta)``
+    is used (relative error ``exp(eta) / 2^1.5`` < 1e-13, [2]_); above 120 the
+    degenerate limit ``(4 / (3 sqrt(pi))) eta^1.5`` (relative error ~1e-4, [2]_).
+    """
+    from scipy.interpolate import CubicSpline
+
+    spline = _TABLE.get("spline")
+    if spline is None:
+        grid = np.arange(_ETA_LO, _ETA_HI + 0.5 * _ETA_STEP, _ETA_STEP)
+        spline = CubicSpline(grid, np.log(fermi_dirac_half(grid)))
+        _TABLE["spline"] = spline
+    e = np.clip(eta, _ETA_LO, _ETA_HI)
+    log_f = spline(e)
+    f = np.exp(log_f)
+    df = f * spline(e, 1)
+    low = eta < _ETA_LO
+    high = eta > _ETA_HI
+    if np.any(low):
+        f = np.where(low, np.exp(np.maximum(eta, -700.0)), f)
+        df = np.where(low, f, df)
+    if np.any(high):
+        c = 4.0 / (3.0 * np.sqrt(np.pi))
+        f = np.where(high, c * np.maximum(eta, 0.0) ** 1.5, f)
+        df = np.where(high, 1.5 * c * np.sqrt(np.maximum(eta, 0.0)), df)
+    return f, df
+
+
+def solve_poisson_1d(
+    *,
+    width_nm: np.ndarray,
+    permittivity_r: np.ndarray,
+    donor_cm3: np.ndarray,
+    band_offset_ev: np.ndarray,
+    fermi_ev: np.ndarray,
+    mass_m0: np.ndarray,
+    temperature_k: np.ndarray | float,
+    electron_mask: np.ndarray,
+    left_ev: np.ndarray,
+    right_ev: np.ndarray,
+    initial_ev: np.ndarray,
+    tolerance_ev: float = 1e-7,
+    max_iterations: int = 60,
+    fixed_electron_cm3: np.ndarray | float = 0.0,
+) -> PoissonSolution:
+    """Solve ``d/dx(eps dU/dx) = q (N_D - n(U))`` on cells by damped Newton ([1]_).
+
+    Node ``i`` is the centre of a cell of width ``width_nm[i]``; the first and
+    last nodes (normally of width 0) carry the Dirichlet values ``left_ev`` and
+    ``right_ev``. All arrays broadcast to ``batch + (n_nodes,)`` except
+    ``left_ev``, ``right_ev`` (``batch``) and ``temperature_k`` (``batch`` or scalar).
+
+    Parameters
+    ----------
+    band_offset_ev
+        Band edge without the electrostatic potential; ``E_c = offset + U``.
+    fermi_ev
+        Local quasi-Fermi level, eV (same frame as the band edge).
+    electron_mask
+        True where free electrons (Thomas-Fermi) are counted.
+    initial_ev
+        Start of the iteration (its end values are replaced by the boundary values).
+    fixed_electron_cm3
+        Extra electron density that does not depend on ``U`` (the well charge).
+
+    Raises
+    ------
+    ElectrostaticsConvergenceError
+        When the largest update is still above ``tolerance_ev`` after ``max_iterations`` steps.
+    """
+    u = np.array(initial_ev, float, copy=True)
+    shape = u.shape
+    batch = shape[:-1]
+    n_nodes = shape[-1]
+    u[..., 0] = np.broadcast_to(left_ev, batch)
+    u[..., -1] = np.broadcast_to(right_ev, batch)
+    w = np.broadcast_to(width_nm, shape) * 1e-9
+    eps = np.broadcast_to(permittivity_r, shape) * VACUUM_PERMITTIVITY_F_M
+    donors = np.broadcast_to(donor_cm3, shape) * 1e6
+    offset = np.broadcast_to(band_offset_ev, shape)
+    mu = np.broadcast_to(fermi_ev, shape)
+    mask = np.broadcast_to(electron_mask, shape)
+    fixed = np.broadcast_to(np.asarray(fixed_electron_cm3, float) * 1e6, shape)
+    kt = np.broadcast_to(BOLTZMANN_EV_K * np.asarray(temperature_k, float), batch)[..., None]
+    nc = effective_density_of_states_cm3(np.broadcast_to(mass_m0, shape), np.broadcast_to(kt / BOLTZMANN_EV_K, shape)) * 1e6
+    # conductance between neighbouring centres: 1/G = (w_i/2)/eps_i + (w_i+1/2)/eps_i+1
+    resist = 0.5 * w[..., :-1] / eps[..., :-1] + 0.5 * w[..., 1:] / eps[..., 1:]
+    if np.any(resist <= 0):
+        raise ValueError("two neighbouring Poisson nodes both have zero width")
+    g = 1.0 / resist  # F/m^2, batch + (n_nodes - 1,)
+    q = ELEMENTARY_CHARGE_C
+
+    def density(u_):
+        eta = (mu - offset - u_) / kt
+        f, df = _fermi_half_and_derivative(eta)
+        n = np.where(mask, nc * f, 0.0) + fixed
+        dn_du = np.where(mask, -nc * df / kt, 0.0)
+        return n, dn_du
+
+    flat_batch = int(np.prod(batch)) if batch else 1
+    for iteration in range(1, max_iterations + 1):
+        n, dn_du = density(u)
+        flux = g * np.diff(u, axis=-1)  # C/m^2 (U in V-equivalent eV)
+        residual = flux[..., 1:] - flux[..., :-1] - q * w[..., 1:-1] * (donors[..., 1:-1] - n[..., 1:-1])
+        diag = -(g[..., 1:] + g[..., :-1]) + q * w[..., 1:-1] * dn_du[..., 1:-1]
+        upper = g[..., 1:-1]  # coupling i -> i+1 for interior rows
+        lower = g[..., 1:-1]
+        ab = np.zeros(batch + (3, n_nodes - 2))
+        ab[..., 0, 1:] = upper
+        ab[..., 1, :] = diag
+        ab[..., 2, :-1] = lower
+        ab_flat = ab.reshape(flat_batch, 3, n_nodes - 2)
+        r_flat = residual.reshape(flat_batch, n_nodes - 2)
+        step = np.empty_like(r_flat)
+        for k in range(flat_batch):  # one small banded solve per system
+            step[k] = solve_banded((1, 1), ab_flat[k], -r_flat[k], check_finite=False)
+        step = step.reshape(batch + (n_nodes - 2,))
+        biggest = np.max(np.abs(step), axis=-1, keepdims=True)
+        scale = np.minimum(1.0, MAX_STEP_EV / np.maximum(biggest, 1e-300))
+        u[..., 1:-1] += scale * step
+        worst = float(np.max(biggest)) if biggest.size else 0.0
+        if not np.isfinite(worst):
+            raise ElectrostaticsConvergenceError(f"Poisson-Newton iteration diverged (non-finite update) at step {iteration}")
+        if worst < tolerance_ev:
+            n, _ = density(u)
+            return PoissonSolution(potential_ev=u, electron_cm3=n * 1e-6, iterations=iteration)
+    raise ElectrostaticsConvergenceError(
+        f"Poisson-Newton iteration did not converge in {max_iterations} steps: "
+        f"largest update {worst:.3g} eV > tolerance {tolerance_ev:g} eV"
+    )
+
+
+def extended_slice_grid(
+    table: LayerTable,
+    *,
+    slice_nm: float = 0.25,
+    contact_nm: float = CONTACT_NM,
+    contact_slice_nm: float = CONTACT_SLICE_NM,
+) -> SliceGrid:
+    """Slices of the stack plus ``contact_nm`` of each contact as ordinary slices.
+
+    The first and last slices (width 0) are the semi-infinite contacts at
+    ``-contact_nm`` and ``L + contact_nm``; the contact-region slices carry
+    the contact's layer index, so :func:`physics.bands.profile_from_potential`
+    gives them the contact's material.
+    """
+    base = slice_grid(table, slice_nm=slice_nm)
+    # graded: contact_slice_nm next to the stack, growing by CONTACT_GRADING per slice
+    n_ext = max(1, int(np.ceil(np.log1p(contact_nm * (CONTACT_GRADING - 1.0) / contact_slice_nm) / np.log(CONTACT_GRADING))))
+    w_near = CONTACT_GRADING ** np.arange(n_ext)
+    w_near *= contact_nm / w_near.sum()  # nearest the stack first
+    n_stacks = table.n_stacks
+    li = np.concatenate(
+        [[0] * (n_ext + 1), base.layer_index[1:-1], [table.n_layers - 1] * (n_ext + 1)]
+    )
+    zero = np.zeros((n_stacks, 1))
+    left = np.broadcast_to(w_near[::-1], (n_stacks, n_ext))
+    right_ext = np.broadcast_to(w_near, (n_stacks, n_ext))
+    width = np.concatenate([zero, left, base.width_nm[:, 1:-1], right_ext, zero], axis=1)
+    right = np.cumsum(width, axis=1)
+    center = right - 0.5 * width - contact_nm
+    return SliceGrid(layer_index=li, width_nm=width, center_nm=center)
+
+
+def _barrier_region(table: LayerTable, grid: SliceGrid) -> tuple[np.ndarray, np.ndarray]:
+    """Mask of slices inside [first barrier, last barrier] and the split position, per stack."""
+    edge = table.edge_ev
+    top = np.maximum(edge[:, :1], edge[:, -1:])
+    is_barrier = edge > top + BARRIER_EV
+    is_barrier[:, [0, -1]] = False
+    li = grid.layer_index
+    n_stacks = table.n_stacks
+    inside = np.zeros((n_stacks, li.size), bool)
+    split = np.empty(n_stacks)
+    length = grid.center_nm[:, -1] - grid.center_nm[:, 0]
+    for s in range(n_stacks):  # per stack: a layer search, not physics
+        idx = np.nonzero(is_barrier[s])[0]
+        if idx.size == 0:
+            interior = (li > 0) & (li < table.n_layers - 1)
+            split[s] = 0.5 * (grid.center_nm[s, interior].min() + grid.center_nm[s, interior].max()) if interior.any() else 0.0
+            continue
+        inside[s] = (li >= idx[0]) & (li <= idx[-1])
+        pos = grid.center_nm[s, inside[s]]
+        split[s] = 0.5 * (pos.min() + pos.max())
+    del length
+    return inside, split
+
+
+def solve_stack_poisson(
+    table: LayerTable,
+    bias_v: np.ndarray,
+    *,
+    slice_nm: float = 0.25,
+    contact_nm: float = CONTACT_NM,
+    contact_slice_nm: float = CONTACT_SLICE_NM,
+    initial_ev: np.ndarray | None = None,
+    tolerance_ev: float = 1e-7,
+    max_iterations: int = 60,
+    well_charge: bool = True,
+    initial_well_cm2: np.ndarray | None = None,
+    max_well_iterations: int = 60,
+) -> tuple[SliceGrid, PoissonSolution]:
+    """Self-consistent potential of each stack at each bias.
+
+    Parameters
+    ----------
+    table
+        ``n_stacks`` stacks.
+    bias_v
+        ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+    initial_ev
+        Optional start ``(n_stacks, n_biases, n_nodes)`` (e.g. the previous
+        bias's solution); default the linear drop across the stack.
+    well_charge
+        Include the charge of the lowest quasi-bound state
+        (:func:`well_sheet_density_cm2`), iterated to self-consistency by
+        damped fixed-point steps (mixing :data:`WELL_MIXING`) around the
+        Poisson-Newton solve; raises :class:`ElectrostaticsConvergenceError`
+        after ``max_well_iterations``.
+    initial_well_cm2
+        Start of the well sheet density ``(n_stacks, n_biases)``, cm^-2.
+
+    Returns
+    -------
+    grid, solution
+        The extended slice grid and the potential on its nodes,
+        ``(n_stacks, n_biases, n_nodes)``.
+    """
+    grid = extended_slice_grid(table, slice_nm=slice_nm, contact_nm=contact_nm, contact_slice_nm=contact_slice_nm)
+    n_stacks = table.n_stacks
+    bias = np.asarray(bias_v, float)
+    bias = np.broadcast_to(bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :], (n_stacks, np.atleast_1d(bias).shape[-1]))
+    li = grid.layer_index
+    mu_e = fermi_level_ev(table.doping_cm3[:, 0], table.mass_m0[:, 0], table.temperature_k)
+    right = -(bias + builtin_offset_ev(table)[:, None])  # collector potential, as in the linear model
+    inside, split = _barrier_region(table, grid)
+    emitter_side = grid.center_nm < split[:, None]
+    fermi = np.where(emitter_side[:, None, :], mu_e[:, None, None], (mu_e[:, None] - bias)[:, :, None])
+    offset = (table.edge_ev - table.edge_ev[:, :1])[:, li]
+    if initial_ev is None:
+        length = grid.center_nm[:, -1] - grid.center_nm[:, 0] - 2.0 * contact_nm
+        frac = np.clip(grid.center_nm / np.maximum(length, 1e-9)[:, None], 0.0, 1.0)
+        initial_ev = right[:, :, None] * frac[:, None, :]
+    well_slices = inside & (offset < np.maximum(offset[:, :1], offset[:, -1:]) + BARRIER_EV)
+    well_nm = np.sum(np.where(well_slices, grid.width_nm, 0.0), axis=1)
+
+    def poisson(start, well_cm2):
+        fixed = np.where(
+            well_slices[:, None, :], (well_cm2 / np.maximum(well_nm, 1e-9)[:, None] * 1e7)[:, :, None], 0.0
+        )
+        return solve_poisson_1d(
+            width_nm=grid.width_nm[:, None, :],
+            permittivity_r=table.permittivity_r[:, li][:, None, :],
+            donor_cm3=table.doping_cm3[:, li][:, None, :],
+            band_offset_ev=offset[:, None, :],
+            fermi_ev=fermi,
+            mass_m0=table.mass_m0[:, li][:, None, :],
+            temperature_k=table.temperature_k[:, None],
+            electron_mask=~inside[:, None, :],
+            left_ev=np.zeros(bias.shape),
+            right_ev=right,
+            initial_ev=np.broadcast_to(start, bias.shape + (li.size,)),
+            tolerance_ev=tolerance_ev,
+            max_iterations=max_iterations,
+            fixed_electron_cm3=fixed,
+        )
+
+    well = np.zeros(bias.shape) if initial_well_cm2 is None else np.broadcast_to(initial_well_cm2, bias.shape).copy()
+    has_well = np.any(well_nm > 0)
+    solution = poisson(initial_ev, well if well_charge and has_well else 0.0 * well)
+    if not (well_charge and has_well):
+        return grid, replace(solution, well_sheet_cm2=np.zeros(bias.shape))
+    mass_w = np.array([table.mass_m0[s, li[well_slices[s]]].min() if well_slices[s].any() else 1.0 for s in range(n_stacks)])
+    guess = None
+    full = True  # full resonance search (else refine from the last E_1)
+    previous = None  # (well, residual) of the last step, for the secant update
+    lo = np.zeros(bias.shape)
+    hi = np.full(bias.shape, np.inf)
+    for outer in range(1, max_well_iterations + 1):
+        target, e1 = well_sheet_density_cm2(
+            table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w,
+            guess_ev=None if full else guess,
+        )
+        if not full and np.any(np.isfinite(guess) & ~np.isfinite(e1)):  # a state was lost: search again
+            full = True
+            target, e1 = well_sheet_density_cm2(
+                table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w
+            )
+        residual = target - well
+        converged = np.all(np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2)
+        if converged and (full or np.all(np.isfinite(e1))):
+            return grid, replace(solution, well_sheet_cm2=well, iterations=solution.iterations + outer)
+        if converged:  # confirm with a full search that no state has entered the window
+            full = True
+            continue
+        full = False
+        guess = e1
+        # Root of residual(well) = F(well) - well per (stack, bias). F >= 0, so a root lies in
+        # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi); take the secant
+        # step (or a mixing step) when it falls inside the bracket, else bisect. Always converges.
+        lo = np.where(residual >= 0, np.maximum(lo, well), lo)
+        hi = np.where(residual < 0, np.minimum(hi, well), hi)
+        candidate = well + WELL_MIXING * residual
+        if previous is not None:
+            d_well, d_res = well - previous[0], residual - previous[1]
+            ok = (np.abs(d_well) > 0) & (d_res != 0)
+            candidate = np.where(ok, well - residual * d_well / np.where(ok, d_res, 1.0), candidate)
+        inside_bracket = (candidate > lo) & (candidate < hi)
+        bisect = np.where(np.isfinite(hi), 0.5 * (lo + hi), target)
+        previous = (well, residual)
+        well = np.where(inside_bracket, candidate, bisect)
+        # a collapsed bracket with a large residual means an inconsistent evaluation
+        # (a refined E_1 that lost its peak): reopen it and search in full next time
+        collapsed = (hi - lo) <= WELL_TOLERANCE * np.abs(hi) + WELL_ABS_CM2
+        if np.any(collapsed):
+            lo = np.where(collapsed, 0.0, lo)
+            hi = np.where(collapsed, np.inf, hi)
+            well = np.where(collapsed, target, well)
+            full = True
+            previous = None
+        solution = poisson(solution.potential_ev, well)
+    raise ElectrostaticsConvergenceError(
+        f"well-charge iteration did not converge in {max_well_iterations} steps: largest change "
+        f"{float(np.max(np.abs(residual))):.3g} cm^-2"
+    )
+
+
+def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0, guess_ev=None):
+    """Estimate of the electron sheet density in the lowest quasi-bound state, cm^-2.
+
+    The 2D subband at ``E_1`` (found in ``T(E)`` of the current profile by
+    :func:`physics.resonances.find_resonances`, above the injecting contact's
+    band edge) is fed by the injecting contact (the emitter for ``V >= 0``) at
+    rate ``Gamma_E`` and emptied at ``Gamma``; with the transverse momentum
+    conserved each 2D state at ``E_1 + E_par`` has occupancy
+    ``(Gamma_E / Gamma) f(E_1 + E_par)``, so ([1]_ for the 2D density of states)
+
+        n_w = (Gamma_E / Gamma) (m_w kT / (pi hbar^2)) ln(1 + exp((mu - E_1) / kT)).
+
+    ``Gamma_E / Gamma`` is taken from the Breit-Wigner peak ``T_p = 4 Gamma_E
+    Gamma_C / Gamma^2`` as the smaller root ``(1 - sqrt(1 - T_p)) / 2``: an
+    assumption (the injecting side is the more opaque one, as near the peak of
+    a symmetric stack under forward bias); a simple estimate, not from a
+    specific publication. The charge from the collector and from higher
+    subbands is neglected.
+
+    ``guess_ev`` (``(n_stacks, n_biases)``, e.g. ``E_1`` of the previous
+    iteration) refines from there instead of searching; NaN entries (no
+    state before) stay without a state, so the caller confirms a converged
+    result with a full search.
+    Returns ``(n_w, E_1)``, both ``(n_stacks, n_biases)``; ``E_1`` is NaN
+    where no state lies above the injecting edge.
+    """
+    from .constants import HBAR_J_S, ELECTRON_MASS_KG
+    from .resonances import find_resonances, refine_peaks
+
+    profile = profile_from_potential(table, grid, potential_ev)
+    kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None]
+    bias = np.asarray(bias_v, float)
+    forward = bias >= 0
+    mu = np.where(forward, mu_emitter_ev[:, None], mu_emitter_ev[:, None] - bias)
+    edge = np.where(forward, 0.0, profile.edge_ev[..., -1])
+    top = mu + 12.0 * kt
+    if guess_ev is not None:
+        known = np.isfinite(guess_ev)
+        e1, width, tp = refine_peaks(
+            np.where(known, guess_ev, 0.5 * (edge + top))[..., None], 5e-3, profile=profile, iterations=6
+        )
+        e1, width, tp = e1[..., 0], width[..., 0], tp[..., 0]
+        ok = known & np.isfinite(width) & (e1 > edge) & (e1 < top)
+        e1 = np.where(ok, e1, np.nan)
+        tp = np.where(ok, tp, 0.0)
+    else:
+        res = find_resonances(profile, energy_min_ev=edge + 1e-6, energy_max_ev=top, n_coarse=120, n_max=3)
+        energy = np.where(res.valid, res.energy_ev, np.inf)
+        k = np.argmin(energy, axis=-1)[..., None]
+        e1 = np.take_along_axis(energy, k, axis=-1)[..., 0]
+        e1 = np.where(np.isfinite(e1), e1, np.nan)
+        tp = np.take_along_axis(np.where(res.valid, res.peak_transmission, 0.0), k, axis=-1)[..., 0]
+    fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.clip(tp, 0.0, 1.0)))
+    n2d_cm2 = well_mass_m0[:, None] * ELECTRON_MASS_KG * kt * ELEMENTARY_CHARGE_C / (np.pi * HBAR_J_S**2) * 1e-4
+    supply = np.logaddexp(0.0, (mu - np.where(np.isfinite(e1), e1, 0.0)) / kt)
+    return np.where(np.isfinite(e1), fraction * n2d_cm2 * supply, 0.0), e1
+
+
+def self_consistent_profile(
+    table: LayerTable,
+    bias_v: np.ndarray,
+    *,
+    slice_nm: float = 0.25,
+    initial_ev: np.ndarray | None = None,
+    **options,
+) -> Profile:
+    """Profile of ``table`` at each bias with the self-consistent potential.
+
+    Same contract as :func:`physics.bands.linear_profile` (batch shape
+    ``(n_stacks, n_biases)``); the profile also contains the contact regions
+    as slices. ``options`` go to :func:`solve_stack_poisson`.
+    """
+    grid, solution = solve_stack_poisson(table, bias_v, slice_nm=slice_nm, initial_ev=initial_ev, **options)
+    return profile_from_potential(table, grid, solution.potential_ev)
+
+
+@dataclass(frozen=True)
+class HysteresisCurves:
+    """Currents of an up sweep and a down sweep on the same biases (``(n_stacks, n_biases)`` each)."""
+
+    bias_v: np.ndarray
+    up_a_cm2: np.ndarray
+    down_a_cm2: np.ndarray
+
+
+def sweep_hysteresis(table: LayerTable, bias_v: np.ndarray, *, model=None, grid=None) -> HysteresisCurves:
+    """Up and down bias sweeps, each bias started from the previous bias's potential.
+
+    With ``model.electrostatics == "linear"`` both branches are the same
+    curve. With the self-consistent model, the potential and the well charge
+    of the previous bias start each solve, so where the solution is not unique
+    (charge-induced bistability) the two branches can differ.
+    """
+    from .current import EnergyGrid, current_density_a_cm2
+    from .iv import current_at_bias
+    from .stack import ModelOptions
+
+    model = ModelOptions() if model is None else model
+    grid = EnergyGrid() if grid is None else grid
+    bias = np.asarray(bias_v, float)
+    if bias.ndim != 1 or np.any(np.diff(bias) <= 0):
+        raise ValueError("bias_v must be a 1-D strictly increasing array")
+    if model.electrostatics != "self-consistent":
+        j = current_at_bias(table, bias, model=model, grid=grid)
+        return HysteresisCurves(bias, j, j.copy())
+    branches = []
+    for order in (np.arange(bias.size), np.arange(bias.size)[::-1]):
+        previous, previous_well = None, None
+        potentials = [None] * bias.size
+        for i in order:
+            g, sol = solve_stack_poisson(
+                table, bias[i : i + 1], slice_nm=model.slice_nm, initial_ev=previous, initial_well_cm2=previous_well
+            )
+            previous, previous_well = sol.potential_ev, sol.well_sheet_cm2
+            potentials[i] = sol.potential_ev
+        profile = profile_from_potential(table, g, np.concatenate(potentials, axis=1))
+        branches.append(
+            current_density_a_cm2(
+                profile,
+                table=table,
+                bias_v=np.broadcast_to(bias, (table.n_stacks, bias.size)),
+                grid=grid,
+                broadening_ev=1e-3 * model.broadening_mev,
+            )
+        )
+    return HysteresisCurves(bias, branches[0], branches[1])

@@ -1,0 +1,246 @@
+"""Tests of the ``wellwright`` command: bad input, JSON output, figures, help, warnings.
+
+Contract (issue 2 and DESIGN.md): bad input gives exit status 2 and one line on
+stderr naming the file, layer and key, never a traceback, and nothing is
+written. Most checks call ``optimize.cli.main`` in-process (fast); one bad-input
+case, the JSON run and the warning run go through the installed console script.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from helpers_physics import BAD_STACKS, stack_toml, write_stack
+
+from optimize.cli import build_parser, main
+
+ROOT = Path(__file__).resolve().parents[1]
+STUDY = ROOT / "studies" / "inp_thz_oscillator.toml"
+METRIC_KEYS = (
+    "peak_current_density_a_cm2",
+    "peak_voltage_v",
+    "valley_current_density_a_cm2",
+    "valley_voltage_v",
+    "pvcr",
+)
+
+
+def _command() -> list[str]:
+    exe = shutil.which("wellwright")
+    return [exe] if exe else [sys.executable, "-m", "optimize.cli"]
+
+
+def _run(args: list[str], cwd: Path, timeout: float = 120) -> subprocess.CompletedProcess:
+    env = dict(os.environ, MPLBACKEND="Agg")
+    return subprocess.run(
+        [*_command(), *args], cwd=cwd, capture_output=True, text=True, timeout=timeout, env=env
+    )
+
+
+def _listing(folder: Path) -> set[str]:
+    return {str(p.relative_to(folder)) for p in folder.rglob("*")}
+
+
+# ----------------------------------------------------------------------------- bad input
+
+
+@pytest.mark.parametrize(
+    ("case", "text", "layer", "key", "message"), BAD_STACKS, ids=[c[0] for c in BAD_STACKS]
+)
+def test_bad_stack_exit_2_one_line_nothing_written(
+    tmp_path, monkeypatch, capsys, case, text, layer, key, message
+) -> None:
+    monkeypatch.chdir(tmp_path)
+    path = tmp_path / "absent.toml" if text is None else write_stack(tmp_path, text)
+    before = _listing(tmp_path)
+    out = tmp_path / "results"
+    assert main(["iv", str(path), "--out", str(out), "--points", "5"]) == 2
+    # and with the default output folder (<stack name>_iv in the working folder)
+    assert main(["iv", str(path), "--points", "5"]) == 2
+    captured = capsys.readouterr()
+    lines = captured.err.strip().splitlines()
+    assert len(lines) == 2 and lines[0] == lines[1]
+    line = lines[0]
+    assert line.startswith(f"wellwright iv: {path}")
+    if layer is not None:
+        assert f"layer {layer}" in line
+    if key is not None:
+        assert f"key '{key}'" in line
+    assert "Traceback" not in captured.err and captured.out == ""
+    assert not out.exists()
+    assert _listing(tmp_path) == before
+
+
+@pytest.mark.parametrize(
+    ("options", "expected"),
+    [
+        (["--points", "1"], "key '--points': 1 outside [2, 2001]"),
+        (["--bias-min", "0.5", "--bias-max", "0.2"], "key '--bias-max': must be above --bias-min"),
+        (["--bias-max", "50"], "key '--bias-max': 50 outside [-10, 10] V"),
+        (["--points", "many"], "invalid int value: 'many'"),
+    ],
+)
+def test_bad_options_exit_2(tmp_path, monkeypatch, capsys, options, expected) -> None:
+    monkeypatch.chdir(tmp_path)
+    path = write_stack(tmp_path, stack_toml())
+    out = tmp_path / "results"
+    try:
+        status = main(["iv", str(path), "--out", str(out), *options])
+    except SystemExit as exc:  # argparse usage errors
+        status = exc.code
+    assert status == 2
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1 and expected in err
+    assert "Traceback" not in err
+    assert not out.exists()
+
+
+def test_console_script_bad_input(tmp_path) -> None:
+    # the installed entry point, not only main(): exit 2, one line, no traceback
+    path = write_stack(tmp_path, stack_toml(top={"temperature_k": 300, "colour": "blue"}))
+    result = _run(["iv", str(path), "--out", str(tmp_path / "results")], cwd=tmp_path)
+    assert result.returncode == 2
+    assert result.stderr.strip().splitlines() == [
+        f"wellwright iv: {path}, key 'colour': unknown key; allowed: "
+        "device, layers, model, substrate, temperature_k"
+    ]
+    assert result.stdout == ""
+    assert not (tmp_path / "results").exists()
+
+
+# ----------------------------------------------------------------------------- a real run
+
+
+@pytest.fixture(scope="module")
+def study_run(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("iv_run")
+    result = _run(["iv", str(STUDY), "--json", "--out", str(folder / "out")], cwd=folder)
+    return result, folder / "out"
+
+
+def test_iv_json_record(study_run) -> None:
+    result, _ = study_run
+    assert result.returncode == 0, result.stderr
+    record = json.loads(result.stdout)
+    bias = np.array(record["bias_v"])
+    j = np.array(record["current_density_a_cm2"])
+    # defaults: 61 evenly spaced biases from 0 to 1 V inclusive (issue 2)
+    np.testing.assert_allclose(bias, np.linspace(0.0, 1.0, 61), rtol=0, atol=1e-15)
+    assert j.shape == bias.shape and np.all(np.isfinite(j))
+    assert j[0] == 0.0 and np.all(j[1:] > 0)
+    m = record["metrics"]
+    for key in METRIC_KEYS:
+        assert isinstance(m[key], float), key
+    assert m["pvcr"] == pytest.approx(
+        m["peak_current_density_a_cm2"] / m["valley_current_density_a_cm2"], rel=1e-12
+    )
+    assert 0 < m["peak_voltage_v"] < m["valley_voltage_v"] < 1.0
+    # the peak is a local maximum of the sweep: no sweep point exceeds it nearby
+    near = np.abs(bias - m["peak_voltage_v"]) < 0.05
+    assert m["peak_current_density_a_cm2"] >= j[near].max()
+
+
+def test_iv_files_and_figures(study_run) -> None:
+    import matplotlib.image as mpimg
+
+    result, out = study_run
+    assert result.returncode == 0, result.stderr
+    names = {p.name for p in out.iterdir()}
+    assert {"iv.csv", "metrics.json", "iv.png", "band_diagram.png", "transmission.png"} <= names
+    assert not [n for n in names if n.startswith(".") or n.endswith(".tmp")]  # no temporaries left
+    for name in ("iv.png", "band_diagram.png", "transmission.png"):
+        image = mpimg.imread(out / name)
+        assert image.ndim == 3 and min(image.shape[:2]) > 100, name
+        assert float(np.std(image)) > 0.0, name  # not blank
+    metrics = json.loads((out / "metrics.json").read_text())["metrics"]
+    assert metrics == json.loads(result.stdout)["metrics"]
+    rows = (out / "iv.csv").read_text().strip().splitlines()
+    assert rows[0] == "bias_v,current_density_a_cm2" and len(rows) == 62
+
+
+def test_series_resistance_and_area_in_json(tmp_path, capsys) -> None:
+    # [device] table: V_ext = V + J R (R in ohm um^2, J in A/cm^2: factor 1e-8) and
+    # I = J A (A in um^2 = 1e-8 cm^2; in mA: x 1e3), hand arithmetic.
+    text = STUDY.read_text().replace(
+        "[model]", "[device]\narea_um2 = 4.0\nseries_resistance_ohm_um2 = 20.0\n\n[model]"
+    )
+    path = write_stack(tmp_path, text)
+    status = main(
+        [
+            "iv",
+            str(path),
+            "--out",
+            str(tmp_path / "out"),
+            "--points",
+            "11",
+            "--bias-max",
+            "0.5",
+            "--no-figures",
+            "--json",
+        ]
+    )
+    assert status == 0
+    record = json.loads(capsys.readouterr().out)
+    v, j = np.array(record["bias_v"]), np.array(record["current_density_a_cm2"])
+    np.testing.assert_allclose(record["external_bias_v"], v + j * 20.0 * 1e-8, rtol=1e-12)
+    np.testing.assert_allclose(record["current_ma"], j * 4.0 * 1e-8 * 1e3, rtol=1e-12)
+    m = record["metrics"]
+    if m["peak_voltage_v"] is not None:
+        assert m["peak_voltage_external_v"] == pytest.approx(
+            m["peak_voltage_v"] + m["peak_current_density_a_cm2"] * 20.0 * 1e-8, rel=1e-12
+        )
+        assert m["peak_current_ma"] == pytest.approx(
+            m["peak_current_density_a_cm2"] * 4.0 * 1e-5, rel=1e-12
+        )
+
+
+def test_critical_thickness_warns_but_succeeds(tmp_path) -> None:
+    # 40 ML AlAs on InP exceeds its Matthews-Blakeslee critical thickness (J. Cryst.
+    # Growth 27, 118 (1974)): the command warns on stderr and still succeeds (issue 2).
+    layers = [
+        {"name": "emitter", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+        {"name": "spacer", "material": "In0.53Ga0.47As", "thickness_nm": 2.0},
+        {"name": "barrier", "material": "AlAs", "thickness_ml": 40},
+        {"name": "collector", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+    ]
+    path = write_stack(tmp_path, stack_toml(layers, top={"temperature_k": 300, "substrate": "InP"}))
+    result = _run(
+        ["iv", str(path), "--out", str(tmp_path / "out"), "--points", "5", "--no-figures"],
+        cwd=tmp_path,
+    )
+    assert result.returncode == 0, result.stderr
+    assert "Matthews-Blakeslee critical thickness" in result.stderr
+    assert "Traceback" not in result.stderr
+    assert (tmp_path / "out" / "iv.csv").exists()
+
+
+# ----------------------------------------------------------------------------- help
+
+
+def _subcommands() -> list[str]:
+    parser = build_parser()
+    actions = [a for a in parser._actions if a.__class__.__name__ == "_SubParsersAction"]
+    return sorted(actions[0].choices)
+
+
+def test_every_subcommand_has_help(capsys) -> None:
+    commands = _subcommands()
+    assert {"iv", "materials"} <= set(commands)
+    for command in [None, *commands]:
+        argv = ["--help"] if command is None else [command, "--help"]
+        with pytest.raises(SystemExit) as info:
+            main(argv)
+        assert info.value.code == 0, command
+        assert "usage:" in capsys.readouterr().out
+
+
+def test_console_script_help(tmp_path) -> None:
+    result = _run(["--help"], cwd=tmp_path)
+    assert result.returncode == 0 and "iv" in result.stdout

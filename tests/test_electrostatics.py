@@ -1,0 +1,267 @@
+"""Tests of scattering broadening and self-consistent electrostatics (issue 7).
+
+Each check names its source or says "common practice".
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from physics.constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, VACUUM_PERMITTIVITY_F_M
+from physics.bands import linear_profile
+from physics.broadening import broadening_correction, broadened_peak
+from physics.current import current_density_a_cm2
+from physics.electrostatics import (
+    ElectrostaticsConvergenceError,
+    _fermi_half_and_derivative,
+    solve_poisson_1d,
+    solve_stack_poisson,
+    sweep_hysteresis,
+)
+from physics.fermi import fermi_dirac_half, fermi_level_ev
+from physics.iv import current_at_bias, stack_iv, sweep
+from physics.stack import LayerTable, load_stack, parse_stack
+
+STUDY = Path(__file__).resolve().parents[1] / "studies" / "gaas_low_power_memory.toml"
+
+
+def _stack_dict(*, collector_spacer_nm=10.0, electrostatics="linear", broadening_mev=0.0, doping=1e18):
+    """Invented GaAs/AlAs double-barrier stack (like the demo study), for tests."""
+    return {
+        "temperature_k": 300,
+        "substrate": "GaAs",
+        "model": {"electrostatics": electrostatics, "broadening_mev": broadening_mev},
+        "layers": [
+            {"name": "emitter", "material": "GaAs", "doping_cm3": doping},
+            {"name": "es", "material": "GaAs", "thickness_nm": 3.0},
+            {"name": "b1", "material": "AlAs", "thickness_ml": 10},
+            {"name": "w", "material": "GaAs", "thickness_ml": 20},
+            {"name": "b2", "material": "AlAs", "thickness_ml": 10},
+            {"name": "cs", "material": "GaAs", "thickness_nm": collector_spacer_nm},
+            {"name": "collector", "material": "GaAs", "doping_cm3": doping},
+        ],
+    }
+
+
+BIAS = np.linspace(0.0, 0.6, 31)
+
+
+# ----------------------------------------------------------------------------- broadening
+
+
+def test_zero_broadening_reproduces_coherent_exactly():
+    # definition of the model (physics.broadening): Gamma_s = 0 is the coherent kernel
+    table = load_stack(STUDY).table()
+    profile = linear_profile(table, BIAS)
+    j0 = current_density_a_cm2(profile, table=table, bias_v=BIAS[None, :])
+    j1 = current_density_a_cm2(profile, table=table, bias_v=BIAS[None, :], broadening_ev=0.0)
+    assert np.array_equal(j0, j1)
+
+
+def test_broadened_lorentzian_conserves_area():
+    # Jonson and Grincwajg, APL 51, 1729 (1987): peak T_p G/(G+G_s), width G+G_s, area conserved.
+    # With a constant supply S = 1 on [E_r - a, E_r + a] the correction is analytic:
+    # int L dE = T W atan(2a/W) (elementary integral of the Breit-Wigner line).
+    tp, g, gs, a = 0.8, 1e-4, 3e-3, 0.5
+    corr = broadening_correction(
+        center_ev=np.array([[0.3]]),
+        width_ev=np.array([[g]]),
+        peak=np.array([[tp]]),
+        valid=np.array([[True]]),
+        low_ev=np.array([0.3 - a]),
+        high_ev=np.array([0.3 + a]),
+        supply=np.ones_like,
+        broadening_ev=gs,
+    )
+    tpb, gb = broadened_peak(tp, g, gs)
+    expected = tpb * gb * np.arctan(2 * a / gb) - tp * g * np.arctan(2 * a / g)
+    # quadrature error of each term below 1e-8 of its value (64-node rule, smooth in s)
+    assert corr[0] == pytest.approx(expected, abs=1e-8 * tp * g)
+    assert tpb * gb == pytest.approx(tp * g, rel=1e-14)
+
+
+def test_broadening_raises_valley_and_lowers_pvcr():
+    # common practice: scattering broadening raises the valley current and lowers the PVCR
+    coherent = stack_iv(parse_stack(_stack_dict()), BIAS).metrics_of(0)
+    broad = stack_iv(parse_stack(_stack_dict(broadening_mev=3.0)), BIAS).metrics_of(0)
+    assert broad["valley_current_density_a_cm2"] > 1.5 * coherent["valley_current_density_a_cm2"]
+    assert broad["pvcr"] < 0.7 * coherent["pvcr"]
+
+
+# ----------------------------------------------------------------------------- Poisson
+
+
+def test_fast_fermi_integral_matches_quadrature():
+    # physics.fermi.fermi_dirac_half is the reference (Blakemore 1982 definition)
+    eta = np.linspace(-40.0, 110.0, 1237)
+    f, df = _fermi_half_and_derivative(eta)
+    np.testing.assert_allclose(f, fermi_dirac_half(eta), rtol=1e-8)
+    h = 1e-4
+    np.testing.assert_allclose(df, (fermi_dirac_half(eta + h) - fermi_dirac_half(eta - h)) / (2 * h), rtol=1e-6)
+
+
+def test_poisson_matches_depletion_approximation():
+    # S. M. Sze and K. K. Ng, Physics of Semiconductor Devices, 3rd ed., ch. 2:
+    # depletion layer at a fixed-potential boundary, W = sqrt(2 eps (V - kT/q) / (q N)),
+    # depletion charge Q = q N W. Nondegenerate n-GaAs at 1e16 cm^-3, 0.5 V band bending.
+    n_d, v_b, temp, eps_r, mass = 1e16, 0.5, 300.0, 12.9, 0.067
+    length_nm, h_nm = 800.0, 0.5
+    n = int(length_nm / h_nm) + 1
+    width = np.full(n, h_nm)
+    width[[0, -1]] = 0.0
+    mu = float(fermi_level_ev(n_d, mass, temp))
+    x = np.cumsum(width) - 0.5 * width
+    sol = solve_poisson_1d(
+        width_nm=width[None],
+        permittivity_r=np.full((1, n), eps_r),
+        donor_cm3=np.full((1, n), n_d),
+        band_offset_ev=np.zeros((1, n)),
+        fermi_ev=np.full((1, n), mu),
+        mass_m0=np.full((1, n), mass),
+        temperature_k=temp,
+        electron_mask=np.ones((1, n), bool),
+        left_ev=np.array([0.0]),
+        right_ev=np.array([v_b]),
+        initial_ev=v_b * (x / x[-1])[None] ** 8,
+    )
+    kt = BOLTZMANN_EV_K * temp
+    eps = eps_r * VACUUM_PERMITTIVITY_F_M
+    w_sze = np.sqrt(2 * eps * (v_b - kt) / (ELEMENTARY_CHARGE_C * n_d * 1e6))
+    q_sze = ELEMENTARY_CHARGE_C * n_d * 1e6 * w_sze
+    q_num = ELEMENTARY_CHARGE_C * np.sum(width * 1e-9 * (n_d - sol.electron_cm3[0]) * 1e6)
+    assert q_num == pytest.approx(q_sze, rel=5e-3)  # Sze's kT/q term is exact to O(exp(-V/kT)) for Boltzmann
+    # parabolic band bending inside the depleted region, V_b (1 - d/W)^2 (depletion approximation)
+    d = (x[-1] - x) * 1e-9
+    inside = d < 0.6 * w_sze
+    parabola = (v_b - kt) * (1 - d[inside] / w_sze) ** 2 + kt
+    np.testing.assert_allclose(sol.potential_ev[0, inside], parabola, atol=0.01)
+    # far bulk: flat and neutral (zero field)
+    assert abs(sol.potential_ev[0, : n // 4]).max() < 1e-4  # > 7 Debye lengths (42 nm) from the edge
+
+
+def test_zero_bias_flat_contacts_and_neutral():
+    # common practice (Sze ch. 2): far from the barriers the contacts are flat and the device is neutral
+    table = parse_stack(_stack_dict(doping=2e17)).table()
+    grid, sol = solve_stack_poisson(table, np.array([0.0]))
+    u = sol.potential_ev[0, 0]
+    far = (grid.center_nm[0] < -60.0) | (grid.center_nm[0] > grid.center_nm[0, -1] - 20.0)
+    assert np.abs(u[far]).max() < 2e-3
+    donors = table.doping_cm3[0, grid.layer_index]
+    net = np.sum(grid.width_nm[0] * (donors - sol.electron_cm3[0, 0]))
+    total = np.sum(grid.width_nm[0] * donors)
+    assert abs(net) < 1e-3 * total
+    j = current_at_bias(table, np.array([0.0]), model=parse_stack(_stack_dict(electrostatics="self-consistent")).model)
+    assert abs(j[0, 0]) < 1e-6
+
+
+def test_self_consistent_peak_voltage_above_linear():
+    # common practice: bias spent on accumulation and collector-spacer depletion raises V_p
+    lin = stack_iv(parse_stack(_stack_dict()), BIAS).metrics_of(0)
+    sc = stack_iv(parse_stack(_stack_dict(electrostatics="self-consistent")), BIAS).metrics_of(0)
+    assert sc["peak_voltage_v"] > lin["peak_voltage_v"] + 0.03
+
+
+def test_longer_collector_spacer_raises_peak_voltage():
+    # common practice: a longer undoped collector spacer raises the peak voltage
+    bias = np.linspace(0.0, 0.9, 46)
+    short = stack_iv(parse_stack(_stack_dict(collector_spacer_nm=5.0, electrostatics="self-consistent")), bias)
+    long_ = stack_iv(parse_stack(_stack_dict(collector_spacer_nm=30.0, electrostatics="self-consistent")), bias)
+    assert long_.metrics_of(0)["peak_voltage_v"] > short.metrics_of(0)["peak_voltage_v"] + 0.05
+
+
+def test_nonconvergence_raises_clear_error():
+    table = load_stack(STUDY).table()
+    with pytest.raises(ElectrostaticsConvergenceError, match="did not converge in 1 steps"):
+        solve_stack_poisson(table, np.array([0.5]), max_iterations=1)
+
+
+def _random_stack(rng):
+    """Seeded random double-barrier GaAs/AlGaAs/InGaAs stacks (invented, for the convergence test)."""
+    doping = 10 ** rng.uniform(17.0, 18.7)
+    well = rng.choice(["GaAs", "In0.1Ga0.9As"])
+    x_b = rng.uniform(0.3, 1.0)
+    return parse_stack(
+        {
+            "substrate": "GaAs",
+            "model": {"electrostatics": "self-consistent"},
+            "layers": [
+                {"material": "GaAs", "doping_cm3": doping},
+                {"name": "es", "material": "GaAs", "thickness_nm": rng.uniform(0.5, 20.0)},
+                {"name": "b1", "material": "AlGaAs", "x": x_b, "thickness_ml": int(rng.integers(4, 14))},
+                {"name": "w", "material": well, "thickness_ml": int(rng.integers(12, 30))},
+                {"name": "b2", "material": "AlGaAs", "x": x_b, "thickness_ml": int(rng.integers(4, 14))},
+                {"name": "cs", "material": "GaAs", "thickness_nm": rng.uniform(0.5, 50.0)},
+                {"material": "GaAs", "doping_cm3": 10 ** rng.uniform(17.0, 18.7)},
+            ],
+        }
+    )
+
+
+def test_convergence_random_stacks():
+    # bounded Newton converges for seeded random stacks up to 1.5 V (past the second resonance
+    # of these wells), or would raise ElectrostaticsConvergenceError
+    rng = np.random.default_rng(7)
+    stacks = [_random_stack(rng) for _ in range(30)]
+    bias = np.linspace(-0.3, 1.5, 19)
+    for st in stacks:
+        grid, sol = solve_stack_poisson(st.table(), bias)
+        assert sol.iterations < 60
+        assert np.all(np.isfinite(sol.potential_ev))
+
+
+def test_hysteresis_from_well_charge():
+    # Charge build-up in the well makes the I-V bistable near the peak: the up sweep stays on
+    # the charged, high-current branch to a higher bias than the down sweep (V. J. Goldman,
+    # D. C. Tsui and J. E. Cunningham, Phys. Rev. Lett. 58, 1256 (1987), from memory).
+    # Away from the peak the solution is unique and both branches agree.
+    stack = parse_stack(_stack_dict(electrostatics="self-consistent"))
+    bias = np.linspace(0.0, 0.5, 11)
+    h = sweep_hysteresis(stack.table(), bias, model=stack.model)
+    direct = current_at_bias(stack.table(), bias, model=stack.model)
+    differ = ~np.isclose(h.up_a_cm2[0], h.down_a_cm2[0], rtol=1e-3, atol=1e-6)
+    assert np.all(h.up_a_cm2[0] >= (1 - 1e-3) * h.down_a_cm2[0])
+    assert 0 < np.count_nonzero(differ) <= 2  # a narrow window
+    # outside the window: unique solution, equal to the one reached from the linear start
+    np.testing.assert_allclose(h.up_a_cm2[0, ~differ], direct[0, ~differ], rtol=1e-3, atol=1e-6)
+    # inside it the direct solve lands on one of the two branches
+    for i in np.nonzero(differ)[0]:
+        assert min(abs(direct[0, i] / h.up_a_cm2[0, i] - 1), abs(direct[0, i] / h.down_a_cm2[0, i] - 1)) < 1e-3
+
+
+def test_well_charge_obeys_gauss_law_and_raises_peak_voltage():
+    # Gauss's law (Sze ch. 1): the field jump across the double-barrier region equals the
+    # stored charge q n_w / eps; common practice: stored charge raises the peak voltage.
+    stack = parse_stack(_stack_dict(electrostatics="self-consistent"))
+    table = stack.table()
+    grid, sol = solve_stack_poisson(table, np.array([0.28]))
+    n_w = sol.well_sheet_cm2[0, 0]
+    assert 3e10 < n_w < 1e12  # order of measured stored densities, 1e11 cm^-2 (from memory)
+    _, sol0 = solve_stack_poisson(table, np.array([0.28]), well_charge=False)
+    donors = table.doping_cm3[0, grid.layer_index]
+    extra = np.sum(grid.width_nm[0] * 1e-7 * (sol.electron_cm3[0, 0] - sol0.electron_cm3[0, 0]))
+    # the well charge is not in the Thomas-Fermi regions; the contacts adjust around it
+    well_only = np.sum(grid.width_nm[0] * 1e-7 * sol.electron_cm3[0, 0]) - np.sum(
+        grid.width_nm[0] * 1e-7 * sol0.electron_cm3[0, 0]
+    )
+    assert extra == pytest.approx(well_only)
+    net = np.sum(grid.width_nm[0] * 1e-7 * (donors - sol.electron_cm3[0, 0]))
+    assert abs(net) < 1e-3 * n_w  # the contacts screen it completely: overall neutral
+    bias = np.linspace(0.0, 0.6, 31)
+    on = sweep(table, bias, model=stack.model).metrics_of(0)["peak_voltage_v"]
+    grid_off = solve_stack_poisson  # noqa: F841 (documents the comparison below)
+    from physics.bands import profile_from_potential
+
+    g2, s2 = solve_stack_poisson(table, bias, well_charge=False)
+    j_off = current_density_a_cm2(profile_from_potential(table, g2, s2.potential_ev), table=table, bias_v=bias[None])
+    off = bias[np.argmax(j_off[0])]
+    assert on > off
+
+
+def test_stack_file_accepts_self_consistent():
+    stack = parse_stack(_stack_dict(electrostatics="self-consistent", broadening_mev=2.0))
+    assert stack.model.electrostatics == "self-consistent"
+    assert sweep(stack.table(), BIAS[:5], model=stack.model, refine=False).current_density_a_cm2.shape == (1, 5)

@@ -1,0 +1,102 @@
+"""Tests of physics.stack input validation: every bad-input class of issue 2.
+
+Each bad file differs from a valid one (``VALID_LAYERS``, an invented test
+stack) by one change; the error must be a :class:`physics.errors.InputError`
+(a ``ValueError``) whose message names the file, the layer index and the key
+(issue 2 and DESIGN.md: "one message naming the file, the layer index and the
+key, with the allowed range").
+"""
+
+from __future__ import annotations
+
+import re
+import warnings
+
+import pytest
+from helpers_physics import BAD_STACKS, VALID_LAYERS, stack_toml, write_stack
+
+from physics.errors import InputError
+from physics.stack import CriticalThicknessWarning, load_stack, parse_stack
+
+
+def _location(path, layer, key) -> str:
+    parts = [str(path)]
+    if layer is not None:
+        parts.append(f"layer {layer}")
+    if key is not None:
+        parts.append(f"key '{key}'")
+    return ", ".join(parts)
+
+
+def test_valid_base_stack_loads(tmp_path) -> None:
+    # the bad cases below are one edit away from this file, so it must itself be valid
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        stack = load_stack(write_stack(tmp_path, stack_toml()))
+    assert len(stack.layers) == len(VALID_LAYERS)
+    assert stack.layers[2].label == "Al0.3Ga0.7As" == stack.layers[4].label
+    # thickness_ml -> nm through the monolayer thickness (half the lattice constant, [001])
+    barrier = stack.layers[2]
+    assert barrier.thickness_nm == pytest.approx(10 * barrier.monolayer_nm, rel=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("case", "text", "layer", "key", "message"), BAD_STACKS, ids=[c[0] for c in BAD_STACKS]
+)
+def test_bad_input_names_file_layer_and_key(tmp_path, case, text, layer, key, message) -> None:
+    path = tmp_path / "absent.toml" if text is None else write_stack(tmp_path, text)
+    with pytest.raises(
+        InputError, match="^" + re.escape(_location(path, layer, key)) + ": "
+    ) as info:
+        load_stack(path)
+    err = info.value
+    assert re.search(message, err.message), err.message
+    assert isinstance(err, ValueError)
+    assert (err.source, err.layer, err.key) == (str(path), layer, key)
+    assert "\n" not in str(err)
+    assert "{" not in err.message  # no unfilled placeholder (STYLE.md, point 8)
+
+
+def test_parse_stack_reports_dict_source() -> None:
+    # input built in Python names "<dict>" (or the given source) instead of a file
+    layers = [dict(x) for x in VALID_LAYERS]
+    layers[3]["thickness_nm"] = -1.0
+    with pytest.raises(InputError, match=r"^<dict>, layer 3, key 'thickness_nm': -1 outside"):
+        parse_stack({"layers": layers})
+    with pytest.raises(InputError, match=r"^my-script, layer 3"):
+        parse_stack({"layers": layers}, source="my-script")
+
+
+def test_critical_thickness_warns_but_loads(tmp_path) -> None:
+    # Matthews and Blakeslee, J. Cryst. Growth 27, 118 (1974): AlAs on InP (about 3.5 %
+    # tensile mismatch) has a critical thickness of a few monolayers; 40 ML must warn,
+    # not fail (issue 2).
+    layers = [
+        {"name": "emitter", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+        {"name": "barrier", "material": "AlAs", "thickness_ml": 40},
+        {"name": "collector", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+    ]
+    path = write_stack(tmp_path, stack_toml(layers, top={"temperature_k": 300, "substrate": "InP"}))
+    with pytest.warns(
+        CriticalThicknessWarning,
+        match=r"layer 1 \('barrier'\).*Matthews-Blakeslee critical thickness",
+    ):
+        stack = load_stack(path)
+    assert stack.layers[1].thickness_ml == pytest.approx(40)
+    # with strain switched off there is no strained layer, hence no warning
+    path = write_stack(
+        tmp_path,
+        stack_toml(layers, top={"temperature_k": 300, "substrate": "InP"}, model={"strain": False}),
+        "off.toml",
+    )
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        load_stack(path)
+
+
+def test_study_example_loads_without_warning() -> None:
+    # the shipped example (5 ML AlAs barriers on InP) is meant to be pseudomorphic
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        stack = load_stack("studies/inp_thz_oscillator.toml")
+    assert stack.layers[2].thickness_ml == pytest.approx(5)
