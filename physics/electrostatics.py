@@ -439,11 +439,11 @@ def solve_stack_poisson(
 
 
 def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0, guess_ev=None):
-    """Estimate of the electron sheet density in the lowest quasi-bound state, cm^-2.
+    """Estimate of the electron sheet density in the quasi-bound states, cm^-2.
 
-    The 2D subband at ``E_1`` (found in ``T(E)`` of the current profile by
-    :func:`physics.resonances.find_resonances`, above the injecting contact's
-    band edge) is fed by the injecting contact (the emitter for ``V >= 0``) at
+    Each 2D subband ``E_1`` (up to three, found in ``T(E)`` of the current profile by
+    :func:`physics.resonances.find_resonances` between the injecting contact's
+    band edge and ``mu + 12 kT``; their contributions are summed) is fed by the injecting contact (the emitter for ``V >= 0``) at
     rate ``Gamma_E`` and emptied at ``Gamma``; with the transverse momentum
     conserved each 2D state at ``E_1 + E_par`` has occupancy
     ``(Gamma_E / Gamma) f(E_1 + E_par)``, so ([1]_ for the 2D density of states)
@@ -455,14 +455,14 @@ def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, 
     assumption (the injecting side is the more opaque one, as near the peak of
     a symmetric stack under forward bias); a simple estimate, not from a
     specific publication. The charge from the collector and from higher
-    subbands is neglected.
+    subbands above the window is neglected.
 
     ``guess_ev`` (``(n_stacks, n_biases)``, e.g. ``E_1`` of the previous
     iteration) refines from there instead of searching; NaN entries (no
     state before) stay without a state, so the caller confirms a converged
     result with a full search.
-    Returns ``(n_w, E_1)``, both ``(n_stacks, n_biases)``; ``E_1`` is NaN
-    where no state lies above the injecting edge.
+    Returns ``n_w`` ``(n_stacks, n_biases)`` and the states ``E_1``
+    ``(n_stacks, n_biases, 3)``, NaN where there is none.
     """
     from .constants import HBAR_J_S, ELECTRON_MASS_KG
     from .resonances import find_resonances, refine_peaks
@@ -476,24 +476,18 @@ def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, 
     top = mu + 12.0 * kt
     if guess_ev is not None:
         known = np.isfinite(guess_ev)
-        e1, width, tp = refine_peaks(
-            np.where(known, guess_ev, 0.5 * (edge + top))[..., None], 5e-3, profile=profile, iterations=6
-        )
-        e1, width, tp = e1[..., 0], width[..., 0], tp[..., 0]
-        ok = known & np.isfinite(width) & (e1 > edge) & (e1 < top)
-        e1 = np.where(ok, e1, np.nan)
-        tp = np.where(ok, tp, 0.0)
+        mid = (0.5 * (edge + top))[..., None]
+        e1, width, tp = refine_peaks(np.where(known, guess_ev, mid), 5e-3, profile=profile, iterations=6)
+        ok = known & np.isfinite(width) & (e1 > edge[..., None]) & (e1 < top[..., None])
     else:
         res = find_resonances(profile, energy_min_ev=edge + 1e-6, energy_max_ev=top, n_coarse=120, n_max=3)
-        energy = np.where(res.valid, res.energy_ev, np.inf)
-        k = np.argmin(energy, axis=-1)[..., None]
-        e1 = np.take_along_axis(energy, k, axis=-1)[..., 0]
-        e1 = np.where(np.isfinite(e1), e1, np.nan)
-        tp = np.take_along_axis(np.where(res.valid, res.peak_transmission, 0.0), k, axis=-1)[..., 0]
+        e1, tp, ok = res.energy_ev, res.peak_transmission, res.valid
+    e1 = np.where(ok, e1, np.nan)
+    tp = np.where(ok, tp, 0.0)
     fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.clip(tp, 0.0, 1.0)))
-    n2d_cm2 = well_mass_m0[:, None] * ELECTRON_MASS_KG * kt * ELEMENTARY_CHARGE_C / (np.pi * HBAR_J_S**2) * 1e-4
-    supply = np.logaddexp(0.0, (mu - np.where(np.isfinite(e1), e1, 0.0)) / kt)
-    return np.where(np.isfinite(e1), fraction * n2d_cm2 * supply, 0.0), e1
+    n2d_cm2 = (well_mass_m0[:, None] * ELECTRON_MASS_KG * kt * ELEMENTARY_CHARGE_C / (np.pi * HBAR_J_S**2) * 1e-4)[..., None]
+    supply = np.logaddexp(0.0, (mu[..., None] - np.where(ok, e1, 0.0)) / kt[..., None])
+    return np.sum(np.where(ok, fraction * n2d_cm2 * supply, 0.0), axis=-1), e1
 
 
 def self_consistent_profile(

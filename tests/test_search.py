@@ -23,7 +23,7 @@ from optuna.trial import TrialState
 
 from conftest import study_text
 from optimize import cli
-from optimize.search import nominal_metrics, run_search
+from optimize.search import GRACE_PERIOD_S, nominal_metrics, run_search
 from optimize.study import load_study
 from physics.errors import InputError
 from physics.iv import METRIC_NAMES
@@ -268,7 +268,10 @@ def test_resume_after_sigkill_keeps_completed_trials(write_study, tmp_path):
     running = [t.number for t in optuna.load_study(study_name="study", storage=storage)
                .get_trials(states=(TrialState.RUNNING,))]
     assert 5 <= len(before) < 24 and len(running) <= study_batch
+    t0 = time.perf_counter()
     assert cli.main([*argv]) == 0  # the same command resumes
+    # at once: the dead process's trial is failed on sight, not after the heartbeat grace period
+    assert time.perf_counter() - t0 < GRACE_PERIOD_S
     after = optuna.load_study(study_name="study", storage=storage).get_trials()
     complete = {t.number: (t.params, t.value) for t in after if t.state == TrialState.COMPLETE}
     assert len(complete) == 24
