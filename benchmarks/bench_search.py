@@ -40,11 +40,23 @@ STUDY = {
         {"name": "emitter", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
         {"name": "spacer1", "material": "In0.53Ga0.47As", "thickness_nm": 2.0},
         {"name": "barrier1", "material": "AlAs", "thickness_ml": {"min": 3, "max": 8}},
-        {"name": "well", "material": "InGaAs", "x": {"min": 0.45, "max": 0.70, "step": 0.01},
-         "thickness_ml": {"min": 8, "max": 22}},
+        {
+            "name": "well",
+            "material": "InGaAs",
+            "x": {"min": 0.45, "max": 0.70, "step": 0.01},
+            "thickness_ml": {"min": 8, "max": 22},
+        },
         {"name": "barrier2", "same_as": "barrier1"},
-        {"name": "spacer2", "material": "In0.53Ga0.47As", "thickness_nm": {"min": 2.0, "max": 10.0, "step": 0.5}},
-        {"name": "collector", "material": "In0.53Ga0.47As", "doping_cm3": {"min": 5e17, "max": 5e18, "log": True}},
+        {
+            "name": "spacer2",
+            "material": "In0.53Ga0.47As",
+            "thickness_nm": {"min": 2.0, "max": 10.0, "step": 0.5},
+        },
+        {
+            "name": "collector",
+            "material": "In0.53Ga0.47As",
+            "doping_cm3": {"min": 5e17, "max": 5e18, "log": True},
+        },
     ],
     "targets": {
         "peak_current_density_a_cm2": {"min": 2e5, "max": 4e5},
@@ -61,7 +73,9 @@ def bench_run(trials: int, workers: int) -> dict[str, float]:
     study = parse_study(STUDY, name=f"bench_w{workers}")
     with tempfile.TemporaryDirectory() as tmp:
         t0 = time.perf_counter()
-        r = run_search(study, trials=trials, workers=workers, out_dir=Path(tmp), progress=False, write=False)
+        r = run_search(
+            study, trials=trials, workers=workers, out_dir=Path(tmp), progress=False, write=False
+        )
         wall = time.perf_counter() - t0
     t = r.timing
     busy = t["total"]
@@ -83,8 +97,9 @@ def sampler_cost(trials: int, multivariate: bool, seed: int = 0) -> list[tuple[i
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        sampler = optuna.samplers.TPESampler(seed=seed, multivariate=multivariate, n_startup_trials=10,
-                                             constant_liar=True)
+        sampler = optuna.samplers.TPESampler(
+            seed=seed, multivariate=multivariate, n_startup_trials=10, constant_liar=True
+        )
     study = optuna.create_study(sampler=sampler)
     rng = np.random.default_rng(seed)
     times = []
@@ -111,21 +126,28 @@ def main(argv: list[str] | None = None) -> int:
 
     rows = [bench_run(trials, 1), bench_run(trials, 2)]
     print(f"\nsearch of {trials} trials (real physics, SQLite storage, TPE multivariate)")
-    print(f"{'workers':>7} {'wall s':>8} {'trials/s':>9} {'sampler':>8} {'physics':>8} {'storage':>8} "
-          f"{'other':>6} {'copied':>7}")
+    print(
+        f"{'workers':>7} {'wall s':>8} {'trials/s':>9} {'sampler':>8} {'physics':>8} "
+        f"{'storage':>8} "
+        f"{'other':>6} {'copied':>7}"
+    )
     for r in rows:
-        print(f"{r['workers']:>7} {r['wall_s']:>8.1f} {r['trials_per_s']:>9.2f} {r['sampler']:>8.1%} "
-              f"{r['physics']:>8.1%} {r['storage']:>8.1%} {r['other']:>6.1%} {r['copied']:>7.0f}")
+        print(
+            f"{r['workers']:>7} {r['wall_s']:>8.1f} {r['trials_per_s']:>9.2f} {r['sampler']:>8.1%} "
+            f"{r['physics']:>8.1%} {r['storage']:>8.1%} {r['other']:>6.1%} {r['copied']:>7.0f}"
+        )
     speedup = rows[1]["trials_per_s"] / rows[0]["trials_per_s"]
     print(f"2-worker speed-up: {speedup:.2f}x")
     verdict = "met" if rows[0]["sampler"] < 0.25 else "NOT met"
-    print(f"target sampler overhead < 25 % of wall time at {trials} trials (1 worker): {verdict} "
-          f"({rows[0]['sampler']:.1%})")
+    print(
+        f"target sampler overhead < 25 % of wall time at {trials} trials (1 worker): {verdict} "
+        f"({rows[0]['sampler']:.1%})"
+    )
 
-    print(f"\nTPE cost per trial (ask + 5 suggests) as the study grows, in-memory, no physics")
+    print("\nTPE cost per trial (ask + 5 suggests) as the study grows, in-memory, no physics")
     costs = {mv: sampler_cost(trials, mv) for mv in (True, False)}
     print(f"{'trials':>7} {'multivariate ms':>16} {'independent ms':>15}")
-    for (n, a), (_, b) in zip(costs[True], costs[False]):
+    for (n, a), (_, b) in zip(costs[True], costs[False], strict=True):
         print(f"{n:>7} {a * 1e3:>16.1f} {b * 1e3:>15.1f}")
     return 0
 

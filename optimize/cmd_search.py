@@ -16,19 +16,34 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "search",
         help="search a study file's design space for stacks that meet its spec",
-        description="Search the ranges of a study file with Optuna for stacks that meet its [targets], "
+        description="Search the ranges of a study file with Optuna for stacks that meet "
+        "its [targets], "
         "keeping every trial in a database so that rerunning the command resumes the study. "
         "Writes designs.csv, designs.json, growth sheets, history/Pareto/importance figures "
         "and the I-V figures of the best design.",
     )
-    p.add_argument("study", help="study file (TOML): a stack file with ranges, [targets], [search], ...")
-    p.add_argument("--trials", type=int, metavar="N",
-                   help="complete trials the study should hold when done, counting those already in "
-                        "storage (default: [search] trials)")
-    p.add_argument("--workers", type=int, metavar="K", help="processes sharing the study (default: [search] workers)")
-    p.add_argument("--storage", metavar="URL",
-                   help="SQLAlchemy database URL, e.g. postgresql+psycopg2://user@host/db, to share the "
-                        "study between machines (default: SQLite file DIR/study.db)")
+    p.add_argument(
+        "study", help="study file (TOML): a stack file with ranges, [targets], [search], ..."
+    )
+    p.add_argument(
+        "--trials",
+        type=int,
+        metavar="N",
+        help="complete trials the study should hold when done, counting those already in "
+        "storage (default: [search] trials)",
+    )
+    p.add_argument(
+        "--workers",
+        type=int,
+        metavar="K",
+        help="processes sharing the study (default: [search] workers)",
+    )
+    p.add_argument(
+        "--storage",
+        metavar="URL",
+        help="SQLAlchemy database URL, e.g. postgresql+psycopg2://user@host/db, to share the "
+        "study between machines (default: SQLite file DIR/study.db)",
+    )
     p.add_argument("--out", metavar="DIR", help="output folder (default: <study name>_out)")
     p.add_argument("--seed", type=int, metavar="S", help="sampler seed (default: [search] seed)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
@@ -65,19 +80,29 @@ def run(args: argparse.Namespace) -> int:
         seed=args.seed,
         progress=not args.no_progress,
     )
-    print(f"study '{result.study_name}': {result.n_complete} complete trials, "
-          f"{result.n_feasible} meet the spec and constraints")
+    print(
+        f"study '{result.study_name}': {result.n_complete} complete trials, "
+        f"{result.n_feasible} meet the spec and constraints"
+    )
     print(f"storage: {result.storage}")
     if result.designs:
-        print(f"{'rank':>4} {'trial':>6} {'ok':>3} {'Jp kA/cm2':>10} {'Vp mV':>7} {'PVCR':>7}  parameters")
+        print(
+            f"{'rank':>4} {'trial':>6} {'ok':>3} {'Jp kA/cm2':>10} {'Vp mV':>7} "
+            f"{'PVCR':>7}  parameters"
+        )
         for d in result.designs[:5]:
             m = d["metrics"]
             params = ", ".join(f"{k}={v:.4g}" for k, v in d["params"].items())
-            print(f"{d['rank']:>4} {d['trial']:>6} {'yes' if d['feasible'] else 'no':>3} "
-                  f"{_fmt(m['peak_current_density_a_cm2'], 1e-3, '.1f'):>10} "
-                  f"{_fmt(m['peak_voltage_v'], 1e3, '.0f'):>7} {_fmt(m['pvcr'], 1.0, '.2f'):>7}  {params}")
+            print(
+                f"{d['rank']:>4} {d['trial']:>6} {'yes' if d['feasible'] else 'no':>3} "
+                f"{_fmt(m['peak_current_density_a_cm2'], 1e-3, '.1f'):>10} "
+                f"{_fmt(m['peak_voltage_v'], 1e3, '.0f'):>7} "
+                f"{_fmt(m['pvcr'], 1.0, '.2f'):>7}  {params}"
+            )
     if result.best is None:
-        print("no design meets the spec yet: widen the ranges, relax the targets or run more trials")
+        print(
+            "no design meets the spec yet: widen the ranges, relax the targets or run more trials"
+        )
     for note in result.notes:
         print(f"note: {note}", file=sys.stderr)
     print(f"results in {result.out_dir}/ (designs.csv, designs.json, growth_sheets/, history.png)")

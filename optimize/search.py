@@ -114,7 +114,9 @@ class SearchResult:
     n_complete, n_feasible
         Complete trials in the study, and how many of them meet spec and constraints.
     designs
-        The ranked designs, best first, as plain records (see :func:`design_record`).
+        The ``[search] top`` best designs, best first, one per distinct parameter
+        set, as plain records (see :func:`design_record` and :func:`rank_trials`,
+        which ranks any number).
     files
         Output files by kind.
     timing
@@ -165,8 +167,9 @@ def check_storage_url(url: str) -> None:
             key="--storage",
         ) from None
     if parsed.get_backend_name() == "sqlite" and not parsed.database:
-        raise InputError("an in-memory SQLite database cannot be shared or resumed; give a file",
-                         key="--storage")
+        raise InputError(
+            "an in-memory SQLite database cannot be shared or resumed; give a file", key="--storage"
+        )
 
 
 def _sqlite_connect(database: str) -> Any:
@@ -191,7 +194,7 @@ def make_storage(url: str) -> optuna.storages.RDBStorage:
     if url.startswith("sqlite"):
         import sqlalchemy.engine
 
-        database = sqlalchemy.engine.make_url(url).database
+        database = str(sqlalchemy.engine.make_url(url).database)
         engine_kwargs: dict[str, Any] = {"creator": functools.partial(_sqlite_connect, database)}
     else:
         engine_kwargs = {"pool_pre_ping": True}
@@ -205,8 +208,10 @@ def make_storage(url: str) -> optuna.storages.RDBStorage:
                 grace_period=GRACE_PERIOD_S,
             )
     except ImportError as exc:
-        raise InputError(f"database driver missing ({exc}); pip install psycopg2-binary for PostgreSQL",
-                         key="--storage") from None
+        raise InputError(
+            f"database driver missing ({exc}); pip install psycopg2-binary for PostgreSQL",
+            key="--storage",
+        ) from None
     except Exception as exc:  # noqa: BLE001 - connection and driver errors of any backend
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise InputError(f"cannot open the storage ({first})", key="--storage") from None
@@ -226,7 +231,9 @@ def make_sampler(study: Study, *, seed: int, n_trials: int) -> optuna.samplers.B
         if s.sampler == "random":
             return optuna.samplers.RandomSampler(seed=seed)
         if s.sampler == "nsga2":
-            return optuna.samplers.NSGAIISampler(seed=seed, population_size=max(8, min(50, n_trials // 5)))
+            return optuna.samplers.NSGAIISampler(
+                seed=seed, population_size=max(8, min(50, n_trials // 5))
+            )
         return optuna.samplers.TPESampler(
             seed=seed,
             n_startup_trials=s.startup_trials,
@@ -241,7 +248,10 @@ def _worker_seed(seed: int, worker: int, n_existing: int) -> int:
 
 
 def open_study(
-    study: Study, storage: optuna.storages.BaseStorage, *, sampler: optuna.samplers.BaseSampler | None = None
+    study: Study,
+    storage: optuna.storages.BaseStorage,
+    *,
+    sampler: optuna.samplers.BaseSampler | None = None,
 ) -> optuna.Study:
     """Create the Optuna study or load it to resume, checking it was made from the same file.
 
@@ -256,24 +266,29 @@ def open_study(
         ostudy = optuna.create_study(
             storage=storage,
             study_name=name,
-            directions=list(study.directions),
+            directions=[optuna.study.StudyDirection[d.upper()] for d in study.directions],
             load_if_exists=True,
             sampler=sampler,
         )
     except Exception as exc:  # noqa: BLE001
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise InputError(f"cannot create or load study '{name}' ({first})", key="--storage") from None
+        raise InputError(
+            f"cannot create or load study '{name}' ({first})", key="--storage"
+        ) from None
     directions = tuple(d.name.lower() for d in ostudy.directions)
     stored = ostudy.user_attrs.get("wellwright_fingerprint")
     if stored is None and not ostudy.get_trials(deepcopy=False):
         ostudy.set_user_attr("wellwright_fingerprint", study.fingerprint())
         ostudy.set_user_attr("wellwright_source", study.source)
         ostudy.set_user_attr("parameters", list(study.parameter_names))
-        ostudy.set_user_attr("objectives", [f"{o.direction} {o.metric}" for o in study.objectives] or ["score"])
+        ostudy.set_user_attr(
+            "objectives", [f"{o.direction} {o.metric}" for o in study.objectives] or ["score"]
+        )
         stored = study.fingerprint()
     if stored != study.fingerprint() or directions != study.directions:
         raise InputError(
-            f"the storage already holds a study '{name}' made from a different search space, spec or sweep; "
+            f"the storage already holds a study '{name}' made from a different search space, "
+            "spec or sweep; "
             "set [search] study_name to a new name or use another --out/--storage",
             source=study.source,
             key="search.study_name",
@@ -297,7 +312,9 @@ def layer_records(stack: Stack) -> list[dict[str, Any]]:
                 "material": layer.material,
                 "label": layer.label,
                 "x": layer.x,
-                "thickness_ml": None if contact or ml is None else (int(round(ml)) if abs(ml - round(ml)) < 1e-9 else ml),
+                "thickness_ml": None
+                if contact or ml is None
+                else (int(round(ml)) if abs(ml - round(ml)) < 1e-9 else ml),
                 "thickness_nm": None if contact else layer.thickness_nm,
                 "doping_cm3": layer.doping_cm3,
             }
@@ -335,20 +352,21 @@ def evaluate(
             stacks.append(None)
             errors.append(exc.one_line())
     valid = [i for i, s in enumerate(stacks) if s is not None]
+    built = [s for s in stacks if s is not None]
     n = len(params_list)
     metrics = {k: np.full(n, np.nan) for k in METRIC_NAMES}
     t0 = time.perf_counter()
     if valid:
         bias = study.sweep.bias_v
         try:
-            got = evaluator([stacks[i] for i in valid], bias)
+            got = evaluator(built, bias)
             for k in METRIC_NAMES:
                 if k in got:
                     metrics[k][valid] = np.asarray(got[k], float)
         except EVALUATION_ERRORS:  # one design spoils the batch: evaluate one at a time
-            for i in valid:
+            for i, stack in zip(valid, built, strict=True):
                 try:
-                    one = evaluator([stacks[i]], bias)
+                    one = evaluator([stack], bias)
                 except EVALUATION_ERRORS as exc:
                     errors[i] = f"not evaluated: {type(exc).__name__}: {exc}"
                     continue
@@ -369,12 +387,13 @@ def evaluate(
         if errors[i]:
             constraints["stack_valid"] = 1.0
         feasible = bool(violation[i] == 0 and all(v <= 0 for v in constraints.values()))
+        built_i = stacks[i]
         attrs: dict[str, Any] = {
             "metrics": {k: _finite_or_none(v) for k, v in m.items()},
             "feasible": feasible,
             "spec_violation": float(violation[i]),
             "constraints": constraints,
-            "layers": layer_records(stacks[i]) if stacks[i] is not None else None,
+            "layers": layer_records(built_i) if built_i is not None else None,
         }
         if errors[i]:
             attrs["error"] = errors[i]
@@ -437,13 +456,18 @@ def _identity() -> str:
 
 
 def _pid_alive(pid: int) -> bool:
+    """Whether a process of this host exists and is not a zombie (killed, not yet reaped)."""
     try:
         os.kill(pid, 0)
     except ProcessLookupError:
         return False
     except PermissionError:
         return True
-    return True
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii") as f:
+            return f.read().rsplit(")", 1)[1].split()[0] != "Z"
+    except (OSError, IndexError):
+        return True  # no /proc (not Linux): existence is all we can tell
 
 
 def _fail_dead_trials(ostudy: optuna.Study, running: list[FrozenTrial]) -> int:
@@ -477,15 +501,18 @@ def _fail_dead_trials(ostudy: optuna.Study, running: list[FrozenTrial]) -> int:
 
 
 def _param_key(study: Study, params: dict[str, Any]) -> tuple:
-    return tuple(round(float(params[n]), 12) if n in params else None for n in study.parameter_names)
+    return tuple(
+        round(float(params[n]), 12) if n in params else None for n in study.parameter_names
+    )
 
 
 def _suggest(trial: optuna.Trial, study: Study) -> dict[str, float]:
     params: dict[str, float] = {}
     for v in study.variables:
         if v.integer:
-            params[v.name] = trial.suggest_int(v.name, int(v.low), int(v.high), step=1 if v.log else int(v.step or 1),
-                                               log=v.log)
+            params[v.name] = trial.suggest_int(
+                v.name, int(v.low), int(v.high), step=1 if v.log else int(v.step or 1), log=v.log
+            )
         else:
             params[v.name] = trial.suggest_float(v.name, v.low, v.high, step=v.step, log=v.log)
     return params
@@ -521,11 +548,19 @@ class _Worker:
         self.storage = make_storage(job.url)
         study_id = self.storage.get_study_id_from_name(self.study.optuna_name)
         existing = len(self.storage.get_all_trials(study_id, deepcopy=False))
-        sampler = make_sampler(self.study, seed=_worker_seed(job.seed, job.worker, existing), n_trials=job.target)
-        self.ostudy = optuna.load_study(study_name=self.study.optuna_name, storage=self.storage, sampler=sampler)
-        self.timing = dict.fromkeys(("sampler", "physics", "storage", "total", "evaluated", "copied"), 0.0)
+        sampler = make_sampler(
+            self.study, seed=_worker_seed(job.seed, job.worker, existing), n_trials=job.target
+        )
+        self.ostudy = optuna.load_study(
+            study_name=self.study.optuna_name, storage=self.storage, sampler=sampler
+        )
+        self.timing = dict.fromkeys(
+            ("sampler", "physics", "storage", "total", "evaluated", "copied"), 0.0
+        )
         self.me = _identity()
         self.bar: Any = None
+        self.parent = os.getppid() if job.parent_pid is not None else None
+        self.orphaned = False
 
     def _clock(self, kind: str, since: float) -> None:
         self.timing[kind] += time.perf_counter() - since
@@ -535,7 +570,8 @@ class _Worker:
         start = time.perf_counter()
         try:
             while True:
-                if self.job.parent_pid is not None and not _pid_alive(self.job.parent_pid):
+                if self.parent is not None and os.getppid() != self.parent:
+                    self.orphaned = True  # the command that started us was killed: stop too
                     break
                 room, done = self._room()
                 if room is None:
@@ -552,7 +588,7 @@ class _Worker:
         return self.timing
 
     def _room(self) -> tuple[int | None, dict[tuple, FrozenTrial]]:
-        """Trials still to claim (None: the study is complete) and the finished designs by parameters."""
+        """Trials still to claim (None: study complete) and finished designs by parameters."""
         t0 = time.perf_counter()
         while True:
             trials = self.ostudy.get_trials(deepcopy=False, states=_OPEN)
@@ -564,7 +600,9 @@ class _Worker:
         self._clock("storage", t0)
         if len(complete) >= self.job.target:
             return None, {}
-        room = self.job.target - len(complete) - len(running)  # waiting (enqueued) trials are ours to take
+        room = (
+            self.job.target - len(complete) - len(running)
+        )  # waiting (enqueued) trials are ours to take
         return room, {_param_key(self.study, t.params): t for t in complete}
 
     def _show(self, complete: list[FrozenTrial]) -> None:
@@ -573,8 +611,13 @@ class _Worker:
         if self.bar is None:
             from tqdm import tqdm
 
-            self.bar = tqdm(total=self.job.target, initial=len(complete), unit="trial",
-                            desc=self.study.optuna_name, dynamic_ncols=True)
+            self.bar = tqdm(
+                total=self.job.target,
+                initial=len(complete),
+                unit="trial",
+                desc=self.study.optuna_name,
+                dynamic_ncols=True,
+            )
         self.bar.n = min(len(complete), self.job.target)
         self.bar.set_postfix_str(_best_text(self.study, complete), refresh=True)
 
@@ -628,10 +671,12 @@ class _Worker:
             unique = sorted(first.values())
             outcomes: dict[int, _Outcome] = {}
             if unique:
-                results, physics_s = evaluate(self.study, [params[i] for i in unique], self.job.evaluator)
+                results, physics_s = evaluate(
+                    self.study, [params[i] for i in unique], self.job.evaluator
+                )
                 self.timing["physics"] += physics_s
                 self.timing["evaluated"] += len(unique)
-                outcomes = dict(zip(unique, results))
+                outcomes = dict(zip(unique, results, strict=True))
 
             t0 = time.perf_counter()
             for i, trial in enumerate(asked):
@@ -641,14 +686,21 @@ class _Worker:
                 else:  # already evaluated: copy, do not recompute
                     prior = done.get(key)
                     if prior is not None:
-                        out = _Outcome(list(prior.values), dict(prior.constraints), dict(prior.user_attrs))
+                        out = _Outcome(
+                            list(prior.values), dict(prior.constraints), dict(prior.user_attrs)
+                        )
                         source = prior.number
                     else:
                         j = first[key]
-                        out = _Outcome(list(outcomes[j].values), dict(outcomes[j].constraints),
-                                       dict(outcomes[j].attrs))
+                        out = _Outcome(
+                            list(outcomes[j].values),
+                            dict(outcomes[j].constraints),
+                            dict(outcomes[j].attrs),
+                        )
                         source = asked[j].number
-                    out.attrs = {k: v for k, v in out.attrs.items() if k not in ("worker", "duplicate_of")}
+                    out.attrs = {
+                        k: v for k, v in out.attrs.items() if k not in ("worker", "duplicate_of")
+                    }
                     out.attrs["duplicate_of"] = source
                     self.timing["copied"] += 1
                 _tell(self.ostudy, trial, out, self.study.multi_objective)
@@ -667,15 +719,23 @@ class _Worker:
 
 
 def _work(job: _Job) -> dict[str, float]:
-    """Run one worker until the study holds ``job.target`` complete trials; returns its timing."""
-    return _Worker(job).run()
+    """Run one worker until the study holds ``job.target`` complete trials; returns its timing.
+
+    A worker process whose parent died leaves at once (its pool would keep it
+    waiting for work that never comes).
+    """
+    worker = _Worker(job)
+    timing = worker.run()
+    if worker.orphaned:
+        os._exit(1)
+    return timing
 
 
 # --------------------------------------------------------------------------- ranking
 
 
 def _pareto_ranks(values: np.ndarray, directions: Sequence[str]) -> np.ndarray:
-    """Non-domination rank (0 = Pareto front) of each row, all objectives minimised after sign flip."""
+    """Non-domination rank (0 = Pareto front) of each row of objective values."""
     sign = np.array([-1.0 if d == "maximize" else 1.0 for d in directions])
     v = values * sign
     n = v.shape[0]
@@ -708,7 +768,10 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     a = trial.user_attrs
     rec: dict[str, Any] = {"trial": trial.number, "feasible": bool(a.get("feasible", False))}
     if study.multi_objective:
-        rec["objectives"] = {o.metric: _finite_or_none(v) for o, v in zip(study.objectives, trial.values)}
+        rec["objectives"] = {
+            o.metric: _finite_or_none(v)
+            for o, v in zip(study.objectives, trial.values, strict=True)
+        }
     else:
         rec["score"] = trial.value
     rec["spec_violation"] = a.get("spec_violation")
@@ -718,13 +781,17 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     rec["params"] = {k: _tidy(v) for k, v in trial.params.items()}
     rec["layers"] = a.get("layers")
     rec["active_thickness_nm"] = (
-        None if rec["layers"] is None else sum(layer["thickness_nm"] or 0.0 for layer in rec["layers"])
+        None
+        if rec["layers"] is None
+        else sum(layer["thickness_nm"] or 0.0 for layer in rec["layers"])
     )
     rec["stack"] = study.stack_dict(trial.params)
     return rec
 
 
-def rank_trials(study: Study, trials: Sequence[FrozenTrial], *, top: int | None = None) -> list[dict[str, Any]]:
+def rank_trials(
+    study: Study, trials: Sequence[FrozenTrial], *, top: int | None = None
+) -> list[dict[str, Any]]:
     """Rank complete trials, best first, one record per distinct parameter set.
 
     Feasible designs (on spec, constraints met) come first: by score for a
@@ -742,7 +809,9 @@ def rank_trials(study: Study, trials: Sequence[FrozenTrial], *, top: int | None 
         vals = np.array([t.values for t in feasible], float)
         ranks = _pareto_ranks(vals, study.directions)
         sign0 = -1.0 if study.directions[0] == "maximize" else 1.0
-        order = sorted(range(len(feasible)), key=lambda i: (ranks[i], sign0 * vals[i, 0], feasible[i].number))
+        order = sorted(
+            range(len(feasible)), key=lambda i: (ranks[i], sign0 * vals[i, 0], feasible[i].number)
+        )
         feasible = [feasible[i] for i in order]
         pareto = {feasible[i].number for i in range(len(feasible)) if ranks[order[i]] == 0}
     else:
@@ -769,7 +838,9 @@ def rank_trials(study: Study, trials: Sequence[FrozenTrial], *, top: int | None 
 # --------------------------------------------------------------------------- driver
 
 
-def _progress_poll(ostudy: optuna.Study, study: Study, target: int, futures: list, progress: bool) -> None:
+def _progress_poll(
+    ostudy: optuna.Study, study: Study, target: int, futures: list, progress: bool
+) -> None:
     bar = None
     if progress:
         from tqdm import tqdm
@@ -863,13 +934,25 @@ def run_search(
         n_waiting = len(ostudy.get_trials(deepcopy=False, states=(TrialState.WAITING,)))
         if n_waiting:
             n_done = len(ostudy.get_trials(deepcopy=False, states=(TrialState.COMPLETE,)))
-            first = _work(_Job(study, url, min(target, n_done + n_waiting), base_seed, n_workers, evaluator,
-                               None, False))
+            first = _work(
+                _Job(
+                    study,
+                    url,
+                    min(target, n_done + n_waiting),
+                    base_seed,
+                    n_workers,
+                    evaluator,
+                    None,
+                    False,
+                )
+            )
             timing = dict(first)
         ctx = multiprocessing.get_context("spawn")
         with concurrent.futures.ProcessPoolExecutor(max_workers=n_workers, mp_context=ctx) as pool:
             futures = [
-                pool.submit(_work, _Job(study, url, target, base_seed, w, evaluator, os.getpid(), False))
+                pool.submit(
+                    _work, _Job(study, url, target, base_seed, w, evaluator, os.getpid(), False)
+                )
                 for w in range(n_workers)
             ]
             _progress_poll(ostudy, study, target, futures, progress)
@@ -912,21 +995,27 @@ def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
     for i, layer in enumerate(record["layers"] or []):
         ml = layer["thickness_ml"]
         nm = layer["thickness_nm"]
-        rows.append([
-            i,
-            layer["name"],
-            layer["label"],
-            "" if layer["x"] is None else f"{layer['x']:.3f}",
-            "" if ml is None else (str(ml) if isinstance(ml, int) else f"{ml:.2f}"),
-            "" if nm is None else f"{nm:.3f}",
-            f"{layer['doping_cm3']:.3g}",
-        ])
+        rows.append(
+            [
+                i,
+                layer["name"],
+                layer["label"],
+                "" if layer["x"] is None else f"{layer['x']:.3f}",
+                "" if ml is None else (str(ml) if isinstance(ml, int) else f"{ml:.2f}"),
+                "" if nm is None else f"{nm:.3f}",
+                f"{layer['doping_cm3']:.3g}",
+            ]
+        )
     return rows
 
 
-def _designs_table(study: Study, designs: list[dict[str, Any]]) -> tuple[list[str], list[list[Any]]]:
+def _designs_table(
+    study: Study, designs: list[dict[str, Any]]
+) -> tuple[list[str], list[list[Any]]]:
     head = ["rank", "trial", "feasible"]
-    head += [f"objective:{o.metric}" for o in study.objectives] if study.multi_objective else ["score"]
+    head += (
+        [f"objective:{o.metric}" for o in study.objectives] if study.multi_objective else ["score"]
+    )
     head += ["spec_violation", *METRIC_NAMES, *study.parameter_names, "active_thickness_nm"]
     rows = []
     for d in designs:
@@ -938,7 +1027,17 @@ def _designs_table(study: Study, designs: list[dict[str, Any]]) -> tuple[list[st
     return head, rows
 
 
-def parameter_importances(study: Study, ostudy: optuna.Study, complete: list[FrozenTrial]) -> dict[str, Any]:
+def _feasible_objective(t: FrozenTrial, *, i: int, maximize: bool) -> float:
+    """Objective ``i`` as a value to minimise; designs off spec count as the worst."""
+    v = t.values[i]
+    if not (t.user_attrs.get("feasible") and math.isfinite(v)):
+        return math.inf
+    return -v if maximize else v
+
+
+def parameter_importances(
+    study: Study, ostudy: optuna.Study, complete: list[FrozenTrial]
+) -> dict[str, Any]:
     """Optuna's parameter importances of the score (or of each objective).
 
     Skipped (with a ``note``) below :data:`MIN_TRIALS_FOR_IMPORTANCE` complete
@@ -948,21 +1047,22 @@ def parameter_importances(study: Study, ostudy: optuna.Study, complete: list[Fro
     if len(study.variables) < 2:
         return {"note": "fewer than two search parameters; nothing to rank"}
     if len(complete) < MIN_TRIALS_FOR_IMPORTANCE:
-        return {"note": f"only {len(complete)} complete trials; importances need {MIN_TRIALS_FOR_IMPORTANCE}"}
+        return {
+            "note": f"only {len(complete)} complete trials; importances need "
+            f"{MIN_TRIALS_FOR_IMPORTANCE}"
+        }
     out: dict[str, Any] = {}
-    targets: list[tuple[str, Callable[[FrozenTrial], float]]]
+    targets: list[tuple[str, Callable[[FrozenTrial], float]]] = []
     if study.multi_objective:
-        targets = []
         for i, o in enumerate(study.objectives):
-            sign = -1.0 if o.direction == "maximize" else 1.0
-
-            def target(t: FrozenTrial, i: int = i, sign: float = sign) -> float:
-                v = t.values[i]
-                return sign * v if t.user_attrs.get("feasible") and math.isfinite(v) else math.inf
-
-            targets.append((o.metric, target))
+            targets.append(
+                (
+                    o.metric,
+                    functools.partial(_feasible_objective, i=i, maximize=o.direction == "maximize"),
+                )
+            )
     else:
-        targets = [("score", lambda t: t.value)]
+        targets.append(("score", lambda t: float(t.values[0])))
     for name, target in targets:
         try:
             with warnings.catch_warnings():
@@ -974,7 +1074,9 @@ def parameter_importances(study: Study, ostudy: optuna.Study, complete: list[Fro
     return out
 
 
-def write_outputs(study: Study, ostudy: optuna.Study, result: SearchResult, complete: list[FrozenTrial]) -> None:
+def write_outputs(
+    study: Study, ostudy: optuna.Study, result: SearchResult, complete: list[FrozenTrial]
+) -> None:
     """Write designs.csv/json, growth sheets, history/Pareto/importance figures and the best I-V."""
     from . import search_figures
     from .outputs import write_csv, write_json
@@ -990,8 +1092,11 @@ def write_outputs(study: Study, ostudy: optuna.Study, result: SearchResult, comp
     for d in result.designs:
         if d["layers"] is None:
             continue
-        path = write_csv(sheets / f"rank{d['rank']:02d}_trial{d['trial']:05d}.csv", GROWTH_SHEET_HEADER,
-                         growth_sheet_rows(d))
+        path = write_csv(
+            sheets / f"rank{d['rank']:02d}_trial{d['trial']:05d}.csv",
+            GROWTH_SHEET_HEADER,
+            growth_sheet_rows(d),
+        )
         keep.add(path.name)
     if sheets.is_dir():
         for old in sheets.glob("rank*_trial*.csv"):
@@ -1007,9 +1112,13 @@ def write_outputs(study: Study, ostudy: optuna.Study, result: SearchResult, comp
     files["importances_json"] = str(write_json(out / "importances.json", importances))
     plotted = {k: v for k, v in importances.items() if isinstance(v, dict) and "note" not in v}
     if plotted:
-        files["importances"] = str(search_figures.save_importances(plotted, out / "importances.png"))
+        files["importances"] = str(
+            search_figures.save_importances(plotted, out / "importances.png")
+        )
     else:
-        note = importances.get("note") or next((v["note"] for v in importances.values() if "note" in v), "")
+        note = importances.get("note") or next(
+            (v["note"] for v in importances.values() if "note" in v), ""
+        )
         result.notes.append(f"parameter importances skipped: {note}")
 
     best = result.best
@@ -1017,7 +1126,9 @@ def write_outputs(study: Study, ostudy: optuna.Study, result: SearchResult, comp
         try:
             from .figures import iv_figures
         except ImportError:
-            result.notes.append("I-V figures of the best design skipped (optimize.figures not available)")
+            result.notes.append(
+                "I-V figures of the best design skipped (optimize.figures not available)"
+            )
         else:
             from physics.iv import stack_iv
 

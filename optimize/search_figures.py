@@ -18,8 +18,16 @@ from optuna.trial import FrozenTrial
 from .outputs import save_figure
 from .study import Study
 
-__all__ = ["metric_axis", "history_figure", "pareto_figure", "importances_figure",
-           "save_history", "save_pareto", "save_importances", "OKABE_ITO"]
+__all__ = [
+    "metric_axis",
+    "history_figure",
+    "pareto_figure",
+    "importances_figure",
+    "save_history",
+    "save_pareto",
+    "save_importances",
+    "OKABE_ITO",
+]
 
 OKABE_ITO = {
     "black": "#000000",
@@ -58,17 +66,38 @@ def history_figure(study: Study, trials: Sequence[FrozenTrial]) -> Figure:
         fig = Figure(figsize=(7.0, 4.2))
         ax = fig.add_subplot()
         score = np.array([t.value for t in trials], float)
-        ax.plot(number[~feasible], score[~feasible], "x", color=OKABE_ITO["orange"], ms=5,
-                label="off spec or constraint violated")
-        ax.plot(number[feasible], score[feasible], "o", color=OKABE_ITO["blue"], ms=5, label="meets spec")
-        ax.step(number, _best_so_far(score, False), where="post", color=OKABE_ITO["black"], lw=1.8,
-                label="best so far")
+        ax.plot(
+            number[~feasible],
+            score[~feasible],
+            "x",
+            color=OKABE_ITO["orange"],
+            ms=5,
+            label="off spec or constraint violated",
+        )
+        ax.plot(
+            number[feasible],
+            score[feasible],
+            "o",
+            color=OKABE_ITO["blue"],
+            ms=5,
+            label="meets spec",
+        )
+        ax.step(
+            number,
+            _best_so_far(score, False),
+            where="post",
+            color=OKABE_ITO["black"],
+            lw=1.8,
+            label="best so far",
+        )
         ax.set_yscale("symlog", linthresh=0.1)
         ax.axhline(0.0, color="0.6", lw=0.8)
         ax.set_xlabel("trial")
         ax.set_ylabel("score (dimensionless; > 0 spec violation, ≤ 0 −merit)")
-        ax.set_title(f"optimisation history: {study.optuna_name} ({len(trials)} trials, "
-                     f"{int(feasible.sum())} meet the spec)")
+        ax.set_title(
+            f"optimisation history: {study.optuna_name} ({len(trials)} trials, "
+            f"{int(feasible.sum())} meet the spec)"
+        )
         ax.legend(loc="upper right", fontsize=8)
         ax.grid(alpha=0.3)
         return fig
@@ -81,11 +110,19 @@ def history_figure(study: Study, trials: Sequence[FrozenTrial]) -> Figure:
         ok = feasible & np.isfinite(v)
         ax.plot(number[ok], v[ok], "o", color=OKABE_ITO["blue"], ms=4, label="meets spec")
         if ok.any():
-            best = _best_so_far(np.where(ok, v, -np.inf if o.direction == "maximize" else np.inf),
-                                o.direction == "maximize")
+            best = _best_so_far(
+                np.where(ok, v, -np.inf if o.direction == "maximize" else np.inf),
+                o.direction == "maximize",
+            )
             shown = np.isfinite(best)
-            ax.step(number[shown], best[shown], where="post", color=OKABE_ITO["black"], lw=1.8,
-                    label=f"best so far ({o.direction})")
+            ax.step(
+                number[shown],
+                best[shown],
+                where="post",
+                color=OKABE_ITO["black"],
+                lw=1.8,
+                label=f"best so far ({o.direction})",
+            )
         else:
             ax.text(0.5, 0.5, "no trial meets the spec yet", ha="center", transform=ax.transAxes)
         ax.set_ylabel(label)
@@ -109,7 +146,11 @@ def pareto_figure(study: Study, trials: Sequence[FrozenTrial]) -> Figure:
     """The first two objectives of the designs that meet the spec, the Pareto front marked."""
     o1, o2 = study.objectives[:2]
     (l1, f1), (l2, f2) = metric_axis(o1.metric), metric_axis(o2.metric)
-    ok = [t for t in trials if t.user_attrs.get("feasible") and all(math.isfinite(v) for v in t.values[:2])]
+    ok = [
+        t
+        for t in trials
+        if t.user_attrs.get("feasible") and all(math.isfinite(v) for v in t.values[:2])
+    ]
     fig = Figure(figsize=(6.4, 4.8))
     ax = fig.add_subplot()
     if ok:
@@ -118,16 +159,26 @@ def pareto_figure(study: Study, trials: Sequence[FrozenTrial]) -> Figure:
         front = _front_mask(x, y, o1.direction == "maximize", o2.direction == "maximize")
         ax.plot(x[~front], y[~front], "o", color=OKABE_ITO["sky"], ms=5, label="meets spec")
         order = np.argsort(x[front])
-        ax.plot(x[front][order], y[front][order], "D-", color=OKABE_ITO["vermillion"], ms=6, lw=1.5,
-                label=f"Pareto front ({int(front.sum())})")
+        ax.plot(
+            x[front][order],
+            y[front][order],
+            "D-",
+            color=OKABE_ITO["vermillion"],
+            ms=6,
+            lw=1.5,
+            label=f"Pareto front ({int(front.sum())})",
+        )
         ax.legend(loc="best", fontsize=8)
     else:
         ax.text(0.5, 0.5, "no trial meets the spec yet", ha="center", transform=ax.transAxes)
     ax.set_xlabel(f"{l1} [{o1.direction}]")
     ax.set_ylabel(f"{l2} [{o2.direction}]")
-    extra = f"; objectives 3+ not shown" if len(study.objectives) > 2 else ""
-    ax.set_title(f"Pareto front of {len(ok)} designs meeting the spec "
-                 f"({len(trials) - len(ok)} others not shown{extra})", fontsize=10)
+    extra = "; objectives 3+ not shown" if len(study.objectives) > 2 else ""
+    ax.set_title(
+        f"Pareto front of {len(ok)} designs meeting the spec "
+        f"({len(trials) - len(ok)} others not shown{extra})",
+        fontsize=10,
+    )
     ax.grid(alpha=0.3)
     return fig
 
@@ -135,8 +186,10 @@ def pareto_figure(study: Study, trials: Sequence[FrozenTrial]) -> Figure:
 def importances_figure(importances: dict[str, dict[str, float]]) -> Figure:
     """Horizontal bars of each target's normalised parameter importances."""
     targets = list(importances)
-    params = sorted({p for imp in importances.values() for p in imp},
-                    key=lambda p: -max(imp.get(p, 0.0) for imp in importances.values()))
+    params = sorted(
+        {p for imp in importances.values() for p in imp},
+        key=lambda p: -max(imp.get(p, 0.0) for imp in importances.values()),
+    )
     fig = Figure(figsize=(6.4, 1.2 + 0.45 * len(params) * max(1, len(targets)) ** 0.5))
     ax = fig.add_subplot()
     colours = [OKABE_ITO[c] for c in ("blue", "vermillion", "green", "purple", "orange", "sky")]
@@ -144,8 +197,13 @@ def importances_figure(importances: dict[str, dict[str, float]]) -> Figure:
     ypos = np.arange(len(params))
     for k, name in enumerate(targets):
         vals = [importances[name].get(p, 0.0) for p in params]
-        ax.barh(ypos + (k - (len(targets) - 1) / 2) * height, vals, height=height,
-                color=colours[k % len(colours)], label=name)
+        ax.barh(
+            ypos + (k - (len(targets) - 1) / 2) * height,
+            vals,
+            height=height,
+            color=colours[k % len(colours)],
+            label=name,
+        )
     ax.set_yticks(ypos, params)
     ax.invert_yaxis()
     ax.set_xlabel("importance (fraction of total, dimensionless)")

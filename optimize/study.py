@@ -364,7 +364,9 @@ class Study:
                 )
             value = getattr(by_name[layer_name], var.key)
             if value is None:
-                raise InputError(f"gives no {var.key} for layer '{layer_name}'", source=src, key=var.name)
+                raise InputError(
+                    f"gives no {var.key} for layer '{layer_name}'", source=src, key=var.name
+                )
             if var.integer:
                 if abs(value - round(value)) > 1e-6:
                     raise InputError(
@@ -373,7 +375,9 @@ class Study:
                 value = int(round(value))
             if not var.contains(value):
                 raise InputError(
-                    f"{value:g} outside the study's range {var.describe()}", source=src, key=var.name
+                    f"{value:g} outside the study's range {var.describe()}",
+                    source=src,
+                    key=var.name,
                 )
             params[var.name] = value
         return params
@@ -481,9 +485,7 @@ class Study:
             cols.append(np.where(np.isnan(m), worst, m))
         return np.stack(cols, axis=1)
 
-    def constraint_values(
-        self, stack: Stack | None, metrics: dict[str, float]
-    ) -> dict[str, float]:
+    def constraint_values(self, stack: Stack | None, metrics: dict[str, float]) -> dict[str, float]:
         """Named constraint values of one design; > 0 means violated.
 
         Parameters
@@ -514,7 +516,9 @@ class Study:
                 out["max_active_thickness_nm"] = 1.0
             else:
                 t = stack.active_thickness_nm
-                out["max_active_thickness_nm"] = (t - c.max_active_thickness_nm) / c.max_active_thickness_nm
+                out["max_active_thickness_nm"] = (
+                    t - c.max_active_thickness_nm
+                ) / c.max_active_thickness_nm
         if c.critical_thickness:
             out["critical_thickness"] = 1.0 if stack is None else critical_thickness_excess(stack)
         for w in c.metric_bounds:
@@ -609,7 +613,9 @@ def parse_study(
         raise InputError("study must be a table", source=source)
     for key in data:
         if key not in ALLOWED_TOP_KEYS:
-            raise InputError(f"unknown key; allowed: {', '.join(ALLOWED_TOP_KEYS)}", source=source, key=key)
+            raise InputError(
+                f"unknown key; allowed: {', '.join(ALLOWED_TOP_KEYS)}", source=source, key=key
+            )
     for key in (*STUDY_TABLES, *RESERVED_TABLES):
         if key in data and not isinstance(data[key], dict):
             raise InputError(f"must be a table, e.g. [{key}]", source=source, key=key)
@@ -641,7 +647,9 @@ def parse_study(
         layer_growth=layer_growth,
     )
     _check_corners(study)
-    baseline = _parse_baseline(data.get("search", {}).get("baseline"), study, source=source, base_dir=base_dir)
+    baseline = _parse_baseline(
+        data.get("search", {}).get("baseline"), study, source=source, base_dir=base_dir
+    )
     return _replace_search(study, baseline=baseline)
 
 
@@ -669,7 +677,10 @@ def _parse_space(
         nm = raw.get("name", default)
         if not isinstance(nm, str) or not nm or "." in nm:
             raise InputError(
-                f"must be a non-empty string without '.', got {nm!r}", source=source, layer=i, key="name"
+                f"must be a non-empty string without '.', got {nm!r}",
+                source=source,
+                layer=i,
+                key="name",
             )
         if nm in names:
             raise InputError(f"name '{nm}' used twice", source=source, layer=i, key="name")
@@ -685,7 +696,9 @@ def _parse_space(
                 continue
             if key == "growth":
                 if not isinstance(value, dict):
-                    raise InputError("must be a table, e.g. growth = {...}", source=source, layer=i, key=key)
+                    raise InputError(
+                        "must be a table, e.g. growth = {...}", source=source, layer=i, key=key
+                    )
                 layer_growth[names[i]] = copy.deepcopy(value)
                 continue
             if key == "same_as":
@@ -712,7 +725,10 @@ def _parse_space(
         target = layer["same_as"]
         if not isinstance(target, str):
             raise InputError(
-                f"must be the name of another layer, got {target!r}", source=source, layer=i, key="same_as"
+                f"must be the name of another layer, got {target!r}",
+                source=source,
+                layer=i,
+                key="same_as",
             )
         extra = sorted(k for k in raw_layers[i] if k not in ("name", "same_as", "growth"))
         if extra:
@@ -735,7 +751,9 @@ def _parse_space(
                 )
             j = names.index(ref)
             if j in seen:
-                raise InputError("same_as chain loops back to this layer", source=source, layer=i, key="same_as")
+                raise InputError(
+                    "same_as chain loops back to this layer", source=source, layer=i, key="same_as"
+                )
             seen.add(j)
         resolved[i] = j
     for i, j in resolved.items():
@@ -747,7 +765,9 @@ def _parse_space(
     variables = []
     for (i, key), spec in ranges.items():
         tied_layers = (i,) + tuple(t for t, ref in resolved.items() if ref == i)
-        var = _parse_range(spec, name=f"{names[i]}.{key}", key=key, layers=tied_layers, source=source, index=i)
+        var = _parse_range(
+            spec, name=f"{names[i]}.{key}", key=key, layers=tied_layers, source=source, index=i
+        )
         variables.append(var)
         for t in var.layers:
             layers[t][key] = int(var.low) if var.integer else var.low
@@ -769,7 +789,9 @@ def _parse_range(
     )
 
     def err(message: str, sub: str | None = None) -> InputError:
-        return InputError(message, source=source, layer=index, key=key if sub is None else f"{key}.{sub}")
+        return InputError(
+            message, source=source, layer=index, key=key if sub is None else f"{key}.{sub}"
+        )
 
     unknown = sorted(set(spec) - {"min", "max", "step", "log"})
     if unknown:
@@ -797,7 +819,9 @@ def _parse_range(
             raise err("give either step or log = true, not both", "step")
         k = (high - low) / step
         if abs(k - round(k)) > 1e-6:
-            raise err(f"max - min ({high - low:g}) must be a whole number of steps of {step:g}", "step")
+            raise err(
+                f"max - min ({high - low:g}) must be a whole number of steps of {step:g}", "step"
+            )
         step = float(step)
     if log and low <= 0:
         raise err(f"log = true needs min > 0, got {low:g}", "min")
@@ -805,7 +829,9 @@ def _parse_range(
         step = 1.0
     if integer and log:
         step = 1.0
-    return Variable(name=name, key=key, layers=layers, low=low, high=high, step=step, log=log, integer=integer)
+    return Variable(
+        name=name, key=key, layers=layers, low=low, high=high, step=step, log=log, integer=integer
+    )
 
 
 def _check_corners(study: Study) -> None:
@@ -817,7 +843,9 @@ def _check_corners(study: Study) -> None:
             study.stack(params)
         except InputError as exc:
             prefix = f"with every range at its {corner}: " if study.variables else ""
-            raise InputError(prefix + exc.message, source=study.source, layer=exc.layer, key=exc.key) from None
+            raise InputError(
+                prefix + exc.message, source=study.source, layer=exc.layer, key=exc.key
+            ) from None
 
 
 def _parse_window(value: Any, *, source: str, key: str, metric: str) -> Window:
@@ -827,14 +855,19 @@ def _parse_window(value: Any, *, source: str, key: str, metric: str) -> Window:
     keys = set(value)
     unknown = sorted(keys - {"min", "max", "target", "tolerance"})
     if unknown:
-        raise InputError(f"unknown window key {unknown[0]!r}; a window is {form}", source=source, key=key)
+        raise InputError(
+            f"unknown window key {unknown[0]!r}; a window is {form}", source=source, key=key
+        )
     for k, v in value.items():
         if not _is_number(v):
             raise InputError(f"must be a finite number, got {v!r}", source=source, key=f"{key}.{k}")
     if keys & {"target", "tolerance"}:
         if keys != {"target", "tolerance"}:
-            raise InputError(f"give target and tolerance together, without min/max; a window is {form}",
-                             source=source, key=key)
+            raise InputError(
+                f"give target and tolerance together, without min/max; a window is {form}",
+                source=source,
+                key=key,
+            )
         tol = float(value["tolerance"])
         if tol <= 0:
             raise InputError(f"must be > 0, got {tol:g}", source=source, key=f"{key}.tolerance")
@@ -845,7 +878,9 @@ def _parse_window(value: Any, *, source: str, key: str, metric: str) -> Window:
     low = float(value.get("min", -math.inf))
     high = float(value.get("max", math.inf))
     if not low < high:
-        raise InputError(f"min ({low:g}) must be below max ({high:g})", source=source, key=f"{key}.max")
+        raise InputError(
+            f"min ({low:g}) must be below max ({high:g})", source=source, key=f"{key}.max"
+        )
     if math.isfinite(low) and math.isfinite(high):
         scale = 0.5 * (high - low)
     else:
@@ -854,12 +889,18 @@ def _parse_window(value: Any, *, source: str, key: str, metric: str) -> Window:
     return Window(metric, low, high, scale)
 
 
-def _metric_key_error(key: str, *, source: str, table: str, extra: tuple[str, ...] = ()) -> InputError:
+def _metric_key_error(
+    key: str, *, source: str, table: str, extra: tuple[str, ...] = ()
+) -> InputError:
     allowed = ", ".join((*METRIC_NAMES, *extra))
-    return InputError(f"unknown figure of merit; allowed: {allowed}", source=source, key=f"{table}.{key}")
+    return InputError(
+        f"unknown figure of merit; allowed: {allowed}", source=source, key=f"{table}.{key}"
+    )
 
 
-def _parse_targets(table: dict[str, Any], *, source: str) -> tuple[tuple[Window, ...], tuple[Objective, ...]]:
+def _parse_targets(
+    table: dict[str, Any], *, source: str
+) -> tuple[tuple[Window, ...], tuple[Objective, ...]]:
     targets = []
     objectives: list[Objective] = []
     for key, value in table.items():
@@ -879,12 +920,16 @@ def _parse_targets(table: dict[str, Any], *, source: str) -> tuple[tuple[Window,
                     )
                 if any(o.metric == metric for o in objectives):
                     raise InputError(
-                        f"{metric!r} is listed twice in maximize/minimize", source=source, key=f"targets.{key}"
+                        f"{metric!r} is listed twice in maximize/minimize",
+                        source=source,
+                        key=f"targets.{key}",
                     )
                 objectives.append(Objective(metric, key))
             continue
         if key not in METRIC_NAMES:
-            raise _metric_key_error(key, source=source, table="targets", extra=("maximize", "minimize"))
+            raise _metric_key_error(
+                key, source=source, table="targets", extra=("maximize", "minimize")
+            )
         targets.append(_parse_window(value, source=source, key=f"targets.{key}", metric=key))
     return tuple(targets), tuple(objectives)
 
@@ -896,45 +941,80 @@ def _parse_constraints(table: dict[str, Any], *, source: str) -> Constraints:
     for key, value in table.items():
         if key == "max_active_thickness_nm":
             if not _is_number(value) or value <= 0:
-                raise InputError(f"must be a thickness in nm > 0, got {value!r}", source=source,
-                                 key=f"constraints.{key}")
+                raise InputError(
+                    f"must be a thickness in nm > 0, got {value!r}",
+                    source=source,
+                    key=f"constraints.{key}",
+                )
             max_t = float(value)
         elif key == "critical_thickness":
             if not isinstance(value, bool):
-                raise InputError(f"must be true or false, got {value!r}", source=source, key=f"constraints.{key}")
+                raise InputError(
+                    f"must be true or false, got {value!r}", source=source, key=f"constraints.{key}"
+                )
             critical = value
         elif key in METRIC_NAMES:
             bounds.append(_parse_window(value, source=source, key=f"constraints.{key}", metric=key))
         else:
             raise _metric_key_error(
-                key, source=source, table="constraints", extra=("max_active_thickness_nm", "critical_thickness")
+                key,
+                source=source,
+                table="constraints",
+                extra=("max_active_thickness_nm", "critical_thickness"),
             )
-    return Constraints(max_active_thickness_nm=max_t, critical_thickness=critical, metric_bounds=tuple(bounds))
+    return Constraints(
+        max_active_thickness_nm=max_t, critical_thickness=critical, metric_bounds=tuple(bounds)
+    )
 
 
-def _int_setting(table: dict[str, Any], key: str, default: int, lo: int, hi: int, *, source: str, name: str) -> int:
+def _int_setting(
+    table: dict[str, Any], key: str, default: int, lo: int, hi: int, *, source: str, name: str
+) -> int:
     value = table.get(key, default)
     if isinstance(value, bool) or not isinstance(value, int) or not lo <= value <= hi:
-        raise InputError(f"must be a whole number in [{lo}, {hi}], got {value!r}", source=source,
-                         key=f"{name}.{key}")
+        raise InputError(
+            f"must be a whole number in [{lo}, {hi}], got {value!r}",
+            source=source,
+            key=f"{name}.{key}",
+        )
     return value
 
 
 def _parse_search(table: dict[str, Any], *, source: str) -> SearchSettings:
-    allowed = ("trials", "sampler", "seed", "workers", "study_name", "baseline", "batch",
-               "startup_trials", "multivariate", "top")
+    allowed = (
+        "trials",
+        "sampler",
+        "seed",
+        "workers",
+        "study_name",
+        "baseline",
+        "batch",
+        "startup_trials",
+        "multivariate",
+        "top",
+    )
     for key in table:
         if key not in allowed:
-            raise InputError(f"unknown key; allowed: {', '.join(allowed)}", source=source, key=f"search.{key}")
+            raise InputError(
+                f"unknown key; allowed: {', '.join(allowed)}", source=source, key=f"search.{key}"
+            )
     sampler = table.get("sampler", "tpe")
     if sampler not in SAMPLERS:
-        raise InputError(f"{sampler!r} is not one of {', '.join(SAMPLERS)}", source=source, key="search.sampler")
+        raise InputError(
+            f"{sampler!r} is not one of {', '.join(SAMPLERS)}", source=source, key="search.sampler"
+        )
     study_name = table.get("study_name")
     if study_name is not None and (not isinstance(study_name, str) or not study_name.strip()):
-        raise InputError(f"must be a non-empty string, got {study_name!r}", source=source, key="search.study_name")
+        raise InputError(
+            f"must be a non-empty string, got {study_name!r}",
+            source=source,
+            key="search.study_name",
+        )
     multivariate = table.get("multivariate", True)
     if not isinstance(multivariate, bool):
-        raise InputError(f"must be true or false, got {multivariate!r}", source=source, key="search.multivariate")
+        raise InputError(
+            f"must be true or false, got {multivariate!r}", source=source, key="search.multivariate"
+        )
     return SearchSettings(
         trials=_int_setting(table, "trials", 100, 0, MAX_TRIALS, source=source, name="search"),
         sampler=sampler,
@@ -942,7 +1022,9 @@ def _parse_search(table: dict[str, Any], *, source: str) -> SearchSettings:
         workers=_int_setting(table, "workers", 1, 1, MAX_WORKERS, source=source, name="search"),
         study_name=study_name,
         batch=_int_setting(table, "batch", 4, 1, 1024, source=source, name="search"),
-        startup_trials=_int_setting(table, "startup_trials", 10, 0, MAX_TRIALS, source=source, name="search"),
+        startup_trials=_int_setting(
+            table, "startup_trials", 10, 0, MAX_TRIALS, source=source, name="search"
+        ),
         multivariate=multivariate,
         top=_int_setting(table, "top", 10, 1, 10_000, source=source, name="search"),
     )
@@ -952,17 +1034,25 @@ def _parse_sweep(table: dict[str, Any], *, source: str) -> SweepSettings:
     allowed = ("bias_min_v", "bias_max_v", "points")
     for key in table:
         if key not in allowed:
-            raise InputError(f"unknown key; allowed: {', '.join(allowed)}", source=source, key=f"sweep.{key}")
+            raise InputError(
+                f"unknown key; allowed: {', '.join(allowed)}", source=source, key=f"sweep.{key}"
+            )
     values = {}
     for key in ("bias_min_v", "bias_max_v"):
         v = table.get(key, getattr(SweepSettings, key))
         if not _is_number(v) or abs(v) > MAX_ABS_BIAS_V:
-            raise InputError(f"must be a bias in [-{MAX_ABS_BIAS_V:g}, {MAX_ABS_BIAS_V:g}] V, got {v!r}",
-                             source=source, key=f"sweep.{key}")
+            raise InputError(
+                f"must be a bias in [-{MAX_ABS_BIAS_V:g}, {MAX_ABS_BIAS_V:g}] V, got {v!r}",
+                source=source,
+                key=f"sweep.{key}",
+            )
         values[key] = float(v)
     if values["bias_max_v"] <= values["bias_min_v"]:
-        raise InputError(f"must be above bias_min_v ({values['bias_min_v']:g} V)", source=source,
-                         key="sweep.bias_max_v")
+        raise InputError(
+            f"must be above bias_min_v ({values['bias_min_v']:g} V)",
+            source=source,
+            key="sweep.bias_max_v",
+        )
     points = _int_setting(table, "points", 61, 5, MAX_POINTS, source=source, name="sweep")
     return SweepSettings(points=points, **values)
 
@@ -978,7 +1068,9 @@ def _flatten(value: dict[str, Any], prefix: str = "") -> dict[str, Any]:
     return out
 
 
-def _parse_baseline(value: Any, study: Study, *, source: str, base_dir: str | Path) -> tuple[dict[str, float], ...]:
+def _parse_baseline(
+    value: Any, study: Study, *, source: str, base_dir: str | Path
+) -> tuple[dict[str, float], ...]:
     """``[search] baseline``: a stack file, a table of parameter values, or a list of these."""
     if value is None:
         return ()
@@ -993,8 +1085,11 @@ def _parse_baseline(value: Any, study: Study, *, source: str, base_dir: str | Pa
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", CriticalThicknessWarning)
                 if not path.is_file():
-                    raise InputError(f"baseline stack file {str(path)!r} not found; give {form}",
-                                     source=source, key="search.baseline")
+                    raise InputError(
+                        f"baseline stack file {str(path)!r} not found; give {form}",
+                        source=source,
+                        key="search.baseline",
+                    )
                 stack = load_stack(path)
             out.append(study.parameters_of(stack, source=str(path)))
         elif isinstance(item, dict):
@@ -1004,11 +1099,17 @@ def _parse_baseline(value: Any, study: Study, *, source: str, base_dir: str | Pa
                 var = next((x for x in study.variables if x.name == name), None)
                 if var is None:
                     raise InputError(
-                        f"{name!r} is not a search parameter; parameters: {', '.join(study.parameter_names)}",
-                        source=source, key="search.baseline")
+                        f"{name!r} is not a search parameter; "
+                        f"parameters: {', '.join(study.parameter_names)}",
+                        source=source,
+                        key="search.baseline",
+                    )
                 if not _is_number(v) or not var.contains(float(v)):
-                    raise InputError(f"{name} = {v!r} outside its range {var.describe()}", source=source,
-                                     key="search.baseline")
+                    raise InputError(
+                        f"{name} = {v!r} outside its range {var.describe()}",
+                        source=source,
+                        key="search.baseline",
+                    )
                 params[name] = int(v) if var.integer else float(v)
             out.append(params)
         else:

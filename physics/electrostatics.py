@@ -389,18 +389,16 @@ def solve_stack_poisson(
     previous = None  # (well, residual) of the last step, for the secant update
     lo = np.zeros(bias.shape)
     hi = np.full(bias.shape, np.inf)
+    reopened = np.zeros(bias.shape, bool)  # bracket collapsed once and was reopened
+    settled = np.zeros(bias.shape, bool)  # collapsed again: a jump of F, accepted at the jump
+    frozen = np.zeros(bias.shape)
     for outer in range(1, max_well_iterations + 1):
         target, e1 = well_sheet_density_cm2(
             table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w,
             guess_ev=None if full else guess,
         )
-        if not full and np.any(np.isfinite(guess) & ~np.isfinite(e1)):  # a state was lost: search again
-            full = True
-            target, e1 = well_sheet_density_cm2(
-                table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w
-            )
         residual = target - well
-        converged = np.all(np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2)
+        converged = np.all((np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2) | settled)
         if converged and (full or np.all(np.isfinite(e1))):
             return grid, replace(solution, well_sheet_cm2=well, iterations=solution.iterations + outer)
         if converged:  # confirm with a full search that no state has entered the window
@@ -418,19 +416,28 @@ def solve_stack_poisson(
             d_well, d_res = well - previous[0], residual - previous[1]
             ok = (np.abs(d_well) > 0) & (d_res != 0)
             candidate = np.where(ok, well - residual * d_well / np.where(ok, d_res, 1.0), candidate)
-        inside_bracket = (candidate > lo) & (candidate < hi)
+        ceiling = np.minimum(hi, 4.0 * np.maximum(target, well) + WELL_ABS_CM2)  # F is bounded
+        inside_bracket = np.isfinite(candidate) & (candidate > lo) & (candidate < ceiling)
         bisect = np.where(np.isfinite(hi), 0.5 * (lo + hi), target)
         previous = (well, residual)
         well = np.where(inside_bracket, candidate, bisect)
-        # a collapsed bracket with a large residual means an inconsistent evaluation
-        # (a refined E_1 that lost its peak): reopen it and search in full next time
-        collapsed = (hi - lo) <= WELL_TOLERANCE * np.abs(hi) + WELL_ABS_CM2
+        # A collapsed bracket with a large residual: either an inconsistent evaluation (a
+        # refined E_1 that lost its peak) -- reopen it once and search in full -- or, if it
+        # collapses again, a jump of F (a state appearing at the edge of detection): the
+        # fixed point is the jump itself, accepted to the bracket width.
+        collapsed = np.isfinite(hi) & ((hi - lo) <= WELL_TOLERANCE * np.abs(hi) + WELL_ABS_CM2) & ~settled
         if np.any(collapsed):
-            lo = np.where(collapsed, 0.0, lo)
-            hi = np.where(collapsed, np.inf, hi)
-            well = np.where(collapsed, target, well)
-            full = True
+            again = collapsed & reopened
+            frozen = np.where(again, 0.5 * (lo + hi), frozen)
+            settled |= again
+            first = collapsed & ~reopened
+            reopened |= first
+            lo = np.where(first, 0.0, lo)
+            hi = np.where(first, np.inf, hi)
+            well = np.where(first, target, well)
+            full = full or bool(np.any(first))
             previous = None
+        well = np.where(settled, frozen, well)
         solution = poisson(solution.potential_ev, well)
     raise ElectrostaticsConvergenceError(
         f"well-charge iteration did not converge in {max_well_iterations} steps: largest change "
@@ -441,7 +448,7 @@ def solve_stack_poisson(
 def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0, guess_ev=None):
     """Estimate of the electron sheet density in the quasi-bound states, cm^-2.
 
-    Each 2D subband ``E_1`` (up to three, found in ``T(E)`` of the current profile by
+    Each 2D subband ``E_1`` (up to four, found in ``T(E)`` of the current profile by
     :func:`physics.resonances.find_resonances` between the injecting contact's
     band edge and ``mu + 12 kT``; their contributions are summed) is fed by the injecting contact (the emitter for ``V >= 0``) at
     rate ``Gamma_E`` and emptied at ``Gamma``; with the transverse momentum
@@ -454,7 +461,10 @@ def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, 
     Gamma_C / Gamma^2`` as the smaller root ``(1 - sqrt(1 - T_p)) / 2``: an
     assumption (the injecting side is the more opaque one, as near the peak of
     a symmetric stack under forward bias); a simple estimate, not from a
-    specific publication. The charge from the collector and from higher
+    specific publication. Because ``Gamma_E`` vanishes at the injecting
+    contact's band edge and the Lorentzian fit fails there, the fraction is
+    multiplied by ``1 - exp(-(E_1 - E_edge) / kT)``, a regularisation that keeps
+    the charge continuous as a state crosses the edge. The charge from the collector and from higher
     subbands above the window is neglected.
 
     ``guess_ev`` (``(n_stacks, n_biases)``, e.g. ``E_1`` of the previous
@@ -462,7 +472,7 @@ def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, 
     state before) stay without a state, so the caller confirms a converged
     result with a full search.
     Returns ``n_w`` ``(n_stacks, n_biases)`` and the states ``E_1``
-    ``(n_stacks, n_biases, 3)``, NaN where there is none.
+    ``(n_stacks, n_biases, 4)``, NaN where there is none.
     """
     from .constants import HBAR_J_S, ELECTRON_MASS_KG
     from .resonances import find_resonances, refine_peaks
@@ -480,11 +490,14 @@ def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, 
         e1, width, tp = refine_peaks(np.where(known, guess_ev, mid), 5e-3, profile=profile, iterations=6)
         ok = known & np.isfinite(width) & (e1 > edge[..., None]) & (e1 < top[..., None])
     else:
-        res = find_resonances(profile, energy_min_ev=edge + 1e-6, energy_max_ev=top, n_coarse=120, n_max=3)
+        res = find_resonances(profile, energy_min_ev=edge + 1e-6, energy_max_ev=top, n_coarse=120, n_max=4)
         e1, tp, ok = res.energy_ev, res.peak_transmission, res.valid
     e1 = np.where(ok, e1, np.nan)
     tp = np.where(ok, tp, 0.0)
     fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.clip(tp, 0.0, 1.0)))
+    # regularisation (a departure): the Lorentzian fit is unreliable for a state at the
+    # injecting edge, where Gamma_E vanishes; switch the occupancy on over the first kT
+    fraction = fraction * -np.expm1(-np.maximum(np.where(ok, e1, 0.0) - edge[..., None], 0.0) / kt[..., None])
     n2d_cm2 = (well_mass_m0[:, None] * ELECTRON_MASS_KG * kt * ELEMENTARY_CHARGE_C / (np.pi * HBAR_J_S**2) * 1e-4)[..., None]
     supply = np.logaddexp(0.0, (mu[..., None] - np.where(ok, e1, 0.0)) / kt[..., None])
     return np.sum(np.where(ok, fraction * n2d_cm2 * supply, 0.0), axis=-1), e1

@@ -155,7 +155,9 @@ def postgres_url() -> Iterator[str]:
         pytest.skip("psycopg2 is not installed (pip install psycopg2-binary)")
     bindir = _pg_bin_dir()
     if bindir is None:
-        pytest.skip("no PostgreSQL binaries (initdb, pg_ctl) on PATH or in /usr/lib/postgresql/*/bin")
+        pytest.skip(
+            "no PostgreSQL binaries (initdb, pg_ctl) on PATH or in /usr/lib/postgresql/*/bin"
+        )
     user = _server_user()
     root = Path(tempfile.mkdtemp(prefix="wellwright-pg-"))
     data, sock, log = root / "data", root / "sock", root / "server.log"
@@ -167,18 +169,48 @@ def postgres_url() -> Iterator[str]:
     run = {"cwd": root, "capture_output": True, "text": True}
     db_user = "wellwright"
     init = subprocess.run(
-        _as_user(user, [str(bindir / "initdb"), "-D", str(data), "-A", "trust", "-U", db_user,
-                        "-E", "UTF8", "--locale=C", "--no-sync"]),
+        _as_user(
+            user,
+            [
+                str(bindir / "initdb"),
+                "-D",
+                str(data),
+                "-A",
+                "trust",
+                "-U",
+                db_user,
+                "-E",
+                "UTF8",
+                "--locale=C",
+                "--no-sync",
+            ],
+        ),
         **run,
     )
     if init.returncode != 0:
         shutil.rmtree(root, ignore_errors=True)
         pytest.fail(f"initdb failed: {init.stderr.strip()[-500:]}")
     port = _free_port()
-    options = f"-c listen_addresses=127.0.0.1 -p {port} -k {sock} -c fsync=off -c max_connections=50"
+    options = (
+        f"-c listen_addresses=127.0.0.1 -p {port} -k {sock} -c fsync=off -c max_connections=50"
+    )
     start = subprocess.run(
-        _as_user(user, [str(bindir / "pg_ctl"), "-D", str(data), "-o", options, "-l", str(log), "-w",
-                        "-t", "60", "start"]),
+        _as_user(
+            user,
+            [
+                str(bindir / "pg_ctl"),
+                "-D",
+                str(data),
+                "-o",
+                options,
+                "-l",
+                str(log),
+                "-w",
+                "-t",
+                "60",
+                "start",
+            ],
+        ),
         **run,
     )
     if start.returncode != 0:
@@ -201,6 +233,8 @@ def postgres_url() -> Iterator[str]:
         con.close()
         yield f"postgresql+psycopg2://{db_user}@127.0.0.1:{port}/wellwright_test"
     finally:
-        subprocess.run(_as_user(user, [str(bindir / "pg_ctl"), "-D", str(data), "-m", "fast", "-w", "stop"]),
-                       **run)
+        subprocess.run(
+            _as_user(user, [str(bindir / "pg_ctl"), "-D", str(data), "-m", "fast", "-w", "stop"]),
+            **run,
+        )
         shutil.rmtree(root, ignore_errors=True)

@@ -19,9 +19,9 @@ from pathlib import Path
 import numpy as np
 import optuna
 import pytest
+from conftest import study_text
 from optuna.trial import TrialState
 
-from conftest import study_text
 from optimize import cli
 from optimize.search import GRACE_PERIOD_S, nominal_metrics, run_search
 from optimize.study import load_study
@@ -50,7 +50,7 @@ def _broken_evaluator(stacks, bias_v):
 
 
 def _no_solution_for_7_ml(stacks, bias_v):
-    """The real physics, except that 7 ML barriers 'fail to converge' (stand-in for a hard design)."""
+    """The real physics, except that 7 ML barriers 'fail to converge' (a hard design)."""
     from physics.electrostatics import ElectrostaticsConvergenceError
 
     if any(s.layers[2].thickness_ml == 7 for s in stacks):
@@ -62,26 +62,44 @@ def _no_solution_for_7_ml(stacks, bias_v):
 
 
 def _planted_study(write_study, tmp_path, sampler: str):
-    """Space containing PLANTED; the spec is PLANTED's own figures of merit (+-8 %, PVCR >= 90 %)."""
-    space = dict(barrier="{min = 3, max = 8}", well="{min = 8, max = 22}",
-                 well_x="{min = 0.45, max = 0.70, step = 0.01}")
+    """Space containing PLANTED; spec: PLANTED's own figures (+-8 %, PVCR >= 90 %)."""
+    space = dict(
+        barrier="{min = 3, max = 8}",
+        well="{min = 8, max = 22}",
+        well_x="{min = 0.45, max = 0.70, step = 0.01}",
+    )
     probe = _study(write_study, name="probe", **space)
-    m = {k: float(v[0]) for k, v in nominal_metrics([probe.stack(PLANTED)], probe.sweep.bias_v).items()}
+    m = {
+        k: float(v[0])
+        for k, v in nominal_metrics([probe.stack(PLANTED)], probe.sweep.bias_v).items()
+    }
     assert np.isfinite(m["pvcr"]), "the planted design must show NDR"
     jp, vp = m["peak_current_density_a_cm2"], m["peak_voltage_v"]
-    targets = (f"peak_current_density_a_cm2 = {{min = {0.92 * jp!r}, max = {1.08 * jp!r}}}\n"
-               f"peak_voltage_v = {{min = {0.92 * vp!r}, max = {1.08 * vp!r}}}\n"
-               f"pvcr = {{min = {0.9 * m['pvcr']!r}}}\n")
+    targets = (
+        f"peak_current_density_a_cm2 = {{min = {0.92 * jp!r}, max = {1.08 * jp!r}}}\n"
+        f"peak_voltage_v = {{min = {0.92 * vp!r}, max = {1.08 * vp!r}}}\n"
+        f"pvcr = {{min = {0.9 * m['pvcr']!r}}}\n"
+    )
     extra = f'[search]\nsampler = "{sampler}"\nseed = 0\n'
     return _study(write_study, name=f"planted_{sampler}", targets=targets, extra=extra, **space)
 
 
 def test_planted_solution_found_and_better_than_random(write_study, tmp_path):
     # Check values: the planted design's own figures (construction of this test).
-    tpe = run_search(_planted_study(write_study, tmp_path, "tpe"), trials=PLANTED_BUDGET,
-                     out_dir=tmp_path / "tpe", progress=False, write=False)
-    rnd = run_search(_planted_study(write_study, tmp_path, "random"), trials=PLANTED_BUDGET,
-                     out_dir=tmp_path / "random", progress=False, write=False)
+    tpe = run_search(
+        _planted_study(write_study, tmp_path, "tpe"),
+        trials=PLANTED_BUDGET,
+        out_dir=tmp_path / "tpe",
+        progress=False,
+        write=False,
+    )
+    rnd = run_search(
+        _planted_study(write_study, tmp_path, "random"),
+        trials=PLANTED_BUDGET,
+        out_dir=tmp_path / "random",
+        progress=False,
+        write=False,
+    )
     assert tpe.n_complete == rnd.n_complete == PLANTED_BUDGET
     assert tpe.best is not None, "TPE found no design meeting the planted spec within the budget"
     study = _planted_study(write_study, tmp_path, "tpe")
@@ -128,7 +146,10 @@ def test_duplicates_are_copied_not_recomputed(write_study, tmp_path):
 
 
 def test_baseline_is_the_first_trial(write_study, tmp_path):
-    study = _study(write_study, extra="[search]\nbaseline = {barrier1.thickness_ml = 6, well.thickness_ml = 11}\n")
+    study = _study(
+        write_study,
+        extra="[search]\nbaseline = {barrier1.thickness_ml = 6, well.thickness_ml = 11}\n",
+    )
     r = run_search(study, trials=1, out_dir=tmp_path / "o", progress=False, write=False)
     first = min(_trials(r), key=lambda t: t.number)
     assert first.params == {"barrier1.thickness_ml": 6, "well.thickness_ml": 11}
@@ -141,24 +162,37 @@ def test_trial_attributes_hold_metrics_stack_and_constraints(write_study, tmp_pa
         a = t.user_attrs
         assert set(a["metrics"]) == set(METRIC_NAMES)
         assert [layer["name"] for layer in a["layers"]] == list(study.layer_names)
-        assert set(a["layers"][3]) == {"name", "material", "label", "x", "thickness_ml", "thickness_nm",
-                                       "doping_cm3"}
+        assert set(a["layers"][3]) == {
+            "name",
+            "material",
+            "label",
+            "x",
+            "thickness_ml",
+            "thickness_nm",
+            "doping_cm3",
+        }
         assert a["layers"][2]["thickness_ml"] == t.params["barrier1.thickness_ml"]
         assert set(a["constraints"]) == {"stack_valid", "critical_thickness"}
-        assert t.constraints == a["constraints"]  # the same values reach Optuna's constraint handling
+        assert (
+            t.constraints == a["constraints"]
+        )  # the same values reach Optuna's constraint handling
 
 
 def test_changed_space_refuses_to_resume(write_study, tmp_path):
     run_search(_study(write_study), trials=1, out_dir=tmp_path / "o", progress=False, write=False)
     changed = _study(write_study, barrier="{min = 4, max = 8}")
-    with pytest.raises(InputError, match=r"key 'search.study_name': the storage already holds a study 'study'"):
+    with pytest.raises(
+        InputError, match=r"key 'search.study_name': the storage already holds a study 'study'"
+    ):
         run_search(changed, trials=2, out_dir=tmp_path / "o", progress=False, write=False)
 
 
 def test_failing_evaluator_leaves_no_running_trial(write_study, tmp_path):
     study = _study(write_study)
     with pytest.raises(RuntimeError, match="on purpose"):
-        run_search(study, trials=3, out_dir=tmp_path / "o", progress=False, evaluator=_broken_evaluator)
+        run_search(
+            study, trials=3, out_dir=tmp_path / "o", progress=False, evaluator=_broken_evaluator
+        )
     s = optuna.load_study(study_name="study", storage=f"sqlite:///{tmp_path / 'o' / 'study.db'}")
     states = [t.state for t in s.get_trials()]
     assert states == [TrialState.FAIL] * min(3, study.search.batch)  # the one batch asked, failed
@@ -166,15 +200,24 @@ def test_failing_evaluator_leaves_no_running_trial(write_study, tmp_path):
 
 def test_a_design_the_physics_cannot_evaluate_is_infeasible_not_fatal(write_study, tmp_path):
     study = _study(write_study, well="15")
-    r = run_search(study, trials=8, out_dir=tmp_path / "o", progress=False, write=False,
-                   evaluator=_no_solution_for_7_ml)
+    r = run_search(
+        study,
+        trials=8,
+        out_dir=tmp_path / "o",
+        progress=False,
+        write=False,
+        evaluator=_no_solution_for_7_ml,
+    )
     assert r.n_complete == 8
     for t in _trials(r):
         bad = t.params["barrier1.thickness_ml"] == 7
         assert ("error" in t.user_attrs) == bad
         assert (t.constraints["stack_valid"] > 0) == bad
         if bad:
-            assert not t.user_attrs["feasible"] and "no self-consistent solution" in t.user_attrs["error"]
+            assert (
+                not t.user_attrs["feasible"]
+                and "no self-consistent solution" in t.user_attrs["error"]
+            )
         else:
             assert t.user_attrs["metrics"]["peak_current_density_a_cm2"] is not None
 
@@ -190,7 +233,9 @@ def _png_has_drawing(path: Path) -> bool:
 
 
 def test_outputs_single_objective(write_study, tmp_path):
-    study = _study(write_study, targets='pvcr = {min = 3}\nmaximize = ["pvcr"]\n', extra="[search]\ntop = 4\n")
+    study = _study(
+        write_study, targets='pvcr = {min = 3}\nmaximize = ["pvcr"]\n', extra="[search]\ntop = 4\n"
+    )
     r = run_search(study, trials=22, out_dir=tmp_path / "o", progress=False)
     out = tmp_path / "o"
     designs = json.loads((out / "designs.json").read_text())
@@ -200,12 +245,17 @@ def test_outputs_single_objective(write_study, tmp_path):
     scores = [d["score"] for d in designs if d["feasible"]]
     assert scores == sorted(scores)
     header = (out / "designs.csv").read_text().splitlines()[0].split(",")
-    assert header[:4] == ["rank", "trial", "feasible", "score"] and "barrier1.thickness_ml" in header
+    assert (
+        header[:4] == ["rank", "trial", "feasible", "score"] and "barrier1.thickness_ml" in header
+    )
     sheets = sorted((out / "growth_sheets").glob("*.csv"))
     assert len(sheets) == 4
     rows = sheets[0].read_text().splitlines()
     assert rows[0] == "layer,name,material,x,monolayers,nm,doping_cm3"
-    assert rows[3].split(",")[1:3] == ["barrier1", "AlAs"] and rows[4].split(",")[2] == "In0.53Ga0.47As"
+    assert (
+        rows[3].split(",")[1:3] == ["barrier1", "AlAs"]
+        and rows[4].split(",")[2] == "In0.53Ga0.47As"
+    )
     assert _png_has_drawing(out / "history.png") and _png_has_drawing(out / "importances.png")
     imp = json.loads((out / "importances.json").read_text())["score"]
     assert set(imp) == {"barrier1.thickness_ml", "well.thickness_ml"}
@@ -215,7 +265,9 @@ def test_outputs_single_objective(write_study, tmp_path):
 
 
 def test_outputs_multi_objective_pareto(write_study, tmp_path):
-    study = _study(write_study, targets='pvcr = {min = 2}\nmaximize = ["pvcr", "peak_current_density_a_cm2"]\n')
+    study = _study(
+        write_study, targets='pvcr = {min = 2}\nmaximize = ["pvcr", "peak_current_density_a_cm2"]\n'
+    )
     r = run_search(study, trials=12, out_dir=tmp_path / "o", progress=False)
     assert r.directions == ("maximize", "maximize")
     assert _png_has_drawing(tmp_path / "o" / "pareto.png")
@@ -242,7 +294,9 @@ def _count(db: Path, state: str) -> int:
         return 0
     try:
         with sqlite3.connect(db, timeout=10) as con:
-            return con.execute("SELECT count(*) FROM trials WHERE state = ?", (state,)).fetchone()[0]
+            return con.execute("SELECT count(*) FROM trials WHERE state = ?", (state,)).fetchone()[
+                0
+            ]
     except sqlite3.OperationalError:  # tables not created yet
         return 0
 
@@ -251,8 +305,12 @@ def test_resume_after_sigkill_keeps_completed_trials(write_study, tmp_path):
     path = write_study(study_text(extra=SWEEP))
     out = tmp_path / "o"
     argv = ["search", str(path), "--trials", "24", "--out", str(out), "--no-progress"]
-    proc = subprocess.Popen([sys.executable, "-m", "optimize.cli", *argv], env=_env(),
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "optimize.cli", *argv],
+        env=_env(),
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
     db = out / "study.db"
     deadline = time.time() + 60
     while _count(db, "COMPLETE") < 5:
@@ -263,10 +321,18 @@ def test_resume_after_sigkill_keeps_completed_trials(write_study, tmp_path):
     proc.wait()
     study_batch = load_study(path).search.batch  # trials in flight at most
     storage = f"sqlite:///{db}"
-    before = {t.number: (t.params, t.value) for t in optuna.load_study(study_name="study", storage=storage)
-              .get_trials(states=(TrialState.COMPLETE,))}
-    running = [t.number for t in optuna.load_study(study_name="study", storage=storage)
-               .get_trials(states=(TrialState.RUNNING,))]
+    before = {
+        t.number: (t.params, t.value)
+        for t in optuna.load_study(study_name="study", storage=storage).get_trials(
+            states=(TrialState.COMPLETE,)
+        )
+    }
+    running = [
+        t.number
+        for t in optuna.load_study(study_name="study", storage=storage).get_trials(
+            states=(TrialState.RUNNING,)
+        )
+    ]
     assert 5 <= len(before) < 24 and len(running) <= study_batch
     t0 = time.perf_counter()
     assert cli.main([*argv]) == 0  # the same command resumes
@@ -291,20 +357,43 @@ def test_two_workers_share_one_sqlite_study(write_study, tmp_path):
     assert not [t for t in trials if t.state == TrialState.RUNNING]
 
 
-@pytest.mark.slow
-def test_postgresql_study_shared_by_workers_and_a_second_machine(write_study, tmp_path, postgres_url):
+def test_postgresql_study_shared_by_workers_and_a_second_machine(
+    write_study, tmp_path, postgres_url
+):
     study = _study(write_study, name="pg", well="{min = 8, max = 22}", barrier="{min = 3, max = 8}")
-    r = run_search(study, trials=10, workers=2, storage=postgres_url, out_dir=tmp_path / "o", progress=False,
-                   write=False)
+    r = run_search(
+        study,
+        trials=10,
+        workers=2,
+        storage=postgres_url,
+        out_dir=tmp_path / "o",
+        progress=False,
+        write=False,
+    )
     assert r.n_complete == 10 and r.storage == postgres_url
     assert len({t.user_attrs["worker"] for t in _trials(r)}) == 2
     # "another machine": a separate command on the same URL joins the same study while this one runs
-    argv = ["search", str(tmp_path / "pg.toml"), "--trials", "24", "--storage", postgres_url,
-            "--out", str(tmp_path / "other"), "--no-progress"]
-    other = subprocess.Popen([sys.executable, "-m", "optimize.cli", *argv], env=_env(),
-                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
-    here = run_search(study, trials=24, storage=postgres_url, out_dir=tmp_path / "o", progress=False,
-                      write=False)
+    argv = [
+        "search",
+        str(tmp_path / "pg.toml"),
+        "--trials",
+        "24",
+        "--storage",
+        postgres_url,
+        "--out",
+        str(tmp_path / "other"),
+        "--no-progress",
+    ]
+    other = subprocess.Popen(
+        [sys.executable, "-m", "optimize.cli", *argv],
+        env=_env(),
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    here = run_search(
+        study, trials=24, storage=postgres_url, out_dir=tmp_path / "o", progress=False, write=False
+    )
     _, err = other.communicate(timeout=120)
     assert other.returncode == 0, err
     trials = _trials(here, states=None)
@@ -320,14 +409,19 @@ def test_postgresql_study_shared_by_workers_and_a_second_machine(write_study, tm
 @pytest.mark.parametrize(
     "args, edit, message",
     [
-        ([], lambda t: t.replace("pvcr = {min = 3}", "pvcr = {least = 3}"),
-         "key 'targets.pvcr': unknown window key 'least'"),
+        (
+            [],
+            lambda t: t.replace("pvcr = {min = 3}", "pvcr = {least = 3}"),
+            "key 'targets.pvcr': unknown window key 'least'",
+        ),
         (["--storage", "not a url"], None, "key '--storage': 'not a url' is not a database URL"),
         (["--trials", "-1"], None, "key '--trials': -1 outside [0, 1000000]"),
         (["--workers", "0"], None, "key '--workers': 0 outside [1, 256]"),
     ],
 )
-def test_cli_bad_input_exits_2_and_writes_nothing(write_study, tmp_path, capsys, args, edit, message):
+def test_cli_bad_input_exits_2_and_writes_nothing(
+    write_study, tmp_path, capsys, args, edit, message
+):
     text = study_text()
     path = write_study(edit(text) if edit else text)
     out = tmp_path / "out"
@@ -342,6 +436,11 @@ def test_cli_search_help_and_summary(write_study, tmp_path, capsys):
         cli.main(["search", "--help"])
     assert info.value.code == 0 and "--storage URL" in capsys.readouterr().out
     path = write_study(study_text(extra=SWEEP))
-    assert cli.main(["search", str(path), "--trials", "2", "--out", str(tmp_path / "o"), "--no-progress"]) == 0
+    assert (
+        cli.main(
+            ["search", str(path), "--trials", "2", "--out", str(tmp_path / "o"), "--no-progress"]
+        )
+        == 0
+    )
     text = capsys.readouterr().out
     assert "study 'study': 2 complete trials" in text and (tmp_path / "o" / "designs.json").exists()

@@ -12,8 +12,8 @@ import warnings
 
 import numpy as np
 import pytest
-
 from conftest import study_text
+
 from optimize.study import NAN_VIOLATION, Window, load_study, parse_study
 from physics import materials
 from physics.errors import InputError
@@ -53,17 +53,24 @@ def test_stack_dict_is_a_stack_file(write_study):
 
 
 def test_log_range_and_reserved_tables_pass_through(write_study):
-    text = study_text(extra="[growth]\nthickness_ml_sigma = 0.5\n[tolerance]\nsamples = 64\n"
-                            "[report]\ntop = 3\n[sweep]\nbias_max_v = 1.2\npoints = 41\n")
+    text = study_text(
+        extra="[growth]\nthickness_ml_sigma = 0.5\n[tolerance]\nsamples = 64\n"
+        "[report]\ntop = 3\n[sweep]\nbias_max_v = 1.2\npoints = 41\n"
+    )
     text = text.replace('doping_cm3 = 2e18\n"""', "")  # no-op guard
-    text = text.replace('name = "collector"\nmaterial = "In0.53Ga0.47As"\ndoping_cm3 = 2e18',
-                        'name = "collector"\nmaterial = "In0.53Ga0.47As"\n'
-                        "doping_cm3 = {min = 1e17, max = 5e18, log = true}\ngrowth = {doping_sigma = 0.1}")
+    text = text.replace(
+        'name = "collector"\nmaterial = "In0.53Ga0.47As"\ndoping_cm3 = 2e18',
+        'name = "collector"\nmaterial = "In0.53Ga0.47As"\n'
+        "doping_cm3 = {min = 1e17, max = 5e18, log = true}\ngrowth = {doping_sigma = 0.1}",
+    )
     study = load_study(write_study(text))
     var = study.variables[-1]
     assert var.name == "collector.doping_cm3" and var.log and not var.integer
-    assert study.reserved == {"growth": {"thickness_ml_sigma": 0.5}, "tolerance": {"samples": 64},
-                              "report": {"top": 3}}
+    assert study.reserved == {
+        "growth": {"thickness_ml_sigma": 0.5},
+        "tolerance": {"samples": 64},
+        "report": {"top": 3},
+    }
     assert study.layer_growth == {"collector": {"doping_sigma": 0.1}}
     assert study.sweep.points == 41 and study.sweep.bias_v[-1] == pytest.approx(1.2)
 
@@ -87,8 +94,13 @@ def test_window_distance_and_margin():
 
 
 def test_spec_violation_orders_designs_by_how_far_off(write_study):
-    study = load_study(write_study(study_text(
-        targets="peak_current_density_a_cm2 = {min = 2e5, max = 3e5}\npvcr = {min = 3}\n")))
+    study = load_study(
+        write_study(
+            study_text(
+                targets="peak_current_density_a_cm2 = {min = 2e5, max = 3e5}\npvcr = {min = 3}\n"
+            )
+        )
+    )
     jp = np.array([2.5e5, 3.5e5, 4.5e5, 2.5e5, np.nan])
     pvcr = np.array([5.0, 5.0, 5.0, 1.5, np.nan])
     v = study.spec_violation(_metrics(peak_current_density_a_cm2=jp, pvcr=pvcr))
@@ -102,19 +114,26 @@ def test_spec_violation_orders_designs_by_how_far_off(write_study):
 
 
 def test_single_score_pushes_the_objective_once_on_spec(write_study):
-    study = load_study(write_study(study_text(
-        targets='pvcr = {min = 3}\nmaximize = ["pvcr"]\n')))
+    study = load_study(write_study(study_text(targets='pvcr = {min = 3}\nmaximize = ["pvcr"]\n')))
     score = study.single_score(_metrics(pvcr=np.array([4.0, 10.0, 100.0, 2.0])))
     assert score[2] < score[1] < score[0] < 0 < score[3]
     assert not study.multi_objective and study.directions == ("minimize",)
 
 
 def test_multi_objective_directions_and_spec_constraint(write_study):
-    study = load_study(write_study(study_text(
-        targets='pvcr = {min = 3}\nmaximize = ["pvcr"]\nminimize = ["valley_current_density_a_cm2"]\n')))
+    study = load_study(
+        write_study(
+            study_text(
+                targets='pvcr = {min = 3}\nmaximize = ["pvcr"]\n'
+                'minimize = ["valley_current_density_a_cm2"]\n'
+            )
+        )
+    )
     assert study.multi_objective and study.directions == ("maximize", "minimize")
     assert study.constraint_names[-1] == "spec"
-    vals = study.objective_values(_metrics(pvcr=[np.nan, 5.0], valley_current_density_a_cm2=[np.nan, 1e3]))
+    vals = study.objective_values(
+        _metrics(pvcr=[np.nan, 5.0], valley_current_density_a_cm2=[np.nan, 1e3])
+    )
     assert vals[0].tolist() == [-math.inf, math.inf] and vals[1].tolist() == [5.0, 1e3]
 
 
@@ -124,8 +143,13 @@ def test_multi_objective_directions_and_spec_constraint(write_study):
 def test_critical_thickness_constraint_matches_matthews_blakeslee(write_study):
     # Matthews and Blakeslee (1974) via physics.materials.critical_thickness_nm:
     # AlAs on InP is ~3.5 % mismatched, so 5 ML is coherent and 60 ML is not.
-    study = load_study(write_study(study_text(barrier="{min = 4, max = 60}",
-                                              extra="[constraints]\ncritical_thickness = true\n")))
+    study = load_study(
+        write_study(
+            study_text(
+                barrier="{min = 4, max = 60}", extra="[constraints]\ncritical_thickness = true\n"
+            )
+        )
+    )
     with warnings.catch_warnings():
         warnings.simplefilter("error", CriticalThicknessWarning)  # the study silences it
         thin = study.stack({"barrier1.thickness_ml": 5})
@@ -139,81 +163,158 @@ def test_critical_thickness_constraint_matches_matthews_blakeslee(write_study):
 
 
 def test_thickness_and_metric_bound_constraints(write_study):
-    study = load_study(write_study(study_text(
-        extra="[constraints]\nmax_active_thickness_nm = 14\nvalley_voltage_v = {max = 0.9}\n")))
+    study = load_study(
+        write_study(
+            study_text(
+                extra="[constraints]\nmax_active_thickness_nm = 14\n"
+                "valley_voltage_v = {max = 0.9}\n"
+            )
+        )
+    )
     stack = study.stack({"barrier1.thickness_ml": 4, "well.thickness_ml": 10})
     c = study.constraint_values(stack, {"valley_voltage_v": 0.45})
     assert c["max_active_thickness_nm"] == pytest.approx((stack.active_thickness_nm - 14) / 14)
     assert c["metric:valley_voltage_v"] == pytest.approx(-0.5)  # (0.45 - 0.9) / 0.9
-    assert study.constraint_values(stack, {"valley_voltage_v": math.nan})["metric:valley_voltage_v"] == 1.0
+    assert (
+        study.constraint_values(stack, {"valley_voltage_v": math.nan})["metric:valley_voltage_v"]
+        == 1.0
+    )
     assert study.constraint_values(None, {})["stack_valid"] == 1.0
 
 
 # --------------------------------------------------------------------------- bad files
 
+
 @pytest.mark.parametrize(
     "edit, match",
     [
         (lambda t: t + "[wishes]\nmore = 1\n", r"key 'wishes': unknown key; allowed: .*targets"),
-        (lambda t: t.replace('material = "AlAs"', 'material = {min = 1, max = 2}'),
-         r"layer 2, key 'material': cannot be a range; keys that may be ranges: .*thickness_ml"),
-        (lambda t: t.replace("{min = 4, max = 7}", "{min = 4.5, max = 7}"),
-         r"key 'thickness_ml.min': 4.5 is not a whole number of monolayers"),
-        (lambda t: t.replace("{min = 4, max = 7}", "{min = 7, max = 4}"),
-         r"key 'thickness_ml.max': min \(7\) must be below max \(4\)"),
-        (lambda t: t.replace("{min = 4, max = 7}", "{max = 7}"),
-         r"key 'thickness_ml.min': range needs min and max"),
-        (lambda t: t.replace("{min = 4, max = 7}", "{min = 4, max = 7, stride = 1}"),
-         r"key 'thickness_ml.stride': unknown range key 'stride'"),
-        (lambda t: t.replace("x = 0.53", "x = {min = 0.4, max = 0.6, step = 0.01, log = true}"),
-         r"key 'x.step': give either step or log = true, not both"),
-        (lambda t: t.replace("x = 0.53", "x = {min = 0.4, max = 0.6, step = 0.03}"),
-         r"key 'x.step': max - min \(0.2\) must be a whole number of steps"),
-        (lambda t: t.replace("x = 0.53", "x = {min = 0.5, max = 1.5}"),
-         r"layer 3, key 'x': with every range at its max: 1.5 outside \[0, 1\]"),
-        (lambda t: t.replace("pvcr = {min = 3}", "pvrc = {min = 3}"),
-         r"key 'targets.pvrc': unknown figure of merit; allowed: peak_current_density_a_cm2"),
-        (lambda t: t.replace("pvcr = {min = 3}", "pvcr = {target = 3}"),
-         r"key 'targets.pvcr': give target and tolerance together"),
-        (lambda t: t.replace("pvcr = {min = 3}", "pvcr = {min = 3, max = 2}"),
-         r"key 'targets.pvcr.max': min \(3\) must be below max \(2\)"),
-        (lambda t: t.replace("pvcr = {min = 3}", "pvcr = 3"),
-         r"key 'targets.pvcr': must be a window \{min = .., max = ..\}"),
-        (lambda t: t.replace("pvcr = {min = 3}", 'maximize = ["peak_current"]'),
-         r"key 'targets.maximize': unknown figure of merit 'peak_current'"),
-        (lambda t: t.replace("pvcr = {min = 3}", 'maximize = ["pvcr"]\nminimize = ["pvcr"]'),
-         r"key 'targets.minimize': 'pvcr' is listed twice"),
-        (lambda t: t.split("[targets]")[0] + "[targets]\n",
-         r"key 'targets': needs a window for at least one figure of merit"),
-        (lambda t: t.replace('same_as = "barrier1"', 'same_as = "barrier7"'),
-         r"layer 4, key 'same_as': 'barrier7' is not a layer name; layers: emitter, spacer1"),
-        (lambda t: t.replace('same_as = "barrier1"', 'same_as = "barrier1"\nthickness_ml = 3'),
-         r"layer 4, key 'same_as': a layer with same_as takes only name \(and growth\); remove thickness_ml"),
-        (lambda t: t.replace('name = "barrier1"\nmaterial = "AlAs"\nthickness_ml = {min = 4, max = 7}',
-                             'name = "barrier1"\nsame_as = "barrier2"'),
-         r"layer 2, key 'same_as': same_as chain loops back to this layer"),
-        (lambda t: t.replace('name = "well"', 'name = "barrier1"'),
-         r"layer 3, key 'name': name 'barrier1' used twice"),
-        (lambda t: t + "[search]\nsampler = \"cmaes\"\n",
-         r"key 'search.sampler': 'cmaes' is not one of tpe, nsga2, random"),
-        (lambda t: t + "[search]\ntrials = -5\n",
-         r"key 'search.trials': must be a whole number in \[0, 1000000\], got -5"),
-        (lambda t: t + "[search]\ntrails = 5\n", r"key 'search.trails': unknown key; allowed: trials"),
-        (lambda t: t + "[search]\nbaseline = {barrier1.thickness_ml = 9}\n",
-         r"key 'search.baseline': barrier1.thickness_ml = 9 outside its range \{min = 4, max = 7\}"),
-        (lambda t: t + "[search]\nbaseline = {well.x = 0.5}\n",
-         r"key 'search.baseline': 'well.x' is not a search parameter"),
-        (lambda t: t + "[search]\nbaseline = \"nowhere.toml\"\n",
-         r"key 'search.baseline': baseline stack file .*nowhere.toml' not found"),
-        (lambda t: t + "[sweep]\nbias_max_v = -1\n",
-         r"key 'sweep.bias_max_v': must be above bias_min_v \(0 V\)"),
-        (lambda t: t + "[sweep]\npoints = 3\n", r"key 'sweep.points': must be a whole number in \[5, 2001\]"),
-        (lambda t: t + "[constraints]\nmax_thickness = 3\n",
-         r"key 'constraints.max_thickness': unknown figure of merit; allowed: .*max_active_thickness_nm"),
-        (lambda t: t + "[constraints]\ncritical_thickness = \"yes\"\n",
-         r"key 'constraints.critical_thickness': must be true or false"),
-        (lambda t: t.replace('name = "well"', 'name = "well"\ngrowth = 3'),
-         r"layer 3, key 'growth': must be a table"),
+        (
+            lambda t: t.replace('material = "AlAs"', "material = {min = 1, max = 2}"),
+            r"layer 2, key 'material': cannot be a range; keys that may be ranges: .*thickness_ml",
+        ),
+        (
+            lambda t: t.replace("{min = 4, max = 7}", "{min = 4.5, max = 7}"),
+            r"key 'thickness_ml.min': 4.5 is not a whole number of monolayers",
+        ),
+        (
+            lambda t: t.replace("{min = 4, max = 7}", "{min = 7, max = 4}"),
+            r"key 'thickness_ml.max': min \(7\) must be below max \(4\)",
+        ),
+        (
+            lambda t: t.replace("{min = 4, max = 7}", "{max = 7}"),
+            r"key 'thickness_ml.min': range needs min and max",
+        ),
+        (
+            lambda t: t.replace("{min = 4, max = 7}", "{min = 4, max = 7, stride = 1}"),
+            r"key 'thickness_ml.stride': unknown range key 'stride'",
+        ),
+        (
+            lambda t: t.replace("x = 0.53", "x = {min = 0.4, max = 0.6, step = 0.01, log = true}"),
+            r"key 'x.step': give either step or log = true, not both",
+        ),
+        (
+            lambda t: t.replace("x = 0.53", "x = {min = 0.4, max = 0.6, step = 0.03}"),
+            r"key 'x.step': max - min \(0.2\) must be a whole number of steps",
+        ),
+        (
+            lambda t: t.replace("x = 0.53", "x = {min = 0.5, max = 1.5}"),
+            r"layer 3, key 'x': with every range at its max: 1.5 outside \[0, 1\]",
+        ),
+        (
+            lambda t: t.replace("pvcr = {min = 3}", "pvrc = {min = 3}"),
+            r"key 'targets.pvrc': unknown figure of merit; allowed: peak_current_density_a_cm2",
+        ),
+        (
+            lambda t: t.replace("pvcr = {min = 3}", "pvcr = {target = 3}"),
+            r"key 'targets.pvcr': give target and tolerance together",
+        ),
+        (
+            lambda t: t.replace("pvcr = {min = 3}", "pvcr = {min = 3, max = 2}"),
+            r"key 'targets.pvcr.max': min \(3\) must be below max \(2\)",
+        ),
+        (
+            lambda t: t.replace("pvcr = {min = 3}", "pvcr = 3"),
+            r"key 'targets.pvcr': must be a window \{min = .., max = ..\}",
+        ),
+        (
+            lambda t: t.replace("pvcr = {min = 3}", 'maximize = ["peak_current"]'),
+            r"key 'targets.maximize': unknown figure of merit 'peak_current'",
+        ),
+        (
+            lambda t: t.replace("pvcr = {min = 3}", 'maximize = ["pvcr"]\nminimize = ["pvcr"]'),
+            r"key 'targets.minimize': 'pvcr' is listed twice",
+        ),
+        (
+            lambda t: t.split("[targets]")[0] + "[targets]\n",
+            r"key 'targets': needs a window for at least one figure of merit",
+        ),
+        (
+            lambda t: t.replace('same_as = "barrier1"', 'same_as = "barrier7"'),
+            r"layer 4, key 'same_as': 'barrier7' is not a layer name; layers: emitter, spacer1",
+        ),
+        (
+            lambda t: t.replace('same_as = "barrier1"', 'same_as = "barrier1"\nthickness_ml = 3'),
+            r"layer 4, key 'same_as': a layer with same_as takes only name \(and growth\); "
+            r"remove thickness_ml",
+        ),
+        (
+            lambda t: t.replace(
+                'name = "barrier1"\nmaterial = "AlAs"\nthickness_ml = {min = 4, max = 7}',
+                'name = "barrier1"\nsame_as = "barrier2"',
+            ),
+            r"layer 2, key 'same_as': same_as chain loops back to this layer",
+        ),
+        (
+            lambda t: t.replace('name = "well"', 'name = "barrier1"'),
+            r"layer 3, key 'name': name 'barrier1' used twice",
+        ),
+        (
+            lambda t: t + '[search]\nsampler = "cmaes"\n',
+            r"key 'search.sampler': 'cmaes' is not one of tpe, nsga2, random",
+        ),
+        (
+            lambda t: t + "[search]\ntrials = -5\n",
+            r"key 'search.trials': must be a whole number in \[0, 1000000\], got -5",
+        ),
+        (
+            lambda t: t + "[search]\ntrails = 5\n",
+            r"key 'search.trails': unknown key; allowed: trials",
+        ),
+        (
+            lambda t: t + "[search]\nbaseline = {barrier1.thickness_ml = 9}\n",
+            r"key 'search.baseline': barrier1.thickness_ml = 9 outside its range "
+            r"\{min = 4, max = 7\}",
+        ),
+        (
+            lambda t: t + "[search]\nbaseline = {well.x = 0.5}\n",
+            r"key 'search.baseline': 'well.x' is not a search parameter",
+        ),
+        (
+            lambda t: t + '[search]\nbaseline = "nowhere.toml"\n',
+            r"key 'search.baseline': baseline stack file .*nowhere.toml' not found",
+        ),
+        (
+            lambda t: t + "[sweep]\nbias_max_v = -1\n",
+            r"key 'sweep.bias_max_v': must be above bias_min_v \(0 V\)",
+        ),
+        (
+            lambda t: t + "[sweep]\npoints = 3\n",
+            r"key 'sweep.points': must be a whole number in \[5, 2001\]",
+        ),
+        (
+            lambda t: t + "[constraints]\nmax_thickness = 3\n",
+            r"key 'constraints.max_thickness': unknown figure of merit; "
+            r"allowed: .*max_active_thickness_nm",
+        ),
+        (
+            lambda t: t + '[constraints]\ncritical_thickness = "yes"\n',
+            r"key 'constraints.critical_thickness': must be true or false",
+        ),
+        (
+            lambda t: t.replace('name = "well"', 'name = "well"\ngrowth = 3'),
+            r"layer 3, key 'growth': must be a table",
+        ),
     ],
 )
 def test_bad_study_files_name_the_key(write_study, edit, match):
@@ -227,7 +328,9 @@ def test_bad_study_files_name_the_key(write_study, edit, match):
 def _known_stack(barrier_ml: int, well_ml: int) -> str:
     """A plain stack file with the study's layer names."""
     text = study_text().split("[targets]")[0]
-    text = text.replace("{min = 4, max = 7}", str(barrier_ml)).replace("{min = 10, max = 18}", str(well_ml))
+    text = text.replace("{min = 4, max = 7}", str(barrier_ml)).replace(
+        "{min = 10, max = 18}", str(well_ml)
+    )
     return text.replace('same_as = "barrier1"', f'material = "AlAs"\nthickness_ml = {barrier_ml}')
 
 
@@ -235,16 +338,24 @@ def test_baseline_stack_file_outside_the_range(write_study, tmp_path):
     base = _known_stack(9, 12)
     (tmp_path / "known.toml").write_text(base)
     path = write_study(study_text(extra='[search]\nbaseline = "known.toml"\n'))
-    with pytest.raises(InputError, match=r"known.toml, key 'barrier1.thickness_ml': 9 outside the study's range"):
+    with pytest.raises(
+        InputError, match=r"known.toml, key 'barrier1.thickness_ml': 9 outside the study's range"
+    ):
         load_study(path)
 
 
 def test_baseline_stack_file_gives_the_parameters(write_study, tmp_path):
     base = _known_stack(5, 15)
     (tmp_path / "known.toml").write_text(base)
-    study = load_study(write_study(study_text(extra='[search]\nbaseline = ["known.toml", {well = {thickness_ml = 11}}]\n')))
-    assert study.search.baseline == ({"barrier1.thickness_ml": 5, "well.thickness_ml": 15},
-                                     {"well.thickness_ml": 11})
+    study = load_study(
+        write_study(
+            study_text(extra='[search]\nbaseline = ["known.toml", {well = {thickness_ml = 11}}]\n')
+        )
+    )
+    assert study.search.baseline == (
+        {"barrier1.thickness_ml": 5, "well.thickness_ml": 15},
+        {"well.thickness_ml": 11},
+    )
 
 
 def test_not_a_table_and_missing_file(tmp_path):
