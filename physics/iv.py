@@ -150,7 +150,7 @@ def _parabola_vertex(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return xv, np.where(ok, a * xv**2 + b * xv + c, y1)
 
 
-def _refine(table, model, grid, center_v, half_span_v, sign, rounds=2, points=7):
+def _refine(table, model, grid, center_v, half_span_v, sign, rounds=2, points=5):
     """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
 
     ``rounds`` of ``points`` extra biases around each centre (one batched
