@@ -51,8 +51,12 @@ def main() -> None:
     for name, model in {
         "linear": replace(stack.model, electrostatics="linear"),
         "self-consistent": replace(stack.model, electrostatics="self-consistent"),
-        "linear + 3 meV broadening": replace(stack.model, electrostatics="linear", broadening_mev=3.0),
-        "self-consistent + 3 meV": replace(stack.model, electrostatics="self-consistent", broadening_mev=3.0),
+        "linear + 3 meV broadening": replace(
+            stack.model, electrostatics="linear", broadening_mev=3.0
+        ),
+        "self-consistent + 3 meV": replace(
+            stack.model, electrostatics="self-consistent", broadening_mev=3.0
+        ),
     }.items():
         results[name] = _median_time(lambda m=model: sweep(table, bias, model=m), repeats)
         print(f"61-point I-V, {name:28s} {1e3 * results[name]:8.1f} ms")

@@ -26,6 +26,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 import numpy as np  # noqa: E402
 
 from physics.bands import linear_profile  # noqa: E402
+from physics.constants import BOLTZMANN_EV_K  # noqa: E402
 from physics.current import (  # noqa: E402
     TSU_ESAKI_A_M2_EV2,
     EnergyGrid,
@@ -34,7 +35,6 @@ from physics.current import (  # noqa: E402
     energy_window_ev,
     supply_function_ev,
 )
-from physics.constants import BOLTZMANN_EV_K  # noqa: E402
 from physics.iv import locate_peak_valley, sweep  # noqa: E402
 from physics.stack import LayerTable, load_stack  # noqa: E402
 from physics.transmission import transmission  # noqa: E402
@@ -53,7 +53,9 @@ def median_time(fn, repeats: int) -> float:
     return float(np.median(times))
 
 
-def uniform_current(table: LayerTable, bias_v: np.ndarray, n_energy: int, slice_nm: float) -> np.ndarray:
+def uniform_current(
+    table: LayerTable, bias_v: np.ndarray, n_energy: int, slice_nm: float
+) -> np.ndarray:
     """Tsu-Esaki current on a uniform energy grid of ``n_energy`` points (trapezoid rule)."""
     profile = linear_profile(table, bias_v, slice_nm=slice_nm)
     kt = BOLTZMANN_EV_K * table.temperature_k[:, None]
@@ -66,7 +68,9 @@ def uniform_current(table: LayerTable, bias_v: np.ndarray, n_energy: int, slice_
         sl = slice(b0, b0 + chunk)
         e = low[:, sl, None] + (high - low)[:, sl, None] * np.linspace(0.0, 1.0, n_energy)
         t = transmission(e, profile=profile.take((slice(None), sl)))
-        s = supply_function_ev(e, mu_e[:, sl, None], mu_e[:, sl, None] - bias[:, sl, None], kt[..., None])
+        s = supply_function_ev(
+            e, mu_e[:, sl, None], mu_e[:, sl, None] - bias[:, sl, None], kt[..., None]
+        )
         out[:, sl] = np.trapezoid(t * s, e, axis=-1)
     return TSU_ESAKI_A_M2_EV2 * table.mass_m0[:, :1] * out * 1e-4
 
@@ -85,7 +89,9 @@ def grid_comparison(path: Path, repeats: int):
 
     # converged reference of the peak current on the sweep grid
     fine = EnergyGrid(n_coarse=600, n_resonances=4, n_per_resonance=400)
-    j_ref = current_density_a_cm2(linear_profile(table, bias, slice_nm=slice_nm), table=table, bias_v=bias, grid=fine)
+    j_ref = current_density_a_cm2(
+        linear_profile(table, bias, slice_nm=slice_nm), table=table, bias_v=bias, grid=fine
+    )
     jp_ref = grid_peak(bias, j_ref)
 
     def adaptive() -> np.ndarray:
@@ -107,10 +113,16 @@ def grid_comparison(path: Path, repeats: int):
 
     print(f"\nstack: {path.name}, {table.n_layers} layers, 61 biases 0..1 V, one core")
     print(f"{'method':52s} {'time (ms)':>10s} {'Jp error':>10s}")
-    print(f"{'adaptive grid, current only':52s} {t_adaptive * 1e3:10.1f} {jp_adaptive / jp_ref - 1:+10.3%}")
+    print(
+        f"{'adaptive grid, current only':52s} {t_adaptive * 1e3:10.1f} {jp_adaptive / jp_ref - 1:+10.3%}"
+    )
     print(f"{'adaptive grid, full sweep with peak/valley refine':52s} {t_full * 1e3:10.1f}")
-    print(f"{f'uniform grid, {n_uniform} energies (0.5 % on Jp)':52s} {t_uniform * 1e3:10.1f} {jp_u / jp_ref - 1:+10.3%}")
-    print(f"ratio uniform / adaptive at the same accuracy: {t_uniform / t_adaptive:.1f}  (target >= 30)")
+    print(
+        f"{f'uniform grid, {n_uniform} energies (0.5 % on Jp)':52s} {t_uniform * 1e3:10.1f} {jp_u / jp_ref - 1:+10.3%}"
+    )
+    print(
+        f"ratio uniform / adaptive at the same accuracy: {t_uniform / t_adaptive:.1f}  (target >= 30)"
+    )
     print(f"61-point I-V median (with refinement): {t_full * 1e3:.1f} ms  (target < 30 ms)")
     return stack, table, bias
 
@@ -136,8 +148,10 @@ def main() -> None:
     for i in range(0, n_batch, chunk):
         sweep(variants.take(slice(i, i + chunk)), bias, model=stack.model)
     t_batch = time.perf_counter() - t0
-    print(f"batch of {n_batch} variants, 61-point sweeps with refinement: {n_batch / t_batch:.0f} curves/s "
-          f"(target >= 200 per core)")
+    print(
+        f"batch of {n_batch} variants, 61-point sweeps with refinement: {n_batch / t_batch:.0f} curves/s "
+        f"(target >= 200 per core)"
+    )
 
 
 if __name__ == "__main__":

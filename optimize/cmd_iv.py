@@ -26,9 +26,15 @@ def register(sub) -> None:
         "and write iv.csv, metrics.json and three PNG figures.",
     )
     p.add_argument("stack", help="stack file (TOML)")
-    p.add_argument("--bias-min", type=float, default=0.0, metavar="V", help="first bias, V (default 0)")
-    p.add_argument("--bias-max", type=float, default=1.0, metavar="V", help="last bias, V (default 1.0)")
-    p.add_argument("--points", type=int, default=61, metavar="N", help="evenly spaced biases (default 61)")
+    p.add_argument(
+        "--bias-min", type=float, default=0.0, metavar="V", help="first bias, V (default 0)"
+    )
+    p.add_argument(
+        "--bias-max", type=float, default=1.0, metavar="V", help="last bias, V (default 1.0)"
+    )
+    p.add_argument(
+        "--points", type=int, default=61, metavar="N", help="evenly spaced biases (default 61)"
+    )
     p.add_argument("--out", metavar="DIR", help="output folder (default: <stack name>_iv)")
     p.add_argument("--json", action="store_true", help="print the results as JSON on stdout")
     p.add_argument("--no-figures", action="store_true", help="skip the PNG figures")
@@ -63,8 +69,9 @@ def iv_record(stack, curves) -> dict:
         m = record["metrics"]
         for name in ("peak", "valley"):
             v, jj = m[f"{name}_voltage_v"], m[f"{name}_current_density_a_cm2"]
-            m[f"{name}_voltage_external_v"] = None if v is None else float(
-                external_bias_v(v, jj, dev.series_resistance_ohm_um2))
+            m[f"{name}_voltage_external_v"] = (
+                None if v is None else float(external_bias_v(v, jj, dev.series_resistance_ohm_um2))
+            )
     if dev.area_um2 is not None:
         record["current_ma"] = j * dev.area_um2 * 1e-8 * 1e3
         m = record["metrics"]
@@ -80,7 +87,9 @@ def run(args) -> int:
     out = Path(args.out) if args.out else Path(f"{Path(args.stack).stem}_iv")
     curves = stack_iv(stack, bias)
     record = iv_record(stack, curves)
-    cols = ["bias_v", "current_density_a_cm2"] + [k for k in ("external_bias_v", "current_ma") if k in record]
+    cols = ["bias_v", "current_density_a_cm2"] + [
+        k for k in ("external_bias_v", "current_ma") if k in record
+    ]
     write_csv(out / "iv.csv", cols, zip(*(record[c] for c in cols)))
     write_json(out / "metrics.json", {"stack": stack.source, "metrics": record["metrics"]})
     if not args.no_figures:
@@ -96,8 +105,12 @@ def run(args) -> int:
         if m["peak_current_density_a_cm2"] is None:
             print("  no negative differential resistance in this sweep")
         else:
-            print(f"  peak   {m['peak_current_density_a_cm2'] / 1e3:10.2f} kA/cm^2 at {m['peak_voltage_v']:.3f} V")
-            print(f"  valley {m['valley_current_density_a_cm2'] / 1e3:10.2f} kA/cm^2 at {m['valley_voltage_v']:.3f} V")
+            print(
+                f"  peak   {m['peak_current_density_a_cm2'] / 1e3:10.2f} kA/cm^2 at {m['peak_voltage_v']:.3f} V"
+            )
+            print(
+                f"  valley {m['valley_current_density_a_cm2'] / 1e3:10.2f} kA/cm^2 at {m['valley_voltage_v']:.3f} V"
+            )
             print(f"  PVCR   {m['pvcr']:10.2f}")
         print(f"  results in {out}/")
     return 0

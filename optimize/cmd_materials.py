@@ -26,7 +26,13 @@ def register(sub) -> None:
         help="material parameter table",
         description="Print the built-in material parameters (unstrained) at a temperature, with sources.",
     )
-    p.add_argument("--temperature-k", type=float, default=300.0, metavar="K", help="temperature (default 300 K)")
+    p.add_argument(
+        "--temperature-k",
+        type=float,
+        default=300.0,
+        metavar="K",
+        help="temperature (default 300 K)",
+    )
     p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(func=run)
 
@@ -44,7 +50,9 @@ def run(args) -> int:
     print("  ".join(n.rjust(w) for n, w in zip(names, widths)))
     for row in rows:
         print("  ".join(f.format(row[n]).rjust(w) for (n, f), w in zip(COLUMNS, widths)))
-    print(f"\nconduction_band_ev: Gamma edge on the common valence-band-offset scale at {args.temperature_k:g} K")
+    print(
+        f"\nconduction_band_ev: Gamma edge on the common valence-band-offset scale at {args.temperature_k:g} K"
+    )
     sources = sorted({row.get("source", "") for row in rows} - {""})
     for s in sources:
         print(f"source: {s}")

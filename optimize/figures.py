@@ -20,7 +20,14 @@ from physics.resonances import find_resonances  # noqa: E402
 from physics.stack import Stack  # noqa: E402
 from physics.transmission import transmission  # noqa: E402
 
-__all__ = ["PALETTE", "iv_figure", "band_diagram_figure", "transmission_figure", "iv_figures", "style"]
+__all__ = [
+    "PALETTE",
+    "iv_figure",
+    "band_diagram_figure",
+    "transmission_figure",
+    "iv_figures",
+    "style",
+]
 
 #: Okabe-Ito palette (M. Okabe and K. Ito, "Color Universal Design", 2002).
 PALETTE = {
@@ -61,15 +68,36 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
     ax.plot(v, j, color=PALETTE["blue"], lw=2, label="Tsu-Esaki current")
     m = curves.metrics_of(i)
     if m["peak_voltage_v"] is not None:
-        ax.plot(m["peak_voltage_v"], m["peak_current_density_a_cm2"] / 1e3, "o", ms=9, mfc="none",
-                mec=PALETTE["vermillion"], mew=2, label="peak")
-        ax.plot(m["valley_voltage_v"], m["valley_current_density_a_cm2"] / 1e3, "s", ms=9, mfc="none",
-                mec=PALETTE["green"], mew=2, label="valley")
+        ax.plot(
+            m["peak_voltage_v"],
+            m["peak_current_density_a_cm2"] / 1e3,
+            "o",
+            ms=9,
+            mfc="none",
+            mec=PALETTE["vermillion"],
+            mew=2,
+            label="peak",
+        )
+        ax.plot(
+            m["valley_voltage_v"],
+            m["valley_current_density_a_cm2"] / 1e3,
+            "s",
+            ms=9,
+            mfc="none",
+            mec=PALETTE["green"],
+            mew=2,
+            label="valley",
+        )
         ax.annotate(
             f"$J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['peak_voltage_v'] * 1e3:.0f} mV\n"
             f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['valley_voltage_v'] * 1e3:.0f} mV\n"
-            f"PVCR = {m['pvcr']:.1f}" if m["pvcr"] is not None else "PVCR undefined (valley current <= 0)",
-            xy=(0.03, 0.97), xycoords="axes fraction", va="top", fontsize=10,
+            f"PVCR = {m['pvcr']:.1f}"
+            if m["pvcr"] is not None
+            else "PVCR undefined (valley current <= 0)",
+            xy=(0.03, 0.97),
+            xycoords="axes fraction",
+            va="top",
+            fontsize=10,
             bbox={"boxstyle": "round", "fc": "white", "ec": "0.7"},
         )
     else:
@@ -108,21 +136,56 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
         layer = stack.layers[idx]
         if layer.conduction_band_ev > stack.layers[0].conduction_band_ev + 0.05:
             ax.axvspan(z0, z1, color=PALETTE["sky"], alpha=0.25, lw=0)
-        ax.text(0.5 * (z0 + z1), top * 1.04 + 0.02, f"{layer.name}\n{layer.label}", ha="center",
-                va="bottom", fontsize=7, rotation=90)
+        ax.text(
+            0.5 * (z0 + z1),
+            top * 1.04 + 0.02,
+            f"{layer.name}\n{layer.label}",
+            ha="center",
+            va="bottom",
+            fontsize=7,
+            rotation=90,
+        )
     mu_e, mu_c = (float(x[0]) for x in contact_fermi_levels_ev(table))
-    ax.hlines(mu_e, -CONTACT_DRAW_NM, 0, colors=PALETTE["orange"], linestyles="--", lw=2, label="Fermi levels")
-    ax.hlines(edge[-1] + mu_c, length, length + CONTACT_DRAW_NM, colors=PALETTE["orange"], linestyles="--", lw=2)
-    res = find_resonances(profile, energy_min_ev=max(0.0, float(edge[-1])) - 0.3, energy_max_ev=top, n_max=4)
-    barrier_z = [(z0, z1) for z0, z1, idx in _layer_spans(stack)
-                 if stack.layers[idx].conduction_band_ev > stack.layers[0].conduction_band_ev + 0.05]
+    ax.hlines(
+        mu_e,
+        -CONTACT_DRAW_NM,
+        0,
+        colors=PALETTE["orange"],
+        linestyles="--",
+        lw=2,
+        label="Fermi levels",
+    )
+    ax.hlines(
+        edge[-1] + mu_c,
+        length,
+        length + CONTACT_DRAW_NM,
+        colors=PALETTE["orange"],
+        linestyles="--",
+        lw=2,
+    )
+    res = find_resonances(
+        profile, energy_min_ev=max(0.0, float(edge[-1])) - 0.3, energy_max_ev=top, n_max=4
+    )
+    barrier_z = [
+        (z0, z1)
+        for z0, z1, idx in _layer_spans(stack)
+        if stack.layers[idx].conduction_band_ev > stack.layers[0].conduction_band_ev + 0.05
+    ]
     w0, w1 = (barrier_z[0][1], barrier_z[-1][0]) if len(barrier_z) >= 2 else (0.0, length)
     order = np.argsort(res.energy_ev)
     for n, k in enumerate([k for k in order if res.valid[k]], start=1):
         e_r, g = float(res.energy_ev[k]), float(res.width_ev[k])
-        ax.hlines(e_r, w0, w1, colors=PALETTE["vermillion"], lw=2, label="resonances" if n == 1 else None)
-        ax.text(w1 + 0.2, e_r, f"E{n} = {e_r * 1e3:.0f} meV, Γ = {_fmt_energy(g)}", fontsize=8,
-                va="center", color=PALETTE["vermillion"])
+        ax.hlines(
+            e_r, w0, w1, colors=PALETTE["vermillion"], lw=2, label="resonances" if n == 1 else None
+        )
+        ax.text(
+            w1 + 0.2,
+            e_r,
+            f"E{n} = {e_r * 1e3:.0f} meV, Γ = {_fmt_energy(g)}",
+            fontsize=8,
+            va="center",
+            color=PALETTE["vermillion"],
+        )
     ax.set_xlabel("position (nm)")
     ax.set_ylabel("energy from emitter band edge (eV)")
     ax.set_xlim(-CONTACT_DRAW_NM, length + CONTACT_DRAW_NM)
@@ -154,7 +217,9 @@ def transmission_figure(stack: Stack, biases_v: list[float], *, title: str = "")
         e = np.concatenate([energy, res.energy_ev[0, b][res.valid[0, b]]])
         tt = np.concatenate([t[b], res.peak_transmission[0, b][res.valid[0, b]]])
         o = np.argsort(e)
-        ax.semilogy(e[o] * 1e3, np.maximum(tt[o], 1e-30), color=color, lw=1.6, label=f"{bias * 1e3:.0f} mV")
+        ax.semilogy(
+            e[o] * 1e3, np.maximum(tt[o], 1e-30), color=color, lw=1.6, label=f"{bias * 1e3:.0f} mV"
+        )
     ax.set_xlabel("energy from emitter band edge (meV)")
     ax.set_ylabel("transmission T(E)")
     ax.set_ylim(bottom=max(1e-20, float(np.nanmin(np.maximum(t, 1e-20)))), top=2.0)
@@ -163,7 +228,9 @@ def transmission_figure(stack: Stack, biases_v: list[float], *, title: str = "")
     return fig
 
 
-def iv_figures(stack: Stack, curves: IVCurves, out_dir, *, i: int = 0, prefix: str = "") -> dict[str, str]:
+def iv_figures(
+    stack: Stack, curves: IVCurves, out_dir, *, i: int = 0, prefix: str = ""
+) -> dict[str, str]:
     """Write the three standard figures of one design; returns ``{name: path}``."""
     from pathlib import Path
 
@@ -174,7 +241,11 @@ def iv_figures(stack: Stack, curves: IVCurves, out_dir, *, i: int = 0, prefix: s
     peak = m["peak_voltage_v"] if m["peak_voltage_v"] is not None else float(curves.bias_v[-1]) / 2
     paths = {
         "iv": save_figure(iv_figure(curves, i), out / f"{prefix}iv.png"),
-        "band_diagram": save_figure(band_diagram_figure(stack, peak), out / f"{prefix}band_diagram.png"),
-        "transmission": save_figure(transmission_figure(stack, [0.0, peak]), out / f"{prefix}transmission.png"),
+        "band_diagram": save_figure(
+            band_diagram_figure(stack, peak), out / f"{prefix}band_diagram.png"
+        ),
+        "transmission": save_figure(
+            transmission_figure(stack, [0.0, peak]), out / f"{prefix}transmission.png"
+        ),
     }
     return {k: str(v) for k, v in paths.items()}

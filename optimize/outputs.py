@@ -8,8 +8,9 @@ import json
 import math
 import os
 import tempfile
+from collections.abc import Iterable
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
 
 __all__ = ["atomic_write_text", "write_json", "write_csv", "save_figure", "json_ready"]
 

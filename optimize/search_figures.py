@@ -15,6 +15,7 @@ import numpy as np
 from matplotlib.figure import Figure
 from optuna.trial import FrozenTrial
 
+from .figures import PALETTE
 from .outputs import save_figure
 from .study import Study
 
@@ -29,16 +30,7 @@ __all__ = [
     "OKABE_ITO",
 ]
 
-OKABE_ITO = {
-    "black": "#000000",
-    "orange": "#E69F00",
-    "sky": "#56B4E9",
-    "green": "#009E73",
-    "yellow": "#F0E442",
-    "blue": "#0072B2",
-    "vermillion": "#D55E00",
-    "purple": "#CC79A7",
-}
+OKABE_ITO = PALETTE  # one palette for every figure: optimize.figures.PALETTE
 
 
 def metric_axis(metric: str) -> tuple[str, float]:

@@ -13,18 +13,11 @@ from typing import Any
 
 import numpy as np
 
+from .figures import PALETTE
+
 __all__ = ["save_all", "OKABE_ITO"]
 
-OKABE_ITO = {
-    "orange": "#E69F00",
-    "sky": "#56B4E9",
-    "green": "#009E73",
-    "yellow": "#F0E442",
-    "blue": "#0072B2",
-    "vermillion": "#D55E00",
-    "purple": "#CC79A7",
-    "black": "#000000",
-}
+OKABE_ITO = PALETTE  # one palette for every figure: optimize.figures.PALETTE
 #: display factor and label of each figure of merit
 DISPLAY = {
     "peak_current_density_a_cm2": (1e-3, "peak current density (kA/cm$^2$)"),

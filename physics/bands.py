@@ -13,7 +13,6 @@ emitter contact sits at 0 and, under bias ``V``, the collector at ``-V``.
 from __future__ import annotations
 
 from dataclasses import dataclass
-
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -106,6 +105,7 @@ class Profile:
 
     def take(self, index) -> Profile:
         """Select along the batch axes, e.g. ``profile.take((0, 3))`` for stack 0, bias 3."""
+
         def sel(a: np.ndarray) -> np.ndarray:
             return np.broadcast_to(a, self.batch_shape + a.shape[-1:])[index]
 
@@ -135,7 +135,9 @@ def slice_grid(table: LayerTable, *, slice_nm: float = 0.25) -> SliceGrid:
     """
     thick = table.thickness_nm[:, 1:-1]
     counts = np.maximum(1, np.ceil(thick.max(axis=0) / slice_nm - 1e-9).astype(int))
-    layer_index = np.concatenate([[0], np.repeat(np.arange(1, table.n_layers - 1), counts), [table.n_layers - 1]])
+    layer_index = np.concatenate(
+        [[0], np.repeat(np.arange(1, table.n_layers - 1), counts), [table.n_layers - 1]]
+    )
     width = np.repeat(thick / counts, counts, axis=1)
     n_stacks = table.n_stacks
     width = np.concatenate([np.zeros((n_stacks, 1)), width, np.zeros((n_stacks, 1))], axis=1)
@@ -144,7 +146,9 @@ def slice_grid(table: LayerTable, *, slice_nm: float = 0.25) -> SliceGrid:
     return SliceGrid(layer_index=layer_index, width_nm=width, center_nm=center)
 
 
-def linear_drop_ev(grid: SliceGrid, bias_v: np.ndarray, *, builtin_ev: np.ndarray | float = 0.0) -> np.ndarray:
+def linear_drop_ev(
+    grid: SliceGrid, bias_v: np.ndarray, *, builtin_ev: np.ndarray | float = 0.0
+) -> np.ndarray:
     """Electrostatic potential energy of a bias dropping linearly between the contacts.
 
     Parameters
@@ -165,7 +169,10 @@ def linear_drop_ev(grid: SliceGrid, bias_v: np.ndarray, *, builtin_ev: np.ndarra
     """
     n_stacks = grid.width_nm.shape[0]
     bias = np.asarray(bias_v, float)
-    bias = np.broadcast_to(bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :], (n_stacks, bias.shape[-1] if bias.ndim else 1))
+    bias = np.broadcast_to(
+        bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :],
+        (n_stacks, bias.shape[-1] if bias.ndim else 1),
+    )
     drop = bias + np.broadcast_to(np.asarray(builtin_ev, float), (n_stacks,))[:, None]
     frac = grid.center_nm / grid.length_nm[:, None]
     frac[:, -1] = 1.0

@@ -83,7 +83,11 @@ def _lorentzian_integral(center, width, peak, low, high, supply, n_nodes):
     ``width``, ``peak`` are ``batch + (n_res,)``; ``low``, ``high`` ``batch``;
     ``supply`` maps energies ``batch + (n_res, n)`` to the supply function.
     """
-    nodes, weights = (_GL_NODES, _GL_WEIGHTS) if n_nodes == _GL_NODES.size else np.polynomial.legendre.leggauss(n_nodes)
+    nodes, weights = (
+        (_GL_NODES, _GL_WEIGHTS)
+        if n_nodes == _GL_NODES.size
+        else np.polynomial.legendre.leggauss(n_nodes)
+    )
     half = 0.5 * width
     s_a = np.arcsinh((low[..., None] - center) / half)
     s_b = np.arcsinh((high[..., None] - center) / half)

@@ -42,7 +42,13 @@ from .resonances import local_peaks, refine_peaks
 from .stack import LayerTable
 from .transmission import transmission
 
-__all__ = ["EnergyGrid", "current_density_a_cm2", "contact_fermi_levels_ev", "supply_function_ev", "energy_window_ev"]
+__all__ = [
+    "EnergyGrid",
+    "current_density_a_cm2",
+    "contact_fermi_levels_ev",
+    "supply_function_ev",
+    "energy_window_ev",
+]
 
 #: e^3 m0 / (2 pi^2 hbar^3), A m^-2 eV^-2: J = this * m_E/m0 * int T S dE with S, E in eV.
 TSU_ESAKI_A_M2_EV2 = ELEMENTARY_CHARGE_C**3 * ELECTRON_MASS_KG / (2.0 * np.pi**2 * HBAR_J_S**3)
@@ -76,7 +82,9 @@ def supply_function_ev(energy_ev, mu_emitter_ev, mu_collector_ev, kt_ev):
     )
 
 
-def energy_window_ev(profile: Profile, mu_emitter_ev, bias_v, kt_ev) -> tuple[np.ndarray, np.ndarray]:
+def energy_window_ev(
+    profile: Profile, mu_emitter_ev, bias_v, kt_ev
+) -> tuple[np.ndarray, np.ndarray]:
     """Integration window ``(low, high)``, batch-shaped, eV from the emitter edge."""
     collector_edge = profile.edge_ev[..., -1]
     low = np.maximum(0.0, collector_edge)
@@ -112,7 +120,9 @@ def _resonance_intervals(center, width, spacing, low, high):
         cut = 0.5 * (center[..., r] + center[..., r + 1])
         overlap = b[..., r] > a[..., r + 1]
         b[..., r] = np.where(overlap, np.maximum(np.minimum(b[..., r], cut), a[..., r]), b[..., r])
-        a[..., r + 1] = np.where(overlap, np.minimum(np.maximum(a[..., r + 1], cut), b[..., r + 1]), a[..., r + 1])
+        a[..., r + 1] = np.where(
+            overlap, np.minimum(np.maximum(a[..., r + 1], cut), b[..., r + 1]), a[..., r + 1]
+        )
     return a, np.maximum(a, b)
 
 
@@ -122,7 +132,9 @@ def _resonance_rule(center, width, a, b, n):
     A Lorentzian becomes (G/2) sech(s) ds, smooth on any scale, so the rule
     resolves a resonance of any width with a fixed number of nodes.
     """
-    nodes, weights = np.polynomial.legendre.leggauss(n) if n != _GL_NODES.size else (_GL_NODES, _GL_WEIGHTS)
+    nodes, weights = (
+        np.polynomial.legendre.leggauss(n) if n != _GL_NODES.size else (_GL_NODES, _GL_WEIGHTS)
+    )
     half = 0.5 * width
     s_a = np.arcsinh((a - center) / half)
     s_b = np.arcsinh((b - center) / half)
@@ -187,8 +199,15 @@ def current_density_a_cm2(
         index, valid = local_peaks(t_coarse, n_cand)
         guess = np.take_along_axis(coarse, index, axis=-1)
         spacing = np.take_along_axis(np.gradient(coarse, axis=-1), index, axis=-1)
-        center, width, peak = refine_peaks(guess, 0.5 * spacing, profile=profile, iterations=grid.refine_iterations)
-        valid &= np.isfinite(width) & (width > 0) & (center > low[..., None]) & (center < high[..., None])
+        center, width, peak = refine_peaks(
+            guess, 0.5 * spacing, profile=profile, iterations=grid.refine_iterations
+        )
+        valid &= (
+            np.isfinite(width)
+            & (width > 0)
+            & (center > low[..., None])
+            & (center < high[..., None])
+        )
         share = np.abs(supply_function_ev(center, mu_e[..., None], mu_c[..., None], kt[..., None]))
         share = np.where(valid, np.nan_to_num(peak * width * share), -1.0)
         keep = np.argsort(-share, axis=-1)[..., : grid.n_resonances]
@@ -227,7 +246,9 @@ def current_density_a_cm2(
             valid=valid,
             low_ev=low,
             high_ev=high,
-            supply=lambda e: supply_function_ev(e, mu_e[..., None, None], mu_c[..., None, None], kt[..., None, None]),
+            supply=lambda e: supply_function_ev(
+                e, mu_e[..., None, None], mu_c[..., None, None], kt[..., None, None]
+            ),
             broadening_ev=broadening_ev,
         )
     mass_e = table.mass_m0[:, 0][:, None]

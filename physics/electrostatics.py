@@ -19,20 +19,33 @@ with the emitter's quasi-Fermi level ``mu_E`` on the emitter side of the
 middle of the barrier region and the collector's ``mu_C = mu_E - qV`` on the
 collector side. Inside the barrier region (first barrier to last barrier,
 a barrier being a layer whose edge is more than :data:`BARRIER_EV` above both
-contacts) no free charge is counted: the well's charge is not modelled in
-this version, so there is no charge-induced bistability yet. Boundary
-conditions at the far ends of the contact regions are Dirichlet values of
-bulk charge neutrality (emitter edge at 0, collector edge at
+contacts) no Thomas-Fermi charge is counted; instead the electrons stored in
+the quasi-bound states (:func:`well_sheet_density_cm2`, a simple documented
+estimate) are spread uniformly over the well slices, iterated to
+self-consistency around the Poisson solve (``well_charge=True``, default).
+Boundary conditions at the far ends of the contact regions are Dirichlet
+values of bulk charge neutrality (emitter edge at 0, collector edge at
 ``mu_E - mu_C - V``), the same as the linear model's end points; the field
 there is then close to zero when the contact regions are long enough
 (checked by the tests).
 
-The nonlinear system is solved by Newton's method with a tridiagonal
+The nonlinear Poisson system is solved by Newton's method with a tridiagonal
 Jacobian (:func:`scipy.linalg.solve_banded`), each step scaled down so that
 no node moves by more than :data:`MAX_STEP_EV` (damping), from the linear
 drop or a given start; it stops when the largest update is below
 ``tolerance_ev`` and raises :class:`ElectrostaticsConvergenceError`
-after ``max_iterations``.
+after ``max_iterations``. The well charge is a scalar per (stack, bias),
+found as the root of ``F(n_w) - n_w`` by a bracketed secant / bisection
+iteration that also raises that error after ``max_well_iterations``.
+
+Known limits: the quasi-bound states are detected on a coarse grid of
+``T(E)``, so ``F`` can jump when a peak appears or disappears from detection;
+such a jump is accepted as the fixed point to the bracket width. With the
+charge estimate used here the stored charge vanishes as a state reaches the
+injecting band edge, so the shift of the peak voltage by the stored charge is
+small and no bistability is resolved for the demo stack on a 50 mV grid.
+:func:`physics.iv.current_at_bias` solves every bias from the linear drop, so
+in a bistable range it reports one branch; :func:`sweep_hysteresis` gives both.
 
 The resulting potential, including the band bending in both contact
 regions (accumulation in front of the emitter barrier, depletion behind the
@@ -195,7 +208,12 @@ def solve_poisson_1d(
     mask = np.broadcast_to(electron_mask, shape)
     fixed = np.broadcast_to(np.asarray(fixed_electron_cm3, float) * 1e6, shape)
     kt = np.broadcast_to(BOLTZMANN_EV_K * np.asarray(temperature_k, float), batch)[..., None]
-    nc = effective_density_of_states_cm3(np.broadcast_to(mass_m0, shape), np.broadcast_to(kt / BOLTZMANN_EV_K, shape)) * 1e6
+    nc = (
+        effective_density_of_states_cm3(
+            np.broadcast_to(mass_m0, shape), np.broadcast_to(kt / BOLTZMANN_EV_K, shape)
+        )
+        * 1e6
+    )
     # conductance between neighbouring centres: 1/G = (w_i/2)/eps_i + (w_i+1/2)/eps_i+1
     resist = 0.5 * w[..., :-1] / eps[..., :-1] + 0.5 * w[..., 1:] / eps[..., 1:]
     if np.any(resist <= 0):
@@ -214,7 +232,9 @@ def solve_poisson_1d(
     for iteration in range(1, max_iterations + 1):
         n, dn_du = density(u)
         flux = g * np.diff(u, axis=-1)  # C/m^2 (U in V-equivalent eV)
-        residual = flux[..., 1:] - flux[..., :-1] - q * w[..., 1:-1] * (donors[..., 1:-1] - n[..., 1:-1])
+        residual = (
+            flux[..., 1:] - flux[..., :-1] - q * w[..., 1:-1] * (donors[..., 1:-1] - n[..., 1:-1])
+        )
         diag = -(g[..., 1:] + g[..., :-1]) + q * w[..., 1:-1] * dn_du[..., 1:-1]
         upper = g[..., 1:-1]  # coupling i -> i+1 for interior rows
         lower = g[..., 1:-1]
@@ -233,7 +253,9 @@ def solve_poisson_1d(
         u[..., 1:-1] += scale * step
         worst = float(np.max(biggest)) if biggest.size else 0.0
         if not np.isfinite(worst):
-            raise ElectrostaticsConvergenceError(f"Poisson-Newton iteration diverged (non-finite update) at step {iteration}")
+            raise ElectrostaticsConvergenceError(
+                f"Poisson-Newton iteration diverged (non-finite update) at step {iteration}"
+            )
         if worst < tolerance_ev:
             n, _ = density(u)
             return PoissonSolution(potential_ev=u, electron_cm3=n * 1e-6, iterations=iteration)
@@ -259,7 +281,15 @@ def extended_slice_grid(
     """
     base = slice_grid(table, slice_nm=slice_nm)
     # graded: contact_slice_nm next to the stack, growing by CONTACT_GRADING per slice
-    n_ext = max(1, int(np.ceil(np.log1p(contact_nm * (CONTACT_GRADING - 1.0) / contact_slice_nm) / np.log(CONTACT_GRADING))))
+    n_ext = max(
+        1,
+        int(
+            np.ceil(
+                np.log1p(contact_nm * (CONTACT_GRADING - 1.0) / contact_slice_nm)
+                / np.log(CONTACT_GRADING)
+            )
+        ),
+    )
     w_near = CONTACT_GRADING ** np.arange(n_ext)
     w_near *= contact_nm / w_near.sum()  # nearest the stack first
     n_stacks = table.n_stacks
@@ -290,7 +320,11 @@ def _barrier_region(table: LayerTable, grid: SliceGrid) -> tuple[np.ndarray, np.
         idx = np.nonzero(is_barrier[s])[0]
         if idx.size == 0:
             interior = (li > 0) & (li < table.n_layers - 1)
-            split[s] = 0.5 * (grid.center_nm[s, interior].min() + grid.center_nm[s, interior].max()) if interior.any() else 0.0
+            split[s] = (
+                0.5 * (grid.center_nm[s, interior].min() + grid.center_nm[s, interior].max())
+                if interior.any()
+                else 0.0
+            )
             continue
         inside[s] = (li >= idx[0]) & (li <= idx[-1])
         pos = grid.center_nm[s, inside[s]]
@@ -339,16 +373,25 @@ def solve_stack_poisson(
         The extended slice grid and the potential on its nodes,
         ``(n_stacks, n_biases, n_nodes)``.
     """
-    grid = extended_slice_grid(table, slice_nm=slice_nm, contact_nm=contact_nm, contact_slice_nm=contact_slice_nm)
+    grid = extended_slice_grid(
+        table, slice_nm=slice_nm, contact_nm=contact_nm, contact_slice_nm=contact_slice_nm
+    )
     n_stacks = table.n_stacks
     bias = np.asarray(bias_v, float)
-    bias = np.broadcast_to(bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :], (n_stacks, np.atleast_1d(bias).shape[-1]))
+    bias = np.broadcast_to(
+        bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :],
+        (n_stacks, np.atleast_1d(bias).shape[-1]),
+    )
     li = grid.layer_index
     mu_e = fermi_level_ev(table.doping_cm3[:, 0], table.mass_m0[:, 0], table.temperature_k)
-    right = -(bias + builtin_offset_ev(table)[:, None])  # collector potential, as in the linear model
+    right = -(
+        bias + builtin_offset_ev(table)[:, None]
+    )  # collector potential, as in the linear model
     inside, split = _barrier_region(table, grid)
     emitter_side = grid.center_nm < split[:, None]
-    fermi = np.where(emitter_side[:, None, :], mu_e[:, None, None], (mu_e[:, None] - bias)[:, :, None])
+    fermi = np.where(
+        emitter_side[:, None, :], mu_e[:, None, None], (mu_e[:, None] - bias)[:, :, None]
+    )
     offset = (table.edge_ev - table.edge_ev[:, :1])[:, li]
     if initial_ev is None:
         length = grid.center_nm[:, -1] - grid.center_nm[:, 0] - 2.0 * contact_nm
@@ -359,7 +402,9 @@ def solve_stack_poisson(
 
     def poisson(start, well_cm2):
         fixed = np.where(
-            well_slices[:, None, :], (well_cm2 / np.maximum(well_nm, 1e-9)[:, None] * 1e7)[:, :, None], 0.0
+            well_slices[:, None, :],
+            (well_cm2 / np.maximum(well_nm, 1e-9)[:, None] * 1e7)[:, :, None],
+            0.0,
         )
         return solve_poisson_1d(
             width_nm=grid.width_nm[:, None, :],
@@ -378,12 +423,21 @@ def solve_stack_poisson(
             fixed_electron_cm3=fixed,
         )
 
-    well = np.zeros(bias.shape) if initial_well_cm2 is None else np.broadcast_to(initial_well_cm2, bias.shape).copy()
+    well = (
+        np.zeros(bias.shape)
+        if initial_well_cm2 is None
+        else np.broadcast_to(initial_well_cm2, bias.shape).copy()
+    )
     has_well = np.any(well_nm > 0)
     solution = poisson(initial_ev, well if well_charge and has_well else 0.0 * well)
     if not (well_charge and has_well):
         return grid, replace(solution, well_sheet_cm2=np.zeros(bias.shape))
-    mass_w = np.array([table.mass_m0[s, li[well_slices[s]]].min() if well_slices[s].any() else 1.0 for s in range(n_stacks)])
+    mass_w = np.array(
+        [
+            table.mass_m0[s, li[well_slices[s]]].min() if well_slices[s].any() else 1.0
+            for s in range(n_stacks)
+        ]
+    )
     guess = None
     full = True  # full resonance search (else refine from the last E_1)
     previous = None  # (well, residual) of the last step, for the secant update
@@ -394,13 +448,29 @@ def solve_stack_poisson(
     frozen = np.zeros(bias.shape)
     for outer in range(1, max_well_iterations + 1):
         target, e1 = well_sheet_density_cm2(
-            table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w,
+            table,
+            grid,
+            solution.potential_ev,
+            bias,
+            mu_emitter_ev=mu_e,
+            well_mass_m0=mass_w,
             guess_ev=None if full else guess,
         )
+        if not full and np.any(
+            np.isfinite(guess) & ~np.isfinite(e1)
+        ):  # a state was lost: search again
+            full = True
+            target, e1 = well_sheet_density_cm2(
+                table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w
+            )
         residual = target - well
-        converged = np.all((np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2) | settled)
+        converged = np.all(
+            (np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2) | settled
+        )
         if converged and (full or np.all(np.isfinite(e1))):
-            return grid, replace(solution, well_sheet_cm2=well, iterations=solution.iterations + outer)
+            return grid, replace(
+                solution, well_sheet_cm2=well, iterations=solution.iterations + outer
+            )
         if converged:  # confirm with a full search that no state has entered the window
             full = True
             continue
@@ -425,7 +495,9 @@ def solve_stack_poisson(
         # refined E_1 that lost its peak) -- reopen it once and search in full -- or, if it
         # collapses again, a jump of F (a state appearing at the edge of detection): the
         # fixed point is the jump itself, accepted to the bracket width.
-        collapsed = np.isfinite(hi) & ((hi - lo) <= WELL_TOLERANCE * np.abs(hi) + WELL_ABS_CM2) & ~settled
+        collapsed = (
+            np.isfinite(hi) & ((hi - lo) <= WELL_TOLERANCE * np.abs(hi) + WELL_ABS_CM2) & ~settled
+        )
         if np.any(collapsed):
             again = collapsed & reopened
             frozen = np.where(again, 0.5 * (lo + hi), frozen)
@@ -445,27 +517,34 @@ def solve_stack_poisson(
     )
 
 
-def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0, guess_ev=None):
+def well_sheet_density_cm2(
+    table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0, guess_ev=None
+):
     """Estimate of the electron sheet density in the quasi-bound states, cm^-2.
 
-    Each 2D subband ``E_1`` (up to four, found in ``T(E)`` of the current profile by
-    :func:`physics.resonances.find_resonances` between the injecting contact's
-    band edge and ``mu + 12 kT``; their contributions are summed) is fed by the injecting contact (the emitter for ``V >= 0``) at
-    rate ``Gamma_E`` and emptied at ``Gamma``; with the transverse momentum
-    conserved each 2D state at ``E_1 + E_par`` has occupancy
-    ``(Gamma_E / Gamma) f(E_1 + E_par)``, so ([1]_ for the 2D density of states)
+    Each 2D subband ``E_1`` (up to four, found on a 64-point grid of ``T(E)``
+    of the current profile by :func:`physics.resonances.find_resonances`,
+    between the injecting contact's band edge and ``mu + 12 kT``; their
+    contributions are summed) is fed by the injecting contact (the emitter for
+    ``V >= 0``) at rate ``Gamma_E`` and emptied at ``Gamma``; with the
+    transverse momentum conserved each 2D state at ``E_1 + E_par`` has
+    occupancy ``(Gamma_E / Gamma) f(E_1 + E_par)``, so, with the 2D density
+    of states ``m_w / (pi hbar^2)`` (spin included; standard, stated from
+    memory),
 
         n_w = (Gamma_E / Gamma) (m_w kT / (pi hbar^2)) ln(1 + exp((mu - E_1) / kT)).
 
     ``Gamma_E / Gamma`` is taken from the Breit-Wigner peak ``T_p = 4 Gamma_E
-    Gamma_C / Gamma^2`` as the smaller root ``(1 - sqrt(1 - T_p)) / 2``: an
-    assumption (the injecting side is the more opaque one, as near the peak of
-    a symmetric stack under forward bias); a simple estimate, not from a
-    specific publication. Because ``Gamma_E`` vanishes at the injecting
+    Gamma_C / Gamma^2`` (B. Ricco and M. Ya. Azbel, Phys. Rev. B 29, 1970
+    (1984)) as the smaller root ``(1 - sqrt(1 - T_p)) / 2``: an assumption
+    (the injecting side is the more opaque one, as near the peak of a
+    symmetric stack under forward bias). This is a simple estimate, not taken
+    from a specific publication. Because ``Gamma_E`` vanishes at the injecting
     contact's band edge and the Lorentzian fit fails there, the fraction is
-    multiplied by ``1 - exp(-(E_1 - E_edge) / kT)``, a regularisation that keeps
-    the charge continuous as a state crosses the edge. The charge from the collector and from higher
-    subbands above the window is neglected.
+    multiplied by ``1 - exp(-(E_1 - E_edge) / kT)``, a regularisation (a
+    departure) that keeps the charge continuous as a state crosses the edge.
+    The charge supplied by the other contact and that of states above the
+    window are neglected.
 
     ``guess_ev`` (``(n_stacks, n_biases)``, e.g. ``E_1`` of the previous
     iteration) refines from there instead of searching; NaN entries (no
@@ -474,7 +553,7 @@ def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, 
     Returns ``n_w`` ``(n_stacks, n_biases)`` and the states ``E_1``
     ``(n_stacks, n_biases, 4)``, NaN where there is none.
     """
-    from .constants import HBAR_J_S, ELECTRON_MASS_KG
+    from .constants import ELECTRON_MASS_KG, HBAR_J_S
     from .resonances import find_resonances, refine_peaks
 
     profile = profile_from_potential(table, grid, potential_ev)
@@ -487,18 +566,31 @@ def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, 
     if guess_ev is not None:
         known = np.isfinite(guess_ev)
         mid = (0.5 * (edge + top))[..., None]
-        e1, width, tp = refine_peaks(np.where(known, guess_ev, mid), 5e-3, profile=profile, iterations=6)
+        e1, width, tp = refine_peaks(
+            np.where(known, guess_ev, mid), 5e-3, profile=profile, iterations=6
+        )
         ok = known & np.isfinite(width) & (e1 > edge[..., None]) & (e1 < top[..., None])
     else:
-        res = find_resonances(profile, energy_min_ev=edge + 1e-6, energy_max_ev=top, n_coarse=120, n_max=4)
+        res = find_resonances(
+            profile, energy_min_ev=edge + 1e-6, energy_max_ev=top, n_coarse=64, n_max=4
+        )
         e1, tp, ok = res.energy_ev, res.peak_transmission, res.valid
     e1 = np.where(ok, e1, np.nan)
     tp = np.where(ok, tp, 0.0)
     fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.clip(tp, 0.0, 1.0)))
     # regularisation (a departure): the Lorentzian fit is unreliable for a state at the
     # injecting edge, where Gamma_E vanishes; switch the occupancy on over the first kT
-    fraction = fraction * -np.expm1(-np.maximum(np.where(ok, e1, 0.0) - edge[..., None], 0.0) / kt[..., None])
-    n2d_cm2 = (well_mass_m0[:, None] * ELECTRON_MASS_KG * kt * ELEMENTARY_CHARGE_C / (np.pi * HBAR_J_S**2) * 1e-4)[..., None]
+    fraction = fraction * -np.expm1(
+        -np.maximum(np.where(ok, e1, 0.0) - edge[..., None], 0.0) / kt[..., None]
+    )
+    n2d_cm2 = (
+        well_mass_m0[:, None]
+        * ELECTRON_MASS_KG
+        * kt
+        * ELEMENTARY_CHARGE_C
+        / (np.pi * HBAR_J_S**2)
+        * 1e-4
+    )[..., None]
     supply = np.logaddexp(0.0, (mu[..., None] - np.where(ok, e1, 0.0)) / kt[..., None])
     return np.sum(np.where(ok, fraction * n2d_cm2 * supply, 0.0), axis=-1), e1
 
@@ -517,7 +609,9 @@ def self_consistent_profile(
     ``(n_stacks, n_biases)``); the profile also contains the contact regions
     as slices. ``options`` go to :func:`solve_stack_poisson`.
     """
-    grid, solution = solve_stack_poisson(table, bias_v, slice_nm=slice_nm, initial_ev=initial_ev, **options)
+    grid, solution = solve_stack_poisson(
+        table, bias_v, slice_nm=slice_nm, initial_ev=initial_ev, **options
+    )
     return profile_from_potential(table, grid, solution.potential_ev)
 
 
@@ -530,7 +624,9 @@ class HysteresisCurves:
     down_a_cm2: np.ndarray
 
 
-def sweep_hysteresis(table: LayerTable, bias_v: np.ndarray, *, model=None, grid=None) -> HysteresisCurves:
+def sweep_hysteresis(
+    table: LayerTable, bias_v: np.ndarray, *, model=None, grid=None
+) -> HysteresisCurves:
     """Up and down bias sweeps, each bias started from the previous bias's potential.
 
     With ``model.electrostatics == "linear"`` both branches are the same
@@ -556,7 +652,11 @@ def sweep_hysteresis(table: LayerTable, bias_v: np.ndarray, *, model=None, grid=
         potentials = [None] * bias.size
         for i in order:
             g, sol = solve_stack_poisson(
-                table, bias[i : i + 1], slice_nm=model.slice_nm, initial_ev=previous, initial_well_cm2=previous_well
+                table,
+                bias[i : i + 1],
+                slice_nm=model.slice_nm,
+                initial_ev=previous,
+                initial_well_cm2=previous_well,
             )
             previous, previous_well = sol.potential_ev, sol.well_sheet_cm2
             potentials[i] = sol.potential_ev

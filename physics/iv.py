@@ -66,7 +66,9 @@ class IVCurves:
 
     def metrics_of(self, i: int = 0) -> dict[str, float | None]:
         """Metrics of stack ``i`` as plain floats, ``None`` for NaN (JSON-ready)."""
-        return {k: (None if not np.isfinite(v[i]) else float(v[i])) for k, v in self.metrics.items()}
+        return {
+            k: (None if not np.isfinite(v[i]) else float(v[i])) for k, v in self.metrics.items()
+        }
 
 
 def current_at_bias(
@@ -98,7 +100,10 @@ def current_at_bias(
 
 def _bias_2d(bias_v, n_stacks: int) -> np.ndarray:
     bias = np.asarray(bias_v, float)
-    return np.broadcast_to(bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :], (n_stacks, np.shape(np.atleast_1d(bias))[-1]))
+    return np.broadcast_to(
+        bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :],
+        (n_stacks, np.shape(np.atleast_1d(bias))[-1]),
+    )
 
 
 def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -246,11 +251,15 @@ def sweep(
     return IVCurves(bias, j, metrics)
 
 
-def stack_iv(stack: Stack, bias_v: np.ndarray, *, grid: EnergyGrid = EnergyGrid(), refine: bool = True) -> IVCurves:
+def stack_iv(
+    stack: Stack, bias_v: np.ndarray, *, grid: EnergyGrid = EnergyGrid(), refine: bool = True
+) -> IVCurves:
     """I-V sweep of one stack (``n_stacks = 1``) with the stack's own model options."""
     return sweep(stack.table(), bias_v, model=stack.model, grid=grid, refine=refine)
 
 
-def external_bias_v(bias_v: np.ndarray, current_density_a_cm2: np.ndarray, series_resistance_ohm_um2: float) -> np.ndarray:
+def external_bias_v(
+    bias_v: np.ndarray, current_density_a_cm2: np.ndarray, series_resistance_ohm_um2: float
+) -> np.ndarray:
     """Terminal bias with a series resistance: ``V_ext = V + J R`` (R in ohm um^2, J in A/cm^2)."""
     return np.asarray(bias_v) + np.asarray(current_density_a_cm2) * series_resistance_ohm_um2 * 1e-8

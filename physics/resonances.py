@@ -48,7 +48,9 @@ class Resonances:
         return HBAR_EV_FS / self.width_ev
 
 
-def local_peaks(values: np.ndarray, n_max: int, *, weight: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+def local_peaks(
+    values: np.ndarray, n_max: int, *, weight: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Indices of the ``n_max`` highest interior local maxima of ``values`` along the last axis.
 
     Parameters
@@ -120,7 +122,9 @@ def refine_peaks(
         shift = np.where(good, -slope / (2.0 * np.where(good, curv, 1.0)), 0.0)
         shift = np.clip(shift, -2.0, 2.0)  # stay near the points that were fitted
         y_min = y[..., 1] - 0.25 * slope**2 / np.where(good, curv, 1.0)
-        half_width = np.where(good & (y_min > 0), step * np.sqrt(np.abs(y_min / np.where(good, curv, 1.0))), np.nan)
+        half_width = np.where(
+            good & (y_min > 0), step * np.sqrt(np.abs(y_min / np.where(good, curv, 1.0))), np.nan
+        )
         center = center + shift * step
         width = 2.0 * half_width
         peak = np.where(good & (y_min > 0), 1.0 / y_min, t[..., 1])

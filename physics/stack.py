@@ -192,7 +192,9 @@ class LayerTable:
     @classmethod
     def concatenate(cls, tables: list[LayerTable]) -> LayerTable:
         """Rows of several tables (same layer count) in one."""
-        return cls(**{k: np.concatenate([t.__dict__[k] for t in tables]) for k in cls.__dataclass_fields__})
+        return cls(
+            **{k: np.concatenate([t.__dict__[k] for t in tables]) for k in cls.__dataclass_fields__}
+        )
 
 
 # --------------------------------------------------------------------------- parsing
@@ -225,7 +227,9 @@ def _typed(value: Any, kind: type, *, source: str, layer: int | None, key: str) 
     """Check one value's type (ints are accepted for floats, bools are not)."""
     if kind is float:
         if isinstance(value, bool) or not isinstance(value, int | float):
-            raise InputError(f"must be a number, got {value!r}", source=source, layer=layer, key=key)
+            raise InputError(
+                f"must be a number, got {value!r}", source=source, layer=layer, key=key
+            )
         value = float(value)
         if not math.isfinite(value):
             raise InputError(f"must be finite, got {value!r}", source=source, layer=layer, key=key)
@@ -244,7 +248,9 @@ def _table(data: Any, allowed: dict[str, type], *, source: str, name: str) -> di
     for key, value in data.items():
         if key not in allowed:
             raise InputError(
-                f"unknown key; allowed: {', '.join(sorted(allowed))}", source=source, key=f"{name}.{key}"
+                f"unknown key; allowed: {', '.join(sorted(allowed))}",
+                source=source,
+                key=f"{name}.{key}",
             )
         out[key] = _typed(value, allowed[key], source=source, layer=None, key=f"{name}.{key}")
     return out
@@ -269,12 +275,18 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
         raise InputError("stack must be a table", source=source)
     for key in data:
         if key not in TOP_KEYS:
-            raise InputError(f"unknown key; allowed: {', '.join(sorted(TOP_KEYS))}", source=source, key=key)
+            raise InputError(
+                f"unknown key; allowed: {', '.join(sorted(TOP_KEYS))}", source=source, key=key
+            )
 
-    temperature_k = _typed(data.get("temperature_k", 300.0), float, source=source, layer=None, key="temperature_k")
+    temperature_k = _typed(
+        data.get("temperature_k", 300.0), float, source=source, layer=None, key="temperature_k"
+    )
     lo, hi = TEMPERATURE_RANGE_K
     if not lo <= temperature_k <= hi:
-        raise InputError(f"{temperature_k:g} outside [{lo:g}, {hi:g}] K", source=source, key="temperature_k")
+        raise InputError(
+            f"{temperature_k:g} outside [{lo:g}, {hi:g}] K", source=source, key="temperature_k"
+        )
 
     model = ModelOptions(**_table(data.get("model", {}), MODEL_KEYS, source=source, name="model"))
     if model.electrostatics not in ELECTROSTATICS_MODELS:
@@ -288,13 +300,23 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
             "only 'linear' is available in this version", source=source, key="model.electrostatics"
         )
     if not 0.0 <= model.broadening_mev <= 100.0:
-        raise InputError(f"{model.broadening_mev:g} outside [0, 100] meV", source=source, key="model.broadening_mev")
+        raise InputError(
+            f"{model.broadening_mev:g} outside [0, 100] meV",
+            source=source,
+            key="model.broadening_mev",
+        )
     if not 0.01 <= model.slice_nm <= 2.0:
-        raise InputError(f"{model.slice_nm:g} outside [0.01, 2] nm", source=source, key="model.slice_nm")
+        raise InputError(
+            f"{model.slice_nm:g} outside [0.01, 2] nm", source=source, key="model.slice_nm"
+        )
 
-    device = DeviceOptions(**_table(data.get("device", {}), DEVICE_KEYS, source=source, name="device"))
+    device = DeviceOptions(
+        **_table(data.get("device", {}), DEVICE_KEYS, source=source, name="device")
+    )
     if device.area_um2 is not None and not 0.0 < device.area_um2 <= 1e8:
-        raise InputError(f"{device.area_um2:g} outside (0, 1e8] um^2", source=source, key="device.area_um2")
+        raise InputError(
+            f"{device.area_um2:g} outside (0, 1e8] um^2", source=source, key="device.area_um2"
+        )
     if not 0.0 <= device.series_resistance_ohm_um2 <= 1e6:
         raise InputError(
             f"{device.series_resistance_ohm_um2:g} outside [0, 1e6] ohm um^2",
@@ -381,7 +403,10 @@ def _parse_layer(
         values[key] = _typed(value, LAYER_KEYS[key], source=source, layer=index, key=key)
 
     if "material" not in values:
-        raise err("missing; give a material name such as 'GaAs' or 'In0.53Ga0.47As', or 'custom'", "material")
+        raise err(
+            "missing; give a material name such as 'GaAs' or 'In0.53Ga0.47As', or 'custom'",
+            "material",
+        )
     default_name = "emitter" if index == 0 else ("collector" if is_contact else f"layer{index}")
     name = values.get("name", default_name)
 
@@ -405,7 +430,9 @@ def _parse_layer(
         try:
             material, x = materials.parse_material(values["material"], values.get("x"))
         except ValueError as exc:
-            raise err(str(exc), "x" if "x" in values and "allowed range" in str(exc) else "material") from None
+            raise err(
+                str(exc), "x" if "x" in values and "allowed range" in str(exc) else "material"
+            ) from None
         params = materials.material_parameters(
             material,
             x,
@@ -435,7 +462,9 @@ def _parse_layer(
     if not 0.0 <= doping <= MAX_DOPING_CM3:
         raise err(f"{doping:g} outside [0, {MAX_DOPING_CM3:g}] cm^-3", "doping_cm3")
     if is_contact and doping <= 0.0:
-        raise err("contacts must be n-doped; give doping_cm3 > 0 (typically 1e17 to 5e18)", "doping_cm3")
+        raise err(
+            "contacts must be n-doped; give doping_cm3 > 0 (typically 1e17 to 5e18)", "doping_cm3"
+        )
 
     # thickness
     has_ml, has_nm = "thickness_ml" in values, "thickness_nm" in values

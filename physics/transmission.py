@@ -46,7 +46,6 @@ __all__ = ["transmission", "wave_numbers_per_nm"]
 _MIN_MASS_FACTOR = 0.5
 
 
-
 def wave_numbers_per_nm(
     energy_ev: np.ndarray, edge_ev: np.ndarray, mass_m0: np.ndarray, alpha_per_ev: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:

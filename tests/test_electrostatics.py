@@ -5,15 +5,14 @@ Each check names its source or says "common practice".
 
 from __future__ import annotations
 
-from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from physics.constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, VACUUM_PERMITTIVITY_F_M
 from physics.bands import linear_profile
-from physics.broadening import broadening_correction, broadened_peak
+from physics.broadening import broadened_peak, broadening_correction
+from physics.constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, VACUUM_PERMITTIVITY_F_M
 from physics.current import current_density_a_cm2
 from physics.electrostatics import (
     ElectrostaticsConvergenceError,
@@ -24,12 +23,14 @@ from physics.electrostatics import (
 )
 from physics.fermi import fermi_dirac_half, fermi_level_ev
 from physics.iv import current_at_bias, stack_iv, sweep
-from physics.stack import LayerTable, load_stack, parse_stack
+from physics.stack import load_stack, parse_stack
 
 STUDY = Path(__file__).resolve().parents[1] / "studies" / "gaas_low_power_memory.toml"
 
 
-def _stack_dict(*, collector_spacer_nm=10.0, electrostatics="linear", broadening_mev=0.0, doping=1e18):
+def _stack_dict(
+    *, collector_spacer_nm=10.0, electrostatics="linear", broadening_mev=0.0, doping=1e18
+):
     """Invented GaAs/AlAs double-barrier stack (like the demo study), for tests."""
     return {
         "temperature_k": 300,
@@ -101,7 +102,9 @@ def test_fast_fermi_integral_matches_quadrature():
     f, df = _fermi_half_and_derivative(eta)
     np.testing.assert_allclose(f, fermi_dirac_half(eta), rtol=1e-8)
     h = 1e-4
-    np.testing.assert_allclose(df, (fermi_dirac_half(eta + h) - fermi_dirac_half(eta - h)) / (2 * h), rtol=1e-6)
+    np.testing.assert_allclose(
+        df, (fermi_dirac_half(eta + h) - fermi_dirac_half(eta - h)) / (2 * h), rtol=1e-6
+    )
 
 
 def test_poisson_matches_depletion_approximation():
@@ -133,14 +136,18 @@ def test_poisson_matches_depletion_approximation():
     w_sze = np.sqrt(2 * eps * (v_b - kt) / (ELEMENTARY_CHARGE_C * n_d * 1e6))
     q_sze = ELEMENTARY_CHARGE_C * n_d * 1e6 * w_sze
     q_num = ELEMENTARY_CHARGE_C * np.sum(width * 1e-9 * (n_d - sol.electron_cm3[0]) * 1e6)
-    assert q_num == pytest.approx(q_sze, rel=5e-3)  # Sze's kT/q term is exact to O(exp(-V/kT)) for Boltzmann
+    assert q_num == pytest.approx(
+        q_sze, rel=5e-3
+    )  # Sze's kT/q term is exact to O(exp(-V/kT)) for Boltzmann
     # parabolic band bending inside the depleted region, V_b (1 - d/W)^2 (depletion approximation)
     d = (x[-1] - x) * 1e-9
     inside = d < 0.6 * w_sze
     parabola = (v_b - kt) * (1 - d[inside] / w_sze) ** 2 + kt
     np.testing.assert_allclose(sol.potential_ev[0, inside], parabola, atol=0.01)
     # far bulk: flat and neutral (zero field)
-    assert abs(sol.potential_ev[0, : n // 4]).max() < 1e-4  # > 7 Debye lengths (42 nm) from the edge
+    assert (
+        abs(sol.potential_ev[0, : n // 4]).max() < 1e-4
+    )  # > 7 Debye lengths (42 nm) from the edge
 
 
 def test_zero_bias_flat_contacts_and_neutral():
@@ -154,7 +161,11 @@ def test_zero_bias_flat_contacts_and_neutral():
     net = np.sum(grid.width_nm[0] * (donors - sol.electron_cm3[0, 0]))
     total = np.sum(grid.width_nm[0] * donors)
     assert abs(net) < 1e-3 * total
-    j = current_at_bias(table, np.array([0.0]), model=parse_stack(_stack_dict(electrostatics="self-consistent")).model)
+    j = current_at_bias(
+        table,
+        np.array([0.0]),
+        model=parse_stack(_stack_dict(electrostatics="self-consistent")).model,
+    )
     assert abs(j[0, 0]) < 1e-6
 
 
@@ -168,8 +179,12 @@ def test_self_consistent_peak_voltage_above_linear():
 def test_longer_collector_spacer_raises_peak_voltage():
     # common practice: a longer undoped collector spacer raises the peak voltage
     bias = np.linspace(0.0, 0.9, 46)
-    short = stack_iv(parse_stack(_stack_dict(collector_spacer_nm=5.0, electrostatics="self-consistent")), bias)
-    long_ = stack_iv(parse_stack(_stack_dict(collector_spacer_nm=30.0, electrostatics="self-consistent")), bias)
+    short = stack_iv(
+        parse_stack(_stack_dict(collector_spacer_nm=5.0, electrostatics="self-consistent")), bias
+    )
+    long_ = stack_iv(
+        parse_stack(_stack_dict(collector_spacer_nm=30.0, electrostatics="self-consistent")), bias
+    )
     assert long_.metrics_of(0)["peak_voltage_v"] > short.metrics_of(0)["peak_voltage_v"] + 0.05
 
 
@@ -191,9 +206,19 @@ def _random_stack(rng):
             "layers": [
                 {"material": "GaAs", "doping_cm3": doping},
                 {"name": "es", "material": "GaAs", "thickness_nm": rng.uniform(0.5, 20.0)},
-                {"name": "b1", "material": "AlGaAs", "x": x_b, "thickness_ml": int(rng.integers(4, 14))},
+                {
+                    "name": "b1",
+                    "material": "AlGaAs",
+                    "x": x_b,
+                    "thickness_ml": int(rng.integers(4, 14)),
+                },
                 {"name": "w", "material": well, "thickness_ml": int(rng.integers(12, 30))},
-                {"name": "b2", "material": "AlGaAs", "x": x_b, "thickness_ml": int(rng.integers(4, 14))},
+                {
+                    "name": "b2",
+                    "material": "AlGaAs",
+                    "x": x_b,
+                    "thickness_ml": int(rng.integers(4, 14)),
+                },
                 {"name": "cs", "material": "GaAs", "thickness_nm": rng.uniform(0.5, 50.0)},
                 {"material": "GaAs", "doping_cm3": 10 ** rng.uniform(17.0, 18.7)},
             ],
@@ -239,12 +264,19 @@ def test_hysteresis_from_well_charge():
     direct = current_at_bias(stack.table(), bias, model=stack.model)
     differ = ~np.isclose(h.up_a_cm2[0], h.down_a_cm2[0], rtol=1e-3, atol=1e-6)
     assert np.all(h.up_a_cm2[0] >= (1 - 1e-3) * h.down_a_cm2[0])
-    assert np.count_nonzero(differ) <= 2  # at most a narrow window (none is resolved for this stack)
+    assert (
+        np.count_nonzero(differ) <= 2
+    )  # at most a narrow window (none is resolved for this stack)
     # outside the window: unique solution, equal to the one reached from the linear start
     np.testing.assert_allclose(h.up_a_cm2[0, ~differ], direct[0, ~differ], rtol=1e-3, atol=1e-6)
     # inside it the direct solve lands on one of the two branches
     for i in np.nonzero(differ)[0]:
-        assert min(abs(direct[0, i] / h.up_a_cm2[0, i] - 1), abs(direct[0, i] / h.down_a_cm2[0, i] - 1)) < 1e-3
+        assert (
+            min(
+                abs(direct[0, i] / h.up_a_cm2[0, i] - 1), abs(direct[0, i] / h.down_a_cm2[0, i] - 1)
+            )
+            < 1e-3
+        )
 
 
 def test_well_charge_screened_and_raises_well_potential():
@@ -274,4 +306,28 @@ def test_well_charge_screened_and_raises_well_potential():
 def test_stack_file_accepts_self_consistent():
     stack = parse_stack(_stack_dict(electrostatics="self-consistent", broadening_mev=2.0))
     assert stack.model.electrostatics == "self-consistent"
-    assert sweep(stack.table(), BIAS[:5], model=stack.model, refine=False).current_density_a_cm2.shape == (1, 5)
+    assert sweep(
+        stack.table(), BIAS[:5], model=stack.model, refine=False
+    ).current_density_a_cm2.shape == (1, 5)
+
+
+def _property_strategy_test():
+    """Convergence over the property-test strategy of tests/test_properties.py (hypothesis)."""
+    from hypothesis import HealthCheck, given, settings
+    from test_properties import gaas_algaas_stacks
+
+    @settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+    @given(stack=gaas_algaas_stacks())
+    def check(stack):
+        # converges, or raises the clear ElectrostaticsConvergenceError (the spec allows either)
+        try:
+            _, sol = solve_stack_poisson(stack.table(), np.linspace(-0.3, 1.0, 6))
+        except ElectrostaticsConvergenceError as exc:
+            assert "did not converge in" in str(exc)
+            return
+        assert np.all(np.isfinite(sol.potential_ev)) and np.all(sol.well_sheet_cm2 >= 0)
+
+    return check
+
+
+test_convergence_property_strategy = _property_strategy_test()
