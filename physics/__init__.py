@@ -8,6 +8,7 @@ Data flow: stack file -> :mod:`physics.stack` (validated :class:`Stack`,
 
 from .bands import Profile, linear_profile
 from .current import EnergyGrid, current_density_a_cm2
+from .electrostatics import ElectrostaticsConvergenceError, self_consistent_profile, sweep_hysteresis
 from .errors import InputError
 from .iv import METRIC_NAMES, IVCurves, stack_iv, sweep
 from .resonances import Resonances, find_resonances
@@ -15,6 +16,7 @@ from .stack import LayerTable, Stack, load_stack, parse_stack
 from .transmission import transmission
 
 __all__ = [
+    "ElectrostaticsConvergenceError",
     "EnergyGrid",
     "IVCurves",
     "InputError",
@@ -28,7 +30,9 @@ __all__ = [
     "linear_profile",
     "load_stack",
     "parse_stack",
+    "self_consistent_profile",
     "stack_iv",
     "sweep",
+    "sweep_hysteresis",
     "transmission",
 ]
