@@ -18,8 +18,8 @@ from pathlib import Path
 
 import numpy as np
 
-from physics.bands import linear_profile
 from physics.errors import InputError
+from physics.iv import band_profile
 from physics.references.wavepacket import PacketResult, expected_transmission, propagate_packet
 from physics.stack import load_stack
 
@@ -118,13 +118,7 @@ def run(args) -> int:
     stack = load_stack(args.stack)
     out = Path(args.out)
     table = stack.table()
-    if stack.model.electrostatics == "self-consistent":  # the same choice as physics.iv
-        from physics.electrostatics import self_consistent_profile
-
-        profile = self_consistent_profile(table, [args.bias], slice_nm=stack.model.slice_nm)
-    else:
-        profile = linear_profile(table, [args.bias], slice_nm=stack.model.slice_nm)
-    profile = profile.take((0, 0))
+    profile = band_profile(table, [args.bias], model=stack.model).take((0, 0))
     try:
         result = propagate_packet(
             profile=profile,

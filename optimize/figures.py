@@ -13,9 +13,8 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from physics.bands import linear_profile  # noqa: E402
 from physics.current import contact_fermi_levels_ev  # noqa: E402
-from physics.iv import IVCurves  # noqa: E402
+from physics.iv import IVCurves, band_profile  # noqa: E402
 from physics.resonances import find_resonances  # noqa: E402
 from physics.stack import Stack  # noqa: E402
 from physics.transmission import transmission  # noqa: E402
@@ -40,7 +39,7 @@ PALETTE = {
     "vermillion": "#D55E00",
     "purple": "#CC79A7",
 }
-CONTACT_DRAW_NM = 8.0
+CONTACT_DRAW_NM = 12.0  #: flat contact drawn beyond the modelled region
 
 
 def style() -> None:
@@ -109,12 +108,16 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
     return fig
 
 
-def _layer_spans(stack: Stack) -> list[tuple[float, float, int]]:
-    z = 0.0
+def _layer_spans(profile) -> list[tuple[float, float, int]]:
+    """``(z0, z1, layer)`` of each interior layer from the profile's slices, emitter interface at 0."""
+    right = np.cumsum(profile.width_nm)
+    left = right - profile.width_nm
+    li = profile.layer_index
+    origin = left[np.argmax(li == 1)]
     spans = []
-    for idx, layer in enumerate(stack.layers[1:-1], start=1):
-        spans.append((z, z + layer.thickness_nm, idx))
-        z += layer.thickness_nm
+    for idx in range(1, int(li.max())):
+        where = np.nonzero(li == idx)[0]
+        spans.append((float(left[where[0]] - origin), float(right[where[-1]] - origin), idx))
     return spans
 
 
@@ -122,76 +125,47 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     """Conduction-band edge at ``bias_v`` with the resonance levels and Fermi levels."""
     style()
     table = stack.table()
-    profile = linear_profile(table, [bias_v], slice_nm=stack.model.slice_nm).take((0, 0))
+    profile = band_profile(table, [bias_v], model=stack.model).take((0, 0))
     edge = profile.edge_ev
-    width = profile.width_nm
-    bounds = np.concatenate([[0.0], np.cumsum(width[1:-1])])
-    length = bounds[-1]
+    spans = _layer_spans(profile)
+    right = np.cumsum(profile.width_nm)
+    origin = (right - profile.width_nm)[np.argmax(profile.layer_index == 1)]
+    bounds = np.concatenate([[right[0] - origin], right[1:-1] - origin])  # slice edges, 0 = emitter interface
+    z_lo, z_hi = float(bounds[0]), float(bounds[-1])
+    length = spans[-1][1]
     fig, ax = plt.subplots(figsize=(7.0, 4.4))
-    xs = np.concatenate([[-CONTACT_DRAW_NM], bounds, [length + CONTACT_DRAW_NM]])
+    xs = np.concatenate([[z_lo - CONTACT_DRAW_NM], bounds, [z_hi + CONTACT_DRAW_NM]])
     ys = np.concatenate([[edge[0]], edge[1:-1], [edge[-1], edge[-1]]])
     ax.step(xs, ys, where="post", color=PALETTE["black"], lw=1.8, label="conduction-band edge")
-    top = float(edge[1:-1].max())
-    for z0, z1, idx in _layer_spans(stack):
+    active = profile.layer_index[1:-1]
+    top = float(edge[1:-1][(active > 0) & (active < profile.layer_index.max())].max())
+    emitter_edge = stack.layers[0].conduction_band_ev
+    barriers = [(z0, z1) for z0, z1, idx in spans if stack.layers[idx].conduction_band_ev > emitter_edge + 0.05]
+    for z0, z1, idx in spans:
         layer = stack.layers[idx]
-        if layer.conduction_band_ev > stack.layers[0].conduction_band_ev + 0.05:
+        if (z0, z1) in barriers:
             ax.axvspan(z0, z1, color=PALETTE["sky"], alpha=0.25, lw=0)
-        ax.text(
-            0.5 * (z0 + z1),
-            top * 1.04 + 0.02,
-            f"{layer.name}\n{layer.label}",
-            ha="center",
-            va="bottom",
-            fontsize=7,
-            rotation=90,
-        )
+        ax.text(0.5 * (z0 + z1), top * 1.04 + 0.02, f"{layer.name}\n{layer.label}", ha="center",
+                va="bottom", fontsize=7, rotation=90)
     mu_e, mu_c = (float(x[0]) for x in contact_fermi_levels_ev(table))
-    ax.hlines(
-        mu_e,
-        -CONTACT_DRAW_NM,
-        0,
-        colors=PALETTE["orange"],
-        linestyles="--",
-        lw=2,
-        label="Fermi levels",
-    )
-    ax.hlines(
-        edge[-1] + mu_c,
-        length,
-        length + CONTACT_DRAW_NM,
-        colors=PALETTE["orange"],
-        linestyles="--",
-        lw=2,
-    )
-    res = find_resonances(
-        profile, energy_min_ev=max(0.0, float(edge[-1])) - 0.3, energy_max_ev=top, n_max=4
-    )
-    barrier_z = [
-        (z0, z1)
-        for z0, z1, idx in _layer_spans(stack)
-        if stack.layers[idx].conduction_band_ev > stack.layers[0].conduction_band_ev + 0.05
-    ]
-    w0, w1 = (barrier_z[0][1], barrier_z[-1][0]) if len(barrier_z) >= 2 else (0.0, length)
+    ax.hlines(mu_e, xs[0], 0, colors=PALETTE["orange"], linestyles="--", lw=2, label="Fermi levels")
+    ax.hlines(edge[-1] + mu_c, length, xs[-1], colors=PALETTE["orange"], linestyles="--", lw=2)
+    res = find_resonances(profile, energy_min_ev=max(0.0, float(edge[-1])) - 0.3, energy_max_ev=top, n_max=4)
+    w0, w1 = (barriers[0][1], barriers[-1][0]) if len(barriers) >= 2 else (0.0, length)
+    label_z = (barriers[-1][1] if barriers else length) + 0.4
     order = np.argsort(res.energy_ev)
     for n, k in enumerate([k for k in order if res.valid[k]], start=1):
         e_r, g = float(res.energy_ev[k]), float(res.width_ev[k])
-        ax.hlines(
-            e_r, w0, w1, colors=PALETTE["vermillion"], lw=2, label="resonances" if n == 1 else None
-        )
-        ax.text(
-            w1 + 0.2,
-            e_r,
-            f"E{n} = {e_r * 1e3:.0f} meV, Γ = {_fmt_energy(g)}",
-            fontsize=8,
-            va="center",
-            color=PALETTE["vermillion"],
-        )
-    ax.set_xlabel("position (nm)")
+        ax.hlines(e_r, w0, w1, colors=PALETTE["vermillion"], lw=2, label="resonances" if n == 1 else None)
+        ax.text(label_z, e_r, f"E{n} = {e_r * 1e3:.0f} meV, Γ = {_fmt_energy(g)}", fontsize=8,
+                va="center", color=PALETTE["vermillion"])
+    ax.set_xlabel("position from the emitter interface (nm)")
     ax.set_ylabel("energy from emitter band edge (eV)")
-    ax.set_xlim(-CONTACT_DRAW_NM, length + CONTACT_DRAW_NM)
+    ax.set_xlim(max(xs[0], -25.0), min(xs[-1], length + 35.0))  # the active region, some contact
     ax.set_ylim(min(float(edge.min()), 0.0) - 0.1, top * 1.35 + 0.15)
     ax.legend(loc="lower left", fontsize=8)
-    ax.set_title(title or f"band diagram at {bias_v * 1e3:.0f} mV (linear drop)")
+    model = "linear drop" if stack.model.electrostatics == "linear" else "self-consistent"
+    ax.set_title(title or f"band diagram at {bias_v * 1e3:.0f} mV ({model})")
     return fig
 
 
@@ -205,7 +179,7 @@ def transmission_figure(stack: Stack, biases_v: list[float], *, title: str = "")
     """T(E) on a log scale at each bias."""
     style()
     table = stack.table()
-    profile = linear_profile(table, biases_v, slice_nm=stack.model.slice_nm)
+    profile = band_profile(table, biases_v, model=stack.model)
     top = float(profile.edge_ev[0, 0, 1:-1].max())
     energy = np.linspace(1e-4, max(top * 1.3, 0.3), 4000)
     t = transmission(energy, profile=profile)[0]

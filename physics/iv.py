@@ -28,6 +28,7 @@ __all__ = [
     "IVCurves",
     "sweep",
     "stack_iv",
+    "band_profile",
     "current_at_bias",
     "locate_peak_valley",
     "external_bias_v",
@@ -71,6 +72,18 @@ class IVCurves:
         }
 
 
+def band_profile(table: LayerTable, bias_v, *, model: ModelOptions = ModelOptions()):
+    """Band profile at each bias from the electrostatics model ``model.electrostatics`` selects.
+
+    :func:`physics.bands.linear_profile` for ``"linear"``,
+    :func:`physics.electrostatics.self_consistent_profile` for ``"self-consistent"``;
+    biases ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+    """
+    if model.electrostatics == "self-consistent":
+        return self_consistent_profile(table, bias_v, slice_nm=model.slice_nm)
+    return linear_profile(table, bias_v, slice_nm=model.slice_nm)
+
+
 def current_at_bias(
     table: LayerTable,
     bias_v: np.ndarray,
@@ -85,10 +98,7 @@ def current_at_bias(
     :func:`physics.electrostatics.self_consistent_profile`); the scattering
     broadening ``model.broadening_mev`` is applied in the kernel.
     """
-    if model.electrostatics == "self-consistent":
-        profile = self_consistent_profile(table, bias_v, slice_nm=model.slice_nm)
-    else:
-        profile = linear_profile(table, bias_v, slice_nm=model.slice_nm)
+    profile = band_profile(table, bias_v, model=model)
     return current_density_a_cm2(
         profile,
         table=table,
