@@ -9,7 +9,13 @@ from pathlib import Path
 from physics.errors import InputError
 
 from .search import check_storage_url, run_search
-from .study import MAX_TRIALS, MAX_WORKERS, load_study
+from .study import (
+    MAX_ROBUST_SAMPLES,
+    MAX_TRIALS,
+    MAX_WORKERS,
+    MIN_ROBUST_SAMPLES,
+    load_study,
+)
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -46,6 +52,21 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--out", metavar="DIR", help="output folder (default: <study name>_out)")
     p.add_argument("--seed", type=int, metavar="S", help="sampler seed (default: [search] seed)")
+    p.add_argument(
+        "--robust",
+        action="store_true",
+        default=None,
+        help="make the objective the Monte Carlo yield of each design under the study's "
+        "[growth] spreads, with the same random draws for every design, seeded by "
+        "[search] seed (default: [search] robust)",
+    )
+    p.add_argument(
+        "--robust-samples",
+        type=int,
+        metavar="N",
+        help="as-grown samples per design of a robust search "
+        "(default: [search] robust_samples, 32)",
+    )
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     p.set_defaults(func=run)
 
@@ -57,6 +78,13 @@ def _check_args(args: argparse.Namespace) -> None:
         raise InputError(f"{args.workers} outside [1, {MAX_WORKERS}]", key="--workers")
     if args.seed is not None and not 0 <= args.seed < 2**32:
         raise InputError(f"{args.seed} outside [0, 2^32)", key="--seed")
+    if args.robust_samples is not None and not (
+        MIN_ROBUST_SAMPLES <= args.robust_samples <= MAX_ROBUST_SAMPLES
+    ):
+        raise InputError(
+            f"{args.robust_samples} outside [{MIN_ROBUST_SAMPLES}, {MAX_ROBUST_SAMPLES}]",
+            key="--robust-samples",
+        )
     if args.storage is not None:
         check_storage_url(args.storage)
     if args.out is not None and Path(args.out).exists() and not Path(args.out).is_dir():
@@ -79,7 +107,10 @@ def run(args: argparse.Namespace) -> int:
         out_dir=out,
         seed=args.seed,
         progress=not args.no_progress,
+        robust=args.robust,
+        robust_samples=args.robust_samples,
     )
+    robust = bool(result.designs) and result.designs[0].get("yield") is not None
     print(
         f"study '{result.study_name}': {result.n_complete} complete trials, "
         f"{result.n_feasible} meet the spec and constraints"
@@ -88,7 +119,7 @@ def run(args: argparse.Namespace) -> int:
     if result.designs:
         print(
             f"{'rank':>4} {'trial':>6} {'ok':>3} {'Jp kA/cm2':>10} {'Vp mV':>7} "
-            f"{'PVCR':>7}  parameters"
+            f"{'PVCR':>7} {'yield':>6}  parameters"
         )
         for d in result.designs[:5]:
             m = d["metrics"]
@@ -97,7 +128,8 @@ def run(args: argparse.Namespace) -> int:
                 f"{d['rank']:>4} {d['trial']:>6} {'yes' if d['feasible'] else 'no':>3} "
                 f"{_fmt(m['peak_current_density_a_cm2'], 1e-3, '.1f'):>10} "
                 f"{_fmt(m['peak_voltage_v'], 1e3, '.0f'):>7} "
-                f"{_fmt(m['pvcr'], 1.0, '.2f'):>7}  {params}"
+                f"{_fmt(m['pvcr'], 1.0, '.2f'):>7} "
+                f"{_fmt(d['yield']['value'] if robust else None, 1.0, '.2f'):>6}  {params}"
             )
     if result.best is None:
         print(

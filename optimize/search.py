@@ -25,25 +25,30 @@ dashboard, ``optuna.load_study``) show without this project writing a viewer:
   notation), x, thickness_ml, thickness_nm, doping_cm3;
 - ``worker`` (host:pid), and ``duplicate_of`` (trial number) when the
   design had been evaluated before and its results were copied, ``error``
-  when the design could not be built or evaluated.
+  when the design could not be built or evaluated;
+- in a robust search (``[search] robust``), ``yield``: the Monte Carlo
+  yield under ``[growth]`` {value, ci_low, ci_high, samples, passed,
+  confidence} (see :mod:`optimize.robust`).
 
 The trial value is the single-objective score, or the raw objectives for
-several; how designs are scored is documented in :mod:`optimize.study`.
+several, or in a robust search :func:`optimize.robust.robust_value`; how
+designs are scored is documented in :mod:`optimize.targets`.
+
+This module holds the runner (workers, ask and tell, evaluation). Storage
+(URLs, SQLite settings, heartbeats, dead trials) is :mod:`optimize.storage`;
+ranking, records and output files are :mod:`optimize.designs`. Their public
+names are re-exported here.
 """
 
 from __future__ import annotations
 
 import concurrent.futures
-import functools
-import math
 import multiprocessing
 import os
-import socket
-import threading
 import time
 import warnings
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -56,7 +61,31 @@ from physics.errors import InputError
 from physics.iv import METRIC_NAMES
 from physics.stack import LayerTable, Stack
 
-from .study import Study
+from .designs import (
+    GROWTH_SHEET_HEADER,
+    MIN_TRIALS_FOR_IMPORTANCE,
+    design_record,
+    finite_or_none,
+    growth_sheet_rows,
+    layer_records,
+    parameter_importances,
+    rank_trials,
+    write_outputs,
+)
+from .robust import check_robust, design_yields, robust_value
+from .storage import (
+    GRACE_PERIOD_S,
+    HEARTBEAT_INTERVAL_S,
+    Heartbeat,
+    check_storage_url,
+    fail_dead_trials,
+    make_storage,
+    open_study,
+    storage_url,
+    worker_identity,
+)
+from .study import MAX_ROBUST_SAMPLES, MIN_ROBUST_SAMPLES, Study
+from .tolerance import yield_record
 
 __all__ = [
     "SearchResult",
@@ -70,13 +99,16 @@ __all__ = [
     "rank_trials",
     "design_record",
     "layer_records",
+    "growth_sheet_rows",
+    "parameter_importances",
+    "write_outputs",
+    "check_storage_url",
+    "GROWTH_SHEET_HEADER",
+    "MIN_TRIALS_FOR_IMPORTANCE",
     "HEARTBEAT_INTERVAL_S",
+    "GRACE_PERIOD_S",
 ]
 
-#: Seconds between heartbeats of a running trial; a trial without one for
-#: ``GRACE_PERIOD_S`` is failed by the next worker that looks.
-HEARTBEAT_INTERVAL_S = 10
-GRACE_PERIOD_S = 60
 #: Seconds between checks while waiting for other workers' trials to finish.
 POLL_S = 0.5
 
@@ -144,79 +176,6 @@ class SearchResult:
         return self.designs[0] if self.designs and self.designs[0]["feasible"] else None
 
 
-# --------------------------------------------------------------------------- storage
-
-
-def storage_url(storage: str | None, out_dir: str | Path) -> str:
-    """The storage URL: ``storage`` as given, or the SQLite file ``out_dir/study.db``."""
-    if storage:
-        return storage
-    return f"sqlite:///{Path(out_dir).resolve() / 'study.db'}"
-
-
-def check_storage_url(url: str) -> None:
-    """Reject a malformed or unsupported URL before anything is written."""
-    import sqlalchemy.engine
-
-    try:
-        parsed = sqlalchemy.engine.make_url(url)
-    except Exception:  # noqa: BLE001 - sqlalchemy raises several types for bad URLs
-        raise InputError(
-            f"{url!r} is not a database URL; use e.g. sqlite:///study.db or "
-            "postgresql+psycopg2://user@host:5432/db",
-            key="--storage",
-        ) from None
-    if parsed.get_backend_name() == "sqlite" and not parsed.database:
-        raise InputError(
-            "an in-memory SQLite database cannot be shared or resumed; give a file", key="--storage"
-        )
-
-
-def _sqlite_connect(database: str) -> Any:
-    import sqlite3
-
-    con = sqlite3.connect(database, timeout=60, check_same_thread=False)
-    con.execute("PRAGMA journal_mode=WAL")
-    con.execute("PRAGMA synchronous=NORMAL")
-    return con
-
-
-def make_storage(url: str) -> optuna.storages.RDBStorage:
-    """An RDB storage with heartbeats, tuned for several processes.
-
-    SQLite waits up to 60 s for a lock instead of failing and runs in WAL
-    mode with ``synchronous = NORMAL`` (a commit survives the death of the
-    process, which is what resuming needs; readers do not block the writer);
-    the file must be on a local disk. A server database checks connections
-    before use (long runs outlive idle connections).
-    """
-    check_storage_url(url)
-    if url.startswith("sqlite"):
-        import sqlalchemy.engine
-
-        database = str(sqlalchemy.engine.make_url(url).database)
-        engine_kwargs: dict[str, Any] = {"creator": functools.partial(_sqlite_connect, database)}
-    else:
-        engine_kwargs = {"pool_pre_ping": True}
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
-            return optuna.storages.RDBStorage(
-                url,
-                engine_kwargs=engine_kwargs,
-                heartbeat_interval=HEARTBEAT_INTERVAL_S,
-                grace_period=GRACE_PERIOD_S,
-            )
-    except ImportError as exc:
-        raise InputError(
-            f"database driver missing ({exc}); pip install psycopg2-binary for PostgreSQL",
-            key="--storage",
-        ) from None
-    except Exception as exc:  # noqa: BLE001 - connection and driver errors of any backend
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise InputError(f"cannot open the storage ({first})", key="--storage") from None
-
-
 def make_sampler(study: Study, *, seed: int, n_trials: int) -> optuna.samplers.BaseSampler:
     """The sampler the study file asks for.
 
@@ -247,79 +206,7 @@ def _worker_seed(seed: int, worker: int, n_existing: int) -> int:
     return int(np.random.SeedSequence([seed, worker, n_existing]).generate_state(1)[0])
 
 
-def open_study(
-    study: Study,
-    storage: optuna.storages.BaseStorage,
-    *,
-    sampler: optuna.samplers.BaseSampler | None = None,
-) -> optuna.Study:
-    """Create the Optuna study or load it to resume, checking it was made from the same file.
-
-    Raises
-    ------
-    InputError
-        When the storage holds a study of this name made from a different
-        search space, spec or sweep (``[search] study_name`` picks another name).
-    """
-    name = study.optuna_name
-    try:
-        ostudy = optuna.create_study(
-            storage=storage,
-            study_name=name,
-            directions=[optuna.study.StudyDirection[d.upper()] for d in study.directions],
-            load_if_exists=True,
-            sampler=sampler,
-        )
-    except Exception as exc:  # noqa: BLE001
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise InputError(
-            f"cannot create or load study '{name}' ({first})", key="--storage"
-        ) from None
-    directions = tuple(d.name.lower() for d in ostudy.directions)
-    stored = ostudy.user_attrs.get("wellwright_fingerprint")
-    if stored is None and not ostudy.get_trials(deepcopy=False):
-        ostudy.set_user_attr("wellwright_fingerprint", study.fingerprint())
-        ostudy.set_user_attr("wellwright_source", study.source)
-        ostudy.set_user_attr("parameters", list(study.parameter_names))
-        ostudy.set_user_attr(
-            "objectives", [f"{o.direction} {o.metric}" for o in study.objectives] or ["score"]
-        )
-        stored = study.fingerprint()
-    if stored != study.fingerprint() or directions != study.directions:
-        raise InputError(
-            f"the storage already holds a study '{name}' made from a different search space, "
-            "spec or sweep; "
-            "set [search] study_name to a new name or use another --out/--storage",
-            source=study.source,
-            key="search.study_name",
-        )
-    return ostudy
-
-
 # --------------------------------------------------------------------------- evaluation
-
-
-def layer_records(stack: Stack) -> list[dict[str, Any]]:
-    """The layers of a stack as plain records (contacts have no thickness)."""
-    out = []
-    n = len(stack.layers)
-    for i, layer in enumerate(stack.layers):
-        contact = i in (0, n - 1)
-        ml = layer.thickness_ml
-        out.append(
-            {
-                "name": layer.name,
-                "material": layer.material,
-                "label": layer.label,
-                "x": layer.x,
-                "thickness_ml": None
-                if contact or ml is None
-                else (int(round(ml)) if abs(ml - round(ml)) < 1e-9 else ml),
-                "thickness_nm": None if contact else layer.thickness_nm,
-                "doping_cm3": layer.doping_cm3,
-            }
-        )
-    return out
 
 
 @dataclass
@@ -327,15 +214,6 @@ class _Outcome:
     values: list[float]
     constraints: dict[str, float]
     attrs: dict[str, Any]
-
-
-def _tidy(value: Any) -> Any:
-    """A float on a step grid without its rounding noise (0.5800000000000001 -> 0.58)."""
-    return float(f"{value:.12g}") if isinstance(value, float) else value
-
-
-def _finite_or_none(value: float) -> float | None:
-    return float(value) if math.isfinite(value) else None
 
 
 def evaluate(
@@ -373,6 +251,7 @@ def evaluate(
                 for k in METRIC_NAMES:
                     if k in one:
                         metrics[k][i] = float(np.asarray(one[k], float)[0])
+    yields: list[dict[str, Any]] = _yields(study, stacks, errors) if study.search.robust else []
     physics_s = time.perf_counter() - t0
 
     violation = study.spec_violation(metrics)
@@ -380,6 +259,14 @@ def evaluate(
         values = study.objective_values(metrics)
     else:
         values = study.single_score(metrics)[:, None]
+    if study.search.robust:
+        scores = values[:, 0].copy()
+        values = np.array(
+            [
+                [robust_value(y["value"], float(s), samples=study.search.robust_samples)]
+                for y, s in zip(yields, scores, strict=True)
+            ]
+        )
     outcomes = []
     for i in range(n):
         m = {k: float(metrics[k][i]) for k in METRIC_NAMES}
@@ -389,16 +276,40 @@ def evaluate(
         feasible = bool(violation[i] == 0 and all(v <= 0 for v in constraints.values()))
         built_i = stacks[i]
         attrs: dict[str, Any] = {
-            "metrics": {k: _finite_or_none(v) for k, v in m.items()},
+            "metrics": {k: finite_or_none(v) for k, v in m.items()},
             "feasible": feasible,
             "spec_violation": float(violation[i]),
             "constraints": constraints,
             "layers": layer_records(built_i) if built_i is not None else None,
         }
+        if study.search.robust:
+            attrs["yield"] = yields[i]
+            attrs["score"] = float(scores[i])  # nominal score: the tie-break of equal yields
         if errors[i]:
             attrs["error"] = errors[i]
         outcomes.append(_Outcome([float(v) for v in values[i]], constraints, attrs))
     return outcomes, physics_s
+
+
+def _yields(
+    study: Study, stacks: Sequence[Stack | None], errors: list[str | None]
+) -> list[dict[str, Any]]:
+    """Robust search: the Monte Carlo yield of each buildable design (see :mod:`optimize.robust`).
+
+    A design that could not be built or evaluated gets yield 0 over 0 samples;
+    one whose samples the physics cannot evaluate gets an ``error`` too.
+    """
+    plan = check_robust(study)
+    out = []
+    for i, stack in enumerate(stacks):
+        rec = None
+        if stack is not None and errors[i] is None:
+            try:
+                (rec,) = design_yields([stack], study.sweep.bias_v, plan)
+            except EVALUATION_ERRORS as exc:
+                errors[i] = f"yield not evaluated: {type(exc).__name__}: {exc}"
+        out.append(rec or {**yield_record(np.zeros(0, bool)), "value": 0.0, "failures": {}})
+    return out
 
 
 # --------------------------------------------------------------------------- worker
@@ -414,96 +325,6 @@ class _Job:
     evaluator: Evaluator
     parent_pid: int | None = None
     progress: bool = False
-
-
-class _Heartbeat:
-    """Records a heartbeat for the current trials every interval, in a thread."""
-
-    def __init__(self, storage: optuna.storages.RDBStorage) -> None:
-        self._storage = storage
-        self._ids: set[int] = set()
-        self._lock = threading.Lock()
-        self._stop = threading.Event()
-        self._thread = threading.Thread(target=self._run, daemon=True)
-        self._thread.start()
-
-    def add(self, trial_id: int) -> None:
-        self._storage.record_heartbeat(trial_id)
-        with self._lock:
-            self._ids.add(trial_id)
-
-    def clear(self) -> None:
-        with self._lock:
-            self._ids.clear()
-
-    def _run(self) -> None:
-        while not self._stop.wait(HEARTBEAT_INTERVAL_S):
-            with self._lock:
-                ids = list(self._ids)
-            for trial_id in ids:
-                try:
-                    self._storage.record_heartbeat(trial_id)
-                except Exception:  # noqa: BLE001 - the next beat retries; staleness fails the trial
-                    pass
-
-    def stop(self) -> None:
-        self._stop.set()
-        self._thread.join(timeout=5)
-
-
-def _identity() -> str:
-    return f"{socket.gethostname()}:{os.getpid()}"
-
-
-def _pid_alive(pid: int) -> bool:
-    """Whether a process of this host exists and is not a zombie (killed, not yet reaped)."""
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
-    try:
-        with open(f"/proc/{pid}/stat", encoding="ascii") as f:
-            return f.read().rsplit(")", 1)[1].split()[0] != "Z"
-    except (OSError, IndexError):
-        return True  # no /proc (not Linux): existence is all we can tell
-
-
-def _fail_dead_trials(ostudy: optuna.Study, running: list[FrozenTrial]) -> int:
-    """Fail running trials whose process is gone; returns how many.
-
-    Optuna's heartbeat catches any machine's dead workers after the grace
-    period; a trial of a process of this host that no longer exists is failed
-    at once, and one that never got a worker tag within the grace period too.
-    """
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
-        optuna.storages.fail_stale_trials(ostudy)
-    host = socket.gethostname()
-    now = time.time()
-    failed = 0
-    for t in running:
-        owner = t.user_attrs.get("worker")
-        dead = False
-        if owner:
-            h, _, pid = owner.rpartition(":")
-            dead = h == host and pid.isdigit() and not _pid_alive(int(pid))
-        elif t.datetime_start is not None:
-            dead = now - t.datetime_start.timestamp() > GRACE_PERIOD_S
-        if dead:
-            try:
-                ostudy.tell(t.number, state=TrialState.FAIL, skip_if_finished=True)
-                failed += 1
-            except (optuna.exceptions.UpdateFinishedTrialError, ValueError):
-                pass  # finished or failed by another worker meanwhile
-    return failed
-
-
-def _param_key(study: Study, params: dict[str, Any]) -> tuple:
-    return tuple(
-        round(float(params[n]), 12) if n in params else None for n in study.parameter_names
-    )
 
 
 def _suggest(trial: optuna.Trial, study: Study) -> dict[str, float]:
@@ -530,6 +351,9 @@ def _best_text(study: Study, complete: list[FrozenTrial]) -> str:
     feasible = sum(1 for t in complete if t.user_attrs.get("feasible"))
     if study.multi_objective or not complete:
         return f"feasible={feasible}"
+    if study.search.robust:
+        best_yield = max((t.user_attrs.get("yield") or {}).get("value", 0.0) for t in complete)
+        return f"best yield={best_yield:.3g} feasible={feasible}"
     best = min(t.value for t in complete if t.value is not None)
     return f"best={best:.4g} feasible={feasible}"
 
@@ -557,7 +381,7 @@ class _Worker:
         self.timing = dict.fromkeys(
             ("sampler", "physics", "storage", "total", "evaluated", "copied"), 0.0
         )
-        self.me = _identity()
+        self.me = worker_identity()
         self.bar: Any = None
         self.parent = os.getppid() if job.parent_pid is not None else None
         self.orphaned = False
@@ -566,7 +390,7 @@ class _Worker:
         self.timing[kind] += time.perf_counter() - since
 
     def run(self) -> dict[str, float]:
-        heart = _Heartbeat(self.storage)
+        heart = Heartbeat(self.storage)
         start = time.perf_counter()
         try:
             while True:
@@ -593,7 +417,7 @@ class _Worker:
         while True:
             trials = self.ostudy.get_trials(deepcopy=False, states=_OPEN)
             running = [t for t in trials if t.state == TrialState.RUNNING]
-            if not (running and _fail_dead_trials(self.ostudy, running)):
+            if not (running and fail_dead_trials(self.ostudy, running)):
                 break
         complete = [t for t in trials if t.state == TrialState.COMPLETE]
         self._show(complete)
@@ -603,7 +427,7 @@ class _Worker:
         room = (
             self.job.target - len(complete) - len(running)
         )  # waiting (enqueued) trials are ours to take
-        return room, {_param_key(self.study, t.params): t for t in complete}
+        return room, {self.study.parameter_key(t.params): t for t in complete}
 
     def _show(self, complete: list[FrozenTrial]) -> None:
         if not self.job.progress:
@@ -621,11 +445,11 @@ class _Worker:
         self.bar.n = min(len(complete), self.job.target)
         self.bar.set_postfix_str(_best_text(self.study, complete), refresh=True)
 
-    def _ask(self, n: int, heart: _Heartbeat) -> list[optuna.Trial]:
+    def _ask(self, n: int, heart: Heartbeat) -> list[optuna.Trial]:
         asked = []
         for _ in range(n):
             t0 = time.perf_counter()
-            with warnings.catch_warnings():  # heartbeats are kept by _Heartbeat, not optimize()
+            with warnings.catch_warnings():  # heartbeats are kept by Heartbeat, not optimize()
                 warnings.filterwarnings("ignore", message="Heartbeat of storage")
                 trial = self.ostudy.ask()
             self._clock("sampler", t0)
@@ -653,7 +477,7 @@ class _Worker:
         self._clock("storage", t0)
         return kept
 
-    def _batch(self, n: int, done: dict[tuple, FrozenTrial], heart: _Heartbeat) -> None:
+    def _batch(self, n: int, done: dict[tuple, FrozenTrial], heart: Heartbeat) -> None:
         """Ask ``n`` trials, copy known designs, evaluate the rest in one call, tell."""
         asked: list[optuna.Trial] = []
         told: set[int] = set()
@@ -665,7 +489,7 @@ class _Worker:
 
             first: dict[tuple, int] = {}  # key -> index of the first trial with it in this batch
             for i, p in enumerate(params):
-                key = _param_key(self.study, p)
+                key = self.study.parameter_key(p)
                 if key not in done:
                     first.setdefault(key, i)
             unique = sorted(first.values())
@@ -680,7 +504,7 @@ class _Worker:
 
             t0 = time.perf_counter()
             for i, trial in enumerate(asked):
-                key = _param_key(self.study, params[i])
+                key = self.study.parameter_key(params[i])
                 if i in outcomes:
                     out = outcomes[i]
                 else:  # already evaluated: copy, do not recompute
@@ -731,110 +555,6 @@ def _work(job: _Job) -> dict[str, float]:
     return timing
 
 
-# --------------------------------------------------------------------------- ranking
-
-
-def _pareto_ranks(values: np.ndarray, directions: Sequence[str]) -> np.ndarray:
-    """Non-domination rank (0 = Pareto front) of each row of objective values."""
-    sign = np.array([-1.0 if d == "maximize" else 1.0 for d in directions])
-    v = values * sign
-    n = v.shape[0]
-    ranks = np.full(n, -1)
-    remaining = np.arange(n)
-    r = 0
-    while remaining.size:
-        sub = v[remaining]
-        le = np.all(sub[:, None, :] <= sub[None, :, :], axis=2)
-        lt = np.any(sub[:, None, :] < sub[None, :, :], axis=2)
-        dominated = np.any(le & lt, axis=0)
-        front = remaining[~dominated]
-        ranks[front] = r
-        remaining = remaining[dominated]
-        r += 1
-    return ranks
-
-
-def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
-    """One evaluated design as a plain record.
-
-    Keys: ``trial`` (number), ``feasible``, ``score`` (single objective) or
-    ``objectives`` (metric -> value), ``spec_violation``, ``constraints``,
-    ``metrics`` (every name of :data:`physics.iv.METRIC_NAMES`, None for NaN),
-    ``params`` (parameter name -> value), ``layers`` (name, material,
-    label, x, thickness_ml, thickness_nm, doping_cm3; contacts have no
-    thickness), ``active_thickness_nm`` and ``stack`` (a stack dictionary for
-    :func:`physics.stack.parse_stack`).
-    """
-    a = trial.user_attrs
-    rec: dict[str, Any] = {"trial": trial.number, "feasible": bool(a.get("feasible", False))}
-    if study.multi_objective:
-        rec["objectives"] = {
-            o.metric: _finite_or_none(v)
-            for o, v in zip(study.objectives, trial.values, strict=True)
-        }
-    else:
-        rec["score"] = trial.value
-    rec["spec_violation"] = a.get("spec_violation")
-    rec["constraints"] = dict(a.get("constraints", {}))
-    metrics = a.get("metrics", {})
-    rec["metrics"] = {k: metrics.get(k) for k in METRIC_NAMES}
-    rec["params"] = {k: _tidy(v) for k, v in trial.params.items()}
-    rec["layers"] = a.get("layers")
-    rec["active_thickness_nm"] = (
-        None
-        if rec["layers"] is None
-        else sum(layer["thickness_nm"] or 0.0 for layer in rec["layers"])
-    )
-    rec["stack"] = study.stack_dict(trial.params)
-    return rec
-
-
-def rank_trials(
-    study: Study, trials: Sequence[FrozenTrial], *, top: int | None = None
-) -> list[dict[str, Any]]:
-    """Rank complete trials, best first, one record per distinct parameter set.
-
-    Feasible designs (on spec, constraints met) come first: by score for a
-    single objective; by Pareto rank, then the first objective, for several.
-    Then the others, by total constraint violation, then spec violation.
-    """
-    seen: dict[tuple, FrozenTrial] = {}
-    for t in sorted(trials, key=lambda t: t.number):
-        if t.state == TrialState.COMPLETE:
-            seen.setdefault(_param_key(study, t.params), t)
-    unique = list(seen.values())
-    feasible = [t for t in unique if t.user_attrs.get("feasible")]
-    others = [t for t in unique if not t.user_attrs.get("feasible")]
-    if study.multi_objective and feasible:
-        vals = np.array([t.values for t in feasible], float)
-        ranks = _pareto_ranks(vals, study.directions)
-        sign0 = -1.0 if study.directions[0] == "maximize" else 1.0
-        order = sorted(
-            range(len(feasible)), key=lambda i: (ranks[i], sign0 * vals[i, 0], feasible[i].number)
-        )
-        feasible = [feasible[i] for i in order]
-        pareto = {feasible[i].number for i in range(len(feasible)) if ranks[order[i]] == 0}
-    else:
-        feasible.sort(key=lambda t: (t.value, t.number))
-        pareto = set()
-
-    def violation(t: FrozenTrial) -> tuple[float, float, int]:
-        c = sum(v for v in t.constraints.values() if v > 0)
-        return (c, float(t.user_attrs.get("spec_violation", math.inf)), t.number)
-
-    others.sort(key=violation)
-    ranked = feasible + others
-    if top is not None:
-        ranked = ranked[:top]
-    records = []
-    for i, t in enumerate(ranked, start=1):
-        rec = {"rank": i, **design_record(study, t)}
-        if study.multi_objective:
-            rec["pareto"] = t.number in pareto
-        records.append(rec)
-    return records
-
-
 # --------------------------------------------------------------------------- driver
 
 
@@ -860,6 +580,27 @@ def _progress_poll(
             bar.close()
 
 
+def _with_robust(study: Study, robust: bool | None, samples: int | None) -> Study:
+    """The study with the robust-search options of the command line applied, checked."""
+    if samples is not None and not MIN_ROBUST_SAMPLES <= samples <= MAX_ROBUST_SAMPLES:
+        raise InputError(
+            f"{samples} outside [{MIN_ROBUST_SAMPLES}, {MAX_ROBUST_SAMPLES}]",
+            key="--robust-samples",
+        )
+    on = study.search.robust if robust is None else bool(robust)
+    if samples is not None and not on:
+        raise InputError(
+            "needs --robust or [search] robust = true", source=study.source, key="--robust-samples"
+        )
+    changes: dict[str, Any] = {"robust": on}
+    if samples is not None:
+        changes["robust_samples"] = int(samples)
+    study = replace(study, search=replace(study.search, **changes))
+    if on:
+        check_robust(study)
+    return study
+
+
 def run_search(
     study: Study,
     *,
@@ -871,6 +612,8 @@ def run_search(
     progress: bool = True,
     evaluator: Evaluator = nominal_metrics,
     write: bool = True,
+    robust: bool | None = None,
+    robust_samples: int | None = None,
 ) -> SearchResult:
     """Run (or resume) the design search of a study and write its outputs.
 
@@ -900,6 +643,13 @@ def run_search(
         A module-level function, so that worker processes can import it.
     write
         Write designs.csv/json, growth sheets, figures and importances.
+    robust
+        Make the objective the Monte Carlo yield under ``[growth]`` (see
+        :mod:`optimize.robust`); default ``[search] robust``.
+    robust_samples
+        As-grown samples per design of a robust search; default
+        ``[search] robust_samples``. The common random numbers are seeded by
+        ``[search] seed`` (``seed`` reseeds only the sampler).
 
     Returns
     -------
@@ -914,6 +664,7 @@ def run_search(
         raise InputError(f"must be >= 1, got {n_workers}", key="--workers")
     if seed is not None and not 0 <= seed < 2**32:
         raise InputError(f"must be in [0, 2^32), got {seed}", key="--seed")
+    study = _with_robust(study, robust, robust_samples)
     out = Path(out_dir) if out_dir is not None else Path(f"{study.name}_out")
     if storage is not None:
         check_storage_url(storage)
@@ -976,164 +727,3 @@ def run_search(
     if write:
         write_outputs(study, ostudy, result, complete)
     return result
-
-
-# --------------------------------------------------------------------------- outputs
-
-GROWTH_SHEET_HEADER = ["layer", "name", "material", "x", "monolayers", "nm", "doping_cm3"]
-MIN_TRIALS_FOR_IMPORTANCE = 20
-
-
-def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
-    """Rows of a design's growth sheet, in stack order (first row: emitter contact).
-
-    Material in trade notation; monolayers as whole numbers where the layer was
-    given in monolayers; contacts have no thickness (grown as thick as the
-    device process needs).
-    """
-    rows = []
-    for i, layer in enumerate(record["layers"] or []):
-        ml = layer["thickness_ml"]
-        nm = layer["thickness_nm"]
-        rows.append(
-            [
-                i,
-                layer["name"],
-                layer["label"],
-                "" if layer["x"] is None else f"{layer['x']:.3f}",
-                "" if ml is None else (str(ml) if isinstance(ml, int) else f"{ml:.2f}"),
-                "" if nm is None else f"{nm:.3f}",
-                f"{layer['doping_cm3']:.3g}",
-            ]
-        )
-    return rows
-
-
-def _designs_table(
-    study: Study, designs: list[dict[str, Any]]
-) -> tuple[list[str], list[list[Any]]]:
-    head = ["rank", "trial", "feasible"]
-    head += (
-        [f"objective:{o.metric}" for o in study.objectives] if study.multi_objective else ["score"]
-    )
-    head += ["spec_violation", *METRIC_NAMES, *study.parameter_names, "active_thickness_nm"]
-    rows = []
-    for d in designs:
-        row = [d["rank"], d["trial"], d["feasible"]]
-        row += list(d["objectives"].values()) if study.multi_objective else [d["score"]]
-        row += [d["spec_violation"], *(d["metrics"][k] for k in METRIC_NAMES)]
-        row += [d["params"].get(n) for n in study.parameter_names] + [d["active_thickness_nm"]]
-        rows.append([f"{v:.6g}" if isinstance(v, float) else v for v in row])
-    return head, rows
-
-
-def _feasible_objective(t: FrozenTrial, *, i: int, maximize: bool) -> float:
-    """Objective ``i`` as a value to minimise; designs off spec count as the worst."""
-    v = t.values[i]
-    if not (t.user_attrs.get("feasible") and math.isfinite(v)):
-        return math.inf
-    return -v if maximize else v
-
-
-def parameter_importances(
-    study: Study, ostudy: optuna.Study, complete: list[FrozenTrial]
-) -> dict[str, Any]:
-    """Optuna's parameter importances of the score (or of each objective).
-
-    Skipped (with a ``note``) below :data:`MIN_TRIALS_FOR_IMPORTANCE` complete
-    trials or with fewer than two parameters; multi-objective importances are
-    over the designs that meet the spec.
-    """
-    if len(study.variables) < 2:
-        return {"note": "fewer than two search parameters; nothing to rank"}
-    if len(complete) < MIN_TRIALS_FOR_IMPORTANCE:
-        return {
-            "note": f"only {len(complete)} complete trials; importances need "
-            f"{MIN_TRIALS_FOR_IMPORTANCE}"
-        }
-    out: dict[str, Any] = {}
-    targets: list[tuple[str, Callable[[FrozenTrial], float]]] = []
-    if study.multi_objective:
-        for i, o in enumerate(study.objectives):
-            targets.append(
-                (
-                    o.metric,
-                    functools.partial(_feasible_objective, i=i, maximize=o.direction == "maximize"),
-                )
-            )
-    else:
-        targets.append(("score", lambda t: float(t.values[0])))
-    for name, target in targets:
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                imp = optuna.importance.get_param_importances(ostudy, target=target)
-            out[name] = {k: float(v) for k, v in imp.items()}
-        except Exception as exc:  # noqa: BLE001 - too few distinct values, all-infinite targets, ...
-            out[name] = {"note": f"not computed ({type(exc).__name__}: {exc})"}
-    return out
-
-
-def write_outputs(
-    study: Study, ostudy: optuna.Study, result: SearchResult, complete: list[FrozenTrial]
-) -> None:
-    """Write designs.csv/json, growth sheets, history/Pareto/importance figures and the best I-V."""
-    from . import search_figures
-    from .outputs import write_csv, write_json
-
-    out = result.out_dir
-    files = result.files
-    files["designs_json"] = str(write_json(out / "designs.json", result.designs))
-    head, rows = _designs_table(study, result.designs)
-    files["designs_csv"] = str(write_csv(out / "designs.csv", head, rows))
-
-    sheets = out / "growth_sheets"
-    keep = set()
-    for d in result.designs:
-        if d["layers"] is None:
-            continue
-        path = write_csv(
-            sheets / f"rank{d['rank']:02d}_trial{d['trial']:05d}.csv",
-            GROWTH_SHEET_HEADER,
-            growth_sheet_rows(d),
-        )
-        keep.add(path.name)
-    if sheets.is_dir():
-        for old in sheets.glob("rank*_trial*.csv"):
-            if old.name not in keep:
-                old.unlink()
-    files["growth_sheets"] = str(sheets)
-
-    if complete:
-        files["history"] = str(search_figures.save_history(study, complete, out / "history.png"))
-        if study.multi_objective:
-            files["pareto"] = str(search_figures.save_pareto(study, complete, out / "pareto.png"))
-    importances = parameter_importances(study, ostudy, complete)
-    files["importances_json"] = str(write_json(out / "importances.json", importances))
-    plotted = {k: v for k, v in importances.items() if isinstance(v, dict) and "note" not in v}
-    if plotted:
-        files["importances"] = str(
-            search_figures.save_importances(plotted, out / "importances.png")
-        )
-    else:
-        note = importances.get("note") or next(
-            (v["note"] for v in importances.values() if "note" in v), ""
-        )
-        result.notes.append(f"parameter importances skipped: {note}")
-
-    best = result.best
-    if best is not None:
-        try:
-            from .figures import iv_figures
-        except ImportError:
-            result.notes.append(
-                "I-V figures of the best design skipped (optimize.figures not available)"
-            )
-        else:
-            from physics.iv import stack_iv
-
-            stack = study.stack(best["params"])
-            curves = stack_iv(stack, study.sweep.bias_v)
-            paths = iv_figures(stack, curves, out / "best_design")
-            files.update({f"best_{k}": str(v) for k, v in paths.items()})
-    result.files = files

@@ -5,9 +5,9 @@ same physics as the search (:func:`physics.iv.sweep`), many stacks per call,
 batches spread over processes with joblib (loky by default, or any joblib
 backend such as dask's).
 
-The spec is the study's ``[targets]`` windows: a sample passes when every
-figure of merit named there lies in its window (NaN, no NDR in the sweep,
-fails). The plain record this module produces (``tolerance.json``) is
+The spec is the study's ``[targets]`` windows (:class:`optimize.targets.Spec`,
+re-exported here): a sample passes when every figure of merit named there
+lies in its window (NaN, no NDR in the sweep, fails). The plain record this module produces (``tolerance.json``) is
 described in :func:`run_tolerance`.
 
 References
@@ -33,10 +33,12 @@ from physics.iv import METRIC_NAMES, sweep
 from physics.stack import LayerTable, ModelOptions, Stack
 
 from .growth import GrowthModel, as_generator
+from .targets import Spec  # re-exported: the pass/fail form of [targets]
 
 __all__ = [
     "Spec",
     "wilson_interval",
+    "yield_record",
     "evaluate_metrics",
     "monte_carlo_yield",
     "saltelli_design",
@@ -54,35 +56,7 @@ METHODS = ("sobol", "morris", "mc")
 Z_CLIP = 6.0
 
 
-# --------------------------------------------------------------------------- spec
-
-
-@dataclass(frozen=True)
-class Spec:
-    """Windows ``metric -> (low, high)`` a sample must meet (``-inf``/``inf`` when open)."""
-
-    windows: tuple[tuple[str, float, float], ...]
-
-    @classmethod
-    def from_study(cls, study: Any) -> Spec:
-        """The study's ``[targets]`` windows (objectives to push are not part of the spec)."""
-        return cls(tuple((w.metric, float(w.low), float(w.high)) for w in study.targets))
-
-    def misses(self, metrics: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-        """Per window, ``(n,)`` True where the sample misses it (NaN misses)."""
-        out = {}
-        for name, lo, hi in self.windows:
-            v = np.asarray(metrics[name], float)
-            with np.errstate(invalid="ignore"):
-                out[name] = ~((v >= lo) & (v <= hi))
-        return out
-
-    def passes(self, metrics: dict[str, np.ndarray]) -> np.ndarray:
-        n = len(next(iter(metrics.values())))
-        ok = np.ones(n, bool)
-        for miss in self.misses(metrics).values():
-            ok &= ~miss
-        return ok
+# --------------------------------------------------------------------------- statistics
 
 
 def wilson_interval(successes: int, n: int, *, confidence: float = 0.95) -> tuple[float, float]:
@@ -182,7 +156,9 @@ class Runner:
 # --------------------------------------------------------------------------- Monte Carlo
 
 
-def _yield_record(ok: np.ndarray, confidence: float = 0.95) -> dict[str, Any]:
+def yield_record(ok: np.ndarray, confidence: float = 0.95) -> dict[str, Any]:
+    """Yield of pass/fail outcomes ``ok``: ``value`` (fraction passing), ``ci_low``,
+    ``ci_high`` (Wilson score interval [1]_), ``samples``, ``passed``, ``confidence``."""
     k, n = int(np.count_nonzero(ok)), int(ok.size)
     lo, hi = wilson_interval(k, n, confidence=confidence)
     return {
@@ -205,7 +181,7 @@ def monte_carlo_yield(
 ) -> dict[str, Any]:
     """Monte Carlo yield with the Wilson interval and the failure breakdown.
 
-    Returns ``yield`` (see :func:`_yield_record`), ``failures`` (per window:
+    Returns ``yield`` (see :func:`yield_record`), ``failures`` (per window:
     samples missing it; ``no_ndr``: samples with no NDR in the sweep),
     ``metrics`` (arrays), ``passed`` (bool array), ``z`` and ``island_u`` (the
     random numbers, reused as common random numbers by the allocation).
@@ -218,7 +194,7 @@ def monte_carlo_yield(
     failures = {name: int(np.count_nonzero(m)) for name, m in spec.misses(metrics).items()}
     failures["no_ndr"] = int(np.count_nonzero(~np.isfinite(metrics["peak_current_density_a_cm2"])))
     return {
-        "yield": _yield_record(ok),
+        "yield": yield_record(ok),
         "failures": failures,
         "metrics": metrics,
         "passed": ok,

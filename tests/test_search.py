@@ -348,11 +348,11 @@ def test_resume_after_sigkill_keeps_completed_trials(write_study, tmp_path):
 
 def test_two_workers_share_one_sqlite_study(write_study, tmp_path):
     study = _study(write_study, well="{min = 8, max = 22}", barrier="{min = 3, max = 8}")
-    r = run_search(study, trials=16, workers=2, out_dir=tmp_path / "o", progress=False, write=False)
+    r = run_search(study, trials=24, workers=2, out_dir=tmp_path / "o", progress=False, write=False)
     trials = _trials(r, states=None)
     complete = [t for t in trials if t.state == TrialState.COMPLETE]
-    assert r.n_complete == len(complete) == 16
-    assert len({t.number for t in complete}) == 16
+    assert r.n_complete == len(complete) == 24
+    assert len({t.number for t in complete}) == 24
     assert len({t.user_attrs["worker"] for t in complete}) == 2  # both processes took trials
     assert not [t for t in trials if t.state == TrialState.RUNNING]
 
@@ -363,21 +363,22 @@ def test_postgresql_study_shared_by_workers_and_a_second_machine(
     study = _study(write_study, name="pg", well="{min = 8, max = 22}", barrier="{min = 3, max = 8}")
     r = run_search(
         study,
-        trials=10,
+        trials=16,
         workers=2,
         storage=postgres_url,
         out_dir=tmp_path / "o",
         progress=False,
         write=False,
     )
-    assert r.n_complete == 10 and r.storage == postgres_url
+    assert r.n_complete == 16 and r.storage == postgres_url
     assert len({t.user_attrs["worker"] for t in _trials(r)}) == 2
-    # "another machine": a separate command on the same URL joins the same study while this one runs
+    # "another machine": a separate command on the same URL, joined by this process once it runs
+    total = 32
     argv = [
         "search",
         str(tmp_path / "pg.toml"),
         "--trials",
-        "24",
+        str(total),
         "--storage",
         postgres_url,
         "--out",
@@ -391,15 +392,26 @@ def test_postgresql_study_shared_by_workers_and_a_second_machine(
         stderr=subprocess.PIPE,
         text=True,
     )
+    shared = optuna.load_study(study_name="pg", storage=postgres_url)
+    deadline = time.time() + 60
+    while len(shared.get_trials(deepcopy=False)) <= 16:  # wait until the other command takes trials
+        assert other.poll() is None and time.time() < deadline
+        time.sleep(0.05)
     here = run_search(
-        study, trials=24, storage=postgres_url, out_dir=tmp_path / "o", progress=False, write=False
+        study,
+        trials=total,
+        storage=postgres_url,
+        out_dir=tmp_path / "o",
+        progress=False,
+        write=False,
     )
     _, err = other.communicate(timeout=120)
     assert other.returncode == 0, err
     trials = _trials(here, states=None)
     complete = [t for t in trials if t.state == TrialState.COMPLETE]
-    assert len(complete) == 24 and len({t.number for t in complete}) == 24
-    assert len({t.user_attrs["worker"] for t in complete}) >= 3  # two workers, then both commands
+    assert len(complete) == total and len({t.number for t in complete}) == total
+    owners = {t.user_attrs["worker"] for t in complete if t.number >= 16}
+    assert len(owners) == 2  # both commands took trials of the shared study
     assert not [t for t in trials if t.state == TrialState.RUNNING]
 
 

@@ -1,0 +1,197 @@
+"""Robust search: each candidate's objective is its Monte Carlo yield under growth variation.
+
+With ``[search] robust = true`` (or ``wellwright search --robust``) every
+design the search proposes is grown ``robust_samples`` times on paper
+(:mod:`optimize.growth`, the study's ``[growth]`` spreads and the layers' own
+``growth`` tables) and the fraction of as-grown samples meeting the
+``[targets]`` windows (:class:`optimize.targets.Spec`) is its yield, stored
+with its Wilson interval as the trial attribute ``yield``. The search then
+prefers designs that survive growth over designs that are only nominally best
+(for example one whose peak current density sits at the edge of its window).
+
+Common random numbers
+---------------------
+Every trial uses the same random draws, so that two designs are compared on
+the same simulated growth runs and the difference of their yields is not
+sampling noise between trials (common practice in simulation optimisation).
+The standard-normal coordinate of each variation parameter is drawn from its
+own stream seeded by ``(seed, crc32(parameter name))``, and the island
+uniforms of each layer from ``(seed, crc32("islands:" + layer name))``, with
+``seed`` the study's ``[search] seed`` (not ``--seed``, which only reseeds the
+sampler: the yields of one study must stay comparable across resumed runs and
+machines). Sample ``k`` of every design therefore sees the same thickness
+error on ``barrier1``, the same ``AlAs.rate`` error, and so on.
+
+Evaluation
+----------
+All samples of one design are the rows of one
+:class:`physics.stack.LayerTable`, evaluated in one batched
+:func:`physics.iv.sweep` call per trial.
+
+Objective and ranking
+---------------------
+The Optuna value a robust search minimises is :func:`robust_value`:
+``(1 - yield)`` plus a tie-break from the nominal score
+(:func:`optimize.targets.single_score`) smaller than one sample's worth of
+yield, so designs are ordered by yield first and, at equal yield, by how well
+their nominal figures meet the spec (this also gives the sampler a gradient
+while every design it has seen still has zero yield).
+:func:`optimize.designs.rank_trials` ranks by yield, then nominal score.
+
+References
+----------
+.. [1] E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927) (score interval of the yield).
+"""
+
+from __future__ import annotations
+
+import math
+import zlib
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from physics.errors import InputError
+from physics.stack import Stack
+
+from .growth import GrowthSettings, parse_growth
+from .targets import Spec
+
+if TYPE_CHECKING:
+    from .study import Study
+
+__all__ = [
+    "RobustPlan",
+    "check_robust",
+    "common_random_numbers",
+    "design_yields",
+    "robust_value",
+]
+
+
+@dataclass(frozen=True)
+class RobustPlan:
+    """What a robust search needs besides the study: spreads, spec, samples, seed (plain data)."""
+
+    settings: GrowthSettings
+    per_layer: dict[str, GrowthSettings] = field(default_factory=dict)
+    spec: Spec = Spec(())
+    samples: int = 32
+    seed: int = 0
+
+
+def check_robust(study: Study) -> RobustPlan:
+    """Validate what a robust search of ``study`` needs and return its plan.
+
+    Raises
+    ------
+    InputError
+        When the study has no target window (a yield needs one), pushes two
+        or more objectives (a robust search has one objective, the yield), or
+        has a bad ``[growth]`` entry (naming the key and the allowed form).
+    """
+    if not study.targets:
+        raise InputError(
+            "a robust search needs at least one window (e.g. pvcr = {min = 3}) for the yield",
+            source=study.source,
+            key="targets",
+        )
+    if study.multi_objective:
+        raise InputError(
+            "a robust search has one objective, the yield; list at most one figure of merit "
+            "in maximize/minimize (it breaks ties between equal yields)",
+            source=study.source,
+            key="search.robust",
+        )
+    settings, per_layer = parse_growth(
+        study.reserved.get("growth"),
+        study.layer_growth,
+        layer_names=study.layer_names,
+        source=study.source,
+    )
+    return RobustPlan(
+        settings=settings,
+        per_layer=per_layer,
+        spec=Spec.from_windows(study.targets),
+        samples=study.search.robust_samples,
+        seed=study.search.seed,
+    )
+
+
+def _stream(seed: int, label: str) -> np.random.Generator:
+    return np.random.default_rng([int(seed), zlib.crc32(label.encode("utf-8"))])
+
+
+def common_random_numbers(
+    parameter_names: Sequence[str], layer_names: Sequence[str], *, samples: int, seed: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Standard normals ``(samples, n_parameters)`` and island uniforms ``(samples, n_layers)``.
+
+    Each column comes from its own stream keyed by ``seed`` and the parameter
+    (or layer) name, so a column depends only on its name: two designs with
+    the same named parameters get the same draws, whatever else they have.
+    """
+    if seed is None:
+        raise ValueError("common random numbers need a seed")
+    z = np.empty((samples, len(parameter_names)))
+    for j, name in enumerate(parameter_names):
+        z[:, j] = _stream(seed, name).standard_normal(samples)
+    u = np.empty((samples, len(layer_names)))
+    for i, name in enumerate(layer_names):
+        u[:, i] = _stream(seed, f"islands:{name}").random(samples)
+    return z, u
+
+
+def design_yields(
+    stacks: Sequence[Stack], bias_v: np.ndarray, plan: RobustPlan
+) -> list[dict[str, Any]]:
+    """Monte Carlo yield of each design with common random numbers (one sweep call per design).
+
+    Returns, per stack, :func:`optimize.tolerance.yield_record` (``value``,
+    ``ci_low``, ``ci_high``, ``samples``, ``passed``, ``confidence``) plus
+    ``failures``: per window, the samples missing it.
+    """
+    from physics.iv import sweep
+
+    from .growth import growth_model
+    from .tolerance import yield_record
+
+    out = []
+    for stack in stacks:
+        model = growth_model(stack, plan.settings, plan.per_layer)
+        z, u = common_random_numbers(
+            model.names,
+            [layer.name for layer in stack.layers],
+            samples=plan.samples,
+            seed=plan.seed,
+        )
+        table = model.as_grown(z, island_u=u)
+        metrics = sweep(table, np.asarray(bias_v, float), model=stack.model).metrics
+        rec = yield_record(plan.spec.passes(metrics))
+        rec["failures"] = {
+            name: int(np.count_nonzero(m)) for name, m in plan.spec.misses(metrics).items()
+        }
+        out.append(rec)
+    return out
+
+
+def robust_value(yield_value: float, score: float, *, samples: int) -> float:
+    """The value a robust search minimises: ``(1 - yield) + t(score) / (samples + 1)``.
+
+    Notes
+    -----
+    ``t(s) = (s + 1) / (s + 2)`` maps the nominal single-objective score
+    ``s`` (in ``(-1, 0]`` on spec, ``> 0`` off spec; see
+    :func:`optimize.targets.single_score`) monotonically into ``(0, 1)``
+    (1 for NaN). Divided by ``samples + 1`` it stays below one sample's worth
+    of yield (``1 / samples``), so it only orders designs of equal yield.
+    """
+    if not math.isfinite(score):
+        t = 1.0
+    elif score <= -1.0:
+        t = 0.0
+    else:
+        t = (score + 1.0) / (score + 2.0)
+    return (1.0 - float(yield_value)) + t / (samples + 1)

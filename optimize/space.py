@@ -1,0 +1,342 @@
+"""The design space of a study: variables (ranges of layer keys), ``same_as`` ties, concrete stacks.
+
+A study file's layers may carry ranges in place of values:
+``thickness_ml = {min = 4, max = 12}`` (whole monolayers),
+``x = {min = 0.45, max = 0.80, step = 0.01}``,
+``doping_cm3 = {min = 1e17, max = 5e18, log = true}``; a layer may be tied to
+another with ``same_as = "barrier1"`` (it then takes every key of that layer,
+ranges included, and shares its parameters). The search parameter of a range
+is named ``<layer name>.<key>``, e.g. ``barrier1.thickness_ml``.
+
+:func:`parse_space` turns the ``layers`` of a study file into a base stack
+dictionary (every range at its lower bound) and the :class:`Variable` list;
+:func:`stack_dict` fills parameter values back in.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+from physics.errors import InputError
+from physics.stack import LAYER_KEYS, TOP_KEYS, Stack
+
+__all__ = [
+    "Variable",
+    "RANGE_KEYS",
+    "parse_space",
+    "stack_dict",
+    "parameters_of",
+    "parameter_key",
+    "is_finite_number",
+]
+
+#: Layer keys that may be ranges (every numeric stack key).
+RANGE_KEYS = tuple(sorted(k for k, kind in LAYER_KEYS.items() if kind is float))
+
+
+@dataclass(frozen=True)
+class Variable:
+    """One search parameter: a range of one layer key, applied to one or more layers.
+
+    Attributes
+    ----------
+    name
+        ``<layer name>.<key>``, the Optuna parameter name.
+    key
+        The layer key (``thickness_ml``, ``x``, ...).
+    layers
+        Indices of the layers that take the value (several with ``same_as``).
+    low, high
+        Inclusive bounds, in the key's unit.
+    step
+        Grid step, or ``None`` for a continuous range (``thickness_ml``: 1
+        unless given).
+    log
+        Sample uniformly in the logarithm.
+    integer
+        Whole values (``thickness_ml``).
+    """
+
+    name: str
+    key: str
+    layers: tuple[int, ...]
+    low: float
+    high: float
+    step: float | None = None
+    log: bool = False
+    integer: bool = False
+
+    def contains(self, value: float) -> bool:
+        """Whether ``value`` is in the range and on its grid."""
+        if not self.low - 1e-12 * abs(self.low) <= value <= self.high + 1e-12 * abs(self.high):
+            return False
+        if self.step is not None:
+            k = (value - self.low) / self.step
+            return abs(k - round(k)) < 1e-6
+        return True
+
+    def describe(self) -> str:
+        """The range as written in a study file."""
+        parts = [f"min = {self.low:g}", f"max = {self.high:g}"]
+        if self.step is not None and not (self.integer and self.step == 1):
+            parts.append(f"step = {self.step:g}")
+        if self.log:
+            parts.append("log = true")
+        return "{" + ", ".join(parts) + "}"
+
+
+def is_finite_number(value: Any) -> bool:
+    """A finite int or float (a bool is not a number here)."""
+    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def stack_dict(
+    base: dict[str, Any], variables: Sequence[Variable], params: dict[str, float]
+) -> dict[str, Any]:
+    """A concrete stack dictionary (for :func:`physics.stack.parse_stack`).
+
+    Parameters
+    ----------
+    base
+        The stack dictionary with every range at its lower bound (from
+        :func:`parse_space`).
+    variables
+        The search parameters.
+    params
+        Value of every variable by parameter name; a missing one takes its
+        lower bound.
+    """
+    data = copy.deepcopy(base)
+    for var in variables:
+        value = params.get(var.name, var.low)
+        value = int(round(value)) if var.integer else float(f"{float(value):.12g}")
+        for i in var.layers:
+            data["layers"][i][var.key] = value
+    return data
+
+
+def parameters_of(
+    variables: Sequence[Variable],
+    stack: Stack,
+    *,
+    layer_names: Sequence[str],
+    source: str | None = None,
+) -> dict[str, float]:
+    """The variables' values in a stack whose layers carry the study's layer names.
+
+    Raises
+    ------
+    InputError
+        When a layer is missing or a value is outside its range.
+    """
+    by_name = {layer.name: layer for layer in stack.layers}
+    src = source or stack.source
+    params: dict[str, float] = {}
+    for var in variables:
+        layer_name = var.name.rsplit(".", 1)[0]
+        if layer_name not in by_name:
+            raise InputError(
+                f"has no layer named '{layer_name}'; its layers must carry the study's "
+                f"layer names ({', '.join(layer_names)})",
+                source=src,
+                key="name",
+            )
+        value = getattr(by_name[layer_name], var.key)
+        if value is None:
+            raise InputError(
+                f"gives no {var.key} for layer '{layer_name}'", source=src, key=var.name
+            )
+        if var.integer:
+            if abs(value - round(value)) > 1e-6:
+                raise InputError(
+                    f"{value:g} is not a whole number of monolayers", source=src, key=var.name
+                )
+            value = int(round(value))
+        if not var.contains(value):
+            raise InputError(
+                f"{value:g} outside the study's range {var.describe()}",
+                source=src,
+                key=var.name,
+            )
+        params[var.name] = value
+    return params
+
+
+def parameter_key(variables: Sequence[Variable], params: dict[str, Any]) -> tuple:
+    """A hashable key of a parameter set (equal for the same design; rounding noise removed)."""
+    return tuple(round(float(params[v.name]), 12) if v.name in params else None for v in variables)
+
+
+def parse_space(
+    data: dict[str, Any], *, source: str
+) -> tuple[dict[str, Any], tuple[Variable, ...], dict[str, Any]]:
+    """Split layers into fixed values and ranges; resolve ``same_as``."""
+    raw_layers = data.get("layers")
+    if not isinstance(raw_layers, list) or not all(isinstance(x, dict) for x in raw_layers):
+        raise InputError("needs a list of [[layers]] tables", source=source, key="layers")
+    n = len(raw_layers)
+    names = []
+    for i, raw in enumerate(raw_layers):
+        default = "emitter" if i == 0 else ("collector" if i == n - 1 else f"layer{i}")
+        nm = raw.get("name", default)
+        if not isinstance(nm, str) or not nm or "." in nm:
+            raise InputError(
+                f"must be a non-empty string without '.', got {nm!r}",
+                source=source,
+                layer=i,
+                key="name",
+            )
+        if nm in names:
+            raise InputError(f"name '{nm}' used twice", source=source, layer=i, key="name")
+        names.append(nm)
+
+    layer_growth: dict[str, Any] = {}
+    layers: list[dict[str, Any]] = []
+    ranges: dict[tuple[int, str], dict[str, Any]] = {}
+    for i, raw in enumerate(raw_layers):
+        fixed: dict[str, Any] = {"name": names[i]}
+        for key, value in raw.items():
+            if key == "name":
+                continue
+            if key == "growth":
+                if not isinstance(value, dict):
+                    raise InputError(
+                        "must be a table, e.g. growth = {...}", source=source, layer=i, key=key
+                    )
+                layer_growth[names[i]] = copy.deepcopy(value)
+                continue
+            if key == "same_as":
+                fixed["same_as"] = value
+                continue
+            if isinstance(value, dict):
+                if key not in RANGE_KEYS:
+                    raise InputError(
+                        f"cannot be a range; keys that may be ranges: {', '.join(RANGE_KEYS)}",
+                        source=source,
+                        layer=i,
+                        key=key,
+                    )
+                ranges[(i, key)] = value
+                continue
+            fixed[key] = value
+        layers.append(fixed)
+
+    # same_as: a tied layer takes every key of its reference (resolved through chains)
+    resolved: dict[int, int] = {}
+    for i, layer in enumerate(layers):
+        if "same_as" not in layer:
+            continue
+        target = layer["same_as"]
+        if not isinstance(target, str):
+            raise InputError(
+                f"must be the name of another layer, got {target!r}",
+                source=source,
+                layer=i,
+                key="same_as",
+            )
+        extra = sorted(k for k in raw_layers[i] if k not in ("name", "same_as", "growth"))
+        if extra:
+            raise InputError(
+                f"a layer with same_as takes only name (and growth); remove {', '.join(extra)}",
+                source=source,
+                layer=i,
+                key="same_as",
+            )
+        seen = {i}
+        j = i
+        while "same_as" in layers[j]:
+            ref = layers[j]["same_as"]
+            if ref not in names:
+                raise InputError(
+                    f"'{ref}' is not a layer name; layers: {', '.join(names)}",
+                    source=source,
+                    layer=j,
+                    key="same_as",
+                )
+            j = names.index(ref)
+            if j in seen:
+                raise InputError(
+                    "same_as chain loops back to this layer", source=source, layer=i, key="same_as"
+                )
+            seen.add(j)
+        resolved[i] = j
+    for i, j in resolved.items():
+        tied = {k: copy.deepcopy(v) for k, v in layers[j].items() if k not in ("name", "same_as")}
+        tied["name"] = names[i]
+        layers[i] = tied
+
+    # ranges -> variables (a tied layer shares the reference's variable)
+    variables = []
+    for (i, key), spec in ranges.items():
+        tied_layers = (i,) + tuple(t for t, ref in resolved.items() if ref == i)
+        var = parse_range(
+            spec, name=f"{names[i]}.{key}", key=key, layers=tied_layers, source=source, index=i
+        )
+        variables.append(var)
+        for t in var.layers:
+            layers[t][key] = int(var.low) if var.integer else var.low
+    variables.sort(key=lambda v: (v.layers[0], v.key))
+
+    base = {k: copy.deepcopy(v) for k, v in data.items() if k in TOP_KEYS and k != "layers"}
+    base["layers"] = layers
+    return base, tuple(variables), layer_growth
+
+
+def parse_range(
+    spec: dict[str, Any], *, name: str, key: str, layers: tuple[int, ...], source: str, index: int
+) -> Variable:
+    integer = key == "thickness_ml"
+    form = (
+        "{min = 4, max = 12} in whole monolayers (optional step, log)"
+        if integer
+        else "{min = .., max = ..} with optional step = .. or log = true"
+    )
+
+    def err(message: str, sub: str | None = None) -> InputError:
+        return InputError(
+            message, source=source, layer=index, key=key if sub is None else f"{key}.{sub}"
+        )
+
+    unknown = sorted(set(spec) - {"min", "max", "step", "log"})
+    if unknown:
+        raise err(f"unknown range key {unknown[0]!r}; a range is {form}", unknown[0])
+    for bound in ("min", "max"):
+        if bound not in spec:
+            raise err(f"range needs min and max; a range is {form}", bound)
+        if not is_finite_number(spec[bound]):
+            raise err(f"must be a finite number, got {spec[bound]!r}", bound)
+        if integer and float(spec[bound]) != int(spec[bound]):
+            raise err(f"{spec[bound]!r} is not a whole number of monolayers", bound)
+    low, high = float(spec["min"]), float(spec["max"])
+    if not low < high:
+        raise err(f"min ({low:g}) must be below max ({high:g})", "max")
+    log = spec.get("log", False)
+    if not isinstance(log, bool):
+        raise err(f"must be true or false, got {log!r}", "log")
+    step = spec.get("step")
+    if step is not None:
+        if not is_finite_number(step) or step <= 0:
+            raise err(f"must be a positive number, got {step!r}", "step")
+        if integer and float(step) != int(step):
+            raise err(f"{step!r} is not a whole number of monolayers", "step")
+        if log:
+            raise err("give either step or log = true, not both", "step")
+        k = (high - low) / step
+        if abs(k - round(k)) > 1e-6:
+            raise err(
+                f"max - min ({high - low:g}) must be a whole number of steps of {step:g}", "step"
+            )
+        step = float(step)
+    if log and low <= 0:
+        raise err(f"log = true needs min > 0, got {low:g}", "min")
+    if integer and step is None and not log:
+        step = 1.0
+    if integer and log:
+        step = 1.0
+    return Variable(
+        name=name, key=key, layers=layers, low=low, high=high, step=step, log=log, integer=integer
+    )

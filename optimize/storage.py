@@ -1,0 +1,248 @@
+"""Where a study lives: storage URLs, SQLite settings, opening a study, heartbeats, dead trials.
+
+The study is kept in an Optuna RDB storage: a SQLite file ``DIR/study.db`` by
+default, any SQLAlchemy URL (``postgresql+psycopg2://...``) to share one study
+between machines. Running trials carry heartbeats; a worker that looks fails
+the trials of dead workers (Optuna's heartbeat for any machine, plus trials of
+processes of this host that no longer exist, so a run killed with ``kill -9``
+resumes at once).
+"""
+
+from __future__ import annotations
+
+import functools
+import os
+import socket
+import threading
+import time
+import warnings
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import optuna
+from optuna.trial import FrozenTrial, TrialState
+
+from physics.errors import InputError
+
+if TYPE_CHECKING:
+    from .study import Study
+
+__all__ = [
+    "storage_url",
+    "check_storage_url",
+    "make_storage",
+    "open_study",
+    "fail_dead_trials",
+    "Heartbeat",
+    "worker_identity",
+    "HEARTBEAT_INTERVAL_S",
+    "GRACE_PERIOD_S",
+]
+
+#: Seconds between heartbeats of a running trial; a trial without one for
+#: ``GRACE_PERIOD_S`` is failed by the next worker that looks.
+HEARTBEAT_INTERVAL_S = 10
+GRACE_PERIOD_S = 60
+
+
+def storage_url(storage: str | None, out_dir: str | Path) -> str:
+    """The storage URL: ``storage`` as given, or the SQLite file ``out_dir/study.db``."""
+    if storage:
+        return storage
+    return f"sqlite:///{Path(out_dir).resolve() / 'study.db'}"
+
+
+def check_storage_url(url: str) -> None:
+    """Reject a malformed or unsupported URL before anything is written."""
+    import sqlalchemy.engine
+
+    try:
+        parsed = sqlalchemy.engine.make_url(url)
+    except Exception:  # noqa: BLE001 - sqlalchemy raises several types for bad URLs
+        raise InputError(
+            f"{url!r} is not a database URL; use e.g. sqlite:///study.db or "
+            "postgresql+psycopg2://user@host:5432/db",
+            key="--storage",
+        ) from None
+    if parsed.get_backend_name() == "sqlite" and not parsed.database:
+        raise InputError(
+            "an in-memory SQLite database cannot be shared or resumed; give a file", key="--storage"
+        )
+
+
+def _sqlite_connect(database: str) -> Any:
+    import sqlite3
+
+    con = sqlite3.connect(database, timeout=60, check_same_thread=False)
+    con.execute("PRAGMA journal_mode=WAL")
+    con.execute("PRAGMA synchronous=NORMAL")
+    return con
+
+
+def make_storage(url: str) -> optuna.storages.RDBStorage:
+    """An RDB storage with heartbeats, tuned for several processes.
+
+    SQLite waits up to 60 s for a lock instead of failing and runs in WAL
+    mode with ``synchronous = NORMAL`` (a commit survives the death of the
+    process, which is what resuming needs; readers do not block the writer);
+    the file must be on a local disk. A server database checks connections
+    before use (long runs outlive idle connections).
+    """
+    check_storage_url(url)
+    if url.startswith("sqlite"):
+        import sqlalchemy.engine
+
+        database = str(sqlalchemy.engine.make_url(url).database)
+        engine_kwargs: dict[str, Any] = {"creator": functools.partial(_sqlite_connect, database)}
+    else:
+        engine_kwargs = {"pool_pre_ping": True}
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
+            return optuna.storages.RDBStorage(
+                url,
+                engine_kwargs=engine_kwargs,
+                heartbeat_interval=HEARTBEAT_INTERVAL_S,
+                grace_period=GRACE_PERIOD_S,
+            )
+    except ImportError as exc:
+        raise InputError(
+            f"database driver missing ({exc}); pip install psycopg2-binary for PostgreSQL",
+            key="--storage",
+        ) from None
+    except Exception as exc:  # noqa: BLE001 - connection and driver errors of any backend
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise InputError(f"cannot open the storage ({first})", key="--storage") from None
+
+
+def open_study(
+    study: Study,
+    storage: optuna.storages.BaseStorage,
+    *,
+    sampler: optuna.samplers.BaseSampler | None = None,
+) -> optuna.Study:
+    """Create the Optuna study or load it to resume, checking it was made from the same file.
+
+    Raises
+    ------
+    InputError
+        When the storage holds a study of this name made from a different
+        search space, spec or sweep (``[search] study_name`` picks another name).
+    """
+    name = study.optuna_name
+    try:
+        ostudy = optuna.create_study(
+            storage=storage,
+            study_name=name,
+            directions=[optuna.study.StudyDirection[d.upper()] for d in study.directions],
+            load_if_exists=True,
+            sampler=sampler,
+        )
+    except Exception as exc:  # noqa: BLE001
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise InputError(
+            f"cannot create or load study '{name}' ({first})", key="--storage"
+        ) from None
+    directions = tuple(d.name.lower() for d in ostudy.directions)
+    stored = ostudy.user_attrs.get("wellwright_fingerprint")
+    if stored is None and not ostudy.get_trials(deepcopy=False):
+        ostudy.set_user_attr("wellwright_fingerprint", study.fingerprint())
+        ostudy.set_user_attr("wellwright_source", study.source)
+        ostudy.set_user_attr("parameters", list(study.parameter_names))
+        ostudy.set_user_attr(
+            "objectives", [f"{o.direction} {o.metric}" for o in study.objectives] or ["score"]
+        )
+        stored = study.fingerprint()
+    if stored != study.fingerprint() or directions != study.directions:
+        raise InputError(
+            f"the storage already holds a study '{name}' made from a different search space, "
+            "spec or sweep; "
+            "set [search] study_name to a new name or use another --out/--storage",
+            source=study.source,
+            key="search.study_name",
+        )
+    return ostudy
+
+
+class Heartbeat:
+    """Records a heartbeat for the current trials every interval, in a thread."""
+
+    def __init__(self, storage: optuna.storages.RDBStorage) -> None:
+        self._storage = storage
+        self._ids: set[int] = set()
+        self._lock = threading.Lock()
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+        self._thread.start()
+
+    def add(self, trial_id: int) -> None:
+        self._storage.record_heartbeat(trial_id)
+        with self._lock:
+            self._ids.add(trial_id)
+
+    def clear(self) -> None:
+        with self._lock:
+            self._ids.clear()
+
+    def _run(self) -> None:
+        while not self._stop.wait(HEARTBEAT_INTERVAL_S):
+            with self._lock:
+                ids = list(self._ids)
+            for trial_id in ids:
+                try:
+                    self._storage.record_heartbeat(trial_id)
+                except Exception:  # noqa: BLE001 - the next beat retries; staleness fails the trial
+                    pass
+
+    def stop(self) -> None:
+        self._stop.set()
+        self._thread.join(timeout=5)
+
+
+def worker_identity() -> str:
+    return f"{socket.gethostname()}:{os.getpid()}"
+
+
+def _pid_alive(pid: int) -> bool:
+    """Whether a process of this host exists and is not a zombie (killed, not yet reaped)."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii") as f:
+            return f.read().rsplit(")", 1)[1].split()[0] != "Z"
+    except (OSError, IndexError):
+        return True  # no /proc (not Linux): existence is all we can tell
+
+
+def fail_dead_trials(ostudy: optuna.Study, running: list[FrozenTrial]) -> int:
+    """Fail running trials whose process is gone; returns how many.
+
+    Optuna's heartbeat catches any machine's dead workers after the grace
+    period; a trial of a process of this host that no longer exists is failed
+    at once, and one that never got a worker tag within the grace period too.
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
+        optuna.storages.fail_stale_trials(ostudy)
+    host = socket.gethostname()
+    now = time.time()
+    failed = 0
+    for t in running:
+        owner = t.user_attrs.get("worker")
+        dead = False
+        if owner:
+            h, _, pid = owner.rpartition(":")
+            dead = h == host and pid.isdigit() and not _pid_alive(int(pid))
+        elif t.datetime_start is not None:
+            dead = now - t.datetime_start.timestamp() > GRACE_PERIOD_S
+        if dead:
+            try:
+                ostudy.tell(t.number, state=TrialState.FAIL, skip_if_finished=True)
+                failed += 1
+            except (optuna.exceptions.UpdateFinishedTrialError, ValueError):
+                pass  # finished or failed by another worker meanwhile
+    return failed
