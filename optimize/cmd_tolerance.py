@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import tomllib
 import warnings
 from pathlib import Path
 from typing import Any
@@ -13,7 +12,7 @@ from typing import Any
 import numpy as np
 
 from physics.errors import InputError
-from physics.stack import CriticalThicknessWarning, Stack, parse_stack
+from physics.stack import CriticalThicknessWarning, Stack, parse_stack, read_toml
 
 from .growth import growth_model, parse_growth, split_layer_growth
 from .study import Study, load_study
@@ -142,13 +141,7 @@ def _from_search(study: Study, which: str, search_dir: Path) -> tuple[Stack, dic
 
 
 def _from_file(study: Study, path: Path) -> tuple[Stack, dict[str, Any], dict[str, Any]]:
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise InputError(f"cannot read ({exc.strerror})", source=str(path)) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc})", source=str(path)) from None
-    data, layer_growth = split_layer_growth(data)
+    data, layer_growth = split_layer_growth(read_toml(path))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", CriticalThicknessWarning)
         stack = parse_stack(data, source=str(path))

@@ -43,7 +43,6 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
-import tomllib
 import warnings
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -52,7 +51,14 @@ from typing import Any
 import numpy as np
 
 from physics.errors import InputError
-from physics.stack import TOP_KEYS, CriticalThicknessWarning, Stack, load_stack, parse_stack
+from physics.stack import (
+    TOP_KEYS,
+    CriticalThicknessWarning,
+    Stack,
+    load_stack,
+    parse_stack,
+    read_toml,
+)
 
 from . import space as _space
 from . import targets as _targets
@@ -318,16 +324,7 @@ def load_study(path: str | Path) -> Study:
     """
     path = Path(path)
     source = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found", source=source) from None
-    except OSError as exc:
-        raise InputError(f"cannot read file ({exc.strerror})", source=source) from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc})", source=source) from None
+    data = read_toml(path)
     return parse_study(data, source=source, name=path.stem, base_dir=path.parent)
 
 

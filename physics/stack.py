@@ -28,6 +28,7 @@ __all__ = [
     "LayerTable",
     "load_stack",
     "parse_stack",
+    "read_toml",
     "CriticalThicknessWarning",
 ]
 
@@ -200,6 +201,27 @@ class LayerTable:
 # --------------------------------------------------------------------------- parsing
 
 
+def read_toml(path: str | Path) -> dict[str, Any]:
+    """The parsed TOML document at ``path``.
+
+    Raises
+    ------
+    InputError
+        For a missing or unreadable file or bad TOML, naming the file.
+    """
+    source = str(path)
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("file not found", source=source) from None
+    except OSError as exc:
+        raise InputError(f"cannot read file ({exc.strerror})", source=source) from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc})", source=source) from None
+
+
 def load_stack(path: str | Path) -> Stack:
     """Read and validate a stack file.
 
@@ -208,19 +230,7 @@ def load_stack(path: str | Path) -> Stack:
     InputError
         For a missing or unreadable file, bad TOML or any invalid entry.
     """
-    path = Path(path)
-    source = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found", source=source) from None
-    except OSError as exc:
-        raise InputError(f"cannot read file ({exc.strerror})", source=source) from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc})", source=source) from None
-    return parse_stack(data, source=source)
+    return parse_stack(read_toml(path), source=str(path))
 
 
 def _typed(value: Any, kind: type, *, source: str, layer: int | None, key: str) -> Any:
