@@ -21,6 +21,9 @@ COMMAND_MODULES = (
     "optimize.cmd_search",
     "optimize.cmd_packet",
     "optimize.cmd_tolerance",
+    "optimize.cmd_run",
+    "optimize.cmd_demo",
+    "optimize.cmd_report",
 )
 
 

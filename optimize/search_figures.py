@@ -35,7 +35,7 @@ OKABE_ITO = PALETTE  # one palette for every figure: optimize.figures.PALETTE
 
 def metric_axis(metric: str) -> tuple[str, float]:
     """Axis label and the factor from the metric's SI-ish unit to the trade's unit."""
-    words = metric.replace("_a_cm2", "").replace("_v", "").replace("_", " ")
+    words = metric.removesuffix("_a_cm2").removesuffix("_v").replace("_", " ")
     if metric.endswith("_a_cm2"):
         return f"{words} (kA/cm$^2$)", 1e-3
     if metric.endswith("_v"):

@@ -1,0 +1,24 @@
+"""``wellwright report``: (re)build the HTML report of a finished run folder."""
+
+from __future__ import annotations
+
+import argparse
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser(
+        "report",
+        help="(re)build DIR/report.html from a finished 'wellwright run'",
+        description="Rebuild the self-contained HTML report, its PNG figures and CSV/JSON tables "
+        "from the files of a finished run folder (search and tolerance are not recomputed).",
+    )
+    p.add_argument("dir", metavar="DIR", help="run folder made by 'wellwright run' or 'demo'")
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    from .report import build_report
+
+    path = build_report(args.dir)
+    print(f"report: {path.resolve()}")
+    return 0

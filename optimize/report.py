@@ -1,0 +1,561 @@
+"""The run report: one self-contained HTML file with figures and tables beside it.
+
+:func:`build_report` reads a finished run folder (see :mod:`optimize.pipeline`)
+and writes ``DIR/report.html`` (inline CSS, figures embedded as base64 PNG, no
+scripts, no external resources: it opens from disk with no network) and
+``DIR/report_files/`` holding the same figures as PNG and the tables as CSV,
+with ``report.json`` gathering every table of the report.
+
+Sections, in order: the brief (spec, constraints, design space); the
+candidates (ranked designs with figures of merit); the search (history and
+Pareto front); one card per reported design (growth sheet, I-V with peak and
+valley, band diagram with resonance levels, T(E)); the growth check (yield
+with Wilson interval and failures by spec, sensitivity ranking, tornado,
+tolerance allocation); the model and its limits; reproducing the run.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import json
+import os
+import platform
+import re
+import tempfile
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+from physics.errors import InputError
+
+from .outputs import atomic_write_text, save_figure, write_csv, write_json
+from .pipeline import load_run, study_from_run
+from .study import Study
+
+__all__ = ["build_report", "SECTIONS", "versions"]
+
+#: (anchor, heading) of every section, in order; tests check each is present.
+SECTIONS = (
+    ("brief", "1. The brief: spec and design space"),
+    ("candidates", "2. Candidates found"),
+    ("search", "3. How the search went"),
+    ("designs", "4. Reported designs: growth sheets and simulated curves"),
+    ("growth", "5. Will it survive growth? Yield, sensitivity, tolerances"),
+    ("model", "6. Model, assumptions and caution"),
+    ("reproduce", "7. Reproducing this run"),
+)
+FILES_DIR = "report_files"
+
+CSS = """
+body{font-family:"DejaVu Sans",Helvetica,Arial,sans-serif;color:#1a1a1a;margin:0;
+background:#f4f4f1;line-height:1.45}
+main{max-width:1080px;margin:0 auto;padding:24px 32px 48px;background:#fff}
+header{border-bottom:4px solid #0072B2;padding-bottom:10px;margin-bottom:8px}
+h1{font-size:1.7em;margin:0 0 4px}h2{font-size:1.3em;margin-top:2.2em;
+border-bottom:1px solid #ccc;padding-bottom:4px;color:#0b3c5d}
+h3{font-size:1.1em;margin-top:1.6em}
+.tag{display:inline-block;background:#E69F00;color:#000;font-weight:bold;padding:2px 8px;
+border-radius:3px;font-size:.85em;margin-right:6px}
+.caution{border-left:6px solid #D55E00;background:#fdf1e8;padding:8px 14px;margin:14px 0}
+.ok{color:#006b4f;font-weight:bold}.bad{color:#a33c00;font-weight:bold}
+table{border-collapse:collapse;margin:8px 0 14px;font-size:.9em}
+th,td{border:1px solid #d0d0d0;padding:3px 8px;text-align:right}
+th{background:#eef3f7}td.l,th.l{text-align:left}
+figure{margin:10px 0 18px}figure img{max-width:100%;border:1px solid #e2e2e2}
+figcaption{font-size:.85em;color:#444}
+.pair{display:flex;flex-wrap:wrap;gap:14px}.pair figure{flex:1 1 460px;margin:6px 0}
+.card{border:1px solid #cfd8de;border-radius:6px;padding:4px 18px 10px;margin:18px 0}
+nav ol{columns:2;font-size:.92em}code{background:#f0f0f0;padding:0 3px}
+.small{font-size:.85em;color:#444}
+"""
+
+ASSUMPTIONS = [
+    "Transport is coherent and one-dimensional with the transverse momentum conserved; the "
+    "current is the Tsu-Esaki integral (R. Tsu and L. Esaki, Appl. Phys. Lett. 22, 562 (1973)) "
+    "with Fermi-Dirac supply in both contacts.",
+    "Transmission by a transfer-type recursion with BenDaniel-Duke matching (Phys. Rev. 152, "
+    "683 (1966)) and an energy-dependent (nonparabolic) mass.",
+    "Gamma-valley band edges, masses, nonparabolicity and pseudomorphic strain from "
+    "I. Vurgaftman, J. R. Meyer and L. R. Ram-Mohan, J. Appl. Phys. 89, 5815 (2001); X and L "
+    "valleys are not modelled.",
+    "The bias drops linearly between the contacts: no accumulation, depletion or well charge, "
+    "so simulated peak voltages come out low against measured devices.",
+    "No scattering, phonon-assisted or interface-roughness current and no self-heating: valley "
+    "currents come out far below measured ones and the PVCR far too high.",
+    "Growth spreads (the study's [growth] table) are one-sigma figures; a fractional as-grown "
+    "thickness is modelled as lateral islands of the two neighbouring whole monolayers.",
+]
+CAUTION = (
+    "Every figure in this report is a simulated estimate from a model with the assumptions "
+    "listed in section 6. Calibrate it against measured devices from your own growth and "
+    "processing before any growth decision; use it to compare designs and to see trends and "
+    "sensitivities, not as a prediction of a wafer."
+)
+
+METRIC_COLUMNS = (
+    ("peak_current_density_a_cm2", "J<sub>p</sub> (kA/cm<sup>2</sup>)", 1e-3, ".1f"),
+    ("peak_voltage_v", "V<sub>p</sub> (mV)", 1e3, ".0f"),
+    ("valley_current_density_a_cm2", "J<sub>v</sub> (kA/cm<sup>2</sup>)", 1e-3, ".3g"),
+    ("valley_voltage_v", "V<sub>v</sub> (mV)", 1e3, ".0f"),
+    ("pvcr", "PVCR", 1.0, ".1f"),
+    ("delta_current_density_a_cm2", "&Delta;J (kA/cm<sup>2</sup>)", 1e-3, ".1f"),
+)
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def versions() -> dict[str, str]:
+    """Versions of wellwright and the libraries whose numbers shape the results."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {}
+    for name in ("wellwright", "numpy", "scipy", "optuna", "SALib", "matplotlib", "joblib"):
+        try:
+            out[name] = version(name)
+        except PackageNotFoundError:
+            out[name] = "not installed"
+    out["Python"] = platform.python_version()
+    return out
+
+
+def _esc(value: Any) -> str:
+    return html.escape("" if value is None else str(value))
+
+
+def _num(value: Any, factor: float = 1.0, spec: str = ".3g") -> str:
+    if value is None or (isinstance(value, float) and value != value):
+        return "-"
+    return format(value * factor, spec)
+
+
+def _table(head: list[str], rows: list[list[Any]], *, left: int = 1, raw: bool = False) -> str:
+    """An HTML table; the first ``left`` columns left-aligned; ``raw`` head is trusted HTML."""
+    out = ["<table><thead><tr>"]
+    for i, h in enumerate(head):
+        out.append(f'<th class="{"l" if i < left else ""}">{h if raw else _esc(h)}</th>')
+    out.append("</tr></thead><tbody>")
+    for row in rows:
+        out.append("<tr>")
+        for i, v in enumerate(row):
+            out.append(f'<td class="{"l" if i < left else ""}">{v}</td>')
+        out.append("</tr>")
+    out.append("</tbody></table>")
+    return "".join(out)
+
+
+def _write_bytes(path: Path, data: bytes) -> Path:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as f:
+            f.write(data)
+        os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path
+
+
+class _Figures:
+    """Collects the report's PNG files and embeds them."""
+
+    def __init__(self, folder: Path) -> None:
+        self.folder = folder
+        self.names: list[str] = []
+
+    def add_figure(self, fig: Any, name: str) -> Path:
+        path = save_figure(fig, self.folder / name, dpi=110)
+        self.names.append(name)
+        return path
+
+    def add_file(self, src: Path, name: str) -> Path | None:
+        if not src.is_file():
+            return None
+        self.names.append(name)
+        return _write_bytes(self.folder / name, src.read_bytes())
+
+    def html(self, name: str, caption: str, alt: str) -> str:
+        path = self.folder / name
+        if not path.is_file():
+            return f'<p class="small">({_esc(caption)}: not available)</p>'
+        data = base64.b64encode(path.read_bytes()).decode("ascii")
+        return (
+            f'<figure><img alt="{_esc(alt)}" src="data:image/png;base64,{data}">'
+            f"<figcaption>{caption} <span class=\"small\">[{FILES_DIR}/{_esc(name)}]</span>"
+            "</figcaption></figure>"
+        )
+
+
+# --------------------------------------------------------------------------- sections
+
+
+#: Trade label (HTML) and factor from the metric's unit to the trade's unit.
+TRADE_UNITS = {
+    "peak_current_density_a_cm2": ("peak current density J<sub>p</sub> (kA/cm<sup>2</sup>)", 1e-3),
+    "valley_current_density_a_cm2": ("valley current density J<sub>v</sub> (kA/cm<sup>2</sup>)",
+                                     1e-3),
+    "delta_current_density_a_cm2": ("current swing &Delta;J (kA/cm<sup>2</sup>)", 1e-3),
+    "peak_voltage_v": ("peak voltage V<sub>p</sub> (mV)", 1e3),
+    "valley_voltage_v": ("valley voltage V<sub>v</sub> (mV)", 1e3),
+    "delta_voltage_v": ("voltage swing &Delta;V (mV)", 1e3),
+    "pvcr": ("PVCR (peak-to-valley current ratio)", 1.0),
+}
+
+
+def metric_axis(metric: str) -> tuple[str, float]:
+    return TRADE_UNITS.get(metric, (_esc(metric), 1.0))
+
+
+def _short(param: str) -> str:
+    """``barrier1.thickness_ml`` -> ``barrier1 (ML)`` for narrow table headings."""
+    layer, _, key = param.partition(".")
+    unit = {"thickness_ml": "ML", "thickness_nm": "nm", "x": "x", "doping_cm3": "cm<sup>-3</sup>"}
+    return f"{_esc(layer)} ({unit.get(key, _esc(key))})"
+
+
+def _brief(study: Study, files: Path) -> tuple[str, dict[str, Any]]:
+    spec_rows, spec_csv = [], []
+    for w in study.targets:
+        label, factor = metric_axis(w.metric)
+        lo = None if w.low == float("-inf") else w.low * factor
+        hi = None if w.high == float("inf") else w.high * factor
+        spec_rows.append([label, _num(lo, spec=".4g"), _num(hi, spec=".4g")])
+        spec_csv.append([w.metric, lo, hi, html.unescape(re.sub("<[^>]+>", "", label))])
+    objectives = [f"{o.direction} {o.metric}" for o in study.objectives]
+    c = study.constraints
+    cons = []
+    if c.max_active_thickness_nm is not None:
+        cons.append(f"active thickness at most {c.max_active_thickness_nm:g} nm")
+    if c.critical_thickness:
+        cons.append("every strained layer below its Matthews-Blakeslee critical thickness")
+    for w in c.metric_bounds:
+        cons.append(w.describe())
+    var_rows, var_csv = [], []
+    for v in study.variables:
+        unit = "ML" if v.key == "thickness_ml" else ("cm^-3" if v.key == "doping_cm3" else "")
+        step = "1 ML" if v.integer else ("-" if v.step is None else f"{v.step:g}")
+        var_rows.append([_esc(v.name), _esc(v.key), _num(v.low, spec=".4g"),
+                         _num(v.high, spec=".4g"), _esc(step), "log" if v.log else "linear",
+                         _esc(unit)])
+        var_csv.append([v.name, v.key, v.low, v.high, step, v.log, unit])
+    write_csv(files / "spec.csv", ["metric", "min_trade_unit", "max_trade_unit", "label"], spec_csv)
+    write_csv(files / "design_space.csv", ["parameter", "key", "min", "max", "step", "log", "unit"],
+              var_csv)
+    body = [
+        "<p>A design meets the spec when every figure of merit below lies in its window "
+        "(units as in the column headings).</p>",
+        _table(["figure of merit", "min", "max"], spec_rows, raw=True),
+        f"<p><b>Pushed once the spec is met:</b> {_esc(', '.join(objectives) or 'closeness to the spec')}"
+        f"{' (several objectives: a Pareto front)' if study.multi_objective else ''}.</p>",
+        f"<p><b>Constraints:</b> {_esc('; '.join(cons) or 'none')}.</p>",
+        "<h3>Where the search looked</h3>",
+        _table(["parameter", "key", "min", "max", "step", "scale", "unit"], var_rows),
+        f"<p class=\"small\">Study file: <code>{_esc(study.source)}</code>; each trial sweeps "
+        f"{study.sweep.points} bias points from {study.sweep.bias_min_v * 1e3:.0f} to "
+        f"{study.sweep.bias_max_v * 1e3:.0f} mV at {study.base.get('temperature_k', 300)} K.</p>",
+    ]
+    data = {"spec": spec_csv, "objectives": objectives, "constraints": cons, "space": var_csv}
+    return "".join(body), data
+
+
+def _candidates(study: Study, designs: list[dict], reported: int, search: dict) -> str:
+    head = ["rank", "trial", "meets spec"] + [c[1] for c in METRIC_COLUMNS] + [
+        _short(n) for n in study.parameter_names]
+    rows = []
+    for d in designs:
+        m = d["metrics"]
+        ok = '<span class="ok">yes</span>' if d["feasible"] else '<span class="bad">no</span>'
+        star = " *" if d["rank"] <= reported else ""
+        rows.append([f"{d['rank']}{star}", d["trial"], ok]
+                    + [_num(m.get(k), f, s) for k, _, f, s in METRIC_COLUMNS]
+                    + [_num(d["params"].get(n), spec=".4g") for n in study.parameter_names])
+    return (
+        f"<p>{search.get('complete', '?')} complete trials, {search.get('feasible', '?')} meet "
+        "the spec and every constraint. The ten best distinct designs, best first; "
+        f"* marks the {reported} analysed below.</p>"
+        + '<div style="overflow-x:auto">' + _table(head, rows, left=1, raw=True) + "</div>"
+    )
+
+
+GROWTH_SHEET_HEADER = ["layer", "name", "material", "x", "monolayers", "nm", "doping_cm3"]
+
+
+def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
+    """A design record's layers as growth-sheet rows (emitter first; contacts have no
+    thickness); material in trade notation, whole monolayers where given so."""
+    rows = []
+    for i, layer in enumerate(record.get("layers") or []):
+        ml, nm = layer.get("thickness_ml"), layer.get("thickness_nm")
+        rows.append([
+            i,
+            layer["name"],
+            layer.get("label") or layer["material"],
+            "" if layer.get("x") is None else f"{layer['x']:.3f}",
+            "" if ml is None else (str(ml) if isinstance(ml, int) else f"{ml:.2f}"),
+            "" if nm is None else f"{nm:.3f}",
+            f"{layer['doping_cm3']:.3g}",
+        ])
+    return rows
+
+
+def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[str, dict]:
+    from physics.iv import stack_iv
+
+    from .figures import band_diagram_figure, iv_figure, transmission_figure
+    tag = f"rank{d['rank']:02d}"
+    sheet = growth_sheet_rows(d)
+    write_csv(files / f"growth_sheet_{tag}.csv", GROWTH_SHEET_HEADER, sheet)
+    rows = []
+    for r in sheet:
+        layer, name, label, x, ml, nm, dop = r
+        contact = r[0] in (0, len(sheet) - 1)
+        rows.append([layer, _esc(name), _esc(label), x or "-", ml or ("contact" if contact else "-"),
+                     nm or "-", "-" if float(dop) == 0 else _num(float(dop), spec=".2e")])
+    stack = study.stack(d["params"])
+    curves = stack_iv(stack, study.sweep.bias_v)
+    m = curves.metrics_of(0)
+    vp = m["peak_voltage_v"] if m["peak_voltage_v"] is not None else float(curves.bias_v[-1]) / 2
+    figs.add_figure(iv_figure(curves, title=f"rank {d['rank']}: I-V (coherent Tsu-Esaki)"),
+                    f"{tag}_iv.png")
+    figs.add_figure(band_diagram_figure(stack, vp, title=f"rank {d['rank']}: conduction band at "
+                                        f"the peak, {vp * 1e3:.0f} mV"), f"{tag}_band.png")
+    figs.add_figure(transmission_figure(stack, [0.0, vp], title=f"rank {d['rank']}: "
+                                        "transmission"), f"{tag}_transmission.png")
+    status = ('<span class="ok">meets the spec</span>' if d["feasible"]
+              else '<span class="bad">misses the spec (closest found)</span>')
+    body = [
+        f'<div class="card"><h3 id="design-{tag}">Design rank {d["rank"]} (trial {d["trial"]}): '
+        f"{status}</h3>",
+        "<p><b>Growth sheet</b> (emitter first; contacts grown as thick as the process needs)</p>",
+        _table(["layer", "name", "material", "x", "monolayers (ML)", "thickness (nm)",
+                "doping (cm<sup>-3</sup>)"], rows, left=3, raw=True),
+        '<div class="pair">',
+        figs.html(f"{tag}_iv.png", "I-V with the peak (circle) and valley (square) marked; "
+                  "current density in kA/cm<sup>2</sup>.", f"I-V of rank {d['rank']}"),
+        figs.html(f"{tag}_transmission.png", "Transmission T(E) on a log scale at zero bias "
+                  "and at the peak voltage.", f"T(E) of rank {d['rank']}"),
+        "</div>",
+        figs.html(f"{tag}_band.png", "Conduction-band edge at the peak voltage with the "
+                  "quasi-bound (resonance) levels, their widths, and the contact Fermi levels.",
+                  f"band diagram of rank {d['rank']}"),
+        "</div>",
+    ]
+    return "".join(body), {"rank": d["rank"], "growth_sheet": sheet, "metrics": m}
+
+
+def _growth(records: list[dict], figs: _Figures, files: Path, run_dir: Path,
+            tol_dirs: list[Path]) -> tuple[str, list[dict]]:
+    from .report_figures import SPEC_WORDS, ranking_figure, ranking_rows, yield_figure
+
+    out: list[dict] = []
+    body = []
+    figs.add_figure(yield_figure(records), "yield.png")
+    yrows, ycsv = [], []
+    for r in records:
+        y = r["yield"]
+        fails = ", ".join(f"{SPEC_WORDS.get(k, k)}: {v}" for k, v in r["failures"].items() if v)
+        yrows.append([f"rank {r['design'].get('rank')}", f"{100 * y['value']:.1f} %",
+                      f"{100 * y['ci_low']:.1f} to {100 * y['ci_high']:.1f} %",
+                      f"{y['passed']} / {y['samples']}", _esc(fails or "none")])
+        ycsv.append([r["design"].get("rank"), y["value"], y["ci_low"], y["ci_high"], y["passed"],
+                     y["samples"], *[r["failures"].get(k, 0) for k in r["failures"]]])
+    write_csv(files / "yield.csv", ["rank", "yield", "ci_low", "ci_high", "passed", "samples",
+                                    *[f"fail:{k}" for k in records[0]["failures"]]], ycsv)
+    params = records[0].get("parameters", [])
+    spreads = ", ".join(f"{p['name']} {p['sigma']:g} {p['unit']}" for p in params[:6])
+    body.append(
+        "<p>Each design is grown many times in simulation with the study's one-sigma growth "
+        f"spreads ({_esc(spreads)}{', ...' if len(params) > 6 else ''}); the yield is the share "
+        "of as-grown samples that still meet the spec, with its 95 % Wilson score interval "
+        "(E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927)).</p>"
+    )
+    body.append(_table(["design", "yield", "95 % interval", "passed", "failures by spec"],
+                       yrows))
+    body.append(figs.html("yield.png", "Yield with its interval (left) and the share of samples "
+                          "missing each spec (right; a sample can miss several).", "yield"))
+    for r, tdir in zip(records, tol_dirs, strict=True):
+        rank = r["design"].get("rank")
+        tag = f"rank{rank:02d}"
+        body.append(f'<div class="card"><h3>Growth check of rank {rank}</h3>')
+        method, output, rows = ranking_rows(r)
+        fig = ranking_figure(r)
+        if fig is not None:
+            figs.add_figure(fig, f"{tag}_ranking.png")
+            score = "total_index" if method == "sobol" else "mu_star"
+            write_csv(files / f"ranking_{tag}.csv", ["parameter", method + "_" + score,
+                                                     "output"],
+                      [[x["parameter"], x[score], output] for x in rows])
+            what = "pass/fail" if output == "pass" else SPEC_WORDS.get(output, output)
+            top = ", ".join(_esc(x["parameter"]) for x in rows[:3])
+            body.append(f"<p><b>Hold these most tightly:</b> {top} (ranked by "
+                        f"{'total Sobol index' if method == 'sobol' else 'Morris mu*'} of "
+                        f"{_esc(what)}).</p>")
+            body.append(figs.html(f"{tag}_ranking.png", "Growth parameters ranked by their share "
+                                  "of the output's variance (Sobol) or mean elementary effect "
+                                  "(Morris); bars show 95 % confidence.", "ranking"))
+        else:
+            body.append("<p class=\"small\">No Sobol or Morris ranking in this run "
+                        "(method mc, or every index zero).</p>")
+        src = tdir / "tornado_peak_current_density_a_cm2.png"
+        if figs.add_file(src, f"{tag}_tornado.png") is not None:
+            body.append(figs.html(f"{tag}_tornado.png", "Tornado: peak current density when one "
+                                  "layer at a time is grown one monolayer thinner or thicker.",
+                                  "tornado"))
+        alloc = r.get("allocation", [])
+        arows = [[_esc(a["parameter"]), f"{a['nominal_sigma']:.3g} {_esc(a['unit'])}",
+                  "-" if a["allowed_sigma"] is None else f"{a['allowed_sigma']:.3g} "
+                  f"{_esc(a['unit'])}", _num(a.get("yield_at_allowed"), 100, ".0f") + " %",
+                  _esc(a["note"] or "")] for a in alloc]
+        write_csv(files / f"allocation_{tag}.csv", ["parameter", "unit", "nominal_sigma",
+                                                    "allowed_sigma", "yield_at_allowed", "note"],
+                  [[a["parameter"], a["unit"], a["nominal_sigma"], a["allowed_sigma"],
+                    a.get("yield_at_allowed"), a["note"]] for a in alloc])
+        ty = alloc[0]["target_yield"] if alloc else r.get("settings", {}).get("target_yield", 0.9)
+        body.append(f"<p><b>Tolerance allocation</b>: the largest one-sigma spread of each "
+                    f"top-ranked parameter that still keeps {100 * ty:.0f} % yield, the others at "
+                    "their nominal spreads (bisection with common random numbers).</p>")
+        body.append(_table(["parameter", "nominal sigma", "allowed sigma", "yield there", "note"],
+                           arows) if arows else "<p class=\"small\">No allocation in this run."
+                    "</p>")
+        notes = r.get("notes", [])
+        if notes:
+            body.append("<p class=\"small\">Notes: " + _esc("; ".join(notes)) + "</p>")
+        body.append(f"<p class=\"small\">Full record: <code>{_esc(tdir.relative_to(run_dir))}"
+                    "/tolerance.json</code></p></div>")
+        out.append({"rank": rank, "yield": r["yield"], "failures": r["failures"],
+                    "ranking": {"method": method, "output": output, "rows": rows},
+                    "allocation": alloc})
+    return "".join(body), out
+
+
+def _search_figures(study: Study, search: dict, figs: _Figures, run_dir: Path) -> str:
+    import optuna
+
+    from . import search_figures
+
+    body = []
+    try:
+        optuna.logging.set_verbosity(optuna.logging.WARNING)
+        ostudy = optuna.load_study(study_name=search["study_name"], storage=search["storage"])
+        trials = [t for t in ostudy.get_trials(deepcopy=False)
+                  if t.state == optuna.trial.TrialState.COMPLETE]
+    except Exception as exc:  # noqa: BLE001 - storage moved or server down: use saved figures
+        trials = []
+        body.append(f"<p class=\"small\">Storage not reachable ({_esc(type(exc).__name__)}); "
+                    "figures from the search folder.</p>")
+    if trials:
+        figs.add_figure(search_figures.history_figure(study, trials), "history.png")
+        if study.multi_objective:
+            figs.add_figure(search_figures.pareto_figure(study, trials), "pareto.png")
+    else:
+        figs.add_file(run_dir / "search" / "history.png", "history.png")
+        figs.add_file(run_dir / "search" / "pareto.png", "pareto.png")
+    body.append(figs.html("history.png", "Optimisation history: each trial, and the best so far "
+                          "among designs that meet the spec.", "optimisation history"))
+    if study.multi_objective:
+        body.append(figs.html("pareto.png", "Pareto front of the pushed objectives among designs "
+                              "that meet the spec.", "Pareto front"))
+    else:
+        body.append("<p class=\"small\">Single objective: no Pareto front (give two or more "
+                    "entries in <code>maximize</code>/<code>minimize</code> for one).</p>")
+    return "".join(body)
+
+
+# --------------------------------------------------------------------------- driver
+
+
+def build_report(run_dir: str | Path) -> Path:
+    """(Re)build ``DIR/report.html`` and ``DIR/report_files/`` from a finished run.
+
+    Raises
+    ------
+    InputError
+        When ``run_dir`` is not a run folder or its search or tolerance stage
+        has not finished.
+    """
+    run_dir = Path(run_dir)
+    record = load_run(run_dir)
+    stages = record.get("stages", {})
+    if stages.get("search", {}).get("status") != "done":
+        raise InputError("the search stage has not finished; rerun 'wellwright run'",
+                         source=str(run_dir))
+    tol = stages.get("tolerance", {})
+    done = sorted((k for k, v in tol.items() if v.get("status") == "done"))
+    if not done:
+        raise InputError("no finished tolerance stage; rerun 'wellwright run'", source=str(run_dir))
+    study = study_from_run(run_dir, record)
+    designs = json.loads((run_dir / "search" / "designs.json").read_text(encoding="utf-8"))
+    tol_dirs = [run_dir / tol[k]["dir"] for k in done]
+    records = [json.loads((d / "tolerance.json").read_text(encoding="utf-8")) for d in tol_dirs]
+    reported = [d for d in designs if f"rank{d['rank']:02d}" in done]
+    files = run_dir / FILES_DIR
+    figs = _Figures(files)
+    search = stages["search"]
+    settings = record.get("settings", {})
+
+    brief_html, brief_data = _brief(study, files)
+    figs.add_file(run_dir / "search" / "designs.csv", "designs_ranked.csv")
+    figs.names.remove("designs_ranked.csv")
+    cards, card_data = [], []
+    for d in reported:
+        h, data = _design_card(study, d, figs, files)
+        cards.append(h)
+        card_data.append(data)
+    growth_html, growth_data = _growth(records, figs, files, run_dir, tol_dirs)
+    vers = versions()
+    seeds = {"search sampler seed": search.get("seed"), "tolerance seed": settings.get("seed")}
+    label = record.get("label")
+    title = f"wellwright report: {study.name}"
+    now = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
+
+    parts = [
+        "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">",
+        f"<title>{_esc(title)}</title><style>{CSS}</style></head><body><main>",
+        "<header>",
+        f'<span class="tag">{_esc(label)}</span>' if label else "",
+        f"<h1>{_esc(title)}</h1>",
+        f"<div class=\"small\">RTD design study <code>{_esc(study.source)}</code>; built {now} by "
+        f"wellwright {_esc(vers['wellwright'])}.</div></header>",
+        f'<div class="caution"><b>Caution.</b> {_esc(CAUTION)}</div>',
+        "<nav><b>Contents</b><ol>"
+        + "".join(f'<li><a href="#{a}">{_esc(h.split(". ", 1)[1])}</a></li>' for a, h in SECTIONS)
+        + "</ol></nav>",
+    ]
+    section_body = {
+        "brief": brief_html,
+        "candidates": _candidates(study, designs, len(reported), search),
+        "search": _search_figures(study, search, figs, run_dir),
+        "designs": "".join(cards),
+        "growth": growth_html,
+        "model": "<ul>" + "".join(f"<li>{_esc(a)}</li>" for a in ASSUMPTIONS) + "</ul>"
+        f'<div class="caution"><b>Calibrate before a growth decision.</b> {_esc(CAUTION)}</div>',
+    }
+    vrows = [[_esc(k), _esc(v)] for k, v in vers.items()]
+    srows = [[_esc(k), _esc(v)] for k, v in seeds.items()]
+    srows += [[_esc(k), _esc(v)] for k, v in settings.items() if k not in ("seed",)]
+    src = Path(record["study"]["path"])
+    section_body["reproduce"] = (
+        "<p>The same study file, settings, seeds and versions give the same numbers. The study "
+        f"file as run is kept in <code>study.toml</code> (fingerprint "
+        f"<code>{_esc(record['study']['fingerprint'])}</code>); rerun with</p>"
+        f"<pre><code>wellwright run {_esc(src.name)} --out {_esc(run_dir.name)}</code></pre>"
+        + "<div class=\"pair\"><div>" + _table(["package", "version"], vrows) + "</div><div>"
+        + _table(["setting", "value"], srows) + "</div></div>"
+        + f"<p class=\"small\">Search storage: <code>{_esc(search.get('storage'))}</code> "
+        f"(study <code>{_esc(search.get('study_name'))}</code>; open it with optuna.load_study "
+        "or the Optuna dashboard).</p>"
+    )
+    for anchor, heading in SECTIONS:
+        parts.append(f'<section id="{anchor}"><h2>{_esc(heading)}</h2>{section_body[anchor]}'
+                     "</section>")
+    parts.append("<p class=\"small\">Tables as CSV and figures as PNG are in "
+                 f"<code>{FILES_DIR}/</code> beside this file.</p></main></body></html>")
+    write_json(files / "report.json", {
+        "title": title, "label": label, "sections": [h for _, h in SECTIONS],
+        "brief": brief_data, "designs": card_data, "growth": growth_data,
+        "versions": vers, "seeds": seeds, "settings": settings, "figures": figs.names,
+    })
+    return atomic_write_text(run_dir / "report.html", "".join(parts))

@@ -1,0 +1,123 @@
+"""Figures drawn only for the run report: yield per design, sensitivity ranking.
+
+The figures of one stack come from :mod:`optimize.figures`, the search and
+tolerance figures from :mod:`optimize.search_figures` and
+:mod:`optimize.tolerance_figures`. Colours are the Okabe-Ito colour-blind-safe
+palette (:data:`optimize.figures.PALETTE`).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from matplotlib.figure import Figure
+
+from .figures import PALETTE, style
+
+__all__ = ["yield_figure", "ranking_figure", "ranking_rows"]
+
+SPEC_WORDS = {
+    "peak_current_density_a_cm2": "peak current density",
+    "peak_voltage_v": "peak voltage",
+    "valley_current_density_a_cm2": "valley current density",
+    "valley_voltage_v": "valley voltage",
+    "pvcr": "PVCR",
+    "delta_current_density_a_cm2": "current swing",
+    "delta_voltage_v": "voltage swing",
+    "no_ndr": "no NDR in sweep",
+}
+
+
+def yield_figure(records: list[dict[str, Any]]) -> Figure:
+    """Left: yield of each design with its Wilson interval; right: failures by spec."""
+    style()
+    n = len(records)
+    fig = Figure(figsize=(10.0, 0.55 * n + 2.6))
+    ax, bx = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1, 1.3]})
+    labels = [f"rank {r['design'].get('rank', '?')}" for r in records][::-1]
+    ypos = np.arange(n)
+    ys = [r["yield"] for r in records][::-1]
+    value = np.array([100 * y["value"] for y in ys])
+    lo = np.array([100 * y["ci_low"] for y in ys])
+    hi = np.array([100 * y["ci_high"] for y in ys])
+    ax.barh(ypos, value, 0.55, color=PALETTE["blue"], label="Monte Carlo yield")
+    ax.errorbar(value, ypos, xerr=[value - lo, hi - value], fmt="none", ecolor=PALETTE["black"],
+                capsize=5, lw=1.5, label="95 % Wilson interval")
+    for y, v, h, yy in zip(ypos, value, hi, ys, strict=True):
+        ax.text(min(h + 2, 88), y, f"{v:.0f} % ({yy['passed']}/{yy['samples']})", va="center",
+                fontsize=10)
+    ax.set_yticks(ypos, labels)
+    ax.set_xlim(0, 105)
+    ax.set_xlabel("yield against the spec (%)")
+    ax.set_title("yield under growth spreads")
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=2, fontsize=8)
+
+    keys = [k for k in records[0]["failures"]]
+    colors = [PALETTE[c] for c in ("vermillion", "orange", "sky", "green", "purple", "yellow",
+                                   "blue", "black")]
+    width = 0.8 / max(1, len(keys))
+    for j, k in enumerate(keys):
+        share = [100 * r["failures"].get(k, 0) / max(1, r["yield"]["samples"])
+                 for r in records][::-1]
+        bx.barh(ypos - 0.4 + (j + 0.5) * width, share, width, color=colors[j % len(colors)],
+                label=SPEC_WORDS.get(k, k))
+    bx.set_yticks(ypos, labels)
+    bx.set_xlim(0, 100)
+    bx.set_xlabel("samples missing this spec (%)")
+    bx.set_title("why samples fail")
+    bx.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=3, fontsize=8)
+    fig.tight_layout()
+    return fig
+
+
+def ranking_rows(record: dict[str, Any]) -> tuple[str, str, list[dict[str, Any]]]:
+    """The sensitivity ranking of a tolerance record: (method, output, rows).
+
+    The indices of the spec metric that most samples miss (a continuous
+    output: better resolved with few samples than the 0/1 pass/fail), else of
+    pass/fail, the peak current density, the peak voltage; Sobol total
+    indices, else Morris mu*; empty for a Monte Carlo run.
+    """
+    fails = {k: v for k, v in (record.get("failures") or {}).items() if k != "no_ndr" and v}
+    first = sorted(fails, key=lambda k: -fails[k])[:1]
+    for method, table, score in (("sobol", record.get("sobol") or {}, "total_index"),
+                                 ("morris", record.get("morris") or {}, "mu_star")):
+        for output in (*first, "pass", "peak_current_density_a_cm2", "peak_voltage_v"):
+            rows = table.get(output)
+            if rows and any(r[score] > 0 for r in rows):
+                return method, output, rows
+    return "", "", []
+
+
+def ranking_figure(record: dict[str, Any], *, top: int = 10) -> Figure | None:
+    """Which growth parameter matters most: horizontal bars, most important on top."""
+    method, output, rows = ranking_rows(record)
+    if not rows:
+        return None
+    style()
+    rows = rows[:top][::-1]
+    ypos = np.arange(len(rows))
+    fig = Figure(figsize=(7.5, 0.42 * len(rows) + 1.8))
+    ax = fig.add_subplot()
+    what = "pass/fail" if output == "pass" else SPEC_WORDS.get(output, output)
+    if method == "sobol":
+        ax.barh(ypos + 0.2, [r["total_index"] for r in rows], 0.4,
+                xerr=[r["total_conf"] for r in rows], color=PALETTE["blue"], label="total index",
+                error_kw={"capsize": 3})
+        ax.barh(ypos - 0.2, [r["first_index"] for r in rows], 0.4,
+                xerr=[r["first_conf"] for r in rows], color=PALETTE["orange"],
+                label="first-order index", error_kw={"capsize": 3})
+        ax.set_xlabel(f"Sobol index of {what} (share of variance, 0 to 1)")
+        ax.set_xlim(left=min(0.0, ax.get_xlim()[0]))
+    else:
+        ax.barh(ypos, [r["mu_star"] for r in rows], 0.6, xerr=[r["mu_star_conf"] for r in rows],
+                color=PALETTE["blue"], label="mu* (mean |elementary effect|)",
+                error_kw={"capsize": 3})
+        ax.set_xlabel(f"Morris mu* of {what} (per 5 sigma of the parameter)")
+        ax.set_xlim(left=0.0)
+    ax.set_yticks(ypos, [r["parameter"] for r in rows])
+    ax.set_title(f"which growth error matters most ({'Sobol' if method == 'sobol' else 'Morris'})")
+    ax.legend(fontsize=8, loc="lower right")
+    fig.tight_layout()
+    return fig

@@ -1,0 +1,68 @@
+"""Every subcommand's --help, and clear exit-2 messages for unknown commands and bad paths.
+
+Exit status 2 and one line for bad input: the project's convention (DESIGN.md).
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import pytest
+
+from optimize.cli import COMMAND_MODULES, build_parser, main
+
+
+def _commands() -> list[str]:
+    sub = next(a for a in build_parser()._actions if a.dest == "command")
+    return sorted(sub.choices)
+
+
+def test_every_module_registers_a_command():
+    assert {"run", "demo", "report"} <= set(_commands())
+    assert len(_commands()) >= len(COMMAND_MODULES)
+
+
+@pytest.mark.parametrize("command", _commands())
+def test_help_works(command, capsys):
+    with pytest.raises(SystemExit) as exc:
+        main([command, "--help"])
+    assert exc.value.code == 0
+    assert "usage: wellwright" in capsys.readouterr().out
+
+
+def test_unknown_command_exits_2():
+    got = subprocess.run([sys.executable, "-m", "optimize.cli", "frobnicate"],
+                         capture_output=True, text=True, timeout=60)
+    assert got.returncode == 2
+    assert "invalid choice: 'frobnicate'" in got.stderr
+    assert "Traceback" not in got.stderr
+
+
+@pytest.mark.parametrize(
+    ("argv", "match"),
+    [
+        (["run", "{tmp}/missing.toml"], "missing.toml: file not found"),
+        (["report", "{tmp}/nowhere"], "not a folder"),
+        (["report", "{tmp}"], "not a run folder"),
+        (["run", "{tmp}/missing.toml", "--method", "guess"], "invalid choice"),
+    ],
+)
+def test_bad_paths_exit_2_with_one_line(argv, match, tmp_path, capsys):
+    argv = [a.replace("{tmp}", str(tmp_path)) for a in argv]
+    try:
+        code = main(argv)
+    except SystemExit as exc:  # argparse usage errors
+        code = exc.code
+    err = capsys.readouterr().err
+    assert code == 2
+    assert match in err
+    assert len(err.strip().splitlines()) <= 2  # argparse adds its usage line
+    assert not (tmp_path / "missing_run").exists()
+
+
+def test_demo_out_that_is_a_file_exits_2(tmp_path, capsys):
+    f = tmp_path / "afile"
+    f.write_text("x")
+    assert main(["demo", "--quick", "--out", str(f)]) == 2
+    assert "not a folder" in capsys.readouterr().err

@@ -1,0 +1,123 @@
+"""The pipeline stages: settings, resume, and what a changed study file reruns.
+
+Uses a tiny study (few trials, few samples) so that it runs in seconds; the
+stage bookkeeping is what is checked, not the physics.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from optimize.cmd_demo import SCENARIOS
+from optimize.pipeline import PIPELINE_FILE, load_run, run_pipeline
+from physics.errors import InputError
+
+QUICK = SCENARIOS / "demo_quick.toml"
+
+
+def _tiny_study(tmp_path: Path, extra: str = "") -> Path:
+    text = QUICK.read_text(encoding="utf-8")
+    text = text.replace("trials = 16", "trials = 6").replace("samples = 32", "samples = 8")
+    text = text.replace("designs = 2", "designs = 1").replace("allocate = 1", "allocate = 0")
+    text = text.replace('method = "morris"', 'method = "mc"')
+    path = tmp_path / "tiny.toml"
+    path.write_text(text + extra, encoding="utf-8")
+    return path
+
+
+def _fake_report(run_dir: Path) -> Path:
+    out = Path(run_dir) / "report.html"
+    out.write_text("<html></html>", encoding="utf-8")
+    return out
+
+
+def test_rerun_skips_finished_stages_and_changed_file_reruns(tmp_path, capsys):
+    # common practice: a resumable pipeline redoes only what its inputs changed
+    study = _tiny_study(tmp_path)
+    out = tmp_path / "run"
+    rec = run_pipeline(study, out_dir=out, report=_fake_report)
+    assert rec["stages"]["search"]["status"] == "done"
+    assert rec["stages"]["tolerance"]["rank01"]["status"] == "done"
+    assert (out / "search" / "study.db").is_file()
+    assert (out / "tolerance" / "rank01" / "tolerance.json").is_file()
+    capsys.readouterr()
+
+    run_pipeline(study, out_dir=out, report=_fake_report)
+    said = capsys.readouterr().out
+    assert "search: done earlier, skipped" in said
+    assert "tolerance rank01: done earlier, skipped" in said
+    assert "report: done earlier, skipped" in said
+
+    # a changed growth table: the search resumes (same space, storage kept), tolerance reruns
+    study.write_text(study.read_text().replace("x_sigma = 0.005", "x_sigma = 0.004"))
+    rec = run_pipeline(study, out_dir=out, report=_fake_report)
+    said = capsys.readouterr().out
+    assert "tolerance rank01 (trial" in said
+    assert rec["study"]["changed_since_last_run"] is True
+    assert rec["stages"]["search"]["complete"] == 6  # the storage kept its trials
+    assert json.loads((out / PIPELINE_FILE).read_text())["stages"]["report"]["status"] == "done"
+
+
+def test_interrupted_tolerance_is_redone(tmp_path, capsys):
+    # common practice: a stage marked running (killed half way) is not trusted
+    study = _tiny_study(tmp_path)
+    out = tmp_path / "run"
+    run_pipeline(study, out_dir=out, report=_fake_report)
+    rec = json.loads((out / PIPELINE_FILE).read_text())
+    rec["stages"]["tolerance"]["rank01"]["status"] = "running"
+    (out / PIPELINE_FILE).write_text(json.dumps(rec))
+    capsys.readouterr()
+    run_pipeline(study, out_dir=out, report=_fake_report)
+    said = capsys.readouterr().out
+    assert "search: done earlier, skipped" in said
+    assert "tolerance rank01 (trial" in said
+
+
+@pytest.mark.parametrize(
+    ("extra", "match"),
+    [
+        ("\nbogus = 1\n", "report.bogus"),
+        ("\ncolour = 'red'\n", "report.colour"),
+    ],
+)
+def test_bad_report_table_writes_nothing(tmp_path, extra, match):
+    study = _tiny_study(tmp_path, extra)
+    out = tmp_path / "run"
+    with pytest.raises(InputError, match=match):
+        run_pipeline(study, out_dir=out, report=_fake_report)
+    assert not out.exists()
+
+
+@pytest.mark.parametrize(
+    ("settings", "match"),
+    [
+        ({"designs": 0}, "designs"),
+        ({"samples": 3}, "samples"),
+        ({"method": "fast"}, "method"),
+        ({"trials": -1}, "trials"),
+    ],
+)
+def test_bad_settings_write_nothing(tmp_path, settings, match):
+    out = tmp_path / "run"
+    with pytest.raises(InputError, match=match):
+        run_pipeline(_tiny_study(tmp_path), out_dir=out, settings=settings)
+    assert not out.exists()
+
+
+def test_load_run_rejects_other_folders(tmp_path):
+    with pytest.raises(InputError, match="not a run folder"):
+        load_run(tmp_path)
+    with pytest.raises(InputError, match="not a folder"):
+        load_run(tmp_path / "missing")
+
+
+def test_out_folder_that_is_not_a_run_is_refused(tmp_path):
+    out = tmp_path / "busy"
+    out.mkdir()
+    (out / "keep.txt").write_text("mine")
+    with pytest.raises(InputError, match="not a run folder"):
+        run_pipeline(_tiny_study(tmp_path), out_dir=out)
+    assert sorted(p.name for p in out.iterdir()) == ["keep.txt"]
