@@ -7,9 +7,13 @@ ratios matter more than absolute times):
    and excluded);
 2. the uniform energy grid of the same kernel that reaches the same peak-current accuracy
    (0.5 % of a converged reference), its time for the same 61 biases, and the ratio;
-3. throughput of a batch of stack variants (curves per second, one core).
+3. throughput of a batch of stack variants (curves per second, one core);
+4. the finite-difference reference (QTBM) on the same uniform energy grid for the same 61-point
+   I-V, against the kernel's adaptive I-V, as a ratio (issue 3 target >= 50), and one
+   time-domain wave packet against the kernel's full T(E) (1000 energies) at one bias.
 
-Run: ``python benchmarks/bench_physics.py [--quick]``. Targets (issue 2): ratio >= 30,
+Run: ``python benchmarks/bench_physics.py [--quick]`` (``--quick``: fewer repeats, a smaller
+batch, and the QTBM I-V on 11 of the 61 biases, scaled to 61). Targets (issue 2): ratio >= 30,
 61-point I-V under 30 ms median, >= 200 curves/s per core.
 """
 
@@ -36,6 +40,8 @@ from physics.current import (  # noqa: E402
     supply_function_ev,
 )
 from physics.iv import locate_peak_valley, sweep  # noqa: E402
+from physics.references import qtbm_transmission  # noqa: E402
+from physics.references.wavepacket import propagate_packet  # noqa: E402
 from physics.stack import LayerTable, load_stack  # noqa: E402
 from physics.transmission import transmission  # noqa: E402
 
@@ -124,7 +130,39 @@ def grid_comparison(path: Path, repeats: int):
         f"ratio uniform / adaptive at the same accuracy: {t_uniform / t_adaptive:.1f}  (target >= 30)"
     )
     print(f"61-point I-V median (with refinement): {t_full * 1e3:.1f} ms  (target < 30 ms)")
-    return stack, table, bias
+    return stack, table, bias, n_uniform
+
+
+def reference_comparison(stack, table, bias, *, n_uniform: int, quick: bool) -> None:
+    """QTBM on the uniform grid that reaches 0.5 % on Jp, and one wave packet, against the kernel."""
+    slice_nm = stack.model.slice_nm
+    profile = linear_profile(table, bias, slice_nm=slice_nm)
+    kt = BOLTZMANN_EV_K * table.temperature_k[:, None]
+    mu_e = contact_fermi_levels_ev(table)[0][:, None] * np.ones(profile.batch_shape)
+    low, high = energy_window_ev(profile, mu_e, np.broadcast_to(bias, profile.batch_shape), kt)
+    picks = np.arange(0, bias.size, 6) if quick else np.arange(bias.size)
+    t0 = time.perf_counter()
+    for b in picks:
+        e = np.linspace(low[0, b], high[0, b], n_uniform)
+        qtbm_transmission(e, profile=profile.take((0, b)), step_nm=slice_nm)
+    t_qtbm = (time.perf_counter() - t0) * bias.size / picks.size
+
+    def adaptive() -> np.ndarray:
+        return current_density_a_cm2(linear_profile(table, bias, slice_nm=slice_nm), table=table, bias_v=bias)
+
+    t_kernel = median_time(adaptive, 3)
+    print(f"\nfinite-difference reference (QTBM, {n_uniform} uniform energies x 61 biases"
+          f"{', 11 timed and scaled' if quick else ''}): {t_qtbm:.2f} s")
+    print(f"kernel, adaptive grid, same I-V: {t_kernel * 1e3:.1f} ms; ratio {t_qtbm / t_kernel:.0f}  (target >= 50)")
+
+    one = profile.take((0, 20))
+    t0 = time.perf_counter()
+    propagate_packet(profile=one, energy_mev=60.0, width_nm=20.0, max_time_fs=1500.0)
+    t_packet = time.perf_counter() - t0
+    energies = np.linspace(1e-3, 0.8, 1000)
+    t_curve = median_time(lambda: transmission(energies, profile=one), 5)
+    print(f"one wave packet at {bias[20]:.2f} V: {t_packet:.2f} s; kernel T(E) at 1000 energies: "
+          f"{t_curve * 1e3:.1f} ms; ratio {t_packet / t_curve:.0f}")
 
 
 def main() -> None:
@@ -133,7 +171,8 @@ def main() -> None:
     args = parser.parse_args()
     repeats = 3 if args.quick else 9
     results = [grid_comparison(path, repeats) for path in STACKS]
-    stack, table, bias = results[0]
+    stack, table, bias, _ = results[0]
+    reference_comparison(stack, table, bias, n_uniform=results[0][3], quick=args.quick)
 
     # batch throughput: stack variants with random whole-monolayer changes
     n_batch = 200 if args.quick else 1000

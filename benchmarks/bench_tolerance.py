@@ -40,7 +40,10 @@ def main() -> None:
     ap.add_argument("--sobol", action="store_true")
     ap.add_argument("--base", type=int, default=1024)
     ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--quick", action="store_true", help="16 samples, Sobol with N = 64 if asked")
     a = ap.parse_args()
+    if a.quick:
+        a.samples, a.base = 16, 64
 
     stack = load_stack(STACK)
     model = growth_model(stack)

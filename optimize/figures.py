@@ -21,6 +21,7 @@ from physics.transmission import transmission  # noqa: E402
 
 __all__ = [
     "PALETTE",
+    "model_label",
     "iv_figure",
     "band_diagram_figure",
     "transmission_figure",
@@ -56,6 +57,14 @@ def style() -> None:
             "figure.dpi": 100,
         }
     )
+
+
+def model_label(stack: Stack) -> str:
+    """Short description of the transport and electrostatics model, for figure titles."""
+    m = stack.model
+    transport = f"{m.broadening_mev:g} meV broadening" if m.broadening_mev > 0 else "coherent"
+    bias = "linear drop" if m.electrostatics == "linear" else "self-consistent"
+    return f"Tsu-Esaki, {transport}, {bias}"
 
 
 def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
@@ -103,8 +112,12 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
         ax.text(0.03, 0.95, "no NDR in this sweep", transform=ax.transAxes, va="top")
     ax.set_xlabel("bias (V)")
     ax.set_ylabel("current density (kA/cm$^2$)")
-    ax.legend(loc="best")
-    ax.set_title(title or "I-V (coherent Tsu-Esaki)")
+    top = float(np.nanmax(j)) if np.isfinite(j).any() else 1.0
+    ax.set_ylim(
+        min(0.0, float(np.nanmin(j)) * 1.1), top * 1.45 if top > 0 else 1.0
+    )  # room for the box
+    ax.legend(loc="upper right")
+    ax.set_title(title or "I-V")
     return fig
 
 
@@ -130,7 +143,9 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     spans = _layer_spans(profile)
     right = np.cumsum(profile.width_nm)
     origin = (right - profile.width_nm)[np.argmax(profile.layer_index == 1)]
-    bounds = np.concatenate([[right[0] - origin], right[1:-1] - origin])  # slice edges, 0 = emitter interface
+    bounds = np.concatenate(
+        [[right[0] - origin], right[1:-1] - origin]
+    )  # slice edges, 0 = emitter interface
     z_lo, z_hi = float(bounds[0]), float(bounds[-1])
     length = spans[-1][1]
     fig, ax = plt.subplots(figsize=(7.0, 4.4))
@@ -140,25 +155,46 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     active = profile.layer_index[1:-1]
     top = float(edge[1:-1][(active > 0) & (active < profile.layer_index.max())].max())
     emitter_edge = stack.layers[0].conduction_band_ev
-    barriers = [(z0, z1) for z0, z1, idx in spans if stack.layers[idx].conduction_band_ev > emitter_edge + 0.05]
+    barriers = [
+        (z0, z1)
+        for z0, z1, idx in spans
+        if stack.layers[idx].conduction_band_ev > emitter_edge + 0.05
+    ]
     for z0, z1, idx in spans:
         layer = stack.layers[idx]
         if (z0, z1) in barriers:
             ax.axvspan(z0, z1, color=PALETTE["sky"], alpha=0.25, lw=0)
-        ax.text(0.5 * (z0 + z1), top * 1.04 + 0.02, f"{layer.name}\n{layer.label}", ha="center",
-                va="bottom", fontsize=7, rotation=90)
+        ax.text(
+            0.5 * (z0 + z1),
+            top * 1.04 + 0.02,
+            f"{layer.name}\n{layer.label}",
+            ha="center",
+            va="bottom",
+            fontsize=7,
+            rotation=90,
+        )
     mu_e, mu_c = (float(x[0]) for x in contact_fermi_levels_ev(table))
     ax.hlines(mu_e, xs[0], 0, colors=PALETTE["orange"], linestyles="--", lw=2, label="Fermi levels")
     ax.hlines(edge[-1] + mu_c, length, xs[-1], colors=PALETTE["orange"], linestyles="--", lw=2)
-    res = find_resonances(profile, energy_min_ev=max(0.0, float(edge[-1])) - 0.3, energy_max_ev=top, n_max=4)
+    res = find_resonances(
+        profile, energy_min_ev=max(0.0, float(edge[-1])) - 0.3, energy_max_ev=top, n_max=4
+    )
     w0, w1 = (barriers[0][1], barriers[-1][0]) if len(barriers) >= 2 else (0.0, length)
     label_z = (barriers[-1][1] if barriers else length) + 0.4
     order = np.argsort(res.energy_ev)
     for n, k in enumerate([k for k in order if res.valid[k]], start=1):
         e_r, g = float(res.energy_ev[k]), float(res.width_ev[k])
-        ax.hlines(e_r, w0, w1, colors=PALETTE["vermillion"], lw=2, label="resonances" if n == 1 else None)
-        ax.text(label_z, e_r, f"E{n} = {e_r * 1e3:.0f} meV, Γ = {_fmt_energy(g)}", fontsize=8,
-                va="center", color=PALETTE["vermillion"])
+        ax.hlines(
+            e_r, w0, w1, colors=PALETTE["vermillion"], lw=2, label="resonances" if n == 1 else None
+        )
+        ax.text(
+            label_z,
+            e_r,
+            f"E{n} = {e_r * 1e3:.0f} meV, Γ = {_fmt_energy(g)}",
+            fontsize=8,
+            va="center",
+            color=PALETTE["vermillion"],
+        )
     ax.set_xlabel("position from the emitter interface (nm)")
     ax.set_ylabel("energy from emitter band edge (eV)")
     ax.set_xlim(max(xs[0], -25.0), min(xs[-1], length + 35.0))  # the active region, some contact
@@ -214,7 +250,9 @@ def iv_figures(
     m = curves.metrics_of(i)
     peak = m["peak_voltage_v"] if m["peak_voltage_v"] is not None else float(curves.bias_v[-1]) / 2
     paths = {
-        "iv": save_figure(iv_figure(curves, i), out / f"{prefix}iv.png"),
+        "iv": save_figure(
+            iv_figure(curves, i, title=f"I-V ({model_label(stack)})"), out / f"{prefix}iv.png"
+        ),
         "band_diagram": save_figure(
             band_diagram_figure(stack, peak), out / f"{prefix}band_diagram.png"
         ),

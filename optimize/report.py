@@ -304,7 +304,7 @@ def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
 def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[str, dict]:
     from physics.iv import stack_iv
 
-    from .figures import band_diagram_figure, iv_figure, transmission_figure
+    from .figures import band_diagram_figure, iv_figure, model_label, transmission_figure
     tag = f"rank{d['rank']:02d}"
     sheet = growth_sheet_rows(d)
     write_csv(files / f"growth_sheet_{tag}.csv", GROWTH_SHEET_HEADER, sheet)
@@ -318,7 +318,7 @@ def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[st
     curves = stack_iv(stack, study.sweep.bias_v)
     m = curves.metrics_of(0)
     vp = m["peak_voltage_v"] if m["peak_voltage_v"] is not None else float(curves.bias_v[-1]) / 2
-    figs.add_figure(iv_figure(curves, title=f"rank {d['rank']}: I-V (coherent Tsu-Esaki)"),
+    figs.add_figure(iv_figure(curves, title=f"rank {d['rank']}: I-V ({model_label(stack)})"),
                     f"{tag}_iv.png")
     figs.add_figure(band_diagram_figure(stack, vp, title=f"rank {d['rank']}: conduction band at "
                                         f"the peak, {vp * 1e3:.0f} mV"), f"{tag}_band.png")

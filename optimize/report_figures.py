@@ -45,8 +45,8 @@ def yield_figure(records: list[dict[str, Any]]) -> Figure:
     ax.errorbar(value, ypos, xerr=[value - lo, hi - value], fmt="none", ecolor=PALETTE["black"],
                 capsize=5, lw=1.5, label="95 % Wilson interval")
     for y, v, h, yy in zip(ypos, value, hi, ys, strict=True):
-        ax.text(min(h + 2, 88), y, f"{v:.0f} % ({yy['passed']}/{yy['samples']})", va="center",
-                fontsize=10)
+        ax.text(1.0, y + 0.3, f"{v:.0f} % ({yy['passed']}/{yy['samples']} samples)", va="bottom",
+                fontsize=9)  # above its bar, clear of the interval
     ax.set_yticks(ypos, labels)
     ax.set_xlim(0, 105)
     ax.set_xlabel("yield against the spec (%)")
