@@ -403,6 +403,10 @@ def tornado(stack: Stack, run: Runner) -> dict[str, Any]:
 # --------------------------------------------------------------------------- allocation
 
 
+#: Label of the joint allocation row: every layer's thickness spread scaled together.
+ALL_THICKNESSES = "all layer thicknesses"
+
+
 def allocate_tolerances(
     model: GrowthModel,
     spec: Spec,
@@ -414,37 +418,44 @@ def allocate_tolerances(
     target_yield: float = 0.9,
     max_scale: float = 4.0,
     steps: int = 6,
+    joint_thickness: bool = True,
 ) -> list[dict[str, Any]]:
     """Largest sigma of each named parameter that still gives ``target_yield``.
 
     Bisection on the Monte Carlo yield over a factor ``s`` in ``[0, max_scale]``
     on that parameter's sigma (the others at theirs), with common random
     numbers: the same ``z`` and island uniforms at every step, so the yield
-    changes only through ``s``. Returns ``{parameter, nominal_sigma,
-    allowed_sigma, unit, yield_at_allowed, note}``; ``allowed_sigma`` is
-    None when even ``s = 0`` misses the target, and ``max_scale * sigma``
-    (with a note) when the target holds up to there.
+    changes only through ``s``. With ``joint_thickness`` a last row scales
+    every layer's thickness sigma by one common factor (the question "how
+    well must the whole growth hold its monolayers?", which a single layer
+    cannot answer when several share the failures). Returns ``{parameter,
+    nominal_sigma, allowed_sigma, unit, yield_at_allowed, note}``;
+    ``allowed_sigma`` is None when even ``s = 0`` misses the target, and
+    ``max_scale * sigma`` (with a note) when the target holds up to there.
     """
     names = list(model.names)
+    groups: list[tuple[str, list[int]]] = [(p, [names.index(p)]) for p in parameters]
+    thickness = [j for j, par in enumerate(model.parameters) if par.kind == "thickness"]
+    if joint_thickness and len(thickness) > 1:
+        groups.append((ALL_THICKNESSES, thickness))
     out = []
-    for p in parameters:
-        j = names.index(p)
-        sig = model.sigmas[j]
+    for label, idx in groups:
+        sig = float(np.max([model.sigmas[j] for j in idx]))
 
-        def yield_at(s: float, j: int = j, p: str = p) -> float:
+        def yield_at(s: float, idx: list[int] = idx, label: str = label) -> float:
             scale = np.ones(len(names))
-            scale[j] = s
+            scale[idx] = s
             metrics = run(
-                model.as_grown(z, island_u=island_u, sigma_scale=scale), desc=f"allocate {p}"
+                model.as_grown(z, island_u=island_u, sigma_scale=scale), desc=f"allocate {label}"
             )
             return float(np.mean(spec.passes(metrics)))
 
         rec: dict[str, Any] = {
-            "parameter": p,
-            "nominal_sigma": float(sig),
-            "unit": model.parameters[j].unit,
+            "parameter": label,
+            "nominal_sigma": sig,
+            "unit": model.parameters[idx[0]].unit,
             "target_yield": target_yield,
-            "note": "",
+            "note": "" if len(idx) == 1 else "every layer's thickness sigma scaled together",
         }
         y_hi = yield_at(max_scale)
         if y_hi >= target_yield:
@@ -460,7 +471,7 @@ def allocate_tolerances(
             rec.update(
                 allowed_sigma=None,
                 yield_at_allowed=y_lo,
-                note="target missed even with this parameter held exactly; other spreads dominate",
+                note="target missed even with this held exactly; other spreads dominate",
             )
             out.append(rec)
             continue

@@ -13,6 +13,7 @@ from optimize.cli import main
 from optimize.growth import GrowthSettings, growth_model
 from optimize.study import parse_study
 from optimize.tolerance import (
+    ALL_THICKNESSES,
     Runner,
     Spec,
     allocate_tolerances,
@@ -159,7 +160,7 @@ def test_allocation_bisection_keeps_target_yield(stack):
     spec = Spec((("peak_current_density_a_cm2", 0.25e5, 4e5),))
     run = _ToyRunner()
     mc = monte_carlo_yield(model, spec, run, samples=400, seed=4)
-    (a,) = allocate_tolerances(
+    a, joint = allocate_tolerances(
         model,
         spec,
         run,
@@ -171,16 +172,22 @@ def test_allocation_bisection_keeps_target_yield(stack):
     )
     assert a["allowed_sigma"] is not None and a["yield_at_allowed"] >= 0.9
     j = model.names.index("barrier1.thickness")
+    every = [k for k, p in enumerate(model.parameters) if p.kind == "thickness"]
 
-    def y(scale):
+    def y(scale, idx):
         s = np.ones(len(model.names))
-        s[j] = scale
+        s[idx] = scale
         return np.mean(
             spec.passes(run(model.as_grown(mc["z"], island_u=mc["island_u"], sigma_scale=s)))
         )
 
-    assert y(a["allowed_sigma"] / 0.5) >= 0.9
-    assert y(1.25 * a["allowed_sigma"] / 0.5 + 0.05) < 0.9
+    assert y(a["allowed_sigma"] / 0.5, [j]) >= 0.9
+    assert y(1.25 * a["allowed_sigma"] / 0.5 + 0.05, [j]) < 0.9
+    # the joint row scales every layer's thickness sigma together: same definition
+    assert joint["parameter"] == ALL_THICKNESSES
+    assert joint["allowed_sigma"] is not None and joint["allowed_sigma"] <= a["allowed_sigma"]
+    assert y(joint["allowed_sigma"] / 0.5, every) >= 0.9
+    assert y(1.25 * joint["allowed_sigma"] / 0.5 + 0.05, every) < 0.9
 
 
 # --------------------------------------------------------------------------- physics facts
