@@ -5,7 +5,8 @@ that is followed by negative differential resistance (the current falls by
 more than ``NDR_DROP`` of the peak before rising above it again); the
 valley is the lowest current after it, before the current first exceeds
 the peak again or the sweep ends. Both are then located more finely than
-the sweep grid by two rounds of extra biases around them and a parabola
+the sweep grid by nine extra biases across the neighbouring grid points (one batched call
+for peaks and valleys of every stack) and a parabola
 through the three best points.
 
 A valley that falls on the last point of the sweep is reported there; the
@@ -165,7 +166,7 @@ def _parabola_vertex(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return xv, np.where(ok, a * xv**2 + b * xv + c, y1)
 
 
-def _refine(table, model, grid, center_v, half_span_v, sign, rounds=2, points=5):
+def _refine(table, model, grid, center_v, half_span_v, sign, rounds=1, points=9):
     """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
 
     ``rounds`` of ``points`` extra biases around each centre (one batched
