@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import time
 from dataclasses import replace
 from pathlib import Path
 
@@ -21,22 +20,13 @@ os.environ.setdefault("OMP_NUM_THREADS", "1")
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
+from timing import median_time  # noqa: E402
 
 from physics.electrostatics import sweep_hysteresis  # noqa: E402
 from physics.iv import sweep  # noqa: E402
 from physics.stack import load_stack  # noqa: E402
 
 STUDY = Path(__file__).resolve().parents[1] / "studies" / "gaas_low_power_memory.toml"
-
-
-def _median_time(fn, repeats: int) -> float:
-    fn()  # warm-up (tables, caches)
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return float(np.median(times))
 
 
 def main() -> None:
@@ -58,12 +48,14 @@ def main() -> None:
             stack.model, electrostatics="self-consistent", broadening_mev=3.0
         ),
     }.items():
-        results[name] = _median_time(lambda m=model: sweep(table, bias, model=m), repeats)
+        results[name] = median_time(lambda m=model: sweep(table, bias, model=m), repeats, warmup=True)
         print(f"61-point I-V, {name:28s} {1e3 * results[name]:8.1f} ms")
     ratio = results["self-consistent"] / results["linear"]
     print(f"ratio self-consistent / linear: {ratio:.2f} (target < 10)")
     sc = replace(stack.model, electrostatics="self-consistent")
-    t_h = _median_time(lambda: sweep_hysteresis(table, bias, model=sc), max(1, repeats // 3))
+    t_h = median_time(
+        lambda: sweep_hysteresis(table, bias, model=sc), max(1, repeats // 3), warmup=True
+    )
     print(f"up+down hysteresis sweep, 61 points each, self-consistent: {1e3 * t_h:.1f} ms")
 
 

@@ -28,6 +28,7 @@ os.environ.setdefault("OMP_NUM_THREADS", "1")
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
+from timing import median_time  # noqa: E402
 
 from physics.bands import linear_profile  # noqa: E402
 from physics.constants import BOLTZMANN_EV_K  # noqa: E402
@@ -48,15 +49,6 @@ from physics.transmission import transmission  # noqa: E402
 STUDIES = Path(__file__).resolve().parents[1] / "studies"
 #: A broad-resonance stack (thin barriers) and a narrow-resonance one (thick barriers).
 STACKS = [STUDIES / "inp_thz_oscillator.toml", STUDIES / "gaas_low_power_memory.toml"]
-
-
-def median_time(fn, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return float(np.median(times))
 
 
 def uniform_current(

@@ -76,32 +76,26 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
     ax.plot(v, j, color=PALETTE["blue"], lw=2, label="Tsu-Esaki current")
     m = curves.metrics_of(i)
     if m["peak_voltage_v"] is not None:
-        ax.plot(
-            m["peak_voltage_v"],
-            m["peak_current_density_a_cm2"] / 1e3,
-            "o",
-            ms=9,
-            mfc="none",
-            mec=PALETTE["vermillion"],
-            mew=2,
-            label="peak",
-        )
-        ax.plot(
-            m["valley_voltage_v"],
-            m["valley_current_density_a_cm2"] / 1e3,
-            "s",
-            ms=9,
-            mfc="none",
-            mec=PALETTE["green"],
-            mew=2,
-            label="valley",
+        for name, marker, color in (("peak", "o", "vermillion"), ("valley", "s", "green")):
+            ax.plot(
+                m[f"{name}_voltage_v"],
+                m[f"{name}_current_density_a_cm2"] / 1e3,
+                marker,
+                ms=9,
+                mfc="none",
+                mec=PALETTE[color],
+                mew=2,
+                label=name,
+            )
+        pvcr = (
+            f"PVCR = {m['pvcr']:.1f}"
+            if m["pvcr"] is not None
+            else "PVCR undefined (valley current <= 0)"
         )
         ax.annotate(
             f"$J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['peak_voltage_v'] * 1e3:.0f} mV\n"
             f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['valley_voltage_v'] * 1e3:.0f} mV\n"
-            f"PVCR = {m['pvcr']:.1f}"
-            if m["pvcr"] is not None
-            else "PVCR undefined (valley current <= 0)",
+            + pvcr,
             xy=(0.03, 0.97),
             xycoords="axes fraction",
             va="top",
