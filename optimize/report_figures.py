@@ -14,6 +14,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from .figures import PALETTE, style
+from .tolerance_figures import DISPLAY
 
 __all__ = ["yield_figure", "ranking_figure", "ranking_rows"]
 
@@ -44,7 +45,7 @@ def yield_figure(records: list[dict[str, Any]]) -> Figure:
     ax.barh(ypos, value, 0.55, color=PALETTE["blue"], label="Monte Carlo yield")
     ax.errorbar(value, ypos, xerr=[value - lo, hi - value], fmt="none", ecolor=PALETTE["black"],
                 capsize=5, lw=1.5, label="95 % Wilson interval")
-    for y, v, h, yy in zip(ypos, value, hi, ys, strict=True):
+    for y, v, yy in zip(ypos, value, ys, strict=True):
         ax.text(1.0, y + 0.3, f"{v:.0f} % ({yy['passed']}/{yy['samples']} samples)", va="bottom",
                 fontsize=9)  # above its bar, clear of the interval
     ax.set_yticks(ypos, labels)
@@ -111,10 +112,11 @@ def ranking_figure(record: dict[str, Any], *, top: int = 10) -> Figure | None:
         ax.set_xlabel(f"Sobol index of {what} (share of variance, 0 to 1)")
         ax.set_xlim(left=min(0.0, ax.get_xlim()[0]))
     else:
-        ax.barh(ypos, [r["mu_star"] for r in rows], 0.6, xerr=[r["mu_star_conf"] for r in rows],
-                color=PALETTE["blue"], label="mu* (mean |elementary effect|)",
-                error_kw={"capsize": 3})
-        ax.set_xlabel(f"Morris mu* of {what} (per 5 sigma of the parameter)")
+        factor, label = DISPLAY.get(output, (1.0, what))  # trade units, e.g. kA/cm^2
+        ax.barh(ypos, [factor * r["mu_star"] for r in rows], 0.6,
+                xerr=[factor * r["mu_star_conf"] for r in rows], color=PALETTE["blue"],
+                label="mu* (mean |elementary effect|)", error_kw={"capsize": 3})
+        ax.set_xlabel(f"Morris mu* of {label} (per 5 sigma of the parameter)")
         ax.set_xlim(left=0.0)
     ax.set_yticks(ypos, [r["parameter"] for r in rows])
     ax.set_title(f"which growth error matters most ({'Sobol' if method == 'sobol' else 'Morris'})")

@@ -41,7 +41,7 @@ def metric_axis(metric: str) -> tuple[str, float]:
     if metric.endswith("_v"):
         return f"{words} (mV)", 1e3
     if metric == "pvcr":
-        return "PVCR (peak-to-valley current ratio)", 1.0
+        return "PVCR", 1.0
     return words, 1.0
 
 
@@ -122,6 +122,8 @@ def history_figure(study: Study, trials: Sequence[FrozenTrial]) -> Figure:
         ax.legend(loc="best", fontsize=8)
     ax.set_xlabel("trial")
     fig.suptitle(f"optimisation history: {study.optuna_name} ({len(trials)} trials)")
+    fig.align_ylabels()
+    fig.subplots_adjust(hspace=0.35)
     return fig
 
 
