@@ -8,7 +8,11 @@ Data flow: stack file -> :mod:`physics.stack` (validated :class:`Stack`,
 
 from .bands import Profile, linear_profile
 from .current import EnergyGrid, current_density_a_cm2
-from .electrostatics import ElectrostaticsConvergenceError, self_consistent_profile, sweep_hysteresis
+from .electrostatics import (
+    ElectrostaticsConvergenceError,
+    self_consistent_profile,
+    sweep_hysteresis,
+)
 from .errors import InputError
 from .iv import METRIC_NAMES, IVCurves, stack_iv, sweep
 from .resonances import Resonances, find_resonances

@@ -6,6 +6,8 @@ independently in ``helpers_physics`` with CODATA constants from scipy.
 
 from __future__ import annotations
 
+import importlib
+
 import numpy as np
 import pytest
 from helpers_physics import (
@@ -32,10 +34,20 @@ from physics.bands import linear_profile
 from physics.resonances import find_resonances
 from physics.transmission import transmission
 
+# the module (the package re-exports its function under the same name)
+kernel = importlib.import_module("physics.transmission")
+
 # Relative tolerance for closed-form single-interface/single-layer results: the kernel does a
 # handful of complex multiplications per interface, so 1e-10 leaves four to five orders of
 # magnitude above float64 round-off (measured: a few 1e-15).
 ANALYTIC_RTOL = 1e-10
+
+
+@pytest.fixture(autouse=True, params=kernel.BACKENDS)
+def kernel_backend(request, monkeypatch) -> str:
+    """Every analytic check here runs on each implementation built on this machine."""
+    monkeypatch.setattr(kernel, "DEFAULT_BACKEND", request.param)
+    return request.param
 
 
 # ----------------------------------------------------------------------------- rectangular barrier

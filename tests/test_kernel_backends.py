@@ -1,0 +1,100 @@
+"""The compiled transmission kernel against the numpy implementation.
+
+The numpy implementation is itself checked against analytic results in
+``test_transmission.py`` (both implementations run those checks); here the
+two are compared on random stacks, shapes and edge cases, where they must
+agree to round-off (the compiled one uses real arithmetic and the SIMD
+vector math library, accurate to a few ulp per call: glibc manual, "Known
+Maximum Errors in Math Functions").
+"""
+
+from __future__ import annotations
+
+import importlib
+import os
+
+import numpy as np
+import pytest
+from helpers_physics import custom_table, flat_profile
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from physics.bands import linear_profile
+from physics.transmission import transmission
+
+# the module (the package re-exports its function under the same name)
+kernel = importlib.import_module("physics.transmission")
+
+pytestmark = pytest.mark.skipif(
+    "compiled" not in kernel.BACKENDS, reason="compiled kernel not built on this machine"
+)
+#: Relative agreement demanded where T is not vanishingly small: round-off of ~60 slices of
+#: complex recursions; an energy on a band edge (k^2 at its floor, eta ~ 1e6) costs most
+#: (measured: 1.3e-12).
+RTOL = 1e-10
+
+
+def both(energy, profile, **kw):
+    a = transmission(energy, profile=profile, backend="numpy", return_reflection=True, **kw)
+    b = transmission(energy, profile=profile, backend="compiled", return_reflection=True, **kw)
+    return a, b
+
+
+def assert_same(a, b) -> None:
+    (ta, ra), (tb, rb) = a, b
+    assert ta.shape == tb.shape and ra.shape == rb.shape
+    # where T underflows below 1e-250 both must still be tiny
+    big = ta > 1e-250
+    np.testing.assert_allclose(tb[big], ta[big], rtol=RTOL, atol=0)
+    assert np.all(tb[~big] < 1e-240)
+    np.testing.assert_allclose(rb, ra, rtol=0, atol=RTOL)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    n=st.integers(3, 8),
+    seed=st.integers(0, 2**31 - 1),
+    bias=st.floats(-1.0, 1.0),
+)
+def test_random_stacks_agree(n: int, seed: int, bias: float) -> None:
+    rng = np.random.default_rng(seed)
+    table = custom_table(
+        rng.uniform(0.0, 1.2, n),
+        rng.uniform(0.03, 0.2, n),
+        np.concatenate([[0.0], rng.uniform(0.3, 12.0, n - 2), [0.0]]),
+        alphas_per_ev=rng.uniform(0.0, 2.0, n),
+    )
+    p = linear_profile(table, [0.0, bias])
+    # energies below, at and above every band edge, including negative ones
+    e = np.linspace(-0.3, 1.6, 131)
+    assert_same(*both(e, p))
+
+
+def test_broadcast_shapes_agree() -> None:
+    table = custom_table([0, 0.3, 0, 0.3, 0], [0.067, 0.092, 0.067, 0.092, 0.067], [0, 3, 5, 3, 0])
+    p = linear_profile(table, np.linspace(0.0, 0.4, 5))  # batch (1, 5)
+    e_shared = np.linspace(0.0, 0.5, 37)  # one grid for every bias
+    e_own = np.linspace(0.0, 0.5, 37) + np.linspace(0, 0.01, 5)[:, None]  # (5, 37)
+    for e in (e_shared, e_own[None], e_own):
+        a, b = both(e, p)
+        assert a[0].shape == (1, 5, 37)
+        assert_same(a, b)
+
+
+def test_thick_high_barrier_and_closed_contacts_agree() -> None:
+    # 1 eV over 30 nm in 120 slices: T ~ 1e-130, no overflow in either implementation
+    edges = np.concatenate([[0.0], np.full(120, 1.0), [0.0]])
+    widths = np.concatenate([[0.0], np.full(120, 0.25), [0.0]])
+    p = flat_profile(edges, 0.067, widths)
+    e = np.linspace(-0.05, 0.9, 64)  # includes energies below the contacts' band edge
+    a, b = both(e, p)
+    assert_same(a, b)
+    assert np.all(b[0][e <= 0] == 0.0) and np.all(b[1][e <= 0] == 1.0)
+
+
+def test_ci_builds_the_compiled_kernel() -> None:
+    # .ci/run sets WELLWRIGHT_REQUIRE_COMPILED=1: a silently skipped extension build would
+    # otherwise leave CI on the slower fallback without anyone noticing
+    if os.environ.get("WELLWRIGHT_REQUIRE_COMPILED") != "1":
+        pytest.skip("only checked where WELLWRIGHT_REQUIRE_COMPILED=1")
+    assert kernel.DEFAULT_BACKEND == "compiled"
