@@ -13,6 +13,7 @@ emitter contact sits at 0 and, under bias ``V``, the collector at ``-V``.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -115,6 +116,18 @@ class Profile:
             nonparabolicity_per_ev=sel(self.nonparabolicity_per_ev),
             width_nm=sel(self.width_nm),
             layer_index=self.layer_index,
+        )
+
+    @cached_property
+    def slice_arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Edge, mass, nonparabolicity and width as C-contiguous ``batch_shape + (n_slices,)`` arrays.
+
+        Computed once per profile (the compiled kernel reads them on every call).
+        """
+        shape = self.batch_shape + (self.n_slices,)
+        return tuple(
+            np.ascontiguousarray(np.broadcast_to(a, shape), dtype=float)
+            for a in (self.edge_ev, self.mass_m0, self.nonparabolicity_per_ev, self.width_nm)
         )
 
     def positions_nm(self) -> np.ndarray:

@@ -40,7 +40,7 @@ from .constants import BOLTZMANN_EV_K, ELECTRON_MASS_KG, ELEMENTARY_CHARGE_C, HB
 from .fermi import fermi_level_ev
 from .resonances import local_peaks, refine_peaks
 from .stack import LayerTable
-from .transmission import transmission
+from .transmission import transmission, transmission_where
 
 __all__ = [
     "EnergyGrid",
@@ -63,7 +63,7 @@ class EnergyGrid:
     n_resonances: int = 2  #: resonances resolved per (stack, bias), those carrying most current
     n_candidates: int = 6  #: coarse-grid peaks refined before the n_resonances are chosen
     n_per_resonance: int = 32  #: Gauss-Legendre nodes per resonance (sinh map)
-    refine_iterations: int = 5
+    refine_iterations: int = 4  #: parabola-fit rounds per candidate (three energies each)
 
 
 def contact_fermi_levels_ev(table: LayerTable) -> tuple[np.ndarray, np.ndarray]:
@@ -77,9 +77,14 @@ def contact_fermi_levels_ev(table: LayerTable) -> tuple[np.ndarray, np.ndarray]:
 def supply_function_ev(energy_ev, mu_emitter_ev, mu_collector_ev, kt_ev):
     """kT ln[(1 + exp((mu_E - E)/kT)) / (1 + exp((mu_C - E)/kT))], eV, overflow-safe."""
     return kt_ev * (
-        np.logaddexp(0.0, (mu_emitter_ev - energy_ev) / kt_ev)
-        - np.logaddexp(0.0, (mu_collector_ev - energy_ev) / kt_ev)
+        _softplus((mu_emitter_ev - energy_ev) / kt_ev)
+        - _softplus((mu_collector_ev - energy_ev) / kt_ev)
     )
+
+
+def _softplus(x: np.ndarray) -> np.ndarray:
+    """ln(1 + e^x) without overflow (twice as fast as np.logaddexp(0, x))."""
+    return np.maximum(x, 0.0) + np.log1p(np.exp(-np.abs(x)))
 
 
 def energy_window_ev(
@@ -102,12 +107,24 @@ def _linear_weights(nodes: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarr
     ``nodes`` is ``batch + (n,)`` and sorted; ``a``, ``b`` are ``batch``.
     """
     e0, e1 = nodes[..., :-1], nodes[..., 1:]
-    h = np.maximum(e1 - e0, 1e-300)
-    lo = np.clip(a[..., None], e0, e1)
-    hi = np.clip(b[..., None], e0, e1)
+    lo = np.minimum(np.maximum(a[..., None], e0), e1)  # [a, b] clipped to each cell
+    hi = np.minimum(np.maximum(b[..., None], e0), e1)
+    # cell [e0, e1] of width h: the hat functions integrate over [lo, hi] to
+    # (hi - lo)(2 e1 - lo - hi) / 2h (left node) and (hi - lo)(lo + hi - 2 e0) / 2h (right)
+    d = (hi - lo) / (2.0 * np.maximum(e1 - e0, 1e-300))
+    mid2 = lo + hi
     w = np.zeros(nodes.shape)
-    w[..., :-1] += ((e1 - lo) ** 2 - (e1 - hi) ** 2) / (2.0 * h)
-    w[..., 1:] += ((hi - e0) ** 2 - (lo - e0) ** 2) / (2.0 * h)
+    w[..., :-1] += d * (2.0 * e1 - mid2)
+    w[..., 1:] += d * (mid2 - 2.0 * e0)
+    return w
+
+
+def _trapezoid_weights(nodes: np.ndarray) -> np.ndarray:
+    """Trapezoid weights on sorted ``nodes`` (``batch + (n,)``): the interpolant's integral over their span."""
+    h = np.diff(nodes, axis=-1)
+    w = np.zeros(nodes.shape)
+    w[..., :-1] += 0.5 * h
+    w[..., 1:] += 0.5 * h
     return w
 
 
@@ -200,7 +217,7 @@ def current_density_a_cm2(
         guess = np.take_along_axis(coarse, index, axis=-1)
         spacing = np.take_along_axis(np.gradient(coarse, axis=-1), index, axis=-1)
         center, width, peak = refine_peaks(
-            guess, 0.5 * spacing, profile=profile, iterations=grid.refine_iterations
+            guess, 0.5 * spacing, profile=profile, iterations=grid.refine_iterations, valid=valid
         )
         valid &= (
             np.isfinite(width)
@@ -225,15 +242,17 @@ def current_density_a_cm2(
         valid = np.take_along_axis(valid, order, axis=-1)
         a, b = _resonance_intervals(center, width, spacing, low, high)
         b = np.where(valid, b, a)  # unused resonance slots integrate over nothing
-        weights = _linear_weights(coarse, low, high)
+        weights = _trapezoid_weights(coarse)  # the coarse nodes span [low, high]
         for r in range(a.shape[-1]):
             weights -= _linear_weights(coarse, a[..., r], b[..., r])
         extra, extra_weights = _resonance_rule(center, width, a, b, grid.n_per_resonance)
         energies.append(extra)
-        values.append(transmission(extra, profile=profile))
+        # unused slots carry zero weight: the kernel runs only on the resolved resonances
+        nodes = extra.reshape(extra.shape[:-1] + (a.shape[-1], grid.n_per_resonance))
+        values.append(transmission_where(nodes, profile=profile, mask=valid).reshape(extra.shape))
         weights = np.concatenate([weights, extra_weights], axis=-1)
     else:
-        weights = _linear_weights(coarse, low, high)
+        weights = _trapezoid_weights(coarse)
     energy = np.concatenate(energies, axis=-1)
     t = np.concatenate(values, axis=-1)
     integrand = t * supply_function_ev(energy, mu_e[..., None], mu_c[..., None], kt[..., None])

@@ -103,10 +103,20 @@ def reduced_fermi_level(density_ratio):
 
 
 def fermi_level_ev(doping_cm3, mass_m0, temperature_k):
-    """Fermi level above the band edge of fully ionised n-type bulk, eV."""
-    nc = effective_density_of_states_cm3(mass_m0, temperature_k)
-    kt = BOLTZMANN_EV_K * np.asarray(temperature_k, float)
-    return kt * reduced_fermi_level(np.asarray(doping_cm3, float) / nc)
+    """Fermi level above the band edge of fully ionised n-type bulk, eV.
+
+    Solved once per distinct (doping, mass, temperature): a batch of stack
+    variants mostly shares its contacts.
+    """
+    doping, mass, temperature = np.broadcast_arrays(
+        *(np.asarray(a, float) for a in (doping_cm3, mass_m0, temperature_k))
+    )
+    keys = np.stack([doping.ravel(), mass.ravel(), temperature.ravel()], axis=-1)
+    distinct, inverse = np.unique(keys, axis=0, return_inverse=True)
+    d, m, t = distinct.T
+    ratio = d / effective_density_of_states_cm3(m, t)
+    level = BOLTZMANN_EV_K * t * reduced_fermi_level(ratio)
+    return level[inverse.ravel()].reshape(doping.shape)
 
 
 def joyce_dixon_reduced_fermi_level(density_ratio):

@@ -22,7 +22,7 @@ import numpy as np
 
 from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR_J_S
-from .transmission import transmission
+from .transmission import transmission, transmission_rows
 
 __all__ = ["Resonances", "find_resonances", "refine_peaks", "local_peaks"]
 
@@ -84,7 +84,8 @@ def refine_peaks(
     step_ev: np.ndarray,
     *,
     profile: Profile,
-    iterations: int = 5,
+    iterations: int = 4,
+    valid: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Refine transmission peaks by parabola fits of 1/T, batched.
 
@@ -98,6 +99,10 @@ def refine_peaks(
         Profiles with batch shape broadcastable to ``batch``.
     iterations
         Kernel calls; each evaluates three energies per peak.
+    valid
+        Optional mask shaped like ``guess_ev`` (batch = ``profile.batch_shape``): only
+        these peaks are refined (padding slots cost nothing); the others are
+        returned with NaN width and peak.
 
     Returns
     -------
@@ -105,15 +110,37 @@ def refine_peaks(
         Arrays shaped like ``guess_ev``. Where a fit fails (no curvature) the
         width is NaN.
     """
+    if valid is None:
+
+        def t_of(e: np.ndarray) -> np.ndarray:  # batch + (n, 3)
+            return transmission(e.reshape(e.shape[:-2] + (-1,)), profile=profile).reshape(e.shape)
+
+        return _refine(guess_ev, step_ev, t_of, iterations)
+    # refine the real peaks only, as one flat list, each on its own profile
+    where = np.nonzero(valid)  # batch indices of each peak, then its slot
+    step = np.broadcast_to(np.asarray(step_ev, float), valid.shape)
+    picked = _refine(
+        np.asarray(guess_ev, float)[where],
+        step[where],
+        lambda e: transmission_rows(e, profile=profile, rows=where[:-1]),
+        iterations,
+    )
+    out = (np.array(guess_ev, float), np.full(valid.shape, np.nan), np.full(valid.shape, np.nan))
+    for full, part in zip(out, picked):
+        full[where] = part
+    return out
+
+
+def _refine(guess_ev, step_ev, t_of, iterations: int):
+    """The parabola iteration of :func:`refine_peaks`; ``t_of(e)`` gives T at ``e = peaks + (3,)``."""
     center = np.array(guess_ev, float)
     step = np.broadcast_to(np.asarray(step_ev, float), center.shape).copy()
     width = np.full(center.shape, np.nan)
     peak = np.full(center.shape, np.nan)
     offsets = np.array([-1.0, 0.0, 1.0])
     for _ in range(iterations):
-        e = center[..., None] + step[..., None] * offsets  # batch + (n, 3)
-        flat = e.reshape(e.shape[:-2] + (-1,))
-        t = transmission(flat, profile=profile).reshape(e.shape)
+        e = center[..., None] + step[..., None] * offsets  # peaks + (3,)
+        t = t_of(e)
         y = 1.0 / np.maximum(t, 1e-150)  # keeps slope**2 finite
         # parabola through (-h, y0), (0, y1), (h, y2) in units of h
         curv = 0.5 * (y[..., 0] + y[..., 2]) - y[..., 1]

@@ -53,7 +53,11 @@ try:
 except ImportError:  # built without a C compiler: the numpy implementation serves
     _slices = None
 
-__all__ = ["transmission", "wave_numbers_per_nm", "BACKENDS", "DEFAULT_BACKEND"]
+__all__ = [
+    "transmission",
+    "transmission_rows",
+    "transmission_where",
+    "wave_numbers_per_nm", "BACKENDS", "DEFAULT_BACKEND"]
 
 #: Implementations available here; ``"compiled"`` only when the extension was built.
 BACKENDS = ("compiled", "numpy") if _slices is not None else ("numpy",)
@@ -119,36 +123,84 @@ def transmission(
     reflection : ndarray
         Only with ``return_reflection``; 1 where the emitter has no propagating state.
     """
-    backend = DEFAULT_BACKEND if backend is None else backend
-    if backend not in BACKENDS:
-        raise ValueError(f"backend {backend!r}: allowed are {', '.join(BACKENDS)}")
     energy = np.asarray(energy_ev, float)
-    if backend == "compiled":
+    if _backend(backend) == "compiled":
         return _compiled(energy, profile, return_reflection)
     return _numpy(energy, profile, return_reflection)
 
 
-def _compiled(energy: np.ndarray, profile: Profile, return_reflection: bool):
-    """The compiled kernel on contiguous float64 copies of the broadcast inputs."""
-    n = profile.n_slices
-    batch = np.broadcast_shapes(energy.shape[:-1], profile.batch_shape)
+def transmission_rows(
+    energy_ev: np.ndarray, *, profile: Profile, rows: tuple[np.ndarray, ...], backend: str | None = None
+) -> np.ndarray:
+    """T(E) of groups of energies, each group on its own profile of the batch.
 
-    def flat(a: np.ndarray, last: int) -> np.ndarray:
-        return np.ascontiguousarray(np.broadcast_to(a, batch + (last,)), dtype=float)
+    ``energy_ev`` is ``(n_groups, n_energies)``; ``rows`` indexes
+    ``profile.batch_shape`` (one array per batch axis, e.g. from
+    :func:`numpy.nonzero`), one profile per group. Equals
+    ``transmission(energy_ev, profile=profile.take(rows))`` without the copy
+    of the selected profiles.
+    """
+    energy = np.asarray(energy_ev, float)
+    if _backend(backend) == "compiled":
+        flat_rows = np.ravel_multi_index(rows, profile.batch_shape).astype(np.int64)
+        return _compiled(energy, profile, False, rows=flat_rows)
+    return _numpy(energy, profile.take(rows), False)
 
-    e = flat(energy, energy.shape[-1])
+
+def transmission_where(
+    energy_ev: np.ndarray, *, profile: Profile, mask: np.ndarray, backend: str | None = None
+) -> np.ndarray:
+    """T(E) of groups of energies, evaluated only where ``mask`` is set (0 elsewhere).
+
+    ``energy_ev`` is ``profile.batch_shape + (n_groups, n_energies)`` and ``mask``
+    ``profile.batch_shape + (n_groups,)``: e.g. the nodes of each candidate
+    resonance, of which only the real ones (not the padding) need the kernel.
+    """
+    energy = np.asarray(energy_ev, float)
+    out = np.zeros(energy.shape)
+    where = np.nonzero(mask)
+    if where[0].size:
+        out[where] = transmission_rows(
+            energy[where], profile=profile, rows=where[:-1], backend=backend
+        )
+    return out
+
+
+def _backend(backend: str | None) -> str:
+    backend = DEFAULT_BACKEND if backend is None else backend
+    if backend not in BACKENDS:
+        raise ValueError(f"backend {backend!r}: allowed are {', '.join(BACKENDS)}")
+    return backend
+
+
+def _compiled(energy: np.ndarray, profile: Profile, return_reflection: bool, rows=None):
+    """The compiled kernel on the broadcast energies and the profiles' slice arrays.
+
+    Without ``rows`` energies and profiles broadcast together; with ``rows``
+    (int64, one per row of ``energy``) row ``g`` of ``energy`` runs on profile
+    ``rows[g]`` of the flattened ``profile.batch_shape``. The profiles are
+    never copied per call (:attr:`Profile.slice_arrays` is computed once).
+    """
+    batch = profile.batch_shape
+    if rows is None:
+        full = np.broadcast_shapes(energy.shape[:-1], batch)
+        e = np.ascontiguousarray(np.broadcast_to(energy, full + energy.shape[-1:]))
+        if full != batch:  # energies beyond the profiles' batch: map each row to its profile
+            index = np.arange(int(np.prod(batch))).reshape(batch)
+            rows = np.ascontiguousarray(np.broadcast_to(index, full).ravel(), dtype=np.int64)
+    else:
+        e = np.ascontiguousarray(energy)
     t = np.empty(e.shape)
     r = np.empty(e.shape) if return_reflection else None
     _slices.transmission(
-        n,
+        profile.n_slices,
+        e.shape[-1],
         e,
-        flat(profile.edge_ev, n),
-        flat(profile.mass_m0, n),
-        flat(profile.nonparabolicity_per_ev, n),
-        flat(profile.width_nm, n),
+        *profile.slice_arrays,
         1.0 / HBAR2_2M0_EV_NM2,
         t,
         r,
+        rows,
     )
     return (t, r) if return_reflection else t
 
