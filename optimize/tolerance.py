@@ -211,10 +211,15 @@ def _int_seed(rng: np.random.Generator) -> int:
 
 
 def saltelli_design(
-    n_params: int, base_samples: int, *, seed: int | np.random.Generator | None = None
+    n_params: int,
+    base_samples: int,
+    *,
+    second_order: bool = False,
+    seed: int | np.random.Generator | None = None,
 ) -> np.ndarray:
-    """Saltelli design points in the unit cube, ``(base_samples * (n_params + 2), n_params)``
-    (first and total order, SALib's scrambled Sobol' sampler; ``base_samples`` a power of 2)."""
+    """Saltelli design points in the unit cube (SALib's scrambled Sobol' sampler;
+    ``base_samples`` a power of 2): ``base_samples * (n_params + 2)`` rows for first and
+    total order, ``base_samples * (2 n_params + 2)`` with ``second_order``."""
     from SALib.sample import sobol as sobol_sample
 
     problem = {
@@ -223,7 +228,7 @@ def saltelli_design(
         "bounds": [[0.0, 1.0]] * n_params,
     }
     return sobol_sample.sample(
-        problem, base_samples, calc_second_order=False, seed=_int_seed(as_generator(seed))
+        problem, base_samples, calc_second_order=second_order, seed=_int_seed(as_generator(seed))
     )
 
 
@@ -234,9 +239,14 @@ def sobol_table(
     seed: int | np.random.Generator | None = None,
     confidence: float = 0.95,
     resamples: int = 200,
+    pairs: list | None = None,
 ) -> list[dict[str, Any]]:
     """First and total Sobol indices of outputs ``y`` on a :func:`saltelli_design`, ordered by
-    total index, most important first: ``{parameter, first_index, first_conf, total_index, total_conf}``."""
+    total index, most important first: ``{parameter, first_index, first_conf, total_index, total_conf}``.
+
+    With a list ``pairs`` (and ``y`` on a second-order design) the second-order
+    indices are appended to it as ``{parameters: [a, b], index, conf}``, largest first.
+    """
     from SALib.analyze import sobol as sobol_analyze
 
     problem = {"num_vars": len(names), "names": list(names), "bounds": [[0.0, 1.0]] * len(names)}
@@ -256,7 +266,7 @@ def sobol_table(
     res = sobol_analyze.analyze(
         problem,
         y,
-        calc_second_order=False,
+        calc_second_order=pairs is not None,
         num_resamples=resamples,
         conf_level=confidence,
         seed=_int_seed(as_generator(seed)),
@@ -271,6 +281,18 @@ def sobol_table(
         }
         for i, p in enumerate(names)
     ]
+    if pairs is not None:
+        d = len(names)
+        found = [
+            {
+                "parameters": [names[i], names[j]],
+                "index": float(res["S2"][i, j]),
+                "conf": float(res["S2_conf"][i, j]),
+            }
+            for i in range(d)
+            for j in range(i + 1, d)
+        ]
+        pairs.extend(sorted(found, key=lambda r: -r["index"]))
     return sorted(rows, key=lambda r: -r["total_index"])
 
 
@@ -286,6 +308,7 @@ def sobol_analysis(
     run: Runner,
     *,
     base_samples: int,
+    second_order: bool = False,
     seed: int | np.random.Generator | None = None,
 ) -> dict[str, Any]:
     """Sobol indices of each figure of merit and of pass/fail w.r.t. every growth parameter.
@@ -293,22 +316,30 @@ def sobol_analysis(
     Uses the deterministic island model (``islands="nearest"``, see
     :mod:`optimize.growth`). A figure of merit that is NaN (no NDR) in some
     sample is skipped with a note. Returns ``sobol`` (name -> ordered list),
-    ``notes`` and ``evaluations``.
+    ``notes`` and ``evaluations``; with ``second_order`` (``N (2 D + 2)``
+    evaluations instead of ``N (D + 2)``) also ``sobol_second_order`` (name ->
+    pairs of parameters with their interaction index, largest first).
     """
     rng = as_generator(seed)
-    u = saltelli_design(len(model.parameters), base_samples, seed=rng)
+    u = saltelli_design(len(model.parameters), base_samples, second_order=second_order, seed=rng)
     metrics = run(model.as_grown(_normal(u), islands="nearest"), desc="Sobol")
     out: dict[str, list] = {}
+    pairs: dict[str, list] = {}
     notes = []
-    for name in METRIC_NAMES:
-        y = metrics[name]
+    outputs = {name: metrics[name] for name in METRIC_NAMES}
+    outputs["pass"] = spec.passes(metrics).astype(float)
+    for name, y in outputs.items():
         bad = int(np.count_nonzero(~np.isfinite(y)))
         if bad:
             notes.append(f"sobol of {name} skipped: no NDR in {bad} of {y.size} samples")
             continue
-        out[name] = sobol_table(model.names, y, seed=rng)
-    out["pass"] = sobol_table(model.names, spec.passes(metrics).astype(float), seed=rng)
-    return {"sobol": out, "notes": notes, "evaluations": int(u.shape[0])}
+        if second_order:
+            pairs[name] = []
+        out[name] = sobol_table(model.names, y, seed=rng, pairs=pairs.get(name))
+    result = {"sobol": out, "notes": notes, "evaluations": int(u.shape[0])}
+    if second_order:
+        result["sobol_second_order"] = pairs
+    return result
 
 
 # --------------------------------------------------------------------------- Morris
@@ -508,6 +539,7 @@ def run_tolerance(
     out_dir: str | Path | None = None,
     design: dict[str, Any] | None = None,
     figures: bool = True,
+    second_order: bool = False,
 ) -> dict[str, Any]:
     """The whole tolerance analysis of one design; optionally writes ``out_dir``.
 
@@ -520,6 +552,9 @@ def run_tolerance(
     samples, passed, confidence}; ``failures``; ``sobol`` {metric name and
     ``pass`` -> list ordered by total index of {parameter, first_index,
     first_conf, total_index, total_conf}} (empty unless ``sobol``);
+    ``sobol_second_order`` {metric name and ``pass`` -> pairs ``{parameters,
+    index, conf}``, largest first} (only with ``second_order``, which spends the
+    budget on ``N (2 D + 2)`` instead of ``N (D + 2)`` evaluations);
     ``morris``; ``tornado``; ``allocation``; ``parameters`` [{name, kind,
     sigma, unit}]; ``nominal`` metrics; ``spec``; ``settings``; ``notes``.
     """
@@ -554,9 +589,14 @@ def run_tolerance(
     d = len(model.parameters)
     ranking_source = None
     if method == "sobol":
-        n_base = max(8, 2 ** int(math.floor(math.log2(max(1, samples // (d + 2))))))
-        s = sobol_analysis(model, spec, run, base_samples=n_base, seed=seeds[1])
+        per_base = 2 * d + 2 if second_order else d + 2
+        n_base = max(8, 2 ** int(math.floor(math.log2(max(1, samples // per_base)))))
+        s = sobol_analysis(
+            model, spec, run, base_samples=n_base, second_order=second_order, seed=seeds[1]
+        )
         record["sobol"] = s["sobol"]
+        if second_order:
+            record["sobol_second_order"] = s["sobol_second_order"]
         notes += s["notes"]
         record["sobol_evaluations"] = s["evaluations"]
         ranking_source = [r["parameter"] for r in s["sobol"]["pass"]]
@@ -595,6 +635,7 @@ def run_tolerance(
         record["allocation"] = []
     record["settings"] = {
         "method": method,
+        "second_order": bool(second_order and method == "sobol"),
         "samples": samples,
         "bias_points": int(run.bias_v.size),
         "bias_min_v": float(run.bias_v[0]),

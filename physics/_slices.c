@@ -4,12 +4,12 @@
  *
  * The recursion, its stability argument and its references are documented
  * in physics/transmission.py; this file computes the same numbers (tested
- * against the numpy implementation to 1e-11 relative). Per slice the wave
+ * against the numpy implementation to 1e-10 relative). Per slice the wave
  * number is either real (propagating) or imaginary (evanescent), so the
  * ratio eta of k/m across an interface is real or purely imaginary and the
  * phase factor exp(2 i k d) is either (cos, sin) or a real decay: no complex
- * square roots or exponentials are needed. Lanes of LANES energies advance
- * through the slices together; on x86-64 glibc the loops compile to SIMD
+ * square roots or exponentials are needed. Lanes of LANES (energy, profile)
+ * items advance through the slices together; on x86-64 glibc the loops compile to SIMD
  * with the vector math library (libmvec), in clones for AVX-512, AVX2 and
  * baseline SSE2 picked at load time.
  *
@@ -54,8 +54,8 @@ double cos(double) __attribute__((simd("notinbranch"), const, nothrow));
 static inline double floor_k2(double k2) { return fabs(k2) < K2_FLOOR ? K2_FLOOR : k2; }
 static inline double mass_factor(double x) { return x > MIN_MASS_FACTOR ? x : MIN_MASS_FACTOR; }
 
-/* One chunk of LANES (energy, profile) items from item e0 on. Item i is energy i of
-   profile i / ne. Lanes run over items, not over one profile's energies, so that short
+/* One chunk of LANES (energy, profile) items from item e0 on. Item i belongs to energy
+   group i / ne, which runs on profile rows[group] (the group itself without rows). Lanes run over items, not over one profile's energies, so that short
    energy lists (three points per resonance in the refinement) fill the vectors too;
    each lane then gathers its own profile's slice parameters. With `shared` (ne a
    multiple of LANES, so a chunk never straddles two profiles) all lanes read one
@@ -69,11 +69,14 @@ static inline __attribute__((always_inline)) void chunk(
     double q_next[LANES], p_next[LANES], q_coll[LANES], arg[LANES];
     Py_ssize_t base[LANES]; /* offset of the lane's profile in the slice arrays */
     const int used = (n_items - e0) < LANES ? (int)(n_items - e0) : LANES;
+    Py_ssize_t group = e0 / ne, within = e0 % ne; /* of lane 0; the others count on */
     for (int l = 0; l < LANES; l++) {
-        const Py_ssize_t item = e0 + (l < used ? l : used - 1);
-        en[l] = energy[item];
-        const Py_ssize_t group = item / ne;
+        en[l] = energy[e0 + (l < used ? l : used - 1)];
         base[l] = (rows ? (Py_ssize_t)rows[group] : group) * n;
+        if (l + 1 < used && ++within == ne) {
+            within = 0;
+            group++;
+        }
     }
     const Py_ssize_t base0 = base[0];
     {
@@ -126,11 +129,14 @@ static inline __attribute__((always_inline)) void chunk(
             p_next[l] = p;
         }
         /* rho_j = rho' exp(2 i k d): a rotation where propagating, a decay where
-           evanescent (contacts: d = 0). Lanes of one kind only (the common case:
-           inside a barrier or a well) skip the other kind's functions. */
+           evanescent; none at the emitter (j = 0, where only rho' is needed). Lanes
+           of one kind only (the common case: inside a barrier or a well) skip the
+           other kind's functions. */
         double n_prop = 0.0;
         for (int l = 0; l < LANES; l++) n_prop += p_next[l];
-        if (n_prop == LANES) {
+        if (j == 0) {
+            /* the emitter: rho' is its reflection ratio */
+        } else if (n_prop == LANES) {
             WW_SIMD
             for (int l = 0; l < LANES; l++) {
                 const double c = cos(arg[l]), si = sin(arg[l]);

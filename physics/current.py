@@ -76,10 +76,8 @@ def contact_fermi_levels_ev(table: LayerTable) -> tuple[np.ndarray, np.ndarray]:
 
 def supply_function_ev(energy_ev, mu_emitter_ev, mu_collector_ev, kt_ev):
     """kT ln[(1 + exp((mu_E - E)/kT)) / (1 + exp((mu_C - E)/kT))], eV, overflow-safe."""
-    return kt_ev * (
-        _softplus((mu_emitter_ev - energy_ev) / kt_ev)
-        - _softplus((mu_collector_ev - energy_ev) / kt_ev)
-    )
+    x = (mu_emitter_ev - energy_ev) / kt_ev
+    return kt_ev * (_softplus(x) - _softplus(x - (mu_emitter_ev - mu_collector_ev) / kt_ev))
 
 
 def _softplus(x: np.ndarray) -> np.ndarray:

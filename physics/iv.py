@@ -5,9 +5,11 @@ that is followed by negative differential resistance (the current falls by
 more than ``NDR_DROP`` of the peak before rising above it again); the
 valley is the lowest current after it, before the current first exceeds
 the peak again or the sweep ends. Both are then located more finely than
-the sweep grid by nine extra biases across the neighbouring grid points (one batched call
-for peaks and valleys of every stack) and a parabola
-through the three best points.
+the sweep grid: nine extra biases across the neighbouring grid points
+(one batched call for peaks and valleys of every stack), then the current
+at the vertex of a parabola through the three best points (one more
+call); the better of that and the best sampled point is reported, so the
+figures of merit are always computed currents, never extrapolations.
 
 A valley that falls on the last point of the sweep is reported there; the
 true valley can only be lower, so the PVCR is then a lower bound.
@@ -170,18 +172,26 @@ def _refine(table, model, grid, center_v, half_span_v, sign, rounds=1, points=9)
     """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
 
     ``rounds`` of ``points`` extra biases around each centre (one batched
-    sweep per round), then a parabola through the best three points.
+    sweep per round), then the vertex of a parabola through the best three
+    points, where the current is computed (one more batched call): the
+    parabola's own value would overshoot at a kink (a valley right after a
+    cliff can come out negative). The better of the vertex and the best
+    sampled point is returned, so the result is always a computed current.
     """
     center = center_v.copy()
     half = half_span_v.copy()
     offsets = np.linspace(-1.0, 1.0, points)
-    rows = np.arange(center.size)[:, None]
+    rows = np.arange(center.size)
     for _ in range(rounds):
         v = center[:, None] + half[:, None] * offsets
         j = sign[:, None] * current_at_bias(table, v, model=model, grid=grid)
-        best = np.clip(np.argmax(j, axis=1), 1, points - 2)
-        pick = best[:, None] + np.array([-1, 0, 1])
-        center, y = _parabola_vertex(v[rows, pick], j[rows, pick])
+        best = np.argmax(j, axis=1)
+        pick = np.clip(best, 1, points - 2)[:, None] + np.array([-1, 0, 1])
+        vertex, _ = _parabola_vertex(v[rows[:, None], pick], j[rows[:, None], pick])
+        j_vertex = sign * current_at_bias(table, vertex[:, None], model=model, grid=grid)[:, 0]
+        better = j_vertex >= j[rows, best]
+        center = np.where(better, vertex, v[rows, best])
+        y = np.where(better, j_vertex, j[rows, best])
         half = half * 2.0 / (points - 1)
     return center, sign * y
 

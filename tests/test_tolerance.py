@@ -86,6 +86,24 @@ def test_sobol_pipeline_on_ishigami():
     assert ordered == ["x1", "x2", "x3"]  # by total index, most important first
 
 
+def test_sobol_second_order_on_ishigami():
+    # Ishigami and Homma (1990), a = 7, b = 0.1: the only interaction is x1-x3, with
+    # S13 = ST3 = 0.2437 (values from memory of the published ones; S13 = ST1 - S1 too),
+    # and S12 = S23 = 0.
+    from SALib.test_functions import Ishigami
+
+    u = saltelli_design(3, 1024, second_order=True, seed=1)
+    assert u.shape == (1024 * (2 * 3 + 2), 3)
+    y = Ishigami.evaluate(-np.pi + 2 * np.pi * u)
+    pairs: list = []
+    sobol_table(["x1", "x2", "x3"], y, seed=2, pairs=pairs)
+    assert [p["parameters"] for p in pairs][0] == ["x1", "x3"]  # largest first
+    ref = {("x1", "x3"): 0.2437, ("x1", "x2"): 0.0, ("x2", "x3"): 0.0}
+    for p in pairs:
+        expected = ref[tuple(p["parameters"])]
+        assert abs(p["index"] - expected) <= max(3 * p["conf"], 0.05), p
+
+
 @pytest.mark.parametrize(("k", "n"), [(0, 10), (3, 10), (10, 10), (45, 64), (900, 1000)])
 def test_wilson_interval_matches_scipy(k, n):
     # E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927); reference: scipy.stats.binomtest
@@ -322,6 +340,24 @@ def test_cli_runs_on_best_design(tmp_path, study, capsys):
     )
     assert (out / "samples.csv").is_file() and (out / "histograms.png").stat().st_size > 1000
     assert not list(out.glob(".*.tmp"))
+
+
+def test_cli_sobol_with_second_order(tmp_path, capsys):
+    # the interaction indices reach tolerance.json: one entry per pair of parameters
+    f = tmp_path / "s.toml"
+    f.write_text(_study_text())
+    out = tmp_path / "tol2"
+    argv = ["tolerance", str(f), "--design", str(STACK_FILE), "--method", "sobol"]
+    argv += ["--second-order", "--samples", "64", "--allocate", "0", "--bias-points", "21"]
+    argv += ["--jobs", "1", "--out", str(out), "--no-progress"]
+    assert main(argv) == 0, capsys.readouterr().err
+    rec = json.loads((out / "tolerance.json").read_text())
+    d = len(rec["parameters"])
+    assert rec["settings"]["second_order"] is True
+    pairs = rec["sobol_second_order"]["pass"]
+    assert len(pairs) == d * (d - 1) // 2
+    assert all(len(p["parameters"]) == 2 and np.isfinite(p["index"]) for p in pairs)
+    assert rec["sobol_evaluations"] == 8 * (2 * d + 2)  # 64 // (2 d + 2) -> at least 8 base
 
 
 def test_dask_backend_gives_the_same_metrics(stack):
