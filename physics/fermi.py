@@ -16,6 +16,8 @@ References
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from .constants import BOLTZMANN_EV_K, ELECTRON_MASS_KG, ELEMENTARY_CHARGE_C, HBAR_J_S
@@ -113,10 +115,15 @@ def fermi_level_ev(doping_cm3, mass_m0, temperature_k):
     )
     keys = np.stack([doping.ravel(), mass.ravel(), temperature.ravel()], axis=-1)
     distinct, inverse = np.unique(keys, axis=0, return_inverse=True)
-    d, m, t = distinct.T
-    ratio = d / effective_density_of_states_cm3(m, t)
-    level = BOLTZMANN_EV_K * t * reduced_fermi_level(ratio)
+    level = np.array([_fermi_level_one(*map(float, key)) for key in distinct])
     return level[inverse.ravel()].reshape(doping.shape)
+
+
+@functools.lru_cache(maxsize=4096)
+def _fermi_level_one(doping_cm3: float, mass_m0: float, temperature_k: float) -> float:
+    """:func:`fermi_level_ev` of one contact, remembered (sweeps ask for the same few contacts)."""
+    ratio = doping_cm3 / effective_density_of_states_cm3(mass_m0, temperature_k)
+    return float(BOLTZMANN_EV_K * temperature_k * reduced_fermi_level(np.array([ratio]))[0])
 
 
 def joyce_dixon_reduced_fermi_level(density_ratio):

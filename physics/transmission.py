@@ -142,7 +142,10 @@ def transmission_rows(
     """
     energy = np.asarray(energy_ev, float)
     if _backend(backend) == "compiled":
-        flat_rows = np.ravel_multi_index(rows, profile.batch_shape).astype(np.int64)
+        if profile.batch_shape:
+            flat_rows = np.ravel_multi_index(rows, profile.batch_shape).astype(np.int64)
+        else:  # one profile for every group
+            flat_rows = np.zeros(energy.shape[0], np.int64)
         return _compiled(energy, profile, False, rows=flat_rows)
     return _numpy(energy, profile.take(rows), False)
 

@@ -304,7 +304,9 @@ def _count(db: Path, state: str) -> int:
 def test_resume_after_sigkill_keeps_completed_trials(write_study, tmp_path):
     path = write_study(study_text(extra=SWEEP))
     out = tmp_path / "o"
-    argv = ["search", str(path), "--trials", "24", "--out", str(out), "--no-progress"]
+    # enough trials that the search is still running when it is killed after 5
+    total = 60
+    argv = ["search", str(path), "--trials", str(total), "--out", str(out), "--no-progress"]
     proc = subprocess.Popen(
         [sys.executable, "-m", "optimize.cli", *argv],
         env=_env(),
@@ -333,14 +335,14 @@ def test_resume_after_sigkill_keeps_completed_trials(write_study, tmp_path):
             states=(TrialState.RUNNING,)
         )
     ]
-    assert 5 <= len(before) < 24 and len(running) <= study_batch
+    assert 5 <= len(before) < total and len(running) <= study_batch
     t0 = time.perf_counter()
     assert cli.main([*argv]) == 0  # the same command resumes
     # at once: the dead process's trial is failed on sight, not after the heartbeat grace period
     assert time.perf_counter() - t0 < GRACE_PERIOD_S
     after = optuna.load_study(study_name="study", storage=storage).get_trials()
     complete = {t.number: (t.params, t.value) for t in after if t.state == TrialState.COMPLETE}
-    assert len(complete) == 24
+    assert len(complete) == total
     assert all(complete[n] == v for n, v in before.items())  # completed work kept as it was
     assert all(t.state == TrialState.FAIL for t in after if t.number in running)  # the killed trial
     assert not [t for t in after if t.state == TrialState.RUNNING]
