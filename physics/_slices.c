@@ -8,7 +8,8 @@
  * number is either real (propagating) or imaginary (evanescent), so the
  * ratio eta of k/m across an interface is real or purely imaginary and the
  * phase factor exp(2 i k d) is either (cos, sin) or a real decay: no complex
- * square roots or exponentials are needed. Lanes of LANES (energy, profile)
+ * square roots or exponentials are needed; the rotation comes from one tangent of
+ * the half angle, cos = (1 - t^2)/(1 + t^2) and sin = 2t/(1 + t^2). Lanes of LANES (energy, profile)
  * items advance through the slices together; on x86-64 glibc the loops compile to SIMD
  * with the vector math library (libmvec), in clones for AVX-512, AVX2 and
  * baseline SSE2 picked at load time.
@@ -38,8 +39,7 @@
 /* libmvec variants exist for these; const lets the vectoriser call them. */
 double exp(double) __attribute__((simd("notinbranch"), const, nothrow));
 double log(double) __attribute__((simd("notinbranch"), const, nothrow));
-double sin(double) __attribute__((simd("notinbranch"), const, nothrow));
-double cos(double) __attribute__((simd("notinbranch"), const, nothrow));
+double tan(double) __attribute__((simd("notinbranch"), const, nothrow));
 #define WW_CLONES __attribute__((target_clones("avx512f", "avx2", "default")))
 #else
 #define WW_CLONES
@@ -139,7 +139,8 @@ static inline __attribute__((always_inline)) void chunk(
         } else if (n_prop == LANES) {
             WW_SIMD
             for (int l = 0; l < LANES; l++) {
-                const double c = cos(arg[l]), si = sin(arg[l]);
+                const double th = tan(0.5 * arg[l]), den = 1.0 / (1.0 + th * th);
+                const double c = (1.0 - th * th) * den, si = 2.0 * th * den;
                 const double xr = rr[l], xi = ri[l];
                 rr[l] = xr * c - xi * si;
                 ri[l] = xr * si + xi * c;
@@ -156,7 +157,8 @@ static inline __attribute__((always_inline)) void chunk(
             WW_SIMD
             for (int l = 0; l < LANES; l++) {
                 const double p = p_next[l];
-                const double cs = cos(arg[l]), sn = sin(arg[l]), ex = exp(-arg[l]);
+                const double th = tan(0.5 * arg[l]), den = 1.0 / (1.0 + th * th);
+                const double cs = (1.0 - th * th) * den, sn = 2.0 * th * den, ex = exp(-arg[l]);
                 const double c = p * cs + (1.0 - p) * ex, si = p * sn;
                 const double xr = rr[l], xi = ri[l];
                 rr[l] = xr * c - xi * si;
@@ -296,7 +298,7 @@ static PyMethodDef methods[] = {
 
 static struct PyModuleDef module = {
     PyModuleDef_HEAD_INIT, "physics._slices",
-    "Compiled transmission kernel (see physics.transmission).", -1, methods,
+    "Compiled transmission kernel (see physics.transmission).", -1, methods, NULL, NULL, NULL, NULL,
 };
 
 #ifdef WW_VECTOR_MATH
