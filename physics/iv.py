@@ -24,6 +24,7 @@ import numpy as np
 from .bands import linear_profile
 from .current import EnergyGrid, current_density_a_cm2
 from .electrostatics import self_consistent_profile
+from .resonances import parabola_through
 from .stack import LayerTable, ModelOptions, Stack
 
 __all__ = [
@@ -154,20 +155,6 @@ def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndar
     return peak, valley
 
 
-def _parabola_vertex(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Vertex of the parabola through three points per row (x: (..., 3))."""
-    x0, x1, x2 = x[..., 0], x[..., 1], x[..., 2]
-    y0, y1, y2 = y[..., 0], y[..., 1], y[..., 2]
-    d01, d12, d02 = x0 - x1, x1 - x2, x0 - x2
-    a = (y0 / (d01 * d02)) - (y1 / (d01 * d12)) + (y2 / (d02 * d12))
-    b = (y1 - y0) / (x1 - x0) - a * (x0 + x1)
-    c = y0 - a * x0**2 - b * x0
-    ok = np.abs(a) > 0
-    xv = np.where(ok, -b / (2.0 * np.where(ok, a, 1.0)), x1)
-    xv = np.clip(xv, x0, x2)
-    return xv, np.where(ok, a * xv**2 + b * xv + c, y1)
-
-
 def _refine(table, model, grid, center_v, half_span_v, sign, rounds=1, points=9):
     """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
 
@@ -187,7 +174,8 @@ def _refine(table, model, grid, center_v, half_span_v, sign, rounds=1, points=9)
         j = sign[:, None] * current_at_bias(table, v, model=model, grid=grid)
         best = np.argmax(j, axis=1)
         pick = np.clip(best, 1, points - 2)[:, None] + np.array([-1, 0, 1])
-        vertex, _ = _parabola_vertex(v[rows[:, None], pick], j[rows[:, None], pick])
+        x3 = v[rows[:, None], pick]
+        vertex = x3[:, 1] + parabola_through(x3, -j[rows[:, None], pick])[0]
         j_vertex = sign * current_at_bias(table, vertex[:, None], model=model, grid=grid)[:, 0]
         better = j_vertex >= j[rows, best]
         center = np.where(better, vertex, v[rows, best])

@@ -36,6 +36,7 @@ __all__ = [
     "refine_bracketed",
     "refine_grid_peaks",
     "local_peaks",
+    "parabola_through",
 ]
 
 HBAR_EV_FS = HBAR_J_S / ELEMENTARY_CHARGE_C * 1e15
@@ -173,9 +174,10 @@ def _refine(guess_ev, step_ev, t_of, iterations: int):
     return center, width, np.clip(peak, 0.0, 1.0)
 
 
-def _parabola_through(x: np.ndarray, y: np.ndarray):
+def parabola_through(x: np.ndarray, y: np.ndarray):
     """Vertex offset from ``x[..., 1]``, curvature ``a`` and minimum of the parabola through
-    three points ``(..., 3)`` (sorted, unevenly spaced); ``a <= 0`` where there is no minimum."""
+    three points ``(..., 3)`` (sorted, unevenly spaced); where ``a <= 0`` (no minimum) the
+    offset is 0. The offset is kept within the outer two points."""
     d0 = x[..., 0] - x[..., 1]
     d2 = x[..., 2] - x[..., 1]
     s0 = (y[..., 0] - y[..., 1]) / d0  # secant slopes on each side
@@ -235,7 +237,7 @@ def refine_bracketed(
     order = np.arange(n)[:, None]
 
     for _ in range(iterations):
-        u, a, y_min = _parabola_through(x, y)
+        u, a, y_min = parabola_through(x, y)
         left, right = x[:, 1] - x[:, 0], x[:, 2] - x[:, 1]
         vertex = x[:, 1] + u
         half = np.where((a > 0) & (y_min > 0), np.sqrt(np.abs(y_min / np.where(a > 0, a, 1.0))), np.nan)
@@ -255,7 +257,7 @@ def refine_bracketed(
         best = np.clip(np.argmin(ys[:, 1:-1], axis=-1) + 1, 1, 3)  # interior best of five
         pick = best[:, None] + np.array([-1, 0, 1])
         x, y = xs[order, pick], ys[order, pick]
-    u, a, y_min = _parabola_through(x, y)
+    u, a, y_min = parabola_through(x, y)
     fitted = (a > 0) & (y_min > 0)
     half = np.where(fitted, np.sqrt(np.abs(y_min / np.where(a > 0, a, 1.0))), np.nan)
     center = x[:, 1] + u
