@@ -339,6 +339,27 @@ def _suggest(trial: optuna.Trial, study: Study) -> dict[str, float]:
     return params
 
 
+def _ask_tagged(ostudy: optuna.Study, worker: str) -> tuple[optuna.Trial, bool]:
+    """``ostudy.ask()``, with the ``worker`` tag written by the transaction that creates the trial.
+
+    A worker killed between creating a trial and tagging it would leave an
+    untagged running trial, which a resuming command can only fail after the
+    heartbeat grace period; created with the tag, it is failed at once.
+    Enqueued (waiting) trials go through ``ask()`` and are tagged after it
+    (returned flag False). Uses Optuna's storage API as ``Study.ask`` does.
+    """
+    internals = ("_pop_waiting_trial_id", "_storage", "_study_id", "_thread_local")
+    if not all(hasattr(ostudy, name) for name in internals):
+        return ostudy.ask(), False
+    ostudy._thread_local.cached_all_trials = None  # as ask(): sync with storage every trial
+    trial_id = ostudy._pop_waiting_trial_id()
+    if trial_id is not None:
+        return optuna.Trial(ostudy, trial_id), False
+    template = optuna.trial.create_trial(state=TrialState.RUNNING, user_attrs={"worker": worker})
+    trial_id = ostudy._storage.create_new_trial(ostudy._study_id, template_trial=template)
+    return optuna.Trial(ostudy, trial_id), True
+
+
 def _tell(ostudy: optuna.Study, trial: optuna.Trial, out: _Outcome, multi: bool) -> None:
     for k, v in out.attrs.items():
         trial.set_user_attr(k, v)
@@ -451,11 +472,12 @@ class _Worker:
             t0 = time.perf_counter()
             with warnings.catch_warnings():  # heartbeats are kept by Heartbeat, not optimize()
                 warnings.filterwarnings("ignore", message="Heartbeat of storage")
-                trial = self.ostudy.ask()
+                trial, tagged = _ask_tagged(self.ostudy, self.me)
             self._clock("sampler", t0)
             t0 = time.perf_counter()
             heart.add(trial._trial_id)  # Optuna's own heartbeat thread uses this id too
-            trial.set_user_attr("worker", self.me)
+            if not tagged:
+                trial.set_user_attr("worker", self.me)
             self._clock("storage", t0)
             asked.append(trial)
         return asked
