@@ -98,6 +98,16 @@ static inline __attribute__((always_inline)) void chunk(
         }
     }
     for (int j = n - 2; j >= 0; j--) {
+        if (shared && j > 0) {
+            const Py_ssize_t o = base0 + j;
+            if (width[o] == 0.0 && edge[o] == edge[o + 1] && mass[o] == mass[o + 1] &&
+                alpha[o] == alpha[o + 1]) {
+                /* a zero-width copy of the next slice (padding): an exact identity, whose
+                   den = 2 is what the final normalisation by 2^(n-1) expects */
+                for (int l = 0; l < LANES; l++) pm[l] *= 4.0;
+                continue;
+            }
+        }
         WW_SIMD
         for (int l = 0; l < LANES; l++) {
             const Py_ssize_t o = (shared ? base0 : base[l]) + j;

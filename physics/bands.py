@@ -59,8 +59,12 @@ class SliceGrid:
 
     @property
     def length_nm(self) -> np.ndarray:
-        """``(n_stacks,)`` total thickness between the contacts."""
-        return self.width_nm.sum(axis=-1)
+        """``(n_stacks,)`` total thickness between the contacts.
+
+        A running sum, which zero-width padding slices leave exactly unchanged
+        (a pairwise sum would regroup the terms around them).
+        """
+        return np.cumsum(self.width_nm, axis=-1)[..., -1]
 
     @property
     def n_slices(self) -> int:
@@ -135,7 +139,9 @@ class Profile:
         return np.cumsum(self.width_nm, axis=-1)[..., :-1]
 
 
-def slice_grid(table: LayerTable, *, slice_nm: float = 0.25) -> SliceGrid:
+def slice_grid(
+    table: LayerTable, *, slice_nm: float = 0.25, own_counts: bool = False
+) -> SliceGrid:
     """Cut each interior layer into slices no wider than ``slice_nm``.
 
     Parameters
@@ -145,17 +151,34 @@ def slice_grid(table: LayerTable, *, slice_nm: float = 0.25) -> SliceGrid:
     slice_nm
         Largest slice width; the count per layer is set by the thickest
         instance of that layer in the batch.
+    own_counts
+        Give every stack its own count per layer (as if it were alone) and pad
+        to the batch's count with zero-width slices that repeat the layer's
+        last slice (same centre, so the same potential): an exact identity in
+        the transmission recursion, which the compiled kernel skips. A stack's
+        result then does not depend on its batch partners. Not for Poisson
+        grids, which need cells of non-zero width.
     """
     thick = table.thickness_nm[:, 1:-1]
-    counts = np.maximum(1, np.ceil(thick.max(axis=0) / slice_nm - 1e-9).astype(int))
-    layer_index = np.concatenate(
-        [[0], np.repeat(np.arange(1, table.n_layers - 1), counts), [table.n_layers - 1]]
-    )
-    width = np.repeat(thick / counts, counts, axis=1)
+    own = np.maximum(1, np.ceil(thick / slice_nm - 1e-9).astype(int))
+    counts = own.max(axis=0)
+    layer = np.repeat(np.arange(counts.size), counts)  # interior layer of each slice
+    k = np.concatenate([np.arange(c) for c in counts]) if counts.size else np.zeros(0, int)
+    layer_index = np.concatenate([[0], layer + 1, [table.n_layers - 1]])
     n_stacks = table.n_stacks
-    width = np.concatenate([np.zeros((n_stacks, 1)), width, np.zeros((n_stacks, 1))], axis=1)
-    right = np.cumsum(width, axis=1)
-    center = right - 0.5 * width
+    if own_counts:
+        n_own = own[:, layer]
+        step = thick[:, layer] / n_own
+        width = np.where(k < n_own, step, 0.0)
+        start = np.cumsum(thick, axis=1) - thick  # each layer's start
+        center = start[:, layer] + (np.minimum(k, n_own - 1) + 0.5) * step
+    else:
+        width = thick[:, layer] / counts[layer]
+        center = np.cumsum(width, axis=1) - 0.5 * width
+    zero = np.zeros((n_stacks, 1))
+    total = thick.sum(axis=1, keepdims=True)
+    width = np.concatenate([zero, width, zero], axis=1)
+    center = np.concatenate([zero, center, total], axis=1)
     return SliceGrid(layer_index=layer_index, width_nm=width, center_nm=center)
 
 
@@ -234,6 +257,6 @@ def linear_profile(table: LayerTable, bias_v: np.ndarray, *, slice_nm: float = 0
     ``bias_v`` is ``(n_biases,)`` or ``(n_stacks, n_biases)``. Returns a
     :class:`Profile` with batch shape ``(n_stacks, n_biases)``.
     """
-    grid = slice_grid(table, slice_nm=slice_nm)
+    grid = slice_grid(table, slice_nm=slice_nm, own_counts=True)
     potential = linear_drop_ev(grid, bias_v, builtin_ev=builtin_offset_ev(table))
     return profile_from_potential(table, grid, potential)
