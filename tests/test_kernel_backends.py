@@ -98,3 +98,37 @@ def test_ci_builds_the_compiled_kernel() -> None:
     if os.environ.get("WELLWRIGHT_REQUIRE_COMPILED") != "1":
         pytest.skip("only checked where WELLWRIGHT_REQUIRE_COMPILED=1")
     assert kernel.DEFAULT_BACKEND == "compiled"
+
+
+@pytest.mark.parametrize("backend", ["numpy", "compiled"])
+def test_rows_and_masks_pick_the_right_profiles(backend: str) -> None:
+    # transmission_rows must equal the kernel on the selected profiles (profile.take), and
+    # transmission_where must give 0 outside its mask: the refinement relies on both
+    from physics.transmission import transmission_rows, transmission_where
+
+    table = custom_table(
+        [[0, 0.3, 0, 0.3, 0], [0, 0.4, 0, 0.2, 0]],
+        [0.067, 0.092, 0.067, 0.092, 0.067],
+        [[0, 3, 5, 3, 0], [0, 2, 6, 4, 0]],
+    )
+    p = linear_profile(table, np.linspace(0.0, 0.3, 4))  # batch (2, 4)
+    rows = (np.array([1, 0, 1, 1]), np.array([3, 0, 2, 0]))
+    e = np.random.default_rng(3).uniform(0.0, 0.6, (4, 5))
+    got = transmission_rows(e, profile=p, rows=rows, backend=backend)
+    ref = transmission(e, profile=p.take(rows), backend="numpy")
+    np.testing.assert_allclose(got, ref, rtol=RTOL, atol=0)
+    mask = np.zeros((2, 4, 3), bool)
+    mask[1, 2, 0] = mask[0, 3, 2] = True
+    energy = np.random.default_rng(4).uniform(0.0, 0.6, (2, 4, 3, 6))
+    out = transmission_where(energy, profile=p, mask=mask, backend=backend)
+    assert np.all(out[~mask] == 0.0)
+    for s, b, g in zip(*np.nonzero(mask)):
+        one = transmission(energy[s, b, g], profile=p.take((s, b)), backend="numpy")
+        np.testing.assert_allclose(out[s, b, g], one, rtol=RTOL, atol=0)
+    single = p.take((0, 1))  # a profile without batch axes
+    e1 = np.random.default_rng(5).uniform(0.0, 0.6, (3, 4))
+    np.testing.assert_allclose(
+        transmission_rows(e1, profile=single, rows=(), backend=backend),
+        transmission(e1, profile=single, backend="numpy"),
+        rtol=RTOL,
+    )
