@@ -139,9 +139,7 @@ class Profile:
         return np.cumsum(self.width_nm, axis=-1)[..., :-1]
 
 
-def slice_grid(
-    table: LayerTable, *, slice_nm: float = 0.25, own_counts: bool = False
-) -> SliceGrid:
+def slice_grid(table: LayerTable, *, slice_nm: float = 0.25, own_counts: bool = False) -> SliceGrid:
     """Cut each interior layer into slices no wider than ``slice_nm``.
 
     Parameters

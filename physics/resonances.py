@@ -97,8 +97,7 @@ def refine_peaks(
     step_ev: np.ndarray,
     *,
     profile: Profile,
-    iterations: int = 4,
-    valid: np.ndarray | None = None,
+    iterations: int = 5,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Refine transmission peaks by parabola fits of 1/T, batched.
 
@@ -112,10 +111,6 @@ def refine_peaks(
         Profiles with batch shape broadcastable to ``batch``.
     iterations
         Kernel calls; each evaluates three energies per peak.
-    valid
-        Optional mask shaped like ``guess_ev`` (batch = ``profile.batch_shape``): only
-        these peaks are refined (padding slots cost nothing); the others are
-        returned with NaN width and peak.
 
     Returns
     -------
@@ -123,37 +118,15 @@ def refine_peaks(
         Arrays shaped like ``guess_ev``. Where a fit fails (no curvature) the
         width is NaN.
     """
-    if valid is None:
-
-        def t_of(e: np.ndarray) -> np.ndarray:  # batch + (n, 3)
-            return transmission(e.reshape(e.shape[:-2] + (-1,)), profile=profile).reshape(e.shape)
-
-        return _refine(guess_ev, step_ev, t_of, iterations)
-    # refine the real peaks only, as one flat list, each on its own profile
-    where = np.nonzero(valid)  # batch indices of each peak, then its slot
-    step = np.broadcast_to(np.asarray(step_ev, float), valid.shape)
-    picked = _refine(
-        np.asarray(guess_ev, float)[where],
-        step[where],
-        lambda e: transmission_rows(e, profile=profile, rows=where[:-1]),
-        iterations,
-    )
-    out = (np.array(guess_ev, float), np.full(valid.shape, np.nan), np.full(valid.shape, np.nan))
-    for full, part in zip(out, picked):
-        full[where] = part
-    return out
-
-
-def _refine(guess_ev, step_ev, t_of, iterations: int):
-    """The parabola iteration of :func:`refine_peaks`; ``t_of(e)`` gives T at ``e = peaks + (3,)``."""
     center = np.array(guess_ev, float)
     step = np.broadcast_to(np.asarray(step_ev, float), center.shape).copy()
     width = np.full(center.shape, np.nan)
     peak = np.full(center.shape, np.nan)
     offsets = np.array([-1.0, 0.0, 1.0])
     for _ in range(iterations):
-        e = center[..., None] + step[..., None] * offsets  # peaks + (3,)
-        t = t_of(e)
+        e = center[..., None] + step[..., None] * offsets  # batch + (n, 3)
+        flat = e.reshape(e.shape[:-2] + (-1,))
+        t = transmission(flat, profile=profile).reshape(e.shape)
         y = 1.0 / np.maximum(t, 1e-150)  # keeps slope**2 finite
         # parabola through (-h, y0), (0, y1), (h, y2) in units of h
         curv = 0.5 * (y[..., 0] + y[..., 2]) - y[..., 1]
@@ -188,6 +161,13 @@ def parabola_through(x: np.ndarray, y: np.ndarray):
     u = np.where(good, -b / (2.0 * np.where(good, a, 1.0)), 0.0)
     u = np.clip(u, d0, d2)
     return u, a, y[..., 1] + b * u + a * u**2
+
+
+def _half_width(a: np.ndarray, y_min: np.ndarray) -> np.ndarray:
+    """Half width ``sqrt(y_min / a)`` of the line whose 1/T parabola has curvature ``a`` and
+    minimum ``y_min``; NaN where the parabola has no positive minimum."""
+    fitted = (a > 0) & (y_min > 0)
+    return np.where(fitted, np.sqrt(np.abs(y_min / np.where(fitted, a, 1.0))), np.nan)
 
 
 def refine_bracketed(
@@ -240,7 +220,7 @@ def refine_bracketed(
         u, a, y_min = parabola_through(x, y)
         left, right = x[:, 1] - x[:, 0], x[:, 2] - x[:, 1]
         vertex = x[:, 1] + u
-        half = np.where((a > 0) & (y_min > 0), np.sqrt(np.abs(y_min / np.where(a > 0, a, 1.0))), np.nan)
+        half = _half_width(a, y_min)
         # probes: the vertex +- half width, inside the bracket. Where the parabola dips below
         # zero the line is far narrower than the bracket: a twentieth of its smaller side
         # (the bracket keeps the best sample, so shrinking fast cannot lose the peak); a
@@ -254,12 +234,12 @@ def refine_bracketed(
         ys = np.concatenate([y, 1.0 / np.maximum(t, 1e-300)], axis=-1)
         sort = np.argsort(xs, axis=-1)
         xs, ys = xs[order, sort], ys[order, sort]
-        best = np.clip(np.argmin(ys[:, 1:-1], axis=-1) + 1, 1, 3)  # interior best of five
+        best = np.argmin(ys[:, 1:-1], axis=-1) + 1  # the best of five is never an end point
         pick = best[:, None] + np.array([-1, 0, 1])
         x, y = xs[order, pick], ys[order, pick]
     u, a, y_min = parabola_through(x, y)
-    fitted = (a > 0) & (y_min > 0)
-    half = np.where(fitted, np.sqrt(np.abs(y_min / np.where(a > 0, a, 1.0))), np.nan)
+    half = _half_width(a, y_min)
+    fitted = np.isfinite(half)
     center = x[:, 1] + u
     if exact_peak:  # not read off the parabola, whose minimum carries the background
         peak = transmission_rows(center[:, None], profile=profile, rows=rows)[:, 0]

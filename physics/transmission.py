@@ -57,7 +57,10 @@ __all__ = [
     "transmission",
     "transmission_rows",
     "transmission_where",
-    "wave_numbers_per_nm", "BACKENDS", "DEFAULT_BACKEND"]
+    "wave_numbers_per_nm",
+    "BACKENDS",
+    "DEFAULT_BACKEND",
+]
 
 #: Implementations available here; ``"compiled"`` only when the extension was built.
 BACKENDS = ("compiled", "numpy") if _slices is not None else ("numpy",)
@@ -130,7 +133,11 @@ def transmission(
 
 
 def transmission_rows(
-    energy_ev: np.ndarray, *, profile: Profile, rows: tuple[np.ndarray, ...], backend: str | None = None
+    energy_ev: np.ndarray,
+    *,
+    profile: Profile,
+    rows: tuple[np.ndarray, ...],
+    backend: str | None = None,
 ) -> np.ndarray:
     """T(E) of groups of energies, each group on its own profile of the batch.
 
