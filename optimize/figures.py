@@ -193,7 +193,7 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     ax.set_ylabel("energy from emitter band edge (eV)")
     ax.set_xlim(max(xs[0], -25.0), min(xs[-1], length + 35.0))  # the active region, some contact
     ax.set_ylim(min(float(edge.min()), 0.0) - 0.1, top * 1.35 + 0.15)
-    ax.legend(loc="lower left", fontsize=8)
+    ax.legend(loc="center left", fontsize=8)  # the emitter side above its band edge is empty
     model = "linear drop" if stack.model.electrostatics == "linear" else "self-consistent"
     ax.set_title(title or f"band diagram at {bias_v * 1e3:.0f} mV ({model})")
     return fig
@@ -213,7 +213,7 @@ def transmission_figure(stack: Stack, biases_v: list[float], *, title: str = "")
     top = float(profile.edge_ev[0, 0, 1:-1].max())
     energy = np.linspace(1e-4, max(top * 1.3, 0.3), 4000)
     t = transmission(energy, profile=profile)[0]
-    res = find_resonances(profile, energy_min_ev=0.0, energy_max_ev=energy[-1], n_max=4)
+    res = find_resonances(profile, energy_min_ev=0.0, energy_max_ev=energy[-1], n_max=10)
     fig, ax = plt.subplots(figsize=(6.4, 4.2))
     colors = [PALETTE["blue"], PALETTE["vermillion"], PALETTE["green"], PALETTE["purple"]]
     for b, (bias, color) in enumerate(zip(biases_v, colors)):
