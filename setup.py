@@ -2,7 +2,7 @@
 
 The extension is optional: where no C compiler is found the build goes on
 and :mod:`physics.transmission` uses its numpy implementation (same numbers,
-about six times slower).
+about nine times slower).
 """
 
 import os
