@@ -55,11 +55,12 @@ static inline double floor_k2(double k2) { return fabs(k2) < K2_FLOOR ? K2_FLOOR
 static inline double mass_factor(double x) { return x > MIN_MASS_FACTOR ? x : MIN_MASS_FACTOR; }
 
 /* One chunk of LANES (energy, profile) items from item e0 on. Item i belongs to energy
-   group i / ne, which runs on profile rows[group] (the group itself without rows). Lanes run over items, not over one profile's energies, so that short
-   energy lists (three points per resonance in the refinement) fill the vectors too;
-   each lane then gathers its own profile's slice parameters. With `shared` (ne a
-   multiple of LANES, so a chunk never straddles two profiles) all lanes read one
-   profile: plain loads instead of gathers. Inlined twice, once for each case. */
+   group i / ne, which runs on profile rows[group] (the group itself without rows).
+   Lanes run over items, not over one profile's energies, so that short energy lists
+   (two probes per resonance in the refinement) fill the vectors too; each lane then
+   gathers its own profile's slice parameters. With `shared` (ne a multiple of LANES,
+   so a chunk never straddles two profiles) all lanes read one profile: plain loads
+   instead of gathers, and padding slices are skipped. Inlined twice, once per case. */
 static inline __attribute__((always_inline)) void chunk(
     const int shared, int n, const double *edge, const double *mass, const double *alpha,
     const double *width, const int64_t *rows, Py_ssize_t n_items, Py_ssize_t ne,
