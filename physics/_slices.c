@@ -54,6 +54,16 @@ double tan(double) __attribute__((simd("notinbranch"), const, nothrow));
 static inline double floor_k2(double k2) { return fabs(k2) < K2_FLOOR ? K2_FLOOR : k2; }
 static inline double mass_factor(double x) { return x > MIN_MASS_FACTOR ? x : MIN_MASS_FACTOR; }
 
+/* k^2 (1/nm^2, floored) and the energy-dependent mass (m0) at energy e in slice o. */
+static inline double slice_k2(double e, Py_ssize_t o, const double *edge, const double *mass,
+                              const double *alpha, double inv_hb2, double *m_out)
+{
+    const double kin = e - edge[o];
+    const double m = mass_factor(1.0 + alpha[o] * kin) * mass[o];
+    *m_out = m;
+    return floor_k2(m * kin * inv_hb2);
+}
+
 /* One chunk of LANES (energy, profile) items from item e0 on. Item i belongs to energy
    group i / ne, which runs on profile rows[group] (the group itself without rows).
    Lanes run over items, not over one profile's energies, so that short energy lists
@@ -84,10 +94,9 @@ static inline __attribute__((always_inline)) void chunk(
         const int j = n - 1;
         WW_SIMD
         for (int l = 0; l < LANES; l++) {
-            const Py_ssize_t o = (shared ? base0 : base[l]) + j;
-            const double kin = en[l] - edge[o];
-            const double m = mass_factor(1.0 + alpha[o] * kin) * mass[o];
-            const double k2 = floor_k2(m * kin * inv_hb2);
+            double m;
+            const double k2 = slice_k2(en[l], (shared ? base0 : base[l]) + j, edge, mass, alpha,
+                                       inv_hb2, &m);
             const double p = k2 > 0.0 ? 1.0 : 0.0;
             q_next[l] = sqrt(fabs(k2)) / m;
             p_next[l] = p;
@@ -112,9 +121,8 @@ static inline __attribute__((always_inline)) void chunk(
         WW_SIMD
         for (int l = 0; l < LANES; l++) {
             const Py_ssize_t o = (shared ? base0 : base[l]) + j;
-            const double kin = en[l] - edge[o];
-            const double m = mass_factor(1.0 + alpha[o] * kin) * mass[o];
-            const double k2 = floor_k2(m * kin * inv_hb2);
+            double m;
+            const double k2 = slice_k2(en[l], o, edge, mass, alpha, inv_hb2, &m);
             const double p = k2 > 0.0 ? 1.0 : 0.0; /* 1 propagating, 0 evanescent */
             const double s = sqrt(fabs(k2));
             const double t = 1.0 / (s * m); /* one division for q = s/m and 1/q = m/s */
