@@ -97,6 +97,11 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def _check_args(args: argparse.Namespace) -> None:
+    if args.second_order and args.method != "sobol":
+        raise InputError(
+            f"needs --method sobol (the second-order indices are Sobol's), not {args.method}",
+            key="--second-order",
+        )
     if not 8 <= args.samples <= MAX_SAMPLES:
         raise InputError(f"{args.samples} outside [8, {MAX_SAMPLES}]", key="--samples")
     if args.bias_points is not None and not 5 <= args.bias_points <= 2001:

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import importlib
 import os
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -132,3 +133,16 @@ def test_rows_and_masks_pick_the_right_profiles(backend: str) -> None:
         transmission(e1, profile=single, backend="numpy"),
         rtol=RTOL,
     )
+
+
+def test_unknown_kernel_in_environment_is_one_line_exit_2(tmp_path, monkeypatch, capsys):
+    # WELLWRIGHT_KERNEL names a kernel that is not built: an input error, nothing written
+    from optimize.cli import main
+
+    monkeypatch.setattr(kernel, "DEFAULT_BACKEND", "fast")
+    out = tmp_path / "out"
+    stack = Path(__file__).resolve().parents[1] / "studies" / "inp_thz_oscillator.toml"
+    assert main(["iv", str(stack), "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "WELLWRIGHT_KERNEL" in err and "compiled" in err and len(err.strip().splitlines()) == 1
+    assert not out.exists()

@@ -290,6 +290,17 @@ def test_cli_bad_growth_exits_2_and_writes_nothing(tmp_path, capsys):
     assert not out.exists()
 
 
+def test_cli_second_order_needs_sobol(tmp_path, capsys):
+    f = tmp_path / "s.toml"
+    f.write_text(_study_text())
+    out = tmp_path / "out"
+    argv = ["tolerance", str(f), "--design", str(STACK_FILE), "--method", "morris"]
+    code = main([*argv, "--second-order", "--out", str(out), "--no-progress"])
+    err = capsys.readouterr().err
+    assert code == 2 and "--second-order" in err and "--method sobol" in err
+    assert len(err.strip().splitlines()) == 1 and not out.exists()
+
+
 def test_cli_missing_search_exits_2(tmp_path, capsys):
     f = tmp_path / "s.toml"
     f.write_text(_study_text())
