@@ -16,7 +16,6 @@ References
 
 from __future__ import annotations
 
-import functools
 
 import numpy as np
 
@@ -107,23 +106,31 @@ def reduced_fermi_level(density_ratio):
 def fermi_level_ev(doping_cm3, mass_m0, temperature_k):
     """Fermi level above the band edge of fully ionised n-type bulk, eV.
 
-    Solved once per distinct (doping, mass, temperature): a batch of stack
-    variants mostly shares its contacts.
+    Solved once per distinct (doping, mass, temperature), all new ones in one
+    vectorised Newton solve, and remembered: a sweep asks for the same few
+    contacts many times.
     """
     doping, mass, temperature = np.broadcast_arrays(
         *(np.asarray(a, float) for a in (doping_cm3, mass_m0, temperature_k))
     )
     keys = np.stack([doping.ravel(), mass.ravel(), temperature.ravel()], axis=-1)
     distinct, inverse = np.unique(keys, axis=0, return_inverse=True)
-    level = np.array([_fermi_level_one(*map(float, key)) for key in distinct])
-    return level[inverse.ravel()].reshape(doping.shape)
+    found = [_FERMI_LEVELS.get(tuple(key)) for key in distinct.tolist()]
+    new = np.array([f is None for f in found])
+    if new.any():
+        d, m, t = distinct[new].T
+        solved = BOLTZMANN_EV_K * t * reduced_fermi_level(d / effective_density_of_states_cm3(m, t))
+        if len(_FERMI_LEVELS) > _FERMI_CACHE_SIZE:
+            _FERMI_LEVELS.clear()
+        for key, level in zip(distinct[new].tolist(), solved.tolist(), strict=True):
+            _FERMI_LEVELS[tuple(key)] = level
+        found = [_FERMI_LEVELS[tuple(key)] for key in distinct.tolist()]
+    return np.array(found)[inverse.ravel()].reshape(doping.shape)
 
 
-@functools.lru_cache(maxsize=4096)
-def _fermi_level_one(doping_cm3: float, mass_m0: float, temperature_k: float) -> float:
-    """:func:`fermi_level_ev` of one contact, remembered (sweeps ask for the same few contacts)."""
-    ratio = doping_cm3 / effective_density_of_states_cm3(mass_m0, temperature_k)
-    return float(BOLTZMANN_EV_K * temperature_k * reduced_fermi_level(np.array([ratio]))[0])
+#: Fermi levels already solved, keyed by (doping, mass, temperature).
+_FERMI_LEVELS: dict[tuple[float, float, float], float] = {}
+_FERMI_CACHE_SIZE = 65536
 
 
 def joyce_dixon_reduced_fermi_level(density_ratio):
