@@ -21,6 +21,7 @@ from .study import Study
 
 __all__ = [
     "metric_axis",
+    "metric_words",
     "history_figure",
     "pareto_figure",
     "importances_figure",
@@ -33,15 +34,20 @@ __all__ = [
 OKABE_ITO = PALETTE  # one palette for every figure: optimize.figures.PALETTE
 
 
+def metric_words(metric: str) -> str:
+    """A metric key in words, without its unit (``peak_current_density_a_cm2``: "peak current density")."""
+    if metric == "pvcr":
+        return "PVCR"
+    return metric.removesuffix("_a_cm2").removesuffix("_v").replace("_", " ")
+
+
 def metric_axis(metric: str) -> tuple[str, float]:
     """Axis label and the factor from the metric's SI-ish unit to the trade's unit."""
-    words = metric.removesuffix("_a_cm2").removesuffix("_v").replace("_", " ")
+    words = metric_words(metric)
     if metric.endswith("_a_cm2"):
         return f"{words} (kA/cm$^2$)", 1e-3
     if metric.endswith("_v"):
         return f"{words} (mV)", 1e3
-    if metric == "pvcr":
-        return "PVCR", 1.0
     return words, 1.0
 
 
@@ -196,7 +202,7 @@ def importances_figure(importances: dict[str, dict[str, float]]) -> Figure:
             vals,
             height=height,
             color=colours[k % len(colours)],
-            label=name,
+            label=metric_words(name),
         )
     ax.set_yticks(ypos, params)
     ax.invert_yaxis()

@@ -125,3 +125,17 @@ def test_report_opens_in_headless_chromium(demo_dir, tmp_path):
     img = mpimg.imread(str(shot))
     assert img.shape[0] >= 2900 and img.shape[1] >= 1100
     assert _has_data(shot.read_bytes())
+
+
+def test_importance_legend_names_figures_of_merit_in_words():
+    """The importances figure's legend reads "peak current density", not the JSON key."""
+    from optimize.search_figures import importances_figure
+
+    fig = importances_figure(
+        {
+            "peak_current_density_a_cm2": {"barrier1": 0.7, "well": 0.3},
+            "pvcr": {"barrier1": 0.4, "well": 0.6},
+        }
+    )
+    texts = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert texts == ["peak current density", "PVCR"]
