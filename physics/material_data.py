@@ -1,13 +1,31 @@
 """Band parameters of III-V binaries and bowing parameters of their ternary alloys.
 
 Data only; :mod:`physics.materials` holds the formulas that use it. Every entry
-names its source. All Vurgaftman et al. [1]_ values below are transcribed from
-memory of the paper's recommended-parameter tables: the zinc-blende binary
-tables (Sec. III; the tables the project brief calls Tables III/IV — table
-numbers not re-checked) and the ternary bowing parameters of Sec. IV (the
-per-alloy sections and the bowing summary table). Check every number against
-the paper before relying on it for a growth run. Static permittivities are not
-in [1]_; they are from memory of Adachi [2]_ and equally need checking.
+names its source and how far it has been checked.
+
+Status of the numbers (checked against public copies):
+
+- The paper [1]_ itself could not be read: the only public copies found show
+  its abstract and table of contents, not the tables, so no table number is
+  given here. Every Vurgaftman value was instead compared with openbandparams
+  [5]_ (S. J. Maddox), a band-parameter library that implements the
+  recommended values of [1]_ and cites [1]_ for each of them.
+- Binaries (GaAs, AlAs, InAs, InP, GaSb, AlSb, InSb): all twelve [1]_ fields
+  of every binary (a(300 K), da/dT, Eg(Gamma, 0 K), Varshni alpha and beta,
+  m*(Gamma), Ep, Delta_so, VBO, c11, c12, a_c) agree with [5]_; none needed
+  changing.
+- Ternary bowing: every bowing parameter below agrees with [5]_ (the AlGaAs
+  gap bowing, and all the InGaAs and InAlAs bowings; the InGaAs and InAlAs
+  mass bowings are in the 2013 version of [5]_ and in comments of the later
+  one), except the AlAsSb VBO bowing, where [5]_ contradicts itself (see the
+  AlAsSb entry); that one is still from memory. Where this module applies no
+  bowing (linear in x), [5]_ gives none for that parameter either; whether
+  [1]_ recommends a mass or Ep bowing for GaAsSb and AlAsSb is not checked.
+- Static permittivities are not in [1]_; they are from memory of Adachi [2]_.
+  Adachi's tables were not found in a public copy. GaAs, AlAs, InAs, GaSb and
+  InSb agree with the Ioffe Institute archive [6]_ (GaSb to its quoted 15.7);
+  InP (the archive quotes 12.5) and AlSb (no archive value found) are
+  unconfirmed and still from memory.
 
 Conventions of [1]_ kept here:
 
@@ -34,6 +52,14 @@ References
    semiconductors", Physica 34, 149 (1967).
 .. [4] L. Vegard, "Die Konstitution der Mischkristalle und die Raumfüllung der
    Atome", Z. Phys. 5, 17 (1921).
+.. [5] S. J. Maddox, openbandparams, https://github.com/scott-maddox/openbandparams
+   (files src/openbandparams/iii_v_zinc_blende_binaries.py,
+   iii_v_zinc_blende_ternaries.py and, older, iii_v/zinc_blende/ternary.py),
+   each value cited there to [1]_.
+.. [6] Ioffe Institute, New Semiconductor Materials archive,
+   http://www.ioffe.ru/SVA/NSM/Semicond/ (static dielectric constants at
+   300 K; binary values read as the end points of the AlGaAs, GaAsSb, InAsSb
+   and GaInSb pages, InP page for InP).
 """
 
 from __future__ import annotations
@@ -44,12 +70,37 @@ from types import MappingProxyType
 
 SOURCE_VURGAFTMAN = "Vurgaftman, Meyer, Ram-Mohan, J. Appl. Phys. 89, 5815 (2001)"
 SOURCE_ADACHI = "Adachi, Properties of Group-IV, III-V and II-VI Semiconductors (Wiley 2005)"
-_BINARY_SOURCE = (
-    f"{SOURCE_VURGAFTMAN} (binary tables, from memory); permittivity: {SOURCE_ADACHI} (from memory)"
-)
-_TERNARY_SOURCE = (
-    f"{SOURCE_VURGAFTMAN} (end-point binaries and bowing, from memory); "
-    f"permittivity: {SOURCE_ADACHI}, linear in x (from memory)"
+SOURCE_OPENBANDPARAMS = "openbandparams (S. J. Maddox), which cites Vurgaftman 2001"
+SOURCE_IOFFE = "Ioffe Institute NSM archive"
+_CHECKED_OBP = f"checked against {SOURCE_OPENBANDPARAMS}; paper tables not seen"
+
+
+def _binary_source(permittivity_check: str) -> str:
+    """Source string of one binary: [1] values checked, permittivity as given."""
+    return (
+        f"{SOURCE_VURGAFTMAN} (binary table values, {_CHECKED_OBP}); "
+        f"permittivity: {SOURCE_ADACHI} (from memory), {permittivity_check}"
+    )
+
+
+_PERMITTIVITY_AGREES = f"agrees with {SOURCE_IOFFE}"
+_PERMITTIVITY_UNCHECKED = "not confirmed by a public source (still from memory)"
+_PERMITTIVITY_INP = f"not confirmed: {SOURCE_IOFFE} gives 12.5 (still from memory)"
+_BINARY_SOURCE = _binary_source(_PERMITTIVITY_UNCHECKED)
+
+
+def _ternary_source(exception: str = "") -> str:
+    """Source string of one ternary; ``exception`` names an unconfirmed value."""
+    return (
+        f"{SOURCE_VURGAFTMAN} (end-point binaries and bowing, {_CHECKED_OBP}{exception}); "
+        f"permittivity: {SOURCE_ADACHI}, linear in x (end points as for the binaries)"
+    )
+
+
+_TERNARY_SOURCE = _ternary_source()
+_ALASSB_VBO_NOTE = (
+    "; except the VBO bowing -1.71 eV, still from memory: openbandparams versions"
+    " disagree, -1.71 and -0.14"
 )
 
 
@@ -92,11 +143,14 @@ class TernaryData:
     source: str = _TERNARY_SOURCE
 
 
-# Binaries. Vurgaftman et al. [1] values from memory of the binary tables;
-# permittivity_r from memory of Adachi [2]. The Al compounds (AlAs, AlSb) are
-# indirect: only their Gamma valley is described here.
+# Binaries. Vurgaftman et al. [1] values, first transcribed from memory, now
+# each checked against openbandparams [5] (which cites [1] for every one of
+# them): all agree, none changed. permittivity_r from memory of Adachi [2],
+# compared with the Ioffe archive [6] as noted per binary. The Al compounds
+# (AlAs, AlSb) are indirect: only their Gamma valley is described here.
 BINARIES: Mapping[str, BinaryData] = MappingProxyType(
     {
+        # GaAs: all [1] fields checked against openbandparams [5], all agree.
         "GaAs": BinaryData(
             lattice_300k_angstrom=5.65325,
             lattice_expansion_angstrom_per_k=3.88e-5,
@@ -110,8 +164,10 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=1221.0,
             c12_gpa=566.0,
             deformation_ac_ev=-7.17,
-            permittivity_r=12.90,
+            permittivity_r=12.90,  # Ioffe [6]: 12.90
+            source=_binary_source(_PERMITTIVITY_AGREES),
         ),
+        # AlAs: all [1] fields checked against openbandparams [5], all agree.
         "AlAs": BinaryData(
             lattice_300k_angstrom=5.6611,
             lattice_expansion_angstrom_per_k=2.90e-5,
@@ -125,8 +181,10 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=1250.0,
             c12_gpa=534.0,
             deformation_ac_ev=-5.64,
-            permittivity_r=10.06,
+            permittivity_r=10.06,  # Ioffe [6]: 10.06 (AlGaAs end point)
+            source=_binary_source(_PERMITTIVITY_AGREES),
         ),
+        # InAs: all [1] fields checked against openbandparams [5], all agree.
         "InAs": BinaryData(
             lattice_300k_angstrom=6.0583,
             lattice_expansion_angstrom_per_k=2.74e-5,
@@ -140,8 +198,10 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=832.9,
             c12_gpa=452.6,
             deformation_ac_ev=-5.08,
-            permittivity_r=15.15,
+            permittivity_r=15.15,  # Ioffe [6]: 15.15 (InAsSb end point)
+            source=_binary_source(_PERMITTIVITY_AGREES),
         ),
+        # InP: all [1] fields checked against openbandparams [5], all agree.
         "InP": BinaryData(
             lattice_300k_angstrom=5.8697,
             lattice_expansion_angstrom_per_k=2.79e-5,
@@ -155,8 +215,10 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=1011.0,
             c12_gpa=561.0,
             deformation_ac_ev=-6.0,
-            permittivity_r=12.61,
+            permittivity_r=12.61,  # Ioffe [6] gives 12.5: unconfirmed, from memory
+            source=_binary_source(_PERMITTIVITY_INP),
         ),
+        # GaSb: all [1] fields checked against openbandparams [5], all agree.
         "GaSb": BinaryData(
             lattice_300k_angstrom=6.0959,
             lattice_expansion_angstrom_per_k=4.72e-5,
@@ -170,8 +232,10 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=884.2,
             c12_gpa=402.6,
             deformation_ac_ev=-7.5,
-            permittivity_r=15.69,
+            permittivity_r=15.69,  # Ioffe [6]: 15.7, agrees to its rounding
+            source=_binary_source(f"{_PERMITTIVITY_AGREES} (15.7, to its rounding)"),
         ),
+        # AlSb: all [1] fields checked against openbandparams [5], all agree.
         "AlSb": BinaryData(
             lattice_300k_angstrom=6.1355,
             lattice_expansion_angstrom_per_k=2.60e-5,
@@ -185,8 +249,10 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=876.9,
             c12_gpa=434.1,
             deformation_ac_ev=-4.5,
-            permittivity_r=12.04,
+            permittivity_r=12.04,  # no public value found: from memory
+            source=_binary_source(_PERMITTIVITY_UNCHECKED),
         ),
+        # InSb: all [1] fields checked against openbandparams [5], all agree.
         "InSb": BinaryData(
             lattice_300k_angstrom=6.4794,
             lattice_expansion_angstrom_per_k=3.48e-5,
@@ -200,17 +266,21 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=684.7,
             c12_gpa=373.5,
             deformation_ac_ev=-6.94,
-            permittivity_r=16.8,
+            permittivity_r=16.8,  # Ioffe [6]: 16.8
+            source=_binary_source(_PERMITTIVITY_AGREES),
         ),
     }
 )
 
-# Ternaries. Bowing parameters from memory of Vurgaftman et al. [1], Sec. IV
-# (per-alloy sections and bowing summary table). Keys not listed are linear.
+# Ternaries. Bowing parameters of Vurgaftman et al. [1], Sec. IV, first
+# transcribed from memory, now checked against openbandparams [5] (which cites
+# [1]); all agree except the AlAsSb VBO bowing (see there). Keys not listed are
+# linear in x; [5] lists no bowing for those keys either.
 TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
     {
-        # Al(x)Ga(1-x)As: the paper's x-dependent Gamma-gap bowing -0.127 + 1.310 x;
-        # VBO, mass, Ep linear (no bowing recommended).
+        # Al(x)Ga(1-x)As: x-dependent Gamma-gap bowing -0.127 + 1.310 x (x = Al
+        # fraction), checked against [5]; VBO, mass, Ep, Delta_so, a_c linear
+        # ([5] has no bowing for them).
         "AlGaAs": TernaryData(
             binary_x0="GaAs",
             binary_x1="AlAs",
@@ -218,7 +288,8 @@ TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
             representative_x=(0.3,),
             bowing=MappingProxyType({"gap_ev": (-0.127, 1.310)}),
         ),
-        # In(x)Ga(1-x)As
+        # In(x)Ga(1-x)As: all six bowings checked against [5] (the mass bowing
+        # 0.0091 in its 2013 ternary file and in a comment of the later one).
         "InGaAs": TernaryData(
             binary_x0="GaAs",
             binary_x1="InAs",
@@ -235,7 +306,8 @@ TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
                 }
             ),
         ),
-        # In(x)Al(1-x)As
+        # In(x)Al(1-x)As: all six bowings checked against [5] (the mass bowing
+        # 0.049 in its 2013 ternary file and in a comment of the later one).
         "InAlAs": TernaryData(
             binary_x0="AlAs",
             binary_x1="InAs",
@@ -252,7 +324,10 @@ TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
                 }
             ),
         ),
-        # GaAs(1-x)Sb(x), x = Sb fraction; mass and Ep linear (no bowing recalled).
+        # GaAs(1-x)Sb(x), x = Sb fraction: gap, VBO and Delta_so bowings checked
+        # against [5]. Mass and Ep linear: [5] has no bowing for them; whether [1]
+        # gives a mass bowing is unchecked (one other public transcription lists
+        # 0.014, not verified).
         "GaAsSb": TernaryData(
             binary_x0="GaAs",
             binary_x1="GaSb",
@@ -266,7 +341,11 @@ TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
                 }
             ),
         ),
-        # AlAs(1-x)Sb(x), x = Sb fraction; mass and Ep linear (no bowing recalled).
+        # AlAs(1-x)Sb(x), x = Sb fraction: gap (0.8) and Delta_so (0.15) bowings
+        # checked against [5]. VBO bowing -1.71 NOT confirmed, still from memory:
+        # the 2013 version of [5] has -1.71 (cited to [1]); the later version
+        # keeps -1.71 only in a comment and uses -0.14, also cited to [1], with
+        # no reason given. Mass and Ep linear ([5] has no bowing for them).
         "AlAsSb": TernaryData(
             binary_x0="AlAs",
             binary_x1="AlSb",
@@ -279,6 +358,7 @@ TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
                     "spin_orbit_ev": (0.15, 0.0),
                 }
             ),
+            source=_ternary_source(_ALASSB_VBO_NOTE),
         ),
     }
 )

@@ -506,8 +506,11 @@ def band_parameters(
     of [1]_ (gap, VBO, mass, Ep, spin-orbit, a_c where given; the AlGaAs Gamma
     gap bowing is :math:`C = -0.127 + 1.310 x`). The gap bowing is applied to
     the interpolated gap at T (bowing taken temperature independent, as in
-    [1]_). Permittivities are from [3]_ (not in [1]_), linear in x. All values
-    are transcribed from memory; see :mod:`physics.material_data`.
+    [1]_). Permittivities are from [3]_ (not in [1]_), linear in x. The values
+    of [1]_ were transcribed from memory and have since been checked against
+    openbandparams (which cites [1]_), all agreeing except the AlAsSb VBO
+    bowing (unconfirmed); the permittivities are from memory, most agreeing
+    with the Ioffe archive. Details per value in :mod:`physics.material_data`.
 
     References
     ----------

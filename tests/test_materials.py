@@ -1,10 +1,12 @@
 """Tests of physics.materials.
 
 Reference values: V = I. Vurgaftman, J. R. Meyer and L. R. Ram-Mohan, J. Appl.
-Phys. 89, 5815 (2001), recommended-parameter tables, check values from memory
-of the tables (the same memory as the data module, so these checks pin the
-transcription and the formulas; they are not an independent reading of the
-paper). Other sources are named beside each check.
+Phys. 89, 5815 (2001), recommended-parameter tables. The check values were
+written from memory of the tables (the same memory as the data module) and
+have since been compared with openbandparams (S. J. Maddox), which implements
+and cites V's values ("OBP" below); every V value used here agrees with it.
+They pin the transcription and the formulas; they are not a reading of the
+paper itself. Other sources are named beside each check.
 """
 
 from __future__ import annotations
@@ -33,9 +35,9 @@ def varshni(eg0: float, alpha_mev_k: float, beta_k: float, t: float) -> float:
 
 def test_gaas_table_values() -> None:
     gaas = BINARIES["GaAs"]
-    assert gaas.gap_gamma_0k_ev == 1.519  # V, GaAs: Eg(Gamma, 0 K) = 1.519 eV (from memory)
-    assert gaas.varshni_alpha_mev_per_k == 0.5405  # V, GaAs: alpha = 0.5405 meV/K (from memory)
-    assert gaas.varshni_beta_k == 204.0  # V, GaAs: beta = 204 K (from memory)
+    assert gaas.gap_gamma_0k_ev == 1.519  # V, GaAs: Eg(Gamma, 0 K) = 1.519 eV (= OBP)
+    assert gaas.varshni_alpha_mev_per_k == 0.5405  # V, GaAs: alpha = 0.5405 meV/K (= OBP)
+    assert gaas.varshni_beta_k == 204.0  # V, GaAs: beta = 204 K (= OBP)
     # Near 0 K the Varshni gap returns Eg(0); 1e-6 eV covers T = 0.01 K.
     assert m.band_parameters("GaAs", temperature_k=0.01)["gap_ev"] == pytest.approx(1.519, abs=1e-6)
 
@@ -48,26 +50,26 @@ def test_gaas_gap_300k_widely_quoted_value() -> None:
 
 @pytest.mark.parametrize(
     ("name", "mass"),
-    [("GaAs", 0.067), ("InAs", 0.026), ("InP", 0.0795), ("AlAs", 0.15)],  # V (from memory)
+    [("GaAs", 0.067), ("InAs", 0.026), ("InP", 0.0795), ("AlAs", 0.15)],  # V (= OBP)
 )
 def test_gamma_masses(name: str, mass: float) -> None:
     assert m.material_parameters(name).mass_m0 == pytest.approx(mass, rel=1e-12)
 
 
 def test_lattice_constants_300k() -> None:
-    assert m.lattice_constant_nm("AlAs") == pytest.approx(0.56611, rel=1e-12)  # V: 5.6611 A
-    assert GAAS_NM == pytest.approx(0.565325, rel=1e-12)  # V: 5.65325 A (from memory)
-    assert INP_NM == pytest.approx(0.58697, rel=1e-12)  # V: 5.8697 A (from memory)
+    assert m.lattice_constant_nm("AlAs") == pytest.approx(0.56611, rel=1e-12)  # V: 5.6611 A (= OBP)
+    assert GAAS_NM == pytest.approx(0.565325, rel=1e-12)  # V: 5.65325 A (= OBP)
+    assert INP_NM == pytest.approx(0.58697, rel=1e-12)  # V: 5.8697 A (= OBP)
 
 
 def test_thermal_expansion() -> None:
-    # V, GaAs: da/dT = 3.88e-5 A/K (from memory); a(T) = a(300 K) + da/dT (T - 300 K).
+    # V, GaAs: da/dT = 3.88e-5 A/K (= OBP); a(T) = a(300 K) + da/dT (T - 300 K).
     delta_nm = m.lattice_constant_nm("GaAs", temperature_k=77.0) - GAAS_NM
     assert delta_nm == pytest.approx(3.88e-6 * (77.0 - 300.0), rel=1e-9)
 
 
 def test_inp_valence_band_offset() -> None:
-    # V: VBO(InP) = -0.94 eV on the scale with the InSb VBM at 0 (from memory).
+    # V: VBO(InP) = -0.94 eV on the scale with the InSb VBM at 0 (= OBP).
     assert m.band_parameters("InP")["valence_band_offset_ev"] == pytest.approx(-0.94, abs=1e-12)
     assert m.band_parameters("InSb")["valence_band_offset_ev"] == 0.0
 
@@ -118,7 +120,7 @@ def test_nonparabolicity_kane_form() -> None:
 
 def test_permittivity() -> None:
     # Static permittivity of GaAs 12.9: S. Adachi, Properties of Group-IV, III-V and II-VI
-    # Semiconductors (Wiley 2005), from memory.
+    # Semiconductors (Wiley 2005), from memory; the Ioffe NSM archive also gives 12.90.
     assert m.material_parameters("GaAs").permittivity_r == pytest.approx(12.9, abs=0.05)
 
 
@@ -150,21 +152,21 @@ def test_ternary_end_points_are_binaries(name: str) -> None:
 
 
 def test_ingaas_gap_bowing_midpoint() -> None:
-    # V: In(x)Ga(1-x)As Gamma-gap bowing 0.477 eV (from memory); midpoint at 300 K.
+    # V: In(x)Ga(1-x)As Gamma-gap bowing 0.477 eV (= OBP); midpoint at 300 K.
     expected = 0.5 * varshni(0.417, 0.276, 93.0, 300.0) + 0.5 * varshni(1.519, 0.5405, 204.0, 300.0)
     expected -= 0.25 * 0.477
     assert m.material_parameters("InGaAs", 0.5).gap_ev == pytest.approx(expected, rel=1e-12)
 
 
 def test_algaas_x_dependent_gap_bowing() -> None:
-    # V: Al(x)Ga(1-x)As Gamma-gap bowing C = -0.127 + 1.310 x (from memory); 0 K limit, x = 0.5.
+    # V: Al(x)Ga(1-x)As Gamma-gap bowing C = -0.127 + 1.310 x (= OBP); 0 K limit, x = 0.5.
     expected = 0.5 * 1.519 + 0.5 * 3.099 - 0.25 * (-0.127 + 1.310 * 0.5)
     gap = m.band_parameters("AlGaAs", 0.5, temperature_k=1e-3)["gap_ev"]
     assert gap == pytest.approx(expected, abs=1e-6)
 
 
 def test_inalas_bowed_vbo_and_mass() -> None:
-    # V: In(x)Al(1-x)As bowing of VBO -0.64 eV and of the mass 0.049 (from memory).
+    # V: In(x)Al(1-x)As bowing of VBO -0.64 eV and of the mass 0.049 (= OBP).
     p = m.band_parameters("InAlAs", 0.5)
     assert p["valence_band_offset_ev"] == pytest.approx(0.5 * (-0.59 - 1.33) + 0.25 * 0.64)
     assert p["mass_m0"] == pytest.approx(0.5 * (0.026 + 0.15) - 0.25 * 0.049)
@@ -189,10 +191,10 @@ def test_matched_layer_has_no_strain() -> None:
 def test_alas_on_inp_tensile() -> None:
     p = m.material_parameters("AlAs", substrate_lattice_nm=INP_NM)
     relaxed = m.material_parameters("AlAs")
-    eps_xx = (0.58697 - 0.56611) / 0.56611  # V lattice constants (from memory)
+    eps_xx = (0.58697 - 0.56611) / 0.56611  # V lattice constants (= OBP)
     assert p.strain_xx == pytest.approx(eps_xx, rel=1e-12)
     assert p.strain_xx > 0  # tension
-    eps_zz = -2 * 534 / 1250 * eps_xx  # V: c12 = 534, c11 = 1250 GPa (from memory)
+    eps_zz = -2 * 534 / 1250 * eps_xx  # V: c12 = 534, c11 = 1250 GPa (= OBP)
     assert p.monolayer_nm == pytest.approx(0.56611 * (1 + eps_zz) / 2, rel=1e-12)
     assert p.monolayer_nm < relaxed.monolayer_nm
     # Van de Walle, PRB 39, 1871 (1989): dEc = a_c (2 eps_xx + eps_zz), a_c = -5.64 eV (V).
