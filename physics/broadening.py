@@ -13,7 +13,7 @@ convolution of the Lorentzian peak with a Lorentzian of FWHM ``Gamma_s``.
 
 Model used here (one parameter, ``[model] broadening_mev`` = ``Gamma_s``):
 each resolved resonance ``r`` of the coherent ``T(E)`` (centre ``E_r``,
-width ``Gamma_r``, peak ``T_r``, from :func:`physics.resonances.refine_peaks`)
+width ``Gamma_r``, peak ``T_r``, from :func:`physics.resonances.refine_grid_peaks`)
 has its Lorentzian part replaced by the broadened one,
 
     T_b(E) = T(E) + sum_r [L(E; T_r Gamma_r / (Gamma_r + Gamma_s), Gamma_r + Gamma_s)

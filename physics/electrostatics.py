@@ -35,8 +35,11 @@ no node moves by more than :data:`MAX_STEP_EV` (damping), from the linear
 drop or a given start; it stops when the largest update is below
 ``tolerance_ev`` and raises :class:`ElectrostaticsConvergenceError`
 after ``max_iterations``. The well charge is a scalar per (stack, bias),
-found as the root of ``F(n_w) - n_w`` by a bracketed secant / bisection
-iteration that also raises that error after ``max_well_iterations``.
+found as the root of ``F(n_w) - n_w`` (``F``: the charge of the states of
+the potential that ``n_w`` produces, each evaluation a full search for the
+states, so ``F`` is one function of ``n_w``) by secant steps until the root
+is bracketed and Illinois regula falsi after, an iteration that also raises
+that error after ``max_well_iterations``.
 
 Known limits: the quasi-bound states are detected on a coarse grid of
 ``T(E)``, so ``F`` can jump when a peak appears or disappears from detection;
@@ -129,17 +132,21 @@ def _fermi_half_and_derivative(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     is used (relative error ``exp(eta) / 2^1.5`` < 1e-13, [2]_); above 120 the
     degenerate limit ``(4 / (3 sqrt(pi))) eta^1.5`` (relative error ~1e-4, [2]_).
     """
-    from scipy.interpolate import CubicSpline
+    coef = _TABLE.get("coef")
+    if coef is None:
+        from scipy.interpolate import CubicSpline
 
-    spline = _TABLE.get("spline")
-    if spline is None:
         grid = np.arange(_ETA_LO, _ETA_HI + 0.5 * _ETA_STEP, _ETA_STEP)
         spline = CubicSpline(grid, np.log(fermi_dirac_half(grid)))
-        _TABLE["spline"] = spline
+        coef = _TABLE["coef"] = np.ascontiguousarray(spline.c.T)  # (n_cells, 4), cubic first
+    # the spline evaluated directly on its uniform cells (scipy's generic search is slower)
     e = np.clip(eta, _ETA_LO, _ETA_HI)
-    log_f = spline(e)
+    cell = np.minimum(((e - _ETA_LO) / _ETA_STEP).astype(np.intp), coef.shape[0] - 1)
+    dx = e - (_ETA_LO + cell * _ETA_STEP)
+    c3, c2, c1, c0 = (coef[cell, k] for k in range(4))
+    log_f = ((c3 * dx + c2) * dx + c1) * dx + c0
     f = np.exp(log_f)
-    df = f * spline(e, 1)
+    df = f * ((3.0 * c3 * dx + 2.0 * c2) * dx + c1)
     low = eta < _ETA_LO
     high = eta > _ETA_HI
     if np.any(low):
@@ -358,10 +365,10 @@ def solve_stack_poisson(
         Optional start ``(n_stacks, n_biases, n_nodes)`` (e.g. the previous
         bias's solution); default the linear drop across the stack.
     well_charge
-        Include the charge of the lowest quasi-bound state
-        (:func:`well_sheet_density_cm2`), iterated to self-consistency by
-        damped fixed-point steps (mixing :data:`WELL_MIXING`) around the
-        Poisson-Newton solve; raises :class:`ElectrostaticsConvergenceError`
+        Include the charge of the quasi-bound states
+        (:func:`well_sheet_density_cm2`), iterated to self-consistency around
+        the Poisson-Newton solve (secant, then Illinois regula falsi; see the
+        module notes); raises :class:`ElectrostaticsConvergenceError`
         after ``max_well_iterations``.
     initial_well_cm2
         Start of the well sheet density ``(n_stacks, n_biases)``, cm^-2.
@@ -437,76 +444,71 @@ def solve_stack_poisson(
             for s in range(n_stacks)
         ]
     )
-    guess = None
-    full = True  # full resonance search (else refine from the last E_1)
-    previous = None  # (well, residual) of the last step, for the secant update
-    lo = np.zeros(bias.shape)
-    hi = np.full(bias.shape, np.inf)
+    previous = None  # (well, residual) of the last step, for the secant step before a bracket
+    lo, r_lo = np.zeros(bias.shape), np.zeros(bias.shape)
+    lo_known = np.zeros(bias.shape, bool)  # residual(lo) evaluated (else lo = 0 is a bound only)
+    hi, r_hi = np.full(bias.shape, np.inf), np.zeros(bias.shape)
+    last_side = np.zeros(bias.shape, int)  # +1: lo moved last, -1: hi moved last (Illinois)
     reopened = np.zeros(bias.shape, bool)  # bracket collapsed once and was reopened
     settled = np.zeros(bias.shape, bool)  # collapsed again: a jump of F, accepted at the jump
     frozen = np.zeros(bias.shape)
     for outer in range(1, max_well_iterations + 1):
-        target, e1 = well_sheet_density_cm2(
-            table,
-            grid,
-            solution.potential_ev,
-            bias,
-            mu_emitter_ev=mu_e,
-            well_mass_m0=mass_w,
-            guess_ev=None if full else guess,
+        target, _ = well_sheet_density_cm2(
+            table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w
         )
-        if not full and np.any(
-            np.isfinite(guess) & ~np.isfinite(e1)
-        ):  # a state was lost: search again
-            full = True
-            target, e1 = well_sheet_density_cm2(
-                table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w
-            )
         residual = target - well
-        converged = np.all(
-            (np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2) | settled
-        )
-        if converged and (full or np.all(np.isfinite(e1))):
+        done = (np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2) | settled
+        if np.all(done):
             return grid, replace(
                 solution, well_sheet_cm2=well, iterations=solution.iterations + outer
             )
-        if converged:  # confirm with a full search that no state has entered the window
-            full = True
-            continue
-        full = False
-        guess = e1
         # Root of residual(well) = F(well) - well per (stack, bias). F >= 0, so a root lies in
-        # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi); take the secant
-        # step (or a mixing step) when it falls inside the bracket, else bisect. Always converges.
-        lo = np.where(residual >= 0, np.maximum(lo, well), lo)
-        hi = np.where(residual < 0, np.minimum(hi, well), hi)
+        # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi). Until hi is
+        # found, secant (or mixing) steps; then regula falsi with the Illinois modification
+        # (M. Dowell and P. Jarratt, BIT 11, 168 (1971)), superlinear and always inside.
+        # entries already within tolerance keep their charge (each entry's F depends on its
+        # own charge only)
+        up = residual >= 0
+        moved_lo = ~done & up & (well >= lo)
+        moved_hi = ~done & ~up & (well <= hi)
+        lo_known |= moved_lo
+        lo, r_lo = np.where(moved_lo, well, lo), np.where(moved_lo, residual, r_lo)
+        hi, r_hi = np.where(moved_hi, well, hi), np.where(moved_hi, residual, r_hi)
+        side = np.where(moved_lo, 1, np.where(moved_hi, -1, 0))
+        r_hi = np.where((side == 1) & (last_side == 1), 0.5 * r_hi, r_hi)  # stale end: halve
+        r_lo = np.where((side == -1) & (last_side == -1), 0.5 * r_lo, r_lo)
+        last_side = np.where(side != 0, side, last_side)
         candidate = well + WELL_MIXING * residual
         if previous is not None:
             d_well, d_res = well - previous[0], residual - previous[1]
             ok = (np.abs(d_well) > 0) & (d_res != 0)
             candidate = np.where(ok, well - residual * d_well / np.where(ok, d_res, 1.0), candidate)
-        ceiling = np.minimum(hi, 4.0 * np.maximum(target, well) + WELL_ABS_CM2)  # F is bounded
-        inside_bracket = np.isfinite(candidate) & (candidate > lo) & (candidate < ceiling)
-        bisect = np.where(np.isfinite(hi), 0.5 * (lo + hi), target)
-        previous = (well, residual)
-        well = np.where(inside_bracket, candidate, bisect)
-        # A collapsed bracket with a large residual: either an inconsistent evaluation (a
-        # refined E_1 that lost its peak) -- reopen it once and search in full -- or, if it
-        # collapses again, a jump of F (a state appearing at the edge of detection): the
-        # fixed point is the jump itself, accepted to the bracket width.
-        collapsed = (
-            np.isfinite(hi) & ((hi - lo) <= WELL_TOLERANCE * np.abs(hi) + WELL_ABS_CM2) & ~settled
+        ceiling = 4.0 * np.maximum(target, well) + WELL_ABS_CM2  # F is bounded
+        open_ok = np.isfinite(candidate) & (candidate > lo) & (candidate < ceiling)
+        bracketed = np.isfinite(hi)
+        denom = np.where(bracketed, r_lo - r_hi, 1.0)
+        falsi = np.where(
+            lo_known & (denom > 0),
+            (lo * -r_hi + np.where(bracketed, hi, 0.0) * r_lo) / denom,
+            0.5 * (lo + hi),
         )
+        previous = (well, residual)
+        step = np.where(bracketed, falsi, np.where(open_ok, candidate, target))
+        well = np.where(done, well, step)
+        # A collapsed bracket with a large residual: either an inconsistent evaluation -- reopen
+        # it once -- or, if it collapses again, a jump of F (a state appearing at the edge of
+        # detection): the fixed point is the jump itself, accepted to the bracket width.
+        collapsed = bracketed & ((hi - lo) <= WELL_TOLERANCE * np.abs(hi) + WELL_ABS_CM2) & ~done
         if np.any(collapsed):
             again = collapsed & reopened
             frozen = np.where(again, 0.5 * (lo + hi), frozen)
             settled |= again
             first = collapsed & ~reopened
             reopened |= first
-            lo = np.where(first, 0.0, lo)
+            lo, lo_known = np.where(first, 0.0, lo), lo_known & ~first
             hi = np.where(first, np.inf, hi)
+            last_side = np.where(first, 0, last_side)
             well = np.where(first, target, well)
-            full = full or bool(np.any(first))
             previous = None
         well = np.where(settled, frozen, well)
         solution = poisson(solution.potential_ev, well)
@@ -517,7 +519,7 @@ def solve_stack_poisson(
 
 
 def well_sheet_density_cm2(
-    table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0, guess_ev=None
+    table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0
 ):
     """Estimate of the electron sheet density in the quasi-bound states, cm^-2.
 
@@ -545,15 +547,11 @@ def well_sheet_density_cm2(
     The charge supplied by the other contact and that of states above the
     window are neglected.
 
-    ``guess_ev`` (``(n_stacks, n_biases)``, e.g. ``E_1`` of the previous
-    iteration) refines from there instead of searching; NaN entries (no
-    state before) stay without a state, so the caller confirms a converged
-    result with a full search.
     Returns ``n_w`` ``(n_stacks, n_biases)`` and the states ``E_1``
     ``(n_stacks, n_biases, 4)``, NaN where there is none.
     """
     from .constants import ELECTRON_MASS_KG, HBAR_J_S
-    from .resonances import find_resonances, refine_peaks
+    from .resonances import find_resonances
 
     profile = profile_from_potential(table, grid, potential_ev)
     kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None]
@@ -562,18 +560,10 @@ def well_sheet_density_cm2(
     mu = np.where(forward, mu_emitter_ev[:, None], mu_emitter_ev[:, None] - bias)
     edge = np.where(forward, 0.0, profile.edge_ev[..., -1])
     top = mu + 12.0 * kt
-    if guess_ev is not None:
-        known = np.isfinite(guess_ev)
-        mid = (0.5 * (edge + top))[..., None]
-        e1, width, tp = refine_peaks(
-            np.where(known, guess_ev, mid), 5e-3, profile=profile, iterations=6
-        )
-        ok = known & np.isfinite(width) & (e1 > edge[..., None]) & (e1 < top[..., None])
-    else:
-        res = find_resonances(
-            profile, energy_min_ev=edge + 1e-6, energy_max_ev=top, n_coarse=64, n_max=4
-        )
-        e1, tp, ok = res.energy_ev, res.peak_transmission, res.valid
+    res = find_resonances(
+        profile, energy_min_ev=edge + 1e-6, energy_max_ev=top, n_coarse=64, n_max=4
+    )
+    e1, tp, ok = res.energy_ev, res.peak_transmission, res.valid
     e1 = np.where(ok, e1, np.nan)
     tp = np.where(ok, tp, 0.0)
     fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.clip(tp, 0.0, 1.0)))

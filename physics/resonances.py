@@ -9,9 +9,7 @@ bracket by sampling the parabola's vertex +- the half width it implies and
 keeping the best sample with its neighbours, so the peak cannot be lost;
 this converges to widths far below the coarse spacing (tested to 1 ueV,
 whichever coarse grid) in six batched rounds of two evaluations. The
-lifetime is ``hbar / G``. :func:`refine_peaks` (a symmetric stencil that
-follows its own fit) serves where only a previous estimate is known, as in
-the self-consistent well-charge iteration.
+lifetime is ``hbar / G``.
 
 References
 ----------
@@ -32,7 +30,6 @@ from .transmission import transmission, transmission_rows
 __all__ = [
     "Resonances",
     "find_resonances",
-    "refine_peaks",
     "refine_bracketed",
     "refine_grid_peaks",
     "local_peaks",
@@ -90,61 +87,6 @@ def local_peaks(
         index = np.concatenate([index, np.ones(index.shape[:-1] + (pad,), int)], axis=-1)
         valid = np.concatenate([valid, np.zeros(valid.shape[:-1] + (pad,), bool)], axis=-1)
     return index, valid
-
-
-def refine_peaks(
-    guess_ev: np.ndarray,
-    step_ev: np.ndarray,
-    *,
-    profile: Profile,
-    iterations: int = 5,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Refine transmission peaks by parabola fits of 1/T, batched.
-
-    Parameters
-    ----------
-    guess_ev
-        ``batch + (n,)`` starting energies (coarse-grid maxima).
-    step_ev
-        Initial half-spacing of the three fit points, broadcastable to ``guess_ev``.
-    profile
-        Profiles with batch shape broadcastable to ``batch``.
-    iterations
-        Kernel calls; each evaluates three energies per peak.
-
-    Returns
-    -------
-    energy_ev, width_ev, peak_transmission
-        Arrays shaped like ``guess_ev``. Where a fit fails (no curvature) the
-        width is NaN.
-    """
-    center = np.array(guess_ev, float)
-    step = np.broadcast_to(np.asarray(step_ev, float), center.shape).copy()
-    width = np.full(center.shape, np.nan)
-    peak = np.full(center.shape, np.nan)
-    offsets = np.array([-1.0, 0.0, 1.0])
-    for _ in range(iterations):
-        e = center[..., None] + step[..., None] * offsets  # batch + (n, 3)
-        flat = e.reshape(e.shape[:-2] + (-1,))
-        t = transmission(flat, profile=profile).reshape(e.shape)
-        y = 1.0 / np.maximum(t, 1e-150)  # keeps slope**2 finite
-        # parabola through (-h, y0), (0, y1), (h, y2) in units of h
-        curv = 0.5 * (y[..., 0] + y[..., 2]) - y[..., 1]
-        slope = 0.5 * (y[..., 2] - y[..., 0])
-        good = curv > 0
-        shift = np.where(good, -slope / (2.0 * np.where(good, curv, 1.0)), 0.0)
-        shift = np.clip(shift, -2.0, 2.0)  # stay near the points that were fitted
-        y_min = y[..., 1] - 0.25 * slope**2 / np.where(good, curv, 1.0)
-        half_width = np.where(
-            good & (y_min > 0), step * np.sqrt(np.abs(y_min / np.where(good, curv, 1.0))), np.nan
-        )
-        center = center + shift * step
-        width = 2.0 * half_width
-        peak = np.where(good & (y_min > 0), 1.0 / y_min, t[..., 1])
-        # close in: next points about one width apart, at most 20x tighter per step
-        target = np.where(np.isfinite(half_width), half_width, 0.25 * step)
-        step = np.clip(target, step / 20.0, step / 1.5)
-    return center, width, np.clip(peak, 0.0, 1.0)
 
 
 def parabola_through(x: np.ndarray, y: np.ndarray):
