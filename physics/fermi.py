@@ -16,7 +16,6 @@ References
 
 from __future__ import annotations
 
-
 import numpy as np
 
 from .constants import BOLTZMANN_EV_K, ELECTRON_MASS_KG, ELEMENTARY_CHARGE_C, HBAR_J_S

@@ -58,6 +58,15 @@ class Resonances:
         return HBAR_EV_FS / self.width_ev
 
 
+#: Rounds :func:`refine_bracketed` adds, beyond those asked, for lines whose bracket still
+#: shows no fitted width (e.g. a coarse node within a width of a ueV line's peak, whose
+#: neighbours lie far out in its tails): measured, such a line needs 8 rounds.
+EXTRA_ROUNDS = 6
+#: A bracket wider than this many probe spreads also gets a bisection probe (see
+#: :func:`refine_bracketed`).
+LOOSE_BRACKET = 20.0
+
+
 def local_peaks(
     values: np.ndarray, n_max: int, *, weight: np.ndarray | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -112,6 +121,44 @@ def _half_width(a: np.ndarray, y_min: np.ndarray) -> np.ndarray:
     return np.where(fitted, np.sqrt(np.abs(y_min / np.where(fitted, a, 1.0))), np.nan)
 
 
+def _bracket_round(x, y, profile, rows):
+    """One round of :func:`refine_bracketed` on brackets ``x`` ``(n, 3)`` with ``y = 1/T``."""
+    n = x.shape[0]
+    u, a, y_min = parabola_through(x, y)
+    left, right = x[:, 1] - x[:, 0], x[:, 2] - x[:, 1]
+    vertex = x[:, 1] + u
+    half = _half_width(a, y_min)
+    # probes: the vertex +- half width, inside the bracket. Where the parabola dips below
+    # zero the line is far narrower than the bracket: a twentieth of its smaller side
+    # (the bracket keeps the best sample, so shrinking fast cannot lose the peak); a
+    # quarter where the points show no curvature at all
+    room = np.minimum(vertex - x[:, 0], x[:, 2] - vertex)
+    h = np.where(np.isfinite(half), half, np.where(a > 0, 0.05, 0.25) * np.minimum(left, right))
+    h = np.clip(h, 1e-3 * room, 0.9 * room)
+    probes = [vertex - h, vertex + h]
+    # safeguard: the vertex is exact for points on one Lorentzian, but a point that is not
+    # (T -> 0 at a band edge) pulls it to the wrong side of the middle point; while the
+    # bracket is much wider than the probes' spread, also bisect the side away from the vertex
+    loose = np.nonzero(np.maximum(left, right) > LOOSE_BRACKET * h)[0]
+    third = x[:, 0].copy()  # (a repeat of the left end where not needed: never the best)
+    third_y = y[:, 0].copy()
+    if loose.size:
+        go_left = np.where(u[loose] == 0.0, left[loose] > right[loose], u[loose] > 0.0)
+        mid = x[loose, 1] + np.where(go_left, -0.5 * left[loose], 0.5 * right[loose])
+        third[loose] = mid
+        t_mid = transmission_rows(mid[:, None], profile=profile, rows=tuple(r[loose] for r in rows))
+        third_y[loose] = 1.0 / np.maximum(t_mid[:, 0], 1e-150)
+    t = transmission_rows(np.stack(probes, axis=-1), profile=profile, rows=rows)
+    xs = np.concatenate([x, np.stack(probes, axis=-1), third[:, None]], axis=-1)
+    ys = np.concatenate([y, 1.0 / np.maximum(t, 1e-150), third_y[:, None]], axis=-1)
+    order = np.arange(n)[:, None]
+    sort = np.argsort(xs, axis=-1, kind="stable")
+    xs, ys = xs[order, sort], ys[order, sort]
+    best = np.argmin(ys[:, 1:-1], axis=-1) + 1  # the best sample is never an end point
+    pick = best[:, None] + np.array([-1, 0, 1])
+    return xs[order, pick], ys[order, pick]
+
+
 def refine_bracketed(
     bracket_ev: np.ndarray,
     bracket_t: np.ndarray,
@@ -134,7 +181,9 @@ def refine_bracketed(
     iterations
         Rounds; each samples the vertex of the parabola of 1/T through the
         bracket +- the half width that parabola implies, then keeps the best
-        sample and its two neighbours as the new bracket.
+        sample and its two neighbours as the new bracket. Brackets whose
+        parabola still has no positive minimum get up to
+        :data:`EXTRA_ROUNDS` more.
     exact_peak
         Compute T at the final vertex (one more evaluation) instead of taking
         the parabola's minimum (off by the background's distortion, ~1e-4 relative).
@@ -154,31 +203,17 @@ def refine_bracketed(
     narrower than their spacing).
     """
     x = np.array(bracket_ev, float)
-    y = 1.0 / np.maximum(np.asarray(bracket_t, float), 1e-300)
-    n = x.shape[0]
-    order = np.arange(n)[:, None]
-
-    for _ in range(iterations):
-        u, a, y_min = parabola_through(x, y)
-        left, right = x[:, 1] - x[:, 0], x[:, 2] - x[:, 1]
-        vertex = x[:, 1] + u
-        half = _half_width(a, y_min)
-        # probes: the vertex +- half width, inside the bracket. Where the parabola dips below
-        # zero the line is far narrower than the bracket: a twentieth of its smaller side
-        # (the bracket keeps the best sample, so shrinking fast cannot lose the peak); a
-        # quarter where the points show no curvature at all
-        room = np.minimum(vertex - x[:, 0], x[:, 2] - vertex)
-        h = np.where(np.isfinite(half), half, np.where(a > 0, 0.05, 0.25) * np.minimum(left, right))
-        h = np.clip(h, 1e-3 * room, 0.9 * room)
-        probes = np.stack([vertex - h, vertex + h], axis=-1)
-        t = transmission_rows(probes, profile=profile, rows=rows)
-        xs = np.concatenate([x, probes], axis=-1)
-        ys = np.concatenate([y, 1.0 / np.maximum(t, 1e-300)], axis=-1)
-        sort = np.argsort(xs, axis=-1)
-        xs, ys = xs[order, sort], ys[order, sort]
-        best = np.argmin(ys[:, 1:-1], axis=-1) + 1  # the best of five is never an end point
-        pick = best[:, None] + np.array([-1, 0, 1])
-        x, y = xs[order, pick], ys[order, pick]
+    y = 1.0 / np.maximum(np.asarray(bracket_t, float), 1e-150)  # 1/T <= 1e150: parabolas finite
+    active = np.arange(x.shape[0])
+    for round_ in range(iterations + EXTRA_ROUNDS):
+        if round_ >= iterations:  # extra rounds only for lines not yet fitted
+            u, a, y_min = parabola_through(x[active], y[active])
+            active = active[~np.isfinite(_half_width(a, y_min))]
+            if active.size == 0:
+                break
+        x[active], y[active] = _bracket_round(
+            x[active], y[active], profile, tuple(r[active] for r in rows)
+        )
     u, a, y_min = parabola_through(x, y)
     half = _half_width(a, y_min)
     fitted = np.isfinite(half)

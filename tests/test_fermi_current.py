@@ -31,7 +31,7 @@ from physics.fermi import (
     reduced_fermi_level,
 )
 from physics.iv import sweep
-from physics.resonances import find_resonances
+from physics.resonances import find_resonances, refine_bracketed
 from physics.stack import ModelOptions, load_stack
 from physics.transmission import transmission
 
@@ -269,6 +269,39 @@ def test_find_resonances_resolves_micro_ev_width(bias: float) -> None:
     assert gamma == pytest.approx(fwhm, rel=0.02)
     assert abs(e_r - e_bf) < 0.01 * gamma
     assert t_p == pytest.approx(t_bf, abs=1e-6)
+
+
+@pytest.mark.parametrize("offset_widths", [3.0, 30.0, 300.0])
+def test_refinement_finds_a_peak_beside_a_zero_transmission_end(offset_widths: float) -> None:
+    # A line between the band edge (the coarse grid's first node, where T = 0 because the
+    # emitter wave number vanishes) and the next node: 1/T at the edge is not on the line's
+    # parabola and pulled the fitted vertex to the far side of the middle node, so the
+    # refinement walked away from the peak (measured on an as-grown GaAs variant: a ~3 ueV
+    # line at 0.09 meV, the current 30x too low). Reference: a brute-force uniform scan
+    # (helpers_physics.brute_force_fwhm); same tolerances as the test above.
+    p = linear_profile(_narrow_table(), [0.1])
+    res = find_resonances(p, energy_min_ev=0.0, energy_max_ev=0.29, n_coarse=400)
+    i = int(np.nanargmin(res.energy_ev[0, 0]))
+    e_guess, g_guess = float(res.energy_ev[0, 0, i]), float(res.width_ev[0, 0, i])
+    e_r, t_p, fwhm = brute_force_fwhm(p.take((0, 0)), e_guess, g_guess)
+    # the middle node in the line's right tail, a zero at the left end, the right end further out
+    x = np.array(
+        [
+            [
+                e_r - 0.5 * offset_widths * fwhm,
+                e_r + offset_widths * fwhm,
+                e_r + 4 * offset_widths * fwhm,
+            ]
+        ]
+    )
+    t = transmission(x, profile=p.take((0, 0)))
+    t[0, 0] = 0.0
+    center, width, peak = refine_bracketed(
+        x, t, profile=p, rows=(np.array([0]), np.array([0])), iterations=6
+    )
+    assert abs(center[0] - e_r) < 0.01 * fwhm
+    assert width[0] == pytest.approx(fwhm, rel=0.02)
+    assert peak[0] == pytest.approx(t_p, abs=1e-6)
 
 
 def _reference_current(table, bias):
