@@ -192,7 +192,9 @@ def current_density_a_cm2(
     return_spectrum
         Also return the energy grid and the integrand ``T(E) S(E)``.
     broadening_ev
-        Scattering broadening ``Gamma_s`` of the resolved resonances, eV
+        Scattering broadening ``Gamma_s`` of every resonance narrower than ``kT``
+        found on the coarse grid (up to ``grid.n_candidates``, whether resolved or
+        not; :mod:`physics.broadening`), eV
         (:mod:`physics.broadening`); 0 (default) is the coherent result.
         The returned spectrum is the coherent one.
 
@@ -243,6 +245,7 @@ def current_density_a_cm2(
             & (center > low[..., None])
             & (center < high[..., None])
         )
+        found = (center, width, peak, valid)  # every line found: all of them are broadened
         share = np.abs(supply_function_ev(center, mu_e[..., None], mu_c[..., None], kt[..., None]))
         share = np.where(valid, np.nan_to_num(peak * width * share), -1.0)
         keep = np.argsort(-share, axis=-1)[..., : grid.n_resonances]
@@ -277,16 +280,17 @@ def current_density_a_cm2(
     integral = np.sum(weights * integrand, axis=-1)
     if broadening_ev > 0.0 and grid.n_resonances > 0:
         integral = integral + broadening_correction(
-            center_ev=center,
-            width_ev=width,
-            peak=peak,
-            valid=valid,
+            center_ev=found[0],
+            width_ev=found[1],
+            peak=found[2],
+            valid=found[3],
             low_ev=low,
             high_ev=high,
             supply=lambda e: supply_function_ev(
                 e, mu_e[..., None, None], mu_c[..., None, None], kt[..., None, None]
             ),
             broadening_ev=broadening_ev,
+            kt_ev=kt,
         )
     mass_e = table.mass_m0[:, 0][:, None]
     j = TSU_ESAKI_A_M2_EV2 * mass_e * integral * 1e-4

@@ -518,9 +518,7 @@ def solve_stack_poisson(
     )
 
 
-def well_sheet_density_cm2(
-    table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0
-):
+def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0):
     """Estimate of the electron sheet density in the quasi-bound states, cm^-2.
 
     Each 2D subband ``E_1`` (up to four, found on a 64-point grid of ``T(E)``
