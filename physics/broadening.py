@@ -53,8 +53,8 @@ asymmetry) is left unbroadened; only resonances found inside the
 integration window are broadened, so the scattering-assisted current
 through a level that has already dropped below the emitter band edge (the
 dominant valley mechanism of the sequential picture [4]_) is not included;
-the Lorentzian tails are cut at the window's ends and at ``SPAN_KT``. The valley current is
-therefore still an underestimate.
+the Lorentzian tails are cut at the window's ends and at ``SPAN_KT``. The
+valley current is therefore still an underestimate.
 
 Recommended values (from memory, to be checked against the sources):
 ``Gamma_s`` of a few meV at 300 K for GaAs/AlGaAs and InGaAs/AlAs wells,

@@ -13,10 +13,10 @@ beyond is below ``exp(-30)``), so the current over the barriers is included.
 
 The energy grid is adaptive. A coarse grid over the window, dense at its
 lower edge (``E = low + (high - low) u^2``, ``u`` uniform, where T rises like
-the square root of the emitter's kinetic energy; five more nodes between the edge
-and the first node, geometrically closer to the edge, :data:`EDGE_NODES_U`), locates
-the transmission peaks that carry most current; each is refined to its centre ``E_r`` and
-width ``Gamma`` (:mod:`physics.resonances`). Around each resonance an
+the square root of the emitter's kinetic energy; five more nodes between the
+edge and the first node, geometrically closer to the edge, :data:`EDGE_NODES_U`),
+locates the transmission peaks that carry most current; each is refined to its
+centre ``E_r`` and width ``Gamma`` (:mod:`physics.resonances`). Around each resonance an
 interval of ``max(30 Gamma, 4 coarse spacings)`` is integrated with
 Gauss-Legendre nodes in ``s`` under the map ``E = E_r + (Gamma/2) sinh(s)``,
 which turns a Lorentzian into ``(Gamma/2) sech(s) ds``, smooth at every scale,
@@ -192,10 +192,9 @@ def current_density_a_cm2(
     return_spectrum
         Also return the energy grid and the integrand ``T(E) S(E)``.
     broadening_ev
-        Scattering broadening ``Gamma_s`` of every resonance narrower than ``kT``
-        found on the coarse grid (up to ``grid.n_candidates``, whether resolved or
-        not; :mod:`physics.broadening`), eV
-        (:mod:`physics.broadening`); 0 (default) is the coherent result.
+        Scattering broadening ``Gamma_s``, eV, of every resonance narrower than
+        ``kT`` found on the coarse grid (up to ``grid.n_candidates``, resolved or
+        not; :mod:`physics.broadening`); 0 (default) is the coherent result.
         The returned spectrum is the coherent one.
 
     Returns

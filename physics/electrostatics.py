@@ -465,7 +465,7 @@ def solve_stack_poisson(
         # Root of residual(well) = F(well) - well per (stack, bias). F >= 0, so a root lies in
         # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi). Until hi is
         # found, secant (or mixing) steps; then regula falsi with the Illinois modification
-        # (M. Dowell and P. Jarratt, BIT 11, 168 (1971)), superlinear and always inside.
+        # (M. Dowell and P. Jarratt, BIT 11, 168 (1971), from memory), superlinear, always inside.
         # entries already within tolerance keep their charge (each entry's F depends on its
         # own charge only)
         up = residual >= 0
