@@ -68,9 +68,10 @@ static inline double slice_k2(double e, Py_ssize_t o, const double *edge, const 
    group i / ne, which runs on profile rows[group] (the group itself without rows).
    Lanes run over items, not over one profile's energies, so that short energy lists
    (two probes per resonance in the refinement) fill the vectors too; each lane then
-   gathers its own profile's slice parameters. With `shared` (ne a multiple of LANES,
-   so a chunk never straddles two profiles) all lanes read one profile: plain loads
-   instead of gathers, and padding slices are skipped. Inlined twice, once per case. */
+   gathers its own profile's slice parameters. With `shared` (the chunk inside one
+   energy group: every chunk when ne is a multiple of LANES, all but the straddling ones
+   otherwise) all lanes read one profile: plain loads instead of gathers, and padding
+   slices are skipped. Inlined twice, once per case. */
 static inline __attribute__((always_inline)) void chunk(
     const int shared, int n, const double *edge, const double *mass, const double *alpha,
     const double *width, const int64_t *rows, Py_ssize_t n_items, Py_ssize_t ne,
@@ -217,9 +218,9 @@ static void kernel(int n, const double *edge, const double *mass, const double *
                    const double *width, const int64_t *rows, Py_ssize_t n_items, Py_ssize_t ne,
                    const double *energy, double inv_hb2, double *t_out, double *r_out)
 {
-    const int shared = ne % LANES == 0;
     for (Py_ssize_t e0 = 0; e0 < n_items; e0 += LANES) {
-        if (shared)
+        const Py_ssize_t last = (e0 + LANES < n_items ? e0 + LANES : n_items) - 1;
+        if (e0 / ne == last / ne) /* the whole chunk in one energy group: one profile */
             chunk(1, n, edge, mass, alpha, width, rows, n_items, ne, energy, inv_hb2, t_out,
                   r_out, e0);
         else

@@ -66,7 +66,9 @@ EDGE_NODES_U = 0.5 ** np.arange(5, 0, -1)
 class EnergyGrid:
     """Settings of the adaptive energy grid."""
 
-    n_coarse: int = 64  #: points over the window (quadratic map, dense at its lower edge)
+    #: points over the window (quadratic map, dense at its lower edge), plus the
+    #: EDGE_NODES_U: 64 in all, a whole number of the compiled kernel's 8-item chunks
+    n_coarse: int = 59
     n_resonances: int = 2  #: resonances resolved per (stack, bias), those carrying most current
     n_candidates: int = 6  #: coarse-grid peaks refined before the n_resonances are chosen
     n_per_resonance: int = 32  #: Gauss-Legendre nodes per resonance (sinh map)
