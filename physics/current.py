@@ -41,7 +41,7 @@ from .constants import BOLTZMANN_EV_K, ELECTRON_MASS_KG, ELEMENTARY_CHARGE_C, HB
 from .fermi import fermi_level_ev
 from .resonances import local_peaks, refine_grid_peaks
 from .stack import LayerTable
-from .transmission import transmission, transmission_where
+from .transmission import transmission, transmission_rows
 
 __all__ = [
     "EnergyGrid",
@@ -60,6 +60,10 @@ WINDOW_KT = 30.0
 #: (~0.2 meV), and would otherwise not show as a coarse-grid maximum (measured: 0.01 % of
 #: the biases of as-grown GaAs and InP variants missed up to 3/4 of their current).
 EDGE_NODES_U = 0.5 ** np.arange(5, 0, -1)
+#: A third or later line is resolved only where it is narrower than the coarse spacing and
+#: its estimated share of the current, ``T_p Gamma S(E_r)`` over that of all lines
+#: narrower than kT, is at least this (else the coarse nodes integrate it).
+MIN_SHARE = 1e-3
 
 
 @dataclass(frozen=True)
@@ -69,7 +73,7 @@ class EnergyGrid:
     #: points over the window (quadratic map, dense at its lower edge), plus the
     #: EDGE_NODES_U: 64 in all, a whole number of the compiled kernel's 8-item chunks
     n_coarse: int = 59
-    n_resonances: int = 2  #: resonances resolved per (stack, bias), those carrying most current
+    n_resonances: int = 3  #: at most this many resolved per (stack, bias) (see MIN_SHARE)
     n_candidates: int = 6  #: coarse-grid peaks refined before the n_resonances are chosen
     n_per_resonance: int = 32  #: Gauss-Legendre nodes per resonance (sinh map)
     refine_iterations: int = 6  #: bracketed refinement rounds per candidate (two energies each)
@@ -135,14 +139,17 @@ def _trapezoid_weights(nodes: np.ndarray) -> np.ndarray:
     return w
 
 
-def _resonance_intervals(center, width, spacing, low, high):
-    """Non-overlapping integration intervals around sorted resonances, ``batch + (n_res,)`` each."""
+def _resonance_intervals(center, width, spacing, valid, low, high):
+    """Non-overlapping integration intervals around resonances, ``batch + (n_res,)`` each.
+
+    The valid slots come first, sorted by ``center``; the others are ignored.
+    """
     half_span = np.maximum(4.0 * spacing, 30.0 * width)
     a = np.maximum(center - half_span, low[..., None])
     b = np.minimum(center + half_span, high[..., None])
     for r in range(center.shape[-1] - 1):  # cut overlapping neighbours halfway between centres
         cut = 0.5 * (center[..., r] + center[..., r + 1])
-        overlap = b[..., r] > a[..., r + 1]
+        overlap = (b[..., r] > a[..., r + 1]) & valid[..., r + 1]
         b[..., r] = np.where(overlap, np.maximum(np.minimum(b[..., r], cut), a[..., r]), b[..., r])
         a[..., r + 1] = np.where(
             overlap, np.minimum(np.maximum(a[..., r + 1], cut), b[..., r + 1]), a[..., r + 1]
@@ -176,9 +183,8 @@ def current_density_a_cm2(
     table: LayerTable,
     bias_v: np.ndarray,
     grid: EnergyGrid = EnergyGrid(),
-    return_spectrum: bool = False,
     broadening_ev: float = 0.0,
-):
+) -> np.ndarray:
     """Tsu-Esaki current density for each (stack, bias) of ``profile``.
 
     Parameters
@@ -191,13 +197,10 @@ def current_density_a_cm2(
         Biases broadcastable to ``(n_stacks, n_biases)``; ``mu_C = mu_E - bias``.
     grid
         Adaptive grid settings.
-    return_spectrum
-        Also return the energy grid and the integrand ``T(E) S(E)``.
     broadening_ev
         Scattering broadening ``Gamma_s``, eV, of every resonance narrower than
         ``kT`` found on the coarse grid (up to ``grid.n_candidates``, resolved or
         not; :mod:`physics.broadening`); 0 (default) is the coherent result.
-        The returned spectrum is the coherent one.
 
     Returns
     -------
@@ -216,8 +219,6 @@ def current_density_a_cm2(
     u = np.concatenate([u[:1], u[1] * EDGE_NODES_U, u[1:]])
     coarse = low[..., None] + (high - low)[..., None] * u**2
     t_coarse = transmission(coarse, profile=profile)
-    energies = [coarse]
-    values = [t_coarse]
     if grid.n_resonances > 0:
         # refine every candidate peak, then keep those carrying most current: a resonance of
         # 1 ueV width looks tiny on the coarse grid, its weight (pi/2) T_p Gamma S(E_r) does not
@@ -250,35 +251,48 @@ def current_density_a_cm2(
         share = np.abs(supply_function_ev(center, mu_e[..., None], mu_c[..., None], kt[..., None]))
         share = np.where(valid, np.nan_to_num(peak * width * share), -1.0)
         keep = np.argsort(-share, axis=-1)[..., : grid.n_resonances]
-        center, width, peak, spacing, valid = (
-            np.take_along_axis(x, keep, axis=-1) for x in (center, width, peak, spacing, valid)
+        narrow = np.sum(np.where(width < kt[..., None], np.maximum(share, 0.0), 0.0), axis=-1)
+        center, width, peak, spacing, valid, share = (
+            np.take_along_axis(x, keep, axis=-1)
+            for x in (center, width, peak, spacing, valid, share)
         )
-        # padding: spread unused points uniformly (a broad pseudo-resonance mid-window)
-        center = np.where(valid, center, 0.5 * (low + high)[..., None])
-        width = np.where(valid, np.maximum(width, 1e-12), (high - low)[..., None])
-        order = np.argsort(center, axis=-1)
-        center = np.take_along_axis(center, order, axis=-1)
-        width = np.take_along_axis(width, order, axis=-1)
-        peak = np.take_along_axis(peak, order, axis=-1)
-        spacing = np.take_along_axis(np.where(valid, spacing, 0.0), order, axis=-1)
-        valid = np.take_along_axis(valid, order, axis=-1)
-        a, b = _resonance_intervals(center, width, spacing, low, high)
-        b = np.where(valid, b, a)  # unused resonance slots integrate over nothing
+        # beyond the first two, a line is resolved only where the coarse nodes cannot
+        # integrate it (narrower than their spacing) and it carries a share of the current
+        # (of the lines narrower than kT: a broad feature's T_p Gamma is no measure of it)
+        valid[..., 2:] &= (width[..., 2:] < spacing[..., 2:]) & (
+            share[..., 2:] >= MIN_SHARE * narrow[..., None]
+        )
+        # the resolved lines in order of energy, the unused slots after them (never computed)
+        center = np.where(valid, center, high[..., None])
+        width = np.where(valid, np.maximum(width, 1e-12), 1.0)
+        order = np.argsort(np.where(valid, center, np.inf), axis=-1)
+        center, width, spacing, valid = (
+            np.take_along_axis(x, order, axis=-1) for x in (center, width, spacing, valid)
+        )
+        a, b = _resonance_intervals(center, width, spacing, valid, low, high)
         weights = _trapezoid_weights(coarse)  # the coarse nodes span [low, high]
-        for r in range(a.shape[-1]):
-            weights -= _linear_weights(coarse, a[..., r], b[..., r])
-        extra, extra_weights = _resonance_rule(center, width, a, b, grid.n_per_resonance)
-        energies.append(extra)
-        # unused slots carry zero weight: the kernel runs only on the resolved resonances
-        nodes = extra.reshape(extra.shape[:-1] + (a.shape[-1], grid.n_per_resonance))
-        values.append(transmission_where(nodes, profile=profile, mask=valid).reshape(extra.shape))
-        weights = np.concatenate([weights, extra_weights], axis=-1)
+        for r in range(a.shape[-1]):  # each resolved line's interval leaves the coarse rule
+            m = valid[..., r]
+            if m.any():
+                weights[m] -= _linear_weights(coarse[m], a[..., r][m], b[..., r][m])
     else:
         weights = _trapezoid_weights(coarse)
-    energy = np.concatenate(energies, axis=-1)
-    t = np.concatenate(values, axis=-1)
-    integrand = t * supply_function_ev(energy, mu_e[..., None], mu_c[..., None], kt[..., None])
-    integral = np.sum(weights * integrand, axis=-1)
+    supply = supply_function_ev(coarse, mu_e[..., None], mu_c[..., None], kt[..., None])
+    integral = np.sum(weights * t_coarse * supply, axis=-1)
+    if grid.n_resonances > 0 and valid.any():
+        # the resolved lines only (unused slots cost nothing), one row per line
+        where = np.nonzero(valid)
+        rows = where[:-1]
+        nodes, node_weights = _resonance_rule(
+            center[where], width[where], a[where], b[where], grid.n_per_resonance
+        )
+        nodes = nodes.reshape(-1, grid.n_per_resonance)
+        node_weights = node_weights.reshape(nodes.shape)
+        t_lines = transmission_rows(nodes, profile=profile, rows=rows)
+        s_lines = supply_function_ev(
+            nodes, mu_e[rows][:, None], mu_c[rows][:, None], kt[rows][:, None]
+        )
+        np.add.at(integral, rows, np.sum(node_weights * t_lines * s_lines, axis=-1))
     if broadening_ev > 0.0 and grid.n_resonances > 0:
         integral = integral + broadening_correction(
             center_ev=found[0],
@@ -295,6 +309,4 @@ def current_density_a_cm2(
         )
     mass_e = table.mass_m0[:, 0][:, None]
     j = TSU_ESAKI_A_M2_EV2 * mass_e * integral * 1e-4
-    if return_spectrum:
-        return j, energy, integrand
     return j
