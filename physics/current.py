@@ -252,9 +252,8 @@ def current_density_a_cm2(
         share = np.where(valid, np.nan_to_num(peak * width * share), -1.0)
         keep = np.argsort(-share, axis=-1)[..., : grid.n_resonances]
         narrow = np.sum(np.where(width < kt[..., None], np.maximum(share, 0.0), 0.0), axis=-1)
-        center, width, peak, spacing, valid, share = (
-            np.take_along_axis(x, keep, axis=-1)
-            for x in (center, width, peak, spacing, valid, share)
+        center, width, spacing, valid, share = (
+            np.take_along_axis(x, keep, axis=-1) for x in (center, width, spacing, valid, share)
         )
         # beyond the first two, a line is resolved only where the coarse nodes cannot
         # integrate it (narrower than their spacing) and it carries a share of the current
