@@ -5,7 +5,9 @@ times on a shared machine):
 
 1. seconds for ``N`` as-grown samples of the InP demo stack evaluated one
    stack per kernel call, and in batches of ``--batch`` stacks per call, and
-   the ratio (issue 5 target: >= 10);
+   the ratio (issue 5 target: >= 10); and the time of each run inside the
+   compiled kernel, the same work either way, so one-at-a-time time over its
+   kernel time bounds what any batching can gain;
 2. optionally (``--sobol``) the time of a Sobol run with 8 parameters and
    ``--base`` base samples on ``--jobs`` processes: N (2 D + 2) = 18,432 evaluations
    for N = 1024 with the second-order indices (default), N (D + 2) with ``--first-total``.
