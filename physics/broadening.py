@@ -76,9 +76,10 @@ from __future__ import annotations
 
 import numpy as np
 
+from .quadrature import sinh_gauss_legendre
+
 __all__ = ["lorentzian", "broadened_peak", "broadening_correction"]
 
-_GL_NODES, _GL_WEIGHTS = np.polynomial.legendre.leggauss(64)
 #: Half span, in kT, over which a line's Lorentzian is replaced (module notes).
 SPAN_KT = 10.0
 
@@ -100,25 +101,16 @@ def broadened_peak(peak, width_ev, broadening_ev):
 
 
 def _lorentzian_integral(center, width, peak, low, high, supply, n_nodes):
-    """int_low^high L(E) S(E) dE by Gauss-Legendre in s, E = E_r + (W/2) sinh(s).
+    """int_low^high L(E) S(E) dE on the sinh-mapped rule of :mod:`physics.quadrature`.
 
-    ``L dE = peak (W/2) sech(s) ds``: smooth for any width. Shapes: ``center``,
-    ``width``, ``peak``, ``low``, ``high`` are ``batch + (n_res,)``;
+    ``center``, ``width``, ``peak``, ``low``, ``high`` are ``batch + (n_res,)``;
     ``supply`` maps energies ``batch + (n_res, n)`` to the supply function.
     """
-    nodes, weights = (
-        (_GL_NODES, _GL_WEIGHTS)
-        if n_nodes == _GL_NODES.size
-        else np.polynomial.legendre.leggauss(n_nodes)
+    energy, weight = sinh_gauss_legendre(center, width, low, high, n_nodes)
+    line = lorentzian(
+        energy, center_ev=center[..., None], width_ev=width[..., None], peak=peak[..., None]
     )
-    half = 0.5 * width
-    s_a = np.arcsinh((low - center) / half)
-    s_b = np.arcsinh((high - center) / half)
-    mid, rad = 0.5 * (s_a + s_b), 0.5 * (s_b - s_a)
-    s = mid[..., None] + rad[..., None] * nodes
-    energy = center[..., None] + half[..., None] * np.sinh(s)
-    integrand = (peak * half)[..., None] / np.cosh(s) * supply(energy)
-    return rad * (integrand @ weights)
+    return np.sum(weight * line * supply(energy), axis=-1)
 
 
 def broadening_correction(

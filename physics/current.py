@@ -21,7 +21,7 @@ interval of ``max(30 Gamma, 4 coarse spacings)`` is integrated with
 Gauss-Legendre nodes in ``s`` under the map ``E = E_r + (Gamma/2) sinh(s)``,
 which turns a Lorentzian into ``(Gamma/2) sech(s) ds``, smooth at every scale,
 so a fixed number of nodes resolves resonances of any width (tested to
-1 ueV). The rest of the window is integrated on the coarse nodes with the
+1 ueV; :mod:`physics.quadrature`). The rest of the window is integrated on the coarse nodes with the
 weights of their piecewise-linear interpolant. No uniform fine grid is used.
 
 References
@@ -39,6 +39,7 @@ from .bands import Profile
 from .broadening import broadening_correction
 from .constants import BOLTZMANN_EV_K, ELECTRON_MASS_KG, ELEMENTARY_CHARGE_C, HBAR_J_S
 from .fermi import fermi_level_ev
+from .quadrature import sinh_gauss_legendre
 from .resonances import local_peaks, refine_grid_peaks
 from .stack import LayerTable
 from .transmission import transmission, transmission_rows
@@ -109,9 +110,6 @@ def energy_window_ev(
     return low, high
 
 
-_GL_NODES, _GL_WEIGHTS = np.polynomial.legendre.leggauss(32)
-
-
 def _linear_weights(nodes: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Weights ``w`` with ``sum(w f)`` = integral over [a, b] of the piecewise-linear interpolant of f.
 
@@ -157,26 +155,6 @@ def _resonance_intervals(center, width, spacing, valid, low, high):
     return a, np.maximum(a, b)
 
 
-def _resonance_rule(center, width, a, b, n):
-    """Nodes and weights for [a, b] under the map E = E_r + (G/2) sinh(s), Gauss-Legendre in s.
-
-    A Lorentzian becomes (G/2) sech(s) ds, smooth on any scale, so the rule
-    resolves a resonance of any width with a fixed number of nodes.
-    """
-    nodes, weights = (
-        np.polynomial.legendre.leggauss(n) if n != _GL_NODES.size else (_GL_NODES, _GL_WEIGHTS)
-    )
-    half = 0.5 * width
-    s_a = np.arcsinh((a - center) / half)
-    s_b = np.arcsinh((b - center) / half)
-    mid, rad = 0.5 * (s_a + s_b), 0.5 * (s_b - s_a)
-    s = mid[..., None] + rad[..., None] * nodes
-    energy = center[..., None] + half[..., None] * np.sinh(s)
-    w = rad[..., None] * weights * half[..., None] * np.cosh(s)
-    shape = energy.shape[:-2] + (-1,)
-    return energy.reshape(shape), w.reshape(shape)
-
-
 def current_density_a_cm2(
     profile: Profile,
     *,
@@ -219,6 +197,7 @@ def current_density_a_cm2(
     u = np.concatenate([u[:1], u[1] * EDGE_NODES_U, u[1:]])
     coarse = low[..., None] + (high - low)[..., None] * u**2
     t_coarse = transmission(coarse, profile=profile)
+    weights = _trapezoid_weights(coarse)  # the coarse nodes span [low, high]
     if grid.n_resonances > 0:
         # refine every candidate peak, then keep those carrying most current: a resonance of
         # 1 ueV width looks tiny on the coarse grid, its weight (pi/2) T_p Gamma S(E_r) does not
@@ -247,7 +226,8 @@ def current_density_a_cm2(
             & (center > low[..., None])
             & (center < high[..., None])
         )
-        found = (center, width, peak, valid)  # every line found: all of them are broadened
+        # every line found, resolved or not, is broadened
+        lines = {"center_ev": center, "width_ev": width, "peak": peak, "valid": valid}
         share = np.abs(supply_function_ev(center, mu_e[..., None], mu_c[..., None], kt[..., None]))
         share = np.where(valid, np.nan_to_num(peak * width * share), -1.0)
         keep = np.argsort(-share, axis=-1)[..., : grid.n_resonances]
@@ -269,24 +249,19 @@ def current_density_a_cm2(
             np.take_along_axis(x, order, axis=-1) for x in (center, width, spacing, valid)
         )
         a, b = _resonance_intervals(center, width, spacing, valid, low, high)
-        weights = _trapezoid_weights(coarse)  # the coarse nodes span [low, high]
         for r in range(a.shape[-1]):  # each resolved line's interval leaves the coarse rule
             m = valid[..., r]
             if m.any():
                 weights[m] -= _linear_weights(coarse[m], a[..., r][m], b[..., r][m])
-    else:
-        weights = _trapezoid_weights(coarse)
     supply = supply_function_ev(coarse, mu_e[..., None], mu_c[..., None], kt[..., None])
     integral = np.sum(weights * t_coarse * supply, axis=-1)
     if grid.n_resonances > 0 and valid.any():
         # the resolved lines only (unused slots cost nothing), one row per line
         where = np.nonzero(valid)
         rows = where[:-1]
-        nodes, node_weights = _resonance_rule(
+        nodes, node_weights = sinh_gauss_legendre(
             center[where], width[where], a[where], b[where], grid.n_per_resonance
         )
-        nodes = nodes.reshape(-1, grid.n_per_resonance)
-        node_weights = node_weights.reshape(nodes.shape)
         t_lines = transmission_rows(nodes, profile=profile, rows=rows)
         s_lines = supply_function_ev(
             nodes, mu_e[rows][:, None], mu_c[rows][:, None], kt[rows][:, None]
@@ -294,10 +269,7 @@ def current_density_a_cm2(
         np.add.at(integral, rows, np.sum(node_weights * t_lines * s_lines, axis=-1))
     if broadening_ev > 0.0 and grid.n_resonances > 0:
         integral = integral + broadening_correction(
-            center_ev=found[0],
-            width_ev=found[1],
-            peak=found[2],
-            valid=found[3],
+            **lines,
             low_ev=low,
             high_ev=high,
             supply=lambda e: supply_function_ev(

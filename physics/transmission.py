@@ -162,7 +162,8 @@ def transmission_where(
 
     ``energy_ev`` is ``profile.batch_shape + (n_groups, n_energies)`` and ``mask``
     ``profile.batch_shape + (n_groups,)``: e.g. the nodes of each candidate
-    resonance, of which only the real ones (not the padding) need the kernel.
+    resonance, of which only the real ones (not the padding) need the kernel
+    (a convenience over :func:`transmission_rows`).
     """
     energy = np.asarray(energy_ev, float)
     out = np.zeros(energy.shape)

@@ -104,7 +104,8 @@ def test_ci_builds_the_compiled_kernel() -> None:
 @pytest.mark.parametrize("backend", ["numpy", "compiled"])
 def test_rows_and_masks_pick_the_right_profiles(backend: str) -> None:
     # transmission_rows must equal the kernel on the selected profiles (profile.take), and
-    # transmission_where must give 0 outside its mask: the refinement relies on both
+    # transmission_where must give 0 outside its mask (the refinement and the resolved lines
+    # of the current use transmission_rows; transmission_where is the masked form of it)
     from physics.transmission import transmission_rows, transmission_where
 
     table = custom_table(
