@@ -49,6 +49,7 @@ def yield_figure(records: list[dict[str, Any]]) -> Figure:
         ax.text(1.0, y + 0.3, f"{v:.0f} % ({yy['passed']}/{yy['samples']} samples)", va="bottom",
                 fontsize=9)  # above its bar, clear of the interval
     ax.set_yticks(ypos, labels)
+    ax.set_ylim(-0.5, n - 0.2)  # room for the top bar's label below the title
     ax.set_xlim(0, 105)
     ax.set_xlabel("yield against the spec (%)")
     ax.set_title("yield under growth spreads")

@@ -15,7 +15,7 @@ import numpy as np
 from matplotlib.figure import Figure
 from optuna.trial import FrozenTrial
 
-from .figures import PALETTE
+from .figures import PALETTE, metric_words
 from .outputs import save_figure
 from .study import Study
 
@@ -32,13 +32,6 @@ __all__ = [
 ]
 
 OKABE_ITO = PALETTE  # one palette for every figure: optimize.figures.PALETTE
-
-
-def metric_words(metric: str) -> str:
-    """A metric key in words, without its unit (``peak_current_density_a_cm2``: "peak current density")."""
-    if metric == "pvcr":
-        return "PVCR"
-    return metric.removesuffix("_a_cm2").removesuffix("_v").replace("_", " ")
 
 
 def metric_axis(metric: str) -> tuple[str, float]:

@@ -54,6 +54,8 @@ __all__ = [
 METHODS = ("sobol", "morris", "mc")
 #: z is clipped to this many sigma when uniform design points are mapped to normals.
 Z_CLIP = 6.0
+#: A Sobol run whose widest pass/fail total-index half-width exceeds this gets a note.
+SOBOL_WIDE_CONF = 0.1
 
 
 # --------------------------------------------------------------------------- statistics
@@ -598,6 +600,14 @@ def run_tolerance(
         if second_order:
             record["sobol_second_order"] = s["sobol_second_order"]
         notes += s["notes"]
+        widest = max((r["total_conf"] for r in s["sobol"]["pass"]), default=0.0)
+        if widest > SOBOL_WIDE_CONF:
+            notes.append(
+                f"Sobol on {n_base} base samples for {d} parameters: confidence half-widths up "
+                f"to {widest:.2f}, so negative first-order estimates and totals above 1 are "
+                "sampling noise; trust the order of the leading parameters, not the values, "
+                "or rerun with more --samples (the half-widths shrink as 1/sqrt(samples))"
+            )
         record["sobol_evaluations"] = s["evaluations"]
         ranking_source = [r["parameter"] for r in s["sobol"]["pass"]]
         if all(r["total_index"] == 0 for r in s["sobol"]["pass"]):

@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from .figures import PALETTE
+from .figures import PALETTE, metric_words
 
 __all__ = ["save_all", "OKABE_ITO"]
 
@@ -109,9 +109,8 @@ def save_sobol(record: dict[str, Any], path: Path, *, key: str = "pass") -> Path
         label="first-order index",
     )
     ax.set_yticks(ypos, [r["parameter"] for r in rows])
-    ax.set_xlabel(
-        f"Sobol index of {'pass/fail' if key == 'pass' else DISPLAY[key][1]} (dimensionless)"
-    )
+    what = "pass/fail" if key == "pass" else metric_words(key)
+    ax.set_xlabel(f"Sobol index of {what} (share of variance, dimensionless)")
     ax.legend(fontsize=8, loc="lower right")
     return save_figure(fig, path)
 

@@ -146,6 +146,24 @@ class _ToyRunner:
         return m
 
 
+def test_a_sobol_run_with_wide_intervals_says_so(stack):
+    # Common practice (SALib's bootstrap intervals): with few base samples the estimates
+    # scatter past [0, 1]; the record warns instead of leaving the designer to guess. A
+    # generous run gets no such note.
+    g = GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0.01, x_sigma=0.0, doping_sigma=0.0)
+    model = growth_model(stack, g)
+    spec = Spec((("peak_current_density_a_cm2", 0.5e5, 2e5),))
+    few = run_tolerance(model, spec, _ToyRunner(), method="sobol", samples=64, seed=7, allocate=0)
+    many = run_tolerance(
+        model, spec, _ToyRunner(), method="sobol", samples=65536, seed=7, allocate=0
+    )
+    widest = max(r["total_conf"] for r in few["sobol"]["pass"])
+    assert widest > 0.1
+    assert any("sampling noise" in n for n in few["notes"])
+    assert max(r["total_conf"] for r in many["sobol"]["pass"]) <= 0.1
+    assert not any("sampling noise" in n for n in many["notes"])
+
+
 def test_same_seed_same_results_and_sobol_ranks_barriers(stack):
     g = GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0.01, x_sigma=0.0, doping_sigma=0.0)
     model = growth_model(stack, g)
