@@ -148,14 +148,17 @@ def run_settings(study: Study, overrides: dict[str, Any] | None = None) -> RunSe
     s = RunSettings(**values)
     try:
         check_settings(s, source=study.source)
-    except InputError as exc:
+    except InputError as exc:  # name the key as the file has it
         raise InputError(
-            str(exc.args[0]) if exc.args else "invalid", source=study.source,
-            key=f"report.{exc.key}" if getattr(exc, "key", None) else "report",
+            exc.message, source=study.source, key=f"report.{exc.key}" if exc.key else "report"
         ) from None
     if overrides:
         s = replace(s, **{k: v for k, v in overrides.items() if v is not None})
-        check_settings(s)
+        try:
+            check_settings(s)
+        except InputError as exc:  # name the option as the command line has it
+            option = f"--{exc.key.replace('_', '-')}" if exc.key else None
+            raise InputError(exc.message, key=option) from None
     return s
 
 

@@ -105,10 +105,17 @@ def make_storage(url: str) -> optuna.storages.RDBStorage:
                 heartbeat_interval=HEARTBEAT_INTERVAL_S,
                 grace_period=GRACE_PERIOD_S,
             )
-    except ImportError as exc:
+    except ImportError:
+        import sqlalchemy.engine
+
+        backend = sqlalchemy.engine.make_url(url).get_backend_name()
+        hint = (
+            'pip install -e ".[scale]" (psycopg2-binary)'
+            if backend == "postgresql"
+            else "supported and tested: sqlite (default) and postgresql"
+        )
         raise InputError(
-            f"database driver missing ({exc}); pip install psycopg2-binary for PostgreSQL",
-            key="--storage",
+            f"no database driver for {backend} here; {hint}", key="--storage"
         ) from None
     except Exception as exc:  # noqa: BLE001 - connection and driver errors of any backend
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__

@@ -22,8 +22,9 @@ A study file is a stack file (see :mod:`physics.stack`) with
 - ``[sweep]``: ``bias_min_v`` (0), ``bias_max_v`` (1.0), ``points`` (61);
 - ``[growth]``, ``[tolerance]``, ``[report]`` (and a layer's ``growth``
   table), which belong to later stages: they are kept raw in
-  :attr:`Study.reserved` and :attr:`Study.layer_growth`, not checked here
-  (``[growth]`` is checked when the search is robust).
+  :attr:`Study.reserved` and :attr:`Study.layer_growth`; ``[growth]`` is
+  validated here too (:func:`optimize.growth.parse_growth`), so that a bad
+  spread stops ``wellwright run`` before its search, not after it.
 
 The search parameter of a range is named ``<layer name>.<key>``, e.g.
 ``barrier1.thickness_ml``.
@@ -62,6 +63,7 @@ from physics.stack import (
 
 from . import space as _space
 from . import targets as _targets
+from .growth import parse_growth
 from .space import RANGE_KEYS, Variable, is_finite_number, parse_space
 from .targets import (
     DEFAULT_REFERENCE,
@@ -387,6 +389,13 @@ def parse_study(
         layer_growth=layer_growth,
     )
     _check_corners(study)
+    # [growth] is a later stage's, but a bad entry must stop the run before a search is written
+    parse_growth(
+        study.reserved.get("growth"),
+        study.layer_growth,
+        layer_names=study.layer_names,
+        source=source,
+    )
     baseline = _parse_baseline(
         data.get("search", {}).get("baseline"), study, source=source, base_dir=base_dir
     )

@@ -91,6 +91,34 @@ def test_bad_report_table_writes_nothing(tmp_path, extra, match):
     assert not out.exists()
 
 
+def test_bad_report_value_is_one_plain_line(tmp_path):
+    # One line naming the file and the key once (it used to nest the inner message, file
+    # and key included, inside the outer one)
+    path = _tiny_study(tmp_path)
+    text = path.read_text(encoding="utf-8").replace("samples = 8", "samples = -3")
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(InputError) as info:
+        run_pipeline(path, out_dir=tmp_path / "run", report=_fake_report)
+    line = info.value.one_line()
+    assert "report.samples" in line
+    assert line.count("tiny.toml") == 1
+    assert not (tmp_path / "run").exists()
+
+
+def test_bad_growth_spread_stops_the_run_before_its_search(tmp_path):
+    # Bad input writes nothing (the project's rule): a [growth] spread is read by the later
+    # tolerance stage, but a bad one used to be found only after the search had run.
+    path = _tiny_study(tmp_path)
+    text = path.read_text(encoding="utf-8")
+    path.write_text(
+        text.replace("thickness_ml_sigma = 0.5", "thickness_ml_sigma = -1"), encoding="utf-8"
+    )
+    out = tmp_path / "run"
+    with pytest.raises(InputError, match="growth.thickness_ml_sigma"):
+        run_pipeline(path, out_dir=out, report=_fake_report)
+    assert not out.exists()
+
+
 @pytest.mark.parametrize(
     ("settings", "match"),
     [
