@@ -1,7 +1,7 @@
 """Build of the optional compiled transmission kernel (everything else is in pyproject.toml).
 
 The extension is optional: where no C compiler is found the build goes on
-and :mod:`physics.transmission` uses its numpy implementation (same numbers,
+and :mod:`wellwright.physics.transmission` uses its numpy implementation (same numbers,
 about nine times slower).
 """
 
@@ -32,7 +32,9 @@ class BuildKernel(build_ext):
 def _links(cmd: build_ext, symbols: tuple[str, ...], libraries: list[str]) -> bool:
     """Whether a program calling ``symbols`` links against ``libraries`` here."""
     source = "".join(f"extern void {s}(void);\n" for s in symbols)
-    source += "int main(void) {\n" + "".join(f"    {s}();\n" for s in symbols) + "    return 0;\n}\n"
+    source += (
+        "int main(void) {\n" + "".join(f"    {s}();\n" for s in symbols) + "    return 0;\n}\n"
+    )
     with tempfile.TemporaryDirectory() as tmp:
         path = os.path.join(tmp, "probe.c")
         with open(path, "w") as f:
@@ -46,6 +48,8 @@ def _links(cmd: build_ext, symbols: tuple[str, ...], libraries: list[str]) -> bo
 
 
 setup(
-    ext_modules=[Extension("physics._slices", sources=["physics/_slices.c"], optional=True)],
+    ext_modules=[
+        Extension("wellwright.physics._slices", sources=["physics/_slices.c"], optional=True)
+    ],
     cmdclass={"build_ext": BuildKernel},
 )

@@ -21,10 +21,11 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
 from timing import median_time  # noqa: E402
-
-from physics.electrostatics import sweep_hysteresis  # noqa: E402
-from physics.iv import sweep  # noqa: E402
-from physics.stack import load_stack  # noqa: E402
+from wellwright.physics.iv import (
+    sweep,  # noqa: E402
+    sweep_hysteresis,  # noqa: E402
+)
+from wellwright.physics.stack import load_stack  # noqa: E402
 
 STUDY = Path(__file__).resolve().parents[1] / "studies" / "gaas_low_power_memory.toml"
 
@@ -48,7 +49,9 @@ def main() -> None:
             stack.model, electrostatics="self-consistent", broadening_mev=3.0
         ),
     }.items():
-        results[name] = median_time(lambda m=model: sweep(table, bias, model=m), repeats, warmup=True)
+        results[name] = median_time(
+            lambda m=model: sweep(table, bias, model=m), repeats, warmup=True
+        )
         print(f"61-point I-V, {name:28s} {1e3 * results[name]:8.1f} ms")
     ratio = results["self-consistent"] / results["linear"]
     print(f"ratio self-consistent / linear: {ratio:.2f} (target < 10)")

@@ -31,10 +31,9 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
 from timing import median_time  # noqa: E402
-
-from physics.bands import linear_profile  # noqa: E402
-from physics.constants import BOLTZMANN_EV_K  # noqa: E402
-from physics.current import (  # noqa: E402
+from wellwright.physics.bands import linear_profile  # noqa: E402
+from wellwright.physics.constants import BOLTZMANN_EV_K  # noqa: E402
+from wellwright.physics.current import (  # noqa: E402
     TSU_ESAKI_A_M2_EV2,
     EnergyGrid,
     contact_fermi_levels_ev,
@@ -42,11 +41,11 @@ from physics.current import (  # noqa: E402
     energy_window_ev,
     supply_function_ev,
 )
-from physics.iv import locate_peak_valley, sweep  # noqa: E402
-from physics.references import qtbm_transmission  # noqa: E402
-from physics.references.wavepacket import propagate_packet  # noqa: E402
-from physics.stack import LayerTable, load_stack  # noqa: E402
-from physics.transmission import transmission  # noqa: E402
+from wellwright.physics.iv import locate_peak_valley, sweep  # noqa: E402
+from wellwright.physics.references import qtbm_transmission  # noqa: E402
+from wellwright.physics.references.wavepacket import propagate_packet  # noqa: E402
+from wellwright.physics.stack import LayerTable, load_stack  # noqa: E402
+from wellwright.physics.transmission import transmission  # noqa: E402
 
 STUDIES = Path(__file__).resolve().parents[1] / "studies"
 #: Largest uniform grid tried (energies per bias); beyond it the ratio is a lower bound.
@@ -131,9 +130,7 @@ def grid_comparison(path: Path, repeats: int):
     )
     label = f"uniform grid, {n_own} energies (adaptive's error)" + ("" if reached else " [cap]")
     print(f"{label:52s} {t_own * 1e3:10.1f} {err_own:+10.3%}")
-    print(
-        f"ratio uniform / adaptive at 0.5 % on Jp: {t_uniform / t_adaptive:.1f}  (target >= 30)"
-    )
+    print(f"ratio uniform / adaptive at 0.5 % on Jp: {t_uniform / t_adaptive:.1f}  (target >= 30)")
     print(
         f"ratio uniform / adaptive at the adaptive grid's own error: "
         f"{'' if reached else '>= '}{t_own / t_adaptive:.1f}"
@@ -157,12 +154,18 @@ def reference_comparison(stack, table, bias, *, n_uniform: int, quick: bool) -> 
     t_qtbm = (time.perf_counter() - t0) * bias.size / picks.size
 
     def adaptive() -> np.ndarray:
-        return current_density_a_cm2(linear_profile(table, bias, slice_nm=slice_nm), table=table, bias_v=bias)
+        return current_density_a_cm2(
+            linear_profile(table, bias, slice_nm=slice_nm), table=table, bias_v=bias
+        )
 
     t_kernel = median_time(adaptive, 3)
-    print(f"\nfinite-difference reference (QTBM, {n_uniform} uniform energies x 61 biases"
-          f"{', 11 timed and scaled' if quick else ''}): {t_qtbm:.2f} s")
-    print(f"kernel, adaptive grid, same I-V: {t_kernel * 1e3:.1f} ms; ratio {t_qtbm / t_kernel:.0f}  (target >= 50)")
+    print(
+        f"\nfinite-difference reference (QTBM, {n_uniform} uniform energies x 61 biases"
+        f"{', 11 timed and scaled' if quick else ''}): {t_qtbm:.2f} s"
+    )
+    print(
+        f"kernel, adaptive grid, same I-V: {t_kernel * 1e3:.1f} ms; ratio {t_qtbm / t_kernel:.0f}  (target >= 50)"
+    )
 
     one = profile.take((0, 20))
     t0 = time.perf_counter()
@@ -170,8 +173,10 @@ def reference_comparison(stack, table, bias, *, n_uniform: int, quick: bool) -> 
     t_packet = time.perf_counter() - t0
     energies = np.linspace(1e-3, 0.8, 1000)
     t_curve = median_time(lambda: transmission(energies, profile=one), 5)
-    print(f"one wave packet at {bias[20]:.2f} V: {t_packet:.2f} s; kernel T(E) at 1000 energies: "
-          f"{t_curve * 1e3:.1f} ms; ratio {t_packet / t_curve:.0f}")
+    print(
+        f"one wave packet at {bias[20]:.2f} V: {t_packet:.2f} s; kernel T(E) at 1000 energies: "
+        f"{t_curve * 1e3:.1f} ms; ratio {t_packet / t_curve:.0f}"
+    )
 
 
 def main() -> None:

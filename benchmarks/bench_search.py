@@ -28,9 +28,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 import numpy as np  # noqa: E402
 import optuna  # noqa: E402
-
-from optimize.search import run_search  # noqa: E402
-from optimize.study import parse_study  # noqa: E402
+from wellwright.optimize.search.engine import run_search  # noqa: E402
+from wellwright.optimize.study.study import parse_study  # noqa: E402
 
 #: Invented benchmark scenario (not a measured device).
 STUDY = {

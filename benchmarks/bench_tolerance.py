@@ -28,10 +28,9 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
 from timing import KernelClock  # noqa: E402
-
-from optimize.growth import GrowthSettings, growth_model  # noqa: E402
-from optimize.tolerance import Runner, Spec, sobol_analysis  # noqa: E402
-from physics.stack import load_stack  # noqa: E402
+from wellwright.optimize.study.growth import GrowthSettings, growth_model  # noqa: E402
+from wellwright.optimize.tolerance.analysis import Runner, Spec, sobol_analysis  # noqa: E402
+from wellwright.physics.stack import load_stack  # noqa: E402
 
 STACK = Path(__file__).resolve().parents[1] / "studies" / "inp_thz_oscillator.toml"
 

@@ -22,7 +22,7 @@ def median_time(fn, repeats: int, *, warmup: bool = False) -> float:
 class KernelClock:
     """Context manager summing the wall time spent inside the compiled transmission kernel.
 
-    Wraps ``physics.transmission._slices`` for the duration, so a benchmark can
+    Wraps ``wellwright.physics.transmission._slices`` for the duration, so a benchmark can
     split a run into kernel time and everything else (Python and numpy).
     """
 
@@ -33,7 +33,9 @@ class KernelClock:
     def __enter__(self) -> KernelClock:
         import importlib
 
-        tm = importlib.import_module("physics.transmission")  # the module, not the function
+        tm = importlib.import_module(
+            "wellwright.physics.transmission"
+        )  # the module, not the function
         self._module = tm
         self._inner = tm._slices
         clock = self

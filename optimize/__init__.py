@@ -2,20 +2,11 @@
 
 Everything that drives :mod:`physics` lives here; :mod:`physics` never imports it.
 
-Modules, each named for what it holds:
-
-- :mod:`optimize.study`: loading a study file, its settings, the :class:`Study` dataclass;
-- :mod:`optimize.space`: variables (ranges of layer keys), ``same_as``, concrete stacks;
-- :mod:`optimize.targets`: target windows, objectives, spec violation, scoring, constraints;
-- :mod:`optimize.search`: the Optuna runner (workers, ask and tell, evaluation);
-- :mod:`optimize.storage`: storage URLs, SQLite settings, heartbeats, dead trials;
-- :mod:`optimize.designs`: ranking, design records, designs.csv/json, growth sheets;
-- :mod:`optimize.robust`: the robust search objective (Monte Carlo yield, common random numbers);
-- :mod:`optimize.growth`: as-grown samples of a design;
-- :mod:`optimize.tolerance`: Monte Carlo yield, Sobol and Morris ranking, tornado, allocation.
+Stage packages, imported only downwards (see DEVELOPERS.md):
+``shared`` < ``study`` < ``tolerance`` < ``search`` < ``calibrate`` < ``report`` < ``cli``.
 
 The public names below are imported on first use (PEP 562), so that
-``import optimize`` stays cheap: it loads neither Optuna nor matplotlib.
+``import wellwright.optimize`` stays cheap: it loads neither Optuna nor matplotlib.
 """
 
 from __future__ import annotations
@@ -26,29 +17,29 @@ from typing import TYPE_CHECKING, Any
 #: Public name -> module that defines it.
 _EXPORTS = {
     # study files
-    "Study": "study",
-    "load_study": "study",
-    "parse_study": "study",
+    "Study": "study.study",
+    "load_study": "study.study",
+    "parse_study": "study.study",
     # spec
-    "Spec": "targets",
+    "Spec": "study.targets",
     # design search
-    "run_search": "search",
-    "SearchResult": "search",
-    "nominal_metrics": "search",
-    "rank_trials": "designs",
-    "design_record": "designs",
+    "run_search": "search.engine",
+    "SearchResult": "search.designs",
+    "nominal_metrics": "search.engine",
+    "rank_trials": "search.designs",
+    "design_record": "search.designs",
     # growth and tolerance
-    "GrowthSettings": "growth",
-    "growth_model": "growth",
-    "parse_growth": "growth",
-    "Runner": "tolerance",
-    "wilson_interval": "tolerance",
-    "monte_carlo_yield": "tolerance",
-    "sobol_analysis": "tolerance",
-    "morris_analysis": "tolerance",
-    "tornado": "tolerance",
-    "allocate_tolerances": "tolerance",
-    "run_tolerance": "tolerance",
+    "GrowthSettings": "study.growth",
+    "growth_model": "study.growth",
+    "parse_growth": "study.growth",
+    "Runner": "tolerance.analysis",
+    "wilson_interval": "tolerance.analysis",
+    "monte_carlo_yield": "tolerance.analysis",
+    "sobol_analysis": "tolerance.analysis",
+    "morris_analysis": "tolerance.analysis",
+    "tornado": "tolerance.analysis",
+    "allocate_tolerances": "tolerance.analysis",
+    "run_tolerance": "tolerance.analysis",
 }
 
 __all__ = [
@@ -89,12 +80,12 @@ def __dir__() -> list[str]:
 
 
 if TYPE_CHECKING:  # for type checkers and IDEs; not run
-    from .designs import design_record, rank_trials
-    from .growth import GrowthSettings, growth_model, parse_growth
-    from .search import SearchResult, nominal_metrics, run_search
-    from .study import Study, load_study, parse_study
-    from .targets import Spec
-    from .tolerance import (
+    from wellwright.optimize.search.designs import SearchResult, design_record, rank_trials
+    from wellwright.optimize.search.engine import nominal_metrics, run_search
+    from wellwright.optimize.study.growth import GrowthSettings, growth_model, parse_growth
+    from wellwright.optimize.study.study import Study, load_study, parse_study
+    from wellwright.optimize.study.targets import Spec
+    from wellwright.optimize.tolerance.analysis import (
         Runner,
         allocate_tolerances,
         monte_carlo_yield,

@@ -8,13 +8,9 @@ Data flow: stack file -> :mod:`physics.stack` (validated :class:`Stack`,
 
 from .bands import Profile, linear_profile
 from .current import EnergyGrid, current_density_a_cm2
-from .electrostatics import (
-    ElectrostaticsConvergenceError,
-    self_consistent_profile,
-    sweep_hysteresis,
-)
+from .electrostatics import ElectrostaticsConvergenceError, self_consistent_profile
 from .errors import InputError
-from .iv import METRIC_NAMES, IVCurves, stack_iv, sweep
+from .iv import METRIC_NAMES, IVCurves, stack_iv, sweep, sweep_hysteresis
 from .resonances import Resonances, find_resonances
 from .stack import LayerTable, Stack, load_stack, parse_stack
 from .transmission import transmission

@@ -48,7 +48,7 @@ charge estimate used here the stored charge vanishes as a state reaches the
 injecting band edge, so the shift of the peak voltage by the stored charge is
 small and no bistability is resolved for the demo stack on a 50 mV grid.
 :func:`physics.iv.current_at_bias` solves every bias from the linear drop, so
-in a bistable range it reports one branch; :func:`sweep_hysteresis` gives both.
+in a bistable range it reports one branch; :func:`wellwright.physics.iv.sweep_hysteresis` gives both.
 
 The resulting potential, including the band bending in both contact
 regions (accumulation in front of the emitter barrier, depletion behind the
@@ -86,8 +86,6 @@ __all__ = [
     "solve_stack_poisson",
     "self_consistent_profile",
     "well_sheet_density_cm2",
-    "HysteresisCurves",
-    "sweep_hysteresis",
 ]
 
 #: Layers whose edge lies this far above both contacts' edges count as barriers, eV.
@@ -600,61 +598,3 @@ def self_consistent_profile(
         table, bias_v, slice_nm=slice_nm, initial_ev=initial_ev, **options
     )
     return profile_from_potential(table, grid, solution.potential_ev)
-
-
-@dataclass(frozen=True)
-class HysteresisCurves:
-    """Currents of an up sweep and a down sweep on the same biases (``(n_stacks, n_biases)`` each)."""
-
-    bias_v: np.ndarray
-    up_a_cm2: np.ndarray
-    down_a_cm2: np.ndarray
-
-
-def sweep_hysteresis(
-    table: LayerTable, bias_v: np.ndarray, *, model=None, grid=None
-) -> HysteresisCurves:
-    """Up and down bias sweeps, each bias started from the previous bias's potential.
-
-    With ``model.electrostatics == "linear"`` both branches are the same
-    curve. With the self-consistent model, the potential and the well charge
-    of the previous bias start each solve, so where the solution is not unique
-    (charge-induced bistability) the two branches can differ.
-    """
-    from .current import EnergyGrid, current_density_a_cm2
-    from .iv import current_at_bias
-    from .stack import ModelOptions
-
-    model = ModelOptions() if model is None else model
-    grid = EnergyGrid() if grid is None else grid
-    bias = np.asarray(bias_v, float)
-    if bias.ndim != 1 or np.any(np.diff(bias) <= 0):
-        raise ValueError("bias_v must be a 1-D strictly increasing array")
-    if model.electrostatics != "self-consistent":
-        j = current_at_bias(table, bias, model=model, grid=grid)
-        return HysteresisCurves(bias, j, j.copy())
-    branches = []
-    for order in (np.arange(bias.size), np.arange(bias.size)[::-1]):
-        previous, previous_well = None, None
-        potentials = [None] * bias.size
-        for i in order:
-            g, sol = solve_stack_poisson(
-                table,
-                bias[i : i + 1],
-                slice_nm=model.slice_nm,
-                initial_ev=previous,
-                initial_well_cm2=previous_well,
-            )
-            previous, previous_well = sol.potential_ev, sol.well_sheet_cm2
-            potentials[i] = sol.potential_ev
-        profile = profile_from_potential(table, g, np.concatenate(potentials, axis=1))
-        branches.append(
-            current_density_a_cm2(
-                profile,
-                table=table,
-                bias_v=np.broadcast_to(bias, (table.n_stacks, bias.size)),
-                grid=grid,
-                broadening_ev=1e-3 * model.broadening_mev,
-            )
-        )
-    return HysteresisCurves(bias, branches[0], branches[1])

@@ -21,9 +21,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .bands import linear_profile
+from .bands import linear_profile, profile_from_potential
 from .current import EnergyGrid, current_density_a_cm2
-from .electrostatics import self_consistent_profile
+from .electrostatics import self_consistent_profile, solve_stack_poisson
 from .resonances import parabola_through
 from .stack import LayerTable, ModelOptions, Stack
 
@@ -36,6 +36,8 @@ __all__ = [
     "current_at_bias",
     "locate_peak_valley",
     "external_bias_v",
+    "HysteresisCurves",
+    "sweep_hysteresis",
 ]
 
 METRIC_NAMES = (
@@ -272,3 +274,57 @@ def external_bias_v(
 ) -> np.ndarray:
     """Terminal bias with a series resistance: ``V_ext = V + J R`` (R in ohm um^2, J in A/cm^2)."""
     return np.asarray(bias_v) + np.asarray(current_density_a_cm2) * series_resistance_ohm_um2 * 1e-8
+
+
+@dataclass(frozen=True)
+class HysteresisCurves:
+    """Currents of an up sweep and a down sweep on the same biases (``(n_stacks, n_biases)`` each)."""
+
+    bias_v: np.ndarray
+    up_a_cm2: np.ndarray
+    down_a_cm2: np.ndarray
+
+
+def sweep_hysteresis(
+    table: LayerTable, bias_v: np.ndarray, *, model=None, grid=None
+) -> HysteresisCurves:
+    """Up and down bias sweeps, each bias started from the previous bias's potential.
+
+    With ``model.electrostatics == "linear"`` both branches are the same
+    curve. With the self-consistent model, the potential and the well charge
+    of the previous bias start each solve, so where the solution is not unique
+    (charge-induced bistability) the two branches can differ.
+    """
+    model = ModelOptions() if model is None else model
+    grid = EnergyGrid() if grid is None else grid
+    bias = np.asarray(bias_v, float)
+    if bias.ndim != 1 or np.any(np.diff(bias) <= 0):
+        raise ValueError("bias_v must be a 1-D strictly increasing array")
+    if model.electrostatics != "self-consistent":
+        j = current_at_bias(table, bias, model=model, grid=grid)
+        return HysteresisCurves(bias, j, j.copy())
+    branches = []
+    for order in (np.arange(bias.size), np.arange(bias.size)[::-1]):
+        previous, previous_well = None, None
+        potentials = [None] * bias.size
+        for i in order:
+            g, sol = solve_stack_poisson(
+                table,
+                bias[i : i + 1],
+                slice_nm=model.slice_nm,
+                initial_ev=previous,
+                initial_well_cm2=previous_well,
+            )
+            previous, previous_well = sol.potential_ev, sol.well_sheet_cm2
+            potentials[i] = sol.potential_ev
+        profile = profile_from_potential(table, g, np.concatenate(potentials, axis=1))
+        branches.append(
+            current_density_a_cm2(
+                profile,
+                table=table,
+                bias_v=np.broadcast_to(bias, (table.n_stacks, bias.size)),
+                grid=grid,
+                broadening_ev=1e-3 * model.broadening_mev,
+            )
+        )
+    return HysteresisCurves(bias, branches[0], branches[1])

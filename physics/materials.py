@@ -93,9 +93,7 @@ def _check_x(x: object) -> FloatOrArray:
     try:
         arr = np.asarray(x, dtype=float)
     except (TypeError, ValueError):
-        raise InputError(
-            f"x = {x!r} is not a number; give x in the allowed range [0, 1]"
-        ) from None
+        raise InputError(f"x = {x!r} is not a number; give x in the allowed range [0, 1]") from None
     bad = ~np.isfinite(arr) | (arr < -_X_SLACK) | (arr > 1.0 + _X_SLACK)
     if np.any(bad):
         first = arr[bad].flat[0] if arr.ndim else arr
@@ -222,9 +220,7 @@ def parse_material(name: str, x: float | None = None) -> tuple[str, float | None
         )
     if name_x is not None and given_x is not None:
         if np.any(np.abs(np.asarray(given_x) - name_x) > _FRACTION_TOLERANCE):
-            raise InputError(
-                f"{text!r} has x = {name_x:g} but x = {_format_x(x)} was also given"
-            )
+            raise InputError(f"{text!r} has x = {name_x:g} but x = {_format_x(x)} was also given")
         return canonical, name_x
     return canonical, name_x if name_x is not None else given_x  # type: ignore[return-value]
 

@@ -16,10 +16,9 @@ import numpy as np
 from scipy import constants as sc
 from scipy.optimize import brentq, minimize_scalar
 from scipy.special import airy
-
-from physics.bands import Profile
-from physics.stack import LayerTable
-from physics.transmission import transmission
+from wellwright.physics.bands import Profile
+from wellwright.physics.stack import LayerTable
+from wellwright.physics.transmission import transmission
 
 #: hbar^2 / (2 m0) in eV nm^2 from CODATA (scipy.constants), written out independently.
 HBAR2_2M0_EV_NM2 = sc.hbar**2 / (2.0 * sc.m_e) / sc.e * 1e18
@@ -260,7 +259,7 @@ def airy_ramp_transmission(energy_ev, *, height_ev, width_nm, drop_ev, mass_m0):
 def polish_peak(profile: Profile, guess_ev: float, width_ev: float) -> tuple[float, float]:
     """Transmission maximum near ``guess_ev`` by scipy's bounded Brent search on 1/T.
 
-    Independent of physics.resonances' own refinement; ``xatol`` is 1e-7 of the width.
+    Independent of wellwright.physics.resonances' own refinement; ``xatol`` is 1e-7 of the width.
     """
     res = minimize_scalar(
         lambda e: 1.0 / max(t_at(e, profile), 1e-300),

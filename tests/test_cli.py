@@ -2,7 +2,7 @@
 
 Contract (issue 2 and DESIGN.md): bad input gives exit status 2 and one line on
 stderr naming the file, layer and key, never a traceback, and nothing is
-written. Most checks call ``optimize.cli.main`` in-process (fast); one bad-input
+written. Most checks call ``wellwright.optimize.cli`` in-process (fast); one bad-input
 case, the JSON run and the warning run go through the installed console script.
 """
 
@@ -18,8 +18,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from helpers_physics import BAD_STACKS, stack_toml, write_stack
-
-from optimize.cli import build_parser, main
+from wellwright.optimize.cli import build_parser, main
 
 ROOT = Path(__file__).resolve().parents[1]
 STUDY = ROOT / "studies" / "inp_thz_oscillator.toml"
@@ -34,7 +33,7 @@ METRIC_KEYS = (
 
 def _command() -> list[str]:
     exe = shutil.which("wellwright")
-    return [exe] if exe else [sys.executable, "-m", "optimize.cli"]
+    return [exe] if exe else [sys.executable, "-m", "wellwright.optimize.cli"]
 
 
 def _run(args: list[str], cwd: Path, timeout: float = 120) -> subprocess.CompletedProcess:

@@ -9,8 +9,7 @@ import subprocess
 import sys
 
 import pytest
-
-from optimize.cli import COMMAND_MODULES, build_parser, main
+from wellwright.optimize.cli import COMMAND_MODULES, build_parser, main
 
 
 def _commands() -> list[str]:
@@ -32,8 +31,12 @@ def test_help_works(command, capsys):
 
 
 def test_unknown_command_exits_2():
-    got = subprocess.run([sys.executable, "-m", "optimize.cli", "frobnicate"],
-                         capture_output=True, text=True, timeout=60)
+    got = subprocess.run(
+        [sys.executable, "-m", "wellwright.optimize.cli", "frobnicate"],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
     assert got.returncode == 2
     assert "invalid choice: 'frobnicate'" in got.stderr
     assert "Traceback" not in got.stderr

@@ -10,21 +10,23 @@ from pathlib import Path
 import numpy as np
 import pytest
 from helpers_physics import M_BARRIER, M_WELL, V_BARRIER_EV, custom_table
-
-from physics.bands import linear_profile
-from physics.broadening import broadened_peak, broadening_correction
-from physics.constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, VACUUM_PERMITTIVITY_F_M
-from physics.current import EnergyGrid, current_density_a_cm2
-from physics.electrostatics import (
+from wellwright.physics.bands import linear_profile
+from wellwright.physics.broadening import broadened_peak, broadening_correction
+from wellwright.physics.constants import (
+    BOLTZMANN_EV_K,
+    ELEMENTARY_CHARGE_C,
+    VACUUM_PERMITTIVITY_F_M,
+)
+from wellwright.physics.current import EnergyGrid, current_density_a_cm2
+from wellwright.physics.electrostatics import (
     ElectrostaticsConvergenceError,
     _fermi_half_and_derivative,
     solve_poisson_1d,
     solve_stack_poisson,
-    sweep_hysteresis,
 )
-from physics.fermi import fermi_dirac_half, fermi_level_ev
-from physics.iv import current_at_bias, stack_iv, sweep
-from physics.stack import load_stack, parse_stack
+from wellwright.physics.fermi import fermi_dirac_half, fermi_level_ev
+from wellwright.physics.iv import current_at_bias, stack_iv, sweep, sweep_hysteresis
+from wellwright.physics.stack import load_stack, parse_stack
 
 STUDY = Path(__file__).resolve().parents[1] / "studies" / "gaas_low_power_memory.toml"
 
@@ -56,7 +58,7 @@ BIAS = np.linspace(0.0, 0.6, 31)
 
 
 def test_zero_broadening_reproduces_coherent_exactly():
-    # definition of the model (physics.broadening): Gamma_s = 0 is the coherent kernel
+    # definition of the model (wellwright.physics.broadening): Gamma_s = 0 is the coherent kernel
     table = load_stack(STUDY).table()
     profile = linear_profile(table, BIAS)
     j0 = current_density_a_cm2(profile, table=table, bias_v=BIAS[None, :])
@@ -92,7 +94,7 @@ def test_broadened_current_does_not_depend_on_the_energy_grid(well_nm: float) ->
     # broadened current used to depend on which lines the grid resolved (only those were
     # broadened) and on lines far above the Fermi level whose Lorentzian tails the kernel
     # carried down to it: 8-13 % between these two grids (measured). Now every line
-    # narrower than kT is broadened, over +-10 kT (physics.broadening); measured <= 0.15 %.
+    # narrower than kT is broadened, over +-10 kT (wellwright.physics.broadening); measured <= 0.15 %.
     # (At 25 mV the 12 nm well has a third line carrying current: resolved since the grid
     # resolves a third line where it matters; before, 0.6 % off even without broadening.)
     v, mw, mb = V_BARRIER_EV, M_WELL, M_BARRIER
@@ -123,7 +125,7 @@ def test_broadening_raises_valley_and_lowers_pvcr():
 
 
 def test_fast_fermi_integral_matches_quadrature():
-    # physics.fermi.fermi_dirac_half is the reference (Blakemore 1982 definition)
+    # wellwright.physics.fermi.fermi_dirac_half is the reference (Blakemore 1982 definition)
     eta = np.linspace(-40.0, 110.0, 1237)
     f, df = _fermi_half_and_derivative(eta)
     np.testing.assert_allclose(f, fermi_dirac_half(eta), rtol=1e-8)

@@ -1,4 +1,4 @@
-"""Tests of physics.fermi and physics.current: Fermi-Dirac statistics and the Tsu-Esaki current.
+"""Tests of wellwright.physics.fermi and wellwright.physics.current: Fermi-Dirac statistics and the Tsu-Esaki current.
 
 References named beside each check; mpmath and scipy.integrate serve as
 independent high-precision references.
@@ -20,20 +20,19 @@ from helpers_physics import (
 )
 from scipy import constants as sc
 from scipy.integrate import quad, simpson
-
-from physics.bands import Profile, linear_profile
-from physics.current import EnergyGrid, current_density_a_cm2
-from physics.fermi import (
+from wellwright.physics.bands import Profile, linear_profile
+from wellwright.physics.current import EnergyGrid, current_density_a_cm2
+from wellwright.physics.fermi import (
     effective_density_of_states_cm3,
     fermi_dirac_half,
     fermi_level_ev,
     joyce_dixon_reduced_fermi_level,
     reduced_fermi_level,
 )
-from physics.iv import sweep
-from physics.resonances import find_resonances, refine_bracketed
-from physics.stack import LayerTable, ModelOptions, load_stack
-from physics.transmission import transmission
+from wellwright.physics.iv import sweep
+from wellwright.physics.resonances import find_resonances, refine_bracketed
+from wellwright.physics.stack import LayerTable, ModelOptions, load_stack
+from wellwright.physics.transmission import transmission
 
 STUDY = "studies/inp_thz_oscillator.toml"
 

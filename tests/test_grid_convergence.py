@@ -19,12 +19,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from optimize.growth import GrowthSettings, growth_model
-from optimize.study import load_study
-from physics.current import EnergyGrid
-from physics.iv import current_at_bias
-from physics.stack import LayerTable, load_stack
+from wellwright.optimize.study.growth import GrowthSettings, growth_model
+from wellwright.optimize.study.study import load_study
+from wellwright.physics.current import EnergyGrid
+from wellwright.physics.iv import current_at_bias
+from wellwright.physics.stack import LayerTable, load_stack
 
 STUDIES = Path(__file__).resolve().parents[1] / "studies"
 FINE = EnergyGrid(n_coarse=320, n_resonances=4, n_candidates=10, n_per_resonance=64)

@@ -8,8 +8,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from optimize.growth import (
+from wellwright.optimize.study.growth import (
     DEFAULT_GROWTH,
     GrowthSettings,
     as_generator,
@@ -18,10 +17,10 @@ from optimize.growth import (
     parse_growth,
     split_layer_growth,
 )
-from physics import materials
-from physics.errors import InputError
-from physics.iv import current_at_bias
-from physics.stack import load_stack, parse_stack
+from wellwright.physics import materials
+from wellwright.physics.errors import InputError
+from wellwright.physics.iv import current_at_bias
+from wellwright.physics.stack import load_stack, parse_stack
 
 STACK_FILE = Path(__file__).resolve().parents[1] / "studies" / "inp_thz_oscillator.toml"
 

@@ -1,4 +1,4 @@
-"""Tests of physics.iv: peak/valley location, refinement, PVCR, branches, series resistance.
+"""Tests of wellwright.physics.iv: peak/valley location, refinement, PVCR, branches, series resistance.
 
 Synthetic curves have analytic extrema (found here with scipy.optimize.brentq on
 the analytic derivative); the stack sweeps compare a coarse and a fine bias
@@ -11,9 +11,8 @@ import numpy as np
 import pytest
 from helpers_physics import M_BARRIER, M_WELL, V_BARRIER_EV, custom_table
 from scipy.optimize import brentq
-
-from physics.iv import NDR_DROP, external_bias_v, locate_peak_valley, sweep
-from physics.stack import ModelOptions
+from wellwright.physics.iv import NDR_DROP, external_bias_v, locate_peak_valley, sweep
+from wellwright.physics.stack import ModelOptions
 
 PARABOLIC = ModelOptions(nonparabolicity=False)
 

@@ -19,12 +19,11 @@ import pytest
 from helpers_physics import custom_table, flat_profile
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
-from physics.bands import linear_profile
-from physics.transmission import transmission
+from wellwright.physics.bands import linear_profile
+from wellwright.physics.transmission import transmission
 
 # the module (the package re-exports its function under the same name)
-kernel = importlib.import_module("physics.transmission")
+kernel = importlib.import_module("wellwright.physics.transmission")
 
 pytestmark = pytest.mark.skipif(
     "compiled" not in kernel.BACKENDS, reason="compiled kernel not built on this machine"
@@ -106,7 +105,7 @@ def test_rows_and_masks_pick_the_right_profiles(backend: str) -> None:
     # transmission_rows must equal the kernel on the selected profiles (profile.take), and
     # transmission_where must give 0 outside its mask (the refinement and the resolved lines
     # of the current use transmission_rows; transmission_where is the masked form of it)
-    from physics.transmission import transmission_rows, transmission_where
+    from wellwright.physics.transmission import transmission_rows, transmission_where
 
     table = custom_table(
         [[0, 0.3, 0, 0.3, 0], [0, 0.4, 0, 0.2, 0]],
@@ -138,7 +137,7 @@ def test_rows_and_masks_pick_the_right_profiles(backend: str) -> None:
 
 def test_unknown_kernel_in_environment_is_one_line_exit_2(tmp_path, monkeypatch, capsys):
     # WELLWRIGHT_KERNEL names a kernel that is not built: an input error, nothing written
-    from optimize.cli import main
+    from wellwright.optimize.cli import main
 
     monkeypatch.setattr(kernel, "DEFAULT_BACKEND", "fast")
     out = tmp_path / "out"

@@ -1,4 +1,4 @@
-"""Tests of physics.materials.
+"""Tests of wellwright.physics.materials.
 
 Reference values: V = I. Vurgaftman, J. R. Meyer and L. R. Ram-Mohan, J. Appl.
 Phys. 89, 5815 (2001), recommended-parameter tables. The check values were
@@ -17,9 +17,8 @@ import numpy as np
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
-
-from physics import materials as m
-from physics.material_data import BINARIES, TERNARIES
+from wellwright.physics import materials as m
+from wellwright.physics.material_data import BINARIES, TERNARIES
 
 INP_NM = m.lattice_constant_nm("InP")
 GAAS_NM = m.lattice_constant_nm("GaAs")

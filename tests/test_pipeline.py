@@ -10,10 +10,9 @@ import json
 from pathlib import Path
 
 import pytest
-
-from optimize.cmd_demo import SCENARIOS
-from optimize.pipeline import PIPELINE_FILE, load_run, run_pipeline
-from physics.errors import InputError
+from wellwright.optimize.cli.cmd_demo import SCENARIOS
+from wellwright.optimize.cli.pipeline import PIPELINE_FILE, load_run, run_pipeline
+from wellwright.physics.errors import InputError
 
 QUICK = SCENARIOS / "demo_quick.toml"
 

@@ -13,11 +13,10 @@ import numpy as np
 from helpers_physics import custom_table, flat_profile
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
-from physics.bands import linear_profile
-from physics.current import current_density_a_cm2
-from physics.stack import parse_stack
-from physics.transmission import transmission
+from wellwright.physics.bands import linear_profile
+from wellwright.physics.current import current_density_a_cm2
+from wellwright.physics.stack import parse_stack
+from wellwright.physics.transmission import transmission
 
 SETTINGS = settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 

@@ -14,9 +14,8 @@ import numpy as np
 import pytest
 from scipy import constants as sc
 from scipy.linalg import eigvalsh_tridiagonal
-
-from physics.bands import Profile
-from physics.references import (
+from wellwright.physics.bands import Profile
+from wellwright.physics.references import (
     expected_transmission,
     propagate_packet,
     qtbm_transmission,
@@ -63,7 +62,7 @@ def kernel():
     """The kernel's T(E); skips only while physics/transmission.py does not exist."""
     if not KERNEL_FILE.exists():
         pytest.skip("physics/transmission.py has not landed yet")
-    from physics.transmission import transmission  # must import once the file exists
+    from wellwright.physics.transmission import transmission  # must import once the file exists
 
     return transmission
 
@@ -71,7 +70,7 @@ def kernel():
 def reference_t(step_nm=PACKET_STEP_NM):
     """T(E) for the packet checks: the kernel when it exists, else QTBM on the packet grid."""
     if KERNEL_FILE.exists():
-        from physics.transmission import transmission
+        from wellwright.physics.transmission import transmission
 
         return transmission
     return lambda e, *, profile: qtbm_transmission(e, profile=profile, step_nm=step_nm)[0]
@@ -402,7 +401,7 @@ def write_stack(path):
 
 
 def test_cli_packet_writes_outputs(tmp_path, capsys):
-    from optimize.cli import main
+    from wellwright.optimize.cli import main
 
     stack = write_stack(tmp_path / "db.toml")
     out = tmp_path / "out"
@@ -438,7 +437,7 @@ def test_cli_packet_writes_outputs(tmp_path, capsys):
 def test_cli_packet_rejects_bad_input(tmp_path, capsys, option, value, message):
     import re
 
-    from optimize.cli import main
+    from wellwright.optimize.cli import main
 
     stack = write_stack(tmp_path / "db.toml")
     out = tmp_path / "out"

@@ -19,9 +19,8 @@ from pathlib import Path
 import matplotlib.image as mpimg
 import numpy as np
 import pytest
-
-from optimize.cli import main
-from optimize.report import FILES_DIR, SECTIONS
+from wellwright.optimize.cli import main
+from wellwright.optimize.report.build import FILES_DIR, SECTIONS
 
 
 @pytest.fixture(scope="module")
@@ -56,13 +55,33 @@ def test_every_section_is_present(demo_dir):
         assert heading.split(". ", 1)[1].split(":")[0] in text
     # the pieces issue 6 names, each by a phrase the report must carry
     for phrase in [
-        "figure of merit", "Where the search looked", "Candidates found",
-        "Optimisation history", "Pareto front", "Growth sheet", "monolayers (ML)",
-        "thickness (nm)", "peak (circle) and valley (square)", "resonance", "T(E)",
-        "Wilson", "failures by spec", "Tornado", "Tolerance allocation",
-        "Calibrate before a growth decision", "Invented demo scenario", "numpy", "scipy",
-        "optuna", "SALib", "Python", "search sampler seed", "tolerance seed", "kA/cm",
-        "(mV)", "In0.53Ga0.47As",
+        "figure of merit",
+        "Where the search looked",
+        "Candidates found",
+        "Optimisation history",
+        "Pareto front",
+        "Growth sheet",
+        "monolayers (ML)",
+        "thickness (nm)",
+        "peak (circle) and valley (square)",
+        "resonance",
+        "T(E)",
+        "Wilson",
+        "failures by spec",
+        "Tornado",
+        "Tolerance allocation",
+        "Calibrate before a growth decision",
+        "Invented demo scenario",
+        "numpy",
+        "scipy",
+        "optuna",
+        "SALib",
+        "Python",
+        "search sampler seed",
+        "tolerance seed",
+        "kA/cm",
+        "(mV)",
+        "In0.53Ga0.47As",
     ]:
         assert phrase in text, phrase
 
@@ -88,10 +107,21 @@ def test_embedded_figures_decode_and_show_data(demo_dir):
 def test_files_beside_the_report(demo_dir):
     out, _ = demo_dir
     files = out / FILES_DIR
-    for name in ["yield.csv", "designs_ranked.csv", "growth_sheet_rank01.csv",
-                 "allocation_rank01.csv", "spec.csv", "design_space.csv", "report.json",
-                 "rank01_iv.png", "rank01_band.png", "rank01_transmission.png",
-                 "history.png", "pareto.png", "yield.png"]:
+    for name in [
+        "yield.csv",
+        "designs_ranked.csv",
+        "growth_sheet_rank01.csv",
+        "allocation_rank01.csv",
+        "spec.csv",
+        "design_space.csv",
+        "report.json",
+        "rank01_iv.png",
+        "rank01_band.png",
+        "rank01_transmission.png",
+        "history.png",
+        "pareto.png",
+        "yield.png",
+    ]:
         assert (files / name).is_file(), name
     for png in files.glob("*.png"):
         assert _has_data(png.read_bytes()), png.name
@@ -115,10 +145,18 @@ def test_report_opens_in_headless_chromium(demo_dir, tmp_path):
     out, _ = demo_dir
     shot = tmp_path / "shot.png"
     cmd = [
-        CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync",
-        "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}", f"--screenshot={shot}",
-        "--window-size=1200,3000", (out / "report.html").resolve().as_uri(),
+        CHROMIUM,
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--no-first-run",
+        f"--user-data-dir={tmp_path / 'profile'}",
+        f"--screenshot={shot}",
+        "--window-size=1200,3000",
+        (out / "report.html").resolve().as_uri(),
     ]
     subprocess.run(cmd, check=True, timeout=120, capture_output=True)
     assert shot.is_file()
@@ -129,7 +167,7 @@ def test_report_opens_in_headless_chromium(demo_dir, tmp_path):
 
 def test_importance_legend_names_figures_of_merit_in_words():
     """The importances figure's legend reads "peak current density", not the JSON key."""
-    from optimize.search_figures import importances_figure
+    from wellwright.optimize.search.figures import importances_figure
 
     fig = importances_figure(
         {

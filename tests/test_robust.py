@@ -1,6 +1,6 @@
 """Robust search: the objective is the Monte Carlo yield under [growth] with common random numbers.
 
-Real physics (physics.iv.sweep) on a 31-point sweep. The designs and the spec
+Real physics (wellwright.physics.iv.sweep) on a 31-point sweep. The designs and the spec
 are constructed by the test (an invented scenario on the shared test stack of
 conftest.py); the expectations are common practice: a design whose nominal
 figure sits in the middle of its spec window survives growth errors more often
@@ -17,13 +17,12 @@ import optuna
 import pytest
 from conftest import study_text
 from optuna.trial import TrialState
-
-from optimize import cli
-from optimize.robust import common_random_numbers, robust_value
-from optimize.search import nominal_metrics, run_search
-from optimize.study import load_study, parse_study
-from optimize.tolerance import wilson_interval
-from physics.errors import InputError
+from wellwright.optimize import cli
+from wellwright.optimize.search.engine import nominal_metrics, run_search
+from wellwright.optimize.search.robust import common_random_numbers, robust_value
+from wellwright.optimize.study.study import load_study, parse_study
+from wellwright.optimize.tolerance.analysis import wilson_interval
+from wellwright.physics.errors import InputError
 
 SPACE = {"barrier": "{min = 4, max = 7}", "well": "{min = 12, max = 16}"}  # two variables
 GROWTH = (
@@ -121,7 +120,7 @@ def test_same_seed_gives_the_same_robust_trials(write_study, tmp_path, window):
 
 
 def test_common_random_numbers_depend_on_names_and_seed_only():
-    # the construction of common random numbers (optimize.robust docstring)
+    # the construction of common random numbers (wellwright.optimize.search.robust docstring)
     z1, u1 = common_random_numbers(["a.thickness", "b.x"], ["l0", "l1"], samples=16, seed=5)
     z2, u2 = common_random_numbers(["b.x", "c.rate"], ["l1"], samples=16, seed=5)
     np.testing.assert_array_equal(z1[:, 1], z2[:, 0])
@@ -131,7 +130,7 @@ def test_common_random_numbers_depend_on_names_and_seed_only():
 
 
 def test_robust_value_orders_by_yield_then_nominal_score():
-    # the definition in optimize.robust.robust_value
+    # the definition in wellwright.optimize.search.robust.robust_value
     n = 24
     better_yield = robust_value(13 / n, 5.0, samples=n)  # off spec nominally, higher yield
     worse_yield = robust_value(12 / n, -0.9, samples=n)  # on spec nominally

@@ -1,6 +1,6 @@
 """The design search: planted solution, resume after SIGKILL, workers, PostgreSQL, outputs, CLI.
 
-All tests run the real physics (physics.iv.sweep) on a 31-point sweep to stay
+All tests run the real physics (wellwright.physics.iv.sweep) on a 31-point sweep to stay
 short. Check values come from the test's own construction (planted designs)
 or are common practice (a resumed study keeps its finished work).
 """
@@ -21,13 +21,12 @@ import optuna
 import pytest
 from conftest import study_text
 from optuna.trial import TrialState
-
-from optimize import cli
-from optimize.search import GRACE_PERIOD_S, nominal_metrics, run_search
-from optimize.study import load_study
-from physics.errors import InputError
-from physics.iv import METRIC_NAMES
-from physics.stack import parse_stack
+from wellwright.optimize import cli
+from wellwright.optimize.search.engine import GRACE_PERIOD_S, nominal_metrics, run_search
+from wellwright.optimize.study.study import load_study
+from wellwright.physics.errors import InputError
+from wellwright.physics.iv import METRIC_NAMES
+from wellwright.physics.stack import parse_stack
 
 REPO = Path(__file__).resolve().parents[1]
 SWEEP = "[sweep]\npoints = 31\n"
@@ -51,7 +50,7 @@ def _broken_evaluator(stacks, bias_v):
 
 def _no_solution_for_7_ml(stacks, bias_v):
     """The real physics, except that 7 ML barriers 'fail to converge' (a hard design)."""
-    from physics.electrostatics import ElectrostaticsConvergenceError
+    from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 
     if any(s.layers[2].thickness_ml == 7 for s in stacks):
         raise ElectrostaticsConvergenceError("no self-consistent solution (test)")
@@ -259,7 +258,7 @@ def test_outputs_single_objective(write_study, tmp_path):
     assert _png_has_drawing(out / "history.png") and _png_has_drawing(out / "importances.png")
     imp = json.loads((out / "importances.json").read_text())["score"]
     assert set(imp) == {"barrier1.thickness_ml", "well.thickness_ml"}
-    if "best_iv" in r.files:  # the lead's optimize.figures is wired
+    if "best_iv" in r.files:  # the lead's wellwright.optimize.shared.figures is wired
         assert _png_has_drawing(Path(r.files["best_iv"]))
     assert not list(out.rglob("*.tmp"))
 
@@ -308,7 +307,7 @@ def test_resume_after_sigkill_keeps_completed_trials(write_study, tmp_path):
     total = 60
     argv = ["search", str(path), "--trials", str(total), "--out", str(out), "--no-progress"]
     proc = subprocess.Popen(
-        [sys.executable, "-m", "optimize.cli", *argv],
+        [sys.executable, "-m", "wellwright.optimize.cli", *argv],
         env=_env(),
         stdout=subprocess.DEVNULL,
         stderr=subprocess.DEVNULL,
@@ -389,7 +388,7 @@ def test_postgresql_study_shared_by_workers_and_a_second_machine(
         "--no-progress",
     ]
     other = subprocess.Popen(
-        [sys.executable, "-m", "optimize.cli", *argv],
+        [sys.executable, "-m", "wellwright.optimize.cli", *argv],
         env=_env(),
         stdout=subprocess.DEVNULL,
         stderr=subprocess.PIPE,

@@ -1,7 +1,7 @@
-"""Tests of physics.stack input validation: every bad-input class of issue 2.
+"""Tests of wellwright.physics.stack input validation: every bad-input class of issue 2.
 
 Each bad file differs from a valid one (``VALID_LAYERS``, an invented test
-stack) by one change; the error must be a :class:`physics.errors.InputError`
+stack) by one change; the error must be a :class:`wellwright.physics.errors.InputError`
 (a ``ValueError``) whose message names the file, the layer index and the key
 (issue 2 and DESIGN.md: "one message naming the file, the layer index and the
 key, with the allowed range").
@@ -14,9 +14,8 @@ import warnings
 
 import pytest
 from helpers_physics import BAD_STACKS, VALID_LAYERS, stack_toml, write_stack
-
-from physics.errors import InputError
-from physics.stack import CriticalThicknessWarning, load_stack, parse_stack
+from wellwright.physics.errors import InputError
+from wellwright.physics.stack import CriticalThicknessWarning, load_stack, parse_stack
 
 
 def _location(path, layer, key) -> str:

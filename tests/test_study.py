@@ -1,8 +1,8 @@
 """Study files: ranges, ties, spec scoring, constraints and bad input.
 
 The scoring checks test this project's own documented definitions (in
-``optimize.study``); the critical-thickness check uses Matthews and
-Blakeslee, J. Cryst. Growth 27, 118 (1974), through physics.materials.
+``wellwright.optimize.study.study``); the critical-thickness check uses Matthews and
+Blakeslee, J. Cryst. Growth 27, 118 (1974), through wellwright.physics.materials.
 """
 
 from __future__ import annotations
@@ -13,12 +13,11 @@ import warnings
 import numpy as np
 import pytest
 from conftest import study_text
-
-from optimize.study import NAN_VIOLATION, Window, load_study, parse_study
-from physics import materials
-from physics.errors import InputError
-from physics.iv import METRIC_NAMES
-from physics.stack import CriticalThicknessWarning, parse_stack
+from wellwright.optimize.study.study import NAN_VIOLATION, Window, load_study, parse_study
+from wellwright.physics import materials
+from wellwright.physics.errors import InputError
+from wellwright.physics.iv import METRIC_NAMES
+from wellwright.physics.stack import CriticalThicknessWarning, parse_stack
 
 
 def _metrics(**values: float) -> dict[str, np.ndarray]:
@@ -141,7 +140,7 @@ def test_multi_objective_directions_and_spec_constraint(write_study):
 
 
 def test_critical_thickness_constraint_matches_matthews_blakeslee(write_study):
-    # Matthews and Blakeslee (1974) via physics.materials.critical_thickness_nm:
+    # Matthews and Blakeslee (1974) via wellwright.physics.materials.critical_thickness_nm:
     # AlAs on InP is ~3.5 % mismatched, so 5 ML is coherent and 60 ML is not.
     study = load_study(
         write_study(

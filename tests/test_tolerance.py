@@ -8,11 +8,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
-from optimize.cli import main
-from optimize.growth import GrowthSettings, growth_model
-from optimize.study import parse_study
-from optimize.tolerance import (
+from wellwright.optimize.cli import main
+from wellwright.optimize.study.growth import GrowthSettings, growth_model
+from wellwright.optimize.study.study import parse_study
+from wellwright.optimize.tolerance.analysis import (
     ALL_THICKNESSES,
     Runner,
     Spec,
@@ -25,8 +24,8 @@ from optimize.tolerance import (
     tornado,
     wilson_interval,
 )
-from physics.iv import METRIC_NAMES
-from physics.stack import load_stack
+from wellwright.physics.iv import METRIC_NAMES
+from wellwright.physics.stack import load_stack
 
 ROOT = Path(__file__).resolve().parents[1]
 STACK_FILE = ROOT / "studies" / "inp_thz_oscillator.toml"

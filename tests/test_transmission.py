@@ -1,4 +1,4 @@
-"""Tests of physics.transmission (and the resonance finder) against analytic results.
+"""Tests of wellwright.physics.transmission (and the resonance finder) against analytic results.
 
 Sources are named beside each check. Reference formulas are written out
 independently in ``helpers_physics`` with CODATA constants from scipy.
@@ -29,13 +29,12 @@ from helpers_physics import (
     t_at,
     wave_vector_per_nm,
 )
-
-from physics.bands import linear_profile
-from physics.resonances import find_resonances
-from physics.transmission import transmission
+from wellwright.physics.bands import linear_profile
+from wellwright.physics.resonances import find_resonances
+from wellwright.physics.transmission import transmission
 
 # the module (the package re-exports its function under the same name)
-kernel = importlib.import_module("physics.transmission")
+kernel = importlib.import_module("wellwright.physics.transmission")
 
 # Relative tolerance for closed-form single-interface/single-layer results: the kernel does a
 # handful of complex multiplications per interface, so 1e-10 leaves four to five orders of
@@ -287,8 +286,8 @@ def test_uniform_field_converges_to_airy_at_second_order() -> None:
 )
 def test_default_slice_discretisation_error(ramp: dict, bound: float) -> None:
     # Stated discretisation error of the default slicing (issue 2): relative error of T
-    # against the exact Airy solution at slice_nm = 0.25 (physics.stack.ModelOptions default).
-    from physics.stack import ModelOptions
+    # against the exact Airy solution at slice_nm = 0.25 (wellwright.physics.stack.ModelOptions default).
+    from wellwright.physics.stack import ModelOptions
 
     energy = np.linspace(0.005, 1.5 * ramp["height_ev"], 300)
     ref = airy_ramp_transmission(energy, **ramp)
@@ -333,7 +332,7 @@ def test_batched_call_equals_loop_of_single_calls() -> None:
 
 
 def test_batch_partner_changes_nothing() -> None:
-    # A stack keeps its own slice counts in a batch (physics.bands.slice_grid, own_counts):
+    # A stack keeps its own slice counts in a batch (wellwright.physics.bands.slice_grid, own_counts):
     # the padding up to the thickest partner's count is zero-width copies of a layer's last
     # slice, an exact identity of the recursion (BenDaniel-Duke matching across zero
     # thickness), so T equals the stack's own to round-off (1e-12; the compiled kernel

@@ -2,7 +2,7 @@
 
 Each subcommand lives in its own module exposing ``register(subparsers)``,
 which adds its parser and sets ``func`` to a function ``(args) -> int``.
-Bad input (:class:`physics.errors.InputError`) becomes one line on stderr
+Bad input (:class:`wellwright.physics.errors.InputError`) becomes one line on stderr
 and exit status 2; nothing is written.
 """
 
@@ -10,20 +10,21 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 
-from physics.errors import InputError
+from wellwright.physics.errors import InputError
 
 #: Modules that register a subcommand, in the order ``--help`` lists them.
 COMMAND_MODULES = (
-    "optimize.cmd_iv",
-    "optimize.cmd_materials",
-    "optimize.cmd_search",
-    "optimize.cmd_packet",
-    "optimize.cmd_tolerance",
-    "optimize.cmd_run",
-    "optimize.cmd_demo",
-    "optimize.cmd_report",
+    "wellwright.optimize.cli.cmd_iv",
+    "wellwright.optimize.cli.cmd_materials",
+    "wellwright.optimize.cli.cmd_search",
+    "wellwright.optimize.cli.cmd_packet",
+    "wellwright.optimize.cli.cmd_tolerance",
+    "wellwright.optimize.cli.cmd_run",
+    "wellwright.optimize.cli.cmd_demo",
+    "wellwright.optimize.cli.cmd_report",
 )
 
 
@@ -57,6 +58,10 @@ def _version() -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run the ``wellwright`` command; returns the exit status."""
+    # the command draws to files: a backend without a screen, set here and never on import of
+    # the library (a notebook keeps its inline plots); MPLBACKEND costs no matplotlib import
+    os.environ.setdefault("MPLBACKEND", "Agg")
     parser = build_parser()
     args = parser.parse_args(argv)
     try:

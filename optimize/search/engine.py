@@ -15,10 +15,10 @@ between machines. Each worker runs an ask-and-tell loop:
 Every trial carries user attributes that the standard Optuna tools (its
 dashboard, ``optuna.load_study``) show without this project writing a viewer:
 
-- ``metrics``: every figure of merit of :data:`physics.iv.METRIC_NAMES`
+- ``metrics``: every figure of merit of :data:`wellwright.physics.iv.METRIC_NAMES`
   (None where there is no NDR);
 - ``feasible``: meets the spec and every constraint;
-- ``spec_violation``: :meth:`optimize.study.Study.spec_violation`;
+- ``spec_violation``: :meth:`wellwright.optimize.study.study.Study.spec_violation`;
 - ``constraints``: the named constraint values (> 0 violated), also given to
   Optuna with ``Trial.set_constraint`` so that TPE and NSGA-II use them;
 - ``layers``: the full stack, each layer with name, material, label (trade
@@ -28,15 +28,15 @@ dashboard, ``optuna.load_study``) show without this project writing a viewer:
   when the design could not be built or evaluated;
 - in a robust search (``[search] robust``), ``yield``: the Monte Carlo
   yield under ``[growth]`` {value, ci_low, ci_high, samples, passed,
-  confidence} (see :mod:`optimize.robust`).
+  confidence} (see :mod:`wellwright.optimize.search.robust`).
 
 The trial value is the single-objective score, or the raw objectives for
-several, or in a robust search :func:`optimize.robust.robust_value`; how
-designs are scored is documented in :mod:`optimize.targets`.
+several, or in a robust search :func:`wellwright.optimize.search.robust.robust_value`; how
+designs are scored is documented in :mod:`wellwright.optimize.study.targets`.
 
 This module holds the runner (workers, ask and tell, evaluation). Storage
-(URLs, SQLite settings, heartbeats, dead trials) is :mod:`optimize.storage`;
-ranking, records and output files are :mod:`optimize.designs`. Their public
+(URLs, SQLite settings, heartbeats, dead trials) is :mod:`wellwright.optimize.search.storage`;
+ranking, records and output files are :mod:`wellwright.optimize.search.designs`. Their public
 names are re-exported here.
 """
 
@@ -48,22 +48,17 @@ import os
 import time
 import warnings
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import optuna
 from optuna.trial import FrozenTrial, TrialState
-
-from physics.electrostatics import ElectrostaticsConvergenceError
-from physics.errors import InputError
-from physics.iv import METRIC_NAMES
-from physics.stack import LayerTable, Stack
-
-from .designs import (
+from wellwright.optimize.search.designs import (
     GROWTH_SHEET_HEADER,
     MIN_TRIALS_FOR_IMPORTANCE,
+    SearchResult,
     design_record,
     finite_or_none,
     growth_sheet_rows,
@@ -72,8 +67,8 @@ from .designs import (
     rank_trials,
     write_outputs,
 )
-from .robust import check_robust, design_yields, robust_value
-from .storage import (
+from wellwright.optimize.search.robust import check_robust, design_yields, robust_value
+from wellwright.optimize.search.storage import (
     GRACE_PERIOD_S,
     HEARTBEAT_INTERVAL_S,
     Heartbeat,
@@ -84,8 +79,12 @@ from .storage import (
     storage_url,
     worker_identity,
 )
-from .study import MAX_ROBUST_SAMPLES, MIN_ROBUST_SAMPLES, Study
-from .tolerance import yield_record
+from wellwright.optimize.study.study import MAX_ROBUST_SAMPLES, MIN_ROBUST_SAMPLES, Study
+from wellwright.optimize.tolerance.analysis import yield_record
+from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
+from wellwright.physics.errors import InputError
+from wellwright.physics.iv import METRIC_NAMES
+from wellwright.physics.stack import LayerTable, Stack
 
 __all__ = [
     "SearchResult",
@@ -124,56 +123,13 @@ Evaluator = Callable[[Sequence[Stack], np.ndarray], dict[str, np.ndarray]]
 
 def nominal_metrics(stacks: Sequence[Stack], bias_v: np.ndarray) -> dict[str, np.ndarray]:
     """Figures of merit of the stacks as given, in one batched sweep."""
-    from physics.iv import sweep
+    from wellwright.physics.iv import sweep
 
     table = LayerTable.from_stacks(list(stacks))
     return sweep(table, bias_v, model=stacks[0].model).metrics
 
 
 # --------------------------------------------------------------------------- results
-
-
-@dataclass
-class SearchResult:
-    """What :func:`run_search` returns.
-
-    Attributes
-    ----------
-    study_name, storage
-        Where the Optuna study is (``optuna.load_study(study_name=..., storage=...)``).
-    out_dir
-        Output folder.
-    n_complete, n_feasible
-        Complete trials in the study, and how many of them meet spec and constraints.
-    designs
-        The ``[search] top`` best designs, best first, one per distinct parameter
-        set, as plain records (see :func:`design_record` and :func:`rank_trials`,
-        which ranks any number).
-    files
-        Output files by kind.
-    timing
-        Seconds spent by this run's workers: ``sampler`` (ask and suggest),
-        ``physics`` (the evaluator), ``storage`` (tell, attributes, claims),
-        ``total``; and counts ``evaluated``, ``copied`` (duplicates not recomputed).
-    notes
-        Anything skipped (e.g. importances with too few trials).
-    """
-
-    study_name: str
-    storage: str
-    out_dir: Path
-    n_complete: int
-    n_feasible: int
-    designs: list[dict[str, Any]]
-    directions: tuple[str, ...]
-    files: dict[str, str] = field(default_factory=dict)
-    timing: dict[str, float] = field(default_factory=dict)
-    notes: list[str] = field(default_factory=list)
-
-    @property
-    def best(self) -> dict[str, Any] | None:
-        """The top design if it meets the spec and the constraints, else None."""
-        return self.designs[0] if self.designs and self.designs[0]["feasible"] else None
 
 
 def make_sampler(study: Study, *, seed: int, n_trials: int) -> optuna.samplers.BaseSampler:
@@ -294,7 +250,7 @@ def evaluate(
 def _yields(
     study: Study, stacks: Sequence[Stack | None], errors: list[str | None]
 ) -> list[dict[str, Any]]:
-    """Robust search: the Monte Carlo yield of each buildable design (see :mod:`optimize.robust`).
+    """Robust search: the Monte Carlo yield of each buildable design (see :mod:`wellwright.optimize.search.robust`).
 
     A design that could not be built or evaluated gets yield 0 over 0 samples;
     one whose samples the physics cannot evaluate gets an ``error`` too.
@@ -642,7 +598,7 @@ def run_search(
     Parameters
     ----------
     study
-        From :func:`optimize.study.load_study`.
+        From :func:`wellwright.optimize.study.study.load_study`.
     trials
         Complete trials the study should hold when done (a total: a resumed
         study runs only the missing ones; 0 just re-ranks and rewrites).
@@ -667,7 +623,7 @@ def run_search(
         Write designs.csv/json, growth sheets, figures and importances.
     robust
         Make the objective the Monte Carlo yield under ``[growth]`` (see
-        :mod:`optimize.robust`); default ``[search] robust``.
+        :mod:`wellwright.optimize.search.robust`); default ``[search] robust``.
     robust_samples
         As-grown samples per design of a robust search; default
         ``[search] robust_samples``. The common random numbers are seeded by

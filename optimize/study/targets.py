@@ -20,13 +20,11 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-
-from physics import materials
-from physics.errors import InputError
-from physics.iv import METRIC_NAMES
-from physics.stack import Stack
-
-from .space import is_finite_number
+from wellwright.optimize.study.space import is_finite_number
+from wellwright.physics import materials
+from wellwright.physics.errors import InputError
+from wellwright.physics.iv import METRIC_NAMES
+from wellwright.physics.stack import Stack
 
 __all__ = [
     "Window",
@@ -298,7 +296,7 @@ def constraint_values(
       between the contacts.
     - ``critical_thickness``: the largest ``(t - h_c) / h_c`` over the
       strained layers between the contacts, ``h_c`` the Matthews-Blakeslee
-      thickness from :func:`physics.materials.critical_thickness_nm`
+      thickness from :func:`wellwright.physics.materials.critical_thickness_nm`
       (Matthews and Blakeslee, J. Cryst. Growth 27, 118 (1974)); -1 if no
       layer is strained.
     - ``metric:<name>``: :meth:`Window.margin` of the bound (1 if NaN).

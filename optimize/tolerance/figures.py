@@ -12,12 +12,11 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-
-from .figures import PALETTE, metric_words
+from wellwright.optimize.shared.figures import PALETTE, metric_words
 
 __all__ = ["save_all", "OKABE_ITO"]
 
-OKABE_ITO = PALETTE  # one palette for every figure: optimize.figures.PALETTE
+OKABE_ITO = PALETTE  # one palette for every figure: wellwright.optimize.shared.figures.PALETTE
 #: display factor and label of each figure of merit
 DISPLAY = {
     "peak_current_density_a_cm2": (1e-3, "peak current density (kA/cm$^2$)"),
@@ -40,7 +39,7 @@ def _plt():
 
 
 def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> Path:
-    from .outputs import save_figure
+    from wellwright.optimize.shared.outputs import save_figure
 
     plt = _plt()
     spec = {s["metric"]: s for s in record["spec"]}
@@ -83,7 +82,7 @@ def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> P
 
 
 def save_sobol(record: dict[str, Any], path: Path, *, key: str = "pass") -> Path | None:
-    from .outputs import save_figure
+    from wellwright.optimize.shared.outputs import save_figure
 
     table = record["sobol"].get(key)
     if not table:
@@ -118,7 +117,7 @@ def save_sobol(record: dict[str, Any], path: Path, *, key: str = "pass") -> Path
 def save_tornado(
     record: dict[str, Any], path: Path, *, metric: str = "peak_current_density_a_cm2"
 ) -> Path | None:
-    from .outputs import save_figure
+    from wellwright.optimize.shared.outputs import save_figure
 
     f, label = DISPLAY[metric]
     nominal = record["nominal"].get(metric)

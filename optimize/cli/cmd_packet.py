@@ -3,7 +3,7 @@
 A Gaussian packet of a chosen centre energy is launched from the emitter at a
 chosen bias (the stack's electrostatics model, as for ``wellwright iv``) and
 followed with the explicit staggered scheme of
-:mod:`physics.references.wavepacket`. Writes the probability left of, inside
+:mod:`wellwright.physics.references.wavepacket`. Writes the probability left of, inside
 and right of the barriers over time (CSV and PNG) and a strip of density
 snapshots over the band diagram; the final transmitted fraction is compared
 with T(E) of the kernel averaged over the packet's energy distribution.
@@ -17,13 +17,15 @@ import sys
 from pathlib import Path
 
 import numpy as np
-
-from physics.errors import InputError
-from physics.iv import band_profile
-from physics.references.wavepacket import PacketResult, expected_transmission, propagate_packet
-from physics.stack import load_stack
-
-from .outputs import json_ready, save_figure, write_csv
+from wellwright.optimize.shared.outputs import json_ready, save_figure, write_csv
+from wellwright.physics.errors import InputError
+from wellwright.physics.iv import band_profile
+from wellwright.physics.references.wavepacket import (
+    PacketResult,
+    expected_transmission,
+    propagate_packet,
+)
+from wellwright.physics.stack import load_stack
 
 ENERGY_RANGE_MEV = (0.0, 5000.0)  # exclusive
 WIDTH_RANGE_NM = (1.0, 200.0)
@@ -165,7 +167,7 @@ def run(args) -> int:
         "transmitted": result.transmitted,
         "in_well": result.in_well_final,
         "transmission_expected": t_expected,
-        "transmission_source": "physics.transmission (kernel), averaged over the packet's energies",
+        "transmission_source": "wellwright.physics.transmission (kernel), averaged over the packet's energies",
         "stop_reason": result.stop_reason,
         "end_time_fs": float(result.time_fs[-1]),
         "norm_error_max": result.norm_error_max,
@@ -209,8 +211,7 @@ def fractions_figure(result: PacketResult, t_expected: float, *, title: str = ""
     transmitted part (a narrow resonance) is still visible.
     """
     import matplotlib.pyplot as plt
-
-    from .figures import PALETTE, style
+    from wellwright.optimize.shared.figures import PALETTE, style
 
     style()
     fig, (ax, ax_log) = plt.subplots(
@@ -262,8 +263,7 @@ def density_figure(result: PacketResult, *, title: str = ""):
     packet's centre energy and scaled to fit (separately in the two columns).
     """
     import matplotlib.pyplot as plt
-
-    from .figures import PALETTE, style
+    from wellwright.optimize.shared.figures import PALETTE, style
 
     style()
     x, edge = result.x_nm, result.potential_ev

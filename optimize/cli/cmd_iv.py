@@ -7,12 +7,10 @@ import sys
 from pathlib import Path
 
 import numpy as np
-
-from physics.errors import InputError
-from physics.iv import external_bias_v, stack_iv
-from physics.stack import load_stack
-
-from .outputs import json_ready, write_csv, write_json
+from wellwright.optimize.shared.outputs import json_ready, write_csv, write_json
+from wellwright.physics.errors import InputError
+from wellwright.physics.iv import external_bias_v, stack_iv
+from wellwright.physics.stack import load_stack
 
 MAX_POINTS = 2001
 MAX_ABS_BIAS_V = 10.0
@@ -93,7 +91,7 @@ def run(args) -> int:
     write_csv(out / "iv.csv", cols, zip(*(record[c] for c in cols)))
     write_json(out / "metrics.json", {"stack": stack.source, "metrics": record["metrics"]})
     if not args.no_figures:
-        from .figures import iv_figures
+        from wellwright.optimize.shared.figures import iv_figures
 
         iv_figures(stack, curves, out)
     if args.json:

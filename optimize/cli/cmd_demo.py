@@ -6,9 +6,8 @@ import argparse
 import os
 from pathlib import Path
 
-from physics.errors import InputError
-
-from .pipeline import run_pipeline
+from wellwright.optimize.cli.pipeline import run_pipeline
+from wellwright.physics.errors import InputError
 
 #: The scenario files shipped as package data (pyproject: optimize/scenarios/*.toml).
 SCENARIOS = Path(__file__).resolve().parent / "scenarios"
@@ -28,17 +27,26 @@ def register(sub: argparse._SubParsersAction) -> None:
         "shipped with wellwright (an invented demo, not measured data): a few minutes on two "
         "cores, under a minute with --quick. Rerunning resumes.",
     )
-    p.add_argument("--out", metavar="DIR",
-                   help="run folder (default: wellwright_demo, or wellwright_demo_quick)")
-    p.add_argument("--quick", action="store_true",
-                   help="fewer trials, samples and bias points, Morris instead of Sobol")
+    p.add_argument(
+        "--out",
+        metavar="DIR",
+        help="run folder (default: wellwright_demo, or wellwright_demo_quick)",
+    )
+    p.add_argument(
+        "--quick",
+        action="store_true",
+        help="fewer trials, samples and bias points, Morris instead of Sobol",
+    )
     p.add_argument("--no-progress", action="store_true", help="no progress bars")
     p.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
-    out = Path(args.out) if args.out else Path(
-        "wellwright_demo_quick" if args.quick else "wellwright_demo")
+    out = (
+        Path(args.out)
+        if args.out
+        else Path("wellwright_demo_quick" if args.quick else "wellwright_demo")
+    )
     if out.exists() and not out.is_dir():
         raise InputError("exists and is not a folder", key="--out", source=str(out))
     run_pipeline(

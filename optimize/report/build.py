@@ -1,6 +1,6 @@
 """The run report: one self-contained HTML file with figures and tables beside it.
 
-:func:`build_report` reads a finished run folder (see :mod:`optimize.pipeline`)
+:func:`build_report` reads a finished run folder (see :mod:`wellwright.optimize.cli.pipeline`)
 and writes ``DIR/report.html`` (inline CSS, figures embedded as base64 PNG, no
 scripts, no external resources: it opens from disk with no network) and
 ``DIR/report_files/`` holding the same figures as PNG and the tables as CSV,
@@ -27,11 +27,10 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from physics.errors import InputError
-
-from .outputs import atomic_write_text, save_figure, write_csv, write_json
-from .pipeline import load_run, study_from_run
-from .study import Study
+from wellwright.optimize.shared.outputs import atomic_write_text, save_figure, write_csv, write_json
+from wellwright.optimize.study.run_folder import load_run, study_from_run
+from wellwright.optimize.study.study import Study
+from wellwright.physics.errors import InputError
 
 __all__ = ["build_report", "SECTIONS", "versions"]
 
@@ -184,7 +183,7 @@ class _Figures:
         data = base64.b64encode(path.read_bytes()).decode("ascii")
         return (
             f'<figure><img alt="{_esc(alt)}" src="data:image/png;base64,{data}">'
-            f"<figcaption>{caption} <span class=\"small\">[{FILES_DIR}/{_esc(name)}]</span>"
+            f'<figcaption>{caption} <span class="small">[{FILES_DIR}/{_esc(name)}]</span>'
             "</figcaption></figure>"
         )
 
@@ -195,8 +194,10 @@ class _Figures:
 #: Trade label (HTML) and factor from the metric's unit to the trade's unit.
 TRADE_UNITS = {
     "peak_current_density_a_cm2": ("peak current density J<sub>p</sub> (kA/cm<sup>2</sup>)", 1e-3),
-    "valley_current_density_a_cm2": ("valley current density J<sub>v</sub> (kA/cm<sup>2</sup>)",
-                                     1e-3),
+    "valley_current_density_a_cm2": (
+        "valley current density J<sub>v</sub> (kA/cm<sup>2</sup>)",
+        1e-3,
+    ),
     "delta_current_density_a_cm2": ("current swing &Delta;J (kA/cm<sup>2</sup>)", 1e-3),
     "peak_voltage_v": ("peak voltage V<sub>p</sub> (mV)", 1e3),
     "valley_voltage_v": ("valley voltage V<sub>v</sub> (mV)", 1e3),
@@ -237,13 +238,24 @@ def _brief(study: Study, files: Path) -> tuple[str, dict[str, Any]]:
     for v in study.variables:
         unit = "ML" if v.key == "thickness_ml" else ("cm^-3" if v.key == "doping_cm3" else "")
         step = "1 ML" if v.integer else ("-" if v.step is None else f"{v.step:g}")
-        var_rows.append([_esc(v.name), _esc(v.key), _num(v.low, spec=".4g"),
-                         _num(v.high, spec=".4g"), _esc(step), "log" if v.log else "linear",
-                         _esc(unit)])
+        var_rows.append(
+            [
+                _esc(v.name),
+                _esc(v.key),
+                _num(v.low, spec=".4g"),
+                _num(v.high, spec=".4g"),
+                _esc(step),
+                "log" if v.log else "linear",
+                _esc(unit),
+            ]
+        )
         var_csv.append([v.name, v.key, v.low, v.high, step, v.log, unit])
     write_csv(files / "spec.csv", ["metric", "min_trade_unit", "max_trade_unit", "label"], spec_csv)
-    write_csv(files / "design_space.csv", ["parameter", "key", "min", "max", "step", "log", "unit"],
-              var_csv)
+    write_csv(
+        files / "design_space.csv",
+        ["parameter", "key", "min", "max", "step", "log", "unit"],
+        var_csv,
+    )
     body = [
         "<p>A design meets the spec when every figure of merit below lies in its window "
         "(units as in the column headings).</p>",
@@ -253,7 +265,7 @@ def _brief(study: Study, files: Path) -> tuple[str, dict[str, Any]]:
         f"<p><b>Constraints:</b> {_esc('; '.join(cons) or 'none')}.</p>",
         "<h3>Where the search looked</h3>",
         _table(["parameter", "key", "min", "max", "step", "scale", "unit"], var_rows),
-        f"<p class=\"small\">Study file: <code>{_esc(study.source)}</code>; each trial sweeps "
+        f'<p class="small">Study file: <code>{_esc(study.source)}</code>; each trial sweeps '
         f"{study.sweep.points} bias points from {study.sweep.bias_min_v * 1e3:.0f} to "
         f"{study.sweep.bias_max_v * 1e3:.0f} mV at {study.base.get('temperature_k', 300)} K.</p>",
     ]
@@ -262,21 +274,28 @@ def _brief(study: Study, files: Path) -> tuple[str, dict[str, Any]]:
 
 
 def _candidates(study: Study, designs: list[dict], reported: int, search: dict) -> str:
-    head = ["rank", "trial", "meets spec"] + [c[1] for c in METRIC_COLUMNS] + [
-        _short(n) for n in study.parameter_names]
+    head = (
+        ["rank", "trial", "meets spec"]
+        + [c[1] for c in METRIC_COLUMNS]
+        + [_short(n) for n in study.parameter_names]
+    )
     rows = []
     for d in designs:
         m = d["metrics"]
         ok = '<span class="ok">yes</span>' if d["feasible"] else '<span class="bad">no</span>'
         star = " *" if d["rank"] <= reported else ""
-        rows.append([f"{d['rank']}{star}", d["trial"], ok]
-                    + [_num(m.get(k), f, s) for k, _, f, s in METRIC_COLUMNS]
-                    + [_num(d["params"].get(n), spec=".4g") for n in study.parameter_names])
+        rows.append(
+            [f"{d['rank']}{star}", d["trial"], ok]
+            + [_num(m.get(k), f, s) for k, _, f, s in METRIC_COLUMNS]
+            + [_num(d["params"].get(n), spec=".4g") for n in study.parameter_names]
+        )
     return (
         f"<p>{search.get('complete', '?')} complete trials, {search.get('feasible', '?')} meet "
         "the spec and every constraint. The ten best distinct designs, best first; "
         f"* marks the {reported} analysed below.</p>"
-        + '<div style="overflow-x:auto">' + _table(head, rows, left=1, raw=True) + "</div>"
+        + '<div style="overflow-x:auto">'
+        + _table(head, rows, left=1, raw=True)
+        + "</div>"
     )
 
 
@@ -289,22 +308,29 @@ def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
     rows = []
     for i, layer in enumerate(record.get("layers") or []):
         ml, nm = layer.get("thickness_ml"), layer.get("thickness_nm")
-        rows.append([
-            i,
-            layer["name"],
-            layer.get("label") or layer["material"],
-            "" if layer.get("x") is None else f"{layer['x']:.3f}",
-            "" if ml is None else (str(ml) if isinstance(ml, int) else f"{ml:.2f}"),
-            "" if nm is None else f"{nm:.3f}",
-            f"{layer['doping_cm3']:.3g}",
-        ])
+        rows.append(
+            [
+                i,
+                layer["name"],
+                layer.get("label") or layer["material"],
+                "" if layer.get("x") is None else f"{layer['x']:.3f}",
+                "" if ml is None else (str(ml) if isinstance(ml, int) else f"{ml:.2f}"),
+                "" if nm is None else f"{nm:.3f}",
+                f"{layer['doping_cm3']:.3g}",
+            ]
+        )
     return rows
 
 
 def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[str, dict]:
-    from physics.iv import stack_iv
+    from wellwright.optimize.shared.figures import (
+        band_diagram_figure,
+        iv_figure,
+        model_label,
+        transmission_figure,
+    )
+    from wellwright.physics.iv import stack_iv
 
-    from .figures import band_diagram_figure, iv_figure, model_label, transmission_figure
     tag = f"rank{d['rank']:02d}"
     sheet = growth_sheet_rows(d)
     write_csv(files / f"growth_sheet_{tag}.csv", GROWTH_SHEET_HEADER, sheet)
@@ -312,43 +338,90 @@ def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[st
     for r in sheet:
         layer, name, label, x, ml, nm, dop = r
         contact = r[0] in (0, len(sheet) - 1)
-        rows.append([layer, _esc(name), _esc(label), x or "-", ml or ("contact" if contact else "-"),
-                     nm or "-", "-" if float(dop) == 0 else _num(float(dop), spec=".2e")])
+        rows.append(
+            [
+                layer,
+                _esc(name),
+                _esc(label),
+                x or "-",
+                ml or ("contact" if contact else "-"),
+                nm or "-",
+                "-" if float(dop) == 0 else _num(float(dop), spec=".2e"),
+            ]
+        )
     stack = study.stack(d["params"])
     curves = stack_iv(stack, study.sweep.bias_v)
     m = curves.metrics_of(0)
     vp = m["peak_voltage_v"] if m["peak_voltage_v"] is not None else float(curves.bias_v[-1]) / 2
-    figs.add_figure(iv_figure(curves, title=f"rank {d['rank']}: I-V ({model_label(stack)})"),
-                    f"{tag}_iv.png")
-    figs.add_figure(band_diagram_figure(stack, vp, title=f"rank {d['rank']}: conduction band at "
-                                        f"the peak, {vp * 1e3:.0f} mV"), f"{tag}_band.png")
-    figs.add_figure(transmission_figure(stack, [0.0, vp], title=f"rank {d['rank']}: "
-                                        "transmission"), f"{tag}_transmission.png")
-    status = ('<span class="ok">meets the spec</span>' if d["feasible"]
-              else '<span class="bad">misses the spec (closest found)</span>')
+    figs.add_figure(
+        iv_figure(curves, title=f"rank {d['rank']}: I-V ({model_label(stack)})"), f"{tag}_iv.png"
+    )
+    figs.add_figure(
+        band_diagram_figure(
+            stack, vp, title=f"rank {d['rank']}: conduction band at the peak, {vp * 1e3:.0f} mV"
+        ),
+        f"{tag}_band.png",
+    )
+    figs.add_figure(
+        transmission_figure(stack, [0.0, vp], title=f"rank {d['rank']}: transmission"),
+        f"{tag}_transmission.png",
+    )
+    status = (
+        '<span class="ok">meets the spec</span>'
+        if d["feasible"]
+        else '<span class="bad">misses the spec (closest found)</span>'
+    )
     body = [
         f'<div class="card"><h3 id="design-{tag}">Design rank {d["rank"]} (trial {d["trial"]}): '
         f"{status}</h3>",
         "<p><b>Growth sheet</b> (emitter first; contacts grown as thick as the process needs)</p>",
-        _table(["layer", "name", "material", "x", "monolayers (ML)", "thickness (nm)",
-                "doping (cm<sup>-3</sup>)"], rows, left=3, raw=True),
+        _table(
+            [
+                "layer",
+                "name",
+                "material",
+                "x",
+                "monolayers (ML)",
+                "thickness (nm)",
+                "doping (cm<sup>-3</sup>)",
+            ],
+            rows,
+            left=3,
+            raw=True,
+        ),
         '<div class="pair">',
-        figs.html(f"{tag}_iv.png", "I-V with the peak (circle) and valley (square) marked; "
-                  "current density in kA/cm<sup>2</sup>.", f"I-V of rank {d['rank']}"),
-        figs.html(f"{tag}_transmission.png", "Transmission T(E) on a log scale at zero bias "
-                  "and at the peak voltage.", f"T(E) of rank {d['rank']}"),
+        figs.html(
+            f"{tag}_iv.png",
+            "I-V with the peak (circle) and valley (square) marked; "
+            "current density in kA/cm<sup>2</sup>.",
+            f"I-V of rank {d['rank']}",
+        ),
+        figs.html(
+            f"{tag}_transmission.png",
+            "Transmission T(E) on a log scale at zero bias and at the peak voltage.",
+            f"T(E) of rank {d['rank']}",
+        ),
         "</div>",
-        figs.html(f"{tag}_band.png", "Conduction-band edge at the peak voltage with the "
-                  "quasi-bound (resonance) levels, their widths, and the contact Fermi levels.",
-                  f"band diagram of rank {d['rank']}"),
+        figs.html(
+            f"{tag}_band.png",
+            "Conduction-band edge at the peak voltage with the "
+            "quasi-bound (resonance) levels, their widths, and the contact Fermi levels.",
+            f"band diagram of rank {d['rank']}",
+        ),
         "</div>",
     ]
     return "".join(body), {"rank": d["rank"], "growth_sheet": sheet, "metrics": m}
 
 
-def _growth(records: list[dict], figs: _Figures, files: Path, run_dir: Path,
-            tol_dirs: list[Path]) -> tuple[str, list[dict]]:
-    from .report_figures import SPEC_WORDS, ranking_figure, ranking_rows, yield_figure
+def _growth(
+    records: list[dict], figs: _Figures, files: Path, run_dir: Path, tol_dirs: list[Path]
+) -> tuple[str, list[dict]]:
+    from wellwright.optimize.report.figures import (
+        SPEC_WORDS,
+        ranking_figure,
+        ranking_rows,
+        yield_figure,
+    )
 
     out: list[dict] = []
     body = []
@@ -357,13 +430,39 @@ def _growth(records: list[dict], figs: _Figures, files: Path, run_dir: Path,
     for r in records:
         y = r["yield"]
         fails = ", ".join(f"{SPEC_WORDS.get(k, k)}: {v}" for k, v in r["failures"].items() if v)
-        yrows.append([f"rank {r['design'].get('rank')}", f"{100 * y['value']:.1f} %",
-                      f"{100 * y['ci_low']:.1f} to {100 * y['ci_high']:.1f} %",
-                      f"{y['passed']} / {y['samples']}", _esc(fails or "none")])
-        ycsv.append([r["design"].get("rank"), y["value"], y["ci_low"], y["ci_high"], y["passed"],
-                     y["samples"], *[r["failures"].get(k, 0) for k in r["failures"]]])
-    write_csv(files / "yield.csv", ["rank", "yield", "ci_low", "ci_high", "passed", "samples",
-                                    *[f"fail:{k}" for k in records[0]["failures"]]], ycsv)
+        yrows.append(
+            [
+                f"rank {r['design'].get('rank')}",
+                f"{100 * y['value']:.1f} %",
+                f"{100 * y['ci_low']:.1f} to {100 * y['ci_high']:.1f} %",
+                f"{y['passed']} / {y['samples']}",
+                _esc(fails or "none"),
+            ]
+        )
+        ycsv.append(
+            [
+                r["design"].get("rank"),
+                y["value"],
+                y["ci_low"],
+                y["ci_high"],
+                y["passed"],
+                y["samples"],
+                *[r["failures"].get(k, 0) for k in r["failures"]],
+            ]
+        )
+    write_csv(
+        files / "yield.csv",
+        [
+            "rank",
+            "yield",
+            "ci_low",
+            "ci_high",
+            "passed",
+            "samples",
+            *[f"fail:{k}" for k in records[0]["failures"]],
+        ],
+        ycsv,
+    )
     params = records[0].get("parameters", [])
     spreads = ", ".join(f"{p['name']} {p['sigma']:g} {p['unit']}" for p in params[:6])
     body.append(
@@ -372,10 +471,15 @@ def _growth(records: list[dict], figs: _Figures, files: Path, run_dir: Path,
         "of as-grown samples that still meet the spec, with its 95 % Wilson score interval "
         "(E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927)).</p>"
     )
-    body.append(_table(["design", "yield", "95 % interval", "passed", "failures by spec"],
-                       yrows))
-    body.append(figs.html("yield.png", "Yield with its interval (left) and the share of samples "
-                          "missing each spec (right; a sample can miss several).", "yield"))
+    body.append(_table(["design", "yield", "95 % interval", "passed", "failures by spec"], yrows))
+    body.append(
+        figs.html(
+            "yield.png",
+            "Yield with its interval (left) and the share of samples "
+            "missing each spec (right; a sample can miss several).",
+            "yield",
+        )
+    )
     for r, tdir in zip(records, tol_dirs, strict=True):
         rank = r["design"].get("rank")
         tag = f"rank{rank:02d}"
@@ -385,67 +489,119 @@ def _growth(records: list[dict], figs: _Figures, files: Path, run_dir: Path,
         if fig is not None:
             figs.add_figure(fig, f"{tag}_ranking.png")
             score = "total_index" if method == "sobol" else "mu_star"
-            write_csv(files / f"ranking_{tag}.csv", ["parameter", method + "_" + score,
-                                                     "output"],
-                      [[x["parameter"], x[score], output] for x in rows])
+            write_csv(
+                files / f"ranking_{tag}.csv",
+                ["parameter", method + "_" + score, "output"],
+                [[x["parameter"], x[score], output] for x in rows],
+            )
             what = "pass/fail" if output == "pass" else SPEC_WORDS.get(output, output)
             top = ", ".join(_esc(x["parameter"]) for x in rows[:3])
-            body.append(f"<p><b>Hold these most tightly:</b> {top} (ranked by "
-                        f"{'total Sobol index' if method == 'sobol' else 'Morris mu*'} of "
-                        f"{_esc(what)}).</p>")
-            body.append(figs.html(f"{tag}_ranking.png", "Growth parameters ranked by their share "
-                                  "of the output's variance (Sobol) or mean elementary effect "
-                                  "(Morris); bars show 95 % confidence.", "ranking"))
+            body.append(
+                f"<p><b>Hold these most tightly:</b> {top} (ranked by "
+                f"{'total Sobol index' if method == 'sobol' else 'Morris mu*'} of "
+                f"{_esc(what)}).</p>"
+            )
+            body.append(
+                figs.html(
+                    f"{tag}_ranking.png",
+                    "Growth parameters ranked by their share "
+                    "of the output's variance (Sobol) or mean elementary effect "
+                    "(Morris); bars show 95 % confidence.",
+                    "ranking",
+                )
+            )
         else:
-            body.append("<p class=\"small\">No Sobol or Morris ranking in this run "
-                        "(method mc, or every index zero).</p>")
+            body.append(
+                '<p class="small">No Sobol or Morris ranking in this run '
+                "(method mc, or every index zero).</p>"
+            )
         src = tdir / "tornado_peak_current_density_a_cm2.png"
         if figs.add_file(src, f"{tag}_tornado.png") is not None:
-            body.append(figs.html(f"{tag}_tornado.png", "Tornado: peak current density when one "
-                                  "layer at a time is grown one monolayer thinner or thicker.",
-                                  "tornado"))
+            body.append(
+                figs.html(
+                    f"{tag}_tornado.png",
+                    "Tornado: peak current density when one "
+                    "layer at a time is grown one monolayer thinner or thicker.",
+                    "tornado",
+                )
+            )
         alloc = r.get("allocation", [])
-        arows = [[_esc(a["parameter"]), f"{a['nominal_sigma']:.3g} {_esc(a['unit'])}",
-                  "-" if a["allowed_sigma"] is None else f"{a['allowed_sigma']:.3g} "
-                  f"{_esc(a['unit'])}", _num(a.get("yield_at_allowed"), 100, ".0f") + " %",
-                  _esc(a["note"] or "")] for a in alloc]
-        write_csv(files / f"allocation_{tag}.csv", ["parameter", "unit", "nominal_sigma",
-                                                    "allowed_sigma", "yield_at_allowed", "note"],
-                  [[a["parameter"], a["unit"], a["nominal_sigma"], a["allowed_sigma"],
-                    a.get("yield_at_allowed"), a["note"]] for a in alloc])
+        arows = [
+            [
+                _esc(a["parameter"]),
+                f"{a['nominal_sigma']:.3g} {_esc(a['unit'])}",
+                "-"
+                if a["allowed_sigma"] is None
+                else f"{a['allowed_sigma']:.3g} {_esc(a['unit'])}",
+                _num(a.get("yield_at_allowed"), 100, ".0f") + " %",
+                _esc(a["note"] or ""),
+            ]
+            for a in alloc
+        ]
+        write_csv(
+            files / f"allocation_{tag}.csv",
+            ["parameter", "unit", "nominal_sigma", "allowed_sigma", "yield_at_allowed", "note"],
+            [
+                [
+                    a["parameter"],
+                    a["unit"],
+                    a["nominal_sigma"],
+                    a["allowed_sigma"],
+                    a.get("yield_at_allowed"),
+                    a["note"],
+                ]
+                for a in alloc
+            ],
+        )
         ty = alloc[0]["target_yield"] if alloc else r.get("settings", {}).get("target_yield", 0.9)
-        body.append(f"<p><b>Tolerance allocation</b>: the largest one-sigma spread of each "
-                    f"top-ranked parameter that still keeps {100 * ty:.0f} % yield, the others at "
-                    "their nominal spreads (bisection with common random numbers).</p>")
-        body.append(_table(["parameter", "nominal sigma", "allowed sigma", "yield there", "note"],
-                           arows) if arows else "<p class=\"small\">No allocation in this run."
-                    "</p>")
+        body.append(
+            f"<p><b>Tolerance allocation</b>: the largest one-sigma spread of each "
+            f"top-ranked parameter that still keeps {100 * ty:.0f} % yield, the others at "
+            "their nominal spreads (bisection with common random numbers).</p>"
+        )
+        body.append(
+            _table(["parameter", "nominal sigma", "allowed sigma", "yield there", "note"], arows)
+            if arows
+            else '<p class="small">No allocation in this run.</p>'
+        )
         notes = r.get("notes", [])
         if notes:
-            body.append("<p class=\"small\">Notes: " + _esc("; ".join(notes)) + "</p>")
-        body.append(f"<p class=\"small\">Full record: <code>{_esc(tdir.relative_to(run_dir))}"
-                    "/tolerance.json</code></p></div>")
-        out.append({"rank": rank, "yield": r["yield"], "failures": r["failures"],
-                    "ranking": {"method": method, "output": output, "rows": rows},
-                    "allocation": alloc})
+            body.append('<p class="small">Notes: ' + _esc("; ".join(notes)) + "</p>")
+        body.append(
+            f'<p class="small">Full record: <code>{_esc(tdir.relative_to(run_dir))}'
+            "/tolerance.json</code></p></div>"
+        )
+        out.append(
+            {
+                "rank": rank,
+                "yield": r["yield"],
+                "failures": r["failures"],
+                "ranking": {"method": method, "output": output, "rows": rows},
+                "allocation": alloc,
+            }
+        )
     return "".join(body), out
 
 
 def _search_figures(study: Study, search: dict, figs: _Figures, run_dir: Path) -> str:
     import optuna
-
-    from . import search_figures
+    from wellwright.optimize.search import figures as search_figures
 
     body = []
     try:
         optuna.logging.set_verbosity(optuna.logging.WARNING)
         ostudy = optuna.load_study(study_name=search["study_name"], storage=search["storage"])
-        trials = [t for t in ostudy.get_trials(deepcopy=False)
-                  if t.state == optuna.trial.TrialState.COMPLETE]
+        trials = [
+            t
+            for t in ostudy.get_trials(deepcopy=False)
+            if t.state == optuna.trial.TrialState.COMPLETE
+        ]
     except Exception as exc:  # noqa: BLE001 - storage moved or server down: use saved figures
         trials = []
-        body.append(f"<p class=\"small\">Storage not reachable ({_esc(type(exc).__name__)}); "
-                    "figures from the search folder.</p>")
+        body.append(
+            f'<p class="small">Storage not reachable ({_esc(type(exc).__name__)}); '
+            "figures from the search folder.</p>"
+        )
     if trials:
         figs.add_figure(search_figures.history_figure(study, trials), "history.png")
         if study.multi_objective:
@@ -453,14 +609,27 @@ def _search_figures(study: Study, search: dict, figs: _Figures, run_dir: Path) -
     else:
         figs.add_file(run_dir / "search" / "history.png", "history.png")
         figs.add_file(run_dir / "search" / "pareto.png", "pareto.png")
-    body.append(figs.html("history.png", "Optimisation history: each trial, and the best so far "
-                          "among designs that meet the spec.", "optimisation history"))
+    body.append(
+        figs.html(
+            "history.png",
+            "Optimisation history: each trial, and the best so far "
+            "among designs that meet the spec.",
+            "optimisation history",
+        )
+    )
     if study.multi_objective:
-        body.append(figs.html("pareto.png", "Pareto front of the pushed objectives among designs "
-                              "that meet the spec.", "Pareto front"))
+        body.append(
+            figs.html(
+                "pareto.png",
+                "Pareto front of the pushed objectives among designs that meet the spec.",
+                "Pareto front",
+            )
+        )
     else:
-        body.append("<p class=\"small\">Single objective: no Pareto front (give two or more "
-                    "entries in <code>maximize</code>/<code>minimize</code> for one).</p>")
+        body.append(
+            '<p class="small">Single objective: no Pareto front (give two or more '
+            "entries in <code>maximize</code>/<code>minimize</code> for one).</p>"
+        )
     return "".join(body)
 
 
@@ -480,8 +649,9 @@ def build_report(run_dir: str | Path) -> Path:
     record = load_run(run_dir)
     stages = record.get("stages", {})
     if stages.get("search", {}).get("status") != "done":
-        raise InputError("the search stage has not finished; rerun 'wellwright run'",
-                         source=str(run_dir))
+        raise InputError(
+            "the search stage has not finished; rerun 'wellwright run'", source=str(run_dir)
+        )
     tol = stages.get("tolerance", {})
     done = sorted((k for k, v in tol.items() if v.get("status") == "done"))
     if not done:
@@ -512,12 +682,12 @@ def build_report(run_dir: str | Path) -> Path:
     now = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
 
     parts = [
-        "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">",
+        '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">',
         f"<title>{_esc(title)}</title><style>{CSS}</style></head><body><main>",
         "<header>",
         f'<span class="tag">{_esc(label)}</span>' if label else "",
         f"<h1>{_esc(title)}</h1>",
-        f"<div class=\"small\">RTD design study <code>{_esc(study.source)}</code>; built {now} by "
+        f'<div class="small">RTD design study <code>{_esc(study.source)}</code>; built {now} by '
         f"wellwright {_esc(vers['wellwright'])}.</div></header>",
         f'<div class="caution"><b>Caution.</b> {_esc(CAUTION)}</div>',
         "<nav><b>Contents</b><ol>"
@@ -542,20 +712,36 @@ def build_report(run_dir: str | Path) -> Path:
         f"file as run is kept in <code>study.toml</code> (fingerprint "
         f"<code>{_esc(record['study']['fingerprint'])}</code>); rerun with</p>"
         f"<pre><code>wellwright run {_esc(src.name)} --out {_esc(run_dir.name)}</code></pre>"
-        + "<div class=\"pair\"><div>" + _table(["package", "version"], vrows) + "</div><div>"
-        + _table(["setting", "value"], srows) + "</div></div>"
-        + f"<p class=\"small\">Search storage: <code>{_esc(search.get('storage'))}</code> "
+        + '<div class="pair"><div>'
+        + _table(["package", "version"], vrows)
+        + "</div><div>"
+        + _table(["setting", "value"], srows)
+        + "</div></div>"
+        + f'<p class="small">Search storage: <code>{_esc(search.get("storage"))}</code> '
         f"(study <code>{_esc(search.get('study_name'))}</code>; open it with optuna.load_study "
         "or the Optuna dashboard).</p>"
     )
     for anchor, heading in SECTIONS:
-        parts.append(f'<section id="{anchor}"><h2>{_esc(heading)}</h2>{section_body[anchor]}'
-                     "</section>")
-    parts.append("<p class=\"small\">Tables as CSV and figures as PNG are in "
-                 f"<code>{FILES_DIR}/</code> beside this file.</p></main></body></html>")
-    write_json(files / "report.json", {
-        "title": title, "label": label, "sections": [h for _, h in SECTIONS],
-        "brief": brief_data, "designs": card_data, "growth": growth_data,
-        "versions": vers, "seeds": seeds, "settings": settings, "figures": figs.names,
-    })
+        parts.append(
+            f'<section id="{anchor}"><h2>{_esc(heading)}</h2>{section_body[anchor]}</section>'
+        )
+    parts.append(
+        '<p class="small">Tables as CSV and figures as PNG are in '
+        f"<code>{FILES_DIR}/</code> beside this file.</p></main></body></html>"
+    )
+    write_json(
+        files / "report.json",
+        {
+            "title": title,
+            "label": label,
+            "sections": [h for _, h in SECTIONS],
+            "brief": brief_data,
+            "designs": card_data,
+            "growth": growth_data,
+            "versions": vers,
+            "seeds": seeds,
+            "settings": settings,
+            "figures": figs.names,
+        },
+    )
     return atomic_write_text(run_dir / "report.html", "".join(parts))

@@ -14,10 +14,9 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 from optuna.trial import FrozenTrial
-
-from .figures import PALETTE, metric_words
-from .outputs import save_figure
-from .study import Study
+from wellwright.optimize.shared.figures import PALETTE, metric_words
+from wellwright.optimize.shared.outputs import save_figure
+from wellwright.optimize.study.study import Study
 
 __all__ = [
     "metric_axis",
@@ -31,7 +30,7 @@ __all__ = [
     "OKABE_ITO",
 ]
 
-OKABE_ITO = PALETTE  # one palette for every figure: optimize.figures.PALETTE
+OKABE_ITO = PALETTE  # one palette for every figure: wellwright.optimize.shared.figures.PALETTE
 
 
 def metric_axis(metric: str) -> tuple[str, float]:

@@ -10,13 +10,11 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-
-from physics.errors import InputError
-from physics.stack import CriticalThicknessWarning, Stack, parse_stack, read_toml
-
-from .growth import growth_model, parse_growth, split_layer_growth
-from .study import Study, load_study
-from .tolerance import METHODS, Runner, Spec, run_tolerance
+from wellwright.optimize.study.growth import growth_model, parse_growth, split_layer_growth
+from wellwright.optimize.study.study import Study, load_study
+from wellwright.optimize.tolerance.analysis import METHODS, Runner, Spec, run_tolerance
+from wellwright.physics.errors import InputError
+from wellwright.physics.stack import CriticalThicknessWarning, Stack, parse_stack, read_toml
 
 MAX_SAMPLES = 1_000_000
 

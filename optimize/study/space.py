@@ -21,8 +21,8 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from physics.errors import InputError
-from physics.stack import LAYER_KEYS, TOP_KEYS, Stack
+from wellwright.physics.errors import InputError
+from wellwright.physics.stack import LAYER_KEYS, TOP_KEYS, Stack
 
 __all__ = [
     "Variable",
@@ -97,7 +97,7 @@ def is_finite_number(value: Any) -> bool:
 def stack_dict(
     base: dict[str, Any], variables: Sequence[Variable], params: dict[str, float]
 ) -> dict[str, Any]:
-    """A concrete stack dictionary (for :func:`physics.stack.parse_stack`).
+    """A concrete stack dictionary (for :func:`wellwright.physics.stack.parse_stack`).
 
     Parameters
     ----------

@@ -1,7 +1,7 @@
 """As-grown samples of a design: the growth-variation model.
 
-A nominal :class:`physics.stack.Stack` is turned into a batch of as-grown
-stacks (a :class:`physics.stack.LayerTable`, one row per sample) by drawing
+A nominal :class:`wellwright.physics.stack.Stack` is turned into a batch of as-grown
+stacks (a :class:`wellwright.physics.stack.LayerTable`, one row per sample) by drawing
 growth errors. The ``[growth]`` table of a study file gives the one-sigma
 figures; a layer may override its own with ``growth = {...}``::
 
@@ -32,7 +32,7 @@ As-grown thickness (Notes)
 ``t_ml = n_ml (1 + r_material) + d_ml`` with ``n_ml`` the nominal monolayer
 count (``thickness_nm / monolayer_nm`` for a layer given in nm), and
 ``thickness_nm = t_ml * a_ml(x)`` with the monolayer thickness of the
-as-grown composition from :func:`physics.materials.material_parameters`
+as-grown composition from :func:`wellwright.physics.materials.material_parameters`
 (which also gives the band edge, mass, nonparabolicity and permittivity at
 that composition, strained to the stack's substrate). Doping is multiplied by
 ``max(1 + sigma z, 0.01)``.
@@ -66,10 +66,9 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-
-from physics import materials
-from physics.errors import InputError
-from physics.stack import LayerTable, Stack
+from wellwright.physics import materials
+from wellwright.physics.errors import InputError
+from wellwright.physics.stack import LayerTable, Stack
 
 __all__ = [
     "GrowthSettings",
@@ -225,7 +224,7 @@ def parse_growth(
 def split_layer_growth(data: dict[str, Any]) -> tuple[dict[str, Any], dict[str, Any]]:
     """A stack dictionary without its layers' ``growth`` tables, and those tables by layer name.
 
-    :func:`physics.stack.parse_stack` rejects unknown layer keys, so a stack
+    :func:`wellwright.physics.stack.parse_stack` rejects unknown layer keys, so a stack
     file carrying growth overrides goes through this first.
     """
     out = dict(data)
@@ -434,8 +433,8 @@ def island_mean_current(
     ``f`` its fractional part; ``lower``/``upper`` the currents of the two
     whole-monolayer stacks (one batched call).
     """
-    from physics.current import EnergyGrid
-    from physics.iv import current_at_bias
+    from wellwright.physics.current import EnergyGrid
+    from wellwright.physics.iv import current_at_bias
 
     index = layer if isinstance(layer, int) else [lay.name for lay in stack.layers].index(layer)
     mono = stack.layers[index].monolayer_nm

@@ -1,6 +1,6 @@
 """Study files: a stack file whose layer keys may be ranges, plus a spec and search settings.
 
-A study file is a stack file (see :mod:`physics.stack`) with
+A study file is a stack file (see :mod:`wellwright.physics.stack`) with
 
 - ranges in place of layer values: ``thickness_ml = {min = 4, max = 12}``
   (whole monolayers), ``x = {min = 0.45, max = 0.80, step = 0.01}``,
@@ -17,13 +17,13 @@ A study file is a stack file (see :mod:`physics.stack`) with
   file, a table of parameter values, or a list of these, evaluated first),
   ``batch`` (4), ``startup_trials`` (10), ``multivariate`` (true), ``top``
   (designs written, 10), ``robust`` (false: the objective is the Monte Carlo
-  yield under ``[growth]``, see :mod:`optimize.robust`), ``robust_samples``
+  yield under ``[growth]``, see :mod:`wellwright.optimize.search.robust`), ``robust_samples``
   (as-grown samples per design, 32);
 - ``[sweep]``: ``bias_min_v`` (0), ``bias_max_v`` (1.0), ``points`` (61);
 - ``[growth]``, ``[tolerance]``, ``[report]`` (and a layer's ``growth``
   table), which belong to later stages: they are kept raw in
   :attr:`Study.reserved` and :attr:`Study.layer_growth`; ``[growth]`` is
-  validated here too (:func:`optimize.growth.parse_growth`), so that a bad
+  validated here too (:func:`wellwright.optimize.study.growth.parse_growth`), so that a bad
   spread stops ``wellwright run`` before its search, not after it.
 
 The search parameter of a range is named ``<layer name>.<key>``, e.g.
@@ -31,12 +31,12 @@ The search parameter of a range is named ``<layer name>.<key>``, e.g.
 
 This module loads and validates the file and holds the settings and the
 :class:`Study` dataclass. The design space (ranges, ``same_as``) lives in
-:mod:`optimize.space`, the spec and how designs are scored in
-:mod:`optimize.targets` (:func:`optimize.targets.spec_violation`,
-:func:`optimize.targets.single_score`,
-:func:`optimize.targets.constraint_values`); their public names are
+:mod:`wellwright.optimize.study.space`, the spec and how designs are scored in
+:mod:`wellwright.optimize.study.targets` (:func:`wellwright.optimize.study.targets.spec_violation`,
+:func:`wellwright.optimize.study.targets.single_score`,
+:func:`wellwright.optimize.study.targets.constraint_values`); their public names are
 re-exported here. A robust search (``[search] robust = true``) is described
-in :mod:`optimize.robust`.
+in :mod:`wellwright.optimize.search.robust`.
 """
 
 from __future__ import annotations
@@ -50,30 +50,29 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-
-from physics.errors import InputError
-from physics.stack import (
+from wellwright.optimize.study import space as _space
+from wellwright.optimize.study import targets as _targets
+from wellwright.optimize.study.growth import GrowthSettings, parse_growth
+from wellwright.optimize.study.space import RANGE_KEYS, Variable, is_finite_number, parse_space
+from wellwright.optimize.study.targets import (
+    DEFAULT_REFERENCE,
+    NAN_VIOLATION,
+    Constraints,
+    Objective,
+    Spec,
+    Window,
+    critical_thickness_excess,
+    parse_constraints,
+    parse_targets,
+)
+from wellwright.physics.errors import InputError
+from wellwright.physics.stack import (
     TOP_KEYS,
     CriticalThicknessWarning,
     Stack,
     load_stack,
     parse_stack,
     read_toml,
-)
-
-from . import space as _space
-from . import targets as _targets
-from .growth import parse_growth
-from .space import RANGE_KEYS, Variable, is_finite_number, parse_space
-from .targets import (
-    DEFAULT_REFERENCE,
-    NAN_VIOLATION,
-    Constraints,
-    Objective,
-    Window,
-    critical_thickness_excess,
-    parse_constraints,
-    parse_targets,
 )
 
 __all__ = [
@@ -129,7 +128,7 @@ class SearchSettings:
     multivariate: bool = True  #: TPE models parameters jointly
     top: int = 10  #: designs written to designs.csv/json (and growth sheets)
     #: objective: Monte Carlo yield under [growth] with common random numbers
-    #: (see optimize.robust), instead of the nominal score
+    #: (see wellwright.optimize.search.robust), instead of the nominal score
     robust: bool = False
     robust_samples: int = 32  #: as-grown samples per design in a robust search
 
@@ -219,8 +218,8 @@ class Study:
         return self.search.study_name or self.name
 
     def stack_dict(self, params: dict[str, float]) -> dict[str, Any]:
-        """A concrete stack dictionary (for :func:`physics.stack.parse_stack`);
-        see :func:`optimize.space.stack_dict` (a missing parameter takes its lower bound)."""
+        """A concrete stack dictionary (for :func:`wellwright.physics.stack.parse_stack`);
+        see :func:`wellwright.optimize.study.space.stack_dict` (a missing parameter takes its lower bound)."""
         return _space.stack_dict(self.base, self.variables, params)
 
     def stack(self, params: dict[str, float]) -> Stack:
@@ -232,7 +231,7 @@ class Study:
 
     def parameters_of(self, stack: Stack, *, source: str | None = None) -> dict[str, float]:
         """The variables' values in a stack whose layers carry the study's layer names
-        (see :func:`optimize.space.parameters_of`).
+        (see :func:`wellwright.optimize.study.space.parameters_of`).
 
         Raises
         ------
@@ -244,7 +243,7 @@ class Study:
         )
 
     def parameter_key(self, params: dict[str, Any]) -> tuple:
-        """Hashable key of a parameter set (see :func:`optimize.space.parameter_key`)."""
+        """Hashable key of a parameter set (see :func:`wellwright.optimize.study.space.parameter_key`)."""
         return _space.parameter_key(self.variables, params)
 
     def fingerprint(self) -> str:
@@ -273,7 +272,7 @@ class Study:
         text = json.dumps(parts, sort_keys=True, default=str)
         return hashlib.sha256(text.encode()).hexdigest()[:16]
 
-    # ------------------------------------------------------------ scoring (optimize.targets)
+    # ------------------------------------------------------------ scoring (wellwright.optimize.study.targets)
 
     def window_distances(self, metrics: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
         """Normalised distance outside each target window (0 inside, NaN for NaN)."""
@@ -281,31 +280,31 @@ class Study:
 
     def spec_violation(self, metrics: dict[str, np.ndarray]) -> np.ndarray:
         """How far each design is from meeting the spec; 0 when it meets it
-        (see :func:`optimize.targets.spec_violation`)."""
+        (see :func:`wellwright.optimize.study.targets.spec_violation`)."""
         return _targets.spec_violation(self.targets, self.objectives, metrics)
 
     def merit(self, metrics: dict[str, np.ndarray]) -> np.ndarray:
-        """Merit of an on-spec design in [0, 1) (see :func:`optimize.targets.merit`)."""
+        """Merit of an on-spec design in [0, 1) (see :func:`wellwright.optimize.study.targets.merit`)."""
         return _targets.merit(self.targets, self.objectives, metrics)
 
     def single_score(self, metrics: dict[str, np.ndarray]) -> np.ndarray:
         """The scalar a single-objective search minimises
-        (see :func:`optimize.targets.single_score`)."""
+        (see :func:`wellwright.optimize.study.targets.single_score`)."""
         return _targets.single_score(self.targets, self.objectives, metrics)
 
     def objective_values(self, metrics: dict[str, np.ndarray]) -> np.ndarray:
-        """``(n, n_objectives)`` raw objective values (see :func:`optimize.targets.objective_values`)."""
+        """``(n, n_objectives)`` raw objective values (see :func:`wellwright.optimize.study.targets.objective_values`)."""
         return _targets.objective_values(self.objectives, metrics)
 
     def constraint_values(self, stack: Stack | None, metrics: dict[str, float]) -> dict[str, float]:
         """Named constraint values of one design; > 0 means violated.
 
-        Those of :func:`optimize.targets.constraint_values`; a multi-objective
+        Those of :func:`wellwright.optimize.study.targets.constraint_values`; a multi-objective
         study adds ``spec``: :meth:`spec_violation`.
         """
         out = _targets.constraint_values(self.constraints, stack, metrics)
         if self.multi_objective:
-            from physics.iv import METRIC_NAMES
+            from wellwright.physics.iv import METRIC_NAMES
 
             arr = {k: np.array([metrics.get(k, np.nan)]) for k in METRIC_NAMES}
             out["spec"] = float(self.spec_violation(arr)[0])
@@ -401,8 +400,6 @@ def parse_study(
     )
     study = _replace_search(study, baseline=baseline)
     if study.search.robust:
-        from .robust import check_robust
-
         check_robust(study)
     return study
 
@@ -588,3 +585,55 @@ def _parse_baseline(
         else:
             raise InputError(f"must be {form}", source=source, key="search.baseline")
     return tuple(out)
+
+
+# --------------------------------------------------------------------------- robust search
+
+
+@dataclass(frozen=True)
+class RobustPlan:
+    """What a robust search needs besides the study: spreads, spec, samples, seed (plain data)."""
+
+    settings: GrowthSettings
+    per_layer: dict[str, GrowthSettings] = field(default_factory=dict)
+    spec: Spec = Spec(())
+    samples: int = 32
+    seed: int = 0
+
+
+def check_robust(study: Study) -> RobustPlan:
+    """Validate what a robust search of ``study`` needs and return its plan.
+
+    Raises
+    ------
+    InputError
+        When the study has no target window (a yield needs one), pushes two
+        or more objectives (a robust search has one objective, the yield), or
+        has a bad ``[growth]`` entry (naming the key and the allowed form).
+    """
+    if not study.targets:
+        raise InputError(
+            "a robust search needs at least one window (e.g. pvcr = {min = 3}) for the yield",
+            source=study.source,
+            key="targets",
+        )
+    if study.multi_objective:
+        raise InputError(
+            "a robust search has one objective, the yield; list at most one figure of merit "
+            "in maximize/minimize (it breaks ties between equal yields)",
+            source=study.source,
+            key="search.robust",
+        )
+    settings, per_layer = parse_growth(
+        study.reserved.get("growth"),
+        study.layer_growth,
+        layer_names=study.layer_names,
+        source=study.source,
+    )
+    return RobustPlan(
+        settings=settings,
+        per_layer=per_layer,
+        spec=Spec.from_windows(study.targets),
+        samples=study.search.robust_samples,
+        seed=study.search.seed,
+    )

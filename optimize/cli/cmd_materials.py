@@ -5,8 +5,8 @@ from __future__ import annotations
 import json
 import sys
 
-from physics import materials
-from physics.errors import InputError
+from wellwright.physics import materials
+from wellwright.physics.errors import InputError
 
 COLUMNS = (
     ("material", "{}"),

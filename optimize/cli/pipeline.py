@@ -19,20 +19,25 @@ a tolerance analysis interrupted half way is redone for that design only.
 
 from __future__ import annotations
 
-import hashlib
 import json
-import tomllib
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
-
-from physics.errors import InputError
-
-from .outputs import atomic_write_text, write_json
-from .study import MAX_TRIALS, Study, parse_study
+from wellwright.optimize.shared.outputs import atomic_write_text, write_json
+from wellwright.optimize.study.run_folder import (
+    FORMAT_VERSION,
+    PIPELINE_FILE,
+    STUDY_COPY,
+    fingerprint,
+    load_run,
+    study_from_run,
+    study_from_text,
+)
+from wellwright.optimize.study.study import MAX_TRIALS, Study
+from wellwright.physics.errors import InputError
 
 __all__ = [
     "RunSettings",
@@ -44,13 +49,10 @@ __all__ = [
     "STAGES",
 ]
 
-PIPELINE_FILE = "pipeline.json"
-STUDY_COPY = "study.toml"
 STAGES = ("search", "tolerance", "report")
 METHODS = ("mc", "sobol", "morris")
 #: Keys of the study file's ``[report]`` table read by this module.
 REPORT_KEYS = ("designs", "samples", "method", "seed", "allocate", "target_yield", "bias_points")
-FORMAT_VERSION = 1
 
 
 @dataclass(frozen=True)
@@ -77,7 +79,7 @@ class RunSettings:
     bias_points
         Bias points of the tolerance sweeps (None: the study's ``[sweep] points``).
     search_seed, workers, storage
-        Passed to :func:`optimize.search.run_search`.
+        Passed to :func:`wellwright.optimize.search.engine.run_search`.
     jobs
         joblib workers of the tolerance stage.
     """
@@ -165,59 +167,6 @@ def run_settings(study: Study, overrides: dict[str, Any] | None = None) -> RunSe
 # --------------------------------------------------------------------------- run folder
 
 
-def _sha(*parts: Any) -> str:
-    h = hashlib.sha256()
-    for p in parts:
-        h.update(p if isinstance(p, bytes) else json.dumps(p, sort_keys=True, default=str).encode())
-        h.update(b"\0")
-    return h.hexdigest()[:16]
-
-
-def study_from_text(text: str, *, source: str, name: str, base_dir: str | Path) -> Study:
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc})", source=source) from None
-    return parse_study(data, source=source, name=name, base_dir=base_dir)
-
-
-def load_run(run_dir: str | Path) -> dict[str, Any]:
-    """The ``pipeline.json`` record of a run folder.
-
-    Raises
-    ------
-    InputError
-        When ``run_dir`` is not a folder made by ``wellwright run``.
-    """
-    d = Path(run_dir)
-    path = d / PIPELINE_FILE
-    if not d.is_dir():
-        raise InputError("not a folder; give the output folder of 'wellwright run'", source=str(d))
-    if not path.is_file() or not (d / STUDY_COPY).is_file():
-        raise InputError(
-            f"not a run folder (no {PIPELINE_FILE} and {STUDY_COPY}); "
-            "make one with 'wellwright run STUDY.toml --out DIR'",
-            source=str(d),
-        )
-    try:
-        rec = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, json.JSONDecodeError) as exc:
-        raise InputError(f"unreadable ({exc})", source=str(path)) from None
-    if not isinstance(rec, dict) or rec.get("format") != FORMAT_VERSION:
-        raise InputError("not a pipeline record of this wellwright version", source=str(path))
-    return rec
-
-
-def study_from_run(run_dir: str | Path, record: dict[str, Any]) -> Study:
-    """The study of a run, from the copy the run keeps (the original may have moved)."""
-    d = Path(run_dir)
-    text = (d / STUDY_COPY).read_text(encoding="utf-8")
-    origin = record["study"]
-    return study_from_text(
-        text, source=origin["path"], name=origin["name"], base_dir=Path(origin["path"]).parent
-    )
-
-
 def _save(run_dir: Path, record: dict[str, Any]) -> None:
     write_json(run_dir / PIPELINE_FILE, record)
 
@@ -226,7 +175,7 @@ def _save(run_dir: Path, record: dict[str, Any]) -> None:
 
 
 def _stage_search(study: Study, s: RunSettings, run_dir: Path, progress: bool) -> dict[str, Any]:
-    from .search import run_search
+    from wellwright.optimize.search.engine import run_search
 
     out = run_dir / "search"
     result = run_search(
@@ -260,8 +209,8 @@ def tolerance_of_design(
     study: Study, design: dict[str, Any], s: RunSettings, out_dir: Path, *, progress: bool
 ) -> dict[str, Any]:
     """The tolerance analysis of one design record of ``designs.json``."""
-    from .growth import growth_model, parse_growth
-    from .tolerance import Runner, Spec, run_tolerance
+    from wellwright.optimize.study.growth import growth_model, parse_growth
+    from wellwright.optimize.tolerance.analysis import Runner, Spec, run_tolerance
 
     stack = study.stack(design["params"])
     settings, per_layer = parse_growth(
@@ -287,11 +236,11 @@ def tolerance_of_design(
 
 
 def _stage_fingerprints(study_bytes: bytes, s: RunSettings, designs: list[dict] | None) -> dict:
-    search = _sha(study_bytes, s.trials, s.search_seed, s.storage)
+    search = fingerprint(study_bytes, s.trials, s.search_seed, s.storage)
     fp = {"search": search}
     tol_settings = [s.samples, s.method, s.seed, s.allocate, s.target_yield, s.bias_points]
     for d in designs or []:
-        fp[f"tolerance:{d['rank']}"] = _sha(study_bytes, d["params"], tol_settings)
+        fp[f"tolerance:{d['rank']}"] = fingerprint(study_bytes, d["params"], tol_settings)
     return fp
 
 
@@ -325,7 +274,7 @@ def run_pipeline(
         A label shown in the report header (e.g. "invented demo scenario").
     report
         Report builder ``report(run_dir) -> Path`` (default
-        :func:`optimize.report.build_report`).
+        :func:`wellwright.optimize.report.build.build_report`).
 
     Returns
     -------
@@ -376,9 +325,9 @@ def run_pipeline(
         "study": {
             "path": str(path.resolve()),
             "name": path.stem,
-            "fingerprint": _sha(study_bytes),
+            "fingerprint": fingerprint(study_bytes),
             "changed_since_last_run": bool(old)
-            and old.get("study", {}).get("fingerprint") != _sha(study_bytes),
+            and old.get("study", {}).get("fingerprint") != fingerprint(study_bytes),
         },
         "label": label if label is not None else old.get("label"),
         "settings": asdict(s),
@@ -401,8 +350,11 @@ def run_pipeline(
         stages["search"] = {"status": "running", "fingerprint": fp["search"]}
         stages.pop("report", None)
         _save(run_dir, record)
-        stages["search"] = {"status": "done", "fingerprint": fp["search"],
-                            **_stage_search(study, s, run_dir, progress)}
+        stages["search"] = {
+            "status": "done",
+            "fingerprint": fp["search"],
+            **_stage_search(study, s, run_dir, progress),
+        }
         _save(run_dir, record)
     # the copy the report reads; written once the search accepted this file
     atomic_write_text(run_dir / STUDY_COPY, study_bytes.decode("utf-8", errors="replace"))
@@ -426,9 +378,11 @@ def run_pipeline(
         out = run_dir / "tolerance" / key
         prev = tol.get(key, {})
         f = fp[f"tolerance:{d['rank']}"]
-        if prev.get("status") == "done" and prev.get("fingerprint") == f and (
-            out / "tolerance.json"
-        ).is_file():
+        if (
+            prev.get("status") == "done"
+            and prev.get("fingerprint") == f
+            and (out / "tolerance.json").is_file()
+        ):
             _log(progress, f"tolerance {key}: done earlier, skipped")
             continue
         _log(progress, f"tolerance {key} (trial {d['trial']}): {s.method}, {s.samples} samples")
@@ -450,16 +404,18 @@ def run_pipeline(
     stages["tolerance"] = tol
 
     # report
-    report_fp = _sha(fp)
+    report_fp = fingerprint(fp)
     prev = stages.get("report", {})
-    if prev.get("status") == "done" and prev.get("fingerprint") == report_fp and (
-        run_dir / "report.html"
-    ).is_file():
+    if (
+        prev.get("status") == "done"
+        and prev.get("fingerprint") == report_fp
+        and (run_dir / "report.html").is_file()
+    ):
         _log(progress, "report: done earlier, skipped")
         return record
     _log(progress, "report: building")
     if report is None:
-        from .report import build_report
+        from wellwright.optimize.report.build import build_report
 
         report = build_report
     stages["report"] = {"status": "running"}

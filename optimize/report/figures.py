@@ -1,9 +1,9 @@
 """Figures drawn only for the run report: yield per design, sensitivity ranking.
 
-The figures of one stack come from :mod:`optimize.figures`, the search and
-tolerance figures from :mod:`optimize.search_figures` and
-:mod:`optimize.tolerance_figures`. Colours are the Okabe-Ito colour-blind-safe
-palette (:data:`optimize.figures.PALETTE`).
+The figures of one stack come from :mod:`wellwright.optimize.shared.figures`, the search and
+tolerance figures from :mod:`wellwright.optimize.search.figures` and
+:mod:`wellwright.optimize.tolerance.figures`. Colours are the Okabe-Ito colour-blind-safe
+palette (:data:`wellwright.optimize.shared.figures.PALETTE`).
 """
 
 from __future__ import annotations
@@ -12,9 +12,8 @@ from typing import Any
 
 import numpy as np
 from matplotlib.figure import Figure
-
-from .figures import PALETTE, style
-from .tolerance_figures import DISPLAY
+from wellwright.optimize.shared.figures import PALETTE, style
+from wellwright.optimize.tolerance.figures import DISPLAY
 
 __all__ = ["yield_figure", "ranking_figure", "ranking_rows"]
 
@@ -43,11 +42,24 @@ def yield_figure(records: list[dict[str, Any]]) -> Figure:
     lo = np.array([100 * y["ci_low"] for y in ys])
     hi = np.array([100 * y["ci_high"] for y in ys])
     ax.barh(ypos, value, 0.55, color=PALETTE["blue"], label="Monte Carlo yield")
-    ax.errorbar(value, ypos, xerr=[value - lo, hi - value], fmt="none", ecolor=PALETTE["black"],
-                capsize=5, lw=1.5, label="95 % Wilson interval")
+    ax.errorbar(
+        value,
+        ypos,
+        xerr=[value - lo, hi - value],
+        fmt="none",
+        ecolor=PALETTE["black"],
+        capsize=5,
+        lw=1.5,
+        label="95 % Wilson interval",
+    )
     for y, v, yy in zip(ypos, value, ys, strict=True):
-        ax.text(1.0, y + 0.3, f"{v:.0f} % ({yy['passed']}/{yy['samples']} samples)", va="bottom",
-                fontsize=9)  # above its bar, clear of the interval
+        ax.text(
+            1.0,
+            y + 0.3,
+            f"{v:.0f} % ({yy['passed']}/{yy['samples']} samples)",
+            va="bottom",
+            fontsize=9,
+        )  # above its bar, clear of the interval
     ax.set_yticks(ypos, labels)
     ax.set_ylim(-0.5, n - 0.2)  # room for the top bar's label below the title
     ax.set_xlim(0, 105)
@@ -56,14 +68,22 @@ def yield_figure(records: list[dict[str, Any]]) -> Figure:
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=2, fontsize=8)
 
     keys = [k for k in records[0]["failures"]]
-    colors = [PALETTE[c] for c in ("vermillion", "orange", "sky", "green", "purple", "yellow",
-                                   "blue", "black")]
+    colors = [
+        PALETTE[c]
+        for c in ("vermillion", "orange", "sky", "green", "purple", "yellow", "blue", "black")
+    ]
     width = 0.8 / max(1, len(keys))
     for j, k in enumerate(keys):
-        share = [100 * r["failures"].get(k, 0) / max(1, r["yield"]["samples"])
-                 for r in records][::-1]
-        bx.barh(ypos - 0.4 + (j + 0.5) * width, share, width, color=colors[j % len(colors)],
-                label=SPEC_WORDS.get(k, k))
+        share = [100 * r["failures"].get(k, 0) / max(1, r["yield"]["samples"]) for r in records][
+            ::-1
+        ]
+        bx.barh(
+            ypos - 0.4 + (j + 0.5) * width,
+            share,
+            width,
+            color=colors[j % len(colors)],
+            label=SPEC_WORDS.get(k, k),
+        )
     bx.set_yticks(ypos, labels)
     bx.set_xlim(0, 100)
     bx.set_xlabel("samples missing this spec (%)")
@@ -83,8 +103,10 @@ def ranking_rows(record: dict[str, Any]) -> tuple[str, str, list[dict[str, Any]]
     """
     fails = {k: v for k, v in (record.get("failures") or {}).items() if k != "no_ndr" and v}
     first = sorted(fails, key=lambda k: -fails[k])[:1]
-    for method, table, score in (("sobol", record.get("sobol") or {}, "total_index"),
-                                 ("morris", record.get("morris") or {}, "mu_star")):
+    for method, table, score in (
+        ("sobol", record.get("sobol") or {}, "total_index"),
+        ("morris", record.get("morris") or {}, "mu_star"),
+    ):
         for output in (*first, "pass", "peak_current_density_a_cm2", "peak_voltage_v"):
             rows = table.get(output)
             if rows and any(r[score] > 0 for r in rows):
@@ -104,19 +126,37 @@ def ranking_figure(record: dict[str, Any], *, top: int = 10) -> Figure | None:
     ax = fig.add_subplot()
     what = "pass/fail" if output == "pass" else SPEC_WORDS.get(output, output)
     if method == "sobol":
-        ax.barh(ypos + 0.2, [r["total_index"] for r in rows], 0.4,
-                xerr=[r["total_conf"] for r in rows], color=PALETTE["blue"], label="total index",
-                error_kw={"capsize": 3})
-        ax.barh(ypos - 0.2, [r["first_index"] for r in rows], 0.4,
-                xerr=[r["first_conf"] for r in rows], color=PALETTE["orange"],
-                label="first-order index", error_kw={"capsize": 3})
+        ax.barh(
+            ypos + 0.2,
+            [r["total_index"] for r in rows],
+            0.4,
+            xerr=[r["total_conf"] for r in rows],
+            color=PALETTE["blue"],
+            label="total index",
+            error_kw={"capsize": 3},
+        )
+        ax.barh(
+            ypos - 0.2,
+            [r["first_index"] for r in rows],
+            0.4,
+            xerr=[r["first_conf"] for r in rows],
+            color=PALETTE["orange"],
+            label="first-order index",
+            error_kw={"capsize": 3},
+        )
         ax.set_xlabel(f"Sobol index of {what} (share of variance, 0 to 1)")
         ax.set_xlim(left=min(0.0, ax.get_xlim()[0]))
     else:
         factor, label = DISPLAY.get(output, (1.0, what))  # trade units, e.g. kA/cm^2
-        ax.barh(ypos, [factor * r["mu_star"] for r in rows], 0.6,
-                xerr=[factor * r["mu_star_conf"] for r in rows], color=PALETTE["blue"],
-                label="mu* (mean |elementary effect|)", error_kw={"capsize": 3})
+        ax.barh(
+            ypos,
+            [factor * r["mu_star"] for r in rows],
+            0.6,
+            xerr=[factor * r["mu_star_conf"] for r in rows],
+            color=PALETTE["blue"],
+            label="mu* (mean |elementary effect|)",
+            error_kw={"capsize": 3},
+        )
         ax.set_xlabel(f"Morris mu* of {label} (per 5 sigma of the parameter)")
         ax.set_xlim(left=0.0)
     ax.set_yticks(ypos, [r["parameter"] for r in rows])

@@ -10,18 +10,18 @@ import functools
 import math
 import warnings
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import optuna
 from optuna.trial import FrozenTrial, TrialState
-
-from physics.iv import METRIC_NAMES
-from physics.stack import Stack
+from wellwright.physics.iv import METRIC_NAMES
+from wellwright.physics.stack import Stack
 
 if TYPE_CHECKING:
-    from .search import SearchResult
-    from .study import Study
+    from wellwright.optimize.study.study import Study
 
 __all__ = [
     "layer_records",
@@ -40,6 +40,49 @@ MIN_TRIALS_FOR_IMPORTANCE = 20
 
 
 # --------------------------------------------------------------------------- records
+
+
+@dataclass
+class SearchResult:
+    """What :func:`run_search` returns.
+
+    Attributes
+    ----------
+    study_name, storage
+        Where the Optuna study is (``optuna.load_study(study_name=..., storage=...)``).
+    out_dir
+        Output folder.
+    n_complete, n_feasible
+        Complete trials in the study, and how many of them meet spec and constraints.
+    designs
+        The ``[search] top`` best designs, best first, one per distinct parameter
+        set, as plain records (see :func:`design_record` and :func:`rank_trials`,
+        which ranks any number).
+    files
+        Output files by kind.
+    timing
+        Seconds spent by this run's workers: ``sampler`` (ask and suggest),
+        ``physics`` (the evaluator), ``storage`` (tell, attributes, claims),
+        ``total``; and counts ``evaluated``, ``copied`` (duplicates not recomputed).
+    notes
+        Anything skipped (e.g. importances with too few trials).
+    """
+
+    study_name: str
+    storage: str
+    out_dir: Path
+    n_complete: int
+    n_feasible: int
+    designs: list[dict[str, Any]]
+    directions: tuple[str, ...]
+    files: dict[str, str] = field(default_factory=dict)
+    timing: dict[str, float] = field(default_factory=dict)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def best(self) -> dict[str, Any] | None:
+        """The top design if it meets the spec and the constraints, else None."""
+        return self.designs[0] if self.designs and self.designs[0]["feasible"] else None
 
 
 def layer_records(stack: Stack) -> list[dict[str, Any]]:
@@ -81,11 +124,11 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     nominal score, also in a robust search) or ``objectives`` (metric ->
     value), ``yield`` (robust search: {value, ci_low, ci_high, samples,
     passed, confidence, failures}; else None), ``spec_violation``, ``constraints``,
-    ``metrics`` (every name of :data:`physics.iv.METRIC_NAMES`, None for NaN),
+    ``metrics`` (every name of :data:`wellwright.physics.iv.METRIC_NAMES`, None for NaN),
     ``params`` (parameter name -> value), ``layers`` (name, material,
     label, x, thickness_ml, thickness_nm, doping_cm3; contacts have no
     thickness), ``active_thickness_nm`` and ``stack`` (a stack dictionary for
-    :func:`physics.stack.parse_stack`).
+    :func:`wellwright.physics.stack.parse_stack`).
     """
     a = trial.user_attrs
     rec: dict[str, Any] = {"trial": trial.number, "feasible": bool(a.get("feasible", False))}
@@ -304,8 +347,8 @@ def write_outputs(
     study: Study, ostudy: optuna.Study, result: SearchResult, complete: list[FrozenTrial]
 ) -> None:
     """Write designs.csv/json, growth sheets, history/Pareto/importance figures and the best I-V."""
-    from . import search_figures
-    from .outputs import write_csv, write_json
+    from wellwright.optimize.search import figures as search_figures
+    from wellwright.optimize.shared.outputs import write_csv, write_json
 
     out = result.out_dir
     files = result.files
@@ -350,13 +393,13 @@ def write_outputs(
     best = result.best
     if best is not None:
         try:
-            from .figures import iv_figures
+            from wellwright.optimize.shared.figures import iv_figures
         except ImportError:
             result.notes.append(
-                "I-V figures of the best design skipped (optimize.figures not available)"
+                "I-V figures of the best design skipped (wellwright.optimize.shared.figures not available)"
             )
         else:
-            from physics.iv import stack_iv
+            from wellwright.physics.iv import stack_iv
 
             stack = study.stack(best["params"])
             curves = stack_iv(stack, study.sweep.bias_v)

@@ -6,31 +6,56 @@ import argparse
 import os
 from pathlib import Path
 
-from .pipeline import METHODS, run_pipeline
+from wellwright.optimize.cli.pipeline import METHODS, run_pipeline
 
 
 def add_run_options(p: argparse.ArgumentParser) -> None:
     """Options shared by ``run`` (all of them) and ``demo`` (none: it uses its scenario's)."""
-    p.add_argument("--trials", type=int, metavar="N",
-                   help="complete search trials the study should hold (default: [search] trials)")
-    p.add_argument("--designs", type=int, metavar="K",
-                   help="top designs to check against growth and report (default: [report] "
-                   "designs, else 2)")
-    p.add_argument("--samples", type=int, metavar="N",
-                   help="Monte Carlo samples per design, also the Sobol/Morris budget "
-                   "(default: [report] samples, else 128)")
-    p.add_argument("--method", choices=METHODS,
-                   help="sensitivity method: sobol, morris (cheap screening) or mc (yield only) "
-                   "(default: [report] method, else sobol)")
-    p.add_argument("--seed", type=int, metavar="S",
-                   help="seed of the tolerance stage (default: [report] seed, else 0); the search "
-                   "uses [search] seed")
+    p.add_argument(
+        "--trials",
+        type=int,
+        metavar="N",
+        help="complete search trials the study should hold (default: [search] trials)",
+    )
+    p.add_argument(
+        "--designs",
+        type=int,
+        metavar="K",
+        help="top designs to check against growth and report (default: [report] designs, else 2)",
+    )
+    p.add_argument(
+        "--samples",
+        type=int,
+        metavar="N",
+        help="Monte Carlo samples per design, also the Sobol/Morris budget "
+        "(default: [report] samples, else 128)",
+    )
+    p.add_argument(
+        "--method",
+        choices=METHODS,
+        help="sensitivity method: sobol, morris (cheap screening) or mc (yield only) "
+        "(default: [report] method, else sobol)",
+    )
+    p.add_argument(
+        "--seed",
+        type=int,
+        metavar="S",
+        help="seed of the tolerance stage (default: [report] seed, else 0); the search "
+        "uses [search] seed",
+    )
     p.add_argument("--workers", type=int, metavar="K", help="search processes sharing the study")
-    p.add_argument("--storage", metavar="URL",
-                   help="SQLAlchemy URL of the search study, e.g. postgresql+psycopg2://user@host/db "
-                   "(default: SQLite file DIR/search/study.db)")
-    p.add_argument("--jobs", type=int, metavar="J",
-                   help="processes for the tolerance samples (default: all cores)")
+    p.add_argument(
+        "--storage",
+        metavar="URL",
+        help="SQLAlchemy URL of the search study, e.g. postgresql+psycopg2://user@host/db "
+        "(default: SQLite file DIR/search/study.db)",
+    )
+    p.add_argument(
+        "--jobs",
+        type=int,
+        metavar="J",
+        help="processes for the tolerance samples (default: all cores)",
+    )
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -42,8 +67,10 @@ def register(sub: argparse._SubParsersAction) -> None:
         "DIR/report.html. Rerunning the same command skips finished stages and resumes the "
         "search from its storage; a changed study file reruns what depends on it.",
     )
-    p.add_argument("study", help="study file (TOML) with ranges, [targets] and optionally "
-                   "[growth] and [report]")
+    p.add_argument(
+        "study",
+        help="study file (TOML) with ranges, [targets] and optionally [growth] and [report]",
+    )
     p.add_argument("--out", metavar="DIR", help="run folder (default: <study name>_run)")
     add_run_options(p)
     p.add_argument("--no-progress", action="store_true", help="no progress bars")
@@ -64,12 +91,11 @@ def overrides(args: argparse.Namespace) -> dict:
 
 
 def run(args: argparse.Namespace) -> int:
-    from .search import check_storage_url
+    from wellwright.optimize.search.engine import check_storage_url
 
     if args.storage is not None:
         check_storage_url(args.storage)
     out = Path(args.out) if args.out else Path(f"{Path(args.study).stem}_run")
-    run_pipeline(args.study, out_dir=out, settings=overrides(args),
-                 progress=not args.no_progress)
+    run_pipeline(args.study, out_dir=out, settings=overrides(args), progress=not args.no_progress)
     print(f"report: {(out / 'report.html').resolve()}")
     return 0

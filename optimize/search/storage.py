@@ -21,11 +21,10 @@ from typing import TYPE_CHECKING, Any
 
 import optuna
 from optuna.trial import FrozenTrial, TrialState
-
-from physics.errors import InputError
+from wellwright.physics.errors import InputError
 
 if TYPE_CHECKING:
-    from .study import Study
+    from wellwright.optimize.study.study import Study
 
 __all__ = [
     "storage_url",

@@ -1,11 +1,11 @@
 """Growth tolerance of a design: Monte Carlo yield, Sobol and Morris ranking, tornado, allocation.
 
-Every as-grown sample comes from :mod:`optimize.growth` and goes through the
-same physics as the search (:func:`physics.iv.sweep`), many stacks per call,
+Every as-grown sample comes from :mod:`wellwright.optimize.study.growth` and goes through the
+same physics as the search (:func:`wellwright.physics.iv.sweep`), many stacks per call,
 batches spread over processes with joblib (loky by default, or any joblib
 backend such as dask's).
 
-The spec is the study's ``[targets]`` windows (:class:`optimize.targets.Spec`,
+The spec is the study's ``[targets]`` windows (:class:`wellwright.optimize.study.targets.Spec`,
 re-exported here): a sample passes when every figure of merit named there
 lies in its window (NaN, no NDR in the sweep, fails). The plain record this module produces (``tolerance.json``) is
 described in :func:`run_tolerance`.
@@ -28,12 +28,10 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-
-from physics.iv import METRIC_NAMES, sweep
-from physics.stack import LayerTable, ModelOptions, Stack
-
-from .growth import GrowthModel, as_generator
-from .targets import Spec  # re-exported: the pass/fail form of [targets]
+from wellwright.optimize.study.growth import GrowthModel, as_generator
+from wellwright.optimize.study.targets import Spec  # re-exported: the pass/fail form of [targets]
+from wellwright.physics.iv import METRIC_NAMES, sweep
+from wellwright.physics.stack import LayerTable, ModelOptions, Stack
 
 __all__ = [
     "Spec",
@@ -316,7 +314,7 @@ def sobol_analysis(
     """Sobol indices of each figure of merit and of pass/fail w.r.t. every growth parameter.
 
     Uses the deterministic island model (``islands="nearest"``, see
-    :mod:`optimize.growth`). A figure of merit that is NaN (no NDR) in some
+    :mod:`wellwright.optimize.study.growth`). A figure of merit that is NaN (no NDR) in some
     sample is skipped with a note. Returns ``sobol`` (name -> ordered list),
     ``notes`` and ``evaluations``; with ``second_order`` (``N (2 D + 2)``
     evaluations instead of ``N (D + 2)``) also ``sobol_second_order`` (name ->
@@ -664,7 +662,7 @@ def write_outputs(
 ) -> dict[str, str]:
     """``tolerance.json``, ``samples.csv``, ``sobol_<metric>.csv``, ``tornado.csv``,
     ``allocation.csv`` and the PNG figures, each written to a temporary name and renamed."""
-    from .outputs import write_csv, write_json
+    from wellwright.optimize.shared.outputs import write_csv, write_json
 
     files = {}
     n = mc["passed"].size
@@ -722,7 +720,7 @@ def write_outputs(
         )
     )
     if figures:
-        from . import tolerance_figures as tf
+        from wellwright.optimize.tolerance import figures as tf
 
         files.update(tf.save_all(record, mc, out))
     record["files"] = files

@@ -6,18 +6,13 @@ in ``physics``. Colours are the Okabe-Ito colour-blind-safe palette.
 
 from __future__ import annotations
 
-import matplotlib
-
-matplotlib.use("Agg")
-
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-
-from physics.current import contact_fermi_levels_ev  # noqa: E402
-from physics.iv import IVCurves, band_profile  # noqa: E402
-from physics.resonances import find_resonances  # noqa: E402
-from physics.stack import Stack  # noqa: E402
-from physics.transmission import transmission  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+from wellwright.physics.current import contact_fermi_levels_ev
+from wellwright.physics.iv import IVCurves, band_profile
+from wellwright.physics.resonances import find_resonances
+from wellwright.physics.stack import Stack
+from wellwright.physics.transmission import transmission
 
 __all__ = [
     "PALETTE",
@@ -246,7 +241,7 @@ def iv_figures(
     """Write the three standard figures of one design; returns ``{name: path}``."""
     from pathlib import Path
 
-    from .outputs import save_figure
+    from wellwright.optimize.shared.outputs import save_figure
 
     out = Path(out_dir)
     m = curves.metrics_of(i)

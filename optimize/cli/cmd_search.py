@@ -6,16 +6,15 @@ import argparse
 import sys
 from pathlib import Path
 
-from physics.errors import InputError
-
-from .search import check_storage_url, run_search
-from .study import (
+from wellwright.optimize.search.engine import check_storage_url, run_search
+from wellwright.optimize.study.study import (
     MAX_ROBUST_SAMPLES,
     MAX_TRIALS,
     MAX_WORKERS,
     MIN_ROBUST_SAMPLES,
     load_study,
 )
+from wellwright.physics.errors import InputError
 
 
 def register(sub: argparse._SubParsersAction) -> None:

@@ -2,9 +2,9 @@
 
 With ``[search] robust = true`` (or ``wellwright search --robust``) every
 design the search proposes is grown ``robust_samples`` times on paper
-(:mod:`optimize.growth`, the study's ``[growth]`` spreads and the layers' own
+(:mod:`wellwright.optimize.study.growth`, the study's ``[growth]`` spreads and the layers' own
 ``growth`` tables) and the fraction of as-grown samples meeting the
-``[targets]`` windows (:class:`optimize.targets.Spec`) is its yield, stored
+``[targets]`` windows (:class:`wellwright.optimize.study.targets.Spec`) is its yield, stored
 with its Wilson interval as the trial attribute ``yield``. The search then
 prefers designs that survive growth over designs that are only nominally best
 (for example one whose peak current density sits at the edge of its window).
@@ -25,18 +25,18 @@ error on ``barrier1``, the same ``AlAs.rate`` error, and so on.
 Evaluation
 ----------
 All samples of one design are the rows of one
-:class:`physics.stack.LayerTable`, evaluated in one batched
-:func:`physics.iv.sweep` call per trial.
+:class:`wellwright.physics.stack.LayerTable`, evaluated in one batched
+:func:`wellwright.physics.iv.sweep` call per trial.
 
 Objective and ranking
 ---------------------
 The Optuna value a robust search minimises is :func:`robust_value`:
 ``(1 - yield)`` plus a tie-break from the nominal score
-(:func:`optimize.targets.single_score`) smaller than one sample's worth of
+(:func:`wellwright.optimize.study.targets.single_score`) smaller than one sample's worth of
 yield, so designs are ordered by yield first and, at equal yield, by how well
 their nominal figures meet the spec (this also gives the sampler a gradient
 while every design it has seen still has zero yield).
-:func:`optimize.designs.rank_trials` ranks by yield, then nominal score.
+:func:`wellwright.optimize.search.designs.rank_trials` ranks by yield, then nominal score.
 
 References
 ----------
@@ -48,19 +48,11 @@ from __future__ import annotations
 import math
 import zlib
 from collections.abc import Sequence
-from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
-
-from physics.errors import InputError
-from physics.stack import Stack
-
-from .growth import GrowthSettings, parse_growth
-from .targets import Spec
-
-if TYPE_CHECKING:
-    from .study import Study
+from wellwright.optimize.study.study import RobustPlan, check_robust
+from wellwright.physics.stack import Stack
 
 __all__ = [
     "RobustPlan",
@@ -69,55 +61,6 @@ __all__ = [
     "design_yields",
     "robust_value",
 ]
-
-
-@dataclass(frozen=True)
-class RobustPlan:
-    """What a robust search needs besides the study: spreads, spec, samples, seed (plain data)."""
-
-    settings: GrowthSettings
-    per_layer: dict[str, GrowthSettings] = field(default_factory=dict)
-    spec: Spec = Spec(())
-    samples: int = 32
-    seed: int = 0
-
-
-def check_robust(study: Study) -> RobustPlan:
-    """Validate what a robust search of ``study`` needs and return its plan.
-
-    Raises
-    ------
-    InputError
-        When the study has no target window (a yield needs one), pushes two
-        or more objectives (a robust search has one objective, the yield), or
-        has a bad ``[growth]`` entry (naming the key and the allowed form).
-    """
-    if not study.targets:
-        raise InputError(
-            "a robust search needs at least one window (e.g. pvcr = {min = 3}) for the yield",
-            source=study.source,
-            key="targets",
-        )
-    if study.multi_objective:
-        raise InputError(
-            "a robust search has one objective, the yield; list at most one figure of merit "
-            "in maximize/minimize (it breaks ties between equal yields)",
-            source=study.source,
-            key="search.robust",
-        )
-    settings, per_layer = parse_growth(
-        study.reserved.get("growth"),
-        study.layer_growth,
-        layer_names=study.layer_names,
-        source=study.source,
-    )
-    return RobustPlan(
-        settings=settings,
-        per_layer=per_layer,
-        spec=Spec.from_windows(study.targets),
-        samples=study.search.robust_samples,
-        seed=study.search.seed,
-    )
 
 
 def _stream(seed: int, label: str) -> np.random.Generator:
@@ -149,14 +92,13 @@ def design_yields(
 ) -> list[dict[str, Any]]:
     """Monte Carlo yield of each design with common random numbers (one sweep call per design).
 
-    Returns, per stack, :func:`optimize.tolerance.yield_record` (``value``,
+    Returns, per stack, :func:`wellwright.optimize.tolerance.analysis.yield_record` (``value``,
     ``ci_low``, ``ci_high``, ``samples``, ``passed``, ``confidence``) plus
     ``failures``: per window, the samples missing it.
     """
-    from physics.iv import sweep
-
-    from .growth import growth_model
-    from .tolerance import yield_record
+    from wellwright.optimize.study.growth import growth_model
+    from wellwright.optimize.tolerance.analysis import yield_record
+    from wellwright.physics.iv import sweep
 
     out = []
     for stack in stacks:
@@ -184,7 +126,7 @@ def robust_value(yield_value: float, score: float, *, samples: int) -> float:
     -----
     ``t(s) = (s + 1) / (s + 2)`` maps the nominal single-objective score
     ``s`` (in ``(-1, 0]`` on spec, ``> 0`` off spec; see
-    :func:`optimize.targets.single_score`) monotonically into ``(0, 1)``
+    :func:`wellwright.optimize.study.targets.single_score`) monotonically into ``(0, 1)``
     (1 for NaN). Divided by ``samples + 1`` it stays below one sample's worth
     of yield (``1 / samples``), so it only orders designs of equal yield.
     """

@@ -17,7 +17,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from .report import build_report
+    from wellwright.optimize.report.build import build_report
 
     path = build_report(args.dir)
     print(f"report: {path.resolve()}")

@@ -1,0 +1,1 @@
+"""Calibration against a measured I-V."""

@@ -1,0 +1,7 @@
+"""``python -m wellwright.optimize.cli``: the ``wellwright`` command."""
+
+import sys
+
+from wellwright.optimize.cli.app import main
+
+sys.exit(main())

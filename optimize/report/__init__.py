@@ -1,0 +1,1 @@
+"""The self-contained HTML report, built from a run folder."""

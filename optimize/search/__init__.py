@@ -1,0 +1,1 @@
+"""The design search: the Optuna engine, its storage, design records and the robust objective."""

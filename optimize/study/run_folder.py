@@ -1,0 +1,73 @@
+"""The record of a run folder: ``pipeline.json``, the study copy, stage fingerprints.
+
+Written by :mod:`wellwright.optimize.cli.pipeline`, read by the report; kept
+here, below both, so that the report never imports the pipeline.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import tomllib
+from pathlib import Path
+from typing import Any
+
+from wellwright.optimize.study.study import Study, parse_study
+from wellwright.physics.errors import InputError
+
+PIPELINE_FILE = "pipeline.json"
+STUDY_COPY = "study.toml"
+FORMAT_VERSION = 1
+
+
+def fingerprint(*parts: Any) -> str:
+    h = hashlib.sha256()
+    for p in parts:
+        h.update(p if isinstance(p, bytes) else json.dumps(p, sort_keys=True, default=str).encode())
+        h.update(b"\0")
+    return h.hexdigest()[:16]
+
+
+def study_from_text(text: str, *, source: str, name: str, base_dir: str | Path) -> Study:
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc})", source=source) from None
+    return parse_study(data, source=source, name=name, base_dir=base_dir)
+
+
+def load_run(run_dir: str | Path) -> dict[str, Any]:
+    """The ``pipeline.json`` record of a run folder.
+
+    Raises
+    ------
+    InputError
+        When ``run_dir`` is not a folder made by ``wellwright run``.
+    """
+    d = Path(run_dir)
+    path = d / PIPELINE_FILE
+    if not d.is_dir():
+        raise InputError("not a folder; give the output folder of 'wellwright run'", source=str(d))
+    if not path.is_file() or not (d / STUDY_COPY).is_file():
+        raise InputError(
+            f"not a run folder (no {PIPELINE_FILE} and {STUDY_COPY}); "
+            "make one with 'wellwright run STUDY.toml --out DIR'",
+            source=str(d),
+        )
+    try:
+        rec = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, json.JSONDecodeError) as exc:
+        raise InputError(f"unreadable ({exc})", source=str(path)) from None
+    if not isinstance(rec, dict) or rec.get("format") != FORMAT_VERSION:
+        raise InputError("not a pipeline record of this wellwright version", source=str(path))
+    return rec
+
+
+def study_from_run(run_dir: str | Path, record: dict[str, Any]) -> Study:
+    """The study of a run, from the copy the run keeps (the original may have moved)."""
+    d = Path(run_dir)
+    text = (d / STUDY_COPY).read_text(encoding="utf-8")
+    origin = record["study"]
+    return study_from_text(
+        text, source=origin["path"], name=origin["name"], base_dir=Path(origin["path"]).parent
+    )

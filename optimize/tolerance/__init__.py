@@ -1,0 +1,1 @@
+"""Growth tolerance: Monte Carlo yield, Sobol and Morris ranking, tornado, allocation."""

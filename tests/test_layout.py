@@ -1,0 +1,129 @@
+"""The house rules of the package layout, read from the source (no imports run).
+
+- ``wellwright.physics`` never imports ``wellwright.optimize``, matplotlib or Optuna.
+- The stages of ``wellwright.optimize`` import only downwards, in the order of
+  ``STAGE_ORDER`` (DEVELOPERS.md explains the cut): a stage may import itself and
+  any stage before it.
+- No import cycle between modules, counting imports at module level, inside
+  functions and under ``TYPE_CHECKING``.
+"""
+
+from __future__ import annotations
+
+import ast
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+ROOTS = {"wellwright.physics": REPO / "physics", "wellwright.optimize": REPO / "optimize"}
+#: Lowest first. physics below everything; cli on top.
+STAGE_ORDER = (
+    "wellwright.physics",
+    "wellwright.optimize.shared",
+    "wellwright.optimize.study",
+    "wellwright.optimize.tolerance",
+    "wellwright.optimize.search",
+    "wellwright.optimize.calibrate",
+    "wellwright.optimize.report",
+    "wellwright.optimize.cli",
+)
+
+
+def _modules() -> dict[str, Path]:
+    out = {}
+    for pkg, root in ROOTS.items():
+        for path in root.rglob("*.py"):
+            rel = path.relative_to(root).with_suffix("").parts
+            if rel[-1] == "__init__":
+                rel = rel[:-1]
+            out[".".join((pkg, *rel))] = path
+    return out
+
+
+def _imports(name: str, path: Path, known: set[str]) -> set[str]:
+    """Project modules imported anywhere in the file (absolute and relative)."""
+    tree = ast.parse(path.read_text(encoding="utf-8"))
+    is_pkg = path.name == "__init__.py"
+    base = name.split(".") if is_pkg else name.split(".")[:-1]
+    found = set()
+    for node in ast.walk(tree):
+        targets = []
+        if isinstance(node, ast.Import):
+            targets = [a.name for a in node.names]
+        elif isinstance(node, ast.ImportFrom):
+            if node.level:
+                anchor = base[: len(base) - node.level + 1]
+                mod = ".".join(anchor + ([node.module] if node.module else []))
+            else:
+                mod = node.module or ""
+            targets = [mod] + [f"{mod}.{a.name}" for a in node.names]
+        for t in targets:
+            while t and t not in known:
+                t = t.rpartition(".")[0]
+            if t and t != name and t not in ROOTS and not name.startswith(t + "."):
+                found.add(t)
+    return found
+
+
+def _graph() -> dict[str, set[str]]:
+    mods = _modules()
+    known = set(mods)
+    return {m: _imports(m, p, known) for m, p in mods.items()}
+
+
+def _stage(module: str) -> int:
+    if module == "wellwright.optimize":  # the facade re-exports every stage's public names
+        return len(STAGE_ORDER)
+    best = -1
+    for i, prefix in enumerate(STAGE_ORDER):
+        if module == prefix or module.startswith(prefix + "."):
+            best = i
+    return best
+
+
+def test_no_import_cycles():
+    graph = _graph()
+    state: dict[str, int] = {}
+    cycles = []
+
+    def visit(node, trail):
+        state[node] = 1
+        for nxt in sorted(graph[node]):
+            if state.get(nxt) == 1:
+                cycles.append(trail[trail.index(nxt) :] + [nxt] if nxt in trail else [node, nxt])
+            elif nxt not in state:
+                visit(nxt, trail + [nxt])
+        state[node] = 2
+
+    for node in sorted(graph):
+        if node not in state:
+            visit(node, [node])
+    assert not cycles, "import cycles: " + "; ".join(" -> ".join(c) for c in cycles)
+
+
+def test_stages_import_only_downwards():
+    wrong = []
+    for module, deps in _graph().items():
+        here = _stage(module)
+        for dep in deps:
+            if _stage(dep) > here:
+                wrong.append(f"{module} -> {dep}")
+    assert not wrong, "imports that climb a stage: " + ", ".join(sorted(wrong))
+
+
+def test_physics_is_pure_numerics():
+    banned = ("matplotlib", "optuna", "SALib", "joblib", "tqdm", "wellwright.optimize")
+    bad = []
+    for path in (REPO / "physics").rglob("*.py"):
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        for node in ast.walk(tree):
+            mods = []
+            if isinstance(node, ast.Import):
+                mods = [a.name for a in node.names]
+            elif isinstance(node, ast.ImportFrom) and not node.level:
+                mods = [node.module or ""]
+            bad += [f"{path.name}: {m}" for m in mods if m.startswith(banned)]
+    assert not bad, bad
+
+
+def test_every_module_belongs_to_a_stage():
+    assert all(_stage(m) >= 0 for m in _graph())
