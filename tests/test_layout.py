@@ -127,3 +127,19 @@ def test_physics_is_pure_numerics():
 
 def test_every_module_belongs_to_a_stage():
     assert all(_stage(m) >= 0 for m in _graph())
+
+
+def test_installed_under_wellwright_only(tmp_path):
+    """After install, `import wellwright.physics` works and the bare names do not (issue: generic
+    top-level names collide with other packages). Run from a folder outside the repository."""
+    import subprocess
+    import sys
+
+    code = (
+        "import importlib.util, wellwright.physics, wellwright.optimize;"
+        "print(importlib.util.find_spec('physics') is None, importlib.util.find_spec('optimize') is None)"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", code], cwd=tmp_path, capture_output=True, text=True, check=True
+    )
+    assert out.stdout.split() == ["True", "True"]
