@@ -21,6 +21,17 @@ Status of the numbers (checked against public copies):
   AlAsSb entry); that one is still from memory. Where this module applies no
   bowing (linear in x), [5]_ gives none for that parameter either; whether
   [1]_ recommends a mass or Ep bowing for GaAsSb and AlAsSb is not checked.
+- X and L valleys: the X and L gaps (minimum above the VBM, 0 K, with Varshni
+  alpha and beta) of every binary are the values of the binary tables of [1]_
+  (one table per binary in its Sec. III, GaAs first; table numbering and
+  pages from memory, the tables not seen), checked against [5]_ like the
+  rest; the exceptions are named at each entry (AlSb's X and L Varshni alphas
+  are swapped between two versions of [5]_; InSb's X gap, 0.63 eV, is from
+  memory of [1]_ and unconfirmed: [5]_ takes it from other sources). Their
+  bowings (AlGaAs X 0.055 eV; InGaAs X 1.4, L 0.33; GaAsSb X and L 1.2;
+  AlAsSb X and L 0.28; InAlAs none, linear) agree with [5]_. [1]_ gives no
+  deformation potentials for the X and L valleys of these materials, so no
+  strain shift is applied to them (see :func:`physics.materials.material_parameters`).
 - Static permittivities are not in [1]_; they are from memory of Adachi [2]_.
   Adachi's tables were not found in a public copy. GaAs, AlAs, InAs, GaSb and
   InSb agree with the Ioffe Institute archive [6]_ (GaSb to its quoted 15.7);
@@ -120,6 +131,12 @@ class BinaryData:
     c11_gpa: float  #: elastic constant c11
     c12_gpa: float  #: elastic constant c12
     deformation_ac_ev: float  #: conduction-band hydrostatic deformation potential a_c
+    gap_x_0k_ev: float  #: X-valley gap (X minimum above the VBM) at 0 K
+    varshni_alpha_x_mev_per_k: float  #: Varshni alpha (X gap)
+    varshni_beta_x_k: float  #: Varshni beta (X gap)
+    gap_l_0k_ev: float  #: L-valley gap at 0 K
+    varshni_alpha_l_mev_per_k: float  #: Varshni alpha (L gap)
+    varshni_beta_l_k: float  #: Varshni beta (L gap)
     permittivity_r: float  #: static relative permittivity (from [2], not [1])
     source: str = _BINARY_SOURCE
 
@@ -147,7 +164,8 @@ class TernaryData:
 # each checked against openbandparams [5] (which cites [1] for every one of
 # them): all agree, none changed. permittivity_r from memory of Adachi [2],
 # compared with the Ioffe archive [6] as noted per binary. The Al compounds
-# (AlAs, AlSb) are indirect: only their Gamma valley is described here.
+# (AlAs, AlSb) are indirect: their X minimum lies below the Gamma one. Only the
+# Gamma valley carries current in the model; X and L edges are reported.
 BINARIES: Mapping[str, BinaryData] = MappingProxyType(
     {
         # GaAs: all [1] fields checked against openbandparams [5], all agree.
@@ -164,6 +182,13 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=1221.0,
             c12_gpa=566.0,
             deformation_ac_ev=-7.17,
+            # X/L valleys: X and L agree with [5]
+            gap_x_0k_ev=1.981,
+            varshni_alpha_x_mev_per_k=0.46,
+            varshni_beta_x_k=204.0,
+            gap_l_0k_ev=1.815,
+            varshni_alpha_l_mev_per_k=0.605,
+            varshni_beta_l_k=204.0,
             permittivity_r=12.90,  # Ioffe [6]: 12.90
             source=_binary_source(_PERMITTIVITY_AGREES),
         ),
@@ -181,6 +206,13 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=1250.0,
             c12_gpa=534.0,
             deformation_ac_ev=-5.64,
+            # X/L valleys: X and L agree with [5]
+            gap_x_0k_ev=2.24,
+            varshni_alpha_x_mev_per_k=0.7,
+            varshni_beta_x_k=530.0,
+            gap_l_0k_ev=2.46,
+            varshni_alpha_l_mev_per_k=0.605,
+            varshni_beta_l_k=204.0,
             permittivity_r=10.06,  # Ioffe [6]: 10.06 (AlGaAs end point)
             source=_binary_source(_PERMITTIVITY_AGREES),
         ),
@@ -198,6 +230,13 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=832.9,
             c12_gpa=452.6,
             deformation_ac_ev=-5.08,
+            # X/L valleys: X and L agree with the later [5] (the 2013 one used other sources)
+            gap_x_0k_ev=1.433,
+            varshni_alpha_x_mev_per_k=0.276,
+            varshni_beta_x_k=93.0,
+            gap_l_0k_ev=1.133,
+            varshni_alpha_l_mev_per_k=0.276,
+            varshni_beta_l_k=93.0,
             permittivity_r=15.15,  # Ioffe [6]: 15.15 (InAsSb end point)
             source=_binary_source(_PERMITTIVITY_AGREES),
         ),
@@ -215,6 +254,13 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=1011.0,
             c12_gpa=561.0,
             deformation_ac_ev=-6.0,
+            # X/L valleys: X and L agree with [5]; X gap linear in T, beta = 0
+            gap_x_0k_ev=2.384,
+            varshni_alpha_x_mev_per_k=0.37,
+            varshni_beta_x_k=0.0,
+            gap_l_0k_ev=2.014,
+            varshni_alpha_l_mev_per_k=0.363,
+            varshni_beta_l_k=162.0,
             permittivity_r=12.61,  # Ioffe [6] gives 12.5: unconfirmed, from memory
             source=_binary_source(_PERMITTIVITY_INP),
         ),
@@ -232,6 +278,13 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=884.2,
             c12_gpa=402.6,
             deformation_ac_ev=-7.5,
+            # X/L valleys: X and L agree with [5]
+            gap_x_0k_ev=1.141,
+            varshni_alpha_x_mev_per_k=0.475,
+            varshni_beta_x_k=94.0,
+            gap_l_0k_ev=0.875,
+            varshni_alpha_l_mev_per_k=0.597,
+            varshni_beta_l_k=140.0,
             permittivity_r=15.69,  # Ioffe [6]: 15.7, agrees to its rounding
             source=_binary_source(f"{_PERMITTIVITY_AGREES} (15.7, to its rounding)"),
         ),
@@ -249,6 +302,14 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=876.9,
             c12_gpa=434.1,
             deformation_ac_ev=-4.5,
+            # X/L valleys: X and L gaps agree with [5]; alpha_X 0.39 and alpha_L 0.58 as in the 2013
+            # [5] and from memory of [1], the later [5] swaps them
+            gap_x_0k_ev=1.696,
+            varshni_alpha_x_mev_per_k=0.39,
+            varshni_beta_x_k=140.0,
+            gap_l_0k_ev=2.329,
+            varshni_alpha_l_mev_per_k=0.58,
+            varshni_beta_l_k=140.0,
             permittivity_r=12.04,  # no public value found: from memory
             source=_binary_source(_PERMITTIVITY_UNCHECKED),
         ),
@@ -266,6 +327,14 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             c11_gpa=684.7,
             c12_gpa=373.5,
             deformation_ac_ev=-6.94,
+            # X/L valleys: L 0.93 agrees with the 2013 [5]; X 0.63 from memory of [1], NOT confirmed
+            # ([5] takes X from other sources, 1.8 and 1.691); alpha, beta those of Gamma as in [5]
+            gap_x_0k_ev=0.63,
+            varshni_alpha_x_mev_per_k=0.32,
+            varshni_beta_x_k=170.0,
+            gap_l_0k_ev=0.93,
+            varshni_alpha_l_mev_per_k=0.32,
+            varshni_beta_l_k=170.0,
             permittivity_r=16.8,  # Ioffe [6]: 16.8
             source=_binary_source(_PERMITTIVITY_AGREES),
         ),
@@ -286,7 +355,9 @@ TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
             binary_x1="AlAs",
             formula=(("Al", "x"), ("Ga", "1-x"), ("As", None)),
             representative_x=(0.3,),
-            bowing=MappingProxyType({"gap_ev": (-0.127, 1.310)}),
+            bowing=MappingProxyType(
+                {"gap_ev": (-0.127, 1.310), "gap_x_ev": (0.055, 0.0), "gap_l_ev": (0.0, 0.0)}
+            ),
         ),
         # In(x)Ga(1-x)As: all six bowings checked against [5] (the mass bowing
         # 0.0091 in its 2013 ternary file and in a comment of the later one).
@@ -298,6 +369,8 @@ TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
             bowing=MappingProxyType(
                 {
                     "gap_ev": (0.477, 0.0),
+                    "gap_x_ev": (1.4, 0.0),
+                    "gap_l_ev": (0.33, 0.0),
                     "valence_band_offset_ev": (-0.38, 0.0),
                     "mass_m0": (0.0091, 0.0),
                     "kane_energy_ev": (-1.48, 0.0),
@@ -336,6 +409,8 @@ TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
             bowing=MappingProxyType(
                 {
                     "gap_ev": (1.43, 0.0),
+                    "gap_x_ev": (1.2, 0.0),
+                    "gap_l_ev": (1.2, 0.0),
                     "valence_band_offset_ev": (-1.06, 0.0),
                     "spin_orbit_ev": (0.6, 0.0),
                 }
@@ -354,6 +429,8 @@ TERNARIES: Mapping[str, TernaryData] = MappingProxyType(
             bowing=MappingProxyType(
                 {
                     "gap_ev": (0.8, 0.0),
+                    "gap_x_ev": (0.28, 0.0),
+                    "gap_l_ev": (0.28, 0.0),
                     "valence_band_offset_ev": (-1.71, 0.0),
                     "spin_orbit_ev": (0.15, 0.0),
                 }

@@ -2,9 +2,11 @@
 
 Binaries GaAs, AlAs, InAs, InP, GaSb, AlSb, InSb and the ternaries AlGaAs
 (x = Al fraction), InGaAs (x = In fraction), InAlAs (x = In fraction), GaAsSb and
-AlAsSb (x = Sb fraction). Only the Gamma valley is described: AlAs, AlSb,
-AlAsSb and AlGaAs above x of about 0.45 are indirect, and their X or L minima,
-which lie below the Gamma edge, are not modelled.
+AlAsSb (x = Sb fraction). The Gamma valley is described fully (edge, mass,
+nonparabolicity, strain); of the X and L valleys only the band edges are given
+(unstrained; [1]_ gives no X or L deformation potentials for these materials).
+AlAs, AlSb, AlAsSb and AlGaAs above x of about 0.4 are indirect: their X
+minimum lies below the Gamma edge. The transport uses the Gamma valley only.
 
 Energies are in eV on the common scale of [1]_ (InSb valence-band maximum at
 0 eV). The data and their sources are in :mod:`physics.material_data`; every
@@ -45,14 +47,17 @@ __all__ = [
     "KNOWN_MATERIALS",
     "MaterialParameters",
     "band_parameters",
+    "VALLEYS",
     "critical_thickness_nm",
     "kane_nonparabolicity_per_ev",
+    "lowest_valley",
     "lattice_constant_nm",
     "material_parameters",
     "material_table",
     "matthews_blakeslee_thickness_nm",
     "parse_material",
     "trade_name",
+    "valley_edges_ev",
     "varshni_gap_ev",
 ]
 
@@ -421,22 +426,31 @@ _PARAMETER_KEYS = (
     "c12_gpa",
     "deformation_ac_ev",
     "permittivity_r",
+    "gap_x_ev",
+    "gap_l_ev",
 )
+#: Names of the conduction-band valleys, in the order of :func:`valley_edges_ev`.
+VALLEYS = ("Gamma", "X", "L")
 
 
 def _binary_values(data: BinaryData, temperature_k: float) -> dict[str, float]:
     lattice_angstrom = data.lattice_300k_angstrom + data.lattice_expansion_angstrom_per_k * (
         temperature_k - _REFERENCE_TEMPERATURE_K
     )
-    gap = varshni_gap_ev(
-        data.gap_gamma_0k_ev,
-        alpha_ev_per_k=data.varshni_alpha_mev_per_k * 1e-3,
-        beta_k=data.varshni_beta_k,
-        temperature_k=temperature_k,
-    )
+
+    def gap(gap_0k_ev: float, alpha_mev_per_k: float, beta_k: float) -> float:
+        return float(
+            varshni_gap_ev(
+                gap_0k_ev,
+                alpha_ev_per_k=alpha_mev_per_k * 1e-3,
+                beta_k=beta_k,
+                temperature_k=temperature_k,
+            )
+        )
+
     return {
         "lattice_nm": lattice_angstrom / 10.0,
-        "gap_ev": float(gap),
+        "gap_ev": gap(data.gap_gamma_0k_ev, data.varshni_alpha_mev_per_k, data.varshni_beta_k),
         "valence_band_offset_ev": data.valence_band_offset_ev,
         "mass_m0": data.mass_gamma_m0,
         "kane_energy_ev": data.kane_energy_ev,
@@ -445,6 +459,8 @@ def _binary_values(data: BinaryData, temperature_k: float) -> dict[str, float]:
         "c12_gpa": data.c12_gpa,
         "deformation_ac_ev": data.deformation_ac_ev,
         "permittivity_r": data.permittivity_r,
+        "gap_x_ev": gap(data.gap_x_0k_ev, data.varshni_alpha_x_mev_per_k, data.varshni_beta_x_k),
+        "gap_l_ev": gap(data.gap_l_0k_ev, data.varshni_alpha_l_mev_per_k, data.varshni_beta_l_k),
     }
 
 
@@ -489,8 +505,9 @@ def band_parameters(
         ``lattice_nm`` (relaxed, at T), ``gap_ev`` (Gamma gap at T),
         ``valence_band_offset_ev`` (common scale, InSb VBM = 0), ``mass_m0``
         (Gamma), ``kane_energy_ev``, ``spin_orbit_ev``, ``c11_gpa``,
-        ``c12_gpa``, ``deformation_ac_ev`` (conduction-band hydrostatic) and
-        ``permittivity_r`` (static). Floats for a scalar or no x, arrays shaped
+        ``c12_gpa``, ``deformation_ac_ev`` (conduction-band hydrostatic),
+        ``permittivity_r`` (static), ``gap_x_ev`` and ``gap_l_ev`` (X and L
+        minima above the valence-band maximum at T). Floats for a scalar or no x, arrays shaped
         like x otherwise.
 
     Notes
@@ -499,8 +516,9 @@ def band_parameters(
     gap temperature dependence as in [1]_, Varshni form [2]_). Ternaries:
     linear in x between the binaries plus bowing,
     :math:`P(x) = x P_1 + (1 - x) P_0 - x (1 - x) C`, with the bowing parameters
-    of [1]_ (gap, VBO, mass, Ep, spin-orbit, a_c where given; the AlGaAs Gamma
-    gap bowing is :math:`C = -0.127 + 1.310 x`). The gap bowing is applied to
+    of [1]_ (gap, VBO, mass, Ep, spin-orbit, a_c, X and L gaps where given;
+    the AlGaAs Gamma gap bowing is :math:`C = -0.127 + 1.310 x`). X and L
+    gaps follow the Varshni form with their own alpha and beta from [1]_. The gap bowing is applied to
     the interpolated gap at T (bowing taken temperature independent, as in
     [1]_). Permittivities are from [3]_ (not in [1]_), linear in x. The values
     of [1]_ were transcribed from memory and have since been checked against
@@ -564,6 +582,8 @@ class MaterialParameters:
     monolayer_nm: FloatOrArray  #: a_perp / 2 (strained) or a / 2
     strain_xx: FloatOrArray  #: in-plane strain, 0 when unstrained
     permittivity_r: FloatOrArray  #: static relative permittivity
+    x_valley_ev: FloatOrArray = float("nan")  #: X-valley edge, common scale, unstrained
+    l_valley_ev: FloatOrArray = float("nan")  #: L-valley edge, common scale, unstrained
 
 
 def _pseudomorphic_strain(
@@ -623,7 +643,11 @@ def material_parameters(
     and the monolayer thickness is :math:`a_\\perp / 2` with
     :math:`a_\\perp = a (1 + \\varepsilon_{zz})`; :math:`a / 2` unstrained.
     ``gap_ev`` is the unstrained gap; the valence bands (and their strain
-    splitting) are not described. Nonparabolicity from
+    splitting) are not described. The X and L edges are
+    :math:`\\mathrm{VBO} + E_g^{X,L}(T)`, unstrained: [1]_ gives no X or L
+    deformation potentials for these materials, so their strain shift (and
+    the splitting of the X valleys under biaxial strain, which can reach
+    0.1-0.2 eV for AlAs on InP; an estimate, not computed here) is omitted. Nonparabolicity from
     :func:`kane_nonparabolicity_per_ev` with the unstrained gap and mass.
     Whether the layer is thinner than its critical thickness is not checked
     here (see :func:`critical_thickness_nm`).
@@ -654,7 +678,24 @@ def material_parameters(
         monolayer_nm=_output(monolayer),
         strain_xx=_output(eps_xx),
         permittivity_r=bulk["permittivity_r"],
+        x_valley_ev=_output(bulk["valence_band_offset_ev"] + bulk["gap_x_ev"]),
+        l_valley_ev=_output(bulk["valence_band_offset_ev"] + bulk["gap_l_ev"]),
     )
+
+
+def valley_edges_ev(params: MaterialParameters) -> dict[str, FloatOrArray]:
+    """Conduction-band edges of the Gamma, X and L valleys (common scale, eV).
+
+    Gamma with its strain shift, X and L unstrained (see
+    :func:`material_parameters`). Keys are :data:`VALLEYS`.
+    """
+    return dict(zip(VALLEYS, (params.conduction_band_ev, params.x_valley_ev, params.l_valley_ev)))
+
+
+def lowest_valley(params: MaterialParameters) -> str:
+    """Name of the lowest conduction-band valley of a scalar material: 'Gamma', 'X' or 'L'."""
+    edges = valley_edges_ev(params)
+    return min(edges, key=lambda k: float(edges[k]))
 
 
 def critical_thickness_nm(
@@ -725,9 +766,10 @@ def material_table(temperature_k: float = 300.0) -> list[dict]:
         compositions (AlGaAs x = 0.3, InGaAs 0.53 and InAlAs 0.52 lattice
         matched to InP, GaAsSb 0.49, AlAsSb 0.44; their end points are the
         binary rows). Keys: ``material`` (trade name), ``x``, ``lattice_nm``,
-        ``gap_ev``, ``conduction_band_ev``, ``mass_m0``,
-        ``nonparabolicity_per_ev``, ``monolayer_nm``, ``permittivity_r``,
-        ``source``.
+        ``gap_ev``, ``conduction_band_ev`` (Gamma edge), ``x_valley_ev``,
+        ``l_valley_ev`` (X and L edges, same scale), ``lowest_valley``,
+        ``mass_m0``, ``nonparabolicity_per_ev``, ``monolayer_nm``,
+        ``permittivity_r``, ``source``.
     """
     t = _check_temperature(temperature_k)
     entries: list[tuple[str, float | None, str]] = [
@@ -746,6 +788,9 @@ def material_table(temperature_k: float = 300.0) -> list[dict]:
                 "lattice_nm": p.lattice_nm,
                 "gap_ev": p.gap_ev,
                 "conduction_band_ev": p.conduction_band_ev,
+                "x_valley_ev": p.x_valley_ev,
+                "l_valley_ev": p.l_valley_ev,
+                "lowest_valley": lowest_valley(p),
                 "mass_m0": p.mass_m0,
                 "nonparabolicity_per_ev": p.nonparabolicity_per_ev,
                 "monolayer_nm": p.monolayer_nm,

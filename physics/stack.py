@@ -85,6 +85,9 @@ class Layer:
     monolayer_nm: float | None
     permittivity_r: float
     strain_xx: float = 0.0
+    #: X- and L-valley edges, same scale as ``conduction_band_ev`` (unstrained; None: custom)
+    x_valley_ev: float | None = None
+    l_valley_ev: float | None = None
 
     @property
     def label(self) -> str:
@@ -434,6 +437,7 @@ def _parse_layer(
         monolayer = values.get("monolayer_nm")
         permittivity = values.get("permittivity_r", 12.9)  # GaAs-like default, see docs
         strain_xx = 0.0
+        valleys: tuple[float | None, float | None] = (None, None)
     else:
         if "x" in values and not 0.0 <= values["x"] <= 1.0:
             raise err(f"{values['x']:g} outside [0, 1]", "x")
@@ -456,6 +460,7 @@ def _parse_layer(
         monolayer = values.get("monolayer_nm", float(params.monolayer_nm))
         permittivity = values.get("permittivity_r", float(params.permittivity_r))
         strain_xx = float(params.strain_xx)
+        valleys = (float(params.x_valley_ev), float(params.l_valley_ev))
 
     if not 0.001 <= mass <= 10.0:
         raise err(f"{mass:g} outside [0.001, 10]", "mass_m0")
@@ -530,4 +535,6 @@ def _parse_layer(
         monolayer_nm=None if monolayer is None else float(monolayer),
         permittivity_r=float(permittivity),
         strain_xx=strain_xx,
+        x_valley_ev=valleys[0],
+        l_valley_ev=valleys[1],
     )

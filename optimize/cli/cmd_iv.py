@@ -11,6 +11,7 @@ from wellwright.optimize.shared.outputs import json_ready, write_csv, write_json
 from wellwright.physics.errors import InputError
 from wellwright.physics.iv import external_bias_v, stack_iv
 from wellwright.physics.stack import load_stack
+from wellwright.physics.valleys import x_valley_issues, x_valley_message
 
 MAX_POINTS = 2001
 MAX_ABS_BIAS_V = 10.0
@@ -79,17 +80,31 @@ def iv_record(stack, curves) -> dict:
     return json_ready(record)
 
 
+def model_warnings(stack, metrics: dict, bias: np.ndarray) -> list[str]:
+    """Plain-line warnings about what the model leaves out for this stack (X-valley current)."""
+    peak = metrics.get("peak_voltage_v")
+    at, where = (peak, " (the peak)") if peak is not None else (float(bias[-1]), " (no peak)")
+    message = x_valley_message(x_valley_issues(stack, at), at, where=where)
+    return [message] if message else []
+
+
 def run(args) -> int:
     bias = check_sweep(args.bias_min, args.bias_max, args.points)
     stack = load_stack(args.stack)
     out = Path(args.out) if args.out else Path(f"{Path(args.stack).stem}_iv")
     curves = stack_iv(stack, bias)
     record = iv_record(stack, curves)
+    record["warnings"] = model_warnings(stack, record["metrics"], bias)
     cols = ["bias_v", "current_density_a_cm2"] + [
         k for k in ("external_bias_v", "current_ma") if k in record
     ]
     write_csv(out / "iv.csv", cols, zip(*(record[c] for c in cols)))
-    write_json(out / "metrics.json", {"stack": stack.source, "metrics": record["metrics"]})
+    write_json(
+        out / "metrics.json",
+        {"stack": stack.source, "metrics": record["metrics"], "warnings": record["warnings"]},
+    )
+    for line in record["warnings"]:
+        print(f"wellwright iv: warning: {line}", file=sys.stderr)
     if not args.no_figures:
         from wellwright.optimize.shared.figures import iv_figures
 

@@ -13,6 +13,9 @@ COLUMNS = (
     ("lattice_nm", "{:.5f}"),
     ("gap_ev", "{:.4f}"),
     ("conduction_band_ev", "{:.4f}"),
+    ("x_valley_ev", "{:.4f}"),
+    ("l_valley_ev", "{:.4f}"),
+    ("lowest_valley", "{}"),
     ("mass_m0", "{:.4f}"),
     ("nonparabolicity_per_ev", "{:.3f}"),
     ("monolayer_nm", "{:.4f}"),
@@ -52,6 +55,8 @@ def run(args) -> int:
         print("  ".join(f.format(row[n]).rjust(w) for (n, f), w in zip(COLUMNS, widths)))
     print(
         f"\nconduction_band_ev: Gamma edge on the common valence-band-offset scale at {args.temperature_k:g} K"
+        " (with strain in a stack); x_valley_ev, l_valley_ev: X and L edges on the same scale, unstrained."
+        "\nThe current is computed in the Gamma valley only: X and L valleys carry none in the model."
     )
     sources = sorted({row.get("source", "") for row in rows} - {""})
     for s in sources:

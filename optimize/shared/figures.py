@@ -13,6 +13,7 @@ from wellwright.physics.iv import IVCurves, band_profile
 from wellwright.physics.resonances import find_resonances
 from wellwright.physics.stack import Stack
 from wellwright.physics.transmission import transmission
+from wellwright.physics.valleys import indirect_edges_ev
 
 __all__ = [
     "PALETTE",
@@ -132,7 +133,7 @@ def _layer_spans(profile) -> list[tuple[float, float, int]]:
 
 
 def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
-    """Conduction-band edge at ``bias_v`` with the resonance levels and Fermi levels."""
+    """Conduction-band edges at ``bias_v`` (Gamma; X and L dashed) with resonances and Fermi levels."""
     style()
     table = stack.table()
     profile = band_profile(table, [bias_v], model=stack.model).take((0, 0))
@@ -148,7 +149,25 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     fig, ax = plt.subplots(figsize=(7.0, 4.4))
     xs = np.concatenate([[z_lo - CONTACT_DRAW_NM], bounds, [z_hi + CONTACT_DRAW_NM]])
     ys = np.concatenate([[edge[0]], edge[1:-1], [edge[-1], edge[-1]]])
-    ax.step(xs, ys, where="post", color=PALETTE["black"], lw=1.8, label="conduction-band edge")
+    ax.step(xs, ys, where="post", color=PALETTE["black"], lw=1.8, label="Γ edge (transport)")
+    x_edge, l_edge = indirect_edges_ev(stack, profile)
+    for valley_edge, name, color, dash in (
+        (x_edge, "X", "green", "--"),
+        (l_edge, "L", "purple", ":"),
+    ):
+        if np.isfinite(valley_edge).any():
+            ys_valley = np.concatenate(
+                [[valley_edge[0]], valley_edge[1:-1], [valley_edge[-1], valley_edge[-1]]]
+            )
+            ax.step(
+                xs,
+                ys_valley,
+                where="post",
+                color=PALETTE[color],
+                ls=dash,
+                lw=1.3,
+                label=f"{name} edge (no current modelled)",
+            )
     active = profile.layer_index[1:-1]
     top = float(edge[1:-1][(active > 0) & (active < profile.layer_index.max())].max())
     emitter_edge = stack.layers[0].conduction_band_ev
@@ -191,12 +210,14 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
             fontsize=8,
             va="center",
             color=PALETTE["vermillion"],
+            bbox={"fc": "white", "ec": "none", "alpha": 0.8, "pad": 0.5},  # over the X, L lines
         )
     ax.set_xlabel("position from the emitter interface (nm)")
     ax.set_ylabel("energy from emitter band edge (eV)")
     ax.set_xlim(max(xs[0], -25.0), min(xs[-1], length + 35.0))  # the active region, some contact
     ax.set_ylim(min(float(edge.min()), 0.0) - 0.1, top * 1.35 + 0.15)
-    ax.legend(loc="center left", fontsize=8)  # the emitter side above its band edge is empty
+    # below the axes: the emitter side now carries the X and L edges
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=3, fontsize=8, frameon=False)
     model = "linear drop" if stack.model.electrostatics == "linear" else "self-consistent"
     ax.set_title(title or f"band diagram at {bias_v * 1e3:.0f} mV ({model})")
     return fig
