@@ -102,9 +102,9 @@ def test_layer_override_and_strip():
     )
     m = growth_model(stack, settings, per_layer)
     sig = dict(zip(m.names, m.sigmas))
-    assert sig["barrier1.thickness"] == 0.2 and sig["barrier2.thickness"] == 0.5
+    assert sig["barrier1.thickness_ml"] == 0.2 and sig["barrier2.thickness_ml"] == 0.5
     assert sig["AlAs.rate"] == 0.02 and sig["InGaAs.rate"] == 0.02
-    assert "emitter.thickness" not in sig  # contacts have no thickness
+    assert "emitter.thickness_ml" not in sig  # contacts have no thickness
     assert {"emitter.doping", "collector.doping", "well.x"} <= set(sig)
 
 
@@ -150,7 +150,7 @@ def test_island_sampling_draws_neighbours_with_area_weights(stack):
     )
     n = 4000
     z = np.zeros((n, len(m.names)))
-    z[:, m.names.index("barrier1.thickness")] = 0.5 / 0.5  # +0.5 ML on a 5 ML barrier
+    z[:, m.names.index("barrier1.thickness_ml")] = 0.5 / 0.5  # +0.5 ML on a 5 ML barrier
     t = m.as_grown(z, seed=5)
     i = [lay.name for lay in stack.layers].index("barrier1")
     ml = t.thickness_nm[:, i] / stack.layers[i].monolayer_nm
@@ -182,3 +182,139 @@ def test_island_mean_is_area_weighted_mean_of_integer_stacks(stack):
     # the fractional-thickness current is a different (wrong) model: the exponential
     # barrier dependence makes the mean of neighbours exceed it off resonance
     assert np.max(np.abs(mean - j55) / np.abs(mean)) > 0.02
+
+
+# --------------------------------------------------------------------------- source cells
+
+CELLS_ONLY = {"thickness_ml_sigma": 0.0, "cells": {"In": {}, "Ga": {}, "Al": {}, "Si": {}}}
+
+
+def _cells_model(stack, table):
+    settings, per_layer = parse_growth(table, layer_names=[lay.name for lay in stack.layers])
+    return growth_model(stack, settings, per_layer)
+
+
+def test_cells_name_what_the_grower_controls(stack):
+    m = _cells_model(stack, {"cells": {"In": {"drift_sigma": 0.004}, "Ga": {}, "Al": {}, "Si": {}}})
+    assert set(m.names) == {
+        *(f"{n}.thickness_ml" for n in ("emitter_spacer", "barrier1", "well", "barrier2")),
+        "collector_spacer.thickness_ml",
+        "In.flux",
+        "In.flux_drift",
+        "Ga.flux",
+        "Al.flux",
+        "Si.flux",
+    }  # with cells: no per-material rate, no per-layer x or doping unless given
+    p = {q.name: q for q in m.parameters}
+    names = [lay.name for lay in stack.layers]
+    assert set(p["Al.flux"].layers) == {names.index("barrier1"), names.index("barrier2")}
+    assert set(p["Si.flux"].layers) == {0, len(names) - 1}
+    assert p["In.flux"].control == "In cell" and p["well.thickness_ml"].control == "layer well"
+
+
+def test_composition_and_thickness_from_two_fluxes_against_closed_form(stack):
+    # x = F_In / (F_In + F_Ga), growth rate proportional to F_In + F_Ga, growth time fixed
+    # (common practice of group-III-limited MBE); first order: dx = x (1 - x) (e_In - e_Ga),
+    # dt / t = x e_In + (1 - x) e_Ga (closed form, differentiating the two expressions)
+    m = _cells_model(stack, CELLS_ONLY)
+    w = [lay.name for lay in stack.layers].index("well")
+    x0, t0 = 0.53, 15.0
+    for e_in, e_ga in [(0.02, 0.0), (0.0, -0.03), (0.015, 0.01)]:
+        z = np.zeros((1, len(m.names)))
+        z[0, m.names.index("In.flux")] = e_in / 0.01
+        z[0, m.names.index("Ga.flux")] = e_ga / 0.01
+        ml, x, _ = m.grown_fields(z)
+        f_in, f_ga = x0 * (1 + e_in), (1 - x0) * (1 + e_ga)
+        assert x[0, w] == pytest.approx(f_in / (f_in + f_ga), rel=1e-12)
+        assert ml[0, w] == pytest.approx(t0 * (f_in + f_ga), rel=1e-12)
+    # first-order propagation: finite difference at a small error against the closed form
+    h = 1e-6
+    for cell, dx_de, dt_de in [("In", x0 * (1 - x0), x0), ("Ga", -x0 * (1 - x0), 1 - x0)]:
+        z = np.zeros((1, len(m.names)))
+        z[0, m.names.index(f"{cell}.flux")] = h / 0.01
+        ml, x, _ = m.grown_fields(z)
+        assert (x[0, w] - x0) / h == pytest.approx(dx_de, rel=1e-5)
+        assert (ml[0, w] / t0 - 1) / h == pytest.approx(dt_de, rel=1e-5)
+
+
+def test_dopant_cell_moves_every_doped_layer_over_its_growth_rate(stack):
+    # N = F_dopant / growth rate (common practice)
+    m = _cells_model(stack, CELLS_ONLY)
+    z = np.zeros((1, len(m.names)))
+    z[0, m.names.index("Si.flux")] = 2.0  # +10 %
+    z[0, m.names.index("Ga.flux")] = 1.0  # +1 % Ga
+    t = m.as_grown(z, islands="nearest")
+    rate = 0.53 + 0.47 * 1.01
+    assert t.doping_cm3[0, 0] == pytest.approx(2e18 * 1.10 / rate, rel=1e-12)
+    assert t.doping_cm3[0, -1] == pytest.approx(2e18 * 1.10 / rate, rel=1e-12)
+
+
+def test_layers_sharing_cells_have_correlated_compositions(stack):
+    # statistical test: the well and the collector spacer (both In0.53Ga0.47As) share the In
+    # and Ga cells: their sampled compositions correlate with r = 1 when only the cells err
+    # (model definition), and with r ~ 0 when only per-layer errors are on (|r| < 4/sqrt(n),
+    # the normal approximation of r under independence, common practice)
+    names = [lay.name for lay in stack.layers]
+    a, b = names.index("well"), names.index("collector_spacer")
+    n = 2000
+    m = _cells_model(stack, CELLS_ONLY)
+    x = m.composition(m.draw_z(n, 1))
+    assert np.std(x[:, a]) > 1e-3
+    assert np.corrcoef(x[:, a], x[:, b])[0, 1] == pytest.approx(1.0, abs=1e-12)
+    m = _cells_model(
+        stack,
+        {
+            "thickness_ml_sigma": 0.0,
+            "x_sigma": 0.005,
+            "cells": {c: {"flux_sigma": 0.0} for c in ("In", "Ga", "Al", "Si")},
+        },
+    )
+    x = m.composition(m.draw_z(n, 2))
+    assert np.std(x[:, a]) > 1e-3
+    assert abs(np.corrcoef(x[:, a], x[:, b])[0, 1]) < 4 / np.sqrt(n)
+
+
+def test_cell_drift_grows_over_the_run(stack):
+    # model definition: flux (1 + d s), s = place in the run (0 first contact, 1 last)
+    m = _cells_model(
+        stack,
+        {
+            "thickness_ml_sigma": 0.0,
+            "doping_sigma": 0.0,
+            "cells": {
+                "In": {"flux_sigma": 0, "drift_sigma": 0.01},
+                "Ga": {"flux_sigma": 0},
+                "Al": {"flux_sigma": 0},
+            },
+        },
+    )
+    assert m.names == ("In.flux_drift",)
+    x = m.composition(np.array([[1.0]]))[0]
+    assert x[0] == pytest.approx(0.53, abs=1e-12)  # start of the run
+    assert x[-1] == pytest.approx(0.53 * 1.01 / (0.53 * 1.01 + 0.47), rel=1e-12)
+    inner = x[1:-1][np.isfinite(x[1:-1])]
+    assert np.all(np.diff(inner) > 0)
+
+
+@pytest.mark.parametrize(
+    ("table", "key", "text"),
+    [
+        ({"cells": {"B": {}}}, "growth.cells.B", "unknown cell; allowed: Al, Ga, In, Si"),
+        ({"cells": {"In": {"flux": 0.01}}}, "growth.cells.In.flux", "allowed: flux_sigma"),
+        ({"cells": {"In": {"flux_sigma": 0.9}}}, "growth.cells.In.flux_sigma", "outside"),
+        ({"cells": {"In": 0.01}}, "growth.cells.In", "must be a table"),
+        ({"cells": {}}, "growth.cells", "must be a table of cells"),
+        ({"rate_sigma": 0.01, "cells": {"In": {}}}, "growth.rate_sigma", "not with"),
+        ({"cells": {"Si": {}, "Te": {}}}, "growth.cells", "more than one dopant"),
+    ],
+)
+def test_bad_cells_name_the_key(table, key, text):
+    with pytest.raises(InputError, match=text) as info:
+        parse_growth(table, source="s.toml")
+    assert info.value.key == key
+
+
+def test_a_layer_from_an_undeclared_cell_is_named(stack):
+    with pytest.raises(InputError, match="AlAs grows from the Al cell") as info:
+        _cells_model(stack, {"cells": {"In": {}, "Ga": {}}})
+    assert info.value.layer == 2

@@ -173,7 +173,7 @@ def test_same_seed_same_results_and_sobol_ranks_barriers(stack):
     assert json.dumps(r1, sort_keys=True) == json.dumps(r2, sort_keys=True)
     assert json.dumps(r1, sort_keys=True) != json.dumps(r3, sort_keys=True)
     top2 = {r["parameter"] for r in r1["sobol"]["peak_current_density_a_cm2"][:2]}
-    assert top2 == {"barrier1.thickness", "barrier2.thickness"}
+    assert top2 == {"barrier1.thickness_ml", "barrier2.thickness_ml"}
     assert set(r1["sobol"]) >= {"pass", "peak_current_density_a_cm2"}
     row = r1["sobol"]["pass"][0]
     assert set(row) == {"parameter", "first_index", "first_conf", "total_index", "total_conf"}
@@ -181,8 +181,8 @@ def test_same_seed_same_results_and_sobol_ranks_barriers(stack):
     m2 = run_tolerance(model, spec, _ToyRunner(), method="morris", samples=64, seed=3, allocate=0)
     assert json.dumps(m1, sort_keys=True) == json.dumps(m2, sort_keys=True)
     assert {r["parameter"] for r in m1["morris"]["peak_current_density_a_cm2"][:2]} == {
-        "barrier1.thickness",
-        "barrier2.thickness",
+        "barrier1.thickness_ml",
+        "barrier2.thickness_ml",
     }
 
 
@@ -199,14 +199,14 @@ def test_allocation_bisection_keeps_target_yield(stack):
         model,
         spec,
         run,
-        parameters=["barrier1.thickness"],
+        parameters=["barrier1.thickness_ml"],
         z=mc["z"],
         island_u=mc["island_u"],
         target_yield=0.9,
         steps=8,
     )
     assert a["allowed_sigma"] is not None and a["yield_at_allowed"] >= 0.9
-    j = model.names.index("barrier1.thickness")
+    j = model.names.index("barrier1.thickness_ml")
     every = [k for k, p in enumerate(model.parameters) if p.kind == "thickness"]
 
     def y(scale, idx):
@@ -278,7 +278,7 @@ def test_sobol_on_physics_ranks_barriers_for_peak_current(stack):
     model = type(model)(
         stack=model.stack,
         parameters=tuple(
-            p for p in model.parameters if p.name in ("barrier1.thickness", "well.thickness")
+            p for p in model.parameters if p.name in ("barrier1.thickness_ml", "well.thickness_ml")
         ),
         nominal=model.nominal,
         nominal_ml=model.nominal_ml,
@@ -287,8 +287,8 @@ def test_sobol_on_physics_ranks_barriers_for_peak_current(stack):
     run = Runner(np.linspace(0.0, 1.0, 21), model=stack.model, batch_size=16)
     spec = Spec((("peak_current_density_a_cm2", 1.4e5, 2.1e5),))
     s = sobol_analysis(model, spec, run, base_samples=16, seed=0)
-    assert s["sobol"]["peak_current_density_a_cm2"][0]["parameter"] == "barrier1.thickness"
-    assert s["sobol"]["peak_voltage_v"][0]["parameter"] == "well.thickness"
+    assert s["sobol"]["peak_current_density_a_cm2"][0]["parameter"] == "barrier1.thickness_ml"
+    assert s["sobol"]["peak_voltage_v"][0]["parameter"] == "well.thickness_ml"
 
 
 # --------------------------------------------------------------------------- command line

@@ -249,6 +249,13 @@ def run(args: argparse.Namespace) -> int:
                 f"{r['parameter']} {r['total_index']:.2f}" for r in rec["sobol"]["pass"][:5]
             )
         )
+    if rec.get("control_order"):
+        print(
+            "control hardest: "
+            + ", then ".join(
+                f"{c['control']} ({', '.join(c['parameters'])})" for c in rec["control_order"][:3]
+            )
+        )
     for a in rec["allocation"]:
         allowed = "-" if a["allowed_sigma"] is None else f"{a['allowed_sigma']:.3g} {a['unit']}"
         print(

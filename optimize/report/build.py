@@ -413,6 +413,26 @@ def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[st
     return "".join(body), {"rank": d["rank"], "growth_sheet": sheet, "metrics": m}
 
 
+def _control_html(record: dict[str, Any], files: Path, tag: str) -> str:
+    """What the grower controls hardest: source cells and layers, ranked (``control_order``)."""
+    order = record.get("control_order") or []
+    if not order:
+        return ""
+    write_csv(
+        files / f"control_order_{tag}.csv",
+        ["control", "score", "measure", "parameters"],
+        [[c["control"], c["score"], c["measure"], " ".join(c["parameters"])] for c in order],
+    )
+    rows = [
+        [_esc(c["control"]), f"{c['score']:.3g}", _esc(", ".join(c["parameters"]))] for c in order
+    ]
+    return (
+        f"<p><b>Control hardest</b> (per source cell and layer, by {_esc(order[0]['measure'])}): "
+        f"{_esc(order[0]['control'])} first.</p>"
+        + _table(["what the grower controls", "score", "growth parameters"], rows)
+    )
+
+
 def _growth(
     records: list[dict], figs: _Figures, files: Path, run_dir: Path, tol_dirs: list[Path]
 ) -> tuple[str, list[dict]]:
@@ -515,6 +535,7 @@ def _growth(
                 '<p class="small">No Sobol or Morris ranking in this run '
                 "(method mc, or every index zero).</p>"
             )
+        body.append(_control_html(r, files, tag))
         src = tdir / "tornado_peak_current_density_a_cm2.png"
         if figs.add_file(src, f"{tag}_tornado.png") is not None:
             body.append(

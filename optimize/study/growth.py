@@ -11,6 +11,17 @@ figures; a layer may override its own with ``growth = {...}``::
     x_sigma = 0.005              # composition, per alloy layer, absolute
     doping_sigma = 0.05          # doping, per doped layer, relative
 
+or, naming the source cells of the run (``[growth.cells]``, see "Source
+cells" below)::
+
+    [growth]
+    thickness_ml_sigma = 0.5     # random, per layer, monolayers (islands)
+    [growth.cells]               # relative one-sigma flux error of each cell
+    In = {flux_sigma = 0.01, drift_sigma = 0.005}
+    Ga = {flux_sigma = 0.01}
+    Al = {flux_sigma = 0.01}
+    Si = {flux_sigma = 0.05}     # the dopant cell of every doped layer
+
 The defaults are typical figures for molecular-beam epitaxy of III-V RTDs
 (common practice, from memory; no single published source): about half a
 monolayer of random thickness error per layer, a per cent of growth-rate
@@ -19,10 +30,14 @@ doping error. Calibrate them against the grower's own records.
 
 Variation parameters (one standard-normal coordinate ``z`` each)
 ------------------------------------------------------------------
-- ``<layer>.thickness``: random thickness error of a layer between the
+- ``<layer>.thickness_ml``: random thickness error of a layer between the
   contacts, ``sigma * z`` monolayers;
 - ``<Material>.rate``: systematic relative growth-rate error shared by every
-  layer of that material (canonical name, e.g. ``InGaAs``, ``AlAs``);
+  layer of that material (canonical name, e.g. ``InGaAs``, ``AlAs``; only
+  without ``[growth.cells]``);
+- ``<cell>.flux`` and ``<cell>.flux_drift``: relative flux error of a source
+  cell and its drift from the start to the end of the run (with
+  ``[growth.cells]``);
 - ``<layer>.x``: absolute composition error of an alloy layer (contacts
   included: their band edge sets the emitter Fermi level);
 - ``<layer>.doping``: relative doping error of a doped layer.
@@ -36,6 +51,38 @@ as-grown composition from :func:`wellwright.physics.materials.material_parameter
 (which also gives the band edge, mass, nonparabolicity and permittivity at
 that composition, strained to the stack's substrate). Doping is multiplied by
 ``max(1 + sigma z, 0.01)``.
+
+Source cells (Notes)
+--------------------
+Every III-V layer here grows group-III limited under a group-V overpressure,
+so its growth rate in monolayers per second is the sum of the fluxes of the
+group-III cells it uses and an alloy's composition is the ratio of those
+fluxes; the dopant concentration is the dopant flux over the growth rate
+(common practice of III-V molecular-beam epitaxy). A cell's as-grown flux in
+layer ``i`` is ``F_c (1 + e_c + d_c s_i)`` with ``e_c = flux_sigma * z`` its
+error for the whole run, ``d_c = drift_sigma * z'`` its drift over the run and
+``s_i`` in [0, 1] the layer's place in the run (layers grow in the file's
+order, first layer first; ``s`` is the nominal thickness grown before the
+layer's centre over the whole thickness between the contacts, 0 for the
+first contact and 1 for the last). For a layer of composition ``x`` from the
+cells A (fraction ``x`` of the group-III flux, e.g. In in In0.53Ga0.47As) and
+B (``1 - x``), with ``g_c = 1 + e_c + d_c s_i``::
+
+    x' = x g_A / (x g_A + (1 - x) g_B)        t' = t (x g_A + (1 - x) g_B)
+    N' = N g_dopant / (x g_A + (1 - x) g_B)
+
+(the growth time of each layer is the nominal one). To first order
+``dx = x (1 - x) (e_A - e_B)`` and ``dt / t = x e_A + (1 - x) e_B``. Layers
+sharing a cell move together: two In0.53Ga0.47As layers get the same
+composition error from the cells. Group-III cells: Al, Ga, In; dopant cells
+(n-type): Si, Te, Sn. A group-V alloy (GaAsSb, AlAsSb) takes its composition
+from the group-V fluxes, which are not modelled: give it ``x_sigma``.
+
+With ``[growth.cells]``, ``rate_sigma`` is not allowed (the cells set the
+rates), ``x_sigma`` defaults to 0 (the cells set the compositions; a value
+given adds an independent per-layer error), and ``doping_sigma`` defaults to
+0 when a dopant cell is declared. The per-layer ``thickness_ml_sigma``
+(random monolayer error) and the layers' own overrides stay.
 
 Island model (monolayers are discrete)
 --------------------------------------
@@ -62,6 +109,7 @@ Layers are kept at one monolayer or more.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -72,6 +120,7 @@ from wellwright.physics.stack import LayerTable, Stack
 
 __all__ = [
     "GrowthSettings",
+    "CellSettings",
     "GrowthParameter",
     "GrowthModel",
     "DEFAULT_GROWTH",
@@ -81,6 +130,9 @@ __all__ = [
     "growth_model",
     "island_mean_current",
     "ISLAND_MODES",
+    "layer_cells",
+    "GROUP_III_CELLS",
+    "DOPANT_CELLS",
 ]
 
 ISLAND_MODES = ("sample", "nearest")
@@ -94,6 +146,16 @@ GROWTH_KEYS: dict[str, tuple[float, float, str]] = {
 #: Keys a layer's own ``growth`` table may override (the rate is per material).
 LAYER_GROWTH_KEYS = ("thickness_ml_sigma", "x_sigma", "doping_sigma")
 MIN_THICKNESS_ML = 1.0
+#: Source cells a ``[growth.cells]`` table may declare (see module docstring).
+GROUP_III_CELLS = ("Al", "Ga", "In")
+DOPANT_CELLS = ("Si", "Te", "Sn")
+#: Keys of one cell: (low, high, unit).
+CELL_KEYS: dict[str, tuple[float, float, str]] = {
+    "flux_sigma": (0.0, 0.5, "relative"),
+    "drift_sigma": (0.0, 0.5, "relative, start to end of the run"),
+}
+#: flux_sigma of a cell that does not give one: the rate_sigma / doping_sigma defaults.
+DEFAULT_FLUX_SIGMA = {"group-III": 0.01, "dopant": 0.05}
 
 
 def as_generator(seed: int | np.random.Generator | None) -> np.random.Generator:
@@ -110,13 +172,33 @@ def as_generator(seed: int | np.random.Generator | None) -> np.random.Generator:
 
 
 @dataclass(frozen=True)
+class CellSettings:
+    """One source cell: relative one-sigma flux error for the run and drift over the run."""
+
+    name: str
+    flux_sigma: float
+    drift_sigma: float = 0.0
+
+    @property
+    def dopant(self) -> bool:
+        return self.name in DOPANT_CELLS
+
+
+@dataclass(frozen=True)
 class GrowthSettings:
-    """One-sigma growth errors (defaults: typical practice, see module docstring)."""
+    """One-sigma growth errors (defaults: typical practice, see module docstring).
+
+    ``cells`` (from ``[growth.cells]``) empty: the per-material rate model.
+    """
 
     thickness_ml_sigma: float = 0.5
     rate_sigma: float = 0.01
     x_sigma: float = 0.005
     doping_sigma: float = 0.05
+    cells: tuple[CellSettings, ...] = ()
+
+    def cell(self, name: str) -> CellSettings | None:
+        return next((c for c in self.cells if c.name == name), None)
 
 
 DEFAULT_GROWTH = GrowthSettings()
@@ -127,24 +209,39 @@ class GrowthParameter:
     """One variation parameter: ``deviation = sigma * z``, z standard normal.
 
     ``kind`` is ``thickness`` (monolayers), ``rate`` (relative), ``x``
-    (absolute) or ``doping`` (relative); ``layers`` are the affected layer
-    indices (several for a rate).
+    (absolute), ``doping`` (relative), ``flux`` or ``drift`` (relative, of the
+    cell ``cell``); ``layers`` are the affected layer indices (several for a
+    rate or a cell).
     """
 
     name: str
     kind: str
     sigma: float
     layers: tuple[int, ...]
+    cell: str | None = None
 
     @property
     def unit(self) -> str:
-        return {"thickness": "ML", "rate": "relative", "x": "absolute", "doping": "relative"}[
-            self.kind
-        ]
+        return "ML" if self.kind == "thickness" else "absolute" if self.kind == "x" else "relative"
+
+    @property
+    def control(self) -> str:
+        """What the grower holds to control this parameter, in words."""
+        if self.cell is not None:
+            return f"{self.cell} cell"
+        if self.kind == "rate":
+            return f"{self.name.rsplit('.', 1)[0]} growth rate"
+        return f"layer {self.name.rsplit('.', 1)[0]}"
 
 
 def _check_sigma(value: Any, key: str, *, source: str, layer: int | None) -> float:
-    lo, hi, unit = GROWTH_KEYS[key.rsplit(".", 1)[-1]]
+    return _check_range(value, GROWTH_KEYS[key.rsplit(".", 1)[-1]], key, source=source, layer=layer)
+
+
+def _check_range(
+    value: Any, bounds: tuple[float, float, str], key: str, *, source: str, layer: int | None
+) -> float:
+    lo, hi, unit = bounds
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
         raise InputError(
             f"must be a number in [{lo:g}, {hi:g}] ({unit}), got {value!r}",
@@ -179,15 +276,29 @@ def parse_growth(
     table = {} if table is None else table
     if not isinstance(table, dict):
         raise InputError("must be a table, e.g. [growth]", source=source, key="growth")
-    values = {}
+    values: dict[str, Any] = {}
     for key, value in table.items():
+        if key == "cells":
+            continue
         if key not in GROWTH_KEYS:
             raise InputError(
-                f"unknown key; allowed: {', '.join(GROWTH_KEYS)}",
+                f"unknown key; allowed: {', '.join(GROWTH_KEYS)}, [growth.cells]",
                 source=source,
                 key=f"growth.{key}",
             )
         values[key] = _check_sigma(value, f"growth.{key}", source=source, layer=None)
+    if "cells" in table:
+        cells = _parse_cells(table["cells"], source=source)
+        if "rate_sigma" in values:
+            raise InputError(
+                "not with [growth.cells]: the cells' flux_sigma sets every layer's growth rate",
+                source=source,
+                key="growth.rate_sigma",
+            )
+        values.update(cells=cells, rate_sigma=0.0)
+        values.setdefault("x_sigma", 0.0)
+        if any(c.dopant for c in cells):
+            values.setdefault("doping_sigma", 0.0)
     settings = GrowthSettings(**values)
     per_layer: dict[str, GrowthSettings] = {}
     names = list(layer_names)
@@ -221,6 +332,45 @@ def parse_growth(
     return settings, per_layer
 
 
+def _parse_cells(table: Any, *, source: str) -> tuple[CellSettings, ...]:
+    """``[growth.cells]``: cell name -> ``{flux_sigma, drift_sigma}``."""
+    allowed = GROUP_III_CELLS + DOPANT_CELLS
+    if not isinstance(table, dict) or not table:
+        raise InputError(
+            "must be a table of cells, e.g. In = {flux_sigma = 0.01}",
+            source=source,
+            key="growth.cells",
+        )
+    cells = []
+    for name, sub in table.items():
+        key = f"growth.cells.{name}"
+        if name not in allowed:
+            raise InputError(f"unknown cell; allowed: {', '.join(allowed)}", source=source, key=key)
+        if not isinstance(sub, dict):
+            raise InputError(
+                "must be a table, e.g. {flux_sigma = 0.01, drift_sigma = 0.005}",
+                source=source,
+                key=key,
+            )
+        vals = {}
+        for k, v in sub.items():
+            if k not in CELL_KEYS:
+                raise InputError(
+                    f"unknown key; allowed: {', '.join(CELL_KEYS)}", source=source, key=f"{key}.{k}"
+                )
+            vals[k] = _check_range(v, CELL_KEYS[k], f"{key}.{k}", source=source, layer=None)
+        sort = "dopant" if name in DOPANT_CELLS else "group-III"
+        vals.setdefault("flux_sigma", DEFAULT_FLUX_SIGMA[sort])
+        cells.append(CellSettings(name, **vals))
+    if sum(c.dopant for c in cells) > 1:
+        raise InputError(
+            "declares more than one dopant cell; every doped layer here is n-type from one cell",
+            source=source,
+            key="growth.cells",
+        )
+    return tuple(cells)
+
+
 def split_layer_growth(data: dict[str, Any]) -> tuple[dict[str, Any], dict[str, Any]]:
     """A stack dictionary without its layers' ``growth`` tables, and those tables by layer name.
 
@@ -246,6 +396,81 @@ def split_layer_growth(data: dict[str, Any]) -> tuple[dict[str, Any], dict[str, 
 # --------------------------------------------------------------------------- the model
 
 
+def layer_cells(material: str, x: float | None) -> tuple[tuple[str, float, bool], ...]:
+    """Group-III cells a layer grows from: ``(cell, share of the group-III flux, sets x)``.
+
+    ``In0.53Ga0.47As`` -> ``(("In", 0.53, True), ("Ga", 0.47, False))``; ``AlAs`` ->
+    ``(("Al", 1.0, False),)``; a group-V alloy (``GaAsSb``) has its one
+    group-III cell; a custom material none. ``sets x``: the cell whose share
+    is the composition ``x`` (see the module docstring; common practice).
+    """
+    from wellwright.physics.material_data import BINARIES, TERNARIES
+
+    if material in TERNARIES:
+        iii = [(el, role) for el, role in TERNARIES[material].formula if el in GROUP_III_CELLS]
+        if len(iii) == 1 or x is None:
+            return ((iii[0][0], 1.0, False),)
+        return tuple((el, x if role == "x" else 1.0 - x, role == "x") for el, role in iii)
+    if material in BINARIES:
+        return tuple(
+            (el, 1.0, False) for el in re.findall(r"[A-Z][a-z]?", material) if el in GROUP_III_CELLS
+        )
+    return ()
+
+
+@dataclass(frozen=True)
+class CellUse:
+    """How the layers of a stack use the declared cells (arrays over cells x layers)."""
+
+    names: tuple[str, ...]
+    share: np.ndarray  #: (n_cells, n_layers) nominal share of each layer's group-III flux
+    x_share: np.ndarray  #: (n_cells, n_layers) share of the cell that sets x, else 0
+    run_position: np.ndarray  #: (n_layers,) place in the run, 0 (first contact) to 1 (last)
+
+    def flux_factors(self, flux: np.ndarray, drift: np.ndarray) -> np.ndarray:
+        """``(n, n_cells, n_layers)`` as-grown over nominal flux from ``(n, n_cells)`` errors."""
+        return 1.0 + flux[:, :, None] + drift[:, :, None] * self.run_position
+
+    def rate_factor(self, g: np.ndarray) -> np.ndarray:
+        """``(n, n_layers)`` as-grown over nominal group-III rate (1 where a layer uses no cell)."""
+        used = self.share.sum(axis=0) > 0
+        return np.where(used, np.einsum("cl,ncl->nl", self.share, g), 1.0)
+
+
+def _run_position(stack: Stack) -> np.ndarray:
+    n = len(stack.layers)
+    t = np.array(
+        [0.0 if not 0 < i < n - 1 else lay.thickness_nm for i, lay in enumerate(stack.layers)]
+    )
+    total = t.sum()
+    if total <= 0:
+        return np.linspace(0.0, 1.0, n)
+    pos = (np.cumsum(t) - 0.5 * t) / total
+    pos[0], pos[-1] = 0.0, 1.0
+    return pos
+
+
+def _cell_use(stack: Stack, settings: GrowthSettings) -> CellUse:
+    iii = [c.name for c in settings.cells if not c.dopant]
+    n = len(stack.layers)
+    share = np.zeros((len(iii), n))
+    x_share = np.zeros((len(iii), n))
+    for i, layer in enumerate(stack.layers):
+        for cell, frac, sets_x in layer_cells(layer.material, layer.x):
+            if cell not in iii:
+                raise InputError(
+                    f"{layer.material} grows from the {cell} cell, which [growth.cells] does not "
+                    f"declare (declared: {', '.join(c.name for c in settings.cells)})",
+                    source=stack.source,
+                    layer=i,
+                    key="growth.cells",
+                )
+            share[iii.index(cell), i] = frac
+            if sets_x:
+                x_share[iii.index(cell), i] = frac
+    return CellUse(tuple(iii), share, x_share, _run_position(stack))
+
+
 @dataclass(frozen=True)
 class GrowthModel:
     """A nominal stack and its variation parameters; draws as-grown tables.
@@ -260,6 +485,7 @@ class GrowthModel:
         repr=False
     )  #: (n_layers,) nominal monolayer counts, NaN for contacts
     substrate_lattice_nm: float | None = None
+    cells: CellUse | None = field(default=None, repr=False)
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -277,20 +503,65 @@ class GrowthModel:
         """``(n, n_layers)`` uniforms deciding each layer's island thickness."""
         return as_generator(seed).random((n, self.nominal.n_layers))
 
+    def _deviations(self, z: np.ndarray, sigma_scale: np.ndarray | None) -> np.ndarray:
+        z = np.atleast_2d(np.asarray(z, float))
+        return z * self.sigmas * (1.0 if sigma_scale is None else np.asarray(sigma_scale, float))
+
+    def _cell_errors(self, dev: np.ndarray, kind: str) -> np.ndarray:
+        """``(n, n_cells)`` flux (or drift) errors of the group-III cells."""
+        out = np.zeros((dev.shape[0], len(self.cells.names) if self.cells else 0))
+        for j, p in enumerate(self.parameters):
+            if p.kind == kind and self.cells and p.cell in self.cells.names:
+                out[:, self.cells.names.index(p.cell)] = dev[:, j]
+        return out
+
+    def grown_fields(
+        self, z: np.ndarray, *, sigma_scale: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """As-grown monolayers (before the island step), compositions and doping factors.
+
+        Returns ``(thickness_ml, x, doping_factor)``, each ``(n, n_layers)``:
+        ``thickness_ml`` NaN for the contacts, ``x`` NaN for layers without a
+        composition, ``doping_factor`` the as-grown over nominal doping.
+        """
+        dev = self._deviations(z, sigma_scale)
+        n, n_layers = dev.shape[0], self.nominal_ml.size
+        ml = np.broadcast_to(self.nominal_ml, (n, n_layers)).copy()
+        x = np.array([np.nan if lay.x is None else lay.x for lay in self.stack.layers])
+        x = np.broadcast_to(x, (n, n_layers)).copy()
+        rate, extra = np.ones((n, n_layers)), np.zeros((n, n_layers))
+        doping = np.ones((n, n_layers))
+        if self.cells is not None:
+            g = self.cells.flux_factors(
+                self._cell_errors(dev, "flux"), self._cell_errors(dev, "drift")
+            )
+            rate = self.cells.rate_factor(g)
+            sets_x = self.cells.x_share.sum(axis=0) > 0
+            x_cells = np.einsum("cl,ncl->nl", self.cells.x_share, g) / rate
+            x = np.where(sets_x, x_cells, x)
+            doping = doping / rate
+        position = self.cells.run_position if self.cells is not None else _run_position(self.stack)
+        for j, p in enumerate(self.parameters):
+            cols = list(p.layers)
+            if p.kind == "rate":
+                rate[:, cols] += dev[:, j, None]
+            elif p.kind == "thickness":
+                extra[:, cols] += dev[:, j, None]
+            elif p.kind == "x":
+                x[:, cols] += dev[:, j, None]
+            elif p.kind == "doping" or (p.kind == "flux" and p.cell in DOPANT_CELLS):
+                doping[:, cols] *= 1.0 + dev[:, j, None]
+            elif p.kind == "drift" and p.cell in DOPANT_CELLS:
+                doping[:, cols] *= 1.0 + dev[:, j, None] * position[cols]
+        return ml * rate + extra, np.clip(x, 0.0, 1.0), np.maximum(doping, 0.01)
+
     def thickness_ml(self, z: np.ndarray, *, sigma_scale: np.ndarray | None = None) -> np.ndarray:
         """As-grown (continuous) monolayer counts ``(n, n_layers)`` before the island step."""
-        z = np.atleast_2d(np.asarray(z, float))
-        dev = z * self.sigmas * (1.0 if sigma_scale is None else np.asarray(sigma_scale, float))
-        n = z.shape[0]
-        ml = np.broadcast_to(self.nominal_ml, (n, self.nominal_ml.size)).copy()
-        rate = np.zeros_like(ml)
-        extra = np.zeros_like(ml)
-        for j, p in enumerate(self.parameters):
-            if p.kind == "rate":
-                rate[:, list(p.layers)] += dev[:, j, None]
-            elif p.kind == "thickness":
-                extra[:, list(p.layers)] += dev[:, j, None]
-        return ml * (1.0 + rate) + extra
+        return self.grown_fields(z, sigma_scale=sigma_scale)[0]
+
+    def composition(self, z: np.ndarray, *, sigma_scale: np.ndarray | None = None) -> np.ndarray:
+        """As-grown compositions ``(n, n_layers)`` (NaN for layers without one)."""
+        return self.grown_fields(z, sigma_scale=sigma_scale)[1]
 
     def as_grown(
         self,
@@ -318,39 +589,34 @@ class GrowthModel:
         """
         if islands not in ISLAND_MODES:
             raise ValueError(f"islands must be one of {ISLAND_MODES}, got {islands!r}")
-        z = np.atleast_2d(np.asarray(z, float))
-        n = z.shape[0]
-        dev = z * self.sigmas * (1.0 if sigma_scale is None else np.asarray(sigma_scale, float))
+        ml, x, doping_factor = self.grown_fields(z, sigma_scale=sigma_scale)
+        n = ml.shape[0]
         t = self.nominal
         rows = lambda a: np.broadcast_to(a[0], (n, a.shape[1])).copy()  # noqa: E731
         edge, mass, alpha = rows(t.edge_ev), rows(t.mass_m0), rows(t.nonparabolicity_per_ev)
-        perm, doping = rows(t.permittivity_r), rows(t.doping_cm3)
+        perm = rows(t.permittivity_r)
+        doping = rows(t.doping_cm3) * doping_factor
         mono = np.array(
             [np.nan if lay.monolayer_nm is None else lay.monolayer_nm for lay in self.stack.layers]
         )
         mono = np.broadcast_to(mono, (n, mono.size)).copy()
-        for j, p in enumerate(self.parameters):
-            (i, *_) = p.layers
-            if p.kind == "x":
-                layer = self.stack.layers[i]
-                x = np.clip(layer.x + dev[:, j], 0.0, 1.0)
-                mp = materials.material_parameters(
-                    layer.material,
-                    x,
-                    temperature_k=self.stack.temperature_k,
-                    substrate_lattice_nm=self.substrate_lattice_nm,
-                    strain=self.stack.model.strain,
-                )
-                edge[:, i] = mp.conduction_band_ev
-                mass[:, i] = mp.mass_m0
-                alpha[:, i] = np.asarray(mp.nonparabolicity_per_ev) * float(
-                    self.stack.model.nonparabolicity
-                )
-                perm[:, i] = mp.permittivity_r
-                mono[:, i] = mp.monolayer_nm
-            elif p.kind == "doping":
-                doping[:, i] *= np.maximum(1.0 + dev[:, j], 0.01)
-        ml = self.thickness_ml(z, sigma_scale=sigma_scale)
+        for i, layer in enumerate(self.stack.layers):
+            if layer.x is None or layer.material == "custom" or np.all(x[:, i] == layer.x):
+                continue
+            mp = materials.material_parameters(
+                layer.material,
+                x[:, i],
+                temperature_k=self.stack.temperature_k,
+                substrate_lattice_nm=self.substrate_lattice_nm,
+                strain=self.stack.model.strain,
+            )
+            edge[:, i] = mp.conduction_band_ev
+            mass[:, i] = mp.mass_m0
+            alpha[:, i] = np.asarray(mp.nonparabolicity_per_ev) * float(
+                self.stack.model.nonparabolicity
+            )
+            perm[:, i] = mp.permittivity_r
+            mono[:, i] = mp.monolayer_nm
         grown = np.isfinite(ml)
         ml_g = np.where(grown, np.maximum(ml, MIN_THICKNESS_ML), 0.0)
         if islands == "nearest":
@@ -372,6 +638,28 @@ class GrowthModel:
         )
 
 
+def _cell_parameters(stack: Stack, settings: GrowthSettings, use: CellUse) -> list[GrowthParameter]:
+    """``<cell>.flux`` and ``<cell>.flux_drift`` of every declared cell some layer uses."""
+    doped = tuple(i for i, lay in enumerate(stack.layers) if lay.doping_cm3 > 0)
+    params = []
+    for cell in settings.cells:
+        if cell.dopant:
+            layers = doped
+        else:
+            layers = tuple(np.nonzero(use.share[use.names.index(cell.name)] > 0)[0].tolist())
+        if not layers:
+            continue
+        for kind, sigma, suffix in (
+            ("flux", cell.flux_sigma, "flux"),
+            ("drift", cell.drift_sigma, "flux_drift"),
+        ):
+            if sigma > 0:
+                params.append(
+                    GrowthParameter(f"{cell.name}.{suffix}", kind, sigma, layers, cell.name)
+                )
+    return params
+
+
 def growth_model(
     stack: Stack,
     settings: GrowthSettings = DEFAULT_GROWTH,
@@ -380,8 +668,15 @@ def growth_model(
     """The variation parameters of a nominal stack (those with sigma > 0).
 
     Thickness parameters for every layer between the contacts that has a
-    monolayer thickness; a rate per material of those layers; composition
-    for every alloy layer; doping for every doped layer.
+    monolayer thickness; a rate per material of those layers (or, with
+    ``settings.cells``, a flux and a drift per source cell); composition for
+    every alloy layer; doping for every doped layer (unless a dopant cell
+    carries it).
+
+    Raises
+    ------
+    InputError
+        A layer grows from a group-III cell that ``[growth.cells]`` does not declare.
     """
     per_layer = per_layer or {}
     n = len(stack.layers)
@@ -397,14 +692,18 @@ def growth_model(
             if g.thickness_ml_sigma > 0:
                 params.append(
                     GrowthParameter(
-                        f"{layer.name}.thickness", "thickness", g.thickness_ml_sigma, (i,)
+                        f"{layer.name}.thickness_ml", "thickness", g.thickness_ml_sigma, (i,)
                     )
                 )
         if layer.x is not None and layer.material != "custom" and g.x_sigma > 0:
             params.append(GrowthParameter(f"{layer.name}.x", "x", g.x_sigma, (i,)))
         if layer.doping_cm3 > 0 and g.doping_sigma > 0:
             params.append(GrowthParameter(f"{layer.name}.doping", "doping", g.doping_sigma, (i,)))
-    if settings.rate_sigma > 0:
+    use = None
+    if settings.cells:
+        use = _cell_use(stack, settings)
+        params += _cell_parameters(stack, settings, use)
+    elif settings.rate_sigma > 0:
         for mat, idx in by_material.items():
             if mat != "custom":
                 params.append(
@@ -420,6 +719,7 @@ def growth_model(
         nominal=stack.table(),
         nominal_ml=nominal_ml,
         substrate_lattice_nm=a_sub,
+        cells=use,
     )
 
 

@@ -45,6 +45,7 @@ __all__ = [
     "morris_analysis",
     "tornado",
     "allocate_tolerances",
+    "control_order",
     "run_tolerance",
     "METHODS",
 ]
@@ -522,6 +523,25 @@ def allocate_tolerances(
 # --------------------------------------------------------------------------- driver
 
 
+def control_order(model: GrowthModel, scores: dict[str, float], measure: str) -> list[dict]:
+    """What the grower should control hardest: the parameters grouped by what controls
+    them (a source cell, a layer, a material's rate), each group scored by its largest
+    parameter score, largest first: ``{control, parameters, score, measure}``."""
+    groups: dict[str, list[str]] = {}
+    for p in model.parameters:
+        groups.setdefault(p.control, []).append(p.name)
+    rows = [
+        {
+            "control": control,
+            "parameters": sorted(names, key=lambda n: -scores.get(n, 0.0)),
+            "score": max(scores.get(n, 0.0) for n in names),
+            "measure": measure,
+        }
+        for control, names in groups.items()
+    ]
+    return sorted(rows, key=lambda r: -r["score"])
+
+
 def _clean(metrics: dict[str, np.ndarray], i: int) -> dict[str, float | None]:
     return {k: (None if not np.isfinite(v[i]) else float(v[i])) for k, v in metrics.items()}
 
@@ -556,7 +576,8 @@ def run_tolerance(
     index, conf}``, largest first} (only with ``second_order``, which spends the
     budget on ``N (2 D + 2)`` instead of ``N (D + 2)`` evaluations);
     ``morris``; ``tornado``; ``allocation``; ``parameters`` [{name, kind,
-    sigma, unit}]; ``nominal`` metrics; ``spec``; ``settings``; ``notes``.
+    sigma, unit, control}]; ``control_order`` (:func:`control_order`: source
+    cells and layers, the one to control hardest first); ``nominal`` metrics; ``spec``; ``settings``; ``notes``.
     """
     if method not in METHODS:
         raise ValueError(f"method must be one of {METHODS}")
@@ -567,7 +588,7 @@ def run_tolerance(
     record: dict[str, Any] = {
         "design": design or {},
         "parameters": [
-            {"name": p.name, "kind": p.kind, "sigma": p.sigma, "unit": p.unit}
+            {"name": p.name, "kind": p.kind, "sigma": p.sigma, "unit": p.unit, "control": p.control}
             for p in model.parameters
         ],
         "spec": [
@@ -626,9 +647,18 @@ def run_tolerance(
             for j in range(d)
         ]
         ranking_source = [model.names[j] for j in np.argsort(score)[::-1]]
+        scores = dict(zip(model.names, map(float, score), strict=True))
+        measure = "correlation of |deviation| with failure (Monte Carlo)"
         notes.append(
             "allocation parameters ranked by correlation of |deviation| with failure in the Monte Carlo"
         )
+    elif method == "sobol":
+        scores = {r["parameter"]: r["total_index"] for r in record["sobol"]["pass"]}
+        measure = "total Sobol index of pass/fail"
+    else:
+        scores = {r["parameter"]: r["mu_star"] for r in record["morris"]["pass"]}
+        measure = "Morris mu* of pass/fail"
+    record["control_order"] = control_order(model, scores, measure)
     if allocate > 0 and d:
         record["allocation"] = allocate_tolerances(
             model,
