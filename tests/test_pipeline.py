@@ -51,7 +51,9 @@ def test_rerun_skips_finished_stages_and_changed_file_reruns(tmp_path, capsys):
     assert "report: done earlier, skipped" in said
 
     # a changed growth table: the search resumes (same space, storage kept), tolerance reruns
-    study.write_text(study.read_text().replace("x_sigma = 0.005", "x_sigma = 0.004"))
+    changed = study.read_text().replace("Ga = {flux_sigma = 0.01}", "Ga = {flux_sigma = 0.008}")
+    assert changed != study.read_text()
+    study.write_text(changed)
     rec = run_pipeline(study, out_dir=out, report=_fake_report)
     said = capsys.readouterr().out
     assert "tolerance rank01 (trial" in said
