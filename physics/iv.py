@@ -23,6 +23,7 @@ import numpy as np
 
 from .bands import linear_profile, profile_from_potential
 from .current import EnergyGrid, current_density_a_cm2
+from .device import DEVICE_METRIC_NAMES, device_figures
 from .electrostatics import self_consistent_profile, solve_stack_poisson
 from .resonances import parabola_through
 from .stack import LayerTable, ModelOptions, Stack
@@ -48,6 +49,7 @@ METRIC_NAMES = (
     "pvcr",
     "delta_current_density_a_cm2",
     "delta_voltage_v",
+    *DEVICE_METRIC_NAMES,
 )
 #: Smallest relative current drop after a maximum that counts as NDR.
 NDR_DROP = 0.02
@@ -193,6 +195,7 @@ def sweep(
     model: ModelOptions = ModelOptions(),
     grid: EnergyGrid = EnergyGrid(),
     refine: bool = True,
+    series_resistance_ohm_um2: float | np.ndarray = 0.0,
 ) -> IVCurves:
     """I-V sweep of every stack in ``table`` with figures of merit.
 
@@ -210,6 +213,9 @@ def sweep(
         Adaptive energy grid settings.
     refine
         Locate peak and valley more finely than the sweep grid.
+    series_resistance_ohm_um2
+        Series resistance times area, scalar or ``(n_stacks,)``; enters only
+        the cutoff frequency (:mod:`wellwright.physics.device`).
     """
     bias = np.asarray(bias_v, float)
     if bias.ndim != 1 or bias.size < 1 or np.any(np.diff(bias) <= 0):
@@ -259,6 +265,17 @@ def sweep(
     metrics["pvcr"][rows] = jp / np.where(jv > 0, jv, np.nan)
     metrics["delta_current_density_a_cm2"][rows] = jp - jv
     metrics["delta_voltage_v"][rows] = np.abs(vv - vp)
+    metrics.update(
+        device_figures(
+            table,
+            np.abs(v_side),
+            j_side,
+            metrics,
+            peak_profile=band_profile(table.take(rows), vp[:, None], model=model),
+            rows=rows,
+            series_resistance_ohm_um2=series_resistance_ohm_um2,
+        )
+    )
     return IVCurves(bias, j, metrics)
 
 
@@ -266,7 +283,14 @@ def stack_iv(
     stack: Stack, bias_v: np.ndarray, *, grid: EnergyGrid = EnergyGrid(), refine: bool = True
 ) -> IVCurves:
     """I-V sweep of one stack (``n_stacks = 1``) with the stack's own model options."""
-    return sweep(stack.table(), bias_v, model=stack.model, grid=grid, refine=refine)
+    return sweep(
+        stack.table(),
+        bias_v,
+        model=stack.model,
+        grid=grid,
+        refine=refine,
+        series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
+    )
 
 
 def external_bias_v(

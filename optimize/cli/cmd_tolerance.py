@@ -219,7 +219,12 @@ def run(args: argparse.Namespace) -> int:
         Client(args.cluster)  # registers itself as joblib's dask backend target
         backend, n_jobs = "dask", -1
     runner = Runner(
-        bias, model=stack.model, n_jobs=n_jobs, backend=backend, progress=not args.no_progress
+        bias,
+        model=stack.model,
+        series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
+        n_jobs=n_jobs,
+        backend=backend,
+        progress=not args.no_progress,
     )
     rec = run_tolerance(
         model,

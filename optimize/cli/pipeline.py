@@ -220,7 +220,13 @@ def tolerance_of_design(
         source=study.source,
     )
     model = growth_model(stack, settings, per_layer)
-    runner = Runner(_design_bias(study, s), model=stack.model, n_jobs=s.jobs, progress=progress)
+    runner = Runner(
+        _design_bias(study, s),
+        model=stack.model,
+        series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
+        n_jobs=s.jobs,
+        progress=progress,
+    )
     return run_tolerance(
         model,
         Spec.from_study(study),

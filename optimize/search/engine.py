@@ -126,7 +126,10 @@ def nominal_metrics(stacks: Sequence[Stack], bias_v: np.ndarray) -> dict[str, np
     from wellwright.physics.iv import sweep
 
     table = LayerTable.from_stacks(list(stacks))
-    return sweep(table, bias_v, model=stacks[0].model).metrics
+    resistance = [s.device.series_resistance_ohm_um2 for s in stacks]
+    return sweep(
+        table, bias_v, model=stacks[0].model, series_resistance_ohm_um2=np.array(resistance)
+    ).metrics
 
 
 # --------------------------------------------------------------------------- results

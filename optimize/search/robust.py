@@ -110,7 +110,12 @@ def design_yields(
             seed=plan.seed,
         )
         table = model.as_grown(z, island_u=u)
-        metrics = sweep(table, np.asarray(bias_v, float), model=stack.model).metrics
+        metrics = sweep(
+            table,
+            np.asarray(bias_v, float),
+            model=stack.model,
+            series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
+        ).metrics
         rec = yield_record(plan.spec.passes(metrics))
         rec["failures"] = {
             name: int(np.count_nonzero(m)) for name, m in plan.spec.misses(metrics).items()

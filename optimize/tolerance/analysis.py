@@ -85,9 +85,9 @@ def wilson_interval(successes: int, n: int, *, confidence: float = 0.95) -> tupl
 
 
 def _metrics_batch(
-    table: LayerTable, bias_v: np.ndarray, model: ModelOptions
+    table: LayerTable, bias_v: np.ndarray, model: ModelOptions, resistance_ohm_um2: float
 ) -> dict[str, np.ndarray]:
-    return sweep(table, bias_v, model=model).metrics
+    return sweep(table, bias_v, model=model, series_resistance_ohm_um2=resistance_ohm_um2).metrics
 
 
 def evaluate_metrics(
@@ -95,6 +95,7 @@ def evaluate_metrics(
     bias_v: np.ndarray,
     *,
     model: ModelOptions = ModelOptions(),
+    series_resistance_ohm_um2: float = 0.0,
     batch_size: int = 16,
     n_jobs: int = 1,
     backend: str | None = None,
@@ -102,13 +103,17 @@ def evaluate_metrics(
     desc: str = "samples",
 ) -> dict[str, np.ndarray]:
     """Figures of merit of every row of ``table``: batches of ``batch_size`` stacks per
-    kernel call, spread over ``n_jobs`` joblib workers (``backend`` None: loky)."""
+    kernel call, spread over ``n_jobs`` joblib workers (``backend`` None: loky); the series
+    resistance enters only the cutoff frequency."""
     from joblib import Parallel, delayed, parallel_config
 
     n = table.n_stacks
     starts = list(range(0, n, batch_size))
     jobs = (
-        delayed(_metrics_batch)(table.take(slice(s, s + batch_size)), bias_v, model) for s in starts
+        delayed(_metrics_batch)(
+            table.take(slice(s, s + batch_size)), bias_v, model, series_resistance_ohm_um2
+        )
+        for s in starts
     )
     bar = None
     if progress:
@@ -136,6 +141,7 @@ class Runner:
 
     bias_v: np.ndarray
     model: ModelOptions = ModelOptions()
+    series_resistance_ohm_um2: float = 0.0
     batch_size: int = 16
     n_jobs: int = 1
     backend: str | None = None
@@ -146,6 +152,7 @@ class Runner:
             table,
             self.bias_v,
             model=self.model,
+            series_resistance_ohm_um2=self.series_resistance_ohm_um2,
             batch_size=self.batch_size,
             n_jobs=self.n_jobs,
             backend=self.backend,
