@@ -7,9 +7,10 @@ import sys
 from pathlib import Path
 
 import numpy as np
+from wellwright.optimize.shared import names
 from wellwright.optimize.shared.outputs import json_ready, write_csv, write_json
 from wellwright.physics.errors import InputError
-from wellwright.physics.iv import external_bias_v, stack_iv
+from wellwright.physics.iv import METRIC_NAMES, external_bias_v, stack_iv
 from wellwright.physics.stack import load_stack
 from wellwright.physics.valleys import x_valley_issues, x_valley_message
 
@@ -118,12 +119,8 @@ def run(args) -> int:
         if m["peak_current_density_a_cm2"] is None:
             print("  no negative differential resistance in this sweep")
         else:
-            print(
-                f"  peak   {m['peak_current_density_a_cm2'] / 1e3:10.2f} kA/cm^2 at {m['peak_voltage_v']:.3f} V"
-            )
-            print(
-                f"  valley {m['valley_current_density_a_cm2'] / 1e3:10.2f} kA/cm^2 at {m['valley_voltage_v']:.3f} V"
-            )
-            print(f"  PVCR   {m['pvcr']:10.2f}")
+            print("  first NDR peak and its valley:")
+            for key in METRIC_NAMES:
+                print(f"  {names.words(key):<38} {names.format_value(key, m[key], with_unit=True)}")
         print(f"  results in {out}/")
     return 0

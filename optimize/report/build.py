@@ -27,6 +27,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+from wellwright.optimize.shared import names
 from wellwright.optimize.shared.outputs import atomic_write_text, save_figure, write_csv, write_json
 from wellwright.optimize.study.run_folder import load_run, study_from_run
 from wellwright.optimize.study.study import Study
@@ -92,13 +93,22 @@ CAUTION = (
     "sensitivities, not as a prediction of a wafer."
 )
 
+#: Figures of merit in the candidates table, then in its oscillator and device table.
 METRIC_COLUMNS = (
-    ("peak_current_density_a_cm2", "J<sub>p</sub> (kA/cm<sup>2</sup>)", 1e-3, ".1f"),
-    ("peak_voltage_v", "V<sub>p</sub> (mV)", 1e3, ".0f"),
-    ("valley_current_density_a_cm2", "J<sub>v</sub> (kA/cm<sup>2</sup>)", 1e-3, ".3g"),
-    ("valley_voltage_v", "V<sub>v</sub> (mV)", 1e3, ".0f"),
-    ("pvcr", "PVCR", 1.0, ".1f"),
-    ("delta_current_density_a_cm2", "&Delta;J (kA/cm<sup>2</sup>)", 1e-3, ".1f"),
+    "peak_current_density_a_cm2",
+    "peak_voltage_v",
+    "valley_current_density_a_cm2",
+    "valley_voltage_v",
+    "pvcr",
+    "delta_current_density_a_cm2",
+)
+DEVICE_COLUMNS = (
+    "rf_power_density_w_cm2",
+    "ndr_conductance_s_cm2",
+    "capacitance_f_cm2",
+    "resonance_lifetime_s",
+    "transit_delay_s",
+    "cutoff_frequency_hz",
 )
 
 
@@ -191,30 +201,14 @@ class _Figures:
 # --------------------------------------------------------------------------- sections
 
 
-#: Trade label (HTML) and factor from the metric's unit to the trade's unit.
-TRADE_UNITS = {
-    "peak_current_density_a_cm2": ("peak current density J<sub>p</sub> (kA/cm<sup>2</sup>)", 1e-3),
-    "valley_current_density_a_cm2": (
-        "valley current density J<sub>v</sub> (kA/cm<sup>2</sup>)",
-        1e-3,
-    ),
-    "delta_current_density_a_cm2": ("current swing &Delta;J (kA/cm<sup>2</sup>)", 1e-3),
-    "peak_voltage_v": ("peak voltage V<sub>p</sub> (mV)", 1e3),
-    "valley_voltage_v": ("valley voltage V<sub>v</sub> (mV)", 1e3),
-    "delta_voltage_v": ("voltage swing &Delta;V (mV)", 1e3),
-    "pvcr": ("PVCR (peak-to-valley current ratio)", 1.0),
-}
-
-
 def metric_axis(metric: str) -> tuple[str, float]:
-    return TRADE_UNITS.get(metric, (_esc(metric), 1.0))
+    """HTML label in words with the trade unit, and the factor to it (one table: ``names``)."""
+    return _esc(names.label(metric)), names.quantity(metric).factor
 
 
 def _short(param: str) -> str:
-    """``barrier1.thickness_ml`` -> ``barrier1 (ML)`` for narrow table headings."""
-    layer, _, key = param.partition(".")
-    unit = {"thickness_ml": "ML", "thickness_nm": "nm", "x": "x", "doping_cm3": "cm<sup>-3</sup>"}
-    return f"{_esc(layer)} ({unit.get(key, _esc(key))})"
+    """``barrier1.thickness_ml`` -> "barrier1 thickness (ML)" for table headings."""
+    return _esc(names.variable_label(param))
 
 
 def _brief(study: Study, files: Path) -> tuple[str, dict[str, Any]]:
@@ -276,7 +270,7 @@ def _brief(study: Study, files: Path) -> tuple[str, dict[str, Any]]:
 def _candidates(study: Study, designs: list[dict], reported: int, search: dict) -> str:
     head = (
         ["rank", "trial", "meets spec"]
-        + [c[1] for c in METRIC_COLUMNS]
+        + [metric_axis(k)[0] for k in METRIC_COLUMNS]
         + [_short(n) for n in study.parameter_names]
     )
     rows = []
@@ -286,13 +280,43 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
         star = " *" if d["rank"] <= reported else ""
         rows.append(
             [f"{d['rank']}{star}", d["trial"], ok]
-            + [_num(m.get(k), f, s) for k, _, f, s in METRIC_COLUMNS]
+            + [names.format_value(k, m.get(k)) for k in METRIC_COLUMNS]
             + [_num(d["params"].get(n), spec=".4g") for n in study.parameter_names]
         )
     return (
         f"<p>{search.get('complete', '?')} complete trials, {search.get('feasible', '?')} meet "
         "the spec and every constraint. The ten best distinct designs, best first; "
         f"* marks the {reported} analysed below.</p>"
+        + '<div style="overflow-x:auto">'
+        + _table(head, rows, left=1, raw=True)
+        + "</div>"
+        + _device_table(designs, reported)
+    )
+
+
+def _device_table(designs: list[dict], reported: int) -> str:
+    """The oscillator and device figures of the same designs (per area, and per mesa when
+    the study gives ``[device] area_um2``)."""
+    keys = [k for k in DEVICE_COLUMNS if any(d["metrics"].get(k) is not None for d in designs)]
+    device_keys = sorted({k for d in designs for k in (d.get("device") or {})})
+    if not keys:
+        return ""
+    head = ["rank"] + [metric_axis(k)[0] for k in keys] + [metric_axis(k)[0] for k in device_keys]
+    rows = []
+    for d in designs:
+        star = " *" if d["rank"] <= reported else ""
+        rows.append(
+            [f"{d['rank']}{star}"]
+            + [names.format_value(k, d["metrics"].get(k)) for k in keys]
+            + [names.format_value(k, (d.get("device") or {}).get(k)) for k in device_keys]
+        )
+    return (
+        "<p>Oscillator and device figures of the same designs: output power (3/16) ΔJ ΔV of "
+        "the cubic NDR, the steepest negative differential conductance on the sweep grid, the "
+        "depletion-approximation capacitance at the peak bias (stored well charge not "
+        "included), the resonance lifetime ħ/Γ at the peak, the collector transit delay and "
+        "the cutoff-frequency estimate from these and the series resistance "
+        "(formulas and sources: <code>wellwright.physics.device</code>).</p>"
         + '<div style="overflow-x:auto">'
         + _table(head, rows, left=1, raw=True)
         + "</div>"

@@ -12,21 +12,10 @@ from typing import Any
 
 import numpy as np
 from matplotlib.figure import Figure
+from wellwright.optimize.shared import names
 from wellwright.optimize.shared.figures import PALETTE, style
-from wellwright.optimize.tolerance.figures import DISPLAY
 
 __all__ = ["yield_figure", "ranking_figure", "ranking_rows"]
-
-SPEC_WORDS = {
-    "peak_current_density_a_cm2": "peak current density",
-    "peak_voltage_v": "peak voltage",
-    "valley_current_density_a_cm2": "valley current density",
-    "valley_voltage_v": "valley voltage",
-    "pvcr": "PVCR",
-    "delta_current_density_a_cm2": "current swing",
-    "delta_voltage_v": "voltage swing",
-    "no_ndr": "no NDR in sweep",
-}
 
 
 def yield_figure(records: list[dict[str, Any]]) -> Figure:
@@ -82,7 +71,7 @@ def yield_figure(records: list[dict[str, Any]]) -> Figure:
             share,
             width,
             color=colors[j % len(colors)],
-            label=SPEC_WORDS.get(k, k),
+            label=names.words(k),
         )
     bx.set_yticks(ypos, labels)
     bx.set_xlim(0, 100)
@@ -124,7 +113,7 @@ def ranking_figure(record: dict[str, Any], *, top: int = 10) -> Figure | None:
     ypos = np.arange(len(rows))
     fig = Figure(figsize=(7.5, 0.42 * len(rows) + 1.8))
     ax = fig.add_subplot()
-    what = "pass/fail" if output == "pass" else SPEC_WORDS.get(output, output)
+    what = names.words(output)
     if method == "sobol":
         ax.barh(
             ypos + 0.2,
@@ -147,7 +136,7 @@ def ranking_figure(record: dict[str, Any], *, top: int = 10) -> Figure | None:
         ax.set_xlabel(f"Sobol index of {what} (share of variance, 0 to 1)")
         ax.set_xlim(left=min(0.0, ax.get_xlim()[0]))
     else:
-        factor, label = DISPLAY.get(output, (1.0, what))  # trade units, e.g. kA/cm^2
+        factor, label = names.quantity(output).factor, names.label(output)
         ax.barh(
             ypos,
             [factor * r["mu_star"] for r in rows],
@@ -159,7 +148,7 @@ def ranking_figure(record: dict[str, Any], *, top: int = 10) -> Figure | None:
         )
         ax.set_xlabel(f"Morris mu* of {label} (per 5 sigma of the parameter)")
         ax.set_xlim(left=0.0)
-    ax.set_yticks(ypos, [r["parameter"] for r in rows])
+    ax.set_yticks(ypos, [names.parameter_words(r["parameter"]) for r in rows])
     ax.set_title(f"which growth error matters most ({'Sobol' if method == 'sobol' else 'Morris'})")
     ax.legend(fontsize=8, loc="lower right")
     fig.tight_layout()

@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import optuna
 from optuna.trial import FrozenTrial, TrialState
+from wellwright.physics.device import device_quantities
 from wellwright.physics.iv import METRIC_NAMES
 from wellwright.physics.stack import Stack
 
@@ -127,8 +128,11 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     ``metrics`` (every name of :data:`wellwright.physics.iv.METRIC_NAMES`, None for NaN),
     ``params`` (parameter name -> value), ``layers`` (name, material,
     label, x, thickness_ml, thickness_nm, doping_cm3; contacts have no
-    thickness), ``active_thickness_nm`` and ``stack`` (a stack dictionary for
-    :func:`wellwright.physics.stack.parse_stack`).
+    thickness), ``active_thickness_nm``, ``stack`` (a stack dictionary for
+    :func:`wellwright.physics.stack.parse_stack`) and, when the study gives
+    ``[device] area_um2``, ``device`` (the mesa's current in mA, conductance in
+    mS, capacitance in fF, output power in uW:
+    :func:`wellwright.physics.device.device_quantities`).
     """
     a = trial.user_attrs
     rec: dict[str, Any] = {"trial": trial.number, "feasible": bool(a.get("feasible", False))}
@@ -151,6 +155,13 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
         else sum(layer["thickness_nm"] or 0.0 for layer in rec["layers"])
     )
     rec["stack"] = study.stack_dict(trial.params)
+    area = (rec["stack"].get("device") or {}).get("area_um2")
+    if area is not None:  # the mesa's own quantities (mA, mS, fF, uW)
+        per_area = {k: np.array([np.nan if v is None else v]) for k, v in rec["metrics"].items()}
+        rec["device"] = {
+            k: finite_or_none(float(v[0]))
+            for k, v in device_quantities(per_area, area_um2=float(area)).items()
+        }
     return rec
 
 
@@ -283,6 +294,8 @@ def _designs_table(
     if study.search.robust:
         head += ["yield", "yield_ci_low", "yield_ci_high"]
     head += ["spec_violation", *METRIC_NAMES, *study.parameter_names, "active_thickness_nm"]
+    device_keys = sorted({k for d in designs for k in (d.get("device") or {})})
+    head += device_keys
     rows = []
     for d in designs:
         row = [d["rank"], d["trial"], d["feasible"]]
@@ -292,6 +305,7 @@ def _designs_table(
             row += [y.get("value"), y.get("ci_low"), y.get("ci_high")]
         row += [d["spec_violation"], *(d["metrics"][k] for k in METRIC_NAMES)]
         row += [d["params"].get(n) for n in study.parameter_names] + [d["active_thickness_nm"]]
+        row += [(d.get("device") or {}).get(k) for k in device_keys]
         rows.append([f"{v:.6g}" if isinstance(v, float) else v for v in row])
     return head, rows
 

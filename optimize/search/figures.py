@@ -14,13 +14,13 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 from optuna.trial import FrozenTrial
-from wellwright.optimize.shared.figures import PALETTE, metric_words
+from wellwright.optimize.shared import names
+from wellwright.optimize.shared.figures import PALETTE
 from wellwright.optimize.shared.outputs import save_figure
 from wellwright.optimize.study.study import Study
 
 __all__ = [
     "metric_axis",
-    "metric_words",
     "history_figure",
     "pareto_figure",
     "importances_figure",
@@ -34,13 +34,8 @@ OKABE_ITO = PALETTE  # one palette for every figure: wellwright.optimize.shared.
 
 
 def metric_axis(metric: str) -> tuple[str, float]:
-    """Axis label and the factor from the metric's SI-ish unit to the trade's unit."""
-    words = metric_words(metric)
-    if metric.endswith("_a_cm2"):
-        return f"{words} (kA/cm$^2$)", 1e-3
-    if metric.endswith("_v"):
-        return f"{words} (mV)", 1e3
-    return words, 1.0
+    """Axis label and the factor from the metric's unit to the trade's (:mod:`~wellwright.optimize.shared.names`)."""
+    return names.label(metric), names.quantity(metric).factor
 
 
 def _best_so_far(values: np.ndarray, maximize: bool) -> np.ndarray:
@@ -194,9 +189,9 @@ def importances_figure(importances: dict[str, dict[str, float]]) -> Figure:
             vals,
             height=height,
             color=colours[k % len(colours)],
-            label=metric_words(name),
+            label=names.words(name),
         )
-    ax.set_yticks(ypos, params)
+    ax.set_yticks(ypos, [names.variable_label(p) for p in params])
     ax.invert_yaxis()
     ax.set_xlabel("importance (fraction of total, dimensionless)")
     ax.set_title("which parameters matter (Optuna PED-ANOVA importances)", fontsize=10)

@@ -18,7 +18,6 @@ from wellwright.physics.valleys import indirect_edges_ev
 __all__ = [
     "PALETTE",
     "model_label",
-    "metric_words",
     "iv_figure",
     "band_diagram_figure",
     "transmission_figure",
@@ -54,13 +53,6 @@ def style() -> None:
             "figure.dpi": 100,
         }
     )
-
-
-def metric_words(metric: str) -> str:
-    """A metric key in words, without its unit (``peak_current_density_a_cm2``: "peak current density")."""
-    if metric == "pvcr":
-        return "PVCR"
-    return metric.removesuffix("_a_cm2").removesuffix("_v").replace("_", " ")
 
 
 def model_label(stack: Stack) -> str:

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from wellwright.optimize.shared import names
 from wellwright.optimize.study.space import is_finite_number
 from wellwright.physics import materials
 from wellwright.physics.errors import InputError
@@ -48,17 +49,9 @@ __all__ = [
 #: sweep): larger than log1p of any plausible miss (e^10 ~ 2e4 window widths).
 NAN_VIOLATION = 10.0
 #: Scale of each figure of merit used only to spread a pushed objective over
-#: (0, 1) when the spec gives no window for it (ordering is unaffected).
-#: Typical magnitudes for RTDs, common practice.
-DEFAULT_REFERENCE = {
-    "peak_current_density_a_cm2": 1e5,
-    "valley_current_density_a_cm2": 1e4,
-    "delta_current_density_a_cm2": 1e5,
-    "peak_voltage_v": 0.5,
-    "valley_voltage_v": 0.8,
-    "delta_voltage_v": 0.2,
-    "pvcr": 3.0,
-}
+#: (0, 1) when the spec gives no window for it (ordering is unaffected): the
+#: typical magnitudes of the names table (common practice).
+DEFAULT_REFERENCE = {k: abs(q.typical) for k, q in names.QUANTITIES.items()}
 
 
 @dataclass(frozen=True)

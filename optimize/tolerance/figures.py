@@ -2,7 +2,7 @@
 
 Colours: the Okabe-Ito colour-blind-safe palette (M. Okabe and K. Ito,
 "Color Universal Design", 2002; hex values from memory). Units are the
-trade's: kA/cm^2, mV, ML.
+trade's, from :mod:`wellwright.optimize.shared.names`.
 """
 
 from __future__ import annotations
@@ -12,21 +12,12 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from wellwright.optimize.shared.figures import PALETTE, metric_words
+from wellwright.optimize.shared import names
+from wellwright.optimize.shared.figures import PALETTE
 
 __all__ = ["save_all", "OKABE_ITO"]
 
 OKABE_ITO = PALETTE  # one palette for every figure: wellwright.optimize.shared.figures.PALETTE
-#: display factor and label of each figure of merit
-DISPLAY = {
-    "peak_current_density_a_cm2": (1e-3, "peak current density (kA/cm$^2$)"),
-    "valley_current_density_a_cm2": (1e-3, "valley current density (kA/cm$^2$)"),
-    "delta_current_density_a_cm2": (1e-3, "peak - valley current density (kA/cm$^2$)"),
-    "peak_voltage_v": (1e3, "peak voltage (mV)"),
-    "valley_voltage_v": (1e3, "valley voltage (mV)"),
-    "delta_voltage_v": (1e3, "valley - peak voltage (mV)"),
-    "pvcr": (1.0, "PVCR"),
-}
 
 
 def _plt():
@@ -43,10 +34,10 @@ def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> P
 
     plt = _plt()
     spec = {s["metric"]: s for s in record["spec"]}
-    names = list(spec) or ["peak_current_density_a_cm2", "peak_voltage_v", "pvcr"]
-    fig, axes = plt.subplots(1, len(names), figsize=(4.2 * len(names), 3.4), squeeze=False)
-    for ax, name in zip(axes[0], names):
-        f, label = DISPLAY[name]
+    shown = list(spec) or ["peak_current_density_a_cm2", "peak_voltage_v", "pvcr"]
+    fig, axes = plt.subplots(1, len(shown), figsize=(4.2 * len(shown), 3.4), squeeze=False)
+    for ax, name in zip(axes[0], shown):
+        f, label = names.quantity(name).factor, names.label(name)
         v = np.asarray(mc["metrics"][name], float) * f
         v = v[np.isfinite(v)]
         if v.size:
@@ -107,8 +98,8 @@ def save_sobol(record: dict[str, Any], path: Path, *, key: str = "pass") -> Path
         color=OKABE_ITO["orange"],
         label="first-order index",
     )
-    ax.set_yticks(ypos, [r["parameter"] for r in rows])
-    what = "pass/fail" if key == "pass" else metric_words(key)
+    ax.set_yticks(ypos, [names.parameter_words(r["parameter"]) for r in rows])
+    what = names.words(key)
     ax.set_xlabel(f"Sobol index of {what} (share of variance, dimensionless)")
     ax.legend(fontsize=8, loc="lower right")
     return save_figure(fig, path)
@@ -119,7 +110,7 @@ def save_tornado(
 ) -> Path | None:
     from wellwright.optimize.shared.outputs import save_figure
 
-    f, label = DISPLAY[metric]
+    f, label = names.quantity(metric).factor, names.label(metric)
     nominal = record["nominal"].get(metric)
     rows = [
         r
@@ -150,7 +141,7 @@ def save_tornado(
     ax.axvline(n, color=OKABE_ITO["black"], lw=1)
     ax.set_yticks(ypos, [r["layer"] for r in rows])
     ax.set_xlabel(label)
-    ax.set_title("one layer at a time, +-1 monolayer")
+    ax.set_title("one layer at a time, ±1 monolayer")
     ax.legend(fontsize=8)
     return save_figure(fig, path)
 
