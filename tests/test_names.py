@@ -39,7 +39,7 @@ def test_every_metric_has_words_and_a_consistent_trade_unit():
     """Each figure of merit of a sweep has words, and its display factor agrees with SI prefixes."""
     for key in METRIC_NAMES:
         q = names.QUANTITIES[key]
-        assert q.words and "_" not in q.words
+        assert q.words and "_" not in q.words and q.words[0] != q.words[0].upper() or key == "pvcr"
         if key == "pvcr":
             assert q.unit == ""
             continue
@@ -48,9 +48,7 @@ def test_every_metric_has_words_and_a_consistent_trade_unit():
 
 def test_labels_and_formats():
     assert names.label("peak_current_density_a_cm2") == "peak current density (kA/cm²)"
-    assert names.label("pvcr", dimensionless="dimensionless") == (
-        "peak-to-valley current ratio (dimensionless)"
-    )
+    assert names.label("pvcr", dimensionless="dimensionless") == "PVCR (dimensionless)"
     assert names.format_value("peak_voltage_v", 0.3456) == "346"
     assert names.format_value("cutoff_frequency_hz", 6.4e11, with_unit=True) == "640 GHz"
     assert names.format_value("pvcr", None) == "-"

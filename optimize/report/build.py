@@ -461,7 +461,6 @@ def _growth(
     records: list[dict], figs: _Figures, files: Path, run_dir: Path, tol_dirs: list[Path]
 ) -> tuple[str, list[dict]]:
     from wellwright.optimize.report.figures import (
-        SPEC_WORDS,
         ranking_figure,
         ranking_rows,
         yield_figure,
@@ -473,7 +472,7 @@ def _growth(
     yrows, ycsv = [], []
     for r in records:
         y = r["yield"]
-        fails = ", ".join(f"{SPEC_WORDS.get(k, k)}: {v}" for k, v in r["failures"].items() if v)
+        fails = ", ".join(f"{names.words(k)}: {v}" for k, v in r["failures"].items() if v)
         yrows.append(
             [
                 f"rank {r['design'].get('rank')}",
@@ -538,8 +537,8 @@ def _growth(
                 ["parameter", method + "_" + score, "output"],
                 [[x["parameter"], x[score], output] for x in rows],
             )
-            what = "pass/fail" if output == "pass" else SPEC_WORDS.get(output, output)
-            top = ", ".join(_esc(x["parameter"]) for x in rows[:3])
+            what = names.words(output)
+            top = ", ".join(_esc(names.parameter_words(x["parameter"])) for x in rows[:3])
             body.append(
                 f"<p><b>Hold these most tightly:</b> {top} (ranked by "
                 f"{'total Sobol index' if method == 'sobol' else 'Morris mu*'} of "

@@ -56,7 +56,7 @@ QUANTITIES: dict[str, Quantity] = {
     "peak_voltage_v": Quantity("peak voltage", "mV", 1e3, ".0f", 0.5),
     "valley_current_density_a_cm2": Quantity("valley current density", "kA/cm²", 1e-3, ".3g", 1e4),
     "valley_voltage_v": Quantity("valley voltage", "mV", 1e3, ".0f", 0.8),
-    "pvcr": Quantity("peak-to-valley current ratio", "", 1.0, ".1f", 3.0),
+    "pvcr": Quantity("PVCR", "", 1.0, ".1f", 3.0, "peak-to-valley current ratio"),
     "delta_current_density_a_cm2": Quantity(
         "peak minus valley current density", "kA/cm²", 1e-3, ".1f", 1e5
     ),
