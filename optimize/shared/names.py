@@ -94,7 +94,10 @@ QUANTITIES: dict[str, Quantity] = {
 
 #: Growth-parameter kinds (the suffix of ``<layer or source>.<kind>``) in words, with unit.
 GROWTH_KINDS = {
+    "thickness_ml": ("thickness error", "ML"),
     "thickness": ("thickness error", "ML"),
+    "flux": ("cell flux", "relative"),
+    "flux_drift": ("cell flux drift over the run", "relative"),
     "rate": ("growth rate", "relative"),
     "x": ("composition x", "absolute"),
     "doping": ("doping", "relative"),
