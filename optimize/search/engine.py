@@ -2,15 +2,26 @@
 
 The study lives in an Optuna RDB storage: a SQLite file ``DIR/study.db`` by
 default, any SQLAlchemy URL (``postgresql+psycopg2://...``) to share one study
-between machines. Each worker runs an ask-and-tell loop:
+between machines. Each worker runs a batched ask-and-tell loop:
 
-1. fail dead trials (Optuna's heartbeat, plus trials of processes of this host
-   that no longer exist, so a run killed with ``kill -9`` resumes at once);
-2. stop when the storage holds ``trials`` complete trials (``trials`` is a
-   total: rerunning with the same number resumes up to it); wait while other
-   workers' running trials could still complete it;
-3. ask up to ``batch`` trials, copy the results of any parameter set already
-   evaluated, evaluate the rest in one batched kernel call, tell.
+1. read the storage (incrementally): fail dead trials (see
+   :func:`wellwright.optimize.search.storage.fail_dead_trials`, so a run killed
+   with ``kill -9`` resumes at once), copy new complete trials of other
+   workers into the sampler's in-memory study, stop when the storage holds
+   ``trials`` complete trials (a total: rerunning with the same number
+   resumes up to it);
+2. ask up to ``batch`` trials of the in-memory study (the sampler never
+   waits on the database), copy the results of any design already
+   evaluated, evaluate the rest in one batched kernel call;
+3. write each trial of the batch in one storage call with all its
+   parameters, attributes and constraints, complete those within the total,
+   tell the in-memory study.
+
+Only Optuna's public API is used (``create_trial``, the storage's
+``create_new_trial`` and ``set_trial_state_values``). Optuna's RDB storage
+still writes every parameter and attribute row with its own checks (about 36
+statements for a trial of five parameters and seven attributes), so storage
+stays a large share of a search's time (see ``benchmarks/bench_search.py``).
 
 Every trial carries user attributes that the standard Optuna tools (its
 dashboard, ``optuna.load_study``) show without this project writing a viewer:
@@ -19,8 +30,11 @@ dashboard, ``optuna.load_study``) show without this project writing a viewer:
   (None where there is no NDR);
 - ``feasible``: meets the spec and every constraint;
 - ``spec_violation``: :meth:`wellwright.optimize.study.study.Study.spec_violation`;
-- ``constraints``: the named constraint values (> 0 violated), also given to
-  Optuna with ``Trial.set_constraint`` so that TPE and NSGA-II use them;
+- ``constraints``: the named constraint values (> 0 violated); the same values,
+  in the order of the study attribute ``constraint_names``, are the system
+  attribute ``constraints`` (Optuna's ``constraints_func`` convention), which
+  Optuna's samplers (``FrozenTrial.constraints``) and optuna-dashboard read, so
+  the dashboard shows which trials are feasible;
 - ``layers``: the full stack, each layer with name, material, label (trade
   notation), x, thickness_ml, thickness_nm, doping_cm3;
 - ``worker`` (host:pid), and ``duplicate_of`` (trial number) when the
@@ -71,7 +85,6 @@ from wellwright.optimize.search.robust import check_robust, design_yields, robus
 from wellwright.optimize.search.storage import (
     GRACE_PERIOD_S,
     HEARTBEAT_INTERVAL_S,
-    Heartbeat,
     check_storage_url,
     fail_dead_trials,
     make_storage,
@@ -273,6 +286,11 @@ def _yields(
 
 # --------------------------------------------------------------------------- worker
 
+#: The system attribute Optuna's ``constraints_func`` convention fills with a trial's
+#: constraint values (a list, feasible when all are <= 0): what Optuna's samplers and
+#: optuna-dashboard read. Their names, in order, are the study attribute ``constraint_names``.
+CONSTRAINTS_KEY = "constraints"
+
 
 @dataclass(frozen=True)
 class _Job:
@@ -284,6 +302,7 @@ class _Job:
     evaluator: Evaluator
     parent_pid: int | None = None
     progress: bool = False
+    baselines: bool = True  #: evaluate ``[search] baseline`` designs the storage lacks
 
 
 def _suggest(trial: optuna.Trial, study: Study) -> dict[str, float]:
@@ -298,35 +317,6 @@ def _suggest(trial: optuna.Trial, study: Study) -> dict[str, float]:
     return params
 
 
-def _ask_tagged(ostudy: optuna.Study, worker: str) -> tuple[optuna.Trial, bool]:
-    """``ostudy.ask()``, with the ``worker`` tag written by the transaction that creates the trial.
-
-    A worker killed between creating a trial and tagging it would leave an
-    untagged running trial, which a resuming command can only fail after the
-    heartbeat grace period; created with the tag, it is failed at once.
-    Enqueued (waiting) trials go through ``ask()`` and are tagged after it
-    (returned flag False). Uses Optuna's storage API as ``Study.ask`` does.
-    """
-    internals = ("_pop_waiting_trial_id", "_storage", "_study_id", "_thread_local")
-    if not all(hasattr(ostudy, name) for name in internals):
-        return ostudy.ask(), False
-    ostudy._thread_local.cached_all_trials = None  # as ask(): sync with storage every trial
-    trial_id = ostudy._pop_waiting_trial_id()
-    if trial_id is not None:
-        return optuna.Trial(ostudy, trial_id), False
-    template = optuna.trial.create_trial(state=TrialState.RUNNING, user_attrs={"worker": worker})
-    trial_id = ostudy._storage.create_new_trial(ostudy._study_id, template_trial=template)
-    return optuna.Trial(ostudy, trial_id), True
-
-
-def _tell(ostudy: optuna.Study, trial: optuna.Trial, out: _Outcome, multi: bool) -> None:
-    for k, v in out.attrs.items():
-        trial.set_user_attr(k, v)
-    for k, v in out.constraints.items():
-        trial.set_constraint(k, v)
-    ostudy.tell(trial, out.values if multi else out.values[0])
-
-
 def _best_text(study: Study, complete: list[FrozenTrial]) -> str:
     feasible = sum(1 for t in complete if t.user_attrs.get("feasible"))
     if study.multi_objective or not complete:
@@ -339,29 +329,62 @@ def _best_text(study: Study, complete: list[FrozenTrial]) -> str:
 
 
 _CLAIMED = (TrialState.COMPLETE, TrialState.RUNNING)
-_OPEN = (TrialState.COMPLETE, TrialState.RUNNING, TrialState.WAITING)
+
+
+def _copied(out: _Outcome, source: int | None) -> _Outcome:
+    """A duplicate design's outcome: ``out`` with ``duplicate_of`` (set later when None)."""
+    attrs = {k: v for k, v in out.attrs.items() if k not in ("worker", "duplicate_of")}
+    if source is not None:
+        attrs["duplicate_of"] = source
+    return _Outcome(list(out.values), dict(out.constraints), attrs)
+
+
+def _stored(t: FrozenTrial) -> _Outcome:
+    """The outcome a stored trial records."""
+    return _Outcome(list(t.values), dict(t.user_attrs.get("constraints", {})), dict(t.user_attrs))
 
 
 class _Worker:
-    """One worker's ask-and-tell loop; ``timing`` accumulates where its time goes."""
+    """One worker: proposes on an in-memory copy of the study, writes each trial once.
+
+    The sampler works on an in-memory Optuna study (its view of the search): the
+    complete trials of the storage are copied into it as they appear, and the
+    worker asks and tells there. Only finished designs reach the storage: each
+    in one ``create_new_trial`` carrying its parameters, attributes and
+    constraints (state RUNNING, tagged with the worker), then set COMPLETE once
+    the rows' trial numbers show that the study's total is not exceeded
+    (several workers may write at once); a kill between the two leaves tagged
+    RUNNING rows that the next worker fails at once. ``timing`` accumulates
+    where the time goes.
+    """
 
     def __init__(self, job: _Job) -> None:
         optuna.logging.set_verbosity(optuna.logging.WARNING)
         self.job = job
         self.study = job.study
         self.storage = make_storage(job.url)
-        study_id = self.storage.get_study_id_from_name(self.study.optuna_name)
-        existing = len(self.storage.get_all_trials(study_id, deepcopy=False))
+        self.study_id = self.storage.get_study_id_from_name(self.study.optuna_name)
+        self.shared = optuna.load_study(
+            study_name=self.study.optuna_name,
+            storage=self.storage,
+            sampler=optuna.samplers.RandomSampler(seed=0),  # never asked: reads and fails only
+        )
+        existing = self.shared.get_trials(deepcopy=False)
         sampler = make_sampler(
-            self.study, seed=_worker_seed(job.seed, job.worker, existing), n_trials=job.target
+            self.study, seed=_worker_seed(job.seed, job.worker, len(existing)), n_trials=job.target
         )
-        self.ostudy = optuna.load_study(
-            study_name=self.study.optuna_name, storage=self.storage, sampler=sampler
-        )
-        self.timing = dict.fromkeys(
-            ("sampler", "physics", "storage", "total", "evaluated", "copied"), 0.0
-        )
+        self.memory = optuna.create_study(directions=list(self.study.directions), sampler=sampler)
         self.me = worker_identity()
+        self.seen: set[int] = set()  # numbers of the stored complete trials known here
+        self.done: dict[tuple, FrozenTrial] = {}  # the first complete trial of each design
+        self._mirror([t for t in existing if t.state == TrialState.COMPLETE], initial=True)
+        if job.baselines:
+            for params in self.study.search.baseline:
+                if self.study.parameter_key(params) not in self.done:
+                    self.memory.enqueue_trial(params)
+        self.timing = dict.fromkeys(
+            ("sampler", "physics", "storage", "total", "cpu", "evaluated", "copied"), 0.0
+        )
         self.bar: Any = None
         self.parent = os.getppid() if job.parent_pid is not None else None
         self.orphaned = False
@@ -370,44 +393,58 @@ class _Worker:
         self.timing[kind] += time.perf_counter() - since
 
     def run(self) -> dict[str, float]:
-        heart = Heartbeat(self.storage)
-        start = time.perf_counter()
+        start, cpu = time.perf_counter(), time.process_time()
         try:
             while True:
                 if self.parent is not None and os.getppid() != self.parent:
                     self.orphaned = True  # the command that started us was killed: stop too
                     break
-                room, done = self._room()
+                room = self._sync()
                 if room is None:
                     break
-                if room <= 0:  # other workers' running trials may still complete the study
+                if room <= 0:  # other workers' rows may still complete the study
                     time.sleep(POLL_S)
                     continue
-                self._batch(min(self.study.search.batch, room), done, heart)
+                self._batch(min(self.study.search.batch, room))
         finally:
-            heart.stop()
             if self.bar is not None:
                 self.bar.close()
             self.timing["total"] = time.perf_counter() - start
+            self.timing["cpu"] = time.process_time() - cpu
         return self.timing
 
-    def _room(self) -> tuple[int | None, dict[tuple, FrozenTrial]]:
-        """Trials still to claim (None: study complete) and finished designs by parameters."""
+    def _mirror(self, complete: list[FrozenTrial], *, initial: bool) -> None:
+        """Copy stored complete trials the sampler has not seen into the in-memory study."""
+        new = [t for t in complete if t.number not in self.seen]
+        for t in new:
+            self.seen.add(t.number)
+            self.done.setdefault(self.study.parameter_key(t.params), t)
+        self.memory.add_trials(
+            optuna.trial.create_trial(
+                params=t.params,
+                distributions=t.distributions,
+                values=t.values,
+                constraints=t.constraints,
+            )
+            for t in new
+            if initial or t.user_attrs.get("worker") != self.me  # ours were told there
+        )
+
+    def _sync(self) -> int | None:
+        """Read the storage: trials still to claim (None: the study is complete)."""
         t0 = time.perf_counter()
         while True:
-            trials = self.ostudy.get_trials(deepcopy=False, states=_OPEN)
+            trials = self.shared.get_trials(deepcopy=False, states=_CLAIMED)
             running = [t for t in trials if t.state == TrialState.RUNNING]
-            if not (running and fail_dead_trials(self.ostudy, running)):
+            if not (running and fail_dead_trials(self.shared, running)):
                 break
         complete = [t for t in trials if t.state == TrialState.COMPLETE]
+        self._mirror(complete, initial=False)
         self._show(complete)
         self._clock("storage", t0)
         if len(complete) >= self.job.target:
-            return None, {}
-        room = (
-            self.job.target - len(complete) - len(running)
-        )  # waiting (enqueued) trials are ours to take
-        return room, {self.study.parameter_key(t.params): t for t in complete}
+            return None
+        return self.job.target - len(complete) - len(running)
 
     def _show(self, complete: list[FrozenTrial]) -> None:
         if not self.job.progress:
@@ -425,102 +462,143 @@ class _Worker:
         self.bar.n = min(len(complete), self.job.target)
         self.bar.set_postfix_str(_best_text(self.study, complete), refresh=True)
 
-    def _ask(self, n: int, heart: Heartbeat) -> list[optuna.Trial]:
-        asked = []
-        for _ in range(n):
-            t0 = time.perf_counter()
-            with warnings.catch_warnings():  # heartbeats are kept by Heartbeat, not optimize()
-                warnings.filterwarnings("ignore", message="Heartbeat of storage")
-                trial, tagged = _ask_tagged(self.ostudy, self.me)
-            self._clock("sampler", t0)
-            t0 = time.perf_counter()
-            heart.add(trial._trial_id)  # Optuna's own heartbeat thread uses this id too
-            if not tagged:
-                trial.set_user_attr("worker", self.me)
-            self._clock("storage", t0)
-            asked.append(trial)
-        return asked
-
-    def _drop_surplus(self, asked: list[optuna.Trial]) -> list[optuna.Trial]:
-        """Near the end, fail trials that another worker's claim made one too many."""
-        if asked[-1].number + 1 <= self.job.target:  # at most target trials can precede it
-            return asked
+    def _batch(self, n: int) -> None:
+        """Ask ``n`` trials, copy known designs, evaluate the rest in one call, store, tell."""
         t0 = time.perf_counter()
-        numbers = sorted(t.number for t in self.ostudy.get_trials(deepcopy=False, states=_CLAIMED))
-        allowed = set(numbers[: self.job.target])
-        kept = []
-        for trial in asked:
-            if trial.number in allowed:
-                kept.append(trial)
-            else:
-                trial.set_user_attr("surplus", True)
-                self.ostudy.tell(trial, state=TrialState.FAIL)
-        self._clock("storage", t0)
-        return kept
-
-    def _batch(self, n: int, done: dict[tuple, FrozenTrial], heart: Heartbeat) -> None:
-        """Ask ``n`` trials, copy known designs, evaluate the rest in one call, tell."""
-        asked: list[optuna.Trial] = []
-        told: set[int] = set()
+        asked = [self.memory.ask() for _ in range(n)]
+        params = [_suggest(trial, self.study) for trial in asked]
+        self._clock("sampler", t0)
         try:
-            asked = self._drop_surplus(self._ask(n, heart))
-            t0 = time.perf_counter()
-            params = [_suggest(trial, self.study) for trial in asked]
-            self._clock("sampler", t0)
-
-            first: dict[tuple, int] = {}  # key -> index of the first trial with it in this batch
-            for i, p in enumerate(params):
-                key = self.study.parameter_key(p)
-                if key not in done:
-                    first.setdefault(key, i)
-            unique = sorted(first.values())
-            outcomes: dict[int, _Outcome] = {}
-            if unique:
-                results, physics_s = evaluate(
-                    self.study, [params[i] for i in unique], self.job.evaluator
-                )
-                self.timing["physics"] += physics_s
-                self.timing["evaluated"] += len(unique)
-                outcomes = dict(zip(unique, results, strict=True))
-
-            t0 = time.perf_counter()
-            for i, trial in enumerate(asked):
-                key = self.study.parameter_key(params[i])
-                if i in outcomes:
-                    out = outcomes[i]
-                else:  # already evaluated: copy, do not recompute
-                    prior = done.get(key)
-                    if prior is not None:
-                        out = _Outcome(
-                            list(prior.values), dict(prior.constraints), dict(prior.user_attrs)
-                        )
-                        source = prior.number
-                    else:
-                        j = first[key]
-                        out = _Outcome(
-                            list(outcomes[j].values),
-                            dict(outcomes[j].constraints),
-                            dict(outcomes[j].attrs),
-                        )
-                        source = asked[j].number
-                    out.attrs = {
-                        k: v for k, v in out.attrs.items() if k not in ("worker", "duplicate_of")
-                    }
-                    out.attrs["duplicate_of"] = source
-                    self.timing["copied"] += 1
-                _tell(self.ostudy, trial, out, self.study.multi_objective)
-                told.add(trial.number)
-            self._clock("storage", t0)
+            outcomes, twins = self._outcomes(params)
         except BaseException:
-            for trial in asked:
-                if trial.number not in told:
-                    try:
-                        self.ostudy.tell(trial, state=TrialState.FAIL)
-                    except Exception:  # noqa: BLE001 - keep the original error
-                        pass
+            self._store_failed(asked)
+            raise
+        self._store(asked, outcomes, twins)
+
+    def _outcomes(self, params: list[dict[str, float]]) -> tuple[list[_Outcome], dict[int, int]]:
+        """Outcomes of a batch: new designs evaluated in one call, known ones copied.
+
+        Also returns the copies of designs first seen earlier in this batch
+        (index -> index of the first), whose ``duplicate_of`` is set once stored.
+        """
+        keys = [self.study.parameter_key(p) for p in params]
+        first: dict[tuple, int] = {}
+        for i, key in enumerate(keys):
+            if key not in self.done:
+                first.setdefault(key, i)
+        unique = sorted(first.values())
+        fresh: dict[int, _Outcome] = {}
+        if unique:
+            results, physics_s = evaluate(
+                self.study, [params[i] for i in unique], self.job.evaluator
+            )
+            self.timing["physics"] += physics_s
+            self.timing["evaluated"] += len(unique)
+            fresh = dict(zip(unique, results, strict=True))
+        outcomes, twins = [], {}
+        for i, key in enumerate(keys):
+            if i in fresh:
+                outcomes.append(fresh[i])
+                continue
+            prior = self.done.get(key)
+            if prior is not None:
+                outcomes.append(_copied(_stored(prior), prior.number))
+            else:
+                twins[i] = first[key]
+                outcomes.append(_copied(fresh[first[key]], None))
+            self.timing["copied"] += 1
+        return outcomes, twins
+
+    def _template(self, trial: optuna.Trial, out: _Outcome) -> FrozenTrial:
+        return optuna.trial.create_trial(
+            state=TrialState.RUNNING,
+            params=trial.params,
+            distributions=trial.distributions,
+            user_attrs={**out.attrs, "worker": self.me},
+            system_attrs={
+                CONSTRAINTS_KEY: [float(out.constraints[n]) for n in self.study.constraint_names]
+            },
+        )
+
+    def _store(
+        self, asked: list[optuna.Trial], outcomes: list[_Outcome], twins: dict[int, int]
+    ) -> None:
+        """Write the batch (one row per trial), complete what fits the total, tell the sampler."""
+        t0 = time.perf_counter()
+        ids: list[int] = []
+        try:
+            for trial, out in zip(asked, outcomes, strict=True):
+                ids.append(
+                    self.storage.create_new_trial(
+                        self.study_id, template_trial=self._template(trial, out)
+                    )
+                )
+            for i, j in twins.items():
+                number = self.storage.get_trial_number_from_id(ids[j])
+                self.storage.set_trial_user_attr(ids[i], "duplicate_of", number)
+            kept = self._within_total(ids)
+            for k, (trial_id, out) in enumerate(zip(ids, outcomes, strict=True)):
+                if not kept[k]:
+                    self.storage.set_trial_user_attr(trial_id, "surplus", True)
+                try:
+                    self.storage.set_trial_state_values(
+                        trial_id,
+                        TrialState.COMPLETE if kept[k] else TrialState.FAIL,
+                        out.values if kept[k] else None,
+                    )
+                except optuna.exceptions.UpdateFinishedTrialError:
+                    kept[k] = False  # failed as dead by another worker meanwhile
+        except BaseException:
+            self._fail_rows(ids)
+            self._tell(asked, outcomes, [False] * len(asked))
             raise
         finally:
-            heart.clear()
+            self._clock("storage", t0)
+        self._tell(asked, outcomes, kept)
+
+    def _within_total(self, ids: list[int]) -> list[bool]:
+        """Which new rows are among the first ``target`` claimed trials (numbers are ordered)."""
+        if self.storage.get_trial_number_from_id(ids[-1]) < self.job.target:
+            return [True] * len(ids)  # fewer than target trials of any state precede it
+        claimed = sorted(t.number for t in self.shared.get_trials(deepcopy=False, states=_CLAIMED))
+        allowed = set(claimed[: self.job.target])
+        return [self.storage.get_trial_number_from_id(i) in allowed for i in ids]
+
+    def _tell(self, asked: list[optuna.Trial], outcomes: list[_Outcome], kept: list[bool]) -> None:
+        """Tell the in-memory study what became of each asked trial."""
+        t0 = time.perf_counter()
+        for trial, out, ok in zip(asked, outcomes, kept, strict=True):
+            if not ok:
+                self.memory.tell(trial, state=TrialState.FAIL)
+                continue
+            for name in self.study.constraint_names:
+                trial.set_constraint(name, float(out.constraints[name]))
+            self.memory.tell(trial, out.values if self.study.multi_objective else out.values[0])
+        self._clock("sampler", t0)
+
+    def _fail_rows(self, ids: list[int]) -> None:
+        for trial_id in ids:
+            try:
+                self.storage.set_trial_state_values(trial_id, TrialState.FAIL)
+            except Exception:  # noqa: BLE001 - keep the original error; a dead row is failed later
+                pass
+
+    def _store_failed(self, asked: list[optuna.Trial]) -> None:
+        """A batch that could not be evaluated: stored as failed trials, told failed."""
+        for trial in asked:
+            try:
+                self.storage.create_new_trial(
+                    self.study_id,
+                    template_trial=optuna.trial.create_trial(
+                        state=TrialState.FAIL,
+                        params=trial.params,
+                        distributions=trial.distributions,
+                        user_attrs={"worker": self.me},
+                    ),
+                )
+            except Exception:  # noqa: BLE001 - keep the original error
+                pass
+            self.memory.tell(trial, state=TrialState.FAIL)
 
 
 def _work(job: _Job) -> dict[str, float]:
@@ -654,36 +732,24 @@ def run_search(
     url = storage_url(storage, out)
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     ostudy = open_study(study, make_storage(url))
-    for params in study.search.baseline:
-        ostudy.enqueue_trial(params, skip_if_exists=True)
 
     timing: dict[str, float] = {}
     if n_workers == 1:
         timing = _work(_Job(study, url, target, base_seed, 0, evaluator, None, progress))
     else:
-        # Enqueued trials first, here: SQLite cannot stop two processes from
-        # both taking the same waiting trial (it has no row locks).
-        n_waiting = len(ostudy.get_trials(deepcopy=False, states=(TrialState.WAITING,)))
-        if n_waiting:
-            n_done = len(ostudy.get_trials(deepcopy=False, states=(TrialState.COMPLETE,)))
-            first = _work(
-                _Job(
-                    study,
-                    url,
-                    min(target, n_done + n_waiting),
-                    base_seed,
-                    n_workers,
-                    evaluator,
-                    None,
-                    False,
-                )
-            )
-            timing = dict(first)
+        # The baseline designs first, here, so that only one process evaluates them.
+        complete = ostudy.get_trials(deepcopy=False, states=(TrialState.COMPLETE,))
+        known = {study.parameter_key(t.params) for t in complete}
+        missing = {study.parameter_key(p) for p in study.search.baseline} - known
+        if missing:
+            n_first = min(target, len(complete) + len(missing))
+            timing = _work(_Job(study, url, n_first, base_seed, n_workers, evaluator))
         ctx = multiprocessing.get_context("spawn")
         with concurrent.futures.ProcessPoolExecutor(max_workers=n_workers, mp_context=ctx) as pool:
             futures = [
                 pool.submit(
-                    _work, _Job(study, url, target, base_seed, w, evaluator, os.getpid(), False)
+                    _work,
+                    _Job(study, url, target, base_seed, w, evaluator, os.getpid(), baselines=False),
                 )
                 for w in range(n_workers)
             ]

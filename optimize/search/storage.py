@@ -1,11 +1,10 @@
-"""Where a study lives: storage URLs, SQLite settings, opening a study, heartbeats, dead trials.
+"""Where a study lives: storage URLs, SQLite settings, opening a study, dead trials.
 
 The study is kept in an Optuna RDB storage: a SQLite file ``DIR/study.db`` by
 default, any SQLAlchemy URL (``postgresql+psycopg2://...``) to share one study
-between machines. Running trials carry heartbeats; a worker that looks fails
-the trials of dead workers (Optuna's heartbeat for any machine, plus trials of
-processes of this host that no longer exist, so a run killed with ``kill -9``
-resumes at once).
+between machines. A search worker keeps a trial RUNNING in the storage only
+between its two writes (milliseconds); a worker that looks fails the running
+trials of dead workers (see :func:`fail_dead_trials`).
 """
 
 from __future__ import annotations
@@ -13,7 +12,6 @@ from __future__ import annotations
 import functools
 import os
 import socket
-import threading
 import time
 import warnings
 from pathlib import Path
@@ -32,14 +30,14 @@ __all__ = [
     "make_storage",
     "open_study",
     "fail_dead_trials",
-    "Heartbeat",
     "worker_identity",
     "HEARTBEAT_INTERVAL_S",
     "GRACE_PERIOD_S",
 ]
 
-#: Seconds between heartbeats of a running trial; a trial without one for
-#: ``GRACE_PERIOD_S`` is failed by the next worker that looks.
+#: Optuna's heartbeat settings of the storage (for trials of ``study.optimize``
+#: loops sharing it); a running trial older than ``GRACE_PERIOD_S`` whose worker
+#: is not a live process of this host is failed by the next worker that looks.
 HEARTBEAT_INTERVAL_S = 10
 GRACE_PERIOD_S = 60
 
@@ -155,6 +153,7 @@ def open_study(
         ostudy.set_user_attr("wellwright_fingerprint", study.fingerprint())
         ostudy.set_user_attr("wellwright_source", study.source)
         ostudy.set_user_attr("parameters", list(study.parameter_names))
+        ostudy.set_user_attr("constraint_names", list(study.constraint_names))
         ostudy.set_user_attr(
             "objectives", [f"{o.direction} {o.metric}" for o in study.objectives] or ["score"]
         )
@@ -168,41 +167,6 @@ def open_study(
             key="search.study_name",
         )
     return ostudy
-
-
-class Heartbeat:
-    """Records a heartbeat for the current trials every interval, in a thread."""
-
-    def __init__(self, storage: optuna.storages.RDBStorage) -> None:
-        self._storage = storage
-        self._ids: set[int] = set()
-        self._lock = threading.Lock()
-        self._stop = threading.Event()
-        self._thread = threading.Thread(target=self._run, daemon=True)
-        self._thread.start()
-
-    def add(self, trial_id: int) -> None:
-        self._storage.record_heartbeat(trial_id)
-        with self._lock:
-            self._ids.add(trial_id)
-
-    def clear(self) -> None:
-        with self._lock:
-            self._ids.clear()
-
-    def _run(self) -> None:
-        while not self._stop.wait(HEARTBEAT_INTERVAL_S):
-            with self._lock:
-                ids = list(self._ids)
-            for trial_id in ids:
-                try:
-                    self._storage.record_heartbeat(trial_id)
-                except Exception:  # noqa: BLE001 - the next beat retries; staleness fails the trial
-                    pass
-
-    def stop(self) -> None:
-        self._stop.set()
-        self._thread.join(timeout=5)
 
 
 def worker_identity() -> str:
@@ -225,11 +189,12 @@ def _pid_alive(pid: int) -> bool:
 
 
 def fail_dead_trials(ostudy: optuna.Study, running: list[FrozenTrial]) -> int:
-    """Fail running trials whose process is gone; returns how many.
+    """Fail running trials whose worker is gone; returns how many.
 
-    Optuna's heartbeat catches any machine's dead workers after the grace
-    period; a trial of a process of this host that no longer exists is failed
-    at once, and one that never got a worker tag within the grace period too.
+    A trial of a process of this host that no longer exists is failed at once;
+    any other running trial once it is older than ``GRACE_PERIOD_S`` (a search
+    worker keeps its rows RUNNING for milliseconds; a trial with Optuna
+    heartbeats is failed by Optuna's own rule when they stop).
     """
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
@@ -238,13 +203,13 @@ def fail_dead_trials(ostudy: optuna.Study, running: list[FrozenTrial]) -> int:
     now = time.time()
     failed = 0
     for t in running:
-        owner = t.user_attrs.get("worker")
-        dead = False
-        if owner:
-            h, _, pid = owner.rpartition(":")
-            dead = h == host and pid.isdigit() and not _pid_alive(int(pid))
-        elif t.datetime_start is not None:
-            dead = now - t.datetime_start.timestamp() > GRACE_PERIOD_S
+        h, _, pid = str(t.user_attrs.get("worker", "")).rpartition(":")
+        if h == host and pid.isdigit():
+            dead = not _pid_alive(int(pid))
+        else:
+            dead = (
+                t.datetime_start is not None and now - t.datetime_start.timestamp() > GRACE_PERIOD_S
+            )
         if dead:
             try:
                 ostudy.tell(t.number, state=TrialState.FAIL, skip_if_finished=True)
