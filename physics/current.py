@@ -41,6 +41,7 @@ from .constants import BOLTZMANN_EV_K, ELECTRON_MASS_KG, ELEMENTARY_CHARGE_C, HB
 from .fermi import fermi_level_ev
 from .quadrature import sinh_gauss_legendre
 from .resonances import local_peaks, refine_grid_peaks
+from .scattering import ScatteringParameters, coherent_factor, sequential_integral_ev2
 from .stack import LayerTable
 from .transmission import transmission, transmission_rows
 
@@ -162,6 +163,7 @@ def current_density_a_cm2(
     bias_v: np.ndarray,
     grid: EnergyGrid = EnergyGrid(),
     broadening_ev: float = 0.0,
+    scattering: ScatteringParameters | None = None,
 ) -> np.ndarray:
     """Tsu-Esaki current density for each (stack, bias) of ``profile``.
 
@@ -179,6 +181,11 @@ def current_density_a_cm2(
         Scattering broadening ``Gamma_s``, eV, of every resonance narrower than
         ``kT`` found on the coarse grid (up to ``grid.n_candidates``, resolved or
         not; :mod:`physics.broadening`); 0 (default) is the coherent result.
+    scattering
+        Settings of the scattering-assisted channel (:mod:`physics.scattering`):
+        the coherent lines narrower than kT are reduced to their coherent part
+        and the sequential current through the well's states is added. ``None``
+        (default) or a channel without scattering: the coherent current.
 
     Returns
     -------
@@ -253,6 +260,26 @@ def current_density_a_cm2(
             m = valid[..., r]
             if m.any():
                 weights[m] -= _linear_weights(coarse[m], a[..., r][m], b[..., r][m])
+    sequential = None
+    if scattering is not None and scattering.active and grid.n_resonances > 0:
+        sequential, _, gamma_s = sequential_integral_ev2(
+            profile,
+            table=table,
+            bias_v=bias,
+            mu_emitter_ev=mu_e,
+            kt_ev=kt,
+            high_ev=high,
+            lines=lines,
+            params=scattering,
+        )
+        narrow = lines["valid"] & (lines["width_ev"] < kt[..., None])
+        reduce = dict(
+            center_ev=lines["center_ev"],
+            width_ev=lines["width_ev"],
+            valid=narrow,
+            gamma_s_ev=gamma_s,
+        )
+        t_coarse = t_coarse * coherent_factor(coarse, **reduce)
     supply = supply_function_ev(coarse, mu_e[..., None], mu_c[..., None], kt[..., None])
     integral = np.sum(weights * t_coarse * supply, axis=-1)
     if grid.n_resonances > 0 and valid.any():
@@ -263,6 +290,8 @@ def current_density_a_cm2(
             center[where], width[where], a[where], b[where], grid.n_per_resonance
         )
         t_lines = transmission_rows(nodes, profile=profile, rows=rows)
+        if sequential is not None:
+            t_lines = t_lines * coherent_factor(nodes, **{k: v[rows] for k, v in reduce.items()})
         s_lines = supply_function_ev(
             nodes, mu_e[rows][:, None], mu_c[rows][:, None], kt[rows][:, None]
         )
@@ -278,6 +307,8 @@ def current_density_a_cm2(
             broadening_ev=broadening_ev,
             kt_ev=kt,
         )
+    if sequential is not None:
+        integral = integral + sequential
     mass_e = table.mass_m0[:, 0][:, None]
     j = TSU_ESAKI_A_M2_EV2 * mass_e * integral * 1e-4
     return j

@@ -26,6 +26,7 @@ from .current import EnergyGrid, current_density_a_cm2
 from .device import DEVICE_METRIC_NAMES, device_figures
 from .electrostatics import self_consistent_profile, solve_stack_poisson
 from .resonances import parabola_through
+from .scattering import ScatteringParameters
 from .stack import LayerTable, ModelOptions, Stack
 
 __all__ = [
@@ -39,6 +40,7 @@ __all__ = [
     "external_bias_v",
     "HysteresisCurves",
     "sweep_hysteresis",
+    "scattering_parameters",
 ]
 
 METRIC_NAMES = (
@@ -92,6 +94,16 @@ def band_profile(table: LayerTable, bias_v, *, model: ModelOptions = ModelOption
     return linear_profile(table, bias_v, slice_nm=model.slice_nm)
 
 
+def scattering_parameters(model: ModelOptions) -> ScatteringParameters | None:
+    """Settings of the scattering-assisted channel ``model`` asks for; ``None`` for coherent transport."""
+    if model.transport == "coherent":
+        return None
+    return ScatteringParameters(
+        roughness_height_nm=model.roughness_height_nm,
+        roughness_length_nm=model.roughness_length_nm,
+    )
+
+
 def current_at_bias(
     table: LayerTable,
     bias_v: np.ndarray,
@@ -104,7 +116,9 @@ def current_at_bias(
     The band profile comes from the model ``model.electrostatics`` selects
     (:func:`physics.bands.linear_profile` or
     :func:`physics.electrostatics.self_consistent_profile`); the scattering
-    broadening ``model.broadening_mev`` is applied in the kernel.
+    broadening ``model.broadening_mev`` and, with ``model.transport =
+    "scattering-assisted"``, the scattering-assisted channel
+    (:mod:`physics.scattering`) are applied in the kernel.
     """
     profile = band_profile(table, bias_v, model=model)
     return current_density_a_cm2(
@@ -113,6 +127,7 @@ def current_at_bias(
         bias_v=_bias_2d(bias_v, table.n_stacks),
         grid=grid,
         broadening_ev=1e-3 * model.broadening_mev,
+        scattering=scattering_parameters(model),
     )
 
 
@@ -349,6 +364,7 @@ def sweep_hysteresis(
                 bias_v=np.broadcast_to(bias, (table.n_stacks, bias.size)),
                 grid=grid,
                 broadening_ev=1e-3 * model.broadening_mev,
+                scattering=scattering_parameters(model),
             )
         )
     return HysteresisCurves(bias, branches[0], branches[1])

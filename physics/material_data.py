@@ -37,6 +37,11 @@ Status of the numbers (checked against public copies):
   InSb agree with the Ioffe Institute archive [6]_ (GaSb to its quoted 15.7);
   InP (the archive quotes 12.5) and AlSb (no archive value found) are
   unconfirmed and still from memory.
+- LO-phonon energies and high-frequency permittivities (used by the
+  scattering-assisted current, :mod:`physics.scattering`) are not in [1]_;
+  they are from memory of Adachi's tables [7]_ and not yet checked against a
+  public copy. Ternaries are linear in x (In0.53Ga0.47As: 33 meV, between
+  its InAs-like and GaAs-like modes, a one-mode simplification).
 
 Conventions of [1]_ kept here:
 
@@ -67,6 +72,9 @@ References
    (files src/openbandparams/iii_v_zinc_blende_binaries.py,
    iii_v_zinc_blende_ternaries.py and, older, iii_v/zinc_blende/ternary.py),
    each value cited there to [1]_.
+.. [7] S. Adachi, Physical Properties of III-V Semiconductor Compounds
+   (Wiley, New York, 1992) (LO-phonon energies and high-frequency
+   permittivities; from memory).
 .. [6] Ioffe Institute, New Semiconductor Materials archive,
    http://www.ioffe.ru/SVA/NSM/Semicond/ (static dielectric constants at
    300 K; binary values read as the end points of the AlGaAs, GaAsSb, InAsSb
@@ -138,6 +146,8 @@ class BinaryData:
     varshni_alpha_l_mev_per_k: float  #: Varshni alpha (L gap)
     varshni_beta_l_k: float  #: Varshni beta (L gap)
     permittivity_r: float  #: static relative permittivity (from [2], not [1])
+    lo_phonon_mev: float  #: zone-centre LO-phonon energy (from [7], not [1])
+    permittivity_high_r: float  #: high-frequency relative permittivity (from [7], not [1])
     source: str = _BINARY_SOURCE
 
 
@@ -190,6 +200,8 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             varshni_alpha_l_mev_per_k=0.605,
             varshni_beta_l_k=204.0,
             permittivity_r=12.90,  # Ioffe [6]: 12.90
+            lo_phonon_mev=36.2,  # [7], from memory
+            permittivity_high_r=10.89,  # [7], from memory
             source=_binary_source(_PERMITTIVITY_AGREES),
         ),
         # AlAs: all [1] fields checked against openbandparams [5], all agree.
@@ -214,6 +226,8 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             varshni_alpha_l_mev_per_k=0.605,
             varshni_beta_l_k=204.0,
             permittivity_r=10.06,  # Ioffe [6]: 10.06 (AlGaAs end point)
+            lo_phonon_mev=50.1,  # [7], from memory
+            permittivity_high_r=8.16,  # [7], from memory
             source=_binary_source(_PERMITTIVITY_AGREES),
         ),
         # InAs: all [1] fields checked against openbandparams [5], all agree.
@@ -238,6 +252,8 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             varshni_alpha_l_mev_per_k=0.276,
             varshni_beta_l_k=93.0,
             permittivity_r=15.15,  # Ioffe [6]: 15.15 (InAsSb end point)
+            lo_phonon_mev=30.2,  # [7], from memory
+            permittivity_high_r=12.3,  # [7], from memory
             source=_binary_source(_PERMITTIVITY_AGREES),
         ),
         # InP: all [1] fields checked against openbandparams [5], all agree.
@@ -262,6 +278,8 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             varshni_alpha_l_mev_per_k=0.363,
             varshni_beta_l_k=162.0,
             permittivity_r=12.61,  # Ioffe [6] gives 12.5: unconfirmed, from memory
+            lo_phonon_mev=42.8,  # [7], from memory
+            permittivity_high_r=9.61,  # [7], from memory
             source=_binary_source(_PERMITTIVITY_INP),
         ),
         # GaSb: all [1] fields checked against openbandparams [5], all agree.
@@ -286,6 +304,8 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             varshni_alpha_l_mev_per_k=0.597,
             varshni_beta_l_k=140.0,
             permittivity_r=15.69,  # Ioffe [6]: 15.7, agrees to its rounding
+            lo_phonon_mev=29.8,  # [7], from memory
+            permittivity_high_r=14.4,  # [7], from memory
             source=_binary_source(f"{_PERMITTIVITY_AGREES} (15.7, to its rounding)"),
         ),
         # AlSb: all [1] fields checked against openbandparams [5], all agree.
@@ -311,6 +331,8 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             varshni_alpha_l_mev_per_k=0.58,
             varshni_beta_l_k=140.0,
             permittivity_r=12.04,  # no public value found: from memory
+            lo_phonon_mev=42.1,  # [7], from memory
+            permittivity_high_r=10.24,  # [7], from memory
             source=_binary_source(_PERMITTIVITY_UNCHECKED),
         ),
         # InSb: all [1] fields checked against openbandparams [5], all agree.
@@ -336,6 +358,8 @@ BINARIES: Mapping[str, BinaryData] = MappingProxyType(
             varshni_alpha_l_mev_per_k=0.32,
             varshni_beta_l_k=170.0,
             permittivity_r=16.8,  # Ioffe [6]: 16.8
+            lo_phonon_mev=23.9,  # [7], from memory
+            permittivity_high_r=15.7,  # [7], from memory
             source=_binary_source(_PERMITTIVITY_AGREES),
         ),
     }

@@ -428,6 +428,8 @@ _PARAMETER_KEYS = (
     "permittivity_r",
     "gap_x_ev",
     "gap_l_ev",
+    "lo_phonon_ev",
+    "permittivity_high_r",
 )
 #: Names of the conduction-band valleys, in the order of :func:`valley_edges_ev`.
 VALLEYS = ("Gamma", "X", "L")
@@ -461,6 +463,8 @@ def _binary_values(data: BinaryData, temperature_k: float) -> dict[str, float]:
         "permittivity_r": data.permittivity_r,
         "gap_x_ev": gap(data.gap_x_0k_ev, data.varshni_alpha_x_mev_per_k, data.varshni_beta_x_k),
         "gap_l_ev": gap(data.gap_l_0k_ev, data.varshni_alpha_l_mev_per_k, data.varshni_beta_l_k),
+        "lo_phonon_ev": 1e-3 * data.lo_phonon_mev,
+        "permittivity_high_r": data.permittivity_high_r,
     }
 
 
@@ -507,8 +511,9 @@ def band_parameters(
         (Gamma), ``kane_energy_ev``, ``spin_orbit_ev``, ``c11_gpa``,
         ``c12_gpa``, ``deformation_ac_ev`` (conduction-band hydrostatic),
         ``permittivity_r`` (static), ``gap_x_ev`` and ``gap_l_ev`` (X and L
-        minima above the valence-band maximum at T). Floats for a scalar or no x, arrays shaped
-        like x otherwise.
+        minima above the valence-band maximum at T), ``lo_phonon_ev`` and
+        ``permittivity_high_r`` (LO phonon, high-frequency permittivity; linear in
+        x). Floats for a scalar or no x, arrays shaped like x otherwise.
 
     Notes
     -----
@@ -584,6 +589,8 @@ class MaterialParameters:
     permittivity_r: FloatOrArray  #: static relative permittivity
     x_valley_ev: FloatOrArray = float("nan")  #: X-valley edge, common scale, unstrained
     l_valley_ev: FloatOrArray = float("nan")  #: L-valley edge, common scale, unstrained
+    lo_phonon_ev: FloatOrArray = 0.0362  #: zone-centre LO-phonon energy, eV
+    permittivity_high_r: FloatOrArray = 10.89  #: high-frequency relative permittivity
 
 
 def _pseudomorphic_strain(
@@ -680,6 +687,8 @@ def material_parameters(
         permittivity_r=bulk["permittivity_r"],
         x_valley_ev=_output(bulk["valence_band_offset_ev"] + bulk["gap_x_ev"]),
         l_valley_ev=_output(bulk["valence_band_offset_ev"] + bulk["gap_l_ev"]),
+        lo_phonon_ev=bulk["lo_phonon_ev"],
+        permittivity_high_r=bulk["permittivity_high_r"],
     )
 
 

@@ -37,6 +37,9 @@ MAX_THICKNESS_NM = 1000.0
 MAX_DOPING_CM3 = 1e21
 TEMPERATURE_RANGE_K = (1.0, 1000.0)
 ELECTROSTATICS_MODELS = ("linear", "self-consistent")
+#: ``[model] transport``: the coherent current alone, or with the scattering-assisted
+#: channel of :mod:`physics.scattering`
+TRANSPORT_MODELS = ("coherent", "scattering-assisted")
 #: Set to True by the module that implements self-consistent electrostatics.
 _ELECTROSTATICS_AVAILABLE = True
 
@@ -60,6 +63,9 @@ MODEL_KEYS = {
     "electrostatics": str,
     "broadening_mev": float,
     "slice_nm": float,
+    "transport": str,
+    "roughness_height_nm": float,
+    "roughness_length_nm": float,
 }
 DEVICE_KEYS = {"area_um2": float, "series_resistance_ohm_um2": float}
 TOP_KEYS = {"temperature_k", "substrate", "model", "device", "layers"}
@@ -88,6 +94,10 @@ class Layer:
     #: X- and L-valley edges, same scale as ``conduction_band_ev`` (unstrained; None: custom)
     x_valley_ev: float | None = None
     l_valley_ev: float | None = None
+    #: LO phonon and high-frequency permittivity of the scattering-assisted current
+    #: (GaAs values for a custom layer, see :mod:`physics.scattering`)
+    lo_phonon_ev: float = 0.0362
+    permittivity_high_r: float = 10.89
 
     @property
     def label(self) -> str:
@@ -106,6 +116,9 @@ class ModelOptions:
     electrostatics: str = "linear"
     broadening_mev: float = 0.0
     slice_nm: float = 0.25  #: slice width for the linear potential inside layers
+    transport: str = "coherent"  #: one of TRANSPORT_MODELS
+    roughness_height_nm: float = 0.3  #: interface roughness of the scattering-assisted channel
+    roughness_length_nm: float = 5.0  #: its lateral correlation length
 
 
 @dataclass(frozen=True)
@@ -154,6 +167,10 @@ class LayerTable:
     doping_cm3: np.ndarray
     permittivity_r: np.ndarray
     temperature_k: np.ndarray
+    #: LO-phonon energy and high-frequency permittivity per layer; ``None``: GaAs values
+    #: (:mod:`physics.scattering`)
+    lo_phonon_ev: np.ndarray | None = None
+    permittivity_high_r: np.ndarray | None = None
 
     @property
     def n_stacks(self) -> int:
@@ -183,6 +200,8 @@ class LayerTable:
             doping_cm3=col("doping_cm3"),
             permittivity_r=col("permittivity_r"),
             temperature_k=np.array([s.temperature_k for s in stacks], float),
+            lo_phonon_ev=col("lo_phonon_ev"),
+            permittivity_high_r=col("permittivity_high_r"),
         )
 
     def with_thickness_nm(self, thickness_nm: np.ndarray) -> LayerTable:
@@ -191,14 +210,19 @@ class LayerTable:
 
     def take(self, index: np.ndarray | slice) -> LayerTable:
         """Rows ``index`` of every array."""
-        return LayerTable(**{k: v[index] for k, v in self.__dict__.items()})
+        return LayerTable(
+            **{k: (None if v is None else v[index]) for k, v in self.__dict__.items()}
+        )
 
     @classmethod
     def concatenate(cls, tables: list[LayerTable]) -> LayerTable:
         """Rows of several tables (same layer count) in one."""
-        return cls(
-            **{k: np.concatenate([t.__dict__[k] for t in tables]) for k in cls.__dataclass_fields__}
-        )
+
+        def join(k):
+            parts = [t.__dict__[k] for t in tables]
+            return None if any(p is None for p in parts) else np.concatenate(parts)
+
+        return cls(**{k: join(k) for k in cls.__dataclass_fields__})
 
 
 # --------------------------------------------------------------------------- parsing
@@ -318,6 +342,22 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
             source=source,
             key="model.broadening_mev",
         )
+    if model.transport not in TRANSPORT_MODELS:
+        raise InputError(
+            f"'{model.transport}' is not one of {', '.join(TRANSPORT_MODELS)}",
+            source=source,
+            key="model.transport",
+        )
+    for key, (lo, hi) in {
+        "roughness_height_nm": (0.0, 2.0),
+        "roughness_length_nm": (0.5, 50.0),
+    }.items():
+        if not lo <= getattr(model, key) <= hi:
+            raise InputError(
+                f"{getattr(model, key):g} outside [{lo:g}, {hi:g}] nm",
+                source=source,
+                key=f"model.{key}",
+            )
     if not 0.01 <= model.slice_nm <= 2.0:
         raise InputError(
             f"{model.slice_nm:g} outside [0.01, 2] nm", source=source, key="model.slice_nm"
@@ -438,6 +478,7 @@ def _parse_layer(
         permittivity = values.get("permittivity_r", 12.9)  # GaAs-like default, see docs
         strain_xx = 0.0
         valleys: tuple[float | None, float | None] = (None, None)
+        phonon = {}  # the Layer's GaAs defaults
     else:
         if "x" in values and not 0.0 <= values["x"] <= 1.0:
             raise err(f"{values['x']:g} outside [0, 1]", "x")
@@ -456,6 +497,10 @@ def _parse_layer(
         )
         edge = values.get("conduction_band_ev", float(params.conduction_band_ev))
         mass = values.get("mass_m0", float(params.mass_m0))
+        phonon = {
+            "lo_phonon_ev": float(params.lo_phonon_ev),
+            "permittivity_high_r": float(params.permittivity_high_r),
+        }
         alpha = values.get("nonparabolicity_per_ev", float(params.nonparabolicity_per_ev))
         monolayer = values.get("monolayer_nm", float(params.monolayer_nm))
         permittivity = values.get("permittivity_r", float(params.permittivity_r))
@@ -537,4 +582,5 @@ def _parse_layer(
         strain_xx=strain_xx,
         x_valley_ev=valleys[0],
         l_valley_ev=valleys[1],
+        **phonon,
     )

@@ -58,9 +58,11 @@ def style() -> None:
 def model_label(stack: Stack) -> str:
     """Short description of the transport and electrostatics model, for figure titles."""
     m = stack.model
-    transport = f"{m.broadening_mev:g} meV broadening" if m.broadening_mev > 0 else "coherent"
+    transport = "coherent" if m.transport == "coherent" else "+ scattering-assisted"
+    if m.broadening_mev > 0:
+        transport += f", {m.broadening_mev:g} meV broadening"
     bias = "linear drop" if m.electrostatics == "linear" else "self-consistent"
-    return f"Tsu-Esaki, {transport}, {bias}"
+    return f"Tsu-Esaki {transport}, {bias}"
 
 
 def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):

@@ -635,6 +635,11 @@ class GrowthModel:
             doping_cm3=doping,
             permittivity_r=perm,
             temperature_k=np.full(n, t.temperature_k[0]),
+            # composition drifts of a few per cent leave the phonons as grown
+            lo_phonon_ev=None if t.lo_phonon_ev is None else rows(t.lo_phonon_ev),
+            permittivity_high_r=None
+            if t.permittivity_high_r is None
+            else rows(t.permittivity_high_r),
         )
 
 

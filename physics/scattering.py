@@ -1,0 +1,647 @@
+"""Scattering-assisted (sequential) current through the well's quasi-bound states.
+
+Beside the coherent Tsu-Esaki current (:mod:`physics.current`), electrons
+reach the collector through a quasi-bound state of the well after being
+scattered there. This module adds that channel; with no scattering it adds
+nothing and the coherent current is returned unchanged.
+
+Model
+-----
+Each quasi-bound state ``n`` (a line of the coherent ``T(E)``) is a single
+level in the Breit-Wigner picture [1]_ with tunnelling widths ``Gamma_L(E)``
+to the emitter and ``Gamma_R`` to the collector. Scattering in the well is
+represented by Buttiker's virtual reservoir attached to the state [2]_: the
+state gains a scattering width ``Gamma_s`` beside ``Gamma = Gamma_L + Gamma_R``,
+the coherent part of the transmission through it becomes
+
+    T_coh(E) = Gamma_L Gamma_R / ((E - E_n)^2 + (Gamma_t / 2)^2),
+    Gamma_t = Gamma + Gamma_s,
+
+and electrons scattered into the reservoir leave it to either contact. The
+reservoir draws no net current at any energy (particle conservation), which
+fixes its occupation ``f_w``; for constant widths the total (coherent plus
+sequential) current is the coherent one with its area conserved [2]_, [3]_.
+
+Departures from [2]_, each stated:
+
+1. *Transverse momentum.* In [2]_ the reservoir re-emits at the same
+   longitudinal energy. Here, as in the sequential-tunnelling picture [4]_,
+   [5]_, interface roughness breaks the conservation of transverse momentum:
+   an emitter electron of total energy ``E`` and any longitudinal energy
+   ``z <= E`` can enter the state, giving ``E - z`` to lateral motion. The
+   emitter's coupling to the reservoir at total energy ``E`` is then
+   ``g_L(E) = int_0^E Gamma_L(z) Gamma_s K(z) dz`` and the collector's
+   ``g_R(E) = int_{E_C}^E Gamma_R Gamma_s K(z) dz``, where ``K`` is the
+   state's spectral weight (below). The current at total energy ``E`` is
+   ``g_L g_R / (g_L + g_R) (f_L - f_R)`` when only elastic scattering acts:
+   Buttiker's series form [2]_ with cumulative couplings. This is what
+   carries current after the state has dropped below the emitter band edge
+   (the valley): ``Gamma_L(z)`` at the emitter's energies ``z >= 0`` stays
+   finite although the state sits below them.
+2. *Spectral weight.* ``K(z) = 1/((z - E_n)^2 + (Gamma_t/2)^2) + 1/eps_n^2``:
+   the Lorentzian of the single-level model plus a non-resonant floor. Far
+   from resonance the emitter state's amplitude at the barrier's inner
+   interface does not keep falling like the Lorentzian tail; it is its
+   evanescent tail through the barrier (Fabry-Perot factor of order one).
+   Fermi's golden rule for a Gaussian-correlated roughness [6]_ between that
+   amplitude and the well state, compared with ``Gamma_L`` through the same
+   barrier (thick rectangular barrier, ground state of a deep well, equal
+   masses; derived for this module, not from a publication), gives
+   ``eps_n^2 = 16 e_k e_w^3 / (pi^2 (e_w + e_k)^2)`` with ``e_w`` the state's
+   kinetic energy in the well and ``e_k`` the emitter barrier's height above
+   it (tens of meV). The floor is applied with half the roughness width (the
+   source-side interface only; the phonon term below takes the same floor with
+   its full rate) and only where the state exists at the electron's total
+   energy (weight ``1/2 + atan(2 (E - E_n)/Gamma_t)/pi``).
+3. *Polar-optical phonons.* A second reservoir coupling with energy loss
+   ``hbar w_LO`` (Buttiker's energy-relaxing reservoir [2]_, [7]_): an
+   electron of total energy ``E + hbar w`` enters the state at ``E`` by
+   emitting a phonon (rate ``(N + 1) Gamma_LO``), the reverse by absorption
+   (``N Gamma_LO``), with ``N`` the Bose occupation and the phonon's small
+   momentum keeping the longitudinal energy (``K`` centred at ``E_n + hbar w``
+   in the emitter's longitudinal energy: the phonon replica [8]_). Pauli
+   blocking of the state is kept for these terms, so the equilibrium
+   occupation is a Fermi function (detailed balance, tested). Exits from the
+   well by phonon emission are not modelled (in the valley the elastic exit
+   to the collector dominates).
+4. *Widths.* ``Gamma_R`` and ``Gamma_L`` at ``E_n`` come from the line's
+   peak and width: ``T_p = 4 Gamma_L Gamma_R / Gamma^2`` has two roots; the
+   one assigned to the collector is the one whose barrier is the more
+   transparent by a WKB estimate [9]_. A state below the emitter band edge
+   does not show in the device's ``T(E)``; it is found in a copy of the
+   profile whose emitter side (every slice before the first barrier) is
+   lowered to the collector's band edge. ``Gamma_L(z)`` away from ``E_n``
+   follows the emitter barrier's WKB transparency with the interface factor
+   ``4 (k/m)(kappa/m_b) / ((k/m)^2 + (kappa/m_b)^2)`` of the emitter's wave
+   number ``k`` (so it vanishes at the emitter band edge); ``Gamma_R`` is
+   held constant across the line.
+5. *Rates.* ``Gamma_s = Gamma_IFR + N Gamma_LO`` (absorption only: a state at
+   the bottom of its subband cannot emit). Interface roughness, both
+   interfaces, Gaussian correlation [6]_:
+   ``Gamma_IFR = pi m_w Delta^2 Lambda^2 F sum_i (V_i psi_n(z_i)^2)^2 / hbar^2``
+   with ``V_i psi_n(z_i)^2 = 2 e_w / w_eff`` for a finite well
+   (``w_eff = w + 1/kappa_1 + 1/kappa_2``) and ``F = exp(-x) I0(x)``,
+   ``x = m_w k_B T Lambda^2 / hbar^2`` (angle average at a thermal lateral
+   energy). Phonons: ``Gamma_LO = 2 alpha hbar w_LO`` with the Frohlich
+   constant ``alpha = (e^2 / 4 pi eps0 hbar) sqrt(m_w / 2 hbar w_LO)
+   (1/eps_inf - 1/eps_s)`` of the well material [10]_ (the bulk emission rate
+   well above threshold, from memory; a 2-D state's rate is of the same
+   order). Alloy disorder (about 0.5 meV in an In0.53Ga0.47As well, estimate
+   from [11]_) and ionised impurities (the well is undoped) are neglected.
+6. Only the lowest quasi-bound state is carried by default
+   (``n_states = 1``): it is the one that crosses the emitter band edge at
+   the first peak and carries the valley current. Higher states keep their
+   coherent current (their roughness width from note 5 grows as ``e_w^2``,
+   to a large fraction of their energy, beyond a Born estimate). A state is
+   treated alone: no scattering between states, no coherence between them.
+   Stacks with more than two barriers take the region between the outer
+   barriers as the well.
+
+Defaults (no first-principles value exists): roughness height ``Delta`` =
+0.3 nm (one monolayer) and correlation length ``Lambda`` = 5 nm, the values
+found for GaAs/AlAs wells from their mobility [6]_ (from memory); the
+literature range is about 0.2-0.6 nm and 2-10 nm. ``Gamma_IFR`` scales as
+``Delta^2 Lambda^2`` at short ``Lambda``.
+
+References
+----------
+.. [1] B. Ricco and M. Ya. Azbel, Phys. Rev. B 29, 1970 (1984).
+.. [2] M. Buttiker, IBM J. Res. Dev. 32, 63 (1988) (from memory).
+.. [3] M. Jonson and A. Grincwajg, Appl. Phys. Lett. 51, 1729 (1987).
+.. [4] S. Luryi, Appl. Phys. Lett. 47, 490 (1985).
+.. [5] F. Chevoir and B. Vinter, Phys. Rev. B 47, 7260 (1993) (scattering-
+   assisted tunnelling and the valley current; from memory).
+.. [6] H. Sakaki, T. Noda, K. Hirakawa, M. Tanaka and T. Matsusue,
+   Appl. Phys. Lett. 51, 1934 (1987) (interface roughness scattering in
+   GaAs/AlAs wells; from memory).
+.. [7] N. S. Wingreen, K. W. Jacobsen and J. W. Wilkins, Phys. Rev. Lett. 61,
+   1396 (1988) (phonon-assisted resonant tunnelling; from memory).
+.. [8] V. J. Goldman, D. C. Tsui and J. E. Cunningham, Phys. Rev. B 36, 7635
+   (1987) (LO-phonon replica measured in the valley; from memory).
+.. [9] L. D. Landau and E. M. Lifshitz, Quantum Mechanics (WKB transparency).
+.. [10] H. Frohlich, Adv. Phys. 3, 325 (1954); rate as in B. K. Ridley,
+   Quantum Processes in Semiconductors (Oxford) (from memory).
+.. [11] G. Bastard, Appl. Phys. Lett. 43, 591 (1983) (alloy scattering in
+   quantum wells; from memory).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.special import i0e
+
+from .bands import Profile
+from .constants import ELEMENTARY_CHARGE_C, HBAR2_2M0_EV_NM2, VACUUM_PERMITTIVITY_F_M
+from .resonances import local_peaks, refine_grid_peaks
+from .transmission import transmission
+
+__all__ = [
+    "ScatteringParameters",
+    "scattering_widths_ev",
+    "coherent_factor",
+    "sequential_fluxes_ev2",
+    "sequential_integral_ev2",
+    "BARRIER_MIN_EV",
+]
+
+#: A layer whose band edge lies this far above the emitter's (at zero bias) is a barrier.
+BARRIER_MIN_EV = 0.05
+#: e^2 / (4 pi eps0), eV nm
+COULOMB_EV_NM = ELEMENTARY_CHARGE_C / (4.0 * np.pi * VACUUM_PERMITTIVITY_F_M) * 1e9
+#: GaAs values where a table carries no phonon data (module notes)
+DEFAULT_LO_PHONON_EV = 0.0362
+DEFAULT_PERMITTIVITY_HIGH_R = 10.89
+
+
+@dataclass(frozen=True)
+class ScatteringParameters:
+    """Settings of the scattering-assisted channel (module notes for sources and ranges)."""
+
+    roughness_height_nm: float = 0.3  #: Delta, rms interface roughness height
+    roughness_length_nm: float = 5.0  #: Lambda, lateral correlation length
+    phonon_scale: float = 1.0  #: multiplies the Frohlich rate (0: no phonon channel)
+    n_states: int = 1  #: quasi-bound states carried per (stack, bias), lowest first (notes)
+    n_search: int = 32  #: coarse points of the search for states below the emitter edge
+    n_uniform: int = 48  #: uniform points of the total-energy integral
+    n_line: int = 32  #: points about each state (sinh map) of that integral
+
+    @property
+    def active(self) -> bool:
+        return self.roughness_height_nm > 0.0 or self.phonon_scale > 0.0
+
+
+def _kappa(mass_m0, height_ev):
+    """Decay constant, 1/nm, under a barrier ``height_ev`` (floored at 1 meV)."""
+    return np.sqrt(mass_m0 * np.maximum(height_ev, 1e-3) / HBAR2_2M0_EV_NM2)
+
+
+def _interface_factor(k_over_m, kappa_over_m):
+    """``4 (k/m)(kappa/m_b) / ((k/m)^2 + (kappa/m_b)^2)``: a lead's entry into a barrier."""
+    return 4.0 * k_over_m * kappa_over_m / (k_over_m**2 + kappa_over_m**2 + 1e-300)
+
+
+@dataclass(frozen=True)
+class _Geometry:
+    """Where the barriers and the well are, per (stack, bias), in an oriented profile."""
+
+    run1: np.ndarray  #: (..., n) slices of the source-side barrier
+    run2: np.ndarray  #: (..., n) slices of the drain-side barrier
+    source: np.ndarray  #: (..., n) slices before the first barrier
+    has: np.ndarray  #: (...) a well between two barriers exists
+    outer1: np.ndarray  #: index of the first barrier's first slice
+    inner1: np.ndarray  #: index of the first barrier's last slice
+    inner2: np.ndarray  #: index of the second barrier's first slice
+    outer2: np.ndarray  #: index of the second barrier's last slice
+    well_edge_ev: np.ndarray  #: width-weighted mean band edge of the well
+    well_bottom_ev: np.ndarray
+    well_nm: np.ndarray
+    well_mass_m0: np.ndarray
+    lo_phonon_ev: np.ndarray
+    permittivity_high_r: np.ndarray
+    permittivity_r: np.ndarray
+
+
+def _at(a, i):
+    return np.take_along_axis(a, i[..., None], axis=-1)[..., 0]
+
+
+def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geometry:
+    """Barriers, well and source side of oriented slice arrays ``(..., n)``."""
+    n = edge.shape[-1]
+    idx = np.arange(n)
+    has = barrier.any(axis=-1)
+    i1 = np.argmax(barrier, axis=-1)
+    after = ~barrier & (idx > i1[..., None])
+    j1 = np.where(after.any(axis=-1), np.argmax(after, axis=-1), n)
+    i2 = n - 1 - np.argmax(barrier[..., ::-1], axis=-1)
+    before = ~barrier & (idx < i2[..., None])
+    j2 = n - 1 - np.argmax(before[..., ::-1], axis=-1)
+    well = (idx >= j1[..., None]) & (idx <= j2[..., None]) & (width > 0)
+    has &= well.any(axis=-1) & (j1 <= j2)
+    w = np.where(well, width, 0.0)
+    well_nm = w.sum(axis=-1)
+    safe = np.maximum(well_nm, 1e-12)
+    bottom = np.argmin(np.where(well, edge, np.inf), axis=-1)
+    return _Geometry(
+        run1=(idx >= i1[..., None]) & (idx < j1[..., None]),
+        run2=(idx > j2[..., None]) & (idx <= i2[..., None]),
+        source=idx < i1[..., None],
+        has=has,
+        outer1=i1,
+        inner1=np.maximum(j1 - 1, 0),
+        inner2=np.minimum(j2 + 1, n - 1),
+        outer2=i2,
+        well_edge_ev=(w * edge).sum(axis=-1) / safe,
+        well_bottom_ev=_at(edge, bottom),
+        well_nm=well_nm,
+        well_mass_m0=(w * mass).sum(axis=-1) / safe,
+        lo_phonon_ev=_at(phonon_ev, bottom),
+        permittivity_high_r=_at(eps_high, bottom),
+        permittivity_r=_at(eps_s, bottom),
+    )
+
+
+def scattering_widths_ev(energy_ev, geo: _Geometry, edge, mass, kt_ev, params):
+    """Roughness width, phonon width (no occupation factor), floor energy^2 and Bose factor.
+
+    ``energy_ev`` is ``(..., L)`` state energies on the oriented profile; the
+    rest broadcast over ``(...)``. Formulas in the module notes ([6]_, [10]_).
+    """
+    ex = lambda a: np.asarray(a)[..., None]  # noqa: E731
+    e_w = np.maximum(energy_ev - ex(geo.well_edge_ev), 5e-3)
+    top1 = ex(_at(edge, geo.inner1)) - energy_ev
+    top2 = ex(_at(edge, geo.inner2)) - energy_ev
+    k1 = _kappa(ex(_at(mass, geo.inner1)), top1)
+    k2 = _kappa(ex(_at(mass, geo.inner2)), top2)
+    w_eff = ex(geo.well_nm) + 1.0 / k1 + 1.0 / k2
+    m_w = ex(geo.well_mass_m0)
+    kt = ex(kt_ev)
+    lam, delta = params.roughness_length_nm, params.roughness_height_nm
+    m_over_hbar2 = m_w / (2.0 * HBAR2_2M0_EV_NM2)  # m / hbar^2, 1/(eV nm^2)
+    angle = i0e(m_over_hbar2 * kt * lam**2)
+    gamma_ifr = np.pi * m_over_hbar2 * delta**2 * lam**2 * angle * 2.0 * (2.0 * e_w / w_eff) ** 2
+    e_k = np.maximum(top1, 1e-3)
+    floor2 = 16.0 * e_k * e_w**3 / (np.pi**2 * (e_w + e_k) ** 2)
+    hw = ex(geo.lo_phonon_ev)
+    polar = 1.0 / ex(geo.permittivity_high_r) - 1.0 / ex(geo.permittivity_r)
+    alpha = COULOMB_EV_NM * np.sqrt(m_over_hbar2 / (2.0 * hw)) * polar
+    gamma_lo = params.phonon_scale * 2.0 * alpha * hw * np.ones_like(energy_ev)
+    bose = 1.0 / np.expm1(hw / kt)
+    return gamma_ifr, gamma_lo, floor2, bose
+
+
+def coherent_factor(energy_ev, *, center_ev, width_ev, valid, gamma_s_ev):
+    """Factor taking the coherent ``T`` of each line from width ``Gamma`` to ``Gamma + Gamma_s`` [2]_.
+
+    ``energy_ev`` is ``batch + (n,)``; the line arrays ``batch + (L,)``.
+    Returns ``prod_l ((E - E_l)^2 + (G_l/2)^2) / ((E - E_l)^2 + ((G_l + Gs_l)/2)^2)``.
+    """
+    d2 = (energy_ev[..., None, :] - center_ev[..., :, None]) ** 2
+    g = np.where(valid, width_ev, 0.0)[..., None]
+    gs = np.where(valid, gamma_s_ev, 0.0)[..., None]
+    return np.prod((d2 + 0.25 * g**2) / (d2 + 0.25 * (g + gs) ** 2 + 1e-300), axis=-2)
+
+
+def _theta(z, edge, mass, width, run, lo, hi):
+    """WKB transparency ``exp(-2 int kappa dz)`` of the barrier ``run`` at energies ``z`` ``(..., L, K)``."""
+    acc = np.zeros(z.shape)
+    for j in range(lo, hi):  # the recursion over the barrier's slices
+        h = edge[..., j, None, None] - z
+        kap = np.sqrt(mass[..., j, None, None] * np.maximum(h, 0.0) / HBAR2_2M0_EV_NM2)
+        acc += np.where(run[..., j, None, None], kap * width[..., j, None, None], 0.0)
+    return np.exp(-2.0 * acc)
+
+
+def _lead_coupling(z, lead_edge, lead_mass, edge, mass, width, run, outer, lo, hi):
+    """WKB coupling ``tau(z)`` of a lead through one barrier: interface factor x transparency."""
+    ex = lambda a: np.asarray(a)[..., None, None]  # noqa: E731
+    kin = z - ex(lead_edge)
+    k = np.sqrt(np.maximum(kin, 0.0) * ex(lead_mass) / HBAR2_2M0_EV_NM2)
+    m_b = ex(_at(mass, outer))
+    kap = _kappa(m_b, ex(_at(edge, outer)) - z)
+    tau = _interface_factor(k / ex(lead_mass), kap / m_b) * _theta(
+        z, edge, mass, width, run, lo, hi
+    )
+    return np.where(kin > 0.0, tau, 0.0)
+
+
+def _fermi(e, mu, kt):
+    return 0.5 * (1.0 - np.tanh(0.5 * (e - mu) / kt))
+
+
+def _split_widths(peak, width, tau_l, tau_r):
+    """``(Gamma_L, Gamma_R)`` from ``T_p = 4 G_L G_R / G^2``, ``G = G_L + G_R``; the larger to
+    the lead whose WKB coupling ``tau`` is larger."""
+    root = np.sqrt(np.clip(1.0 - peak, 0.0, 1.0))
+    big, small = 0.5 * width * (1.0 + root), 0.5 * width * (1.0 - root)
+    left_big = tau_l >= tau_r
+    return np.where(left_big, big, small), np.where(left_big, small, big)
+
+
+def _find_states(edge, mass, alpha, width, geo, kt, high, params):
+    """Quasi-bound states of the profile with its source side lowered to the drain's edge."""
+    e_r = edge[..., -1]
+    lowered = np.where(geo.source, np.minimum(edge, e_r[..., None]), edge)
+    probe = Profile(
+        edge_ev=lowered,
+        mass_m0=mass,
+        nonparabolicity_per_ev=alpha,
+        width_nm=width,
+        layer_index=np.arange(edge.shape[-1]),
+    )
+    lo = np.maximum(e_r, geo.well_bottom_ev) + 1e-4
+    hi = np.maximum(high, lo + 1e-3)
+    grid = lo[..., None] + (hi - lo)[..., None] * np.linspace(0.0, 1.0, params.n_search)
+    t = transmission(grid, profile=probe)
+    index, valid = local_peaks(t, params.n_states + 2)
+    center, gamma, peak = refine_grid_peaks(grid, t, index, valid, profile=probe, exact_peak=True)
+    valid &= (
+        np.isfinite(gamma)
+        & (gamma > 0)
+        & (gamma < kt[..., None])
+        & (center > lo[..., None])
+        & (center < hi[..., None])
+        & geo.has[..., None]
+    )
+    # the lowest states (the tallest peaks need not be the lowest)
+    order = np.argsort(np.where(valid, center, np.inf), axis=-1)[..., : params.n_states]
+    center, gamma, peak, valid = (
+        np.take_along_axis(x, order, axis=-1) for x in (center, gamma, peak, valid)
+    )
+    return center, gamma, peak, valid
+
+
+def _match_lines(e_n, gamma_p, peak_p, valid, lines, kt):
+    """The coherent line that is each state (its centre, width and peak are exact there).
+
+    Lowering the emitter side moves a state by a fraction of its width; a wider miss is no
+    state but the rise of ``T`` at a band edge. Returns the state's centre, width and peak,
+    ``matched`` ``(..., L)`` and ``carried`` ``(..., R)`` (the lines matched to a state).
+    """
+    d = np.abs(e_n[..., :, None] - lines["center_ev"][..., None, :])
+    narrow = lines["valid"] & (lines["width_ev"] < kt[..., None])
+    d = np.where(narrow[..., None, :], d, np.inf)
+    near = np.argmin(d, axis=-1)
+
+    def pick(a):
+        return np.take_along_axis(a, near, axis=-1)
+
+    matched = valid & (np.min(d, axis=-1) < 0.5 * (gamma_p + pick(lines["width_ev"])))
+    center = np.where(valid, np.where(matched, pick(lines["center_ev"]), e_n), 0.0)
+    width = np.where(valid, np.where(matched, pick(lines["width_ev"]), gamma_p), 1.0)
+    peak = np.where(matched, pick(lines["peak"]), peak_p)
+    slots = np.arange(d.shape[-1])
+    carried = np.any(matched[..., :, None] & (near[..., :, None] == slots), axis=-2)
+    return center, width, peak, matched, carried
+
+
+def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, params):
+    """Per state: ``Gamma_R``, the scale of ``Gamma_L(z)``, ``Gamma_t`` and the rates (notes 4-5)."""
+    n = edge.shape[-1]
+    lo2, hi2 = int(geo.inner2.min()), int(geo.outer2.max()) + 1
+    tau_r = _lead_coupling(
+        e_n[..., None],
+        edge[..., -1],
+        mass[..., n - 1],
+        edge,
+        mass,
+        width,
+        geo.run2,
+        geo.outer2,
+        lo2,
+        hi2,
+    )[..., 0]
+    # the left coupling at E_n of the line's own profile: the device's (matched) or the probe's
+    tau_l_dev = _left_coupling(e_n[..., None], 0.0, edge, mass, width, geo)[..., 0]
+    tau_l_probe = _left_coupling(e_n[..., None], edge[..., -1], edge, mass, width, geo)[..., 0]
+    tau_l = np.where(matched, tau_l_dev, tau_l_probe)
+    gamma_l, gamma_r = _split_widths(peak_c, width_c, tau_l, tau_r)
+    scale = gamma_l / np.maximum(tau_l, 1e-300)  # Gamma_L(z) = scale tau_L(z)
+    gamma_coh = np.where(matched, width_c, scale * tau_l_dev + gamma_r)
+    g_ifr, g_lo, floor2, bose = scattering_widths_ev(e_n, geo, edge, mass, kt, params)
+    return {
+        "e_n": e_n,
+        "gamma_r": gamma_r,
+        "scale": scale,
+        "gamma_t": gamma_coh + g_ifr + bose * g_lo,
+        "g_ifr": g_ifr,
+        "g_lo": g_lo,
+        "floor2": floor2,
+        "bose": bose,
+        "hw": geo.lo_phonon_ev[..., None] * np.ones_like(e_n),
+    }
+
+
+def _left_coupling(z, lead_edge, edge, mass, width, geo):
+    """``tau_L(z)`` of the source lead at band edge ``lead_edge`` through the first barrier."""
+    lo, hi = int(geo.outer1.min()), int(geo.inner1.max()) + 1
+    return _lead_coupling(
+        z, lead_edge, mass[..., 0], edge, mass, width, geo.run1, geo.outer1, lo, hi
+    )
+
+
+def _energy_nodes(st, high_ev, params):
+    """Total-energy nodes ``(..., L, K)``: uniform over the window, sinh-spaced about ``E_n``,
+    and geometric above 0 and ``-hbar w`` (where ``Gamma_L(z)`` and ``Gamma_L(z + hbar w)`` set in)."""
+    e_n, gamma_t, hw = st["e_n"], st["gamma_t"], st["hw"]
+    e_lo = np.minimum(-hw, 0.0) - 1e-4
+    e_hi = np.maximum(high_ev[..., None], e_lo + 1e-3)
+    u = np.linspace(0.0, 1.0, params.n_uniform)
+    s = np.linspace(-1.0, 1.0, params.n_line)
+    a = np.arcsinh((e_lo - e_n) / (0.5 * gamma_t))
+    b = np.arcsinh((e_hi - e_n) / (0.5 * gamma_t))
+    mid, rad = 0.5 * (a + b), 0.5 * (b - a)
+    about = e_n[..., None] + 0.5 * gamma_t[..., None] * np.sinh(mid[..., None] + rad[..., None] * s)
+    geometric = 0.02 * 0.5 ** np.arange(8.0)
+    nodes = np.concatenate(
+        [
+            e_lo[..., None] + (e_hi - e_lo)[..., None] * u,
+            about,
+            np.broadcast_to(geometric, e_n.shape + geometric.shape),
+            -hw[..., None] + geometric,
+        ],
+        axis=-1,
+    )
+    return np.sort(np.clip(nodes, e_lo[..., None], e_hi[..., None]), axis=-1)
+
+
+def _couplings(nodes, st, edge, mass, width, geo):
+    """Reservoir couplings ``g_L, g_R`` (elastic) and ``p_L, p_R`` (phonon emission, per
+    ``N + 1``) at the total energies ``nodes`` (module notes 1-3)."""
+
+    def ex(q):
+        return q[..., None]
+
+    def cumulative(y):
+        steps = np.cumsum(0.5 * (y[..., 1:] + y[..., :-1]) * np.diff(nodes), axis=-1)
+        return np.concatenate([np.zeros(y.shape[:-1] + (1,)), steps], axis=-1)
+
+    e_n, gamma_t, hw = ex(st["e_n"]), ex(st["gamma_t"]), ex(st["hw"])
+    g_ifr, g_lo, gamma_r = ex(st["g_ifr"]), ex(st["g_lo"]), ex(st["gamma_r"])
+    flr = 1.0 / ex(st["floor2"])
+    gl_el = ex(st["scale"]) * _left_coupling(nodes, 0.0, edge, mass, width, geo)
+    gl_lo = ex(st["scale"]) * _left_coupling(nodes + hw, 0.0, edge, mass, width, geo)
+    lor = 1.0 / ((nodes - e_n) ** 2 + 0.25 * gamma_t**2)
+    exists = 0.5 + np.arctan(2.0 * (nodes - e_n) / gamma_t) / np.pi
+    g_left = g_ifr * (cumulative(gl_el * lor) + 0.5 * exists * cumulative(gl_el) * flr)
+    p_left = g_lo * (cumulative(gl_lo * lor) + exists * cumulative(gl_lo) * flr)
+
+    def right(rate, floor_rate, shift):  # the drain's coupling (constant Gamma_R): closed form
+        lower = ex(ex(edge[..., -1])) - e_n + shift
+        top = np.maximum(nodes - e_n, lower)
+        g2 = 2.0 / gamma_t
+        arc = g2 * (np.arctan(g2 * top) - np.arctan(g2 * lower))
+        return gamma_r * (rate * arc + floor_rate * exists * (top - lower) * flr)
+
+    return g_left, right(g_ifr, 0.5 * g_ifr, 0.0), p_left, right(g_lo, g_lo, -hw)
+
+
+def _reservoir_fluxes(nodes, couplings, hw, bose, mu_left, mu_right, kt):
+    """Flux from the left lead into the reservoir and from it to the right lead, per energy.
+
+    The occupation ``f_w`` makes the reservoir's net current zero at every energy.
+    """
+    g_l, g_r, p_l, p_r = couplings
+    f_l, f_r = _fermi(nodes, mu_left, kt), _fermi(nodes, mu_right, kt)
+    fu_l, fu_r = _fermi(nodes + hw, mu_left, kt), _fermi(nodes + hw, mu_right, kt)
+    emit_l, emit_r = (bose + 1.0) * p_l, (bose + 1.0) * p_r
+    absorb_l, absorb_r = bose * p_l, bose * p_r
+    num = g_l * f_l + g_r * f_r + emit_l * fu_l + emit_r * fu_r
+    den = (
+        g_l
+        + g_r
+        + emit_l * fu_l
+        + absorb_l * (1.0 - fu_l)
+        + emit_r * fu_r
+        + absorb_r * (1.0 - fu_r)
+    )
+    f_w = np.where(den > 0, num / np.maximum(den, 1e-300), 0.0)
+    flux_l = g_l * (f_l - f_w) + emit_l * fu_l * (1.0 - f_w) - absorb_l * f_w * (1.0 - fu_l)
+    flux_r = g_r * (f_w - f_r) - emit_r * fu_r * (1.0 - f_w) + absorb_r * f_w * (1.0 - fu_r)
+    return flux_l, flux_r
+
+
+def sequential_fluxes_ev2(
+    edge,
+    mass,
+    alpha,
+    width,
+    barrier,
+    phonon,
+    *,
+    mu_left_ev,
+    mu_right_ev,
+    kt_ev,
+    high_ev,
+    lines,
+    params: ScatteringParameters,
+):
+    """Sequential flux into the well from the left lead and out of it to the right, eV^2.
+
+    Arrays are an oriented profile (source contact on the left at band edge 0,
+    ``(..., n)``): ``barrier`` marks barrier slices; ``phonon`` is
+    ``(lo_phonon_ev, permittivity_high_r, permittivity_r)``, each ``(..., n)``.
+    ``lines`` holds the coherent ``T``'s lines found on this profile
+    (``center_ev``, ``width_ev``, ``peak``, ``valid``; ``(..., R)``).
+
+    Returns ``(left, right, gamma_s)``: the two ``(...)`` integrals (equal:
+    the reservoir conserves current) to be multiplied by the Tsu-Esaki
+    prefactor, and ``Gamma_s`` of the coherent lines ``(..., R)`` (0 for a
+    line that is no state carried here).
+    """
+    geo = _geometry(edge, mass, width, barrier, *phonon)
+    kt = np.broadcast_to(kt_ev, geo.has.shape)
+    e_p, gamma_p, peak_p, valid = _find_states(edge, mass, alpha, width, geo, kt, high_ev, params)
+    e_n, width_c, peak_c, matched, carried = _match_lines(e_p, gamma_p, peak_p, valid, lines, kt)
+    g_ifr, g_lo, _, bose = scattering_widths_ev(lines["center_ev"], geo, edge, mass, kt, params)
+    gamma_s_lines = np.where(carried, g_ifr + bose * g_lo, 0.0)
+    st = _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, params)
+    nodes = _energy_nodes(st, high_ev, params)
+    couplings = _couplings(nodes, st, edge, mass, width, geo)
+
+    def ex2(q):
+        return np.asarray(q)[..., None, None]
+
+    flux_l, flux_r = _reservoir_fluxes(
+        nodes,
+        couplings,
+        st["hw"][..., None],
+        st["bose"][..., None],
+        ex2(mu_left_ev),
+        ex2(mu_right_ev),
+        ex2(kt),
+    )
+    weights = 0.5 * np.diff(nodes)
+
+    def integral(y):
+        per_state = np.sum(weights * (y[..., 1:] + y[..., :-1]), axis=-1)
+        return np.sum(np.where(valid, per_state, 0.0), axis=-1)
+
+    return integral(flux_l), integral(flux_r), gamma_s_lines
+
+
+def sequential_integral_ev2(
+    profile: Profile,
+    *,
+    table,
+    bias_v,
+    mu_emitter_ev,
+    kt_ev,
+    high_ev,
+    lines,
+    params: ScatteringParameters,
+):
+    """Scattering-assisted current integral of every (stack, bias), either polarity.
+
+    Parameters
+    ----------
+    profile
+        Band profiles, batch ``(n_stacks, n_biases)``, emitter edge at 0.
+    table
+        The :class:`~physics.stack.LayerTable` the profiles come from (barriers,
+        phonons of the well).
+    bias_v, mu_emitter_ev, kt_ev, high_ev
+        Batch-shaped bias, emitter Fermi level, kT and the window's top, eV.
+    lines
+        The coherent ``T``'s lines (``center_ev``, ``width_ev``, ``peak``,
+        ``valid``; ``batch + (R,)``) from :mod:`physics.current`.
+    params
+        Channel settings.
+
+    Returns
+    -------
+    left, right, gamma_s
+        Emitter-side and collector-side integrals, eV^2 (equal; multiply by the
+        Tsu-Esaki prefactor and the emitter mass for A/m^2), positive from
+        emitter to collector; and ``Gamma_s`` of each coherent line, eV.
+
+    Notes
+    -----
+    Under reverse bias the profile is turned around (the collector becomes the
+    source side) and the sign of the result changed.
+    """
+    edge, mass, alpha, width = profile.slice_arrays
+    shape = edge.shape
+    li = profile.layer_index
+    rel = table.edge_ev - table.edge_ev[:, :1]
+    is_barrier = rel > BARRIER_MIN_EV
+    is_barrier[:, [0, -1]] = False
+    layer_data = [is_barrier]
+    for name, default in (
+        ("lo_phonon_ev", DEFAULT_LO_PHONON_EV),
+        ("permittivity_high_r", DEFAULT_PERMITTIVITY_HIGH_R),
+    ):
+        value = getattr(table, name)
+        layer_data.append(np.full(rel.shape, default) if value is None else value)
+    layer_data.append(table.permittivity_r)
+    per_slice = [np.broadcast_to(d[:, li][:, None, :], shape) for d in layer_data]
+    rev = np.asarray(bias_v) < 0
+    e_right = edge[..., -1]
+    shift = np.where(rev, e_right, 0.0)
+
+    def orient(a):
+        return np.where(rev[..., None], a[..., ::-1], a)
+
+    edge_o = orient(edge) - shift[..., None]
+    mu_c = mu_emitter_ev - bias_v
+    mu_left = np.where(rev, mu_c, mu_emitter_ev) - shift
+    mu_right = np.where(rev, mu_emitter_ev, mu_c) - shift
+    lines_o = dict(lines, center_ev=lines["center_ev"] - shift[..., None])
+    left, right, gamma_s = sequential_fluxes_ev2(
+        edge_o,
+        orient(mass),
+        orient(alpha),
+        orient(width),
+        orient(per_slice[0]),
+        tuple(orient(p) for p in per_slice[1:]),
+        mu_left_ev=mu_left,
+        mu_right_ev=mu_right,
+        kt_ev=kt_ev,
+        high_ev=high_ev - shift,
+        lines=lines_o,
+        params=params,
+    )
+    sign = np.where(rev, -1.0, 1.0)
+    return sign * left, sign * right, gamma_s

@@ -1,0 +1,155 @@
+"""The scattering-assisted current channel (physics/scattering.py).
+
+Checks against sources outside the project:
+- particle conservation of Buttiker's virtual reservoir (M. Buttiker, IBM J. Res. Dev. 32,
+  63 (1988)): the reservoir draws no net current, so emitter and collector currents agree;
+- the zero-scattering limit: the coherent Tsu-Esaki current (R. Tsu and L. Esaki, Appl.
+  Phys. Lett. 22, 562 (1973));
+- detailed balance: no current at zero bias (thermodynamics);
+- mirror symmetry: a symmetric stack gives J(-V) = -J(V) (common practice);
+- the Frohlich coupling constant of GaAs, about 0.068 (textbook value, e.g. B. K. Ridley,
+  Quantum Processes in Semiconductors; from memory).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from helpers_physics import HBAR2_2M0_EV_NM2
+from wellwright.physics import scattering
+from wellwright.physics.current import current_density_a_cm2
+from wellwright.physics.iv import band_profile, current_at_bias, sweep
+from wellwright.physics.stack import ModelOptions, parse_stack
+
+
+def _stack(temperature_k=300.0, spacer_nm=(2.0, 2.0), barrier_ml=5, well_ml=15):
+    """An In0.53Ga0.47As/AlAs double barrier on InP (a common design, numbers invented)."""
+    layer = lambda name, mat, **kw: {"name": name, "material": mat, **kw}  # noqa: E731
+    return parse_stack(
+        {
+            "temperature_k": temperature_k,
+            "substrate": "InP",
+            "layers": [
+                layer("emitter", "In0.53Ga0.47As", doping_cm3=2e18),
+                layer("spacer1", "In0.53Ga0.47As", thickness_nm=spacer_nm[0]),
+                layer("barrier1", "AlAs", thickness_ml=barrier_ml),
+                layer("well", "In0.53Ga0.47As", thickness_ml=well_ml),
+                layer("barrier2", "AlAs", thickness_ml=barrier_ml),
+                layer("spacer2", "In0.53Ga0.47As", thickness_nm=spacer_nm[1]),
+                layer("collector", "In0.53Ga0.47As", doping_cm3=2e18),
+            ],
+        },
+        source="test",
+    )
+
+
+def _fluxes(stack, bias_v):
+    """Emitter-side and collector-side sequential integrals of the channel."""
+    params = scattering.ScatteringParameters()
+    seen = {}
+    original = scattering.sequential_fluxes_ev2
+
+    def spy(*args, **kwargs):
+        seen["result"] = original(*args, **kwargs)
+        return seen["result"]
+
+    table = stack.table()
+    profile = band_profile(table, bias_v)
+    try:
+        scattering.sequential_fluxes_ev2 = spy
+        current_density_a_cm2(profile, table=table, bias_v=bias_v[None, :], scattering=params)
+    finally:
+        scattering.sequential_fluxes_ev2 = original
+    return seen["result"][0], seen["result"][1]
+
+
+@pytest.mark.parametrize("temperature_k", [300.0, 77.0])
+def test_reservoir_conserves_current(temperature_k):
+    """Emitter current = collector current of the channel, at every bias of both polarities."""
+    stack = _stack(temperature_k)
+    bias = np.linspace(-1.0, 1.0, 21)
+    left, right = _fluxes(stack, bias)
+    scale = np.max(np.abs(left))
+    assert scale > 0
+    np.testing.assert_allclose(left, right, rtol=0, atol=1e-9 * scale)
+
+
+def test_vanishes_without_scattering():
+    """The channel goes to zero with the scattering: the coherent current to 1e-6."""
+    stack = _stack()
+    table = stack.table()
+    bias = np.linspace(-0.9, 0.9, 19)
+    profile = band_profile(table, bias)
+    coherent = current_density_a_cm2(profile, table=table, bias_v=bias[None, :])
+    off = scattering.ScatteringParameters(roughness_height_nm=0.0, phonon_scale=0.0)
+    assert not off.active
+    same = current_density_a_cm2(profile, table=table, bias_v=bias[None, :], scattering=off)
+    np.testing.assert_array_equal(same, coherent)
+    weak = scattering.ScatteringParameters(roughness_height_nm=1e-5, phonon_scale=1e-9)
+    limit = current_density_a_cm2(profile, table=table, bias_v=bias[None, :], scattering=weak)
+    np.testing.assert_allclose(limit, coherent, rtol=1e-6, atol=1e-6 * np.abs(coherent).max())
+    full = current_density_a_cm2(
+        profile, table=table, bias_v=bias[None, :], scattering=scattering.ScatteringParameters()
+    )
+    assert np.max(np.abs(full - coherent)) > 0.05 * np.abs(coherent).max()  # it does act
+
+
+def test_no_current_at_zero_bias_and_mirror_symmetry():
+    """Detailed balance at V = 0; a symmetric stack conducts alike both ways."""
+    stack = _stack()
+    model = ModelOptions(transport="scattering-assisted")
+    bias = np.array([-0.6, -0.3, 0.0, 0.3, 0.6])
+    j = current_at_bias(stack.table(), bias, model=model)[0]
+    assert abs(j[2]) < 1e-6 * np.abs(j).max()
+    np.testing.assert_allclose(j[::-1], -j, rtol=1e-6, atol=1e-6 * np.abs(j).max())
+
+
+def test_valley_current_raised_peak_kept():
+    """The channel carries current through the state after it drops below the emitter edge
+    (the valley, S. Luryi, Appl. Phys. Lett. 47, 490 (1985)): the valley current rises many
+    times while the peak, whose area Buttiker's reservoir conserves, changes little."""
+    stack = _stack()
+    bias = np.linspace(0.0, 1.0, 51)
+    coherent = sweep(stack.table(), bias, model=ModelOptions()).metrics
+    assisted = sweep(stack.table(), bias, model=ModelOptions(transport="scattering-assisted"))
+    m = assisted.metrics
+    assert (
+        0.8 < m["peak_current_density_a_cm2"][0] / coherent["peak_current_density_a_cm2"][0] < 1.5
+    )
+    assert m["valley_current_density_a_cm2"][0] > 5 * coherent["valley_current_density_a_cm2"][0]
+    assert 1.5 < m["pvcr"][0] < coherent["pvcr"][0] / 5
+
+
+def test_frohlich_constant_of_gaas():
+    """alpha = (e^2 / 4 pi eps0 hbar) sqrt(m / 2 hbar w) (1/eps_inf - 1/eps_s): GaAs ~ 0.068
+    (textbook value, from memory), from the material table's phonon data."""
+    from wellwright.physics import materials
+
+    p = materials.band_parameters("GaAs")
+    coulomb_ev_nm = 1.439964  # e^2 / (4 pi eps0), eV nm (CODATA)
+    m_over_hbar2 = p["mass_m0"] / (2.0 * HBAR2_2M0_EV_NM2)
+    alpha = (
+        coulomb_ev_nm
+        * np.sqrt(m_over_hbar2 / (2.0 * p["lo_phonon_ev"]))
+        * (1.0 / p["permittivity_high_r"] - 1.0 / p["permittivity_r"])
+    )
+    assert alpha == pytest.approx(0.068, rel=0.1)
+    assert scattering.COULOMB_EV_NM == pytest.approx(coulomb_ev_nm, rel=1e-6)
+
+
+def test_transport_key_is_checked():
+    """A bad transport name is one clear input error naming the key."""
+    from wellwright.physics.errors import InputError
+
+    with pytest.raises(InputError, match="model.transport"):
+        parse_stack(
+            {"model": {"transport": "ballistic"}, "layers": _stack_layers()}, source="bad.toml"
+        )
+
+
+def _stack_layers():
+    return [
+        {"name": "e", "material": "GaAs", "doping_cm3": 1e18},
+        {"name": "b", "material": "AlAs", "thickness_ml": 6},
+        {"name": "c", "material": "GaAs", "doping_cm3": 1e18},
+    ]
