@@ -52,14 +52,21 @@ Departures from [2]_, each stated:
    it (tens of meV). The floor is applied with half the roughness width (the
    source-side interface only; the phonon term below takes the same floor with
    its full rate) and only where the state exists at the electron's total
-   energy (weight ``1/2 + atan(2 (E - E_n)/Gamma_t)/pi``).
+   energy (weight ``1/2 + atan(2 (E - E_n)/Gamma_t)/pi``). An emitter electron of
+   longitudinal energy ``z`` entering the state by roughness scattering gains
+   ``z - E_n`` of lateral energy, a momentum ``q`` with
+   ``hbar^2 q^2 / 2 m_w = z - E_n`` (small initial lateral momentum), weighted by
+   the Gaussian correlation's ``exp(-q^2 Lambda^2 / 4)`` [6]_.
 3. *Polar-optical phonons.* A second reservoir coupling with energy loss
    ``hbar w_LO`` (Buttiker's energy-relaxing reservoir [2]_, [7]_): an
    electron of total energy ``E + hbar w`` enters the state at ``E`` by
    emitting a phonon (rate ``(N + 1) Gamma_LO``), the reverse by absorption
-   (``N Gamma_LO``), with ``N`` the Bose occupation and the phonon's small
-   momentum keeping the longitudinal energy (``K`` centred at ``E_n + hbar w``
-   in the emitter's longitudinal energy: the phonon replica [8]_). Pauli
+   (``N Gamma_LO``), with ``N`` the Bose occupation. The emitter electron of
+   longitudinal energy ``z`` is in the well through its admixture (``K``
+   about ``E_n`` at ``z``) and lands at longitudinal ``z - hbar w``; the
+   Frohlich ``1/q^2`` and the well's form factor weight that landing by
+   ``1/(1 + |z - hbar w - E_n| / e_w)``, so emission is strongest where
+   ``z = E_n + hbar w``: the phonon replica [8]_. Pauli
    blocking of the state is kept for these terms, so the equilibrium
    occupation is a Fermi function (detailed balance, tested). Exits from the
    well by phonon emission are not modelled (in the valley the elastic exit
@@ -411,6 +418,12 @@ def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, par
         "floor2": floor2,
         "bose": bose,
         "hw": geo.lo_phonon_ev[..., None] * np.ones_like(e_n),
+        "e_w": np.maximum(e_n - geo.well_edge_ev[..., None], 5e-3),
+        # q^2 Lambda^2 / 4 per eV of lateral energy gained (note 2)
+        "lateral_per_ev": (geo.well_mass_m0[..., None] / (2.0 * HBAR2_2M0_EV_NM2))
+        * 0.5
+        * params.roughness_length_nm**2
+        * np.ones_like(e_n),
     }
 
 
@@ -461,21 +474,33 @@ def _couplings(nodes, st, edge, mass, width, geo):
     e_n, gamma_t, hw = ex(st["e_n"]), ex(st["gamma_t"]), ex(st["hw"])
     g_ifr, g_lo, gamma_r = ex(st["g_ifr"]), ex(st["g_lo"]), ex(st["gamma_r"])
     flr = 1.0 / ex(st["floor2"])
-    gl_el = ex(st["scale"]) * _left_coupling(nodes, 0.0, edge, mass, width, geo)
+    # roughness gives lateral momentum q with weight exp(-q^2 Lambda^2 / 4) (Gaussian
+    # correlation): an emitter electron entering the state gains z - E_n of lateral energy
+    lateral = np.exp(-ex(st["lateral_per_ev"]) * np.maximum(nodes - e_n, 0.0))
+    gl_el = ex(st["scale"]) * _left_coupling(nodes, 0.0, edge, mass, width, geo) * lateral
     gl_lo = ex(st["scale"]) * _left_coupling(nodes + hw, 0.0, edge, mass, width, geo)
     lor = 1.0 / ((nodes - e_n) ** 2 + 0.25 * gamma_t**2)
     exists = 0.5 + np.arctan(2.0 * (nodes - e_n) / gamma_t) / np.pi
     g_left = g_ifr * (cumulative(gl_el * lor) + 0.5 * exists * cumulative(gl_el) * flr)
-    p_left = g_lo * (cumulative(gl_lo * lor) + exists * cumulative(gl_lo) * flr)
+    # phonon emission: the emitter state's admixture at z = y + hbar w (Lorentzian about
+    # E_n), landing at longitudinal y in the state that exists at total energy E; the
+    # Frohlich 1/q^2 and the well's form factor favour |y - E_n| below e_w (note 3)
+    lor_up = 1.0 / ((nodes + hw - e_n) ** 2 + 0.25 * gamma_t**2)
+    forward = 1.0 / (1.0 + np.abs(nodes - e_n) / ex(st["e_w"]))
+    p_left = g_lo * exists * cumulative(gl_lo * (lor_up + flr) * forward)
 
-    def right(rate, floor_rate, shift):  # the drain's coupling (constant Gamma_R): closed form
-        lower = ex(ex(edge[..., -1])) - e_n + shift
-        top = np.maximum(nodes - e_n, lower)
+    def right(rate, floor_rate, centre, bottom):  # the drain's (constant Gamma_R): closed form
+        lower = bottom - centre
+        top = np.maximum(nodes - centre, lower)
         g2 = 2.0 / gamma_t
         arc = g2 * (np.arctan(g2 * top) - np.arctan(g2 * lower))
         return gamma_r * (rate * arc + floor_rate * exists * (top - lower) * flr)
 
-    return g_left, right(g_ifr, 0.5 * g_ifr, 0.0), p_left, right(g_lo, g_lo, -hw)
+    e_r = ex(ex(edge[..., -1]))
+    g_right = right(g_ifr, 0.5 * g_ifr, e_n, e_r)
+    # (the drain's phonon term without the forward weight: an upper bound of a minor term)
+    p_right = exists * right(g_lo, g_lo, e_n - hw, e_r - hw)
+    return g_left, g_right, p_left, p_right
 
 
 def _reservoir_fluxes(nodes, couplings, hw, bose, mu_left, mu_right, kt):
