@@ -49,9 +49,7 @@ def main() -> None:
         "self-consistent": replace(coherent, electrostatics="self-consistent"),
         "linear + scattering-assisted": replace(assisted, electrostatics="linear"),
         "default (s.-c. + scat.-assisted)": replace(assisted, electrostatics="self-consistent"),
-        "linear + 3 meV broadening": replace(
-            coherent, electrostatics="linear", broadening_mev=3.0
-        ),
+        "linear + 3 meV broadening": replace(coherent, electrostatics="linear", broadening_mev=3.0),
         "self-consistent + 3 meV": replace(
             coherent, electrostatics="self-consistent", broadening_mev=3.0
         ),
