@@ -69,3 +69,31 @@ def test_demo_out_that_is_a_file_exits_2(tmp_path, capsys):
     f.write_text("x")
     assert main(["demo", "--quick", "--out", str(f)]) == 2
     assert "not a folder" in capsys.readouterr().err
+
+
+#: Libraries a command loads only where it uses them (a fast start; issue 15).
+HEAVY = ("optuna", "sqlalchemy", "SALib", "matplotlib")
+
+
+def _loaded_after(code: str) -> set[str]:
+    """The HEAVY libraries a fresh interpreter holds after running ``code``."""
+    probe = f"import sys\n{code}\nprint(' '.join(m for m in {HEAVY!r} if m in sys.modules))"
+    out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, check=True)
+    return set(out.stdout.splitlines()[-1].split())
+
+
+def test_the_parser_loads_no_heavy_library():
+    # common practice: argument parsing must not pay for libraries only some commands use
+    assert (
+        _loaded_after("from wellwright.optimize.cli import build_parser; build_parser()") == set()
+    )
+
+
+def test_iv_without_figures_loads_no_heavy_library_nor_scipy(tmp_path):
+    stack = "studies/inp_thz_oscillator.toml"
+    code = (
+        "from wellwright.optimize.cli import main\n"
+        f"assert main(['iv', {stack!r}, '--no-figures', '--out', {str(tmp_path)!r}]) == 0\n"
+        "assert 'scipy' not in sys.modules, 'scipy imported'"
+    )
+    assert _loaded_after(code) == set()

@@ -220,6 +220,31 @@ def test_strain_false_or_no_substrate_is_relaxed() -> None:
 # ----------------------------------------------------------------------------- critical thickness
 
 
+def test_constants_are_codata_2022() -> None:
+    # Reference: scipy.constants (CODATA 2022 in scipy >= 1.15); physics.constants writes them out.
+    from scipy import constants as sc
+    from wellwright.physics import constants as c
+
+    assert c.ELEMENTARY_CHARGE_C == sc.e and c.ELECTRON_MASS_KG == sc.m_e
+    assert c.HBAR_J_S == pytest.approx(sc.hbar, rel=1e-15)
+    assert c.BOLTZMANN_EV_K == pytest.approx(sc.k / sc.e, rel=1e-15)
+    assert c.VACUUM_PERMITTIVITY_F_M == sc.epsilon_0
+
+
+def test_lambert_w_lower_branch_against_scipy() -> None:
+    # Reference library: scipy.special.lambertw(z, k=-1); the physics computes W_-1 itself
+    # (a command's start skips scipy.special). Near the branch point -1/e both are
+    # ill-conditioned (dW/dz -> inf): there 1e-6.
+    from scipy.special import lambertw
+
+    z = -np.concatenate([np.geomspace(1e-300, 0.3, 500), np.linspace(0.3, 1 / np.e - 1e-15, 500)])
+    got, ref = m.lambert_w_lower(z), lambertw(z, k=-1).real
+    near_branch = z < -1 / np.e + 1e-6
+    np.testing.assert_allclose(got[~near_branch], ref[~near_branch], rtol=1e-12)
+    np.testing.assert_allclose(got[near_branch], ref[near_branch], rtol=1e-6)
+    np.testing.assert_allclose(got * np.exp(got), z, rtol=1e-12, atol=0)  # its definition
+
+
 def test_critical_thickness_infinite_when_matched() -> None:
     assert m.critical_thickness_nm("InP", substrate_lattice_nm=INP_NM) == math.inf
     assert m.critical_thickness_nm("GaAs", substrate_lattice_nm=GAAS_NM) == math.inf

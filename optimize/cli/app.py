@@ -35,17 +35,39 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: error: {message}\n")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _command_of(module: str) -> str:
+    """The subcommand a module registers: its name after ``cmd_``."""
+    return module.rsplit(".", 1)[-1].removeprefix("cmd_")
+
+
+def build_parser(command: str | None = None) -> argparse.ArgumentParser:
+    """The argument parser: every subcommand, or only ``command`` when it is one.
+
+    A command module imports what its command needs, so registering only the
+    one asked for keeps a command's start free of the others' libraries
+    (``wellwright iv`` loads neither Optuna, SQLAlchemy, SALib nor matplotlib).
+    """
+    modules = [m for m in COMMAND_MODULES if _command_of(m) == command] or COMMAND_MODULES
     parser = _Parser(
         prog="wellwright",
         description="Design resonant tunneling diode stacks: I-V, design search, growth tolerance, reports.",
     )
-    parser.add_argument("--version", action="version", version=_version())
+    parser.add_argument("--version", action=_VersionAction)
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
-    for name in COMMAND_MODULES:
+    for name in modules:
         importlib.import_module(name).register(sub)
     return parser
+
+
+class _VersionAction(argparse.Action):
+    """``--version``, looked up only when asked (importlib.metadata slows every start)."""
+
+    def __init__(self, option_strings, dest, **kwargs) -> None:
+        super().__init__(option_strings, dest, nargs=0, help="show the version and exit")
+
+    def __call__(self, parser, namespace, values, option_string=None) -> None:
+        parser.exit(message=_version() + "\n")
 
 
 def _version() -> str:
@@ -62,7 +84,8 @@ def main(argv: list[str] | None = None) -> int:
     # the command draws to files: a backend without a screen, set here and never on import of
     # the library (a notebook keeps its inline plots); MPLBACKEND costs no matplotlib import
     os.environ.setdefault("MPLBACKEND", "Agg")
-    parser = build_parser()
+    words = sys.argv[1:] if argv is None else argv
+    parser = build_parser(next((w for w in words if not w.startswith("-")), None))
     args = parser.parse_args(argv)
     try:
         return int(args.func(args) or 0)

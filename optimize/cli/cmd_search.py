@@ -6,7 +6,6 @@ import argparse
 import sys
 from pathlib import Path
 
-from wellwright.optimize.search.engine import check_storage_url, run_search
 from wellwright.optimize.study.study import (
     MAX_ROBUST_SAMPLES,
     MAX_TRIALS,
@@ -85,6 +84,8 @@ def _check_args(args: argparse.Namespace) -> None:
             key="--robust-samples",
         )
     if args.storage is not None:
+        from wellwright.optimize.search.storage import check_storage_url
+
         check_storage_url(args.storage)
     if args.out is not None and Path(args.out).exists() and not Path(args.out).is_dir():
         raise InputError(f"{args.out!r} exists and is not a folder", key="--out")
@@ -98,6 +99,8 @@ def run(args: argparse.Namespace) -> int:
     _check_args(args)
     study = load_study(args.study)
     out = Path(args.out) if args.out else Path(f"{study.name}_out")
+    from wellwright.optimize.search.engine import run_search  # Optuna: only when searching
+
     result = run_search(
         study,
         trials=args.trials,
