@@ -22,6 +22,7 @@ COMMAND_MODULES = (
     "wellwright.optimize.cli.cmd_search",
     "wellwright.optimize.cli.cmd_packet",
     "wellwright.optimize.cli.cmd_tolerance",
+    "wellwright.optimize.cli.cmd_calibrate",
     "wellwright.optimize.cli.cmd_run",
     "wellwright.optimize.cli.cmd_demo",
     "wellwright.optimize.cli.cmd_report",

@@ -1,0 +1,369 @@
+"""The fit: robust least squares in log current, priors as penalties, multistart, uncertainties.
+
+Residuals (Notes)
+-----------------
+For each measured point ``i`` of a sweep,
+``r_i = sqrt(w_i) (ln(|J_model| + f) - ln(|J_meas| + f)) / s`` with the floor
+``f = 1e-3 max |J_meas|`` (currents below a thousandth of the largest are
+instrument floor, not shape), ``s`` the scatter of the measurement in log
+current (first 0.05, then re-estimated from the weighted residuals of the
+best fit, and the fit refined once more with it). The weights make the
+three parts of the curve count alike: the measured points are split per
+polarity at the measured peak and valley into the rise (up to the peak),
+the NDR region (after the peak, up to the valley) and the rest; each part
+gets the same total weight, shared equally by its points, scaled so that
+the weights sum to the number of points (a sweep with few points in its
+NDR region would otherwise be fitted on the rise and the valley alone),
+each capped at ``MAX_WEIGHT`` (a single point on the NDR cliff, where the
+measured current is least reliable, must not outweigh the rest).
+The priors add ``(theta - theta_nominal) / sigma`` per parameter (and
+``(d_xrd - value) / sigma`` for an X-ray thickness). The loss is
+``soft_l1`` with ``f_scale = 2``: residuals beyond two sigmas (a
+bias-circuit oscillation in the NDR region, a contact glitch) count
+linearly, not quadratically (``scipy.optimize.least_squares``).
+
+Multistart: every whole-monolayer combination of the fitted thicknesses
+within one monolayer of nominal (``3**k`` stacks, one batched kernel call;
+one-layer moves only above 729) is evaluated with the series resistance
+fitted on it (no kernel call needed); the best ``starts`` combinations
+(those scoring within ``START_FACTOR`` of the best) start local fits of
+every parameter. Distinct optima within
+``AMBIGUOUS_DCHI2`` of the best are reported as alternatives, so a
+one-monolayer ambiguity is shown, not hidden.
+
+Uncertainties: the Gauss-Newton covariance ``(J^T J)^-1`` of the
+(non-robustified) residuals, priors included, at the optimum (a linear
+approximation; an interval at a monolayer boundary of the island model is
+approximate), and 95 % intervals ``value +- 1.96 sd``.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from scipy.optimize import least_squares
+from wellwright.optimize.calibrate.problem import Problem
+from wellwright.physics.iv import locate_peak_valley
+
+__all__ = ["FitResult", "run_fit", "point_weights", "AMBIGUOUS_DCHI2"]
+
+FLOOR_FRACTION = 1e-3
+INITIAL_SCATTER = 0.05
+F_SCALE = 2.0
+STEP_Z = 0.05
+AMBIGUOUS_DCHI2 = 4.0
+Z95 = 1.959963984540054
+CORRELATED = 0.9
+PRIOR_DOMINATED = 0.7
+MAX_COMBOS = 729
+#: Largest weight of one point (1 = uniform weighting): a steep NDR region of one or two
+#: points would otherwise outweigh the rest, and there the current is least reliable.
+MAX_WEIGHT = 4.0
+REFINE_NFEV = 6
+MAX_CELL_MOVES = 3
+#: A start is refined when its whole-monolayer score is within this factor of the best one.
+START_FACTOR = 3.0
+
+
+@dataclass
+class FitResult:
+    """The optimum and what the record needs (plain arrays)."""
+
+    z: np.ndarray
+    dev: np.ndarray
+    values: np.ndarray
+    sd: np.ndarray  #: standard deviations of the reported values
+    correlation: np.ndarray
+    scatter: float
+    chi2: float
+    n_points: int
+    alternatives: list[dict[str, Any]] = field(default_factory=list)
+    starts: int = 0
+    evaluations: int = 0
+    notes: list[str] = field(default_factory=list)
+    combos: int = 0
+
+
+def point_weights(bias_v: np.ndarray, current: np.ndarray) -> np.ndarray:
+    """Weights of the measured points: rise, NDR region and the rest count alike (see module notes)."""
+    w = np.zeros(bias_v.size)
+    for sign in (1.0, -1.0):
+        side = np.nonzero(sign * bias_v > 0)[0]
+        if side.size == 0:
+            continue
+        side = side[np.argsort(np.abs(bias_v[side]))]
+        j = np.abs(current[side])
+        ip, iv = locate_peak_valley(np.abs(bias_v[side]), j[None, :])
+        parts = (
+            [side[: ip[0] + 1], side[ip[0] + 1 : iv[0] + 1], side[iv[0] + 1 :]]
+            if ip[0] >= 0
+            else [side]
+        )
+        parts = [p for p in parts if p.size]
+        for p in parts:
+            w[p] = 1.0 / (len(parts) * p.size)
+    zero = bias_v == 0
+    w[zero] = 0.0
+    w *= np.count_nonzero(~zero) / max(w.sum(), 1e-300)
+    return np.minimum(w, MAX_WEIGHT)
+
+
+class Objective:
+    """Residuals and a batched finite-difference Jacobian (one kernel batch per Jacobian)."""
+
+    def __init__(self, problem: Problem, scatter: float) -> None:
+        self.problem = problem
+        self.scatter = scatter
+        self.weights = [point_weights(m.bias_v, m.current_density_a_cm2) for m in problem.measurements]
+        self.floors = [FLOOR_FRACTION * np.abs(m.current_density_a_cm2).max() for m in problem.measurements]
+        self.logs = [
+            np.log(np.abs(m.current_density_a_cm2) + f)
+            for m, f in zip(problem.measurements, self.floors)
+        ]
+        self.lower = np.array([p.lower / p.scale for p in problem.parameters])
+        self.upper = np.array([p.upper / p.scale for p in problem.parameters])
+        self.evaluations = 0
+        self._cache: dict[bytes, np.ndarray] = {}
+
+    @property
+    def n_points(self) -> int:
+        return int(sum(np.count_nonzero(w) for w in self.weights))
+
+    def raw_log_residuals(self, z: np.ndarray, intrinsic=None) -> list[np.ndarray]:
+        """Unweighted ``ln`` residuals per measurement, ``(m, n_points)``."""
+        pred = self.problem.predict(self.problem.deviations(z), intrinsic)
+        return [np.log(np.abs(p) + f) - lg for p, f, lg in zip(pred, self.floors, self.logs)]
+
+    def residuals_many(self, z: np.ndarray, intrinsic=None) -> np.ndarray:
+        """``(m, n_residuals)``: weighted data residuals in sigmas, then the priors."""
+        z = np.atleast_2d(z)
+        self.evaluations += z.shape[0]
+        raw = self.raw_log_residuals(z, intrinsic)
+        data = [np.sqrt(w) * r / self.scatter for w, r in zip(self.weights, raw)]
+        return np.concatenate(data + [self.problem.prior_residuals(self.problem.deviations(z))], axis=1)
+
+    def __call__(self, z: np.ndarray) -> np.ndarray:
+        key = np.asarray(z, float).tobytes()
+        if key not in self._cache:
+            self._cache = {key: self.residuals_many(z)[0]}
+        return self._cache[key]
+
+    def jacobian(self, z: np.ndarray) -> np.ndarray:
+        """Forward differences, one batch: the thickness columns from the island slopes
+        (no extra stacks), the resistance columns from the base currents (no kernel call)."""
+        z = np.asarray(z, float)
+        prob = self.problem
+        p = z.size
+        step = np.where(z + STEP_Z <= self.upper, STEP_Z, -STEP_Z)
+        rows = np.vstack([z, z + np.diag(step)])
+        kinds = [q.kind for q in prob.parameters]
+        island_col = {j: prob.island_layers.index(q.layers[0]) for j, q in enumerate(prob.parameters) if q.kind == "thickness"}
+        need = [0] + [j + 1 for j in range(p) if kinds[j] not in ("thickness", "resistance")]
+        base, slopes = prob.intrinsic_currents(prob.deviations(rows[need]), with_slopes=True)
+        intrinsic = []
+        for cur, sl in zip(base, slopes):
+            full = np.repeat(cur[:1], p + 1, axis=0)
+            full[need] = cur
+            for j, i in island_col.items():
+                full[j + 1] = cur[0] + step[j] * prob.parameters[j].scale * sl[0, i]
+            intrinsic.append(full)
+        res = self.residuals_many(rows, intrinsic)
+        self._cache = {z.tobytes(): res[0]}
+        return (res[1:] - res[0]).T / step[None, :]
+
+    def cost(self, res: np.ndarray) -> np.ndarray:
+        """Robust cost ``sum rho(r^2)`` with soft_l1 at ``F_SCALE`` (per row)."""
+        u = (np.atleast_2d(res) / F_SCALE) ** 2
+        return F_SCALE**2 * np.sum(2.0 * (np.sqrt(1.0 + u) - 1.0), axis=1)
+
+
+def _combos(problem: Problem) -> np.ndarray:
+    """``(n, p)`` fit coordinates of the whole-monolayer neighbourhood (other parameters nominal)."""
+    thick = [j for j, p in enumerate(problem.parameters) if p.kind == "thickness"]
+    base = np.zeros(len(problem.parameters))
+    if not thick:
+        return base[None, :]
+    nominal = np.array([problem.parameters[j].nominal for j in thick])
+    centre = np.round(nominal)
+    if 3 ** len(thick) <= MAX_COMBOS:
+        steps = np.array(list(itertools.product((-1, 0, 1), repeat=len(thick))), float)
+    else:
+        steps = np.vstack([np.zeros(len(thick)), np.eye(len(thick)), -np.eye(len(thick))])
+    whole = np.maximum(centre + steps, 1.0)
+    rows = np.repeat(base[None, :], whole.shape[0], axis=0)
+    for c, j in enumerate(thick):
+        p = problem.parameters[j]
+        rows[:, j] = np.clip(whole[:, c] - p.nominal, p.lower, p.upper) / p.scale
+    return np.unique(rows, axis=0)
+
+
+def _fit_resistance(obj: Objective, z: np.ndarray, intrinsic: list[np.ndarray]) -> tuple[np.ndarray, float]:
+    """Series resistance fitted on fixed intrinsic currents (no kernel call)."""
+    cols = [j for j, p in enumerate(obj.problem.parameters) if p.kind == "resistance"]
+    if not cols:
+        res = obj.residuals_many(z, intrinsic)
+        return z, float(obj.cost(res)[0])
+
+    def fun(rz):
+        zz = z.copy()
+        zz[cols] = rz
+        return obj.residuals_many(zz, intrinsic)[0]
+
+    sol = least_squares(fun, z[cols], bounds=(obj.lower[cols], obj.upper[cols]), loss="soft_l1", f_scale=F_SCALE, max_nfev=60)
+    out = z.copy()
+    out[cols] = sol.x
+    return out, float(2 * sol.cost)
+
+
+def global_stage(obj: Objective, starts: int) -> tuple[list[np.ndarray], int]:
+    """The best ``starts`` whole-monolayer combinations, each with its series resistance fitted."""
+    rows = _combos(obj.problem)
+    intrinsic = obj.problem.intrinsic_currents(obj.problem.deviations(rows))
+    scored = []
+    for i in range(rows.shape[0]):
+        z, c = _fit_resistance(obj, rows[i], [j[i : i + 1] for j in intrinsic])
+        scored.append((c, i, z))
+    scored.sort(key=lambda t: (t[0], t[1]))
+    best = scored[0][0]
+    keep = [z for c, _, z in scored[:starts] if c <= START_FACTOR * best + AMBIGUOUS_DCHI2]
+    return keep, rows.shape[0]
+
+
+def _cell_bounds(obj: Objective, z: np.ndarray, cells: dict[int, float]) -> tuple[np.ndarray, np.ndarray]:
+    lo, hi = obj.lower.copy(), obj.upper.copy()
+    for j, low_ml in cells.items():
+        p = obj.problem.parameters[j]
+        n = obj.problem.nominal_ml[p.layers[0]]
+        lo[j] = max(lo[j], (low_ml - n) / p.scale)
+        hi[j] = min(hi[j], (low_ml + 1.0 - n) / p.scale)
+    return lo, hi
+
+
+def _local(obj: Objective, z0: np.ndarray, max_nfev: int) -> tuple[np.ndarray, float]:
+    """Local fit, one whole-monolayer cell of the island layers at a time.
+
+    Within a cell the island current is multilinear in the thicknesses, so
+    the residuals are smooth there; at a cell edge they have a kink that a
+    trust-region step cannot cross. A fit that ends on a cell edge is
+    repeated in the neighbouring cell (at most ``MAX_CELL_MOVES`` times)
+    and the better one kept.
+    """
+    thick = [j for j, p in enumerate(obj.problem.parameters) if p.kind == "thickness"]
+    z = np.clip(z0, obj.lower, obj.upper)
+    ml = obj.problem.values(obj.problem.deviations(z))[0]
+    cells = {j: float(np.floor(ml[j] + 1e-9)) for j in thick}
+    best: tuple[np.ndarray, float] | None = None
+    tried = set()
+    for _ in range(MAX_CELL_MOVES + 1):
+        tried.add(tuple(cells.values()))
+        lo, hi = _cell_bounds(obj, z, cells)
+        sol = least_squares(
+            obj, np.clip(z, lo, hi), jac=obj.jacobian, bounds=(lo, hi), loss="soft_l1",
+            f_scale=F_SCALE, x_scale=1.0, max_nfev=max_nfev, xtol=1e-6, ftol=1e-8,
+        )  # fmt: skip
+        cost = float(2 * sol.cost)
+        if best is not None and cost >= best[1]:
+            break
+        best = (sol.x, cost)
+        z = sol.x
+        moved = dict(cells)
+        for j in thick:
+            edge = 1e-6
+            if sol.x[j] <= lo[j] + edge and lo[j] > obj.lower[j]:
+                moved[j] = cells[j] - 1.0
+            elif sol.x[j] >= hi[j] - edge and hi[j] < obj.upper[j]:
+                moved[j] = cells[j] + 1.0
+        if tuple(moved.values()) in tried:
+            break
+        cells = moved
+    assert best is not None
+    return best
+
+
+def _scatter(obj: Objective, z: np.ndarray) -> float:
+    """Weighted rms of the log residuals at ``z``, per degree of freedom."""
+    raw = obj.raw_log_residuals(z)
+    ssq = sum(float(np.sum(w * r[0] ** 2)) for w, r in zip(obj.weights, raw))
+    dof = max(obj.n_points - len(obj.problem.parameters), 1)
+    return max(math.sqrt(ssq / dof), 1e-4)
+
+
+def run_fit(problem: Problem, *, starts: int = 2, max_nfev: int = 15, progress=None) -> FitResult:
+    """Fit ``problem``: global stage, local fits, scatter re-estimated, covariance at the optimum."""
+    say = progress or (lambda msg: None)
+    obj = Objective(problem, INITIAL_SCATTER)
+    begins, n_combos = global_stage(obj, starts)
+    say(f"{n_combos} whole-monolayer combinations scored; {len(begins)} local fits")
+    optima = []
+    for k, z0 in enumerate(begins):
+        z, cost = _local(obj, z0, max_nfev)
+        optima.append((cost, z))
+        say(f"local fit {k + 1}/{len(begins)}: cost {cost:.4g}")
+    optima.sort(key=lambda t: t[0])
+    scatter = _scatter(obj, optima[0][1])
+    obj.scatter = scatter
+    obj._cache = {}
+    z_best, _ = _local(obj, optima[0][1], REFINE_NFEV)
+    rescored = []
+    for _, z in optima:
+        res = obj(z)
+        rescored.append((float(np.sum(res**2)), z))
+    res_best = obj(z_best)
+    chi2 = float(np.sum(res_best**2))
+    jac = obj.jacobian(z_best)
+    result = _uncertainty(problem, obj, z_best, jac)
+    result.scatter, result.chi2 = scatter, chi2
+    result.n_points, result.starts, result.combos = obj.n_points, len(begins), n_combos
+    result.alternatives = _alternatives(problem, z_best, chi2, rescored)
+    result.evaluations = obj.evaluations
+    return result
+
+
+def _uncertainty(problem: Problem, obj: Objective, z: np.ndarray, jac: np.ndarray) -> FitResult:
+    p = z.size
+    free = (z > obj.lower + 1e-9) & (z < obj.upper - 1e-9)
+    cov_z = np.zeros((p, p))
+    if np.any(free):
+        jf = jac[:, free]
+        cov_z[np.ix_(free, free)] = np.linalg.pinv(jf.T @ jf)
+    # reported values are (nearly) linear in z: their gradient by differences, no physics needed
+    h = 1e-4
+    dev0 = problem.deviations(z)
+    v0 = problem.values(dev0)[0]
+    grad = np.empty((p, p))
+    for j in range(p):
+        zz = z.copy()
+        zz[j] += h
+        grad[:, j] = (problem.values(problem.deviations(zz))[0] - v0) / h
+    cov_v = grad @ cov_z @ grad.T
+    sd = np.sqrt(np.clip(np.diag(cov_v), 0.0, None))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = cov_v / np.outer(sd, sd)
+    corr = np.where(np.isfinite(corr), corr, 0.0)
+    np.fill_diagonal(corr, 1.0)
+    return FitResult(z=z, dev=dev0[0], values=v0, sd=sd, correlation=corr, scatter=0, chi2=0, n_points=0)
+
+
+def _alternatives(problem: Problem, z_best, chi2_best, rescored) -> list[dict[str, Any]]:
+    """Distinct optima (another whole monolayer in some layer) within ``AMBIGUOUS_DCHI2``."""
+    thick = [j for j, p in enumerate(problem.parameters) if p.kind == "thickness"]
+    best_ml = np.round(problem.values(problem.deviations(z_best))[0][thick])
+    out, seen = [], {tuple(best_ml)}
+    for chi2, z in sorted(rescored, key=lambda t: t[0]):
+        vals = problem.values(problem.deviations(z))[0]
+        key = tuple(np.round(vals[thick]))
+        if key in seen:
+            continue
+        seen.add(key)
+        out.append(
+            {
+                "delta_chi2": chi2 - chi2_best,
+                "ambiguous": chi2 - chi2_best < AMBIGUOUS_DCHI2,
+                "values": {problem.parameters[j].name: float(vals[j]) for j in range(vals.size)},
+            }
+        )
+    return out

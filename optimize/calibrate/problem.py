@@ -1,0 +1,615 @@
+"""What a calibration fits, and the model it fits: parameters, priors, the batched forward model.
+
+Parameters (the names of ``calibration.json``; ``--fit`` takes them, or a
+group name: ``thickness``, ``rate``, ``x``, ``doping``, ``offset``, ``model``,
+``resistance``)
+----------------------------------------------------------------------------
+- ``<layer>.thickness_ml``: as-grown monolayers of a layer between the
+  contacts, ``t = n (1 + r) + d`` with ``n`` the nominal count, ``r`` the
+  rate error of its material and ``d`` the layer's own error (the growth
+  model of :mod:`wellwright.optimize.study.growth`); the fit moves ``t``,
+  the prior is on ``d``. A fractional ``t`` is an
+  island average: the current is the area-weighted mean of the currents of
+  the two neighbouring whole-monolayer stacks (for ``k`` such layers, the
+  ``2**k`` corner stacks weighted by the products of the area fractions).
+  Prior: Gaussian, ``[growth] thickness_ml_sigma``.
+- ``<material>.rate``: growth-rate factor ``1 + r`` of one material's source;
+  prior ``rate_sigma``. Layers whose thickness is not fitted on its own
+  (spacers) follow it at their continuous thickness.
+- ``<layer>.x``: composition; prior ``x_sigma``.
+- ``<layer>.doping_cm3``: donor density, relative prior ``doping_sigma``.
+- ``<material>.offset_ev``: shift of that material's conduction-band edge
+  against the rest of the stack (a band-offset correction); prior 0.05 eV
+  (common practice, from memory: published offsets of one pair scatter by a
+  few tens of meV).
+- model parameters (``broadening_mev``; ``scattering_strength`` when the
+  model has it): no prior, bounded.
+- ``series_resistance_ohm_um2`` (specific, scales as 1/area) and
+  ``series_resistance_ohm`` (area-independent: probes, lines); no prior.
+  ``V_applied = V_intrinsic + I R`` (common practice), with
+  ``I R = J (R_specific + R_fixed A)``.
+
+Default set: the thicknesses of the layers from the first barrier to the
+last one, the rate of every material that also has a layer not fitted on
+its own (the spacers' material), the valley parameter
+``scattering_strength`` when the model has one, and
+``series_resistance_ohm_um2``; ``series_resistance_ohm`` joins when the
+measured files have two or more areas (one area cannot tell the two apart).
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, fields, replace
+from typing import Any
+
+import numpy as np
+from wellwright.optimize.calibrate.measured import Measurement
+from wellwright.optimize.study.growth import GrowthSettings, parse_growth, split_layer_growth
+from wellwright.physics import materials
+from wellwright.physics.current import EnergyGrid
+from wellwright.physics.errors import InputError
+from wellwright.physics.iv import current_at_bias
+from wellwright.physics.stack import LayerTable, ModelOptions, Stack, parse_stack
+
+__all__ = ["FitParameter", "Problem", "build_problem", "GROUPS", "MODEL_FIT"]
+
+GROUPS = ("thickness", "rate", "x", "doping", "offset", "model", "resistance")
+#: Fittable model options: (unit, scale, lower, upper). Only those ModelOptions has are used.
+MODEL_FIT: dict[str, tuple[str, float, float, float]] = {
+    "scattering_strength": ("dimensionless", 0.1, 0.0, 10.0),
+    "broadening_mev": ("meV", 1.0, 0.0, 50.0),
+}
+OFFSET_SIGMA_EV = 0.05
+#: The intrinsic grid has twice the measured points' density (linear interpolation at the NDR
+#: cliff: 17 % error in ln J at one point with the measured density, 3.6 % at twice; measured on
+#: the InP demo stack), at most this many points.
+MAX_GRID_POINTS = 241
+MAX_ISLAND_LAYERS = 6
+#: Barrier: an interior layer whose band edge is this far above both contacts'.
+BARRIER_STEP_EV = 0.1
+
+
+@dataclass(frozen=True)
+class FitParameter:
+    """One fitted quantity. The fit works on ``z``: deviation = ``scale * z``.
+
+    ``nominal`` and values are in ``unit`` (what calibration.json reports);
+    ``sigma`` is the prior's one-sigma deviation (0: no prior);
+    ``lower``/``upper`` bound the deviation.
+    """
+
+    name: str
+    kind: str
+    unit: str
+    nominal: float
+    scale: float
+    sigma: float
+    lower: float
+    upper: float
+    layers: tuple[int, ...] = ()
+    key: str = ""
+
+
+@dataclass(frozen=True)
+class Problem:
+    """A nominal stack, the measured sweeps and the fitted parameters (plain data)."""
+
+    stack: Stack
+    stacks_by_temperature: dict[float, Stack]
+    measurements: tuple[Measurement, ...]
+    parameters: tuple[FitParameter, ...]
+    nominal_ml: np.ndarray  #: (n_layers,) nominal monolayers, NaN for contacts
+    island_layers: tuple[int, ...]  #: layers whose thickness is fitted (island mixture)
+    growth: GrowthSettings
+    xrd: tuple[float, float, tuple[int, ...]] | None = None  #: value nm, sigma nm, layers
+    grid: EnergyGrid = EnergyGrid()
+    bias_points: int | None = None  #: intrinsic grid points; None: twice the measured density
+    source: str = "<dict>"
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(p.name for p in self.parameters)
+
+    def index(self, name: str) -> int:
+        return self.names.index(name)
+
+    # ------------------------------------------------------------------ values
+
+    def deviations(self, z: np.ndarray) -> np.ndarray:
+        """``(m, p)`` deviations from ``(m, p)`` fit coordinates."""
+        return np.atleast_2d(z) * np.array([p.scale for p in self.parameters])
+
+    def thickness_ml(self, dev: np.ndarray) -> np.ndarray:
+        """``(m, n_layers)`` as-grown monolayers.
+
+        A fitted layer's coordinate is its whole deviation ``t - n`` (so the
+        data, which fix ``t``, and the rate, which the spacers and the prior
+        fix, are not entangled); another layer follows its material's rate,
+        ``n (1 + r)``.
+        """
+        dev = np.atleast_2d(dev)
+        ml = np.broadcast_to(self.nominal_ml, (dev.shape[0], self.nominal_ml.size)).copy()
+        ml = ml * (1.0 + self._rates(dev))
+        for j, p in enumerate(self.parameters):
+            if p.kind == "thickness":
+                ml[:, p.layers[0]] = self.nominal_ml[p.layers[0]] + dev[:, j]
+        return ml
+
+    def _rates(self, dev: np.ndarray) -> np.ndarray:
+        """``(m, n_layers)`` relative rate error of each layer's material."""
+        rate = np.zeros((dev.shape[0], self.nominal_ml.size))
+        for j, p in enumerate(self.parameters):
+            if p.kind == "rate":
+                rate[:, list(p.layers)] += dev[:, j, None]
+        return rate
+
+    def values(self, dev: np.ndarray) -> np.ndarray:
+        """``(m, p)`` reported values (``unit`` of each parameter) of deviations."""
+        dev = np.atleast_2d(dev)
+        out = np.empty_like(dev)
+        ml = self.thickness_ml(dev)
+        for j, p in enumerate(self.parameters):
+            if p.kind == "thickness":
+                out[:, j] = ml[:, p.layers[0]]
+            elif p.kind in ("rate", "doping"):
+                out[:, j] = p.nominal * (1.0 + dev[:, j])
+            else:
+                out[:, j] = p.nominal + dev[:, j]
+        return out
+
+    def deviations_of(self, values: dict[str, float]) -> np.ndarray:
+        """``(p,)`` deviations giving the named values (others nominal); inverse of :meth:`values`."""
+        unknown = set(values) - set(self.names)
+        if unknown:
+            raise ValueError(f"not fitted here: {sorted(unknown)}")
+        dev = np.zeros(len(self.parameters))
+        for j, p in enumerate(self.parameters):
+            if p.name in values and p.kind in ("rate", "doping"):
+                dev[j] = values[p.name] / p.nominal - 1.0
+            elif p.name in values and p.kind != "thickness":
+                dev[j] = values[p.name] - p.nominal
+        ml = self.nominal_ml * (1.0 + self._rates(dev[None, :])[0])
+        for j, p in enumerate(self.parameters):
+            if p.kind == "thickness":
+                i = p.layers[0]
+                dev[j] = values.get(p.name, ml[i]) - self.nominal_ml[i]
+        return dev
+
+    def prior_residuals(self, dev: np.ndarray) -> np.ndarray:
+        """``(m, n_priors)``: Gaussian priors and the X-ray constraint, in sigmas."""
+        dev = np.atleast_2d(dev)
+        rates = self._rates(dev)
+        cols = []
+        for j, p in enumerate(self.parameters):
+            if p.sigma <= 0:
+                continue
+            if p.kind == "thickness":  # the layer's own error d = t - n (1 + r)
+                i = p.layers[0]
+                cols.append((dev[:, j] - self.nominal_ml[i] * rates[:, i]) / p.sigma)
+            else:
+                cols.append(dev[:, j] / p.sigma)
+        if self.xrd is not None:
+            value, sigma, layers = self.xrd
+            total = self.tables(dev, continuous=True)[0].thickness_nm[:, list(layers)].sum(axis=1)
+            cols.append((total - value) / sigma)
+        return np.stack(cols, axis=1) if cols else np.zeros((dev.shape[0], 0))
+
+    # ------------------------------------------------------------------ tables
+
+    def tables(
+        self,
+        dev: np.ndarray,
+        *,
+        temperature_k: float | None = None,
+        continuous: bool = False,
+        slopes: list | None = None,
+    ) -> tuple[LayerTable, np.ndarray]:
+        """Layer tables of ``m`` parameter rows and their island weights.
+
+        Returns the table of ``m * 2**k`` rows (row ``i * 2**k + c`` is corner
+        ``c`` of parameter row ``i``; ``k`` island layers) and the weights
+        ``(m, 2**k)``. ``continuous=True`` gives one row per parameter row with
+        fractional thicknesses (for total-thickness constraints). A list given
+        as ``slopes`` receives, per island layer, the derivatives of the
+        weights with respect to its thickness ``(m, 2**k)`` (the island current
+        is multilinear within a monolayer: its thickness derivatives need no
+        further stacks).
+        """
+        dev = np.atleast_2d(dev)
+        m = dev.shape[0]
+        stack = self.stacks_by_temperature.get(temperature_k, self.stack)
+        base = stack.table()
+        rows = lambda a: np.repeat(a, m, axis=0)  # noqa: E731
+        edge, mass, alpha = rows(base.edge_ev), rows(base.mass_m0), rows(base.nonparabolicity_per_ev)
+        perm, doping = rows(base.permittivity_r), rows(base.doping_cm3)
+        mono = np.array([np.nan if lay.monolayer_nm is None else lay.monolayer_nm for lay in stack.layers])
+        mono = rows(mono[None, :])
+        a_sub = _substrate_lattice_nm(stack)
+        for j, p in enumerate(self.parameters):
+            if p.kind == "x":
+                (i,) = p.layers
+                layer = stack.layers[i]
+                mp = materials.material_parameters(
+                    layer.material,
+                    np.clip(layer.x + dev[:, j], 0.0, 1.0),
+                    temperature_k=stack.temperature_k,
+                    substrate_lattice_nm=a_sub,
+                    strain=stack.model.strain,
+                )
+                edge[:, i] = mp.conduction_band_ev
+                mass[:, i] = mp.mass_m0
+                alpha[:, i] = np.asarray(mp.nonparabolicity_per_ev) * float(stack.model.nonparabolicity)
+                perm[:, i] = mp.permittivity_r
+                mono[:, i] = mp.monolayer_nm
+        for j, p in enumerate(self.parameters):
+            if p.kind == "offset":
+                edge[:, list(p.layers)] += dev[:, j, None]
+            elif p.kind == "doping":
+                doping[:, p.layers[0]] *= np.maximum(1.0 + dev[:, j], 0.01)
+        ml = np.maximum(self.thickness_ml(dev), 1.0)
+        grown = np.isfinite(ml)
+        thick = np.where(grown, np.nan_to_num(ml) * np.nan_to_num(mono), rows(base.thickness_nm))
+        table = LayerTable(edge, mass, alpha, thick, doping, perm, np.full(m, stack.temperature_k))
+        if continuous or not self.island_layers:
+            return table, np.ones((m, 1))
+        isl = list(self.island_layers)
+        low = np.floor(ml[:, isl])
+        frac = ml[:, isl] - low
+        corners = np.array(list(itertools.product((0, 1), repeat=len(isl))))  # (2**k, k)
+        factors = np.where(corners[None], frac[:, None, :], 1 - frac[:, None, :])  # (m, C, k)
+        weights = np.prod(factors, axis=2)
+        if slopes is not None:  # d weight / d thickness of each island layer, (m, k, C)
+            sign = np.where(corners, 1.0, -1.0)  # (C, k)
+            for i in range(len(isl)):
+                others = np.prod(np.delete(factors, i, axis=2), axis=2)
+                slopes.append(sign[None, :, i] * others)
+        n_c = corners.shape[0]
+        big = table.take(np.repeat(np.arange(m), n_c))
+        t = big.thickness_nm.copy()
+        whole = (np.repeat(low, n_c, axis=0) + np.tile(corners, (m, 1))).clip(min=1.0)
+        t[:, isl] = whole * np.repeat(mono[:, isl], n_c, axis=0)
+        return replace(big, thickness_nm=t), weights
+
+    def model_options(self, dev_row: np.ndarray, temperature_k: float | None = None) -> ModelOptions:
+        stack = self.stacks_by_temperature.get(temperature_k, self.stack)
+        changes = {
+            p.key: p.nominal + dev_row[j]
+            for j, p in enumerate(self.parameters)
+            if p.kind == "model"
+        }
+        return replace(stack.model, **changes) if changes else stack.model
+
+    # ------------------------------------------------------------------ forward model
+
+    def intrinsic_grids(self) -> list[np.ndarray]:
+        """Per measurement, the intrinsic biases the kernel computes (spanning the measured range,
+        uniform, :data:`MAX_GRID_POINTS`)."""
+        out = []
+        for meas in self.measurements:
+            lo, hi = min(meas.bias_v[0], 0.0), max(meas.bias_v[-1], 0.0)
+            n = self.bias_points or min(2 * meas.bias_v.size - 1, MAX_GRID_POINTS)
+            out.append(np.linspace(lo, hi, max(n, 2)))
+        return out
+
+    def intrinsic_currents(
+        self, dev: np.ndarray, *, with_slopes: bool = False
+    ) -> list[np.ndarray] | tuple[list[np.ndarray], list[np.ndarray]]:
+        """Island-averaged intrinsic currents ``(m, n_grid)`` per measurement.
+
+        Rows with equal physics (they differ only in series resistance) are
+        computed once; rows are grouped by model options, one batched kernel
+        call per group and measurement. ``with_slopes`` also returns, per
+        measurement, ``(m, k, n_grid)`` derivatives with respect to the
+        thickness of each island layer (monolayers), from the same corners.
+        """
+        dev = np.atleast_2d(dev)
+        phys = np.array([p.kind != "resistance" for p in self.parameters])
+        key_cols = np.where(phys, dev, 0.0)
+        uniq, inverse = np.unique(key_cols, axis=0, return_inverse=True)
+        inverse = np.asarray(inverse).reshape(-1)
+        model_cols = [j for j, p in enumerate(self.parameters) if p.kind == "model"]
+        groups: dict[tuple, list[int]] = {}
+        for u in range(uniq.shape[0]):
+            groups.setdefault(tuple(uniq[u, model_cols]), []).append(u)
+        grids = self.intrinsic_grids()
+        k_isl = len(self.island_layers)
+        out = [np.empty((uniq.shape[0], g.size)) for g in grids]
+        slope = [np.zeros((uniq.shape[0], k_isl, g.size)) for g in grids]
+        for members in groups.values():
+            sub = uniq[members]
+            for k, (meas, grid_v) in enumerate(zip(self.measurements, grids)):
+                dw: list[np.ndarray] = []
+                table, w = self.tables(sub, temperature_k=meas.temperature_k, slopes=dw)
+                model = self.model_options(sub[0], meas.temperature_k)
+                j = current_at_bias(table, grid_v, model=model, grid=self.grid)
+                j = j.reshape(len(members), w.shape[1], -1)
+                out[k][members] = np.einsum("mc,mcb->mb", w, j)
+                for i, d in enumerate(dw):
+                    slope[k][members, i] = np.einsum("mc,mcb->mb", d, j)
+        currents = [o[inverse] for o in out]
+        if with_slopes:
+            return currents, [s_[inverse] for s_ in slope]
+        return currents
+
+    def resistance_ohm_um2(self, dev: np.ndarray, meas: Measurement) -> np.ndarray:
+        """``(m,)`` effective specific series resistance of each row for one measurement."""
+        dev = np.atleast_2d(dev)
+        r = np.zeros(dev.shape[0])
+        vals = self.values(dev)
+        for j, p in enumerate(self.parameters):
+            if p.key == "series_resistance_ohm_um2":
+                r += vals[:, j]
+            elif p.key == "series_resistance_ohm":
+                r += vals[:, j] * (meas.area_um2 or 0.0)
+        fixed = {p.key for p in self.parameters}
+        if "series_resistance_ohm_um2" not in fixed:
+            r += self.stack.device.series_resistance_ohm_um2
+        return r
+
+    def predict(self, dev: np.ndarray, intrinsic: list[np.ndarray] | None = None) -> list[np.ndarray]:
+        """Model currents at the measured biases, ``(m, n_points)`` per measurement.
+
+        The terminal bias is ``V + J R`` (R in ohm um^2, J in A/cm^2); the
+        curve followed is the up sweep away from zero: where the series
+        resistance folds the NDR region back (``V + J R`` decreasing), the
+        sweep jumps ahead to the next point of equal terminal bias, as a
+        measured up sweep does.
+        """
+        dev = np.atleast_2d(dev)
+        intrinsic = self.intrinsic_currents(dev) if intrinsic is None else intrinsic
+        out = []
+        for meas, grid_v, j in zip(self.measurements, self.intrinsic_grids(), intrinsic):
+            r = self.resistance_ohm_um2(dev, meas)
+            pred = np.empty((dev.shape[0], meas.bias_v.size))
+            for i in range(dev.shape[0]):  # rows: a handful per call; the biases are vectors
+                pred[i] = up_sweep(grid_v, j[i], r[i], meas.bias_v)
+            out.append(pred)
+        return out
+
+
+def up_sweep(
+    bias_v: np.ndarray, current_a_cm2: np.ndarray, r_ohm_um2: float, terminal_v: np.ndarray
+) -> np.ndarray:
+    """Current at terminal biases ``terminal_v`` of an up sweep with series resistance.
+
+    ``bias_v`` increasing intrinsic biases (either side of zero), the
+    intrinsic currents there; each polarity is swept away from zero.
+    """
+    out = np.zeros(terminal_v.size)
+    for sign in (1.0, -1.0):
+        side = sign * bias_v >= 0
+        want = sign * terminal_v > 0
+        if not np.any(want) or np.count_nonzero(side) < 2:
+            continue
+        v = sign * bias_v[side]
+        jj = sign * current_a_cm2[side]
+        order = np.argsort(v)
+        v, jj = v[order], jj[order]
+        ext = v + jj * r_ohm_um2 * 1e-8
+        keep = ext >= np.maximum.accumulate(ext)
+        out[want] = sign * np.interp(sign * terminal_v[want], ext[keep], jj[keep])
+    return out
+
+
+def _substrate_lattice_nm(stack: Stack) -> float | None:
+    if stack.substrate is None:
+        return None
+    name, x = materials.parse_material(stack.substrate)
+    return float(materials.lattice_constant_nm(name, x, temperature_k=stack.temperature_k))
+
+
+# --------------------------------------------------------------------------- building
+
+
+def _barrier_span(stack: Stack) -> tuple[int, ...]:
+    """Interior layers from the first barrier to the last one (with a monolayer thickness)."""
+    n = len(stack.layers)
+    top = max(stack.layers[0].conduction_band_ev, stack.layers[-1].conduction_band_ev)
+    barriers = [
+        i for i in range(1, n - 1) if stack.layers[i].conduction_band_ev > top + BARRIER_STEP_EV
+    ]
+    span = range(barriers[0], barriers[-1] + 1) if barriers else range(1, n - 1)
+    return tuple(i for i in span if stack.layers[i].monolayer_nm is not None)
+
+
+def candidate_parameters(
+    stack: Stack, growth: GrowthSettings, per_layer: dict[str, GrowthSettings], n_areas: int
+) -> tuple[dict[str, FitParameter], tuple[str, ...]]:
+    """Every fittable parameter of a stack, and the names of the default set."""
+    n = len(stack.layers)
+    cands: dict[str, FitParameter] = {}
+    default: list[str] = []
+    span = _barrier_span(stack)
+    by_material: dict[str, list[int]] = {}
+    for i, layer in enumerate(stack.layers):
+        g = per_layer.get(layer.name, growth)
+        interior = 0 < i < n - 1
+        if interior and layer.monolayer_nm is not None:
+            by_material.setdefault(layer.material, []).append(i)
+            name = f"{layer.name}.thickness_ml"
+            cands[name] = FitParameter(
+                name, "thickness", "ML", layer.thickness_nm / layer.monolayer_nm, 1.0,
+                g.thickness_ml_sigma, -4.0, 4.0, (i,),
+            )  # fmt: skip
+            if i in span:
+                default.append(name)
+        if layer.x is not None and layer.material != "custom":
+            name = f"{layer.name}.x"
+            lo, hi = max(-0.1, -layer.x), min(0.1, 1.0 - layer.x)
+            cands[name] = FitParameter(name, "x", "", layer.x, 0.01, g.x_sigma, lo, hi, (i,))
+        if layer.doping_cm3 > 0:
+            name = f"{layer.name}.doping_cm3"
+            cands[name] = FitParameter(
+                name, "doping", "cm^-3", layer.doping_cm3, 0.1, g.doping_sigma, -0.9, 3.0, (i,)
+            )
+    for mat, idx in by_material.items():
+        if mat == "custom":
+            continue
+        name = f"{mat}.rate"
+        cands[name] = FitParameter(
+            name, "rate", "factor", 1.0, 0.01, growth.rate_sigma, -0.15, 0.15, tuple(idx)
+        )
+        if any(i not in span for i in idx):
+            default.append(name)
+    for mat in sorted({lay.material for lay in stack.layers} - {"custom"}):
+        idx = tuple(i for i, lay in enumerate(stack.layers) if lay.material == mat)
+        name = f"{mat}.offset_ev"
+        cands[name] = FitParameter(name, "offset", "eV", 0.0, 0.01, OFFSET_SIGMA_EV, -0.3, 0.3, idx)
+    model_fields = {f.name for f in fields(ModelOptions)}
+    for key, (unit, scale, lo, hi) in MODEL_FIT.items():
+        if key in model_fields:
+            nominal = float(getattr(stack.model, key))
+            cands[key] = FitParameter(key, "model", unit, nominal, scale, 0.0, lo - nominal, hi - nominal, key=key)  # fmt: skip
+    if "scattering_strength" in cands:
+        default.append("scattering_strength")
+    r0 = stack.device.series_resistance_ohm_um2
+    cands["series_resistance_ohm_um2"] = FitParameter(
+        "series_resistance_ohm_um2", "resistance", "ohm um^2", r0, 10.0, 0.0, -r0, 1e5,
+        key="series_resistance_ohm_um2",
+    )  # fmt: skip
+    cands["series_resistance_ohm"] = FitParameter(
+        "series_resistance_ohm", "resistance", "ohm", 0.0, 1.0, 0.0, 0.0, 1e4,
+        key="series_resistance_ohm",
+    )  # fmt: skip
+    default.append("series_resistance_ohm_um2")
+    if n_areas >= 2:
+        default.append("series_resistance_ohm")
+    return cands, tuple(default)
+
+
+def select(
+    cands: dict[str, FitParameter], default: tuple[str, ...], fit: list[str] | None
+) -> tuple[FitParameter, ...]:
+    """The fit set: ``--fit`` names and groups, or the default set."""
+    if not fit:
+        return tuple(cands[n] for n in default)
+    chosen: list[str] = []
+    for item in fit:
+        if item in GROUPS:
+            kind = item
+            chosen += [n for n, p in cands.items() if p.kind == kind and n not in chosen]
+        elif item == "default":
+            chosen += [n for n in default if n not in chosen]
+        elif item in cands:
+            if item not in chosen:
+                chosen.append(item)
+        else:
+            raise InputError(
+                f"{item!r} is not a fittable parameter; choose from: "
+                f"{', '.join(GROUPS)}, default, {', '.join(cands)}",
+                key="--fit",
+            )
+    return tuple(cands[n] for n in chosen)
+
+
+def calibration_table(raw: Any, *, source: str, stack: Stack) -> tuple[float, float, tuple[int, ...]] | None:
+    """``[calibration]`` of the input file: ``xrd_period_nm = {value, sigma}``, ``xrd_layers``."""
+    if raw is None:
+        return None
+    allowed = ("xrd_period_nm", "xrd_layers", "from")
+    if not isinstance(raw, dict):
+        raise InputError("must be a table", source=source, key="calibration")
+    for key in raw:
+        if key not in allowed:
+            raise InputError(f"unknown key; allowed: {', '.join(allowed)}", source=source, key=f"calibration.{key}")
+    xrd = raw.get("xrd_period_nm")
+    if xrd is None:
+        return None
+    form = "a table {value = <nm>, sigma = <nm>} with value > 0, sigma > 0"
+    if not isinstance(xrd, dict) or set(xrd) != {"value", "sigma"}:
+        raise InputError(f"must be {form}", source=source, key="calibration.xrd_period_nm")
+    value, sigma = xrd["value"], xrd["sigma"]
+    if not all(isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) and v > 0 for v in (value, sigma)):
+        raise InputError(f"must be {form}", source=source, key="calibration.xrd_period_nm")
+    names = [lay.name for lay in stack.layers]
+    wanted = raw.get("xrd_layers", names[1:-1])
+    if not isinstance(wanted, list) or any(w not in names[1:-1] for w in wanted) or not wanted:
+        raise InputError(
+            f"must be a list of layer names between the contacts ({', '.join(names[1:-1])})",
+            source=source,
+            key="calibration.xrd_layers",
+        )
+    return float(value), float(sigma), tuple(names.index(w) for w in wanted)
+
+
+def read_input(data: dict[str, Any], *, source: str) -> tuple[dict[str, Any], dict[str, Any], Any, Any]:
+    """Split a stack or study file into its stack dictionary, layer growth tables, [growth], [calibration].
+
+    A study's ranges are refused: a calibration needs the stack that was grown.
+    """
+    from wellwright.physics.stack import TOP_KEYS
+
+    stack_data = {k: v for k, v in data.items() if k in TOP_KEYS}
+    layers = stack_data.get("layers")
+    if isinstance(layers, list):
+        for i, layer in enumerate(layers):
+            if not isinstance(layer, dict):
+                continue
+            for key, value in layer.items():
+                if isinstance(value, dict) and key != "growth" or key == "same_as":
+                    raise InputError(
+                        "a calibration needs the stack that was grown: give fixed values, "
+                        "not ranges or same_as",
+                        source=source,
+                        layer=i,
+                        key=key,
+                    )
+    stack_data, layer_growth = split_layer_growth(stack_data)
+    return stack_data, layer_growth, data.get("growth"), data.get("calibration")
+
+
+def build_problem(
+    data: dict[str, Any],
+    measurements: list[Measurement],
+    *,
+    source: str = "<dict>",
+    fit: list[str] | None = None,
+    bias_points: int | None = None,
+) -> Problem:
+    """Validate the input file's stack, growth and calibration tables against the measured sweeps."""
+    stack_data, layer_growth, growth_raw, calib_raw = read_input(data, source=source)
+    stack = parse_stack(stack_data, source=source)
+    names = tuple(lay.name for lay in stack.layers)
+    growth, per_layer = parse_growth(growth_raw, layer_growth, layer_names=names, source=source)
+    by_t: dict[float, Stack] = {}
+    for meas in measurements:
+        t = meas.temperature_k
+        if t is not None and t not in by_t:
+            by_t[t] = parse_stack({**stack_data, "temperature_k": t}, source=source)
+    areas = {m.area_um2 for m in measurements if m.area_um2 is not None}
+    cands, default = candidate_parameters(stack, growth, per_layer, len(areas))
+    params = select(cands, default, fit)
+    if any(p.key == "series_resistance_ohm" for p in params):
+        missing = [m.source for m in measurements if m.area_um2 is None]
+        if missing:
+            raise InputError(
+                "series_resistance_ohm needs each file's area: add '# area_um2 = ...'",
+                source=missing[0],
+            )
+    island = tuple(p.layers[0] for p in params if p.kind == "thickness")
+    if len(island) > MAX_ISLAND_LAYERS:
+        raise InputError(
+            f"{len(island)} layer thicknesses fitted; at most {MAX_ISLAND_LAYERS} "
+            "(each doubles the stacks computed)",
+            key="--fit",
+        )
+    nominal_ml = np.array(
+        [
+            lay.thickness_nm / lay.monolayer_nm if 0 < i < len(names) - 1 and lay.monolayer_nm else np.nan
+            for i, lay in enumerate(stack.layers)
+        ]
+    )
+    return Problem(
+        stack=stack,
+        stacks_by_temperature=by_t,
+        measurements=tuple(measurements),
+        parameters=params,
+        nominal_ml=nominal_ml,
+        island_layers=island,
+        growth=growth,
+        xrd=calibration_table(calib_raw, source=source, stack=stack),
+        bias_points=bias_points,
+        source=source,
+    )

@@ -1,0 +1,46 @@
+"""Invented measurements: the project's own model from a stack with known growth errors, plus noise.
+
+Used by the tests, the benchmark and the script that made the demo data set
+in ``studies/``. Nothing here is measured.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from wellwright.optimize.calibrate.measured import Measurement
+from wellwright.optimize.calibrate.problem import build_problem
+from wellwright.optimize.study.growth import as_generator
+
+__all__ = ["synthetic_measurement"]
+
+
+def synthetic_measurement(
+    data: dict[str, Any],
+    truth: dict[str, float],
+    bias_v: np.ndarray,
+    *,
+    area_um2: float | None = None,
+    noise: float = 0.02,
+    floor_a_cm2: float = 0.0,
+    seed: int | np.random.Generator | None = None,
+    bias_points: int = 401,
+    source: str = "<synthetic>",
+) -> Measurement:
+    """An invented sweep of the stack ``data`` grown with the errors ``truth``.
+
+    ``truth`` maps calibration parameter names (``barrier1.thickness_ml``,
+    ``InGaAs.rate``, ``series_resistance_ohm_um2``, ...) to their true
+    values; the current is the island-model current of the model on a fine
+    intrinsic grid (``bias_points``), the terminal bias ``V + I R``; noise is
+    multiplicative log-normal with relative sigma ``noise`` plus a Gaussian
+    floor of ``floor_a_cm2``.
+    """
+    rng = as_generator(seed)
+    template = Measurement(source, np.asarray(bias_v, float), np.ones(len(bias_v)), area_um2)
+    problem = build_problem(data, [template], fit=list(truth), bias_points=bias_points)
+    dev = problem.deviations_of(truth)
+    j = problem.predict(dev[None, :])[0][0]
+    j = j * np.exp(noise * rng.standard_normal(j.size)) + floor_a_cm2 * rng.standard_normal(j.size)
+    return Measurement(source, template.bias_v, j, area_um2)
