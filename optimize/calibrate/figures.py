@@ -51,16 +51,24 @@ def overlay_figure(record: dict[str, Any], path: str | Path) -> Path:
                         marker, ms=8, mfc="none" if which == "measured" else c, mec=PALETTE["black"],
                         zorder=5,
                     )  # fmt: skip
-        lines.append(f"{name}\n  measured: {_fom_text(fom['measured'])}\n  fitted:   {_fom_text(fom['fitted'])}")
+        lines.append(
+            f"{name}\n  measured: {_fom_text(fom['measured'])}\n  fitted:   {_fom_text(fom['fitted'])}"
+        )
     axes[0].set_ylabel("current density (kA/cm$^2$)")
     axes[1].set_ylabel("|current density| (A/cm$^2$)")
     axes[1].set_yscale("log")
     for ax in axes:
         ax.set_xlabel("applied bias (V)")
     axes[0].legend(fontsize=8, loc="upper left")
-    axes[0].set_title("Measured and fitted I-V (squares: measured peak/valley, diamonds: fitted)", fontsize=10, loc="left")
+    axes[0].set_title(
+        "Measured and fitted I-V (squares: measured peak/valley, diamonds: fitted)",
+        fontsize=10,
+        loc="left",
+    )
     res = record["residual"]
-    axes[1].set_title(f"log scale; scatter in ln J {res['scatter_ln_current']:.3f}", fontsize=10, loc="left")
+    axes[1].set_title(
+        f"log scale; scatter in ln J {res['scatter_ln_current']:.3f}", fontsize=10, loc="left"
+    )
     fig.text(0.01, -0.02, "\n".join(lines), fontsize=8.5, family="monospace", va="top")
     fig.tight_layout()
     return save_figure(fig, path)

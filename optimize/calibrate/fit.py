@@ -32,9 +32,11 @@ every parameter. Distinct optima within
 one-monolayer ambiguity is shown, not hidden.
 
 Uncertainties: the Gauss-Newton covariance ``(J^T J)^-1`` of the
-(non-robustified) residuals, priors included, at the optimum (a linear
-approximation; an interval at a monolayer boundary of the island model is
-approximate), and 95 % intervals ``value +- 1.96 sd``.
+(non-robustified) residuals, priors included, at the optimum, with ``J``
+from central differences (thicknesses +- a quarter monolayer, so that the
+kink of the island current at a whole monolayer is averaged, not taken
+from one side), and 95 % intervals ``value +- 1.96 sd``: a linear
+approximation.
 """
 
 from __future__ import annotations
@@ -65,6 +67,7 @@ MAX_COMBOS = 729
 MAX_WEIGHT = 4.0
 REFINE_NFEV = 6
 MAX_CELL_MOVES = 3
+THICKNESS_STEP_ML = 0.25
 #: A start is refined when its whole-monolayer score is within this factor of the best one.
 START_FACTOR = 3.0
 
@@ -118,8 +121,12 @@ class Objective:
     def __init__(self, problem: Problem, scatter: float) -> None:
         self.problem = problem
         self.scatter = scatter
-        self.weights = [point_weights(m.bias_v, m.current_density_a_cm2) for m in problem.measurements]
-        self.floors = [FLOOR_FRACTION * np.abs(m.current_density_a_cm2).max() for m in problem.measurements]
+        self.weights = [
+            point_weights(m.bias_v, m.current_density_a_cm2) for m in problem.measurements
+        ]
+        self.floors = [
+            FLOOR_FRACTION * np.abs(m.current_density_a_cm2).max() for m in problem.measurements
+        ]
         self.logs = [
             np.log(np.abs(m.current_density_a_cm2) + f)
             for m, f in zip(problem.measurements, self.floors)
@@ -144,7 +151,9 @@ class Objective:
         self.evaluations += z.shape[0]
         raw = self.raw_log_residuals(z, intrinsic)
         data = [np.sqrt(w) * r / self.scatter for w, r in zip(self.weights, raw)]
-        return np.concatenate(data + [self.problem.prior_residuals(self.problem.deviations(z))], axis=1)
+        return np.concatenate(
+            data + [self.problem.prior_residuals(self.problem.deviations(z))], axis=1
+        )
 
     def __call__(self, z: np.ndarray) -> np.ndarray:
         key = np.asarray(z, float).tobytes()
@@ -161,7 +170,11 @@ class Objective:
         step = np.where(z + STEP_Z <= self.upper, STEP_Z, -STEP_Z)
         rows = np.vstack([z, z + np.diag(step)])
         kinds = [q.kind for q in prob.parameters]
-        island_col = {j: prob.island_layers.index(q.layers[0]) for j, q in enumerate(prob.parameters) if q.kind == "thickness"}
+        island_col = {
+            j: prob.island_layers.index(q.layers[0])
+            for j, q in enumerate(prob.parameters)
+            if q.kind == "thickness"
+        }
         need = [0] + [j + 1 for j in range(p) if kinds[j] not in ("thickness", "resistance")]
         base, slopes = prob.intrinsic_currents(prob.deviations(rows[need]), with_slopes=True)
         intrinsic = []
@@ -174,6 +187,28 @@ class Objective:
         res = self.residuals_many(rows, intrinsic)
         self._cache = {z.tobytes(): res[0]}
         return (res[1:] - res[0]).T / step[None, :]
+
+    def central_jacobian(self, z: np.ndarray) -> np.ndarray:
+        """Central differences in one batch, thickness steps of ``THICKNESS_STEP_ML``.
+
+        Used for the covariance: at a whole monolayer the island current has a
+        kink, and a one-sided slope would make, e.g., the two barriers of a
+        symmetric stack look separable; the central slope averages both sides.
+        """
+        z = np.asarray(z, float)
+        p = z.size
+        step = np.array(
+            [
+                THICKNESS_STEP_ML / q.scale if q.kind == "thickness" else STEP_Z
+                for q in self.problem.parameters
+            ]
+        )
+        up = np.minimum(z + step, self.upper)
+        down = np.maximum(z - step, self.lower)
+        rows = np.vstack([z + np.diag(up - z), z + np.diag(down - z)])
+        res = self.residuals_many(rows)
+        width = np.where(up - down > 0, up - down, 1.0)
+        return (res[:p] - res[p:]).T / width[None, :]
 
     def cost(self, res: np.ndarray) -> np.ndarray:
         """Robust cost ``sum rho(r^2)`` with soft_l1 at ``F_SCALE`` (per row)."""
@@ -201,7 +236,9 @@ def _combos(problem: Problem) -> np.ndarray:
     return np.unique(rows, axis=0)
 
 
-def _fit_resistance(obj: Objective, z: np.ndarray, intrinsic: list[np.ndarray]) -> tuple[np.ndarray, float]:
+def _fit_resistance(
+    obj: Objective, z: np.ndarray, intrinsic: list[np.ndarray]
+) -> tuple[np.ndarray, float]:
     """Series resistance fitted on fixed intrinsic currents (no kernel call)."""
     cols = [j for j, p in enumerate(obj.problem.parameters) if p.kind == "resistance"]
     if not cols:
@@ -213,7 +250,14 @@ def _fit_resistance(obj: Objective, z: np.ndarray, intrinsic: list[np.ndarray]) 
         zz[cols] = rz
         return obj.residuals_many(zz, intrinsic)[0]
 
-    sol = least_squares(fun, z[cols], bounds=(obj.lower[cols], obj.upper[cols]), loss="soft_l1", f_scale=F_SCALE, max_nfev=60)
+    sol = least_squares(
+        fun,
+        z[cols],
+        bounds=(obj.lower[cols], obj.upper[cols]),
+        loss="soft_l1",
+        f_scale=F_SCALE,
+        max_nfev=60,
+    )
     out = z.copy()
     out[cols] = sol.x
     return out, float(2 * sol.cost)
@@ -233,7 +277,9 @@ def global_stage(obj: Objective, starts: int) -> tuple[list[np.ndarray], int]:
     return keep, rows.shape[0]
 
 
-def _cell_bounds(obj: Objective, z: np.ndarray, cells: dict[int, float]) -> tuple[np.ndarray, np.ndarray]:
+def _cell_bounds(
+    obj: Objective, z: np.ndarray, cells: dict[int, float]
+) -> tuple[np.ndarray, np.ndarray]:
     lo, hi = obj.lower.copy(), obj.upper.copy()
     for j, low_ml in cells.items():
         p = obj.problem.parameters[j]
@@ -314,7 +360,7 @@ def run_fit(problem: Problem, *, starts: int = 2, max_nfev: int = 15, progress=N
         rescored.append((float(np.sum(res**2)), z))
     res_best = obj(z_best)
     chi2 = float(np.sum(res_best**2))
-    jac = obj.jacobian(z_best)
+    jac = obj.central_jacobian(z_best)
     result = _uncertainty(problem, obj, z_best, jac)
     result.scatter, result.chi2 = scatter, chi2
     result.n_points, result.starts, result.combos = obj.n_points, len(begins), n_combos
@@ -345,7 +391,9 @@ def _uncertainty(problem: Problem, obj: Objective, z: np.ndarray, jac: np.ndarra
         corr = cov_v / np.outer(sd, sd)
     corr = np.where(np.isfinite(corr), corr, 0.0)
     np.fill_diagonal(corr, 1.0)
-    return FitResult(z=z, dev=dev0[0], values=v0, sd=sd, correlation=corr, scatter=0, chi2=0, n_points=0)
+    return FitResult(
+        z=z, dev=dev0[0], values=v0, sd=sd, correlation=corr, scatter=0, chi2=0, n_points=0
+    )
 
 
 def _alternatives(problem: Problem, z_best, chi2_best, rescored) -> list[dict[str, Any]]:

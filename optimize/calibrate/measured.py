@@ -74,7 +74,9 @@ def _setting(line: str, source: str, lineno: int) -> tuple[str, float] | None:
         v = math.nan
     lo, hi = SETTINGS[key]
     if not (math.isfinite(v) and lo <= v <= hi):
-        raise InputError(f"line {lineno}: {key} = {value!r} outside [{lo:g}, {hi:g}]", source=source)
+        raise InputError(
+            f"line {lineno}: {key} = {value!r} outside [{lo:g}, {hi:g}]", source=source
+        )
     return key, v
 
 

@@ -222,9 +222,15 @@ class Problem:
         stack = self.stacks_by_temperature.get(temperature_k, self.stack)
         base = stack.table()
         rows = lambda a: np.repeat(a, m, axis=0)  # noqa: E731
-        edge, mass, alpha = rows(base.edge_ev), rows(base.mass_m0), rows(base.nonparabolicity_per_ev)
+        edge, mass, alpha = (
+            rows(base.edge_ev),
+            rows(base.mass_m0),
+            rows(base.nonparabolicity_per_ev),
+        )
         perm, doping = rows(base.permittivity_r), rows(base.doping_cm3)
-        mono = np.array([np.nan if lay.monolayer_nm is None else lay.monolayer_nm for lay in stack.layers])
+        mono = np.array(
+            [np.nan if lay.monolayer_nm is None else lay.monolayer_nm for lay in stack.layers]
+        )
         mono = rows(mono[None, :])
         a_sub = _substrate_lattice_nm(stack)
         for j, p in enumerate(self.parameters):
@@ -240,7 +246,9 @@ class Problem:
                 )
                 edge[:, i] = mp.conduction_band_ev
                 mass[:, i] = mp.mass_m0
-                alpha[:, i] = np.asarray(mp.nonparabolicity_per_ev) * float(stack.model.nonparabolicity)
+                alpha[:, i] = np.asarray(mp.nonparabolicity_per_ev) * float(
+                    stack.model.nonparabolicity
+                )
                 perm[:, i] = mp.permittivity_r
                 mono[:, i] = mp.monolayer_nm
         for j, p in enumerate(self.parameters):
@@ -272,7 +280,9 @@ class Problem:
         t[:, isl] = whole * np.repeat(mono[:, isl], n_c, axis=0)
         return replace(big, thickness_nm=t), weights
 
-    def model_options(self, dev_row: np.ndarray, temperature_k: float | None = None) -> ModelOptions:
+    def model_options(
+        self, dev_row: np.ndarray, temperature_k: float | None = None
+    ) -> ModelOptions:
         stack = self.stacks_by_temperature.get(temperature_k, self.stack)
         changes = {
             p.key: p.nominal + dev_row[j]
@@ -348,7 +358,9 @@ class Problem:
             r += self.stack.device.series_resistance_ohm_um2
         return r
 
-    def predict(self, dev: np.ndarray, intrinsic: list[np.ndarray] | None = None) -> list[np.ndarray]:
+    def predict(
+        self, dev: np.ndarray, intrinsic: list[np.ndarray] | None = None
+    ) -> list[np.ndarray]:
         """Model currents at the measured biases, ``(m, n_points)`` per measurement.
 
         The terminal bias is ``V + J R`` (R in ohm um^2, J in A/cm^2); the
@@ -504,7 +516,9 @@ def select(
     return tuple(cands[n] for n in chosen)
 
 
-def calibration_table(raw: Any, *, source: str, stack: Stack) -> tuple[float, float, tuple[int, ...]] | None:
+def calibration_table(
+    raw: Any, *, source: str, stack: Stack
+) -> tuple[float, float, tuple[int, ...]] | None:
     """``[calibration]`` of the input file: ``xrd_period_nm = {value, sigma}``, ``xrd_layers``."""
     if raw is None:
         return None
@@ -513,7 +527,11 @@ def calibration_table(raw: Any, *, source: str, stack: Stack) -> tuple[float, fl
         raise InputError("must be a table", source=source, key="calibration")
     for key in raw:
         if key not in allowed:
-            raise InputError(f"unknown key; allowed: {', '.join(allowed)}", source=source, key=f"calibration.{key}")
+            raise InputError(
+                f"unknown key; allowed: {', '.join(allowed)}",
+                source=source,
+                key=f"calibration.{key}",
+            )
     xrd = raw.get("xrd_period_nm")
     if xrd is None:
         return None
@@ -521,7 +539,10 @@ def calibration_table(raw: Any, *, source: str, stack: Stack) -> tuple[float, fl
     if not isinstance(xrd, dict) or set(xrd) != {"value", "sigma"}:
         raise InputError(f"must be {form}", source=source, key="calibration.xrd_period_nm")
     value, sigma = xrd["value"], xrd["sigma"]
-    if not all(isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) and v > 0 for v in (value, sigma)):
+    if not all(
+        isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) and v > 0
+        for v in (value, sigma)
+    ):
         raise InputError(f"must be {form}", source=source, key="calibration.xrd_period_nm")
     names = [lay.name for lay in stack.layers]
     wanted = raw.get("xrd_layers", names[1:-1])
@@ -534,7 +555,9 @@ def calibration_table(raw: Any, *, source: str, stack: Stack) -> tuple[float, fl
     return float(value), float(sigma), tuple(names.index(w) for w in wanted)
 
 
-def read_input(data: dict[str, Any], *, source: str) -> tuple[dict[str, Any], dict[str, Any], Any, Any]:
+def read_input(
+    data: dict[str, Any], *, source: str
+) -> tuple[dict[str, Any], dict[str, Any], Any, Any]:
     """Split a stack or study file into its stack dictionary, layer growth tables, [growth], [calibration].
 
     A study's ranges are refused: a calibration needs the stack that was grown.
@@ -597,7 +620,9 @@ def build_problem(
         )
     nominal_ml = np.array(
         [
-            lay.thickness_nm / lay.monolayer_nm if 0 < i < len(names) - 1 and lay.monolayer_nm else np.nan
+            lay.thickness_nm / lay.monolayer_nm
+            if 0 < i < len(names) - 1 and lay.monolayer_nm
+            else np.nan
             for i, lay in enumerate(stack.layers)
         ]
     )

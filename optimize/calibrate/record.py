@@ -9,7 +9,13 @@ from wellwright.optimize.calibrate.fit import CORRELATED, PRIOR_DOMINATED, Z95, 
 from wellwright.optimize.calibrate.problem import Problem
 from wellwright.physics.iv import locate_peak_valley
 
-__all__ = ["calibration_record", "identifiability", "grower_sentence", "calibrated_toml", "figures_of_merit"]
+__all__ = [
+    "calibration_record",
+    "identifiability",
+    "grower_sentence",
+    "calibrated_toml",
+    "figures_of_merit",
+]
 
 GROWTH_KINDS = ("thickness", "rate", "x", "doping")
 FOM_KEYS = (
@@ -75,10 +81,16 @@ def identifiability(problem: Problem, result: FitResult) -> list[dict[str, Any]]
             if pa.kind == pb.kind == "thickness":
                 s = 1.0 if rho < 0 else -1.0
                 value = result.values[a] + s * result.values[b]
-                var = result.sd[a] ** 2 + result.sd[b] ** 2 + 2 * s * rho * result.sd[a] * result.sd[b]
+                var = (
+                    result.sd[a] ** 2
+                    + result.sd[b] ** 2
+                    + 2 * s * rho * result.sd[a] * result.sd[b]
+                )
                 half = Z95 * float(np.sqrt(max(var, 0.0)))
                 what = "sum" if s > 0 else "difference"
-                note.update(combination=what, value=value, ci_low=value - half, ci_high=value + half)
+                note.update(
+                    combination=what, value=value, ci_low=value - half, ci_high=value + half
+                )
                 text += f"; their {what} is recovered: {value:.2f} ML ({value - half:.2f} to {value + half:.2f}, 95 %)"
             note["text"] = text
             notes.append(note)
@@ -161,13 +173,19 @@ def grower_sentence(rows: list[dict[str, Any]], problem: Problem) -> str:
                 f"(rate factor {r['value']:.3f}; {ci})"
             )
         elif kind == "x":
-            parts.append(f"layer {obj} has composition {r['value']:.3f} against {r['nominal']:.3f} ({ci})")
+            parts.append(
+                f"layer {obj} has composition {r['value']:.3f} against {r['nominal']:.3f} ({ci})"
+            )
         else:
-            parts.append(f"layer {obj} is doped {r['value']:.2e} cm^-3 against {r['nominal']:.2e} ({ci})")
+            parts.append(
+                f"layer {obj} is doped {r['value']:.2e} cm^-3 against {r['nominal']:.2e} ({ci})"
+            )
     return "Off from the nominal stack: " + "; ".join(parts) + "."
 
 
-def calibration_record(problem: Problem, result: FitResult, *, command: dict[str, Any]) -> dict[str, Any]:
+def calibration_record(
+    problem: Problem, result: FitResult, *, command: dict[str, Any]
+) -> dict[str, Any]:
     """The calibration.json record (plain data)."""
     rows = _rows(problem, result)
     fine = []
@@ -176,7 +194,10 @@ def calibration_record(problem: Problem, result: FitResult, *, command: dict[str
         fine.append(np.linspace(lo, hi, 401))
     pred = problem.predict(result.dev[None, :])
     curves, table = [], []
-    fine_meas = [type(m)(m.source, v, np.ones(v.size), m.area_um2, m.temperature_k) for m, v in zip(problem.measurements, fine)]
+    fine_meas = [
+        type(m)(m.source, v, np.ones(v.size), m.area_um2, m.temperature_k)
+        for m, v in zip(problem.measurements, fine)
+    ]
     fine_problem = _with_measurements(problem, fine_meas)
     fine_pred = fine_problem.predict(result.dev[None, :])
     for meas, p, v, fp in zip(problem.measurements, pred, fine, fine_pred):
@@ -199,7 +220,11 @@ def calibration_record(problem: Problem, result: FitResult, *, command: dict[str
                 "fitted": figures_of_merit(v, fp[0]),
             }
         )
-    model = {r["name"]: r["value"] for r, p in zip(rows, problem.parameters) if p.kind in ("model", "resistance", "offset", "rate")}
+    model = {
+        r["name"]: r["value"]
+        for r, p in zip(rows, problem.parameters)
+        if p.kind in ("model", "resistance", "offset", "rate")
+    }
     return {
         "kind": "wellwright calibration",
         "stack": problem.source,
@@ -262,8 +287,12 @@ def calibrated_toml(problem: Problem, result: FitResult, *, note: str) -> str:
     if stack.device.area_um2 is not None:
         lines.append(f"area_um2 = {stack.device.area_um2:g}")
     if "series_resistance_ohm" in vals:
-        lines.append(f"# plus an area-independent {vals['series_resistance_ohm']:.4g} ohm (probes, lines)")
-    offsets = {p.layers: result.dev[j] for j, p in enumerate(problem.parameters) if p.kind == "offset"}
+        lines.append(
+            f"# plus an area-independent {vals['series_resistance_ohm']:.4g} ohm (probes, lines)"
+        )
+    offsets = {
+        p.layers: result.dev[j] for j, p in enumerate(problem.parameters) if p.kind == "offset"
+    }
     n = len(stack.layers)
     for i, layer in enumerate(stack.layers):
         lines += ["", "[[layers]]", f'name = "{layer.name}"']

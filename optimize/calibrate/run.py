@@ -42,7 +42,11 @@ def calibrate(
     measurements = [read_measured(p) for p in measured]
     problem = build_problem(data, measurements, source=str(stack_path), fit=fit)
     result = run_fit(problem, starts=starts, progress=progress)
-    command = {"stack": str(stack_path), "measured": [str(p) for p in measured], "fit": fit or "default"}
+    command = {
+        "stack": str(stack_path),
+        "measured": [str(p) for p in measured],
+        "fit": fit or "default",
+    }
     return problem, result, calibration_record(problem, result, command=command)
 
 
@@ -65,7 +69,15 @@ def write_outputs(out: str | Path, problem, result, record: dict[str, Any]) -> P
     for t in record["figures_of_merit"]:
         for key, short, unit, scale in FOM_KEYS:
             m, f = t["measured"][key], t["fitted"][key]
-            rows.append([Path(t["source"]).name, short, None if m is None else m * scale, None if f is None else f * scale, unit])
+            rows.append(
+                [
+                    Path(t["source"]).name,
+                    short,
+                    None if m is None else m * scale,
+                    None if f is None else f * scale,
+                    unit,
+                ]
+            )
     write_csv(out / "figures_of_merit.csv", header, rows)
     atomic_write_text(out / "calibration.html", page(record, rows, out / "overlay.png"))
     return out
@@ -88,10 +100,12 @@ def page(record: dict[str, Any], fom_rows: list[list[Any]], png: Path) -> str:
         f"<tr><td>{esc(str(r[0]))}</td><td>{esc(r[1])}</td><td>{num(r[2])}</td><td>{num(r[3])}</td><td>{esc(r[4])}</td></tr>"
         for r in fom_rows
     )
-    notes = "".join(f"<li>{esc(n['text'])}</li>" for n in record["identifiability"]) or "<li>none</li>"
+    notes = (
+        "".join(f"<li>{esc(n['text'])}</li>" for n in record["identifiability"]) or "<li>none</li>"
+    )
     res = record["residual"]
     return f"""<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8"><title>Calibration of {esc(record['stack'])}</title>
+<html lang="en"><head><meta charset="utf-8"><title>Calibration of {esc(record["stack"])}</title>
 <style>
 body {{ font-family: sans-serif; max-width: 1100px; margin: 2em auto; color: #222; }}
 table {{ border-collapse: collapse; margin: 0.5em 0 1.5em; }}
@@ -102,9 +116,9 @@ td:first-child, th:first-child {{ text-align: left; }}
 img {{ max-width: 100%; }}
 </style></head><body>
 <h1>Calibration against the measured I-V</h1>
-<p>Stack: {esc(record['stack'])}; measured: {esc(', '.join(record['measured']))}.</p>
+<p>Stack: {esc(record["stack"])}; measured: {esc(", ".join(record["measured"]))}.</p>
 <h2>For the grower</h2>
-<p class="grower">{esc(record['grower'])}</p>
+<p class="grower">{esc(record["grower"])}</p>
 <h2>Measured and fitted I-V</h2>
 <img alt="measured and fitted I-V" src="data:image/png;base64,{img}">
 <h2>Figures of merit</h2>
@@ -113,9 +127,9 @@ img {{ max-width: 100%; }}
 <table><tr><th>parameter</th><th>nominal</th><th>fitted</th><th>interval</th><th>unit</th></tr>{prows}</table>
 <h2>What the data cannot separate</h2><ul>{notes}</ul>
 <h2>Fit</h2>
-<p>{res['points']} points; scatter in ln current {res['scatter_ln_current']:.3f};
-chi-square per point {res['chi2_per_point']:.2f}. {esc(record['method']['loss'])}.
-Uncertainties: {esc(record['method']['uncertainty'])}. Multistart: {esc(record['method']['multistart'])}.</p>
+<p>{res["points"]} points; scatter in ln current {res["scatter_ln_current"]:.3f};
+chi-square per point {res["chi2_per_point"]:.2f}. {esc(record["method"]["loss"])}.
+Uncertainties: {esc(record["method"]["uncertainty"])}. Multistart: {esc(record["method"]["multistart"])}.</p>
 <p class="caution">{esc(CAUTION)}</p>
 </body></html>
 """

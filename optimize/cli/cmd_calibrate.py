@@ -28,7 +28,13 @@ def register(sub) -> None:
         help="parameter or group to fit (thickness, rate, x, doping, offset, model, resistance, "
         "default, or a name such as barrier1.thickness_ml); repeat; default: the default set",
     )  # fmt: skip
-    p.add_argument("--starts", type=int, default=2, metavar="K", help="local fits from the best K whole-monolayer starts (default 2)")
+    p.add_argument(
+        "--starts",
+        type=int,
+        default=2,
+        metavar="K",
+        help="local fits from the best K whole-monolayer starts (default 2)",
+    )
     p.add_argument("--out", metavar="DIR", help="output folder (default: <stack name>_calibration)")
     p.add_argument("--json", action="store_true", help="print the calibration record as JSON")
     p.set_defaults(func=run)
@@ -46,15 +52,21 @@ def run(args) -> int:
         if not args.json:
             print(f"  {msg}", file=sys.stderr, flush=True)
 
-    problem, result, record = calibrate(args.stack, args.measured, fit=args.fit, starts=args.starts, progress=say)
+    problem, result, record = calibrate(
+        args.stack, args.measured, fit=args.fit, starts=args.starts, progress=say
+    )
     write_outputs(out, problem, result, record)
     if args.json:
         json.dump(json_ready(record), sys.stdout, indent=2)
         print()
         return 0
-    print(f"{args.stack}: {len(problem.measurements)} measured sweep(s), {record['residual']['points']} points")
+    print(
+        f"{args.stack}: {len(problem.measurements)} measured sweep(s), {record['residual']['points']} points"
+    )
     for p in record["parameters"]:
-        print(f"  {p['name']:32s} {p['value']:12.5g}  ({p['ci_low']:.5g} to {p['ci_high']:.5g}) {p['unit']}   nominal {p['nominal']:.5g}")
+        print(
+            f"  {p['name']:32s} {p['value']:12.5g}  ({p['ci_low']:.5g} to {p['ci_high']:.5g}) {p['unit']}   nominal {p['nominal']:.5g}"
+        )
     for note in record["identifiability"]:
         print(f"  note: {note['text']}")
     print(f"  {record['grower']}")
