@@ -1,0 +1,46 @@
+"""Make the invented measured I-V ``inp_thz_wafer1_invented.csv`` (not a measurement).
+
+The "wafer" is ``inp_thz_oscillator.toml`` grown with known errors, computed
+by wellwright's own model: barrier1 one monolayer thick (6 ML for 5), the
+well one monolayer thin (14 ML for 15, as grown), the InGaAs source 2 %
+fast (spacers 2 % thick), a series resistance of 20 ohm um^2, on a
+25 um^2 mesa; 2 % log-normal noise on the current. ``wellwright calibrate
+studies/inp_thz_oscillator.toml --measured studies/inp_thz_wafer1_invented.csv``
+should bring these errors back. Rerun with ``python studies/make_invented_wafer1.py``.
+"""
+
+from pathlib import Path
+
+import numpy as np
+from wellwright.optimize.calibrate.synthetic import synthetic_measurement
+from wellwright.physics.stack import read_toml
+
+HERE = Path(__file__).resolve().parent
+TRUTH = {
+    "barrier1.thickness_ml": 6.0,
+    "well.thickness_ml": 14.0,
+    "InGaAs.rate": 1.02,
+    "series_resistance_ohm_um2": 20.0,
+}
+AREA_UM2 = 25.0
+SEED = 2026
+
+
+def main() -> None:
+    data = read_toml(HERE / "inp_thz_oscillator.toml")
+    m = synthetic_measurement(
+        data, TRUTH, np.linspace(0.0, 1.0, 61), area_um2=AREA_UM2, noise=0.02, seed=SEED
+    )
+    lines = [
+        "# INVENTED data, not a measurement: made by studies/make_invented_wafer1.py from",
+        "# inp_thz_oscillator.toml with known growth errors (see that script), 2 % noise.",
+        f"# area_um2 = {AREA_UM2:g}",
+        "bias_v,current_a",
+    ]
+    current_a = m.current_density_a_cm2 * AREA_UM2 * 1e-8
+    lines += [f"{v:.4f},{i:.6e}" for v, i in zip(m.bias_v, current_a)]
+    (HERE / "inp_thz_wafer1_invented.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+
+
+if __name__ == "__main__":
+    main()
