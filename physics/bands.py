@@ -102,8 +102,9 @@ class Profile:
     def n_slices(self) -> int:
         return self.layer_index.size
 
-    @property
+    @cached_property
     def batch_shape(self) -> tuple[int, ...]:
+        """The broadcast batch shape (computed once: the current asks for it often)."""
         return np.broadcast_shapes(
             self.edge_ev.shape[:-1], self.mass_m0.shape[:-1], self.width_nm.shape[:-1]
         )

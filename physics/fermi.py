@@ -112,6 +112,13 @@ def fermi_level_ev(doping_cm3, mass_m0, temperature_k):
     doping, mass, temperature = np.broadcast_arrays(
         *(np.asarray(a, float) for a in (doping_cm3, mass_m0, temperature_k))
     )
+    if doping.size <= _DIRECT_LOOKUPS:  # a sweep's few contacts: plain look-ups, no sorting
+        keys = list(
+            zip(doping.ravel().tolist(), mass.ravel().tolist(), temperature.ravel().tolist())
+        )
+        levels = [_FERMI_LEVELS.get(key) for key in keys]
+        if None not in levels:
+            return np.array(levels).reshape(doping.shape)
     keys = np.stack([doping.ravel(), mass.ravel(), temperature.ravel()], axis=-1)
     distinct, inverse = np.unique(keys, axis=0, return_inverse=True)
     found = [_FERMI_LEVELS.get(tuple(key)) for key in distinct.tolist()]
@@ -130,6 +137,8 @@ def fermi_level_ev(doping_cm3, mass_m0, temperature_k):
 #: Fermi levels already solved, keyed by (doping, mass, temperature).
 _FERMI_LEVELS: dict[tuple[float, float, float], float] = {}
 _FERMI_CACHE_SIZE = 65536
+#: Up to this many contacts are looked up one by one (faster than sorting out the distinct ones).
+_DIRECT_LOOKUPS = 256
 
 
 def joyce_dixon_reduced_fermi_level(density_ratio):
