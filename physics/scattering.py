@@ -137,7 +137,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import i0e
 
 from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR2_2M0_EV_NM2, VACUUM_PERMITTIVITY_F_M
@@ -267,6 +266,8 @@ def scattering_widths_ev(energy_ev, geo: _Geometry, edge, mass, kt_ev, params):
     kt = ex(kt_ev)
     lam, delta = params.roughness_length_nm, params.roughness_height_nm
     m_over_hbar2 = m_w / (2.0 * HBAR2_2M0_EV_NM2)  # m / hbar^2, 1/(eV nm^2)
+    from scipy.special import i0e  # here: a coherent sweep never loads scipy.special
+
     angle = i0e(m_over_hbar2 * kt * lam**2)
     gamma_ifr = np.pi * m_over_hbar2 * delta**2 * lam**2 * angle * 2.0 * (2.0 * e_w / w_eff) ** 2
     e_k = np.maximum(top1, 1e-3)
