@@ -5,11 +5,14 @@ that is followed by negative differential resistance (the current falls by
 more than ``NDR_DROP`` of the peak before rising above it again); the
 valley is the lowest current after it, before the current first exceeds
 the peak again or the sweep ends. Both are then located more finely than
-the sweep grid: nine extra biases across the neighbouring grid points
-(one batched call for peaks and valleys of every stack), then the current
-at the vertex of a parabola through the three best points (one more
-call); the better of that and the best sampled point is reported, so the
-figures of merit are always computed currents, never extrapolations.
+the sweep grid, so that they do not depend on it: nine extra biases across
+the neighbouring grid points (one batched call for peaks and valleys of
+every stack), then the current at the vertex of a parabola through the
+three best points (one more call), repeated on a bracket four times
+narrower until the vertex's current agrees with the parabola (a smooth top:
+one round; a peak at the edge of a current cliff: a few); the better of the
+vertex and the best sampled point is reported, so the figures of merit are
+always computed currents, never extrapolations.
 
 A valley that falls on the last point of the sweep is reported there; the
 true valley can only be lower, so the PVCR is then a lower bound.
@@ -174,33 +177,60 @@ def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndar
     return peak, valley
 
 
-def _refine(table, model, grid, center_v, half_span_v, sign, rounds=1, points=9):
+#: Peak and valley refinement: biases per round, most rounds, and when a round ends it: the
+#: current at the parabola's vertex within this fraction of the parabola's own value (the
+#: extremum is resolved), or the bias bracket narrower than this, V.
+REFINE_POINTS = 9
+REFINE_MAX_ROUNDS = 8
+REFINE_RELATIVE_TOLERANCE = 1e-3
+REFINE_BIAS_TOLERANCE_V = 2e-5
+
+
+def _refine(table, model, grid, center_v, half_span_v, sign):
     """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
 
-    ``rounds`` of ``points`` extra biases around each centre (one batched
-    sweep per round), then the vertex of a parabola through the best three
-    points, where the current is computed (one more batched call): the
-    parabola's own value would overshoot at a kink (a valley right after a
-    cliff can come out negative). The better of the vertex and the best
-    sampled point is returned, so the result is always a computed current.
+    Each round samples :data:`REFINE_POINTS` biases across ``center +- half``
+    (one batched call for every extremum still open), fits a parabola through
+    the best sample and its neighbours and computes the current at its vertex
+    (one more call). An extremum is resolved when that current agrees with
+    the parabola's value to :data:`REFINE_RELATIVE_TOLERANCE` (the top is
+    smooth on the sampled scale) or the bracket is below
+    :data:`REFINE_BIAS_TOLERANCE_V`; otherwise the next round zooms onto the
+    best point with the sample spacing as its half span. A peak on the edge
+    of a current cliff (self-consistent charge, narrow lines) therefore takes
+    a few rounds, a smooth one only one. The better of the vertex and the
+    best sample is kept, so the result is always a computed current, never
+    an extrapolation (a parabola overshoots at a kink). A best sample on the
+    bracket's edge moves the bracket without narrowing it.
     """
-    center = center_v.copy()
-    half = half_span_v.copy()
-    offsets = np.linspace(-1.0, 1.0, points)
-    rows = np.arange(center.size)
-    for _ in range(rounds):
-        v = center[:, None] + half[:, None] * offsets
-        j = sign[:, None] * current_at_bias(table, v, model=model, grid=grid)
-        best = np.argmax(j, axis=1)
-        pick = np.clip(best, 1, points - 2)[:, None] + np.array([-1, 0, 1])
+    center = np.array(center_v, float)
+    half = np.array(half_span_v, float)
+    best = np.full(center.size, -np.inf)
+    open_ = np.ones(center.size, bool)
+    offsets = np.linspace(-1.0, 1.0, REFINE_POINTS)
+    for _ in range(REFINE_MAX_ROUNDS):
+        idx = np.nonzero(open_)[0]
+        if idx.size == 0:
+            break
+        sub, sgn, rows = table.take(idx), sign[idx], np.arange(idx.size)
+        v = center[idx, None] + half[idx, None] * offsets
+        j = sgn[:, None] * current_at_bias(sub, v, model=model, grid=grid)
+        top = np.argmax(j, axis=1)
+        pick = np.clip(top, 1, REFINE_POINTS - 2)[:, None] + np.array([-1, 0, 1])
         x3 = v[rows[:, None], pick]
-        vertex = x3[:, 1] + parabola_through(x3, -j[rows[:, None], pick])[0]
-        j_vertex = sign * current_at_bias(table, vertex[:, None], model=model, grid=grid)[:, 0]
-        better = j_vertex >= j[rows, best]
-        center = np.where(better, vertex, v[rows, best])
-        y = np.where(better, j_vertex, j[rows, best])
-        half = half * 2.0 / (points - 1)
-    return center, sign * y
+        offset, curvature, lowest = parabola_through(x3, -j[rows[:, None], pick])
+        vertex = x3[:, 1] + offset
+        j_vertex = sgn * current_at_bias(sub, vertex[:, None], model=model, grid=grid)[:, 0]
+        better = j_vertex >= j[rows, top]
+        center[idx] = np.where(better, vertex, v[rows, top])
+        best[idx] = np.maximum(j_vertex, j[rows, top])
+        edge = (top == 0) | (top == REFINE_POINTS - 1)
+        half[idx] = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
+        smooth = (curvature > 0) & (
+            np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(best[idx])
+        )
+        open_[idx] = ~((smooth & ~edge) | (half[idx] < REFINE_BIAS_TOLERANCE_V))
+    return center, sign * best
 
 
 def sweep(
