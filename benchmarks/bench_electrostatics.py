@@ -7,7 +7,8 @@ with both (the default model), measured side by side in one run, and their
 ratios to the linear coherent one. Also the same with scattering broadening
 (3 meV), and an up/down hysteresis sweep. Targets: self-consistent < 10
 (issue 7); the default model (self-consistent with the scattering-assisted
-channel) at most 10 (issue 12).
+channel) at most 10 (issue 12). Then the cost of the peak and valley refinement (issue
+12): no refinement, the former single round, and the zoom until the extremum is resolved.
 
 Run: ``python benchmarks/bench_electrostatics.py [--quick]``.
 """
@@ -24,6 +25,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
 from timing import median_time  # noqa: E402
+from wellwright.physics import iv  # noqa: E402
 from wellwright.physics.iv import (
     sweep,  # noqa: E402
     sweep_hysteresis,  # noqa: E402
@@ -66,6 +68,32 @@ def main() -> None:
         ratio = results[name] / results["linear"]
         print(f"ratio {name} / linear coherent: {ratio:.2f} ({target})")
     sc = replace(assisted, electrostatics="self-consistent")
+    print("cost of the peak/valley refinement (issue 12), same 61-point I-V:")
+    for name, model in (
+        ("linear coherent", replace(coherent, electrostatics="linear")),
+        ("self-consistent coherent", replace(coherent, electrostatics="self-consistent")),
+        ("default", sc),
+    ):
+        times = {}
+        for label, refine, rounds in (
+            ("no refinement", False, iv.REFINE_MAX_ROUNDS),
+            ("one round (before)", True, 1),
+            ("zoom until resolved", True, iv.REFINE_MAX_ROUNDS),
+        ):
+            saved, iv.REFINE_MAX_ROUNDS = iv.REFINE_MAX_ROUNDS, rounds
+            try:
+                times[label] = median_time(
+                    lambda m=model, r=refine: sweep(table, bias, model=m, refine=r),
+                    repeats,
+                    warmup=True,
+                )
+            finally:
+                iv.REFINE_MAX_ROUNDS = saved
+        base = times["no refinement"]
+        print(
+            f"  {name:24s} "
+            + ", ".join(f"{k} {1e3 * t:.1f} ms ({t / base:.2f}x)" for k, t in times.items())
+        )
     t_h = median_time(
         lambda: sweep_hysteresis(table, bias, model=sc), max(1, repeats // 3), warmup=True
     )

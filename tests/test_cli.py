@@ -243,3 +243,20 @@ def test_every_subcommand_has_help(capsys) -> None:
 def test_console_script_help(tmp_path) -> None:
     result = _run(["--help"], cwd=tmp_path)
     assert result.returncode == 0 and "iv" in result.stdout
+
+
+def test_iv_nonconvergence_one_line_exit_2(tmp_path, monkeypatch, capsys) -> None:
+    # issue 12: a self-consistent solve that does not converge is one line and exit 2, never a
+    # traceback, and nothing is written (the failure is invented by a stand-in)
+    import wellwright.optimize.cli.cmd_iv as cmd_iv
+    from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
+
+    def fails(*args, **kwargs):
+        raise ElectrostaticsConvergenceError("well-charge iteration did not converge in 60 steps")
+
+    monkeypatch.setattr(cmd_iv, "stack_iv", fails)
+    out = tmp_path / "out"
+    assert main(["iv", str(STUDY), "--out", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "did not converge" in err[0] and err[0].startswith("wellwright iv:")
+    assert not out.exists()

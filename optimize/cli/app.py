@@ -3,7 +3,9 @@
 Each subcommand lives in its own module exposing ``register(subparsers)``,
 which adds its parser and sets ``func`` to a function ``(args) -> int``.
 Bad input (:class:`wellwright.physics.errors.InputError`) becomes one line on stderr
-and exit status 2; nothing is written.
+and exit status 2; nothing is written. So does a self-consistent solve that does not
+converge in a command that computes one stack (``iv``); the stages of many samples
+(``search``, ``tolerance``, ``run``) count such a sample as failed instead.
 """
 
 from __future__ import annotations
@@ -13,6 +15,7 @@ import importlib
 import os
 import sys
 
+from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 from wellwright.physics.errors import InputError
 
 #: Modules that register a subcommand, in the order ``--help`` lists them.
@@ -92,6 +95,14 @@ def main(argv: list[str] | None = None) -> int:
         return int(args.func(args) or 0)
     except InputError as exc:
         print(f"wellwright {args.command}: {exc.one_line()}", file=sys.stderr)
+        return 2
+    except ElectrostaticsConvergenceError as exc:
+        print(
+            f"wellwright {args.command}: the self-consistent electrostatics did not converge "
+            f"({exc}); nothing written. The linear bias model "
+            '([model] electrostatics = "linear") or another bias range avoids it',
+            file=sys.stderr,
+        )
         return 2
     except KeyboardInterrupt:
         print(f"wellwright {args.command}: interrupted; finished work is kept", file=sys.stderr)

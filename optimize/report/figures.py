@@ -90,7 +90,11 @@ def ranking_rows(record: dict[str, Any]) -> tuple[str, str, list[dict[str, Any]]
     pass/fail, the peak current density, the peak voltage; Sobol total
     indices, else Morris mu*; empty for a Monte Carlo run.
     """
-    fails = {k: v for k, v in (record.get("failures") or {}).items() if k != "no_ndr" and v}
+    fails = {
+        k: v
+        for k, v in (record.get("failures") or {}).items()
+        if k not in ("no_ndr", "solve_failed") and v
+    }
     first = sorted(fails, key=lambda k: -fails[k])[:1]
     for method, table, score in (
         ("sobol", record.get("sobol") or {}, "total_index"),

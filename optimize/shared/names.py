@@ -89,6 +89,7 @@ QUANTITIES: dict[str, Quantity] = {
     "rf_power_uw": Quantity("oscillator output power", "µW", 1.0, ".3g"),
     # reasons a sample fails
     "no_ndr": Quantity("no NDR in the sweep"),
+    "solve_failed": Quantity("self-consistent solve did not converge"),
     "pass": Quantity("pass or fail"),
 }
 

@@ -30,6 +30,7 @@ from typing import Any
 import numpy as np
 from wellwright.optimize.study.growth import GrowthModel, as_generator
 from wellwright.optimize.study.targets import Spec  # re-exported: the pass/fail form of [targets]
+from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 from wellwright.physics.iv import METRIC_NAMES, sweep
 from wellwright.physics.stack import LayerTable, ModelOptions, Stack
 
@@ -84,10 +85,31 @@ def wilson_interval(successes: int, n: int, *, confidence: float = 0.95) -> tupl
 # --------------------------------------------------------------------------- evaluation
 
 
+#: Key of the per-sample flag (1.0 or 0.0) of a self-consistent solve that did not converge.
+SOLVE_FAILED = "solve_failed"
+
+
 def _metrics_batch(
     table: LayerTable, bias_v: np.ndarray, model: ModelOptions, resistance_ohm_um2: float
 ) -> dict[str, np.ndarray]:
-    return sweep(table, bias_v, model=model, series_resistance_ohm_um2=resistance_ohm_um2).metrics
+    """Metrics of a batch; where the self-consistent solve fails, each stack alone, and a
+    stack that still fails gets NaN metrics and :data:`SOLVE_FAILED` set (a failed sample,
+    counted, never the end of the run)."""
+    try:
+        metrics = dict(
+            sweep(table, bias_v, model=model, series_resistance_ohm_um2=resistance_ohm_um2).metrics
+        )
+        metrics[SOLVE_FAILED] = np.zeros(table.n_stacks)
+        return metrics
+    except ElectrostaticsConvergenceError:
+        if table.n_stacks == 1:
+            nan = {name: np.full(1, np.nan) for name in METRIC_NAMES}
+            return {**nan, SOLVE_FAILED: np.ones(1)}
+    parts = [
+        _metrics_batch(table.take(slice(i, i + 1)), bias_v, model, resistance_ohm_um2)
+        for i in range(table.n_stacks)
+    ]
+    return {k: np.concatenate([p[k] for p in parts]) for k in (*METRIC_NAMES, SOLVE_FAILED)}
 
 
 def evaluate_metrics(
@@ -131,7 +153,8 @@ def evaluate_metrics(
     if bar is not None:
         bar.close()
     return {
-        k: np.concatenate([p[k] for p in parts]) if parts else np.zeros(0) for k in METRIC_NAMES
+        k: np.concatenate([p[k] for p in parts]) if parts else np.zeros(0)
+        for k in (*METRIC_NAMES, SOLVE_FAILED)
     }
 
 
@@ -190,7 +213,8 @@ def monte_carlo_yield(
     """Monte Carlo yield with the Wilson interval and the failure breakdown.
 
     Returns ``yield`` (see :func:`yield_record`), ``failures`` (per window:
-    samples missing it; ``no_ndr``: samples with no NDR in the sweep),
+    samples missing it; ``no_ndr``: samples with no NDR in the sweep;
+    ``solve_failed``: samples whose self-consistent solve did not converge, failed),
     ``metrics`` (arrays), ``passed`` (bool array), ``z`` and ``island_u`` (the
     random numbers, reused as common random numbers by the allocation).
     """
@@ -200,7 +224,11 @@ def monte_carlo_yield(
     metrics = run(model.as_grown(z, island_u=u), desc="Monte Carlo")
     ok = spec.passes(metrics)
     failures = {name: int(np.count_nonzero(m)) for name, m in spec.misses(metrics).items()}
-    failures["no_ndr"] = int(np.count_nonzero(~np.isfinite(metrics["peak_current_density_a_cm2"])))
+    failed = np.asarray(metrics.get(SOLVE_FAILED, np.zeros(samples))) > 0
+    failures["no_ndr"] = int(
+        np.count_nonzero(~np.isfinite(metrics["peak_current_density_a_cm2"]) & ~failed)
+    )
+    failures[SOLVE_FAILED] = int(np.count_nonzero(failed))
     return {
         "yield": yield_record(ok),
         "failures": failures,
@@ -339,7 +367,9 @@ def sobol_analysis(
     for name, y in outputs.items():
         bad = int(np.count_nonzero(~np.isfinite(y)))
         if bad:
-            notes.append(f"sobol of {name} skipped: no NDR in {bad} of {y.size} samples")
+            unsolved = int(np.count_nonzero(metrics.get(SOLVE_FAILED, 0.0)))
+            why = f" ({unsolved} of them: solve did not converge)" if unsolved else ""
+            notes.append(f"sobol of {name} skipped: no NDR in {bad} of {y.size} samples{why}")
             continue
         if second_order:
             pairs[name] = []
@@ -380,7 +410,8 @@ def morris_analysis(
     metrics = run(model.as_grown(z, islands="nearest"), desc="Morris")
     out: dict[str, list] = {}
     notes = []
-    outputs = {**metrics, "pass": spec.passes(metrics).astype(float)}
+    outputs = {name: metrics[name] for name in METRIC_NAMES}
+    outputs["pass"] = spec.passes(metrics).astype(float)
     for name, y in outputs.items():
         if not np.all(np.isfinite(y)):
             notes.append(f"morris of {name} skipped: no NDR in some samples")
