@@ -83,6 +83,7 @@ __all__ = [
     "solve_poisson_1d",
     "extended_slice_grid",
     "solve_stack_poisson",
+    "solve_by_continuation",
     "self_consistent_profile",
     "well_sheet_density_cm2",
 ]
@@ -172,6 +173,7 @@ def solve_poisson_1d(
     tolerance_ev: float = 1e-7,
     max_iterations: int = 60,
     fixed_electron_cm3: np.ndarray | float = 0.0,
+    max_step_ev: float = MAX_STEP_EV,
 ) -> PoissonSolution:
     """Solve ``d/dx(eps dU/dx) = q (N_D - n(U))`` on cells by damped Newton ([1]_).
 
@@ -192,6 +194,8 @@ def solve_poisson_1d(
         Start of the iteration (its end values are replaced by the boundary values).
     fixed_electron_cm3
         Extra electron density that does not depend on ``U`` (the well charge).
+    max_step_ev
+        Damping: no node moves by more than this in one Newton step, eV.
 
     Raises
     ------
@@ -254,7 +258,7 @@ def solve_poisson_1d(
         step = solve_banded((1, 1), ab_long, -residual.reshape(-1), check_finite=False)
         step = step.reshape(batch + (n_nodes - 2,))
         biggest = np.max(np.abs(step), axis=-1, keepdims=True)
-        scale = np.minimum(1.0, MAX_STEP_EV / np.maximum(biggest, 1e-300))
+        scale = np.minimum(1.0, max_step_ev / np.maximum(biggest, 1e-300))
         u[..., 1:-1] += scale * step
         worst = float(np.max(biggest)) if biggest.size else 0.0
         if not np.isfinite(worst):
@@ -351,6 +355,7 @@ def solve_stack_poisson(
     well_charge: bool = True,
     initial_well_cm2: np.ndarray | None = None,
     max_well_iterations: int = 60,
+    max_step_ev: float = MAX_STEP_EV,
 ) -> tuple[SliceGrid, PoissonSolution]:
     """Self-consistent potential of each stack at each bias.
 
@@ -371,6 +376,8 @@ def solve_stack_poisson(
         after ``max_well_iterations``.
     initial_well_cm2
         Start of the well sheet density ``(n_stacks, n_biases)``, cm^-2.
+    max_step_ev
+        Damping of the Poisson-Newton steps (see :func:`solve_poisson_1d`).
 
     Returns
     -------
@@ -426,6 +433,7 @@ def solve_stack_poisson(
             tolerance_ev=tolerance_ev,
             max_iterations=max_iterations,
             fixed_electron_cm3=fixed,
+            max_step_ev=max_step_ev,
         )
 
     well = (
@@ -602,9 +610,96 @@ def self_consistent_profile(
 
     Same contract as :func:`physics.bands.linear_profile` (batch shape
     ``(n_stacks, n_biases)``); the profile also contains the contact regions
-    as slices. ``options`` go to :func:`solve_stack_poisson`.
+    as slices. ``options`` go to :func:`solve_stack_poisson`. Where the
+    solve of all biases at once from the linear drop does not converge, the
+    biases are solved again by continuation (:func:`solve_by_continuation`).
     """
-    grid, solution = solve_stack_poisson(
-        table, bias_v, slice_nm=slice_nm, initial_ev=initial_ev, **options
-    )
+    try:
+        grid, solution = solve_stack_poisson(
+            table, bias_v, slice_nm=slice_nm, initial_ev=initial_ev, **options
+        )
+    except ElectrostaticsConvergenceError:
+        grid, solution = solve_by_continuation(table, bias_v, slice_nm=slice_nm, **options)
     return profile_from_potential(table, grid, solution.potential_ev)
+
+
+#: Continuation: damping and iteration limits relative to the defaults, and how many times
+#: a failed bias step is halved.
+CONTINUATION_DAMPING = 0.25
+CONTINUATION_ITERATIONS = 3
+CONTINUATION_HALVINGS = 4
+
+
+def solve_by_continuation(
+    table: LayerTable, bias_v: np.ndarray, **options
+) -> tuple[SliceGrid, PoissonSolution]:
+    """Solve bias by bias, each from the previous bias's potential and well charge.
+
+    The columns of ``bias_v`` (``(n_biases,)`` or ``(n_stacks, n_biases)``)
+    are solved in order of increasing mean ``|V|``, starting from zero bias,
+    each from the last converged solution (continuation in bias), with :data:`CONTINUATION_DAMPING` times the Newton step limit and
+    :data:`CONTINUATION_ITERATIONS` times the iteration limits. A step that
+    still fails is split into halves, up to :data:`CONTINUATION_HALVINGS`
+    times (intermediate biases whose solutions only serve as starts). Every
+    stack of the batch takes each step together. Costs one solve per bias
+    (sequential), so it is the fallback, not the default.
+
+    Raises
+    ------
+    ElectrostaticsConvergenceError
+        When a step fails even after the halvings, naming the bias.
+    """
+    n_stacks = table.n_stacks
+    bias = np.asarray(bias_v, float)
+    bias = np.broadcast_to(
+        bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :],
+        (n_stacks, np.atleast_1d(bias).shape[-1]),
+    )
+    opts = dict(options)
+    for key in ("initial_ev", "initial_well_cm2"):
+        opts.pop(key, None)
+    opts["max_step_ev"] = CONTINUATION_DAMPING * opts.get("max_step_ev", MAX_STEP_EV)
+    opts["max_iterations"] = CONTINUATION_ITERATIONS * opts.get("max_iterations", 60)
+    opts["max_well_iterations"] = CONTINUATION_ITERATIONS * opts.get("max_well_iterations", 60)
+
+    def solve(v, start):
+        if start is None:
+            return solve_stack_poisson(table, v[:, None], **opts)
+        return solve_stack_poisson(
+            table,
+            v[:, None],
+            initial_ev=start[1].potential_ev,
+            initial_well_cm2=start[1].well_sheet_cm2,
+            **opts,
+        )
+
+    order = np.argsort(np.mean(np.abs(bias), axis=0), kind="stable")
+    done: dict[int, tuple[SliceGrid, PoissonSolution]] = {}
+    last_v = np.zeros(n_stacks)  # the chain starts at zero bias (flat bands: an easy solve)
+    last = solve(last_v, None)
+    for k in order:
+        target = bias[:, k]
+        steps = 1
+        while True:
+            try:
+                start = last
+                for f in np.arange(1, steps + 1) / steps:
+                    start = solve(last_v + f * (target - last_v), start)
+                break
+            except ElectrostaticsConvergenceError:
+                if steps >= 2**CONTINUATION_HALVINGS:
+                    raise ElectrostaticsConvergenceError(
+                        f"self-consistent solve did not converge at {float(target[0]):.4g} V "
+                        f"even by continuation in bias ({steps} steps from the last converged bias)"
+                    ) from None
+                steps *= 2
+        done[int(k)] = start
+        last, last_v = start, target
+    grid = done[int(order[0])][0]
+    cols = [done[k][1] for k in range(bias.shape[1])]
+    return grid, PoissonSolution(
+        potential_ev=np.concatenate([c.potential_ev for c in cols], axis=1),
+        electron_cm3=np.concatenate([c.electron_cm3 for c in cols], axis=1),
+        iterations=sum(c.iterations for c in cols),
+        well_sheet_cm2=np.concatenate([c.well_sheet_cm2 for c in cols], axis=1),
+    )
