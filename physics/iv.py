@@ -20,7 +20,7 @@ true valley can only be lower, so the PVCR is then a lower bound.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -58,6 +58,15 @@ METRIC_NAMES = (
 )
 #: Smallest relative current drop after a maximum that counts as NDR.
 NDR_DROP = 0.02
+#: Extra metrics of the up sweep (self-consistent model, forward bias): its peak, and the
+#: width of the bias window above the peak where the I-V is bistable (0 where it is not).
+BISTABILITY_NAMES = ("peak_current_density_up_a_cm2", "peak_voltage_up_v", "bistable_window_v")
+#: The current continued from the peak counts as another branch when it exceeds the
+#: single-solve current by this fraction; the fold closing the window is found to this bias.
+BISTABLE_EXCESS = 0.01
+FOLD_FIRST_STEP_V = 2e-3
+FOLD_TOLERANCE_V = 2e-4
+FOLD_STEPS = 12
 
 
 @dataclass(frozen=True)
@@ -123,7 +132,11 @@ def current_at_bias(
     "scattering-assisted"``, the scattering-assisted channel
     (:mod:`physics.scattering`) are applied in the kernel.
     """
-    profile = band_profile(table, bias_v, model=model)
+    return _current_of_profile(band_profile(table, bias_v, model=model), table, bias_v, model, grid)
+
+
+def _current_of_profile(profile, table, bias_v, model, grid) -> np.ndarray:
+    """The transport step shared by every caller: current of given profiles, A/cm^2."""
     return current_density_a_cm2(
         profile,
         table=table,
@@ -206,6 +219,7 @@ def _refine(table, model, grid, center_v, half_span_v, sign):
     center = np.array(center_v, float)
     half = np.array(half_span_v, float)
     best = np.full(center.size, -np.inf)
+    drop_v, drop_j = np.full(center.size, np.inf), np.full(center.size, np.nan)
     open_ = np.ones(center.size, bool)
     offsets = np.linspace(-1.0, 1.0, REFINE_POINTS)
     for _ in range(REFINE_MAX_ROUNDS):
@@ -224,13 +238,89 @@ def _refine(table, model, grid, center_v, half_span_v, sign):
         better = j_vertex >= j[rows, top]
         center[idx] = np.where(better, vertex, v[rows, top])
         best[idx] = np.maximum(j_vertex, j[rows, top])
+        # the nearest sample above the extremum that lies NDR_DROP below it (used for peaks)
+        fallen = (v > center[idx, None]) & (
+            j < best[idx, None] - NDR_DROP * np.abs(best[idx, None])
+        )
+        first = np.argmax(fallen, axis=1)
+        v_fall = np.where(fallen.any(axis=1), v[rows, first], np.inf)
+        nearer = v_fall < drop_v[idx]
+        drop_v[idx] = np.where(nearer, v_fall, drop_v[idx])
+        drop_j[idx] = np.where(nearer, sgn * j[rows, first], drop_j[idx])
         edge = (top == 0) | (top == REFINE_POINTS - 1)
         half[idx] = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
         smooth = (curvature > 0) & (
             np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(best[idx])
         )
         open_[idx] = ~((smooth & ~edge) | (half[idx] < REFINE_BIAS_TOLERANCE_V))
-    return center, sign * best
+    return center, sign * best, drop_v, drop_j
+
+
+def _up_branch(table, model, grid, vp, v_after, j_after, v_end):
+    """Where the self-consistent I-V is bistable above its peak: the up sweep's branch.
+
+    Every bias of a sweep is solved from the linear drop with no well charge,
+    which lands on the low-charge branch where two solutions exist. The up
+    sweep (a curve tracer going up) instead carries the well charge past the
+    peak. This solves the peak bias ``vp``, continues that solution to
+    ``v_after`` (the nearest refinement sample above the peak that had
+    fallen by :data:`NDR_DROP`, current ``j_after``) and, where the continued
+    current exceeds ``j_after`` by :data:`BISTABLE_EXCESS`, follows the
+    charged branch upwards (steps doubled while it holds, halved when the
+    current falls off it, from :data:`FOLD_FIRST_STEP_V` to :data:`FOLD_TOLERANCE_V`, at most
+    :data:`FOLD_STEPS` solves; not beyond ``v_end``, the valley), as
+    :func:`sweep_hysteresis` does on a grid. Every stack of the batch takes
+    each step; stacks already settled repeat their last bias.
+
+    Returns the up sweep's peak bias and current, and the window (last bias
+    on the charged branch minus ``vp``; 0 where the I-V is single-valued).
+    The down branch is taken to be the single-solve one (checked against
+    :func:`sweep_hysteresis` on the InP example stack: the down sweep follows
+    the single solves there).
+    """
+    from .electrostatics import ElectrostaticsConvergenceError
+
+    options = {"slice_nm": model.slice_nm}
+    g, sol = solve_stack_poisson(table, vp[:, None], **options)
+
+    def continued(v, state):
+        g_, s_ = solve_stack_poisson(
+            table,
+            v[:, None],
+            initial_ev=state.potential_ev,
+            initial_well_cm2=state.well_sheet_cm2,
+            **options,
+        )
+        return s_, _current_of_profile(
+            profile_from_potential(table, g_, s_.potential_ev), table, v[:, None], model, grid
+        )[:, 0]
+
+    state, j_hi = continued(v_after, sol)
+    bistable = j_hi > (1.0 + BISTABLE_EXCESS) * j_after
+    best_v, best_j = np.where(bistable, v_after, vp), np.where(bistable, j_hi, -np.inf)
+    v_hi, step = v_after.copy(), np.maximum(v_after - vp, FOLD_FIRST_STEP_V)
+    active, fell = bistable.copy(), np.zeros(bistable.shape, bool)
+    for _ in range(FOLD_STEPS):
+        if not np.any(active):
+            break
+        v_try = np.where(active, np.minimum(v_hi + step, v_end), v_hi)
+        try:
+            trial, j_try = continued(v_try, state)
+        except ElectrostaticsConvergenceError:
+            break  # keep the branch found so far
+        hold = active & (j_try >= (1.0 - NDR_DROP) * j_hi)  # still on the charged branch
+        state = replace(
+            state,
+            potential_ev=np.where(hold[:, None, None], trial.potential_ev, state.potential_ev),
+            well_sheet_cm2=np.where(hold[:, None], trial.well_sheet_cm2, state.well_sheet_cm2),
+        )
+        v_hi, j_hi = np.where(hold, v_try, v_hi), np.where(hold, j_try, j_hi)
+        higher = hold & (j_try > best_j)
+        best_v, best_j = np.where(higher, v_try, best_v), np.where(higher, j_try, best_j)
+        fell |= active & ~hold
+        step = np.where(hold, 2.0 * step, 0.5 * step)
+        active &= ~(fell & (step < FOLD_TOLERANCE_V)) & ~(hold & (v_try >= v_end))
+    return best_v, best_j, np.where(bistable, v_hi - vp, 0.0)
 
 
 def sweep(
@@ -290,7 +380,7 @@ def sweep(
         sub = table.take(rows)
         n = rows.size
         extremum = np.concatenate([np.ones(n), -np.ones(n)])  # maximise J at peaks, -J at valleys
-        c, y = _refine(
+        c, y, after_v, after_j = _refine(
             LayerTable.concatenate([sub, sub]),
             model,
             grid,
@@ -321,6 +411,24 @@ def sweep(
             series_resistance_ohm_um2=series_resistance_ohm_um2,
         )
     )
+    for name in BISTABILITY_NAMES:
+        metrics[name] = np.full(table.n_stacks, np.nan)
+    vp_up, jp_up, window = vp, jp, np.zeros(rows.size)
+    if refine and model.electrostatics == "self-consistent" and sign > 0:
+        after = np.isfinite(after_v[: rows.size]) & (after_v[: rows.size] < vv)
+        if np.any(after):
+            k = np.nonzero(after)[0]
+            up_v, up_j, fold = _up_branch(
+                table.take(rows[k]), model, grid, vp[k], after_v[k], after_j[k], vv[k]
+            )
+            vp_up, jp_up, window = vp.copy(), jp.copy(), window.copy()
+            better = up_j > jp[k]
+            vp_up[k] = np.where(better, up_v, vp[k])
+            jp_up[k] = np.where(better, up_j, jp[k])
+            window[k] = fold
+    metrics["peak_current_density_up_a_cm2"][rows] = jp_up
+    metrics["peak_voltage_up_v"][rows] = vp_up
+    metrics["bistable_window_v"][rows] = window
     return IVCurves(bias, j, metrics)
 
 
@@ -387,14 +495,5 @@ def sweep_hysteresis(
             previous, previous_well = sol.potential_ev, sol.well_sheet_cm2
             potentials[i] = sol.potential_ev
         profile = profile_from_potential(table, g, np.concatenate(potentials, axis=1))
-        branches.append(
-            current_density_a_cm2(
-                profile,
-                table=table,
-                bias_v=np.broadcast_to(bias, (table.n_stacks, bias.size)),
-                grid=grid,
-                broadening_ev=1e-3 * model.broadening_mev,
-                scattering=scattering_parameters(model),
-            )
-        )
+        branches.append(_current_of_profile(profile, table, bias, model, grid))
     return HysteresisCurves(bias, branches[0], branches[1])

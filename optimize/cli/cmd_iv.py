@@ -122,5 +122,12 @@ def run(args) -> int:
             print("  first NDR peak and its valley:")
             for key in METRIC_NAMES:
                 print(f"  {names.words(key):<38} {names.format_value(key, m[key], with_unit=True)}")
+            if (m.get("bistable_window_v") or 0.0) > 0.0:
+                print(
+                    f"  bistable: the up sweep stays on the charged branch for "
+                    f"{m['bistable_window_v'] * 1e3:.1f} mV above the peak, to "
+                    f"{m['peak_current_density_up_a_cm2'] / 1e3:.2f} kA/cm² at "
+                    f"{m['peak_voltage_up_v'] * 1e3:.0f} mV (the curve is the down sweep's branch)"
+                )
         print(f"  results in {out}/")
     return 0

@@ -85,6 +85,17 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
                 mew=2,
                 label=name,
             )
+        if (m.get("bistable_window_v") or 0.0) > 0.0:
+            ax.plot(
+                m["peak_voltage_up_v"],
+                m["peak_current_density_up_a_cm2"] / 1e3,
+                "^",
+                ms=9,
+                mfc="none",
+                mec=PALETTE["purple"],
+                mew=2,
+                label="up-sweep peak (bistable)",
+            )
         pvcr = (
             f"PVCR = {m['pvcr']:.1f}"
             if m["pvcr"] is not None
@@ -93,7 +104,8 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
         ax.annotate(
             f"$J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['peak_voltage_v'] * 1e3:.0f} mV\n"
             f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['valley_voltage_v'] * 1e3:.0f} mV\n"
-            + pvcr,
+            + pvcr
+            + _bistable_note(m),
             xy=(0.03, 0.97),
             xycoords="axes fraction",
             va="top",
@@ -105,12 +117,24 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
     ax.set_xlabel("bias (V)")
     ax.set_ylabel("current density (kA/cm$^2$)")
     top = float(np.nanmax(j)) if np.isfinite(j).any() else 1.0
-    ax.set_ylim(
-        min(0.0, float(np.nanmin(j)) * 1.1), top * 1.45 if top > 0 else 1.0
-    )  # room for the box
-    ax.legend(loc="upper right")
+    bistable = (m.get("bistable_window_v") or 0.0) > 0.0
+    if bistable:  # the up-sweep peak lies above the curve
+        top = max(top, m["peak_current_density_up_a_cm2"] / 1e3)
+    room = 1.65 if bistable else 1.45  # room for the box (one line more when bistable)
+    ax.set_ylim(min(0.0, float(np.nanmin(j)) * 1.1), top * room if top > 0 else 1.0)
+    ax.legend(loc="upper right", fontsize=9)  # box and legend share the headroom above the curve
     ax.set_title(title or "I-V")
     return fig
+
+
+def _bistable_note(m: dict) -> str:
+    """A line for the I-V box where the self-consistent I-V is bistable above the peak."""
+    if not (m.get("bistable_window_v") or 0.0) > 0.0:
+        return ""
+    return (
+        f"\nbistable {m['bistable_window_v'] * 1e3:.0f} mV, up sweep "
+        f"{m['peak_current_density_up_a_cm2'] / 1e3:.3g} kA/cm$^2$"
+    )
 
 
 def _layer_spans(profile) -> list[tuple[float, float, int]]:

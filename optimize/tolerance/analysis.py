@@ -96,11 +96,10 @@ def _metrics_batch(
     stack that still fails gets NaN metrics and :data:`SOLVE_FAILED` set (a failed sample,
     counted, never the end of the run)."""
     try:
-        metrics = dict(
-            sweep(table, bias_v, model=model, series_resistance_ohm_um2=resistance_ohm_um2).metrics
-        )
-        metrics[SOLVE_FAILED] = np.zeros(table.n_stacks)
-        return metrics
+        metrics = sweep(
+            table, bias_v, model=model, series_resistance_ohm_um2=resistance_ohm_um2
+        ).metrics
+        return {**{k: metrics[k] for k in METRIC_NAMES}, SOLVE_FAILED: np.zeros(table.n_stacks)}
     except ElectrostaticsConvergenceError:
         if table.n_stacks == 1:
             nan = {name: np.full(1, np.nan) for name in METRIC_NAMES}
