@@ -287,3 +287,58 @@ def test_command_writes_record_stack_and_page(tmp_path, capsys):
         main(["iv", str(out / "calibrated.toml"), "--out", str(tmp_path / "iv"), "--no-figures"])
         == 0
     )
+
+
+# --------------------------------------------------------------------------- carried forward
+
+
+def _linked_study(tmp_path, model):
+    from wellwright.optimize.study.study import load_study
+
+    (tmp_path / "cal").mkdir()
+    record = {"kind": "wellwright calibration", "model": model}
+    (tmp_path / "cal" / "calibration.json").write_text(json.dumps(record))
+    text = (REPO / "studies" / "inp_thz_search.toml").read_text()
+    text += '\n[calibration]\nfrom = "cal/calibration.json"\n'
+    (tmp_path / "study.toml").write_text(text)
+    return load_study(tmp_path / "study.toml")
+
+
+def test_study_uses_the_linked_calibration(tmp_path):
+    from wellwright.optimize.study.study import load_study
+
+    model = {
+        "AlAs.offset_ev": 0.05,
+        "InGaAs.rate": 1.02,
+        "series_resistance_ohm_um2": 20.0,
+        "broadening_mev": 1.5,
+    }
+    linked = _linked_study(tmp_path, model)
+    plain = load_study(REPO / "studies" / "inp_thz_search.toml")
+    params = {"barrier1.thickness_ml": 5, "well.thickness_ml": 15}
+    a, b = linked.stack(params), plain.stack(params)
+    layer = {lay.name: lay for lay in a.layers}
+    nominal = {lay.name: lay for lay in b.layers}
+    assert layer["barrier1"].conduction_band_ev == pytest.approx(
+        nominal["barrier1"].conduction_band_ev + 0.05
+    )
+    assert layer["well"].thickness_nm == pytest.approx(nominal["well"].thickness_nm * 1.02)
+    assert layer["emitter_spacer"].thickness_nm == pytest.approx(2.0 * 1.02)
+    assert layer["barrier1"].thickness_nm == pytest.approx(nominal["barrier1"].thickness_nm)
+    assert a.model.broadening_mev == 1.5 and a.device.series_resistance_ohm_um2 == 20.0
+    assert linked.fingerprint() != plain.fingerprint()  # a new calibration redoes the search
+    from wellwright.optimize.report.build import _calibration_note
+
+    assert "calibrated against a measured device" in _calibration_note(linked)
+    assert "not calibrated" in _calibration_note(plain)
+
+
+def test_study_link_to_a_missing_calibration_is_one_line(tmp_path):
+    text = (
+        REPO / "studies" / "inp_thz_search.toml"
+    ).read_text() + '\n[calibration]\nfrom = "nope.json"\n'
+    (tmp_path / "s.toml").write_text(text)
+    from wellwright.optimize.study.study import load_study
+
+    with pytest.raises(InputError, match="calibration.from.*not found"):
+        load_study(tmp_path / "s.toml")

@@ -680,6 +680,20 @@ def _search_figures(study: Study, search: dict, figs: _Figures, run_dir: Path) -
 # --------------------------------------------------------------------------- driver
 
 
+def _calibration_note(study) -> str:
+    """The calibration the study links to, or that there is none (the caution stays either way)."""
+    from wellwright.optimize.study.calibration import calibration_lines
+
+    lines = calibration_lines(study.reserved, base_dir=Path(study.source).parent)
+    if not lines:
+        return "<p>The model is not calibrated against a measured device of this study.</p>"
+    return (
+        f"<p><b>{_esc(lines[0])}</b> Applied to every design and as-grown sample: "
+        + ", ".join(_esc(x) for x in lines[1:])
+        + ".</p>"
+    )
+
+
 def build_report(run_dir: str | Path) -> Path:
     """(Re)build ``DIR/report.html`` and ``DIR/report_files/`` from a finished run.
 
@@ -744,7 +758,10 @@ def build_report(run_dir: str | Path) -> Path:
         "search": _search_figures(study, search, figs, run_dir),
         "designs": "".join(cards),
         "growth": growth_html,
-        "model": "<ul>" + "".join(f"<li>{_esc(a)}</li>" for a in ASSUMPTIONS) + "</ul>"
+        "model": _calibration_note(study)
+        + "<ul>"
+        + "".join(f"<li>{_esc(a)}</li>" for a in ASSUMPTIONS)
+        + "</ul>"
         f'<div class="caution"><b>Calibrate before a growth decision.</b> {_esc(CAUTION)}</div>',
     }
     vrows = [[_esc(k), _esc(v)] for k, v in vers.items()]

@@ -20,6 +20,9 @@ A study file is a stack file (see :mod:`wellwright.physics.stack`) with
   yield under ``[growth]``, see :mod:`wellwright.optimize.search.robust`), ``robust_samples``
   (as-grown samples per design, 32);
 - ``[sweep]``: ``bias_min_v`` (0), ``bias_max_v`` (1.0), ``points`` (61);
+- ``[calibration] from = "DIR/calibration.json"``: the calibrated model of
+  ``wellwright calibrate`` written into the stack
+  (:mod:`wellwright.optimize.study.calibration`);
 - ``[growth]``, ``[tolerance]``, ``[report]`` (and a layer's ``growth``
   table), which belong to later stages: they are kept raw in
   :attr:`Study.reserved` and :attr:`Study.layer_growth`; ``[growth]`` is
@@ -52,6 +55,7 @@ from typing import Any
 import numpy as np
 from wellwright.optimize.study import space as _space
 from wellwright.optimize.study import targets as _targets
+from wellwright.optimize.study.calibration import apply_calibration
 from wellwright.optimize.study.growth import GrowthSettings, parse_growth
 from wellwright.optimize.study.space import RANGE_KEYS, Variable, is_finite_number, parse_space
 from wellwright.optimize.study.targets import (
@@ -94,7 +98,7 @@ __all__ = [
 ]
 
 #: Tables of later stages (growth tolerance, report) passed through unchecked.
-RESERVED_TABLES = ("growth", "tolerance", "report")
+RESERVED_TABLES = ("growth", "tolerance", "report", "calibration")
 STUDY_TABLES = ("targets", "constraints", "search", "sweep")
 ALLOWED_TOP_KEYS = tuple(sorted(TOP_KEYS | set(STUDY_TABLES) | set(RESERVED_TABLES)))
 SAMPLERS = ("tpe", "nsga2", "random")
@@ -361,6 +365,8 @@ def parse_study(
         if key in data and not isinstance(data[key], dict):
             raise InputError(f"must be a table, e.g. [{key}]", source=source, key=key)
 
+    # [calibration] from = ".../calibration.json": the calibrated model written into the stack
+    data = apply_calibration(data, source=source, base_dir=base_dir)
     base, variables, layer_growth = parse_space(data, source=source)
     targets, objectives = parse_targets(data.get("targets", {}), source=source)
     if not targets and not objectives:
