@@ -22,8 +22,9 @@ group name: ``thickness``, ``rate``, ``x``, ``doping``, ``offset``, ``model``,
   against the rest of the stack (a band-offset correction); prior 0.05 eV
   (common practice, from memory: published offsets of one pair scatter by a
   few tens of meV).
-- model parameters (``broadening_mev``; ``scattering_strength`` when the
-  model has it): no prior, bounded.
+- model parameters (``broadening_mev``; with ``[model] transport =
+  "scattering-assisted"`` the strength of its channel,
+  ``roughness_height_nm``, and ``roughness_length_nm``): no prior, bounded.
 - ``series_resistance_ohm_um2`` (specific, scales as 1/area) and
   ``series_resistance_ohm`` (area-independent: probes, lines); no prior.
   ``V_applied = V_intrinsic + I R`` (common practice), with
@@ -31,8 +32,9 @@ group name: ``thickness``, ``rate``, ``x``, ``doping``, ``offset``, ``model``,
 
 Default set: the thicknesses of the layers from the first barrier to the
 last one, the rate of every material that also has a layer not fitted on
-its own (the spacers' material), the valley parameter
-``scattering_strength`` when the model has one, and
+its own (the spacers' material), the valley-current parameter
+``roughness_height_nm`` when the model has the scattering-assisted
+channel, and
 ``series_resistance_ohm_um2``; ``series_resistance_ohm`` joins when the
 measured files have two or more areas (one area cannot tell the two apart).
 """
@@ -58,9 +60,12 @@ __all__ = ["FitParameter", "Problem", "build_problem", "GROUPS", "MODEL_FIT"]
 GROUPS = ("thickness", "rate", "x", "doping", "offset", "model", "resistance")
 #: Fittable model options: (unit, scale, lower, upper). Only those ModelOptions has are used.
 MODEL_FIT: dict[str, tuple[str, float, float, float]] = {
-    "scattering_strength": ("dimensionless", 0.1, 0.0, 10.0),
+    "roughness_height_nm": ("nm", 0.05, 0.0, 2.0),
+    "roughness_length_nm": ("nm", 1.0, 0.5, 50.0),
     "broadening_mev": ("meV", 1.0, 0.0, 50.0),
 }
+#: The valley-current parameter fitted by default, per ``[model] transport``.
+VALLEY_PARAMETER = {"scattering-assisted": "roughness_height_nm"}
 OFFSET_SIGMA_EV = 0.05
 #: The intrinsic grid has twice the measured points' density (linear interpolation at the NDR
 #: cliff: 17 % error in ln J at one point with the measured density, 3.6 % at twice; measured on
@@ -474,8 +479,9 @@ def candidate_parameters(
         if key in model_fields:
             nominal = float(getattr(stack.model, key))
             cands[key] = FitParameter(key, "model", unit, nominal, scale, 0.0, lo - nominal, hi - nominal, key=key)  # fmt: skip
-    if "scattering_strength" in cands:
-        default.append("scattering_strength")
+    valley = VALLEY_PARAMETER.get(getattr(stack.model, "transport", ""))
+    if valley in cands:
+        default.append(valley)
     r0 = stack.device.series_resistance_ohm_um2
     cands["series_resistance_ohm_um2"] = FitParameter(
         "series_resistance_ohm_um2", "resistance", "ohm um^2", r0, 10.0, 0.0, -r0, 1e5,

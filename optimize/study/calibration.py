@@ -14,7 +14,8 @@ them:
   monolayers comes out that much thicker or thinner (a continuous thickness, no island step; where the tolerance
   analysis varies a composition, that layer's monolayer follows the
   composition and the factor is not applied);
-- model options (``broadening_mev``, ``scattering_strength``) into ``[model]``;
+- model options (``broadening_mev``, ``roughness_height_nm``,
+  ``roughness_length_nm``) into ``[model]``;
 - ``series_resistance_ohm_um2`` into ``[device]``.
 
 Layers tied with ``same_as`` take these from the layer they copy; values the
@@ -35,7 +36,7 @@ from wellwright.physics.errors import InputError
 __all__ = ["apply_calibration", "calibration_lines", "CALIBRATION_KEYS"]
 
 CALIBRATION_KEYS = ("from", "xrd_period_nm", "xrd_layers")
-MODEL_KEYS = ("broadening_mev", "scattering_strength")
+MODEL_KEYS = ("broadening_mev", "roughness_height_nm", "roughness_length_nm")
 
 
 def _load(data: dict[str, Any], *, source: str, base_dir: str | Path) -> tuple[Path, dict] | None:
