@@ -176,13 +176,15 @@ def test_round_trip_one_seed_finds_the_growth_errors():
 
 @pytest.mark.slow
 def test_round_trip_coverage_statistical():
-    """Statistical test: in >= 90 % of 20 seeded trials every parameter's 95 % interval holds
-    its true value (a 95 % interval covers the truth in 95 % of repeats, by definition)."""
-    hits = []
+    """Statistical test: each parameter's 95 % interval holds its true value in >= 90 % of
+    20 seeded trials (a 95 % interval covers the truth in 95 % of repeats, by definition;
+    18 of 20 leaves room for sampling: P(<= 17 of 20 | p = 0.95) = 0.075)."""
+    hits: dict[str, int] = {}
     for seed in range(20):
         ok, _, _ = _round_trip(100 + seed)
-        hits.append(all(ok.values()))
-    assert sum(hits) >= 18, hits
+        for name, covered in ok.items():
+            hits[name] = hits.get(name, 0) + int(covered)
+    assert all(h >= 18 for h in hits.values()), hits
 
 
 def test_symmetric_stack_barriers_not_separable():

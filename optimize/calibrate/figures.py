@@ -59,7 +59,7 @@ def overlay_figure(record: dict[str, Any], path: str | Path) -> Path:
     axes[1].set_yscale("log")
     for ax in axes:
         ax.set_xlabel("applied bias (V)")
-    axes[0].legend(fontsize=8, loc="upper left")
+    axes[0].legend(fontsize=8, loc="upper right")
     axes[0].set_title(
         "Measured and fitted I-V (squares: measured peak/valley, diamonds: fitted)",
         fontsize=10,

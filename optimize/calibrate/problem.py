@@ -47,6 +47,7 @@ from dataclasses import dataclass, fields, replace
 from typing import Any
 
 import numpy as np
+from scipy.interpolate import PchipInterpolator
 from wellwright.optimize.calibrate.measured import Measurement
 from wellwright.optimize.study.growth import GrowthSettings, parse_growth, split_layer_growth
 from wellwright.physics import materials
@@ -405,8 +406,13 @@ def up_sweep(
         order = np.argsort(v)
         v, jj = v[order], jj[order]
         ext = v + jj * r_ohm_um2 * 1e-8
-        keep = ext >= np.maximum.accumulate(ext)
-        out[want] = sign * np.interp(sign * terminal_v[want], ext[keep], jj[keep])
+        keep = np.ones(ext.size, bool)
+        keep[1:] = ext[1:] > np.maximum.accumulate(ext)[:-1]
+        # monotone cubic (Fritsch-Carlson): no overshoot at the NDR cliff, and on the smooth
+        # rise far closer than straight lines (these bias the series resistance)
+        t = sign * terminal_v[want]
+        inside = np.clip(t, ext[keep][0], ext[keep][-1])
+        out[want] = sign * PchipInterpolator(ext[keep], jj[keep])(inside)
     return out
 
 
