@@ -94,11 +94,11 @@ def design_yields(
 
     Returns, per stack, :func:`wellwright.optimize.tolerance.analysis.yield_record` (``value``,
     ``ci_low``, ``ci_high``, ``samples``, ``passed``, ``confidence``) plus
-    ``failures``: per window, the samples missing it.
+    ``failures``: per window, the samples missing it, and ``solve_failed``, the samples
+    whose self-consistent solve did not converge (failed samples).
     """
     from wellwright.optimize.study.growth import growth_model
-    from wellwright.optimize.tolerance.analysis import yield_record
-    from wellwright.physics.iv import sweep
+    from wellwright.optimize.tolerance.analysis import SOLVE_FAILED, batch_metrics, yield_record
 
     out = []
     for stack in stacks:
@@ -110,16 +110,18 @@ def design_yields(
             seed=plan.seed,
         )
         table = model.as_grown(z, island_u=u)
-        metrics = sweep(
+        # a sample whose self-consistent solve fails is a failed sample, not a failed design
+        metrics = batch_metrics(
             table,
             np.asarray(bias_v, float),
-            model=stack.model,
-            series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
-        ).metrics
+            stack.model,
+            stack.device.series_resistance_ohm_um2,
+        )
         rec = yield_record(plan.spec.passes(metrics))
         rec["failures"] = {
             name: int(np.count_nonzero(m)) for name, m in plan.spec.misses(metrics).items()
         }
+        rec["failures"][SOLVE_FAILED] = int(np.count_nonzero(metrics[SOLVE_FAILED]))
         out.append(rec)
     return out
 

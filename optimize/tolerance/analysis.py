@@ -38,6 +38,7 @@ __all__ = [
     "Spec",
     "wilson_interval",
     "yield_record",
+    "batch_metrics",
     "evaluate_metrics",
     "monte_carlo_yield",
     "saltelli_design",
@@ -89,7 +90,7 @@ def wilson_interval(successes: int, n: int, *, confidence: float = 0.95) -> tupl
 SOLVE_FAILED = "solve_failed"
 
 
-def _metrics_batch(
+def batch_metrics(
     table: LayerTable, bias_v: np.ndarray, model: ModelOptions, resistance_ohm_um2: float
 ) -> dict[str, np.ndarray]:
     """Metrics of a batch; where the self-consistent solve fails, each stack alone, and a
@@ -105,7 +106,7 @@ def _metrics_batch(
             nan = {name: np.full(1, np.nan) for name in METRIC_NAMES}
             return {**nan, SOLVE_FAILED: np.ones(1)}
     parts = [
-        _metrics_batch(table.take(slice(i, i + 1)), bias_v, model, resistance_ohm_um2)
+        batch_metrics(table.take(slice(i, i + 1)), bias_v, model, resistance_ohm_um2)
         for i in range(table.n_stacks)
     ]
     return {k: np.concatenate([p[k] for p in parts]) for k in (*METRIC_NAMES, SOLVE_FAILED)}
@@ -131,7 +132,7 @@ def evaluate_metrics(
     n = table.n_stacks
     starts = list(range(0, n, batch_size))
     jobs = (
-        delayed(_metrics_batch)(
+        delayed(batch_metrics)(
             table.take(slice(s, s + batch_size)), bias_v, model, series_resistance_ohm_um2
         )
         for s in starts
