@@ -15,14 +15,26 @@ The energy grid is adaptive. A coarse grid over the window, dense at its
 lower edge (``E = low + (high - low) u^2``, ``u`` uniform, where T rises like
 the square root of the emitter's kinetic energy; five more nodes between the
 edge and the first node, geometrically closer to the edge, :data:`EDGE_NODES_U`),
-locates the transmission peaks that carry most current; each is refined to its
-centre ``E_r`` and width ``Gamma`` (:mod:`physics.resonances`). Around each resonance an
-interval of ``max(30 Gamma, 4 coarse spacings)`` is integrated with
-Gauss-Legendre nodes in ``s`` under the map ``E = E_r + (Gamma/2) sinh(s)``,
-which turns a Lorentzian into ``(Gamma/2) sech(s) ds``, smooth at every scale,
-so a fixed number of nodes resolves resonances of any width (tested to
-1 ueV; :mod:`physics.quadrature`). The rest of the window is integrated on the coarse nodes with the
-weights of their piecewise-linear interpolant. No uniform fine grid is used.
+locates the transmission peaks; the maxima of ``T S`` (not of ``T``: lines above
+the barriers, with no supply, must not crowd out those that carry the current)
+are refined to their centre ``E_r`` and width ``Gamma``
+(:mod:`physics.resonances`). A line is resolved where the coarse rule cannot
+integrate it (narrower than :data:`RESOLVE_SPACINGS` coarse spacings: on the
+non-uniform coarse grid the trapezoid rule is only second order on a
+Lorentzian) and its stake, ``T_p S(E_r)`` times the larger of its width and
+the spacing (what the coarse rule can get wrong on it), is at least
+:data:`MIN_SHARE` of the current of the narrow lines. Around each resolved
+line, an interval of ``max(LINE_SPAN_WIDTHS Gamma, D)`` (``D``: to where the
+coarse spacing is ``D / 4``, :func:`_coarse_reach`), cut halfway to any other
+line found, is integrated with Gauss-Legendre nodes under the map
+``E = E_r + (Gamma/2) sinh(s)``, which turns a Lorentzian into ``(Gamma/2)
+sech(s) ds`` (:mod:`physics.quadrature`, three panels: the core and the two
+tails), taken in ``v = sqrt(E - low)`` so that a line at the band edge, where
+T rises like ``sqrt(E - low)``, is smooth too (:func:`_line_rule`). Tested on
+lines from tens of meV down to 1e-14 eV wide against a brute-force integrator
+(``tests/test_grid_random_stacks.py``). The rest of the window is integrated
+on the coarse nodes with the weights of their piecewise-linear interpolant. No
+uniform fine grid is used.
 
 References
 ----------
@@ -62,10 +74,18 @@ WINDOW_KT = 30.0
 #: (~0.2 meV), and would otherwise not show as a coarse-grid maximum (measured: 0.01 % of
 #: the biases of as-grown GaAs and InP variants missed up to 3/4 of their current).
 EDGE_NODES_U = 0.5 ** np.arange(5, 0, -1)
-#: A third or later line is resolved only where it is narrower than the coarse spacing and
-#: its estimated share of the current, ``T_p Gamma S(E_r)`` over that of all lines
-#: narrower than kT, is at least this (else the coarse nodes integrate it).
+#: A line is resolved only where the coarse rule's possible error on it, ``T_p S(E_r)``
+#: times the larger of its width and the coarse spacing, is at least this fraction of
+#: the current of the lines narrower than kT (their ``T_p Gamma S(E_r)``) ...
 MIN_SHARE = 1e-3
+#: ... and it is narrower than this many coarse spacings: a Lorentzian on a uniform grid
+#: of spacing ``h`` is integrated by the trapezoid rule to about ``2 exp(-pi Gamma / h)``
+#: (1.6e-4 at 3 spacings), a narrower one is not.
+RESOLVE_SPACINGS = 15.0
+#: A resolved line's interval spans this many widths either side, and at least to where
+#: the coarse spacing is a quarter of the distance (:func:`_coarse_reach`): the coarse
+#: rule integrates the Lorentzian's tails beyond to ~1e-4.
+LINE_SPAN_WIDTHS = 5.0
 
 
 @dataclass(frozen=True)
@@ -75,9 +95,9 @@ class EnergyGrid:
     #: points over the window (quadratic map, dense at its lower edge), plus the
     #: EDGE_NODES_U: 64 in all, a whole number of the compiled kernel's 8-item chunks
     n_coarse: int = 59
-    n_resonances: int = 3  #: at most this many resolved per (stack, bias) (see MIN_SHARE)
-    n_candidates: int = 6  #: coarse-grid peaks refined before the n_resonances are chosen
-    n_per_resonance: int = 32  #: Gauss-Legendre nodes per resonance (sinh map)
+    n_resonances: int = 6  #: at most this many resolved per (stack, bias) (see MIN_SHARE)
+    n_candidates: int = 8  #: coarse-grid peaks refined before the n_resonances are chosen
+    n_per_resonance: int = 40  #: Gauss-Legendre nodes per resonance (sinh map, three panels)
     refine_iterations: int = 6  #: bracketed refinement rounds per candidate (two energies each)
 
 
@@ -138,22 +158,67 @@ def _trapezoid_weights(nodes: np.ndarray) -> np.ndarray:
     return w
 
 
-def _resonance_intervals(center, width, spacing, valid, low, high):
-    """Non-overlapping integration intervals around resonances, ``batch + (n_res,)`` each.
+def _distinct(center, width, valid, share):
+    """``valid`` without repeats: of two candidates refined onto one line (centres closer
+    than the narrower's width), the one of lower ``share`` is dropped."""
+    gap = np.abs(center[..., :, None] - center[..., None, :])
+    same = gap < np.minimum(width[..., :, None], width[..., None, :])
+    n = center.shape[-1]
+    # j repeats i when both are valid, they coincide and i ranks first (share, then slot)
+    first = (share[..., :, None] > share[..., None, :]) | (
+        (share[..., :, None] == share[..., None, :]) & (np.arange(n)[:, None] < np.arange(n))
+    )
+    repeat = np.any(same & first & valid[..., :, None] & valid[..., None, :], axis=-2)
+    return valid & ~repeat
 
-    The valid slots come first, sorted by ``center``; the others are ignored.
+
+def _line_intervals(center, half_span, width, others, others_valid, low, high):
+    """Integration interval of each resolved line, ``batch + (n_res,)`` each.
+
+    ``half_span`` either side, inside the window, and cut halfway to the nearest
+    other line found (``others``, ``batch + (n_cand,)``, resolved or not): an
+    interval that reached into another line would integrate it on this line's
+    nodes, far too sparse there.
     """
-    half_span = np.maximum(4.0 * spacing, 30.0 * width)
-    a = np.maximum(center - half_span, low[..., None])
-    b = np.minimum(center + half_span, high[..., None])
-    for r in range(center.shape[-1] - 1):  # cut overlapping neighbours halfway between centres
-        cut = 0.5 * (center[..., r] + center[..., r + 1])
-        overlap = (b[..., r] > a[..., r + 1]) & valid[..., r + 1]
-        b[..., r] = np.where(overlap, np.maximum(np.minimum(b[..., r], cut), a[..., r]), b[..., r])
-        a[..., r + 1] = np.where(
-            overlap, np.minimum(np.maximum(a[..., r + 1], cut), b[..., r + 1]), a[..., r + 1]
-        )
+    d = others[..., None, :] - center[..., :, None]  # (..., n_res, n_cand)
+    apart = others_valid[..., None, :] & (np.abs(d) > 0.5 * width[..., None])
+    below = np.max(np.where(apart & (d < 0), d, -np.inf), axis=-1)
+    above = np.min(np.where(apart & (d > 0), d, np.inf), axis=-1)
+    a = np.maximum(center - np.minimum(half_span, -0.5 * below), low[..., None])
+    b = np.minimum(center + np.minimum(half_span, 0.5 * above), high[..., None])
     return a, np.maximum(a, b)
+
+
+def _coarse_reach(depth, span, n_coarse: int):
+    """Distance ``D`` from a line at ``depth`` above the window's edge to where the coarse
+    spacing is ``D / 4``: beyond it, the coarse rule integrates the line's tails.
+
+    On ``E = low + span u^2`` with ``du = 1 / (n_coarse - 1)`` the spacing at ``E`` is
+    ``2 sqrt(span (E - low)) du``; ``D = 4 h(E_r + D)`` is ``D^2 = c^2 (depth + D)`` with
+    ``c = 8 sqrt(span) du``. The spacing at the line itself is no measure: it grows
+    away from the edge (measured: a line 0.2 meV above it, 0.8 % of the current off).
+    """
+    c2 = 64.0 * span / (n_coarse - 1) ** 2
+    return 0.5 * (c2 + np.sqrt(c2 * c2 + 4.0 * c2 * np.maximum(depth, 0.0)))
+
+
+def _line_rule(center, width, a, b, edge, n: int):
+    """Nodes and weights for ``[a, b]`` around a line, in ``v = sqrt(E - edge)``.
+
+    T rises like ``sqrt(E - edge)`` from the window's lower edge, a singularity for a
+    Gauss rule in ``E`` when a line's interval reaches it (a state within a few widths
+    above a band edge: measured 5 % of a stack's largest current); ``T dE = T 2 v dv``
+    is smooth in ``v``. The line maps to centre ``sqrt(E_r - edge)`` and the width that
+    keeps its upper half-maximum point, ``2 (sqrt(E_r - edge + W/2) - sqrt(E_r - edge))``
+    (``W / (2 sqrt(E_r - edge))`` far above the edge, where the map is locally linear).
+    """
+    depth = np.maximum(center - edge, 0.0)
+    v_center = np.sqrt(depth)
+    v_width = width / (np.sqrt(depth + 0.5 * width) + v_center)  # no cancellation
+    v_a = np.sqrt(np.maximum(a - edge, 0.0))
+    v_b = np.sqrt(np.maximum(b - edge, 0.0))
+    v, weight = sinh_gauss_legendre(v_center, v_width, v_a, v_b, n)
+    return edge[..., None] + v**2, weight * 2.0 * v
 
 
 def current_density_a_cm2(
@@ -204,12 +269,16 @@ def current_density_a_cm2(
     u = np.concatenate([u[:1], u[1] * EDGE_NODES_U, u[1:]])
     coarse = low[..., None] + (high - low)[..., None] * u**2
     t_coarse = transmission(coarse, profile=profile)
+    supply = supply_function_ev(coarse, mu_e[..., None], mu_c[..., None], kt[..., None])
     weights = _trapezoid_weights(coarse)  # the coarse nodes span [low, high]
     if grid.n_resonances > 0:
         # refine every candidate peak, then keep those carrying most current: a resonance of
         # 1 ueV width looks tiny on the coarse grid, its weight (pi/2) T_p Gamma S(E_r) does not
         n_cand = max(grid.n_candidates, grid.n_resonances)
-        index, valid = local_peaks(t_coarse, n_cand)
+        # the maxima of T S, not of T: a wide well has more lines than candidates, and
+        # those above the barriers (T ~ 1, no supply) would crowd out those that carry
+        # the current (measured: a 14 nm InSb well lost its main line, -12 %)
+        index, valid = local_peaks(t_coarse, n_cand, weight=np.abs(supply))
         # the peak heights only rank the candidates (and scale the broadening): the
         # parabola's value is good enough, no extra evaluation
         center, width, peak = refine_grid_peaks(
@@ -225,7 +294,11 @@ def current_density_a_cm2(
         # no scale for a line's integration interval: its tails beyond are left to the
         # coarse nodes' linear interpolant)
         first_node = (high - low)[..., None] * u[EDGE_NODES_U.size + 1] ** 2
-        spacing = np.maximum(np.gradient(coarse, axis=-1), 2.0 * first_node)
+        cell = np.diff(coarse, axis=-1)
+        wider = np.maximum(
+            np.concatenate([cell[..., :1], cell], -1), np.concatenate([cell, cell[..., -1:]], -1)
+        )
+        spacing = np.maximum(wider, 2.0 * first_node)  # the wider cell beside each node
         spacing = np.take_along_axis(spacing, index, axis=-1)
         valid &= (
             np.isfinite(width)
@@ -233,29 +306,35 @@ def current_density_a_cm2(
             & (center > low[..., None])
             & (center < high[..., None])
         )
+        supply_r = np.abs(
+            supply_function_ev(center, mu_e[..., None], mu_c[..., None], kt[..., None])
+        )
+        share = np.where(valid, np.nan_to_num(peak * width * supply_r), -1.0)
+        valid = _distinct(center, width, valid, share)
+        share = np.where(valid, share, -1.0)
         # every line found, resolved or not, is broadened
         lines = {"center_ev": center, "width_ev": width, "peak": peak, "valid": valid}
-        share = np.abs(supply_function_ev(center, mu_e[..., None], mu_c[..., None], kt[..., None]))
-        share = np.where(valid, np.nan_to_num(peak * width * share), -1.0)
-        keep = np.argsort(-share, axis=-1)[..., : grid.n_resonances]
+        others, others_valid = center, valid
+        # what the coarse rule could get wrong on a line it does not resolve: up to T_p S
+        # over a cell, far more than the line's own share T_p Gamma S when it is narrow
+        stake = np.where(valid, np.nan_to_num(peak * np.maximum(width, spacing) * supply_r), -1.0)
+        keep = np.argsort(-stake, axis=-1)[..., : grid.n_resonances]
         narrow = np.sum(np.where(width < kt[..., None], np.maximum(share, 0.0), 0.0), axis=-1)
-        center, width, spacing, valid, share = (
-            np.take_along_axis(x, keep, axis=-1) for x in (center, width, spacing, valid, share)
+        center, width, spacing, valid, stake = (
+            np.take_along_axis(x, keep, axis=-1) for x in (center, width, spacing, valid, stake)
         )
-        # beyond the first two, a line is resolved only where the coarse nodes cannot
-        # integrate it (narrower than their spacing) and it carries a share of the current
-        # (of the lines narrower than kT: a broad feature's T_p Gamma is no measure of it)
-        valid[..., 2:] &= (width[..., 2:] < spacing[..., 2:]) & (
-            share[..., 2:] >= MIN_SHARE * narrow[..., None]
-        )
-        # the resolved lines in order of energy, the unused slots after them (never computed)
+        # a line is resolved where the coarse nodes cannot integrate it (narrower than
+        # RESOLVE_SPACINGS of their spacing) and their error on it could reach MIN_SHARE
+        # of the current of the lines narrower than kT (a broad feature's T_p Gamma is no
+        # measure of the current)
+        valid &= (width < RESOLVE_SPACINGS * spacing) & (stake >= MIN_SHARE * narrow[..., None])
         center = np.where(valid, center, high[..., None])
-        width = np.where(valid, np.maximum(width, 1e-12), 1.0)
-        order = np.argsort(np.where(valid, center, np.inf), axis=-1)
-        center, width, spacing, valid = (
-            np.take_along_axis(x, order, axis=-1) for x in (center, width, spacing, valid)
+        width = np.where(valid, np.maximum(width, 1e-15), 1.0)  # widths of 2e-14 eV measured
+        half_span = np.maximum(
+            _coarse_reach(center - low[..., None], (high - low)[..., None], grid.n_coarse),
+            LINE_SPAN_WIDTHS * width,
         )
-        a, b = _resonance_intervals(center, width, spacing, valid, low, high)
+        a, b = _line_intervals(center, half_span, width, others, others_valid, low, high)
         for r in range(a.shape[-1]):  # each resolved line's interval leaves the coarse rule
             m = valid[..., r]
             if m.any():
@@ -280,14 +359,13 @@ def current_density_a_cm2(
             gamma_s_ev=gamma_s,
         )
         t_coarse = t_coarse * coherent_factor(coarse, **reduce)
-    supply = supply_function_ev(coarse, mu_e[..., None], mu_c[..., None], kt[..., None])
     integral = np.sum(weights * t_coarse * supply, axis=-1)
     if grid.n_resonances > 0 and valid.any():
         # the resolved lines only (unused slots cost nothing), one row per line
         where = np.nonzero(valid)
         rows = where[:-1]
-        nodes, node_weights = sinh_gauss_legendre(
-            center[where], width[where], a[where], b[where], grid.n_per_resonance
+        nodes, node_weights = _line_rule(
+            center[where], width[where], a[where], b[where], low[rows], grid.n_per_resonance
         )
         t_lines = transmission_rows(nodes, profile=profile, rows=rows)
         if sequential is not None:

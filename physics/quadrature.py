@@ -27,18 +27,45 @@ def _legendre(n: int) -> tuple[np.ndarray, np.ndarray]:
     return np.polynomial.legendre.leggauss(n)
 
 
+#: Half width, in line widths, of a line's core panel (see :func:`sinh_gauss_legendre`).
+CORE_WIDTHS = 10.0
+
+
+def _panel(s_lo, s_hi, n, center, half):
+    """Nodes and weights of ``n`` Gauss-Legendre points on ``[s_lo, s_hi]`` in ``s``, mapped to E."""
+    nodes, weights = _legendre(n)
+    mid, rad = 0.5 * (s_lo + s_hi), 0.5 * (s_hi - s_lo)
+    s = mid[..., None] + rad[..., None] * nodes
+    energy = center[..., None] + half[..., None] * np.sinh(s)
+    return energy, rad[..., None] * weights * half[..., None] * np.cosh(s)
+
+
 def sinh_gauss_legendre(center_ev, width_ev, low_ev, high_ev, n: int):
     """Nodes and weights of ``n`` points for ``[low, high]`` around a line at ``center``.
 
     All four arrays broadcast together to ``shape``; returns ``energy_ev`` and
     ``weight_ev``, each ``shape + (n,)``, with ``sum(weight * f(energy))``
     approximating the integral of ``f`` over ``[low, high]``.
+
+    Three Gauss-Legendre panels in ``s``: the core ``|E - E_r| <= CORE_WIDTHS W``
+    (``n - 2 m`` nodes, ``m = 3n // 10``) and the two tails beyond it (``m`` nodes
+    each; a tail outside ``[low, high]`` gets zero weights). One panel over the
+    whole interval loses the line once ``[low, high]`` is many decades wider than
+    ``W`` (measured on a Lorentzian: 32 nodes, interval 1e6 widths: -0.5 %; 1e10:
+    -5 %); with the panels, a Lorentzian times a Fermi step over 1e10 widths:
+    3e-4 (40 nodes).
     """
-    nodes, weights = _legendre(n)
+    center = np.asarray(center_ev, float)
     half = 0.5 * np.asarray(width_ev, float)
-    s_a = np.arcsinh((low_ev - center_ev) / half)
-    s_b = np.arcsinh((high_ev - center_ev) / half)
-    mid, rad = 0.5 * (s_a + s_b), 0.5 * (s_b - s_a)
-    s = mid[..., None] + rad[..., None] * nodes
-    energy = center_ev[..., None] + half[..., None] * np.sinh(s)
-    return energy, rad[..., None] * weights * half[..., None] * np.cosh(s)
+    center, half, low, high = np.broadcast_arrays(center, half, low_ev, high_ev)
+    s_a = np.arcsinh((low - center) / half)
+    s_b = np.arcsinh((high - center) / half)
+    cut = np.arcsinh(2.0 * CORE_WIDTHS)
+    s_lo, s_hi = np.clip(s_a, -cut, cut), np.clip(s_b, -cut, cut)
+    m = (3 * n) // 10
+    parts = [
+        _panel(s_a, s_lo, m, center, half),
+        _panel(s_lo, s_hi, n - 2 * m, center, half),
+        _panel(s_hi, s_b, m, center, half),
+    ]
+    return tuple(np.concatenate([p[k] for p in parts], axis=-1) for k in (0, 1))

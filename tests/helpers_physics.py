@@ -605,3 +605,128 @@ BAD_STACKS: list[tuple[str, str | None, int | None, str | None, str]] = [
         r"thickness_ml needs monolayer_nm",
     ),
 ]
+
+
+# ----------------------------------------------------------------------------- brute-force current
+
+#: Sample spacings of a nested uniform grid one level finer than its parent's.
+NEST_FACTOR = 32
+#: A nested grid spans this many parent spacings either side of a sharp maximum.
+NEST_HALF_SPAN = 16
+#: A maximum is sharp (nested further) while fewer than this many samples lie above its half.
+NEST_RESOLVED = 10
+
+
+def _supply_ev(energy_ev, mu_emitter_ev, mu_collector_ev, kt_ev):
+    """Tsu-Esaki supply kT ln[(1 + e^((mu_E - E)/kT)) / (1 + e^((mu_C - E)/kT))] (Tsu and Esaki 1973)."""
+    return kt_ev * (
+        np.logaddexp(0.0, (mu_emitter_ev - energy_ev) / kt_ev)
+        - np.logaddexp(0.0, (mu_collector_ev - energy_ev) / kt_ev)
+    )
+
+
+def _trapezoid_rows(f, e):
+    return np.sum(0.5 * (f[:, 1:] + f[:, :-1]) * np.diff(e, axis=1), axis=1)
+
+
+def _sharp_maxima(t, max_per_row):
+    """(row, index) of interior local maxima of ``t`` (rows, n) with fewer than
+    NEST_RESOLVED samples above their half, at most ``max_per_row`` highest per row."""
+    inner = (t[:, 1:-1] > t[:, :-2]) & (t[:, 1:-1] >= t[:, 2:])
+    score = np.where(inner, t[:, 1:-1], -np.inf)
+    order = np.argsort(-score, axis=1)[:, :max_per_row]
+    rows, k = [], []
+    for r in range(t.shape[0]):
+        for j in order[r]:
+            if score[r, j] == -np.inf:
+                break
+            i = j + 1
+            lo, hi = max(0, i - NEST_RESOLVED), min(t.shape[1], i + NEST_RESOLVED + 1)
+            if np.count_nonzero(t[r, lo:hi] >= 0.5 * t[r, i]) < NEST_RESOLVED:
+                rows.append(r)
+                k.append(i)
+    return np.array(rows, int), np.array(k, int)
+
+
+def _cut_overlaps(row, i0, i1, k):
+    """Neighbouring segments of one row that overlap meet halfway between their maxima."""
+    order = np.lexsort((k, row))
+    row, i0, i1, k = row[order], i0[order], i1[order], k[order]
+    for j in range(row.size - 1):
+        if row[j] == row[j + 1] and i1[j] > i0[j + 1]:
+            mid = (k[j] + k[j + 1]) // 2
+            i1[j], i0[j + 1] = mid, mid
+    return order, i0, i1
+
+
+def brute_force_current_a_cm2(table, bias_v, *, model, n_energy=4096, window_kt=40.0):
+    """Tsu-Esaki current density (A/cm^2, ``(n_stacks, n_biases)``) by brute force.
+
+    The Tsu-Esaki integral [R. Tsu and L. Esaki, Appl. Phys. Lett. 22, 562 (1973)]
+    of the kernel's own T(E) (a check of the energy grid and its quadrature, not of
+    T) by the trapezoid rule on ``n_energy`` energies from the higher contact band
+    edge ``E_0`` to ``window_kt`` kT above the higher Fermi level, uniform in
+    ``u = sqrt(E - E_0)`` (T rises like ``sqrt(E - E_0)`` at that edge, smooth in ``u``),
+    with nested uniform grids (``NEST_FACTOR`` times finer, +-``NEST_HALF_SPAN``
+    parent spacings, up to eight levels) around every maximum that the samples
+    do not resolve, so a line of any width is integrated on about
+    ``NEST_RESOLVED`` samples across its half maximum or more. No line finding by
+    fits, no Lorentzian model, no Gauss rule: nothing shared with
+    :mod:`physics.current` but T(E), the band profile and the contact Fermi levels.
+    """
+    from wellwright.physics.current import contact_fermi_levels_ev
+    from wellwright.physics.iv import band_profile
+    from wellwright.physics.transmission import transmission_rows
+
+    bias = np.asarray(bias_v, float)
+    profile = band_profile(table, bias, model=model)
+    shape = profile.batch_shape
+    bias = np.broadcast_to(bias if bias.ndim == 2 else bias[None, :], shape)
+    kt = np.broadcast_to((KB_EV_K * table.temperature_k)[:, None], shape)
+    mu = np.broadcast_to(contact_fermi_levels_ev(table)[0][:, None], shape)
+    rows = tuple(np.indices(shape).reshape(len(shape), -1))
+    mu_e, mu_c, kt = mu[rows], (mu - bias)[rows], kt[rows]
+    low = np.maximum(0.0, profile.edge_ev[..., -1][rows])
+    high = np.maximum(mu_e, mu_c) + window_kt * kt
+
+    def integrand(u, r):  # T and T S dE/du at u = sqrt((E - low) / (high - low))
+        span = (high - low)[r, None]
+        energy = low[r, None] + span * u**2
+        t = transmission_rows(energy, profile=profile, rows=tuple(x[r] for x in rows))
+        return t, t * _supply_ev(energy, mu_e[r, None], mu_c[r, None], kt[r, None]) * 2 * span * u
+
+    everything = np.arange(low.size)
+    seg_e = np.broadcast_to(np.linspace(0.0, 1.0, n_energy), (low.size, n_energy))
+    seg_t, seg_f = integrand(seg_e, everything)
+    integral = _trapezoid_rows(seg_f, seg_e)
+    seg_row = everything
+    src, k = _sharp_maxima(seg_t, 16)
+    for _level in range(8):
+        if src.size == 0:
+            break
+        n_parent = seg_e.shape[1]
+        i0 = np.clip(k - NEST_HALF_SPAN, 0, n_parent - 1)
+        i1 = np.clip(k + NEST_HALF_SPAN, 0, n_parent - 1)
+        order, i0, i1 = _cut_overlaps(src, i0, i1, k)
+        src = src[order]
+        r = seg_row[src]
+        # the parent's trapezoid over [i0, i1], replaced by a finer grid's
+        idx = np.arange(n_parent)
+        cell = (idx[:-1] >= i0[:, None]) & (idx[1:] <= i1[:, None])
+        pe, pf = seg_e[src], seg_f[src]
+        parent = np.sum(
+            np.where(cell, 0.5 * (pf[:, 1:] + pf[:, :-1]) * np.diff(pe, axis=1), 0.0), 1
+        )
+        a = np.take_along_axis(pe, i0[:, None], 1)[:, 0]
+        b = np.take_along_axis(pe, i1[:, None], 1)[:, 0]
+        child_e = a[:, None] + (b - a)[:, None] * np.linspace(
+            0.0, 1.0, 2 * NEST_HALF_SPAN * NEST_FACTOR + 1
+        )
+        child_t, child_f = integrand(child_e, r)
+        np.add.at(integral, r, _trapezoid_rows(child_f, child_e) - parent)
+        seg_e, seg_t, seg_f, seg_row = child_e, child_t, child_f, r
+        src, k = _sharp_maxima(seg_t, 2)
+    # e^3 m0 / (2 pi^2 hbar^3) in A m^-2 eV^-2, times m_E / m0, to A/cm^2
+    constant = sc.e**3 * sc.m_e / (2.0 * np.pi**2 * sc.hbar**3) * 1e-4
+    mass = np.broadcast_to(table.mass_m0[:, 0][:, None], shape)[rows]
+    return (constant * mass * integral).reshape(shape)
