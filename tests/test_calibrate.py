@@ -148,11 +148,11 @@ def test_series_resistance_folds_ndr_into_a_jump():
 
 
 def _recovered(problem, result, truth):
-    out = {}
-    for name, value, sd in zip(problem.names, result.values, result.sd):
-        if name in truth:
-            out[name] = abs(value - truth[name]) <= 1.96 * sd
-    return out
+    """Whether each true value lies in its reported 95 % interval."""
+    from wellwright.optimize.calibrate.record import _rows
+
+    rows = {r["name"]: r for r in _rows(problem, result)}
+    return {n: rows[n]["ci_low"] <= t <= rows[n]["ci_high"] for n, t in truth.items()}
 
 
 def _round_trip(seed: int) -> tuple[dict[str, bool], object, object]:

@@ -36,7 +36,10 @@ Uncertainties: the Gauss-Newton covariance ``(J^T J)^-1`` of the
 from central differences (thicknesses +- a quarter monolayer, so that the
 kink of the island current at a whole monolayer is averaged, not taken
 from one side), and 95 % intervals ``value +- 1.96 sd``: a linear
-approximation.
+approximation. A thickness's interval is asymmetric: its upper (lower)
+half uses the larger of the central sd and the sd from the slope a
+quarter monolayer above (below), since a barrier's current falls more
+gently above a whole monolayer than it rises below it.
 """
 
 from __future__ import annotations
@@ -79,7 +82,7 @@ class FitResult:
     z: np.ndarray
     dev: np.ndarray
     values: np.ndarray
-    sd: np.ndarray  #: standard deviations of the reported values
+    sd: np.ndarray  #: standard deviations of the reported values (central slopes)
     correlation: np.ndarray
     scatter: float
     chi2: float
@@ -89,6 +92,8 @@ class FitResult:
     evaluations: int = 0
     notes: list[str] = field(default_factory=list)
     combos: int = 0
+    sd_low: np.ndarray | None = None  #: for the lower interval bound (one-sided at a kink)
+    sd_high: np.ndarray | None = None  #: for the upper bound
 
 
 def point_weights(bias_v: np.ndarray, current: np.ndarray) -> np.ndarray:
@@ -188,27 +193,37 @@ class Objective:
         self._cache = {z.tobytes(): res[0]}
         return (res[1:] - res[0]).T / step[None, :]
 
-    def central_jacobian(self, z: np.ndarray) -> np.ndarray:
-        """Central differences in one batch, thickness steps of ``THICKNESS_STEP_ML``.
+    def central_jacobian(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Central, upper and lower one-sided differences from one batch
+        (thickness steps of ``THICKNESS_STEP_ML``; the one-sided ones differ
+        from the central one in the thickness columns only).
 
-        Used for the covariance: at a whole monolayer the island current has a
-        kink, and a one-sided slope would make, e.g., the two barriers of a
-        symmetric stack look separable; the central slope averages both sides.
+        At a whole monolayer the island current has a kink: the central slope
+        (for the covariance and the correlations) averages both sides, so that,
+        e.g., the two barriers of a symmetric stack are not made to look
+        separable by one side's slope; the one-sided slopes give each
+        thickness's upper and lower interval (the current of a barrier falls
+        more gently above a whole monolayer than it rises below it).
         """
         z = np.asarray(z, float)
         p = z.size
+        thick = np.array([q.kind == "thickness" for q in self.problem.parameters])
         step = np.array(
             [
-                THICKNESS_STEP_ML / q.scale if q.kind == "thickness" else STEP_Z
-                for q in self.problem.parameters
+                THICKNESS_STEP_ML / q.scale if t else STEP_Z
+                for q, t in zip(self.problem.parameters, thick)
             ]
         )
         up = np.minimum(z + step, self.upper)
         down = np.maximum(z - step, self.lower)
-        rows = np.vstack([z + np.diag(up - z), z + np.diag(down - z)])
+        rows = np.vstack([z[None, :], z + np.diag(up - z), z + np.diag(down - z)])
         res = self.residuals_many(rows)
-        width = np.where(up - down > 0, up - down, 1.0)
-        return (res[:p] - res[p:]).T / width[None, :]
+        r0, r_up, r_down = res[0], res[1 : p + 1], res[p + 1 :]
+        safe = lambda d: np.where(d > 0, d, 1.0)  # noqa: E731
+        central = (r_up - r_down).T / safe(up - down)[None, :]
+        upper = np.where(thick[None, :], (r_up - r0).T / safe(up - z)[None, :], central)
+        lower = np.where(thick[None, :], (r0 - r_down).T / safe(z - down)[None, :], central)
+        return central, upper, lower
 
     def cost(self, res: np.ndarray) -> np.ndarray:
         """Robust cost ``sum rho(r^2)`` with soft_l1 at ``F_SCALE`` (per row)."""
@@ -360,8 +375,12 @@ def run_fit(problem: Problem, *, starts: int = 2, max_nfev: int = 15, progress=N
         rescored.append((float(np.sum(res**2)), z))
     res_best = obj(z_best)
     chi2 = float(np.sum(res_best**2))
-    jac = obj.central_jacobian(z_best)
+    jac, jac_up, jac_down = obj.central_jacobian(z_best)
     result = _uncertainty(problem, obj, z_best, jac)
+    thick = np.array([p.kind == "thickness" for p in problem.parameters])
+    for side, j in (("sd_high", jac_up), ("sd_low", jac_down)):
+        one = _uncertainty(problem, obj, z_best, j).sd
+        setattr(result, side, np.where(thick, np.maximum(result.sd, one), result.sd))
     result.scatter, result.chi2 = scatter, chi2
     result.n_points, result.starts, result.combos = obj.n_points, len(begins), n_combos
     result.alternatives = _alternatives(problem, z_best, chi2, rescored)

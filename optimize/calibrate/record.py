@@ -131,7 +131,9 @@ def _rows(problem: Problem, result: FitResult) -> list[dict[str, Any]]:
     rows = []
     for j, p in enumerate(problem.parameters):
         v, sd = float(result.values[j]), float(result.sd[j])
-        lo, hi = v - Z95 * sd, v + Z95 * sd
+        sd_lo = sd if result.sd_low is None else float(result.sd_low[j])
+        sd_hi = sd if result.sd_high is None else float(result.sd_high[j])
+        lo, hi = v - Z95 * sd_lo, v + Z95 * sd_hi
         if p.kind == "resistance" or p.kind == "model":
             lo = max(lo, p.nominal + p.lower)
         rows.append(
@@ -245,7 +247,8 @@ def calibration_record(
         "method": {
             "loss": "soft_l1 in ln current, f_scale 2 sigma; peak, NDR and valley regions weighted alike",
             "uncertainty": "Gauss-Newton covariance (J^T J)^-1 at the optimum, priors included; "
-            "95 % intervals value +- 1.96 sd",
+            "95 % intervals value +- 1.96 sd (a thickness's halves from the one-sided "
+            "slopes where wider)",
             "multistart": f"{result.combos} whole-monolayer combinations scored, {result.starts} local fits",
             "model_evaluations": result.evaluations,
         },

@@ -114,16 +114,21 @@ def apply_calibration(data: dict[str, Any], *, source: str, base_dir: str | Path
 def _apply_layers(
     out: dict[str, Any], offsets: dict[str, float], rates: dict[str, float], *, source: str
 ) -> None:
-    temperature_k = float(out.get("temperature_k", 300.0))
-    strain = bool(out.get("model", {}).get("strain", True))
-    layers = out.get("layers", [])
+    t = out.get("temperature_k", 300.0)
+    temperature_k = float(t) if isinstance(t, int | float) and not isinstance(t, bool) else 300.0
+    model = out.get("model")
+    strain = bool(model.get("strain", True)) if isinstance(model, dict) else True
+    layers = [x for x in out.get("layers", []) if isinstance(x, dict)]
     a_sub = None
     sub = out.get("substrate") or (layers[0].get("material") if layers else None)
     if isinstance(sub, str) and sub != "custom":
-        name, x = materials.parse_material(
-            sub, layers[0].get("x") if sub == layers[0].get("material") else None
-        )
-        a_sub = float(materials.lattice_constant_nm(name, x, temperature_k=temperature_k))
+        try:
+            name, x = materials.parse_material(
+                sub, layers[0].get("x") if sub == layers[0].get("material") else None
+            )
+            a_sub = float(materials.lattice_constant_nm(name, x, temperature_k=temperature_k))
+        except (ValueError, TypeError):
+            a_sub = None  # the stack check reports a bad substrate
     for i, layer in enumerate(layers):
         if (
             not isinstance(layer, dict)
