@@ -11,10 +11,15 @@ times on a shared machine):
    batched run (issue 15 target: >= 80 %);
 2. optionally (``--sobol``) the time of a Sobol run with 8 parameters and
    ``--base`` base samples on ``--jobs`` processes: N (2 D + 2) = 18,432 evaluations
-   for N = 1024 with the second-order indices (default), N (D + 2) with ``--first-total``.
+   for N = 1024 with the second-order indices (default), N (D + 2) with ``--first-total``;
+3. optionally (``--islands``) the cost of the island mixture (physics/islands.py) per
+   as-grown sample against one whole-monolayer stack per sample, for 0 to 3 island
+   layers (the default of the tolerance analysis is 3) and for every layer (the full
+   mixture), with each truncation's largest relative error on Jp, Vp and PVCR against
+   the full mixture, on ``--island-samples`` samples of the InP stack with source cells.
 
 Run: ``python benchmarks/bench_tolerance.py [--samples 32] [--batch 32] [--points 31]
-[--sobol --base 1024 --jobs 2 [--first-total]]``.
+[--sobol --base 1024 --jobs 2 [--first-total]] [--islands [--island-samples 64]]``.
 """
 
 from __future__ import annotations
@@ -27,10 +32,21 @@ from pathlib import Path
 os.environ.setdefault("OMP_NUM_THREADS", "1")
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
+import dataclasses  # noqa: E402
+
 import numpy as np  # noqa: E402
 from timing import KernelClock  # noqa: E402
-from wellwright.optimize.study.growth import GrowthSettings, growth_model  # noqa: E402
-from wellwright.optimize.tolerance.analysis import Runner, Spec, sobol_analysis  # noqa: E402
+from wellwright.optimize.study.growth import (  # noqa: E402
+    GrowthSettings,
+    growth_model,
+    parse_growth,
+)
+from wellwright.optimize.tolerance.analysis import (  # noqa: E402
+    Runner,
+    Spec,
+    sobol_analysis,
+    with_island_layers,
+)
 from wellwright.physics.stack import load_stack  # noqa: E402
 
 STACK = Path(__file__).resolve().parents[1] / "studies" / "inp_thz_oscillator.toml"
@@ -45,10 +61,12 @@ def main() -> None:
     ap.add_argument("--base", type=int, default=1024)
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--first-total", action="store_true", help="Sobol without second order")
+    ap.add_argument("--islands", action="store_true", help="cost of the island mixture")
+    ap.add_argument("--island-samples", type=int, default=64)
     ap.add_argument("--quick", action="store_true", help="16 samples, Sobol with N = 64 if asked")
     a = ap.parse_args()
     if a.quick:
-        a.samples, a.base = 16, 64
+        a.samples, a.base, a.island_samples = 16, 64, 8
 
     stack = load_stack(STACK)
     model = growth_model(stack)
@@ -89,13 +107,8 @@ def main() -> None:
         g = GrowthSettings(x_sigma=0.005, doping_sigma=0.0)
         full = growth_model(stack, g)
         keep = [p for p in full.parameters if p.kind in ("thickness", "rate") or p.name == "well.x"]
-        sub = type(full)(
-            stack=stack,
-            parameters=tuple(keep),
-            nominal=full.nominal,
-            nominal_ml=full.nominal_ml,
-            substrate_lattice_nm=full.substrate_lattice_nm,
-        )
+        # three island layers (barriers and well): the tolerance analysis's default
+        sub = dataclasses.replace(full, parameters=tuple(keep), island_layers=(2, 3, 4))
         run = Runner(bias, model=stack.model, batch_size=a.batch, n_jobs=a.jobs, progress=True)
         spec = Spec((("peak_current_density_a_cm2", 1.4e5, 2.1e5), ("pvcr", 3.0, np.inf)))
         t0 = time.perf_counter()
@@ -107,6 +120,42 @@ def main() -> None:
             f"Sobol ({order}), {len(keep)} parameters, N = {a.base}: {s['evaluations']} "
             f"evaluations in {time.perf_counter() - t0:.0f} s on {a.jobs} processes"
         )
+
+    if a.islands:
+        bench_islands(stack, bias, a.island_samples, a.batch)
+
+
+def bench_islands(stack, bias: np.ndarray, samples: int, batch: int) -> None:
+    """Seconds per sample: one stack, the island mixture over 1-3 chosen layers, every layer."""
+    settings, _ = parse_growth({"cells": {"In": {}, "Ga": {}, "Al": {}, "Si": {}}})
+    run = Runner(bias, model=stack.model, batch_size=batch)
+    base = growth_model(stack, settings)
+    z = base.draw_z(samples, 5)
+    t0 = time.perf_counter()
+    run(base.as_grown(z, seed=1))
+    one = time.perf_counter() - t0
+    full_model = dataclasses.replace(base, island_layers=None)
+    t0 = time.perf_counter()
+    full = run(full_model.grow(z))
+    t_full = time.perf_counter() - t0
+    print(f"islands, {samples} samples, {bias.size} biases: one stack per sample {one:.2f} s")
+    for k in (0, 1, 2, 3):
+        model, _ = with_island_layers(dataclasses.replace(base, max_island_layers=k), run)
+        grown = model.grow(z)
+        t0 = time.perf_counter()
+        m = run(grown)
+        dt = time.perf_counter() - t0
+        err = [
+            np.nanmax(np.abs(m[key] / full[key] - 1))
+            for key in ("peak_current_density_a_cm2", "peak_voltage_v", "pvcr")
+        ]
+        print(
+            f"  {k} island layers ({grown.table.n_stacks / samples:.0f} stacks/sample): {dt:.2f} s, "
+            f"{dt / one:.1f}x; largest error vs full mixture Jp {100 * err[0]:.2f} %, "
+            f"Vp {100 * err[1]:.2f} %, PVCR {100 * err[2]:.2f} %"
+        )
+    n_full = full_model.grow(z[:1]).table.n_stacks
+    print(f"  every layer ({n_full} stacks/sample): {t_full:.2f} s, {t_full / one:.1f}x")
 
 
 if __name__ == "__main__":

@@ -20,6 +20,7 @@ true valley can only be lower, so the PVCR is then a lower bound.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -28,6 +29,7 @@ from .bands import linear_profile, profile_from_potential
 from .current import EnergyGrid, current_density_a_cm2
 from .device import DEVICE_METRIC_NAMES, device_figures
 from .electrostatics import self_consistent_profile, solve_stack_poisson
+from .islands import area_weight_matrix, island_mixture, mixed_current
 from .resonances import parabola_through
 from .scattering import ScatteringParameters
 from .stack import LayerTable, ModelOptions, Stack
@@ -199,7 +201,66 @@ REFINE_RELATIVE_TOLERANCE = 1e-3
 REFINE_BIAS_TOLERANCE_V = 2e-5
 
 
-def _refine(table, model, grid, center_v, half_span_v, sign):
+@dataclass(frozen=True)
+class _Devices:
+    """Stacks grouped into devices: ``weights`` ``(n_devices, n_stacks)`` area shares (the
+    laterally parallel islands of one device, :mod:`physics.islands`), None for one stack
+    per device."""
+
+    table: LayerTable
+    weights: np.ndarray | None = None
+
+    @property
+    def n(self) -> int:
+        return self.table.n_stacks if self.weights is None else self.weights.shape[0]
+
+    def current(self, bias_v, model: ModelOptions, grid: EnergyGrid) -> np.ndarray:
+        """``(n_devices, n_biases)``; biases ``(n_biases,)`` or per device ``(n_devices, n)``."""
+        if self.weights is None:
+            return current_at_bias(self.table, bias_v, model=model, grid=grid)
+        bias = np.asarray(bias_v, float)
+        if bias.ndim == 2:
+            bias = bias[np.argmax(self.weights != 0, axis=0)]
+        j = current_at_bias(self.table, bias, model=model, grid=grid)
+        return mixed_current(j, area_weights=self.weights)
+
+    def take(self, rows: np.ndarray) -> _Devices:
+        if self.weights is None:
+            return _Devices(self.table.take(rows))
+        w = self.weights[rows]
+        cols = np.nonzero(np.any(w != 0, axis=0))[0]
+        return _Devices(self.table.take(cols), w[:, cols])
+
+    def twice(self) -> _Devices:
+        """The devices twice over (peaks, then valleys)."""
+        table = LayerTable.concatenate([self.table, self.table])
+        if self.weights is None:
+            return _Devices(table)
+        w = self.weights
+        both = np.zeros((2 * w.shape[0], 2 * w.shape[1]))
+        both[: w.shape[0], : w.shape[1]] = w
+        both[w.shape[0] :, w.shape[1] :] = w
+        return _Devices(table, both)
+
+    def largest(self) -> LayerTable:
+        """One stack per device: its largest island (for the stack-level figures)."""
+        if self.weights is None:
+            return self.table
+        return self.table.take(np.argmax(self.weights, axis=1))
+
+
+def _check_area_weights(area_weights, n_stacks: int) -> np.ndarray:
+    w = np.asarray(area_weights, float)
+    if w.ndim != 2 or w.shape[1] != n_stacks:
+        raise ValueError(f"area_weights must be (n_devices, {n_stacks}), got {w.shape}")
+    if np.any(w < 0) or np.any(np.count_nonzero(w, axis=0) != 1):
+        raise ValueError("area_weights: each stack must belong to exactly one device, weight >= 0")
+    if not np.allclose(w.sum(axis=1), 1.0, rtol=0, atol=1e-9):
+        raise ValueError("area_weights: each device's area shares must sum to 1")
+    return w
+
+
+def _refine(devices, model, grid, center_v, half_span_v, sign):
     """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
 
     Each round samples :data:`REFINE_POINTS` biases across ``center +- half``
@@ -226,15 +287,15 @@ def _refine(table, model, grid, center_v, half_span_v, sign):
         idx = np.nonzero(open_)[0]
         if idx.size == 0:
             break
-        sub, sgn, rows = table.take(idx), sign[idx], np.arange(idx.size)
+        sub, sgn, rows = devices.take(idx), sign[idx], np.arange(idx.size)
         v = center[idx, None] + half[idx, None] * offsets
-        j = sgn[:, None] * current_at_bias(sub, v, model=model, grid=grid)
+        j = sgn[:, None] * sub.current(v, model, grid)
         top = np.argmax(j, axis=1)
         pick = np.clip(top, 1, REFINE_POINTS - 2)[:, None] + np.array([-1, 0, 1])
         x3 = v[rows[:, None], pick]
         offset, curvature, lowest = parabola_through(x3, -j[rows[:, None], pick])
         vertex = x3[:, 1] + offset
-        j_vertex = sgn * current_at_bias(sub, vertex[:, None], model=model, grid=grid)[:, 0]
+        j_vertex = sgn * sub.current(vertex[:, None], model, grid)[:, 0]
         better = j_vertex >= j[rows, top]
         center[idx] = np.where(better, vertex, v[rows, top])
         best[idx] = np.maximum(j_vertex, j[rows, top])
@@ -331,8 +392,9 @@ def sweep(
     grid: EnergyGrid = EnergyGrid(),
     refine: bool = True,
     series_resistance_ohm_um2: float | np.ndarray = 0.0,
+    area_weights: np.ndarray | None = None,
 ) -> IVCurves:
-    """I-V sweep of every stack in ``table`` with figures of merit.
+    """I-V sweep of every stack in ``table`` (or device, see ``area_weights``) with figures of merit.
 
     Parameters
     ----------
@@ -349,14 +411,27 @@ def sweep(
     refine
         Locate peak and valley more finely than the sweep grid.
     series_resistance_ohm_um2
-        Series resistance times area, scalar or ``(n_stacks,)``; enters only
-        the cutoff frequency (:mod:`wellwright.physics.device`).
+        Series resistance times area, scalar or ``(n_stacks,)`` (per device
+        with ``area_weights``); enters only the cutoff frequency
+        (:mod:`wellwright.physics.device`).
+    area_weights
+        ``(n_devices, n_stacks)`` area shares: each device is the laterally
+        parallel mixture of its stacks (monolayer islands,
+        :mod:`physics.islands`), each stack in one device; the curves and the
+        figures of merit are the devices' (the mixed curve's peak and valley,
+        refined on the mixed curve; capacitance, lifetime and the up sweep's
+        branch from each device's largest island). ``None``: each stack is a
+        device.
     """
     bias = np.asarray(bias_v, float)
     if bias.ndim != 1 or bias.size < 1 or np.any(np.diff(bias) <= 0):
         raise ValueError("bias_v must be a 1-D strictly increasing array")
-    j = current_at_bias(table, bias, model=model, grid=grid)
-    metrics = {name: np.full(table.n_stacks, np.nan) for name in METRIC_NAMES}
+    if area_weights is not None:
+        area_weights = _check_area_weights(area_weights, table.n_stacks)
+    devices = _Devices(table, area_weights)
+    j = devices.current(bias, model, grid)
+    table = devices.largest()  # the stack-level figures below: one stack per device
+    metrics = {name: np.full(devices.n, np.nan) for name in METRIC_NAMES}
 
     forward = bias >= 0
     if np.count_nonzero(bias > 0) >= 3:
@@ -377,11 +452,10 @@ def sweep(
     vv, jv = v_side[iv[rows]], j_side[rows, iv[rows]]
     if refine:
         step = np.abs(np.diff(v_side)).max() if v_side.size > 1 else 0.0
-        sub = table.take(rows)
         n = rows.size
         extremum = np.concatenate([np.ones(n), -np.ones(n)])  # maximise J at peaks, -J at valleys
         c, y, after_v, after_j = _refine(
-            LayerTable.concatenate([sub, sub]),
+            devices.take(rows).twice(),
             model,
             grid,
             np.concatenate([vp, vv]),
@@ -433,16 +507,42 @@ def sweep(
 
 
 def stack_iv(
-    stack: Stack, bias_v: np.ndarray, *, grid: EnergyGrid = EnergyGrid(), refine: bool = True
+    stack: Stack,
+    bias_v: np.ndarray,
+    *,
+    grid: EnergyGrid = EnergyGrid(),
+    refine: bool = True,
+    island_layers: Sequence[int] = (),
 ) -> IVCurves:
-    """I-V sweep of one stack (``n_stacks = 1``) with the stack's own model options."""
+    """I-V sweep of one stack (``n_stacks = 1``) with the stack's own model options.
+
+    ``island_layers``: indices of layers whose fractional ``thickness_ml`` is
+    taken as monolayer islands of the two neighbouring whole thicknesses; the
+    curve is then the area-weighted mixture of the whole-monolayer stacks
+    (:mod:`physics.islands`), and its figures of merit are the mixed curve's.
+    """
+    table = stack.table()
+    weights = None
+    if island_layers:
+        ml = np.full((1, len(stack.layers)), np.nan)
+        for i in island_layers:
+            ml[0, i] = stack.layers[i].thickness_ml
+        mix = island_mixture(ml)
+        table = table.take(np.zeros(mix.owner.size, int))
+        mono = np.array(
+            [np.nan if lay.monolayer_nm is None else lay.monolayer_nm for lay in stack.layers]
+        )
+        whole = np.where(np.isfinite(mix.whole_ml), mix.whole_ml * mono, table.thickness_nm)
+        table = table.with_thickness_nm(whole)
+        weights = area_weight_matrix(mix.owner, mix.area_share, 1)
     return sweep(
-        stack.table(),
+        table,
         bias_v,
         model=stack.model,
         grid=grid,
         refine=refine,
         series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
+        area_weights=weights,
     )
 
 

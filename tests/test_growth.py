@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import copy
 import tomllib
 from pathlib import Path
 
@@ -13,13 +12,13 @@ from wellwright.optimize.study.growth import (
     GrowthSettings,
     as_generator,
     growth_model,
-    island_mean_current,
     parse_growth,
     split_layer_growth,
 )
 from wellwright.physics import materials
 from wellwright.physics.errors import InputError
-from wellwright.physics.iv import current_at_bias
+from wellwright.physics.islands import area_weight_matrix, island_mixture
+from wellwright.physics.iv import current_at_bias, locate_peak_valley, sweep
 from wellwright.physics.stack import load_stack, parse_stack
 
 STACK_FILE = Path(__file__).resolve().parents[1] / "studies" / "inp_thz_oscillator.toml"
@@ -79,6 +78,8 @@ def test_growth_defaults_are_typical_practice():
         ({}, {"barrier1": {"rate_sigma": 0.02}}, "growth.rate_sigma", "per material"),
         ({}, {"barrier1": 0.3}, "growth", "must be a table"),
         ({}, {"nosuch": {"x_sigma": 0.01}}, "growth", "no layer named 'nosuch'"),
+        ({"island_layers": 9}, None, "growth.island_layers", r"whole number in \[0, 8\]"),
+        ({"island_layers": 1.5}, None, "growth.island_layers", "whole number"),
     ],
 )
 def test_bad_growth_entries_name_the_key(table, layer_growth, key, text):
@@ -159,29 +160,60 @@ def test_island_sampling_draws_neighbours_with_area_weights(stack):
     assert abs(share - 0.5) < 4 * np.sqrt(0.25 / n)  # binomial, 4 sigma (common practice)
 
 
-def test_island_mean_is_area_weighted_mean_of_integer_stacks(stack):
-    # island model: a half-monolayer error gives the mean of the 5 ML and 6 ML stacks,
-    # not the current of a 5.5 ML barrier
-    bias = np.array([0.1, 0.25, 0.35, 0.5])
-    mean, lower, upper = island_mean_current(stack, "barrier1", 5.5, bias)
+def test_half_monolayer_is_the_mean_of_the_two_whole_monolayer_curves(stack):
+    # island model (physics/islands.py; parallel islands under one mesa, common practice):
+    # a barrier at exactly 5.5 ML is half 5 ML, half 6 ML; the device curve is the exact
+    # mean of the two curves, and its figures of merit are those of that mixed curve
+    i = [lay.name for lay in stack.layers].index("barrier1")
+    ml = np.full((1, len(stack.layers)), np.nan)
+    ml[0, i] = 5.5
+    mix = island_mixture(ml)
+    assert mix.whole_ml[:, i].tolist() == [5.0, 6.0] and mix.area_share.tolist() == [0.5, 0.5]
+    table = stack.table().take(np.array([0, 0]))
+    thick = table.thickness_nm.copy()
+    thick[:, i] = mix.whole_ml[:, i] * stack.layers[i].monolayer_nm
+    table = table.with_thickness_nm(thick)
+    bias = np.linspace(0.0, 1.0, 41)
+    w = area_weight_matrix(mix.owner, mix.area_share, 1)
+    two = sweep(table, bias, model=stack.model, refine=False)
+    mixed = sweep(table, bias, model=stack.model, refine=False, area_weights=w)
+    mean = 0.5 * (two.current_density_a_cm2[0] + two.current_density_a_cm2[1])
+    np.testing.assert_allclose(mixed.current_density_a_cm2[0], mean, rtol=1e-12)
+    p, v = locate_peak_valley(bias[bias >= 0], mean[None, bias >= 0])
+    assert mixed.metrics["peak_current_density_a_cm2"][0] == pytest.approx(mean[p[0]], rel=1e-12)
+    assert mixed.metrics["valley_voltage_v"][0] == pytest.approx(bias[v[0]], rel=1e-12)
+    # not the mean of the two stacks' figures of merit (the peaks sit at different biases)
+    jp = two.metrics["peak_current_density_a_cm2"]
+    assert mixed.metrics["peak_current_density_a_cm2"][0] < 0.5 * (jp[0] + jp[1])
+    # refined on the mixed curve: never below the sampled peak of that curve
+    refined = sweep(table, bias, model=stack.model, area_weights=w)
+    assert refined.metrics["peak_current_density_a_cm2"][0] >= mean[p[0]]
+    # and not the current of a 5.5 ML barrier: the exponential barrier dependence makes the
+    # mean of the neighbours differ from it by more than 2 % somewhere (common practice)
     raw = _raw()
+    raw["layers"][2]["thickness_ml"] = 5.5
+    s55 = parse_stack(raw)
+    j55 = current_at_bias(s55.table(), bias[1:], model=s55.model)[0]
+    assert np.max(np.abs(mean[1:] - j55) / np.abs(mean[1:])) > 0.02
 
-    def current(ml):
-        r = copy.deepcopy(raw)
-        r["layers"][2]["thickness_ml"] = ml
-        s = parse_stack(r)
-        return current_at_bias(s.table(), bias, model=s.model)[0]
 
-    j5, j6, j55 = current(5), current(6), current(5.5)
-    # 1e-3: the kernel's adaptive energy grid is shared by the stacks of one batch, which
-    # moves currents by ~1e-4 relative against one-stack calls (measured, not a source)
-    np.testing.assert_allclose(lower, j5, rtol=1e-3)
-    np.testing.assert_allclose(upper, j6, rtol=1e-3)
-    np.testing.assert_allclose(mean, 0.5 * (lower + upper), rtol=1e-12)
-    np.testing.assert_allclose(mean, 0.5 * (j5 + j6), rtol=1e-3)
-    # the fractional-thickness current is a different (wrong) model: the exponential
-    # barrier dependence makes the mean of neighbours exceed it off resonance
-    assert np.max(np.abs(mean - j55) / np.abs(mean)) > 0.02
+def test_grow_gives_each_sample_its_island_mixture(stack):
+    # every sample's stacks carry whole monolayers in the island layers, their shares sum
+    # to 1, and the share-weighted mean thickness is the continuous as-grown one (the
+    # mixture's definition)
+    m = growth_model(stack, GrowthSettings(0.5, 0.01, 0.0, 0.05))  # compositions fixed
+    z = m.draw_z(5, 3)
+    g = m.grow(z)
+    ml = m.thickness_ml(z)
+    mono = np.array([lay.monolayer_nm or np.nan for lay in stack.layers])
+    whole = g.table.thickness_nm / mono
+    inner = np.isfinite(ml[0])
+    np.testing.assert_allclose(np.round(whole[:, inner]), whole[:, inner], atol=1e-9)
+    np.testing.assert_allclose(np.bincount(g.owner, weights=g.area_share), 1.0, rtol=1e-12)
+    mean = np.array(
+        [np.bincount(g.owner, weights=g.area_share * whole[:, k]) for k in range(ml.shape[1])]
+    ).T
+    np.testing.assert_allclose(mean[:, inner], np.maximum(ml[:, inner], 1.0), rtol=1e-12)
 
 
 # --------------------------------------------------------------------------- source cells
@@ -318,3 +350,31 @@ def test_a_layer_from_an_undeclared_cell_is_named(stack):
     with pytest.raises(InputError, match="AlAs grows from the Al cell") as info:
         _cells_model(stack, {"cells": {"In": {}, "Ga": {}}})
     assert info.value.layer == 2
+
+
+def test_iv_command_mixes_a_fractional_layer_and_says_so(tmp_path, capsys):
+    # `wellwright iv` on a stack file with barrier1 at 5.5 ML: the curve is the island
+    # mixture (the mean of the 5 ML and 6 ML curves, physics/islands.py), and it says so
+    import json
+
+    from wellwright.optimize.cli import main
+
+    text = STACK_FILE.read_text().replace("thickness_ml = 5\n", "thickness_ml = 5.5\n", 1)
+    path = tmp_path / "half.toml"
+    path.write_text(text)
+    out = tmp_path / "iv"
+    assert main(["iv", str(path), "--out", str(out), "--points", "21", "--no-figures"]) == 0
+    said = capsys.readouterr().out
+    assert "layer 3 'barrier1' at 5.5 ML: islands of 5 ML (50 % of the area) and 6 ML" in said
+    rec = json.loads((out / "metrics.json").read_text())
+    assert len(rec["islands"]) == 1
+    raw = _raw()
+    bias = np.linspace(0.0, 1.0, 21)
+    j = []
+    for ml in (5, 6):
+        raw["layers"][2]["thickness_ml"] = ml
+        s = parse_stack(raw)
+        j.append(current_at_bias(s.table(), bias, model=s.model)[0])
+    iv = np.loadtxt(out / "iv.csv", delimiter=",", skiprows=1)
+    # 1e-3: one batch of two stacks against two one-stack calls (shared adaptive grid)
+    np.testing.assert_allclose(iv[:, 1], 0.5 * (j[0] + j[1]), rtol=1e-3, atol=1e-6)

@@ -11,7 +11,7 @@ from wellwright.optimize.shared import names
 from wellwright.optimize.shared.outputs import json_ready, write_csv, write_json
 from wellwright.physics.errors import InputError
 from wellwright.physics.iv import METRIC_NAMES, external_bias_v, stack_iv
-from wellwright.physics.stack import load_stack
+from wellwright.physics.stack import load_stack, read_toml
 from wellwright.physics.valleys import x_valley_issues, x_valley_message
 
 MAX_POINTS = 2001
@@ -89,20 +89,44 @@ def model_warnings(stack, metrics: dict, bias: np.ndarray) -> list[str]:
     return [message] if message else []
 
 
+def fractional_layers(path: str | Path, stack) -> tuple[list[int], list[str]]:
+    """Layers the file gives a fractional ``thickness_ml``, and one line on each
+    saying how it is modelled (monolayer islands, :mod:`wellwright.physics.islands`)."""
+    raw = read_toml(path).get("layers", [])
+    index, lines = [], []
+    for i, (lay, given) in enumerate(zip(stack.layers, raw, strict=False)):
+        t = given.get("thickness_ml") if isinstance(given, dict) else None
+        if isinstance(t, (int, float)) and not float(t).is_integer():
+            index.append(i)
+            n, f = int(np.floor(t)), t - np.floor(t)
+            lines.append(
+                f"layer {i + 1} '{lay.name}' at {t:g} ML: islands of {n} ML ({100 * (1 - f):.0f} % "
+                f"of the area) and {n + 1} ML ({100 * f:.0f} %); the I-V is their area-weighted mixture"
+            )
+    return index, lines
+
+
 def run(args) -> int:
     bias = check_sweep(args.bias_min, args.bias_max, args.points)
     stack = load_stack(args.stack)
     out = Path(args.out) if args.out else Path(f"{Path(args.stack).stem}_iv")
-    curves = stack_iv(stack, bias)
+    islands, island_lines = fractional_layers(args.stack, stack)
+    curves = stack_iv(stack, bias, island_layers=islands)
     record = iv_record(stack, curves)
     record["warnings"] = model_warnings(stack, record["metrics"], bias)
+    record["islands"] = island_lines
     cols = ["bias_v", "current_density_a_cm2"] + [
         k for k in ("external_bias_v", "current_ma") if k in record
     ]
     write_csv(out / "iv.csv", cols, zip(*(record[c] for c in cols)))
     write_json(
         out / "metrics.json",
-        {"stack": stack.source, "metrics": record["metrics"], "warnings": record["warnings"]},
+        {
+            "stack": stack.source,
+            "metrics": record["metrics"],
+            "warnings": record["warnings"],
+            "islands": island_lines,
+        },
     )
     for line in record["warnings"]:
         print(f"wellwright iv: warning: {line}", file=sys.stderr)
@@ -116,6 +140,8 @@ def run(args) -> int:
     else:
         m = record["metrics"]
         print(f"{stack.source}: {len(bias)} biases from {bias[0]:g} to {bias[-1]:g} V")
+        for line in island_lines:
+            print(f"  {line}")
         if m["peak_current_density_a_cm2"] is None:
             print("  no negative differential resistance in this sweep")
         else:

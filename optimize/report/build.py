@@ -83,8 +83,10 @@ ASSUMPTIONS = [
     "so simulated peak voltages come out low against measured devices.",
     "No scattering, phonon-assisted or interface-roughness current and no self-heating: valley "
     "currents come out far below measured ones and the PVCR far too high.",
-    "Growth spreads (the study's [growth] table) are one-sigma figures; a fractional as-grown "
-    "thickness is modelled as lateral islands of the two neighbouring whole monolayers.",
+    "Growth spreads (the study's [growth] table, and its source cells where given) are "
+    "one-sigma figures; a fractional as-grown thickness is modelled as lateral islands of the "
+    "two neighbouring whole monolayers, and a device's I-V as the area-weighted mixture of "
+    "the whole-monolayer stacks' I-Vs (a mesa spans many islands).",
 ]
 CAUTION = (
     "Every figure in this report is a simulated estimate from a model with the assumptions "

@@ -15,8 +15,7 @@ Every trial uses the same random draws, so that two designs are compared on
 the same simulated growth runs and the difference of their yields is not
 sampling noise between trials (common practice in simulation optimisation).
 The standard-normal coordinate of each variation parameter is drawn from its
-own stream seeded by ``(seed, crc32(parameter name))``, and the island
-uniforms of each layer from ``(seed, crc32("islands:" + layer name))``, with
+own stream seeded by ``(seed, crc32(parameter name))``, with
 ``seed`` the study's ``[search] seed`` (not ``--seed``, which only reseeds the
 sampler: the yields of one study must stay comparable across resumed runs and
 machines). Sample ``k`` of every design therefore sees the same thickness
@@ -24,8 +23,10 @@ error on ``barrier1``, the same ``AlAs.rate`` error, and so on.
 
 Evaluation
 ----------
-All samples of one design are the rows of one
-:class:`wellwright.physics.stack.LayerTable`, evaluated in one batched
+Each sample is the island mixture of whole-monolayer stacks
+(:meth:`wellwright.optimize.study.growth.GrowthModel.grow`, the island layers
+chosen per design from one-monolayer steps of its nominal stack as in the
+tolerance analysis); all stacks of one design go through one batched
 :func:`wellwright.physics.iv.sweep` call per trial.
 
 Objective and ranking
@@ -67,24 +68,19 @@ def _stream(seed: int, label: str) -> np.random.Generator:
     return np.random.default_rng([int(seed), zlib.crc32(label.encode("utf-8"))])
 
 
-def common_random_numbers(
-    parameter_names: Sequence[str], layer_names: Sequence[str], *, samples: int, seed: int
-) -> tuple[np.ndarray, np.ndarray]:
-    """Standard normals ``(samples, n_parameters)`` and island uniforms ``(samples, n_layers)``.
+def common_random_numbers(parameter_names: Sequence[str], *, samples: int, seed: int) -> np.ndarray:
+    """Standard normals ``(samples, n_parameters)``.
 
     Each column comes from its own stream keyed by ``seed`` and the parameter
-    (or layer) name, so a column depends only on its name: two designs with
-    the same named parameters get the same draws, whatever else they have.
+    name, so a column depends only on its name: two designs with the same
+    named parameters get the same draws, whatever else they have.
     """
     if seed is None:
         raise ValueError("common random numbers need a seed")
     z = np.empty((samples, len(parameter_names)))
     for j, name in enumerate(parameter_names):
         z[:, j] = _stream(seed, name).standard_normal(samples)
-    u = np.empty((samples, len(layer_names)))
-    for i, name in enumerate(layer_names):
-        u[:, i] = _stream(seed, f"islands:{name}").random(samples)
-    return z, u
+    return z
 
 
 def design_yields(
@@ -98,25 +94,25 @@ def design_yields(
     whose self-consistent solve did not converge (failed samples).
     """
     from wellwright.optimize.study.growth import growth_model
-    from wellwright.optimize.tolerance.analysis import SOLVE_FAILED, batch_metrics, yield_record
+    from wellwright.optimize.tolerance.analysis import (
+        SOLVE_FAILED,
+        Runner,
+        with_island_layers,
+        yield_record,
+    )
 
     out = []
     for stack in stacks:
-        model = growth_model(stack, plan.settings, plan.per_layer)
-        z, u = common_random_numbers(
-            model.names,
-            [layer.name for layer in stack.layers],
-            samples=plan.samples,
-            seed=plan.seed,
-        )
-        table = model.as_grown(z, island_u=u)
-        # a sample whose self-consistent solve fails is a failed sample, not a failed design
-        metrics = batch_metrics(
-            table,
+        run = Runner(
             np.asarray(bias_v, float),
-            stack.model,
-            stack.device.series_resistance_ohm_um2,
+            model=stack.model,
+            series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
+            batch_size=plan.samples,
         )
+        model, _ = with_island_layers(growth_model(stack, plan.settings, plan.per_layer), run)
+        z = common_random_numbers(model.names, samples=plan.samples, seed=plan.seed)
+        # a sample whose self-consistent solve fails is a failed sample, not a failed design
+        metrics = run(model.grow(z))
         rec = yield_record(plan.spec.passes(metrics))
         rec["failures"] = {
             name: int(np.count_nonzero(m)) for name, m in plan.spec.misses(metrics).items()

@@ -93,16 +93,20 @@ current of the device is the area-weighted mean of the currents of the two
 (parallel conduction, islands wider than the coherence length; common
 practice), not the current of a fractional thickness.
 
-For ``k`` fractional layers the exact mean needs ``2**k`` stacks per sample.
-Here instead each sample draws, per layer independently, the thickness
-``n + 1`` with probability ``f`` and ``n`` otherwise
-(``islands="sample"``): every evaluated stack has whole monolayers, and the
-Monte Carlo mean over samples is the area-weighted mean (an unbiased
-estimate; the island choice adds sampling noise that the yield's interval
-already covers). :func:`island_mean_current` gives the exact two-stack mean
-for one layer. ``islands="nearest"`` rounds to the nearest whole monolayer:
-a deterministic model, used by the sensitivity analyses (Sobol, Morris),
-whose estimators need the output to be a function of the parameters.
+:meth:`GrowthModel.grow` makes each as-grown sample such a device: the
+mixture over the combinations of whole thicknesses of its island layers
+(:func:`wellwright.physics.islands.island_mixture`, ``2**k`` stacks for
+``k`` layers), whose figures of merit come from the mixed I-V
+(:func:`wellwright.physics.iv.sweep` with ``area_weights``). The tolerance
+analysis takes as island layers the three (``[growth] island_layers``, 0 to
+8) whose one-monolayer steps bend the peak current most (``choose_island_layers`` in
+:mod:`wellwright.optimize.tolerance.analysis`), the others at their
+continuous thickness, and states the error of that truncation. Monte Carlo,
+Sobol, Morris, allocation and the robust search all use it; being a
+deterministic function of the growth errors, it suits the sensitivity
+estimators too. :meth:`GrowthModel.as_grown` gives one whole-monolayer stack
+per sample instead: ``islands="sample"`` draws the upper thickness with
+probability ``f``, ``islands="nearest"`` rounds.
 Layers are kept at one monolayer or more.
 """
 
@@ -116,6 +120,7 @@ from typing import Any
 import numpy as np
 from wellwright.physics import materials
 from wellwright.physics.errors import InputError
+from wellwright.physics.islands import area_weight_matrix, island_mixture
 from wellwright.physics.stack import LayerTable, Stack
 
 __all__ = [
@@ -128,7 +133,6 @@ __all__ = [
     "parse_growth",
     "split_layer_growth",
     "growth_model",
-    "island_mean_current",
     "ISLAND_MODES",
     "layer_cells",
     "GROUP_III_CELLS",
@@ -196,6 +200,9 @@ class GrowthSettings:
     x_sigma: float = 0.005
     doping_sigma: float = 0.05
     cells: tuple[CellSettings, ...] = ()
+    #: layers taken as monolayer islands per design (2**n stacks per sample; see the
+    #: module docstring); 0 keeps every layer at its continuous thickness (fastest)
+    island_layers: int = 3
 
     def cell(self, name: str) -> CellSettings | None:
         return next((c for c in self.cells if c.name == name), None)
@@ -280,9 +287,18 @@ def parse_growth(
     for key, value in table.items():
         if key == "cells":
             continue
+        if key == "island_layers":
+            if isinstance(value, bool) or not isinstance(value, int) or not 0 <= value <= 8:
+                raise InputError(
+                    f"must be a whole number in [0, 8] (layers taken as islands), got {value!r}",
+                    source=source,
+                    key="growth.island_layers",
+                )
+            values[key] = value
+            continue
         if key not in GROWTH_KEYS:
             raise InputError(
-                f"unknown key; allowed: {', '.join(GROWTH_KEYS)}, [growth.cells]",
+                f"unknown key; allowed: {', '.join(GROWTH_KEYS)}, island_layers, [growth.cells]",
                 source=source,
                 key=f"growth.{key}",
             )
@@ -486,6 +502,11 @@ class GrowthModel:
     )  #: (n_layers,) nominal monolayer counts, NaN for contacts
     substrate_lattice_nm: float | None = None
     cells: CellUse | None = field(default=None, repr=False)
+    #: layers taken as monolayer islands (None: every layer; others keep their continuous
+    #: thickness); see :func:`wellwright.optimize.tolerance.analysis.choose_island_layers`
+    island_layers: tuple[int, ...] | None = None
+    #: how many layers the choice may take (``[growth] island_layers``)
+    max_island_layers: int = 3
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -563,39 +584,31 @@ class GrowthModel:
         """As-grown compositions ``(n, n_layers)`` (NaN for layers without one)."""
         return self.grown_fields(z, sigma_scale=sigma_scale)[1]
 
-    def as_grown(
-        self,
-        z: np.ndarray,
-        *,
-        islands: str = "sample",
-        island_u: np.ndarray | None = None,
-        seed: int | np.random.Generator | None = None,
-        sigma_scale: np.ndarray | None = None,
-    ) -> LayerTable:
-        """As-grown stacks for standard-normal coordinates ``z`` ``(n, n_parameters)``.
+    def _continuous(
+        self, z: np.ndarray, sigma_scale: np.ndarray | None
+    ) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray]:
+        """Per-sample layer columns (materials, doping) and continuous monolayers.
 
-        Parameters
-        ----------
-        z
-            One row per sample.
-        islands
-            ``"sample"``: each layer takes the upper whole thickness with
-            probability equal to its fractional part (``island_u`` or drawn
-            from ``seed``); ``"nearest"``: rounded (see module docstring).
-        island_u
-            ``(n, n_layers)`` uniforms for ``"sample"`` (common random numbers).
-        sigma_scale
-            ``(n_parameters,)`` factors on each sigma (tolerance allocation).
+        Returns ``(columns, monolayer_nm, thickness_ml)``: ``thickness_ml`` NaN
+        for layers not grown in monolayers (contacts), at least one monolayer
+        elsewhere.
         """
-        if islands not in ISLAND_MODES:
-            raise ValueError(f"islands must be one of {ISLAND_MODES}, got {islands!r}")
         ml, x, doping_factor = self.grown_fields(z, sigma_scale=sigma_scale)
         n = ml.shape[0]
         t = self.nominal
         rows = lambda a: np.broadcast_to(a[0], (n, a.shape[1])).copy()  # noqa: E731
-        edge, mass, alpha = rows(t.edge_ev), rows(t.mass_m0), rows(t.nonparabolicity_per_ev)
-        perm = rows(t.permittivity_r)
-        doping = rows(t.doping_cm3) * doping_factor
+        cols = {
+            "edge_ev": rows(t.edge_ev),
+            "mass_m0": rows(t.mass_m0),
+            "nonparabolicity_per_ev": rows(t.nonparabolicity_per_ev),
+            "permittivity_r": rows(t.permittivity_r),
+            "doping_cm3": rows(t.doping_cm3) * doping_factor,
+            "thickness_nm": rows(t.thickness_nm),
+        }
+        # composition drifts of a few per cent leave the phonons as grown
+        for key in ("lo_phonon_ev", "permittivity_high_r"):
+            if getattr(t, key) is not None:
+                cols[key] = rows(getattr(t, key))
         mono = np.array(
             [np.nan if lay.monolayer_nm is None else lay.monolayer_nm for lay in self.stack.layers]
         )
@@ -610,37 +623,115 @@ class GrowthModel:
                 substrate_lattice_nm=self.substrate_lattice_nm,
                 strain=self.stack.model.strain,
             )
-            edge[:, i] = mp.conduction_band_ev
-            mass[:, i] = mp.mass_m0
-            alpha[:, i] = np.asarray(mp.nonparabolicity_per_ev) * float(
+            cols["edge_ev"][:, i] = mp.conduction_band_ev
+            cols["mass_m0"][:, i] = mp.mass_m0
+            cols["nonparabolicity_per_ev"][:, i] = np.asarray(mp.nonparabolicity_per_ev) * float(
                 self.stack.model.nonparabolicity
             )
-            perm[:, i] = mp.permittivity_r
+            cols["permittivity_r"][:, i] = mp.permittivity_r
             mono[:, i] = mp.monolayer_nm
-        grown = np.isfinite(ml)
-        ml_g = np.where(grown, np.maximum(ml, MIN_THICKNESS_ML), 0.0)
-        if islands == "nearest":
-            whole = np.floor(ml_g + 0.5)
-        else:
-            u = self.draw_island_u(n, seed) if island_u is None else np.asarray(island_u, float)
-            low = np.floor(ml_g)
-            whole = low + (u < (ml_g - low))
-        whole = np.maximum(whole, MIN_THICKNESS_ML)
-        thickness = np.where(grown, whole * np.nan_to_num(mono), t.thickness_nm[0])
-        return LayerTable(
-            edge_ev=edge,
-            mass_m0=mass,
-            nonparabolicity_per_ev=alpha,
-            thickness_nm=thickness,
-            doping_cm3=doping,
-            permittivity_r=perm,
-            temperature_k=np.full(n, t.temperature_k[0]),
-            # composition drifts of a few per cent leave the phonons as grown
-            lo_phonon_ev=None if t.lo_phonon_ev is None else rows(t.lo_phonon_ev),
-            permittivity_high_r=None
-            if t.permittivity_high_r is None
-            else rows(t.permittivity_high_r),
+        ml = np.where(np.isfinite(ml), np.maximum(ml, MIN_THICKNESS_ML), np.nan)
+        return cols, mono, ml
+
+    def _table(
+        self, cols: dict[str, np.ndarray], mono: np.ndarray, whole: np.ndarray
+    ) -> LayerTable:
+        """A table of whole-monolayer stacks (``whole`` NaN: the column's own thickness)."""
+        thick = np.where(
+            np.isfinite(whole),
+            np.maximum(np.nan_to_num(whole), MIN_THICKNESS_ML) * np.nan_to_num(mono),
+            cols["thickness_nm"],
         )
+        return LayerTable(
+            **{k: v for k, v in cols.items() if k != "thickness_nm"},
+            thickness_nm=thick,
+            temperature_k=np.full(thick.shape[0], self.nominal.temperature_k[0]),
+        )
+
+    def as_grown(
+        self,
+        z: np.ndarray,
+        *,
+        islands: str = "sample",
+        island_u: np.ndarray | None = None,
+        seed: int | np.random.Generator | None = None,
+        sigma_scale: np.ndarray | None = None,
+    ) -> LayerTable:
+        """One whole-monolayer stack per sample for standard-normal coordinates ``z``.
+
+        The tolerance analysis uses :meth:`grow` (the island mixture); this
+        gives one stack per sample.
+
+        Parameters
+        ----------
+        z
+            ``(n, n_parameters)``, one row per sample.
+        islands
+            ``"sample"``: each layer takes the upper whole thickness with
+            probability equal to its fractional part (``island_u`` or drawn
+            from ``seed``); ``"nearest"``: rounded (see module docstring).
+        island_u
+            ``(n, n_layers)`` uniforms for ``"sample"`` (common random numbers).
+        sigma_scale
+            ``(n_parameters,)`` factors on each sigma (tolerance allocation).
+        """
+        if islands not in ISLAND_MODES:
+            raise ValueError(f"islands must be one of {ISLAND_MODES}, got {islands!r}")
+        cols, mono, ml = self._continuous(z, sigma_scale)
+        if islands == "nearest":
+            whole = np.floor(ml + 0.5)
+        else:
+            n = ml.shape[0]
+            u = self.draw_island_u(n, seed) if island_u is None else np.asarray(island_u, float)
+            low = np.floor(ml)
+            whole = low + (u < (ml - low))
+        return self._table(cols, mono, whole)
+
+    def grow(self, z: np.ndarray, *, sigma_scale: np.ndarray | None = None) -> AsGrown:
+        """As-grown devices: each sample the island mixture of whole-monolayer stacks.
+
+        See :mod:`wellwright.physics.islands`: the layers ``island_layers``
+        as islands (``2**k`` stacks per sample), the others continuous.
+        """
+        cols, mono, ml = self._continuous(z, sigma_scale)
+        return self._mixture(cols, mono, ml)
+
+    def grow_shifted(self, delta_ml: np.ndarray) -> AsGrown:
+        """Nominal devices with layer thicknesses shifted by ``delta_ml`` ``(n, n_layers)`` ML."""
+        delta = np.atleast_2d(np.asarray(delta_ml, float))
+        cols, mono, _ = self._continuous(np.zeros((1, len(self.parameters))), None)
+        n = delta.shape[0]
+        cols = {k: np.repeat(v, n, axis=0) for k, v in cols.items()}
+        ml = np.maximum(self.nominal_ml + delta, MIN_THICKNESS_ML)
+        return self._mixture(cols, np.repeat(mono, n, axis=0), ml)
+
+    def _mixture(self, cols: dict[str, np.ndarray], mono: np.ndarray, ml: np.ndarray) -> AsGrown:
+        mask = None
+        if self.island_layers is not None:
+            mask = np.zeros(ml.shape[1], bool)
+            mask[list(self.island_layers)] = True
+        mix = island_mixture(ml, layers=mask)
+        table = self._table(
+            {k: v[mix.owner] for k, v in cols.items()}, mono[mix.owner], mix.whole_ml
+        )
+        return AsGrown(table, mix.owner, mix.area_share, ml.shape[0])
+
+
+@dataclass(frozen=True)
+class AsGrown:
+    """As-grown devices: whole-monolayer stacks and each one's device and area share."""
+
+    table: LayerTable
+    owner: np.ndarray  #: (n_rows,) device (sample) of each stack, sorted
+    area_share: np.ndarray  #: (n_rows,) area share of each stack in its device
+    n_samples: int
+
+    def batch(self, start: int, stop: int) -> tuple[LayerTable, np.ndarray]:
+        """Stacks and ``(stop - start, n_rows)`` area weights of the devices ``start:stop``."""
+        lo, hi = np.searchsorted(self.owner, [start, stop])
+        owner = self.owner[lo:hi] - start
+        weights = area_weight_matrix(owner, self.area_share[lo:hi], stop - start)
+        return self.table.take(slice(lo, hi)), weights
 
 
 def _cell_parameters(stack: Stack, settings: GrowthSettings, use: CellUse) -> list[GrowthParameter]:
@@ -725,35 +816,5 @@ def growth_model(
         nominal_ml=nominal_ml,
         substrate_lattice_nm=a_sub,
         cells=use,
+        max_island_layers=settings.island_layers,
     )
-
-
-def island_mean_current(
-    stack: Stack, layer: int | str, thickness_ml: float, bias_v: np.ndarray, *, grid: Any = None
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Exact island-model current of one layer at a fractional thickness.
-
-    Returns ``(mean, lower, upper)`` current densities, A/cm^2, ``(n_biases,)``:
-    ``mean = (1 - f) J(n) + f J(n + 1)`` with ``n = floor(thickness_ml)``,
-    ``f`` its fractional part; ``lower``/``upper`` the currents of the two
-    whole-monolayer stacks (one batched call).
-    """
-    from wellwright.physics.current import EnergyGrid
-    from wellwright.physics.iv import current_at_bias
-
-    index = layer if isinstance(layer, int) else [lay.name for lay in stack.layers].index(layer)
-    mono = stack.layers[index].monolayer_nm
-    if mono is None:
-        raise ValueError(f"layer {index} has no monolayer thickness")
-    lo = math.floor(thickness_ml)
-    f = thickness_ml - lo
-    table = stack.table().take(np.array([0, 0]))
-    thick = table.thickness_nm.copy()
-    thick[:, index] = np.array([lo, lo + 1]) * mono
-    j = current_at_bias(
-        table.with_thickness_nm(thick),
-        np.asarray(bias_v, float),
-        model=stack.model,
-        grid=grid or EnergyGrid(),
-    )
-    return (1.0 - f) * j[0] + f * j[1], j[0], j[1]

@@ -28,7 +28,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from wellwright.optimize.study.growth import GrowthModel, as_generator
+from wellwright.optimize.study.growth import AsGrown, GrowthModel, as_generator
 from wellwright.optimize.study.targets import Spec  # re-exported: the pass/fail form of [targets]
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 from wellwright.physics.iv import METRIC_NAMES, sweep
@@ -47,6 +47,9 @@ __all__ = [
     "morris_analysis",
     "tornado",
     "allocate_tolerances",
+    "choose_island_layers",
+    "with_island_layers",
+    "island_truncation_error",
     "control_order",
     "run_tolerance",
     "METHODS",
@@ -91,29 +94,59 @@ SOLVE_FAILED = "solve_failed"
 
 
 def batch_metrics(
-    table: LayerTable, bias_v: np.ndarray, model: ModelOptions, resistance_ohm_um2: float
+    table: LayerTable,
+    bias_v: np.ndarray,
+    model: ModelOptions,
+    resistance_ohm_um2: float,
+    weights: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
-    """Metrics of a batch; where the self-consistent solve fails, each stack alone, and a
-    stack that still fails gets NaN metrics and :data:`SOLVE_FAILED` set (a failed sample,
-    counted, never the end of the run)."""
+    """Metrics of a batch (of devices, with area ``weights``: see
+    :func:`wellwright.physics.iv.sweep`); where the self-consistent solve fails, each device
+    alone, and a device that still fails gets NaN metrics and :data:`SOLVE_FAILED` set (a
+    failed sample, counted, never the end of the run)."""
+    n = table.n_stacks if weights is None else weights.shape[0]
     try:
         metrics = sweep(
-            table, bias_v, model=model, series_resistance_ohm_um2=resistance_ohm_um2
+            table,
+            bias_v,
+            model=model,
+            series_resistance_ohm_um2=resistance_ohm_um2,
+            area_weights=weights,
         ).metrics
-        return {**{k: metrics[k] for k in METRIC_NAMES}, SOLVE_FAILED: np.zeros(table.n_stacks)}
+        return {**{k: metrics[k] for k in METRIC_NAMES}, SOLVE_FAILED: np.zeros(n)}
     except ElectrostaticsConvergenceError:
-        if table.n_stacks == 1:
+        if n == 1:
             nan = {name: np.full(1, np.nan) for name in METRIC_NAMES}
             return {**nan, SOLVE_FAILED: np.ones(1)}
-    parts = [
-        batch_metrics(table.take(slice(i, i + 1)), bias_v, model, resistance_ohm_um2)
-        for i in range(table.n_stacks)
-    ]
+    parts = []
+    for i in range(n):
+        if weights is None:
+            parts.append(
+                batch_metrics(table.take(slice(i, i + 1)), bias_v, model, resistance_ohm_um2)
+            )
+            continue
+        cols = np.nonzero(weights[i])[0]
+        parts.append(
+            batch_metrics(
+                table.take(cols), bias_v, model, resistance_ohm_um2, weights[i : i + 1, cols]
+            )
+        )
     return {k: np.concatenate([p[k] for p in parts]) for k in (*METRIC_NAMES, SOLVE_FAILED)}
 
 
+def _batches(devices: LayerTable | AsGrown, batch_size: int):
+    """``(start, stop, table, area weights or None)`` per batch of devices."""
+    n = devices.n_samples if isinstance(devices, AsGrown) else devices.n_stacks
+    for s in range(0, n, batch_size):
+        stop = min(s + batch_size, n)
+        if isinstance(devices, AsGrown):
+            yield (s, stop, *devices.batch(s, stop))
+        else:
+            yield s, stop, devices.take(slice(s, stop)), None
+
+
 def evaluate_metrics(
-    table: LayerTable,
+    table: LayerTable | AsGrown,
     bias_v: np.ndarray,
     *,
     model: ModelOptions = ModelOptions(),
@@ -124,18 +157,18 @@ def evaluate_metrics(
     progress: bool = False,
     desc: str = "samples",
 ) -> dict[str, np.ndarray]:
-    """Figures of merit of every row of ``table``: batches of ``batch_size`` stacks per
-    kernel call, spread over ``n_jobs`` joblib workers (``backend`` None: loky); the series
-    resistance enters only the cutoff frequency."""
+    """Figures of merit of every row of ``table`` (or every device of an :class:`AsGrown`,
+    from its island-mixture curve): batches of ``batch_size`` devices per kernel call,
+    spread over ``n_jobs`` joblib workers (``backend`` None: loky); the series resistance
+    enters only the cutoff frequency."""
     from joblib import Parallel, delayed, parallel_config
 
-    n = table.n_stacks
-    starts = list(range(0, n, batch_size))
+    n = table.n_samples if isinstance(table, AsGrown) else table.n_stacks
+    batches = list(_batches(table, batch_size))
+    starts = [b[0] for b in batches]
     jobs = (
-        delayed(batch_metrics)(
-            table.take(slice(s, s + batch_size)), bias_v, model, series_resistance_ohm_um2
-        )
-        for s in starts
+        delayed(batch_metrics)(t, bias_v, model, series_resistance_ohm_um2, w)
+        for _, _, t, w in batches
     )
     bar = None
     if progress:
@@ -170,7 +203,7 @@ class Runner:
     backend: str | None = None
     progress: bool = False
 
-    def __call__(self, table: LayerTable, desc: str = "samples") -> dict[str, np.ndarray]:
+    def __call__(self, table: LayerTable | AsGrown, desc: str = "samples") -> dict[str, np.ndarray]:
         return evaluate_metrics(
             table,
             self.bias_v,
@@ -215,13 +248,13 @@ def monte_carlo_yield(
     Returns ``yield`` (see :func:`yield_record`), ``failures`` (per window:
     samples missing it; ``no_ndr``: samples with no NDR in the sweep;
     ``solve_failed``: samples whose self-consistent solve did not converge, failed),
-    ``metrics`` (arrays), ``passed`` (bool array), ``z`` and ``island_u`` (the
-    random numbers, reused as common random numbers by the allocation).
+    ``metrics`` (arrays), ``passed`` (bool array) and ``z`` (the random
+    numbers, reused as common random numbers by the allocation). Each sample is
+    the island mixture of :meth:`GrowthModel.grow`.
     """
     rng = as_generator(seed)
     z = model.draw_z(samples, rng)
-    u = model.draw_island_u(samples, rng)
-    metrics = run(model.as_grown(z, island_u=u), desc="Monte Carlo")
+    metrics = run(model.grow(z), desc="Monte Carlo")
     ok = spec.passes(metrics)
     failures = {name: int(np.count_nonzero(m)) for name, m in spec.misses(metrics).items()}
     failed = np.asarray(metrics.get(SOLVE_FAILED, np.zeros(samples))) > 0
@@ -235,7 +268,6 @@ def monte_carlo_yield(
         "metrics": metrics,
         "passed": ok,
         "z": z,
-        "island_u": u,
     }
 
 
@@ -349,8 +381,8 @@ def sobol_analysis(
 ) -> dict[str, Any]:
     """Sobol indices of each figure of merit and of pass/fail w.r.t. every growth parameter.
 
-    Uses the deterministic island model (``islands="nearest"``, see
-    :mod:`wellwright.optimize.study.growth`). A figure of merit that is NaN (no NDR) in some
+    Each point is the island mixture of :meth:`GrowthModel.grow` (a deterministic
+    function of the parameters, as the estimators need). A figure of merit that is NaN (no NDR) in some
     sample is skipped with a note. Returns ``sobol`` (name -> ordered list),
     ``notes`` and ``evaluations``; with ``second_order`` (``N (2 D + 2)``
     evaluations instead of ``N (D + 2)``) also ``sobol_second_order`` (name ->
@@ -358,7 +390,7 @@ def sobol_analysis(
     """
     rng = as_generator(seed)
     u = saltelli_design(len(model.parameters), base_samples, second_order=second_order, seed=rng)
-    metrics = run(model.as_grown(_normal(u), islands="nearest"), desc="Sobol")
+    metrics = run(model.grow(_normal(u)), desc="Sobol")
     out: dict[str, list] = {}
     pairs: dict[str, list] = {}
     notes = []
@@ -394,10 +426,9 @@ def morris_analysis(
 ) -> dict[str, Any]:
     """Morris elementary effects (mu*, sigma) per figure of merit and pass/fail, ordered by mu*.
 
-    Parameters span +-2.5 sigma on a uniform grid of ``levels`` (2.5, not 3, so
-    that the levels of a 0.5 ML sigma do not fall on half monolayers, where
-    the rounding of the deterministic island model would flip); elementary
-    effects are per unit of the unit cube (5 sigma).
+    Parameters span +-2.5 sigma on a uniform grid of ``levels``; each point is
+    the island mixture of :meth:`GrowthModel.grow`; elementary effects are per
+    unit of the unit cube (5 sigma).
     """
     from SALib.analyze import morris as morris_analyze
     from SALib.sample import morris as morris_sample
@@ -407,7 +438,7 @@ def morris_analysis(
     problem = {"num_vars": d, "names": list(model.names), "bounds": [[0.0, 1.0]] * d}
     x = morris_sample.sample(problem, trajectories, num_levels=levels, seed=_int_seed(rng))
     z = (x - 0.5) * 5.0  # [0, 1] -> [-2.5, 2.5] sigma
-    metrics = run(model.as_grown(z, islands="nearest"), desc="Morris")
+    metrics = run(model.grow(z), desc="Morris")
     out: dict[str, list] = {}
     notes = []
     outputs = {name: metrics[name] for name in METRIC_NAMES}
@@ -470,6 +501,73 @@ def tornado(stack: Stack, run: Runner) -> dict[str, Any]:
     return {"nominal": pick(0), "layers": sorted(layers, key=lambda r: -swing(r))}
 
 
+def choose_island_layers(
+    stack: Stack, tornado_layers: list[dict], *, max_layers: int = 3
+) -> tuple[int, ...] | None:
+    """The layers whose monolayer islands matter most: the ``max_layers`` largest curvatures.
+
+    The curvature of layer ``i`` is ``|Jp(+1) - 2 Jp(0) + Jp(-1)| / Jp(0)``
+    from the tornado's one-monolayer steps (no NDR counts as infinite): a
+    layer left continuous is off from its own island mixture by about
+    ``f (1 - f) / 2`` times it (second-order Taylor expansion of
+    ``(1 - f) J(n) + f J(n + 1)`` about ``n + f``), though interactions
+    between layers add to that, so the analysis measures the truncation error
+    (:func:`island_truncation_error`) rather than trusting it. Returns None (every layer) when there are no more layers
+    than ``max_layers``.
+    """
+    names = [lay.name for lay in stack.layers]
+    if len(tornado_layers) <= max_layers:
+        return None
+    return tuple(sorted(names.index(r["layer"]) for r in tornado_layers[:max_layers]))
+
+
+def _curvature_order(nominal: dict, layers: list[dict]) -> list[dict]:
+    def curvature(r: dict) -> float:
+        key = "peak_current_density_a_cm2"
+        j0, a, b = nominal.get(key), r["minus"][key], r["plus"][key]
+        if j0 is None or a is None or b is None or j0 == 0:
+            return math.inf
+        return abs(a - 2 * j0 + b) / abs(j0)
+
+    rows = [{**r, "curvature": curvature(r)} for r in layers]
+    return sorted(rows, key=lambda r: -r["curvature"])
+
+
+def with_island_layers(model: GrowthModel, run: Runner) -> tuple[GrowthModel, dict[str, Any]]:
+    """``model`` with its island layers chosen (:func:`choose_island_layers`) and the
+    tornado record it was chosen from, with ``islands``: {layers, continuous_layers,
+    curvatures (relative, of the peak current density)}."""
+    import dataclasses
+
+    tor = tornado(model.stack, run)
+    ordered = _curvature_order(tor["nominal"], tor["layers"])
+    chosen = choose_island_layers(model.stack, ordered, max_layers=model.max_island_layers)
+    k = len(ordered) if chosen is None else len(chosen)
+    finite = lambda v: v if math.isfinite(v) else None  # noqa: E731
+    tor["islands"] = {
+        "layers": [r["layer"] for r in ordered[:k]],
+        "continuous_layers": [r["layer"] for r in ordered[k:]],
+        "curvatures": {r["layer"]: finite(r["curvature"]) for r in ordered},
+    }
+    return dataclasses.replace(model, island_layers=chosen), tor
+
+
+def island_truncation_error(
+    model: GrowthModel, run: Runner, z: np.ndarray
+) -> dict[str, float | int | None]:
+    """Largest relative difference of Jp, Vp and PVCR between the chosen island layers and
+    the full mixture over every layer (``2**k`` stacks) on the samples ``z``."""
+    import dataclasses
+
+    full = run(dataclasses.replace(model, island_layers=None).grow(z), desc="island check")
+    used = run(model.grow(z), desc="island check")
+    out: dict[str, float | int | None] = {"samples": int(np.atleast_2d(z).shape[0])}
+    for key in ("peak_current_density_a_cm2", "peak_voltage_v", "pvcr"):
+        err = np.abs(used[key] / full[key] - 1.0)
+        out[key] = float(np.nanmax(err)) if np.any(np.isfinite(err)) else None
+    return out
+
+
 # --------------------------------------------------------------------------- allocation
 
 
@@ -484,7 +582,6 @@ def allocate_tolerances(
     *,
     parameters: Sequence[str],
     z: np.ndarray,
-    island_u: np.ndarray,
     target_yield: float = 0.9,
     max_scale: float = 4.0,
     steps: int = 6,
@@ -494,7 +591,7 @@ def allocate_tolerances(
 
     Bisection on the Monte Carlo yield over a factor ``s`` in ``[0, max_scale]``
     on that parameter's sigma (the others at theirs), with common random
-    numbers: the same ``z`` and island uniforms at every step, so the yield
+    numbers: the same ``z`` at every step, so the yield
     changes only through ``s``. With ``joint_thickness`` a last row scales
     every layer's thickness sigma by one common factor (the question "how
     well must the whole growth hold its monolayers?", which a single layer
@@ -515,9 +612,7 @@ def allocate_tolerances(
         def yield_at(s: float, idx: list[int] = idx, label: str = label) -> float:
             scale = np.ones(len(names))
             scale[idx] = s
-            metrics = run(
-                model.as_grown(z, island_u=island_u, sigma_scale=scale), desc=f"allocate {label}"
-            )
+            metrics = run(model.grow(z, sigma_scale=scale), desc=f"allocate {label}")
             return float(np.mean(spec.passes(metrics)))
 
         rec: dict[str, Any] = {
@@ -561,6 +656,30 @@ def allocate_tolerances(
 # --------------------------------------------------------------------------- driver
 
 
+def _island_note(islands: dict[str, Any]) -> str:
+    if not islands["layers"]:
+        return (
+            "monolayer islands not modelled ([growth] island_layers = 0): every layer at its "
+            "continuous thickness"
+        )
+    text = (
+        "monolayer islands: each as-grown sample is the area-weighted mixture of the I-Vs of "
+        f"the whole-monolayer stacks of {', '.join(islands['layers'])}"
+    )
+    if not islands["continuous_layers"]:
+        return text + " (every combination, exact)"
+    text += f"; {', '.join(islands['continuous_layers'])} kept at their continuous thickness"
+    check = islands.get("check")
+    if check and check.get("peak_current_density_a_cm2") is not None:
+        text += (
+            f" (truncation error against the mixture over every layer, largest on "
+            f"{check['samples']} samples: Jp {100 * check['peak_current_density_a_cm2']:.2g} %, "
+            f"Vp {100 * (check['peak_voltage_v'] or 0):.2g} %, "
+            f"PVCR {100 * (check['pvcr'] or 0):.2g} %)"
+        )
+    return text
+
+
 def control_order(model: GrowthModel, scores: dict[str, float], measure: str) -> list[dict]:
     """What the grower should control hardest: the parameters grouped by what controls
     them (a source cell, a layer, a material's rate), each group scored by its largest
@@ -598,8 +717,14 @@ def run_tolerance(
     design: dict[str, Any] | None = None,
     figures: bool = True,
     second_order: bool = False,
+    island_checks: int = 4,
 ) -> dict[str, Any]:
     """The whole tolerance analysis of one design; optionally writes ``out_dir``.
+
+    The island layers are chosen first (:func:`with_island_layers`); with
+    ``island_checks`` > 0 and layers left continuous, the first
+    ``island_checks`` Monte Carlo samples are also evaluated with the full
+    mixture to measure the truncation error (``islands.check``).
 
     ``method``: ``mc`` (yield, tornado, allocation), ``morris`` (adds Morris
     screening with ``max(2, samples // (n_params + 1))`` trajectories) or
@@ -613,7 +738,8 @@ def run_tolerance(
     ``sobol_second_order`` {metric name and ``pass`` -> pairs ``{parameters,
     index, conf}``, largest first} (only with ``second_order``, which spends the
     budget on ``N (2 D + 2)`` instead of ``N (D + 2)`` evaluations);
-    ``morris``; ``tornado``; ``allocation``; ``parameters`` [{name, kind,
+    ``morris``; ``tornado``; ``islands`` {layers, continuous_layers, curvatures,
+    check}; ``allocation``; ``parameters`` [{name, kind,
     sigma, unit, control}]; ``control_order`` (:func:`control_order`: source
     cells and layers, the one to control hardest first); ``nominal`` metrics; ``spec``; ``settings``; ``notes``.
     """
@@ -622,6 +748,7 @@ def run_tolerance(
     rng = as_generator(seed)
     seeds = rng.spawn(4)
     notes: list[str] = []
+    model, tor = with_island_layers(model, run)
     mc = monte_carlo_yield(model, spec, run, samples=samples, seed=seeds[0])
     record: dict[str, Any] = {
         "design": design or {},
@@ -642,9 +769,13 @@ def run_tolerance(
         "sobol": {},
         "morris": {},
     }
-    tor = tornado(model.stack, run)
     record["nominal"] = tor["nominal"]
     record["tornado"] = tor["layers"]
+    islands = tor["islands"]
+    if islands["continuous_layers"] and island_checks > 0:
+        islands["check"] = island_truncation_error(model, run, mc["z"][:island_checks])
+    record["islands"] = islands
+    notes.append(_island_note(islands))
     d = len(model.parameters)
     ranking_source = None
     if method == "sobol":
@@ -704,7 +835,6 @@ def run_tolerance(
             run,
             parameters=ranking_source[:allocate],
             z=mc["z"],
-            island_u=mc["island_u"],
             target_yield=target_yield,
         )
     else:
