@@ -460,3 +460,100 @@ def test_island_layers_are_the_barriers_first(stack, oat):
     chosen = choose_island_layers(stack, ordered, max_layers=2)
     assert chosen == (names.index("barrier1"), names.index("barrier2"))
     assert choose_island_layers(stack, ordered, max_layers=len(ordered)) is None
+
+
+# --------------------------------------------------------------------------- wafer
+
+
+def _wafer_model(stack, wafer):
+    from wellwright.optimize.study.growth import parse_growth
+
+    table = {"thickness_ml_sigma": 0.0, "rate_sigma": 0.0, "x_sigma": 0.0, "doping_sigma": 0.0}
+    settings, per_layer = parse_growth({**table, "wafer": wafer})
+    return growth_model(stack, settings, per_layer)
+
+
+def test_wafer_profile_thins_every_layer_parabolically(stack):
+    # model definition ([growth.wafer], optimize/study/growth.py): t(r) = t0 (1 - loss (r/R)^2)
+    m = _wafer_model(stack, {"diameter_mm": 100.0, "thickness_loss": 0.04})
+    assert m.names == ("wafer.radius_mm",)
+    ml = m.thickness_ml(np.zeros((3, 1)), radius_mm=np.array([0.0, 25.0, 50.0]))
+    i = [lay.name for lay in stack.layers].index("well")
+    np.testing.assert_allclose(ml[:, i], 15.0 * np.array([1.0, 0.99, 0.96]), rtol=1e-12)
+    # a measured table, divided by its centre value
+    m = _wafer_model(stack, {"diameter_mm": 100.0, "thickness_profile": [[0, 1.01], [50, 0.99]]})
+    ml = m.thickness_ml(np.zeros((1, 1)), radius_mm=np.array([25.0]))
+    assert ml[0, i] == pytest.approx(15.0 * 1.0 / 1.01, rel=1e-12)
+    # the point yield's samples sit at the centre whatever their radius coordinate
+    ml = m.thickness_ml(np.full((1, 1), 3.0), sigma_scale=np.zeros(1))
+    assert ml[0, i] == pytest.approx(15.0, rel=1e-12)
+
+
+def test_wafer_yield_is_the_area_inside_the_passing_radius(stack):
+    # statistical test: positions are uniform over the wafer's area, so a spec met only
+    # inside radius r0 gives the area fraction (r0 / R)^2 (geometry), within the yield's
+    # 95 % Wilson interval (E. B. Wilson 1927); toy physics: Jp rises as the barriers thin
+    from wellwright.optimize.tolerance.analysis import wafer_yield
+
+    m = _wafer_model(stack, {"diameter_mm": 76.2, "thickness_loss": 0.1})
+    run = _ToyRunner()
+    radius = 38.1
+    r = np.linspace(0.0, radius, 40)
+    jp = run(m.grow(np.zeros((r.size, 1)), radius_mm=r))["peak_current_density_a_cm2"]
+    assert np.all(np.diff(jp) > 0)  # the premise: a spec on Jp cuts the wafer at one radius
+    r0 = 0.6 * radius
+    j0 = run(m.grow(np.zeros((1, 1)), radius_mm=np.array([r0])))["peak_current_density_a_cm2"][0]
+    spec = Spec((("peak_current_density_a_cm2", 0.0, j0),))
+    w = wafer_yield(m, spec, run, m.draw_z(3000, 11))
+    y = w["yield"]
+    assert y["ci_low"] <= (r0 / radius) ** 2 <= y["ci_high"]
+    inside = [g for g in w["rings"] if g["r_out_mm"] <= r0]
+    outside = [g for g in w["rings"] if g["r_in_mm"] >= r0]
+    assert inside and outside
+    assert all(g["value"] == 1.0 for g in inside) and all(g["value"] == 0.0 for g in outside)
+
+
+def test_tolerance_record_has_wafer_yield_and_map(stack, tmp_path):
+    m = _wafer_model(stack, {"diameter_mm": 76.2, "thickness_loss": 0.1})
+    spec = Spec((("peak_current_density_a_cm2", 0.0, 1.5e5),))
+    rec = run_tolerance(m, spec, _ToyRunner(), method="mc", samples=200, seed=1, out_dir=tmp_path)
+    assert set(rec["wafer_yield"]) >= {"value", "ci_low", "ci_high"}
+    assert rec["yield"]["value"] == 1.0  # at the centre the toy meets the spec
+    assert rec["wafer_yield"]["value"] < 1.0
+    assert (tmp_path / "wafer_map.png").is_file()
+    assert rec["allocation"] == [] or all(
+        a["parameter"] != "wafer.radius_mm" for a in rec["allocation"]
+    )
+
+
+@pytest.mark.parametrize(
+    ("wafer", "key", "text"),
+    [
+        ({"thickness_loss": 0.02}, "growth.wafer.diameter_mm", "missing"),
+        ({"diameter_mm": 5}, "growth.wafer.diameter_mm", "outside"),
+        ({"diameter_mm": 76.2, "edge": 1}, "growth.wafer.edge", "allowed: diameter_mm"),
+        (
+            {"diameter_mm": 76.2, "thickness_loss": 0.02, "thickness_profile": [[0, 1], [38.1, 1]]},
+            "growth.wafer.thickness_profile",
+            "not both",
+        ),
+        (
+            {"diameter_mm": 76.2, "thickness_profile": [[0, 1], [20, 0.99]]},
+            "growth.wafer.thickness_profile",
+            "edge",
+        ),
+        (
+            {"diameter_mm": 76.2, "thickness_profile": [[5, 1], [38.1, 0.99]]},
+            "growth.wafer.thickness_profile",
+            "from 0 mm",
+        ),
+        (0.02, "growth.wafer", "must be a table"),
+    ],
+)
+def test_bad_wafer_entries_name_the_key(wafer, key, text):
+    from wellwright.optimize.study.growth import parse_growth
+    from wellwright.physics.errors import InputError
+
+    with pytest.raises(InputError, match=text) as info:
+        parse_growth({"wafer": wafer}, source="s.toml")
+    assert info.value.key == key

@@ -244,6 +244,13 @@ def run(args: argparse.Namespace) -> int:
         f"yield {100 * y['value']:.1f} % (95 % Wilson interval {100 * y['ci_low']:.1f} to "
         f"{100 * y['ci_high']:.1f} %) over {y['samples']} as-grown samples"
     )
+    if "wafer_yield" in rec:
+        w = rec["wafer_yield"]
+        print(
+            f"wafer yield {100 * w['value']:.1f} % (95 % Wilson interval {100 * w['ci_low']:.1f} "
+            f"to {100 * w['ci_high']:.1f} %) over a {rec['wafer']['diameter_mm']:g} mm wafer; "
+            "the yield above is at its centre"
+        )
     fails = {k: v for k, v in rec["failures"].items() if v}
     if fails:
         print("failures: " + ", ".join(f"{k} {v}" for k, v in fails.items()))

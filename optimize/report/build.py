@@ -439,6 +439,41 @@ def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[st
     return "".join(body), {"rank": d["rank"], "growth_sheet": sheet, "metrics": m}
 
 
+def _wafer_yield_html(records: list[dict], files: Path) -> str:
+    """Yield over the wafer's area beside the yield at its centre (``wafer_yield``)."""
+    rows, out = [], []
+    for r in records:
+        w = r.get("wafer_yield")
+        if w is None:
+            continue
+        d = r["wafer"]["diameter_mm"]
+        out.append(
+            [r["design"].get("rank"), d, w["value"], w["ci_low"], w["ci_high"], w["samples"]]
+        )
+        rows.append(
+            [
+                f"rank {r['design'].get('rank')}",
+                f"{d:g} mm",
+                f"{100 * w['value']:.1f} %",
+                f"{100 * w['ci_low']:.1f} to {100 * w['ci_high']:.1f} %",
+                f"{100 * r['yield']['value']:.1f} %",
+            ]
+        )
+    if not rows:
+        return ""
+    write_csv(
+        files / "wafer_yield.csv",
+        ["rank", "diameter_mm", "wafer_yield", "ci_low", "ci_high", "samples"],
+        out,
+    )
+    return (
+        "<p><b>Yield per wafer</b>: the share of the wafer's area on which a device meets the "
+        "spec (the same as-grown samples, each placed uniformly over the wafer with the "
+        "study's [growth.wafer] radial profile), beside the yield at the centre above.</p>"
+        + _table(["design", "wafer", "wafer yield", "95 % interval", "at the centre"], rows)
+    )
+
+
 def _control_html(record: dict[str, Any], files: Path, tag: str) -> str:
     """What the grower controls hardest: source cells and layers, ranked (``control_order``)."""
     order = record.get("control_order") or []
@@ -517,6 +552,7 @@ def _growth(
         "(E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927)).</p>"
     )
     body.append(_table(["design", "yield", "95 % interval", "passed", "failures by spec"], yrows))
+    body.append(_wafer_yield_html(records, files))
     body.append(
         figs.html(
             "yield.png",
@@ -561,6 +597,18 @@ def _growth(
                 "(method mc, or every index zero).</p>"
             )
         body.append(_control_html(r, files, tag))
+        if figs.add_file(tdir / "wafer_map.png", f"{tag}_wafer_map.png") is not None:
+            body.append(
+                figs.html(
+                    f"{tag}_wafer_map.png",
+                    "Wafer map: the probability that a device meets the spec in each "
+                    "equal-area ring (left; from the as-grown samples placed uniformly over the "
+                    "wafer), the nominal design's peak current density across the wafer with "
+                    "only the reactor's radial profile (middle), and both against the radius "
+                    "with 95 % Wilson intervals (right).",
+                    "wafer map",
+                )
+            )
         src = tdir / "tornado_peak_current_density_a_cm2.png"
         if figs.add_file(src, f"{tag}_tornado.png") is not None:
             body.append(

@@ -21,6 +21,10 @@ sampler: the yields of one study must stay comparable across resumed runs and
 machines). Sample ``k`` of every design therefore sees the same thickness
 error on ``barrier1``, the same ``AlAs.rate`` error, and so on.
 
+With ``[growth.wafer]`` each sample also sits at its own place on the wafer,
+so the yield a robust search maximises is the wafer yield (the share of the
+wafer's area where a device meets the spec).
+
 Evaluation
 ----------
 Each sample is the island mixture of whole-monolayer stacks

@@ -110,6 +110,7 @@ GROWTH_KINDS = {
     "rate": ("growth rate", "relative"),
     "x": ("composition x", "absolute"),
     "doping": ("doping", "relative"),
+    "radius_mm": ("radius", "mm"),
 }
 #: Design-variable keys (the suffix of ``<layer>.<key>``) in words, with unit.
 VARIABLE_KEYS = {

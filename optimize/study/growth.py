@@ -22,6 +22,12 @@ cells" below)::
     Al = {flux_sigma = 0.01}
     Si = {flux_sigma = 0.05}     # the dopant cell of every doped layer
 
+and the wafer (``[growth.wafer]``, see "Wafer" below)::
+
+    [growth.wafer]
+    diameter_mm = 76.2           # a 3-inch wafer
+    thickness_loss = 0.02        # 2 % thinner at the edge than at the centre, parabolic
+
 The defaults are typical figures for molecular-beam epitaxy of III-V RTDs
 (common practice, from memory; no single published source): about half a
 monolayer of random thickness error per layer, a per cent of growth-rate
@@ -40,7 +46,8 @@ Variation parameters (one standard-normal coordinate ``z`` each)
   ``[growth.cells]``);
 - ``<layer>.x``: absolute composition error of an alloy layer (contacts
   included: their band edge sets the emitter Fermi level);
-- ``<layer>.doping``: relative doping error of a doped layer.
+- ``<layer>.doping``: relative doping error of a doped layer;
+- ``wafer.radius_mm``: the device's place on the wafer (with ``[growth.wafer]``).
 
 As-grown thickness (Notes)
 --------------------------
@@ -84,6 +91,21 @@ given adds an independent per-layer error), and ``doping_sigma`` defaults to
 0 when a dopant cell is declared. The per-layer ``thickness_ml_sigma``
 (random monolayer error) and the layers' own overrides stay.
 
+Wafer (Notes)
+-------------
+Layers thin from the centre to the edge of the wafer by about one to a few
+per cent over 2" to 4" (common practice; the shape depends on the reactor).
+With ``[growth.wafer]`` a device sits at radius ``r`` on the wafer, drawn
+uniformly over its area (``r = R sqrt(u)``, ``u`` uniform; in the standard
+normal coordinate of the parameter ``wafer.radius_mm``, ``u = Phi(z)``), and
+every grown layer's thickness is multiplied by ``1 - loss (r / R)^2``
+(``thickness_loss``, parabolic) or by the measured relative thickness
+interpolated in ``thickness_profile = [[r_mm, relative], ...]`` (divided by
+its centre value); ``x_shift`` (absolute) and ``doping_change`` (relative)
+change every composition and doping by that much at the edge, parabolically.
+The yield at the centre is the point yield; the yield over the wafer's area
+(the share of devices meeting the spec) is the wafer yield.
+
 Island model (monolayers are discrete)
 --------------------------------------
 A layer whose as-grown thickness falls between two whole monolayers
@@ -126,6 +148,7 @@ from wellwright.physics.stack import LayerTable, Stack
 __all__ = [
     "GrowthSettings",
     "CellSettings",
+    "WaferSettings",
     "GrowthParameter",
     "GrowthModel",
     "DEFAULT_GROWTH",
@@ -158,6 +181,13 @@ CELL_KEYS: dict[str, tuple[float, float, str]] = {
     "flux_sigma": (0.0, 0.5, "relative"),
     "drift_sigma": (0.0, 0.5, "relative, start to end of the run"),
 }
+#: Keys of ``[growth.wafer]``: (low, high, unit); ``thickness_profile`` is a table.
+WAFER_KEYS: dict[str, tuple[float, float, str]] = {
+    "diameter_mm": (10.0, 450.0, "mm"),
+    "thickness_loss": (0.0, 0.5, "fraction lost from centre to edge"),
+    "x_shift": (-0.1, 0.1, "absolute composition change from centre to edge"),
+    "doping_change": (-0.5, 0.5, "relative doping change from centre to edge"),
+}
 #: flux_sigma of a cell that does not give one: the rate_sigma / doping_sigma defaults.
 DEFAULT_FLUX_SIGMA = {"group-III": 0.01, "dopant": 0.05}
 
@@ -189,6 +219,35 @@ class CellSettings:
 
 
 @dataclass(frozen=True)
+class WaferSettings:
+    """The wafer and its radial profile (see "Wafer" in the module docstring)."""
+
+    diameter_mm: float
+    thickness_loss: float = 0.0
+    thickness_profile: tuple[tuple[float, float], ...] = ()  #: (radius_mm, relative thickness)
+    x_shift: float = 0.0
+    doping_change: float = 0.0
+
+    @property
+    def radius_mm(self) -> float:
+        return 0.5 * self.diameter_mm
+
+    def radius_of(self, z: np.ndarray) -> np.ndarray:
+        """Radius, mm, of standard-normal coordinates: uniform over the wafer's area."""
+        from scipy.special import ndtr
+
+        return self.radius_mm * np.sqrt(ndtr(np.asarray(z, float)))
+
+    def thickness_factor(self, radius_mm: np.ndarray) -> np.ndarray:
+        """As-grown over centre thickness at ``radius_mm``."""
+        r = np.asarray(radius_mm, float)
+        if self.thickness_profile:
+            rs, vs = np.array(self.thickness_profile, float).T
+            return np.interp(r, rs, vs) / np.interp(0.0, rs, vs)
+        return 1.0 - self.thickness_loss * (r / self.radius_mm) ** 2
+
+
+@dataclass(frozen=True)
 class GrowthSettings:
     """One-sigma growth errors (defaults: typical practice, see module docstring).
 
@@ -200,6 +259,7 @@ class GrowthSettings:
     x_sigma: float = 0.005
     doping_sigma: float = 0.05
     cells: tuple[CellSettings, ...] = ()
+    wafer: WaferSettings | None = None
     #: layers taken as monolayer islands per design (2**n stacks per sample; see the
     #: module docstring); 0 keeps every layer at its continuous thickness (fastest)
     island_layers: int = 3
@@ -229,7 +289,8 @@ class GrowthParameter:
 
     @property
     def unit(self) -> str:
-        return "ML" if self.kind == "thickness" else "absolute" if self.kind == "x" else "relative"
+        units = {"thickness": "ML", "x": "absolute", "wafer": "mm"}
+        return units.get(self.kind, "relative")
 
     @property
     def control(self) -> str:
@@ -238,6 +299,8 @@ class GrowthParameter:
             return f"{self.cell} cell"
         if self.kind == "rate":
             return f"{self.name.rsplit('.', 1)[0]} growth rate"
+        if self.kind == "wafer":
+            return "wafer uniformity"
         return f"layer {self.name.rsplit('.', 1)[0]}"
 
 
@@ -285,7 +348,7 @@ def parse_growth(
         raise InputError("must be a table, e.g. [growth]", source=source, key="growth")
     values: dict[str, Any] = {}
     for key, value in table.items():
-        if key == "cells":
+        if key in ("cells", "wafer"):
             continue
         if key == "island_layers":
             if isinstance(value, bool) or not isinstance(value, int) or not 0 <= value <= 8:
@@ -298,7 +361,8 @@ def parse_growth(
             continue
         if key not in GROWTH_KEYS:
             raise InputError(
-                f"unknown key; allowed: {', '.join(GROWTH_KEYS)}, island_layers, [growth.cells]",
+                f"unknown key; allowed: {', '.join(GROWTH_KEYS)}, island_layers, "
+                "[growth.cells], [growth.wafer]",
                 source=source,
                 key=f"growth.{key}",
             )
@@ -315,6 +379,8 @@ def parse_growth(
         values.setdefault("x_sigma", 0.0)
         if any(c.dopant for c in cells):
             values.setdefault("doping_sigma", 0.0)
+    if "wafer" in table:
+        values["wafer"] = _parse_wafer(table["wafer"], source=source)
     settings = GrowthSettings(**values)
     per_layer: dict[str, GrowthSettings] = {}
     names = list(layer_names)
@@ -385,6 +451,74 @@ def _parse_cells(table: Any, *, source: str) -> tuple[CellSettings, ...]:
             key="growth.cells",
         )
     return tuple(cells)
+
+
+def _parse_wafer(table: Any, *, source: str) -> WaferSettings:
+    """``[growth.wafer]``: diameter and radial profile."""
+    if not isinstance(table, dict):
+        raise InputError(
+            "must be a table, e.g. {diameter_mm = 76.2, thickness_loss = 0.02}",
+            source=source,
+            key="growth.wafer",
+        )
+    vals: dict[str, Any] = {}
+    for k, v in table.items():
+        key = f"growth.wafer.{k}"
+        if k == "thickness_profile":
+            vals[k] = _parse_profile(v, key, source=source)
+        elif k in WAFER_KEYS:
+            vals[k] = _check_range(v, WAFER_KEYS[k], key, source=source, layer=None)
+        else:
+            raise InputError(
+                f"unknown key; allowed: {', '.join(WAFER_KEYS)}, thickness_profile",
+                source=source,
+                key=key,
+            )
+    if "diameter_mm" not in vals:
+        raise InputError(
+            "missing, e.g. diameter_mm = 76.2", source=source, key="growth.wafer.diameter_mm"
+        )
+    if "thickness_profile" in vals and "thickness_loss" in vals:
+        raise InputError(
+            "give thickness_loss or thickness_profile, not both",
+            source=source,
+            key="growth.wafer.thickness_profile",
+        )
+    wafer = WaferSettings(**vals)
+    if wafer.thickness_profile and wafer.thickness_profile[-1][0] < wafer.radius_mm - 1e-9:
+        raise InputError(
+            f"must reach the wafer's edge ({wafer.radius_mm:g} mm)",
+            source=source,
+            key="growth.wafer.thickness_profile",
+        )
+    return wafer
+
+
+def _parse_profile(value: Any, key: str, *, source: str) -> tuple[tuple[float, float], ...]:
+    form = "a list of [radius_mm, relative thickness] pairs from 0 mm, radii increasing"
+    ok = isinstance(value, list) and len(value) >= 2
+    pairs = []
+    for item in value if ok else []:
+        if not (
+            isinstance(item, list)
+            and len(item) == 2
+            and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in item)
+        ):
+            ok = False
+            break
+        pairs.append((float(item[0]), float(item[1])))
+    if ok:
+        r = [p[0] for p in pairs]
+        ok = (
+            r[0] == 0.0
+            and all(b > a for a, b in zip(r, r[1:]))
+            and all(0.5 <= p[1] <= 1.5 for p in pairs)
+        )
+    if not ok:
+        raise InputError(
+            f"must be {form}, relative thickness in [0.5, 1.5]", source=source, key=key
+        )
+    return tuple(pairs)
 
 
 def split_layer_growth(data: dict[str, Any]) -> tuple[dict[str, Any], dict[str, Any]]:
@@ -507,6 +641,7 @@ class GrowthModel:
     island_layers: tuple[int, ...] | None = None
     #: how many layers the choice may take (``[growth] island_layers``)
     max_island_layers: int = 3
+    wafer: WaferSettings | None = None
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -536,14 +671,30 @@ class GrowthModel:
                 out[:, self.cells.names.index(p.cell)] = dev[:, j]
         return out
 
+    def radius_mm(self, z: np.ndarray, radius_mm: np.ndarray | None = None) -> np.ndarray | None:
+        """Each sample's radius on the wafer, mm (None without ``[growth.wafer]``)."""
+        j = next((j for j, p in enumerate(self.parameters) if p.kind == "wafer"), None)
+        if j is None or self.wafer is None:
+            return None
+        if radius_mm is not None:
+            return np.broadcast_to(np.asarray(radius_mm, float), (np.atleast_2d(z).shape[0],))
+        return self.wafer.radius_of(np.atleast_2d(np.asarray(z, float))[:, j])
+
     def grown_fields(
-        self, z: np.ndarray, *, sigma_scale: np.ndarray | None = None
+        self,
+        z: np.ndarray,
+        *,
+        sigma_scale: np.ndarray | None = None,
+        radius_mm: np.ndarray | None = None,
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """As-grown monolayers (before the island step), compositions and doping factors.
 
         Returns ``(thickness_ml, x, doping_factor)``, each ``(n, n_layers)``:
         ``thickness_ml`` NaN for the contacts, ``x`` NaN for layers without a
         composition, ``doping_factor`` the as-grown over nominal doping.
+        ``radius_mm`` (with ``[growth.wafer]``) puts the samples at those radii
+        instead of the ones their ``wafer.radius_mm`` coordinate gives; a
+        ``sigma_scale`` of 0 on that parameter puts them at the centre.
         """
         dev = self._deviations(z, sigma_scale)
         n, n_layers = dev.shape[0], self.nominal_ml.size
@@ -574,18 +725,32 @@ class GrowthModel:
                 doping[:, cols] *= 1.0 + dev[:, j, None]
             elif p.kind == "drift" and p.cell in DOPANT_CELLS:
                 doping[:, cols] *= 1.0 + dev[:, j, None] * position[cols]
+            elif p.kind == "wafer":
+                scale = 1.0 if sigma_scale is None else float(np.asarray(sigma_scale)[j])
+                r = self.radius_mm(z, radius_mm)
+                w = self.wafer
+                edge = (r / w.radius_mm) ** 2 * scale
+                rate *= (1.0 + (w.thickness_factor(r) - 1.0) * scale)[:, None]
+                x += w.x_shift * edge[:, None]
+                doping *= (1.0 + w.doping_change * edge)[:, None]
         return ml * rate + extra, np.clip(x, 0.0, 1.0), np.maximum(doping, 0.01)
 
-    def thickness_ml(self, z: np.ndarray, *, sigma_scale: np.ndarray | None = None) -> np.ndarray:
+    def thickness_ml(
+        self,
+        z: np.ndarray,
+        *,
+        sigma_scale: np.ndarray | None = None,
+        radius_mm: np.ndarray | None = None,
+    ) -> np.ndarray:
         """As-grown (continuous) monolayer counts ``(n, n_layers)`` before the island step."""
-        return self.grown_fields(z, sigma_scale=sigma_scale)[0]
+        return self.grown_fields(z, sigma_scale=sigma_scale, radius_mm=radius_mm)[0]
 
     def composition(self, z: np.ndarray, *, sigma_scale: np.ndarray | None = None) -> np.ndarray:
         """As-grown compositions ``(n, n_layers)`` (NaN for layers without one)."""
         return self.grown_fields(z, sigma_scale=sigma_scale)[1]
 
     def _continuous(
-        self, z: np.ndarray, sigma_scale: np.ndarray | None
+        self, z: np.ndarray, sigma_scale: np.ndarray | None, radius_mm: np.ndarray | None = None
     ) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray]:
         """Per-sample layer columns (materials, doping) and continuous monolayers.
 
@@ -593,7 +758,7 @@ class GrowthModel:
         for layers not grown in monolayers (contacts), at least one monolayer
         elsewhere.
         """
-        ml, x, doping_factor = self.grown_fields(z, sigma_scale=sigma_scale)
+        ml, x, doping_factor = self.grown_fields(z, sigma_scale=sigma_scale, radius_mm=radius_mm)
         n = ml.shape[0]
         t = self.nominal
         rows = lambda a: np.broadcast_to(a[0], (n, a.shape[1])).copy()  # noqa: E731
@@ -687,13 +852,19 @@ class GrowthModel:
             whole = low + (u < (ml - low))
         return self._table(cols, mono, whole)
 
-    def grow(self, z: np.ndarray, *, sigma_scale: np.ndarray | None = None) -> AsGrown:
+    def grow(
+        self,
+        z: np.ndarray,
+        *,
+        sigma_scale: np.ndarray | None = None,
+        radius_mm: np.ndarray | None = None,
+    ) -> AsGrown:
         """As-grown devices: each sample the island mixture of whole-monolayer stacks.
 
         See :mod:`wellwright.physics.islands`: the layers ``island_layers``
         as islands (``2**k`` stacks per sample), the others continuous.
         """
-        cols, mono, ml = self._continuous(z, sigma_scale)
+        cols, mono, ml = self._continuous(z, sigma_scale, radius_mm)
         return self._mixture(cols, mono, ml)
 
     def grow_shifted(self, delta_ml: np.ndarray) -> AsGrown:
@@ -805,6 +976,9 @@ def growth_model(
                 params.append(
                     GrowthParameter(f"{mat}.rate", "rate", settings.rate_sigma, tuple(idx))
                 )
+    if settings.wafer is not None:
+        grown = tuple(i for i in range(n) if np.isfinite(nominal_ml[i]))
+        params.append(GrowthParameter("wafer.radius_mm", "wafer", 1.0, grown))
     a_sub = None
     if stack.substrate is not None:
         name, x = materials.parse_material(stack.substrate)
@@ -817,4 +991,5 @@ def growth_model(
         substrate_lattice_nm=a_sub,
         cells=use,
         max_island_layers=settings.island_layers,
+        wafer=settings.wafer,
     )

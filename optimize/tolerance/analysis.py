@@ -52,12 +52,16 @@ __all__ = [
     "island_truncation_error",
     "control_order",
     "run_tolerance",
+    "wafer_yield",
+    "point_scale",
     "METHODS",
 ]
 
 METHODS = ("sobol", "morris", "mc")
 #: z is clipped to this many sigma when uniform design points are mapped to normals.
 Z_CLIP = 6.0
+#: The growth parameter of a device's place on the wafer (never allocated a tolerance).
+WAFER_PARAMETER = "wafer.radius_mm"
 #: A Sobol run whose widest pass/fail total-index half-width exceeds this gets a note.
 SOBOL_WIDE_CONF = 0.1
 
@@ -250,11 +254,12 @@ def monte_carlo_yield(
     ``solve_failed``: samples whose self-consistent solve did not converge, failed),
     ``metrics`` (arrays), ``passed`` (bool array) and ``z`` (the random
     numbers, reused as common random numbers by the allocation). Each sample is
-    the island mixture of :meth:`GrowthModel.grow`.
+    the island mixture of :meth:`GrowthModel.grow`, at the wafer's centre (see
+    :func:`wafer_yield` for the yield over the wafer).
     """
     rng = as_generator(seed)
     z = model.draw_z(samples, rng)
-    metrics = run(model.grow(z), desc="Monte Carlo")
+    metrics = run(model.grow(z, sigma_scale=point_scale(model)), desc="Monte Carlo")
     ok = spec.passes(metrics)
     failures = {name: int(np.count_nonzero(m)) for name, m in spec.misses(metrics).items()}
     failed = np.asarray(metrics.get(SOLVE_FAILED, np.zeros(samples))) > 0
@@ -268,6 +273,51 @@ def monte_carlo_yield(
         "metrics": metrics,
         "passed": ok,
         "z": z,
+    }
+
+
+def point_scale(model: GrowthModel) -> np.ndarray | None:
+    """Sigma factors that put every sample at the wafer's centre (None without a wafer)."""
+    kinds = [p.kind for p in model.parameters]
+    if "wafer" not in kinds:
+        return None
+    return np.array([0.0 if k == "wafer" else 1.0 for k in kinds])
+
+
+def wafer_yield(
+    model: GrowthModel, spec: Spec, run: Runner, z: np.ndarray, *, rings: int | None = None
+) -> dict[str, Any]:
+    """Yield over the wafer's area: the samples ``z`` at their own places on the wafer.
+
+    Returns ``yield`` (:func:`yield_record`: the share of the wafer's area
+    where a device meets the spec, with its Wilson interval [1]_),
+    ``radius_mm`` and ``passed`` per sample, ``rings`` (equal-area rings,
+    ``{r_in_mm, r_out_mm, samples, passed, value, ci_low, ci_high}``: the pass
+    probability by radius) and ``profile`` (the nominal design's figures of
+    merit at 13 radii from the centre to the edge, only the wafer's profile
+    applied: ``{radius_mm, <metric>...}``).
+    """
+    wafer = model.wafer
+    r = model.radius_mm(z)
+    ok = spec.passes(run(model.grow(z), desc="wafer"))
+    n_rings = rings or int(np.clip(z.shape[0] // 48, 3, 8))
+    edges = wafer.radius_mm * np.sqrt(np.linspace(0.0, 1.0, n_rings + 1))
+    ring = np.clip(np.searchsorted(edges, r, side="right") - 1, 0, n_rings - 1)
+    ring_rows = []
+    for k in range(n_rings):
+        rec = yield_record(ok[ring == k])
+        ring_rows.append({"r_in_mm": float(edges[k]), "r_out_mm": float(edges[k + 1]), **rec})
+    radii = np.linspace(0.0, wafer.radius_mm, 13)
+    only = np.array([1.0 if p.kind == "wafer" else 0.0 for p in model.parameters])
+    zeros = np.zeros((radii.size, len(model.parameters)))
+    nominal = run(model.grow(zeros, sigma_scale=only, radius_mm=radii), desc="wafer profile")
+    profile = [{"radius_mm": float(radii[i]), **_clean(nominal, i)} for i in range(radii.size)]
+    return {
+        "yield": yield_record(ok),
+        "radius_mm": r,
+        "passed": ok,
+        "rings": ring_rows,
+        "profile": profile,
     }
 
 
@@ -591,7 +641,7 @@ def allocate_tolerances(
 
     Bisection on the Monte Carlo yield over a factor ``s`` in ``[0, max_scale]``
     on that parameter's sigma (the others at theirs), with common random
-    numbers: the same ``z`` at every step, so the yield
+    numbers: the same ``z`` at every step (at the wafer's centre), so the yield
     changes only through ``s``. With ``joint_thickness`` a last row scales
     every layer's thickness sigma by one common factor (the question "how
     well must the whole growth hold its monolayers?", which a single layer
@@ -601,6 +651,8 @@ def allocate_tolerances(
     ``max_scale * sigma`` (with a note) when the target holds up to there.
     """
     names = list(model.names)
+    base = point_scale(model)
+    base = np.ones(len(names)) if base is None else base
     groups: list[tuple[str, list[int]]] = [(p, [names.index(p)]) for p in parameters]
     thickness = [j for j, par in enumerate(model.parameters) if par.kind == "thickness"]
     if joint_thickness and len(thickness) > 1:
@@ -610,7 +662,7 @@ def allocate_tolerances(
         sig = float(np.max([model.sigmas[j] for j in idx]))
 
         def yield_at(s: float, idx: list[int] = idx, label: str = label) -> float:
-            scale = np.ones(len(names))
+            scale = base.copy()
             scale[idx] = s
             metrics = run(model.grow(z, sigma_scale=scale), desc=f"allocate {label}")
             return float(np.mean(spec.passes(metrics)))
@@ -680,6 +732,24 @@ def _island_note(islands: dict[str, Any]) -> str:
     return text
 
 
+def _wafer_record(model: GrowthModel, mc: dict[str, Any]) -> dict[str, Any]:
+    if "wafer" not in mc:
+        return {}
+    w = model.wafer
+    return {
+        "wafer_yield": mc["wafer"]["yield"],
+        "wafer": {
+            "diameter_mm": w.diameter_mm,
+            "thickness_loss": w.thickness_loss if not w.thickness_profile else None,
+            "thickness_profile": [list(p) for p in w.thickness_profile] or None,
+            "x_shift": w.x_shift,
+            "doping_change": w.doping_change,
+            "rings": mc["wafer"]["rings"],
+            "profile": mc["wafer"]["profile"],
+        },
+    }
+
+
 def control_order(model: GrowthModel, scores: dict[str, float], measure: str) -> list[dict]:
     """What the grower should control hardest: the parameters grouped by what controls
     them (a source cell, a layer, a material's rate), each group scored by its largest
@@ -732,7 +802,10 @@ def run_tolerance(
     ``<= samples // (n_params + 2)`` base samples, at least 8).
 
     The record (``tolerance.json``): ``yield`` {value, ci_low, ci_high,
-    samples, passed, confidence}; ``failures``; ``sobol`` {metric name and
+    samples, passed, confidence} (at the wafer's centre); with
+    ``[growth.wafer]`` also ``wafer_yield`` (the same fields, over the wafer's
+    area) and ``wafer`` {diameter_mm, profile settings, rings, profile} (see
+    :func:`wafer_yield`); ``failures``; ``sobol`` {metric name and
     ``pass`` -> list ordered by total index of {parameter, first_index,
     first_conf, total_index, total_conf}} (empty unless ``sobol``);
     ``sobol_second_order`` {metric name and ``pass`` -> pairs ``{parameters,
@@ -750,6 +823,8 @@ def run_tolerance(
     notes: list[str] = []
     model, tor = with_island_layers(model, run)
     mc = monte_carlo_yield(model, spec, run, samples=samples, seed=seeds[0])
+    if model.wafer is not None:
+        mc["wafer"] = wafer_yield(model, spec, run, mc["z"])
     record: dict[str, Any] = {
         "design": design or {},
         "parameters": [
@@ -766,6 +841,7 @@ def run_tolerance(
         ],
         "yield": mc["yield"],
         "failures": mc["failures"],
+        **_wafer_record(model, mc),
         "sobol": {},
         "morris": {},
     }
@@ -833,7 +909,7 @@ def run_tolerance(
             model,
             spec,
             run,
-            parameters=ranking_source[:allocate],
+            parameters=[p for p in ranking_source if p != WAFER_PARAMETER][:allocate],
             z=mc["z"],
             target_yield=target_yield,
         )
@@ -865,13 +941,17 @@ def write_outputs(
     files = {}
     n = mc["passed"].size
     names = [p["name"] for p in record["parameters"]]
+    wafer = mc.get("wafer")
     head = ["sample", "passed", *METRIC_NAMES, *[f"z:{p}" for p in names]]
+    if wafer is not None:  # the same sample at its own place on the wafer
+        head += ["radius_mm", "passed_on_wafer"]
     rows = (
         [
             i,
             int(mc["passed"][i]),
             *[_clean(mc["metrics"], i)[k] for k in METRIC_NAMES],
             *mc["z"][i].tolist(),
+            *([] if wafer is None else [float(wafer["radius_mm"][i]), int(wafer["passed"][i])]),
         ]
         for i in range(n)
     )

@@ -1,4 +1,4 @@
-"""Figures of a tolerance analysis: histograms with the spec window, Sobol bars, tornado.
+"""Figures of a tolerance analysis: histograms with the spec window, Sobol bars, tornado, wafer map.
 
 Colours: the Okabe-Ito colour-blind-safe palette (M. Okabe and K. Ito,
 "Color Universal Design", 2002; hex values from memory). Units are the
@@ -15,7 +15,7 @@ import numpy as np
 from wellwright.optimize.shared import names
 from wellwright.optimize.shared.figures import PALETTE
 
-__all__ = ["save_all", "OKABE_ITO"]
+__all__ = ["save_all", "save_wafer_map", "OKABE_ITO"]
 
 OKABE_ITO = PALETTE  # one palette for every figure: wellwright.optimize.shared.figures.PALETTE
 
@@ -146,8 +146,102 @@ def save_tornado(
     return save_figure(fig, path)
 
 
+def _disk(ax, radius_mm: float, values_of_r, *, cmap: str, vmin: float, vmax: float):
+    """Colour a wafer disk by a function of the radius; outline and a 10 mm scale."""
+    x = np.linspace(-radius_mm, radius_mm, 241)
+    xx, yy = np.meshgrid(x, x)
+    rr = np.hypot(xx, yy)
+    img = np.ma.masked_where(rr > radius_mm, values_of_r(np.minimum(rr, radius_mm)))
+    im = ax.imshow(
+        img,
+        origin="lower",
+        extent=(-radius_mm, radius_mm, -radius_mm, radius_mm),
+        cmap=cmap,
+        vmin=vmin,
+        vmax=vmax,
+    )
+    t = np.linspace(0, 2 * np.pi, 361)
+    ax.plot(radius_mm * np.cos(t), radius_mm * np.sin(t), color=OKABE_ITO["black"], lw=1)
+    ax.set_aspect("equal")
+    ax.set_xlabel("x (mm)")
+    ax.set_ylabel("y (mm)")
+    return im
+
+
+def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
+    """Wafer map: pass probability by equal-area ring, nominal Jp across the wafer, and both
+    against the radius with the rings' Wilson intervals."""
+    from wellwright.optimize.shared.outputs import save_figure
+
+    wafer = record.get("wafer")
+    if not wafer:
+        return None
+    plt = _plt()
+    radius = 0.5 * wafer["diameter_mm"]
+    rings = wafer["rings"]
+    r_out = np.array([g["r_out_mm"] for g in rings])
+    p_ring = np.array([g["value"] if g["samples"] else np.nan for g in rings])
+    prof_r = np.array([q["radius_mm"] for q in wafer["profile"]])
+    key = "peak_current_density_a_cm2"
+    q = names.quantity(key)
+    jp = np.array([np.nan if v[key] is None else v[key] * q.factor for v in wafer["profile"]])
+    fig, axes = plt.subplots(1, 3, figsize=(13.5, 4.2))
+    im = _disk(
+        axes[0],
+        radius,
+        lambda r: p_ring[np.clip(np.searchsorted(r_out, r, side="left"), 0, len(rings) - 1)],
+        cmap="viridis",
+        vmin=0.0,
+        vmax=1.0,
+    )
+    fig.colorbar(im, ax=axes[0], shrink=0.85, label="probability to meet the spec")
+    axes[0].set_title("pass probability (equal-area rings)")
+    finite = jp[np.isfinite(jp)]
+    lo, hi = (finite.min(), finite.max()) if finite.size else (0.0, 1.0)
+    pad = max(1e-9, 0.02 * abs(hi))
+    im = _disk(
+        axes[1],
+        radius,
+        lambda r: np.interp(r, prof_r, jp),
+        cmap="cividis",
+        vmin=lo - pad,
+        vmax=hi + pad,
+    )
+    fig.colorbar(im, ax=axes[1], shrink=0.85, label=names.label(key))
+    axes[1].set_title("peak current density of the nominal design")
+    ax = axes[2]
+    mid = 0.5 * (np.array([g["r_in_mm"] for g in rings]) + r_out)
+    err = np.array([[g["value"] - g["ci_low"], g["ci_high"] - g["value"]] for g in rings]).T
+    ax.errorbar(
+        mid, p_ring, yerr=err, fmt="o", color=OKABE_ITO["blue"], capsize=3, label="pass probability"
+    )
+    ax.set_ylim(-0.02, 1.02)
+    ax.set_xlim(0, radius)
+    ax.set_xlabel("radius on the wafer (mm)")
+    ax.set_ylabel("probability to meet the spec (95 % Wilson)", color=OKABE_ITO["blue"])
+    twin = ax.twinx()
+    twin.plot(prof_r, jp, color=OKABE_ITO["vermillion"], lw=2, label="nominal Jp")
+    for s in record["spec"]:
+        if s["metric"] == key:
+            for bound in ("min", "max"):
+                if s[bound] is not None:
+                    twin.axhline(s[bound] * q.factor, color=OKABE_ITO["vermillion"], ls="--", lw=1)
+    twin.set_ylabel(names.label(key) + ", dashed: spec", color=OKABE_ITO["vermillion"])
+    ax.set_title("against the radius")
+    wy, py = record["wafer_yield"], record["yield"]
+    fig.suptitle(
+        f"wafer {wafer['diameter_mm']:g} mm: wafer yield {100 * wy['value']:.0f} % "
+        f"({100 * wy['ci_low']:.0f}-{100 * wy['ci_high']:.0f} %), at the centre "
+        f"{100 * py['value']:.0f} % (n = {wy['samples']})"
+    )
+    return save_figure(fig, path)
+
+
 def save_all(record: dict[str, Any], mc: dict[str, Any], out: Path) -> dict[str, str]:
     files = {"histograms": str(save_histograms(record, mc, out / "histograms.png"))}
+    p = save_wafer_map(record, out / "wafer_map.png")
+    if p is not None:
+        files["wafer_map"] = str(p)
     for key in record["sobol"]:
         p = save_sobol(record, out / f"sobol_{key}.png", key=key)
         if p is not None:
