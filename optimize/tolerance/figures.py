@@ -163,6 +163,7 @@ def _disk(ax, radius_mm: float, values_of_r, *, cmap: str, vmin: float, vmax: fl
     t = np.linspace(0, 2 * np.pi, 361)
     ax.plot(radius_mm * np.cos(t), radius_mm * np.sin(t), color=OKABE_ITO["black"], lw=1)
     ax.set_aspect("equal")
+    ax.grid(False)
     ax.set_xlabel("x (mm)")
     ax.set_ylabel("y (mm)")
     return im
@@ -185,7 +186,7 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
     key = "peak_current_density_a_cm2"
     q = names.quantity(key)
     jp = np.array([np.nan if v[key] is None else v[key] * q.factor for v in wafer["profile"]])
-    fig, axes = plt.subplots(1, 3, figsize=(13.5, 4.2))
+    fig, axes = plt.subplots(1, 3, figsize=(15.5, 4.6), layout="constrained")
     im = _disk(
         axes[0],
         radius,
@@ -195,7 +196,7 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
         vmax=1.0,
     )
     fig.colorbar(im, ax=axes[0], shrink=0.85, label="probability to meet the spec")
-    axes[0].set_title("pass probability (equal-area rings)")
+    axes[0].set_title("meets the spec (by equal-area ring)")
     finite = jp[np.isfinite(jp)]
     lo, hi = (finite.min(), finite.max()) if finite.size else (0.0, 1.0)
     pad = max(1e-9, 0.02 * abs(hi))
@@ -208,7 +209,7 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
         vmax=hi + pad,
     )
     fig.colorbar(im, ax=axes[1], shrink=0.85, label=names.label(key))
-    axes[1].set_title("peak current density of the nominal design")
+    axes[1].set_title("nominal design, reactor profile only")
     ax = axes[2]
     mid = 0.5 * (np.array([g["r_in_mm"] for g in rings]) + r_out)
     err = np.array([[g["value"] - g["ci_low"], g["ci_high"] - g["value"]] for g in rings]).T
@@ -218,7 +219,7 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
     ax.set_ylim(-0.02, 1.02)
     ax.set_xlim(0, radius)
     ax.set_xlabel("radius on the wafer (mm)")
-    ax.set_ylabel("probability to meet the spec (95 % Wilson)", color=OKABE_ITO["blue"])
+    ax.set_ylabel("probability to meet the spec", color=OKABE_ITO["blue"])
     twin = ax.twinx()
     twin.plot(prof_r, jp, color=OKABE_ITO["vermillion"], lw=2, label="nominal Jp")
     for s in record["spec"]:
@@ -226,8 +227,9 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
             for bound in ("min", "max"):
                 if s[bound] is not None:
                     twin.axhline(s[bound] * q.factor, color=OKABE_ITO["vermillion"], ls="--", lw=1)
-    twin.set_ylabel(names.label(key) + ", dashed: spec", color=OKABE_ITO["vermillion"])
-    ax.set_title("against the radius")
+    twin.set_ylabel(names.label(key), color=OKABE_ITO["vermillion"])
+    twin.grid(False)
+    ax.set_title("against the radius (bars: 95 % Wilson; dashed: Jp spec)")
     wy, py = record["wafer_yield"], record["yield"]
     fig.suptitle(
         f"wafer {wafer['diameter_mm']:g} mm: wafer yield {100 * wy['value']:.0f} % "
