@@ -485,7 +485,12 @@ def _control_html(record: dict[str, Any], files: Path, tag: str) -> str:
         [[c["control"], c["score"], c["measure"], " ".join(c["parameters"])] for c in order],
     )
     rows = [
-        [_esc(c["control"]), f"{c['score']:.3g}", _esc(", ".join(c["parameters"]))] for c in order
+        [
+            _esc(c["control"]),
+            f"{c['score']:.3g}",
+            _esc(", ".join(names.parameter_words(p) for p in c["parameters"])),
+        ]
+        for c in order
     ]
     return (
         f"<p><b>Control hardest</b> (per source cell and layer, by {_esc(order[0]['measure'])}): "
