@@ -14,6 +14,7 @@ import argparse
 import importlib
 import os
 import sys
+import warnings
 
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 from wellwright.physics.errors import InputError
@@ -91,6 +92,22 @@ def main(argv: list[str] | None = None) -> int:
     words = sys.argv[1:] if argv is None else argv
     parser = build_parser(next((w for w in words if not w.startswith("-")), None))
     args = parser.parse_args(argv)
+    with warnings.catch_warnings():
+        warnings.showwarning = _one_line_warning(args.command)
+        return _run(args)
+
+
+def _one_line_warning(command: str):
+    """``warnings.showwarning`` printing ``wellwright COMMAND: warning: message``, one line."""
+
+    def show(message, category, filename, lineno, file=None, line=None) -> None:
+        text = " ".join(str(message).split())
+        print(f"wellwright {command}: warning: {text}", file=sys.stderr if file is None else file)
+
+    return show
+
+
+def _run(args) -> int:
     try:
         return int(args.func(args) or 0)
     except InputError as exc:
