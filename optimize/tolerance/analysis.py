@@ -60,6 +60,9 @@ __all__ = [
 METHODS = ("sobol", "morris", "mc")
 #: z is clipped to this many sigma when uniform design points are mapped to normals.
 Z_CLIP = 6.0
+#: Monte Carlo samples the allocation's bisection reuses (the first ones; each bisection step
+#: evaluates them all, for every allocated parameter).
+ALLOCATION_SAMPLES = 256
 #: The growth parameter of a device's place on the wafer (never allocated a tolerance).
 WAFER_PARAMETER = "wafer.radius_mm"
 #: A Sobol run whose widest pass/fail total-index half-width exceeds this gets a note.
@@ -799,7 +802,8 @@ def run_tolerance(
     ``method``: ``mc`` (yield, tornado, allocation), ``morris`` (adds Morris
     screening with ``max(2, samples // (n_params + 1))`` trajectories) or
     ``sobol`` (adds Sobol indices with the largest power of two
-    ``<= samples // (n_params + 2)`` base samples, at least 8).
+    ``<= samples // (n_params + 2)`` base samples, at least 8). The allocation
+    reuses the first :data:`ALLOCATION_SAMPLES` Monte Carlo samples.
 
     The record (``tolerance.json``): ``yield`` {value, ci_low, ci_high,
     samples, passed, confidence} (at the wafer's centre); with
@@ -910,7 +914,7 @@ def run_tolerance(
             spec,
             run,
             parameters=[p for p in ranking_source if p != WAFER_PARAMETER][:allocate],
-            z=mc["z"],
+            z=mc["z"][:ALLOCATION_SAMPLES],
             target_yield=target_yield,
         )
     else:
