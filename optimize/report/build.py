@@ -274,6 +274,7 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
         ["rank", "trial", "meets spec"]
         + [metric_axis(k)[0] for k in METRIC_COLUMNS]
         + [_short(n) for n in study.parameter_names]
+        + ["at a range limit"]
     )
     rows = []
     for d in designs:
@@ -284,11 +285,21 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
             [f"{d['rank']}{star}", d["trial"], ok]
             + [names.format_value(k, m.get(k)) for k in METRIC_COLUMNS]
             + [_num(d["params"].get(n), spec=".4g") for n in study.parameter_names]
+            + [_esc(", ".join(names.variable_label(v) for v in d.get("at_range_limit") or []))]
         )
+    limits = sorted({v for d in designs[:reported] for v in d.get("at_range_limit") or []})
+    widen = (
+        "<p><b>At a range limit:</b> the analysed designs sit at an end of the range of "
+        + _esc(", ".join(names.variable_label(v) for v in limits))
+        + "; the best design may lie beyond it: widen that range and search again.</p>"
+        if limits
+        else ""
+    )
     return (
         f"<p>{search.get('complete', '?')} complete trials, {search.get('feasible', '?')} meet "
         "the spec and every constraint. The ten best distinct designs, best first; "
         f"* marks the {reported} analysed below.</p>"
+        + widen
         + '<div style="overflow-x:auto">'
         + _table(head, rows, left=1, raw=True)
         + "</div>"

@@ -118,6 +118,20 @@ def finite_or_none(value: float) -> float | None:
     return float(value) if math.isfinite(value) else None
 
 
+def at_range_limit(study: Study, params: dict[str, Any]) -> list[str]:
+    """Variables whose value sits on the lower or upper end of its range (the optimum may
+    lie beyond it: widen the range)."""
+    out = []
+    for v in study.variables:
+        value = params.get(v.name)
+        if value is None or not v.low < v.high:
+            continue
+        tol = 1e-9 * max(abs(v.low), abs(v.high), 1.0)
+        if value <= v.low + tol or value >= v.high - tol:
+            out.append(v.name)
+    return out
+
+
 def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     """One evaluated design as a plain record.
 
@@ -128,7 +142,8 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     ``metrics`` (every name of :data:`wellwright.physics.iv.METRIC_NAMES`, None for NaN),
     ``params`` (parameter name -> value), ``layers`` (name, material,
     label, x, thickness_ml, thickness_nm, doping_cm3; contacts have no
-    thickness), ``active_thickness_nm``, ``stack`` (a stack dictionary for
+    thickness), ``active_thickness_nm``, ``at_range_limit`` (the variables at an end of
+    their range, :func:`at_range_limit`), ``stack`` (a stack dictionary for
     :func:`wellwright.physics.stack.parse_stack`) and, when the study gives
     ``[device] area_um2``, ``device`` (the mesa's current in mA, conductance in
     mS, capacitance in fF, output power in uW:
@@ -155,6 +170,7 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
         else sum(layer["thickness_nm"] or 0.0 for layer in rec["layers"])
     )
     rec["stack"] = study.stack_dict(trial.params)
+    rec["at_range_limit"] = at_range_limit(study, trial.params)
     area = (rec["stack"].get("device") or {}).get("area_um2")
     if area is not None:  # the mesa's own quantities (mA, mS, fF, uW)
         per_area = {k: np.array([np.nan if v is None else v]) for k, v in rec["metrics"].items()}
@@ -294,6 +310,7 @@ def _designs_table(
     if study.search.robust:
         head += ["yield", "yield_ci_low", "yield_ci_high"]
     head += ["spec_violation", *METRIC_NAMES, *study.parameter_names, "active_thickness_nm"]
+    head += ["at_range_limit"]
     device_keys = sorted({k for d in designs for k in (d.get("device") or {})})
     head += device_keys
     rows = []
@@ -305,6 +322,7 @@ def _designs_table(
             row += [y.get("value"), y.get("ci_low"), y.get("ci_high")]
         row += [d["spec_violation"], *(d["metrics"][k] for k in METRIC_NAMES)]
         row += [d["params"].get(n) for n in study.parameter_names] + [d["active_thickness_nm"]]
+        row += [" ".join(d.get("at_range_limit") or [])]
         row += [(d.get("device") or {}).get(k) for k in device_keys]
         rows.append([f"{v:.6g}" if isinstance(v, float) else v for v in row])
     return head, rows

@@ -8,10 +8,13 @@ between machines. Each worker runs a batched ask-and-tell loop:
    :func:`wellwright.optimize.search.storage.fail_dead_trials`, so a run killed
    with ``kill -9`` resumes at once), copy new complete trials of other
    workers into the sampler's in-memory study, stop when the storage holds
-   ``trials`` complete trials (a total: rerunning with the same number
-   resumes up to it);
+   ``trials`` distinct evaluated designs, or every design when the space is
+   a grid smaller than that (:func:`design_budget`; a total: rerunning with
+   the same number resumes up to it); a repeated design is copied and not
+   counted;
 2. ask up to ``batch`` trials of the in-memory study (the sampler never
-   waits on the database), copy the results of any design already
+   waits on the database; a space that fits the budget is enumerated, see
+   :meth:`_Worker._enqueue_grid`), copy the results of any design already
    evaluated, evaluate the rest in one batched kernel call;
 3. write each trial of the batch in one storage call with all its
    parameters, attributes and constraints, complete those within the total,
@@ -57,6 +60,7 @@ names are re-exported here.
 from __future__ import annotations
 
 import concurrent.futures
+import itertools
 import multiprocessing
 import os
 import time
@@ -92,6 +96,7 @@ from wellwright.optimize.search.storage import (
     storage_url,
     worker_identity,
 )
+from wellwright.optimize.study.space import grid_size, grid_values
 from wellwright.optimize.study.study import MAX_ROBUST_SAMPLES, MIN_ROBUST_SAMPLES, Study
 from wellwright.optimize.tolerance.analysis import yield_record
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
@@ -108,6 +113,8 @@ __all__ = [
     "storage_url",
     "make_storage",
     "make_sampler",
+    "design_budget",
+    "grid_designs",
     "rank_trials",
     "design_record",
     "layer_records",
@@ -123,6 +130,9 @@ __all__ = [
 
 #: Seconds between checks while waiting for other workers' trials to finish.
 POLL_S = 0.5
+#: A sampler that keeps proposing known designs stops after this many repeats per design
+#: of the budget (repeats are copied from storage and never counted).
+MAX_REPEATS = 4
 
 #: Physics errors that mark one design as not evaluable (it is then infeasible,
 #: with the message in its ``error`` attribute) instead of stopping the search.
@@ -171,6 +181,27 @@ def make_sampler(study: Study, *, seed: int, n_trials: int) -> optuna.samplers.B
             multivariate=s.multivariate,
             constant_liar=True,
         )
+
+
+def design_budget(study: Study, trials: int) -> int:
+    """Distinct designs a search of ``trials`` evaluates: ``trials``, or the whole grid if smaller.
+
+    A trial that repeats a design already evaluated is answered from storage
+    (``duplicate_of``) and does not count; a sampler that keeps repeating is
+    stopped after :data:`MAX_REPEATS` repeats per design of the budget.
+    """
+    grid = grid_values(study.variables)
+    return trials if grid is None else min(trials, grid_size(grid))
+
+
+def grid_designs(study: Study, *, trials: int, seed: int) -> list[dict[str, Any]]:
+    """Every design of a space on a grid with at most ``trials`` designs, in an order
+    shuffled by ``seed``; empty when the space is continuous or larger."""
+    grid = grid_values(study.variables)
+    if grid is None or grid_size(grid) > trials:
+        return []
+    designs = [dict(zip(grid, values, strict=True)) for values in itertools.product(*grid.values())]
+    return [designs[i] for i in np.random.default_rng(seed).permutation(len(designs))]
 
 
 def _worker_seed(seed: int, worker: int, n_existing: int) -> int:
@@ -374,6 +405,11 @@ class _Worker:
             self.study, seed=_worker_seed(job.seed, job.worker, len(existing)), n_trials=job.target
         )
         self.memory = optuna.create_study(directions=list(self.study.directions), sampler=sampler)
+        self.budget = design_budget(self.study, job.target)
+        self.grid = grid_designs(self.study, trials=job.target, seed=_worker_seed(job.seed, 0, 0))
+        if job.worker:  # workers start at different points of the one order
+            cut = job.worker * len(self.grid) // (job.worker + 1)
+            self.grid = self.grid[cut:] + self.grid[:cut]
         self.me = worker_identity()
         self.seen: set[int] = set()  # numbers of the stored complete trials known here
         self.done: dict[tuple, FrozenTrial] = {}  # the first complete trial of each design
@@ -439,12 +475,13 @@ class _Worker:
             if not (running and fail_dead_trials(self.shared, running)):
                 break
         complete = [t for t in trials if t.state == TrialState.COMPLETE]
+        new = sum(1 for t in complete if "duplicate_of" not in t.user_attrs)
         self._mirror(complete, initial=False)
         self._show(complete)
         self._clock("storage", t0)
-        if len(complete) >= self.job.target:
+        if new >= self.budget or len(complete) >= self.budget * (1 + MAX_REPEATS):
             return None
-        return self.job.target - len(complete) - len(running)
+        return self.budget - new - len(running)
 
     def _show(self, complete: list[FrozenTrial]) -> None:
         if not self.job.progress:
@@ -453,18 +490,21 @@ class _Worker:
             from tqdm import tqdm
 
             self.bar = tqdm(
-                total=self.job.target,
-                initial=len(complete),
-                unit="trial",
+                total=self.budget,
+                initial=0,
+                unit="design",
                 desc=self.study.optuna_name,
                 dynamic_ncols=True,
             )
-        self.bar.n = min(len(complete), self.job.target)
+        self.bar.n = min(
+            sum(1 for t in complete if "duplicate_of" not in t.user_attrs), self.budget
+        )
         self.bar.set_postfix_str(_best_text(self.study, complete), refresh=True)
 
     def _batch(self, n: int) -> None:
         """Ask ``n`` trials, copy known designs, evaluate the rest in one call, store, tell."""
         t0 = time.perf_counter()
+        self._enqueue_grid(n)
         asked = [self.memory.ask() for _ in range(n)]
         params = [_suggest(trial, self.study) for trial in asked]
         self._clock("sampler", t0)
@@ -474,6 +514,21 @@ class _Worker:
             self._store_failed(asked)
             raise
         self._store(asked, outcomes, twins)
+
+    def _enqueue_grid(self, n: int) -> None:
+        """Enumeration: queue the next ``n`` designs of the grid not yet evaluated.
+
+        When the whole space fits the budget (:func:`grid_designs`), the
+        in-memory study is handed the designs one batch at a time, skipping
+        those any worker has stored meanwhile, so each design is evaluated once
+        (two workers may rarely meet on one design; the later one is a copy).
+        """
+        added = 0
+        while self.grid and added < n:
+            params = self.grid.pop(0)
+            if self.study.parameter_key(params) not in self.done:
+                self.memory.enqueue_trial(params)
+                added += 1
 
     def _outcomes(self, params: list[dict[str, float]]) -> tuple[list[_Outcome], dict[int, int]]:
         """Outcomes of a batch: new designs evaluated in one call, known ones copied.
@@ -557,11 +612,14 @@ class _Worker:
         self._tell(asked, outcomes, kept)
 
     def _within_total(self, ids: list[int]) -> list[bool]:
-        """Which new rows are among the first ``target`` claimed trials (numbers are ordered)."""
-        if self.storage.get_trial_number_from_id(ids[-1]) < self.job.target:
-            return [True] * len(ids)  # fewer than target trials of any state precede it
-        claimed = sorted(t.number for t in self.shared.get_trials(deepcopy=False, states=_CLAIMED))
-        allowed = set(claimed[: self.job.target])
+        """Which new rows are among the first ``budget`` claimed new designs (numbers are
+        ordered); a repeat never counts, so it is always kept."""
+        if self.storage.get_trial_number_from_id(ids[-1]) < self.budget:
+            return [True] * len(ids)  # fewer than budget trials of any state precede it
+        claimed = self.shared.get_trials(deepcopy=False, states=_CLAIMED)
+        repeats = {t.number for t in claimed if "duplicate_of" in t.user_attrs}
+        numbers = sorted(t.number for t in claimed if t.number not in repeats)
+        allowed = set(numbers[: self.budget]) | repeats
         return [self.storage.get_trial_number_from_id(i) in allowed for i in ids]
 
     def _tell(self, asked: list[optuna.Trial], outcomes: list[_Outcome], kept: list[bool]) -> None:
@@ -602,7 +660,7 @@ class _Worker:
 
 
 def _work(job: _Job) -> dict[str, float]:
-    """Run one worker until the study holds ``job.target`` complete trials; returns its timing.
+    """Run one worker until the study holds its budget of designs (:func:`design_budget`); returns its timing.
 
     A worker process whose parent died leaves at once (its pool would keep it
     waiting for work that never comes).

@@ -25,6 +25,8 @@ from wellwright.physics.errors import InputError
 from wellwright.physics.stack import LAYER_KEYS, TOP_KEYS, Stack
 
 __all__ = [
+    "grid_values",
+    "grid_size",
     "Variable",
     "RANGE_KEYS",
     "parse_space",
@@ -164,6 +166,27 @@ def parameters_of(
             )
         params[var.name] = value
     return params
+
+
+def grid_values(variables: Sequence[Variable]) -> dict[str, list[float | int]] | None:
+    """Every value of each variable when all are on a grid (whole monolayers, a stated
+    step), else None (a continuous range cannot be enumerated)."""
+    grid: dict[str, list[float | int]] = {}
+    for v in variables:
+        if v.integer:
+            step = 1 if v.log else int(v.step or 1)
+            grid[v.name] = list(range(int(v.low), int(v.high) + 1, step))
+        elif v.step is not None:
+            n = int(math.floor((v.high - v.low) / v.step + 1e-9))
+            grid[v.name] = [round(v.low + k * v.step, 12) for k in range(n + 1)]
+        else:
+            return None
+    return grid
+
+
+def grid_size(grid: dict[str, list[float | int]]) -> int:
+    """Number of designs of a grid (the product of the value counts)."""
+    return math.prod(len(values) for values in grid.values())
 
 
 def parameter_key(variables: Sequence[Variable], params: dict[str, Any]) -> tuple:
