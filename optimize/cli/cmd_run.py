@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import argparse
 import os
+import sys
 from pathlib import Path
 
-from wellwright.optimize.cli.pipeline import METHODS, run_pipeline
+from wellwright.optimize.cli.pipeline import EXIT_SPEC_NOT_MET, METHODS, SpecNotMet, run_pipeline
 
 
 def add_run_options(p: argparse.ArgumentParser) -> None:
@@ -73,6 +74,12 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--out", metavar="DIR", help="run folder (default: <study name>_run)")
     add_run_options(p)
+    p.add_argument(
+        "--continue-infeasible",
+        action="store_true",
+        help="analyse and report the closest designs even when none meets the spec "
+        "(default: stop after the search with exit status 3)",
+    )
     p.add_argument("--no-progress", action="store_true", help="no progress bars")
     p.set_defaults(func=run)
 
@@ -96,6 +103,16 @@ def run(args: argparse.Namespace) -> int:
     if args.storage is not None:
         check_storage_url(args.storage)
     out = Path(args.out) if args.out else Path(f"{Path(args.study).stem}_run")
-    run_pipeline(args.study, out_dir=out, settings=overrides(args), progress=not args.no_progress)
+    try:
+        run_pipeline(
+            args.study,
+            out_dir=out,
+            settings=overrides(args),
+            progress=not args.no_progress,
+            continue_infeasible=args.continue_infeasible,
+        )
+    except SpecNotMet as exc:  # after the search: its results stay in DIR/search/
+        print(f"wellwright run: {exc}", file=sys.stderr)
+        return EXIT_SPEC_NOT_MET
     print(f"report: {(out / 'report.html').resolve()}")
     return 0

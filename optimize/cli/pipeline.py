@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from wellwright.optimize.shared import names
 from wellwright.optimize.shared.outputs import atomic_write_text, write_json
 from wellwright.optimize.study.run_folder import (
     FORMAT_VERSION,
@@ -255,6 +256,44 @@ def _log(progress: bool, text: str) -> None:
         print(text, flush=True)
 
 
+class SpecNotMet(RuntimeError):
+    """No searched design meets the spec; the message is one line naming the closest design
+    and what it misses. The command line exits with :data:`EXIT_SPEC_NOT_MET`."""
+
+
+#: Exit status of ``wellwright run`` when no design meets the spec (documented in the README).
+EXIT_SPEC_NOT_MET = 3
+
+
+def closest_miss(study: Study, design: dict[str, Any]) -> str:
+    """One line: the closest design and each window of the spec it misses, by how much."""
+    misses = []
+    for w in study.targets:
+        value = design["metrics"].get(w.metric)
+        if value is None:
+            misses.append(f"{names.words(w.metric)}: none (no NDR in the sweep)")
+            continue
+        if w.low <= value <= w.high:
+            continue
+        bound = w.low if value < w.low else w.high
+        side = "below the minimum" if value < w.low else "above the maximum"
+        misses.append(
+            f"{names.words(w.metric)} {names.format_value(w.metric, value, with_unit=True)}, "
+            f"{side} {names.format_value(w.metric, bound, with_unit=True)} "
+            f"by {names.format_value(w.metric, abs(value - bound), with_unit=True)}"
+        )
+    if not misses:
+        misses = [
+            f"a constraint ({', '.join(k for k, v in design['constraints'].items() if v > 0)})"
+        ]
+    params = ", ".join(f"{k} = {v:g}" for k, v in design["params"].items())
+    return (
+        f"no design meets the spec; the closest (trial {design['trial']}: {params}) misses "
+        + "; ".join(misses)
+        + " (widen the ranges or relax the spec; --continue-infeasible analyses it anyway)"
+    )
+
+
 def run_pipeline(
     study_path: str | Path,
     *,
@@ -263,6 +302,7 @@ def run_pipeline(
     progress: bool = True,
     label: str | None = None,
     report: Callable[..., Any] | None = None,
+    continue_infeasible: bool = False,
 ) -> dict[str, Any]:
     """Run, or resume, the whole pipeline of a study file into ``out_dir``.
 
@@ -281,6 +321,9 @@ def run_pipeline(
     report
         Report builder ``report(run_dir) -> Path`` (default
         :func:`wellwright.optimize.report.build.build_report`).
+    continue_infeasible
+        Go on to the tolerance stage and the report when no design meets the
+        spec (default: stop with :class:`SpecNotMet` after the search).
 
     Returns
     -------
@@ -291,6 +334,8 @@ def run_pipeline(
     ------
     InputError
         For a bad study file or setting, before anything is written.
+    SpecNotMet
+        When no searched design meets the spec (unless ``continue_infeasible``).
     """
     path = Path(study_path)
     try:
@@ -371,6 +416,8 @@ def run_pipeline(
             "the search produced no design to analyse; run more trials (--trials)",
             source=study.source,
         )
+    if not chosen[0].get("feasible") and not continue_infeasible:
+        raise SpecNotMet(closest_miss(study, chosen[0]))
     fp = _stage_fingerprints(study_bytes, s, chosen)
 
     # tolerance, one design at a time

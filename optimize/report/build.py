@@ -307,6 +307,36 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
     )
 
 
+def _resolution_text(ranking: dict | None) -> str:
+    """Whether the growth ranking is resolved, the budget it used, and what has no effect."""
+    if not ranking:
+        return ""
+    words = names.parameter_words
+    if ranking.get("resolved"):
+        head = (
+            f"<p><b>Ranking resolved:</b> {_esc(words(ranking['leader']))} leads beyond the "
+            "confidence intervals"
+            + (f" of {_esc(words(ranking['runner_up']))}" if ranking.get("runner_up") else "")
+        )
+    else:
+        head = (
+            "<p><b>Ranking not resolved:</b> the leader cannot be told apart from the next "
+            "parameter within their confidence intervals; treat the first places as a tie, or "
+            "rerun with more --samples"
+        )
+    zero = ranking.get("indistinguishable_from_zero") or []
+    tail = (
+        f" No effect distinguishable from zero (not ranked): "
+        f"{_esc(', '.join(words(p) for p in zero))}."
+        if zero
+        else ""
+    )
+    return (
+        f"{head} ({ranking.get('evaluations', '?')} of a budget of "
+        f"{ranking.get('budget', '?')} evaluations used).{tail}</p>"
+    )
+
+
 def _device_table(designs: list[dict], reported: int) -> str:
     """The oscillator and device figures of the same designs (per area, and per mesa when
     the study gives ``[device] area_um2``)."""
@@ -598,6 +628,7 @@ def _growth(
                 f"{'total Sobol index' if method == 'sobol' else 'Morris mu*'} of "
                 f"{_esc(what)}).</p>"
             )
+            body.append(_resolution_text(r.get("ranking")))
             body.append(
                 figs.html(
                     f"{tag}_ranking.png",

@@ -66,64 +66,84 @@ def model_label(stack: Stack) -> str:
 
 
 def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
-    """J(V) in kA/cm^2 with the peak and valley marked."""
+    """J(V) with the first NDR peak and its valley marked: linear (kA/cm²) and log (A/cm²) panels.
+
+    The drawn curve passes through the refined peak and valley, so the
+    markers sit on it; a valley on the last bias of the sweep is marked as
+    bounded by the sweep (the true valley lies beyond it).
+    """
     style()
-    fig, ax = plt.subplots(figsize=(6.4, 4.2))
-    v = curves.bias_v
-    j = curves.current_density_a_cm2[i] / 1e3
-    ax.plot(v, j, color=PALETTE["blue"], lw=2, label="Tsu-Esaki current")
+    fig, (ax, lx) = plt.subplots(
+        2, 1, figsize=(6.4, 6.4), sharex=True, gridspec_kw={"height_ratios": [3, 2]}
+    )
     m = curves.metrics_of(i)
+    v, j = curves.bias_v, curves.current_density_a_cm2[i]
+    marks = []
     if m["peak_voltage_v"] is not None:
-        for name, marker, color in (("peak", "o", "vermillion"), ("valley", "s", "green")):
-            ax.plot(
-                m[f"{name}_voltage_v"],
-                m[f"{name}_current_density_a_cm2"] / 1e3,
+        for name in ("peak", "valley"):
+            marks.append((name, m[f"{name}_voltage_v"], m[f"{name}_current_density_a_cm2"]))
+        extra_v = np.array([x for _, x, _ in marks])
+        extra_j = np.array([y for _, _, y in marks]) * np.sign(extra_v)
+        order = np.argsort(np.concatenate([v, extra_v]), kind="stable")
+        v = np.concatenate([v, extra_v])[order]
+        j = np.concatenate([j, extra_j])[order]
+    for axis, scale in ((ax, 1e-3), (lx, 1.0)):
+        y = j * scale if axis is ax else np.where(j != 0, np.abs(j), np.nan)
+        axis.plot(v, y, color=PALETTE["blue"], lw=2, label="Tsu-Esaki current")
+        for (name, x, yv), marker, color in zip(marks, ("o", "s"), ("vermillion", "green")):
+            axis.plot(
+                x,
+                yv * scale if axis is ax else abs(yv),
                 marker,
                 ms=9,
                 mfc="none",
                 mec=PALETTE[color],
                 mew=2,
-                label=name,
+                clip_on=False,
+                zorder=5,
+                label="first NDR peak" if name == "peak" else "its valley",
             )
-        if (m.get("bistable_window_v") or 0.0) > 0.0:
-            ax.plot(
-                m["peak_voltage_up_v"],
-                m["peak_current_density_up_a_cm2"] / 1e3,
-                "^",
-                ms=9,
-                mfc="none",
-                mec=PALETTE["purple"],
-                mew=2,
-                label="up-sweep peak (bistable)",
-            )
+    bounded = bool(marks) and marks[1][1] == float(curves.bias_v[-1])
+    if marks:
+        valley_text = (
+            f"$J_v$ ≤ {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm² at the sweep end "
+            f"({m['valley_voltage_v'] * 1e3:.0f} mV; valley beyond it)"
+            if bounded
+            else f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
+            f"{m['valley_voltage_v'] * 1e3:.0f} mV"
+        )
         pvcr = (
-            f"PVCR = {m['pvcr']:.1f}"
+            f"PVCR {'≥' if bounded else '='} {m['pvcr']:.1f}"
             if m["pvcr"] is not None
-            else "PVCR undefined (valley current <= 0)"
+            else "PVCR undefined (valley current ≤ 0)"
         )
         ax.annotate(
-            f"$J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['peak_voltage_v'] * 1e3:.0f} mV\n"
-            f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm$^2$ at {m['valley_voltage_v'] * 1e3:.0f} mV\n"
-            + pvcr
-            + _bistable_note(m),
+            f"first NDR peak: $J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
+            f"{m['peak_voltage_v'] * 1e3:.0f} mV\n{valley_text}\n{pvcr}",
             xy=(0.03, 0.97),
             xycoords="axes fraction",
             va="top",
-            fontsize=10,
+            fontsize=9,
             bbox={"boxstyle": "round", "fc": "white", "ec": "0.7"},
         )
     else:
         ax.text(0.03, 0.95, "no NDR in this sweep", transform=ax.transAxes, va="top")
-    ax.set_xlabel("bias (V)")
-    ax.set_ylabel("current density (kA/cm$^2$)")
-    top = float(np.nanmax(j)) if np.isfinite(j).any() else 1.0
-    bistable = (m.get("bistable_window_v") or 0.0) > 0.0
-    if bistable:  # the up-sweep peak lies above the curve
-        top = max(top, m["peak_current_density_up_a_cm2"] / 1e3)
-    room = 1.65 if bistable else 1.45  # room for the box (one line more when bistable)
-    ax.set_ylim(min(0.0, float(np.nanmin(j)) * 1.1), top * room if top > 0 else 1.0)
-    ax.legend(loc="upper right", fontsize=9)  # box and legend share the headroom above the curve
+    jk = j / 1e3
+    top = float(np.nanmax(jk)) if np.isfinite(jk).any() else 1.0
+    low = float(np.nanmin(jk)) if np.isfinite(jk).any() else 0.0
+    span = max(top - min(low, 0.0), 1e-12)
+    ax.set_ylim(min(low, 0.0) - 0.04 * span, top + 0.55 * span)  # room for the text box
+    ax.set_ylabel("current density (kA/cm²)")
+    ax.legend(loc="upper right", fontsize=9)
     ax.set_title(title or "I-V")
+    positive = np.abs(j)[np.abs(j) > 0]
+    if positive.size:
+        lx.set_yscale("log")
+        lx.set_ylim(max(positive.min() / 3, positive.max() * 1e-7), positive.max() * 3)
+    lx.set_ylabel("|current density| (A/cm², log)")
+    lx.set_xlabel("bias (V)")
+    fig.align_ylabels()
+    fig.tight_layout()
     return fig
 
 

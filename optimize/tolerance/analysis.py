@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import contextlib
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -35,6 +35,8 @@ from wellwright.physics.iv import METRIC_NAMES, sweep
 from wellwright.physics.stack import LayerTable, ModelOptions, Stack
 
 __all__ = [
+    "ranking_resolution",
+    "sobol_until_resolved",
     "Spec",
     "wilson_interval",
     "yield_record",
@@ -67,6 +69,8 @@ ALLOCATION_SAMPLES = 256
 WAFER_PARAMETER = "wafer.radius_mm"
 #: A Sobol run whose widest pass/fail total-index half-width exceeds this gets a note.
 SOBOL_WIDE_CONF = 0.1
+#: Base samples of the first Sobol design; it doubles until the ranking is resolved.
+SOBOL_START_BASE = 32
 
 
 # --------------------------------------------------------------------------- statistics
@@ -417,6 +421,92 @@ def sobol_table(
     return sorted(rows, key=lambda r: -r["total_index"])
 
 
+# --------------------------------------------------------------------------- ranking resolution
+
+
+def ranking_resolution(
+    rows: Sequence[dict[str, Any]], *, score: str = "total_index", conf: str = "total_conf"
+) -> dict[str, Any]:
+    """Whether a ranking is resolved: the leader's interval lies above the runner-up's.
+
+    ``rows`` are ordered, most important first, each with a ``score`` and its
+    confidence half-width ``conf``. A parameter whose interval reaches zero
+    (``score - conf <= 0``) is indistinguishable from no effect and is listed
+    as such, not ranked. Returns ``resolved``, ``leader``, ``runner_up`` (None
+    when absent), ``ranked`` and ``indistinguishable_from_zero`` (names).
+    """
+    zero = [r["parameter"] for r in rows if r[score] - r[conf] <= 0]
+    ranked = [r for r in rows if r["parameter"] not in zero]
+    if not rows or rows[0]["parameter"] in zero:
+        resolved = False  # no leader stands out from zero
+    elif len(rows) == 1:
+        resolved = True
+    else:  # the runner-up is the next row, whether or not it stands out from zero
+        resolved = rows[0][score] - rows[0][conf] > rows[1][score] + rows[1][conf]
+    return {
+        "resolved": bool(resolved),
+        "leader": rows[0]["parameter"] if rows else None,
+        "runner_up": rows[1]["parameter"] if len(rows) > 1 else None,
+        "ranked": [r["parameter"] for r in ranked],
+        "indistinguishable_from_zero": zero,
+    }
+
+
+def sobol_until_resolved(
+    names: Sequence[str],
+    evaluate: Callable[[np.ndarray], dict[str, np.ndarray]],
+    *,
+    key: str,
+    max_evaluations: int,
+    start_base: int = 32,
+    second_order: bool = False,
+    seed: int | np.random.Generator | None = None,
+) -> dict[str, Any]:
+    """Sobol indices on a Saltelli design that doubles until the ranking of ``key`` is resolved.
+
+    ``evaluate(u)`` maps design rows in the unit cube to outputs (name ->
+    values). The design of ``2 N`` base samples starts with the rows of the
+    ``N`` design (same scrambled sequence), so each doubling evaluates only
+    the new rows; it stops when :func:`ranking_resolution` of ``key`` says
+    resolved or when the next doubling would exceed ``max_evaluations``
+    (the first design, ``start_base`` base samples, is always run). Returns
+    ``outputs`` (name -> values on the final design), ``u``, ``tables``
+    (name -> :func:`sobol_table` rows; None where an output is not finite),
+    ``resolution`` and ``evaluations``.
+
+    References
+    ----------
+    .. [1] A. Saltelli et al., Comput. Phys. Commun. 181, 259 (2010) (estimators).
+    """
+    rng = as_generator(seed)
+    design_seed = _int_seed(rng)
+    d = len(names)
+    per_base = 2 * d + 2 if second_order else d + 2
+    n = start_base
+    u = np.zeros((0, d))
+    outputs: dict[str, np.ndarray] = {}
+    while True:
+        full = saltelli_design(d, n, second_order=second_order, seed=design_seed)
+        new = evaluate(full[u.shape[0] :])
+        outputs = {k: np.concatenate([outputs.get(k, np.zeros(0)), v]) for k, v in new.items()}
+        u = full
+        y = outputs[key]
+        finite = np.all(np.isfinite(y))
+        pairs: list | None = [] if second_order else None  # the design's layout, pairs unused
+        rows = sobol_table(names, y, seed=rng, pairs=pairs) if finite else []
+        res = ranking_resolution(rows)
+        if res["resolved"] or 2 * n * per_base > max_evaluations:
+            break
+        n *= 2
+    return {
+        "outputs": outputs,
+        "u": u,
+        "base_samples": n,
+        "resolution": res,
+        "evaluations": u.shape[0],
+    }
+
+
 def _normal(u: np.ndarray) -> np.ndarray:
     from scipy.stats import norm
 
@@ -429,37 +519,63 @@ def sobol_analysis(
     run: Runner,
     *,
     base_samples: int,
+    max_evaluations: int | None = None,
     second_order: bool = False,
     seed: int | np.random.Generator | None = None,
 ) -> dict[str, Any]:
     """Sobol indices of each figure of merit and of pass/fail w.r.t. every growth parameter.
 
-    Each point is the island mixture of :meth:`GrowthModel.grow` (a deterministic
-    function of the parameters, as the estimators need). A figure of merit that is NaN (no NDR) in some
-    sample is skipped with a note. Returns ``sobol`` (name -> ordered list),
-    ``notes`` and ``evaluations``; with ``second_order`` (``N (2 D + 2)``
-    evaluations instead of ``N (D + 2)``) also ``sobol_second_order`` (name ->
-    pairs of parameters with their interaction index, largest first).
+    Each point is the island mixture of :meth:`GrowthModel.grow` (a
+    deterministic function of the parameters, as the estimators need). With ``max_evaluations`` the
+    design starts at ``base_samples`` and doubles until the ranking of
+    pass/fail is resolved or the budget is spent (:func:`sobol_until_resolved`);
+    without, it is one design of ``base_samples``. A figure of merit that is
+    NaN (no NDR) in some sample is skipped with a note. Returns ``sobol``
+    (name -> ordered list), ``notes``, ``evaluations``, ``base_samples`` and
+    ``resolution`` (:func:`ranking_resolution` of pass/fail); with
+    ``second_order`` (``N (2 D + 2)`` evaluations instead of ``N (D + 2)``)
+    also ``sobol_second_order`` (name -> pairs of parameters with their
+    interaction index, largest first).
     """
     rng = as_generator(seed)
-    u = saltelli_design(len(model.parameters), base_samples, second_order=second_order, seed=rng)
-    metrics = run(model.grow(_normal(u)), desc="Sobol")
+
+    def evaluate(u: np.ndarray) -> dict[str, np.ndarray]:
+        metrics = run(model.grow(_normal(u)), desc="Sobol")
+        out = {name: metrics[name] for name in METRIC_NAMES}
+        out["pass"] = spec.passes(metrics).astype(float)
+        out[SOLVE_FAILED] = np.asarray(metrics.get(SOLVE_FAILED, np.zeros(u.shape[0])), float)
+        return out
+
+    grown = sobol_until_resolved(
+        model.names,
+        evaluate,
+        key="pass",
+        max_evaluations=0 if max_evaluations is None else max_evaluations,
+        start_base=base_samples,
+        second_order=second_order,
+        seed=rng,
+    )
+    outputs = grown["outputs"]
+    unsolved = int(np.count_nonzero(outputs.pop(SOLVE_FAILED)))
     out: dict[str, list] = {}
     pairs: dict[str, list] = {}
     notes = []
-    outputs = {name: metrics[name] for name in METRIC_NAMES}
-    outputs["pass"] = spec.passes(metrics).astype(float)
     for name, y in outputs.items():
         bad = int(np.count_nonzero(~np.isfinite(y)))
         if bad:
-            unsolved = int(np.count_nonzero(metrics.get(SOLVE_FAILED, 0.0)))
             why = f" ({unsolved} of them: solve did not converge)" if unsolved else ""
             notes.append(f"sobol of {name} skipped: no NDR in {bad} of {y.size} samples{why}")
             continue
         if second_order:
             pairs[name] = []
         out[name] = sobol_table(model.names, y, seed=rng, pairs=pairs.get(name))
-    result = {"sobol": out, "notes": notes, "evaluations": int(u.shape[0])}
+    result = {
+        "sobol": out,
+        "notes": notes,
+        "evaluations": int(grown["evaluations"]),
+        "base_samples": int(grown["base_samples"]),
+        "resolution": ranking_resolution(out.get("pass", [])),
+    }
     if second_order:
         result["sobol_second_order"] = pairs
     return result
@@ -818,7 +934,13 @@ def run_tolerance(
     ``morris``; ``tornado``; ``islands`` {layers, continuous_layers, curvatures,
     check}; ``allocation``; ``parameters`` [{name, kind,
     sigma, unit, control}]; ``control_order`` (:func:`control_order`: source
-    cells and layers, the one to control hardest first); ``nominal`` metrics; ``spec``; ``settings``; ``notes``.
+    cells and layers, the one to control hardest first); ``ranking`` (Sobol or
+    Morris: :func:`ranking_resolution` of pass/fail with ``measure``,
+    ``evaluations`` used and the ``budget``) and ``ranking_resolved`` (None for
+    ``mc``); ``nominal`` metrics; ``spec``; ``settings``; ``notes``. The Sobol
+    design starts at :data:`SOBOL_START_BASE` base samples and doubles until
+    the leader of pass/fail is separated from the runner-up beyond their
+    confidence intervals or the budget is spent.
     """
     if method not in METHODS:
         raise ValueError(f"method must be one of {METHODS}")
@@ -862,8 +984,15 @@ def run_tolerance(
         per_base = 2 * d + 2 if second_order else d + 2
         n_base = max(8, 2 ** int(math.floor(math.log2(max(1, samples // per_base)))))
         s = sobol_analysis(
-            model, spec, run, base_samples=n_base, second_order=second_order, seed=seeds[1]
+            model,
+            spec,
+            run,
+            base_samples=min(n_base, SOBOL_START_BASE),
+            max_evaluations=n_base * per_base,
+            second_order=second_order,
+            seed=seeds[1],
         )
+        n_base = s["base_samples"]
         record["sobol"] = s["sobol"]
         if second_order:
             record["sobol_second_order"] = s["sobol_second_order"]
@@ -877,14 +1006,25 @@ def run_tolerance(
                 "or rerun with more --samples (the half-widths shrink as 1/sqrt(samples))"
             )
         record["sobol_evaluations"] = s["evaluations"]
-        ranking_source = [r["parameter"] for r in s["sobol"]["pass"]]
-        if all(r["total_index"] == 0 for r in s["sobol"]["pass"]):
-            ranking_source = None
+        record["ranking"] = {
+            **s["resolution"],
+            "measure": "total Sobol index of pass/fail",
+            "evaluations": s["evaluations"],
+            "budget": samples,
+        }
+        # parameters whose total index is indistinguishable from zero are not ranked
+        ranking_source = s["resolution"]["ranked"] or None
     elif method == "morris":
         m = morris_analysis(
             model, spec, run, trajectories=max(2, samples // (d + 1)), seed=seeds[1]
         )
         record["morris"] = m["morris"]
+        record["ranking"] = {
+            **ranking_resolution(m["morris"].get("pass", []), score="mu_star", conf="mu_star_conf"),
+            "measure": "Morris mu* of pass/fail",
+            "evaluations": m["evaluations"],
+            "budget": samples,
+        }
         notes += m["notes"]
         if "pass" in m["morris"] and any(r["mu_star"] > 0 for r in m["morris"]["pass"]):
             ranking_source = [r["parameter"] for r in m["morris"]["pass"]]
@@ -919,6 +1059,7 @@ def run_tolerance(
         )
     else:
         record["allocation"] = []
+    record["ranking_resolved"] = record.get("ranking", {}).get("resolved")
     record["settings"] = {
         "method": method,
         "second_order": bool(second_order and method == "sobol"),
