@@ -126,7 +126,7 @@ def test_files_beside_the_report(demo_dir):
     for png in files.glob("*.png"):
         assert _has_data(png.read_bytes()), png.name
     sheet = (files / "growth_sheet_rank01.csv").read_text().splitlines()
-    assert sheet[0] == "layer,name,material,x,monolayers,nm,doping_cm3"
+    assert sheet[0] == "layer,name,material,x,monolayers,nm,doping_cm3,note"
     assert any(",barrier1,AlAs," in row for row in sheet)
 
 

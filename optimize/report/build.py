@@ -366,30 +366,8 @@ def _device_table(designs: list[dict], reported: int) -> str:
     )
 
 
-GROWTH_SHEET_HEADER = ["layer", "name", "material", "x", "monolayers", "nm", "doping_cm3"]
-
-
-def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
-    """A design record's layers as growth-sheet rows (emitter first; contacts have no
-    thickness); material in trade notation, whole monolayers where given so."""
-    rows = []
-    for i, layer in enumerate(record.get("layers") or []):
-        ml, nm = layer.get("thickness_ml"), layer.get("thickness_nm")
-        rows.append(
-            [
-                i,
-                layer["name"],
-                layer.get("label") or layer["material"],
-                "" if layer.get("x") is None else f"{layer['x']:.3f}",
-                "" if ml is None else (str(ml) if isinstance(ml, int) else f"{ml:.2f}"),
-                "" if nm is None else f"{nm:.3f}",
-                f"{layer['doping_cm3']:.3g}",
-            ]
-        )
-    return rows
-
-
 def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[str, dict]:
+    from wellwright.optimize.search.designs import GROWTH_SHEET_HEADER, growth_sheet_rows
     from wellwright.optimize.shared.figures import (
         band_diagram_figure,
         iv_figure,
@@ -403,7 +381,7 @@ def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[st
     write_csv(files / f"growth_sheet_{tag}.csv", GROWTH_SHEET_HEADER, sheet)
     rows = []
     for r in sheet:
-        layer, name, label, x, ml, nm, dop = r
+        layer, name, label, x, ml, nm, dop, note = r
         contact = r[0] in (0, len(sheet) - 1)
         rows.append(
             [
@@ -414,6 +392,7 @@ def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[st
                 ml or ("contact" if contact else "-"),
                 nm or "-",
                 "-" if float(dop) == 0 else _num(float(dop), spec=".2e"),
+                _esc(note),
             ]
         )
     stack = study.stack(d["params"])
@@ -451,6 +430,7 @@ def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[st
                 "monolayers (ML)",
                 "thickness (nm)",
                 "doping (cm<sup>-3</sup>)",
+                "note",
             ],
             rows,
             left=3,

@@ -36,7 +36,7 @@ __all__ = [
     "MIN_TRIALS_FOR_IMPORTANCE",
 ]
 
-GROWTH_SHEET_HEADER = ["layer", "name", "material", "x", "monolayers", "nm", "doping_cm3"]
+GROWTH_SHEET_HEADER = ["layer", "name", "material", "x", "monolayers", "nm", "doping_cm3", "note"]
 MIN_TRIALS_FOR_IMPORTANCE = 20
 
 
@@ -278,23 +278,33 @@ def rank_trials(
 def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
     """Rows of a design's growth sheet, in stack order (first row: emitter contact).
 
-    Material in trade notation; monolayers as whole numbers where the layer was
-    given in monolayers; contacts have no thickness (grown as thick as the
-    device process needs).
+    Material in trade notation; monolayers always whole numbers with the nm
+    they make beside them: a layer the study gives in nm whose thickness is
+    not a whole number of monolayers is rounded to the nearest and the last
+    column (``note``) says so. Contacts have no thickness (grown as thick as
+    the device process needs).
     """
     rows = []
     for i, layer in enumerate(record["layers"] or []):
-        ml = layer["thickness_ml"]
-        nm = layer["thickness_nm"]
+        ml, nm = layer["thickness_ml"], layer["thickness_nm"]
+        note = ""
+        if ml is not None and nm and abs(ml - round(ml)) > 1e-6:
+            whole = max(1, round(ml))
+            note = (
+                f"given as {nm:.3f} nm = {ml:.2f} ML; rounded to {whole} ML "
+                f"({whole * nm / ml:.3f} nm) for growth"
+            )
+            ml, nm = whole, whole * nm / ml
         rows.append(
             [
                 i,
                 layer["name"],
                 layer["label"],
                 "" if layer["x"] is None else f"{layer['x']:.3f}",
-                "" if ml is None else (str(ml) if isinstance(ml, int) else f"{ml:.2f}"),
+                "" if ml is None else str(int(round(ml))),
                 "" if nm is None else f"{nm:.3f}",
                 f"{layer['doping_cm3']:.3g}",
+                note,
             ]
         )
     return rows
