@@ -314,13 +314,15 @@ def _resolution_text(ranking: dict | None) -> str:
     words = names.parameter_words
     if ranking.get("resolved"):
         head = (
-            f"<p><b>Ranking resolved:</b> {_esc(words(ranking['leader']))} leads beyond the "
+            f"<p><b>Ranking of pass/fail resolved:</b> {_esc(words(ranking['leader']))} leads "
+            "beyond the "
             "confidence intervals"
             + (f" of {_esc(words(ranking['runner_up']))}" if ranking.get("runner_up") else "")
         )
     else:
         head = (
-            "<p><b>Ranking not resolved:</b> the leader cannot be told apart from the next "
+            "<p><b>Ranking of pass/fail not resolved:</b> the leader cannot be told apart from "
+            "the next "
             "parameter within their confidence intervals; treat the first places as a tie, or "
             "rerun with more --samples"
         )
