@@ -213,6 +213,7 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
     ax = axes[2]
     mid = 0.5 * (np.array([g["r_in_mm"] for g in rings]) + r_out)
     err = np.array([[g["value"] - g["ci_low"], g["ci_high"] - g["value"]] for g in rings]).T
+    err = np.clip(err, 0.0, None)  # a yield of 0 or 1 sits on its interval's end (rounding)
     ax.errorbar(
         mid, p_ring, yerr=err, fmt="o", color=OKABE_ITO["blue"], capsize=3, label="pass probability"
     )
