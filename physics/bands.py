@@ -130,10 +130,11 @@ class Profile:
         Computed once per profile (the compiled kernel reads them on every call).
         """
         shape = self.batch_shape + (self.n_slices,)
-        return tuple(
+        edge, mass, alpha, width = (
             np.ascontiguousarray(np.broadcast_to(a, shape), dtype=float)
             for a in (self.edge_ev, self.mass_m0, self.nonparabolicity_per_ev, self.width_nm)
         )
+        return edge, mass, alpha, width
 
     def positions_nm(self) -> np.ndarray:
         """Slice boundaries (``n_slices - 1`` interfaces), emitter interface at 0."""

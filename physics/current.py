@@ -332,7 +332,7 @@ def current_density_a_cm2(
         valid = _distinct(center, width, valid, share)
         share = np.where(valid, share, -1.0)
         # every line found, resolved or not, is broadened
-        lines = {"center_ev": center, "width_ev": width, "peak": peak, "valid": valid}
+        lines: dict = {"center_ev": center, "width_ev": width, "peak": peak, "valid": valid}
         others, others_valid = center, valid
         # what the coarse rule could get wrong on a line it does not resolve: up to T_p S
         # over a cell, far more than the line's own share T_p Gamma S when it is narrow

@@ -117,7 +117,7 @@ class PoissonSolution:
     well_sheet_cm2: np.ndarray | None = None  #: electrons in the well, cm^-2, ``batch``
 
 
-_TABLE: dict[str, object] = {}
+_TABLE: dict[str, np.ndarray] = {}
 _ETA_LO, _ETA_HI, _ETA_STEP = -30.0, 120.0, 0.01
 
 

@@ -583,7 +583,7 @@ def sweep_hysteresis(
     branches = []
     for order in (np.arange(bias.size), np.arange(bias.size)[::-1]):
         previous, previous_well = None, None
-        potentials = [None] * bias.size
+        potentials = [np.empty(0)] * bias.size  # every slot filled below
         for i in order:
             g, sol = solve_stack_poisson(
                 table,

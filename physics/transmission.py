@@ -42,6 +42,8 @@ References
 from __future__ import annotations
 
 import os
+from types import ModuleType
+from typing import Literal, overload
 
 import numpy as np
 
@@ -49,8 +51,9 @@ from .bands import Profile
 from .constants import HBAR2_2M0_EV_NM2
 from .errors import InputError
 
+_slices: ModuleType | None
 try:
-    from . import _slices
+    from . import _slices  # type: ignore[attr-defined,no-redef]
 except ImportError:  # built without a C compiler: the numpy implementation serves
     _slices = None
 
@@ -93,6 +96,26 @@ def wave_numbers_per_nm(
     k2 = np.where(np.abs(k2) < K2_FLOOR_PER_NM2, K2_FLOOR_PER_NM2, k2)
     k = np.sqrt(k2.astype(complex))
     return k, k / mass
+
+
+@overload
+def transmission(
+    energy_ev: np.ndarray,
+    *,
+    profile: Profile,
+    return_reflection: Literal[False] = False,
+    backend: str | None = None,
+) -> np.ndarray: ...
+
+
+@overload
+def transmission(
+    energy_ev: np.ndarray,
+    *,
+    profile: Profile,
+    return_reflection: Literal[True],
+    backend: str | None = None,
+) -> tuple[np.ndarray, np.ndarray]: ...
 
 
 def transmission(
@@ -197,6 +220,7 @@ def _compiled(energy: np.ndarray, profile: Profile, return_reflection: bool, row
     ``rows[g]`` of the flattened ``profile.batch_shape``. The profiles are
     never copied per call (:attr:`Profile.slice_arrays` is computed once).
     """
+    assert _slices is not None  # callers pick this backend only where it is built
     batch = profile.batch_shape
     if rows is None:
         full = np.broadcast_shapes(energy.shape[:-1], batch)

@@ -76,7 +76,7 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
     fig, (ax, lx) = plt.subplots(
         2, 1, figsize=(6.4, 6.4), sharex=True, gridspec_kw={"height_ratios": [3, 2]}
     )
-    m = curves.metrics_of(i)
+    m: dict[str, Any] = curves.metrics_of(i)  # None where undefined, checked below
     v, j = curves.bias_v, curves.current_density_a_cm2[i]
     marks = []
     if m["peak_voltage_v"] is not None:
@@ -239,7 +239,7 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     for n, k in enumerate([k for k in order if res.valid[k]], start=1):
         e_r, g = float(res.energy_ev[k]), float(res.width_ev[k])
         ax.hlines(
-            e_r, w0, w1, colors=PALETTE["vermillion"], lw=2, label="resonances" if n == 1 else None
+            e_r, w0, w1, colors=PALETTE["vermillion"], lw=2, label="resonances" if n == 1 else ""
         )
         ax.text(
             label_z,

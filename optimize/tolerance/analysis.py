@@ -653,7 +653,9 @@ def tornado(stack: Stack, run: Runner) -> dict[str, Any]:
     for i in idx:
         for step in (-1, 1):
             t = table.thickness_nm[0].copy()
-            t[i] = max(t[i] + step * stack.layers[i].monolayer_nm, stack.layers[i].monolayer_nm)
+            ml = stack.layers[i].monolayer_nm
+            assert ml is not None  # idx holds only layers with a monolayer
+            t[i] = max(t[i] + step * ml, ml)
             rows.append(t)
     big = table.take(np.zeros(len(rows), int)).with_thickness_nm(np.array(rows))
     m = run(big, desc="tornado")

@@ -485,7 +485,9 @@ def expected_transmission(
        (section number from memory).
     """
     if transmission_fn is None:
-        from ..transmission import transmission as transmission_fn  # lazy: kernel module
+        from ..transmission import transmission  # lazy: kernel module
+
+        transmission_fn = transmission
     p = _single(profile)
     mass, alpha = float(p.mass_m0[0]), float(p.nonparabolicity_per_ev[0])
     e0 = energy_mev * 1e-3
