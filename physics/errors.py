@@ -16,9 +16,12 @@ class InputError(ValueError):
     source
         File name (or ``"<dict>"`` for input built in Python).
     layer
-        Zero-based layer index, or ``None`` when the key is not in a layer.
+        Zero-based layer index, or ``None`` when the key is not in a layer; the
+        message counts layers from 1 (``layer 1`` is the emitter), as a grower does.
     key
         The offending key, dotted for nested tables (``"model.strain"``).
+    layer_name
+        The layer's name, shown beside its number.
     """
 
     def __init__(
@@ -28,11 +31,13 @@ class InputError(ValueError):
         source: str | None = None,
         layer: int | None = None,
         key: str | None = None,
+        layer_name: str | None = None,
     ) -> None:
         self.message = message
         self.source = source
         self.layer = layer
         self.key = key
+        self.layer_name = layer_name
         super().__init__(self.one_line())
 
     def one_line(self) -> str:
@@ -41,7 +46,8 @@ class InputError(ValueError):
         if self.source:
             where.append(str(self.source))
         if self.layer is not None:
-            where.append(f"layer {self.layer}")
+            name = f" ('{self.layer_name}')" if self.layer_name else ""
+            where.append(f"layer {self.layer + 1}{name}")
         if self.key:
             where.append(f"key '{self.key}'")
         prefix = ": ".join([", ".join(where)]) if where else ""

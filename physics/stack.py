@@ -8,16 +8,16 @@ format key by key.
 
 from __future__ import annotations
 
-import math
 import tomllib
 import warnings
+from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from . import materials
+from . import checks, materials
 from .errors import InputError
 
 __all__ = [
@@ -29,6 +29,8 @@ __all__ = [
     "load_stack",
     "parse_stack",
     "read_toml",
+    "parse_toml",
+    "decode_text",
     "CriticalThicknessWarning",
 ]
 
@@ -238,15 +240,44 @@ def read_toml(path: str | Path) -> dict[str, Any]:
     """
     source = str(path)
     try:
-        text = Path(path).read_text(encoding="utf-8")
+        data = Path(path).read_bytes()
     except FileNotFoundError:
         raise InputError("file not found", source=source) from None
+    except IsADirectoryError:
+        raise InputError("is a folder, not a file", source=source) from None
     except OSError as exc:
         raise InputError(f"cannot read file ({exc.strerror})", source=source) from None
+    return parse_toml(data, source=source)
+
+
+def decode_text(data: bytes, *, source: str) -> str:
+    """``data`` as UTF-8 text (TOML files are UTF-8); raises :class:`InputError` otherwise."""
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(
+            f"not UTF-8 text (byte {exc.start} is 0x{data[exc.start]:02x}); save it as UTF-8",
+            source=source,
+        ) from None
+
+
+def parse_toml(data: bytes | str, *, source: str) -> dict[str, Any]:
+    """The TOML document in ``data`` (bytes must be UTF-8), naming ``source`` on error."""
+    text = decode_text(data, source=source) if isinstance(data, bytes) else data
     try:
         return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc})", source=source) from None
+    except ValueError as exc:  # TOMLDecodeError, or an integer past Python's digit limit
+        raise InputError(f"not valid TOML ({str(exc)[:200]})", source=source) from None
+    except RecursionError:  # tomllib recurses per nesting level
+        raise InputError("not valid TOML (nested too deeply)", source=source) from None
+
+
+def default_layer_name(index: int, *, n_layers: int) -> str:
+    """The name of a layer without one: ``emitter``, ``collector``, else ``layer<index>``
+    (zero-based, as parameter names of existing studies have it)."""
+    if index == 0:
+        return "emitter"
+    return "collector" if index == n_layers - 1 else f"layer{index}"
 
 
 def load_stack(path: str | Path) -> Stack:
@@ -260,37 +291,26 @@ def load_stack(path: str | Path) -> Stack:
     return parse_stack(read_toml(path), source=str(path))
 
 
-def _typed(value: Any, kind: type, *, source: str, layer: int | None, key: str) -> Any:
-    """Check one value's type (ints are accepted for floats, bools are not)."""
+def _typed(value: Any, kind: type, **where: Any) -> Any:
+    """Check one value's type (ints are accepted for floats, bools are not); ranges come later."""
     if kind is float:
-        if isinstance(value, bool) or not isinstance(value, int | float):
-            raise InputError(
-                f"must be a number, got {value!r}", source=source, layer=layer, key=key
-            )
-        value = float(value)
-        if not math.isfinite(value):
-            raise InputError(f"must be finite, got {value!r}", source=source, layer=layer, key=key)
-        return value
+        return checks.number(value, **where)
+    if kind is bool:
+        return checks.flag(value, **where)
     if not isinstance(value, kind):
-        raise InputError(
-            f"must be a {kind.__name__}, got {value!r}", source=source, layer=layer, key=key
-        )
+        raise InputError(f"must be a {kind.__name__}, got {checks.show(value)}", **where)
     return value
 
 
-def _table(data: Any, allowed: dict[str, type], *, source: str, name: str) -> dict[str, Any]:
-    if not isinstance(data, dict):
-        raise InputError("must be a table", source=source, key=name)
-    out = {}
-    for key, value in data.items():
-        if key not in allowed:
-            raise InputError(
-                f"unknown key; allowed: {', '.join(sorted(allowed))}",
-                source=source,
-                key=f"{name}.{key}",
-            )
-        out[key] = _typed(value, allowed[key], source=source, layer=None, key=f"{name}.{key}")
-    return out
+def _table(
+    data: Any, allowed: Mapping[str, type], *, source: str, name: str, **where: Any
+) -> dict[str, Any]:
+    """A table of the file with its values type-checked (``name``: its dotted key)."""
+    checks.table(data, sorted(allowed), source=source, key=name, **where)
+    return {
+        key: _typed(value, allowed[key], source=source, key=f"{name}.{key}", **where)
+        for key, value in data.items()
+    }
 
 
 def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
@@ -308,22 +328,16 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
     InputError
         Naming the file, the layer index and the key, with the allowed range.
     """
-    if not isinstance(data, dict):
-        raise InputError("stack must be a table", source=source)
-    for key in data:
-        if key not in TOP_KEYS:
-            raise InputError(
-                f"unknown key; allowed: {', '.join(sorted(TOP_KEYS))}", source=source, key=key
-            )
-
-    temperature_k = _typed(
-        data.get("temperature_k", 300.0), float, source=source, layer=None, key="temperature_k"
-    )
+    checks.table(data, sorted(TOP_KEYS), source=source)
     lo, hi = TEMPERATURE_RANGE_K
-    if not lo <= temperature_k <= hi:
-        raise InputError(
-            f"{temperature_k:g} outside [{lo:g}, {hi:g}] K", source=source, key="temperature_k"
-        )
+    temperature_k = checks.number(
+        data.get("temperature_k", 300.0),
+        low=lo,
+        high=hi,
+        unit="K",
+        source=source,
+        key="temperature_k",
+    )
 
     model = ModelOptions(**_table(data.get("model", {}), MODEL_KEYS, source=source, name="model"))
     if model.electrostatics not in ELECTROSTATICS_MODELS:
@@ -389,7 +403,7 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
 
     substrate = data.get("substrate")
     if substrate is not None:
-        substrate = _typed(substrate, str, source=source, layer=None, key="substrate")
+        substrate = _typed(substrate, str, source=source, key="substrate")
         try:
             sub_name, sub_x = materials.parse_material(substrate)
         except ValueError as exc:
@@ -401,7 +415,7 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
         else:
             try:
                 sub_name, sub_x = materials.parse_material(str(first["material"]), first.get("x"))
-            except (ValueError, TypeError):
+            except (ValueError, TypeError, OverflowError):
                 sub_name, sub_x = None, None  # the layer check below reports it
     substrate_lattice_nm = (
         None
@@ -416,14 +430,20 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
         layer = _parse_layer(
             raw,
             index=i,
-            is_contact=i in (0, n - 1),
+            n_layers=n,
             source=source,
             temperature_k=temperature_k,
             substrate_lattice_nm=substrate_lattice_nm,
             model=model,
         )
         if layer.name in names:
-            raise InputError(f"name '{layer.name}' used twice", source=source, layer=i, key="name")
+            raise InputError(
+                f"name '{layer.name}' used twice",
+                source=source,
+                layer=i,
+                layer_name=layer.name,
+                key="name",
+            )
         names.add(layer.name)
         layers.append(layer)
     return Stack(
@@ -440,28 +460,29 @@ def _parse_layer(
     raw: dict[str, Any],
     *,
     index: int,
-    is_contact: bool,
+    n_layers: int,
     source: str,
     temperature_k: float,
     substrate_lattice_nm: float | None,
     model: ModelOptions,
 ) -> Layer:
-    def err(message: str, key: str | None) -> InputError:
-        return InputError(message, source=source, layer=index, key=key)
+    is_contact = index in (0, n_layers - 1)
+    default_name = default_layer_name(index, n_layers=n_layers)
+    raw_name = raw.get("name") if isinstance(raw, dict) else None
+    name = raw_name if isinstance(raw_name, str) else default_name
+    where: dict[str, Any] = {"source": source, "layer": index, "layer_name": name}
 
-    values = {}
-    for key, value in raw.items():
-        if key not in LAYER_KEYS:
-            raise err(f"unknown key; allowed: {', '.join(sorted(LAYER_KEYS))}", key)
-        values[key] = _typed(value, LAYER_KEYS[key], source=source, layer=index, key=key)
+    def err(message: str, key: str | None) -> InputError:
+        return InputError(message, key=key, **where)
+
+    checks.table(raw, sorted(LAYER_KEYS), **where)
+    values = {key: _typed(value, LAYER_KEYS[key], key=key, **where) for key, value in raw.items()}
 
     if "material" not in values:
         raise err(
             "missing; give a material name such as 'GaAs' or 'In0.53Ga0.47As', or 'custom'",
             "material",
         )
-    default_name = "emitter" if index == 0 else ("collector" if is_contact else f"layer{index}")
-    name = values.get("name", default_name)
 
     # material parameters
     if values["material"] == "custom":
@@ -561,7 +582,7 @@ def _parse_layer(
         )
         if thickness_nm > h_c:
             warnings.warn(
-                f"{source}, layer {index} ('{name}'): {thickness_nm:.2f} nm exceeds the "
+                f"{source}, layer {index + 1} ('{name}'): {thickness_nm:.2f} nm exceeds the "
                 f"Matthews-Blakeslee critical thickness {h_c:.2f} nm; it may relax",
                 CriticalThicknessWarning,
                 stacklevel=4,

@@ -430,7 +430,7 @@ BAD_STACKS: list[tuple[str, str | None, int | None, str | None, str]] = [
         stack_toml(_edit(3, thickness_nm=float("nan"))),
         3,
         "thickness_nm",
-        r"must be finite",
+        r"must be a finite number",
     ),
     (
         "undoped_emitter",
@@ -507,7 +507,7 @@ BAD_STACKS: list[tuple[str, str | None, int | None, str | None, str]] = [
         stack_toml(model={"strain": "yes"}),
         None,
         "model.strain",
-        r"must be a bool, got 'yes'",
+        r"must be true or false, got 'yes'",
     ),
     (
         "wrong_type_temperature",

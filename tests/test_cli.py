@@ -69,7 +69,7 @@ def test_bad_stack_exit_2_one_line_nothing_written(
     line = lines[0]
     assert line.startswith(f"wellwright iv: {path}")
     if layer is not None:
-        assert f"layer {layer}" in line
+        assert f"layer {layer + 1}" in line  # counted from 1 (issue 18)
     if key is not None:
         assert f"key '{key}'" in line
     assert "Traceback" not in captured.err and captured.out == ""

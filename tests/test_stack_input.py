@@ -2,7 +2,8 @@
 
 Each bad file differs from a valid one (``VALID_LAYERS``, an invented test
 stack) by one change; the error must be a :class:`wellwright.physics.errors.InputError`
-(a ``ValueError``) whose message names the file, the layer index and the key
+(a ``ValueError``) whose message names the file, the layer (counted from 1, with its
+name; issue 18) and the key
 (issue 2 and DESIGN.md: "one message naming the file, the layer index and the
 key, with the allowed range").
 """
@@ -19,11 +20,12 @@ from wellwright.physics.stack import CriticalThicknessWarning, load_stack, parse
 
 
 def _location(path, layer, key) -> str:
-    parts = [str(path)]
+    """The message's start as a pattern: layers counted from 1, with the layer's name."""
+    parts = [re.escape(str(path))]
     if layer is not None:
-        parts.append(f"layer {layer}")
+        parts.append(f"layer {layer + 1}" + r"(?: \('[^']+'\))?")  # the name where it has one
     if key is not None:
-        parts.append(f"key '{key}'")
+        parts.append(re.escape(f"key '{key}'"))
     return ", ".join(parts)
 
 
@@ -44,14 +46,14 @@ def test_valid_base_stack_loads(tmp_path) -> None:
 )
 def test_bad_input_names_file_layer_and_key(tmp_path, case, text, layer, key, message) -> None:
     path = tmp_path / "absent.toml" if text is None else write_stack(tmp_path, text)
-    with pytest.raises(
-        InputError, match="^" + re.escape(_location(path, layer, key)) + ": "
-    ) as info:
+    with pytest.raises(InputError, match="^" + _location(path, layer, key) + ": ") as info:
         load_stack(path)
     err = info.value
     assert re.search(message, err.message), err.message
     assert isinstance(err, ValueError)
     assert (err.source, err.layer, err.key) == (str(path), layer, key)
+    if layer is not None and layer < len(VALID_LAYERS) and case != "duplicate_names":
+        assert err.layer_name == VALID_LAYERS[layer].get("name", err.layer_name)
     assert "\n" not in str(err)
     assert "{" not in err.message  # no unfilled placeholder (STYLE.md, point 8)
 
@@ -60,9 +62,11 @@ def test_parse_stack_reports_dict_source() -> None:
     # input built in Python names "<dict>" (or the given source) instead of a file
     layers = [dict(x) for x in VALID_LAYERS]
     layers[3]["thickness_nm"] = -1.0
-    with pytest.raises(InputError, match=r"^<dict>, layer 3, key 'thickness_nm': -1 outside"):
+    with pytest.raises(
+        InputError, match=r"^<dict>, layer 4 \('\w+'\), key 'thickness_nm': -1 outside"
+    ):
         parse_stack({"layers": layers})
-    with pytest.raises(InputError, match=r"^my-script, layer 3"):
+    with pytest.raises(InputError, match=r"^my-script, layer 4 "):
         parse_stack({"layers": layers}, source="my-script")
 
 
@@ -78,7 +82,7 @@ def test_critical_thickness_warns_but_loads(tmp_path) -> None:
     path = write_stack(tmp_path, stack_toml(layers, top={"temperature_k": 300, "substrate": "InP"}))
     with pytest.warns(
         CriticalThicknessWarning,
-        match=r"layer 1 \('barrier'\).*Matthews-Blakeslee critical thickness",
+        match=r"layer 2 \('barrier'\).*Matthews-Blakeslee critical thickness",
     ):
         stack = load_stack(path)
     assert stack.layers[1].thickness_ml == pytest.approx(40)

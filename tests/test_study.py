@@ -53,8 +53,8 @@ def test_stack_dict_is_a_stack_file(write_study):
 
 def test_log_range_and_reserved_tables_pass_through(write_study):
     text = study_text(
-        extra="[growth]\nthickness_ml_sigma = 0.5\n[tolerance]\nsamples = 64\n"
-        "[report]\ntop = 3\n[sweep]\nbias_max_v = 1.2\npoints = 41\n"
+        extra="[growth]\nthickness_ml_sigma = 0.5\n[tolerance]\ndesigns = 3\n"
+        "[report]\nsamples = 64\n[sweep]\nbias_max_v = 1.2\npoints = 41\n"
     )
     text = text.replace('doping_cm3 = 2e18\n"""', "")  # no-op guard
     text = text.replace(
@@ -67,8 +67,8 @@ def test_log_range_and_reserved_tables_pass_through(write_study):
     assert var.name == "collector.doping_cm3" and var.log and not var.integer
     assert study.reserved == {
         "growth": {"thickness_ml_sigma": 0.5},
-        "tolerance": {"samples": 64},
-        "report": {"top": 3},
+        "tolerance": {"designs": 3},
+        "report": {"samples": 64},
     }
     assert study.layer_growth == {"collector": {"doping_sigma": 0.1}}
     assert study.sweep.points == 41 and study.sweep.bias_v[-1] == pytest.approx(1.2)
@@ -190,7 +190,7 @@ def test_thickness_and_metric_bound_constraints(write_study):
         (lambda t: t + "[wishes]\nmore = 1\n", r"key 'wishes': unknown key; allowed: .*targets"),
         (
             lambda t: t.replace('material = "AlAs"', "material = {min = 1, max = 2}"),
-            r"layer 2, key 'material': cannot be a range; keys that may be ranges: .*thickness_ml",
+            r"layer 3 \('[^']+'\), key 'material': cannot be a range; keys that may be ranges: .*thickness_ml",
         ),
         (
             lambda t: t.replace("{min = 4, max = 7}", "{min = 4.5, max = 7}"),
@@ -218,7 +218,7 @@ def test_thickness_and_metric_bound_constraints(write_study):
         ),
         (
             lambda t: t.replace("x = 0.53", "x = {min = 0.5, max = 1.5}"),
-            r"layer 3, key 'x': with every range at its max: 1.5 outside \[0, 1\]",
+            r"layer 4 \('[^']+'\), key 'x': with every range at its max: 1.5 outside \[0, 1\]",
         ),
         (
             lambda t: t.replace("pvcr = {min = 3}", "pvrc = {min = 3}"),
@@ -250,11 +250,11 @@ def test_thickness_and_metric_bound_constraints(write_study):
         ),
         (
             lambda t: t.replace('same_as = "barrier1"', 'same_as = "barrier7"'),
-            r"layer 4, key 'same_as': 'barrier7' is not a layer name; layers: emitter, spacer1",
+            r"layer 5 \('[^']+'\), key 'same_as': 'barrier7' is not a layer name; layers: emitter, spacer1",
         ),
         (
             lambda t: t.replace('same_as = "barrier1"', 'same_as = "barrier1"\nthickness_ml = 3'),
-            r"layer 4, key 'same_as': a layer with same_as takes only name \(and growth\); "
+            r"layer 5 \('[^']+'\), key 'same_as': a layer with same_as takes only name \(and growth\); "
             r"remove thickness_ml",
         ),
         (
@@ -262,11 +262,11 @@ def test_thickness_and_metric_bound_constraints(write_study):
                 'name = "barrier1"\nmaterial = "AlAs"\nthickness_ml = {min = 4, max = 7}',
                 'name = "barrier1"\nsame_as = "barrier2"',
             ),
-            r"layer 2, key 'same_as': same_as chain loops back to this layer",
+            r"layer 3 \('[^']+'\), key 'same_as': same_as chain loops back to this layer",
         ),
         (
             lambda t: t.replace('name = "well"', 'name = "barrier1"'),
-            r"layer 3, key 'name': name 'barrier1' used twice",
+            r"layer 4 \('[^']+'\), key 'name': name 'barrier1' used twice",
         ),
         (
             lambda t: t + '[search]\nsampler = "cmaes"\n',
@@ -312,7 +312,7 @@ def test_thickness_and_metric_bound_constraints(write_study):
         ),
         (
             lambda t: t.replace('name = "well"', 'name = "well"\ngrowth = 3'),
-            r"layer 3, key 'growth': must be a table",
+            r"layer 4 \('[^']+'\), key 'growth': must be a table",
         ),
     ],
 )

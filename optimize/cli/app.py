@@ -13,8 +13,10 @@ from __future__ import annotations
 import argparse
 import importlib
 import os
+import signal
 import sys
 import warnings
+from typing import Any, NoReturn
 
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 from wellwright.physics.errors import InputError
@@ -36,7 +38,7 @@ COMMAND_MODULES = (
 class _Parser(argparse.ArgumentParser):
     """argparse with exit status 2 and one line for usage errors."""
 
-    def error(self, message: str) -> None:  # noqa: D401
+    def error(self, message: str) -> NoReturn:  # noqa: D401
         self.exit(2, f"{self.prog}: error: {message}\n")
 
 
@@ -92,38 +94,66 @@ def main(argv: list[str] | None = None) -> int:
     words = sys.argv[1:] if argv is None else argv
     parser = build_parser(next((w for w in words if not w.startswith("-")), None))
     args = parser.parse_args(argv)
-    with warnings.catch_warnings():
-        warnings.showwarning = _one_line_warning(args.command)
-        return _run(args)
-
-
-def _one_line_warning(command: str):
-    """``warnings.showwarning`` printing ``wellwright COMMAND: warning: message``, one line."""
-
-    def show(message, category, filename, lineno, file=None, line=None) -> None:
-        text = " ".join(str(message).split())
-        print(f"wellwright {command}: warning: {text}", file=sys.stderr if file is None else file)
-
-    return show
-
-
-def _run(args) -> int:
+    previous = _terminate_as_interrupt()
     try:
-        return int(args.func(args) or 0)
-    except InputError as exc:
-        print(f"wellwright {args.command}: {exc.one_line()}", file=sys.stderr)
-        return 2
-    except ElectrostaticsConvergenceError as exc:
-        print(
-            f"wellwright {args.command}: the self-consistent electrostatics did not converge "
-            f"({exc}); nothing written. The linear bias model "
-            '([model] electrostatics = "linear") or another bias range avoids it',
-            file=sys.stderr,
-        )
-        return 2
-    except KeyboardInterrupt:
-        print(f"wellwright {args.command}: interrupted; finished work is kept", file=sys.stderr)
-        return 130
+        return _run(args)
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+def _run(args: argparse.Namespace) -> int:
+    with warnings.catch_warnings(record=True) as caught:
+        try:
+            status = int(args.func(args) or 0)
+        except InputError as exc:
+            return _fail(args.command, exc.one_line())
+        except ElectrostaticsConvergenceError as exc:
+            return _fail(
+                args.command,
+                f"the self-consistent electrostatics did not converge ({exc}); nothing written. "
+                'The linear bias model ([model] electrostatics = "linear") or another bias range '
+                "avoids it",
+            )
+        except BrokenPipeError:  # e.g. `wellwright materials --json | head`: the reader left
+            _silence_stdout()
+            return 2
+        except OSError as exc:  # a write failed (read-only folder, full disk): nothing half-written
+            where = f"{exc.filename}: " if exc.filename else ""
+            return _fail(args.command, f"{where}cannot write ({exc.strerror or exc})")
+        except KeyboardInterrupt:
+            return _fail(args.command, "interrupted; finished work is kept", status=130)
+    # after the command's own output, one plain line each (never before an error line)
+    for message in dict.fromkeys(" ".join(str(w.message).split()) for w in caught):
+        print(f"wellwright {args.command}: warning: {message}", file=sys.stderr)
+    return status
+
+
+def _terminate_as_interrupt() -> Any:
+    """SIGTERM unwinds like Ctrl-C (finally blocks run, worker pools are shut down, the
+    run folder stays resumable); returns the handler it replaced."""
+
+    def handler(signum: int, frame: Any) -> None:
+        raise KeyboardInterrupt
+
+    try:
+        return signal.signal(signal.SIGTERM, handler)
+    except ValueError:  # not the main thread (an embedding program): leave its handlers alone
+        return None
+
+
+def _fail(command: str, line: str, *, status: int = 2) -> int:
+    print(f"wellwright {command}: {line}", file=sys.stderr)
+    return status
+
+
+def _silence_stdout() -> None:
+    """Point stdout at /dev/null so that Python's final flush raises no second BrokenPipeError."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):  # stdout without a file descriptor (a test's capture)
+        pass
 
 
 if __name__ == "__main__":

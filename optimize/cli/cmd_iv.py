@@ -8,7 +8,12 @@ from pathlib import Path
 
 import numpy as np
 from wellwright.optimize.shared import names
-from wellwright.optimize.shared.outputs import json_ready, write_csv, write_json
+from wellwright.optimize.shared.outputs import (
+    check_output_folder,
+    json_ready,
+    write_csv,
+    write_json,
+)
 from wellwright.physics.errors import InputError
 from wellwright.physics.iv import METRIC_NAMES, external_bias_v, stack_iv
 from wellwright.physics.stack import load_stack, read_toml
@@ -109,7 +114,7 @@ def fractional_layers(path: str | Path, stack) -> tuple[list[int], list[str]]:
 def run(args) -> int:
     bias = check_sweep(args.bias_min, args.bias_max, args.points)
     stack = load_stack(args.stack)
-    out = Path(args.out) if args.out else Path(f"{Path(args.stack).stem}_iv")
+    out = check_output_folder(args.out if args.out else f"{Path(args.stack).stem}_iv")
     islands, island_lines = fractional_layers(args.stack, stack)
     curves = stack_iv(stack, bias, island_layers=islands)
     record = iv_record(stack, curves)

@@ -6,6 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from wellwright.optimize.shared.outputs import check_output_folder
 from wellwright.optimize.study.study import (
     MAX_ROBUST_SAMPLES,
     MAX_TRIALS,
@@ -13,6 +14,7 @@ from wellwright.optimize.study.study import (
     MIN_ROBUST_SAMPLES,
     load_study,
 )
+from wellwright.physics import checks
 from wellwright.physics.errors import InputError
 
 
@@ -74,8 +76,8 @@ def _check_args(args: argparse.Namespace) -> None:
         raise InputError(f"{args.trials} outside [0, {MAX_TRIALS}]", key="--trials")
     if args.workers is not None and not 1 <= args.workers <= MAX_WORKERS:
         raise InputError(f"{args.workers} outside [1, {MAX_WORKERS}]", key="--workers")
-    if args.seed is not None and not 0 <= args.seed < 2**32:
-        raise InputError(f"{args.seed} outside [0, 2^32)", key="--seed")
+    if args.seed is not None:
+        checks.seed(args.seed, key="--seed")
     if args.robust_samples is not None and not (
         MIN_ROBUST_SAMPLES <= args.robust_samples <= MAX_ROBUST_SAMPLES
     ):
@@ -87,8 +89,8 @@ def _check_args(args: argparse.Namespace) -> None:
         from wellwright.optimize.search.storage import check_storage_url
 
         check_storage_url(args.storage)
-    if args.out is not None and Path(args.out).exists() and not Path(args.out).is_dir():
-        raise InputError(f"{args.out!r} exists and is not a folder", key="--out")
+    if args.out is not None:
+        check_output_folder(args.out)
 
 
 def _fmt(value: float | None, factor: float = 1.0, spec: str = ".3g") -> str:

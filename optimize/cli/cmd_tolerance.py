@@ -10,9 +10,11 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from wellwright.optimize.shared.outputs import check_output_folder
 from wellwright.optimize.study.growth import growth_model, parse_growth, split_layer_growth
 from wellwright.optimize.study.study import Study, load_study
 from wellwright.optimize.tolerance.analysis import METHODS, Runner, Spec, run_tolerance
+from wellwright.physics import checks
 from wellwright.physics.errors import InputError
 from wellwright.physics.stack import CriticalThicknessWarning, Stack, parse_stack, read_toml
 
@@ -110,14 +112,13 @@ def _check_args(args: argparse.Namespace) -> None:
         raise InputError(f"{args.target_yield:g} outside (0, 1)", key="--target-yield")
     if args.jobs is not None and not 1 <= args.jobs <= 256:
         raise InputError(f"{args.jobs} outside [1, 256]", key="--jobs")
-    if not 0 <= args.seed < 2**32:
-        raise InputError(f"{args.seed} outside [0, 2^32)", key="--seed")
+    checks.seed(args.seed, key="--seed")
     if args.cluster is not None and not args.cluster.startswith(("tcp://", "tls://")):
         raise InputError(
             f"{args.cluster!r} is not a scheduler address like tcp://HOST:8786", key="--cluster"
         )
-    if args.out is not None and Path(args.out).exists() and not Path(args.out).is_dir():
-        raise InputError(f"{args.out!r} exists and is not a folder", key="--out")
+    if args.out is not None:
+        check_output_folder(args.out)
 
 
 def _from_search(study: Study, which: str, search_dir: Path) -> tuple[Stack, dict[str, Any]]:
@@ -171,8 +172,9 @@ def run(args: argparse.Namespace) -> int:
     study = load_study(args.study)
     search_dir = Path(args.search_dir) if args.search_dir else Path(f"{study.name}_out")
     file_growth: dict[str, Any] = {}
-    if args.design == "best" or args.design.isdigit():
-        if args.design.isdigit() and int(args.design) < 1:
+    is_rank = args.design.isascii() and args.design.isdigit()  # not '²' or Arabic-Indic digits
+    if args.design == "best" or is_rank:
+        if is_rank and int(args.design) < 1:
             raise InputError("ranks start at 1", key="--design")
         stack, design = _from_search(study, args.design, search_dir)
         label = "best" if args.design == "best" else f"rank{int(args.design)}"

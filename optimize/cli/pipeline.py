@@ -21,13 +21,18 @@ from __future__ import annotations
 
 import json
 from collections.abc import Callable
-from dataclasses import asdict, dataclass, replace
+from dataclasses import asdict
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 from wellwright.optimize.shared import names
-from wellwright.optimize.shared.outputs import atomic_write_text, write_json
+from wellwright.optimize.shared.outputs import (
+    atomic_write,
+    check_output_folder,
+    remove_temporaries,
+    write_json,
+)
 from wellwright.optimize.study.run_folder import (
     FORMAT_VERSION,
     PIPELINE_FILE,
@@ -37,7 +42,14 @@ from wellwright.optimize.study.run_folder import (
     study_from_run,
     study_from_text,
 )
-from wellwright.optimize.study.study import MAX_TRIALS, Study
+from wellwright.optimize.study.run_settings import (
+    METHODS,
+    RunSettings,
+    check_settings,
+    settings_from_tables,
+    with_overrides,
+)
+from wellwright.optimize.study.study import Study
 from wellwright.physics.errors import InputError
 
 __all__ = [
@@ -48,121 +60,20 @@ __all__ = [
     "study_from_run",
     "PIPELINE_FILE",
     "STAGES",
+    "METHODS",
+    "check_settings",
 ]
 
 STAGES = ("search", "tolerance", "report")
-METHODS = ("mc", "sobol", "morris")
-#: Keys of the study file's ``[report]`` table read by this module.
-REPORT_KEYS = ("designs", "samples", "method", "seed", "allocate", "target_yield", "bias_points")
-
-
-@dataclass(frozen=True)
-class RunSettings:
-    """Settings of one pipeline run (command line over ``[report]`` over defaults).
-
-    Attributes
-    ----------
-    trials
-        Complete search trials the study should hold (None: ``[search] trials``).
-    designs
-        Top-ranked designs that get a tolerance analysis and a report section.
-    samples
-        Monte Carlo samples (also the evaluation budget of Sobol/Morris).
-    method
-        ``mc``, ``sobol`` or ``morris``.
-    seed
-        Seed of every random step of the tolerance stage; the search seed is
-        ``[search] seed`` unless ``search_seed`` is given.
-    allocate
-        Parameters whose tolerance is allocated (top of the ranking).
-    target_yield
-        Yield the allocation must keep.
-    bias_points
-        Bias points of the tolerance sweeps (None: the study's ``[sweep] points``).
-    search_seed, workers, storage
-        Passed to :func:`wellwright.optimize.search.engine.run_search`.
-    jobs
-        joblib workers of the tolerance stage.
-    """
-
-    trials: int | None = None
-    designs: int = 2
-    samples: int = 128
-    method: str = "sobol"
-    seed: int = 0
-    allocate: int = 2
-    target_yield: float = 0.9
-    bias_points: int | None = None
-    search_seed: int | None = None
-    workers: int | None = None
-    storage: str | None = None
-    jobs: int = 1
-
-
-def _fail(message: str, key: str, source: str | None = None) -> InputError:
-    return InputError(message, source=source, key=key)
-
-
-def _int_in(value: Any, key: str, lo: int, hi: int, source: str | None) -> int:
-    if isinstance(value, bool) or not isinstance(value, int) or not lo <= value <= hi:
-        raise _fail(f"must be a whole number in [{lo}, {hi}], got {value!r}", key, source)
-    return value
-
-
-def check_settings(s: RunSettings, *, source: str | None = None) -> RunSettings:
-    """Validate every setting; raises :class:`InputError` naming the key."""
-    if s.trials is not None:
-        _int_in(s.trials, "trials", 0, MAX_TRIALS, source)
-    _int_in(s.designs, "designs", 1, 20, source)
-    _int_in(s.samples, "samples", 8, 1_000_000, source)
-    if s.method not in METHODS:
-        raise _fail(f"must be one of {', '.join(METHODS)}, got {s.method!r}", "method", source)
-    _int_in(s.seed, "seed", 0, 2**32 - 1, source)
-    _int_in(s.allocate, "allocate", 0, 50, source)
-    if (
-        isinstance(s.target_yield, bool)
-        or not isinstance(s.target_yield, int | float)
-        or not 0.0 < s.target_yield < 1.0
-    ):
-        raise _fail(f"must be a number in (0, 1), got {s.target_yield!r}", "target_yield", source)
-    if s.bias_points is not None:
-        _int_in(s.bias_points, "bias_points", 5, 2001, source)
-    if s.search_seed is not None:
-        _int_in(s.search_seed, "seed", 0, 2**32 - 1, source)
-    return s
 
 
 def run_settings(study: Study, overrides: dict[str, Any] | None = None) -> RunSettings:
-    """Defaults, then the study file's ``[report]`` table (and ``[tolerance] designs``),
+    """Defaults, then the study file's ``[tolerance] designs`` and ``[report]`` table,
     then ``overrides`` (command-line values that are not None)."""
-    table = study.reserved.get("report", {})
-    for key in table:
-        if key not in REPORT_KEYS:
-            raise InputError(
-                f"unknown key; allowed: {', '.join(REPORT_KEYS)}",
-                source=study.source,
-                key=f"report.{key}",
-            )
-    values: dict[str, Any] = {}
-    tol = study.reserved.get("tolerance", {})
-    if "designs" in tol:
-        values["designs"] = tol["designs"]
-    values.update(table)
-    s = RunSettings(**values)
-    try:
-        check_settings(s, source=study.source)
-    except InputError as exc:  # name the key as the file has it
-        raise InputError(
-            exc.message, source=study.source, key=f"report.{exc.key}" if exc.key else "report"
-        ) from None
-    if overrides:
-        s = replace(s, **{k: v for k, v in overrides.items() if v is not None})
-        try:
-            check_settings(s)
-        except InputError as exc:  # name the option as the command line has it
-            option = f"--{exc.key.replace('_', '-')}" if exc.key else None
-            raise InputError(exc.message, key=option) from None
-    return s
+    tables = settings_from_tables(
+        study.reserved.get("report"), study.reserved.get("tolerance"), source=study.source
+    )
+    return with_overrides(tables, overrides)
 
 
 # --------------------------------------------------------------------------- run folder
@@ -249,6 +160,15 @@ def _stage_fingerprints(study_bytes: bytes, s: RunSettings, designs: list[dict] 
     for d in designs or []:
         fp[f"tolerance:{d['rank']}"] = fingerprint(study_bytes, d["params"], tol_settings)
     return fp
+
+
+def _is_run_folder(run_dir: Path) -> bool:
+    """Empty, or holding a study copy or a pipeline record (a run stopped at any moment)."""
+    return (
+        not any(run_dir.iterdir())
+        or (run_dir / STUDY_COPY).is_file()
+        or (run_dir / PIPELINE_FILE).is_file()
+    )
 
 
 def _log(progress: bool, text: str) -> None:
@@ -345,32 +265,34 @@ def run_pipeline(
     except OSError as exc:
         raise InputError(f"cannot read file ({exc.strerror})", source=str(path)) from None
     study = study_from_text(
-        study_bytes.decode("utf-8", errors="replace"),
+        study_bytes,
         source=str(path),
         name=path.stem,
         base_dir=path.parent,
     )
     s = run_settings(study, settings)
+    if (study.search.trials if s.trials is None else s.trials) < 1:
+        raise InputError("a run needs at least one trial", source=study.source, key="search.trials")
     if not study.targets:
         raise InputError(
             "the tolerance stage needs at least one window (e.g. pvcr = {min = 3})",
             source=study.source,
             key="targets",
         )
-    run_dir = Path(out_dir)
-    if run_dir.exists() and not run_dir.is_dir():
-        raise InputError("exists and is not a folder", key="--out", source=str(run_dir))
-    if run_dir.is_dir() and any(run_dir.iterdir()) and not (run_dir / PIPELINE_FILE).is_file():
+    run_dir = check_output_folder(out_dir, key="--out")
+    if run_dir.is_dir() and not _is_run_folder(run_dir):
         raise InputError(
             "folder exists, is not empty and is not a run folder; give a new --out",
             key="--out",
             source=str(run_dir),
         )
+    # the first bytes written are the study copy, so a run stopped at any later moment
+    # (even before pipeline.json exists) is a run folder that the same command resumes
+    remove_temporaries(run_dir)
+    atomic_write(run_dir / STUDY_COPY, study_bytes)
     old: dict[str, Any] = {}
     if (run_dir / PIPELINE_FILE).is_file():
         old = load_run(run_dir)
-
-    run_dir.mkdir(parents=True, exist_ok=True)
     record: dict[str, Any] = {
         "format": FORMAT_VERSION,
         "study": {
@@ -408,7 +330,6 @@ def run_pipeline(
         }
         _save(run_dir, record)
     # the copy the report reads; written once the search accepted this file
-    atomic_write_text(run_dir / STUDY_COPY, study_bytes.decode("utf-8", errors="replace"))
     designs = json.loads((run_dir / "search" / "designs.json").read_text(encoding="utf-8"))
     chosen = designs[: s.designs]
     if not chosen:

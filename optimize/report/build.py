@@ -19,16 +19,20 @@ from __future__ import annotations
 import base64
 import html
 import json
-import os
 import platform
 import re
-import tempfile
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
 from wellwright.optimize.shared import names
-from wellwright.optimize.shared.outputs import atomic_write_text, save_figure, write_csv, write_json
+from wellwright.optimize.shared.outputs import (
+    atomic_write,
+    atomic_write_text,
+    save_figure,
+    write_csv,
+    write_json,
+)
 from wellwright.optimize.study.run_folder import load_run, study_from_run
 from wellwright.optimize.study.study import Study
 from wellwright.physics.errors import InputError
@@ -156,20 +160,6 @@ def _table(head: list[str], rows: list[list[Any]], *, left: int = 1, raw: bool =
     return "".join(out)
 
 
-def _write_bytes(path: Path, data: bytes) -> Path:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return path
-
-
 class _Figures:
     """Collects the report's PNG files and embeds them."""
 
@@ -186,7 +176,7 @@ class _Figures:
         if not src.is_file():
             return None
         self.names.append(name)
-        return _write_bytes(self.folder / name, src.read_bytes())
+        return atomic_write(self.folder / name, src.read_bytes())
 
     def html(self, name: str, caption: str, alt: str) -> str:
         path = self.folder / name

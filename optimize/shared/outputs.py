@@ -12,7 +12,21 @@ from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
 
-__all__ = ["atomic_write_text", "write_json", "write_csv", "save_figure", "json_ready"]
+from wellwright.physics.errors import InputError
+
+__all__ = [
+    "atomic_write",
+    "atomic_write_text",
+    "write_json",
+    "write_csv",
+    "save_figure",
+    "json_ready",
+    "check_output_folder",
+    "remove_temporaries",
+]
+
+#: Names of this module's temporary files: ``.NAME.XXXX.tmp`` and ``.STEM.XXXX.png``.
+_TEMPORARY = (".*.tmp", ".*.png")
 
 
 def _publish(tmp: str, path: Path) -> None:
@@ -23,19 +37,25 @@ def _publish(tmp: str, path: Path) -> None:
     os.replace(tmp, path)
 
 
-def atomic_write_text(path: str | Path, text: str) -> Path:
-    """Write ``text`` to ``path`` via a temporary file in the same folder and a rename."""
+def atomic_write(path: str | Path, data: str | bytes) -> Path:
+    """Write ``data`` (text as UTF-8) to ``path`` via a temporary file in the same folder
+    and a rename: the one atomic writer; a reader sees the old file or the new one."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as f:
-            f.write(text)
+        with os.fdopen(fd, "wb") as f:
+            f.write(data.encode("utf-8") if isinstance(data, str) else data)
         _publish(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
     return path
+
+
+def atomic_write_text(path: str | Path, text: str) -> Path:
+    """Write ``text`` to ``path`` atomically (:func:`atomic_write`)."""
+    return atomic_write(path, text)
 
 
 def json_ready(value: Any) -> Any:
@@ -81,3 +101,45 @@ def save_figure(fig, path: str | Path, *, dpi: int = 130) -> Path:
     finally:
         plt.close(fig)
     return path
+
+
+def check_output_folder(path: str | Path, *, key: str = "--out") -> Path:
+    """Raise :class:`InputError` unless ``path`` is, or can be made, a writable folder.
+
+    Checked before a command writes anything: ``path`` must not be a file, nor lie
+    under a file, and the folder (or its nearest existing parent) must be writable
+    (a read-only folder or file system).
+    """
+    path = Path(path)
+    if path.exists() and not path.is_dir():
+        raise InputError("exists and is not a folder", source=str(path), key=key)
+    existing = path
+    while not existing.exists():
+        existing = existing.parent
+    if not existing.is_dir():
+        raise InputError(
+            f"{str(existing)!r} is a file, so no folder can be made under it",
+            source=str(path),
+            key=key,
+        )
+    if not os.access(existing, os.W_OK | os.X_OK):
+        raise InputError(f"{str(existing)!r} is not writable", source=str(path), key=key)
+    return path
+
+
+def remove_temporaries(folder: str | Path) -> int:
+    """Delete the temporary files an interrupted write left in ``folder`` and below.
+
+    Only this module's temporary names (hidden, ``.tmp`` or ``.png``) are touched;
+    returns how many were removed.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        return 0
+    removed = 0
+    for pattern in _TEMPORARY:
+        for tmp in folder.rglob(pattern):
+            if tmp.is_file() and tmp.name.count(".") >= 3:  # .NAME.XXXX.ext: never a user file
+                tmp.unlink(missing_ok=True)
+                removed += 1
+    return removed

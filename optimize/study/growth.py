@@ -140,10 +140,10 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from wellwright.physics import materials
+from wellwright.physics import checks, materials
 from wellwright.physics.errors import InputError
 from wellwright.physics.islands import area_weight_matrix, island_mixture
-from wellwright.physics.stack import LayerTable, Stack
+from wellwright.physics.stack import LayerTable, Stack, default_layer_name
 
 __all__ = [
     "GrowthSettings",
@@ -304,26 +304,13 @@ class GrowthParameter:
         return f"layer {self.name.rsplit('.', 1)[0]}"
 
 
-def _check_sigma(value: Any, key: str, *, source: str, layer: int | None) -> float:
-    return _check_range(value, GROWTH_KEYS[key.rsplit(".", 1)[-1]], key, source=source, layer=layer)
+def _check_sigma(value: Any, key: str, **where: Any) -> float:
+    return _check_range(value, GROWTH_KEYS[key.rsplit(".", 1)[-1]], key, **where)
 
 
-def _check_range(
-    value: Any, bounds: tuple[float, float, str], key: str, *, source: str, layer: int | None
-) -> float:
+def _check_range(value: Any, bounds: tuple[float, float, str], key: str, **where: Any) -> float:
     lo, hi, unit = bounds
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise InputError(
-            f"must be a number in [{lo:g}, {hi:g}] ({unit}), got {value!r}",
-            source=source,
-            layer=layer,
-            key=key,
-        )
-    if not lo <= value <= hi:
-        raise InputError(
-            f"{value:g} outside [{lo:g}, {hi:g}] ({unit})", source=source, layer=layer, key=key
-        )
-    return float(value)
+    return checks.number(value, low=lo, high=hi, unit=f"({unit})", key=key, **where)
 
 
 def parse_growth(
@@ -393,6 +380,7 @@ def parse_growth(
                 "must be a table, e.g. growth = {thickness_ml_sigma = 0.3}",
                 source=source,
                 layer=index,
+                layer_name=name,
                 key="growth",
             )
         over = {}
@@ -407,9 +395,12 @@ def parse_growth(
                     f"unknown key; allowed: {', '.join(LAYER_GROWTH_KEYS)}{extra}",
                     source=source,
                     layer=index,
+                    layer_name=name,
                     key=f"growth.{key}",
                 )
-            over[key] = _check_sigma(value, f"growth.{key}", source=source, layer=index)
+            over[key] = _check_sigma(
+                value, f"growth.{key}", source=source, layer=index, layer_name=name
+            )
         per_layer[name] = GrowthSettings(**{**settings.__dict__, **over})
     return settings, per_layer
 
@@ -536,8 +527,8 @@ def split_layer_growth(data: dict[str, Any]) -> tuple[dict[str, Any], dict[str, 
         for i, raw in enumerate(layers):
             if isinstance(raw, dict) and "growth" in raw:
                 raw = dict(raw)
-                default = "emitter" if i == 0 else ("collector" if i == n - 1 else f"layer{i}")
-                growth[str(raw.get("name", default))] = raw.pop("growth")
+                name = raw.get("name", default_layer_name(i, n_layers=n))
+                growth[str(name)] = raw.pop("growth")
             new.append(raw)
         out["layers"] = new
     return out, growth

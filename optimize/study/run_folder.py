@@ -8,12 +8,12 @@ from __future__ import annotations
 
 import hashlib
 import json
-import tomllib
 from pathlib import Path
 from typing import Any
 
 from wellwright.optimize.study.study import Study, parse_study
 from wellwright.physics.errors import InputError
+from wellwright.physics.stack import parse_toml
 
 PIPELINE_FILE = "pipeline.json"
 STUDY_COPY = "study.toml"
@@ -28,12 +28,9 @@ def fingerprint(*parts: Any) -> str:
     return h.hexdigest()[:16]
 
 
-def study_from_text(text: str, *, source: str, name: str, base_dir: str | Path) -> Study:
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc})", source=source) from None
-    return parse_study(data, source=source, name=name, base_dir=base_dir)
+def study_from_text(text: str | bytes, *, source: str, name: str, base_dir: str | Path) -> Study:
+    """The study in ``text`` (bytes must be UTF-8)."""
+    return parse_study(parse_toml(text, source=source), source=source, name=name, base_dir=base_dir)
 
 
 def load_run(run_dir: str | Path) -> dict[str, Any]:

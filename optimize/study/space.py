@@ -21,8 +21,9 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from wellwright.physics import checks
 from wellwright.physics.errors import InputError
-from wellwright.physics.stack import LAYER_KEYS, TOP_KEYS, Stack
+from wellwright.physics.stack import LAYER_KEYS, TOP_KEYS, Stack, default_layer_name
 
 __all__ = [
     "grid_values",
@@ -37,6 +38,8 @@ __all__ = [
 ]
 
 #: Layer keys that may be ranges (every numeric stack key).
+#: Most grid points a range with a step may have (a smaller step is surely a typo).
+MAX_STEPS = 1e6
 RANGE_KEYS = tuple(sorted(k for k, kind in LAYER_KEYS.items() if kind is float))
 
 
@@ -93,7 +96,12 @@ class Variable:
 
 def is_finite_number(value: Any) -> bool:
     """A finite int or float (a bool is not a number here)."""
-    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        return False
+    try:
+        return math.isfinite(value)
+    except OverflowError:  # an integer too large for a float
+        return False
 
 
 def stack_dict(
@@ -204,17 +212,18 @@ def parse_space(
     n = len(raw_layers)
     names = []
     for i, raw in enumerate(raw_layers):
-        default = "emitter" if i == 0 else ("collector" if i == n - 1 else f"layer{i}")
-        nm = raw.get("name", default)
+        nm = raw.get("name", default_layer_name(i, n_layers=n))
         if not isinstance(nm, str) or not nm or "." in nm:
             raise InputError(
-                f"must be a non-empty string without '.', got {nm!r}",
+                f"must be a non-empty string without '.', got {checks.show(nm)}",
                 source=source,
                 layer=i,
                 key="name",
             )
         if nm in names:
-            raise InputError(f"name '{nm}' used twice", source=source, layer=i, key="name")
+            raise InputError(
+                f"name '{nm}' used twice", source=source, layer=i, layer_name=nm, key="name"
+            )
         names.append(nm)
 
     layer_growth: dict[str, Any] = {}
@@ -228,7 +237,11 @@ def parse_space(
             if key == "growth":
                 if not isinstance(value, dict):
                     raise InputError(
-                        "must be a table, e.g. growth = {...}", source=source, layer=i, key=key
+                        "must be a table, e.g. growth = {...}",
+                        source=source,
+                        layer=i,
+                        layer_name=names[i],
+                        key=key,
                     )
                 layer_growth[names[i]] = copy.deepcopy(value)
                 continue
@@ -241,6 +254,7 @@ def parse_space(
                         f"cannot be a range; keys that may be ranges: {', '.join(RANGE_KEYS)}",
                         source=source,
                         layer=i,
+                        layer_name=names[i],
                         key=key,
                     )
                 ranges[(i, key)] = value
@@ -256,9 +270,10 @@ def parse_space(
         target = layer["same_as"]
         if not isinstance(target, str):
             raise InputError(
-                f"must be the name of another layer, got {target!r}",
+                f"must be the name of another layer, got {checks.show(target)}",
                 source=source,
                 layer=i,
+                layer_name=names[i],
                 key="same_as",
             )
         extra = sorted(k for k in raw_layers[i] if k not in ("name", "same_as", "growth"))
@@ -267,6 +282,7 @@ def parse_space(
                 f"a layer with same_as takes only name (and growth); remove {', '.join(extra)}",
                 source=source,
                 layer=i,
+                layer_name=names[i],
                 key="same_as",
             )
         seen = {i}
@@ -278,12 +294,17 @@ def parse_space(
                     f"'{ref}' is not a layer name; layers: {', '.join(names)}",
                     source=source,
                     layer=j,
+                    layer_name=names[j],
                     key="same_as",
                 )
             j = names.index(ref)
             if j in seen:
                 raise InputError(
-                    "same_as chain loops back to this layer", source=source, layer=i, key="same_as"
+                    "same_as chain loops back to this layer",
+                    source=source,
+                    layer=i,
+                    layer_name=names[i],
+                    key="same_as",
                 )
             seen.add(j)
         resolved[i] = j
@@ -321,7 +342,11 @@ def parse_range(
 
     def err(message: str, sub: str | None = None) -> InputError:
         return InputError(
-            message, source=source, layer=index, key=key if sub is None else f"{key}.{sub}"
+            message,
+            source=source,
+            layer=index,
+            layer_name=name.rsplit(".", 1)[0],
+            key=key if sub is None else f"{key}.{sub}",
         )
 
     unknown = sorted(set(spec) - {"min", "max", "step", "log"})
@@ -331,7 +356,7 @@ def parse_range(
         if bound not in spec:
             raise err(f"range needs min and max; a range is {form}", bound)
         if not is_finite_number(spec[bound]):
-            raise err(f"must be a finite number, got {spec[bound]!r}", bound)
+            raise err(f"must be a finite number, got {checks.show(spec[bound])}", bound)
         if integer and float(spec[bound]) != int(spec[bound]):
             raise err(f"{spec[bound]!r} is not a whole number of monolayers", bound)
     low, high = float(spec["min"]), float(spec["max"])
@@ -339,16 +364,21 @@ def parse_range(
         raise err(f"min ({low:g}) must be below max ({high:g})", "max")
     log = spec.get("log", False)
     if not isinstance(log, bool):
-        raise err(f"must be true or false, got {log!r}", "log")
+        raise err(f"must be true or false, got {checks.show(log)}", "log")
     step = spec.get("step")
     if step is not None:
         if not is_finite_number(step) or step <= 0:
-            raise err(f"must be a positive number, got {step!r}", "step")
+            raise err(f"must be a positive number, got {checks.show(step)}", "step")
         if integer and float(step) != int(step):
-            raise err(f"{step!r} is not a whole number of monolayers", "step")
+            raise err(f"{checks.show(step)} is not a whole number of monolayers", "step")
         if log:
             raise err("give either step or log = true, not both", "step")
         k = (high - low) / step
+        if not k <= MAX_STEPS:  # also catches an overflow to inf
+            raise err(
+                f"{step:g} is too small: (max - min) / step = {k:.3g} steps, at most {MAX_STEPS:g}",
+                "step",
+            )
         if abs(k - round(k)) > 1e-6:
             raise err(
                 f"max - min ({high - low:g}) must be a whole number of steps of {step:g}", "step"

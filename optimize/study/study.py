@@ -57,6 +57,7 @@ from wellwright.optimize.study import space as _space
 from wellwright.optimize.study import targets as _targets
 from wellwright.optimize.study.calibration import apply_calibration
 from wellwright.optimize.study.growth import GrowthSettings, parse_growth
+from wellwright.optimize.study.run_settings import MAX_TRIALS, settings_from_tables
 from wellwright.optimize.study.space import RANGE_KEYS, Variable, is_finite_number, parse_space
 from wellwright.optimize.study.targets import (
     DEFAULT_REFERENCE,
@@ -69,6 +70,7 @@ from wellwright.optimize.study.targets import (
     parse_constraints,
     parse_targets,
 )
+from wellwright.physics import checks
 from wellwright.physics.errors import InputError
 from wellwright.physics.stack import (
     TOP_KEYS,
@@ -102,7 +104,6 @@ RESERVED_TABLES = ("growth", "tolerance", "report", "calibration")
 STUDY_TABLES = ("targets", "constraints", "search", "sweep")
 ALLOWED_TOP_KEYS = tuple(sorted(TOP_KEYS | set(STUDY_TABLES) | set(RESERVED_TABLES)))
 SAMPLERS = ("tpe", "nsga2", "random")
-MAX_TRIALS = 1_000_000
 MAX_WORKERS = 256
 MAX_POINTS = 2001
 MAX_ABS_BIAS_V = 10.0
@@ -354,13 +355,7 @@ def parse_study(
         Folder that relative paths in the file (``[search] baseline``) are
         relative to.
     """
-    if not isinstance(data, dict):
-        raise InputError("study must be a table", source=source)
-    for key in data:
-        if key not in ALLOWED_TOP_KEYS:
-            raise InputError(
-                f"unknown key; allowed: {', '.join(ALLOWED_TOP_KEYS)}", source=source, key=key
-            )
+    checks.table(data, ALLOWED_TOP_KEYS, source=source)
     for key in (*STUDY_TABLES, *RESERVED_TABLES):
         if key in data and not isinstance(data[key], dict):
             raise InputError(f"must be a table, e.g. [{key}]", source=source, key=key)
@@ -401,6 +396,8 @@ def parse_study(
         layer_names=study.layer_names,
         source=source,
     )
+    # [report] and [tolerance] belong to `run`, but every command that reads the file checks them
+    settings_from_tables(reserved.get("report"), reserved.get("tolerance"), source=source)
     baseline = _parse_baseline(
         data.get("search", {}).get("baseline"), study, source=source, base_dir=base_dir
     )
@@ -424,21 +421,20 @@ def _check_corners(study: Study) -> None:
         except InputError as exc:
             prefix = f"with every range at its {corner}: " if study.variables else ""
             raise InputError(
-                prefix + exc.message, source=study.source, layer=exc.layer, key=exc.key
+                prefix + exc.message,
+                source=study.source,
+                layer=exc.layer,
+                layer_name=exc.layer_name,
+                key=exc.key,
             ) from None
 
 
 def _int_setting(
     table: dict[str, Any], key: str, default: int, lo: int, hi: int, *, source: str, name: str
 ) -> int:
-    value = table.get(key, default)
-    if isinstance(value, bool) or not isinstance(value, int) or not lo <= value <= hi:
-        raise InputError(
-            f"must be a whole number in [{lo}, {hi}], got {value!r}",
-            source=source,
-            key=f"{name}.{key}",
-        )
-    return value
+    return checks.whole(
+        table.get(key, default), low=lo, high=hi, source=source, key=f"{name}.{key}"
+    )
 
 
 def _parse_search(table: dict[str, Any], *, source: str) -> SearchSettings:
@@ -456,37 +452,21 @@ def _parse_search(table: dict[str, Any], *, source: str) -> SearchSettings:
         "robust",
         "robust_samples",
     )
-    for key in table:
-        if key not in allowed:
-            raise InputError(
-                f"unknown key; allowed: {', '.join(allowed)}", source=source, key=f"search.{key}"
-            )
-    sampler = table.get("sampler", "tpe")
-    if sampler not in SAMPLERS:
-        raise InputError(
-            f"{sampler!r} is not one of {', '.join(SAMPLERS)}", source=source, key="search.sampler"
-        )
+    checks.table(table, allowed, source=source, key="search")
+    sampler = checks.choice(
+        table.get("sampler", "tpe"), SAMPLERS, source=source, key="search.sampler"
+    )
     study_name = table.get("study_name")
-    if study_name is not None and (not isinstance(study_name, str) or not study_name.strip()):
-        raise InputError(
-            f"must be a non-empty string, got {study_name!r}",
-            source=source,
-            key="search.study_name",
-        )
-    multivariate = table.get("multivariate", True)
-    if not isinstance(multivariate, bool):
-        raise InputError(
-            f"must be true or false, got {multivariate!r}", source=source, key="search.multivariate"
-        )
-    robust = table.get("robust", False)
-    if not isinstance(robust, bool):
-        raise InputError(
-            f"must be true or false, got {robust!r}", source=source, key="search.robust"
-        )
+    if study_name is not None:
+        checks.text(study_name, source=source, key="search.study_name")
+    multivariate = checks.flag(
+        table.get("multivariate", True), source=source, key="search.multivariate"
+    )
+    robust = checks.flag(table.get("robust", False), source=source, key="search.robust")
     return SearchSettings(
         trials=_int_setting(table, "trials", 100, 0, MAX_TRIALS, source=source, name="search"),
         sampler=sampler,
-        seed=_int_setting(table, "seed", 0, 0, 2**32 - 1, source=source, name="search"),
+        seed=checks.seed(table.get("seed", 0), source=source, key="search.seed"),
         workers=_int_setting(table, "workers", 1, 1, MAX_WORKERS, source=source, name="search"),
         study_name=study_name,
         batch=_int_setting(table, "batch", 4, 1, 1024, source=source, name="search"),
@@ -510,21 +490,18 @@ def _parse_search(table: dict[str, Any], *, source: str) -> SearchSettings:
 
 def _parse_sweep(table: dict[str, Any], *, source: str) -> SweepSettings:
     allowed = ("bias_min_v", "bias_max_v", "points")
-    for key in table:
-        if key not in allowed:
-            raise InputError(
-                f"unknown key; allowed: {', '.join(allowed)}", source=source, key=f"sweep.{key}"
-            )
-    values = {}
-    for key in ("bias_min_v", "bias_max_v"):
-        v = table.get(key, getattr(SweepSettings, key))
-        if not is_finite_number(v) or abs(v) > MAX_ABS_BIAS_V:
-            raise InputError(
-                f"must be a bias in [-{MAX_ABS_BIAS_V:g}, {MAX_ABS_BIAS_V:g}] V, got {v!r}",
-                source=source,
-                key=f"sweep.{key}",
-            )
-        values[key] = float(v)
+    checks.table(table, allowed, source=source, key="sweep")
+    values = {
+        key: checks.number(
+            table.get(key, getattr(SweepSettings, key)),
+            low=-MAX_ABS_BIAS_V,
+            high=MAX_ABS_BIAS_V,
+            unit="V",
+            source=source,
+            key=f"sweep.{key}",
+        )
+        for key in ("bias_min_v", "bias_max_v")
+    }
     if values["bias_max_v"] <= values["bias_min_v"]:
         raise InputError(
             f"must be above bias_min_v ({values['bias_min_v']:g} V)",
@@ -566,8 +543,15 @@ def _parse_baseline(
                         source=source,
                         key="search.baseline",
                     )
-                stack = load_stack(path)
-            out.append(study.parameters_of(stack, source=str(path)))
+                try:
+                    stack = load_stack(path)
+                    out.append(study.parameters_of(stack, source=str(path)))
+                except InputError as exc:  # the study file's key, then what is wrong in the stack
+                    raise InputError(
+                        f"baseline stack file: {exc.one_line()}",
+                        source=source,
+                        key="search.baseline",
+                    ) from None
         elif isinstance(item, dict):
             flat = _flatten(item)
             params = {}

@@ -1,0 +1,363 @@
+"""Every bad-input class of issue 18 (item 7): one line, exit status 2, nothing written.
+
+Also the property-based fuzz of the parsers (hypothesis): whatever a stack or study file
+holds, the parsers raise the project's :class:`InputError` or nothing. The source of every
+expectation is the project's rule for bad input (DESIGN.md, "Errors"); "one line, exit 2"
+is common practice for command-line tools (argparse does the same for usage errors).
+"""
+
+from __future__ import annotations
+
+import copy
+import os
+import subprocess
+import sys
+import warnings
+from pathlib import Path
+
+import pytest
+from conftest import study_text
+from helpers_physics import VALID_LAYERS, stack_toml
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from wellwright.optimize.cli import main
+from wellwright.optimize.study.study import parse_study
+from wellwright.physics.errors import InputError
+from wellwright.physics.stack import parse_stack, parse_toml
+
+
+def _listing(folder: Path) -> set[str]:
+    return {str(p.relative_to(folder)) for p in folder.rglob("*")}
+
+
+def _one_error_line(capsys, command: str) -> str:
+    err = capsys.readouterr().err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    assert lines[0].startswith(f"wellwright {command}: ") and "Traceback" not in err
+    return lines[0]
+
+
+@pytest.fixture
+def stack_file(tmp_path: Path) -> Path:
+    path = tmp_path / "stack.toml"
+    path.write_text(stack_toml(), encoding="utf-8")
+    return path
+
+
+# ----------------------------------------------------------------------------- file content
+
+
+@pytest.mark.parametrize(
+    ("content", "message"),
+    [
+        ("temperature_k = 300\n# caf\xe9\n".encode("latin-1"), "not UTF-8 text (byte 25 is 0xe9)"),
+        (stack_toml(top={"temperature_k": 10**400}).encode(), "digits is too large"),
+        (("temperature_k = " + "1" * 5000 + "\n").encode(), "not valid TOML"),
+    ],
+    ids=["latin-1", "int-too-large-for-a-float", "int-past-python-digit-limit"],
+)
+def test_unreadable_numbers_and_encodings(tmp_path, monkeypatch, capsys, content, message):
+    monkeypatch.chdir(tmp_path)
+    path = tmp_path / "bad.toml"
+    path.write_bytes(content)
+    before = _listing(tmp_path)
+    assert main(["iv", str(path), "--points", "5"]) == 2
+    assert message in _one_error_line(capsys, "iv")
+    assert _listing(tmp_path) == before
+
+
+def test_huge_integer_in_a_layer_names_the_layer_from_1(tmp_path, capsys):
+    layers = [dict(x) for x in VALID_LAYERS]
+    layers[3]["thickness_nm"] = 10**30 * 10**300
+    path = tmp_path / "s.toml"
+    path.write_text(stack_toml(layers), encoding="utf-8")
+    assert main(["iv", str(path), "--points", "5", "--out", str(tmp_path / "o")]) == 2
+    line = _one_error_line(capsys, "iv")
+    assert "layer 4 ('well'), key 'thickness_nm'" in line and "too large" in line
+    assert not (tmp_path / "o").exists()
+
+
+def test_tiny_step_is_refused_before_the_search(write_study, tmp_path, capsys):
+    path = write_study(
+        study_text(barrier="{min = 4, max = 7}", well_x="{min = 0.4, max = 0.6, step = 1e-300}")
+    )
+    out = tmp_path / "o"
+    assert main(["search", str(path), "--out", str(out), "--no-progress"]) == 2
+    line = _one_error_line(capsys, "search")
+    assert "key 'x.step'" in line and "too small" in line and "layer 4 ('well')" in line
+    assert not out.exists()
+
+
+# ----------------------------------------------------------------------------- output folders
+
+
+@pytest.mark.parametrize("where", ["file", "under-a-file"])
+@pytest.mark.parametrize("command", ["iv", "search", "run"])
+def test_out_naming_a_file(tmp_path, write_study, stack_file, capsys, where, command):
+    blocker = tmp_path / "blocker"
+    blocker.write_text("not a folder\n")
+    out = blocker if where == "file" else blocker / "sub" / "dir"
+    source = stack_file if command == "iv" else write_study(study_text())
+    before = _listing(tmp_path)
+    argv = [command, str(source), "--out", str(out)]
+    assert main(argv + ([] if command == "iv" else ["--no-progress"])) == 2
+    line = _one_error_line(capsys, command)
+    assert "key '--out'" in line
+    assert _listing(tmp_path) == before
+
+
+def test_read_only_output_folder(tmp_path, stack_file, capsys, monkeypatch):
+    # as root a chmod does not stop a write, so the refusal of the file system is simulated
+    # where the check asks for it (os.access), and a real chmod is used when not root
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    if os.geteuid() == 0:
+        real = os.access
+        monkeypatch.setattr(os, "access", lambda p, m: False if Path(p) == ro else real(p, m))
+    else:
+        ro.chmod(0o555)
+    assert main(["iv", str(stack_file), "--points", "5", "--out", str(ro / "o")]) == 2
+    assert "is not writable" in _one_error_line(capsys, "iv")
+    assert list(ro.iterdir()) == []
+
+
+def test_write_error_mid_run_is_one_line_and_resumable(write_study, tmp_path, capsys, monkeypatch):
+    # a full disk during the search stage: one line, exit 2, and the folder stays a run folder
+    from wellwright.optimize.search import engine
+
+    def full_disk(*args, **kwargs):
+        raise OSError(28, "No space left on device", str(tmp_path / "run" / "search" / "x"))
+
+    monkeypatch.setattr(engine, "write_outputs", full_disk)
+    study = write_study(study_text())
+    argv = ["run", str(study), "--out", str(tmp_path / "run"), "--trials", "4", "--no-progress"]
+    argv += ["--samples", "8", "--method", "mc", "--designs", "1"]
+    assert main(argv) == 2
+    assert "No space left on device" in _one_error_line(capsys, "run")
+    assert (tmp_path / "run" / "study.toml").is_file()
+    monkeypatch.undo()
+    assert main(argv) == 0  # the same command resumes
+
+
+# ----------------------------------------------------------------------------- options
+
+
+@pytest.mark.parametrize("design", ["\u00b2", "\u0661", "0"])
+def test_design_rank_with_non_ascii_digits(write_study, tmp_path, capsys, design):
+    study = write_study(study_text())
+    assert main(["tolerance", str(study), "--design", design, "--out", str(tmp_path / "t")]) == 2
+    assert "--design" in _one_error_line(capsys, "tolerance")
+    assert not (tmp_path / "t").exists()
+
+
+def test_run_with_zero_trials_writes_nothing(write_study, tmp_path, capsys):
+    study = write_study(study_text())
+    before = _listing(tmp_path)
+    assert main(["run", str(study), "--out", str(tmp_path / "r"), "--trials", "0"]) == 2
+    assert "key '--trials'" in _one_error_line(capsys, "run")
+    assert _listing(tmp_path) == before
+
+
+def test_broken_pipe_gives_no_traceback():
+    # `wellwright materials --json | head -c 10`: the reader leaves early
+    proc = subprocess.run(
+        f"{sys.executable} -m wellwright.optimize.cli materials --json | head -c 10",
+        shell=True,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert len(proc.stdout) == 10
+    assert "Traceback" not in proc.stderr and "BrokenPipe" not in proc.stderr
+
+
+# ----------------------------------------------------------------------------- study tables
+
+
+@pytest.mark.parametrize(
+    ("extra", "key"),
+    [
+        ("[tolerance]\nsamples = 64\n", "tolerance.samples"),
+        ("[tolerance]\ndesigns = 0\n", "tolerance.designs"),
+        ("[report]\nsample = 64\n", "report.sample"),
+        ("[report]\nseed = 4294967296\n", "report.seed"),
+    ],
+)
+@pytest.mark.parametrize("command", ["search", "run"])
+def test_every_table_is_checked_by_every_command(
+    write_study, tmp_path, capsys, extra, key, command
+):
+    study = write_study(study_text(extra=extra))
+    assert main([command, str(study), "--out", str(tmp_path / "o"), "--no-progress"]) == 2
+    line = _one_error_line(capsys, command)
+    assert f"{study}, key '{key}'" in line
+    assert not (tmp_path / "o").exists()
+
+
+def test_baseline_errors_name_the_study_and_the_key(write_study, tmp_path, capsys):
+    (tmp_path / "base.toml").write_text("temperature_k = 300\n[[layers]]\nmaterial = 1\n")
+    study = write_study(study_text(extra='[search]\nbaseline = "base.toml"\n'))
+    assert main(["search", str(study), "--out", str(tmp_path / "o")]) == 2
+    line = _one_error_line(capsys, "search")
+    assert line.startswith(
+        f"wellwright search: {study}, key 'search.baseline': baseline stack file"
+    )
+    assert "base.toml" in line
+
+
+# ----------------------------------------------------------------------------- iv outcomes
+
+
+def test_iv_self_consistent_failure_is_one_line(stack_file, tmp_path, capsys, monkeypatch):
+    from wellwright.optimize.cli import cmd_iv
+    from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
+
+    def fails(*args, **kwargs):
+        raise ElectrostaticsConvergenceError("did not converge in 60 steps")
+
+    monkeypatch.setattr(cmd_iv, "stack_iv", fails)
+    assert main(["iv", str(stack_file), "--points", "5", "--out", str(tmp_path / "o")]) == 2
+    assert "self-consistent electrostatics did not converge" in _one_error_line(capsys, "iv")
+    assert not (tmp_path / "o").exists()
+
+
+def test_iv_text_with_a_peak_and_no_pvcr(stack_file, tmp_path, capsys, monkeypatch):
+    # issue 18 item 4: a peak exists but the PVCR is undefined (valley current <= 0)
+    import numpy as np
+    from wellwright.optimize.cli import cmd_iv
+
+    real = cmd_iv.stack_iv
+
+    def no_pvcr(*args, **kwargs):
+        curves = real(*args, **kwargs)
+        assert np.isfinite(curves.metrics["peak_voltage_v"][0])  # this stack has a peak
+        curves.metrics["pvcr"][0] = np.nan
+        return curves
+
+    monkeypatch.setattr(cmd_iv, "stack_iv", no_pvcr)
+    out = tmp_path / "o"
+    assert main(["iv", str(stack_file), "--out", str(out), "--bias-max", "0.6"]) == 0
+    from wellwright.optimize.shared import names
+
+    lines = [x for x in capsys.readouterr().out.splitlines() if names.words("pvcr") in x]
+    assert lines and lines[0].split()[-1] == "-"  # shown as missing, not a TypeError
+    assert (out / "iv.png").is_file()
+
+
+def test_warning_is_one_plain_line_after_the_output(tmp_path, capsys):
+    # AlAs on InP is tensile-strained; 40 ML exceeds the Matthews-Blakeslee critical thickness
+    # (J. W. Matthews and A. E. Blakeslee, J. Cryst. Growth 27, 118 (1974))
+    layers = [
+        {"name": "emitter", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+        {"name": "barrier", "material": "AlAs", "thickness_ml": 40},
+        {"name": "collector", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+    ]
+    path = tmp_path / "s.toml"
+    path.write_text(stack_toml(layers, top={"substrate": "InP"}), encoding="utf-8")
+    assert (
+        main(["iv", str(path), "--points", "5", "--no-figures", "--out", str(tmp_path / "o")]) == 0
+    )
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("wellwright: warning: ")
+    assert "layer 2 ('barrier')" in err[0] and ".py" not in err[0]
+    # with an error as well, the error is the only line
+    path.write_text(stack_toml(layers, top={"substrate": "InP", "temperature_k": -1}))
+    assert main(["iv", str(path), "--points", "5"]) == 2
+    _one_error_line(capsys, "iv")
+
+
+# ----------------------------------------------------------------------------- fuzz
+
+JUNK = st.one_of(
+    st.none(),
+    st.booleans(),
+    st.integers(min_value=-(10**400), max_value=10**400),
+    st.floats(allow_nan=True, allow_infinity=True),
+    st.text(max_size=12),
+    st.lists(st.integers(), max_size=3),
+    st.dictionaries(st.sampled_from(["min", "max", "step", "log", "x"]), st.integers(), max_size=3),
+)
+STACK_KEYS = sorted({k for layer in VALID_LAYERS for k in layer} | {"doping_cm3", "mass_m0", "x"})
+
+
+def _base_stack() -> dict:
+    return {"temperature_k": 300, "layers": [dict(x) for x in VALID_LAYERS]}
+
+
+@st.composite
+def edited_stacks(draw):
+    data = _base_stack()
+    for _ in range(draw(st.integers(1, 3))):
+        where = draw(st.sampled_from(["layer", "top", "model", "device", "drop"]))
+        value = draw(JUNK)
+        layers = data["layers"]
+        if where in ("layer", "drop") and not (isinstance(layers, list) and layers):
+            continue  # the layers list itself was replaced by junk
+        if where == "layer":
+            layer = data["layers"][draw(st.integers(0, len(data["layers"]) - 1))]
+            layer[draw(st.sampled_from(STACK_KEYS + ["junk"]))] = value
+        elif where == "drop":
+            data["layers"].pop(draw(st.integers(0, len(data["layers"]) - 1)))
+        else:
+            keys = {"top": ["temperature_k", "substrate", "layers", "junk"]}.get(
+                where, ["broadening_mev", "slice_nm", "strain", "electrostatics", "area_um2"]
+            )
+            table = data if where == "top" else data.setdefault(where, {})
+            table[draw(st.sampled_from(keys))] = value
+    return data
+
+
+def _only_input_errors(fn, *args, **kwargs) -> None:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            fn(*args, **kwargs)
+        except InputError as exc:
+            assert "\n" not in str(exc)
+
+
+FUZZ = settings(max_examples=1200, deadline=None, suppress_health_check=list(HealthCheck))
+
+
+@FUZZ
+@given(edited_stacks())
+def test_fuzz_stack_parser_raises_only_input_errors(data):
+    _only_input_errors(parse_stack, data, source="fuzz")
+
+
+@FUZZ
+@given(st.binary(max_size=200) | st.text(max_size=200).map(lambda t: "[[layers]]\n" + t))
+def test_fuzz_toml_reader_raises_only_input_errors(data):
+    _only_input_errors(parse_toml, data, source="fuzz")
+
+
+STUDY = parse_toml(study_text(), source="conftest")
+
+
+@settings(max_examples=400, deadline=None, suppress_health_check=list(HealthCheck))
+@given(
+    st.sampled_from(["search", "sweep", "report", "tolerance", "growth", "targets", "constraints"]),
+    st.sampled_from(
+        [
+            "trials",
+            "seed",
+            "designs",
+            "samples",
+            "bias_max_v",
+            "points",
+            "pvcr",
+            "step",
+            "thickness_ml_sigma",
+            "max_active_thickness_nm",
+            "method",
+            "baseline",
+            "junk",
+        ]
+    ),
+    JUNK,
+)
+def test_fuzz_study_parser_raises_only_input_errors(table, key, value):
+    data = copy.deepcopy(STUDY)
+    data.setdefault(table, {})[key] = value
+    _only_input_errors(parse_study, data, source="fuzz")
