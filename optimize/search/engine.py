@@ -96,6 +96,7 @@ from wellwright.optimize.search.storage import (
     storage_url,
     worker_identity,
 )
+from wellwright.optimize.shared.processes import exit_with_parent
 from wellwright.optimize.study.space import grid_size, grid_values
 from wellwright.optimize.study.study import MAX_ROBUST_SAMPLES, MIN_ROBUST_SAMPLES, Study
 from wellwright.optimize.tolerance.analysis import yield_record
@@ -665,6 +666,7 @@ def _work(job: _Job) -> dict[str, float]:
     A worker process whose parent died leaves at once (its pool would keep it
     waiting for work that never comes).
     """
+    exit_with_parent(job.parent_pid)  # also while a batch runs, not only between batches
     worker = _Worker(job)
     timing = worker.run()
     if worker.orphaned:

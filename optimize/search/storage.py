@@ -94,14 +94,7 @@ def make_storage(url: str) -> optuna.storages.RDBStorage:
     else:
         engine_kwargs = {"pool_pre_ping": True}
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
-            return optuna.storages.RDBStorage(
-                url,
-                engine_kwargs=engine_kwargs,
-                heartbeat_interval=HEARTBEAT_INTERVAL_S,
-                grace_period=GRACE_PERIOD_S,
-            )
+        return _rdb_storage(url, engine_kwargs)
     except ImportError:
         import sqlalchemy.engine
 
@@ -117,6 +110,31 @@ def make_storage(url: str) -> optuna.storages.RDBStorage:
     except Exception as exc:  # noqa: BLE001 - connection and driver errors of any backend
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise InputError(f"cannot open the storage ({first})", key="--storage") from None
+
+
+def _rdb_storage(url: str, engine_kwargs: dict[str, Any]) -> optuna.storages.RDBStorage:
+    """The storage, created once however many processes open a fresh file at the same moment.
+
+    Two processes creating a new SQLite storage both write its schema version, and the
+    second fails ("UNIQUE constraint failed: alembic_version"); it then finds the schema
+    made by the first, so it simply opens the storage again.
+    """
+    for attempt in range(5):
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
+                return optuna.storages.RDBStorage(
+                    url,
+                    engine_kwargs=engine_kwargs,
+                    heartbeat_interval=HEARTBEAT_INTERVAL_S,
+                    grace_period=GRACE_PERIOD_S,
+                )
+        except Exception as exc:  # noqa: BLE001 - sqlalchemy's IntegrityError/OperationalError
+            racing = "UNIQUE constraint failed" in str(exc) or "already exists" in str(exc)
+            if not (url.startswith("sqlite") and racing) or attempt == 4:
+                raise
+            time.sleep(0.1 * (attempt + 1))
+    raise AssertionError("unreachable")
 
 
 def open_study(

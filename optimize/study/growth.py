@@ -134,7 +134,6 @@ Layers are kept at one monolayer or more.
 
 from __future__ import annotations
 
-import math
 import re
 from dataclasses import dataclass, field
 from typing import Any

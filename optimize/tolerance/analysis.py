@@ -20,14 +20,15 @@ References
 
 from __future__ import annotations
 
-import contextlib
 import math
+import os
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
+from wellwright.optimize.shared.processes import exit_with_parent
 from wellwright.optimize.study.growth import AsGrown, GrowthModel, as_generator
 from wellwright.optimize.study.targets import Spec  # re-exported: the pass/fail form of [targets]
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
@@ -187,8 +188,14 @@ def evaluate_metrics(
 
         bar = tqdm(total=n, desc=desc, unit="stack", leave=False)
     parts = []
-    # parallel_config (not Parallel(backend=...)) also registers joblib's dask backend
-    with parallel_config(backend=backend) if backend is not None else contextlib.nullcontext():
+    # parallel_config (not Parallel(backend=...)) also registers joblib's dask backend; loky's
+    # workers leave when this process is killed (they would idle for minutes otherwise)
+    config = (
+        parallel_config(backend=backend)
+        if backend is not None
+        else parallel_config(backend="loky", initializer=exit_with_parent, initargs=(os.getpid(),))
+    )
+    with config:
         results = Parallel(n_jobs=n_jobs, return_as="generator")(jobs)
         for s, r in zip(starts, results, strict=True):
             parts.append(r)
