@@ -45,7 +45,7 @@ __all__ = [
 ]
 
 #: Per-area figures of merit this module adds to every sweep (see the module docstring).
-DEVICE_METRIC_NAMES = (
+DEVICE_METRIC_NAMES: tuple[str, ...] = (
     "rf_power_density_w_cm2",
     "ndr_conductance_s_cm2",
     "ndr_bias_v",

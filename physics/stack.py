@@ -212,9 +212,10 @@ class LayerTable:
 
     def take(self, index: np.ndarray | slice) -> LayerTable:
         """Rows ``index`` of every array."""
-        return LayerTable(
-            **{k: (None if v is None else v[index]) for k, v in self.__dict__.items()}
-        )
+        rows: dict[str, Any] = {
+            k: (None if v is None else v[index]) for k, v in self.__dict__.items()
+        }
+        return LayerTable(**rows)
 
     @classmethod
     def concatenate(cls, tables: list[LayerTable]) -> LayerTable:

@@ -405,7 +405,8 @@ class _Worker:
         sampler = make_sampler(
             self.study, seed=_worker_seed(job.seed, job.worker, len(existing)), n_trials=job.target
         )
-        self.memory = optuna.create_study(directions=list(self.study.directions), sampler=sampler)
+        directions: list[Any] = list(self.study.directions)  # "minimize"/"maximize"
+        self.memory = optuna.create_study(directions=directions, sampler=sampler)
         self.budget = design_budget(self.study, job.target)
         self.grid = grid_designs(self.study, trials=job.target, seed=_worker_seed(job.seed, 0, 0))
         if job.worker:  # workers start at different points of the one order

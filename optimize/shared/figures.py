@@ -6,6 +6,8 @@ in ``physics``. Colours are the Okabe-Ito colour-blind-safe palette.
 
 from __future__ import annotations
 
+from typing import Any
+
 import matplotlib.pyplot as plt
 import numpy as np
 from wellwright.physics.current import contact_fermi_levels_ev
