@@ -178,3 +178,21 @@ def test_sigkill_in_every_stage_resumes_without_orphans(write_study, tmp_path):
 def test_sigkill_long(write_study, tmp_path):
     for seed in range(2, 8):
         _kill_and_resume(write_study, tmp_path / str(seed), seed, ("search", "tolerance", "report"))
+
+
+def test_an_upgrade_redoes_every_stage(write_study, tmp_path, monkeypatch, capsys):
+    # issue 16: fingerprints include the package version (a rerun after an upgrade must not
+    # mix old and new results)
+    from wellwright.optimize.cli.pipeline import run_pipeline
+    from wellwright.optimize.study import run_folder
+
+    study = write_study(study_text())
+    settings = {"trials": 4, "samples": 8, "method": "mc", "designs": 1}
+    run_pipeline(study, out_dir=tmp_path / "r", settings=settings, progress=True)
+    run_pipeline(study, out_dir=tmp_path / "r", settings=settings, progress=True)
+    same = capsys.readouterr().out
+    assert "search: done earlier, skipped" in same and "report: done earlier, skipped" in same
+    monkeypatch.setattr(run_folder, "package_version", lambda: "99.0")
+    record = run_pipeline(study, out_dir=tmp_path / "r", settings=settings, progress=True)
+    upgraded = capsys.readouterr().out
+    assert "done earlier" not in upgraded and record["version"] == "99.0", upgraded

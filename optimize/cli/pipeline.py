@@ -33,12 +33,14 @@ from wellwright.optimize.shared.outputs import (
     remove_temporaries,
     write_json,
 )
+from wellwright.optimize.study import run_folder
 from wellwright.optimize.study.run_folder import (
     FORMAT_VERSION,
     PIPELINE_FILE,
     STUDY_COPY,
     fingerprint,
     load_run,
+    stage_fingerprint,
     study_from_run,
     study_from_text,
 )
@@ -154,11 +156,11 @@ def tolerance_of_design(
 
 
 def _stage_fingerprints(study_bytes: bytes, s: RunSettings, designs: list[dict] | None) -> dict:
-    search = fingerprint(study_bytes, s.trials, s.search_seed, s.storage)
+    search = stage_fingerprint(study_bytes, s.trials, s.search_seed, s.storage)
     fp = {"search": search}
     tol_settings = [s.samples, s.method, s.seed, s.allocate, s.target_yield, s.bias_points]
     for d in designs or []:
-        fp[f"tolerance:{d['rank']}"] = fingerprint(study_bytes, d["params"], tol_settings)
+        fp[f"tolerance:{d['rank']}"] = stage_fingerprint(study_bytes, d["params"], tol_settings)
     return fp
 
 
@@ -303,6 +305,7 @@ def run_pipeline(
             and old.get("study", {}).get("fingerprint") != fingerprint(study_bytes),
         },
         "label": label if label is not None else old.get("label"),
+        "version": run_folder.package_version(),
         "settings": asdict(s),
         "stages": dict(old.get("stages", {})),
     }

@@ -20,6 +20,22 @@ STUDY_COPY = "study.toml"
 FORMAT_VERSION = 1
 
 
+def package_version() -> str:
+    """The installed wellwright version (``unknown`` when run from an uninstalled tree)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("wellwright")
+    except PackageNotFoundError:
+        return "unknown"
+
+
+def stage_fingerprint(*parts: Any) -> str:
+    """A stage's fingerprint: its inputs and the package version, so that a rerun after an
+    upgrade redoes the stage instead of mixing old and new results."""
+    return fingerprint(package_version(), *parts)
+
+
 def fingerprint(*parts: Any) -> str:
     h = hashlib.sha256()
     for p in parts:
