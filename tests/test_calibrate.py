@@ -111,7 +111,7 @@ def test_study_ranges_are_refused(tmp_path):
     data = read_toml(STACK)
     data["layers"][2]["thickness_ml"] = {"min": 4, "max": 8}
     m = synthetic_measurement(read_toml(STACK), {}, np.linspace(0, 1, 11))
-    with pytest.raises(InputError, match="layer 2.*the stack that was grown"):
+    with pytest.raises(InputError, match="layer 3.*the stack that was grown"):
         build_problem(data, [m])
 
 
