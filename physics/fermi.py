@@ -119,8 +119,8 @@ def fermi_level_ev(doping_cm3, mass_m0, temperature_k):
         levels = [_FERMI_LEVELS.get(key) for key in keys]
         if None not in levels:
             return np.array(levels).reshape(doping.shape)
-    keys = np.stack([doping.ravel(), mass.ravel(), temperature.ravel()], axis=-1)
-    distinct, inverse = np.unique(keys, axis=0, return_inverse=True)
+    rows = np.stack([doping.ravel(), mass.ravel(), temperature.ravel()], axis=-1)
+    distinct, inverse = np.unique(rows, axis=0, return_inverse=True)
     found = [_FERMI_LEVELS.get(tuple(key)) for key in distinct.tolist()]
     new = np.array([f is None for f in found])
     if new.any():
