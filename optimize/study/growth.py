@@ -719,6 +719,9 @@ class GrowthModel:
                 scale = 1.0 if sigma_scale is None else float(np.asarray(sigma_scale)[j])
                 r = self.radius_mm(z, radius_mm)
                 w = self.wafer
+                assert (
+                    w is not None and r is not None
+                )  # a wafer parameter exists only with [growth.wafer]
                 edge = (r / w.radius_mm) ** 2 * scale
                 rate *= (1.0 + (w.thickness_factor(r) - 1.0) * scale)[:, None]
                 x += w.x_shift * edge[:, None]

@@ -313,6 +313,7 @@ def wafer_yield(
     """
     wafer = model.wafer
     r = model.radius_mm(z)
+    assert wafer is not None and r is not None  # called only for a model with a wafer
     ok = spec.passes(run(model.grow(z), desc="wafer"))
     n_rings = rings or int(np.clip(z.shape[0] // 48, 3, 8))
     edges = wafer.radius_mm * np.sqrt(np.linspace(0.0, 1.0, n_rings + 1))
@@ -864,6 +865,7 @@ def _wafer_record(model: GrowthModel, mc: dict[str, Any]) -> dict[str, Any]:
     if "wafer" not in mc:
         return {}
     w = model.wafer
+    assert w is not None  # "wafer" in mc only for a model with a wafer
     return {
         "wafer_yield": mc["wafer"]["yield"],
         "wafer": {
