@@ -260,7 +260,7 @@ def test_warning_is_one_plain_line_after_the_output(tmp_path, capsys):
     )
     err = capsys.readouterr().err.strip().splitlines()
     mine = [line for line in err if "Matthews-Blakeslee" in line]
-    assert len(mine) == 1 and mine[0].startswith("wellwright: warning: ")
+    assert len(mine) == 1 and mine[0].startswith("wellwright iv: warning: ")
     assert "layer 2 ('barrier')" in mine[0] and ".py" not in mine[0]
     assert all(line.startswith("wellwright") and "warning: " in line for line in err)
     # with an error as well, the error is the only line
