@@ -20,6 +20,8 @@ from conftest import study_text
 from wellwright.optimize.cli import main
 from wellwright.optimize.shared.outputs import remove_temporaries
 
+#: A spec that any design with an NDR peak meets, so that a short run reaches its report.
+EASY = "peak_current_density_a_cm2 = {min = 1}\n"
 RUN = ["--trials", "4", "--samples", "8", "--method", "mc", "--designs", "1", "--no-progress"]
 
 _OPEN = """
@@ -49,7 +51,7 @@ def test_fresh_sqlite_storage_created_by_several_processes_at_once(tmp_path):
 
 def test_folder_holding_only_the_study_copy_resumes(write_study, tmp_path):
     # a run killed right after its first write: the folder has study.toml and nothing else
-    study = write_study(study_text())
+    study = write_study(study_text(targets=EASY))
     out = tmp_path / "run"
     out.mkdir()
     (out / "study.toml").write_bytes(study.read_bytes())
@@ -73,7 +75,7 @@ def test_remove_temporaries_leaves_user_files(tmp_path):
 
 def test_interrupt_during_the_first_stage_leaves_a_resumable_folder(write_study, tmp_path):
     # SIGTERM during the search (the first stage): the same command then finishes the run
-    study = write_study(study_text())
+    study = write_study(study_text(targets=EASY))
     out = tmp_path / "run"
     argv = [sys.executable, "-m", "wellwright.optimize.cli", "run", str(study), "--out", str(out)]
     env = {**os.environ, "MPLBACKEND": "Agg"}
@@ -161,7 +163,7 @@ def _kill_and_resume(write_study, tmp_path, seed: int, stages: tuple[str, ...]) 
     import random
 
     rng = random.Random(seed)  # the moments are random, the seed makes them repeatable
-    study = write_study(study_text())
+    study = write_study(study_text(targets=EASY))
     argv = ["--trials", "12", "--samples", "64", "--method", "mc", "--designs", "1"]
     argv += ["--workers", "2", "--jobs", "2", "--no-progress"]
     for stage in stages:
@@ -188,7 +190,7 @@ def test_an_upgrade_redoes_every_stage(write_study, tmp_path, monkeypatch, capsy
     from wellwright.optimize.cli.pipeline import run_pipeline
     from wellwright.optimize.study import run_folder
 
-    study = write_study(study_text())
+    study = write_study(study_text(targets=EASY))
     settings = {"trials": 4, "samples": 8, "method": "mc", "designs": 1}
     run_pipeline(study, out_dir=tmp_path / "r", settings=settings, progress=True)
     run_pipeline(study, out_dir=tmp_path / "r", settings=settings, progress=True)
