@@ -267,8 +267,8 @@ def current_density_a_cm2(
         not; :mod:`physics.broadening`); 0 (default) is the coherent result.
     scattering
         Settings of the scattering-assisted channel (:mod:`physics.scattering`):
-        the coherent lines narrower than kT are reduced to their coherent part
-        and the sequential current through the well's states is added. ``None``
+        the coherent transmission through the well's states is reduced to its
+        coherent part and the sequential current through them is added. ``None``
         (default) or a channel without scattering: the coherent current.
 
     Returns
@@ -360,7 +360,7 @@ def current_density_a_cm2(
                 weights[m] -= _linear_weights(coarse[m], a[..., r][m], b[..., r][m])
     sequential = None
     if scattering is not None and scattering.active and grid.n_resonances > 0:
-        sequential, _, gamma_s = sequential_integral_ev2(
+        sequential, _, reduce = sequential_integral_ev2(
             profile,
             table=table,
             bias_v=bias,
@@ -369,13 +369,6 @@ def current_density_a_cm2(
             high_ev=high,
             lines=lines,
             params=scattering,
-        )
-        narrow = lines["valid"] & (lines["width_ev"] < kt[..., None])
-        reduce = dict(
-            center_ev=lines["center_ev"],
-            width_ev=lines["width_ev"],
-            valid=narrow,
-            gamma_s_ev=gamma_s,
         )
         t_coarse = t_coarse * coherent_factor(coarse, **reduce)
     integral = np.sum(weights * t_coarse * supply, axis=-1)

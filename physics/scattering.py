@@ -364,9 +364,11 @@ def _find_states(edge, mass, alpha, width, geo, kt, high, params):
 def _match_lines(e_n, gamma_p, peak_p, valid, lines, kt):
     """The coherent line that is each state (its centre, width and peak are exact there).
 
-    Lowering the emitter side moves a state by a fraction of its width; a wider miss is no
-    state but the rise of ``T`` at a band edge. Returns the state's centre, width and peak,
-    ``matched`` ``(..., L)`` and ``carried`` ``(..., R)`` (the lines matched to a state).
+    A state is matched only when it lies above the emitter band edge by more than its
+    width (below, the device's ``T`` shows the rise of the state's tail at the band edge,
+    no line) and a narrow line lies within its width (lowering the emitter side moves a
+    state by a fraction of its width). Returns the state's centre, width and peak and
+    ``matched``, all ``(..., L)``.
     """
     d = np.abs(e_n[..., :, None] - lines["center_ev"][..., None, :])
     narrow = lines["valid"] & (lines["width_ev"] < kt[..., None])
@@ -376,13 +378,13 @@ def _match_lines(e_n, gamma_p, peak_p, valid, lines, kt):
     def pick(a):
         return np.take_along_axis(a, near, axis=-1)
 
-    matched = valid & (np.min(d, axis=-1) < 0.5 * (gamma_p + pick(lines["width_ev"])))
+    matched = (
+        valid & (e_n > gamma_p) & (np.min(d, axis=-1) < 0.5 * (gamma_p + pick(lines["width_ev"])))
+    )
     center = np.where(valid, np.where(matched, pick(lines["center_ev"]), e_n), 0.0)
     width = np.where(valid, np.where(matched, pick(lines["width_ev"]), gamma_p), 1.0)
     peak = np.where(matched, pick(lines["peak"]), peak_p)
-    slots = np.arange(d.shape[-1])
-    carried = np.any(matched[..., :, None] & (near[..., :, None] == slots), axis=-2)
-    return center, width, peak, matched, carried
+    return center, width, peak, matched
 
 
 def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, params):
@@ -413,6 +415,7 @@ def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, par
         "e_n": e_n,
         "gamma_r": gamma_r,
         "scale": scale,
+        "gamma_coh": gamma_coh,
         "gamma_t": gamma_coh + g_ifr + bose * g_lo,
         "g_ifr": g_ifr,
         "g_lo": g_lo,
@@ -552,18 +555,23 @@ def sequential_fluxes_ev2(
     ``lines`` holds the coherent ``T``'s lines found on this profile
     (``center_ev``, ``width_ev``, ``peak``, ``valid``; ``(..., R)``).
 
-    Returns ``(left, right, gamma_s)``: the two ``(...)`` integrals (equal:
+    Returns ``(left, right, reduction)``: the two ``(...)`` integrals (equal:
     the reservoir conserves current) to be multiplied by the Tsu-Esaki
-    prefactor, and ``Gamma_s`` of the coherent lines ``(..., R)`` (0 for a
-    line that is no state carried here).
+    prefactor, and the states' ``center_ev``, ``width_ev`` (coherent),
+    ``gamma_s_ev`` and ``valid`` (``(..., L)``) for :func:`coherent_factor`.
     """
     geo = _geometry(edge, mass, width, barrier, *phonon)
     kt = np.broadcast_to(kt_ev, geo.has.shape)
     e_p, gamma_p, peak_p, valid = _find_states(edge, mass, alpha, width, geo, kt, high_ev, params)
-    e_n, width_c, peak_c, matched, carried = _match_lines(e_p, gamma_p, peak_p, valid, lines, kt)
-    g_ifr, g_lo, _, bose = scattering_widths_ev(lines["center_ev"], geo, edge, mass, kt, params)
-    gamma_s_lines = np.where(carried, g_ifr + bose * g_lo, 0.0)
+    e_n, width_c, peak_c, matched = _match_lines(e_p, gamma_p, peak_p, valid, lines, kt)
     st = _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, params)
+    # the states' coherent transmission goes from width Gamma to Gamma_t (Buttiker)
+    reduction = {
+        "center_ev": e_n,
+        "width_ev": st["gamma_coh"],
+        "valid": valid,
+        "gamma_s_ev": st["gamma_t"] - st["gamma_coh"],
+    }
     nodes = _energy_nodes(st, high_ev, params)
     couplings = _couplings(nodes, st, edge, mass, width, geo)
 
@@ -585,7 +593,7 @@ def sequential_fluxes_ev2(
         per_state = np.sum(weights * (y[..., 1:] + y[..., :-1]), axis=-1)
         return np.sum(np.where(valid, per_state, 0.0), axis=-1)
 
-    return integral(flux_l), integral(flux_r), gamma_s_lines
+    return integral(flux_l), integral(flux_r), reduction
 
 
 def sequential_integral_ev2(
@@ -618,10 +626,11 @@ def sequential_integral_ev2(
 
     Returns
     -------
-    left, right, gamma_s
+    left, right, reduction
         Emitter-side and collector-side integrals, eV^2 (equal; multiply by the
         Tsu-Esaki prefactor and the emitter mass for A/m^2), positive from
-        emitter to collector; and ``Gamma_s`` of each coherent line, eV.
+        emitter to collector; and the states for :func:`coherent_factor`
+        (centres on the device's energy scale).
 
     Notes
     -----
@@ -655,7 +664,7 @@ def sequential_integral_ev2(
     mu_left = np.where(rev, mu_c, mu_emitter_ev) - shift
     mu_right = np.where(rev, mu_emitter_ev, mu_c) - shift
     lines_o = dict(lines, center_ev=lines["center_ev"] - shift[..., None])
-    left, right, gamma_s = sequential_fluxes_ev2(
+    left, right, reduction = sequential_fluxes_ev2(
         edge_o,
         orient(mass),
         orient(alpha),
@@ -669,5 +678,7 @@ def sequential_integral_ev2(
         lines=lines_o,
         params=params,
     )
-    sign = np.where(rev, -1.0, 1.0)
-    return sign * left, sign * right, gamma_s
+    # detailed balance makes the channel vanish at zero bias; enforce it past rounding
+    sign = np.where(rev, -1.0, 1.0) * (np.asarray(bias_v) != 0.0)
+    reduction["center_ev"] = reduction["center_ev"] + shift[..., None]
+    return sign * left, sign * right, reduction

@@ -115,10 +115,12 @@ class ModelOptions:
 
     nonparabolicity: bool = True
     strain: bool = True
-    electrostatics: str = "linear"
+    #: the defaults are the most trustworthy model: self-consistent electrostatics and the
+    #: scattering-assisted channel; "linear" and "coherent" are the fast approximations
+    electrostatics: str = "self-consistent"
     broadening_mev: float = 0.0
     slice_nm: float = 0.25  #: slice width for the linear potential inside layers
-    transport: str = "coherent"  #: one of TRANSPORT_MODELS
+    transport: str = "scattering-assisted"  #: one of TRANSPORT_MODELS
     roughness_height_nm: float = 0.3  #: interface roughness of the scattering-assisted channel
     roughness_length_nm: float = 5.0  #: its lateral correlation length
 

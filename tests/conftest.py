@@ -17,9 +17,15 @@ import pytest
 
 #: A symmetric In0.53Ga0.47As/AlAs double-barrier stack on InP (invented test
 #: scenario, not a measured device); ranges are filled in by the tests.
+#: (the machinery tests run the fast model, set explicitly: the default is self-consistent
+#: with the scattering-assisted channel)
 STACK_HEAD = """\
 temperature_k = 300
 substrate = "InP"
+
+[model]
+electrostatics = "linear"
+transport = "coherent"
 
 [[layers]]
 name = "emitter"

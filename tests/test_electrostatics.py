@@ -32,13 +32,25 @@ STUDY = Path(__file__).resolve().parents[1] / "studies" / "gaas_low_power_memory
 
 
 def _stack_dict(
-    *, collector_spacer_nm=10.0, electrostatics="linear", broadening_mev=0.0, doping=1e18
+    *,
+    collector_spacer_nm=10.0,
+    electrostatics="linear",
+    broadening_mev=0.0,
+    doping=1e18,
+    transport="coherent",
 ):
-    """Invented GaAs/AlAs double-barrier stack (like the demo study), for tests."""
+    """Invented GaAs/AlAs double-barrier stack (like the demo study), for tests.
+
+    The electrostatics tests run on the coherent current (set explicitly: the default
+    transport is the scattering-assisted channel)."""
     return {
         "temperature_k": 300,
         "substrate": "GaAs",
-        "model": {"electrostatics": electrostatics, "broadening_mev": broadening_mev},
+        "model": {
+            "electrostatics": electrostatics,
+            "broadening_mev": broadening_mev,
+            "transport": transport,
+        },
         "layers": [
             {"name": "emitter", "material": "GaAs", "doping_cm3": doping},
             {"name": "es", "material": "GaAs", "thickness_nm": 3.0},

@@ -14,7 +14,8 @@ from scipy.optimize import brentq
 from wellwright.physics.iv import NDR_DROP, external_bias_v, locate_peak_valley, sweep
 from wellwright.physics.stack import ModelOptions
 
-PARABOLIC = ModelOptions(nonparabolicity=False)
+#: the fast model these metric tests were written for (linear drop, coherent current)
+PARABOLIC = ModelOptions(nonparabolicity=False, electrostatics="linear", transport="coherent")
 
 
 # ----------------------------------------------------------------------------- synthetic curves

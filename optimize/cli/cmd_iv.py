@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 from wellwright.optimize.shared import names
+from wellwright.optimize.shared.model_text import model_record
 from wellwright.optimize.shared.outputs import (
     check_output_folder,
     json_ready,
@@ -63,6 +64,7 @@ def iv_record(stack, curves) -> dict:
     j = curves.current_density_a_cm2[0]
     record = {
         "stack": stack.source,
+        "model": model_record(stack),
         "temperature_k": stack.temperature_k,
         "bias_v": curves.bias_v,
         "current_density_a_cm2": j,

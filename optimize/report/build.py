@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import Any
 
 from wellwright.optimize.shared import names
+from wellwright.optimize.shared.model_text import model_assumptions, model_label
 from wellwright.optimize.shared.outputs import (
     atomic_write,
     atomic_write_text,
@@ -74,24 +75,6 @@ nav ol{columns:2;font-size:.92em}code{background:#f0f0f0;padding:0 3px}
 .small{font-size:.85em;color:#444}
 """
 
-ASSUMPTIONS = [
-    "Transport is coherent and one-dimensional with the transverse momentum conserved; the "
-    "current is the Tsu-Esaki integral (R. Tsu and L. Esaki, Appl. Phys. Lett. 22, 562 (1973)) "
-    "with Fermi-Dirac supply in both contacts.",
-    "Transmission by a transfer-type recursion with BenDaniel-Duke matching (Phys. Rev. 152, "
-    "683 (1966)) and an energy-dependent (nonparabolic) mass.",
-    "Gamma-valley band edges, masses, nonparabolicity and pseudomorphic strain from "
-    "I. Vurgaftman, J. R. Meyer and L. R. Ram-Mohan, J. Appl. Phys. 89, 5815 (2001); X and L "
-    "valleys are not modelled.",
-    "The bias drops linearly between the contacts: no accumulation, depletion or well charge, "
-    "so simulated peak voltages come out low against measured devices.",
-    "No scattering, phonon-assisted or interface-roughness current and no self-heating: valley "
-    "currents come out far below measured ones and the PVCR far too high.",
-    "Growth spreads (the study's [growth] table, and its source cells where given) are "
-    "one-sigma figures; a fractional as-grown thickness is modelled as lateral islands of the "
-    "two neighbouring whole monolayers, and a device's I-V as the area-weighted mixture of "
-    "the whole-monolayer stacks' I-Vs (a mesa spans many islands).",
-]
 CAUTION = (
     "Every figure in this report is a simulated estimate from a model with the assumptions "
     "listed in section 6. Calibrate it against measured devices from your own growth and "
@@ -363,7 +346,6 @@ def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[st
     from wellwright.optimize.shared.figures import (
         band_diagram_figure,
         iv_figure,
-        model_label,
         transmission_figure,
     )
     from wellwright.physics.iv import stack_iv
@@ -792,6 +774,7 @@ def build_report(run_dir: str | Path) -> Path:
     figs = _Figures(files)
     search = stages["search"]
     settings = record.get("settings", {})
+    model = study.stack(designs[0]["params"]).model  # the model every design ran with
 
     brief_html, brief_data = _brief(study, files)
     figs.add_file(run_dir / "search" / "designs.csv", "designs_ranked.csv")
@@ -828,8 +811,9 @@ def build_report(run_dir: str | Path) -> Path:
         "designs": "".join(cards),
         "growth": growth_html,
         "model": _calibration_note(study)
+        + f"<p>Model that produced every figure here: <b>{_esc(model_label(model))}</b>.</p>"
         + "<ul>"
-        + "".join(f"<li>{_esc(a)}</li>" for a in ASSUMPTIONS)
+        + "".join(f"<li>{_esc(a)}</li>" for a in model_assumptions(model))
         + "</ul>"
         f'<div class="caution"><b>Calibrate before a growth decision.</b> {_esc(CAUTION)}</div>',
     }

@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import optuna
 from optuna.trial import FrozenTrial, TrialState
+from wellwright.optimize.shared.model_text import model_label
 from wellwright.physics.device import device_quantities
 from wellwright.physics.iv import METRIC_NAMES
 from wellwright.physics.stack import Stack
@@ -145,6 +146,9 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     thickness), ``active_thickness_nm``, ``at_range_limit`` (the variables at an end of
     their range, :func:`at_range_limit`), ``stack`` (a stack dictionary for
     :func:`wellwright.physics.stack.parse_stack`) and, when the study gives
+    thickness), ``active_thickness_nm``, ``stack`` (a stack dictionary for
+    :func:`wellwright.physics.stack.parse_stack`), ``model`` (the model that computed the
+    metrics, in words) and, when the study gives
     ``[device] area_um2``, ``device`` (the mesa's current in mA, conductance in
     mS, capacitance in fF, output power in uW:
     :func:`wellwright.physics.device.device_quantities`).
@@ -171,6 +175,7 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     )
     rec["stack"] = study.stack_dict(trial.params)
     rec["at_range_limit"] = at_range_limit(study, trial.params)
+    rec["model"] = model_label(study.stack(trial.params))
     area = (rec["stack"].get("device") or {}).get("area_um2")
     if area is not None:  # the mesa's own quantities (mA, mS, fF, uW)
         per_area = {k: np.array([np.nan if v is None else v]) for k, v in rec["metrics"].items()}

@@ -17,6 +17,8 @@ from wellwright.physics.stack import Stack
 from wellwright.physics.transmission import transmission
 from wellwright.physics.valleys import indirect_edges_ev
 
+from .model_text import model_label
+
 __all__ = [
     "PALETTE",
     "model_label",
@@ -55,16 +57,6 @@ def style() -> None:
             "figure.dpi": 100,
         }
     )
-
-
-def model_label(stack: Stack) -> str:
-    """Short description of the transport and electrostatics model, for figure titles."""
-    m = stack.model
-    transport = "coherent" if m.transport == "coherent" else "+ scattering-assisted"
-    if m.broadening_mev > 0:
-        transport += f", {m.broadening_mev:g} meV broadening"
-    bias = "linear drop" if m.electrostatics == "linear" else "self-consistent"
-    return f"Tsu-Esaki {transport}, {bias}"
 
 
 def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):

@@ -28,6 +28,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from wellwright.optimize.shared.model_text import model_record
 from wellwright.optimize.shared.processes import exit_with_parent
 from wellwright.optimize.study.growth import AsGrown, GrowthModel, as_generator
 from wellwright.optimize.study.targets import Spec  # re-exported: the pass/fail form of [targets]
@@ -982,6 +983,7 @@ def run_tolerance(
         "sobol": {},
         "morris": {},
     }
+    record["model"] = model_record(model.stack)
     record["nominal"] = tor["nominal"]
     record["tornado"] = tor["layers"]
     islands = tor["islands"]
