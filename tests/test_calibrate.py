@@ -26,6 +26,17 @@ from wellwright.physics.stack import read_toml
 
 REPO = Path(__file__).resolve().parents[1]
 STACK = REPO / "studies" / "inp_thz_oscillator.toml"
+
+
+def _stack_data() -> dict:
+    """The example stack with the fast model these fitting tests were written for (linear
+    drop, coherent current), set explicitly: the default is self-consistent with the
+    scattering-assisted channel."""
+    data = read_toml(STACK)
+    data.setdefault("model", {}).update(electrostatics="linear", transport="coherent")
+    return data
+
+
 #: Barrier one monolayer thick, well one thin, the InGaAs source 2 % fast, 20 ohm um^2.
 TRUTH = {
     "barrier1.thickness_ml": 6.0,
@@ -108,17 +119,17 @@ def test_bad_measured_file(case, tmp_path, capsys):
 
 
 def test_study_ranges_are_refused(tmp_path):
-    data = read_toml(STACK)
+    data = _stack_data()
     data["layers"][2]["thickness_ml"] = {"min": 4, "max": 8}
-    m = synthetic_measurement(read_toml(STACK), {}, np.linspace(0, 1, 11))
+    m = synthetic_measurement(_stack_data(), {}, np.linspace(0, 1, 11))
     with pytest.raises(InputError, match="layer 3.*the stack that was grown"):
         build_problem(data, [m])
 
 
 def test_unknown_fit_name_lists_choices():
-    m = synthetic_measurement(read_toml(STACK), {}, np.linspace(0, 1, 11))
+    m = synthetic_measurement(_stack_data(), {}, np.linspace(0, 1, 11))
     with pytest.raises(InputError, match="--fit.*not a fittable parameter.*barrier1.thickness_ml"):
-        build_problem(read_toml(STACK), [m], fit=["barrier9.thickness_ml"])
+        build_problem(_stack_data(), [m], fit=["barrier9.thickness_ml"])
 
 
 # --------------------------------------------------------------------------- series resistance
@@ -156,7 +167,7 @@ def _recovered(problem, result, truth):
 
 
 def _round_trip(seed: int) -> tuple[dict[str, bool], object, object]:
-    data = read_toml(STACK)
+    data = _stack_data()
     m = synthetic_measurement(data, TRUTH, BIAS, noise=0.02, seed=seed)
     problem = build_problem(data, [m])
     result = run_fit(problem)
@@ -197,7 +208,7 @@ def test_symmetric_stack_barriers_not_separable():
     # one polarity of a symmetric double barrier: the current through the resonance depends on
     # the two barriers' transmissions symmetrically (Buttiker, IBM J. Res. Dev. 32, 63 (1988):
     # T_peak = 4 G1 G2 / (G1 + G2)^2), so the data fix their sum, not each one
-    data = read_toml(STACK)
+    data = _stack_data()
     data["layers"][5]["thickness_nm"] = 2.0  # spacers alike: a symmetric stack
     m = synthetic_measurement(data, {"series_resistance_ohm_um2": 10.0}, BIAS, noise=0.02, seed=5)
     problem = build_problem(
@@ -238,7 +249,7 @@ def test_symmetric_stack_barriers_not_separable():
 def test_two_areas_separate_series_resistances():
     # R = R_specific / A + R_fixed (common practice): one area cannot tell the parts apart,
     # two areas can; the intrinsic curve (barrier) is recovered alongside
-    data = read_toml(STACK)
+    data = _stack_data()
     truth = {
         "barrier1.thickness_ml": 6.0,
         "series_resistance_ohm_um2": 15.0,
@@ -267,7 +278,7 @@ def test_two_areas_separate_series_resistances():
 
 
 def test_command_writes_record_stack_and_page(tmp_path, capsys):
-    data = read_toml(STACK)
+    data = _stack_data()
     m = synthetic_measurement(data, TRUTH, BIAS, noise=0.02, seed=3)
     csv = tmp_path / "m.csv"
     csv.write_text(
