@@ -286,7 +286,12 @@ def test_command_writes_record_stack_and_page(tmp_path, capsys):
         + "".join(f"{v:.4f},{j:.6g}\n" for v, j in zip(m.bias_v, m.current_density_a_cm2))
     )
     out = tmp_path / "cal"
-    assert main(["calibrate", str(STACK), "--measured", str(csv), "--out", str(out), "--json"]) == 0
+    stack = tmp_path / "stack.toml"  # the example stack with the fast model, as above
+    text = STACK.read_text().replace(
+        "[model]\n", '[model]\nelectrostatics = "linear"\ntransport = "coherent"\n', 1
+    )
+    stack.write_text(text)
+    assert main(["calibrate", str(stack), "--measured", str(csv), "--out", str(out), "--json"]) == 0
     record = json.loads(capsys.readouterr().out)
     names = {p["name"] for p in record["parameters"]}
     assert {"barrier1.thickness_ml", "InGaAs.rate", "series_resistance_ohm_um2"} <= names
