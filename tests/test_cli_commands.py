@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import subprocess
 import sys
+from pathlib import Path
 
 import pytest
 from wellwright.optimize.cli import COMMAND_MODULES, build_parser, main
@@ -90,7 +91,12 @@ def test_the_parser_loads_no_heavy_library():
 
 
 def test_iv_without_figures_loads_no_heavy_library_nor_scipy(tmp_path):
-    stack = "studies/inp_thz_oscillator.toml"
+    # the fast model, set explicitly (the default's self-consistent solve and scattering
+    # channel use scipy.linalg and scipy.special, loaded only when they run)
+    text = Path("studies/inp_thz_oscillator.toml").read_text()
+    fast = '[model]\nelectrostatics = "linear"\ntransport = "coherent"\n'
+    (tmp_path / "stack.toml").write_text(text.replace("[model]\n", fast, 1))
+    stack = str(tmp_path / "stack.toml")
     code = (
         "from wellwright.optimize.cli import main\n"
         f"assert main(['iv', {stack!r}, '--no-figures', '--out', {str(tmp_path)!r}]) == 0\n"
