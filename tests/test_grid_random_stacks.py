@@ -68,7 +68,13 @@ def random_stack(rng: np.random.Generator):
         data = {
             "temperature_k": float(rng.uniform(4.0, 400.0)),
             "layers": layers,
-            "model": {"nonparabolicity": bool(rng.random() < 0.7)},
+            # the grid of the coherent current, linear drop (set explicitly: the default is
+            # self-consistent with the scattering-assisted channel)
+            "model": {
+                "nonparabolicity": bool(rng.random() < 0.7),
+                "electrostatics": "linear",
+                "transport": "coherent",
+            },
         }
         if substrate:
             data["substrate"] = substrate
@@ -97,7 +103,8 @@ def _double_barrier(contact, barrier, barrier_nm, well_nm, doping_cm3, temperatu
         {"name": "barrier2", "material": barrier, "thickness_nm": barrier_nm[1]},
         {"name": "collector", "material": contact, "doping_cm3": doping_cm3},
     ]
-    data = {"temperature_k": temperature_k, "layers": layers}
+    fast = {"electrostatics": "linear", "transport": "coherent"}  # explicit, as above
+    data = {"temperature_k": temperature_k, "layers": layers, "model": fast}
     if substrate:
         data["substrate"] = substrate
     return parse_stack(data)
@@ -133,7 +140,7 @@ def grid_errors(n_stacks: int, n_biases: int, seed: int):
     """Error of the default grid against the brute force, relative to each stack's largest
     current, ``(n_stacks, n_biases)``."""
     stacks, table, bias = random_case(n_stacks, n_biases, seed)
-    model = ModelOptions()
+    model = ModelOptions(electrostatics="linear", transport="coherent")  # explicit, as above
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", GridAccuracyWarning)
         j = current_at_bias(table, bias, model=model)
