@@ -16,8 +16,9 @@ from wellwright.optimize.cli.pipeline import EXIT_SPEC_NOT_MET
 def _impossible(tmp_path):
     path = _tiny_study(tmp_path)
     text = path.read_text(encoding="utf-8")
-    assert "pvcr = {min = 3}" in text
-    path.write_text(text.replace("pvcr = {min = 3}", "pvcr = {min = 1e9}"), encoding="utf-8")
+    spec = "pvcr = {min = 5, max = 40}"  # the quick demo's PVCR window
+    assert spec in text
+    path.write_text(text.replace(spec, "pvcr = {min = 1e9}"), encoding="utf-8")
     return path
 
 
