@@ -49,8 +49,9 @@ from typing import Any
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 from wellwright.optimize.calibrate.measured import Measurement
+from wellwright.optimize.study.calibration import CALIBRATION_KEYS
 from wellwright.optimize.study.growth import GrowthSettings, parse_growth, split_layer_growth
-from wellwright.physics import materials
+from wellwright.physics import checks, materials
 from wellwright.physics.current import EnergyGrid
 from wellwright.physics.errors import InputError
 from wellwright.physics.iv import current_at_bias
@@ -534,16 +535,7 @@ def calibration_table(
     """``[calibration]`` of the input file: ``xrd_period_nm = {value, sigma}``, ``xrd_layers``."""
     if raw is None:
         return None
-    allowed = ("xrd_period_nm", "xrd_layers", "from")
-    if not isinstance(raw, dict):
-        raise InputError("must be a table", source=source, key="calibration")
-    for key in raw:
-        if key not in allowed:
-            raise InputError(
-                f"unknown key; allowed: {', '.join(allowed)}",
-                source=source,
-                key=f"calibration.{key}",
-            )
+    checks.table(raw, CALIBRATION_KEYS, source=source, key="calibration")
     xrd = raw.get("xrd_period_nm")
     if xrd is None:
         return None

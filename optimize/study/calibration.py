@@ -30,7 +30,7 @@ import json
 from pathlib import Path
 from typing import Any
 
-from wellwright.physics import materials
+from wellwright.physics import checks, materials
 from wellwright.physics.errors import InputError
 
 __all__ = ["apply_calibration", "calibration_lines", "CALIBRATION_KEYS"]
@@ -43,15 +43,7 @@ def _load(data: dict[str, Any], *, source: str, base_dir: str | Path) -> tuple[P
     table = data.get("calibration")
     if table is None:
         return None
-    if not isinstance(table, dict):
-        raise InputError("must be a table, e.g. [calibration]", source=source, key="calibration")
-    for key in table:
-        if key not in CALIBRATION_KEYS:
-            raise InputError(
-                f"unknown key; allowed: {', '.join(CALIBRATION_KEYS)}",
-                source=source,
-                key=f"calibration.{key}",
-            )
+    checks.table(table, CALIBRATION_KEYS, source=source, key="calibration")
     link = table.get("from")
     if link is None:
         return None
