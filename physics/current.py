@@ -51,7 +51,7 @@ import numpy as np
 from .bands import Profile
 from .broadening import broadened_lines
 from .constants import BOLTZMANN_EV_K, ELECTRON_MASS_KG, ELEMENTARY_CHARGE_C, HBAR_J_S
-from .fermi import fermi_level_ev
+from .fermi import fermi_dirac_zero, fermi_level_ev
 from .quadrature import sinh_gauss_legendre
 from .resonances import local_peaks, refine_grid_peaks
 from .scattering import ScatteringParameters, coherent_factor, sequential_integral_ev2
@@ -130,13 +130,8 @@ def supply_function_ev(energy_ev, mu_emitter_ev, mu_collector_ev, kt_ev):
     """
     x = (mu_emitter_ev - energy_ev) / kt_ev
     drop = mu_emitter_ev - mu_collector_ev
-    s = kt_ev * (_softplus(x) - _softplus(x - drop / kt_ev))
+    s = kt_ev * (fermi_dirac_zero(x) - fermi_dirac_zero(x - drop / kt_ev))
     return np.where(drop >= 0.0, np.maximum(s, 0.0), np.minimum(s, 0.0))
-
-
-def _softplus(x: np.ndarray) -> np.ndarray:
-    """ln(1 + e^x) without overflow (twice as fast as np.logaddexp(0, x))."""
-    return np.maximum(x, 0.0) + np.log1p(np.exp(-np.abs(x)))
 
 
 def energy_window_ev(

@@ -29,6 +29,7 @@ from .bands import Profile
 from .constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, HBAR_J_S, VACUUM_PERMITTIVITY_F_M
 from .current import contact_fermi_levels_ev
 from .electrostatics import BARRIER_EV
+from .fermi import fermi_dirac_zero
 from .resonances import find_resonances
 from .stack import LayerTable
 
@@ -299,7 +300,7 @@ def peak_resonance_lifetime_s(profile: Profile, table: LayerTable) -> np.ndarray
     e = res.energy_ev[:, 0]
     g = res.width_ev[:, 0]
     x = (mu[:, None] - np.maximum(e, 0.0)) / kt[:, None]
-    supply = np.maximum(x, 0.0) + np.log1p(np.exp(-np.abs(x)))
+    supply = fermi_dirac_zero(x)
     weight = np.where(res.valid[:, 0] & (e > -g), res.peak_transmission[:, 0] * g * supply, -1.0)
     k = np.argmax(weight, axis=1)
     rows = np.arange(k.size)

@@ -72,7 +72,12 @@ import numpy as np
 
 from .bands import Profile, SliceGrid, builtin_offset_ev, profile_from_potential, slice_grid
 from .constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, VACUUM_PERMITTIVITY_F_M
-from .fermi import effective_density_of_states_cm3, fermi_dirac_half, fermi_level_ev
+from .fermi import (
+    effective_density_of_states_cm3,
+    fermi_dirac_half_tabulated,
+    fermi_dirac_zero,
+    fermi_level_ev,
+)
 
 if TYPE_CHECKING:
     from .stack import LayerTable
@@ -115,46 +120,6 @@ class PoissonSolution:
     electron_cm3: np.ndarray  #: Thomas-Fermi electrons plus the well charge
     iterations: int
     well_sheet_cm2: np.ndarray | None = None  #: electrons in the well, cm^-2, ``batch``
-
-
-_TABLE: dict[str, np.ndarray] = {}
-_ETA_LO, _ETA_HI, _ETA_STEP = -30.0, 120.0, 0.01
-
-
-def _fermi_half_and_derivative(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """F_1/2(eta) and dF_1/2/d eta, fast, for the Newton iteration.
-
-    ``ln F_1/2`` is tabulated once with :func:`physics.fermi.fermi_dirac_half`
-    on ``[-30, 120]`` (step 0.01) and interpolated by a cubic spline (relative
-    error about 1e-9); below ``-30`` the nondegenerate limit ``F_1/2 = exp(eta)``
-    is used (relative error ``exp(eta) / 2^1.5`` < 1e-13, [2]_); above 120 the
-    degenerate limit ``(4 / (3 sqrt(pi))) eta^1.5`` (relative error ~1e-4, [2]_).
-    """
-    coef = _TABLE.get("coef")
-    if coef is None:
-        from scipy.interpolate import CubicSpline
-
-        grid = np.arange(_ETA_LO, _ETA_HI + 0.5 * _ETA_STEP, _ETA_STEP)
-        spline = CubicSpline(grid, np.log(fermi_dirac_half(grid)))
-        coef = _TABLE["coef"] = np.ascontiguousarray(spline.c.T)  # (n_cells, 4), cubic first
-    # the spline evaluated directly on its uniform cells (scipy's generic search is slower)
-    e = np.clip(eta, _ETA_LO, _ETA_HI)
-    cell = np.minimum(((e - _ETA_LO) / _ETA_STEP).astype(np.intp), coef.shape[0] - 1)
-    dx = e - (_ETA_LO + cell * _ETA_STEP)
-    c3, c2, c1, c0 = (coef[cell, k] for k in range(4))
-    log_f = ((c3 * dx + c2) * dx + c1) * dx + c0
-    f = np.exp(log_f)
-    df = f * ((3.0 * c3 * dx + 2.0 * c2) * dx + c1)
-    low = eta < _ETA_LO
-    high = eta > _ETA_HI
-    if np.any(low):
-        f = np.where(low, np.exp(np.maximum(eta, -700.0)), f)
-        df = np.where(low, f, df)
-    if np.any(high):
-        c = 4.0 / (3.0 * np.sqrt(np.pi))
-        f = np.where(high, c * np.maximum(eta, 0.0) ** 1.5, f)
-        df = np.where(high, 1.5 * c * np.sqrt(np.maximum(eta, 0.0)), df)
-    return f, df
 
 
 def solve_poisson_1d(
@@ -231,7 +196,7 @@ def solve_poisson_1d(
 
     def density(u_):
         eta = (mu - offset - u_) / kt
-        f, df = _fermi_half_and_derivative(eta)
+        f, df = fermi_dirac_half_tabulated(eta)
         n = np.where(mask, nc * f, 0.0) + fixed
         dn_du = np.where(mask, -nc * df / kt, 0.0)
         return n, dn_du
@@ -594,7 +559,7 @@ def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, 
         / (np.pi * HBAR_J_S**2)
         * 1e-4
     )[..., None]
-    supply = np.logaddexp(0.0, (mu[..., None] - np.where(ok, e1, 0.0)) / kt[..., None])
+    supply = fermi_dirac_zero((mu[..., None] - np.where(ok, e1, 0.0)) / kt[..., None])
     return np.sum(np.where(ok, fraction * n2d_cm2 * supply, 0.0), axis=-1), e1
 
 

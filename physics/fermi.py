@@ -1,5 +1,9 @@
-"""Fermi-Dirac statistics of the contacts: density of states, Fermi levels.
+"""Fermi-Dirac statistics: the Fermi-Dirac integrals, density of states, Fermi levels.
 
+The one home of the Fermi-Dirac integrals used in physics/: the occupation
+(order -1), ``F_0`` (the Tsu-Esaki supply function and 2D sheet densities) and
+``F_1/2`` (3D densities: contacts and the Thomas-Fermi charge), the last both by
+quadrature and as a fast tabulated interpolant for Newton iterations.
 The contacts are treated as parabolic, fully ionised n-type bulk, the same
 picture the Tsu-Esaki supply function assumes.
 
@@ -12,6 +16,8 @@ References
 .. [2] W. B. Joyce and R. W. Dixon, Appl. Phys. Lett. 31, 354 (1977).
 .. [3] S. M. Sze and K. K. Ng, Physics of Semiconductor Devices, 3rd ed.
    (Wiley, 2007), Eq. 1.16 (effective density of states N_c).
+.. [4] NIST Digital Library of Mathematical Functions, section 25.12 (complete
+   Fermi-Dirac integrals: F_j(x) = -Li_{j+1}(-e^x), so F_0(x) = ln(1 + e^x)).
 """
 
 from __future__ import annotations
@@ -22,7 +28,10 @@ from .constants import BOLTZMANN_EV_K, ELECTRON_MASS_KG, ELEMENTARY_CHARGE_C, HB
 
 __all__ = [
     "effective_density_of_states_cm3",
+    "occupation",
+    "fermi_dirac_zero",
     "fermi_dirac_half",
+    "fermi_dirac_half_tabulated",
     "reduced_fermi_level",
     "fermi_level_ev",
     "joyce_dixon_reduced_fermi_level",
@@ -40,6 +49,41 @@ def effective_density_of_states_cm3(mass_m0, temperature_k):
     mass = np.asarray(mass_m0, float) * ELECTRON_MASS_KG
     kt_j = BOLTZMANN_EV_K * np.asarray(temperature_k, float) * ELEMENTARY_CHARGE_C
     return 2.0 * (mass * kt_j / (2.0 * np.pi * HBAR_J_S**2)) ** 1.5 * 1e-6
+
+
+def occupation(energy_ev, *, mu_ev, kt_ev):
+    """Fermi-Dirac occupation ``1 / (1 + exp((E - mu) / kT))``, overflow-safe.
+
+    The integral of order -1, ``F_-1((mu - E)/kT)`` [4]_, written as
+    ``(1 - tanh((E - mu) / 2kT)) / 2``, which neither overflows nor divides.
+
+    Parameters
+    ----------
+    energy_ev
+        Energies E, eV, any shape broadcasting with the others.
+    mu_ev
+        Fermi level mu, eV, on the same scale as ``energy_ev``.
+    kt_ev
+        Thermal energy kT, eV, positive.
+    """
+    return 0.5 * (1.0 - np.tanh(0.5 * (energy_ev - mu_ev) / kt_ev))
+
+
+def fermi_dirac_zero(eta):
+    """Fermi-Dirac integral of order 0, ``F_0(eta) = ln(1 + exp(eta))`` [4]_, overflow-safe.
+
+    Written ``max(eta, 0) + log1p(exp(-|eta|))``: exact in both limits (``eta`` for
+    large ``eta``, ``exp(eta)`` for very negative ``eta``) and about twice as fast as
+    ``np.logaddexp(0, eta)``. The supply function of the Tsu-Esaki current and the
+    sheet density of a 2D subband are ``kT F_0``.
+
+    Parameters
+    ----------
+    eta
+        Reduced energy ``(mu - E) / kT``, any shape.
+    """
+    eta = np.asarray(eta, float)
+    return np.maximum(eta, 0.0) + np.log1p(np.exp(-np.abs(eta)))
 
 
 def fermi_dirac_half(eta):
@@ -72,6 +116,57 @@ def _fermi_dirac_half_and_slope(eta):
     # (the integrand is continuous there)
     slope = np.sum(scale * occupation * (1.0 - occupation), axis=-1)
     return value, slope
+
+
+#: The tabulated ``ln F_1/2`` of :func:`fermi_dirac_half_tabulated`: range and step of eta.
+_ETA_LO, _ETA_HI, _ETA_STEP = -30.0, 120.0, 0.01
+_TABLE: dict[str, np.ndarray] = {}
+
+
+def fermi_dirac_half_tabulated(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """F_1/2(eta) and its derivative dF_1/2/d eta = F_-1/2(eta), fast, for Newton iterations.
+
+    ``ln F_1/2`` is tabulated once with :func:`fermi_dirac_half` on ``[-30, 120]``
+    (step 0.01) and interpolated by a cubic spline (relative error about 1e-9);
+    below ``-30`` the nondegenerate limit ``F_1/2 = exp(eta)`` is used (relative
+    error ``exp(eta) / 2^1.5`` < 1e-13, [1]_); above 120 the degenerate limit
+    ``(4 / (3 sqrt(pi))) eta^1.5`` (relative error ~1e-4, [1]_).
+
+    Parameters
+    ----------
+    eta
+        Reduced Fermi level ``(mu - E_c) / kT``, ndarray of any shape.
+
+    Returns
+    -------
+    value, slope
+        ``F_1/2(eta)`` and ``dF_1/2/d eta``, the shape of ``eta``.
+    """
+    coef = _TABLE.get("coef")
+    if coef is None:
+        from scipy.interpolate import CubicSpline
+
+        grid = np.arange(_ETA_LO, _ETA_HI + 0.5 * _ETA_STEP, _ETA_STEP)
+        spline = CubicSpline(grid, np.log(fermi_dirac_half(grid)))
+        coef = _TABLE["coef"] = np.ascontiguousarray(spline.c.T)  # (n_cells, 4), cubic first
+    # the spline evaluated directly on its uniform cells (scipy's generic search is slower)
+    e = np.clip(eta, _ETA_LO, _ETA_HI)
+    cell = np.minimum(((e - _ETA_LO) / _ETA_STEP).astype(np.intp), coef.shape[0] - 1)
+    dx = e - (_ETA_LO + cell * _ETA_STEP)
+    c3, c2, c1, c0 = (coef[cell, k] for k in range(4))
+    log_f = ((c3 * dx + c2) * dx + c1) * dx + c0
+    f = np.exp(log_f)
+    df = f * ((3.0 * c3 * dx + 2.0 * c2) * dx + c1)
+    low = eta < _ETA_LO
+    high = eta > _ETA_HI
+    if np.any(low):
+        f = np.where(low, np.exp(np.maximum(eta, -700.0)), f)
+        df = np.where(low, f, df)
+    if np.any(high):
+        c = 4.0 / (3.0 * np.sqrt(np.pi))
+        f = np.where(high, c * np.maximum(eta, 0.0) ** 1.5, f)
+        df = np.where(high, 1.5 * c * np.sqrt(np.maximum(eta, 0.0)), df)
+    return f, df
 
 
 def reduced_fermi_level(density_ratio):

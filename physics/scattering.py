@@ -140,6 +140,7 @@ import numpy as np
 
 from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR2_2M0_EV_NM2, VACUUM_PERMITTIVITY_F_M
+from .fermi import occupation
 from .resonances import local_peaks, refine_grid_peaks
 from .transmission import transmission
 
@@ -313,10 +314,6 @@ def _lead_coupling(z, lead_edge, lead_mass, edge, mass, width, run, outer, lo, h
         z, edge, mass, width, run, lo, hi
     )
     return np.where(kin > 0.0, tau, 0.0)
-
-
-def _fermi(e, mu, kt):
-    return 0.5 * (1.0 - np.tanh(0.5 * (e - mu) / kt))
 
 
 def _split_widths(peak, width, tau_l, tau_r):
@@ -513,8 +510,12 @@ def _reservoir_fluxes(nodes, couplings, hw, bose, mu_left, mu_right, kt):
     The occupation ``f_w`` makes the reservoir's net current zero at every energy.
     """
     g_l, g_r, p_l, p_r = couplings
-    f_l, f_r = _fermi(nodes, mu_left, kt), _fermi(nodes, mu_right, kt)
-    fu_l, fu_r = _fermi(nodes + hw, mu_left, kt), _fermi(nodes + hw, mu_right, kt)
+    f_l, f_r = (
+        occupation(nodes, mu_ev=mu_left, kt_ev=kt),
+        occupation(nodes, mu_ev=mu_right, kt_ev=kt),
+    )
+    fu_l = occupation(nodes + hw, mu_ev=mu_left, kt_ev=kt)
+    fu_r = occupation(nodes + hw, mu_ev=mu_right, kt_ev=kt)
     emit_l, emit_r = (bose + 1.0) * p_l, (bose + 1.0) * p_r
     absorb_l, absorb_r = bose * p_l, bose * p_r
     num = g_l * f_l + g_r * f_r + emit_l * fu_l + emit_r * fu_r

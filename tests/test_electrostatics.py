@@ -20,11 +20,10 @@ from wellwright.physics.constants import (
 from wellwright.physics.current import EnergyGrid, current_density_a_cm2
 from wellwright.physics.electrostatics import (
     ElectrostaticsConvergenceError,
-    _fermi_half_and_derivative,
     solve_poisson_1d,
     solve_stack_poisson,
 )
-from wellwright.physics.fermi import fermi_dirac_half, fermi_level_ev
+from wellwright.physics.fermi import fermi_level_ev
 from wellwright.physics.iv import current_at_bias, stack_iv, sweep, sweep_hysteresis
 from wellwright.physics.stack import load_stack, parse_stack
 
@@ -134,17 +133,6 @@ def test_broadening_raises_valley_and_lowers_pvcr():
 
 
 # ----------------------------------------------------------------------------- Poisson
-
-
-def test_fast_fermi_integral_matches_quadrature():
-    # wellwright.physics.fermi.fermi_dirac_half is the reference (Blakemore 1982 definition)
-    eta = np.linspace(-40.0, 110.0, 1237)
-    f, df = _fermi_half_and_derivative(eta)
-    np.testing.assert_allclose(f, fermi_dirac_half(eta), rtol=1e-8)
-    h = 1e-4
-    np.testing.assert_allclose(
-        df, (fermi_dirac_half(eta + h) - fermi_dirac_half(eta - h)) / (2 * h), rtol=1e-6
-    )
 
 
 def test_poisson_matches_depletion_approximation():

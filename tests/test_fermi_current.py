@@ -27,8 +27,11 @@ from wellwright.physics.current import EnergyGrid, current_density_a_cm2
 from wellwright.physics.fermi import (
     effective_density_of_states_cm3,
     fermi_dirac_half,
+    fermi_dirac_half_tabulated,
+    fermi_dirac_zero,
     fermi_level_ev,
     joyce_dixon_reduced_fermi_level,
+    occupation,
     reduced_fermi_level,
 )
 from wellwright.physics.iv import sweep
@@ -77,6 +80,79 @@ def test_fermi_dirac_half_limits() -> None:
     y = np.array([100.0, 200.0])
     somm = 4 / (3 * np.sqrt(np.pi)) * y**1.5 * (1 + np.pi**2 / (8 * y**2))
     np.testing.assert_allclose(fermi_dirac_half(y), somm, rtol=1e-7)
+
+
+def test_tabulated_fermi_dirac_half_matches_quadrature() -> None:
+    # The fast spline of ln F_1/2 against the quadrature (itself checked against mpmath
+    # above): stated 1e-9 relative inside the table [-30, 120]; tolerance 1e-8.
+    eta = np.linspace(-30.0, 120.0, 1237)
+    f, df = fermi_dirac_half_tabulated(eta)
+    np.testing.assert_allclose(f, fermi_dirac_half(eta), rtol=1e-8)
+    # dF_1/2/d eta = F_-1/2 (DLMF 25.12.16 family: d F_j / dx = F_(j-1)), against a
+    # central difference of the quadrature (truncation about h^2 F''(eta) / 6); 1e-6
+    h = 1e-4
+    np.testing.assert_allclose(
+        df, (fermi_dirac_half(eta + h) - fermi_dirac_half(eta - h)) / (2 * h), rtol=1e-6
+    )
+
+
+def test_tabulated_fermi_dirac_half_outside_its_table() -> None:
+    # Below the table the nondegenerate limit F_1/2 = e^eta: relative error e^eta / 2^1.5
+    # (DLMF 25.12.10 series), < 1e-13 at eta <= -30.
+    low = np.array([-50.0, -35.0, -30.5])
+    f, df = fermi_dirac_half_tabulated(low)
+    np.testing.assert_allclose(f, fermi_dirac_half(low), rtol=1e-13)
+    np.testing.assert_allclose(df, f, rtol=0)
+    # Above it the degenerate limit (4 / (3 sqrt(pi))) eta^1.5; the first neglected term of
+    # the Sommerfeld expansion is pi^2 / (8 eta^2) (Blakemore 1982, degenerate series):
+    # 8.6e-5 at eta = 120, 3.1e-5 at 200; tolerance that bound plus 1e-6.
+    high = np.array([121.0, 150.0, 200.0])
+    f, _ = fermi_dirac_half_tabulated(high)
+    np.testing.assert_allclose(f, fermi_dirac_half(high), rtol=np.pi**2 / (8 * 120.0**2) + 1e-6)
+
+
+def test_fermi_dirac_zero_against_mpmath_polylog() -> None:
+    # DLMF 25.12.16 with j = 0: F_0(x) = -Li_1(-e^x) = ln(1 + e^x), mpmath at 30 digits
+    # (the polylog where 30 digits resolve 1 + e^x, mpmath's log1p beyond).
+    # Tolerance 1e-15 relative (a few rounding steps of exp, log1p and one addition).
+    eta = np.linspace(-25.0, 40.0, 66)
+    far = np.array([-700.0, -100.0, -40.0, 100.0, 700.0])
+    with mpmath.workdps(30):
+        ref = np.array([float(-mpmath.polylog(1, -mpmath.exp(x))) for x in eta])
+        ref_far = np.array([float(mpmath.log1p(mpmath.exp(x))) for x in far])
+    np.testing.assert_allclose(fermi_dirac_zero(eta), ref, rtol=1e-15, atol=0)
+    np.testing.assert_allclose(fermi_dirac_zero(far), ref_far, rtol=1e-15, atol=0)
+
+
+def test_fermi_dirac_zero_limits_and_no_overflow() -> None:
+    # ln(1 + e^x) = x + ln(1 + e^-x): degenerate limit x + e^-x, nondegenerate e^x - e^2x / 2
+    # (Taylor series of ln(1 + u); the next terms are below 1e-17 relative here).
+    x = np.array([40.0, 100.0, 1e3, 1e300])
+    np.testing.assert_allclose(fermi_dirac_zero(x), x + np.exp(-x), rtol=1e-16)
+    y = np.array([-40.0, -100.0, -700.0])
+    np.testing.assert_allclose(fermi_dirac_zero(y), np.exp(y) - np.exp(2 * y) / 2, rtol=1e-15)
+    # numpy's logaddexp as an independent general-purpose reference where both are finite
+    z = np.linspace(-30.0, 30.0, 121)
+    np.testing.assert_allclose(fermi_dirac_zero(z), np.logaddexp(0.0, z), rtol=1e-15)
+    with np.errstate(over="raise", invalid="raise"):  # overflow-safe at the extremes
+        assert np.isfinite(fermi_dirac_zero(np.array([-1e308, 1e308]))).all()
+
+
+def test_occupation_is_the_derivative_of_fermi_dirac_zero() -> None:
+    # d F_0 / d eta = F_-1(eta) = 1 / (1 + e^-eta) (DLMF 25.12.16 family), and the
+    # occupation of energy E is F_-1((mu - E) / kT): a central difference of F_0
+    # (truncation below h^2 / 24; 1e-8 absolute).
+    kt, mu = 0.0259, 0.05
+    energy = mu + kt * np.linspace(-20.0, 20.0, 81)
+    eta = (mu - energy) / kt
+    h = 1e-5
+    slope = (fermi_dirac_zero(eta + h) - fermi_dirac_zero(eta - h)) / (2 * h)
+    np.testing.assert_allclose(occupation(energy, mu_ev=mu, kt_ev=kt), slope, atol=1e-8)
+    # limits: full below the Fermi level, empty above, 1/2 at it; no overflow far out
+    assert occupation(mu, mu_ev=mu, kt_ev=kt) == 0.5
+    with np.errstate(over="raise", invalid="raise", divide="raise"):
+        far = occupation(np.array([mu - 1e3, mu + 1e3]), mu_ev=mu, kt_ev=kt)
+    np.testing.assert_array_equal(far, [1.0, 0.0])
 
 
 def test_reduced_fermi_level_inverts_f_half() -> None:
