@@ -62,7 +62,7 @@ def uniform_current(
     kt = BOLTZMANN_EV_K * table.temperature_k[:, None]
     mu_e = contact_fermi_levels_ev(table)[0][:, None] * np.ones(profile.batch_shape)
     bias = np.broadcast_to(bias_v, profile.batch_shape)
-    low, high = energy_window_ev(profile, mu_e, bias, kt)
+    low, high = energy_window_ev(profile, mu_emitter_ev=mu_e, bias_v=bias, kt_ev=kt)
     out = np.empty(profile.batch_shape)
     chunk = max(1, 400_000 // n_energy)  # keep arrays in memory bounds
     for b0 in range(0, bias.shape[1], chunk):
@@ -70,7 +70,10 @@ def uniform_current(
         e = low[:, sl, None] + (high - low)[:, sl, None] * np.linspace(0.0, 1.0, n_energy)
         t = transmission(e, profile=profile.take((slice(None), sl)))
         s = supply_function_ev(
-            e, mu_e[:, sl, None], mu_e[:, sl, None] - bias[:, sl, None], kt[..., None]
+            e,
+            mu_emitter_ev=mu_e[:, sl, None],
+            mu_collector_ev=mu_e[:, sl, None] - bias[:, sl, None],
+            kt_ev=kt[..., None],
         )
         out[:, sl] = np.trapezoid(t * s, e, axis=-1)
     return TSU_ESAKI_A_M2_EV2 * table.mass_m0[:, :1] * out * 1e-4
@@ -145,7 +148,9 @@ def reference_comparison(stack, table, bias, *, n_uniform: int, quick: bool) -> 
     profile = linear_profile(table, bias, slice_nm=slice_nm)
     kt = BOLTZMANN_EV_K * table.temperature_k[:, None]
     mu_e = contact_fermi_levels_ev(table)[0][:, None] * np.ones(profile.batch_shape)
-    low, high = energy_window_ev(profile, mu_e, np.broadcast_to(bias, profile.batch_shape), kt)
+    low, high = energy_window_ev(
+        profile, mu_emitter_ev=mu_e, bias_v=np.broadcast_to(bias, profile.batch_shape), kt_ev=kt
+    )
     picks = np.arange(0, bias.size, 6) if quick else np.arange(bias.size)
     t0 = time.perf_counter()
     for b in picks:

@@ -222,8 +222,12 @@ def builtin_offset_ev(table: LayerTable) -> np.ndarray:
     ``mu_E - V - mu_C'`` (``mu`` measured from each contact's own edge), so the
     drop beyond ``V`` is ``(E_c,C - E_c,E) - mu_E + mu_C'``.
     """
-    mu_e = fermi_level_ev(table.doping_cm3[:, 0], table.mass_m0[:, 0], table.temperature_k)
-    mu_c = fermi_level_ev(table.doping_cm3[:, -1], table.mass_m0[:, -1], table.temperature_k)
+    mu_e = fermi_level_ev(
+        table.doping_cm3[:, 0], mass_m0=table.mass_m0[:, 0], temperature_k=table.temperature_k
+    )
+    mu_c = fermi_level_ev(
+        table.doping_cm3[:, -1], mass_m0=table.mass_m0[:, -1], temperature_k=table.temperature_k
+    )
     return (table.edge_ev[:, -1] - table.edge_ev[:, 0]) - mu_e + mu_c
 
 

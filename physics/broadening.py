@@ -99,7 +99,7 @@ def lorentzian(energy_ev, *, center_ev, width_ev, peak):
     return peak * half**2 / ((energy_ev - center_ev) ** 2 + half**2)
 
 
-def broadened_peak(peak, width_ev, broadening_ev):
+def broadened_peak(peak, *, width_ev, broadening_ev):
     """Peak and width of a resonance with the extra width ``Gamma_s``, area conserved ([2]_, [3]_).
 
     Returns ``(T_p Gamma / (Gamma + Gamma_s), Gamma + Gamma_s)``.
@@ -115,7 +115,9 @@ def _lorentzian_integral(center, width, peak, low, high, supply, n_nodes):
     ``center``, ``width``, ``peak``, ``low``, ``high`` are ``batch + (n_res,)``;
     ``supply`` maps energies ``batch + (n_res, n)`` to the supply function.
     """
-    energy, weight = sinh_gauss_legendre(center, width, low, high, n_nodes)
+    energy, weight = sinh_gauss_legendre(
+        center, width_ev=width, low_ev=low, high_ev=high, n=n_nodes
+    )
     line = lorentzian(
         energy, center_ev=center[..., None], width_ev=width[..., None], peak=peak[..., None]
     )
@@ -166,7 +168,7 @@ def broadened_lines(
     width = np.where(ok, width_ev, 1.0)
     peak = np.where(ok, peak, 0.0)
     center = np.where(ok, center_ev, 0.5 * (low_ev + high_ev)[..., None])
-    new_peak, new_width = broadened_peak(peak, width, broadening_ev)
+    new_peak, new_width = broadened_peak(peak, width_ev=width, broadening_ev=broadening_ev)
     # each line's redistribution is cut at SPAN_KT kT either side (module notes)
     low = np.maximum(low_ev[..., None], center - SPAN_KT * kt)
     high = np.minimum(high_ev[..., None], center + SPAN_KT * kt)

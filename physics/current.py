@@ -117,12 +117,12 @@ class EnergyGrid:
 def contact_fermi_levels_ev(table: LayerTable) -> tuple[np.ndarray, np.ndarray]:
     """Fermi levels above their own band edges of emitter and collector, ``(n_stacks,)`` each."""
     t = table.temperature_k
-    mu_e = fermi_level_ev(table.doping_cm3[:, 0], table.mass_m0[:, 0], t)
-    mu_c = fermi_level_ev(table.doping_cm3[:, -1], table.mass_m0[:, -1], t)
+    mu_e = fermi_level_ev(table.doping_cm3[:, 0], mass_m0=table.mass_m0[:, 0], temperature_k=t)
+    mu_c = fermi_level_ev(table.doping_cm3[:, -1], mass_m0=table.mass_m0[:, -1], temperature_k=t)
     return mu_e, mu_c
 
 
-def supply_function_ev(energy_ev, mu_emitter_ev, mu_collector_ev, kt_ev):
+def supply_function_ev(energy_ev, *, mu_emitter_ev, mu_collector_ev, kt_ev):
     """kT ln[(1 + exp((mu_E - E)/kT)) / (1 + exp((mu_C - E)/kT))], eV, overflow-safe.
 
     Of the sign of ``mu_E - mu_C`` at every energy, also where rounding of the two
@@ -135,7 +135,7 @@ def supply_function_ev(energy_ev, mu_emitter_ev, mu_collector_ev, kt_ev):
 
 
 def energy_window_ev(
-    profile: Profile, mu_emitter_ev, bias_v, kt_ev
+    profile: Profile, *, mu_emitter_ev, bias_v, kt_ev
 ) -> tuple[np.ndarray, np.ndarray]:
     """Integration window ``(low, high)``, batch-shaped, eV from the emitter edge."""
     collector_edge = profile.edge_ev[..., -1]
@@ -231,7 +231,7 @@ def _line_rule(center, width, a, b, edge, n: int):
     v_width = width / (np.sqrt(depth + 0.5 * width) + v_center)  # no cancellation
     v_a = np.sqrt(np.maximum(a - edge, 0.0))
     v_b = np.sqrt(np.maximum(b - edge, 0.0))
-    v, weight = sinh_gauss_legendre(v_center, v_width, v_a, v_b, n)
+    v, weight = sinh_gauss_legendre(v_center, width_ev=v_width, low_ev=v_a, high_ev=v_b, n=n)
     return edge[..., None] + v**2, weight * 2.0 * v
 
 
@@ -276,14 +276,16 @@ def current_density_a_cm2(
     kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None] * np.ones(shape)
     mu_e = (contact_fermi_levels_ev(table)[0])[:, None] * np.ones(shape)
     mu_c = mu_e - bias
-    low, high = energy_window_ev(profile, mu_e, bias, kt)
+    low, high = energy_window_ev(profile, mu_emitter_ev=mu_e, bias_v=bias, kt_ev=kt)
 
     # quadratic map: dense at the window's lower edge, where T rises like sqrt(E - low)
     u = np.linspace(0.0, 1.0, grid.n_coarse)
     u = np.concatenate([u[:1], u[1] * EDGE_NODES_U, u[1:]])
     coarse = low[..., None] + (high - low)[..., None] * u**2
     t_coarse = transmission(coarse, profile=profile)
-    supply = supply_function_ev(coarse, mu_e[..., None], mu_c[..., None], kt[..., None])
+    supply = supply_function_ev(
+        coarse, mu_emitter_ev=mu_e[..., None], mu_collector_ev=mu_c[..., None], kt_ev=kt[..., None]
+    )
     weights = _trapezoid_weights(coarse)  # the coarse nodes span [low, high]
     if grid.n_resonances > 0:
         # refine every candidate peak, then keep those carrying most current: a resonance of
@@ -321,7 +323,12 @@ def current_density_a_cm2(
             & (center < high[..., None])
         )
         supply_r = np.abs(
-            supply_function_ev(center, mu_e[..., None], mu_c[..., None], kt[..., None])
+            supply_function_ev(
+                center,
+                mu_emitter_ev=mu_e[..., None],
+                mu_collector_ev=mu_c[..., None],
+                kt_ev=kt[..., None],
+            )
         )
         share = np.where(valid, np.nan_to_num(peak * width * supply_r), -1.0)
         valid = _distinct(center, width, valid, share)
@@ -378,7 +385,10 @@ def current_density_a_cm2(
         if sequential is not None:
             t_lines = t_lines * coherent_factor(nodes, **{k: v[rows] for k, v in reduce.items()})
         s_lines = supply_function_ev(
-            nodes, mu_e[rows][:, None], mu_c[rows][:, None], kt[rows][:, None]
+            nodes,
+            mu_emitter_ev=mu_e[rows][:, None],
+            mu_collector_ev=mu_c[rows][:, None],
+            kt_ev=kt[rows][:, None],
         )
         np.add.at(integral, rows, np.sum(node_weights * t_lines * s_lines, axis=-1))
     # of the sign of the bias, as T >= 0 and the supply has that sign everywhere (the
@@ -391,7 +401,10 @@ def current_density_a_cm2(
             low_ev=low,
             high_ev=high,
             supply=lambda e: supply_function_ev(
-                e, mu_e[..., None, None], mu_c[..., None, None], kt[..., None, None]
+                e,
+                mu_emitter_ev=mu_e[..., None, None],
+                mu_collector_ev=mu_c[..., None, None],
+                kt_ev=kt[..., None, None],
             ),
             broadening_ev=broadening_ev,
             kt_ev=kt,

@@ -309,7 +309,7 @@ def peak_resonance_lifetime_s(profile: Profile, table: LayerTable) -> np.ndarray
 
 
 def cutoff_frequency_hz(
-    ndr_conductance_s_cm2, capacitance_f_cm2, *, series_resistance_ohm_cm2=0.0, delay_s=0.0
+    ndr_conductance_s_cm2, *, capacitance_f_cm2, series_resistance_ohm_cm2=0.0, delay_s=0.0
 ):
     """Highest frequency at which the device's terminals show a negative resistance, Hz.
 
@@ -445,6 +445,6 @@ def device_figures(
     delay = np.nan_to_num(out["resonance_lifetime_s"][rows]) + out["transit_delay_s"][rows]
     r_cm2 = np.broadcast_to(np.asarray(series_resistance_ohm_um2, float), (n,))[rows] * 1e-8
     out["cutoff_frequency_hz"][rows] = cutoff_frequency_hz(
-        g, cap, series_resistance_ohm_cm2=r_cm2, delay_s=delay
+        g, capacitance_f_cm2=cap, series_resistance_ohm_cm2=r_cm2, delay_s=delay
     )
     return out

@@ -183,7 +183,8 @@ def solve_poisson_1d(
     kt = np.broadcast_to(BOLTZMANN_EV_K * np.asarray(temperature_k, float), batch)[..., None]
     nc = (
         effective_density_of_states_cm3(
-            np.broadcast_to(mass_m0, shape), np.broadcast_to(kt / BOLTZMANN_EV_K, shape)
+            np.broadcast_to(mass_m0, shape),
+            temperature_k=np.broadcast_to(kt / BOLTZMANN_EV_K, shape),
         )
         * 1e6
     )
@@ -360,7 +361,9 @@ def solve_stack_poisson(
         (n_stacks, np.atleast_1d(bias).shape[-1]),
     )
     li = grid.layer_index
-    mu_e = fermi_level_ev(table.doping_cm3[:, 0], table.mass_m0[:, 0], table.temperature_k)
+    mu_e = fermi_level_ev(
+        table.doping_cm3[:, 0], mass_m0=table.mass_m0[:, 0], temperature_k=table.temperature_k
+    )
     right = -(
         bias + builtin_offset_ev(table)[:, None]
     )  # collector potential, as in the linear model

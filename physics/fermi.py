@@ -44,7 +44,7 @@ _NODES = 0.5 * (_NODES + 1.0)
 _WEIGHTS = 0.5 * _WEIGHTS
 
 
-def effective_density_of_states_cm3(mass_m0, temperature_k):
+def effective_density_of_states_cm3(mass_m0, *, temperature_k):
     """N_c = 2 (m kT / (2 pi hbar^2))^(3/2) in cm^-3 ([3], Eq. 1.16)."""
     mass = np.asarray(mass_m0, float) * ELECTRON_MASS_KG
     kt_j = BOLTZMANN_EV_K * np.asarray(temperature_k, float) * ELEMENTARY_CHARGE_C
@@ -197,7 +197,7 @@ def reduced_fermi_level(density_ratio):
     return eta
 
 
-def fermi_level_ev(doping_cm3, mass_m0, temperature_k):
+def fermi_level_ev(doping_cm3, *, mass_m0, temperature_k):
     """Fermi level above the band edge of fully ionised n-type bulk, eV.
 
     Solved once per distinct (doping, mass, temperature), all new ones in one
@@ -220,7 +220,11 @@ def fermi_level_ev(doping_cm3, mass_m0, temperature_k):
     new = np.array([f is None for f in found])
     if new.any():
         d, m, t = distinct[new].T
-        solved = BOLTZMANN_EV_K * t * reduced_fermi_level(d / effective_density_of_states_cm3(m, t))
+        solved = (
+            BOLTZMANN_EV_K
+            * t
+            * reduced_fermi_level(d / effective_density_of_states_cm3(m, temperature_k=t))
+        )
         if len(_FERMI_LEVELS) > _FERMI_CACHE_SIZE:
             _FERMI_LEVELS.clear()
         for key, level in zip(distinct[new].tolist(), solved.tolist(), strict=True):

@@ -547,7 +547,7 @@ def stack_iv(
 
 
 def external_bias_v(
-    bias_v: np.ndarray, current_density_a_cm2: np.ndarray, series_resistance_ohm_um2: float
+    bias_v: np.ndarray, current_density_a_cm2: np.ndarray, *, series_resistance_ohm_um2: float
 ) -> np.ndarray:
     """Terminal bias with a series resistance: ``V_ext = V + J R`` (R in ohm um^2, J in A/cm^2)."""
     return np.asarray(bias_v) + np.asarray(current_density_a_cm2) * series_resistance_ohm_um2 * 1e-8

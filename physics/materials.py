@@ -313,7 +313,7 @@ def varshni_gap_ev(
     return gap_0k_ev - alpha_ev_per_k * temperature_k**2 / (temperature_k + beta_k)
 
 
-def kane_nonparabolicity_per_ev(gap_ev: FloatOrArray, mass_m0: FloatOrArray) -> FloatOrArray:
+def kane_nonparabolicity_per_ev(gap_ev: FloatOrArray, *, mass_m0: FloatOrArray) -> FloatOrArray:
     """Conduction-band nonparabolicity parameter of the two-band Kane model.
 
     Parameters
@@ -714,7 +714,7 @@ def material_parameters(
         conduction_band_ev=_output(bulk["valence_band_offset_ev"] + bulk["gap_ev"] + shift_ev),
         mass_m0=bulk["mass_m0"],
         nonparabolicity_per_ev=_output(
-            kane_nonparabolicity_per_ev(bulk["gap_ev"], bulk["mass_m0"])
+            kane_nonparabolicity_per_ev(bulk["gap_ev"], mass_m0=bulk["mass_m0"])
         ),
         gap_ev=bulk["gap_ev"],
         lattice_nm=a,

@@ -40,7 +40,7 @@ def _panel(s_lo, s_hi, n, center, half):
     return energy, rad[..., None] * weights * half[..., None] * np.cosh(s)
 
 
-def sinh_gauss_legendre(center_ev, width_ev, low_ev, high_ev, n: int):
+def sinh_gauss_legendre(center_ev, *, width_ev, low_ev, high_ev, n: int):
     """Nodes and weights of ``n`` points for ``[low, high]`` around a line at ``center``.
 
     All four arrays broadcast together to ``shape``; returns ``energy_ev`` and

@@ -80,7 +80,7 @@ K2_FLOOR_PER_NM2 = 1e-12
 
 
 def wave_numbers_per_nm(
-    energy_ev: np.ndarray, edge_ev: np.ndarray, mass_m0: np.ndarray, alpha_per_ev: np.ndarray
+    energy_ev: np.ndarray, *, edge_ev: np.ndarray, mass_m0: np.ndarray, alpha_per_ev: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
     """Complex wave number ``k`` (1/nm, ``Im k >= 0``) and ``k/m`` (1/nm per m0).
 
@@ -255,7 +255,9 @@ def _numpy(energy: np.ndarray, profile: Profile, return_reflection: bool):
     n = profile.n_slices
 
     def slice_waves(j: int) -> tuple[np.ndarray, np.ndarray]:
-        return wave_numbers_per_nm(e[..., 0], edge[..., j], mass[..., j], alpha[..., j])
+        return wave_numbers_per_nm(
+            e[..., 0], edge_ev=edge[..., j], mass_m0=mass[..., j], alpha_per_ev=alpha[..., j]
+        )
 
     k_next, q_next = slice_waves(n - 1)
     q_collector = q_next

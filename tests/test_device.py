@@ -153,16 +153,18 @@ def test_cutoff_frequency_reduces_to_the_resistive_cutoff_and_the_delay_limit():
     g, c = np.array([-4e6, -1e5]), np.array([6e-7, 2e-7])
     r = np.array([5e-8, 2e-6])
     expected = -g / (2 * np.pi * c) * np.sqrt(1 / (-g * r) - 1)
-    assert cutoff_frequency_hz(g, c, series_resistance_ohm_cm2=r) == pytest.approx(
-        expected, rel=1e-6
-    )
+    assert cutoff_frequency_hz(
+        g, capacitance_f_cm2=c, series_resistance_ohm_cm2=r
+    ) == pytest.approx(expected, rel=1e-6)
     tau = 3e-13
-    assert cutoff_frequency_hz(g, c, delay_s=tau) == pytest.approx(1 / (4 * tau), rel=1e-6)
+    assert cutoff_frequency_hz(g, capacitance_f_cm2=c, delay_s=tau) == pytest.approx(
+        1 / (4 * tau), rel=1e-6
+    )
     # |G| R_s >= 1: no negative resistance at any frequency
-    assert cutoff_frequency_hz(np.array([-1e6]), np.array([1e-6]), series_resistance_ohm_cm2=2e-6)[
-        0
-    ] == pytest.approx(0.0)
-    assert np.isnan(cutoff_frequency_hz(np.array([1e6]), np.array([1e-6]))[0])
+    assert cutoff_frequency_hz(
+        np.array([-1e6]), capacitance_f_cm2=np.array([1e-6]), series_resistance_ohm_cm2=2e-6
+    )[0] == pytest.approx(0.0)
+    assert np.isnan(cutoff_frequency_hz(np.array([1e6]), capacitance_f_cm2=np.array([1e-6]))[0])
 
 
 def test_every_sweep_carries_the_device_figures_and_series_resistance_lowers_fmax():

@@ -92,7 +92,7 @@ def test_broadened_lorentzian_conserves_area():
         supply=np.ones_like,
         broadening_ev=gs,
     )
-    tpb, gb = broadened_peak(tp, g, gs)
+    tpb, gb = broadened_peak(tp, width_ev=g, broadening_ev=gs)
     expected = tpb * gb * np.arctan(2 * a / gb) - tp * g * np.arctan(2 * a / g)
     # quadrature error of each term below 1e-8 of its value (64-node rule, smooth in s)
     assert corr[0] == pytest.approx(expected, abs=1e-8 * tp * g)
@@ -144,7 +144,7 @@ def test_poisson_matches_depletion_approximation():
     n = int(length_nm / h_nm) + 1
     width = np.full(n, h_nm)
     width[[0, -1]] = 0.0
-    mu = float(fermi_level_ev(n_d, mass, temp))
+    mu = float(fermi_level_ev(n_d, mass_m0=mass, temperature_k=temp))
     x = np.cumsum(width) - 0.5 * width
     sol = solve_poisson_1d(
         width_nm=width[None],

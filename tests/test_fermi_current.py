@@ -23,7 +23,7 @@ from helpers_physics import (
 from scipy import constants as sc
 from scipy.integrate import quad, simpson
 from wellwright.physics.bands import Profile, linear_profile
-from wellwright.physics.current import EnergyGrid, current_density_a_cm2
+from wellwright.physics.current import EnergyGrid, current_density_a_cm2, supply_function_ev
 from wellwright.physics.fermi import (
     effective_density_of_states_cm3,
     fermi_dirac_half,
@@ -196,9 +196,9 @@ def test_fermi_level_boltzmann_limit() -> None:
     # remainder O(r^3) (coefficient 1.5e-4) plus round-off of ln r (|ln r| < 20: 5e-14 absolute)
     assert np.all(np.abs(eta - np.log(r) - r / 2**1.5 - c2 * r**2) < 1e-3 * r**2 + 5e-14)
     # in eV for lightly doped GaAs (n = 1e14 cm^-3): mu = kT ln(n / N_c) within kT r/2^(3/2)
-    nc = effective_density_of_states_cm3(0.067, 300.0)
+    nc = effective_density_of_states_cm3(0.067, temperature_k=300.0)
     kt = KB_EV_K * 300.0
-    mu = fermi_level_ev(1e14, 0.067, 300.0)
+    mu = fermi_level_ev(1e14, mass_m0=0.067, temperature_k=300.0)
     assert abs(mu - kt * np.log(1e14 / nc)) < 1.1 * kt * (1e14 / nc) / 2**1.5
 
 
@@ -207,12 +207,16 @@ def test_effective_density_of_states_gaas() -> None:
     # with CODATA: exact to round-off (1e-12).
     m, t = 0.067, 300.0
     nc_formula = 2 * (m * sc.m_e * sc.k * t / (2 * np.pi * sc.hbar**2)) ** 1.5 * 1e-6
-    assert effective_density_of_states_cm3(m, t) == pytest.approx(nc_formula, rel=1e-12)
+    assert effective_density_of_states_cm3(m, temperature_k=t) == pytest.approx(
+        nc_formula, rel=1e-12
+    )
     # Published tables give 4.4e17-4.7e17 cm^-3 for GaAs at 300 K (Sze's appendix; from
     # memory, the spread comes from the mass assumed); m = 0.067 gives 4.35e17. 10 %.
-    assert effective_density_of_states_cm3(m, t) == pytest.approx(4.4e17, rel=0.10)
+    assert effective_density_of_states_cm3(m, temperature_k=t) == pytest.approx(4.4e17, rel=0.10)
     # scaling N_c ~ (m T)^(3/2) exactly
-    assert effective_density_of_states_cm3(2 * m, 2 * t) == pytest.approx(8 * nc_formula, rel=1e-12)
+    assert effective_density_of_states_cm3(2 * m, temperature_k=2 * t) == pytest.approx(
+        8 * nc_formula, rel=1e-12
+    )
 
 
 # ----------------------------------------------------------------------------- Tsu-Esaki current
@@ -233,6 +237,23 @@ def _current(table, bias, grid: EnergyGrid | None = None):
     return current_density_a_cm2(
         linear_profile(table, bias), table=table, bias_v=bias[None, :], grid=grid
     )
+
+
+def test_supply_function_against_its_definition_and_sign() -> None:
+    # Tsu and Esaki (1973): S = kT ln[(1 + e^((mu_E - E)/kT)) / (1 + e^((mu_C - E)/kT))],
+    # here against the same formula written with numpy's logaddexp (1e-12 relative, well
+    # inside the window where S is not the difference of two nearly equal logarithms).
+    kt, mu_e, mu_c = 0.0259, 0.05, -0.15
+    energy = np.linspace(0.0, 0.3, 61)
+    s = supply_function_ev(energy, mu_emitter_ev=mu_e, mu_collector_ev=mu_c, kt_ev=kt)
+    np.testing.assert_allclose(s, _supply(energy, mu_e, mu_c, kt), rtol=1e-12)
+    # exchanging the contacts reverses the current: S changes sign (to rounding)
+    swapped = supply_function_ev(energy, mu_emitter_ev=mu_c, mu_collector_ev=mu_e, kt_ev=kt)
+    np.testing.assert_allclose(swapped, -s, rtol=1e-12)
+    assert (s > 0).all() and (swapped < 0).all()
+    # the Fermi levels are keyword-only, so they cannot be swapped by position
+    with pytest.raises(TypeError):
+        supply_function_ev(energy, mu_e, mu_c, kt)  # type: ignore[misc]
 
 
 def test_zero_current_at_zero_bias() -> None:
@@ -272,7 +293,7 @@ def test_free_electron_current_against_dilogarithm(temperature_k: float) -> None
         layer_index=flat.layer_index,
     )
     kt = KB_EV_K * temperature_k
-    mu = float(fermi_level_ev(1e18, 0.067, temperature_k))
+    mu = float(fermi_level_ev(1e18, mass_m0=0.067, temperature_k=temperature_k))
     for bias in (0.005, 0.03, 0.1, 0.3):
         j = current_density_a_cm2(profile, table=table, bias_v=np.array([[bias]]))[0, 0]
         with mpmath.workdps(30):
@@ -294,7 +315,7 @@ def test_linear_response_conductance_of_thin_barrier() -> None:
     m, v_bar, b = 0.067, 0.3, 2.0
     table = custom_table([0, v_bar, 0], m, [0, b, 0])
     kt = KB_EV_K * 300.0
-    mu = float(fermi_level_ev(1e18, m, 300.0))
+    mu = float(fermi_level_ev(1e18, mass_m0=m, temperature_k=300.0))
     p0 = linear_profile(table, [0.0])
 
     def integrand(e):
@@ -410,7 +431,9 @@ def test_state_just_above_the_emitter_edge_carries_its_current() -> None:
     table, bias = _state_at_the_emitter_edge(), 0.24
     single = linear_profile(table, [bias]).take((0, 0))
     kt = KB_EV_K * 300.0
-    mu = float(fermi_level_ev(table.doping_cm3[0, 0], table.mass_m0[0, 0], 300.0))
+    mu = float(
+        fermi_level_ev(table.doping_cm3[0, 0], mass_m0=table.mass_m0[0, 0], temperature_k=300.0)
+    )
     total = 0.0
     for e in (np.linspace(0.0, 1e-3, 400001), np.linspace(1e-3, mu + 40 * kt, 800001)):
         total += simpson(transmission(e, profile=single) * _supply(e, mu, mu - bias, kt), x=e)
@@ -429,7 +452,13 @@ def _reference_current(table, bias):
     p = linear_profile(table, [bias])
     res = find_resonances(p, energy_min_ev=0.0, energy_max_ev=0.29, n_coarse=400)
     kt = KB_EV_K * float(table.temperature_k[0])
-    mu = float(fermi_level_ev(table.doping_cm3[0, 0], table.mass_m0[0, 0], table.temperature_k[0]))
+    mu = float(
+        fermi_level_ev(
+            table.doping_cm3[0, 0],
+            mass_m0=table.mass_m0[0, 0],
+            temperature_k=table.temperature_k[0],
+        )
+    )
     single = p.take((0, 0))
     edges = [0.0]
     valid = res.valid[0, 0]
@@ -526,7 +555,13 @@ def test_peak_current_converges_with_grid_refinement(case: int) -> None:
     vp = c0.metrics["peak_voltage_v"][0]
     p = linear_profile(table, [vp], slice_nm=model.slice_nm)
     kt = KB_EV_K * float(table.temperature_k[0])
-    mu = float(fermi_level_ev(table.doping_cm3[0, 0], table.mass_m0[0, 0], table.temperature_k[0]))
+    mu = float(
+        fermi_level_ev(
+            table.doping_cm3[0, 0],
+            mass_m0=table.mass_m0[0, 0],
+            temperature_k=table.temperature_k[0],
+        )
+    )
     energy = np.linspace(max(0.0, float(p.edge_ev[0, 0, -1])), mu + 40 * kt, 40001)
     integrand = transmission(energy, profile=p)[0, 0] * _supply(energy, mu, mu - vp, kt)
     j_uniform = TSU_ESAKI_A_M2_EV2 * table.mass_m0[0, 0] * simpson(integrand, x=energy) * 1e-4

@@ -212,10 +212,16 @@ def test_batched_sweep_equals_single_sweeps() -> None:
 def test_series_resistance_shift() -> None:
     # V_ext = V + J R (Ohm's law). Units: J in A/cm^2, R in ohm um^2 = 1e-8 ohm cm^2,
     # so 1e5 A/cm^2 through 10 ohm um^2 drops 1e5 * 10e-8 = 0.01 V (hand arithmetic).
-    assert external_bias_v(0.3, 1e5, 10.0) == pytest.approx(0.31, rel=1e-12)
+    assert external_bias_v(0.3, 1e5, series_resistance_ohm_um2=10.0) == pytest.approx(
+        0.31, rel=1e-12
+    )
     v = np.linspace(-0.5, 0.5, 11)
     j = 2e4 * v
-    np.testing.assert_allclose(external_bias_v(v, j, 25.0), v + j * 25.0 * 1e-8, rtol=1e-15)
-    np.testing.assert_array_equal(external_bias_v(v, j, 0.0), v)
+    np.testing.assert_allclose(
+        external_bias_v(v, j, series_resistance_ohm_um2=25.0), v + j * 25.0 * 1e-8, rtol=1e-15
+    )
+    np.testing.assert_array_equal(external_bias_v(v, j, series_resistance_ohm_um2=0.0), v)
     # reverse bias: negative J shifts the terminal bias further negative
-    assert external_bias_v(-0.3, -1e5, 10.0) == pytest.approx(-0.31, rel=1e-12)
+    assert external_bias_v(-0.3, -1e5, series_resistance_ohm_um2=10.0) == pytest.approx(
+        -0.31, rel=1e-12
+    )

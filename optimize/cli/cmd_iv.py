@@ -72,12 +72,18 @@ def iv_record(stack, curves) -> dict:
     }
     dev = stack.device
     if dev.series_resistance_ohm_um2 > 0:
-        record["external_bias_v"] = external_bias_v(curves.bias_v, j, dev.series_resistance_ohm_um2)
+        record["external_bias_v"] = external_bias_v(
+            curves.bias_v, j, series_resistance_ohm_um2=dev.series_resistance_ohm_um2
+        )
         m = record["metrics"]
         for name in ("peak", "valley"):
             v, jj = m[f"{name}_voltage_v"], m[f"{name}_current_density_a_cm2"]
             m[f"{name}_voltage_external_v"] = (
-                None if v is None else float(external_bias_v(v, jj, dev.series_resistance_ohm_um2))
+                None
+                if v is None
+                else float(
+                    external_bias_v(v, jj, series_resistance_ohm_um2=dev.series_resistance_ohm_um2)
+                )
             )
     if dev.area_um2 is not None:
         record["current_ma"] = j * dev.area_um2 * 1e-8 * 1e3
