@@ -163,6 +163,7 @@ def read_measured(path: str | Path) -> Measurement:
         temperature = float(t[0])
     area = settings.get("area_um2")
     if "current_a" in values:
+        assert area is not None  # the header check requires the area with current_a
         j = values["current_a"] / (area * 1e-8)  # um^2 -> cm^2
     else:
         j = values["current_density_a_cm2"]

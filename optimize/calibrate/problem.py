@@ -44,7 +44,7 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, fields, replace
-from typing import Any
+from typing import Any, Literal, overload
 
 import numpy as np
 from scipy.interpolate import PchipInterpolator
@@ -104,7 +104,7 @@ class Problem:
     """A nominal stack, the measured sweeps and the fitted parameters (plain data)."""
 
     stack: Stack
-    stacks_by_temperature: dict[float, Stack]
+    stacks_by_temperature: dict[float | None, Stack]  #: None: the stack file's own
     measurements: tuple[Measurement, ...]
     parameters: tuple[FitParameter, ...]
     nominal_ml: np.ndarray  #: (n_layers,) nominal monolayers, NaN for contacts
@@ -310,6 +310,16 @@ class Problem:
             out.append(np.linspace(lo, hi, max(n, 2)))
         return out
 
+    @overload
+    def intrinsic_currents(
+        self, dev: np.ndarray, *, with_slopes: Literal[False] = False
+    ) -> list[np.ndarray]: ...
+
+    @overload
+    def intrinsic_currents(
+        self, dev: np.ndarray, *, with_slopes: Literal[True]
+    ) -> tuple[list[np.ndarray], list[np.ndarray]]: ...
+
     def intrinsic_currents(
         self, dev: np.ndarray, *, with_slopes: bool = False
     ) -> list[np.ndarray] | tuple[list[np.ndarray], list[np.ndarray]]:
@@ -478,9 +488,11 @@ def candidate_parameters(
         if any(i not in span for i in idx):
             default.append(name)
     for mat in sorted({lay.material for lay in stack.layers} - {"custom"}):
-        idx = tuple(i for i, lay in enumerate(stack.layers) if lay.material == mat)
+        of_mat = tuple(i for i, lay in enumerate(stack.layers) if lay.material == mat)
         name = f"{mat}.offset_ev"
-        cands[name] = FitParameter(name, "offset", "eV", 0.0, 0.01, OFFSET_SIGMA_EV, -0.3, 0.3, idx)
+        cands[name] = FitParameter(
+            name, "offset", "eV", 0.0, 0.01, OFFSET_SIGMA_EV, -0.3, 0.3, of_mat
+        )
     model_fields = {f.name for f in fields(ModelOptions)}
     for key, (unit, scale, lo, hi) in MODEL_FIT.items():
         if key in model_fields:
@@ -600,7 +612,7 @@ def build_problem(
     stack = parse_stack(stack_data, source=source)
     names = tuple(lay.name for lay in stack.layers)
     growth, per_layer = parse_growth(growth_raw, layer_growth, layer_names=names, source=source)
-    by_t: dict[float, Stack] = {}
+    by_t: dict[float | None, Stack] = {}
     for meas in measurements:
         t = meas.temperature_k
         if t is not None and t not in by_t:
