@@ -257,6 +257,102 @@ def propagate_packet(
     sigma = float(width_nm)
     e0 = float(p.edge_ev[0]) + energy_mev * 1e-3
     gap = 8.0 * sigma + 2.0 if start_gap_nm is None else float(start_gap_nm)
+    lat = _lattice(p, e0=e0, sigma=sigma, gap=gap, step_nm=step_nm, max_time_fs=max_time_fs)
+    a, dt = lat.step_nm, lat.dt_fs
+    real, imag, imag_prev, lo, hi, floor = _launch(lat, sigma=sigma, gap=gap)
+    xb1, xb2 = barrier_span_nm(p, barrier_layers=barrier_layers)
+    regions = _Regions.of(lat.x_nm, (xb1, xb2), near_nm=6 * sigma, step_nm=a)
+
+    dens = real[lo:hi] ** 2 + imag[lo:hi] * imag_prev[lo:hi]
+    rec = _TimeRecord(regions, dens, lo, hi, step_nm=a, n_snapshots=n_snapshots)
+    steps_per_record = max(1, int(round(record_interval_fs / dt)))
+    n_steps_max = int(np.ceil(max_time_fs / dt))
+    t_arrive = gap / (2 * lat.lead_w_ev * a * np.sin(lat.k0_per_nm * a) / HBAR_EV_FS)
+    stop_reason, step, t_seen = "max time", 0, None
+    while step < n_steps_max:
+        record = (step + 1) % steps_per_record == 0 or step + 1 == n_steps_max
+        if step % _CHECK_EVERY == 0:
+            lo, hi = _widened(real, imag, lo, hi, floor)
+        # [1]: R(t+dt) = R(t) + dt/hbar H I(t+dt/2), I(t+3dt/2) = I(t+dt/2) - dt/hbar H R(t+dt)
+        real[lo:hi] += lat.apply_eps_h(imag, lo, hi)
+        if record:
+            imag_prev[lo:hi] = imag[lo:hi]
+        imag[lo:hi] -= lat.apply_eps_h(real, lo, hi)
+        step += 1
+        if not record:
+            continue
+        dens = real[lo:hi] ** 2 + imag[lo:hi] * imag_prev[lo:hi]  # [1], conserved density
+        t = step * dt
+        near = rec.add(t, dens, lo, hi)
+        if progress is not None and rec.n_records % 200 == 0:
+            progress(t, max_time_fs)
+        if rec.edge_max > _EDGE_PROBABILITY_STOP:
+            stop_reason = "grid edge"
+            break
+        if t_seen is None and t >= t_arrive and near < 0.05:
+            t_seen = t  # the packet has mostly left the barriers' neighbourhood
+        if t >= t_arrive and near < stop_tolerance:
+            stop_reason = "left the stack"
+            break
+    times = rec.times
+    snap_t, snap_d = rec.spread_snapshots(
+        dens, lo, hi, until_fs=times[-1] if t_seen is None else t_seen
+    )
+    if progress is not None:
+        progress(times[-1], max_time_fs)
+    return PacketResult(
+        time_fs=np.array(times),
+        left=np.array(rec.lefts),
+        in_well=np.array(rec.wells),
+        right=np.array(rec.rights),
+        reflected=rec.lefts[-1],
+        transmitted=rec.rights[-1],
+        in_well_final=rec.wells[-1],
+        norm_error_max=rec.norm_err,
+        edge_probability_max=rec.edge_max,
+        stop_reason=stop_reason,
+        dt_fs=dt,
+        step_nm=a,
+        stability_bound_ev=lat.bound_ev,
+        x_nm=lat.x_nm,
+        potential_ev=lat.potential_ev,
+        mass_half_m0=lat.mass_half_m0,
+        barrier_span_nm=(xb1, xb2),
+        snapshot_time_fs=snap_t,
+        snapshot_density_per_nm=snap_d,
+        energy_mev=float(energy_mev),
+        width_nm=sigma,
+    )
+
+
+@dataclass(frozen=True)
+class _Lattice:
+    """The packet's grid, its Hamiltonian and time step (module Notes)."""
+
+    x_nm: np.ndarray  #: nodes
+    potential_ev: np.ndarray  #: band edge at the nodes
+    mass_half_m0: np.ndarray  #: mass at the n + 1 half points
+    eps_diag: np.ndarray  #: (dt / hbar) H_jj
+    eps_off: np.ndarray  #: (dt / hbar) |H_j,j+1|
+    step_nm: float
+    dt_fs: float
+    bound_ev: float  #: Gershgorin bound of max |eigenvalue of H|
+    k0_per_nm: float  #: centre wave number in the emitter
+    lead_w_ev: float  #: emitter bond hbar^2 / (2 m a^2)
+
+    def apply_eps_h(self, v: np.ndarray, lo: int, hi: int) -> np.ndarray:
+        """``(dt/hbar) H v`` on ``[lo, hi)`` for ``v`` zero outside it."""
+        ed, eo = self.eps_diag, self.eps_off
+        out = ed[lo:hi] * v[lo:hi]
+        out[:-1] -= eo[lo : hi - 1] * v[lo + 1 : hi]
+        out[1:] -= eo[lo : hi - 1] * v[lo : hi - 1]
+        return out
+
+
+def _lattice(
+    p: Profile, *, e0: float, sigma: float, gap: float, step_nm: float, max_time_fs: float
+) -> _Lattice:
+    """Grid long enough that nothing reaches its ends before ``max_time_fs``; H and ``dt``."""
     stack = uniform_grid(p, step_nm=step_nm)
     a = stack.step_nm
 
@@ -294,10 +390,27 @@ def propagate_packet(
     bound = float(np.max(np.abs(diag) + w[:-1] + w[1:]))  # Gershgorin [3]
     dt = HBAR_EV_FS / bound  # half of Visscher's limit 2 hbar / max|lambda| [1]
     eps = dt / HBAR_EV_FS
-    ed, eo = eps * diag, eps * off
-    n = x.size
+    return _Lattice(
+        x_nm=x,
+        potential_ev=potential,
+        mass_half_m0=mass_half,
+        eps_diag=eps * diag,
+        eps_off=eps * off,
+        step_nm=a,
+        dt_fs=dt,
+        bound_ev=bound,
+        k0_per_nm=k0,
+        lead_w_ev=w_e,
+    )
 
-    # initial packet
+
+def _launch(
+    lat: _Lattice, *, sigma: float, gap: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, int, int, float]:
+    """The Gaussian packet as ``R(0)``, ``I(dt/2)``, ``I(-dt/2)``; its window ``[lo, hi)``
+    and the amplitude that widens the window (module Notes)."""
+    x, a, n = lat.x_nm, lat.step_nm, lat.x_nm.size
+    k0 = lat.k0_per_nm
     psi0 = (2 * np.pi * sigma**2) ** -0.25 * np.exp(
         -((x + gap) ** 2) / (4 * sigma**2) + 1j * k0 * x
     )
@@ -308,131 +421,140 @@ def propagate_packet(
     psi0[:lo] = 0
     psi0[hi:] = 0
 
-    def apply_eps_h(v: np.ndarray, lo: int, hi: int) -> np.ndarray:
-        """``(dt/hbar) H v`` on ``[lo, hi)`` for ``v`` zero outside it."""
-        out = ed[lo:hi] * v[lo:hi]
-        out[:-1] -= eo[lo : hi - 1] * v[lo + 1 : hi]
-        out[1:] -= eo[lo : hi - 1] * v[lo : hi - 1]
-        return out
-
     def taylor(sign: float) -> np.ndarray:
         """``psi(sign dt / 2)`` by a 4th-order series of ``exp(-i H t / hbar)``."""
         term, total = psi0.copy(), psi0.copy()
         for order in range(1, 5):
             new = np.zeros(n, complex)
-            new[lo:hi] = apply_eps_h(term.real, lo, hi) + 1j * apply_eps_h(term.imag, lo, hi)
+            new[lo:hi] = lat.apply_eps_h(term.real, lo, hi) + 1j * lat.apply_eps_h(
+                term.imag, lo, hi
+            )
             term = -1j * 0.5 * sign * new / order
             total += term
         return total
 
-    real = psi0.real.copy()
-    imag = taylor(+1.0).imag  # I(dt/2)
-    imag_prev = taylor(-1.0).imag  # I(-dt/2)
+    return psi0.real.copy(), taylor(+1.0).imag, taylor(-1.0).imag, lo, hi, floor
 
-    xb1, xb2 = barrier_span_nm(p, barrier_layers=barrier_layers)
-    i1 = int(np.searchsorted(x, xb1 - 1e-9 * a))  # first node in the barrier region
-    i2 = int(np.searchsorted(x, xb2 + 1e-9 * a, side="right"))  # first node after it
-    near_lo = int(np.searchsorted(x, xb1 - 6 * sigma))
-    near_hi = int(np.searchsorted(x, xb2 + 6 * sigma, side="right"))
-    edge_zone = 100
 
-    def fractions(dens: np.ndarray, lo: int, hi: int) -> tuple[float, float, float, float]:
+def _widened(real: np.ndarray, imag: np.ndarray, lo: int, hi: int, floor: float) -> tuple[int, int]:
+    """The updated window ``[lo, hi)``, widened by a band where the packet reaches its ends."""
+    amp = np.abs(real) + np.abs(imag)
+    if lo > 0 and amp[lo : lo + _BAND].max() > floor:
+        lo = max(0, lo - _BAND)
+    if hi < len(amp) and amp[hi - _BAND : hi].max() > floor:
+        hi = min(len(amp), hi + _BAND)
+    return lo, hi
+
+
+@dataclass(frozen=True)
+class _Regions:
+    """Node ranges of the three regions (module Notes), the barriers' neighbourhood and the
+    zones at the grid ends watched for probability."""
+
+    i1: int  #: first node in the barrier region
+    i2: int  #: first node after it
+    near_lo: int
+    near_hi: int
+    n: int
+    edge_zone: int = 100
+
+    @classmethod
+    def of(
+        cls, x: np.ndarray, span_nm: tuple[float, float], *, near_nm: float, step_nm: float
+    ) -> _Regions:
+        a = step_nm
+        xb1, xb2 = span_nm
+        return cls(
+            i1=int(np.searchsorted(x, xb1 - 1e-9 * a)),
+            i2=int(np.searchsorted(x, xb2 + 1e-9 * a, side="right")),
+            near_lo=int(np.searchsorted(x, xb1 - near_nm)),
+            near_hi=int(np.searchsorted(x, xb2 + near_nm, side="right")),
+            n=x.size,
+        )
+
+    def fractions(
+        self, dens: np.ndarray, lo: int, hi: int, a: float
+    ) -> tuple[float, float, float, float]:
+        """Probability left of, in and right of the barrier region, and near the barriers,
+        of the density ``dens`` on the window ``[lo, hi)``."""
+
         def part(u: int, v: int) -> float:
             u, v = max(u, lo), min(v, hi)
             return float(dens[u - lo : v - lo].sum() * a) if v > u else 0.0
 
-        return part(0, i1), part(i1, i2), part(i2, n), part(near_lo, near_hi)
-
-    dens0 = real[lo:hi] ** 2 + imag[lo:hi] * imag_prev[lo:hi]
-    q0 = float(dens0.sum() * a)
-    steps_per_record = max(1, int(round(record_interval_fs / dt)))
-    n_steps_max = int(np.ceil(max_time_fs / dt))
-    t_arrive = gap / (2 * w_e * a * np.sin(k0 * a) / HBAR_EV_FS)
-
-    times, lefts, wells, rights = [0.0], [], [], []
-    l0, m0, r0, _ = fractions(dens0, lo, hi)
-    lefts.append(l0 / q0)
-    wells.append(m0 / q0)
-    rights.append(r0 / q0)
-    norm_err, edge_max = 0.0, 0.0
-    snap_every, snaps = 1, [(0.0, np.pad(dens0 / q0, (lo, n - hi)))]
-    n_rec, stop_reason, step, t_seen = 0, "max time", 0, None
-    while step < n_steps_max:
-        record = (step + 1) % steps_per_record == 0 or step + 1 == n_steps_max
-        if step % _CHECK_EVERY == 0:
-            amp = np.abs(real) + np.abs(imag)
-            if lo > 0 and amp[lo : lo + _BAND].max() > floor:
-                lo = max(0, lo - _BAND)
-            if hi < n and amp[hi - _BAND : hi].max() > floor:
-                hi = min(n, hi + _BAND)
-        real[lo:hi] += apply_eps_h(imag, lo, hi)  # [1]: R(t+dt) = R(t) + dt/hbar H I(t+dt/2)
-        if record:
-            imag_prev[lo:hi] = imag[lo:hi]
-        imag[lo:hi] -= apply_eps_h(real, lo, hi)  # [1]: I(t+3dt/2) = I(t+dt/2) - dt/hbar H R(t+dt)
-        step += 1
-        if not record:
-            continue
-        dens = real[lo:hi] ** 2 + imag[lo:hi] * imag_prev[lo:hi]  # [1], conserved density
-        t = step * dt
-        l_, m_, r_, near = fractions(dens, lo, hi)
-        total = l_ + m_ + r_
-        norm_err = max(norm_err, abs(total / q0 - 1.0))
-        ends = (
-            dens[: max(0, edge_zone - lo)].sum()
-            + dens[len(dens) - max(0, hi - (n - edge_zone)) :].sum()
+        return (
+            part(0, self.i1),
+            part(self.i1, self.i2),
+            part(self.i2, self.n),
+            part(self.near_lo, self.near_hi),
         )
-        edge_max = max(edge_max, float(ends * a / q0))
-        if edge_max > _EDGE_PROBABILITY_STOP:
-            stop_reason = "grid edge"
-        times.append(t)
-        lefts.append(l_ / q0)
-        wells.append(m_ / q0)
-        rights.append(r_ / q0)
-        n_rec += 1
-        if n_rec % snap_every == 0:
-            snaps.append((t, np.pad(dens / q0, (lo, n - hi))))
-            if len(snaps) > 4 * max(n_snapshots, 2):
-                snaps = snaps[::2]
-                snap_every *= 2
-        if progress is not None and n_rec % 200 == 0:
-            progress(t, max_time_fs)
-        if stop_reason == "grid edge":
-            break
-        if t_seen is None and t >= t_arrive and near / q0 < 0.05:
-            t_seen = t  # the packet has mostly left the barriers' neighbourhood
-        if t >= t_arrive and near / q0 < stop_tolerance:
-            stop_reason = "left the stack"
-            break
-    if snaps[-1][0] != times[-1]:
-        snaps.append((times[-1], np.pad(dens / q0, (lo, n - hi))))
-    snap_t = np.array([s[0] for s in snaps])
-    wanted = np.linspace(0.0, times[-1] if t_seen is None else t_seen, max(n_snapshots, 2))
-    pick = np.unique(np.abs(snap_t[None, :] - wanted[:, None]).argmin(axis=1))
-    if progress is not None:
-        progress(times[-1], max_time_fs)
-    return PacketResult(
-        time_fs=np.array(times),
-        left=np.array(lefts),
-        in_well=np.array(wells),
-        right=np.array(rights),
-        reflected=lefts[-1],
-        transmitted=rights[-1],
-        in_well_final=wells[-1],
-        norm_error_max=norm_err,
-        edge_probability_max=edge_max,
-        stop_reason=stop_reason,
-        dt_fs=dt,
-        step_nm=a,
-        stability_bound_ev=bound,
-        x_nm=x,
-        potential_ev=potential,
-        mass_half_m0=mass_half,
-        barrier_span_nm=(xb1, xb2),
-        snapshot_time_fs=np.array([snaps[i][0] for i in pick]),
-        snapshot_density_per_nm=np.array([snaps[i][1] for i in pick]),
-        energy_mev=float(energy_mev),
-        width_nm=sigma,
-    )
+
+    def at_grid_ends(self, dens: np.ndarray, lo: int, hi: int) -> float:
+        """Sum of ``dens`` (window ``[lo, hi)``) within ``edge_zone`` nodes of either grid end."""
+        zone, n = self.edge_zone, self.n
+        return float(
+            dens[: max(0, zone - lo)].sum() + dens[len(dens) - max(0, hi - (n - zone)) :].sum()
+        )
+
+
+class _TimeRecord:
+    """The run's time record: probability of the three regions (relative to the start),
+    the conservation and grid-end checks, and density snapshots, thinned by halves to
+    at most ``4 n_snapshots``."""
+
+    def __init__(
+        self,
+        regions: _Regions,
+        dens: np.ndarray,
+        lo: int,
+        hi: int,
+        *,
+        step_nm: float,
+        n_snapshots: int,
+    ) -> None:
+        self.regions, self.a, self.n_snapshots = regions, step_nm, n_snapshots
+        self.q0 = float(dens.sum() * step_nm)
+        left, well, right, _ = regions.fractions(dens, lo, hi, step_nm)
+        self.times = [0.0]
+        self.lefts, self.wells, self.rights = [left / self.q0], [well / self.q0], [right / self.q0]
+        self.norm_err, self.edge_max = 0.0, 0.0
+        self.n_records, self.snap_every = 0, 1
+        self.snaps = [(0.0, self._padded(dens, lo, hi))]
+
+    def _padded(self, dens: np.ndarray, lo: int, hi: int) -> np.ndarray:
+        return np.pad(dens / self.q0, (lo, self.regions.n - hi))
+
+    def add(self, t: float, dens: np.ndarray, lo: int, hi: int) -> float:
+        """Record the density ``dens`` on ``[lo, hi)`` at ``t``; returns the relative
+        probability near the barriers."""
+        q0 = self.q0
+        left, well, right, near = self.regions.fractions(dens, lo, hi, self.a)
+        self.norm_err = max(self.norm_err, abs((left + well + right) / q0 - 1.0))
+        self.edge_max = max(self.edge_max, self.regions.at_grid_ends(dens, lo, hi) * self.a / q0)
+        self.times.append(t)
+        self.lefts.append(left / q0)
+        self.wells.append(well / q0)
+        self.rights.append(right / q0)
+        self.n_records += 1
+        if self.n_records % self.snap_every == 0:
+            self.snaps.append((t, self._padded(dens, lo, hi)))
+            if len(self.snaps) > 4 * max(self.n_snapshots, 2):
+                self.snaps = self.snaps[::2]
+                self.snap_every *= 2
+        return near / q0
+
+    def spread_snapshots(
+        self, dens: np.ndarray, lo: int, hi: int, *, until_fs: float
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """About ``n_snapshots`` snapshots spread evenly from the launch to ``until_fs``
+        (the last density ``dens`` on ``[lo, hi)`` added as a snapshot if it is not one)."""
+        snaps = self.snaps
+        if snaps[-1][0] != self.times[-1]:
+            snaps.append((self.times[-1], self._padded(dens, lo, hi)))
+        snap_t = np.array([s[0] for s in snaps])
+        wanted = np.linspace(0.0, until_fs, max(self.n_snapshots, 2))
+        pick = np.unique(np.abs(snap_t[None, :] - wanted[:, None]).argmin(axis=1))
+        return np.array([snaps[i][0] for i in pick]), np.array([snaps[i][1] for i in pick])
 
 
 def expected_transmission(
