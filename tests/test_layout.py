@@ -143,3 +143,38 @@ def test_installed_under_wellwright_only(tmp_path):
         [sys.executable, "-c", code], cwd=tmp_path, capture_output=True, text=True, check=True
     )
     assert out.stdout.split() == ["True", "True"]
+
+
+def test_report_reads_files_not_the_search_engine_or_physics():
+    """The report is built from the run folder's finished files (DESIGN.md, data flow): its
+    modules import neither the search engine, its storage or Optuna, nor the physics that
+    computes curves (the stages that ran it wrote the curves and figures)."""
+    banned_project = (
+        "wellwright.optimize.search.engine",
+        "wellwright.optimize.search.storage",
+        "wellwright.optimize.search.designs",
+        "wellwright.optimize.search.robust",
+        "wellwright.physics.iv",
+        "wellwright.physics.transmission",
+        "wellwright.physics.current",
+        "wellwright.physics.resonances",
+        "wellwright.physics.electrostatics",
+    )
+    graph = _graph()
+    bad = []
+    for module, deps in graph.items():
+        if not module.startswith("wellwright.optimize.report"):
+            continue
+        bad += [f"{module} -> {d}" for d in deps if d.startswith(banned_project)]
+        tree = ast.parse(_modules()[module].read_text(encoding="utf-8"))
+        for node in ast.walk(tree):
+            if isinstance(node, ast.Import):
+                names = [a.name for a in node.names]
+            elif isinstance(node, ast.ImportFrom) and not node.level:
+                names = [node.module or ""]
+            else:
+                continue
+            bad += [
+                f"{module} -> {n}" for n in names if n.split(".")[0] in ("optuna", "sqlalchemy")
+            ]
+    assert not bad, bad

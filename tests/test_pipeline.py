@@ -77,6 +77,45 @@ def test_interrupted_tolerance_is_redone(tmp_path, capsys):
     assert "tolerance rank01 (trial" in said
 
 
+def test_stages_write_what_the_report_reads_and_a_rerun_adds_missing_records(tmp_path, capsys):
+    # the report reads finished files only (issue 16): the search writes its history as
+    # trials.csv, each reported design's nominal curves go to tolerance/rankNN/design/;
+    # a folder missing them (made before they existed) gets them on a rerun, without
+    # redoing the tolerance analysis (common practice: redo only what is missing)
+    import csv
+
+    study = _tiny_study(tmp_path)
+    out = tmp_path / "run"
+    run_pipeline(study, out_dir=out, report=_fake_report)
+    design = out / "tolerance" / "rank01" / "design"
+    record = json.loads((design / "design.json").read_text())
+    for name in ("iv.csv", "iv.png", "band_diagram.png", "transmission.png"):
+        assert (design / name).is_file(), name
+    designs = json.loads((out / "search" / "designs.json").read_text())
+    assert record["trial"] == designs[0]["trial"]
+    # the nominal sweep is the search's: the same figures of merit as designs.json
+    assert record["metrics"]["peak_current_density_a_cm2"] == pytest.approx(
+        designs[0]["metrics"]["peak_current_density_a_cm2"], rel=1e-9
+    )
+    rows = list(csv.DictReader((out / "search" / "trials.csv").read_text().splitlines()))
+    assert len(rows) == 6
+    assert {int(r["trial"]) for r in rows} == set(range(6))
+    assert designs[0]["trial"] in {int(r["trial"]) for r in rows if r["feasible"] == "1"}
+
+    tolerance_json = (out / "tolerance" / "rank01" / "tolerance.json").stat().st_mtime_ns
+    for p in design.iterdir():
+        p.unlink()
+    (out / "search" / "trials.csv").unlink()
+    capsys.readouterr()
+    rec = run_pipeline(study, out_dir=out, report=_fake_report)
+    said = capsys.readouterr().out
+    assert "tolerance rank01: done earlier; writing the design's curves" in said
+    assert (design / "design.json").is_file() and (out / "search" / "trials.csv").is_file()
+    assert (out / "tolerance" / "rank01" / "tolerance.json").stat().st_mtime_ns == tolerance_json
+    assert rec["stages"]["search"]["complete"] == 6  # resumed from its storage, no new trial
+    assert rec["stages"]["report"]["status"] == "done"
+
+
 @pytest.mark.parametrize(
     ("extra", "match"),
     [

@@ -11,9 +11,11 @@ from __future__ import annotations
 
 import base64
 import io
+import json
 import re
 import shutil
 import subprocess
+import sys
 from pathlib import Path
 
 import matplotlib.image as mpimg
@@ -170,3 +172,129 @@ def test_importance_legend_names_figures_of_merit_in_words():
     )
     texts = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert texts == ["peak current density", "PVCR"]
+
+
+# --------------------------------------------------------------------------- from files alone
+# The report is built from the run folder's finished files alone (issue 16; the project's
+# data-flow rule in DESIGN.md): no physics rerun, no Optuna storage reopened.
+
+#: Physics entry points the report used to call; each is made to raise below.
+PHYSICS_ENTRY_POINTS = {
+    "wellwright.physics.iv": ("sweep", "current_at_bias", "stack_iv", "band_profile"),
+    "wellwright.physics.transmission": ("transmission",),
+    "wellwright.physics.resonances": ("find_resonances",),
+    "wellwright.physics.current": ("current_density_a_cm2", "contact_fermi_levels_ev"),
+}
+
+
+def _forbid_physics_and_storage(monkeypatch) -> list[str]:
+    """Make every physics entry point and Optuna's study loading raise, wherever a module
+    holds a reference to them (``from ... import name`` copies included); returns the calls."""
+    import importlib
+
+    calls: list[str] = []
+
+    def trap(name):
+        def raiser(*args, **kwargs):
+            calls.append(name)
+            raise AssertionError(f"the report called {name}")
+
+        return raiser
+
+    originals = {}
+    for mod_name, funcs in PHYSICS_ENTRY_POINTS.items():
+        mod = importlib.import_module(mod_name)
+        for f in funcs:
+            originals[id(getattr(mod, f))] = f"{mod_name}.{f}"
+    try:
+        import optuna
+
+        originals[id(optuna.load_study)] = "optuna.load_study"
+        originals[id(optuna.create_study)] = "optuna.create_study"
+    except ImportError:  # pragma: no cover - optuna is a dependency
+        pass
+    for mod in list(sys.modules.values()):
+        if not getattr(mod, "__name__", "").startswith(("wellwright", "optuna")):
+            continue
+        for attr, value in list(vars(mod).items()):
+            if id(value) in originals and callable(value):
+                monkeypatch.setattr(mod, attr, trap(originals[id(value)]))
+    return calls
+
+
+def _without_build_time(text: str) -> str:
+    return re.sub(r"built \d{4}-\d\d-\d\d \d\d:\d\d UTC", "built (time)", text)
+
+
+def test_report_from_finished_files_alone(demo_dir, tmp_path, monkeypatch):
+    """Same report with the storage deleted and every physics entry point raising."""
+    from wellwright.optimize.report.build import build_report
+
+    run = tmp_path / "run"
+    shutil.copytree(demo_dir, run)
+    build_report(run)
+    before_html = _without_build_time(_html(run))
+    before_files = {p.name: p.read_bytes() for p in (run / FILES_DIR).iterdir()}
+
+    db = run / "search" / "study.db"
+    assert db.is_file()
+    db.unlink()
+    calls = _forbid_physics_and_storage(monkeypatch)
+    from wellwright.optimize.shared import figures as shared_figures
+
+    with pytest.raises(AssertionError, match="band_profile"):  # the trap holds in copies too
+        shared_figures.band_profile(None, [0.0])
+    calls.clear()
+    shutil.rmtree(run / FILES_DIR)
+    (run / "report.html").unlink()
+    build_report(run)
+    assert calls == []
+    assert _without_build_time(_html(run)) == before_html
+    after_files = {p.name: p.read_bytes() for p in (run / FILES_DIR).iterdir()}
+    assert sorted(after_files) == sorted(before_files)
+    for name, data in before_files.items():
+        if name != "report.json":  # holds nothing time-dependent, but compare it as JSON
+            assert after_files[name] == data, name
+    assert json.loads(after_files["report.json"]) == json.loads(before_files["report.json"])
+
+
+def test_report_imports_no_search_engine_storage_or_optuna(demo_dir):
+    """In a fresh process, building the report loads neither Optuna nor the search engine."""
+    code = (
+        "import sys, shutil, tempfile, pathlib;"
+        "from wellwright.optimize.report.build import build_report;"
+        f"src = pathlib.Path({str(demo_dir)!r});"
+        "dst = pathlib.Path(tempfile.mkdtemp()) / 'run'; shutil.copytree(src, dst);"
+        "build_report(dst);"
+        "bad = [m for m in sys.modules if m == 'optuna' or m.startswith(("
+        "'optuna.', 'wellwright.optimize.search.engine', 'wellwright.optimize.search.storage',"
+        "'wellwright.optimize.search.designs', 'sqlalchemy'))];"
+        "shutil.rmtree(dst.parent); print(bad)"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
+
+
+@pytest.mark.parametrize(
+    "missing",
+    [
+        "search/trials.csv",
+        "tolerance/rank01/design/design.json",
+        "tolerance/rank02/design/band_diagram.png",
+    ],
+)
+def test_report_of_a_folder_missing_a_stage_record_is_one_line(demo_dir, tmp_path, missing, capsys):
+    """A folder from before the stages wrote the report's records (or with a file removed):
+    one line naming the file and saying to rerun, exit status 2, nothing written
+    (the project's rule for bad input)."""
+    run = tmp_path / "run"
+    shutil.copytree(demo_dir, run)
+    (run / missing).unlink()
+    shutil.rmtree(run / FILES_DIR)
+    (run / "report.html").unlink(missing_ok=True)
+    capsys.readouterr()
+    assert main(["report", str(run)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1
+    assert missing.split("/")[-1] in err[0] and "rerun 'wellwright run'" in err[0]
+    assert not (run / "report.html").exists() and not (run / FILES_DIR).exists()

@@ -270,6 +270,15 @@ def test_outputs_single_objective(write_study, tmp_path):
         and rows[4].split(",")[2] == "In0.53Ga0.47As"
     )
     assert _png_has_drawing(out / "history.png") and _png_has_drawing(out / "importances.png")
+    # the history as a plain record (what the report draws from, issue 16)
+    from wellwright.optimize.search.history import read_trials
+
+    points = {p["trial"]: p for p in read_trials(out / "trials.csv", study)}
+    assert len(points) == r.n_complete
+    assert sum(p["feasible"] for p in points.values()) == r.n_feasible
+    for d in designs:
+        assert points[d["trial"]]["values"] == [d["score"]]  # written with repr: exact
+        assert points[d["trial"]]["params"] == pytest.approx(d["params"])
     imp = json.loads((out / "importances.json").read_text())["score"]
     assert set(imp) == {"barrier1.thickness_ml", "well.thickness_ml"}
     if "best_iv" in r.files:  # the lead's wellwright.optimize.shared.figures is wired

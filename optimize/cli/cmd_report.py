@@ -10,7 +10,8 @@ def register(sub: argparse._SubParsersAction) -> None:
         "report",
         help="(re)build DIR/report.html from a finished 'wellwright run'",
         description="Rebuild the self-contained HTML report, its PNG figures and CSV/JSON tables "
-        "from the files of a finished run folder (search and tolerance are not recomputed).",
+        "from the files of a finished run folder (no physics is rerun and the search storage is "
+        "not opened; a folder missing a stage's file is told to rerun 'wellwright run').",
     )
     p.add_argument("dir", metavar="DIR", help="run folder made by 'wellwright run' or 'demo'")
     p.set_defaults(func=run)

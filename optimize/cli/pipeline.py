@@ -4,12 +4,14 @@ A run folder ``DIR`` holds::
 
     DIR/pipeline.json        stage status, settings and fingerprints (this module)
     DIR/study.toml           the study file as it was when the run started
-    DIR/search/              the design search (designs.json, study.db, figures)
-    DIR/tolerance/rankNN/    the tolerance analysis of each reported design
+    DIR/search/              the design search (designs.json, trials.csv, study.db, figures)
+    DIR/tolerance/rankNN/    the tolerance analysis of each reported design; its design/
+                             folder holds the nominal I-V, band diagram and T(E)
     DIR/report.html          the report, with DIR/report_files/ beside it
 
 Stages meet only through their files (plain records: ``designs.json``,
-``tolerance.json``). Each stage records a fingerprint of what it depends on
+``trials.csv``, ``tolerance.json``, ``design/design.json``); the report reads
+these and runs no physics and opens no Optuna storage. Each stage records a fingerprint of what it depends on
 (the study file's bytes and the stage's own settings); rerunning skips a
 stage whose fingerprint is unchanged and whose outputs exist, and reruns it
 and everything after it otherwise. The search resumes from its Optuna storage
@@ -26,6 +28,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from wellwright.optimize.search.history import TRIALS_FILE
 from wellwright.optimize.shared import names
 from wellwright.optimize.shared.outputs import (
     atomic_write,
@@ -35,6 +38,9 @@ from wellwright.optimize.shared.outputs import (
 )
 from wellwright.optimize.study import run_folder
 from wellwright.optimize.study.run_folder import (
+    DESIGN_DIR,
+    DESIGN_IV,
+    DESIGN_RECORD,
     FORMAT_VERSION,
     PIPELINE_FILE,
     STUDY_COPY,
@@ -153,6 +159,39 @@ def tolerance_of_design(
         out_dir=out_dir,
         design={"rank": design["rank"], "trial": design["trial"], "params": design["params"]},
     )
+
+
+def write_design_files(study: Study, design: dict[str, Any], out_dir: Path) -> dict[str, Any]:
+    """The nominal I-V, band diagram and T(E) of one design record, for the report.
+
+    Writes ``out_dir/iv.csv``, ``iv.png``, ``band_diagram.png``,
+    ``transmission.png`` and ``design.json`` (last, so that its presence means
+    the folder is complete); returns the ``design.json`` record. The sweep is
+    the study's, as in the search.
+    """
+    from wellwright.optimize.shared.figures import iv_figures
+    from wellwright.optimize.shared.model_text import model_label
+    from wellwright.optimize.shared.outputs import write_csv
+    from wellwright.physics.iv import stack_iv
+
+    stack = study.stack(design["params"])
+    curves = stack_iv(stack, study.sweep.bias_v)
+    write_csv(
+        out_dir / DESIGN_IV,
+        ["bias_v", "current_density_a_cm2"],
+        zip(curves.bias_v.tolist(), curves.current_density_a_cm2[0].tolist(), strict=True),
+    )
+    figures = iv_figures(stack, curves, out_dir, label=f"rank {design['rank']}")
+    record = {
+        "rank": design["rank"],
+        "trial": design["trial"],
+        "params": design["params"],
+        "model": model_label(stack),
+        "metrics": curves.metrics_of(0),
+        "figures": {k: Path(v).name for k, v in figures.items()},
+    }
+    write_json(out_dir / DESIGN_RECORD, record)
+    return record
 
 
 def _stage_fingerprints(study_bytes: bytes, s: RunSettings, designs: list[dict] | None) -> dict:
@@ -318,6 +357,7 @@ def run_pipeline(
         prev.get("status") == "done"
         and prev.get("fingerprint") == fp["search"]
         and (run_dir / "search" / "designs.json").is_file()
+        and (run_dir / "search" / TRIALS_FILE).is_file()  # absent in folders before it existed
     )
     if done:
         _log(progress, "search: done earlier, skipped")
@@ -360,7 +400,12 @@ def run_pipeline(
             and prev.get("fingerprint") == f
             and (out / "tolerance.json").is_file()
         ):
-            _log(progress, f"tolerance {key}: done earlier, skipped")
+            if (out / DESIGN_DIR / DESIGN_RECORD).is_file():
+                _log(progress, f"tolerance {key}: done earlier, skipped")
+            else:  # a folder from before the design files existed: add them only
+                _log(progress, f"tolerance {key}: done earlier; writing the design's curves")
+                write_design_files(study, d, out / DESIGN_DIR)
+                stages.pop("report", None)
             continue
         _log(progress, f"tolerance {key} (trial {d['trial']}): {s.method}, {s.samples} samples")
         tol[key] = {"status": "running", "fingerprint": f}
@@ -368,6 +413,7 @@ def run_pipeline(
         stages.pop("report", None)
         _save(run_dir, record)
         rec = tolerance_of_design(study, d, s, out, progress=progress)
+        write_design_files(study, d, out / DESIGN_DIR)
         tol[key] = {
             "status": "done",
             "fingerprint": f,

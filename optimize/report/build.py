@@ -1,8 +1,10 @@
 """The run report: one self-contained HTML file with figures and tables beside it.
 
-:func:`build_report` reads a finished run folder (see :mod:`wellwright.optimize.cli.pipeline`)
-and writes ``DIR/report.html`` (inline CSS, figures embedded as base64 PNG, no
-scripts, no external resources: it opens from disk with no network) and
+:func:`build_report` reads the finished files of a run folder (see
+:mod:`wellwright.optimize.cli.pipeline`; it runs no physics and opens no Optuna
+storage: the stages wrote the records and figures it needs) and writes
+``DIR/report.html`` (inline CSS, figures embedded as base64 PNG, no scripts, no
+external resources: it opens from disk with no network) and
 ``DIR/report_files/`` holding the same figures as PNG and the tables as CSV,
 with ``report.json`` gathering every table of the report.
 
@@ -17,6 +19,7 @@ tolerance allocation); the model and its limits; reproducing the run.
 from __future__ import annotations
 
 import base64
+import csv
 import html
 import json
 import platform
@@ -25,6 +28,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+from wellwright.optimize.search.history import TRIALS_FILE, read_trials
 from wellwright.optimize.shared import names
 from wellwright.optimize.shared.model_text import model_assumptions, model_label
 from wellwright.optimize.shared.outputs import (
@@ -34,7 +38,13 @@ from wellwright.optimize.shared.outputs import (
     write_csv,
     write_json,
 )
-from wellwright.optimize.study.run_folder import load_run, study_from_run
+from wellwright.optimize.study.run_folder import (
+    DESIGN_DIR,
+    DESIGN_FIGURES,
+    DESIGN_RECORD,
+    load_run,
+    study_from_run,
+)
 from wellwright.optimize.study.study import Study
 from wellwright.physics.errors import InputError
 
@@ -115,6 +125,33 @@ def versions() -> dict[str, str]:
         except PackageNotFoundError:
             out[name] = "not installed"
     out["Python"] = platform.python_version()
+    return out
+
+
+RERUN = (
+    "missing: the run folder was made before every stage wrote the report's records (or a "
+    "file was removed); rerun 'wellwright run' on the same study and folder (finished stages "
+    "are reused)"
+)
+
+
+def _read_text(path: Path) -> str:
+    """A finished file of the run folder; one line naming it and what to do when absent."""
+    try:
+        return path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError(RERUN, source=str(path)) from None
+    except OSError as exc:
+        raise InputError(f"unreadable ({exc.strerror})", source=str(path)) from None
+
+
+def _needed_files(run_dir: Path, reported: list[dict], tol_dirs: list[Path]) -> list[Path]:
+    """Every finished file the report reads: checked before anything is written."""
+    out = [run_dir / "search" / "designs.json", run_dir / "search" / TRIALS_FILE]
+    for tdir in tol_dirs:
+        out.append(tdir / "tolerance.json")
+        out += [tdir / DESIGN_DIR / f for f in (DESIGN_RECORD, *DESIGN_FIGURES)]
+    out += [_sheet_path(run_dir, d) for d in reported if d.get("layers") is not None]
     return out
 
 
@@ -341,18 +378,20 @@ def _device_table(designs: list[dict], reported: int) -> str:
     )
 
 
-def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[str, dict]:
-    from wellwright.optimize.search.designs import GROWTH_SHEET_HEADER, growth_sheet_rows
-    from wellwright.optimize.shared.figures import (
-        band_diagram_figure,
-        iv_figure,
-        transmission_figure,
-    )
-    from wellwright.physics.iv import stack_iv
+def _sheet_path(run_dir: Path, d: dict) -> Path:
+    return run_dir / "search" / "growth_sheets" / f"rank{d['rank']:02d}_trial{d['trial']:05d}.csv"
 
+
+def _design_card(
+    d: dict, figs: _Figures, files: Path, run_dir: Path, design_dir: Path
+) -> tuple[str, dict]:
     tag = f"rank{d['rank']:02d}"
-    sheet = growth_sheet_rows(d)
-    write_csv(files / f"growth_sheet_{tag}.csv", GROWTH_SHEET_HEADER, sheet)
+    sheet: list[list[Any]] = []
+    path = _sheet_path(run_dir, d)
+    if path.is_file():  # the growth sheet as the search wrote it (none when its stack failed)
+        head, *lines = csv.reader(_read_text(path).splitlines())
+        sheet = [[int(r[0]), *r[1:]] for r in lines]
+        write_csv(files / f"growth_sheet_{tag}.csv", head, sheet)
     rows = []
     for r in sheet:
         layer, name, label, x, ml, nm, dop, note = r
@@ -369,23 +408,10 @@ def _design_card(study: Study, d: dict, figs: _Figures, files: Path) -> tuple[st
                 _esc(note),
             ]
         )
-    stack = study.stack(d["params"])
-    curves = stack_iv(stack, study.sweep.bias_v)
-    m = curves.metrics_of(0)
-    vp = m["peak_voltage_v"] if m["peak_voltage_v"] is not None else float(curves.bias_v[-1]) / 2
-    figs.add_figure(
-        iv_figure(curves, title=f"rank {d['rank']}: I-V ({model_label(stack)})"), f"{tag}_iv.png"
-    )
-    figs.add_figure(
-        band_diagram_figure(
-            stack, vp, title=f"rank {d['rank']}: conduction band at the peak, {vp * 1e3:.0f} mV"
-        ),
-        f"{tag}_band.png",
-    )
-    figs.add_figure(
-        transmission_figure(stack, [0.0, vp], title=f"rank {d['rank']}: transmission"),
-        f"{tag}_transmission.png",
-    )
+    # the nominal curves and figures, written by the stage that computed them
+    m = json.loads(_read_text(design_dir / DESIGN_RECORD))["metrics"]
+    for src, name in zip(DESIGN_FIGURES, ("iv", "band", "transmission"), strict=True):
+        figs.add_file(design_dir / src, f"{tag}_{name}.png")
     status = (
         '<span class="ok">meets the spec</span>'
         if d["feasible"]
@@ -678,32 +704,14 @@ def _growth(
     return "".join(body), out
 
 
-def _search_figures(study: Study, search: dict, figs: _Figures, run_dir: Path) -> str:
-    import optuna
+def _search_figures(study: Study, points: list[dict[str, Any]], figs: _Figures) -> str:
+    """History and Pareto front, drawn from the search's ``trials.csv``."""
     from wellwright.optimize.search import figures as search_figures
 
     body = []
-    try:
-        optuna.logging.set_verbosity(optuna.logging.WARNING)
-        ostudy = optuna.load_study(study_name=search["study_name"], storage=search["storage"])
-        trials = [
-            t
-            for t in ostudy.get_trials(deepcopy=False)
-            if t.state == optuna.trial.TrialState.COMPLETE
-        ]
-    except Exception as exc:  # noqa: BLE001 - storage moved or server down: use saved figures
-        trials = []
-        body.append(
-            f'<p class="small">Storage not reachable ({_esc(type(exc).__name__)}); '
-            "figures from the search folder.</p>"
-        )
-    if trials:
-        figs.add_figure(search_figures.history_figure(study, trials), "history.png")
-        if study.multi_objective:
-            figs.add_figure(search_figures.pareto_figure(study, trials), "pareto.png")
-    else:
-        figs.add_file(run_dir / "search" / "history.png", "history.png")
-        figs.add_file(run_dir / "search" / "pareto.png", "pareto.png")
+    figs.add_figure(search_figures.history_figure(study, points), "history.png")
+    if study.multi_objective:
+        figs.add_figure(search_figures.pareto_figure(study, points), "pareto.png")
     body.append(
         figs.html(
             "history.png",
@@ -766,10 +774,14 @@ def build_report(run_dir: str | Path) -> Path:
     if not done:
         raise InputError("no finished tolerance stage; rerun 'wellwright run'", source=str(run_dir))
     study = study_from_run(run_dir, record)
-    designs = json.loads((run_dir / "search" / "designs.json").read_text(encoding="utf-8"))
+    designs = json.loads(_read_text(run_dir / "search" / "designs.json"))
     tol_dirs = [run_dir / tol[k]["dir"] for k in done]
-    records = [json.loads((d / "tolerance.json").read_text(encoding="utf-8")) for d in tol_dirs]
     reported = [d for d in designs if f"rank{d['rank']:02d}" in done]
+    for path in _needed_files(run_dir, reported, tol_dirs):
+        if not path.is_file():
+            raise InputError(RERUN, source=str(path))
+    records = [json.loads(_read_text(d / "tolerance.json")) for d in tol_dirs]
+    points = read_trials(run_dir / "search" / TRIALS_FILE, study)
     files = run_dir / FILES_DIR
     figs = _Figures(files)
     search = stages["search"]
@@ -781,7 +793,8 @@ def build_report(run_dir: str | Path) -> Path:
     figs.names.remove("designs_ranked.csv")
     cards, card_data = [], []
     for d in reported:
-        h, data = _design_card(study, d, figs, files)
+        tdir = run_dir / tol[f"rank{d['rank']:02d}"]["dir"]
+        h, data = _design_card(d, figs, files, run_dir, tdir / DESIGN_DIR)
         cards.append(h)
         card_data.append(data)
     growth_html, growth_data = _growth(records, figs, files, run_dir, tol_dirs)
@@ -807,7 +820,7 @@ def build_report(run_dir: str | Path) -> Path:
     section_body = {
         "brief": brief_html,
         "candidates": _candidates(study, designs, len(reported), search),
-        "search": _search_figures(study, search, figs, run_dir),
+        "search": _search_figures(study, points, figs),
         "designs": "".join(cards),
         "growth": growth_html,
         "model": _calibration_note(study)

@@ -393,8 +393,10 @@ def parameter_importances(
 def write_outputs(
     study: Study, ostudy: optuna.Study, result: SearchResult, complete: list[FrozenTrial]
 ) -> None:
-    """Write designs.csv/json, growth sheets, history/Pareto/importance figures and the best I-V."""
+    """Write designs.csv/json, growth sheets, trials.csv, history/Pareto/importance figures
+    and the best I-V."""
     from wellwright.optimize.search import figures as search_figures
+    from wellwright.optimize.search.history import TRIALS_FILE, trial_points, write_trials
     from wellwright.optimize.shared.outputs import write_csv, write_json
 
     out = result.out_dir
@@ -420,10 +422,13 @@ def write_outputs(
                 old.unlink()
     files["growth_sheets"] = str(sheets)
 
-    if complete:
-        files["history"] = str(search_figures.save_history(study, complete, out / "history.png"))
+    # the history as a plain record: the report draws it from here, not from the storage
+    points = trial_points(complete)
+    files["trials_csv"] = str(write_trials(out / TRIALS_FILE, study, points))
+    if points:
+        files["history"] = str(search_figures.save_history(study, points, out / "history.png"))
         if study.multi_objective:
-            files["pareto"] = str(search_figures.save_pareto(study, complete, out / "pareto.png"))
+            files["pareto"] = str(search_figures.save_pareto(study, points, out / "pareto.png"))
     importances = parameter_importances(study, ostudy, complete)
     files["importances_json"] = str(write_json(out / "importances.json", importances))
     plotted = {k: v for k, v in importances.items() if isinstance(v, dict) and "note" not in v}

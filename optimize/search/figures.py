@@ -1,5 +1,9 @@
 """Figures of a design search: optimisation history, Pareto front, parameter importances.
 
+The history and the Pareto front are drawn from plain trial records
+(:func:`wellwright.optimize.search.history.trial_points`, the rows of
+``search/trials.csv``), so the report draws them without the Optuna storage.
+
 Colours are the Okabe-Ito colour-blind-safe palette (M. Okabe and K. Ito,
 "Color Universal Design", 2002); figures of merit are drawn in the trade's
 units (kA/cm^2, mV).
@@ -10,10 +14,10 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 from matplotlib.figure import Figure
-from optuna.trial import FrozenTrial
 from wellwright.optimize.shared import names
 from wellwright.optimize.shared.figures import PALETTE
 from wellwright.optimize.shared.outputs import save_figure
@@ -42,15 +46,19 @@ def _best_so_far(values: np.ndarray, maximize: bool) -> np.ndarray:
     return np.maximum.accumulate(values) if maximize else np.minimum.accumulate(values)
 
 
-def history_figure(study: Study, trials: Sequence[FrozenTrial]) -> Figure:
-    """Score (or each objective) per trial with the best so far."""
-    trials = sorted(trials, key=lambda t: t.number)
-    number = np.array([t.number for t in trials])
-    feasible = np.array([bool(t.user_attrs.get("feasible")) for t in trials])
+def history_figure(study: Study, trials: Sequence[dict[str, Any]]) -> Figure:
+    """Score (or each objective) per trial with the best so far.
+
+    ``trials``: plain records ``{"trial", "feasible", "values"}`` of the complete
+    trials (:func:`wellwright.optimize.search.history.trial_points`).
+    """
+    trials = sorted(trials, key=lambda t: t["trial"])
+    number = np.array([t["trial"] for t in trials])
+    feasible = np.array([bool(t["feasible"]) for t in trials])
     if not study.multi_objective:
         fig = Figure(figsize=(7.0, 4.2))
         ax = fig.add_subplot()
-        score = np.array([t.value for t in trials], float)
+        score = np.array([t["values"][0] for t in trials], float)
         ax.plot(
             number[~feasible],
             score[~feasible],
@@ -91,7 +99,7 @@ def history_figure(study: Study, trials: Sequence[FrozenTrial]) -> Figure:
     for i, o in enumerate(study.objectives):
         ax = fig.add_subplot(n, 1, i + 1)
         label, factor = metric_axis(o.metric)
-        v = np.array([t.values[i] for t in trials], float) * factor
+        v = np.array([t["values"][i] for t in trials], float) * factor
         ok = feasible & np.isfinite(v)
         ax.plot(number[ok], v[ok], "o", color=OKABE_ITO["blue"], ms=4, label="meets spec")
         if ok.any():
@@ -129,20 +137,17 @@ def _front_mask(x: np.ndarray, y: np.ndarray, max_x: bool, max_y: bool) -> np.nd
     return ~dominated
 
 
-def pareto_figure(study: Study, trials: Sequence[FrozenTrial]) -> Figure:
-    """The first two objectives of the designs that meet the spec, the Pareto front marked."""
+def pareto_figure(study: Study, trials: Sequence[dict[str, Any]]) -> Figure:
+    """The first two objectives of the designs that meet the spec, the Pareto front marked
+    (``trials`` as in :func:`history_figure`)."""
     o1, o2 = study.objectives[:2]
     (l1, f1), (l2, f2) = metric_axis(o1.metric), metric_axis(o2.metric)
-    ok = [
-        t
-        for t in trials
-        if t.user_attrs.get("feasible") and all(math.isfinite(v) for v in t.values[:2])
-    ]
+    ok = [t for t in trials if t["feasible"] and all(math.isfinite(v) for v in t["values"][:2])]
     fig = Figure(figsize=(6.4, 4.8))
     ax = fig.add_subplot()
     if ok:
-        x = np.array([t.values[0] for t in ok]) * f1
-        y = np.array([t.values[1] for t in ok]) * f2
+        x = np.array([t["values"][0] for t in ok]) * f1
+        y = np.array([t["values"][1] for t in ok]) * f2
         front = _front_mask(x, y, o1.direction == "maximize", o2.direction == "maximize")
         ax.plot(x[~front], y[~front], "o", color=OKABE_ITO["sky"], ms=5, label="meets spec")
         order = np.argsort(x[front])
@@ -201,11 +206,11 @@ def importances_figure(importances: dict[str, dict[str, float]]) -> Figure:
     return fig
 
 
-def save_history(study: Study, trials: Sequence[FrozenTrial], path: str | Path) -> Path:
+def save_history(study: Study, trials: Sequence[dict[str, Any]], path: str | Path) -> Path:
     return save_figure(history_figure(study, trials), path)
 
 
-def save_pareto(study: Study, trials: Sequence[FrozenTrial], path: str | Path) -> Path:
+def save_pareto(study: Study, trials: Sequence[dict[str, Any]], path: str | Path) -> Path:
     return save_figure(pareto_figure(study, trials), path)
 
 

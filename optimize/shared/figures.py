@@ -289,9 +289,12 @@ def transmission_figure(stack: Stack, biases_v: list[float], *, title: str = "")
 
 
 def iv_figures(
-    stack: Stack, curves: IVCurves, out_dir, *, i: int = 0, prefix: str = ""
+    stack: Stack, curves: IVCurves, out_dir, *, i: int = 0, prefix: str = "", label: str = ""
 ) -> dict[str, str]:
-    """Write the three standard figures of one design; returns ``{name: path}``."""
+    """Write the three standard figures of one design; returns ``{name: path}``.
+
+    ``prefix`` starts the file names; ``label`` (e.g. "rank 1") starts the titles.
+    """
     from pathlib import Path
 
     from wellwright.optimize.shared.outputs import save_figure
@@ -299,15 +302,22 @@ def iv_figures(
     out = Path(out_dir)
     m = curves.metrics_of(i)
     peak = m["peak_voltage_v"] if m["peak_voltage_v"] is not None else float(curves.bias_v[-1]) / 2
+    head = f"{label}: " if label else ""
     paths = {
         "iv": save_figure(
-            iv_figure(curves, i, title=f"I-V ({model_label(stack)})"), out / f"{prefix}iv.png"
+            iv_figure(curves, i, title=f"{head}I-V ({model_label(stack)})"), out / f"{prefix}iv.png"
         ),
         "band_diagram": save_figure(
-            band_diagram_figure(stack, peak), out / f"{prefix}band_diagram.png"
+            band_diagram_figure(
+                stack,
+                peak,
+                title=f"{head}conduction band at the peak, {peak * 1e3:.0f} mV" if label else "",
+            ),
+            out / f"{prefix}band_diagram.png",
         ),
         "transmission": save_figure(
-            transmission_figure(stack, [0.0, peak]), out / f"{prefix}transmission.png"
+            transmission_figure(stack, [0.0, peak], title=f"{head}transmission" if label else ""),
+            out / f"{prefix}transmission.png",
         ),
     }
     return {k: str(v) for k, v in paths.items()}

@@ -18,6 +18,14 @@ from wellwright.physics.stack import parse_toml
 PIPELINE_FILE = "pipeline.json"
 STUDY_COPY = "study.toml"
 FORMAT_VERSION = 1
+#: Inside ``tolerance/rankNN/``: the nominal design's curves and figures, written by the
+#: stage that computes them and copied into the report (which runs no physics).
+DESIGN_DIR = "design"
+#: Inside :data:`DESIGN_DIR`: rank, trial, parameters, model and figures of merit (JSON);
+#: the I-V (CSV); the three figures (PNG).
+DESIGN_RECORD = "design.json"
+DESIGN_IV = "iv.csv"
+DESIGN_FIGURES = ("iv.png", "band_diagram.png", "transmission.png")
 
 
 def package_version() -> str:
