@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import tomllib
 import warnings
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -342,57 +342,8 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
         key="temperature_k",
     )
 
-    model = ModelOptions(**_table(data.get("model", {}), MODEL_KEYS, source=source, name="model"))
-    if model.electrostatics not in ELECTROSTATICS_MODELS:
-        raise InputError(
-            f"'{model.electrostatics}' is not one of {', '.join(ELECTROSTATICS_MODELS)}",
-            source=source,
-            key="model.electrostatics",
-        )
-    if model.electrostatics != "linear" and not _ELECTROSTATICS_AVAILABLE:
-        raise InputError(
-            "only 'linear' is available in this version", source=source, key="model.electrostatics"
-        )
-    if not 0.0 <= model.broadening_mev <= 100.0:
-        raise InputError(
-            f"{model.broadening_mev:g} outside [0, 100] meV",
-            source=source,
-            key="model.broadening_mev",
-        )
-    if model.transport not in TRANSPORT_MODELS:
-        raise InputError(
-            f"'{model.transport}' is not one of {', '.join(TRANSPORT_MODELS)}",
-            source=source,
-            key="model.transport",
-        )
-    for key, (lo, hi) in {
-        "roughness_height_nm": (0.0, 2.0),
-        "roughness_length_nm": (0.5, 50.0),
-    }.items():
-        if not lo <= getattr(model, key) <= hi:
-            raise InputError(
-                f"{getattr(model, key):g} outside [{lo:g}, {hi:g}] nm",
-                source=source,
-                key=f"model.{key}",
-            )
-    if not 0.01 <= model.slice_nm <= 2.0:
-        raise InputError(
-            f"{model.slice_nm:g} outside [0.01, 2] nm", source=source, key="model.slice_nm"
-        )
-
-    device = DeviceOptions(
-        **_table(data.get("device", {}), DEVICE_KEYS, source=source, name="device")
-    )
-    if device.area_um2 is not None and not 0.0 < device.area_um2 <= 1e8:
-        raise InputError(
-            f"{device.area_um2:g} outside (0, 1e8] um^2", source=source, key="device.area_um2"
-        )
-    if not 0.0 <= device.series_resistance_ohm_um2 <= 1e6:
-        raise InputError(
-            f"{device.series_resistance_ohm_um2:g} outside [0, 1e6] ohm um^2",
-            source=source,
-            key="device.series_resistance_ohm_um2",
-        )
+    model = _parse_model(data.get("model", {}), source=source)
+    device = _parse_device(data.get("device", {}), source=source)
 
     raw_layers = data.get("layers")
     if not isinstance(raw_layers, list) or not all(isinstance(x, dict) for x in raw_layers):
@@ -404,22 +355,7 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
             key="layers",
         )
 
-    substrate = data.get("substrate")
-    if substrate is not None:
-        substrate = _typed(substrate, str, source=source, key="substrate")
-        try:
-            sub_name, sub_x = materials.parse_material(substrate)
-        except ValueError as exc:
-            raise InputError(str(exc), source=source, key="substrate") from None
-    else:
-        first = raw_layers[0]
-        if first.get("material", "custom") == "custom":
-            sub_name, sub_x = None, None
-        else:
-            try:
-                sub_name, sub_x = materials.parse_material(str(first["material"]), first.get("x"))
-            except (ValueError, TypeError, OverflowError):
-                sub_name, sub_x = None, None  # the layer check below reports it
+    sub_name, sub_x = _substrate(data.get("substrate"), raw_layers[0], source=source)
     substrate_lattice_nm = (
         None
         if sub_name is None
@@ -459,6 +395,228 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
     )
 
 
+def _parse_model(raw: Any, *, source: str) -> ModelOptions:
+    """The ``[model]`` table, type- and range-checked."""
+    model = ModelOptions(**_table(raw, MODEL_KEYS, source=source, name="model"))
+    if model.electrostatics not in ELECTROSTATICS_MODELS:
+        raise InputError(
+            f"'{model.electrostatics}' is not one of {', '.join(ELECTROSTATICS_MODELS)}",
+            source=source,
+            key="model.electrostatics",
+        )
+    if model.electrostatics != "linear" and not _ELECTROSTATICS_AVAILABLE:
+        raise InputError(
+            "only 'linear' is available in this version", source=source, key="model.electrostatics"
+        )
+    if not 0.0 <= model.broadening_mev <= 100.0:
+        raise InputError(
+            f"{model.broadening_mev:g} outside [0, 100] meV",
+            source=source,
+            key="model.broadening_mev",
+        )
+    if model.transport not in TRANSPORT_MODELS:
+        raise InputError(
+            f"'{model.transport}' is not one of {', '.join(TRANSPORT_MODELS)}",
+            source=source,
+            key="model.transport",
+        )
+    for key, (lo, hi) in {
+        "roughness_height_nm": (0.0, 2.0),
+        "roughness_length_nm": (0.5, 50.0),
+    }.items():
+        if not lo <= getattr(model, key) <= hi:
+            raise InputError(
+                f"{getattr(model, key):g} outside [{lo:g}, {hi:g}] nm",
+                source=source,
+                key=f"model.{key}",
+            )
+    if not 0.01 <= model.slice_nm <= 2.0:
+        raise InputError(
+            f"{model.slice_nm:g} outside [0.01, 2] nm", source=source, key="model.slice_nm"
+        )
+    return model
+
+
+def _parse_device(raw: Any, *, source: str) -> DeviceOptions:
+    """The ``[device]`` table, type- and range-checked."""
+    device = DeviceOptions(**_table(raw, DEVICE_KEYS, source=source, name="device"))
+    if device.area_um2 is not None and not 0.0 < device.area_um2 <= 1e8:
+        raise InputError(
+            f"{device.area_um2:g} outside (0, 1e8] um^2", source=source, key="device.area_um2"
+        )
+    if not 0.0 <= device.series_resistance_ohm_um2 <= 1e6:
+        raise InputError(
+            f"{device.series_resistance_ohm_um2:g} outside [0, 1e6] ohm um^2",
+            source=source,
+            key="device.series_resistance_ohm_um2",
+        )
+    return device
+
+
+def _substrate(
+    substrate: Any, first: dict[str, Any], *, source: str
+) -> tuple[str | None, float | None]:
+    """``(name, x)`` of the substrate: the ``substrate`` key, else the emitter's material
+    (``(None, None)`` for a custom emitter; a bad emitter is reported by the layer check)."""
+    if substrate is not None:
+        substrate = _typed(substrate, str, source=source, key="substrate")
+        try:
+            return materials.parse_material(substrate)
+        except ValueError as exc:
+            raise InputError(str(exc), source=source, key="substrate") from None
+    if first.get("material", "custom") == "custom":
+        return None, None
+    try:
+        return materials.parse_material(str(first["material"]), first.get("x"))
+    except (ValueError, TypeError, OverflowError):
+        return None, None  # the layer check reports it
+
+
+@dataclass(frozen=True)
+class _LayerMaterial:
+    """A layer's band parameters: the material table's, or a custom material's, with the
+    layer's own overrides."""
+
+    material: str
+    x: float | None
+    edge: float
+    mass: float
+    alpha: float
+    monolayer: float | None
+    permittivity: float
+    strain_xx: float
+    valleys: tuple[float | None, float | None]
+    phonon: dict[str, float]  #: empty: the Layer's GaAs defaults
+
+    def check_ranges(self, err: Callable[..., InputError]) -> None:
+        if not 0.001 <= self.mass <= 10.0:
+            raise err(f"{self.mass:g} outside [0.001, 10]", "mass_m0")
+        if not 0.0 <= self.alpha <= 50.0:
+            raise err(f"{self.alpha:g} outside [0, 50] 1/eV", "nonparabolicity_per_ev")
+        if not -20.0 <= self.edge <= 20.0:
+            raise err(f"{self.edge:g} outside [-20, 20] eV", "conduction_band_ev")
+        if self.monolayer is not None and not 0.05 <= self.monolayer <= 2.0:
+            raise err(f"{self.monolayer:g} outside [0.05, 2] nm", "monolayer_nm")
+        if not 1.0 <= self.permittivity <= 100.0:
+            raise err(f"{self.permittivity:g} outside [1, 100]", "permittivity_r")
+
+
+def _custom_material(values: dict[str, Any], err: Callable[..., InputError]) -> _LayerMaterial:
+    for key in CUSTOM_REQUIRED:
+        if key not in values:
+            raise err("missing; a custom material needs conduction_band_ev and mass_m0", key)
+    if "x" in values:
+        raise err("a custom material takes no composition", "x")
+    return _LayerMaterial(
+        material="custom",
+        x=None,
+        edge=values["conduction_band_ev"],
+        mass=values["mass_m0"],
+        alpha=values.get("nonparabolicity_per_ev", 0.0),
+        monolayer=values.get("monolayer_nm"),
+        permittivity=values.get("permittivity_r", 12.9),  # GaAs-like default, see docs
+        strain_xx=0.0,
+        valleys=(None, None),
+        phonon={},
+    )
+
+
+def _table_material(
+    values: dict[str, Any],
+    err: Callable[..., InputError],
+    *,
+    temperature_k: float,
+    substrate_lattice_nm: float | None,
+    strain: bool,
+) -> _LayerMaterial:
+    if "x" in values and not 0.0 <= values["x"] <= 1.0:
+        raise err(f"{values['x']:g} outside [0, 1]", "x")
+    try:
+        material, x = materials.parse_material(values["material"], values.get("x"))
+    except ValueError as exc:
+        raise err(
+            str(exc), "x" if "x" in values and "allowed range" in str(exc) else "material"
+        ) from None
+    params = materials.material_parameters(
+        material,
+        x,
+        temperature_k=temperature_k,
+        substrate_lattice_nm=substrate_lattice_nm,
+        strain=strain,
+    )
+    return _LayerMaterial(
+        material=material,
+        x=x,
+        edge=values.get("conduction_band_ev", float(params.conduction_band_ev)),
+        mass=values.get("mass_m0", float(params.mass_m0)),
+        alpha=values.get("nonparabolicity_per_ev", float(params.nonparabolicity_per_ev)),
+        monolayer=values.get("monolayer_nm", float(params.monolayer_nm)),
+        permittivity=values.get("permittivity_r", float(params.permittivity_r)),
+        strain_xx=float(params.strain_xx),
+        valleys=(float(params.x_valley_ev), float(params.l_valley_ev)),
+        phonon={
+            "lo_phonon_ev": float(params.lo_phonon_ev),
+            "permittivity_high_r": float(params.permittivity_high_r),
+        },
+    )
+
+
+def _thickness(
+    values: dict[str, Any],
+    monolayer: float | None,
+    *,
+    is_contact: bool,
+    err: Callable[..., InputError],
+) -> tuple[float, float | None]:
+    """``(thickness_nm, thickness_ml)`` from exactly one of the two keys (contacts: none)."""
+    has_ml, has_nm = "thickness_ml" in values, "thickness_nm" in values
+    if has_ml and has_nm:
+        raise err("give exactly one of thickness_ml and thickness_nm, not both", "thickness_nm")
+    if not is_contact and not (has_ml or has_nm):
+        raise err("missing; give thickness_ml or thickness_nm", "thickness_ml")
+    thickness_ml = None
+    thickness_nm = 0.0
+    if has_ml:
+        if monolayer is None:
+            raise err("thickness_ml needs monolayer_nm for a custom material", "thickness_ml")
+        thickness_ml = values["thickness_ml"]
+        max_ml = MAX_THICKNESS_NM / monolayer
+        if not 0.0 < thickness_ml <= max_ml:
+            raise err(f"{thickness_ml:g} outside (0, {max_ml:.0f}] monolayers", "thickness_ml")
+        thickness_nm = thickness_ml * monolayer
+    elif has_nm:
+        thickness_nm = values["thickness_nm"]
+        if not 0.0 < thickness_nm <= MAX_THICKNESS_NM:
+            raise err(f"{thickness_nm:g} outside (0, {MAX_THICKNESS_NM:g}] nm", "thickness_nm")
+        if monolayer is not None:
+            thickness_ml = thickness_nm / monolayer
+    return thickness_nm, thickness_ml
+
+
+def _warn_if_beyond_critical(
+    mat: _LayerMaterial,
+    thickness_nm: float,
+    *,
+    substrate_lattice_nm: float,
+    temperature_k: float,
+    where: str,
+) -> None:
+    """Warn (:class:`CriticalThicknessWarning`) when a strained layer is thicker than its
+    Matthews-Blakeslee critical thickness."""
+    if mat.material == "custom" or abs(mat.strain_xx) <= 1e-5:
+        return
+    h_c = materials.critical_thickness_nm(
+        mat.material, mat.x, substrate_lattice_nm=substrate_lattice_nm, temperature_k=temperature_k
+    )
+    if thickness_nm > h_c:
+        warnings.warn(
+            f"{where}: {thickness_nm:.2f} nm exceeds the "
+            f"Matthews-Blakeslee critical thickness {h_c:.2f} nm; it may relax",
+            CriticalThicknessWarning,
+            stacklevel=5,  # the caller of parse_stack's caller, as before the split
+        )
+
+
 def _parse_layer(
     raw: dict[str, Any],
     *,
@@ -487,60 +645,17 @@ def _parse_layer(
             "material",
         )
 
-    # material parameters
     if values["material"] == "custom":
-        for key in CUSTOM_REQUIRED:
-            if key not in values:
-                raise err("missing; a custom material needs conduction_band_ev and mass_m0", key)
-        if "x" in values:
-            raise err("a custom material takes no composition", "x")
-        material, x = "custom", None
-        edge = values["conduction_band_ev"]
-        mass = values["mass_m0"]
-        alpha = values.get("nonparabolicity_per_ev", 0.0)
-        monolayer = values.get("monolayer_nm")
-        permittivity = values.get("permittivity_r", 12.9)  # GaAs-like default, see docs
-        strain_xx = 0.0
-        valleys: tuple[float | None, float | None] = (None, None)
-        phonon = {}  # the Layer's GaAs defaults
+        mat = _custom_material(values, err)
     else:
-        if "x" in values and not 0.0 <= values["x"] <= 1.0:
-            raise err(f"{values['x']:g} outside [0, 1]", "x")
-        try:
-            material, x = materials.parse_material(values["material"], values.get("x"))
-        except ValueError as exc:
-            raise err(
-                str(exc), "x" if "x" in values and "allowed range" in str(exc) else "material"
-            ) from None
-        params = materials.material_parameters(
-            material,
-            x,
+        mat = _table_material(
+            values,
+            err,
             temperature_k=temperature_k,
             substrate_lattice_nm=substrate_lattice_nm,
             strain=model.strain,
         )
-        edge = values.get("conduction_band_ev", float(params.conduction_band_ev))
-        mass = values.get("mass_m0", float(params.mass_m0))
-        phonon = {
-            "lo_phonon_ev": float(params.lo_phonon_ev),
-            "permittivity_high_r": float(params.permittivity_high_r),
-        }
-        alpha = values.get("nonparabolicity_per_ev", float(params.nonparabolicity_per_ev))
-        monolayer = values.get("monolayer_nm", float(params.monolayer_nm))
-        permittivity = values.get("permittivity_r", float(params.permittivity_r))
-        strain_xx = float(params.strain_xx)
-        valleys = (float(params.x_valley_ev), float(params.l_valley_ev))
-
-    if not 0.001 <= mass <= 10.0:
-        raise err(f"{mass:g} outside [0.001, 10]", "mass_m0")
-    if not 0.0 <= alpha <= 50.0:
-        raise err(f"{alpha:g} outside [0, 50] 1/eV", "nonparabolicity_per_ev")
-    if not -20.0 <= edge <= 20.0:
-        raise err(f"{edge:g} outside [-20, 20] eV", "conduction_band_ev")
-    if monolayer is not None and not 0.05 <= monolayer <= 2.0:
-        raise err(f"{monolayer:g} outside [0.05, 2] nm", "monolayer_nm")
-    if not 1.0 <= permittivity <= 100.0:
-        raise err(f"{permittivity:g} outside [1, 100]", "permittivity_r")
+    mat.check_ranges(err)
 
     doping = values.get("doping_cm3", 0.0)
     if not 0.0 <= doping <= MAX_DOPING_CM3:
@@ -550,61 +665,30 @@ def _parse_layer(
             "contacts must be n-doped; give doping_cm3 > 0 (typically 1e17 to 5e18)", "doping_cm3"
         )
 
-    # thickness
-    has_ml, has_nm = "thickness_ml" in values, "thickness_nm" in values
-    if has_ml and has_nm:
-        raise err("give exactly one of thickness_ml and thickness_nm, not both", "thickness_nm")
-    if not is_contact and not (has_ml or has_nm):
-        raise err("missing; give thickness_ml or thickness_nm", "thickness_ml")
-    thickness_ml = None
-    thickness_nm = 0.0
-    if has_ml:
-        if monolayer is None:
-            raise err("thickness_ml needs monolayer_nm for a custom material", "thickness_ml")
-        thickness_ml = values["thickness_ml"]
-        max_ml = MAX_THICKNESS_NM / monolayer
-        if not 0.0 < thickness_ml <= max_ml:
-            raise err(f"{thickness_ml:g} outside (0, {max_ml:.0f}] monolayers", "thickness_ml")
-        thickness_nm = thickness_ml * monolayer
-    elif has_nm:
-        thickness_nm = values["thickness_nm"]
-        if not 0.0 < thickness_nm <= MAX_THICKNESS_NM:
-            raise err(f"{thickness_nm:g} outside (0, {MAX_THICKNESS_NM:g}] nm", "thickness_nm")
-        if monolayer is not None:
-            thickness_ml = thickness_nm / monolayer
-
-    if (
-        not is_contact
-        and material != "custom"
-        and model.strain
-        and substrate_lattice_nm is not None
-        and abs(strain_xx) > 1e-5
-    ):
-        h_c = materials.critical_thickness_nm(
-            material, x, substrate_lattice_nm=substrate_lattice_nm, temperature_k=temperature_k
+    thickness_nm, thickness_ml = _thickness(values, mat.monolayer, is_contact=is_contact, err=err)
+    if not is_contact and model.strain and substrate_lattice_nm is not None:
+        _warn_if_beyond_critical(
+            mat,
+            thickness_nm,
+            substrate_lattice_nm=substrate_lattice_nm,
+            temperature_k=temperature_k,
+            where=f"{source}, layer {index + 1} ('{name}')",
         )
-        if thickness_nm > h_c:
-            warnings.warn(
-                f"{source}, layer {index + 1} ('{name}'): {thickness_nm:.2f} nm exceeds the "
-                f"Matthews-Blakeslee critical thickness {h_c:.2f} nm; it may relax",
-                CriticalThicknessWarning,
-                stacklevel=4,
-            )
 
     return Layer(
         name=name,
-        material=material,
-        x=x,
+        material=mat.material,
+        x=mat.x,
         thickness_nm=float(thickness_nm),
         thickness_ml=None if thickness_ml is None else float(thickness_ml),
         doping_cm3=float(doping),
-        conduction_band_ev=float(edge),
-        mass_m0=float(mass),
-        nonparabolicity_per_ev=float(alpha),
-        monolayer_nm=None if monolayer is None else float(monolayer),
-        permittivity_r=float(permittivity),
-        strain_xx=strain_xx,
-        x_valley_ev=valleys[0],
-        l_valley_ev=valleys[1],
-        **phonon,
+        conduction_band_ev=float(mat.edge),
+        mass_m0=float(mat.mass),
+        nonparabolicity_per_ev=float(mat.alpha),
+        monolayer_nm=None if mat.monolayer is None else float(mat.monolayer),
+        permittivity_r=float(mat.permittivity),
+        strain_xx=mat.strain_xx,
+        x_valley_ev=mat.valleys[0],
+        l_valley_ev=mat.valleys[1],
+        **mat.phonon,
     )
