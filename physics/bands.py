@@ -260,6 +260,15 @@ def linear_profile(table: LayerTable, bias_v: np.ndarray, *, slice_nm: float = 0
 
     ``bias_v`` is ``(n_biases,)`` or ``(n_stacks, n_biases)``. Returns a
     :class:`Profile` with batch shape ``(n_stacks, n_biases)``.
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks.
+    bias_v
+        Bias, V, ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+    slice_nm
+        Largest slice width, nm (see :func:`slice_grid`).
     """
     grid = slice_grid(table, slice_nm=slice_nm, own_counts=True)
     potential = linear_drop_ev(grid, bias_v, builtin_ev=builtin_offset_ev(table))

@@ -94,7 +94,19 @@ SPAN_KT = 10.0
 
 
 def lorentzian(energy_ev, *, center_ev, width_ev, peak):
-    """Breit-Wigner line ``peak (W/2)^2 / ((E - E_r)^2 + (W/2)^2)`` ([1]_), ``W`` the FWHM."""
+    """Breit-Wigner line ``peak (W/2)^2 / ((E - E_r)^2 + (W/2)^2)`` ([1]_), ``W`` the FWHM.
+
+    Parameters
+    ----------
+    energy_ev
+        Energies ``E``, eV, broadcasting with the line's arrays.
+    center_ev
+        Line centre ``E_r``, eV.
+    width_ev
+        Full width at half maximum ``W``, eV.
+    peak
+        Value at the centre (a peak transmission), dimensionless.
+    """
     half = 0.5 * np.asarray(width_ev, float)
     return peak * half**2 / ((energy_ev - center_ev) ** 2 + half**2)
 
@@ -103,6 +115,15 @@ def broadened_peak(peak, *, width_ev, broadening_ev):
     """Peak and width of a resonance with the extra width ``Gamma_s``, area conserved ([2]_, [3]_).
 
     Returns ``(T_p Gamma / (Gamma + Gamma_s), Gamma + Gamma_s)``.
+
+    Parameters
+    ----------
+    peak
+        Peak transmission ``T_p`` of the coherent line, any shape.
+    width_ev
+        Its full width at half maximum ``Gamma``, eV, broadcasting with ``peak``.
+    broadening_ev
+        Extra width ``Gamma_s`` from scattering, eV, non-negative.
     """
     width = np.asarray(width_ev, float)
     new_width = width + broadening_ev

@@ -40,6 +40,18 @@ def table(value: Any, allowed: Collection[str], *, hint: str = "", **where: Any)
 
     ``where`` (``source``, ``key``, ``layer``, ``layer_name``) locates the table; an
     unknown key is reported as ``key.unknown``. ``hint`` is appended to the message.
+
+    Parameters
+    ----------
+    value
+        The parsed table (a dictionary is expected).
+    allowed
+        The keys it may hold.
+    hint
+        Text appended to the message on an unknown key.
+    **where
+        Location named in the error message: ``source``, ``key``, ``layer`` (from 0) and
+        ``layer_name``, as :class:`physics.errors.InputError` takes them.
     """
     key = where.get("key")
     if not isinstance(value, dict):
@@ -72,6 +84,20 @@ def number(
 
     Integers are accepted (also those too large for a float: an error, not an
     OverflowError); booleans, strings and non-finite values are not.
+
+    Parameters
+    ----------
+    value
+        The parsed value.
+    low, high
+        Allowed range, in ``unit``.
+    unit
+        Unit shown in the message.
+    open_low, open_high
+        Exclude that end of the range.
+    **where
+        Location named in the error message: ``source``, ``key``, ``layer`` (from 0) and
+        ``layer_name``, as :class:`physics.errors.InputError` takes them.
     """
     span = _range_text(low, high, unit, open_low, open_high)
     within = f" in {span}" if math.isfinite(low) or math.isfinite(high) else ""
@@ -92,7 +118,18 @@ def number(
 
 
 def whole(value: Any, *, low: int, high: int, **where: Any) -> int:
-    """``value`` as a whole number in ``[low, high]`` (a float such as 3.0 is not accepted)."""
+    """``value`` as a whole number in ``[low, high]`` (a float such as 3.0 is not accepted).
+
+    Parameters
+    ----------
+    value
+        The parsed value.
+    low, high
+        Allowed range, both ends included.
+    **where
+        Location named in the error message: ``source``, ``key``, ``layer`` (from 0) and
+        ``layer_name``, as :class:`physics.errors.InputError` takes them.
+    """
     if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:
         raise InputError(
             f"must be a whole number in [{low}, {high}], got {show(value)}", **_where(where)
@@ -101,26 +138,64 @@ def whole(value: Any, *, low: int, high: int, **where: Any) -> int:
 
 
 def seed(value: Any, **where: Any) -> int:
-    """A seed: a whole number in ``[0, SEED_MAX]``."""
+    """A seed: a whole number in ``[0, SEED_MAX]``.
+
+    Parameters
+    ----------
+    value
+        The parsed value.
+    **where
+        Location named in the error message: ``source``, ``key``, ``layer`` (from 0) and
+        ``layer_name``, as :class:`physics.errors.InputError` takes them.
+    """
     return whole(value, low=0, high=SEED_MAX, **where)
 
 
 def flag(value: Any, **where: Any) -> bool:
-    """``value`` as ``true`` or ``false``."""
+    """``value`` as ``true`` or ``false``.
+
+    Parameters
+    ----------
+    value
+        The parsed value.
+    **where
+        Location named in the error message: ``source``, ``key``, ``layer`` (from 0) and
+        ``layer_name``, as :class:`physics.errors.InputError` takes them.
+    """
     if not isinstance(value, bool):
         raise InputError(f"must be true or false, got {show(value)}", **_where(where))
     return value
 
 
 def choice(value: Any, allowed: Collection[str], **where: Any) -> str:
-    """``value`` as one of the strings ``allowed``."""
+    """``value`` as one of the strings ``allowed``.
+
+    Parameters
+    ----------
+    value
+        The parsed value.
+    allowed
+        The accepted strings (listed in the message).
+    **where
+        Location named in the error message: ``source``, ``key``, ``layer`` (from 0) and
+        ``layer_name``, as :class:`physics.errors.InputError` takes them.
+    """
     if not isinstance(value, str) or value not in allowed:
         raise InputError(f"{show(value)} is not one of {', '.join(allowed)}", **_where(where))
     return value
 
 
 def text(value: Any, **where: Any) -> str:
-    """``value`` as a non-empty string."""
+    """``value`` as a non-empty string.
+
+    Parameters
+    ----------
+    value
+        The parsed value.
+    **where
+        Location named in the error message: ``source``, ``key``, ``layer`` (from 0) and
+        ``layer_name``, as :class:`physics.errors.InputError` takes them.
+    """
     if not isinstance(value, str) or not value.strip():
         raise InputError(f"must be a non-empty string, got {show(value)}", **_where(where))
     return value

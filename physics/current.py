@@ -127,6 +127,16 @@ def supply_function_ev(energy_ev, *, mu_emitter_ev, mu_collector_ev, kt_ev):
 
     Of the sign of ``mu_E - mu_C`` at every energy, also where rounding of the two
     logarithms would flip it (so no current flows against the bias).
+
+    Parameters
+    ----------
+    energy_ev
+        Longitudinal energies ``E``, eV from the emitter band edge.
+    mu_emitter_ev, mu_collector_ev
+        Fermi levels ``mu_E`` and ``mu_C`` on the same scale, eV, broadcasting with
+        ``energy_ev``.
+    kt_ev
+        Thermal energy ``kT``, eV.
     """
     x = (mu_emitter_ev - energy_ev) / kt_ev
     drop = mu_emitter_ev - mu_collector_ev
@@ -137,7 +147,19 @@ def supply_function_ev(energy_ev, *, mu_emitter_ev, mu_collector_ev, kt_ev):
 def energy_window_ev(
     profile: Profile, *, mu_emitter_ev, bias_v, kt_ev
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Integration window ``(low, high)``, batch-shaped, eV from the emitter edge."""
+    """Integration window ``(low, high)``, batch-shaped, eV from the emitter edge.
+
+    Parameters
+    ----------
+    profile
+        Band profiles, batch shape ``profile.batch_shape``.
+    mu_emitter_ev
+        Emitter Fermi level above its band edge, eV, batch-shaped.
+    bias_v
+        Bias of each profile, V, batch-shaped.
+    kt_ev
+        Thermal energy ``kT``, eV, broadcasting with the batch.
+    """
     collector_edge = profile.edge_ev[..., -1]
     low = np.maximum(0.0, collector_edge)
     high = np.maximum(mu_emitter_ev, mu_emitter_ev - bias_v) + WINDOW_KT * kt_ev

@@ -259,6 +259,13 @@ def collector_transit_delay_s(
     (Ramo's theorem: the induced current flows during the whole transit, on
     average half of it late).
 
+    Parameters
+    ----------
+    collector_depletion_nm
+        Depletion length ``L`` on the collector side, nm, any shape.
+    saturation_velocity_cm_s
+        Saturated electron velocity ``v_sat``, cm/s.
+
     References
     ----------
     .. [1] S. M. Sze and K. K. Ng, Physics of Semiconductor Devices, 3rd ed.
@@ -389,6 +396,13 @@ def device_quantities(metrics: dict[str, np.ndarray], *, area_um2: float) -> dic
     Returns ``peak_current_ma``, ``valley_current_ma``, ``ndr_conductance_ms``,
     ``capacitance_ff``, ``rf_power_uw`` (missing inputs give NaN). Unit
     conversions only.
+
+    Parameters
+    ----------
+    metrics
+        Per-area figures of merit by name (A/cm^2, S/cm^2, F/cm^2, W/cm^2), arrays of one shape.
+    area_um2
+        Mesa area, um^2.
     """
     area_cm2 = area_um2 * 1e-8
     nan = np.full(np.shape(next(iter(metrics.values()), np.nan)), np.nan)
@@ -421,6 +435,24 @@ def device_figures(
     (magnitudes); ``metrics`` holds the peak and valley figures; ``rows`` are
     the stacks with NDR and ``peak_profile`` their band profiles at the peak
     bias (batch ``(rows.size, 1)``).
+
+    Parameters
+    ----------
+    table
+        Layers of the ``n_stacks`` stacks of the sweep.
+    bias_v
+        Bias magnitudes of the branch, V, ``(n_biases,)``.
+    current_density_a_cm2
+        Current density magnitudes on it, A/cm^2, ``(n_stacks, n_biases)``.
+    metrics
+        Peak and valley figures of merit by name, ``(n_stacks,)`` each.
+    peak_profile
+        Band profiles of the ``rows`` at their peak bias, batch ``(rows.size, 1)``; ``None``
+        skips the resonance lifetime.
+    rows
+        Indices of the stacks with NDR.
+    series_resistance_ohm_um2
+        Series resistance times area, ohm um^2, scalar or ``(n_stacks,)``.
     """
     n = table.n_stacks
     out = {k: np.full(n, np.nan) for k in DEVICE_METRIC_NAMES}

@@ -45,7 +45,15 @@ _WEIGHTS = 0.5 * _WEIGHTS
 
 
 def effective_density_of_states_cm3(mass_m0, *, temperature_k):
-    """N_c = 2 (m kT / (2 pi hbar^2))^(3/2) in cm^-3 ([3], Eq. 1.16)."""
+    """N_c = 2 (m kT / (2 pi hbar^2))^(3/2) in cm^-3 ([3], Eq. 1.16).
+
+    Parameters
+    ----------
+    mass_m0
+        Density-of-states mass, m0, any shape.
+    temperature_k
+        Temperature, K, broadcasting with ``mass_m0``.
+    """
     mass = np.asarray(mass_m0, float) * ELECTRON_MASS_KG
     kt_j = BOLTZMANN_EV_K * np.asarray(temperature_k, float) * ELEMENTARY_CHARGE_C
     return 2.0 * (mass * kt_j / (2.0 * np.pi * HBAR_J_S**2)) ** 1.5 * 1e-6
@@ -203,6 +211,15 @@ def fermi_level_ev(doping_cm3, *, mass_m0, temperature_k):
     Solved once per distinct (doping, mass, temperature), all new ones in one
     vectorised Newton solve, and remembered: a sweep asks for the same few
     contacts many times.
+
+    Parameters
+    ----------
+    doping_cm3
+        Ionised donor density, cm^-3, positive, any shape.
+    mass_m0
+        Band-edge mass, m0, broadcasting with ``doping_cm3``.
+    temperature_k
+        Temperature, K, broadcasting likewise.
     """
     doping, mass, temperature = np.broadcast_arrays(
         *(np.asarray(a, float) for a in (doping_cm3, mass_m0, temperature_k))

@@ -85,7 +85,17 @@ def island_mixture(thickness_ml: np.ndarray, *, layers: np.ndarray | None = None
 
 
 def area_weight_matrix(owner: np.ndarray, area_share: np.ndarray, n_samples: int) -> np.ndarray:
-    """Dense ``(n_samples, n_rows)`` area weights from each row's sample and share."""
+    """Dense ``(n_samples, n_rows)`` area weights from each row's sample and share.
+
+    Parameters
+    ----------
+    owner
+        Sample (device) of each row, ``(n_rows,)`` integers in ``[0, n_samples)``.
+    area_share
+        Area share of each row within its sample, ``(n_rows,)``.
+    n_samples
+        Number of samples (rows of the result).
+    """
     w = np.zeros((n_samples, owner.size))
     w[owner, np.arange(owner.size)] = area_share
     return w
@@ -97,5 +107,12 @@ def mixed_current(current_density_a_cm2: np.ndarray, *, area_weights: np.ndarray
     ``J_device = sum_s w[device, s] J_s`` for ``current_density_a_cm2``
     ``(n_stacks, n_biases)`` and ``area_weights`` ``(n_devices, n_stacks)``
     (area shares; parallel conduction of islands, see module docstring).
+
+    Parameters
+    ----------
+    current_density_a_cm2
+        Current density of each whole-monolayer stack, A/cm^2, ``(n_stacks, n_biases)``.
+    area_weights
+        Area shares, ``(n_devices, n_stacks)``, each row summing to 1.
     """
     return np.asarray(area_weights, float) @ np.asarray(current_density_a_cm2, float)

@@ -102,6 +102,15 @@ def band_profile(table: LayerTable, bias_v, *, model: ModelOptions = ModelOption
     :func:`physics.bands.linear_profile` for ``"linear"``,
     :func:`physics.electrostatics.self_consistent_profile` for ``"self-consistent"``;
     biases ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks.
+    bias_v
+        Bias, V, ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+    model
+        Model options: ``electrostatics`` and ``slice_nm`` are used.
     """
     if model.electrostatics == "self-consistent":
         return self_consistent_profile(table, bias_v, slice_nm=model.slice_nm)
@@ -133,6 +142,17 @@ def current_at_bias(
     broadening ``model.broadening_mev`` and, with ``model.transport =
     "scattering-assisted"``, the scattering-assisted channel
     (:mod:`physics.scattering`) are applied in the kernel.
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks.
+    bias_v
+        Bias, V, ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+    model
+        Model options (electrostatics, slice width, broadening, transport).
+    grid
+        Adaptive energy grid settings.
     """
     return _current_of_profile(band_profile(table, bias_v, model=model), table, bias_v, model, grid)
 
@@ -520,6 +540,20 @@ def stack_iv(
     taken as monolayer islands of the two neighbouring whole thicknesses; the
     curve is then the area-weighted mixture of the whole-monolayer stacks
     (:mod:`physics.islands`), and its figures of merit are the mixed curve's.
+
+    Parameters
+    ----------
+    stack
+        One validated stack; its ``model`` and ``device`` options apply.
+    bias_v
+        Biases, V, ``(n_biases,)``.
+    grid
+        Adaptive energy grid settings.
+    refine
+        Locate peak and valley more finely than the sweep grid.
+    island_layers
+        Indices (from 0) of layers with a fractional ``thickness_ml`` taken as monolayer
+        islands.
     """
     table = stack.table()
     weights = None
@@ -549,7 +583,17 @@ def stack_iv(
 def external_bias_v(
     bias_v: np.ndarray, current_density_a_cm2: np.ndarray, *, series_resistance_ohm_um2: float
 ) -> np.ndarray:
-    """Terminal bias with a series resistance: ``V_ext = V + J R`` (R in ohm um^2, J in A/cm^2)."""
+    """Terminal bias with a series resistance: ``V_ext = V + J R`` (R in ohm um^2, J in A/cm^2).
+
+    Parameters
+    ----------
+    bias_v
+        Intrinsic bias ``V``, V, any shape.
+    current_density_a_cm2
+        Current density ``J`` at it, A/cm^2, broadcasting with ``bias_v``.
+    series_resistance_ohm_um2
+        Series resistance times area ``R``, ohm um^2.
+    """
     return np.asarray(bias_v) + np.asarray(current_density_a_cm2) * series_resistance_ohm_um2 * 1e-8
 
 
@@ -571,6 +615,18 @@ def sweep_hysteresis(
     curve. With the self-consistent model, the potential and the well charge
     of the previous bias start each solve, so where the solution is not unique
     (charge-induced bistability) the two branches can differ.
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks.
+    bias_v
+        Biases of the up sweep, V, ``(n_biases,)`` strictly increasing; the down sweep runs them
+        backwards.
+    model
+        Model options; default :class:`physics.stack.ModelOptions`.
+    grid
+        Adaptive energy grid settings; default :class:`physics.current.EnergyGrid`.
     """
     model = ModelOptions() if model is None else model
     grid = EnergyGrid() if grid is None else grid

@@ -54,6 +54,17 @@ def sinh_gauss_legendre(center_ev, *, width_ev, low_ev, high_ev, n: int):
     ``W`` (measured on a Lorentzian: 32 nodes, interval 1e6 widths: -0.5 %; 1e10:
     -5 %); with the panels, a Lorentzian times a Fermi step over 1e10 widths:
     3e-4 (40 nodes).
+
+    Parameters
+    ----------
+    center_ev
+        Line centre ``E_r``, eV.
+    width_ev
+        Line width ``W``, eV, positive.
+    low_ev, high_ev
+        Ends of the interval, eV.
+    n
+        Nodes per interval.
     """
     center = np.asarray(center_ev, float)
     half = 0.5 * np.asarray(width_ev, float)

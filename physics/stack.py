@@ -254,7 +254,15 @@ def read_toml(path: str | Path) -> dict[str, Any]:
 
 
 def decode_text(data: bytes, *, source: str) -> str:
-    """``data`` as UTF-8 text (TOML files are UTF-8); raises :class:`InputError` otherwise."""
+    """``data`` as UTF-8 text (TOML files are UTF-8); raises :class:`InputError` otherwise.
+
+    Parameters
+    ----------
+    data
+        Raw file contents.
+    source
+        File name for the error message.
+    """
     try:
         return data.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -265,7 +273,15 @@ def decode_text(data: bytes, *, source: str) -> str:
 
 
 def parse_toml(data: bytes | str, *, source: str) -> dict[str, Any]:
-    """The TOML document in ``data`` (bytes must be UTF-8), naming ``source`` on error."""
+    """The TOML document in ``data`` (bytes must be UTF-8), naming ``source`` on error.
+
+    Parameters
+    ----------
+    data
+        File contents, bytes (UTF-8) or text.
+    source
+        File name for the error message.
+    """
     text = decode_text(data, source=source) if isinstance(data, bytes) else data
     try:
         return tomllib.loads(text)
@@ -277,7 +293,15 @@ def parse_toml(data: bytes | str, *, source: str) -> dict[str, Any]:
 
 def default_layer_name(index: int, *, n_layers: int) -> str:
     """The name of a layer without one: ``emitter``, ``collector``, else ``layer<index>``
-    (zero-based, as parameter names of existing studies have it)."""
+    (zero-based, as parameter names of existing studies have it).
+
+    Parameters
+    ----------
+    index
+        Layer index from 0.
+    n_layers
+        Number of layers of the stack, contacts included.
+    """
     if index == 0:
         return "emitter"
     return "collector" if index == n_layers - 1 else f"layer{index}"

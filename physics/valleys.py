@@ -66,6 +66,13 @@ def indirect_edges_ev(stack: Stack, profile: Profile) -> tuple[np.ndarray, np.nd
     potential is the profile's edge minus each layer's own Gamma offset; the
     X and L edges are that potential plus each layer's X and L offsets from
     the emitter's Gamma edge. NaN on custom-material layers (no X or L edge).
+
+    Parameters
+    ----------
+    stack
+        The stack the profile was computed for.
+    profile
+        Its band profile at one bias, no batch axes.
     """
     gamma = np.array([layer.conduction_band_ev for layer in stack.layers])
     li = profile.layer_index
@@ -87,6 +94,15 @@ def x_valley_issues(
     A barrier is a layer between the contacts whose Gamma edge lies more than
     :data:`physics.electrostatics.BARRIER_EV` above the emitter's. The band
     profile is that of the stack's own electrostatics model.
+
+    Parameters
+    ----------
+    stack
+        One validated stack (its own model options apply).
+    bias_v
+        Bias, V.
+    margin_kt
+        How far above the emitter Fermi level an X edge still counts, in kT.
     """
     table = stack.table()
     profile = band_profile(table, [bias_v], model=stack.model).take((0, 0))
@@ -105,7 +121,17 @@ def x_valley_issues(
 
 
 def x_valley_message(issues: list[XValleyIssue], bias_v: float, *, where: str = "") -> str:
-    """One plain line naming the barriers of ``issues`` (empty string when there are none)."""
+    """One plain line naming the barriers of ``issues`` (empty string when there are none).
+
+    Parameters
+    ----------
+    issues
+        The barriers found by :func:`x_valley_issues`.
+    bias_v
+        The bias they were found at, V (named in the line).
+    where
+        Prefix naming the stack or design, e.g. a file name.
+    """
     if not issues:
         return ""
     names = ", ".join(

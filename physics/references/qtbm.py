@@ -85,7 +85,15 @@ class UniformGrid:
     potential_ev: np.ndarray
 
     def mass_half_m0(self, energy_ev: np.ndarray | float, profile: Profile) -> np.ndarray:
-        """Energy-dependent mass at the half points, shape ``energy.shape + (N + 2,)``."""
+        """Energy-dependent mass at the half points, shape ``energy.shape + (N + 2,)``.
+
+        Parameters
+        ----------
+        energy_ev
+            Energies, eV from the emitter band edge, any shape.
+        profile
+            The single profile this grid was built from.
+        """
         e = np.asarray(energy_ev, float)[..., None]
         s = self.half_slice
         factor = 1.0 + profile.nonparabolicity_per_ev[s] * (e - profile.edge_ev[s])  # [3]
