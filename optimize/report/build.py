@@ -130,8 +130,8 @@ def versions() -> dict[str, str]:
 
 RERUN = (
     "missing: the run folder was made before every stage wrote the report's records (or a "
-    "file was removed); rerun 'wellwright run' on the same study and folder (finished stages "
-    "are reused)"
+    "file was removed); rerun 'wellwright run' on the same study and folder, which writes only "
+    "what is missing"
 )
 
 
@@ -779,7 +779,10 @@ def build_report(run_dir: str | Path) -> Path:
     reported = [d for d in designs if f"rank{d['rank']:02d}" in done]
     for path in _needed_files(run_dir, reported, tol_dirs):
         if not path.is_file():
-            raise InputError(RERUN, source=str(path))
+            study_path = record.get("study", {}).get("path", "STUDY.toml")
+            raise InputError(
+                f"{RERUN}: wellwright run {study_path} --out {run_dir}", source=str(path)
+            )
     records = [json.loads(_read_text(d / "tolerance.json")) for d in tol_dirs]
     points = read_trials(run_dir / "search" / TRIALS_FILE, study)
     files = run_dir / FILES_DIR
