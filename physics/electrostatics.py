@@ -253,6 +253,18 @@ def extended_slice_grid(
     ``-contact_nm`` and ``L + contact_nm``; the contact-region slices carry
     the contact's layer index, so :func:`physics.bands.profile_from_potential`
     gives them the contact's material.
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks.
+    slice_nm
+        Largest slice width inside the stack, nm.
+    contact_nm
+        Length of each contact region solved for, nm.
+    contact_slice_nm
+        Width of the contact-region slice next to the stack, nm; the slices grow outwards by
+        :data:`CONTACT_GRADING`.
     """
     base = slice_grid(table, slice_nm=slice_nm)
     # graded: contact_slice_nm next to the stack, growing by CONTACT_GRADING per slice
@@ -531,6 +543,21 @@ def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, 
 
     Returns ``n_w`` ``(n_stacks, n_biases)`` and the states ``E_1``
     ``(n_stacks, n_biases, 4)``, NaN where there is none.
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks.
+    grid
+        The extended slice grid of the potential (:func:`extended_slice_grid`).
+    potential_ev
+        Electron potential energy on its nodes, eV, ``(n_stacks, n_biases, n_nodes)``.
+    bias_v
+        Bias, V, ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+    mu_emitter_ev
+        Emitter Fermi level above its band edge, eV, ``(n_stacks,)``.
+    well_mass_m0
+        Mass of the well, m0, ``(n_stacks,)``.
     """
     from .constants import ELECTRON_MASS_KG, HBAR_J_S
     from .resonances import find_resonances
@@ -581,6 +608,19 @@ def self_consistent_profile(
     as slices. ``options`` go to :func:`solve_stack_poisson`. Where the
     solve of all biases at once from the linear drop does not converge, the
     biases are solved again by continuation (:func:`solve_by_continuation`).
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks.
+    bias_v
+        Bias, V, ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+    slice_nm
+        Largest slice width inside the stack, nm.
+    initial_ev
+        Optional start of the potential, ``(n_stacks, n_biases, n_nodes)``, eV.
+    **options
+        Further settings of :func:`solve_stack_poisson`.
     """
     try:
         grid, solution = solve_stack_poisson(
@@ -611,6 +651,15 @@ def solve_by_continuation(
     times (intermediate biases whose solutions only serve as starts). Every
     stack of the batch takes each step together. Costs one solve per bias
     (sequential), so it is the fallback, not the default.
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks.
+    bias_v
+        Bias, V, ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+    **options
+        Settings of :func:`solve_stack_poisson` (its limits scaled as above).
 
     Raises
     ------

@@ -106,7 +106,15 @@ def local_peaks(
 def parabola_through(x: np.ndarray, y: np.ndarray):
     """Vertex offset from ``x[..., 1]``, curvature ``a`` and minimum of the parabola through
     three points ``(..., 3)`` (sorted, unevenly spaced); where ``a <= 0`` (no minimum) the
-    offset is 0. The offset is kept within the outer two points."""
+    offset is 0. The offset is kept within the outer two points.
+
+    Parameters
+    ----------
+    x
+        Abscissae, ``(..., 3)``, sorted.
+    y
+        Ordinates at them, ``(..., 3)``.
+    """
     d0 = x[..., 0] - x[..., 1]
     d2 = x[..., 2] - x[..., 1]
     s0 = (y[..., 0] - y[..., 1]) / d0  # secant slopes on each side
@@ -248,6 +256,20 @@ def refine_grid_peaks(
     ``valid`` ``batch + (n_max,)``. Returns ``energy_ev, width_ev,
     peak_transmission`` shaped like ``index``; slots without a peak are not
     computed (NaN width and peak).
+
+    Parameters
+    ----------
+    energy_ev
+        Grid energies, eV, ``profile.batch_shape + (n,)``, sorted.
+    t
+        Transmission on them, same shape.
+    index, valid
+        Grid index of each peak and whether the slot holds one, ``batch + (n_max,)`` (from
+        :func:`local_peaks`).
+    profile
+        The band profiles ``t`` was computed on.
+    iterations, exact_peak
+        As for :func:`refine_bracketed`.
     """
     where = np.nonzero(valid)
     around = index[..., None] + np.array([-1, 0, 1])  # each maximum and its neighbours

@@ -250,11 +250,24 @@ def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geomet
     )
 
 
-def scattering_widths_ev(energy_ev, geo: _Geometry, edge, mass, kt_ev, params):
+def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, kt_ev, params):
     """Roughness width, phonon width (no occupation factor), floor energy^2 and Bose factor.
 
     ``energy_ev`` is ``(..., L)`` state energies on the oriented profile; the
     rest broadcast over ``(...)``. Formulas in the module notes ([6]_, [10]_).
+
+    Parameters
+    ----------
+    energy_ev
+        State energies, eV, ``(..., L)``, on the oriented profile.
+    geo
+        Where the barriers and the well are (oriented profile).
+    edge, mass
+        Band edge (eV) and mass (m0) of the oriented profile's slices, ``(..., n)``.
+    kt_ev
+        Thermal energy kT, eV, ``(...)``.
+    params
+        Channel settings.
     """
     ex = lambda a: np.asarray(a)[..., None]  # noqa: E731
     e_w = np.maximum(energy_ev - ex(geo.well_edge_ev), 5e-3)
@@ -286,6 +299,17 @@ def coherent_factor(energy_ev, *, center_ev, width_ev, valid, gamma_s_ev):
 
     ``energy_ev`` is ``batch + (n,)``; the line arrays ``batch + (L,)``.
     Returns ``prod_l ((E - E_l)^2 + (G_l/2)^2) / ((E - E_l)^2 + ((G_l + Gs_l)/2)^2)``.
+
+    Parameters
+    ----------
+    energy_ev
+        Energies, eV, ``batch + (n,)``.
+    center_ev, width_ev
+        Centre and coherent width ``G_l`` of each line, eV, ``batch + (L,)``.
+    valid
+        Which line slots hold a line, ``batch + (L,)``; the others give a factor 1.
+    gamma_s_ev
+        Scattering width ``Gs_l`` of each line, eV, ``batch + (L,)``.
     """
     d2 = (energy_ev[..., None, :] - center_ev[..., :, None]) ** 2
     g = np.where(valid, width_ev, 0.0)[..., None]
@@ -407,7 +431,9 @@ def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, par
     gamma_l, gamma_r = _split_widths(peak_c, width_c, tau_l, tau_r)
     scale = gamma_l / np.maximum(tau_l, 1e-300)  # Gamma_L(z) = scale tau_L(z)
     gamma_coh = np.where(matched, width_c, scale * tau_l_dev + gamma_r)
-    g_ifr, g_lo, floor2, bose = scattering_widths_ev(e_n, geo, edge, mass, kt, params)
+    g_ifr, g_lo, floor2, bose = scattering_widths_ev(
+        e_n, geo, edge=edge, mass=mass, kt_ev=kt, params=params
+    )
     return {
         "e_n": e_n,
         "gamma_r": gamma_r,
@@ -534,13 +560,13 @@ def _reservoir_fluxes(nodes, couplings, hw, bose, mu_left, mu_right, kt):
 
 
 def sequential_fluxes_ev2(
+    *,
     edge,
     mass,
     alpha,
     width,
     barrier,
     phonon,
-    *,
     mu_left_ev,
     mu_right_ev,
     kt_ev,
@@ -560,6 +586,26 @@ def sequential_fluxes_ev2(
     the reservoir conserves current) to be multiplied by the Tsu-Esaki
     prefactor, and the states' ``center_ev``, ``width_ev`` (coherent),
     ``gamma_s_ev`` and ``valid`` (``(..., L)``) for :func:`coherent_factor`.
+
+    Parameters
+    ----------
+    edge, mass, alpha, width
+        The oriented profile's slices: band edge (eV, source contact at 0), mass (m0),
+        nonparabolicity (1/eV) and width (nm), ``(..., n)`` each.
+    barrier
+        Which slices are barriers, ``(..., n)``.
+    phonon
+        ``(lo_phonon_ev, permittivity_high_r, permittivity_r)``, ``(..., n)`` each.
+    mu_left_ev, mu_right_ev
+        Fermi levels of the source (left) and drain (right) leads, eV, ``(...)``.
+    kt_ev
+        Thermal energy kT, eV, ``(...)``.
+    high_ev
+        Top of the energy window, eV, ``(...)``.
+    lines
+        The coherent ``T``'s lines on this profile (see above).
+    params
+        Channel settings.
     """
     geo = _geometry(edge, mass, width, barrier, *phonon)
     kt = np.broadcast_to(kt_ev, geo.has.shape)
@@ -666,12 +712,12 @@ def sequential_integral_ev2(
     mu_right = np.where(rev, mu_emitter_ev, mu_c) - shift
     lines_o = dict(lines, center_ev=lines["center_ev"] - shift[..., None])
     left, right, reduction = sequential_fluxes_ev2(
-        edge_o,
-        orient(mass),
-        orient(alpha),
-        orient(width),
-        orient(per_slice[0]),
-        tuple(orient(p) for p in per_slice[1:]),
+        edge=edge_o,
+        mass=orient(mass),
+        alpha=orient(alpha),
+        width=orient(width),
+        barrier=orient(per_slice[0]),
+        phonon=tuple(orient(p) for p in per_slice[1:]),
         mu_left_ev=mu_left,
         mu_right_ev=mu_right,
         kt_ev=kt_ev,

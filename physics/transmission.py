@@ -85,6 +85,17 @@ def wave_numbers_per_nm(
     """Complex wave number ``k`` (1/nm, ``Im k >= 0``) and ``k/m`` (1/nm per m0).
 
     All arguments broadcast together; energies and edges in eV.
+
+    Parameters
+    ----------
+    energy_ev
+        Energies, eV.
+    edge_ev
+        Band edges, eV.
+    mass_m0
+        Band-edge masses, m0.
+    alpha_per_ev
+        Nonparabolicity, 1/eV.
     """
     kinetic = energy_ev - edge_ev
     mass = alpha_per_ev * kinetic
@@ -167,6 +178,17 @@ def transmission_rows(
     :func:`numpy.nonzero`), one profile per group. Equals
     ``transmission(energy_ev, profile=profile.take(rows))`` without the copy
     of the selected profiles.
+
+    Parameters
+    ----------
+    energy_ev
+        Energies, eV from the emitter band edge, ``(n_groups, n_energies)``.
+    profile
+        Band profiles, batch ``profile.batch_shape``.
+    rows
+        The profile of each group, one index array of length ``n_groups`` per batch axis.
+    backend
+        As for :func:`transmission`.
     """
     energy = np.asarray(energy_ev, float)
     if _backend(backend) == "compiled":
@@ -187,6 +209,18 @@ def transmission_where(
     ``profile.batch_shape + (n_groups,)``: e.g. the nodes of each candidate
     resonance, of which only the real ones (not the padding) need the kernel
     (a convenience over :func:`transmission_rows`).
+
+    Parameters
+    ----------
+    energy_ev
+        Energies, eV from the emitter band edge, ``profile.batch_shape + (n_groups,
+        n_energies)``.
+    profile
+        Band profiles.
+    mask
+        Groups to compute, ``profile.batch_shape + (n_groups,)``.
+    backend
+        As for :func:`transmission`.
     """
     energy = np.asarray(energy_ev, float)
     out = np.zeros(energy.shape)
