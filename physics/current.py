@@ -309,81 +309,24 @@ def current_density_a_cm2(
         coarse, mu_emitter_ev=mu_e[..., None], mu_collector_ev=mu_c[..., None], kt_ev=kt[..., None]
     )
     weights = _trapezoid_weights(coarse)  # the coarse nodes span [low, high]
+    lines = None
     if grid.n_resonances > 0:
-        # refine every candidate peak, then keep those carrying most current: a resonance of
-        # 1 ueV width looks tiny on the coarse grid, its weight (pi/2) T_p Gamma S(E_r) does not
-        n_cand = max(grid.n_candidates, grid.n_resonances)
-        # the maxima of T S, not of T: a wide well has more lines than candidates, and
-        # those above the barriers (T ~ 1, no supply) would crowd out those that carry
-        # the current (measured: a 14 nm InSb well lost its main line, -12 %)
-        index, valid = local_peaks(t_coarse, n_cand, weight=np.abs(supply))
-        # the peak heights only rank the candidates (and scale the broadening): the
-        # parabola's value is good enough, no extra evaluation
-        center, width, peak = refine_grid_peaks(
+        lines = _find_lines(
+            profile,
             coarse,
+            u,
             t_coarse,
-            index,
-            valid,
-            profile=profile,
-            iterations=grid.refine_iterations,
-            exact_peak=False,
+            supply,
+            low=low,
+            high=high,
+            mu_e=mu_e,
+            mu_c=mu_c,
+            kt=kt,
+            grid=grid,
         )
-        # at least the regular grid's spacing at its first node (the edge nodes' spacing is
-        # no scale for a line's integration interval: its tails beyond are left to the
-        # coarse nodes' linear interpolant)
-        first_node = (high - low)[..., None] * u[EDGE_NODES_U.size + 1] ** 2
-        cell = np.diff(coarse, axis=-1)
-        wider = np.maximum(
-            np.concatenate([cell[..., :1], cell], -1), np.concatenate([cell, cell[..., -1:]], -1)
-        )
-        spacing = np.maximum(wider, 2.0 * first_node)  # the wider cell beside each node
-        spacing = np.take_along_axis(spacing, index, axis=-1)
-        valid &= (
-            np.isfinite(width)
-            & (width > 0)
-            & (center > low[..., None])
-            & (center < high[..., None])
-        )
-        supply_r = np.abs(
-            supply_function_ev(
-                center,
-                mu_emitter_ev=mu_e[..., None],
-                mu_collector_ev=mu_c[..., None],
-                kt_ev=kt[..., None],
-            )
-        )
-        share = np.where(valid, np.nan_to_num(peak * width * supply_r), -1.0)
-        valid = _distinct(center, width, valid, share)
-        share = np.where(valid, share, -1.0)
-        # every line found, resolved or not, is broadened
-        lines: dict = {"center_ev": center, "width_ev": width, "peak": peak, "valid": valid}
-        others, others_valid = center, valid
-        # what the coarse rule could get wrong on a line it does not resolve: up to T_p S
-        # over a cell, far more than the line's own share T_p Gamma S when it is narrow
-        stake = np.where(valid, np.nan_to_num(peak * np.maximum(width, spacing) * supply_r), -1.0)
-        keep = np.argsort(-stake, axis=-1)[..., : grid.n_resonances]
-        narrow = np.sum(np.where(width < kt[..., None], np.maximum(share, 0.0), 0.0), axis=-1)
-        center, width, spacing, valid, stake = (
-            np.take_along_axis(x, keep, axis=-1) for x in (center, width, spacing, valid, stake)
-        )
-        # a line is resolved where the coarse nodes cannot integrate it (narrower than
-        # RESOLVE_SPACINGS of their spacing) and their error on it could reach MIN_SHARE
-        # of the current of the lines narrower than kT (a broad feature's T_p Gamma is no
-        # measure of the current)
-        valid &= (width < RESOLVE_SPACINGS * spacing) & (stake >= MIN_SHARE * narrow[..., None])
-        center = np.where(valid, center, high[..., None])
-        width = np.where(valid, np.maximum(width, 1e-15), 1.0)  # widths of 2e-14 eV measured
-        half_span = np.maximum(
-            _coarse_reach(center - low[..., None], (high - low)[..., None], grid.n_coarse),
-            LINE_SPAN_WIDTHS * width,
-        )
-        a, b = _line_intervals(center, half_span, width, others, others_valid, low, high)
-        for r in range(a.shape[-1]):  # each resolved line's interval leaves the coarse rule
-            m = valid[..., r]
-            if m.any():
-                weights[m] -= _linear_weights(coarse[m], a[..., r][m], b[..., r][m])
+        _leave_line_intervals(weights, coarse, lines)
     sequential = None
-    if scattering is not None and scattering.active and grid.n_resonances > 0:
+    if scattering is not None and scattering.active and lines is not None:
         sequential, _, reduce = sequential_integral_ev2(
             profile,
             table=table,
@@ -391,43 +334,33 @@ def current_density_a_cm2(
             mu_emitter_ev=mu_e,
             kt_ev=kt,
             high_ev=high,
-            lines=lines,
+            lines=lines.found,
             params=scattering,
         )
         t_coarse = t_coarse * coherent_factor(coarse, **reduce)
     integral = np.sum(weights * t_coarse * supply, axis=-1)
-    if grid.n_resonances > 0 and valid.any():
-        # the resolved lines only (unused slots cost nothing), one row per line
-        where = np.nonzero(valid)
-        rows = where[:-1]
-        nodes, node_weights = _line_rule(
-            center[where], width[where], a[where], b[where], low[rows], grid.n_per_resonance
+    if lines is not None and lines.valid.any():
+        _add_resolved_lines(
+            integral,
+            lines,
+            profile=profile,
+            low=low,
+            mu_e=mu_e,
+            mu_c=mu_c,
+            kt=kt,
+            n_nodes=grid.n_per_resonance,
+            reduce=None if sequential is None else reduce,
         )
-        t_lines = transmission_rows(nodes, profile=profile, rows=rows)
-        if sequential is not None:
-            t_lines = t_lines * coherent_factor(nodes, **{k: v[rows] for k, v in reduce.items()})
-        s_lines = supply_function_ev(
-            nodes,
-            mu_emitter_ev=mu_e[rows][:, None],
-            mu_collector_ev=mu_c[rows][:, None],
-            kt_ev=kt[rows][:, None],
-        )
-        np.add.at(integral, rows, np.sum(node_weights * t_lines * s_lines, axis=-1))
     # of the sign of the bias, as T >= 0 and the supply has that sign everywhere (the
     # weights are not all >= 0 where two resolved lines' intervals overlap)
     sign = np.sign(bias)
     integral = sign * np.maximum(sign * integral, 0.0)
-    if broadening_ev > 0.0 and grid.n_resonances > 0:
+    if broadening_ev > 0.0 and lines is not None:
         removed, added = broadened_lines(
-            **lines,
+            **lines.found,
             low_ev=low,
             high_ev=high,
-            supply=lambda e: supply_function_ev(
-                e,
-                mu_emitter_ev=mu_e[..., None, None],
-                mu_collector_ev=mu_c[..., None, None],
-                kt_ev=kt[..., None, None],
-            ),
+            supply=_supply_of(mu_e[..., None, None], mu_c[..., None, None], kt[..., None, None]),
             broadening_ev=broadening_ev,
             kt_ev=kt,
         )
@@ -439,19 +372,147 @@ def current_density_a_cm2(
         integral = integral + sequential
     mass_e = table.mass_m0[:, 0][:, None]
     j = TSU_ESAKI_A_M2_EV2 * mass_e * integral * 1e-4
-    if grid.n_resonances > 0:
-        estimate = _cell_errors(coarse, t_coarse * supply, a, b, valid).sum(axis=-1)
+    rough = _rough(coarse, t_coarse * supply, lines, integral, low=low, high=high, grid=grid)
+    if rough.any():
+        j = _refined(j, rough, profile, table, bias, grid, broadening_ev, scattering)
+    return j
+
+
+@dataclass(frozen=True)
+class _Lines:
+    """Lines of T found on the coarse grid of each (stack, bias)."""
+
+    found: dict  #: every line found (center_ev, width_ev, peak, valid): broadened, reservoirs
+    center: np.ndarray  #: the lines resolved by their own rule, ``batch + (n_resonances,)``
+    width: np.ndarray
+    valid: np.ndarray  #: which slots hold a resolved line
+    a: np.ndarray  #: each resolved line's integration interval [a, b]
+    b: np.ndarray
+
+
+def _find_lines(profile, coarse, u, t_coarse, supply, *, low, high, mu_e, mu_c, kt, grid) -> _Lines:
+    """The lines of ``T`` on the coarse grid, and those to be resolved with their intervals.
+
+    ``coarse`` (nodes), ``t_coarse`` and ``supply`` are ``batch + (n,)`` on the map ``u``
+    of :func:`current_density_a_cm2`; the other arrays are batch-shaped.
+    """
+    # refine every candidate peak, then keep those carrying most current: a resonance of
+    # 1 ueV width looks tiny on the coarse grid, its weight (pi/2) T_p Gamma S(E_r) does not
+    n_cand = max(grid.n_candidates, grid.n_resonances)
+    # the maxima of T S, not of T: a wide well has more lines than candidates, and
+    # those above the barriers (T ~ 1, no supply) would crowd out those that carry
+    # the current (measured: a 14 nm InSb well lost its main line, -12 %)
+    index, valid = local_peaks(t_coarse, n_cand, weight=np.abs(supply))
+    # the peak heights only rank the candidates (and scale the broadening): the
+    # parabola's value is good enough, no extra evaluation
+    center, width, peak = refine_grid_peaks(
+        coarse,
+        t_coarse,
+        index,
+        valid,
+        profile=profile,
+        iterations=grid.refine_iterations,
+        exact_peak=False,
+    )
+    # at least the regular grid's spacing at its first node (the edge nodes' spacing is
+    # no scale for a line's integration interval: its tails beyond are left to the
+    # coarse nodes' linear interpolant)
+    first_node = (high - low)[..., None] * u[EDGE_NODES_U.size + 1] ** 2
+    cell = np.diff(coarse, axis=-1)
+    wider = np.maximum(
+        np.concatenate([cell[..., :1], cell], -1), np.concatenate([cell, cell[..., -1:]], -1)
+    )
+    spacing = np.maximum(wider, 2.0 * first_node)  # the wider cell beside each node
+    spacing = np.take_along_axis(spacing, index, axis=-1)
+    valid &= (
+        np.isfinite(width) & (width > 0) & (center > low[..., None]) & (center < high[..., None])
+    )
+    supply_r = np.abs(
+        supply_function_ev(
+            center,
+            mu_emitter_ev=mu_e[..., None],
+            mu_collector_ev=mu_c[..., None],
+            kt_ev=kt[..., None],
+        )
+    )
+    share = np.where(valid, np.nan_to_num(peak * width * supply_r), -1.0)
+    valid = _distinct(center, width, valid, share)
+    share = np.where(valid, share, -1.0)
+    # every line found, resolved or not, is broadened
+    lines: dict = {"center_ev": center, "width_ev": width, "peak": peak, "valid": valid}
+    others, others_valid = center, valid
+    # what the coarse rule could get wrong on a line it does not resolve: up to T_p S
+    # over a cell, far more than the line's own share T_p Gamma S when it is narrow
+    stake = np.where(valid, np.nan_to_num(peak * np.maximum(width, spacing) * supply_r), -1.0)
+    keep = np.argsort(-stake, axis=-1)[..., : grid.n_resonances]
+    narrow = np.sum(np.where(width < kt[..., None], np.maximum(share, 0.0), 0.0), axis=-1)
+    center, width, spacing, valid, stake = (
+        np.take_along_axis(x, keep, axis=-1) for x in (center, width, spacing, valid, stake)
+    )
+    # a line is resolved where the coarse nodes cannot integrate it (narrower than
+    # RESOLVE_SPACINGS of their spacing) and their error on it could reach MIN_SHARE
+    # of the current of the lines narrower than kT (a broad feature's T_p Gamma is no
+    # measure of the current)
+    valid &= (width < RESOLVE_SPACINGS * spacing) & (stake >= MIN_SHARE * narrow[..., None])
+    center = np.where(valid, center, high[..., None])
+    width = np.where(valid, np.maximum(width, 1e-15), 1.0)  # widths of 2e-14 eV measured
+    half_span = np.maximum(
+        _coarse_reach(center - low[..., None], (high - low)[..., None], grid.n_coarse),
+        LINE_SPAN_WIDTHS * width,
+    )
+    a, b = _line_intervals(center, half_span, width, others, others_valid, low, high)
+    return _Lines(found=lines, center=center, width=width, valid=valid, a=a, b=b)
+
+
+def _supply_of(mu_e, mu_c, kt):
+    """The supply function of these contacts as a function of energy alone."""
+    return lambda e: supply_function_ev(e, mu_emitter_ev=mu_e, mu_collector_ev=mu_c, kt_ev=kt)
+
+
+def _leave_line_intervals(weights, coarse, lines: _Lines) -> None:
+    """Take each resolved line's interval out of the coarse rule's ``weights`` (in place)."""
+    for r in range(lines.a.shape[-1]):
+        m = lines.valid[..., r]
+        if m.any():
+            weights[m] -= _linear_weights(coarse[m], lines.a[..., r][m], lines.b[..., r][m])
+
+
+def _rough(coarse, f, lines: _Lines | None, integral, *, low, high, grid) -> np.ndarray:
+    """The (stack, bias) whose coarse grid must be refined: the error estimate of the rule
+    on ``f = T S`` beyond :data:`REFINE_TOLERANCE` of the stack's largest current, or a
+    window too wide for the coarse spacing."""
+    if lines is not None:
+        estimate = _cell_errors(coarse, f, lines.a, lines.b, lines.valid).sum(axis=-1)
     else:
-        estimate = _cell_errors(coarse, t_coarse * supply, None, None, None).sum(axis=-1)
+        estimate = _cell_errors(coarse, f, None, None, None).sum(axis=-1)
     # against each stack's largest current in the batch: the accuracy asked of an I-V
     rough = estimate > REFINE_TOLERANCE * np.abs(integral).max(axis=-1, keepdims=True)
     # lines closer than the coarse spacing show as one maximum: in a wide window (a high
     # Fermi level, a hot contact, a large bias) the grid is refined whatever the estimate
     # (measured: InSb at 7e18 cm^-3 and -1.2 V, a 2.1 eV window, a line missed, -7 %)
     rough |= (high - low) / (grid.n_coarse - 1) > MAX_MEAN_SPACING_EV
-    if rough.any():
-        j = _refined(j, rough, profile, table, bias, grid, broadening_ev, scattering)
-    return j
+    return rough
+
+
+def _add_resolved_lines(integral, lines: _Lines, *, profile, low, mu_e, mu_c, kt, n_nodes, reduce):
+    """Add to ``integral`` (batch-shaped, in place) each resolved line's integral on its own
+    rule; ``reduce``: the scattering channel's states (:func:`coherent_factor`), or ``None``."""
+    # the resolved lines only (unused slots cost nothing), one row per line
+    where = np.nonzero(lines.valid)
+    rows = where[:-1]
+    nodes, node_weights = _line_rule(
+        lines.center[where], lines.width[where], lines.a[where], lines.b[where], low[rows], n_nodes
+    )
+    t_lines = transmission_rows(nodes, profile=profile, rows=rows)
+    if reduce is not None:
+        t_lines = t_lines * coherent_factor(nodes, **{k: v[rows] for k, v in reduce.items()})
+    s_lines = supply_function_ev(
+        nodes,
+        mu_emitter_ev=mu_e[rows][:, None],
+        mu_collector_ev=mu_c[rows][:, None],
+        kt_ev=kt[rows][:, None],
+    )
+    np.add.at(integral, rows, np.sum(node_weights * t_lines * s_lines, axis=-1))
 
 
 def _refined(j, rough, profile, table, bias, grid, broadening_ev, scattering):
