@@ -22,6 +22,15 @@
  * r_out like energy or None; rows: int64 buffer giving each energy group's profile,
  * or None (then n_groups = n_profiles, group g on profile g).
  * inv_hb2 = 1 / (hbar^2 / 2 m0) in 1/(eV nm^2).
+ *   refine_brackets(n_slices, edge, mass, alpha, width, inv_hb2, rows, x, y, iterations,
+ *                   extra_rounds, loose_bracket, loose_fit)
+ * the bracketing rounds of physics/resonances.py (refine_bracketed) on n brackets: x, y
+ * float64 buffers of 3 n values (energies and 1/T, updated in place), rows int64 (n), each
+ * bracket's profile. Each round evaluates the probes of every open bracket in one call of
+ * the kernel above, so the rounds cost no Python overhead.
+ *   poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,
+ *                  eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)
+ * the damped Newton iteration of physics/electrostatics.py (solve_poisson_1d), entry by entry.
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
@@ -229,6 +238,378 @@ static void kernel(int n, const double *edge, const double *mass, const double *
     }
 }
 
+static int need_double(Py_buffer *b, const char *name);
+
+/* ---- resonance bracketing (physics/resonances.py: refine_bracketed, _bracket_round) ----
+   The rounds that shrink a bracket of three energies around a transmission peak, the same
+   arithmetic as the numpy statement in resonances.py (which stays the reference and the
+   fallback; tests compare the two). NaN propagates as numpy's maximum/minimum/argmin do. */
+
+static inline double max_nan(double a, double b) { return (a != a || b != b) ? NAN : (a > b ? a : b); }
+static inline double min_nan(double a, double b) { return (a != a || b != b) ? NAN : (a < b ? a : b); }
+
+/* parabola_through: vertex offset u from x[1], curvature a and the parabola's minimum */
+static inline void parabola3(const double *x, const double *y, double *u_out, double *a_out,
+                             double *ymin_out)
+{
+    const double d0 = x[0] - x[1], d2 = x[2] - x[1];
+    const double s0 = (y[0] - y[1]) / d0, s2 = (y[2] - y[1]) / d2;
+    const double a = (s2 - s0) / (d2 - d0);
+    const double b = s0 - a * d0;
+    double u = a > 0.0 ? -b / (2.0 * a) : 0.0;
+    u = min_nan(max_nan(u, d0), d2);
+    *u_out = u;
+    *a_out = a;
+    *ymin_out = y[1] + b * u + a * (u * u);
+}
+
+static inline double half_width(double a, double ymin)
+{
+    return (a > 0.0 && ymin > 0.0) ? sqrt(fabs(ymin / a)) : NAN;
+}
+
+/* ordering of numpy's sort: NaN last */
+static inline int less_nan_last(double a, double b) { return a < b || (b != b && a == a); }
+
+static void refine_kernel(int n, const double *edge, const double *mass, const double *alpha,
+                          const double *width, const int64_t *peak_rows, Py_ssize_t n_peaks,
+                          double *x, double *y, int iterations, int extra_rounds,
+                          double loose_bracket, double loose_fit, double inv_hb2,
+                          Py_ssize_t *active, double *h_buf, double *u_buf, double *energy,
+                          int64_t *rows, double *t, int *n_probe)
+{
+    Py_ssize_t n_active = n_peaks;
+    for (Py_ssize_t i = 0; i < n_peaks; i++) active[i] = i;
+    for (int round = 0; round < iterations + extra_rounds; round++) {
+        if (round >= iterations) { /* extra rounds: lines not yet fitted or still loose */
+            Py_ssize_t kept = 0;
+            for (Py_ssize_t k = 0; k < n_active; k++) {
+                const Py_ssize_t i = active[k];
+                double u, a, ymin;
+                parabola3(x + 3 * i, y + 3 * i, &u, &a, &ymin);
+                const double half = half_width(a, ymin);
+                const int loose = (x[3 * i + 2] - x[3 * i]) > loose_fit * half;
+                if (!isfinite(half) || loose) active[kept++] = i;
+            }
+            n_active = kept;
+            if (n_active == 0) break;
+        }
+        /* probes of every active bracket: vertex -+ h, and the bisection of a loose one */
+        Py_ssize_t n_items = 0;
+        for (Py_ssize_t k = 0; k < n_active; k++) {
+            const Py_ssize_t i = active[k];
+            const double *xi = x + 3 * i, *yi = y + 3 * i;
+            double u, a, ymin;
+            parabola3(xi, yi, &u, &a, &ymin);
+            const double left = xi[1] - xi[0], right = xi[2] - xi[1];
+            const double vertex = xi[1] + u;
+            const double half = half_width(a, ymin);
+            const double room = min_nan(vertex - xi[0], xi[2] - vertex);
+            double h = isfinite(half) ? half : (a > 0.0 ? 0.05 : 0.25) * min_nan(left, right);
+            h = min_nan(max_nan(h, 1e-3 * room), 0.9 * room);
+            h_buf[k] = h;
+            u_buf[k] = u;
+            energy[n_items] = vertex - h;
+            rows[n_items++] = peak_rows[i];
+            energy[n_items] = vertex + h;
+            rows[n_items++] = peak_rows[i];
+            n_probe[k] = 2;
+            if (max_nan(left, right) > loose_bracket * h) {
+                const int go_left = u == 0.0 ? left > right : u > 0.0;
+                energy[n_items] = xi[1] + (go_left ? -0.5 * left : 0.5 * right);
+                rows[n_items++] = peak_rows[i];
+                n_probe[k] = 3;
+            }
+        }
+        kernel(n, edge, mass, alpha, width, rows, n_items, 1, energy, inv_hb2, t, NULL);
+        Py_ssize_t item = 0;
+        for (Py_ssize_t k = 0; k < n_active; k++) {
+            const Py_ssize_t i = active[k];
+            double xs[6], ys[6];
+            for (int c = 0; c < 3; c++) {
+                xs[c] = x[3 * i + c];
+                ys[c] = y[3 * i + c];
+            }
+            xs[3] = energy[item];
+            ys[3] = 1.0 / max_nan(t[item], 1e-150);
+            xs[4] = energy[item + 1];
+            ys[4] = 1.0 / max_nan(t[item + 1], 1e-150);
+            if (n_probe[k] == 3) {
+                xs[5] = energy[item + 2];
+                ys[5] = 1.0 / max_nan(t[item + 2], 1e-150);
+            } else { /* a repeat of the left end: never the best */
+                xs[5] = xs[0];
+                ys[5] = ys[0];
+            }
+            item += n_probe[k];
+            /* stable insertion sort by energy (numpy's stable argsort, NaN last) */
+            for (int p = 1; p < 6; p++) {
+                const double kx = xs[p], ky = ys[p];
+                int q = p;
+                while (q > 0 && less_nan_last(kx, xs[q - 1])) {
+                    xs[q] = xs[q - 1];
+                    ys[q] = ys[q - 1];
+                    q--;
+                }
+                xs[q] = kx;
+                ys[q] = ky;
+            }
+            /* the best interior sample (numpy's argmin: the first minimum, a NaN first) */
+            int best = 1;
+            for (int p = 2; p < 5; p++) {
+                if (ys[best] != ys[best]) break;
+                if (ys[p] != ys[p] || ys[p] < ys[best]) best = p;
+            }
+            for (int c = 0; c < 3; c++) {
+                x[3 * i + c] = xs[best - 1 + c];
+                y[3 * i + c] = ys[best - 1 + c];
+            }
+        }
+    }
+}
+
+static PyObject *py_refine_brackets(PyObject *self, PyObject *args)
+{
+    int n, iterations, extra_rounds;
+    double inv_hb2, loose_bracket, loose_fit;
+    Py_buffer bv = {0}, bm = {0}, ba = {0}, bw = {0}, bi = {0}, bx = {0}, by = {0};
+    PyObject *result = NULL;
+    void *work = NULL;
+    (void)self;
+    if (!PyArg_ParseTuple(args, "iy*y*y*y*dy*w*w*iidd", &n, &bv, &bm, &ba, &bw, &inv_hb2, &bi,
+                          &bx, &by, &iterations, &extra_rounds, &loose_bracket, &loose_fit))
+        return NULL;
+    if (!(need_double(&bv, "edge") && need_double(&bm, "mass") && need_double(&ba, "alpha") &&
+          need_double(&bw, "width") && need_double(&bx, "x") && need_double(&by, "y")))
+        goto done;
+    const Py_ssize_t n_slice_values = bv.len / (Py_ssize_t)sizeof(double);
+    if (n < 2 || n_slice_values % n != 0 || bm.len != bv.len || ba.len != bv.len ||
+        bw.len != bv.len) {
+        PyErr_SetString(PyExc_ValueError, "slice buffers must hold n_profiles * n_slices values");
+        goto done;
+    }
+    const Py_ssize_t n_profiles = n_slice_values / n;
+    const Py_ssize_t n_peaks = bi.len / (Py_ssize_t)sizeof(int64_t);
+    if (bi.len != n_peaks * (Py_ssize_t)sizeof(int64_t) || bx.len != 3 * n_peaks * 8 ||
+        by.len != bx.len || iterations < 0 || extra_rounds < 0) {
+        PyErr_SetString(PyExc_ValueError, "rows: one int64 per bracket; x, y: 3 float64 each");
+        goto done;
+    }
+    const int64_t *peak_rows = bi.buf;
+    for (Py_ssize_t g = 0; g < n_peaks; g++) {
+        if (peak_rows[g] < 0 || peak_rows[g] >= n_profiles) {
+            PyErr_SetString(PyExc_IndexError, "rows: profile index out of range");
+            goto done;
+        }
+    }
+    if (n_peaks > 0) {
+        /* active, h, u: n_peaks each; energy, rows, t: 3 n_peaks each; n_probe: n_peaks */
+        const size_t bytes = (size_t)n_peaks * (3 * 8 + 3 * 8 + 3 * 8 + 3 * 8 + sizeof(int));
+        work = PyMem_RawMalloc(bytes);
+        if (!work) {
+            PyErr_NoMemory();
+            goto done;
+        }
+        char *p = work;
+        Py_ssize_t *active = (Py_ssize_t *)p;
+        p += (size_t)n_peaks * 8;
+        double *h_buf = (double *)p;
+        p += (size_t)n_peaks * 8;
+        double *u_buf = (double *)p;
+        p += (size_t)n_peaks * 8;
+        double *energy = (double *)p;
+        p += (size_t)n_peaks * 24;
+        int64_t *rows = (int64_t *)p;
+        p += (size_t)n_peaks * 24;
+        double *t = (double *)p;
+        p += (size_t)n_peaks * 24;
+        int *n_probe = (int *)p;
+        Py_BEGIN_ALLOW_THREADS
+        refine_kernel(n, bv.buf, bm.buf, ba.buf, bw.buf, peak_rows, n_peaks, bx.buf, by.buf,
+                      iterations, extra_rounds, loose_bracket, loose_fit, inv_hb2, active, h_buf,
+                      u_buf, energy, rows, t, n_probe);
+        Py_END_ALLOW_THREADS
+    }
+    result = Py_None;
+    Py_INCREF(result);
+done:
+    PyMem_RawFree(work);
+    PyBuffer_Release(&bv);
+    PyBuffer_Release(&bm);
+    PyBuffer_Release(&ba);
+    PyBuffer_Release(&bw);
+    PyBuffer_Release(&bi);
+    PyBuffer_Release(&bx);
+    PyBuffer_Release(&by);
+    return result;
+}
+
+/* ---- Poisson-Newton (physics/electrostatics.py: solve_poisson_1d) ----
+   The damped Newton iteration of the finite-volume Poisson equation with Thomas-Fermi
+   electrons, one batch entry at a time (each entry stops when its own largest update is
+   below the tolerance), the same arithmetic as the numpy statement in electrostatics.py;
+   the tridiagonal system is solved by the Thomas algorithm (the Jacobian is diagonally
+   dominant: off-diagonal g > 0, diagonal -(g + g) - q w |dn/dU|). */
+
+/* F_1/2 and its derivative from the spline of ln F_1/2 (_fermi_half_and_derivative) */
+static inline void fermi_half(double eta, const double *coef, Py_ssize_t n_cells, double lo,
+                              double step, double hi, double *f_out, double *df_out)
+{
+    if (eta != eta) {
+        *f_out = *df_out = NAN;
+        return;
+    }
+    if (eta < lo) {
+        const double f = exp(eta > -700.0 ? eta : -700.0);
+        *f_out = f;
+        *df_out = f;
+        return;
+    }
+    if (eta > hi) {
+        const double c = 4.0 / (3.0 * sqrt(M_PI)), e = eta > 0.0 ? eta : 0.0;
+        *f_out = c * pow(e, 1.5);
+        *df_out = 1.5 * c * sqrt(e);
+        return;
+    }
+    Py_ssize_t cell = (Py_ssize_t)((eta - lo) / step);
+    if (cell > n_cells - 1) cell = n_cells - 1;
+    const double dx = eta - (lo + (double)cell * step);
+    const double *c = coef + 4 * cell; /* cubic coefficient first */
+    const double f = exp(((c[0] * dx + c[1]) * dx + c[2]) * dx + c[3]);
+    *f_out = f;
+    *df_out = f * ((3.0 * c[0] * dx + 2.0 * c[1]) * dx + c[2]);
+}
+
+/* One entry: u (n) updated in place, electrons (n) written. Returns the iterations used,
+   or -(iterations) when the largest update was still above the tolerance (or not finite)
+   at the end; *worst gets the last largest update. */
+static int newton_entry(Py_ssize_t n, double *u, const double *g, const double *w,
+                        const double *donors, const double *offset, const double *mu,
+                        const double *mask, const double *fixed, const double *nc, double kt,
+                        const double *coef, Py_ssize_t n_cells, double lo, double step,
+                        double hi, double tolerance, int max_iterations, double max_step,
+                        double q, double *electrons, double *dn, double *cp, double *dp,
+                        double *worst)
+{
+    const Py_ssize_t m = n - 2; /* interior nodes */
+    for (int it = 1; it <= max_iterations; it++) {
+        for (Py_ssize_t i = 0; i < n; i++) {
+            double f, df;
+            fermi_half((mu[i] - offset[i] - u[i]) / kt, coef, n_cells, lo, step, hi, &f, &df);
+            electrons[i] = (mask[i] != 0.0 ? nc[i] * f : 0.0) + fixed[i];
+            dn[i] = mask[i] != 0.0 ? -nc[i] * df / kt : 0.0;
+        }
+        /* Thomas forward sweep on rows r = 0..m-1 (node j = r + 1) */
+        for (Py_ssize_t r = 0; r < m; r++) {
+            const Py_ssize_t j = r + 1;
+            const double residual = g[j] * (u[j + 1] - u[j]) - g[j - 1] * (u[j] - u[j - 1]) -
+                                    q * w[j] * (donors[j] - electrons[j]);
+            const double diag = -(g[j] + g[j - 1]) + q * w[j] * dn[j];
+            const double lower = r > 0 ? g[j - 1] : 0.0, upper = g[j];
+            const double den = r > 0 ? diag - lower * cp[r - 1] : diag;
+            cp[r] = upper / den;
+            dp[r] = ((-residual) - (r > 0 ? lower * dp[r - 1] : 0.0)) / den;
+        }
+        double biggest = 0.0;
+        int nan_seen = 0;
+        for (Py_ssize_t r = m - 1; r >= 0; r--) {
+            if (r < m - 1) dp[r] -= cp[r] * dp[r + 1];
+            const double a = fabs(dp[r]);
+            if (a != a) nan_seen = 1;
+            if (a > biggest) biggest = a;
+        }
+        if (nan_seen || !isfinite(biggest)) { /* diverged (numpy: a non-finite largest update) */
+            *worst = nan_seen ? NAN : biggest;
+            return -it;
+        }
+        const double limit = max_step / (biggest > 1e-300 ? biggest : 1e-300);
+        const double scale = limit < 1.0 ? limit : 1.0;
+        for (Py_ssize_t r = 0; r < m; r++) u[r + 1] += scale * dp[r];
+        *worst = biggest;
+        if (biggest < tolerance) {
+            for (Py_ssize_t i = 0; i < n; i++) {
+                double f, df;
+                fermi_half((mu[i] - offset[i] - u[i]) / kt, coef, n_cells, lo, step, hi, &f,
+                           &df);
+                electrons[i] = (mask[i] != 0.0 ? nc[i] * f : 0.0) + fixed[i];
+            }
+            return it;
+        }
+    }
+    return -max_iterations;
+}
+
+static PyObject *py_poisson_newton(PyObject *self, PyObject *args)
+{
+    Py_ssize_t n;
+    int max_iterations;
+    double lo, step, hi, tolerance, max_step, q;
+    Py_buffer bu = {0}, bg = {0}, bw = {0}, bd = {0}, bo = {0}, bmu = {0}, bmask = {0},
+              bf = {0}, bnc = {0}, bkt = {0}, bc = {0}, be = {0}, bi = {0};
+    PyObject *result = NULL;
+    double *work = NULL;
+    (void)self;
+    if (!PyArg_ParseTuple(args, "ny*w*y*y*y*y*y*y*y*y*y*y*dddddidw*", &n, &bi, &bu, &bg, &bw,
+                          &bd, &bo, &bmu, &bmask, &bf, &bnc, &bkt, &bc, &lo, &step, &hi,
+                          &tolerance, &max_step, &max_iterations, &q, &be))
+        return NULL;
+    Py_buffer *all[] = {&bu, &bg, &bw, &bd, &bo, &bmu, &bmask, &bf, &bnc, &bkt, &bc, &be, &bi};
+    const char *names[] = {"u", "g", "w", "donors", "offset", "mu", "mask", "fixed", "nc", "kt",
+                           "coef", "electrons"};
+    for (int k = 0; k < 12; k++)
+        if (!need_double(all[k], names[k])) goto done;
+    /* per entry: u, mu, fixed, electrons (n values each); per profile row: g (n - 1), w,
+       donors, offset, mask, nc (n each), kt (one) */
+    const Py_ssize_t n_entries = bi.len / 8, n_rows = bkt.len / 8;
+    if (n < 3 || bi.len != n_entries * 8 || bu.len != n_entries * n * 8 || bmu.len != bu.len ||
+        bf.len != bu.len || be.len != bu.len || bg.len != n_rows * (n - 1) * 8 ||
+        bw.len != n_rows * n * 8 || bd.len != bw.len || bo.len != bw.len ||
+        bmask.len != bw.len || bnc.len != bw.len || bc.len % 32 != 0 || bc.len == 0) {
+        PyErr_SetString(PyExc_ValueError, "poisson_newton: inconsistent buffer sizes");
+        goto done;
+    }
+    const int64_t *rows = bi.buf;
+    for (Py_ssize_t b = 0; b < n_entries; b++) {
+        if (rows[b] < 0 || rows[b] >= n_rows) {
+            PyErr_SetString(PyExc_IndexError, "poisson_newton: row index out of range");
+            goto done;
+        }
+    }
+    work = PyMem_RawMalloc((size_t)(3 * n) * sizeof(double));
+    if (!work) {
+        PyErr_NoMemory();
+        goto done;
+    }
+    int most = 0, failed = 0;
+    double worst = 0.0;
+    Py_BEGIN_ALLOW_THREADS
+    for (Py_ssize_t b = 0; b < n_entries; b++) {
+        double last = 0.0;
+        const Py_ssize_t o = b * n, r = (Py_ssize_t)rows[b] * n;
+        const int used = newton_entry(
+            n, (double *)bu.buf + o, (const double *)bg.buf + (Py_ssize_t)rows[b] * (n - 1),
+            (const double *)bw.buf + r, (const double *)bd.buf + r, (const double *)bo.buf + r,
+            (const double *)bmu.buf + o, (const double *)bmask.buf + r,
+            (const double *)bf.buf + o, (const double *)bnc.buf + r,
+            ((const double *)bkt.buf)[rows[b]], bc.buf, bc.len / 32, lo, step, hi, tolerance,
+            max_iterations, max_step, q, (double *)be.buf + o, work, work + n, work + 2 * n,
+            &last);
+        if (used < 0) {
+            failed = 1;
+            most = -used;
+            worst = last;
+            break;
+        }
+        most = used > most ? used : most;
+    }
+    Py_END_ALLOW_THREADS
+    result = Py_BuildValue("iid", most, failed, worst);
+done:
+    PyMem_RawFree(work);
+    for (int k = 0; k < 13; k++) PyBuffer_Release(all[k]);
+    return result;
+}
+
 static int need_double(Py_buffer *b, const char *name)
 {
     if (b->len % (Py_ssize_t)sizeof(double) != 0) {
@@ -313,6 +694,17 @@ static PyMethodDef methods[] = {
      " rows)\n\n"
      "Fill t_out (and r_out unless None) with T(E) (and R(E)): energy group g (n_energy values)"
      " on profile rows[g] (g itself where rows is None)."},
+    {"refine_brackets", py_refine_brackets, METH_VARARGS,
+     "refine_brackets(n_slices, edge, mass, alpha, width, inv_hb2, rows, x, y, iterations,"
+     " extra_rounds, loose_bracket, loose_fit)\n\n"
+     "The bracketing rounds of physics.resonances.refine_bracketed on brackets x (n, 3) with"
+     " y = 1/T (both float64, updated in place), bracket i on profile rows[i] (int64)."},
+    {"poisson_newton", py_poisson_newton, METH_VARARGS,
+     "poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,"
+     " eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)\n\n"
+     "Damped Newton solve of physics.electrostatics.solve_poisson_1d per entry (u, mu, fixed,"
+     " electrons per entry; g, w, donors, offset, mask, nc, kt per profile row rows[entry]);"
+     " u and electrons updated in place; returns (iterations, failed, last largest update)."},
     {NULL, NULL, 0, NULL},
 };
 

@@ -74,10 +74,12 @@ from .bands import Profile, SliceGrid, builtin_offset_ev, profile_from_potential
 from .constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, VACUUM_PERMITTIVITY_F_M
 from .fermi import (
     effective_density_of_states_cm3,
+    fermi_dirac_half_spline,
     fermi_dirac_half_tabulated,
     fermi_dirac_zero,
     fermi_level_ev,
 )
+from .transmission import compiled_kernel
 
 if TYPE_CHECKING:
     from .stack import LayerTable
@@ -120,6 +122,94 @@ class PoissonSolution:
     electron_cm3: np.ndarray  #: Thomas-Fermi electrons plus the well charge
     iterations: int
     well_sheet_cm2: np.ndarray | None = None  #: electrons in the well, cm^-2, ``batch``
+
+
+def _fixed_parts(
+    shape,
+    *,
+    width_nm,
+    permittivity_r,
+    donor_cm3,
+    band_offset_ev,
+    mass_m0,
+    temperature_k,
+    electron_mask,
+):
+    """The parts of :func:`solve_poisson_1d`'s system that do not change with ``U``, in SI
+    units, broadcast to ``shape`` (``batch + (n_nodes,)``): widths (m), permittivities,
+    donors (m^-3), band offsets, the electron mask, kT ``batch + (1,)``, N_c (m^-3) and the
+    conductances between neighbouring centres ``batch + (n_nodes - 1,)`` (F/m^2)."""
+    batch = shape[:-1]
+    w = np.broadcast_to(width_nm, shape) * 1e-9
+    eps = np.broadcast_to(permittivity_r, shape) * VACUUM_PERMITTIVITY_F_M
+    donors = np.broadcast_to(donor_cm3, shape) * 1e6
+    offset = np.broadcast_to(band_offset_ev, shape)
+    mask = np.broadcast_to(electron_mask, shape)
+    kt = np.broadcast_to(BOLTZMANN_EV_K * np.asarray(temperature_k, float), batch)[..., None]
+    nc = (
+        effective_density_of_states_cm3(
+            np.broadcast_to(mass_m0, shape),
+            temperature_k=np.broadcast_to(kt / BOLTZMANN_EV_K, shape),
+        )
+        * 1e6
+    )
+    # conductance between neighbouring centres: 1/G = (w_i/2)/eps_i + (w_i+1/2)/eps_i+1
+    resist = 0.5 * w[..., :-1] / eps[..., :-1] + 0.5 * w[..., 1:] / eps[..., 1:]
+    if np.any(resist <= 0):
+        raise ValueError("two neighbouring Poisson nodes both have zero width")
+    return w, eps, donors, offset, mask, kt, nc, 1.0 / resist
+
+
+class _NewtonSystem:
+    """The parts of the Poisson system that stay fixed while the well charge is iterated
+    (conductances, widths, donors, band offsets, where electrons are counted, N_c, kT; SI
+    units as in :func:`solve_poisson_1d`), one row per profile, for the compiled Newton
+    iteration (``physics/_slices.c``: ``poisson_newton``)."""
+
+    def __init__(self, *, g, w, donors, offset, mask, nc, kt):
+        def c(a):
+            return np.ascontiguousarray(a, dtype=float)
+
+        self.g, self.w, self.donors, self.offset = c(g), c(w), c(donors), c(offset)
+        self.mask, self.nc, self.kt = c(mask), c(nc), c(kt).reshape(-1)
+
+    def solve(self, rows, u, mu, fixed, *, tolerance_ev, max_iterations, max_step_ev):
+        """Solve entry ``e`` (rows of ``u``, ``mu``, ``fixed`` in eV, eV, m^-3; ``u`` holds
+        the start with the boundary values in place) on profile row ``rows[e]``; returns the
+        potential, the electron density (m^-3) and the largest number of steps used."""
+        n = self.w.shape[-1]
+        u = np.array(u, dtype=float, order="C", copy=True)
+        electrons = np.empty(u.shape)
+        used, failed, worst = compiled_kernel("poisson_newton")(
+            n,
+            np.ascontiguousarray(rows, dtype=np.int64),
+            u,
+            self.g,
+            self.w,
+            self.donors,
+            self.offset,
+            np.ascontiguousarray(mu, dtype=float),
+            self.mask,
+            np.ascontiguousarray(fixed, dtype=float),
+            self.nc,
+            self.kt,
+            *fermi_dirac_half_spline(),
+            float(tolerance_ev),
+            float(max_step_ev),
+            int(max_iterations),
+            ELEMENTARY_CHARGE_C,
+            electrons,
+        )
+        if failed and not np.isfinite(worst):
+            raise ElectrostaticsConvergenceError(
+                f"Poisson-Newton iteration diverged (non-finite update) at step {used}"
+            )
+        if failed:
+            raise ElectrostaticsConvergenceError(
+                f"Poisson-Newton iteration did not converge in {max_iterations} steps: "
+                f"largest update {worst:.3g} eV > tolerance {tolerance_ev:g} eV"
+            )
+        return u, electrons, used
 
 
 def solve_poisson_1d(
@@ -173,26 +263,18 @@ def solve_poisson_1d(
     n_nodes = shape[-1]
     u[..., 0] = np.broadcast_to(left_ev, batch)
     u[..., -1] = np.broadcast_to(right_ev, batch)
-    w = np.broadcast_to(width_nm, shape) * 1e-9
-    eps = np.broadcast_to(permittivity_r, shape) * VACUUM_PERMITTIVITY_F_M
-    donors = np.broadcast_to(donor_cm3, shape) * 1e6
-    offset = np.broadcast_to(band_offset_ev, shape)
-    mu = np.broadcast_to(fermi_ev, shape)
-    mask = np.broadcast_to(electron_mask, shape)
-    fixed = np.broadcast_to(np.asarray(fixed_electron_cm3, float) * 1e6, shape)
-    kt = np.broadcast_to(BOLTZMANN_EV_K * np.asarray(temperature_k, float), batch)[..., None]
-    nc = (
-        effective_density_of_states_cm3(
-            np.broadcast_to(mass_m0, shape),
-            temperature_k=np.broadcast_to(kt / BOLTZMANN_EV_K, shape),
-        )
-        * 1e6
+    w, eps, donors, offset, mask, kt, nc, g = _fixed_parts(
+        shape,
+        width_nm=width_nm,
+        permittivity_r=permittivity_r,
+        donor_cm3=donor_cm3,
+        band_offset_ev=band_offset_ev,
+        mass_m0=mass_m0,
+        temperature_k=temperature_k,
+        electron_mask=electron_mask,
     )
-    # conductance between neighbouring centres: 1/G = (w_i/2)/eps_i + (w_i+1/2)/eps_i+1
-    resist = 0.5 * w[..., :-1] / eps[..., :-1] + 0.5 * w[..., 1:] / eps[..., 1:]
-    if np.any(resist <= 0):
-        raise ValueError("two neighbouring Poisson nodes both have zero width")
-    g = 1.0 / resist  # F/m^2, batch + (n_nodes - 1,)
+    mu = np.broadcast_to(fermi_ev, shape)
+    fixed = np.broadcast_to(np.asarray(fixed_electron_cm3, float) * 1e6, shape)
     q = ELEMENTARY_CHARGE_C
 
     def density(u_):
@@ -203,6 +285,33 @@ def solve_poisson_1d(
         return n, dn_du
 
     flat_batch = int(np.prod(batch)) if batch else 1
+    if compiled_kernel("poisson_newton") is not None and n_nodes >= 3:
+        # the same iteration compiled, each entry to its own tolerance (the loop below is
+        # the reference; tests/test_kernel_backends.py compares the two)
+        flat = int(np.prod(batch)) if batch else 1
+        system = _NewtonSystem(
+            g=g.reshape(flat, n_nodes - 1),
+            w=w.reshape(flat, n_nodes),
+            donors=donors.reshape(flat, n_nodes),
+            offset=offset.reshape(flat, n_nodes),
+            mask=mask.reshape(flat, n_nodes),
+            nc=nc.reshape(flat, n_nodes),
+            kt=kt.reshape(flat),
+        )
+        u_flat, electrons, used = system.solve(
+            np.arange(flat),
+            u.reshape(flat, n_nodes),
+            mu.reshape(flat, n_nodes),
+            fixed.reshape(flat, n_nodes),
+            tolerance_ev=tolerance_ev,
+            max_iterations=max_iterations,
+            max_step_ev=max_step_ev,
+        )
+        return PoissonSolution(
+            potential_ev=u_flat.reshape(shape),
+            electron_cm3=electrons.reshape(shape) * 1e-6,
+            iterations=used,
+        )
     for iteration in range(1, max_iterations + 1):
         n, dn_du = density(u)
         flux = g * np.diff(u, axis=-1)  # C/m^2 (U in V-equivalent eV)
@@ -392,12 +501,48 @@ def solve_stack_poisson(
     well_slices = inside & (offset < np.maximum(offset[:, :1], offset[:, -1:]) + BARRIER_EV)
     well_nm = np.sum(np.where(well_slices, grid.width_nm, 0.0), axis=1)
 
-    def poisson(start, well_cm2):
+    system = None
+    if compiled_kernel("poisson_newton") is not None and li.size >= 3:
+        # the stacks' fixed parts once for every bias and well-charge step (compiled Newton)
+        w, _, donors, offset_si, mask, kt, nc, g = _fixed_parts(
+            (n_stacks, li.size),
+            width_nm=grid.width_nm,
+            permittivity_r=table.permittivity_r[:, li],
+            donor_cm3=table.doping_cm3[:, li],
+            band_offset_ev=offset,
+            mass_m0=table.mass_m0[:, li],
+            temperature_k=table.temperature_k,
+            electron_mask=~inside,
+        )
+        system = _NewtonSystem(
+            g=g, w=w, donors=donors, offset=offset_si, mask=mask, nc=nc, kt=kt[:, 0]
+        )
+
+    def poisson(start, well_cm2, fermi, right):
         fixed = np.where(
             well_slices[:, None, :],
             (well_cm2 / np.maximum(well_nm, 1e-9)[:, None] * 1e7)[:, :, None],
             0.0,
         )
+        if system is not None:  # as solve_poisson_1d below, without rebuilding the fixed parts
+            shape = right.shape + (li.size,)
+            u0 = np.array(np.broadcast_to(start, shape), dtype=float, order="C", copy=True)
+            u0[..., 0] = 0.0
+            u0[..., -1] = right
+            u, electrons, used = system.solve(
+                np.repeat(np.arange(n_stacks), right.shape[1]),
+                u0.reshape(-1, li.size),
+                np.broadcast_to(fermi, shape).reshape(-1, li.size),
+                (np.broadcast_to(fixed, shape) * 1e6).reshape(-1, li.size),
+                tolerance_ev=tolerance_ev,
+                max_iterations=max_iterations,
+                max_step_ev=max_step_ev,
+            )
+            return PoissonSolution(
+                potential_ev=u.reshape(shape),
+                electron_cm3=electrons.reshape(shape) * 1e-6,
+                iterations=used,
+            )
         return solve_poisson_1d(
             width_nm=grid.width_nm[:, None, :],
             permittivity_r=table.permittivity_r[:, li][:, None, :],
@@ -407,9 +552,9 @@ def solve_stack_poisson(
             mass_m0=table.mass_m0[:, li][:, None, :],
             temperature_k=table.temperature_k[:, None],
             electron_mask=~inside[:, None, :],
-            left_ev=np.zeros(bias.shape),
+            left_ev=np.zeros(right.shape),
             right_ev=right,
-            initial_ev=np.broadcast_to(start, bias.shape + (li.size,)),
+            initial_ev=np.broadcast_to(start, right.shape + (li.size,)),
             tolerance_ev=tolerance_ev,
             max_iterations=max_iterations,
             fixed_electron_cm3=fixed,
@@ -422,7 +567,7 @@ def solve_stack_poisson(
         else np.broadcast_to(initial_well_cm2, bias.shape).copy()
     )
     has_well = np.any(well_nm > 0)
-    solution = poisson(initial_ev, well if well_charge and has_well else 0.0 * well)
+    solution = poisson(initial_ev, well if well_charge and has_well else 0.0 * well, fermi, right)
     if not (well_charge and has_well):
         return grid, replace(solution, well_sheet_cm2=np.zeros(bias.shape))
     mass_w = np.array(
@@ -440,16 +585,51 @@ def solve_stack_poisson(
     settled = np.zeros(bias.shape, bool)  # collapsed again: a jump of F, accepted at the jump
     frozen = np.zeros(bias.shape)
     push = np.full(bias.shape, 0.5)  # growth of the step past the target (see below)
+    # A bias column whose every stack has converged is finished: its potential, density and
+    # charge go to the outputs and the iteration goes on with the open columns only (the
+    # columns are independent problems; each is kept as it was when it converged).
+    out_u, out_n, out_well = (
+        solution.potential_ev.copy(),
+        solution.electron_cm3.copy(),
+        well.copy(),
+    )
+    cols, most = np.arange(bias.shape[1]), 0
     for outer in range(1, max_well_iterations + 1):
         target, _ = well_sheet_density_cm2(
             table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w
         )
         residual = target - well
         done = (np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2) | settled
-        if np.all(done):
-            return grid, replace(
-                solution, well_sheet_cm2=well, iterations=solution.iterations + outer
+        finished = np.all(done, axis=0)
+        if np.any(finished):
+            out_u[:, cols[finished]] = solution.potential_ev[:, finished]
+            out_n[:, cols[finished]] = solution.electron_cm3[:, finished]
+            out_well[:, cols[finished]] = well[:, finished]
+            most = max(most, solution.iterations + outer)
+            if np.all(finished):
+                return grid, PoissonSolution(
+                    potential_ev=out_u, electron_cm3=out_n, iterations=most, well_sheet_cm2=out_well
+                )
+            keep = ~finished
+            cols = cols[keep]
+            solution = replace(
+                solution,
+                potential_ev=solution.potential_ev[:, keep],
+                electron_cm3=solution.electron_cm3[:, keep],
             )
+            bias, fermi, right = bias[:, keep], fermi[:, keep], right[:, keep]
+            target, residual, done, well = (
+                target[:, keep],
+                residual[:, keep],
+                done[:, keep],
+                well[:, keep],
+            )
+            lo, r_lo, lo_known = lo[:, keep], r_lo[:, keep], lo_known[:, keep]
+            hi, r_hi, last_side = hi[:, keep], r_hi[:, keep], last_side[:, keep]
+            reopened, settled, frozen = reopened[:, keep], settled[:, keep], frozen[:, keep]
+            push = push[:, keep]
+            if previous is not None:
+                previous = (previous[0][:, keep], previous[1][:, keep])
         # Root of residual(well) = F(well) - well per (stack, bias). F >= 0, so a root lies in
         # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi). Until hi is
         # found, secant (or mixing) steps; then regula falsi with the Illinois modification
@@ -507,7 +687,7 @@ def solve_stack_poisson(
             well = np.where(first, target, well)
             previous = None
         well = np.where(settled, frozen, well)
-        solution = poisson(solution.potential_ev, well)
+        solution = poisson(solution.potential_ev, well, fermi, right)
     raise ElectrostaticsConvergenceError(
         f"well-charge iteration did not converge in {max_well_iterations} steps: largest change "
         f"{float(np.max(np.abs(residual))):.3g} cm^-2"

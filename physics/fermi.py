@@ -32,6 +32,7 @@ __all__ = [
     "fermi_dirac_zero",
     "fermi_dirac_half",
     "fermi_dirac_half_tabulated",
+    "fermi_dirac_half_spline",
     "reduced_fermi_level",
     "fermi_level_ev",
     "joyce_dixon_reduced_fermi_level",
@@ -175,6 +176,19 @@ def fermi_dirac_half_tabulated(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]
         f = np.where(high, c * np.maximum(eta, 0.0) ** 1.5, f)
         df = np.where(high, 1.5 * c * np.sqrt(np.maximum(eta, 0.0)), df)
     return f, df
+
+
+def fermi_dirac_half_spline() -> tuple[np.ndarray, float, float, float]:
+    """The table :func:`fermi_dirac_half_tabulated` evaluates, for compiled code doing the same.
+
+    Returns
+    -------
+    coef, eta_lo, eta_step, eta_hi
+        Cubic coefficients of ``ln F_1/2`` per cell ``(n_cells, 4)``, highest power first,
+        on the uniform cells from ``eta_lo`` by ``eta_step`` to ``eta_hi`` (built on first use).
+    """
+    fermi_dirac_half_tabulated(np.zeros(1))
+    return _TABLE["coef"], _ETA_LO, _ETA_STEP, _ETA_HI
 
 
 def reduced_fermi_level(density_ratio):

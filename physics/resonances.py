@@ -25,7 +25,7 @@ import numpy as np
 
 from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR_J_S
-from .transmission import transmission, transmission_rows
+from .transmission import compiled_bracket_rounds, transmission, transmission_rows
 
 __all__ = [
     "Resonances",
@@ -217,6 +217,8 @@ def refine_bracketed(
     """
     x = np.array(bracket_ev, float)
     y = 1.0 / np.maximum(np.asarray(bracket_t, float), 1e-150)  # 1/T <= 1e150: parabolas finite
+    if x.shape[0] and _compiled_rounds(x, y, profile, rows, iterations):
+        return _final_vertex(x, y, profile, rows, exact_peak)
     active = np.arange(x.shape[0])
     for round_ in range(iterations + EXTRA_ROUNDS):
         if round_ >= iterations:  # extra rounds only for lines not yet fitted or bracketed
@@ -229,6 +231,31 @@ def refine_bracketed(
         x[active], y[active] = _bracket_round(
             x[active], y[active], profile, tuple(r[active] for r in rows)
         )
+    return _final_vertex(x, y, profile, rows, exact_peak)
+
+
+def _compiled_rounds(x, y, profile, rows, iterations) -> bool:
+    """The rounds of :func:`refine_bracketed` in the compiled kernel (``x``, ``y`` updated in
+    place), where it is the kernel in use; False (nothing done) otherwise.
+
+    The same arithmetic as the loop over :func:`_bracket_round` (the readable reference,
+    which the numpy backend runs; ``tests/test_kernel_backends.py`` compares the two), with
+    every round's probes in one kernel call and no Python work per round.
+    """
+    return compiled_bracket_rounds(
+        x,
+        y,
+        profile=profile,
+        rows=rows,
+        iterations=iterations,
+        extra_rounds=EXTRA_ROUNDS,
+        loose_bracket=LOOSE_BRACKET,
+        loose_fit=LOOSE_FIT,
+    )
+
+
+def _final_vertex(x, y, profile, rows, exact_peak):
+    """Centre, width and peak T of the refined brackets (the end of :func:`refine_bracketed`)."""
     u, a, y_min = parabola_through(x, y)
     half = _half_width(a, y_min)
     fitted = np.isfinite(half)

@@ -232,6 +232,57 @@ def transmission_where(
     return out
 
 
+def compiled_kernel(name: str):
+    """The compiled routine ``name`` of the extension where the compiled kernel is the one in
+    use (not forced to numpy, built with that routine); None otherwise, and the caller runs
+    its numpy reference."""
+    routine = getattr(_slices, name, None)
+    if routine is None or _backend(None) != "compiled":
+        return None
+    return routine
+
+
+def compiled_bracket_rounds(
+    x: np.ndarray,
+    y: np.ndarray,
+    *,
+    profile: Profile,
+    rows: tuple[np.ndarray, ...],
+    iterations: int,
+    extra_rounds: int,
+    loose_bracket: float,
+    loose_fit: float,
+) -> bool:
+    """Run the bracketing rounds of :func:`physics.resonances.refine_bracketed` compiled.
+
+    ``x``, ``y`` ``(n, 3)`` (energies and 1/T of each bracket, bracket ``i`` on the
+    profile ``rows`` gives) are updated in place. Returns False, doing nothing, where the
+    default backend is not the compiled kernel (the caller then runs its numpy rounds).
+    """
+    rounds = compiled_kernel("refine_brackets")
+    if rounds is None:
+        return False
+    if profile.batch_shape:
+        flat = np.ravel_multi_index(rows, profile.batch_shape).astype(np.int64)
+    else:  # one profile for every bracket
+        flat = np.zeros(x.shape[0], np.int64)
+    xs, ys = np.ascontiguousarray(x, dtype=float), np.ascontiguousarray(y, dtype=float)
+    rounds(
+        profile.n_slices,
+        *profile.slice_arrays,
+        1.0 / HBAR2_2M0_EV_NM2,
+        np.ascontiguousarray(flat),
+        xs,
+        ys,
+        int(iterations),
+        int(extra_rounds),
+        float(loose_bracket),
+        float(loose_fit),
+    )
+    x[...], y[...] = xs, ys
+    return True
+
+
 def _backend(backend: str | None) -> str:
     if backend is None:
         if DEFAULT_BACKEND not in BACKENDS:

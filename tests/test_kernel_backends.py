@@ -146,3 +146,70 @@ def test_unknown_kernel_in_environment_is_one_line_exit_2(tmp_path, monkeypatch,
     err = capsys.readouterr().err
     assert "WELLWRIGHT_KERNEL" in err and "compiled" in err and len(err.strip().splitlines()) == 1
     assert not out.exists()
+
+
+# The compiled resonance bracketing and Poisson-Newton iteration against their numpy
+# statements (physics.resonances.refine_bracketed, physics.electrostatics.solve_poisson_1d),
+# which run where the default backend is numpy.
+
+
+def _on_numpy(monkeypatch, fn):
+    with monkeypatch.context() as m:
+        m.setattr(kernel, "DEFAULT_BACKEND", "numpy")
+        return fn()
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 2**31 - 1), bias=st.floats(0.0, 0.6))
+def test_compiled_resonance_bracketing_agrees(seed: int, bias: float) -> None:
+    # the rounds' logic alone: the same compiled T(E) under both, the numpy rounds where
+    # the compiled ones are switched off
+    from wellwright.physics import resonances
+    from wellwright.physics.resonances import find_resonances
+
+    rng = np.random.default_rng(seed)
+    barrier = rng.uniform(0.2, 1.2)
+    table = custom_table(
+        [0.0, barrier, 0.0, barrier, 0.0],
+        [0.067, 0.09, 0.067, 0.09, 0.067],
+        [0.0, rng.uniform(0.5, 6.0), rng.uniform(2.0, 12.0), rng.uniform(0.5, 6.0), 0.0],
+        alphas_per_ev=rng.uniform(0.0, 2.0, 5),
+    )
+    p = linear_profile(table, np.linspace(0.0, bias, 7))
+
+    def run():
+        return find_resonances(p, energy_min_ev=1e-6, energy_max_ev=barrier, n_coarse=64)
+
+    with pytest.MonkeyPatch().context() as m:
+        m.setattr(resonances, "compiled_bracket_rounds", lambda *a, **k: False)
+        ref = run()
+    got = run()
+    np.testing.assert_array_equal(got.valid, ref.valid)
+    for name in ("energy_ev", "width_ev", "peak_transmission"):
+        np.testing.assert_allclose(getattr(got, name), getattr(ref, name), rtol=1e-12, atol=0)
+
+
+@pytest.mark.parametrize("study", ["gaas_low_power_memory.toml", "inp_thz_oscillator.toml"])
+def test_compiled_poisson_newton_agrees(study: str, monkeypatch) -> None:
+    # each entry of the compiled iteration stops at its own largest update < 1e-7 eV, the
+    # numpy one when the whole batch is there: the potentials agree to the tolerance's order
+    from wellwright.physics.electrostatics import (
+        ElectrostaticsConvergenceError,
+        solve_stack_poisson,
+    )
+    from wellwright.physics.stack import load_stack
+
+    table = load_stack(Path(__file__).resolve().parents[1] / "studies" / study).table()
+    bias = np.linspace(0.0, 0.8, 9)
+    g_ref, ref = _on_numpy(monkeypatch, lambda: solve_stack_poisson(table, bias))
+    g_got, got = solve_stack_poisson(table, bias)
+    np.testing.assert_allclose(got.potential_ev, ref.potential_ev, rtol=0, atol=1e-6)
+    # well charge: the iteration's own tolerance (WELL_TOLERANCE relative, 1e7 cm^-2)
+    np.testing.assert_allclose(got.well_sheet_cm2, ref.well_sheet_cm2, rtol=3e-4, atol=3e7)
+    big = ref.electron_cm3 > 1e10
+    np.testing.assert_allclose(got.electron_cm3[big], ref.electron_cm3[big], rtol=1e-4)
+    for run in (lambda: solve_stack_poisson(table, bias, max_iterations=1),):
+        with pytest.raises(ElectrostaticsConvergenceError, match="did not converge"):
+            _on_numpy(monkeypatch, run)
+        with pytest.raises(ElectrostaticsConvergenceError, match="did not converge"):
+            run()
