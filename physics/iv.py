@@ -337,13 +337,35 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
     return center, sign * best, drop_v, drop_j
 
 
-def _up_branch(table, model, grid, vp, v_after, j_after, v_end):
+def _solve_at(table, bias_v, model):
+    """Self-consistent solve (grid, solution) as :func:`band_profile` makes it: all biases
+    at once, by continuation where that does not converge."""
+    from .electrostatics import ElectrostaticsConvergenceError, solve_by_continuation
+
+    try:
+        return solve_stack_poisson(table, bias_v, slice_nm=model.slice_nm)
+    except ElectrostaticsConvergenceError:
+        return solve_by_continuation(table, bias_v, slice_nm=model.slice_nm)
+
+
+def _take_solution(solution, rows):
+    """The stacks ``rows`` of a solution ``(n_stacks, n_biases, ...)``."""
+    return replace(
+        solution,
+        potential_ev=solution.potential_ev[rows],
+        electron_cm3=solution.electron_cm3[rows],
+        well_sheet_cm2=None if solution.well_sheet_cm2 is None else solution.well_sheet_cm2[rows],
+    )
+
+
+def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
     """Where the self-consistent I-V is bistable above its peak: the up sweep's branch.
 
     Every bias of a sweep is solved from the linear drop with no well charge,
     which lands on the low-charge branch where two solutions exist. The up
     sweep (a curve tracer going up) instead carries the well charge past the
-    peak. This solves the peak bias ``vp``, continues that solution to
+    peak. This takes the solve at the peak bias ``vp`` (``peak``: grid and
+    solution, the one made for the peak's band profile), continues it to
     ``v_after`` (the nearest refinement sample above the peak that had
     fallen by :data:`NDR_DROP`, current ``j_after``) and, where the continued
     current exceeds ``j_after`` by :data:`BISTABLE_EXCESS`, follows the
@@ -362,7 +384,7 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end):
     from .electrostatics import ElectrostaticsConvergenceError
 
     options = {"slice_nm": model.slice_nm}
-    g, sol = solve_stack_poisson(table, vp[:, None], **options)
+    sol = peak[1]  # the solve at vp (made for the peak's band profile)
 
     def continued(v, state):
         g_, s_ = solve_stack_poisson(
@@ -494,13 +516,21 @@ def sweep(
     metrics["pvcr"][rows] = jp / np.where(jv > 0, jv, np.nan)
     metrics["delta_current_density_a_cm2"][rows] = jp - jv
     metrics["delta_voltage_v"][rows] = np.abs(vv - vp)
+    peak_solution = None  # the self-consistent solve at the peak, shared with the up branch
+    if model.electrostatics == "self-consistent":
+        peak_solution = _solve_at(table.take(rows), vp[:, None], model)
+        peak_profile = profile_from_potential(
+            table.take(rows), peak_solution[0], peak_solution[1].potential_ev
+        )
+    else:
+        peak_profile = band_profile(table.take(rows), vp[:, None], model=model)
     metrics.update(
         device_figures(
             table,
             np.abs(v_side),
             j_side,
             metrics,
-            peak_profile=band_profile(table.take(rows), vp[:, None], model=model),
+            peak_profile=peak_profile,
             rows=rows,
             series_resistance_ohm_um2=series_resistance_ohm_um2,
         )
@@ -512,8 +542,16 @@ def sweep(
         after = np.isfinite(after_v[: rows.size]) & (after_v[: rows.size] < vv)
         if np.any(after):
             k = np.nonzero(after)[0]
+            assert peak_solution is not None
             up_v, up_j, fold = _up_branch(
-                table.take(rows[k]), model, grid, vp[k], after_v[k], after_j[k], vv[k]
+                table.take(rows[k]),
+                model,
+                grid,
+                vp[k],
+                after_v[k],
+                after_j[k],
+                vv[k],
+                peak=(peak_solution[0], _take_solution(peak_solution[1], k)),
             )
             vp_up, jp_up, window = vp.copy(), jp.copy(), window.copy()
             better = up_j > jp[k]

@@ -319,12 +319,13 @@ def coherent_factor(energy_ev, *, center_ev, width_ev, valid, gamma_s_ev):
 
 def _theta(z, edge, mass, width, run, lo, hi):
     """WKB transparency ``exp(-2 int kappa dz)`` of the barrier ``run`` at energies ``z`` ``(..., L, K)``."""
-    acc = np.zeros(z.shape)
-    for j in range(lo, hi):  # the recursion over the barrier's slices
-        h = edge[..., j, None, None] - z
-        kap = np.sqrt(mass[..., j, None, None] * np.maximum(h, 0.0) / HBAR2_2M0_EV_NM2)
-        acc += np.where(run[..., j, None, None], kap * width[..., j, None, None], 0.0)
-    return np.exp(-2.0 * acc)
+    if hi <= lo:
+        return np.ones(z.shape)
+    # every slice of the barrier at once (axis -3 of the slices; z gets that axis too)
+    h = edge[..., lo:hi, None, None] - z[..., None, :, :]
+    kap = np.sqrt(mass[..., lo:hi, None, None] * np.maximum(h, 0.0) / HBAR2_2M0_EV_NM2)
+    acc = np.where(run[..., lo:hi, None, None], kap * width[..., lo:hi, None, None], 0.0)
+    return np.exp(-2.0 * np.sum(acc, axis=-3))
 
 
 def _lead_coupling(z, lead_edge, lead_mass, edge, mass, width, run, outer, lo, hi):
