@@ -1,22 +1,32 @@
-"""Benchmark: the default model against the fast linear coherent one (issues 7 and 12).
+"""Benchmark: the default model against the fast linear coherent one (issues 7, 12 and 15).
 
-Prints the median time of a 61-point I-V (peak/valley refinement included)
-of the demo stack with the linear drop and the coherent current, with the
-self-consistent electrostatics, with the scattering-assisted channel, and
-with both (the default model), measured side by side in one run, and their
-ratios to the linear coherent one. Also the same with scattering broadening
-(3 meV), and an up/down hysteresis sweep. Targets: self-consistent < 10
-(issue 7); the default model (self-consistent with the scattering-assisted
-channel) at most 10 (issue 12). Then the cost of the peak and valley refinement (issue
-12): no refinement, the former single round, and the zoom until the extremum is resolved.
+Prints the median time of a 61-point I-V (peak/valley refinement and the
+bistability check included) of the two example stacks with the linear drop
+and the coherent current, with the self-consistent electrostatics, with the
+scattering-assisted channel, and with both (the default model), and their
+ratios to the linear coherent one. The models are timed in turn, one I-V of
+each per round, so that a change of the shared machine's load falls on all of
+them alike. Targets: self-consistent < 10 (issue 7); the default model
+(self-consistent with the scattering-assisted channel) at most 10 (issue 12).
+Then the cost of the peak and valley refinement on the GaAs stack: no
+refinement, the former single round, and the zoom until the extremum is resolved.
 
-Run: ``python benchmarks/bench_electrostatics.py [--quick]``.
+``--baseline REF`` also times the same I-Vs with the code of the git commit
+``REF`` (before/after): the commit is unpacked into a temporary folder, its
+compiled kernel built there, and one worker process per tree (this one and the
+baseline) times the I-Vs, the two taking turns I-V by I-V.
+
+Run: ``python benchmarks/bench_electrostatics.py [--quick] [--baseline REF]``.
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 import os
+import subprocess
+import sys
+import tempfile
 from dataclasses import replace
 from pathlib import Path
 
@@ -24,80 +34,228 @@ os.environ.setdefault("OMP_NUM_THREADS", "1")
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
-from timing import median_time  # noqa: E402
-from wellwright.physics import iv  # noqa: E402
-from wellwright.physics.iv import (
-    sweep,  # noqa: E402
-    sweep_hysteresis,  # noqa: E402
-)
-from wellwright.physics.stack import load_stack  # noqa: E402
 
-STUDY = Path(__file__).resolve().parents[1] / "studies" / "gaas_low_power_memory.toml"
+REPO = Path(__file__).resolve().parents[1]
+STUDIES = {
+    "GaAs": REPO / "studies" / "gaas_low_power_memory.toml",
+    "InP": REPO / "studies" / "inp_thz_oscillator.toml",
+}
+BIAS = np.linspace(0.0, 0.8, 61)
+#: name -> (electrostatics, transport, broadening_mev)
+MODELS = {
+    "linear coherent": ("linear", "coherent", 0.0),
+    "self-consistent coherent": ("self-consistent", "coherent", 0.0),
+    "linear + scattering-assisted": ("linear", "scattering-assisted", 0.0),
+    "default (s.-c. + scat.-assisted)": ("self-consistent", "scattering-assisted", 0.0),
+}
+TARGETS = {
+    "self-consistent coherent": "< 10, issue 7",
+    "linear + scattering-assisted": "no target",
+    "default (s.-c. + scat.-assisted)": "<= 10, issue 12",
+}
 
 
-def main() -> None:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="fewer repeats")
-    args = parser.parse_args()
-    repeats = 3 if args.quick else 9
-    stack = load_stack(STUDY)
-    table = stack.table()
-    bias = np.linspace(0.0, 0.8, 61)
-    results = {}
-    coherent = replace(stack.model, transport="coherent")
-    assisted = replace(stack.model, transport="scattering-assisted")
-    for name, model in {
-        "linear": replace(coherent, electrostatics="linear"),
-        "self-consistent": replace(coherent, electrostatics="self-consistent"),
-        "linear + scattering-assisted": replace(assisted, electrostatics="linear"),
-        "default (s.-c. + scat.-assisted)": replace(assisted, electrostatics="self-consistent"),
-        "linear + 3 meV broadening": replace(coherent, electrostatics="linear", broadening_mev=3.0),
-        "self-consistent + 3 meV": replace(
-            coherent, electrostatics="self-consistent", broadening_mev=3.0
-        ),
-    }.items():
-        results[name] = median_time(
-            lambda m=model: sweep(table, bias, model=m), repeats, warmup=True
+def _model(stack, name):
+    electrostatics, transport, broadening = MODELS[name]
+    return replace(
+        stack.model, electrostatics=electrostatics, transport=transport, broadening_mev=broadening
+    )
+
+
+def _timed_sweep(study: str, model_name: str, stacks: dict) -> float:
+    """Wall time of one 61-point I-V, s (the stack loaded once per process)."""
+    import time
+
+    from wellwright.physics.iv import sweep
+    from wellwright.physics.stack import load_stack
+
+    if study not in stacks:
+        stacks[study] = load_stack(STUDIES[study])
+    stack = stacks[study]
+    model = _model(stack, model_name)
+    t0 = time.perf_counter()
+    sweep(stack.table(), BIAS, model=model)
+    return time.perf_counter() - t0
+
+
+def worker(tree: str) -> None:
+    """Answer ``study<TAB>model`` lines on stdin with one I-V's wall time (JSON) each."""
+    sys.path.insert(0, tree)
+    import wellwright.physics
+
+    print(json.dumps(str(Path(wellwright.physics.__file__).parent.resolve())), flush=True)
+    stacks: dict = {}
+    for line in sys.stdin:
+        study, model_name = line.rstrip("\n").split("\t")
+        print(json.dumps(_timed_sweep(study, model_name, stacks)), flush=True)
+
+
+def _symlink_tree(repo: Path, into: Path) -> Path:
+    """A folder where ``import wellwright`` finds ``repo``'s physics/ and optimize/."""
+    (into / "wellwright").mkdir(parents=True)
+    for part in ("physics", "optimize"):
+        (into / "wellwright" / part).symlink_to(repo / part)
+    return into
+
+
+def _baseline_repo(ref: str, into: Path) -> Path:
+    """Commit ``ref`` unpacked into ``into`` with its compiled kernel built in place."""
+    archive = subprocess.run(
+        ["git", "-C", str(REPO), "archive", ref], check=True, capture_output=True
+    ).stdout
+    into.mkdir(parents=True)
+    subprocess.run(["tar", "-x", "-C", str(into)], input=archive, check=True)
+    subprocess.run(
+        [sys.executable, "setup.py", "-q", "build_ext", "--inplace"],
+        cwd=into,
+        check=True,
+        capture_output=True,
+    )
+    if not list((into / "physics").glob("_slices*.so")):
+        raise SystemExit(f"the compiled kernel of {ref} did not build")
+    return into
+
+
+class _Worker:
+    def __init__(self, tree: Path) -> None:
+        env = dict(os.environ, PYTHONPATH=str(tree))
+        self.proc = subprocess.Popen(
+            [sys.executable, __file__, "--worker", str(tree)],
+            stdin=subprocess.PIPE,
+            stdout=subprocess.PIPE,
+            text=True,
+            env=env,
+            cwd=tempfile.gettempdir(),  # never the repository: import the tree's code
         )
-        print(f"61-point I-V, {name:34s} {1e3 * results[name]:8.1f} ms")
-    for name, target in (
-        ("self-consistent", "< 10, issue 7"),
-        ("linear + scattering-assisted", "no target"),
-        ("default (s.-c. + scat.-assisted)", "<= 10, issue 12"),
-    ):
-        ratio = results[name] / results["linear"]
-        print(f"ratio {name} / linear coherent: {ratio:.2f} ({target})")
-    sc = replace(assisted, electrostatics="self-consistent")
-    print("cost of the peak/valley refinement (issue 12), same 61-point I-V:")
-    for name, model in (
-        ("linear coherent", replace(coherent, electrostatics="linear")),
-        ("self-consistent coherent", replace(coherent, electrostatics="self-consistent")),
-        ("default", sc),
-    ):
-        times = {}
+        assert self.proc.stdout is not None
+        loaded = json.loads(self.proc.stdout.readline())
+        if Path(loaded) != (tree / "wellwright" / "physics").resolve():
+            raise SystemExit(f"worker for {tree} imported {loaded}")
+
+    def time(self, study: str, model_name: str) -> float:
+        assert self.proc.stdin is not None and self.proc.stdout is not None
+        self.proc.stdin.write(f"{study}\t{model_name}\n")
+        self.proc.stdin.flush()
+        return float(json.loads(self.proc.stdout.readline()))
+
+    def close(self) -> None:
+        if self.proc.stdin:
+            self.proc.stdin.close()
+        self.proc.wait()
+
+
+def _interleaved(timers: dict, repeats: int) -> dict:
+    """Median of ``repeats`` calls of each timer, called in turn (one warm-up call each)."""
+    for fn in timers.values():
+        fn()
+    samples: dict = {k: [] for k in timers}
+    for _ in range(repeats):
+        for k, fn in timers.items():
+            samples[k].append(fn())
+    return {k: float(np.median(v)) for k, v in samples.items()}
+
+
+def ratios(repeats: int) -> None:
+    """Default model and the others against the linear coherent one, in this process."""
+    stacks: dict = {}
+    for study in STUDIES:
+        times = _interleaved(
+            {m: (lambda s=study, m=m: _timed_sweep(s, m, stacks)) for m in MODELS}, repeats
+        )
+        print(f"{study} example, 61-point I-V with refinement (medians of {repeats}, in turn):")
+        for name, t in times.items():
+            print(f"  {name:34s} {1e3 * t:8.1f} ms")
+        for name, target in TARGETS.items():
+            ratio = times[name] / times["linear coherent"]
+            print(f"  ratio {name} / linear coherent: {ratio:.2f} ({target})")
+
+
+def refinement_cost(repeats: int) -> None:
+    from wellwright.physics import iv
+    from wellwright.physics.stack import load_stack
+
+    stack = load_stack(STUDIES["GaAs"])
+    table = stack.table()
+    print("cost of the peak/valley refinement (issue 12), GaAs, same 61-point I-V:")
+    for name in ("linear coherent", "self-consistent coherent", "default (s.-c. + scat.-assisted)"):
+        model = _model(stack, name)
+        timers = {}
         for label, refine, rounds in (
             ("no refinement", False, iv.REFINE_MAX_ROUNDS),
             ("one round (before)", True, 1),
             ("zoom until resolved", True, iv.REFINE_MAX_ROUNDS),
         ):
-            saved, iv.REFINE_MAX_ROUNDS = iv.REFINE_MAX_ROUNDS, rounds
-            try:
-                times[label] = median_time(
-                    lambda m=model, r=refine: sweep(table, bias, model=m, refine=r),
-                    repeats,
-                    warmup=True,
-                )
-            finally:
-                iv.REFINE_MAX_ROUNDS = saved
+
+            def run(refine=refine, rounds=rounds, model=model):
+                import time
+
+                saved, iv.REFINE_MAX_ROUNDS = iv.REFINE_MAX_ROUNDS, rounds
+                try:
+                    t0 = time.perf_counter()
+                    iv.sweep(table, BIAS, model=model, refine=refine)
+                    return time.perf_counter() - t0
+                finally:
+                    iv.REFINE_MAX_ROUNDS = saved
+
+            timers[label] = run
+        times = _interleaved(timers, repeats)
         base = times["no refinement"]
         print(
-            f"  {name:24s} "
+            f"  {name:32s} "
             + ", ".join(f"{k} {1e3 * t:.1f} ms ({t / base:.2f}x)" for k, t in times.items())
         )
-    t_h = median_time(
-        lambda: sweep_hysteresis(table, bias, model=sc), max(1, repeats // 3), warmup=True
-    )
-    print(f"up+down hysteresis sweep, 61 points each, default model: {1e3 * t_h:.1f} ms")
+
+
+def before_after(ref: str, repeats: int) -> None:
+    with tempfile.TemporaryDirectory() as tmp:
+        base = _baseline_repo(ref, Path(tmp) / "repo")
+        workers = {
+            "before": _Worker(_symlink_tree(base, Path(tmp) / "before")),
+            "after": _Worker(_symlink_tree(REPO, Path(tmp) / "after")),
+        }
+        try:
+            print(
+                f"before ({ref}) / after (this tree), each in its own process, I-V by I-V "
+                f"in turn (medians of {repeats}):"
+            )
+            for study in STUDIES:
+                timers = {
+                    (side, m): (lambda w=w, s=study, m=m: w.time(s, m))
+                    for m in ("linear coherent", "default (s.-c. + scat.-assisted)")
+                    for side, w in workers.items()
+                }
+                times = _interleaved(timers, repeats)
+                for side in workers:
+                    lin = times[(side, "linear coherent")]
+                    default = times[(side, "default (s.-c. + scat.-assisted)")]
+                    print(
+                        f"  {study} {side:6s}: linear coherent {1e3 * lin:7.1f} ms, default "
+                        f"{1e3 * default:7.1f} ms, ratio default / linear {default / lin:.2f}"
+                    )
+                speedup = (
+                    times[("before", "default (s.-c. + scat.-assisted)")]
+                    / times[("after", "default (s.-c. + scat.-assisted)")]
+                )
+                print(f"  {study} default model, before / after: {speedup:.2f}x")
+        finally:
+            for w in workers.values():
+                w.close()
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="fewer repeats")
+    parser.add_argument("--baseline", metavar="REF", help="also time the code of commit REF")
+    parser.add_argument("--worker", help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.worker:
+        worker(args.worker)
+        return
+    repeats = 3 if args.quick else 9
+    ratios(repeats)
+    refinement_cost(repeats)
+    if args.baseline:
+        before_after(args.baseline, repeats)
 
 
 if __name__ == "__main__":
