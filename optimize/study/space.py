@@ -202,13 +202,8 @@ def parameter_key(variables: Sequence[Variable], params: dict[str, Any]) -> tupl
     return tuple(round(float(params[v.name]), 12) if v.name in params else None for v in variables)
 
 
-def parse_space(
-    data: dict[str, Any], *, source: str
-) -> tuple[dict[str, Any], tuple[Variable, ...], dict[str, Any]]:
-    """Split layers into fixed values and ranges; resolve ``same_as``."""
-    raw_layers = data.get("layers")
-    if not isinstance(raw_layers, list) or not all(isinstance(x, dict) for x in raw_layers):
-        raise InputError("needs a list of [[layers]] tables", source=source, key="layers")
+def _layer_names(raw_layers: list[dict[str, Any]], *, source: str) -> list[str]:
+    """Each layer's name (the default rule where it has none), checked and unique."""
     n = len(raw_layers)
     names = []
     for i, raw in enumerate(raw_layers):
@@ -226,43 +221,57 @@ def parse_space(
             )
         names.append(nm)
 
-    layer_growth: dict[str, Any] = {}
-    layers: list[dict[str, Any]] = []
-    ranges: dict[tuple[int, str], dict[str, Any]] = {}
-    for i, raw in enumerate(raw_layers):
-        fixed: dict[str, Any] = {"name": names[i]}
-        for key, value in raw.items():
-            if key == "name":
-                continue
-            if key == "growth":
-                if not isinstance(value, dict):
-                    raise InputError(
-                        "must be a table, e.g. growth = {...}",
-                        source=source,
-                        layer=i,
-                        layer_name=names[i],
-                        key=key,
-                    )
-                layer_growth[names[i]] = copy.deepcopy(value)
-                continue
-            if key == "same_as":
-                fixed["same_as"] = value
-                continue
-            if isinstance(value, dict):
-                if key not in RANGE_KEYS:
-                    raise InputError(
-                        f"cannot be a range; keys that may be ranges: {', '.join(RANGE_KEYS)}",
-                        source=source,
-                        layer=i,
-                        layer_name=names[i],
-                        key=key,
-                    )
-                ranges[(i, key)] = value
-                continue
-            fixed[key] = value
-        layers.append(fixed)
+    return names
 
-    # same_as: a tied layer takes every key of its reference (resolved through chains)
+
+def _split_layer(
+    raw: dict[str, Any], *, index: int, name: str, source: str
+) -> tuple[dict[str, Any], dict[str, Any] | None, dict[str, dict[str, Any]]]:
+    """A layer's fixed keys (with ``same_as``), its ``growth`` table and its ranges by key."""
+    i = index
+    growth = None
+    ranges: dict[str, dict[str, Any]] = {}
+    fixed: dict[str, Any] = {"name": name}
+    for key, value in raw.items():
+        if key == "name":
+            continue
+        if key == "growth":
+            if not isinstance(value, dict):
+                raise InputError(
+                    "must be a table, e.g. growth = {...}",
+                    source=source,
+                    layer=i,
+                    layer_name=name,
+                    key=key,
+                )
+            growth = copy.deepcopy(value)
+            continue
+        if key == "same_as":
+            fixed["same_as"] = value
+            continue
+        if isinstance(value, dict):
+            if key not in RANGE_KEYS:
+                raise InputError(
+                    f"cannot be a range; keys that may be ranges: {', '.join(RANGE_KEYS)}",
+                    source=source,
+                    layer=i,
+                    layer_name=name,
+                    key=key,
+                )
+            ranges[key] = value
+            continue
+        fixed[key] = value
+    return fixed, growth, ranges
+
+
+def _resolve_same_as(
+    layers: list[dict[str, Any]],
+    raw_layers: list[dict[str, Any]],
+    names: list[str],
+    *,
+    source: str,
+) -> dict[int, int]:
+    """``same_as``: the layer each tied layer takes every key of (resolved through chains)."""
     resolved: dict[int, int] = {}
     for i, layer in enumerate(layers):
         if "same_as" not in layer:
@@ -308,6 +317,27 @@ def parse_space(
                 )
             seen.add(j)
         resolved[i] = j
+    return resolved
+
+
+def parse_space(
+    data: dict[str, Any], *, source: str
+) -> tuple[dict[str, Any], tuple[Variable, ...], dict[str, Any]]:
+    """Split layers into fixed values and ranges; resolve ``same_as``."""
+    raw_layers = data.get("layers")
+    if not isinstance(raw_layers, list) or not all(isinstance(x, dict) for x in raw_layers):
+        raise InputError("needs a list of [[layers]] tables", source=source, key="layers")
+    names = _layer_names(raw_layers, source=source)
+    layer_growth: dict[str, Any] = {}
+    layers: list[dict[str, Any]] = []
+    ranges: dict[tuple[int, str], dict[str, Any]] = {}
+    for i, raw in enumerate(raw_layers):
+        fixed, growth, layer_ranges = _split_layer(raw, index=i, name=names[i], source=source)
+        if growth is not None:
+            layer_growth[names[i]] = growth
+        ranges.update({(i, key): spec for key, spec in layer_ranges.items()})
+        layers.append(fixed)
+    resolved = _resolve_same_as(layers, raw_layers, names, source=source)
     for i, j in resolved.items():
         tied = {k: copy.deepcopy(v) for k, v in layers[j].items() if k not in ("name", "same_as")}
         tied["name"] = names[i]
