@@ -116,6 +116,35 @@ def test_stages_write_what_the_report_reads_and_a_rerun_adds_missing_records(tmp
     assert rec["stages"]["report"]["status"] == "done"
 
 
+def test_linked_calibration_is_kept_in_the_run_folder_and_a_change_is_not_skipped(tmp_path):
+    # the report is built from the run folder alone (issue 16), and a calibration shapes
+    # every result: the run keeps a copy, the report reads the copy, and a changed
+    # calibration is part of the stages' fingerprints (common practice: a stage is not
+    # skipped when an input changed); the search then meets its storage holding trials of
+    # the old model, which it refuses in one line (not silently reusing old designs)
+    from wellwright.optimize.report.build import build_report
+
+    cal = tmp_path / "cal" / "calibration.json"
+    cal.parent.mkdir()
+    record = {"kind": "wellwright calibration", "model": {"series_resistance_ohm_um2": 10.0}}
+    cal.write_text(json.dumps(record))
+    study = _tiny_study(tmp_path, '\n[calibration]\nfrom = "cal/calibration.json"\n')
+    out = tmp_path / "run"
+    run_pipeline(study, out_dir=out, progress=False)
+    assert json.loads((out / "calibration.json").read_text()) == record
+
+    cal.unlink()  # the original is gone: the report still says what the run used
+    (out / "report.html").unlink()
+    text = build_report(out).read_text(encoding="utf-8")
+    assert "calibrated against a measured device" in text
+    assert "series_resistance_ohm_um2 = 10" in text
+
+    record["model"]["series_resistance_ohm_um2"] = 30.0
+    cal.write_text(json.dumps(record))
+    with pytest.raises(InputError, match="search.study_name"):
+        run_pipeline(study, out_dir=out, progress=False)
+
+
 @pytest.mark.parametrize(
     ("extra", "match"),
     [

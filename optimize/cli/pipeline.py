@@ -4,6 +4,7 @@ A run folder ``DIR`` holds::
 
     DIR/pipeline.json        stage status, settings and fingerprints (this module)
     DIR/study.toml           the study file as it was when the run started
+    DIR/calibration.json     the calibration the study links to, as the run used it
     DIR/search/              the design search (designs.json, trials.csv, study.db, figures)
     DIR/tolerance/rankNN/    the tolerance analysis of each reported design; its design/
                              folder holds the nominal I-V, band diagram and T(E)
@@ -38,6 +39,7 @@ from wellwright.optimize.shared.outputs import (
 )
 from wellwright.optimize.study import run_folder
 from wellwright.optimize.study.run_folder import (
+    CALIBRATION_COPY,
     DESIGN_DIR,
     DESIGN_IV,
     DESIGN_RECORD,
@@ -45,6 +47,7 @@ from wellwright.optimize.study.run_folder import (
     PIPELINE_FILE,
     STUDY_COPY,
     fingerprint,
+    linked_calibration,
     load_run,
     stage_fingerprint,
     study_from_run,
@@ -327,10 +330,19 @@ def run_pipeline(
             key="--out",
             source=str(run_dir),
         )
+    # the linked calibration shapes every result: kept beside the study copy (the report
+    # reads it from there) and part of every stage's fingerprint (a new calibration reruns)
+    cal = linked_calibration(study)
+    cal_bytes = None if cal is None else cal.read_bytes()  # parse_study read it a moment ago
+    inputs = study_bytes if cal_bytes is None else study_bytes + b"\0calibration\0" + cal_bytes
     # the first bytes written are the study copy, so a run stopped at any later moment
     # (even before pipeline.json exists) is a run folder that the same command resumes
     remove_temporaries(run_dir)
     atomic_write(run_dir / STUDY_COPY, study_bytes)
+    if cal_bytes is not None:
+        atomic_write(run_dir / CALIBRATION_COPY, cal_bytes)
+    else:
+        (run_dir / CALIBRATION_COPY).unlink(missing_ok=True)
     old: dict[str, Any] = {}
     if (run_dir / PIPELINE_FILE).is_file():
         old = load_run(run_dir)
@@ -349,7 +361,7 @@ def run_pipeline(
         "stages": dict(old.get("stages", {})),
     }
     stages = record["stages"]
-    fp = _stage_fingerprints(study_bytes, s, None)
+    fp = _stage_fingerprints(inputs, s, None)
 
     # search
     prev = stages.get("search", {})
@@ -382,7 +394,7 @@ def run_pipeline(
         )
     if not chosen[0].get("feasible") and not continue_infeasible:
         raise SpecNotMet(closest_miss(study, chosen[0]))
-    fp = _stage_fingerprints(study_bytes, s, chosen)
+    fp = _stage_fingerprints(inputs, s, chosen)
 
     # tolerance, one design at a time
     tol = dict(stages.get("tolerance", {}))

@@ -17,6 +17,8 @@ from wellwright.physics.stack import parse_toml
 
 PIPELINE_FILE = "pipeline.json"
 STUDY_COPY = "study.toml"
+#: The calibration a study links to (``[calibration] from``), copied as the run used it.
+CALIBRATION_COPY = "calibration.json"
 FORMAT_VERSION = 1
 #: Inside ``tolerance/rankNN/``: the nominal design's curves and figures, written by the
 #: stage that computes them and copied into the report (which runs no physics).
@@ -84,11 +86,22 @@ def load_run(run_dir: str | Path) -> dict[str, Any]:
     return rec
 
 
+def linked_calibration(study: Study) -> Path | None:
+    """The calibration file a study links to (``[calibration] from``), else None."""
+    table = study.reserved.get("calibration") or {}
+    link = table.get("from")
+    return None if link is None else Path(study.source).parent / link
+
+
 def study_from_run(run_dir: str | Path, record: dict[str, Any]) -> Study:
-    """The study of a run, from the copy the run keeps (the original may have moved)."""
+    """The study of a run, from the copies the run keeps (the originals may have moved or
+    changed): the study file, and the calibration it links to."""
     d = Path(run_dir)
     text = (d / STUDY_COPY).read_text(encoding="utf-8")
     origin = record["study"]
-    return study_from_text(
-        text, source=origin["path"], name=origin["name"], base_dir=Path(origin["path"]).parent
-    )
+    source = origin["path"]
+    data = parse_toml(text, source=source)
+    table = data.get("calibration")
+    if isinstance(table, dict) and "from" in table and (d / CALIBRATION_COPY).is_file():
+        data = {**data, "calibration": {**table, "from": str((d / CALIBRATION_COPY).resolve())}}
+    return parse_study(data, source=source, name=origin["name"], base_dir=Path(source).parent)
