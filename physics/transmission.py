@@ -258,6 +258,19 @@ def compiled_bracket_rounds(
     ``x``, ``y`` ``(n, 3)`` (energies and 1/T of each bracket, bracket ``i`` on the
     profile ``rows`` gives) are updated in place. Returns False, doing nothing, where the
     default backend is not the compiled kernel (the caller then runs its numpy rounds).
+
+    Parameters
+    ----------
+    x, y
+        Energies (eV) and 1/T of each bracket, ``(n, 3)``, updated in place.
+    profile, rows
+        Bracket ``i`` is on the profile ``rows`` gives for it (one index array per batch axis).
+    iterations, extra_rounds
+        Rounds, and further rounds for brackets still loose, as in
+        :func:`physics.resonances.refine_bracketed`.
+    loose_bracket, loose_fit
+        Its :data:`~physics.resonances.LOOSE_BRACKET` (probe spreads) and
+        :data:`~physics.resonances.LOOSE_FIT` (half widths).
     """
     rounds = compiled_kernel("refine_brackets")
     if rounds is None:

@@ -209,6 +209,16 @@ def fractions_figure(result: PacketResult, t_expected: float, *, title: str = ""
 
     Linear scale above; logarithmic below, where a small well population or
     transmitted part (a narrow resonance) is still visible.
+
+    Parameters
+    ----------
+    result
+        The wave packet run.
+    t_expected
+        T(E) averaged over the packet's energies (:func:`expected_transmission`), drawn as the
+        expected transmitted fraction.
+    title
+        Figure title.
     """
     import matplotlib.pyplot as plt
     from wellwright.optimize.shared.figures import PALETTE, style
@@ -261,6 +271,13 @@ def density_figure(result: PacketResult, *, title: str = ""):
 
     Each row is one instant; the density is drawn with its baseline at the
     packet's centre energy and scaled to fit (separately in the two columns).
+
+    Parameters
+    ----------
+    result
+        The wave packet run (its snapshots, grid and band edge).
+    title
+        Figure title.
     """
     import matplotlib.pyplot as plt
     from wellwright.optimize.shared.figures import PALETTE, style

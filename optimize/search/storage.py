@@ -43,7 +43,15 @@ GRACE_PERIOD_S = 60
 
 
 def storage_url(storage: str | None, out_dir: str | Path) -> str:
-    """The storage URL: ``storage`` as given, or the SQLite file ``out_dir/study.db``."""
+    """The storage URL: ``storage`` as given, or the SQLite file ``out_dir/study.db``.
+
+    Parameters
+    ----------
+    storage
+        An Optuna storage URL, or ``None``.
+    out_dir
+        The search's output folder.
+    """
     if storage:
         return storage
     return f"sqlite:///{Path(out_dir).resolve() / 'study.db'}"
@@ -145,6 +153,15 @@ def open_study(
 ) -> optuna.Study:
     """Create the Optuna study or load it to resume, checking it was made from the same file.
 
+    Parameters
+    ----------
+    study
+        The study the search runs (its name, space, spec and sweep are checked).
+    storage
+        The Optuna storage.
+    sampler
+        Sampler of the Optuna study; Optuna's default when ``None``.
+
     Raises
     ------
     InputError
@@ -213,6 +230,13 @@ def fail_dead_trials(ostudy: optuna.Study, running: list[FrozenTrial]) -> int:
     any other running trial once it is older than ``GRACE_PERIOD_S`` (a search
     worker keeps its rows RUNNING for milliseconds; a trial with Optuna
     heartbeats is failed by Optuna's own rule when they stop).
+
+    Parameters
+    ----------
+    ostudy
+        The Optuna study.
+    running
+        Its trials in the RUNNING state.
     """
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)

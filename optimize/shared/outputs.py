@@ -39,7 +39,15 @@ def _publish(tmp: str, path: Path) -> None:
 
 def atomic_write(path: str | Path, data: str | bytes) -> Path:
     """Write ``data`` (text as UTF-8) to ``path`` via a temporary file in the same folder
-    and a rename: the one atomic writer; a reader sees the old file or the new one."""
+    and a rename: the one atomic writer; a reader sees the old file or the new one.
+
+    Parameters
+    ----------
+    path
+        File to write (a missing folder is made).
+    data
+        Contents: text (written as UTF-8) or bytes.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
@@ -54,7 +62,15 @@ def atomic_write(path: str | Path, data: str | bytes) -> Path:
 
 
 def atomic_write_text(path: str | Path, text: str) -> Path:
-    """Write ``text`` to ``path`` atomically (:func:`atomic_write`)."""
+    """Write ``text`` to ``path`` atomically (:func:`atomic_write`).
+
+    Parameters
+    ----------
+    path
+        File to write (a missing folder is made).
+    text
+        Contents, written as UTF-8.
+    """
     return atomic_write(path, text)
 
 
@@ -72,10 +88,30 @@ def json_ready(value: Any) -> Any:
 
 
 def write_json(path: str | Path, data: Any) -> Path:
+    """Write ``data`` as indented JSON to ``path`` atomically.
+
+    Parameters
+    ----------
+    path
+        File to write (a missing folder is made).
+    data
+        JSON-like data; numpy values become plain, NaN and inf ``None`` (:func:`json_ready`).
+    """
     return atomic_write_text(path, json.dumps(json_ready(data), indent=2) + "\n")
 
 
 def write_csv(path: str | Path, header: list[str], rows: Iterable[Iterable[Any]]) -> Path:
+    """Write a CSV file atomically: ``header``, then ``rows`` (``None`` as an empty cell).
+
+    Parameters
+    ----------
+    path
+        File to write (a missing folder is made).
+    header
+        Column names.
+    rows
+        One iterable of values per row, in the header's order.
+    """
     buf = io.StringIO()
     writer = csv.writer(buf)
     writer.writerow(header)
@@ -85,7 +121,17 @@ def write_csv(path: str | Path, header: list[str], rows: Iterable[Iterable[Any]]
 
 
 def save_figure(fig, path: str | Path, *, dpi: int = 130) -> Path:
-    """Save a matplotlib figure atomically as PNG and close it."""
+    """Save a matplotlib figure atomically as PNG and close it.
+
+    Parameters
+    ----------
+    fig
+        A matplotlib figure.
+    path
+        PNG file to write (a missing folder is made).
+    dpi
+        Resolution, dots per inch.
+    """
     import matplotlib.pyplot as plt
 
     path = Path(path)
@@ -109,6 +155,13 @@ def check_output_folder(path: str | Path, *, key: str = "--out") -> Path:
     Checked before a command writes anything: ``path`` must not be a file, nor lie
     under a file, and the folder (or its nearest existing parent) must be writable
     (a read-only folder or file system).
+
+    Parameters
+    ----------
+    path
+        The output folder.
+    key
+        Name of the option or key that gave it, for the message.
     """
     path = Path(path)
     if path.exists() and not path.is_dir():

@@ -78,6 +78,15 @@ def apply_calibration(data: dict[str, Any], *, source: str, base_dir: str | Path
 
     Returns ``data`` itself when there is no ``[calibration] from``.
 
+    Parameters
+    ----------
+    data
+        The parsed study or stack document.
+    source
+        Its file name, for messages.
+    base_dir
+        Folder a relative ``[calibration] from`` path is taken from.
+
     Raises
     ------
     InputError
@@ -156,7 +165,15 @@ def _apply_layers(
 
 
 def calibration_lines(reserved: dict[str, Any], *, base_dir: str | Path) -> list[str]:
-    """What a study's calibration link applied, in words (empty without a link)."""
+    """What a study's calibration link applied, in words (empty without a link).
+
+    Parameters
+    ----------
+    reserved
+        The study's ``[calibration]`` table.
+    base_dir
+        Folder a relative ``from`` path is taken from.
+    """
     table = reserved.get("calibration") or {}
     if "from" not in table:
         return []

@@ -77,7 +77,15 @@ class RunSettings:
 
 def check_settings(s: RunSettings, **where: Any) -> RunSettings:
     """Validate every setting; raises :class:`InputError` naming the key (``where``: the
-    source and a ``prefix`` for the key, e.g. ``report.`` or ``--``)."""
+    source and a ``prefix`` for the key, e.g. ``report.`` or ``--``).
+
+    Parameters
+    ----------
+    s
+        The settings.
+    **where
+        ``source`` and ``prefix`` (put before each key in the message).
+    """
     prefix = where.pop("prefix", "")
 
     def at(key: str) -> dict[str, Any]:
@@ -102,7 +110,15 @@ def check_settings(s: RunSettings, **where: Any) -> RunSettings:
 
 def settings_from_tables(report: Any, tolerance: Any, *, source: str | None = None) -> RunSettings:
     """Defaults, then ``[tolerance] designs``, then ``[report]``, validated, keys named as
-    the file has them."""
+    the file has them.
+
+    Parameters
+    ----------
+    report, tolerance
+        The study's ``[report]`` and ``[tolerance]`` tables (``None`` when absent).
+    source
+        The study file, for messages.
+    """
     report = {} if report is None else report
     tolerance = {} if tolerance is None else tolerance
     checks.table(
@@ -120,7 +136,15 @@ def settings_from_tables(report: Any, tolerance: Any, *, source: str | None = No
 
 
 def with_overrides(s: RunSettings, overrides: dict[str, Any] | None) -> RunSettings:
-    """``s`` with the command line's values (None: not given), each named as its option."""
+    """``s`` with the command line's values (None: not given), each named as its option.
+
+    Parameters
+    ----------
+    s
+        The study's settings.
+    overrides
+        Command-line values by setting name (``None``: not given); ``None``: no overrides.
+    """
     if not overrides:
         return s
     known = {f.name for f in fields(RunSettings)}

@@ -138,6 +138,17 @@ def parameters_of(
 ) -> dict[str, float]:
     """The variables' values in a stack whose layers carry the study's layer names.
 
+    Parameters
+    ----------
+    variables
+        The study's design variables.
+    stack
+        A stack with the study's layers.
+    layer_names
+        The study's layer names, in order.
+    source
+        Where the stack came from, for messages.
+
     Raises
     ------
     InputError
@@ -198,7 +209,15 @@ def grid_size(grid: dict[str, list[float | int]]) -> int:
 
 
 def parameter_key(variables: Sequence[Variable], params: dict[str, Any]) -> tuple:
-    """A hashable key of a parameter set (equal for the same design; rounding noise removed)."""
+    """A hashable key of a parameter set (equal for the same design; rounding noise removed).
+
+    Parameters
+    ----------
+    variables
+        The study's design variables.
+    params
+        Parameter values by variable name.
+    """
     return tuple(round(float(params[v.name]), 12) if v.name in params else None for v in variables)
 
 
@@ -323,7 +342,15 @@ def _resolve_same_as(
 def parse_space(
     data: dict[str, Any], *, source: str
 ) -> tuple[dict[str, Any], tuple[Variable, ...], dict[str, Any]]:
-    """Split layers into fixed values and ranges; resolve ``same_as``."""
+    """Split layers into fixed values and ranges; resolve ``same_as``.
+
+    Parameters
+    ----------
+    data
+        The study's stack document (``layers`` and the other stack keys).
+    source
+        The study file, for messages.
+    """
     raw_layers = data.get("layers")
     if not isinstance(raw_layers, list) or not all(isinstance(x, dict) for x in raw_layers):
         raise InputError("needs a list of [[layers]] tables", source=source, key="layers")
@@ -363,6 +390,21 @@ def parse_space(
 def parse_range(
     spec: dict[str, Any], *, name: str, key: str, layers: tuple[int, ...], source: str, index: int
 ) -> Variable:
+    """One range table of a layer key as a design :class:`Variable`.
+
+    Parameters
+    ----------
+    spec
+        The range table: ``min``, ``max`` and optionally ``step`` or ``log``.
+    name
+        The variable's name, ``<layer>.<key>``.
+    key
+        The layer key (``thickness_ml`` gives whole monolayers).
+    layers
+        Indices (from 0) of the layers it sets: the layer and those tied to it.
+    source, index
+        The study file and the layer index (from 0), for messages.
+    """
     integer = key == "thickness_ml"
     form = (
         "{min = 4, max = 12} in whole monolayers (optional step, log)"

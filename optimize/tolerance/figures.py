@@ -30,6 +30,17 @@ def _plt():
 
 
 def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> Path:
+    """Histograms of the figures of merit of the as-grown samples, with spec bounds and the nominal design.
+
+    Parameters
+    ----------
+    record
+        The tolerance record (spec, nominal figures, yield).
+    mc
+        The Monte Carlo samples (``metrics`` by name, in SI units).
+    path
+        PNG file to write.
+    """
     from wellwright.optimize.shared.outputs import save_figure
 
     plt = _plt()
@@ -73,6 +84,17 @@ def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> P
 
 
 def save_sobol(record: dict[str, Any], path: Path, *, key: str = "pass") -> Path | None:
+    """Bars of the first-order and total Sobol indices of up to 12 parameters; ``None`` without that table.
+
+    Parameters
+    ----------
+    record
+        The tolerance record.
+    path
+        PNG file to write.
+    key
+        The output the indices are of (``pass`` or a metric name).
+    """
     from wellwright.optimize.shared.outputs import save_figure
 
     table = record["sobol"].get(key)
@@ -108,6 +130,17 @@ def save_sobol(record: dict[str, Any], path: Path, *, key: str = "pass") -> Path
 def save_tornado(
     record: dict[str, Any], path: Path, *, metric: str = "peak_current_density_a_cm2"
 ) -> Path | None:
+    """Tornado chart: ``metric`` at each parameter's minus and plus settings around the nominal; ``None`` without data.
+
+    Parameters
+    ----------
+    record
+        The tolerance record.
+    path
+        PNG file to write.
+    metric
+        The figure of merit shown.
+    """
     from wellwright.optimize.shared.outputs import save_figure
 
     f, label = names.quantity(metric).factor, names.label(metric)
@@ -171,7 +204,15 @@ def _disk(ax, radius_mm: float, values_of_r, *, cmap: str, vmin: float, vmax: fl
 
 def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
     """Wafer map: pass probability by equal-area ring, nominal Jp across the wafer, and both
-    against the radius with the rings' Wilson intervals."""
+    against the radius with the rings' Wilson intervals.
+
+    Parameters
+    ----------
+    record
+        The tolerance record (its wafer section).
+    path
+        PNG file to write.
+    """
     from wellwright.optimize.shared.outputs import save_figure
 
     wafer = record.get("wafer")
@@ -241,6 +282,17 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
 
 
 def save_all(record: dict[str, Any], mc: dict[str, Any], out: Path) -> dict[str, str]:
+    """Every tolerance figure the record supports; returns their paths by name.
+
+    Parameters
+    ----------
+    record
+        The tolerance record.
+    mc
+        The Monte Carlo samples.
+    out
+        Output folder.
+    """
     files = {"histograms": str(save_histograms(record, mc, out / "histograms.png"))}
     p = save_wafer_map(record, out / "wafer_map.png")
     if p is not None:
