@@ -324,6 +324,17 @@ def parse_growth(
     Returns the global settings and, per layer name with an override, its
     settings (the global ones with the override applied).
 
+    Parameters
+    ----------
+    table
+        The study's ``[growth]`` table (``None`` when absent).
+    layer_growth
+        The layers' own ``growth`` tables by layer name.
+    layer_names
+        The study's layer names, in order (empty: not checked).
+    source
+        The study file, for messages.
+
     Raises
     ------
     InputError
@@ -332,6 +343,28 @@ def parse_growth(
     table = {} if table is None else table
     if not isinstance(table, dict):
         raise InputError("must be a table, e.g. [growth]", source=source, key="growth")
+    values = _global_growth(table, source=source)
+    settings = GrowthSettings(**values)
+    per_layer: dict[str, GrowthSettings] = {}
+    names = list(layer_names)
+    for name, sub in (layer_growth or {}).items():
+        index = names.index(name) if name in names else None
+        if names and index is None:
+            raise InputError(f"no layer named '{name}'", source=source, key="growth")
+        if not isinstance(sub, dict):
+            raise InputError(
+                "must be a table, e.g. growth = {thickness_ml_sigma = 0.3}",
+                source=source,
+                layer=index,
+                layer_name=name,
+                key="growth",
+            )
+        per_layer[name] = _layer_growth(sub, settings, index=index, name=name, source=source)
+    return settings, per_layer
+
+
+def _global_growth(table: dict[str, Any], *, source: str) -> dict[str, Any]:
+    """The ``[growth]`` table's settings, checked, with its cells and wafer."""
     values: dict[str, Any] = {}
     for key, value in table.items():
         if key in ("cells", "wafer"):
@@ -367,41 +400,32 @@ def parse_growth(
             values.setdefault("doping_sigma", 0.0)
     if "wafer" in table:
         values["wafer"] = _parse_wafer(table["wafer"], source=source)
-    settings = GrowthSettings(**values)
-    per_layer: dict[str, GrowthSettings] = {}
-    names = list(layer_names)
-    for name, sub in (layer_growth or {}).items():
-        index = names.index(name) if name in names else None
-        if names and index is None:
-            raise InputError(f"no layer named '{name}'", source=source, key="growth")
-        if not isinstance(sub, dict):
+    return values
+
+
+def _layer_growth(
+    sub: dict[str, Any], settings: GrowthSettings, *, index: int | None, name: str, source: str
+) -> GrowthSettings:
+    """A layer's settings: the global ``settings`` with its own ``growth`` table applied."""
+    over = {}
+    for key, value in sub.items():
+        if key not in LAYER_GROWTH_KEYS:
+            extra = (
+                " (the rate is per material: set rate_sigma in [growth])"
+                if key == "rate_sigma"
+                else ""
+            )
             raise InputError(
-                "must be a table, e.g. growth = {thickness_ml_sigma = 0.3}",
+                f"unknown key; allowed: {', '.join(LAYER_GROWTH_KEYS)}{extra}",
                 source=source,
                 layer=index,
                 layer_name=name,
-                key="growth",
+                key=f"growth.{key}",
             )
-        over = {}
-        for key, value in sub.items():
-            if key not in LAYER_GROWTH_KEYS:
-                extra = (
-                    " (the rate is per material: set rate_sigma in [growth])"
-                    if key == "rate_sigma"
-                    else ""
-                )
-                raise InputError(
-                    f"unknown key; allowed: {', '.join(LAYER_GROWTH_KEYS)}{extra}",
-                    source=source,
-                    layer=index,
-                    layer_name=name,
-                    key=f"growth.{key}",
-                )
-            over[key] = _check_sigma(
-                value, f"growth.{key}", source=source, layer=index, layer_name=name
-            )
-        per_layer[name] = GrowthSettings(**{**settings.__dict__, **over})
-    return settings, per_layer
+        over[key] = _check_sigma(
+            value, f"growth.{key}", source=source, layer=index, layer_name=name
+        )
+    return GrowthSettings(**{**settings.__dict__, **over})
 
 
 def _parse_cells(table: Any, *, source: str) -> tuple[CellSettings, ...]:
