@@ -16,7 +16,11 @@ refinement, the former single round, and the zoom until the extremum is resolved
 compiled kernel built there, and one worker process per tree (this one and the
 baseline) times the I-Vs, the two taking turns I-V by I-V.
 
-Run: ``python benchmarks/bench_electrostatics.py [--quick] [--baseline REF]``.
+``--breakdown`` prints instead where the default model's I-V spends its time: the
+phases of the sweep, the number of self-consistent solves and well-charge steps, the
+current calls and the compiled routines.
+
+Run: ``python benchmarks/bench_electrostatics.py [--quick] [--baseline REF] [--breakdown]``.
 """
 
 from __future__ import annotations
@@ -206,6 +210,90 @@ def refinement_cost(repeats: int) -> None:
         )
 
 
+def breakdown(repeats: int) -> None:
+    """Where the default model's I-V spends its time (issue 12: why not 10x), per stack.
+
+    Wraps the phases of :func:`wellwright.physics.iv.sweep` (the main sweep, the peak and
+    valley refinement, the peak's solve, the up-branch check) and counts the
+    self-consistent solves, their well-charge steps (each one Poisson solve and one search
+    for the quasi-bound states), the current calls and the compiled routines' time.
+    """
+    import importlib
+    import time
+
+    from wellwright.physics import electrostatics as es
+    from wellwright.physics import iv
+    from wellwright.physics.stack import load_stack
+
+    tm = importlib.import_module("wellwright.physics.transmission")
+    clock: dict = {}
+
+    def timed(module, name, key):
+        inner = getattr(module, name)
+
+        def wrapper(*a, **k):
+            t0 = time.perf_counter()
+            try:
+                return inner(*a, **k)
+            finally:
+                entry = clock.setdefault(key, [0, 0.0])
+                entry[0] += 1
+                entry[1] += time.perf_counter() - t0
+
+        setattr(module, name, wrapper)
+        return inner
+
+    class Compiled:  # every routine of the extension, timed
+        def __init__(self, real):
+            self.real = real
+
+        def __getattr__(self, name):
+            fn = getattr(self.real, name)
+
+            def call(*a):
+                t0 = time.perf_counter()
+                try:
+                    return fn(*a)
+                finally:
+                    entry = clock.setdefault("compiled " + name, [0, 0.0])
+                    entry[0] += 1
+                    entry[1] += time.perf_counter() - t0
+
+            return call
+
+    saved = {
+        (iv, "_refine"): timed(iv, "_refine", "refinement (_refine)"),
+        (iv, "_up_branch"): timed(iv, "_up_branch", "up-branch check (_up_branch)"),
+        (iv, "_solve_at"): timed(iv, "_solve_at", "the peak's solve"),
+        (iv, "solve_stack_poisson"): timed(iv, "solve_stack_poisson", "s.-c. solves (iv)"),
+        (es, "solve_stack_poisson"): timed(es, "solve_stack_poisson", "s.-c. solves (profile)"),
+        (es, "well_sheet_density_cm2"): timed(es, "well_sheet_density_cm2", "well-charge steps"),
+        (iv, "_current_of_profile"): timed(iv, "_current_of_profile", "current calls"),
+    }
+    real = tm._slices
+    tm._slices = Compiled(real)
+    try:
+        for study, path in STUDIES.items():
+            stack = load_stack(path)
+            model = _model(stack, "default (s.-c. + scat.-assisted)")
+            iv.sweep(stack.table(), BIAS, model=model)
+            clock.clear()
+            t0 = time.perf_counter()
+            for _ in range(repeats):
+                iv.sweep(stack.table(), BIAS, model=model)
+            total = (time.perf_counter() - t0) / repeats
+            print(f"{study} example, default model, per 61-point I-V ({1e3 * total:.0f} ms):")
+            for key, (n, t) in sorted(clock.items(), key=lambda kv: -kv[1][1]):
+                print(
+                    f"  {key:34s} {n / repeats:7.1f} calls {1e3 * t / repeats:8.1f} ms"
+                    f" ({100 * t / repeats / total:4.1f} %)"
+                )
+    finally:
+        tm._slices = real
+        for (module, name), fn in saved.items():
+            setattr(module, name, fn)
+
+
 def before_after(ref: str, repeats: int) -> None:
     with tempfile.TemporaryDirectory() as tmp:
         base = _baseline_repo(ref, Path(tmp) / "repo")
@@ -246,12 +334,18 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer repeats")
     parser.add_argument("--baseline", metavar="REF", help="also time the code of commit REF")
+    parser.add_argument(
+        "--breakdown", action="store_true", help="where the default model's time goes"
+    )
     parser.add_argument("--worker", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.worker:
         worker(args.worker)
         return
     repeats = 3 if args.quick else 9
+    if args.breakdown:
+        breakdown(repeats)
+        return
     ratios(repeats)
     refinement_cost(repeats)
     if args.baseline:
