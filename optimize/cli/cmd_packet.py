@@ -139,7 +139,22 @@ def run(args) -> int:
     t_expected = expected_transmission(
         profile=profile, energy_mev=args.energy_mev, width_nm=args.width_nm
     )
+    title = (
+        f"{Path(stack.source).name}: {args.energy_mev:g} meV packet, "
+        f"{args.width_nm:g} nm wide, {args.bias:g} V"
+    )
+    outputs = _write_outputs(out, result, t_expected, title=title)
+    if args.json:
+        record = _record(args, stack.source, result, t_expected, outputs)
+        json.dump(json_ready(record), sys.stdout, indent=2)
+        print()
+    else:
+        _print_summary(args, stack.source, result, t_expected, out)
+    return 0
 
+
+def _write_outputs(out: Path, result: PacketResult, t_expected: float, *, title: str) -> list[Path]:
+    """The time record as CSV and the two figures in ``out``; their paths."""
     write_csv(
         out / "packet_fractions.csv",
         ["time_fs", "left_fraction", "in_well_fraction", "right_fraction"],
@@ -151,15 +166,17 @@ def run(args) -> int:
             strict=True,
         ),
     )
-    title = (
-        f"{Path(stack.source).name}: {args.energy_mev:g} meV packet, "
-        f"{args.width_nm:g} nm wide, {args.bias:g} V"
-    )
     save_figure(fractions_figure(result, t_expected, title=title), out / "packet_fractions.png")
     save_figure(density_figure(result, title=title), out / "packet_density.png")
+    return [out / n for n in ("packet_fractions.csv", "packet_fractions.png", "packet_density.png")]
 
-    record = {
-        "stack": stack.source,
+
+def _record(
+    args, source: str, result: PacketResult, t_expected: float, outputs: list[Path]
+) -> dict:
+    """The JSON record of a run (``--json``)."""
+    return {
+        "stack": source,
         "energy_mev": args.energy_mev,
         "width_nm": args.width_nm,
         "bias_v": args.bias,
@@ -173,32 +190,28 @@ def run(args) -> int:
         "norm_error_max": result.norm_error_max,
         "time_step_fs": result.dt_fs,
         "grid_step_nm": result.step_nm,
-        "outputs": [
-            str(out / n)
-            for n in ("packet_fractions.csv", "packet_fractions.png", "packet_density.png")
-        ],
+        "outputs": [str(p) for p in outputs],
     }
-    if args.json:
-        json.dump(json_ready(record), sys.stdout, indent=2)
-        print()
-    else:
+
+
+def _print_summary(args, source: str, result: PacketResult, t_expected: float, out: Path) -> None:
+    """The plain-text summary of a run."""
+    print(
+        f"{source}: {args.energy_mev:g} meV packet at {args.bias:g} V, "
+        f"{result.time_fs[-1]:.0f} fs ({result.stop_reason})"
+    )
+    print(f"  reflected   {result.reflected:.4f}")
+    print(
+        f"  transmitted {result.transmitted:.4f}   "
+        f"(T(E) averaged over the packet: {t_expected:.4f})"
+    )
+    print(f"  in the well {result.in_well_final:.4f}")
+    if result.stop_reason != "left the stack":
         print(
-            f"{stack.source}: {args.energy_mev:g} meV packet at {args.bias:g} V, "
-            f"{result.time_fs[-1]:.0f} fs ({result.stop_reason})"
+            f"  note: stopped ({result.stop_reason}) before the packet left the stack; a level"
+            " with lifetime hbar/Gamma beyond the run still holds charge: raise --max-time-fs"
         )
-        print(f"  reflected   {result.reflected:.4f}")
-        print(
-            f"  transmitted {result.transmitted:.4f}   "
-            f"(T(E) averaged over the packet: {t_expected:.4f})"
-        )
-        print(f"  in the well {result.in_well_final:.4f}")
-        if result.stop_reason != "left the stack":
-            print(
-                f"  note: stopped ({result.stop_reason}) before the packet left the stack; a level"
-                " with lifetime hbar/Gamma beyond the run still holds charge: raise --max-time-fs"
-            )
-        print(f"  results in {out}/")
-    return 0
+    print(f"  results in {out}/")
 
 
 # --------------------------------------------------------------------------- figures
