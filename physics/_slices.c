@@ -28,6 +28,8 @@
  * float64 buffers of 3 n values (energies and 1/T, updated in place), rows int64 (n), each
  * bracket's profile. Each round evaluates the probes of every open bracket in one call of
  * the kernel above, so the rounds cost no Python overhead.
+ *   refine_peaks(..., exact_peak, out): the same, then the end of refine_bracketed (centre,
+ *                width and peak T of each line into out, 3 n values).
  *   poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,
  *                  eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)
  * the damped Newton iteration of physics/electrostatics.py (solve_poisson_1d), entry by entry.
@@ -368,6 +370,107 @@ static void refine_kernel(int n, const double *edge, const double *mass, const d
     }
 }
 
+/* The end of refine_bracketed (_final_vertex): centre, width and peak T of each bracket's
+   parabola, T computed at the centre (exact_peak) or read off the parabola. out: 3 n. */
+static void final_vertex(int n, const double *edge, const double *mass, const double *alpha,
+                         const double *width, const int64_t *peak_rows, Py_ssize_t n_peaks,
+                         const double *x, const double *y, int exact_peak, double inv_hb2,
+                         double *energy, double *t, double *out)
+{
+    for (Py_ssize_t i = 0; i < n_peaks; i++) {
+        double u, a, ymin;
+        parabola3(x + 3 * i, y + 3 * i, &u, &a, &ymin);
+        const double half = half_width(a, ymin);
+        energy[i] = x[3 * i + 1] + u;
+        out[3 * i] = energy[i];
+        out[3 * i + 1] = 2.0 * half;
+        t[i] = isfinite(half) ? 1.0 / ymin : 0.0;
+    }
+    if (exact_peak) kernel(n, edge, mass, alpha, width, peak_rows, n_peaks, 1, energy, inv_hb2, t, NULL);
+    for (Py_ssize_t i = 0; i < n_peaks; i++)
+        out[3 * i + 2] = min_nan(max_nan(max_nan(t[i], 1.0 / y[3 * i + 1]), 0.0), 1.0);
+}
+
+static PyObject *py_refine_peaks(PyObject *self, PyObject *args)
+{
+    int n, iterations, extra_rounds, exact_peak;
+    double inv_hb2, loose_bracket, loose_fit;
+    Py_buffer bv = {0}, bm = {0}, ba = {0}, bw = {0}, bi = {0}, bx = {0}, by = {0}, bo = {0};
+    PyObject *result = NULL;
+    void *work = NULL;
+    (void)self;
+    if (!PyArg_ParseTuple(args, "iy*y*y*y*dy*w*w*iiddiw*", &n, &bv, &bm, &ba, &bw, &inv_hb2, &bi,
+                          &bx, &by, &iterations, &extra_rounds, &loose_bracket, &loose_fit,
+                          &exact_peak, &bo))
+        return NULL;
+    if (!(need_double(&bv, "edge") && need_double(&bm, "mass") && need_double(&ba, "alpha") &&
+          need_double(&bw, "width") && need_double(&bx, "x") && need_double(&by, "y") &&
+          need_double(&bo, "out")))
+        goto done;
+    const Py_ssize_t n_slice_values = bv.len / (Py_ssize_t)sizeof(double);
+    if (n < 2 || n_slice_values % n != 0 || bm.len != bv.len || ba.len != bv.len ||
+        bw.len != bv.len) {
+        PyErr_SetString(PyExc_ValueError, "slice buffers must hold n_profiles * n_slices values");
+        goto done;
+    }
+    const Py_ssize_t n_profiles = n_slice_values / n;
+    const Py_ssize_t n_peaks = bi.len / (Py_ssize_t)sizeof(int64_t);
+    if (bi.len != n_peaks * (Py_ssize_t)sizeof(int64_t) || bx.len != 3 * n_peaks * 8 ||
+        by.len != bx.len || bo.len != bx.len || iterations < 0 || extra_rounds < 0) {
+        PyErr_SetString(PyExc_ValueError, "rows: one int64 per bracket; x, y, out: 3 float64 each");
+        goto done;
+    }
+    const int64_t *peak_rows = bi.buf;
+    for (Py_ssize_t g = 0; g < n_peaks; g++) {
+        if (peak_rows[g] < 0 || peak_rows[g] >= n_profiles) {
+            PyErr_SetString(PyExc_IndexError, "rows: profile index out of range");
+            goto done;
+        }
+    }
+    if (n_peaks > 0) {
+        const size_t bytes = (size_t)n_peaks * (3 * 8 + 3 * 8 + 3 * 8 + 3 * 8 + sizeof(int));
+        work = PyMem_RawMalloc(bytes);
+        if (!work) {
+            PyErr_NoMemory();
+            goto done;
+        }
+        char *p = work;
+        Py_ssize_t *active = (Py_ssize_t *)p;
+        p += (size_t)n_peaks * 8;
+        double *h_buf = (double *)p;
+        p += (size_t)n_peaks * 8;
+        double *u_buf = (double *)p;
+        p += (size_t)n_peaks * 8;
+        double *energy = (double *)p;
+        p += (size_t)n_peaks * 24;
+        int64_t *rows = (int64_t *)p;
+        p += (size_t)n_peaks * 24;
+        double *t = (double *)p;
+        p += (size_t)n_peaks * 24;
+        int *n_probe = (int *)p;
+        Py_BEGIN_ALLOW_THREADS
+        refine_kernel(n, bv.buf, bm.buf, ba.buf, bw.buf, peak_rows, n_peaks, bx.buf, by.buf,
+                      iterations, extra_rounds, loose_bracket, loose_fit, inv_hb2, active, h_buf,
+                      u_buf, energy, rows, t, n_probe);
+        final_vertex(n, bv.buf, bm.buf, ba.buf, bw.buf, peak_rows, n_peaks, bx.buf, by.buf,
+                     exact_peak, inv_hb2, energy, t, bo.buf);
+        Py_END_ALLOW_THREADS
+    }
+    result = Py_None;
+    Py_INCREF(result);
+done:
+    PyMem_RawFree(work);
+    PyBuffer_Release(&bv);
+    PyBuffer_Release(&bm);
+    PyBuffer_Release(&ba);
+    PyBuffer_Release(&bw);
+    PyBuffer_Release(&bi);
+    PyBuffer_Release(&bx);
+    PyBuffer_Release(&by);
+    PyBuffer_Release(&bo);
+    return result;
+}
+
 static PyObject *py_refine_brackets(PyObject *self, PyObject *args)
 {
     int n, iterations, extra_rounds;
@@ -699,6 +802,11 @@ static PyMethodDef methods[] = {
      " extra_rounds, loose_bracket, loose_fit)\n\n"
      "The bracketing rounds of physics.resonances.refine_bracketed on brackets x (n, 3) with"
      " y = 1/T (both float64, updated in place), bracket i on profile rows[i] (int64)."},
+    {"refine_peaks", py_refine_peaks, METH_VARARGS,
+     "refine_peaks(n_slices, edge, mass, alpha, width, inv_hb2, rows, x, y, iterations,"
+     " extra_rounds, loose_bracket, loose_fit, exact_peak, out)\n\n"
+     "refine_brackets, then the end of physics.resonances.refine_bracketed: out (n, 3) gets"
+     " each line's centre, width and peak transmission."},
     {"poisson_newton", py_poisson_newton, METH_VARARGS,
      "poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,"
      " eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)\n\n"

@@ -25,7 +25,12 @@ import numpy as np
 
 from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR_J_S
-from .transmission import compiled_bracket_rounds, transmission, transmission_rows
+from .transmission import (
+    compiled_bracket_rounds,
+    compiled_refine_peaks,
+    transmission,
+    transmission_rows,
+)
 
 __all__ = [
     "Resonances",
@@ -217,8 +222,22 @@ def refine_bracketed(
     """
     x = np.array(bracket_ev, float)
     y = 1.0 / np.maximum(np.asarray(bracket_t, float), 1e-150)  # 1/T <= 1e150: parabolas finite
-    if x.shape[0] and _compiled_rounds(x, y, profile, rows, iterations):
-        return _final_vertex(x, y, profile, rows, exact_peak)
+    if x.shape[0]:
+        done = compiled_refine_peaks(
+            x,
+            y,
+            profile=profile,
+            rows=rows,
+            iterations=iterations,
+            extra_rounds=EXTRA_ROUNDS,
+            loose_bracket=LOOSE_BRACKET,
+            loose_fit=LOOSE_FIT,
+            exact_peak=exact_peak,
+        )
+        if done is not None:  # the rounds and the end below in one compiled call
+            return done
+        if _compiled_rounds(x, y, profile, rows, iterations):
+            return _final_vertex(x, y, profile, rows, exact_peak)
     active = np.arange(x.shape[0])
     for round_ in range(iterations + EXTRA_ROUNDS):
         if round_ >= iterations:  # extra rounds only for lines not yet fitted or bracketed
@@ -267,6 +286,9 @@ def _final_vertex(x, y, profile, rows, exact_peak):
     return center, 2.0 * half, np.clip(np.maximum(peak, 1.0 / y[:, 1]), 0.0, 1.0)
 
 
+_AROUND = np.array([-1, 0, 1])
+
+
 def refine_grid_peaks(
     energy_ev: np.ndarray,
     t: np.ndarray,
@@ -299,15 +321,22 @@ def refine_grid_peaks(
         As for :func:`refine_bracketed`.
     """
     where = np.nonzero(valid)
-    around = index[..., None] + np.array([-1, 0, 1])  # each maximum and its neighbours
     batch_of = where[:-1]
     center = np.take_along_axis(energy_ev, index, axis=-1)
     width = np.full(center.shape, np.nan)
     peak = np.full(center.shape, np.nan)
     if where[0].size:
+        if energy_ev.shape == t.shape and energy_ev.shape[:-1] == index.shape[:-1]:
+            # each maximum and its neighbours, picked directly (the same values as below)
+            pick = tuple(b[:, None] for b in batch_of) + (index[where][:, None] + _AROUND,)
+            e3, t3 = energy_ev[pick], t[pick]
+        else:
+            around = index[..., None] + _AROUND
+            e3 = np.take_along_axis(energy_ev[..., None, :], around, axis=-1)[where]
+            t3 = np.take_along_axis(t[..., None, :], around, axis=-1)[where]
         c, w, p = refine_bracketed(
-            np.take_along_axis(energy_ev[..., None, :], around, axis=-1)[where],
-            np.take_along_axis(t[..., None, :], around, axis=-1)[where],
+            e3,
+            t3,
             profile=profile,
             rows=batch_of,
             iterations=iterations,

@@ -296,6 +296,61 @@ def compiled_bracket_rounds(
     return True
 
 
+def compiled_refine_peaks(
+    x: np.ndarray,
+    y: np.ndarray,
+    *,
+    profile: Profile,
+    rows: tuple[np.ndarray, ...],
+    iterations: int,
+    extra_rounds: int,
+    loose_bracket: float,
+    loose_fit: float,
+    exact_peak: bool,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """:func:`compiled_bracket_rounds` and then the end of
+    :func:`physics.resonances.refine_bracketed` in one compiled call.
+
+    Parameters
+    ----------
+    x, y, profile, rows, iterations, extra_rounds, loose_bracket, loose_fit
+        As for :func:`compiled_bracket_rounds` (``x``, ``y`` are not changed here).
+    exact_peak
+        T computed at each line's centre, else read off the parabola.
+
+    Returns
+    -------
+    tuple or None
+        ``(n,)`` centre, width and peak transmission of each line; None where the
+        compiled routine is not in use (the caller runs its numpy statement).
+    """
+    refine = compiled_kernel("refine_peaks")
+    if refine is None:
+        return None
+    if profile.batch_shape:
+        flat = np.ravel_multi_index(rows, profile.batch_shape).astype(np.int64)
+    else:  # one profile for every bracket
+        flat = np.zeros(x.shape[0], np.int64)
+    xs = np.array(x, dtype=float, order="C", copy=True)
+    ys = np.array(y, dtype=float, order="C", copy=True)
+    out = np.empty((x.shape[0], 3))
+    refine(
+        profile.n_slices,
+        *profile.slice_arrays,
+        1.0 / HBAR2_2M0_EV_NM2,
+        np.ascontiguousarray(flat),
+        xs,
+        ys,
+        int(iterations),
+        int(extra_rounds),
+        float(loose_bracket),
+        float(loose_fit),
+        int(bool(exact_peak)),
+        out,
+    )
+    return out[:, 0], out[:, 1], out[:, 2]
+
+
 def _backend(backend: str | None) -> str:
     if backend is None:
         if DEFAULT_BACKEND not in BACKENDS:
