@@ -501,6 +501,100 @@ def solve_stack_poisson(
     well_slices = inside & (offset < np.maximum(offset[:, :1], offset[:, -1:]) + BARRIER_EV)
     well_nm = np.sum(np.where(well_slices, grid.width_nm, 0.0), axis=1)
 
+    poisson = _stack_poisson_solver(
+        table,
+        grid,
+        inside=inside,
+        offset=offset,
+        well_slices=well_slices,
+        well_nm=well_nm,
+        tolerance_ev=tolerance_ev,
+        max_iterations=max_iterations,
+        max_step_ev=max_step_ev,
+    )
+
+    well = (
+        np.zeros(bias.shape)
+        if initial_well_cm2 is None
+        else np.broadcast_to(initial_well_cm2, bias.shape).copy()
+    )
+    has_well = np.any(well_nm > 0)
+    solution = poisson(initial_ev, well if well_charge and has_well else 0.0 * well, fermi, right)
+    if not (well_charge and has_well):
+        return grid, replace(solution, well_sheet_cm2=np.zeros(bias.shape))
+    mass_w = np.array(
+        [
+            table.mass_m0[s, li[well_slices[s]]].min() if well_slices[s].any() else 1.0
+            for s in range(n_stacks)
+        ]
+    )
+    root = _WellChargeRoot.start(bias.shape)
+    # A bias column whose every stack has converged is finished: its potential, density and
+    # charge go to the outputs and the iteration goes on with the open columns only (the
+    # columns are independent problems; each is kept as it was when it converged).
+    out_u, out_n, out_well = (
+        solution.potential_ev.copy(),
+        solution.electron_cm3.copy(),
+        well.copy(),
+    )
+    cols, most = np.arange(bias.shape[1]), 0
+    for outer in range(1, max_well_iterations + 1):
+        target, _ = well_sheet_density_cm2(
+            table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w
+        )
+        residual = target - well
+        done = (np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2) | root.settled
+        finished = np.all(done, axis=0)
+        if np.any(finished):
+            out_u[:, cols[finished]] = solution.potential_ev[:, finished]
+            out_n[:, cols[finished]] = solution.electron_cm3[:, finished]
+            out_well[:, cols[finished]] = well[:, finished]
+            most = max(most, solution.iterations + outer)
+            if np.all(finished):
+                return grid, PoissonSolution(
+                    potential_ev=out_u, electron_cm3=out_n, iterations=most, well_sheet_cm2=out_well
+                )
+            keep = ~finished
+            cols = cols[keep]
+            solution = replace(
+                solution,
+                potential_ev=solution.potential_ev[:, keep],
+                electron_cm3=solution.electron_cm3[:, keep],
+            )
+            bias, fermi, right = bias[:, keep], fermi[:, keep], right[:, keep]
+            target, residual, done, well = (
+                target[:, keep],
+                residual[:, keep],
+                done[:, keep],
+                well[:, keep],
+            )
+            root.keep_columns(keep)
+        well = root.next_well(well, residual, target=target, done=done)
+        solution = poisson(solution.potential_ev, well, fermi, right)
+    raise ElectrostaticsConvergenceError(
+        f"well-charge iteration did not converge in {max_well_iterations} steps: largest change "
+        f"{float(np.max(np.abs(residual))):.3g} cm^-2"
+    )
+
+
+def _stack_poisson_solver(
+    table: LayerTable,
+    grid: SliceGrid,
+    *,
+    inside: np.ndarray,
+    offset: np.ndarray,
+    well_slices: np.ndarray,
+    well_nm: np.ndarray,
+    tolerance_ev: float,
+    max_iterations: int,
+    max_step_ev: float,
+):
+    """The Poisson solve of :func:`solve_stack_poisson`: ``poisson(start, well_cm2, fermi,
+    right)`` from a start potential with the well charge spread over ``well_slices``; the
+    compiled Newton iteration on the stacks' fixed parts (built once) where it is built,
+    else :func:`solve_poisson_1d`."""
+    li = grid.layer_index
+    n_stacks = table.n_stacks
     system = None
     if compiled_kernel("poisson_newton") is not None and li.size >= 3:
         # the stacks' fixed parts once for every bias and well-charge step (compiled Newton)
@@ -561,75 +655,65 @@ def solve_stack_poisson(
             max_step_ev=max_step_ev,
         )
 
-    well = (
-        np.zeros(bias.shape)
-        if initial_well_cm2 is None
-        else np.broadcast_to(initial_well_cm2, bias.shape).copy()
-    )
-    has_well = np.any(well_nm > 0)
-    solution = poisson(initial_ev, well if well_charge and has_well else 0.0 * well, fermi, right)
-    if not (well_charge and has_well):
-        return grid, replace(solution, well_sheet_cm2=np.zeros(bias.shape))
-    mass_w = np.array(
-        [
-            table.mass_m0[s, li[well_slices[s]]].min() if well_slices[s].any() else 1.0
-            for s in range(n_stacks)
-        ]
-    )
-    previous = None  # (well, residual) of the last step, for the secant step before a bracket
-    lo, r_lo = np.zeros(bias.shape), np.zeros(bias.shape)
-    lo_known = np.zeros(bias.shape, bool)  # residual(lo) evaluated (else lo = 0 is a bound only)
-    hi, r_hi = np.full(bias.shape, np.inf), np.zeros(bias.shape)
-    last_side = np.zeros(bias.shape, int)  # +1: lo moved last, -1: hi moved last (Illinois)
-    reopened = np.zeros(bias.shape, bool)  # bracket collapsed once and was reopened
-    settled = np.zeros(bias.shape, bool)  # collapsed again: a jump of F, accepted at the jump
-    frozen = np.zeros(bias.shape)
-    push = np.full(bias.shape, 0.5)  # growth of the step past the target (see below)
-    # A bias column whose every stack has converged is finished: its potential, density and
-    # charge go to the outputs and the iteration goes on with the open columns only (the
-    # columns are independent problems; each is kept as it was when it converged).
-    out_u, out_n, out_well = (
-        solution.potential_ev.copy(),
-        solution.electron_cm3.copy(),
-        well.copy(),
-    )
-    cols, most = np.arange(bias.shape[1]), 0
-    for outer in range(1, max_well_iterations + 1):
-        target, _ = well_sheet_density_cm2(
-            table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w
+    return poisson
+
+
+@dataclass
+class _WellChargeRoot:
+    """Root search of ``residual(well) = F(well) - well`` per (stack, bias), cm^-2.
+
+    ``F >= 0``, so a root lies in ``[0, F]``: a bracket ``[lo, hi]`` with
+    ``residual(lo) >= 0 >= residual(hi)`` is kept; until ``hi`` is found, secant (or
+    mixing) steps; then regula falsi with the Illinois modification. A collapsed
+    bracket with a large residual is reopened once; collapsing again, it is a jump of
+    ``F`` and the charge is settled at the jump.
+    """
+
+    lo: np.ndarray
+    r_lo: np.ndarray
+    lo_known: np.ndarray  #: residual(lo) evaluated (else lo = 0 is a bound only)
+    hi: np.ndarray
+    r_hi: np.ndarray
+    last_side: np.ndarray  #: +1: lo moved last, -1: hi moved last (Illinois)
+    reopened: np.ndarray  #: bracket collapsed once and was reopened
+    settled: np.ndarray  #: collapsed again: a jump of F, accepted at the jump
+    frozen: np.ndarray  #: the charge of the settled entries
+    push: np.ndarray  #: growth of the step past the target (see next_well)
+    previous: tuple[np.ndarray, np.ndarray] | None  #: (well, residual) of the last step
+
+    @classmethod
+    def start(cls, shape: tuple[int, ...]) -> _WellChargeRoot:
+        return cls(
+            lo=np.zeros(shape),
+            r_lo=np.zeros(shape),
+            lo_known=np.zeros(shape, bool),
+            hi=np.full(shape, np.inf),
+            r_hi=np.zeros(shape),
+            last_side=np.zeros(shape, int),
+            reopened=np.zeros(shape, bool),
+            settled=np.zeros(shape, bool),
+            frozen=np.zeros(shape),
+            push=np.full(shape, 0.5),
+            previous=None,
         )
-        residual = target - well
-        done = (np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2) | settled
-        finished = np.all(done, axis=0)
-        if np.any(finished):
-            out_u[:, cols[finished]] = solution.potential_ev[:, finished]
-            out_n[:, cols[finished]] = solution.electron_cm3[:, finished]
-            out_well[:, cols[finished]] = well[:, finished]
-            most = max(most, solution.iterations + outer)
-            if np.all(finished):
-                return grid, PoissonSolution(
-                    potential_ev=out_u, electron_cm3=out_n, iterations=most, well_sheet_cm2=out_well
-                )
-            keep = ~finished
-            cols = cols[keep]
-            solution = replace(
-                solution,
-                potential_ev=solution.potential_ev[:, keep],
-                electron_cm3=solution.electron_cm3[:, keep],
-            )
-            bias, fermi, right = bias[:, keep], fermi[:, keep], right[:, keep]
-            target, residual, done, well = (
-                target[:, keep],
-                residual[:, keep],
-                done[:, keep],
-                well[:, keep],
-            )
-            lo, r_lo, lo_known = lo[:, keep], r_lo[:, keep], lo_known[:, keep]
-            hi, r_hi, last_side = hi[:, keep], r_hi[:, keep], last_side[:, keep]
-            reopened, settled, frozen = reopened[:, keep], settled[:, keep], frozen[:, keep]
-            push = push[:, keep]
-            if previous is not None:
-                previous = (previous[0][:, keep], previous[1][:, keep])
+
+    def keep_columns(self, keep: np.ndarray) -> None:
+        """Drop the bias columns not in ``keep`` (finished)."""
+        for name in (
+            "lo", "r_lo", "lo_known", "hi", "r_hi", "last_side", "reopened", "settled", "frozen", "push"
+        ):  # fmt: skip
+            setattr(self, name, getattr(self, name)[:, keep])
+        if self.previous is not None:
+            self.previous = (self.previous[0][:, keep], self.previous[1][:, keep])
+
+    def next_well(
+        self, well: np.ndarray, residual: np.ndarray, *, target: np.ndarray, done: np.ndarray
+    ) -> np.ndarray:
+        """The next charge of every entry (``done`` entries keep theirs)."""
+        # the step as written for plain arrays: the state is read here and stored at the end
+        lo, r_lo, lo_known, hi, r_hi = self.lo, self.r_lo, self.lo_known, self.hi, self.r_hi
+        last_side, reopened, settled = self.last_side, self.reopened, self.settled
+        frozen, push, previous = self.frozen, self.push, self.previous
         # Root of residual(well) = F(well) - well per (stack, bias). F >= 0, so a root lies in
         # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi). Until hi is
         # found, secant (or mixing) steps; then regula falsi with the Illinois modification
@@ -687,11 +771,10 @@ def solve_stack_poisson(
             well = np.where(first, target, well)
             previous = None
         well = np.where(settled, frozen, well)
-        solution = poisson(solution.potential_ev, well, fermi, right)
-    raise ElectrostaticsConvergenceError(
-        f"well-charge iteration did not converge in {max_well_iterations} steps: largest change "
-        f"{float(np.max(np.abs(residual))):.3g} cm^-2"
-    )
+        self.lo, self.r_lo, self.lo_known, self.hi, self.r_hi = lo, r_lo, lo_known, hi, r_hi
+        self.last_side, self.reopened, self.settled = last_side, reopened, settled
+        self.frozen, self.push, self.previous = frozen, push, previous
+        return well
 
 
 def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0):
