@@ -567,6 +567,14 @@ def layer_cells(material: str, x: float | None) -> tuple[tuple[str, float, bool]
     ``(("Al", 1.0, False),)``; a group-V alloy (``GaAsSb``) has its one
     group-III cell; a custom material none. ``sets x``: the cell whose share
     is the composition ``x`` (see the module docstring; common practice).
+
+    Parameters
+    ----------
+    material
+        The layer's material as the material table keys it (``Layer.material``; ``custom``:
+        no cells).
+    x
+        Its composition, or ``None``.
     """
     from wellwright.physics.material_data import BINARIES, TERNARIES
 
@@ -592,7 +600,15 @@ class CellUse:
     run_position: np.ndarray  #: (n_layers,) place in the run, 0 (first contact) to 1 (last)
 
     def flux_factors(self, flux: np.ndarray, drift: np.ndarray) -> np.ndarray:
-        """``(n, n_cells, n_layers)`` as-grown over nominal flux from ``(n, n_cells)`` errors."""
+        """``(n, n_cells, n_layers)`` as-grown over nominal flux from ``(n, n_cells)`` errors.
+
+        Parameters
+        ----------
+        flux
+            Relative flux error of each cell, ``(n, n_cells)``.
+        drift
+            Relative drift of each cell over the run, ``(n, n_cells)``.
+        """
         return 1.0 + flux[:, :, None] + drift[:, :, None] * self.run_position
 
     def rate_factor(self, g: np.ndarray) -> np.ndarray:
@@ -666,11 +682,29 @@ class GrowthModel:
         return np.array([p.sigma for p in self.parameters], float)
 
     def draw_z(self, n: int, seed: int | np.random.Generator | None = None) -> np.ndarray:
-        """``(n, n_parameters)`` standard-normal coordinates."""
+        """``(n, n_parameters)`` standard-normal coordinates.
+
+        Parameters
+        ----------
+        n
+            Number of samples.
+        seed
+            A whole-number seed or a generator, normalised by :func:`as_generator`; ``None``:
+            fresh entropy.
+        """
         return as_generator(seed).standard_normal((n, len(self.parameters)))
 
     def draw_island_u(self, n: int, seed: int | np.random.Generator | None = None) -> np.ndarray:
-        """``(n, n_layers)`` uniforms deciding each layer's island thickness."""
+        """``(n, n_layers)`` uniforms deciding each layer's island thickness.
+
+        Parameters
+        ----------
+        n
+            Number of samples.
+        seed
+            A whole-number seed or a generator, normalised by :func:`as_generator`; ``None``:
+            fresh entropy.
+        """
         return as_generator(seed).random((n, self.nominal.n_layers))
 
     def _deviations(self, z: np.ndarray, sigma_scale: np.ndarray | None) -> np.ndarray:
@@ -686,7 +720,15 @@ class GrowthModel:
         return out
 
     def radius_mm(self, z: np.ndarray, radius_mm: np.ndarray | None = None) -> np.ndarray | None:
-        """Each sample's radius on the wafer, mm (None without ``[growth.wafer]``)."""
+        """Each sample's radius on the wafer, mm (None without ``[growth.wafer]``).
+
+        Parameters
+        ----------
+        z
+            Standard-normal coordinates of the variation parameters, ``(n, n_parameters)``.
+        radius_mm
+            Radii to use instead, mm, ``(n,)`` or scalar; ``None``: from ``z``.
+        """
         j = next((j for j, p in enumerate(self.parameters) if p.kind == "wafer"), None)
         if j is None or self.wafer is None:
             return None
@@ -709,6 +751,17 @@ class GrowthModel:
         ``radius_mm`` (with ``[growth.wafer]``) puts the samples at those radii
         instead of the ones their ``wafer.radius_mm`` coordinate gives; a
         ``sigma_scale`` of 0 on that parameter puts them at the centre.
+
+        Parameters
+        ----------
+        z
+            Standard-normal coordinates of the variation parameters, ``(n, n_parameters)``.
+        sigma_scale
+            Factor on each parameter's sigma, ``(n_parameters,)``; ``None``: 1 (0 fixes a
+            parameter at its nominal value).
+        radius_mm
+            Radii on the wafer to put the samples at, mm, ``(n,)`` or scalar (with
+            ``[growth.wafer]``); ``None``: from ``z``.
         """
         dev = self._deviations(z, sigma_scale)
         n, n_layers = dev.shape[0], self.nominal_ml.size
@@ -759,11 +812,32 @@ class GrowthModel:
         sigma_scale: np.ndarray | None = None,
         radius_mm: np.ndarray | None = None,
     ) -> np.ndarray:
-        """As-grown (continuous) monolayer counts ``(n, n_layers)`` before the island step."""
+        """As-grown (continuous) monolayer counts ``(n, n_layers)`` before the island step.
+
+        Parameters
+        ----------
+        z
+            Standard-normal coordinates of the variation parameters, ``(n, n_parameters)``.
+        sigma_scale
+            Factor on each parameter's sigma, ``(n_parameters,)``; ``None``: 1 (0 fixes a
+            parameter at its nominal value).
+        radius_mm
+            Radii on the wafer to put the samples at, mm, ``(n,)`` or scalar (with
+            ``[growth.wafer]``); ``None``: from ``z``.
+        """
         return self.grown_fields(z, sigma_scale=sigma_scale, radius_mm=radius_mm)[0]
 
     def composition(self, z: np.ndarray, *, sigma_scale: np.ndarray | None = None) -> np.ndarray:
-        """As-grown compositions ``(n, n_layers)`` (NaN for layers without one)."""
+        """As-grown compositions ``(n, n_layers)`` (NaN for layers without one).
+
+        Parameters
+        ----------
+        z
+            Standard-normal coordinates of the variation parameters, ``(n, n_parameters)``.
+        sigma_scale
+            Factor on each parameter's sigma, ``(n_parameters,)``; ``None``: 1 (0 fixes a
+            parameter at its nominal value).
+        """
         return self.grown_fields(z, sigma_scale=sigma_scale)[1]
 
     def _continuous(
@@ -956,6 +1030,15 @@ def growth_model(
     ``settings.cells``, a flux and a drift per source cell); composition for
     every alloy layer; doping for every doped layer (unless a dopant cell
     carries it).
+
+    Parameters
+    ----------
+    stack
+        The nominal stack.
+    settings
+        The global growth settings (``[growth]``).
+    per_layer
+        Settings of the layers with their own ``growth`` table, by layer name.
 
     Raises
     ------
