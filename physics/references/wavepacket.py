@@ -69,6 +69,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -247,12 +248,7 @@ def propagate_packet(
     .. [2] D. J. BenDaniel and C. B. Duke, Phys. Rev. 152, 683 (1966).
     .. [3] S. Gershgorin, Izv. Akad. Nauk SSSR, Otd. Fiz.-Mat. Nauk 6, 749 (1931).
     """
-    if not energy_mev > 0:
-        raise ValueError(f"energy_mev must be positive, got {energy_mev!r}")
-    if not width_nm > 0:
-        raise ValueError(f"width_nm must be positive, got {width_nm!r}")
-    if not max_time_fs > 0:
-        raise ValueError(f"max_time_fs must be positive, got {max_time_fs!r}")
+    _check_positive(energy_mev=energy_mev, width_nm=width_nm, max_time_fs=max_time_fs)
     p = _single(profile)
     sigma = float(width_nm)
     e0 = float(p.edge_ev[0]) + energy_mev * 1e-3
@@ -301,15 +297,7 @@ def propagate_packet(
     if progress is not None:
         progress(times[-1], max_time_fs)
     return PacketResult(
-        time_fs=np.array(times),
-        left=np.array(rec.lefts),
-        in_well=np.array(rec.wells),
-        right=np.array(rec.rights),
-        reflected=rec.lefts[-1],
-        transmitted=rec.rights[-1],
-        in_well_final=rec.wells[-1],
-        norm_error_max=rec.norm_err,
-        edge_probability_max=rec.edge_max,
+        **rec.fields(),
         stop_reason=stop_reason,
         dt_fs=dt,
         step_nm=a,
@@ -323,6 +311,12 @@ def propagate_packet(
         energy_mev=float(energy_mev),
         width_nm=sigma,
     )
+
+
+def _check_positive(**values: float) -> None:
+    for name, value in values.items():
+        if not value > 0:
+            raise ValueError(f"{name} must be positive, got {value!r}")
 
 
 @dataclass(frozen=True)
@@ -542,6 +536,20 @@ class _TimeRecord:
                 self.snaps = self.snaps[::2]
                 self.snap_every *= 2
         return near / q0
+
+    def fields(self) -> dict[str, Any]:
+        """The time record's fields of :class:`PacketResult`."""
+        return dict(
+            time_fs=np.array(self.times),
+            left=np.array(self.lefts),
+            in_well=np.array(self.wells),
+            right=np.array(self.rights),
+            reflected=self.lefts[-1],
+            transmitted=self.rights[-1],
+            in_well_final=self.wells[-1],
+            norm_error_max=self.norm_err,
+            edge_probability_max=self.edge_max,
+        )
 
     def spread_snapshots(
         self, dens: np.ndarray, lo: int, hi: int, *, until_fs: float
