@@ -407,9 +407,9 @@ def _find_lines(profile, coarse, u, t_coarse, supply, *, low, high, mu_e, mu_c, 
     # parabola's value is good enough, no extra evaluation
     center, width, peak = refine_grid_peaks(
         coarse,
-        t_coarse,
-        index,
-        valid,
+        t=t_coarse,
+        index=index,
+        valid=valid,
         profile=profile,
         iterations=grid.refine_iterations,
         exact_peak=False,

@@ -540,7 +540,12 @@ def solve_stack_poisson(
     cols, most = np.arange(bias.shape[1]), 0
     for outer in range(1, max_well_iterations + 1):
         target, _ = well_sheet_density_cm2(
-            table, grid, solution.potential_ev, bias, mu_emitter_ev=mu_e, well_mass_m0=mass_w
+            table,
+            grid,
+            potential_ev=solution.potential_ev,
+            bias_v=bias,
+            mu_emitter_ev=mu_e,
+            well_mass_m0=mass_w,
         )
         residual = target - well
         done = (np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2) | root.settled
@@ -777,7 +782,7 @@ class _WellChargeRoot:
         return well
 
 
-def well_sheet_density_cm2(table, grid, potential_ev, bias_v, *, mu_emitter_ev, well_mass_m0):
+def well_sheet_density_cm2(table, grid, *, potential_ev, bias_v, mu_emitter_ev, well_mass_m0):
     """Estimate of the electron sheet density in the quasi-bound states, cm^-2.
 
     Each 2D subband ``E_1`` (up to four, found on a 64-point grid of ``T(E)``

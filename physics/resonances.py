@@ -291,10 +291,10 @@ _AROUND = np.array([-1, 0, 1])
 
 def refine_grid_peaks(
     energy_ev: np.ndarray,
+    *,
     t: np.ndarray,
     index: np.ndarray,
     valid: np.ndarray,
-    *,
     profile: Profile,
     iterations: int = 6,
     exact_peak: bool = True,
@@ -373,7 +373,7 @@ def find_resonances(
     grid = np.broadcast_to(grid, profile.batch_shape + grid.shape[-1:])
     t = transmission(grid, profile=profile)
     index, valid = local_peaks(t, n_max)
-    energy, width, peak = refine_grid_peaks(grid, t, index, valid, profile=profile)
+    energy, width, peak = refine_grid_peaks(grid, t=t, index=index, valid=valid, profile=profile)
     valid = valid & np.isfinite(width) & (width > 0)
     nan = np.nan
     return Resonances(

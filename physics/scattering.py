@@ -366,7 +366,9 @@ def _find_states(edge, mass, alpha, width, geo, kt, high, params):
     grid = lo[..., None] + (hi - lo)[..., None] * np.linspace(0.0, 1.0, params.n_search)
     t = transmission(grid, profile=probe)
     index, valid = local_peaks(t, params.n_states + 2)
-    center, gamma, peak = refine_grid_peaks(grid, t, index, valid, profile=probe, exact_peak=True)
+    center, gamma, peak = refine_grid_peaks(
+        grid, t=t, index=index, valid=valid, profile=probe, exact_peak=True
+    )
     valid &= (
         np.isfinite(gamma)
         & (gamma > 0)
