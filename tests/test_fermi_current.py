@@ -111,6 +111,35 @@ def test_tabulated_fermi_dirac_half_outside_its_table() -> None:
     np.testing.assert_allclose(f, fermi_dirac_half(high), rtol=np.pi**2 / (8 * 120.0**2) + 1e-6)
 
 
+def test_fermi_dirac_integrals_against_their_defining_integrals() -> None:
+    # F_j(eta) = (1 / Gamma(j + 1)) int_0^inf e^j / (1 + exp(e - eta)) de (DLMF 25.12.14),
+    # integrated by scipy.integrate.quad (F_1/2 after e = t^2, which removes the sqrt at 0),
+    # up to max(eta, 0) + 60 (tail below e^-60 relative), split at the Fermi step. quad's
+    # own accuracy is ~1e-13 here; tolerance 1e-10 relative.
+    from scipy.special import expit
+
+    for eta in (-20.0, -2.0, 0.0, 3.0, 15.0, 60.0):
+        top = max(eta, 0.0) + 60.0
+        step = [max(eta, 0.0)] if eta > 0 else None
+        f0, _ = quad(lambda e, h=eta: expit(h - e), 0.0, top, points=step, epsabs=0, epsrel=1e-13)
+        t_step = [np.sqrt(eta)] if eta > 0 else None
+        f_half, _ = quad(
+            lambda t, h=eta: 4.0 / np.sqrt(np.pi) * t * t * expit(h - t * t),
+            0.0,
+            np.sqrt(top),
+            points=t_step,
+            epsabs=0,
+            epsrel=1e-13,
+            limit=200,
+        )
+        assert fermi_dirac_zero(eta) == pytest.approx(f0, rel=1e-10), eta
+        assert fermi_dirac_half(eta) == pytest.approx(f_half, rel=1e-10), eta
+        assert fermi_dirac_half_tabulated(np.array([eta]))[0][0] == pytest.approx(
+            f_half,
+            rel=1e-8,  # the spline's stated 1e-9, with margin
+        ), eta
+
+
 def test_fermi_dirac_zero_against_mpmath_polylog() -> None:
     # DLMF 25.12.16 with j = 0: F_0(x) = -Li_1(-e^x) = ln(1 + e^x), mpmath at 30 digits
     # (the polylog where 30 digits resolve 1 + e^x, mpmath's log1p beyond).
