@@ -187,7 +187,8 @@ def fermi_dirac_half_spline() -> tuple[np.ndarray, float, float, float]:
         Cubic coefficients of ``ln F_1/2`` per cell ``(n_cells, 4)``, highest power first,
         on the uniform cells from ``eta_lo`` by ``eta_step`` to ``eta_hi`` (built on first use).
     """
-    fermi_dirac_half_tabulated(np.zeros(1))
+    if "coef" not in _TABLE:
+        fermi_dirac_half_tabulated(np.zeros(1))
     return _TABLE["coef"], _ETA_LO, _ETA_STEP, _ETA_HI
 
 
