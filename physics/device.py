@@ -126,7 +126,7 @@ def ndr_conductance_s_cm2(bias_v, current_density_a_cm2, *, peak_v, valley_v):
     vv = np.asarray(valley_v, float)[:, None]
     slope = np.diff(j, axis=1) / np.diff(v)[None, :]
     inside = (v[None, :-1] >= vp - 1e-12) & (v[None, 1:] <= vv + 1e-12)
-    slope = np.where(inside, slope, np.inf)
+    slope = np.where(inside & np.isfinite(slope), slope, np.inf)  # NaN: not computed there
     mid = np.broadcast_to(0.5 * (v[1:] + v[:-1]), slope.shape)
     k = np.argmin(slope, axis=1)
     rows = np.arange(j.shape[0])

@@ -14,12 +14,27 @@ one round; a peak at the edge of a current cliff: a few); the better of the
 vertex and the best sampled point is reported, so the figures of merit are
 always computed currents, never extrapolations.
 
-A valley that falls on the last point of the sweep is reported there; the
-true valley can only be lower, so the PVCR is then a lower bound.
+A valley that falls on the last point of the sweep is not a valley: the
+sweep of that stack (only of the stacks that need it) goes on beyond its end
+in steps of the sweep's own spacing, :data:`VALLEY_EXTENSION_CHUNK` biases
+per batched call, until the current rises again, at most to
+:data:`VALLEY_EXTENSION_FACTOR` times the end bias. Where the current still
+falls there (or a self-consistent solve beyond the end fails), the valley is
+reported at the last computed point and ``valley_bounded_by_sweep`` is 1: the
+true valley lies beyond it, so ``Jv`` is an upper bound, ``Vv``, ``Delta V``
+and the PVCR lower bounds, and every figure of :data:`BOUNDED_BY_SWEEP` is
+derived from a bound. The extra points are kept in
+:attr:`IVCurves.extension_bias_v` / :attr:`IVCurves.extension_a_cm2`.
+
+Currents at stated biases (``sweep(..., at_bias_v=...)``, the circuit
+designer's ``current_density_at_bias`` targets) are computed at those biases
+exactly, one more batched call of the same physics; they are never
+interpolated on the sweep grid.
 """
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 
@@ -46,6 +61,10 @@ __all__ = [
     "HysteresisCurves",
     "sweep_hysteresis",
     "scattering_parameters",
+    "BOUNDED_BY_SWEEP",
+    "VALLEY_BOUNDED",
+    "at_bias_key",
+    "at_bias_current_key",
 ]
 
 METRIC_NAMES = (
@@ -57,7 +76,34 @@ METRIC_NAMES = (
     "delta_current_density_a_cm2",
     "delta_voltage_v",
     *DEVICE_METRIC_NAMES,
+    "valley_bounded_by_sweep",
 )
+#: The flag of a valley the sweep (with its extension) did not reach: 1.0 bounded, 0.0 found,
+#: NaN where there is no NDR.
+VALLEY_BOUNDED = "valley_bounded_by_sweep"
+#: Figures of merit computed from the valley (its bias or current) -> what the reported value
+#: is where :data:`VALLEY_BOUNDED` is 1: ``"lower"`` (the true value is at least this),
+#: ``"upper"`` (at most this) or ``""`` (derived from a bound, either way). The mesa's
+#: quantities follow their per-area figures.
+BOUNDED_BY_SWEEP = {
+    "valley_current_density_a_cm2": "upper",
+    "valley_voltage_v": "lower",
+    "pvcr": "lower",
+    "delta_current_density_a_cm2": "lower",
+    "delta_voltage_v": "lower",
+    "rf_power_density_w_cm2": "lower",
+    "ndr_conductance_s_cm2": "upper",  # the steepest slope seen; the true one may be steeper
+    "ndr_bias_v": "",
+    "cutoff_frequency_hz": "",
+    "bistable_window_v": "",
+    "valley_current_ma": "upper",
+    "ndr_conductance_ms": "upper",
+    "rf_power_uw": "lower",
+}
+#: Valley beyond the sweep end: the sweep goes on in steps of its last spacing, this many
+#: biases per batched call, up to this factor times the end bias (magnitude).
+VALLEY_EXTENSION_CHUNK = 8
+VALLEY_EXTENSION_FACTOR = 1.5
 #: Smallest relative current drop after a maximum that counts as NDR.
 NDR_DROP = 0.02
 #: Extra metrics of the up sweep (self-consistent model, forward bias): its peak, and the
@@ -82,18 +128,47 @@ class IVCurves:
     current_density_a_cm2
         ``(n_stacks, n_biases)``.
     metrics
-        Each of :data:`METRIC_NAMES` -> ``(n_stacks,)``; NaN where there is no NDR in the sweep.
+        Each of :data:`METRIC_NAMES` -> ``(n_stacks,)``; NaN where there is no NDR in the
+        sweep; and the currents at stated biases (:func:`at_bias_key`).
+    extension_bias_v
+        ``(m,)`` biases beyond the sweep's end where valleys were looked for (empty when no
+        valley fell on the sweep's last point).
+    extension_a_cm2
+        ``(n_stacks, m)`` currents there; NaN for stacks that did not need them.
     """
 
     bias_v: np.ndarray
     current_density_a_cm2: np.ndarray
     metrics: dict[str, np.ndarray] = field(default_factory=dict)
+    extension_bias_v: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    extension_a_cm2: np.ndarray | None = None
+
+    def curve_of(self, i: int = 0) -> tuple[np.ndarray, np.ndarray]:
+        """Bias and current of stack ``i``, the sweep followed by its computed extension."""
+        v, j = self.bias_v, self.current_density_a_cm2[i]
+        if self.extension_a_cm2 is None or self.extension_bias_v.size == 0:
+            return v, j
+        ok = np.isfinite(self.extension_a_cm2[i])
+        v = np.concatenate([v, self.extension_bias_v[ok]])
+        j = np.concatenate([j, self.extension_a_cm2[i, ok]])
+        order = np.argsort(v, kind="stable")  # a reverse-branch extension lies below the sweep
+        return v[order], j[order]
 
     def metrics_of(self, i: int = 0) -> dict[str, float | None]:
         """Metrics of stack ``i`` as plain floats, ``None`` for NaN (JSON-ready)."""
         return {
             k: (None if not np.isfinite(v[i]) else float(v[i])) for k, v in self.metrics.items()
         }
+
+
+def at_bias_key(bias_v: float) -> str:
+    """Metric key of the current density at a stated bias: ``current_density_at_0.3_v_a_cm2``."""
+    return f"current_density_at_{float(bias_v):g}_v_a_cm2"
+
+
+def at_bias_current_key(bias_v: float) -> str:
+    """Key of a mesa's current at a stated bias (``[device] area_um2``): ``current_at_0.3_v_ma``."""
+    return f"current_at_{float(bias_v):g}_v_ma"
 
 
 def band_profile(table: LayerTable, bias_v, *, model: ModelOptions = ModelOptions()):
@@ -426,6 +501,55 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
     return best_v, best_j, np.where(bistable, v_hi - vp, 0.0)
 
 
+def _extend_valleys(devices, model, grid, v_side, j_side, ip, need, sign):
+    """Go on beyond the sweep's end for the stacks whose valley fell on its last point.
+
+    Steps of the sweep's last spacing, :data:`VALLEY_EXTENSION_CHUNK` biases per
+    batched call (only the stacks still open), until the current rises again after
+    its lowest point, or :data:`VALLEY_EXTENSION_FACTOR` times the end bias
+    (magnitudes; ``sign`` -1 for the reverse branch). A self-consistent solve that
+    fails beyond the end stops the extension of that call's stacks.
+
+    Returns the extension's bias magnitudes ``(m,)``, their currents ``(n, m)``
+    (magnitudes on the branch, NaN where not computed), the valley index on the
+    extended curve and whether the valley is still bounded by the last computed point.
+    """
+    from .electrostatics import ElectrostaticsConvergenceError
+
+    n = j_side.shape[0]
+    end = abs(float(v_side[-1]))
+    step = abs(float(v_side[-1] - v_side[-2]))
+    count = int(np.floor((VALLEY_EXTENSION_FACTOR - 1.0) * end / step + 1e-9)) if step > 0 else 0
+    v_ext = end + step * np.arange(1, count + 1)
+    j_ext = np.full((n, count), np.nan)
+    valley = np.full(n, -1)
+    bounded = need.copy()
+    open_ = need.copy()
+    done = 0
+    while done < count and np.any(open_):
+        rows = np.nonzero(open_)[0]
+        chunk = slice(done, min(done + VALLEY_EXTENSION_CHUNK, count))
+        try:
+            j = devices.take(rows).current(sign * v_ext[chunk], model, grid)
+        except ElectrostaticsConvergenceError:
+            break  # these stay bounded by the last point computed
+        j_ext[rows, chunk] = sign * j
+        done = chunk.stop
+        for s in rows:  # per stack: where the extended curve's valley is, not physics
+            jj = np.concatenate([j_side[s], j_ext[s, :done]])
+            after = jj[ip[s] + 1 :]
+            above = np.nonzero(after > jj[ip[s]])[0]
+            stop = above[0] if above.size else after.size
+            k = ip[s] + 1 + int(np.argmin(after[:stop]))
+            valley[s] = k
+            if k < jj.size - 1:  # the current rises again after it
+                open_[s] = bounded[s] = False
+    for s in np.nonzero(bounded)[0]:  # still falling: the last point computed
+        last = v_side.size + int(np.count_nonzero(np.isfinite(j_ext[s]))) - 1
+        valley[s] = last
+    return v_ext, j_ext, valley, bounded
+
+
 def sweep(
     table: LayerTable,
     bias_v: np.ndarray,
@@ -435,6 +559,8 @@ def sweep(
     refine: bool = True,
     series_resistance_ohm_um2: float | np.ndarray = 0.0,
     area_weights: np.ndarray | None = None,
+    at_bias_v: Sequence[float] = (),
+    area_um2: float | None = None,
 ) -> IVCurves:
     """I-V sweep of every stack in ``table`` (or device, see ``area_weights``) with figures of merit.
 
@@ -464,6 +590,18 @@ def sweep(
         refined on the mixed curve; capacitance, lifetime and the up sweep's
         branch from each device's largest island). ``None``: each stack is a
         device.
+    at_bias_v
+        Biases, V, at which the current density is computed exactly (one more
+        batched call, never interpolated on the sweep grid): metrics
+        :func:`at_bias_key` in A/cm^2 and, with ``area_um2``,
+        :func:`at_bias_current_key` in mA (the current of a mesa of that area).
+    area_um2
+        Mesa area, um^2, for the mA form of ``at_bias_v``.
+
+    Notes
+    -----
+    A valley on the sweep's last point is looked for beyond it (see the module
+    docstring); :data:`VALLEY_BOUNDED` says where it was not found.
     """
     bias = np.asarray(bias_v, float)
     if bias.ndim != 1 or bias.size < 1 or np.any(np.diff(bias) <= 0):
@@ -474,6 +612,13 @@ def sweep(
     j = devices.current(bias, model, grid)
     table = devices.largest()  # the stack-level figures below: one stack per device
     metrics = {name: np.full(devices.n, np.nan) for name in METRIC_NAMES}
+    at = np.asarray(at_bias_v, float).reshape(-1)
+    if at.size:
+        j_at = devices.current(at, model, grid)
+        for k, b in enumerate(at):
+            metrics[at_bias_key(b)] = j_at[:, k]
+            if area_um2 is not None:
+                metrics[at_bias_current_key(b)] = j_at[:, k] * area_um2 * 1e-5  # A/cm^2 um^2 -> mA
 
     forward = bias >= 0
     if np.count_nonzero(bias > 0) >= 3:
@@ -488,6 +633,21 @@ def sweep(
     has = ip >= 0
     if not np.any(has):
         return IVCurves(bias, j, metrics)
+
+    # a valley on the last point: go on beyond the end (only the stacks that need it)
+    bounded = np.zeros(devices.n, bool)
+    ext_v, ext_j = np.zeros(0), None
+    need = has & (iv == v_side.size - 1)
+    if np.any(need):
+        mag, ext_j, iv_ext, bounded = _extend_valleys(
+            devices, model, grid, np.abs(v_side), j_side, ip, need, sign
+        )
+        ext_v = sign * mag
+        iv = np.where(need, iv_ext, iv)
+        v_side = np.concatenate([v_side, ext_v])  # common biases; NaN where not computed
+        j_side = np.concatenate([j_side, ext_j], axis=1)
+        ext_j = sign * ext_j
+    curves = functools.partial(IVCurves, extension_bias_v=ext_v, extension_a_cm2=ext_j)
 
     rows = np.nonzero(has)[0]
     vp, jp = v_side[ip[rows]], j_side[rows, ip[rows]]
@@ -506,7 +666,7 @@ def sweep(
         )
         y = sign * y  # back to magnitudes on this branch
         vp, jp = c[:n], np.maximum(y[:n], jp)
-        interior = iv[rows] < v_side.size - 1  # a valley on the sweep's last point stays there
+        interior = ~bounded[rows]  # a valley on the last point computed stays there
         vv = np.where(interior, c[n:], vv)
         jv = np.where(interior, np.minimum(y[n:], jv), jv)
     metrics["peak_current_density_a_cm2"][rows] = jp
@@ -516,6 +676,7 @@ def sweep(
     metrics["pvcr"][rows] = jp / np.where(jv > 0, jv, np.nan)
     metrics["delta_current_density_a_cm2"][rows] = jp - jv
     metrics["delta_voltage_v"][rows] = np.abs(vv - vp)
+    metrics[VALLEY_BOUNDED][rows] = bounded[rows].astype(float)
     peak_solution = None  # the self-consistent solve at the peak, shared with the up branch
     if model.electrostatics == "self-consistent":
         peak_solution = _solve_at(table.take(rows), vp[:, None], model)
@@ -561,7 +722,7 @@ def sweep(
     metrics["peak_current_density_up_a_cm2"][rows] = jp_up
     metrics["peak_voltage_up_v"][rows] = vp_up
     metrics["bistable_window_v"][rows] = window
-    return IVCurves(bias, j, metrics)
+    return curves(bias, j, metrics)
 
 
 def stack_iv(

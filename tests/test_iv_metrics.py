@@ -184,14 +184,64 @@ def test_single_barrier_has_no_ndr_metrics() -> None:
     assert all(v is None for v in curves.metrics_of(0).values())
 
 
-def test_valley_on_last_sweep_point_stays_there() -> None:
-    # Documented: a valley on the sweep's last point is reported there (PVCR a lower bound).
+def test_valley_beyond_the_sweep_end_is_found_by_the_extension() -> None:
+    # Issue 14: a valley on the sweep's last point is not a valley; the sweep goes on beyond
+    # its end until the current rises again (physics.iv module docstring). Reference: a long
+    # brute sweep of the same stack and model (301 points to 0.5 V, refined), common practice.
+    # Tolerances: the refinement's resolution (Vv to 1/5 of the cut sweep's spacing, Jv 1e-3).
     table = _double_barrier()
-    full = sweep(table, np.linspace(0.0, 0.5, 31), model=PARABOLIC)
-    v_cut = 0.5 * (full.metrics["peak_voltage_v"][0] + full.metrics["valley_voltage_v"][0])
-    cut = sweep(table, np.linspace(0.0, v_cut, 21), model=PARABOLIC)
-    assert cut.metrics["valley_voltage_v"][0] == pytest.approx(v_cut, abs=1e-12)
-    assert cut.metrics["pvcr"][0] <= full.metrics["pvcr"][0]
+    brute = sweep(table, np.linspace(0.0, 0.5, 301), model=PARABOLIC).metrics
+    vp, vv = brute["peak_voltage_v"][0], brute["valley_voltage_v"][0]
+    v_cut = vp + 0.5 * (vv - vp)  # the sweep ends inside the NDR region
+    bias = np.linspace(0.0, v_cut, 21)
+    cut = sweep(table, bias, model=PARABOLIC)
+    m = cut.metrics
+    assert m["valley_bounded_by_sweep"][0] == 0.0
+    assert m["valley_voltage_v"][0] > v_cut
+    assert abs(m["valley_voltage_v"][0] - vv) < (bias[1] - bias[0]) / 5
+    assert m["valley_current_density_a_cm2"][0] == pytest.approx(
+        brute["valley_current_density_a_cm2"][0], rel=1e-3
+    )
+    # the extension's points are computed currents of the same model
+    v_ext, j_ext = cut.curve_of(0)
+    assert v_ext[-1] > m["valley_voltage_v"][0] and v_ext[-1] <= 1.5 * v_cut + 1e-12
+    direct = sweep(table, v_ext[bias.size :], model=PARABOLIC, refine=False)
+    np.testing.assert_allclose(j_ext[bias.size :], direct.current_density_a_cm2[0], rtol=1e-12)
+    # a stack whose valley is found inside the sweep takes no extension
+    assert sweep(table, np.linspace(0.0, 0.5, 31), model=PARABOLIC).extension_bias_v.size == 0
+
+
+def test_valley_beyond_the_extension_cap_is_flagged_bounded() -> None:
+    # Thin (1 nm) barriers: a broad NDR whose valley (about 0.23 V) lies beyond 1.5 times a
+    # sweep ending at 0.14 V. The flag is set, the valley is the last point computed (the
+    # cap), and the PVCR is below the true one (a lower bound). Reference: the same stack
+    # swept to 1 V (common practice).
+    table = _double_barrier(1.0)
+    true = sweep(table, np.linspace(0.0, 1.0, 61), model=PARABOLIC).metrics
+    assert true["valley_bounded_by_sweep"][0] == 0.0
+    assert true["valley_voltage_v"][0] > 1.5 * 0.14
+    cut = sweep(table, np.linspace(0.0, 0.14, 21), model=PARABOLIC).metrics
+    assert cut["valley_bounded_by_sweep"][0] == 1.0
+    assert cut["valley_voltage_v"][0] == pytest.approx(1.5 * 0.14, abs=1e-9)
+    assert cut["pvcr"][0] < true["pvcr"][0]
+    assert cut["valley_current_density_a_cm2"][0] > true["valley_current_density_a_cm2"][0]
+    assert cut["delta_voltage_v"][0] < true["delta_voltage_v"][0]
+
+
+def test_extension_only_for_the_stacks_that_need_it() -> None:
+    # In a batch, a stack whose valley is inside the sweep keeps NaN extension currents and
+    # its own metrics (the batched path stays the plain sweep for it).
+    a, b = _double_barrier(3.0), _double_barrier(1.0)
+    both = type(a).concatenate([a, b])
+    bias = np.linspace(0.0, 0.2, 21)
+    curves = sweep(both, bias, model=PARABOLIC)
+    alone = sweep(a, bias, model=PARABOLIC)
+    assert curves.extension_a_cm2 is not None
+    assert np.all(np.isnan(curves.extension_a_cm2[0]))
+    assert np.isfinite(curves.extension_a_cm2[1, 0])
+    assert curves.metrics["valley_voltage_v"][0] == pytest.approx(
+        alone.metrics["valley_voltage_v"][0], abs=1e-12
+    )
 
 
 def test_batched_sweep_equals_single_sweeps() -> None:

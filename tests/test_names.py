@@ -40,7 +40,7 @@ def test_every_metric_has_words_and_a_consistent_trade_unit():
     for key in METRIC_NAMES:
         q = names.QUANTITIES[key]
         assert q.words and "_" not in q.words and q.words[0] != q.words[0].upper() or key == "pvcr"
-        if key == "pvcr":
+        if key in ("pvcr", "valley_bounded_by_sweep"):  # a ratio and a flag
             assert q.unit == ""
             continue
         assert q.factor == pytest.approx(_factor(key, q.unit), rel=1e-12), key
@@ -54,6 +54,17 @@ def test_labels_and_formats():
     assert names.format_value("pvcr", None) == "-"
     assert names.format_value("pvcr", float("nan")) == "-"
     assert names.words("some_new_key") == "some new key"
+
+
+def test_quantities_at_a_stated_bias_take_their_row_with_the_bias_in_words():
+    # keys of physics.iv.at_bias_key / at_bias_current_key (issue 14, circuit designer)
+    from wellwright.physics.iv import at_bias_current_key, at_bias_key
+
+    assert names.label(at_bias_key(0.3)) == "current density at 0.3 V (kA/cm²)"
+    assert names.label(at_bias_current_key(-0.25)) == "current at -0.25 V (mA)"
+    q = names.quantity(at_bias_key(0.3))
+    assert q.factor == pytest.approx(_factor("x_a_cm2", q.unit), rel=1e-12)
+    assert names.format_value(at_bias_current_key(0.3), 1.234, with_unit=True) == "1.23 mA"
 
 
 def test_growth_parameters_and_variables_in_words():

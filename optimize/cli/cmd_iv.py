@@ -16,7 +16,14 @@ from wellwright.optimize.shared.outputs import (
     write_json,
 )
 from wellwright.physics.errors import InputError
-from wellwright.physics.iv import METRIC_NAMES, external_bias_v, stack_iv
+from wellwright.physics.iv import (
+    BOUNDED_BY_SWEEP,
+    METRIC_NAMES,
+    VALLEY_BOUNDED,
+    VALLEY_EXTENSION_FACTOR,
+    external_bias_v,
+    stack_iv,
+)
 from wellwright.physics.stack import load_stack, read_toml
 from wellwright.physics.valleys import x_valley_issues, x_valley_message
 
@@ -60,20 +67,28 @@ def check_sweep(bias_min: float, bias_max: float, points: int) -> np.ndarray:
 
 
 def iv_record(stack, curves) -> dict:
-    """The JSON record of ``wellwright iv``: biases, currents, metrics, device-level values."""
-    j = curves.current_density_a_cm2[0]
+    """The JSON record of ``wellwright iv``: biases, currents, metrics, device-level values.
+
+    The curve is the sweep followed by the biases computed beyond its end where the
+    valley fell on its last point (:func:`wellwright.physics.iv.sweep`);
+    ``bounded_by_sweep`` lists the figures that are bounds because the valley was not
+    reached even there (empty otherwise).
+    """
+    bias, j = curves.curve_of(0)
     record = {
         "stack": stack.source,
         "model": model_record(stack),
         "temperature_k": stack.temperature_k,
-        "bias_v": curves.bias_v,
+        "bias_v": bias,
         "current_density_a_cm2": j,
         "metrics": curves.metrics_of(0),
     }
+    bounded = record["metrics"].get(VALLEY_BOUNDED) == 1.0
+    record["bounded_by_sweep"] = [k for k in BOUNDED_BY_SWEEP if bounded]
     dev = stack.device
     if dev.series_resistance_ohm_um2 > 0:
         record["external_bias_v"] = external_bias_v(
-            curves.bias_v, j, series_resistance_ohm_um2=dev.series_resistance_ohm_um2
+            bias, j, series_resistance_ohm_um2=dev.series_resistance_ohm_um2
         )
         m = record["metrics"]
         for name in ("peak", "valley"):
@@ -153,14 +168,32 @@ def run(args) -> int:
     else:
         m = record["metrics"]
         print(f"{stack.source}: {len(bias)} biases from {bias[0]:g} to {bias[-1]:g} V")
+        extended = len(record["bias_v"]) - len(bias)
+        if extended:
+            print(
+                f"  valley beyond the sweep end: {extended} more biases to "
+                f"{record['bias_v'][-1 if bias[-1] > 0 else 0]:g} V"
+            )
         for line in island_lines:
             print(f"  {line}")
         if m["peak_current_density_a_cm2"] is None:
             print("  no negative differential resistance in this sweep")
         else:
             print("  first NDR peak and its valley:")
+            bound = bool(record["bounded_by_sweep"])
             for key in METRIC_NAMES:
-                print(f"  {names.words(key):<38} {names.format_value(key, m[key], with_unit=True)}")
+                if key == VALLEY_BOUNDED:
+                    continue
+                value = names.format_bound(key, m[key], bounded=bound, with_unit=True)
+                print(f"  {names.words(key):<38} {value}")
+            if bound:
+                print(
+                    f"  valley not reached: the current still falls at "
+                    f"{m['valley_voltage_v'] * 1e3:.0f} mV, the last bias computed (sweep "
+                    f"extended to {VALLEY_EXTENSION_FACTOR:g} times its end), so the valley "
+                    "figures are bounds (≥, ≤: where the true value lies; '(valley bounded)': "
+                    "derived from one): raise --bias-max"
+                )
             if (m.get("bistable_window_v") or 0.0) > 0.0:
                 print(
                     f"  bistable: the up sweep stays on the charged branch for "

@@ -47,6 +47,7 @@ from wellwright.optimize.study.run_folder import (
 )
 from wellwright.optimize.study.study import Study
 from wellwright.physics.errors import InputError
+from wellwright.physics.iv import VALLEY_BOUNDED, VALLEY_EXTENSION_FACTOR
 
 __all__ = ["build_report", "SECTIONS", "versions"]
 
@@ -293,11 +294,22 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
         star = " *" if d["rank"] <= reported else ""
         rows.append(
             [f"{d['rank']}{star}", d["trial"], ok]
-            + [names.format_value(k, m.get(k)) for k in METRIC_COLUMNS]
+            + [names.format_bound(k, m.get(k), bounded=_bounded(d)) for k in METRIC_COLUMNS]
             + [_num(d["params"].get(n), spec=".4g") for n in study.parameter_names]
             + [_esc(", ".join(names.variable_label(v) for v in d.get("at_range_limit") or []))]
         )
     limits = sorted({v for d in designs[:reported] for v in d.get("at_range_limit") or []})
+    bounded = [str(d["rank"]) for d in designs if _bounded(d)]
+    beyond = (
+        "<p><b>Valley beyond the sweep:</b> for rank "
+        + _esc(", ".join(bounded))
+        + " the current still falls at the last bias computed (the sweep extended to "
+        f"{VALLEY_EXTENSION_FACTOR:g} times its end), so the valley figures are bounds: ≥ and "
+        "≤ say where the true value lies, “valley bounded” marks a figure derived from one. "
+        "Raise the sweep's end bias ([sweep] bias_max_v) to find the valley.</p>"
+        if bounded
+        else ""
+    )
     widen = (
         "<p><b>At a range limit:</b> the analysed designs sit at an end of the range of "
         + _esc(", ".join(names.variable_label(v) for v in limits))
@@ -310,11 +322,17 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
         "the spec and every constraint. The ten best distinct designs, best first; "
         f"* marks the {reported} analysed below.</p>"
         + widen
+        + beyond
         + '<div style="overflow-x:auto">'
         + _table(head, rows, left=1, raw=True)
         + "</div>"
         + _device_table(designs, reported)
     )
+
+
+def _bounded(design: dict) -> bool:
+    """The design's valley was not reached even beyond the sweep end (its figures are bounds)."""
+    return design["metrics"].get(VALLEY_BOUNDED) == 1.0
 
 
 def _resolution_text(ranking: dict | None) -> str:
@@ -362,8 +380,11 @@ def _device_table(designs: list[dict], reported: int) -> str:
         star = " *" if d["rank"] <= reported else ""
         rows.append(
             [f"{d['rank']}{star}"]
-            + [names.format_value(k, d["metrics"].get(k)) for k in keys]
-            + [names.format_value(k, (d.get("device") or {}).get(k)) for k in device_keys]
+            + [names.format_bound(k, d["metrics"].get(k), bounded=_bounded(d)) for k in keys]
+            + [
+                names.format_bound(k, (d.get("device") or {}).get(k), bounded=_bounded(d))
+                for k in device_keys
+            ]
         )
     return (
         "<p>Oscillator and device figures of the same designs: output power (3/16) ΔJ ΔV of "

@@ -19,7 +19,7 @@ import optuna
 from optuna.trial import FrozenTrial, TrialState
 from wellwright.optimize.shared.model_text import model_label
 from wellwright.physics.device import device_quantities
-from wellwright.physics.iv import METRIC_NAMES
+from wellwright.physics.iv import BOUNDED_BY_SWEEP, METRIC_NAMES, VALLEY_BOUNDED
 from wellwright.physics.stack import Stack
 
 if TYPE_CHECKING:
@@ -144,9 +144,10 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     ``params`` (parameter name -> value), ``layers`` (name, material,
     label, x, thickness_ml, thickness_nm, doping_cm3; contacts have no
     thickness), ``active_thickness_nm``, ``at_range_limit`` (the variables at an end of
-    their range, :func:`at_range_limit`), ``stack`` (a stack dictionary for
-    :func:`wellwright.physics.stack.parse_stack`) and, when the study gives
-    thickness), ``active_thickness_nm``, ``stack`` (a stack dictionary for
+    their range, :func:`at_range_limit`), ``bounded_by_sweep`` (where the metric
+    ``valley_bounded_by_sweep`` is 1, the figures of
+    :data:`wellwright.physics.iv.BOUNDED_BY_SWEEP`, which are then bounds; else empty),
+    ``stack`` (a stack dictionary for
     :func:`wellwright.physics.stack.parse_stack`), ``model`` (the model that computed the
     metrics, in words) and, when the study gives
     ``[device] area_um2``, ``device`` (the mesa's current in mA, conductance in
@@ -175,6 +176,9 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     )
     rec["stack"] = study.stack_dict(trial.params)
     rec["at_range_limit"] = at_range_limit(study, trial.params)
+    # the valley not reached even beyond the sweep end: these figures are bounds
+    bounded = rec["metrics"].get(VALLEY_BOUNDED) == 1.0
+    rec["bounded_by_sweep"] = [k for k in BOUNDED_BY_SWEEP if bounded]
     rec["model"] = model_label(study.stack(trial.params))
     area = (rec["stack"].get("device") or {}).get("area_um2")
     if area is not None:  # the mesa's own quantities (mA, mS, fF, uW)
@@ -325,7 +329,7 @@ def _designs_table(
     if study.search.robust:
         head += ["yield", "yield_ci_low", "yield_ci_high"]
     head += ["spec_violation", *METRIC_NAMES, *study.parameter_names, "active_thickness_nm"]
-    head += ["at_range_limit"]
+    head += ["at_range_limit", "bounded_by_sweep"]
     device_keys = sorted({k for d in designs for k in (d.get("device") or {})})
     head += device_keys
     rows = []
@@ -337,7 +341,7 @@ def _designs_table(
             row += [y.get("value"), y.get("ci_low"), y.get("ci_high")]
         row += [d["spec_violation"], *(d["metrics"][k] for k in METRIC_NAMES)]
         row += [d["params"].get(n) for n in study.parameter_names] + [d["active_thickness_nm"]]
-        row += [" ".join(d.get("at_range_limit") or [])]
+        row += [" ".join(d.get("at_range_limit") or []), " ".join(d.get("bounded_by_sweep") or [])]
         row += [(d.get("device") or {}).get(k) for k in device_keys]
         rows.append([f"{v:.6g}" if isinstance(v, float) else v for v in row])
     return head, rows

@@ -71,7 +71,7 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
         2, 1, figsize=(6.4, 6.4), sharex=True, gridspec_kw={"height_ratios": [3, 2]}
     )
     m: dict[str, Any] = curves.metrics_of(i)  # None where undefined, checked below
-    v, j = curves.bias_v, curves.current_density_a_cm2[i]
+    v, j = curves.curve_of(i)  # with the biases computed beyond the end to find the valley
     marks = []
     if m["peak_voltage_v"] is not None:
         for name in ("peak", "valley"):
@@ -97,11 +97,16 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
                 zorder=5,
                 label="first NDR peak" if name == "peak" else "its valley",
             )
-    bounded = bool(marks) and marks[1][1] == float(curves.bias_v[-1])
+    extended = v.size > curves.bias_v.size  # computed beyond the sweep to find the valley
+    if extended:
+        end = float(curves.bias_v[-1] if v[-1] > curves.bias_v[-1] else curves.bias_v[0])
+        for axis in (ax, lx):
+            axis.axvline(end, ls=":", color="0.45", lw=1, label="sweep end" if axis is ax else None)
+    bounded = bool(marks) and m.get("valley_bounded_by_sweep") == 1.0
     if marks:
         valley_text = (
-            f"$J_v$ ≤ {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm² at the sweep end "
-            f"({m['valley_voltage_v'] * 1e3:.0f} mV; valley beyond it)"
+            f"$J_v$ ≤ {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
+            f"{m['valley_voltage_v'] * 1e3:.0f} mV, the last bias\ncomputed: the valley lies beyond"
             if bounded
             else f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
             f"{m['valley_voltage_v'] * 1e3:.0f} mV"
@@ -111,9 +116,10 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
             if m["pvcr"] is not None
             else "PVCR undefined (valley current ≤ 0)"
         )
+        beyond = "\n(continued past the sweep end)" if extended else ""
         ax.annotate(
             f"first NDR peak: $J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
-            f"{m['peak_voltage_v'] * 1e3:.0f} mV\n{valley_text}\n{pvcr}",
+            f"{m['peak_voltage_v'] * 1e3:.0f} mV\n{valley_text}\n{pvcr}{beyond}",
             xy=(0.03, 0.97),
             xycoords="axes fraction",
             va="top",

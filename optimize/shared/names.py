@@ -12,7 +12,8 @@ which matplotlib, HTML and CSV all show as is.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+import re
+from dataclasses import dataclass, replace
 from typing import Any
 
 __all__ = [
@@ -24,6 +25,7 @@ __all__ = [
     "label",
     "to_display",
     "format_value",
+    "format_bound",
     "typical",
     "parameter_words",
     "variable_label",
@@ -79,7 +81,15 @@ QUANTITIES: dict[str, Quantity] = {
         "cutoff frequency", "GHz", 1e-9, ".0f", 5e11, "estimate from G, C, R_s, delays"
     ),
     "current_density_at_bias_a_cm2": Quantity(
-        "current density at the stated bias", "kA/cm²", 1e-3, ".3g", 1e4
+        "current density at the stated bias", "kA/cm²", 1e-3, ".3g", 1e4, "computed at that bias"
+    ),
+    "valley_bounded_by_sweep": Quantity(
+        "valley bounded by the sweep end",
+        "",
+        1.0,
+        ".0f",
+        1.0,
+        "1: the current still falls at the last bias computed; valley figures are bounds",
     ),
     # the up sweep where the self-consistent I-V is bistable above the peak
     "peak_current_density_up_a_cm2": Quantity(
@@ -95,6 +105,7 @@ QUANTITIES: dict[str, Quantity] = {
     "ndr_conductance_ms": Quantity("negative differential conductance", "mS", 1.0, ".3g"),
     "capacitance_ff": Quantity("capacitance", "fF", 1.0, ".3g"),
     "rf_power_uw": Quantity("oscillator output power", "µW", 1.0, ".3g"),
+    "current_at_bias_ma": Quantity("current at the stated bias", "mA", 1.0, ".3g"),
     # reasons a sample fails
     "no_ndr": Quantity("no NDR in the sweep"),
     "solve_failed": Quantity("self-consistent solve did not converge"),
@@ -121,11 +132,28 @@ VARIABLE_KEYS = {
 }
 
 
+#: Keys of a quantity at a stated bias (``current_density_at_0.3_v_a_cm2``,
+#: ``current_at_0.3_v_ma``: :func:`wellwright.physics.iv.at_bias_key`) -> their row.
+AT_BIAS_KEY = re.compile(
+    r"^(current_density|current)_at_(?P<bias>[-+0-9.e]+)_v_(?P<unit>a_cm2|ma)$"
+)
+
+
 def quantity(key: str) -> Quantity:
-    """The row of ``key``; an unknown key gets its own name in words and no unit."""
+    """The row of ``key``; an unknown key gets its own name in words and no unit.
+
+    A key at a stated bias takes the row of ``current_density_at_bias_a_cm2`` or
+    ``current_at_bias_ma`` with the bias in its words ("current density at 0.3 V").
+    """
     found = QUANTITIES.get(key)
     if found is not None:
         return found
+    at = AT_BIAS_KEY.match(key)
+    if at is not None:
+        row = QUANTITIES[
+            "current_density_at_bias_a_cm2" if at["unit"] == "a_cm2" else "current_at_bias_ma"
+        ]
+        return replace(row, words=row.words.replace("the stated bias", f"{at['bias']} V"))
     return Quantity(key.replace("_", " "))
 
 
@@ -165,6 +193,22 @@ def format_value(key: str, value: Any, *, with_unit: bool = False) -> str:
     text = format(v, quantity(key).fmt)
     u = quantity(key).unit
     return f"{text} {u}" if with_unit and u else text
+
+
+def format_bound(key: str, value: Any, *, bounded: bool, with_unit: bool = False) -> str:
+    """:func:`format_value`, marked where the valley was bounded by the sweep end.
+
+    With ``bounded`` and ``key`` one of :data:`wellwright.physics.iv.BOUNDED_BY_SWEEP`:
+    "≥ 476" (the true value is at least this), "≤ 33.1" (at most), or "265 (valley bounded)"
+    (derived from a bound, either way).
+    """
+    from wellwright.physics.iv import BOUNDED_BY_SWEEP
+
+    text = format_value(key, value, with_unit=with_unit)
+    if not bounded or key not in BOUNDED_BY_SWEEP or text == "-":
+        return text
+    side = BOUNDED_BY_SWEEP[key]
+    return {"lower": f"≥ {text}", "upper": f"≤ {text}"}.get(side, f"{text} (valley bounded)")
 
 
 def typical(key: str) -> float:

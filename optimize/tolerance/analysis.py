@@ -33,7 +33,7 @@ from wellwright.optimize.shared.processes import exit_with_parent
 from wellwright.optimize.study.growth import AsGrown, GrowthModel, as_generator
 from wellwright.optimize.study.targets import Spec  # re-exported: the pass/fail form of [targets]
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
-from wellwright.physics.iv import METRIC_NAMES, sweep
+from wellwright.physics.iv import BOUNDED_BY_SWEEP, METRIC_NAMES, VALLEY_BOUNDED, sweep
 from wellwright.physics.stack import LayerTable, ModelOptions, Stack
 
 __all__ = [
@@ -104,6 +104,25 @@ def wilson_interval(successes: int, n: int, *, confidence: float = 0.95) -> tupl
 
 #: Key of the per-sample flag (1.0 or 0.0) of a self-consistent solve that did not converge.
 SOLVE_FAILED = "solve_failed"
+#: Figures of merit whose Sobol indices and Morris effects are reported (the valley flag is
+#: counted instead: :func:`valley_bounded_record`).
+OUTPUT_NAMES = tuple(k for k in METRIC_NAMES if k != VALLEY_BOUNDED)
+
+
+def valley_bounded_record(nominal: dict[str, Any], metrics: dict[str, np.ndarray]) -> dict:
+    """Whether the valley was bounded by the sweep end, nominally and in the Monte Carlo.
+
+    ``nominal`` (bool), ``samples`` (how many samples' valleys were not reached even
+    beyond the sweep end), ``of`` (samples with NDR) and ``bounded_figures`` (the figures
+    of :data:`wellwright.physics.iv.BOUNDED_BY_SWEEP` that are then bounds, not values).
+    """
+    flag = np.asarray(metrics.get(VALLEY_BOUNDED, np.zeros(0)), float)
+    return {
+        "nominal": nominal.get(VALLEY_BOUNDED) == 1.0,
+        "samples": int(np.count_nonzero(flag == 1.0)),
+        "of": int(np.count_nonzero(np.isfinite(flag))),
+        "bounded_figures": list(BOUNDED_BY_SWEEP),
+    }
 
 
 def batch_metrics(
@@ -550,7 +569,7 @@ def sobol_analysis(
 
     def evaluate(u: np.ndarray) -> dict[str, np.ndarray]:
         metrics = run(model.grow(_normal(u)), desc="Sobol")
-        out = {name: metrics[name] for name in METRIC_NAMES}
+        out = {name: metrics[name] for name in OUTPUT_NAMES}
         out["pass"] = spec.passes(metrics).astype(float)
         out[SOLVE_FAILED] = np.asarray(metrics.get(SOLVE_FAILED, np.zeros(u.shape[0])), float)
         return out
@@ -619,7 +638,7 @@ def morris_analysis(
     metrics = run(model.grow(z), desc="Morris")
     out: dict[str, list] = {}
     notes = []
-    outputs = {name: metrics[name] for name in METRIC_NAMES}
+    outputs = {name: metrics[name] for name in OUTPUT_NAMES}
     outputs["pass"] = spec.passes(metrics).astype(float)
     for name, y in outputs.items():
         if not np.all(np.isfinite(y)):
@@ -949,7 +968,9 @@ def run_tolerance(
     cells and layers, the one to control hardest first); ``ranking`` (Sobol or
     Morris: :func:`ranking_resolution` of pass/fail with ``measure``,
     ``evaluations`` used and the ``budget``) and ``ranking_resolved`` (None for
-    ``mc``); ``nominal`` metrics; ``spec``; ``settings``; ``notes``. The Sobol
+    ``mc``); ``nominal`` metrics; ``valley_bounded_by_sweep``
+    (:func:`valley_bounded_record`: nominal and Monte Carlo valleys not reached even
+    beyond the sweep end, whose figures are bounds); ``spec``; ``settings``; ``notes``. The Sobol
     design starts at :data:`SOBOL_START_BASE` base samples and doubles until
     the leader of pass/fail is separated from the runner-up beyond their
     confidence intervals or the budget is spent.
@@ -985,6 +1006,17 @@ def run_tolerance(
     }
     record["model"] = model_record(model.stack)
     record["nominal"] = tor["nominal"]
+    bounded = valley_bounded_record(tor["nominal"], mc["metrics"])
+    record[VALLEY_BOUNDED] = bounded
+    if bounded["nominal"] or bounded["samples"]:
+        notes.append(
+            f"valley bounded by the sweep end (the current still falls at the last bias "
+            f"computed): {'the nominal design and ' if bounded['nominal'] else ''}"
+            f"{bounded['samples']} of {bounded['of']} Monte Carlo samples; their valley "
+            "current is an upper bound and valley voltage, PVCR, peak-to-valley differences "
+            "and output power lower bounds (spreads and indices of these figures include "
+            "bounds): raise the sweep's end bias"
+        )
     record["tornado"] = tor["layers"]
     islands = tor["islands"]
     if islands["continuous_layers"] and island_checks > 0:
