@@ -615,10 +615,10 @@ def sweep(
     at = np.asarray(at_bias_v, float).reshape(-1)
     if at.size:
         j_at = devices.current(at, model, grid)
-        for k, b in enumerate(at):
-            metrics[at_bias_key(b)] = j_at[:, k]
-            if area_um2 is not None:
-                metrics[at_bias_current_key(b)] = j_at[:, k] * area_um2 * 1e-5  # A/cm^2 um^2 -> mA
+        for col, b in enumerate(at):
+            metrics[at_bias_key(b)] = j_at[:, col]
+            if area_um2 is not None:  # A/cm^2 times um^2 (1e-8 cm^2), in mA (1e3)
+                metrics[at_bias_current_key(b)] = j_at[:, col] * area_um2 * 1e-5
 
     forward = bias >= 0
     if np.count_nonzero(bias > 0) >= 3:

@@ -198,6 +198,82 @@ def test_every_table_is_checked_by_every_command(
     assert not (tmp_path / "o").exists()
 
 
+#: Bad current-at-bias targets (issue 14, item 1): the key the line names and a part of its
+#: message (the study's sweep is 0 to 1 V; the stack gives no [device] area).
+AT_BIAS_CASES = [
+    (
+        "current_density_at_bias = {bias_v = 1.5, min = 1}",
+        "targets.current_density_at_bias.bias_v",
+        "bias_v 1.5 V outside the sweep [0, 1] V",
+    ),
+    (
+        "current_density_at_bias = {bias_v = -0.2, max = 1e5}",
+        "targets.current_density_at_bias.bias_v",
+        "outside the sweep",
+    ),
+    (
+        "current_density_at_bias = {bias_v = 0.3}",
+        "targets.current_density_at_bias",
+        "needs min and/or max in A/cm^2",
+    ),
+    ("current_density_at_bias = {min = 1}", "targets.current_density_at_bias", "needs bias_v"),
+    (
+        "current_density_at_bias = {bias_v = 0.3, min = 1, maximum = 5}",
+        "targets.current_density_at_bias.maximum",
+        "unknown key; allowed: bias_v, min, max",
+    ),
+    (
+        'current_density_at_bias = {bias_v = "0.3", min = 1}',
+        "targets.current_density_at_bias.bias_v",
+        "must be a number",
+    ),
+    (
+        "current_density_at_bias = [{bias_v = 0.1, min = 1}, {bias_v = 0.2}]",
+        "targets.current_density_at_bias[2]",
+        "needs min and/or max",
+    ),
+    (
+        "current_density_at_bias = [{bias_v = 0.1, min = 1}, {bias_v = 0.1, max = 9}]",
+        "targets.current_density_at_bias[2].bias_v",
+        "given twice",
+    ),
+    (
+        "current_density_at_bias = [{bias_v = 0.1, min = 1}, {bias_v = 2, max = 9}]",
+        "targets.current_density_at_bias[2].bias_v",
+        "bias_v 2 V outside the sweep [0, 1] V",
+    ),
+    ("current_density_at_bias = [1, 2]", "targets.current_density_at_bias[1]", "must be a table"),
+    (
+        "current_density_at_bias = {bias_v = 0.3, min = 5, max = 1}",
+        "targets.current_density_at_bias.max",
+        "must be below max",
+    ),
+    (
+        "current_at_bias_ma = {bias_v = 0.3, min = 1}",
+        "targets.current_at_bias_ma",
+        "needs the mesa area",
+    ),
+    (
+        "current_density_at_bias_v = {bias_v = 0.3, min = 1}",
+        "targets.current_density_at_bias_v",
+        "current_density_at_bias, current_at_bias_ma",
+    ),
+]
+
+
+@pytest.mark.parametrize(("target", "key", "message"), AT_BIAS_CASES)
+def test_bad_current_at_bias_targets_one_line_exit_2(
+    write_study, tmp_path, capsys, target, key, message
+):
+    # One line naming the study file and the key, exit 2, nothing written (DESIGN.md, Errors)
+    study = write_study(study_text(targets=EASY + target + "\n"))
+    assert main(["search", str(study), "--out", str(tmp_path / "o"), "--no-progress"]) == 2
+    line = _one_error_line(capsys, "search")
+    assert f"{study}, key '{key}'" in line, line
+    assert message in line, line
+    assert not (tmp_path / "o").exists()
+
+
 def test_baseline_errors_name_the_study_and_the_key(write_study, tmp_path, capsys):
     (tmp_path / "base.toml").write_text("temperature_k = 300\n[[layers]]\nmaterial = 1\n")
     study = write_study(study_text(extra='[search]\nbaseline = "base.toml"\n'))

@@ -227,6 +227,8 @@ def run(args: argparse.Namespace) -> int:
         n_jobs=n_jobs,
         backend=backend,
         progress=not args.no_progress,
+        at_bias_v=study.at_bias_v,
+        area_um2=stack.device.area_um2,
     )
     rec = run_tolerance(
         model,

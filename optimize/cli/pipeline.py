@@ -149,6 +149,8 @@ def tolerance_of_design(
         series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
         n_jobs=s.jobs,
         progress=progress,
+        at_bias_v=study.at_bias_v,
+        area_um2=stack.device.area_um2,
     )
     return run_tolerance(
         model,

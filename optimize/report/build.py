@@ -281,9 +281,11 @@ def _brief(study: Study, files: Path) -> tuple[str, dict[str, Any]]:
 
 
 def _candidates(study: Study, designs: list[dict], reported: int, search: dict) -> str:
+    # the currents at the spec's stated biases follow the standard columns
+    columns = (*METRIC_COLUMNS, *(k for k in study.metric_names if names.AT_BIAS_KEY.match(k)))
     head = (
         ["rank", "trial", "meets spec"]
-        + [metric_axis(k)[0] for k in METRIC_COLUMNS]
+        + [metric_axis(k)[0] for k in columns]
         + [_short(n) for n in study.parameter_names]
         + ["at a range limit"]
     )
@@ -294,7 +296,7 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
         star = " *" if d["rank"] <= reported else ""
         rows.append(
             [f"{d['rank']}{star}", d["trial"], ok]
-            + [names.format_bound(k, m.get(k), bounded=_bounded(d)) for k in METRIC_COLUMNS]
+            + [names.format_bound(k, m.get(k), bounded=_bounded(d)) for k in columns]
             + [_num(d["params"].get(n), spec=".4g") for n in study.parameter_names]
             + [_esc(", ".join(names.variable_label(v) for v in d.get("at_range_limit") or []))]
         )

@@ -19,7 +19,7 @@ import optuna
 from optuna.trial import FrozenTrial, TrialState
 from wellwright.optimize.shared.model_text import model_label
 from wellwright.physics.device import device_quantities
-from wellwright.physics.iv import BOUNDED_BY_SWEEP, METRIC_NAMES, VALLEY_BOUNDED
+from wellwright.physics.iv import BOUNDED_BY_SWEEP, VALLEY_BOUNDED
 from wellwright.physics.stack import Stack
 
 if TYPE_CHECKING:
@@ -140,7 +140,9 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     nominal score, also in a robust search) or ``objectives`` (metric ->
     value), ``yield`` (robust search: {value, ci_low, ci_high, samples,
     passed, confidence, failures}; else None), ``spec_violation``, ``constraints``,
-    ``metrics`` (every name of :data:`wellwright.physics.iv.METRIC_NAMES`, None for NaN),
+    ``metrics`` (every name of :attr:`wellwright.optimize.study.study.Study.metric_names`:
+    :data:`wellwright.physics.iv.METRIC_NAMES` and the currents at the spec's stated biases;
+    None for NaN),
     ``params`` (parameter name -> value), ``layers`` (name, material,
     label, x, thickness_ml, thickness_nm, doping_cm3; contacts have no
     thickness), ``active_thickness_nm``, ``at_range_limit`` (the variables at an end of
@@ -166,7 +168,7 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     rec["spec_violation"] = a.get("spec_violation")
     rec["constraints"] = dict(a.get("constraints", {}))
     metrics = a.get("metrics", {})
-    rec["metrics"] = {k: metrics.get(k) for k in METRIC_NAMES}
+    rec["metrics"] = {k: metrics.get(k) for k in study.metric_names}
     rec["params"] = {k: _tidy(v) for k, v in trial.params.items()}
     rec["layers"] = a.get("layers")
     rec["active_thickness_nm"] = (
@@ -328,7 +330,7 @@ def _designs_table(
     )
     if study.search.robust:
         head += ["yield", "yield_ci_low", "yield_ci_high"]
-    head += ["spec_violation", *METRIC_NAMES, *study.parameter_names, "active_thickness_nm"]
+    head += ["spec_violation", *study.metric_names, *study.parameter_names, "active_thickness_nm"]
     head += ["at_range_limit", "bounded_by_sweep"]
     device_keys = sorted({k for d in designs for k in (d.get("device") or {})})
     head += device_keys
@@ -339,7 +341,7 @@ def _designs_table(
         if study.search.robust:
             y = d["yield"] or {}
             row += [y.get("value"), y.get("ci_low"), y.get("ci_high")]
-        row += [d["spec_violation"], *(d["metrics"][k] for k in METRIC_NAMES)]
+        row += [d["spec_violation"], *(d["metrics"].get(k) for k in study.metric_names)]
         row += [d["params"].get(n) for n in study.parameter_names] + [d["active_thickness_nm"]]
         row += [" ".join(d.get("at_range_limit") or []), " ".join(d.get("bounded_by_sweep") or [])]
         row += [(d.get("device") or {}).get(k) for k in device_keys]

@@ -29,8 +29,10 @@ stays a large share of a search's time (see ``benchmarks/bench_search.py``).
 Every trial carries user attributes that the standard Optuna tools (its
 dashboard, ``optuna.load_study``) show without this project writing a viewer:
 
-- ``metrics``: every figure of merit of :data:`wellwright.physics.iv.METRIC_NAMES`
-  (None where there is no NDR);
+- ``metrics``: every figure of merit of
+  :attr:`wellwright.optimize.study.study.Study.metric_names` (those of
+  :data:`wellwright.physics.iv.METRIC_NAMES` and the currents at the spec's stated
+  biases; None where there is no NDR);
 - ``feasible``: meets the spec and every constraint;
 - ``spec_violation``: :meth:`wellwright.optimize.study.study.Study.spec_violation`;
 - ``constraints``: the named constraint values (> 0 violated); the same values,
@@ -102,7 +104,6 @@ from wellwright.optimize.study.study import MAX_ROBUST_SAMPLES, MIN_ROBUST_SAMPL
 from wellwright.optimize.tolerance.analysis import yield_record
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 from wellwright.physics.errors import InputError
-from wellwright.physics.iv import METRIC_NAMES
 from wellwright.physics.stack import LayerTable, Stack
 
 __all__ = [
@@ -141,18 +142,29 @@ EVALUATION_ERRORS: tuple[type[Exception], ...] = (ElectrostaticsConvergenceError
 
 #: Computes figures of merit of a batch of stacks on a bias grid:
 #: ``evaluator(stacks, bias_v) -> {metric name: (n_stacks,) array}``, NaN where
-#: there is no NDR. Must be a module-level function (workers receive it by name).
-Evaluator = Callable[[Sequence[Stack], np.ndarray], dict[str, np.ndarray]]
+#: there is no NDR. Must be a module-level function (workers receive it by name). When
+#: the spec asks for currents at stated biases it is called with ``at_bias_v=`` (those
+#: biases) too, and must return them (:func:`nominal_metrics`).
+Evaluator = Callable[..., dict[str, np.ndarray]]
 
 
-def nominal_metrics(stacks: Sequence[Stack], bias_v: np.ndarray) -> dict[str, np.ndarray]:
-    """Figures of merit of the stacks as given, in one batched sweep."""
+def nominal_metrics(
+    stacks: Sequence[Stack], bias_v: np.ndarray, *, at_bias_v: Sequence[float] = ()
+) -> dict[str, np.ndarray]:
+    """Figures of merit of the stacks as given, in one batched sweep; with ``at_bias_v`` also
+    the current at each of those biases (computed there: :func:`wellwright.physics.iv.sweep`),
+    per area and, when the stacks give ``[device] area_um2``, of the mesa in mA."""
     from wellwright.physics.iv import sweep
 
     table = LayerTable.from_stacks(list(stacks))
     resistance = [s.device.series_resistance_ohm_um2 for s in stacks]
     return sweep(
-        table, bias_v, model=stacks[0].model, series_resistance_ohm_um2=np.array(resistance)
+        table,
+        bias_v,
+        model=stacks[0].model,
+        series_resistance_ohm_um2=np.array(resistance),
+        at_bias_v=at_bias_v,
+        area_um2=stacks[0].device.area_um2,
     ).metrics
 
 
@@ -236,23 +248,25 @@ def evaluate(
     valid = [i for i, s in enumerate(stacks) if s is not None]
     built = [s for s in stacks if s is not None]
     n = len(params_list)
-    metrics = {k: np.full(n, np.nan) for k in METRIC_NAMES}
+    names = study.metric_names
+    metrics = {k: np.full(n, np.nan) for k in names}
+    extra = {"at_bias_v": study.at_bias_v} if study.at_bias_v else {}
     t0 = time.perf_counter()
     if valid:
         bias = study.sweep.bias_v
         try:
-            got = evaluator(built, bias)
-            for k in METRIC_NAMES:
+            got = evaluator(built, bias, **extra)
+            for k in names:
                 if k in got:
                     metrics[k][valid] = np.asarray(got[k], float)
         except EVALUATION_ERRORS:  # one design spoils the batch: evaluate one at a time
             for i, stack in zip(valid, built, strict=True):
                 try:
-                    one = evaluator([stack], bias)
+                    one = evaluator([stack], bias, **extra)
                 except EVALUATION_ERRORS as exc:
                     errors[i] = f"not evaluated: {type(exc).__name__}: {exc}"
                     continue
-                for k in METRIC_NAMES:
+                for k in names:
                     if k in one:
                         metrics[k][i] = float(np.asarray(one[k], float)[0])
     yields: list[dict[str, Any]] = _yields(study, stacks, errors) if study.search.robust else []
@@ -273,7 +287,7 @@ def evaluate(
         )
     outcomes = []
     for i in range(n):
-        m = {k: float(metrics[k][i]) for k in METRIC_NAMES}
+        m = {k: float(metrics[k][i]) for k in names}
         constraints = study.constraint_values(stacks[i], m)
         if errors[i]:
             constraints["stack_valid"] = 1.0

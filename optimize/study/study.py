@@ -219,6 +219,32 @@ class Study:
         return self.constraints.names + (("spec",) if self.multi_objective else ())
 
     @property
+    def at_bias_v(self) -> tuple[float, ...]:
+        """Biases, V, of the spec's currents at a stated bias (computed by every sweep)."""
+        return _targets.at_bias_v([w.metric for w in self.targets])
+
+    @property
+    def area_um2(self) -> float | None:
+        """The mesa area of the stack's ``[device]`` table, um^2 (None when not given)."""
+        device = self.base.get("device")
+        area = device.get("area_um2") if isinstance(device, dict) else None
+        return None if area is None else float(area)
+
+    @property
+    def metric_names(self) -> tuple[str, ...]:
+        """Every figure of merit a design carries: :data:`wellwright.physics.iv.METRIC_NAMES`,
+        then the current density at each stated bias of the spec and, with a mesa area,
+        the mesa's current there in mA."""
+        from wellwright.physics.iv import METRIC_NAMES, at_bias_current_key, at_bias_key
+
+        extra: list[str] = []
+        for bias in self.at_bias_v:
+            extra.append(at_bias_key(bias))
+            if self.area_um2 is not None:
+                extra.append(at_bias_current_key(bias))
+        return (*METRIC_NAMES, *extra)
+
+    @property
     def optuna_name(self) -> str:
         return self.search.study_name or self.name
 
@@ -309,9 +335,7 @@ class Study:
         """
         out = _targets.constraint_values(self.constraints, stack, metrics)
         if self.multi_objective:
-            from wellwright.physics.iv import METRIC_NAMES
-
-            arr = {k: np.array([metrics.get(k, np.nan)]) for k in METRIC_NAMES}
+            arr = {k: np.array([metrics.get(k, np.nan)]) for k in self.metric_names}
             out["spec"] = float(self.spec_violation(arr)[0])
         return out
 
@@ -363,7 +387,14 @@ def parse_study(
     # [calibration] from = ".../calibration.json": the calibrated model written into the stack
     data = apply_calibration(data, source=source, base_dir=base_dir)
     base, variables, layer_growth = parse_space(data, source=source)
-    targets, objectives = parse_targets(data.get("targets", {}), source=source)
+    sweep = _parse_sweep(data.get("sweep", {}), source=source)
+    device = base.get("device")
+    targets, objectives = parse_targets(
+        data.get("targets", {}),
+        source=source,
+        sweep_v=(sweep.bias_min_v, sweep.bias_max_v),
+        area_um2=device.get("area_um2") if isinstance(device, dict) else None,
+    )
     if not targets and not objectives:
         raise InputError(
             "needs a window for at least one figure of merit (e.g. pvcr = {min = 3}) "
@@ -372,7 +403,6 @@ def parse_study(
             key="targets",
         )
     constraints = parse_constraints(data.get("constraints", {}), source=source)
-    sweep = _parse_sweep(data.get("sweep", {}), source=source)
     search = _parse_search(data.get("search", {}), source=source)
     reserved = {k: copy.deepcopy(data[k]) for k in RESERVED_TABLES if k in data}
     study = Study(

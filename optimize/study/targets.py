@@ -2,7 +2,12 @@
 
 - ``[targets]``: a window per figure of merit (``{min, max}`` or
   ``{target, tolerance}``) and ``maximize`` / ``minimize`` lists (two or
-  more entries: a Pareto search);
+  more entries: a Pareto search); currents at a stated bias
+  (:data:`AT_BIAS_TARGETS`: ``current_density_at_bias = {bias_v = 0.3, min = ..,
+  max = ..}`` in A/cm^2, ``current_at_bias_ma`` the same for a mesa of the stack's
+  ``[device] area_um2``, in mA; a list of such tables for several biases), each a
+  window on the metric :func:`wellwright.physics.iv.at_bias_key` (or
+  :func:`~wellwright.physics.iv.at_bias_current_key`) of that bias;
 - ``[constraints]``: ``max_active_thickness_nm``, ``critical_thickness`` and
   figure-of-merit bounds, each a named constraint value (> 0 violated).
 
@@ -22,9 +27,9 @@ from typing import Any
 import numpy as np
 from wellwright.optimize.shared import names
 from wellwright.optimize.study.space import is_finite_number
-from wellwright.physics import materials
+from wellwright.physics import checks, materials
 from wellwright.physics.errors import InputError
-from wellwright.physics.iv import METRIC_NAMES
+from wellwright.physics.iv import METRIC_NAMES, at_bias_current_key, at_bias_key
 from wellwright.physics.stack import Stack
 
 __all__ = [
@@ -43,6 +48,8 @@ __all__ = [
     "critical_thickness_excess",
     "parse_targets",
     "parse_constraints",
+    "AT_BIAS_TARGETS",
+    "at_bias_v",
 ]
 
 #: Spec violation counted for each figure of merit that is NaN (no NDR in the
@@ -148,6 +155,12 @@ class Spec:
     @classmethod
     def from_windows(cls, windows: Sequence[Window]) -> Spec:
         return cls(tuple((w.metric, float(w.low), float(w.high)) for w in windows))
+
+    @property
+    def at_bias_v(self) -> tuple[float, ...]:
+        """Biases, V, at which the spec asks for a current (every sweep must compute them:
+        ``sweep(..., at_bias_v=...)``)."""
+        return at_bias_v([name for name, _, _ in self.windows])
 
     def misses(self, metrics: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
         """Per window, ``(n,)`` True where the sample misses it (NaN misses)."""
@@ -388,6 +401,94 @@ def parse_window(value: Any, *, source: str, key: str, metric: str) -> Window:
     return Window(metric, low, high, scale)
 
 
+#: ``[targets]`` keys of a current at a stated bias -> the metric key of that bias: the
+#: current density in A/cm^2, or the current in mA of a mesa of ``[device] area_um2``.
+AT_BIAS_TARGETS = {
+    "current_density_at_bias": at_bias_key,
+    "current_at_bias_ma": at_bias_current_key,
+}
+AT_BIAS_FORM = (
+    "{bias_v = .., min = .., max = ..} (either bound may be left out, or target and "
+    "tolerance instead), or a list of such tables for several biases"
+)
+
+
+def parse_at_bias(
+    value: Any,
+    *,
+    source: str,
+    key: str,
+    sweep_v: tuple[float, float] = (-math.inf, math.inf),
+    area_um2: float | None = None,
+) -> list[Window]:
+    """Windows of a current at stated biases: one table or a list of tables (see module).
+
+    Each ``bias_v`` must lie in the sweep ``sweep_v`` (first and last bias, V) and is kept
+    to 6 significant digits (it names the metric, e.g. ``current_density_at_0.3_v_a_cm2``);
+    the same bias twice is refused; the mA form needs the mesa area ``area_um2``.
+    """
+    unit = "A/cm^2" if key == "current_density_at_bias" else "mA"
+    if unit == "mA" and area_um2 is None:
+        raise InputError(
+            "a current in mA needs the mesa area: add [device] area_um2 to the stack, "
+            "or give current_density_at_bias in A/cm^2",
+            source=source,
+            key=f"targets.{key}",
+        )
+    tables = value if isinstance(value, list) else [value]
+    if not tables:
+        raise InputError(f"empty list; give {AT_BIAS_FORM}", source=source, key=f"targets.{key}")
+    out: list[Window] = []
+    for i, table in enumerate(tables):
+        where = f"targets.{key}[{i + 1}]" if isinstance(value, list) else f"targets.{key}"
+        checks.table(
+            table,
+            ("bias_v", "min", "max", "target", "tolerance"),
+            hint=f"; a target here is {AT_BIAS_FORM}",
+            source=source,
+            key=where,
+        )
+        if "bias_v" not in table:
+            raise InputError(
+                f"needs bias_v, the bias in V at which the current is computed; {AT_BIAS_FORM}",
+                source=source,
+                key=where,
+            )
+        bias = checks.number(table["bias_v"], unit="V", source=source, key=f"{where}.bias_v")
+        if not sweep_v[0] <= bias <= sweep_v[1]:
+            raise InputError(
+                f"bias_v {bias:g} V outside the sweep [{sweep_v[0]:g}, {sweep_v[1]:g}] V "
+                "([sweep] bias_min_v, bias_max_v)",
+                source=source,
+                key=f"{where}.bias_v",
+            )
+        if not set(table) & {"min", "max", "target", "tolerance"}:
+            raise InputError(
+                f"needs min and/or max in {unit} (or target and tolerance); {AT_BIAS_FORM}",
+                source=source,
+                key=where,
+            )
+        metric = AT_BIAS_TARGETS[key](bias)
+        if any(w.metric == metric for w in out):
+            raise InputError(
+                f"bias {bias:g} V is given twice", source=source, key=f"{where}.bias_v"
+            )
+        rest = {k: v for k, v in table.items() if k != "bias_v"}
+        out.append(parse_window(rest, source=source, key=where, metric=metric))
+    return out
+
+
+def at_bias_v(metrics: Sequence[str]) -> tuple[float, ...]:
+    """The stated biases, V, of the currents at a stated bias among the metric keys
+    ``metrics`` (sorted, unique)."""
+    found = set()
+    for metric in metrics:
+        at = names.AT_BIAS_KEY.match(metric)
+        if at is not None:
+            found.add(float(at["bias"]))
+    return tuple(sorted(found))
+
+
 def _metric_key_error(
     key: str, *, source: str, table: str, extra: tuple[str, ...] = ()
 ) -> InputError:
@@ -398,8 +499,14 @@ def _metric_key_error(
 
 
 def parse_targets(
-    table: dict[str, Any], *, source: str
+    table: dict[str, Any],
+    *,
+    source: str,
+    sweep_v: tuple[float, float] = (-math.inf, math.inf),
+    area_um2: float | None = None,
 ) -> tuple[tuple[Window, ...], tuple[Objective, ...]]:
+    """The ``[targets]`` windows and objectives; ``sweep_v`` (first and last bias of the
+    sweep, V) and ``area_um2`` (the stack's mesa area) check the currents at a stated bias."""
     targets = []
     objectives: list[Objective] = []
     for key, value in table.items():
@@ -425,9 +532,17 @@ def parse_targets(
                     )
                 objectives.append(Objective(metric, key))
             continue
+        if key in AT_BIAS_TARGETS:
+            targets.extend(
+                parse_at_bias(value, source=source, key=key, sweep_v=sweep_v, area_um2=area_um2)
+            )
+            continue
         if key not in METRIC_NAMES:
             raise _metric_key_error(
-                key, source=source, table="targets", extra=("maximize", "minimize")
+                key,
+                source=source,
+                table="targets",
+                extra=("maximize", "minimize", *AT_BIAS_TARGETS),
             )
         targets.append(parse_window(value, source=source, key=f"targets.{key}", metric=key))
     return tuple(targets), tuple(objectives)

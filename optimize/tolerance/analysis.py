@@ -33,7 +33,14 @@ from wellwright.optimize.shared.processes import exit_with_parent
 from wellwright.optimize.study.growth import AsGrown, GrowthModel, as_generator
 from wellwright.optimize.study.targets import Spec  # re-exported: the pass/fail form of [targets]
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
-from wellwright.physics.iv import BOUNDED_BY_SWEEP, METRIC_NAMES, VALLEY_BOUNDED, sweep
+from wellwright.physics.iv import (
+    BOUNDED_BY_SWEEP,
+    METRIC_NAMES,
+    VALLEY_BOUNDED,
+    at_bias_current_key,
+    at_bias_key,
+    sweep,
+)
 from wellwright.physics.stack import LayerTable, ModelOptions, Stack
 
 __all__ = [
@@ -109,6 +116,13 @@ SOLVE_FAILED = "solve_failed"
 OUTPUT_NAMES = tuple(k for k in METRIC_NAMES if k != VALLEY_BOUNDED)
 
 
+def output_names(metrics: dict[str, Any]) -> tuple[str, ...]:
+    """The figures of an evaluation whose Sobol indices and Morris effects are reported:
+    :data:`OUTPUT_NAMES` and the currents at stated biases it holds."""
+    extra = tuple(k for k in metrics if k not in METRIC_NAMES and k != SOLVE_FAILED)
+    return (*OUTPUT_NAMES, *extra)
+
+
 def valley_bounded_record(nominal: dict[str, Any], metrics: dict[str, np.ndarray]) -> dict:
     """Whether the valley was bounded by the sweep end, nominally and in the Monte Carlo.
 
@@ -125,18 +139,32 @@ def valley_bounded_record(nominal: dict[str, Any], metrics: dict[str, np.ndarray
     }
 
 
+def metric_keys(at_bias_v: Sequence[float] = (), area_um2: float | None = None) -> tuple[str, ...]:
+    """The figures of merit an evaluation returns: :data:`METRIC_NAMES`, then the current
+    density at each stated bias and, with a mesa area, the mesa's current there in mA."""
+    extra: list[str] = []
+    for bias in at_bias_v:
+        extra.append(at_bias_key(bias))
+        if area_um2 is not None:
+            extra.append(at_bias_current_key(bias))
+    return (*METRIC_NAMES, *extra)
+
+
 def batch_metrics(
     table: LayerTable,
     bias_v: np.ndarray,
     model: ModelOptions,
     resistance_ohm_um2: float,
     weights: np.ndarray | None = None,
+    at_bias_v: Sequence[float] = (),
+    area_um2: float | None = None,
 ) -> dict[str, np.ndarray]:
     """Metrics of a batch (of devices, with area ``weights``: see
-    :func:`wellwright.physics.iv.sweep`); where the self-consistent solve fails, each device
-    alone, and a device that still fails gets NaN metrics and :data:`SOLVE_FAILED` set (a
-    failed sample, counted, never the end of the run)."""
+    :func:`wellwright.physics.iv.sweep`, also for ``at_bias_v`` and ``area_um2``); where the
+    self-consistent solve fails, each device alone, and a device that still fails gets NaN
+    metrics and :data:`SOLVE_FAILED` set (a failed sample, counted, never the end of the run)."""
     n = table.n_stacks if weights is None else weights.shape[0]
+    keys = metric_keys(at_bias_v, area_um2)
     try:
         metrics = sweep(
             table,
@@ -144,26 +172,36 @@ def batch_metrics(
             model=model,
             series_resistance_ohm_um2=resistance_ohm_um2,
             area_weights=weights,
+            at_bias_v=at_bias_v,
+            area_um2=area_um2,
         ).metrics
-        return {**{k: metrics[k] for k in METRIC_NAMES}, SOLVE_FAILED: np.zeros(n)}
+        return {**{k: metrics[k] for k in keys}, SOLVE_FAILED: np.zeros(n)}
     except ElectrostaticsConvergenceError:
         if n == 1:
-            nan = {name: np.full(1, np.nan) for name in METRIC_NAMES}
+            nan = {name: np.full(1, np.nan) for name in keys}
             return {**nan, SOLVE_FAILED: np.ones(1)}
     parts = []
+    extra = (at_bias_v, area_um2)
     for i in range(n):
         if weights is None:
             parts.append(
-                batch_metrics(table.take(slice(i, i + 1)), bias_v, model, resistance_ohm_um2)
+                batch_metrics(
+                    table.take(slice(i, i + 1)), bias_v, model, resistance_ohm_um2, None, *extra
+                )
             )
             continue
         cols = np.nonzero(weights[i])[0]
         parts.append(
             batch_metrics(
-                table.take(cols), bias_v, model, resistance_ohm_um2, weights[i : i + 1, cols]
+                table.take(cols),
+                bias_v,
+                model,
+                resistance_ohm_um2,
+                weights[i : i + 1, cols],
+                *extra,
             )
         )
-    return {k: np.concatenate([p[k] for p in parts]) for k in (*METRIC_NAMES, SOLVE_FAILED)}
+    return {k: np.concatenate([p[k] for p in parts]) for k in (*keys, SOLVE_FAILED)}
 
 
 def _batches(devices: LayerTable | AsGrown, batch_size: int):
@@ -188,18 +226,21 @@ def evaluate_metrics(
     backend: str | None = None,
     progress: bool = False,
     desc: str = "samples",
+    at_bias_v: Sequence[float] = (),
+    area_um2: float | None = None,
 ) -> dict[str, np.ndarray]:
     """Figures of merit of every row of ``table`` (or every device of an :class:`AsGrown`,
     from its island-mixture curve): batches of ``batch_size`` devices per kernel call,
     spread over ``n_jobs`` joblib workers (``backend`` None: loky); the series resistance
-    enters only the cutoff frequency."""
+    enters only the cutoff frequency; ``at_bias_v`` and ``area_um2``: the currents at stated
+    biases (:func:`metric_keys`)."""
     from joblib import Parallel, delayed, parallel_config
 
     n = table.n_samples if isinstance(table, AsGrown) else table.n_stacks
     batches = list(_batches(table, batch_size))
     starts = [b[0] for b in batches]
     jobs = (
-        delayed(batch_metrics)(t, bias_v, model, series_resistance_ohm_um2, w)
+        delayed(batch_metrics)(t, bias_v, model, series_resistance_ohm_um2, w, at_bias_v, area_um2)
         for _, _, t, w in batches
     )
     bar = None
@@ -225,13 +266,14 @@ def evaluate_metrics(
         bar.close()
     return {
         k: np.concatenate([p[k] for p in parts]) if parts else np.zeros(0)
-        for k in (*METRIC_NAMES, SOLVE_FAILED)
+        for k in (*metric_keys(at_bias_v, area_um2), SOLVE_FAILED)
     }
 
 
 @dataclass(frozen=True)
 class Runner:
-    """How samples are evaluated: bias grid, model, batching and parallelism."""
+    """How samples are evaluated: bias grid, model, batching and parallelism, and the
+    stated biases at which the spec asks for a current (with the mesa area for mA)."""
 
     bias_v: np.ndarray
     model: ModelOptions = ModelOptions()
@@ -240,6 +282,8 @@ class Runner:
     n_jobs: int = 1
     backend: str | None = None
     progress: bool = False
+    at_bias_v: tuple[float, ...] = ()
+    area_um2: float | None = None
 
     def __call__(self, table: LayerTable | AsGrown, desc: str = "samples") -> dict[str, np.ndarray]:
         return evaluate_metrics(
@@ -252,6 +296,8 @@ class Runner:
             backend=self.backend,
             progress=self.progress,
             desc=desc,
+            at_bias_v=self.at_bias_v,
+            area_um2=self.area_um2,
         )
 
 
@@ -569,7 +615,7 @@ def sobol_analysis(
 
     def evaluate(u: np.ndarray) -> dict[str, np.ndarray]:
         metrics = run(model.grow(_normal(u)), desc="Sobol")
-        out = {name: metrics[name] for name in OUTPUT_NAMES}
+        out = {name: metrics[name] for name in output_names(metrics)}
         out["pass"] = spec.passes(metrics).astype(float)
         out[SOLVE_FAILED] = np.asarray(metrics.get(SOLVE_FAILED, np.zeros(u.shape[0])), float)
         return out
@@ -638,7 +684,7 @@ def morris_analysis(
     metrics = run(model.grow(z), desc="Morris")
     out: dict[str, list] = {}
     notes = []
-    outputs = {name: metrics[name] for name in OUTPUT_NAMES}
+    outputs = {name: metrics[name] for name in output_names(metrics)}
     outputs["pass"] = spec.passes(metrics).astype(float)
     for name, y in outputs.items():
         if not np.all(np.isfinite(y)):
@@ -1132,14 +1178,15 @@ def write_outputs(
     n = mc["passed"].size
     names = [p["name"] for p in record["parameters"]]
     wafer = mc.get("wafer")
-    head = ["sample", "passed", *METRIC_NAMES, *[f"z:{p}" for p in names]]
+    keys = (*METRIC_NAMES, *[k for k in output_names(mc["metrics"]) if k not in METRIC_NAMES])
+    head = ["sample", "passed", *keys, *[f"z:{p}" for p in names]]
     if wafer is not None:  # the same sample at its own place on the wafer
         head += ["radius_mm", "passed_on_wafer"]
     rows = (
         [
             i,
             int(mc["passed"][i]),
-            *[_clean(mc["metrics"], i)[k] for k in METRIC_NAMES],
+            *[_clean(mc["metrics"], i)[k] for k in keys],
             *mc["z"][i].tolist(),
             *([] if wafer is None else [float(wafer["radius_mm"][i]), int(wafer["passed"][i])]),
         ]
@@ -1166,10 +1213,8 @@ def write_outputs(
     tor_rows = []
     for r in record["tornado"]:
         for side in ("minus", "plus"):
-            tor_rows.append([r["layer"], side, *[r[side][k] for k in METRIC_NAMES]])
-    files["tornado_csv"] = str(
-        write_csv(out / "tornado.csv", ["layer", "step", *METRIC_NAMES], tor_rows)
-    )
+            tor_rows.append([r["layer"], side, *[r[side].get(k) for k in keys]])
+    files["tornado_csv"] = str(write_csv(out / "tornado.csv", ["layer", "step", *keys], tor_rows))
     files["allocation_csv"] = str(
         write_csv(
             out / "allocation.csv",
