@@ -87,7 +87,7 @@ def test_at_bias_small_bias_is_the_linear_response_current() -> None:
     table = custom_table([0, v_bar, 0], m, [0, b, 0])
     model = ModelOptions(nonparabolicity=False, electrostatics="linear", transport="coherent")
     kt = KB_EV_K * 300.0
-    mu = float(fermi_level_ev(1e18, m, 300.0))
+    mu = float(fermi_level_ev(1e18, mass_m0=m, temperature_k=300.0))
     p0 = linear_profile(table, [0.0])
 
     def integrand(e):
