@@ -26,7 +26,15 @@ def _fom_text(fom: dict[str, Any]) -> str:
 
 
 def overlay_figure(record: dict[str, Any], path: str | Path) -> Path:
-    """Measured points and fitted curves, linear (left) and log |J| (right), peak and valley marked."""
+    """Measured points and fitted curves, linear (left) and log |J| (right), peak and valley marked.
+
+    Parameters
+    ----------
+    record
+        The calibration record (``calibration.json``): its curves and figures of merit.
+    path
+        PNG file to write.
+    """
     style()
     fig, axes = plt.subplots(1, 2, figsize=(12.0, 4.9))
     lines = []

@@ -36,6 +36,27 @@ def synthetic_measurement(
     intrinsic grid (``bias_points``), the terminal bias ``V + I R``; noise is
     multiplicative log-normal with relative sigma ``noise`` plus a Gaussian
     floor of ``floor_a_cm2``.
+
+    Parameters
+    ----------
+    data
+        The stack document (as parsed from its TOML file).
+    truth
+        True values of calibration parameters by name.
+    bias_v
+        Terminal biases of the invented measurement, V.
+    area_um2
+        Mesa area, um^2, recorded with the sweep.
+    noise
+        Relative sigma of the multiplicative log-normal noise.
+    floor_a_cm2
+        Sigma of the additive Gaussian floor, A/cm^2.
+    seed
+        Seed or generator of the noise (``as_generator``).
+    bias_points
+        Points of the fine intrinsic bias grid.
+    source
+        Name recorded as the measurement's source.
     """
     rng = as_generator(seed)
     template = Measurement(source, np.asarray(bias_v, float), np.ones(len(bias_v)), area_um2)

@@ -108,7 +108,15 @@ def ranking_rows(record: dict[str, Any]) -> tuple[str, str, list[dict[str, Any]]
 
 
 def ranking_figure(record: dict[str, Any], *, top: int = 10) -> Figure | None:
-    """Which growth parameter matters most: horizontal bars, most important on top."""
+    """Which growth parameter matters most: horizontal bars, most important on top.
+
+    Parameters
+    ----------
+    record
+        The tolerance record (see :func:`ranking_rows`).
+    top
+        Most parameters shown.
+    """
     method, output, rows = ranking_rows(record)
     if not rows:
         return None

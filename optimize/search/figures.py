@@ -51,6 +51,14 @@ def history_figure(study: Study, trials: Sequence[dict[str, Any]]) -> Figure:
 
     ``trials``: plain records ``{"trial", "feasible", "values"}`` of the complete
     trials (:func:`wellwright.optimize.search.history.trial_points`).
+
+    Parameters
+    ----------
+    study
+        The study (its objectives and score).
+    trials
+        Plain records ``{"trial", "feasible", "values"}`` of the complete trials
+        (:func:`wellwright.optimize.search.history.trial_points`).
     """
     trials = sorted(trials, key=lambda t: t["trial"])
     number = np.array([t["trial"] for t in trials])
@@ -139,7 +147,16 @@ def _front_mask(x: np.ndarray, y: np.ndarray, max_x: bool, max_y: bool) -> np.nd
 
 def pareto_figure(study: Study, trials: Sequence[dict[str, Any]]) -> Figure:
     """The first two objectives of the designs that meet the spec, the Pareto front marked
-    (``trials`` as in :func:`history_figure`)."""
+    (``trials`` as in :func:`history_figure`).
+
+    Parameters
+    ----------
+    study
+        The study (its first two objectives).
+    trials
+        Plain records ``{"trial", "feasible", "values"}`` of the complete trials
+        (:func:`wellwright.optimize.search.history.trial_points`).
+    """
     o1, o2 = study.objectives[:2]
     (l1, f1), (l2, f2) = metric_axis(o1.metric), metric_axis(o2.metric)
     ok = [t for t in trials if t["feasible"] and all(math.isfinite(v) for v in t["values"][:2])]
@@ -207,12 +224,46 @@ def importances_figure(importances: dict[str, dict[str, float]]) -> Figure:
 
 
 def save_history(study: Study, trials: Sequence[dict[str, Any]], path: str | Path) -> Path:
+    """Save :func:`history_figure` as PNG at ``path``.
+
+    Parameters
+    ----------
+    study
+        The study.
+    trials
+        Plain records ``{"trial", "feasible", "values"}`` of the complete trials
+        (:func:`wellwright.optimize.search.history.trial_points`).
+    path
+        PNG file to write.
+    """
     return save_figure(history_figure(study, trials), path)
 
 
 def save_pareto(study: Study, trials: Sequence[dict[str, Any]], path: str | Path) -> Path:
+    """Save :func:`pareto_figure` as PNG at ``path``.
+
+    Parameters
+    ----------
+    study
+        The study.
+    trials
+        Plain records ``{"trial", "feasible", "values"}`` of the complete trials
+        (:func:`wellwright.optimize.search.history.trial_points`).
+    path
+        PNG file to write.
+    """
     return save_figure(pareto_figure(study, trials), path)
 
 
 def save_importances(importances: dict[str, dict[str, float]], path: str | Path) -> Path:
+    """Save :func:`importances_figure` as PNG at ``path``.
+
+    Parameters
+    ----------
+    importances
+        Parameter importances by objective
+        (:func:`wellwright.optimize.search.designs.parameter_importances`).
+    path
+        PNG file to write.
+    """
     return save_figure(importances_figure(importances), path)

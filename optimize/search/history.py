@@ -54,7 +54,17 @@ def trial_points(trials: Iterable[Any]) -> list[dict[str, Any]]:
 
 
 def write_trials(path: str | Path, study: Study, points: Sequence[dict[str, Any]]) -> Path:
-    """Write ``points`` (from :func:`trial_points`) as ``trials.csv``."""
+    """Write ``points`` (from :func:`trial_points`) as ``trials.csv``.
+
+    Parameters
+    ----------
+    path
+        CSV file to write.
+    study
+        The study (names of the objectives and parameters).
+    points
+        The trial records.
+    """
     names = value_names(study)
     params = list(study.parameter_names)
     rows = [
@@ -68,6 +78,13 @@ def write_trials(path: str | Path, study: Study, points: Sequence[dict[str, Any]
 
 def read_trials(path: str | Path, study: Study) -> list[dict[str, Any]]:
     """The records :func:`write_trials` wrote, in trial order.
+
+    Parameters
+    ----------
+    path
+        The ``trials.csv`` file.
+    study
+        The study it was written for.
 
     Raises
     ------
