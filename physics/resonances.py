@@ -91,8 +91,11 @@ def local_peaks(
     weight
         Optional ranking: peaks are ordered by ``values * weight`` instead of ``values``.
 
-    Returns ``(index, valid)``, both of shape ``batch + (n_max,)``; missing
-    peaks are padded with index 1 and ``valid = False``.
+    Returns
+    -------
+    index, valid
+        Both ``batch + (n_max,)``; missing peaks are padded with index 1 and
+        ``valid = False``.
     """
     v = values
     inner = (v[..., 1:-1] > v[..., :-2]) & (v[..., 1:-1] >= v[..., 2:])
