@@ -47,7 +47,6 @@ from wellwright.optimize.study.run_folder import (
 )
 from wellwright.optimize.study.study import Study
 from wellwright.physics.errors import InputError
-from wellwright.physics.iv import VALLEY_BOUNDED, VALLEY_EXTENSION_FACTOR
 
 __all__ = ["build_report", "SECTIONS", "versions"]
 
@@ -305,8 +304,8 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
     beyond = (
         "<p><b>Valley beyond the sweep:</b> for rank "
         + _esc(", ".join(bounded))
-        + " the current still falls at the last bias computed (the sweep extended to "
-        f"{VALLEY_EXTENSION_FACTOR:g} times its end), so the valley figures are bounds: ≥ and "
+        + " the current still falls at the last bias computed (the sweep was extended beyond "
+        "its end to look for the valley), so the valley figures are bounds: ≥ and "
         "≤ say where the true value lies, “valley bounded” marks a figure derived from one. "
         "Raise the sweep's end bias ([sweep] bias_max_v) to find the valley.</p>"
         if bounded
@@ -333,8 +332,9 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
 
 
 def _bounded(design: dict) -> bool:
-    """The design's valley was not reached even beyond the sweep end (its figures are bounds)."""
-    return design["metrics"].get(VALLEY_BOUNDED) == 1.0
+    """The design's valley was not reached even beyond the sweep end (its figures are bounds:
+    designs.json lists them under ``bounded_by_sweep``)."""
+    return bool(design.get("bounded_by_sweep"))
 
 
 def _resolution_text(ranking: dict | None) -> str:
