@@ -116,6 +116,34 @@ def test_stages_write_what_the_report_reads_and_a_rerun_adds_missing_records(tmp
     assert rec["stages"]["report"]["status"] == "done"
 
 
+def test_a_design_the_model_cannot_evaluate_does_not_stop_the_run(tmp_path, monkeypatch):
+    # the project's rule: one failed sample never stops a run; the report then says so
+    # in the design's card instead of showing figures
+    import wellwright.physics.iv as iv
+    from wellwright.optimize.report.build import build_report
+    from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
+
+    study = _tiny_study(tmp_path)
+    out = tmp_path / "run"
+    run_pipeline(study, out_dir=out, progress=False)
+    design = out / "tolerance" / "rank01" / "design"
+    for p in design.iterdir():
+        p.unlink()
+
+    def fails(*args, **kwargs):
+        raise ElectrostaticsConvergenceError("Poisson-Newton did not converge (test)")
+
+    monkeypatch.setattr(iv, "stack_iv", fails)
+    rec = run_pipeline(study, out_dir=out, progress=False)
+    assert rec["stages"]["report"]["status"] == "done"
+    record = json.loads((design / "design.json").read_text())
+    assert record["metrics"] is None and record["figures"] == {}
+    assert "did not converge" in record["error"]
+    text = build_report(out).read_text(encoding="utf-8")
+    assert "could not compute this design" in text and "not available" in text
+    assert not (out / "report_files" / "rank01_iv.png").exists()
+
+
 def test_linked_calibration_is_kept_in_the_run_folder_and_a_change_is_not_skipped(tmp_path):
     # the report is built from the run folder alone (issue 16), and a calibration shapes
     # every result: the run keeps a copy, the report reads the copy, and a changed

@@ -172,29 +172,39 @@ def write_design_files(study: Study, design: dict[str, Any], out_dir: Path) -> d
     Writes ``out_dir/iv.csv``, ``iv.png``, ``band_diagram.png``,
     ``transmission.png`` and ``design.json`` (last, so that its presence means
     the folder is complete); returns the ``design.json`` record. The sweep is
-    the study's, as in the search.
+    the study's, as in the search. A design the model cannot evaluate (the
+    search's evaluation errors) gets a record with its ``error`` and no
+    figures: one design never stops the run.
     """
     from wellwright.optimize.shared.figures import iv_figures
     from wellwright.optimize.shared.model_text import model_label
     from wellwright.optimize.shared.outputs import write_csv
+    from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
     from wellwright.physics.iv import stack_iv
 
     stack = study.stack(design["params"])
-    curves = stack_iv(stack, study.sweep.bias_v)
-    write_csv(
-        out_dir / DESIGN_IV,
-        ["bias_v", "current_density_a_cm2"],
-        zip(curves.bias_v.tolist(), curves.current_density_a_cm2[0].tolist(), strict=True),
-    )
-    figures = iv_figures(stack, curves, out_dir, label=f"rank {design['rank']}")
-    record = {
+    record: dict[str, Any] = {
         "rank": design["rank"],
         "trial": design["trial"],
         "params": design["params"],
         "model": model_label(stack),
-        "metrics": curves.metrics_of(0),
-        "figures": {k: Path(v).name for k, v in figures.items()},
+        "metrics": None,
+        "figures": {},
+        "error": None,
     }
+    try:
+        curves = stack_iv(stack, study.sweep.bias_v)
+        write_csv(
+            out_dir / DESIGN_IV,
+            ["bias_v", "current_density_a_cm2"],
+            zip(curves.bias_v.tolist(), curves.current_density_a_cm2[0].tolist(), strict=True),
+        )
+        figures = iv_figures(stack, curves, out_dir, label=f"rank {design['rank']}")
+    except ElectrostaticsConvergenceError as exc:
+        record["error"] = str(exc)
+    else:
+        record["metrics"] = curves.metrics_of(0)
+        record["figures"] = {k: Path(v).name for k, v in figures.items()}
     write_json(out_dir / DESIGN_RECORD, record)
     return record
 

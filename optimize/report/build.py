@@ -40,7 +40,6 @@ from wellwright.optimize.shared.outputs import (
 )
 from wellwright.optimize.study.run_folder import (
     DESIGN_DIR,
-    DESIGN_FIGURES,
     DESIGN_RECORD,
     load_run,
     study_from_run,
@@ -149,8 +148,11 @@ def _needed_files(run_dir: Path, reported: list[dict], tol_dirs: list[Path]) -> 
     """Every finished file the report reads: checked before anything is written."""
     out = [run_dir / "search" / "designs.json", run_dir / "search" / TRIALS_FILE]
     for tdir in tol_dirs:
-        out.append(tdir / "tolerance.json")
-        out += [tdir / DESIGN_DIR / f for f in (DESIGN_RECORD, *DESIGN_FIGURES)]
+        design = tdir / DESIGN_DIR / DESIGN_RECORD
+        out += [tdir / "tolerance.json", design]
+        if design.is_file():  # and the figures it lists
+            figures = json.loads(_read_text(design)).get("figures") or {}
+            out += [design.parent / name for name in figures.values()]
     out += [_sheet_path(run_dir, d) for d in reported if d.get("layers") is not None]
     return out
 
@@ -432,9 +434,14 @@ def _design_card(
             ]
         )
     # the nominal curves and figures, written by the stage that computed them
-    m = json.loads(_read_text(design_dir / DESIGN_RECORD))["metrics"]
-    for src, name in zip(DESIGN_FIGURES, ("iv", "band", "transmission"), strict=True):
-        figs.add_file(design_dir / src, f"{tag}_{name}.png")
+    design = json.loads(_read_text(design_dir / DESIGN_RECORD))
+    m = design["metrics"]
+    written = design.get("figures") or {}
+    for kind, name in (("iv", "iv"), ("band_diagram", "band"), ("transmission", "transmission")):
+        if kind in written:
+            figs.add_file(design_dir / written[kind], f"{tag}_{name}.png")
+        else:  # not computed (the model failed on this design): no stale copy either
+            (files / f"{tag}_{name}.png").unlink(missing_ok=True)
     status = (
         '<span class="ok">meets the spec</span>'
         if d["feasible"]
@@ -458,6 +465,12 @@ def _design_card(
             rows,
             left=3,
             raw=True,
+        ),
+        (
+            f'<p class="bad">The model could not compute this design\'s curves: '
+            f"{_esc(design['error'])}</p>"
+            if design.get("error")
+            else ""
         ),
         '<div class="pair">',
         figs.html(

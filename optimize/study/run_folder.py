@@ -23,11 +23,11 @@ FORMAT_VERSION = 1
 #: Inside ``tolerance/rankNN/``: the nominal design's curves and figures, written by the
 #: stage that computes them and copied into the report (which runs no physics).
 DESIGN_DIR = "design"
-#: Inside :data:`DESIGN_DIR`: rank, trial, parameters, model and figures of merit (JSON);
-#: the I-V (CSV); the three figures (PNG).
+#: Inside :data:`DESIGN_DIR`: rank, trial, parameters, model, figures of merit, the
+#: figures written (``{"iv", "band_diagram", "transmission"}: file name``) and the error
+#: of a design the model could not evaluate (JSON); the I-V (CSV); the figures (PNG).
 DESIGN_RECORD = "design.json"
 DESIGN_IV = "iv.csv"
-DESIGN_FIGURES = ("iv.png", "band_diagram.png", "transmission.png")
 
 
 def package_version() -> str:
