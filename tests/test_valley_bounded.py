@@ -58,6 +58,12 @@ def test_bounded_valley_in_designs_json_and_csv(tmp_path) -> None:
     rows = list(csv.DictReader((tmp_path / "o" / "designs.csv").open()))
     assert all(r["valley_bounded_by_sweep"] == "1" for r in rows)
     assert all("valley_voltage_v" in r["bounded_by_sweep"].split() for r in rows)
+    # the report's design tables read the record: bounds marked, and a sentence says why
+    from wellwright.optimize.report.build import _candidates
+
+    html = _candidates(_study(), designs, 1, {"complete": 2, "feasible": 2})
+    assert "Valley beyond the sweep" in html and "≥ 620" in html  # valley voltage, mV
+    assert "≤" in html  # the valley current
 
 
 def test_bounded_valley_in_tolerance_json(tmp_path) -> None:
