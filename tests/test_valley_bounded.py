@@ -102,3 +102,20 @@ def test_bounded_values_are_marked_in_text() -> None:
     assert names.format_bound("peak_voltage_v", 0.215, bounded=True) == "215"
     assert names.format_bound("pvcr", 8.9, bounded=False) == "8.9"
     assert names.format_bound("pvcr", None, bounded=True) == "-"
+
+
+def test_iv_figure_marks_the_sweep_end_only_when_the_sweep_was_extended() -> None:
+    # the figure said "continued past the sweep end" and drew a sweep-end line at 0 V on
+    # every curve with a peak (the two marks added to the curve were counted as extension)
+    from wellwright.optimize.shared.figures import iv_figure
+
+    study = _study("")
+    stack = study.stack({"barrier1.thickness_ml": 5})
+    texts = {}
+    for label, bias in (("long", np.linspace(0.0, 1.0, 61)), ("short", np.linspace(0, 0.42, 22))):
+        fig = iv_figure(sweep(stack.table(), bias, model=stack.model))
+        ax = fig.axes[0]
+        legend = [t.get_text() for t in ax.get_legend().get_texts()]
+        texts[label] = (legend, " ".join(t.get_text() for t in ax.texts))
+    assert "sweep end" not in texts["long"][0] and "continued" not in texts["long"][1]
+    assert "sweep end" in texts["short"][0] and "continued past the sweep end" in texts["short"][1]

@@ -72,6 +72,9 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
     )
     m: dict[str, Any] = curves.metrics_of(i)  # None where undefined, checked below
     v, j = curves.curve_of(i)  # with the biases computed beyond the end to find the valley
+    # computed beyond the sweep to find the valley (counted before the marks join the curve)
+    extended = v.size > curves.bias_v.size
+    beyond_end = bool(extended and v[-1] > curves.bias_v[-1])
     marks = []
     if m["peak_voltage_v"] is not None:
         for name in ("peak", "valley"):
@@ -97,9 +100,8 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
                 zorder=5,
                 label="first NDR peak" if name == "peak" else "its valley",
             )
-    extended = v.size > curves.bias_v.size  # computed beyond the sweep to find the valley
     if extended:
-        end = float(curves.bias_v[-1] if v[-1] > curves.bias_v[-1] else curves.bias_v[0])
+        end = float(curves.bias_v[-1] if beyond_end else curves.bias_v[0])
         for axis in (ax, lx):
             axis.axvline(end, ls=":", color="0.45", lw=1, label="sweep end" if axis is ax else None)
     bounded = bool(marks) and m.get("valley_bounded_by_sweep") == 1.0
