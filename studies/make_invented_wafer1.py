@@ -4,16 +4,22 @@ The "wafer" is ``inp_thz_oscillator.toml`` grown with known errors, computed
 by wellwright's own model: barrier1 one monolayer thick (6 ML for 5), the
 well one monolayer thin (14 ML for 15, as grown), the InGaAs source 2 %
 fast (spacers 2 % thick), a series resistance of 20 ohm um^2, on a
-25 um^2 mesa; 2 % log-normal noise on the current. ``wellwright calibrate
+25 um^2 mesa; 2 % log-normal noise on the current. The model is the stack
+file's, which sets no ``electrostatics`` or ``transport``: the project's
+default (self-consistent electrostatics with the scattering-assisted
+channel, its roughness at the default), the model ``wellwright calibrate``
+fits with the same file; the CSV names it in a comment line, and a test
+checks that it is still the default. ``wellwright calibrate
 studies/inp_thz_oscillator.toml --measured studies/inp_thz_wafer1_invented.csv``
-should bring these errors back. Rerun with ``python studies/make_invented_wafer1.py``.
+should bring these errors back. Rerun with ``python studies/make_invented_wafer1.py``
+after a change of the default model.
 """
 
 from pathlib import Path
 
 import numpy as np
 from wellwright.optimize.calibrate.synthetic import synthetic_measurement
-from wellwright.physics.stack import read_toml
+from wellwright.physics.stack import parse_stack, read_toml
 
 HERE = Path(__file__).resolve().parent
 TRUTH = {
@@ -28,12 +34,16 @@ SEED = 2026
 
 def main() -> None:
     data = read_toml(HERE / "inp_thz_oscillator.toml")
+    model = parse_stack(data).model
     m = synthetic_measurement(
         data, TRUTH, np.linspace(0.0, 1.0, 61), area_um2=AREA_UM2, noise=0.02, seed=SEED
     )
     lines = [
         "# INVENTED data, not a measurement: made by studies/make_invented_wafer1.py from",
         "# inp_thz_oscillator.toml with known growth errors (see that script), 2 % noise.",
+        f"# model: {model.electrostatics} electrostatics, {model.transport} transport, "
+        f"roughness_height_nm {model.roughness_height_nm:g}, "
+        f"roughness_length_nm {model.roughness_length_nm:g}",
         f"# area_um2 = {AREA_UM2:g}",
         "bias_v,current_a",
     ]

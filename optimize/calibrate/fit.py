@@ -27,7 +27,17 @@ within one monolayer of nominal (``3**k`` stacks, one batched kernel call;
 one-layer moves only above 729) is evaluated with the series resistance
 fitted on it (no kernel call needed); the best ``starts`` combinations
 (those scoring within ``START_FACTOR`` of the best) start local fits of
-every parameter. Distinct optima within
+every parameter. The continuous physics parameters (rates,
+compositions, doping, band offsets, model parameters) start at nominal
+there; ``RANDOM_STARTS`` further starts draw them at random (a Gaussian of
+twice the prior sigma, or uniform between the bounds for a parameter without
+a prior) on the best whole-monolayer combination, scored in one more batch;
+the best draw replaces that combination's start when it scores better (the
+other combinations keep theirs, so a one-monolayer alternative is still
+refined), so that a model parameter far from its nominal value (the valley
+channel's strength) is reached. This draw is the fit's
+only random step: ``seed`` makes it reproducible (the same seed, the same
+record). Distinct optima within
 ``AMBIGUOUS_DCHI2`` of the best are reported as alternatives, so a
 one-monolayer ambiguity is shown, not hidden.
 
@@ -37,9 +47,13 @@ from central differences (thicknesses +- a quarter monolayer, so that the
 kink of the island current at a whole monolayer is averaged, not taken
 from one side), and 95 % intervals ``value +- 1.96 sd``: a linear
 approximation. A thickness's interval is asymmetric: its upper (lower)
-half uses the larger of the central sd and the sd from the slope a
-quarter monolayer above (below), since a barrier's current falls more
-gently above a whole monolayer than it rises below it.
+half uses the largest of the central sd, the sd from the slope a
+quarter monolayer above (below), and, for a value within a quarter
+monolayer of a whole monolayer, the sd from the slope of its own cell up
+to that monolayer, since a barrier's current falls more gently above a
+whole monolayer than it rises below it (an estimate just above a whole
+monolayer sits on the gentle side: the quarter-monolayer step down
+crosses into the steep cell and alone gave too short a lower half).
 """
 
 from __future__ import annotations
@@ -52,6 +66,7 @@ from typing import Any
 import numpy as np
 from scipy.optimize import least_squares
 from wellwright.optimize.calibrate.problem import Problem
+from wellwright.optimize.study.growth import as_generator
 from wellwright.physics.iv import locate_peak_valley
 
 __all__ = ["FitResult", "run_fit", "point_weights", "AMBIGUOUS_DCHI2"]
@@ -73,6 +88,10 @@ MAX_CELL_MOVES = 3
 THICKNESS_STEP_ML = 0.25
 #: A start is refined when its whole-monolayer score is within this factor of the best one.
 START_FACTOR = 3.0
+#: Random draws of the continuous physics parameters on the best whole-monolayer combination.
+RANDOM_STARTS = 8
+#: Width of the Gaussian draw of a parameter with a prior, in prior sigmas.
+RANDOM_PRIOR_SIGMAS = 2.0
 
 
 @dataclass
@@ -89,6 +108,8 @@ class FitResult:
     n_points: int
     alternatives: list[dict[str, Any]] = field(default_factory=list)
     starts: int = 0
+    random_starts: int = 0
+    seed: int | None = None
     evaluations: int = 0
     notes: list[str] = field(default_factory=list)
     combos: int = 0
@@ -186,44 +207,75 @@ class Objective:
         for cur, sl in zip(base, slopes):
             full = np.repeat(cur[:1], p + 1, axis=0)
             full[need] = cur
-            for j, i in island_col.items():
-                full[j + 1] = cur[0] + step[j] * prob.parameters[j].scale * sl[0, i]
+            for j, i in island_col.items():  # the base row's biases, its current moved
+                full[j + 1, 1] = cur[0, 1] + step[j] * prob.parameters[j].scale * sl[0, i]
             intrinsic.append(full)
         res = self.residuals_many(rows, intrinsic)
         self._cache = {z.tobytes(): res[0]}
         return (res[1:] - res[0]).T / step[None, :]
 
-    def central_jacobian(self, z: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Central, upper and lower one-sided differences from one batch
-        (thickness steps of ``THICKNESS_STEP_ML``; the one-sided ones differ
-        from the central one in the thickness columns only).
+    def central_jacobian(
+        self, z: np.ndarray
+    ) -> tuple[np.ndarray, list[np.ndarray], list[np.ndarray]]:
+        """Central differences and, per side, the one-sided differences an
+        interval half may rest on, from one batch (thickness steps of
+        ``THICKNESS_STEP_ML``; the one-sided ones differ from the central one
+        in the thickness columns only).
 
         At a whole monolayer the island current has a kink: the central slope
         (for the covariance and the correlations) averages both sides, so that,
         e.g., the two barriers of a symmetric stack are not made to look
         separable by one side's slope; the one-sided slopes give each
         thickness's upper and lower interval (the current of a barrier falls
-        more gently above a whole monolayer than it rises below it).
+        more gently above a whole monolayer than it rises below it). A
+        thickness a little above (below) a whole monolayer has, between it and
+        the kink, the slope of its own cell, not the quarter-monolayer step's
+        mixture of both cells: that within-cell slope (a step to the cell's
+        edge; the island current is linear in the thickness within a cell) is
+        the second one-sided difference of that side. Returns the central
+        Jacobian and, for the upper and the lower side, the list of one-sided
+        Jacobians.
         """
         z = np.asarray(z, float)
         p = z.size
-        thick = np.array([q.kind == "thickness" for q in self.problem.parameters])
+        params = self.problem.parameters
+        thick = np.array([q.kind == "thickness" for q in params])
         step = np.array(
-            [
-                THICKNESS_STEP_ML / q.scale if t else STEP_Z
-                for q, t in zip(self.problem.parameters, thick)
-            ]
+            [THICKNESS_STEP_ML / q.scale if t else STEP_Z for q, t in zip(params, thick)]
         )
         up = np.minimum(z + step, self.upper)
         down = np.maximum(z - step, self.lower)
-        rows = np.vstack([z[None, :], z + np.diag(up - z), z + np.diag(down - z)])
+        # within-cell steps to the cell's edge where the edge is nearer than a quarter monolayer
+        ml = self.problem.values(self.problem.deviations(z))[0]
+        extra: list[tuple[str, int, float]] = []
+        for j in np.nonzero(thick)[0]:
+            frac = ml[j] - np.floor(ml[j] + 1e-9)
+            to_top = 1.0 - frac
+            if 1e-6 < frac < THICKNESS_STEP_ML and z[j] - frac / params[j].scale >= self.lower[j]:
+                extra.append(("lower", int(j), -frac / params[j].scale))
+            if (
+                1e-6 < to_top < THICKNESS_STEP_ML
+                and z[j] + to_top / params[j].scale <= self.upper[j]
+            ):
+                extra.append(("upper", int(j), to_top / params[j].scale))
+        moves = [z + np.diag(up - z), z + np.diag(down - z)]
+        for _, j, h in extra:
+            row = z.copy()
+            row[j] += h
+            moves.append(row[None, :])
+        rows = np.vstack([z[None, :]] + moves)
         res = self.residuals_many(rows)
-        r0, r_up, r_down = res[0], res[1 : p + 1], res[p + 1 :]
+        r0, r_up, r_down = res[0], res[1 : p + 1], res[p + 1 : 2 * p + 1]
         safe = lambda d: np.where(d > 0, d, 1.0)  # noqa: E731
         central = (r_up - r_down).T / safe(up - down)[None, :]
         upper = np.where(thick[None, :], (r_up - r0).T / safe(up - z)[None, :], central)
         lower = np.where(thick[None, :], (r0 - r_down).T / safe(z - down)[None, :], central)
-        return central, upper, lower
+        sides = {"upper": [upper], "lower": [lower]}
+        for k, (side, j, h) in enumerate(extra):
+            within = sides[side][0].copy()
+            within[:, j] = (res[2 * p + 1 + k] - r0) / h
+            sides[side].append(within)
+        return central, sides["upper"], sides["lower"]
 
     def cost(self, res: np.ndarray) -> np.ndarray:
         """Robust cost ``sum rho(r^2)`` with soft_l1 at ``F_SCALE`` (per row)."""
@@ -278,8 +330,32 @@ def _fit_resistance(
     return out, float(2 * sol.cost)
 
 
-def global_stage(obj: Objective, starts: int) -> tuple[list[np.ndarray], int]:
-    """The best ``starts`` whole-monolayer combinations, each with its series resistance fitted."""
+def _random_rows(obj: Objective, z: np.ndarray, n: int, rng: np.random.Generator) -> np.ndarray:
+    """``(n', p)`` random draws of the continuous physics parameters around ``z``
+    (thicknesses and resistances kept); ``n' = 0`` when there are none."""
+    params = obj.problem.parameters
+    cols = [j for j, q in enumerate(params) if q.kind not in ("thickness", "resistance")]
+    if not cols or n <= 0:
+        return np.zeros((0, z.size))
+    rows = np.repeat(z[None, :], n, axis=0)
+    for j in cols:
+        q = params[j]
+        if q.sigma > 0:
+            sd = RANDOM_PRIOR_SIGMAS * q.sigma * (q.nominal if q.kind == "doping" else 1.0)
+            draw = rng.normal(0.0, sd / q.scale, n)
+        else:
+            draw = rng.uniform(obj.lower[j], obj.upper[j], n)
+        rows[:, j] = np.clip(draw, obj.lower[j], obj.upper[j])
+    return rows
+
+
+def global_stage(
+    obj: Objective, starts: int, *, rng: np.random.Generator, random_starts: int = RANDOM_STARTS
+) -> tuple[list[np.ndarray], int, int]:
+    """The best ``starts`` starts, each with its series resistance fitted: the whole-monolayer
+    combinations (continuous parameters nominal) and ``random_starts`` random draws of the
+    continuous parameters on the best combination. Returns the starts, the number of
+    combinations and the number of random draws."""
     rows = _combos(obj.problem)
     intrinsic = obj.problem.intrinsic_currents(obj.problem.deviations(rows))
     scored = []
@@ -287,9 +363,19 @@ def global_stage(obj: Objective, starts: int) -> tuple[list[np.ndarray], int]:
         z, c = _fit_resistance(obj, rows[i], [j[i : i + 1] for j in intrinsic])
         scored.append((c, i, z))
     scored.sort(key=lambda t: (t[0], t[1]))
+    extra = _random_rows(obj, rows[scored[0][1]], random_starts, rng)
+    if extra.shape[0]:
+        more = obj.problem.intrinsic_currents(obj.problem.deviations(extra))
+        drawn = []
+        for i in range(extra.shape[0]):
+            z, c = _fit_resistance(obj, extra[i], [j[i : i + 1] for j in more])
+            drawn.append((c, rows.shape[0] + i, z))
+        drawn.sort(key=lambda t: (t[0], t[1]))
+        if drawn[0][0] < scored[0][0]:  # a better start in the same whole-monolayer cell
+            scored[0] = drawn[0]
     best = scored[0][0]
     keep = [z for c, _, z in scored[:starts] if c <= START_FACTOR * best + AMBIGUOUS_DCHI2]
-    return keep, rows.shape[0]
+    return keep, rows.shape[0], extra.shape[0]
 
 
 def _cell_bounds(
@@ -353,12 +439,28 @@ def _scatter(obj: Objective, z: np.ndarray) -> float:
     return max(math.sqrt(ssq / dof), 1e-4)
 
 
-def run_fit(problem: Problem, *, starts: int = 2, max_nfev: int = 15, progress=None) -> FitResult:
-    """Fit ``problem``: global stage, local fits, scatter re-estimated, covariance at the optimum."""
+def run_fit(
+    problem: Problem,
+    *,
+    starts: int = 2,
+    max_nfev: int = 15,
+    seed: int | np.random.Generator | None = 0,
+    random_starts: int = RANDOM_STARTS,
+    progress=None,
+) -> FitResult:
+    """Fit ``problem``: global stage, local fits, scatter re-estimated, covariance at the optimum.
+
+    ``seed`` seeds the random starts of the global stage (the only random
+    step; module notes): the same seed gives the same result.
+    """
     say = progress or (lambda msg: None)
+    rng = as_generator(seed)
     obj = Objective(problem, INITIAL_SCATTER)
-    begins, n_combos = global_stage(obj, starts)
-    say(f"{n_combos} whole-monolayer combinations scored; {len(begins)} local fits")
+    begins, n_combos, n_random = global_stage(obj, starts, rng=rng, random_starts=random_starts)
+    say(
+        f"{n_combos} whole-monolayer combinations and {n_random} random starts scored; "
+        f"{len(begins)} local fits"
+    )
     optima = []
     for k, z0 in enumerate(begins):
         z, cost = _local(obj, z0, max_nfev)
@@ -375,14 +477,18 @@ def run_fit(problem: Problem, *, starts: int = 2, max_nfev: int = 15, progress=N
         rescored.append((float(np.sum(res**2)), z))
     res_best = obj(z_best)
     chi2 = float(np.sum(res_best**2))
-    jac, jac_up, jac_down = obj.central_jacobian(z_best)
+    jac, jacs_up, jacs_down = obj.central_jacobian(z_best)
     result = _uncertainty(problem, obj, z_best, jac)
     thick = np.array([p.kind == "thickness" for p in problem.parameters])
-    for side, j in (("sd_high", jac_up), ("sd_low", jac_down)):
-        one = _uncertainty(problem, obj, z_best, j).sd
-        setattr(result, side, np.where(thick, np.maximum(result.sd, one), result.sd))
+    for side, jacs in (("sd_high", jacs_up), ("sd_low", jacs_down)):
+        widest = result.sd
+        for j in jacs:
+            widest = np.maximum(widest, _uncertainty(problem, obj, z_best, j).sd)
+        setattr(result, side, np.where(thick, widest, result.sd))
     result.scatter, result.chi2 = scatter, chi2
     result.n_points, result.starts, result.combos = obj.n_points, len(begins), n_combos
+    result.random_starts = n_random
+    result.seed = seed if isinstance(seed, int) else None
     result.alternatives = _alternatives(problem, z_best, chi2, rescored)
     result.evaluations = obj.evaluations
     return result

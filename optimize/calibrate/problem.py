@@ -54,7 +54,7 @@ from wellwright.optimize.study.growth import GrowthSettings, parse_growth, split
 from wellwright.physics import checks, materials
 from wellwright.physics.current import EnergyGrid
 from wellwright.physics.errors import InputError
-from wellwright.physics.iv import current_at_bias
+from wellwright.physics.iv import current_at_bias, locate_peak_valley
 from wellwright.physics.stack import LayerTable, ModelOptions, Stack, parse_stack
 
 __all__ = ["FitParameter", "Problem", "build_problem", "GROUPS", "MODEL_FIT"]
@@ -323,13 +323,19 @@ class Problem:
     def intrinsic_currents(
         self, dev: np.ndarray, *, with_slopes: bool = False
     ) -> list[np.ndarray] | tuple[list[np.ndarray], list[np.ndarray]]:
-        """Island-averaged intrinsic currents ``(m, n_grid)`` per measurement.
+        """Island-averaged intrinsic curves per measurement, ``(m, 2, n)``: ``[:, 0]`` the
+        intrinsic biases of each row, ``[:, 1]`` the currents there.
 
+        Each row's biases are the uniform grid of :meth:`intrinsic_grids` plus
+        the :data:`CLIFF_POINTS` biases each island corner adds inside its NDR
+        cliff (:func:`_distinct_currents`); a corner's current at another
+        corner's added biases is interpolated on its own points (linear).
         Rows with equal physics (they differ only in series resistance) are
         computed once; rows are grouped by model options, one batched kernel
-        call per group and measurement. ``with_slopes`` also returns, per
-        measurement, ``(m, k, n_grid)`` derivatives with respect to the
-        thickness of each island layer (monolayers), from the same corners.
+        call (and one for the cliffs) per group and measurement.
+        ``with_slopes`` also returns, per measurement, ``(m, k, n)``
+        derivatives with respect to the thickness of each island layer
+        (monolayers) on the same biases, from the same corners.
         """
         dev = np.atleast_2d(dev)
         phys = np.array([p.kind != "resistance" for p in self.parameters])
@@ -342,19 +348,42 @@ class Problem:
             groups.setdefault(tuple(uniq[u, model_cols]), []).append(u)
         grids = self.intrinsic_grids()
         k_isl = len(self.island_layers)
-        out = [np.empty((uniq.shape[0], g.size)) for g in grids]
-        slope = [np.zeros((uniq.shape[0], k_isl, g.size)) for g in grids]
+        n_corners = 2**k_isl if k_isl else 1
+        sizes = [g.size + n_corners * CLIFF_POINTS for g in grids]
+        out = [np.empty((uniq.shape[0], 2, n)) for n in sizes]
+        slope = [np.zeros((uniq.shape[0], k_isl, n)) for n in sizes]
         for members in groups.values():
             sub = uniq[members]
             for k, (meas, grid_v) in enumerate(zip(self.measurements, grids)):
                 dw: list[np.ndarray] = []
-                table, w = self.tables(sub, temperature_k=meas.temperature_k, slopes=dw)
+                table, w = self.tables(
+                    sub, temperature_k=meas.temperature_k, slopes=dw if with_slopes else None
+                )
                 model = self.model_options(sub[0], meas.temperature_k)
-                j = current_at_bias(table, grid_v, model=model, grid=self.grid)
-                j = j.reshape(len(members), w.shape[1], -1)
-                out[k][members] = np.einsum("mc,mcb->mb", w, j)
+                v, j = _distinct_currents(
+                    table, w.reshape(-1), grid_v, model=model, grid=self.grid, all_rows=with_slopes
+                )
+                n_c = w.shape[1]
+                v = v.reshape(len(members), n_c, -1)
+                j = j.reshape(len(members), n_c, -1)
+                # each row on the union of its corners' biases (uniform grid + every cliff)
+                extra = v[:, :, grid_v.size :].reshape(len(members), -1)
+                union = np.sort(
+                    np.concatenate(
+                        [np.broadcast_to(grid_v, (len(members), grid_v.size)), extra], 1
+                    ),
+                    axis=1,
+                )
+                on_union = np.zeros((len(members), n_c, union.shape[1]))
+                for r in range(len(members)):
+                    for c in range(n_c):
+                        if with_slopes or w[r, c] >= ZERO_WEIGHT:
+                            order = np.argsort(v[r, c], kind="stable")
+                            on_union[r, c] = np.interp(union[r], v[r, c, order], j[r, c, order])
+                out[k][members, 0] = union
+                out[k][members, 1] = np.einsum("mc,mcb->mb", w, on_union)
                 for i, d in enumerate(dw):
-                    slope[k][members, i] = np.einsum("mc,mcb->mb", d, j)
+                    slope[k][members, i] = np.einsum("mc,mcb->mb", d, on_union)
         currents = [o[inverse] for o in out]
         if with_slopes:
             return currents, [s_[inverse] for s_ in slope]
@@ -389,13 +418,82 @@ class Problem:
         dev = np.atleast_2d(dev)
         intrinsic = self.intrinsic_currents(dev) if intrinsic is None else intrinsic
         out = []
-        for meas, grid_v, j in zip(self.measurements, self.intrinsic_grids(), intrinsic):
+        for meas, j in zip(self.measurements, intrinsic):
             r = self.resistance_ohm_um2(dev, meas)
             pred = np.empty((dev.shape[0], meas.bias_v.size))
             for i in range(dev.shape[0]):  # rows: a handful per call; the biases are vectors
-                pred[i] = up_sweep(grid_v, j[i], r[i], meas.bias_v)
+                pred[i] = up_sweep(j[i, 0], j[i, 1], r[i], meas.bias_v)
             out.append(pred)
         return out
+
+
+#: An island corner whose area weight is below this contributes nothing (a whole-monolayer
+#: thickness has weight 1 on one corner; floating round-off leaves ~1e-15 on the others).
+ZERO_WEIGHT = 1e-9
+
+
+#: Biases added inside each stack's NDR cliff (the grid interval after its sampled peak): the
+#: terminal bias where a measured up sweep jumps is the largest ``V + J R`` before the drop, and
+#: a measured point within millivolts of it is on the right branch only if the model's peak is
+#: resolved that finely (one uniform spacing of ~8 mV put the demo's peak point on the wrong
+#: branch: ln J residual 1.15 at the true stack).
+CLIFF_POINTS = 8
+
+
+def _distinct_currents(
+    table: LayerTable,
+    weights: np.ndarray,
+    bias_v: np.ndarray,
+    *,
+    model: ModelOptions,
+    grid: EnergyGrid,
+    all_rows: bool,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Biases and currents ``(n_stacks, n + CLIFF_POINTS)`` of the rows of ``table``: the
+    uniform ``bias_v`` (increasing, one side of zero or spanning it), then
+    :data:`CLIFF_POINTS` biases evenly inside the grid interval after the
+    stack's first NDR peak (away from zero; where there is none, inside the
+    last interval).
+
+    Rows whose weight is below :data:`ZERO_WEIGHT` are skipped (left 0)
+    unless ``all_rows``; rows with equal layer parameters (the corners of
+    neighbouring whole-monolayer combinations coincide) share one kernel
+    computation: a stack's current does not depend on its batch partners.
+    The 27 whole-monolayer combinations of three layers need 27 stacks
+    instead of 216.
+    """
+    need = np.ones(weights.size, bool) if all_rows else weights >= ZERO_WEIGHT
+    idx = np.nonzero(need)[0]
+    arrays = [v for v in table.__dict__.values() if v is not None]
+    key = np.nan_to_num(
+        np.concatenate([np.asarray(a, float).reshape(table.n_stacks, -1) for a in arrays], axis=1),
+        nan=-1.0,
+    )
+    _, first, inverse = np.unique(key[idx], axis=0, return_index=True, return_inverse=True)
+    distinct = table.take(idx[first])
+    j = current_at_bias(distinct, bias_v, model=model, grid=grid)
+    # the side the sweep goes: a measurement is one polarity away from zero
+    sign = 1.0 if abs(bias_v[-1]) >= abs(bias_v[0]) else -1.0
+    order = np.argsort(sign * bias_v)
+    v_side, j_side = sign * bias_v[order], sign * j[:, order]
+    keep = v_side >= 0
+    v_side, j_side = v_side[keep], j_side[:, keep]
+    peak, _ = locate_peak_valley(v_side, np.abs(j_side))
+    start = np.where(peak >= 0, peak, v_side.size - 2)
+    h = np.diff(v_side)[start]
+    frac = np.arange(1, CLIFF_POINTS + 1) / (CLIFF_POINTS + 1)
+    cliff = sign * (v_side[start, None] + h[:, None] * frac[None, :])
+    j_cliff = current_at_bias(distinct, cliff, model=model, grid=grid)
+    inv = np.asarray(inverse).reshape(-1)
+    v_out = np.zeros((table.n_stacks, bias_v.size + CLIFF_POINTS))
+    j_out = np.zeros_like(v_out)
+    v_out[:, : bias_v.size] = bias_v
+    # a skipped row (weight 0) repeats the sweep's far end: no new bias for its row's union
+    v_out[:, bias_v.size :] = bias_v[-1] if sign > 0 else bias_v[0]
+    v_out[idx, bias_v.size :] = cliff[inv]
+    j_out[idx, : bias_v.size] = j[inv]
+    j_out[idx, bias_v.size :] = j_cliff[inv]
+    return v_out, j_out
 
 
 def up_sweep(

@@ -249,7 +249,9 @@ def calibration_record(
             "uncertainty": "Gauss-Newton covariance (J^T J)^-1 at the optimum, priors included; "
             "95 % intervals value +- 1.96 sd (a thickness's halves from the one-sided "
             "slopes where wider)",
-            "multistart": f"{result.combos} whole-monolayer combinations scored, {result.starts} local fits",
+            "multistart": f"{result.combos} whole-monolayer combinations and "
+            f"{result.random_starts} random starts scored, {result.starts} local fits",
+            "seed": result.seed,
             "model_evaluations": result.evaluations,
         },
         "command": command,

@@ -35,17 +35,24 @@ def calibrate(
     *,
     fit: list[str] | None = None,
     starts: int = 2,
+    seed: int = 0,
     progress=None,
 ) -> tuple[Any, Any, dict[str, Any]]:
-    """Read and fit; returns the problem, the fit result and the record (nothing written)."""
+    """Read and fit; returns the problem, the fit result and the record (nothing written).
+
+    ``seed`` seeds the fit's random starts (:func:`~wellwright.optimize.calibrate.fit.run_fit`);
+    the record keeps it (``command.seed`` and ``method.seed``).
+    """
     data = read_toml(stack_path)
     measurements = [read_measured(p) for p in measured]
     problem = build_problem(data, measurements, source=str(stack_path), fit=fit)
-    result = run_fit(problem, starts=starts, progress=progress)
+    result = run_fit(problem, starts=starts, seed=seed, progress=progress)
     command = {
         "stack": str(stack_path),
         "measured": [str(p) for p in measured],
         "fit": fit or "default",
+        "starts": starts,
+        "seed": seed,
     }
     return problem, result, calibration_record(problem, result, command=command)
 

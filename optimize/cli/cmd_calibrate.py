@@ -35,6 +35,13 @@ def register(sub) -> None:
         metavar="K",
         help="local fits from the best K whole-monolayer starts (default 2)",
     )
+    p.add_argument(
+        "--seed",
+        type=int,
+        default=0,
+        metavar="S",
+        help="seed of the fit's random starts (default 0; the same seed gives the same record)",
+    )
     p.add_argument("--out", metavar="DIR", help="output folder (default: <stack name>_calibration)")
     p.add_argument("--json", action="store_true", help="print the calibration record as JSON")
     p.set_defaults(func=run)
@@ -42,10 +49,12 @@ def register(sub) -> None:
 
 def run(args) -> int:
     from wellwright.optimize.calibrate.run import calibrate, write_outputs
+    from wellwright.physics import checks
     from wellwright.physics.errors import InputError
 
     if not 1 <= args.starts <= 50:
         raise InputError(f"{args.starts} outside [1, 50]", key="--starts")
+    checks.seed(args.seed, key="--seed")
     out = Path(args.out) if args.out else Path(f"{Path(args.stack).stem}_calibration")
 
     def say(msg: str) -> None:
@@ -53,7 +62,7 @@ def run(args) -> int:
             print(f"  {msg}", file=sys.stderr, flush=True)
 
     problem, result, record = calibrate(
-        args.stack, args.measured, fit=args.fit, starts=args.starts, progress=say
+        args.stack, args.measured, fit=args.fit, starts=args.starts, seed=args.seed, progress=say
     )
     write_outputs(out, problem, result, record)
     if args.json:
