@@ -59,17 +59,19 @@ def overlay_figure(record: dict[str, Any], path: str | Path) -> Path:
                         marker, ms=8, mfc="none" if which == "measured" else c, mec=PALETTE["black"],
                         zorder=5,
                     )  # fmt: skip
-        lines.append(
-            f"{name}\n  measured: {_fom_text(fom['measured'])}\n  fitted:   {_fom_text(fom['fitted'])}"
-        )
+        text = f"{name}\n  measured: {_fom_text(fom['measured'])}\n  fitted:   {_fom_text(fom['fitted'])}"
+        if fom.get("fitted_continuous"):
+            text += f"\n  (fitted curve between the measured biases: {_fom_text(fom['fitted_continuous'])})"
+        lines.append(text)
     axes[0].set_ylabel("current density (kA/cm$^2$)")
     axes[1].set_ylabel("|current density| (A/cm$^2$)")
     axes[1].set_yscale("log")
     for ax in axes:
         ax.set_xlabel("applied bias (V)")
-    axes[0].legend(fontsize=8, loc="upper right")
+    axes[0].legend(fontsize=8, loc="center right")  # clear of the peak and the valley
     axes[0].set_title(
-        "Measured and fitted I-V (squares: measured peak/valley, diamonds: fitted)",
+        "Measured and fitted I-V (squares: measured peak/valley, diamonds: fitted, "
+        "both at the measured biases)",
         fontsize=10,
         loc="left",
     )

@@ -215,11 +215,15 @@ def calibration_record(
                 "fine_fitted_a_cm2": fp[0],
             }
         )
+        # like with like: the fitted curve at the measured biases (a sweep samples the top of a
+        # peak that ends in a jump no better than its spacing); the continuous curve's own
+        # figures beside them
         table.append(
             {
                 "source": meas.source,
                 "measured": figures_of_merit(meas.bias_v, meas.current_density_a_cm2),
-                "fitted": figures_of_merit(v, fp[0]),
+                "fitted": figures_of_merit(meas.bias_v, p[0]),
+                "fitted_continuous": figures_of_merit(v, fp[0]),
             }
         )
     model = {
