@@ -46,8 +46,9 @@ def overlay_figure(record: dict[str, Any], path: str | Path) -> Path:
         v, jm = np.asarray(curve["bias_v"]), np.asarray(curve["measured_a_cm2"])
         vf, jf = np.asarray(curve["fine_bias_v"]), np.asarray(curve["fine_fitted_a_cm2"])
         for ax, f in ((axes[0], lambda j: j / 1e3), (axes[1], np.abs)):
-            ax.plot(v, f(jm), "o", ms=4, mfc="none", color=c, label=f"measured: {name}")
-            ax.plot(vf, f(jf), "-", lw=1.8, color=c, label=f"fitted: {name}")
+            tag = f": {name}" if len(record["curves"]) > 1 else ""  # one file: named below
+            ax.plot(v, f(jm), "o", ms=4, mfc="none", color=c, label=f"measured{tag}")
+            ax.plot(vf, f(jf), "-", lw=1.8, color=c, label=f"fitted{tag}")
             for which, marker in (("measured", "s"), ("fitted", "D")):
                 m = fom[which]
                 if m.get("peak_voltage_v") is None:
@@ -70,8 +71,8 @@ def overlay_figure(record: dict[str, Any], path: str | Path) -> Path:
         ax.set_xlabel("applied bias (V)")
     axes[0].legend(fontsize=8, loc="center right")  # clear of the peak and the valley
     axes[0].set_title(
-        "Measured and fitted I-V (squares: measured peak/valley, diamonds: fitted, "
-        "both at the measured biases)",
+        "Measured and fitted I-V\nsquares: measured peak/valley; diamonds: fitted, at the "
+        "measured biases",
         fontsize=10,
         loc="left",
     )
