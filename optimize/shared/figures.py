@@ -11,7 +11,7 @@ from typing import Any
 import matplotlib.pyplot as plt
 import numpy as np
 from wellwright.physics.current import contact_fermi_levels_ev
-from wellwright.physics.iv import IVCurves, band_profile
+from wellwright.physics.iv import IVCurves, band_profile, external_bias_v
 from wellwright.physics.resonances import find_resonances
 from wellwright.physics.stack import Stack
 from wellwright.physics.transmission import transmission
@@ -59,12 +59,28 @@ def style() -> None:
     )
 
 
-def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
+def iv_figure(
+    curves: IVCurves, i: int = 0, *, title: str = "", series_resistance_ohm_um2: float = 0.0
+):
     """J(V) with the first NDR peak and its valley marked: linear (kA/cm²) and log (A/cm²) panels.
 
     The drawn curve passes through the refined peak and valley, so the
     markers sit on it; a valley on the last bias of the sweep is marked as
-    bounded by the sweep (the true valley lies beyond it).
+    bounded by the sweep (the true valley lies beyond it). With a series
+    resistance the same current is also drawn against the terminal bias
+    V + J R (dashed), the bias a measurement reports; the marks and figures of
+    merit stay on the intrinsic curve.
+
+    Parameters
+    ----------
+    curves
+        The sweep (:class:`wellwright.physics.iv.IVCurves`).
+    i
+        Which stack of the batch.
+    title
+        Figure title.
+    series_resistance_ohm_um2
+        Specific series resistance; 0 draws the intrinsic curve only.
     """
     style()
     fig, (ax, lx) = plt.subplots(
@@ -87,6 +103,17 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
     for axis, scale in ((ax, 1e-3), (lx, 1.0)):
         y = j * scale if axis is ax else np.where(j != 0, np.abs(j), np.nan)
         axis.plot(v, y, color=PALETTE["blue"], lw=2, label="Tsu-Esaki current")
+        if series_resistance_ohm_um2 > 0:
+            axis.plot(
+                external_bias_v(v, j, series_resistance_ohm_um2=series_resistance_ohm_um2),
+                y,
+                color=PALETTE["blue"],
+                lw=1.2,
+                ls="--",
+                label=f"at the terminals ({series_resistance_ohm_um2:g} Ω µm²)"
+                if axis is ax
+                else None,
+            )
         for (name, x, yv), marker, color in zip(marks, ("o", "s"), ("vermillion", "green")):
             axis.plot(
                 x,
@@ -119,9 +146,21 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
             else "PVCR undefined (valley current ≤ 0)"
         )
         beyond = "\n(continued past the sweep end)" if extended else ""
+        vp_terminal = float(
+            external_bias_v(
+                m["peak_voltage_v"],
+                m["peak_current_density_a_cm2"],
+                series_resistance_ohm_um2=series_resistance_ohm_um2,
+            )
+        )
+        terminal = (
+            f",\n{vp_terminal * 1e3:.0f} mV at the terminals"
+            if series_resistance_ohm_um2 > 0
+            else ""
+        )
         ax.annotate(
             f"first NDR peak: $J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
-            f"{m['peak_voltage_v'] * 1e3:.0f} mV\n{valley_text}\n{pvcr}{beyond}",
+            f"{m['peak_voltage_v'] * 1e3:.0f} mV{terminal}\n{valley_text}\n{pvcr}{beyond}",
             xy=(0.03, 0.97),
             xycoords="axes fraction",
             va="top",
@@ -143,7 +182,11 @@ def iv_figure(curves: IVCurves, i: int = 0, *, title: str = ""):
         lx.set_yscale("log")
         lx.set_ylim(max(positive.min() / 3, positive.max() * 1e-7), positive.max() * 3)
     lx.set_ylabel("|current density| (A/cm², log)")
-    lx.set_xlabel("bias (V)")
+    lx.set_xlabel(
+        "bias (V): intrinsic (solid), at the terminals V + J R (dashed)"
+        if series_resistance_ohm_um2 > 0
+        else "bias (V)"
+    )
     fig.align_ylabels()
     fig.tight_layout()
     return fig
@@ -313,7 +356,13 @@ def iv_figures(
     head = f"{label}: " if label else ""
     paths = {
         "iv": save_figure(
-            iv_figure(curves, i, title=f"{head}I-V ({model_label(stack)})"), out / f"{prefix}iv.png"
+            iv_figure(
+                curves,
+                i,
+                title=f"{head}I-V ({model_label(stack)})",
+                series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
+            ),
+            out / f"{prefix}iv.png",
         ),
         "band_diagram": save_figure(
             band_diagram_figure(

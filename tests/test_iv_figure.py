@@ -1,0 +1,51 @@
+"""The I-V figure with a series resistance: the terminal-bias curve a measurement reports."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from wellwright.optimize.shared.figures import iv_figure
+from wellwright.physics.iv import sweep
+from wellwright.physics.stack import parse_stack
+
+FAST = {"electrostatics": "linear", "transport": "coherent"}  # the figure, not the physics
+
+
+def _stack():
+    return parse_stack(
+        {
+            "temperature_k": 300.0,
+            "model": FAST,
+            "layers": [
+                {"name": "emitter", "material": "GaAs", "thickness_nm": 20, "doping_cm3": 2e18},
+                {"name": "spacer", "material": "GaAs", "thickness_nm": 2},
+                {"name": "barrier1", "material": "AlAs", "thickness_ml": 6},
+                {"name": "well", "material": "GaAs", "thickness_ml": 18},
+                {"name": "barrier2", "material": "AlAs", "thickness_ml": 6},
+                {"name": "spacer2", "material": "GaAs", "thickness_nm": 2},
+                {"name": "collector", "material": "GaAs", "thickness_nm": 20, "doping_cm3": 2e18},
+            ],
+        }
+    )
+
+
+@pytest.mark.parametrize("r_ohm_um2", [0.0, 25.0])
+def test_terminal_curve_is_shifted_by_the_series_drop(r_ohm_um2: float) -> None:
+    # common practice: the terminal bias is V + J R (J in A/cm^2, R in ohm um^2 = 1e-8 ohm cm^2)
+    stack = _stack()
+    curves = sweep(stack.table(), np.linspace(0.0, 0.6, 31), model=stack.model)
+    fig = iv_figure(curves, series_resistance_ohm_um2=r_ohm_um2)
+    ax = fig.axes[0]
+    lines = [ln for ln in ax.get_lines() if ln.get_linestyle() in ("-", "--")]
+    dashed = [ln for ln in lines if ln.get_linestyle() == "--"]
+    if r_ohm_um2 == 0.0:
+        assert not dashed
+        return
+    (solid,) = [ln for ln in lines if ln.get_linestyle() == "-" and len(ln.get_xdata()) > 2]
+    v, j_ka = np.asarray(solid.get_xdata()), np.asarray(solid.get_ydata())
+    v_terminal = np.asarray(dashed[0].get_xdata())
+    np.testing.assert_allclose(v_terminal, v + j_ka * 1e3 * r_ohm_um2 * 1e-8, rtol=1e-12)
+    m = curves.metrics_of(0)
+    vp_terminal = m["peak_voltage_v"] + m["peak_current_density_a_cm2"] * r_ohm_um2 * 1e-8
+    text = " ".join(t.get_text() for t in ax.texts)
+    assert f"{vp_terminal * 1e3:.0f} mV at the terminals" in text
