@@ -242,6 +242,7 @@ def run(args: argparse.Namespace) -> int:
         out_dir=out,
         design=design,
         second_order=args.second_order,
+        variables=study.variables,
     )
     y = rec["yield"]
     print(

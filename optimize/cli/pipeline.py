@@ -30,7 +30,6 @@ from typing import Any
 
 import numpy as np
 from wellwright.optimize.search.history import TRIALS_FILE
-from wellwright.optimize.shared import names
 from wellwright.optimize.shared.outputs import (
     atomic_write,
     check_output_folder,
@@ -61,6 +60,7 @@ from wellwright.optimize.study.run_settings import (
     with_overrides,
 )
 from wellwright.optimize.study.study import Study
+from wellwright.optimize.study.targets import window_report
 from wellwright.physics.errors import InputError
 
 __all__ = [
@@ -163,6 +163,7 @@ def tolerance_of_design(
         target_yield=s.target_yield,
         out_dir=out_dir,
         design={"rank": design["rank"], "trial": design["trial"], "params": design["params"]},
+        variables=study.variables,
     )
 
 
@@ -243,21 +244,7 @@ EXIT_SPEC_NOT_MET = 3
 
 def closest_miss(study: Study, design: dict[str, Any]) -> str:
     """One line: the closest design and each window of the spec it misses, by how much."""
-    misses = []
-    for w in study.targets:
-        value = design["metrics"].get(w.metric)
-        if value is None:
-            misses.append(f"{names.words(w.metric)}: none (no NDR in the sweep)")
-            continue
-        if w.low <= value <= w.high:
-            continue
-        bound = w.low if value < w.low else w.high
-        side = "below the minimum" if value < w.low else "above the maximum"
-        misses.append(
-            f"{names.words(w.metric)} {names.format_value(w.metric, value, with_unit=True)}, "
-            f"{side} {names.format_value(w.metric, bound, with_unit=True)} "
-            f"by {names.format_value(w.metric, abs(value - bound), with_unit=True)}"
-        )
+    misses = [r["text"] for r in window_report(study.targets, design["metrics"]) if not r["inside"]]
     if not misses:
         misses = [
             f"a constraint ({', '.join(k for k, v in design['constraints'].items() if v > 0)})"

@@ -18,9 +18,9 @@ import numpy as np
 import optuna
 from optuna.trial import FrozenTrial, TrialState
 from wellwright.optimize.shared.model_text import model_label
+from wellwright.optimize.study.space import layer_records  # re-exported
 from wellwright.physics.device import device_quantities
 from wellwright.physics.iv import BOUNDED_BY_SWEEP, VALLEY_BOUNDED
-from wellwright.physics.stack import Stack
 
 if TYPE_CHECKING:
     from wellwright.optimize.study.study import Study
@@ -85,29 +85,6 @@ class SearchResult:
     def best(self) -> dict[str, Any] | None:
         """The top design if it meets the spec and the constraints, else None."""
         return self.designs[0] if self.designs and self.designs[0]["feasible"] else None
-
-
-def layer_records(stack: Stack) -> list[dict[str, Any]]:
-    """The layers of a stack as plain records (contacts have no thickness)."""
-    out = []
-    n = len(stack.layers)
-    for i, layer in enumerate(stack.layers):
-        contact = i in (0, n - 1)
-        ml = layer.thickness_ml
-        out.append(
-            {
-                "name": layer.name,
-                "material": layer.material,
-                "label": layer.label,
-                "x": layer.x,
-                "thickness_ml": None
-                if contact or ml is None
-                else (int(round(ml)) if abs(ml - round(ml)) < 1e-9 else ml),
-                "thickness_nm": None if contact else layer.thickness_nm,
-                "doping_cm3": layer.doping_cm3,
-            }
-        )
-    return out
 
 
 def _tidy(value: Any) -> Any:

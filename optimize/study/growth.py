@@ -958,6 +958,35 @@ class GrowthModel:
         cols, mono, ml = self._continuous(z, sigma_scale, radius_mm)
         return self._mixture(cols, mono, ml)
 
+    def with_thickness_ml(self, thickness_ml: dict[int, float]) -> GrowthModel:
+        """The same growth spreads on another nominal design: layer ``i`` at
+        ``thickness_ml[i]`` monolayers (of its nominal composition), the others unchanged.
+
+        The variation parameters, their sigmas and the island layers stay as
+        they are (same coordinates ``z``, so common random numbers compare the
+        two designs); the run positions of the cells' drift follow the new
+        thicknesses.
+        """
+        import dataclasses
+
+        layers = list(self.stack.layers)
+        ml = self.nominal_ml.copy()
+        for i, value in thickness_ml.items():
+            mono = layers[i].monolayer_nm
+            if mono is None or not 0 < i < len(layers) - 1:
+                raise ValueError(f"layer {i} ({layers[i].name}) is not grown in monolayers")
+            layers[i] = dataclasses.replace(
+                layers[i], thickness_ml=float(value), thickness_nm=float(value) * mono
+            )
+            ml[i] = float(value)
+        stack = dataclasses.replace(self.stack, layers=tuple(layers))
+        cells = self.cells
+        if cells is not None:
+            cells = dataclasses.replace(cells, run_position=_run_position(stack))
+        return dataclasses.replace(
+            self, stack=stack, nominal=stack.table(), nominal_ml=ml, cells=cells
+        )
+
     def grow_shifted(self, delta_ml: np.ndarray) -> AsGrown:
         """Nominal devices with layer thicknesses shifted by ``delta_ml`` ``(n, n_layers)`` ML."""
         delta = np.atleast_2d(np.asarray(delta_ml, float))
@@ -987,6 +1016,17 @@ class AsGrown:
     owner: np.ndarray  #: (n_rows,) device (sample) of each stack, sorted
     area_share: np.ndarray  #: (n_rows,) area share of each stack in its device
     n_samples: int
+
+    @classmethod
+    def concatenate(cls, parts: list[AsGrown]) -> AsGrown:
+        """The devices of ``parts`` one after the other (one batch for the kernel)."""
+        offsets = np.cumsum([0] + [p.n_samples for p in parts])
+        return cls(
+            LayerTable.concatenate([p.table for p in parts]),
+            np.concatenate([p.owner + o for p, o in zip(parts, offsets, strict=False)]),
+            np.concatenate([p.area_share for p in parts]),
+            int(offsets[-1]),
+        )
 
     def batch(self, start: int, stop: int) -> tuple[LayerTable, np.ndarray]:
         """Stacks and ``(stop - start, n_rows)`` area weights of the devices ``start:stop``."""

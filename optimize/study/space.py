@@ -35,6 +35,7 @@ __all__ = [
     "parameters_of",
     "parameter_key",
     "is_finite_number",
+    "layer_records",
 ]
 
 #: Layer keys that may be ranges (every numeric stack key).
@@ -465,3 +466,26 @@ def parse_range(
     return Variable(
         name=name, key=key, layers=layers, low=low, high=high, step=step, log=log, integer=integer
     )
+
+
+def layer_records(stack: Stack) -> list[dict[str, Any]]:
+    """The layers of a stack as plain records (contacts have no thickness)."""
+    out = []
+    n = len(stack.layers)
+    for i, layer in enumerate(stack.layers):
+        contact = i in (0, n - 1)
+        ml = layer.thickness_ml
+        out.append(
+            {
+                "name": layer.name,
+                "material": layer.material,
+                "label": layer.label,
+                "x": layer.x,
+                "thickness_ml": None
+                if contact or ml is None
+                else (int(round(ml)) if abs(ml - round(ml)) < 1e-9 else ml),
+                "thickness_nm": None if contact else layer.thickness_nm,
+                "doping_cm3": layer.doping_cm3,
+            }
+        )
+    return out

@@ -19,8 +19,9 @@ windows used by the growth-tolerance analyses.
 
 from __future__ import annotations
 
+import functools
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -40,6 +41,7 @@ __all__ = [
     "NAN_VIOLATION",
     "DEFAULT_REFERENCE",
     "window_distances",
+    "window_report",
     "spec_violation",
     "merit",
     "single_score",
@@ -189,6 +191,62 @@ def window_distances(
 ) -> dict[str, np.ndarray]:
     """Normalised distance outside each target window (0 inside, NaN for NaN)."""
     return {w.metric: w.distance(metrics[w.metric]) for w in targets}
+
+
+def window_report(
+    windows: Sequence[Window] | Sequence[tuple[str, float, float]],
+    metrics: Mapping[str, Any],
+) -> list[dict[str, Any]]:
+    """How one design stands against each window of a spec, in the metric's trade unit.
+
+    ``windows`` are :class:`Window` or ``(metric, low, high)`` tuples (the
+    :class:`Spec` form); ``metrics`` maps each metric to a value (None or NaN:
+    no NDR in the sweep). The one place that phrases "misses X by Y" (the
+    ``run`` command's closest-design line and the tolerance analysis use it).
+
+    Returns
+    -------
+    list of dict
+        Per window: ``metric``, ``value``, ``low``/``high`` (None when open),
+        ``inside`` (bool), ``bound`` (the nearest bound), ``side`` (``below``,
+        ``above``, ``inside`` or ``none`` for a missing value), ``distance``
+        (outside: how far beyond the bound, in the metric's own unit; 0 inside),
+        ``margin`` (inside: how far from the nearest bound; 0 outside) and
+        ``text`` (words and trade units from
+        :mod:`wellwright.optimize.shared.names`, e.g. "peak current density
+        174.3 kA/cm², above the maximum 120.0 kA/cm² by 54.3 kA/cm²").
+    """
+    out = []
+    for w in windows:
+        metric, low, high = (w.metric, w.low, w.high) if isinstance(w, Window) else w
+        raw = metrics.get(metric)
+        value = None if raw is None or not math.isfinite(float(raw)) else float(raw)
+        rec: dict[str, Any] = {
+            "metric": metric,
+            "value": value,
+            "low": low if math.isfinite(low) else None,
+            "high": high if math.isfinite(high) else None,
+        }
+        fmt = functools.partial(names.format_value, metric, with_unit=True)
+        what = names.words(metric)
+        if value is None:
+            rec.update(inside=False, bound=None, side="none", distance=None, margin=0.0)
+            rec["text"] = f"{what}: none (no NDR in the sweep)"
+        elif low <= value <= high:
+            bound = low if value - low <= high - value else high
+            kind = "minimum" if bound == low else "maximum"
+            margin = abs(value - bound)
+            rec.update(inside=True, bound=bound, side="inside", distance=0.0, margin=margin)
+            rec["text"] = f"{what} {fmt(value)}, {fmt(margin)} inside the {kind} {fmt(bound)}"
+        else:
+            bound = low if value < low else high
+            side = "below" if value < low else "above"
+            kind = "minimum" if value < low else "maximum"
+            distance = abs(value - bound)
+            rec.update(inside=False, bound=bound, side=side, distance=distance, margin=0.0)
+            rec["text"] = f"{what} {fmt(value)}, {side} the {kind} {fmt(bound)} by {fmt(distance)}"
+        out.append(rec)
+    return out
 
 
 def spec_violation(

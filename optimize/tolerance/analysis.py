@@ -31,7 +31,11 @@ import numpy as np
 from wellwright.optimize.shared.model_text import model_record
 from wellwright.optimize.shared.processes import exit_with_parent
 from wellwright.optimize.study.growth import AsGrown, GrowthModel, as_generator
-from wellwright.optimize.study.targets import Spec  # re-exported: the pass/fail form of [targets]
+from wellwright.optimize.study.space import layer_records
+from wellwright.optimize.study.targets import (
+    Spec,  # re-exported: the pass/fail form of [targets]
+    window_report,
+)
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 from wellwright.physics.iv import (
     BOUNDED_BY_SWEEP,
@@ -58,6 +62,14 @@ __all__ = [
     "morris_analysis",
     "tornado",
     "allocate_tolerances",
+    "allocation_row",
+    "ALLOCATION_HEADER",
+    "ACTIONS",
+    "paired_gain",
+    "FreeThickness",
+    "free_thicknesses",
+    "neighbourhood",
+    "recentre",
     "choose_island_layers",
     "with_island_layers",
     "island_truncation_error",
@@ -818,6 +830,336 @@ def island_truncation_error(
 
 #: Label of the joint allocation row: every layer's thickness spread scaled together.
 ALL_THICKNESSES = "all layer thicknesses"
+#: Two-sided level of the paired test a yield gain must pass to count as measurable.
+GAIN_TEST_LEVEL = 0.05
+#: Share of the allocation samples on which re-centring screens every candidate design (the
+#: rest, which the choice never sees, confirm the chosen one against the nominal).
+RECENTRE_SCREEN_SHARE = 0.25
+#: Most candidate designs the re-centring screens (pairs of moves are dropped first).
+RECENTRE_MAX_CANDIDATES = 64
+#: The allocation's actions (``action`` of each row).
+ACTIONS = ("tighten", "keep", "no measurable effect", "re-centre", "redesign")
+
+
+def paired_gain(
+    new: np.ndarray, old: np.ndarray, *, confidence: float = 0.95, level: float = GAIN_TEST_LEVEL
+) -> dict[str, Any]:
+    """Yield gain of pass/fail outcomes ``new`` over ``old`` on the same samples, and whether
+    it is measurable.
+
+    With common random numbers the two outcomes of one sample are paired, so the
+    honest test uses only the samples where they differ: the exact McNemar test
+    [1]_ (a two-sided sign test of ``better`` against ``worse``, binomial with
+    p = 1/2). The change counts as ``measurable`` only when that test rejects
+    "no change" at ``level`` **and** its size exceeds the half-width of the
+    Wilson interval [2]_ of the ``old`` yield (never recommend what lies within
+    the yield's own noise); a measurable change may be a loss (``gain`` < 0).
+
+    Returns ``gain`` (difference of the yields), ``better``, ``worse``
+    (samples passing with only one of them), ``samples``, ``p_value``,
+    ``yield_half_width``, ``measurable`` and ``test`` (its name).
+
+    References
+    ----------
+    .. [1] Q. McNemar, Psychometrika 12, 153 (1947) (from memory).
+    .. [2] E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927).
+    """
+    from scipy.stats import binomtest
+
+    new, old = np.asarray(new, bool), np.asarray(old, bool)
+    better = int(np.count_nonzero(new & ~old))
+    worse = int(np.count_nonzero(~new & old))
+    n = int(old.size)
+    gain = (better - worse) / n if n else 0.0
+    p = float(binomtest(better, better + worse, 0.5).pvalue) if better + worse else 1.0
+    lo, hi = wilson_interval(int(np.count_nonzero(old)), n, confidence=confidence)
+    half = 0.5 * (hi - lo)
+    return {
+        "gain": gain,
+        "better": better,
+        "worse": worse,
+        "samples": n,
+        "p_value": p,
+        "yield_half_width": half,
+        "measurable": bool(p < level and abs(gain) > half),
+        "test": "exact McNemar test on the paired samples (common random numbers), "
+        f"p < {level:g}, and a gain beyond the half-width of the yield's Wilson interval",
+    }
+
+
+@dataclass(frozen=True)
+class FreeThickness:
+    """A thickness the design may change: ``name`` (the study's variable, else the layer's
+    name), the ``layers`` that take it (tied layers together) and its whole-monolayer
+    bounds (``high_ml`` None: open)."""
+
+    name: str
+    layers: tuple[int, ...]
+    low_ml: int
+    high_ml: int | None = None
+
+
+def free_thicknesses(stack: Stack, variables: Sequence[Any] | None = None) -> list[FreeThickness]:
+    """The thicknesses a re-centring may move.
+
+    ``variables`` (:class:`wellwright.optimize.study.space.Variable`): the
+    study's ``thickness_ml`` and ``thickness_nm`` ranges, with their bounds in
+    whole monolayers of the first layer they set. Without any, every layer
+    between the contacts that grows in monolayers, alone, at least 1 ML.
+    """
+    out = []
+    for v in variables or ():
+        if v.key not in ("thickness_ml", "thickness_nm"):
+            continue
+        mono = stack.layers[v.layers[0]].monolayer_nm
+        if mono is None:
+            continue
+        scale = 1.0 if v.key == "thickness_ml" else mono
+        low = max(1, math.ceil(v.low / scale - 1e-9))
+        out.append(FreeThickness(v.name, tuple(v.layers), low, math.floor(v.high / scale + 1e-9)))
+    if out:
+        return out
+    n = len(stack.layers)
+    return [
+        FreeThickness(layer.name, (i,), 1)
+        for i, layer in enumerate(stack.layers)
+        if 0 < i < n - 1 and layer.monolayer_nm is not None
+    ]
+
+
+def neighbourhood(
+    k: int, *, max_candidates: int = RECENTRE_MAX_CANDIDATES
+) -> list[tuple[int, ...]]:
+    """Whole-monolayer moves of ``k`` free thicknesses: every move of at most two monolayers
+    in all (each thickness +-1 or +-2 ML alone, or two of them +-1 ML together).
+
+    That is ``4 k + 2 k (k - 1)`` moves (13 for two free thicknesses, 60 for
+    five): the moves a grower would call "nearby", growing quadratically, not
+    as ``5**k``. Beyond ``max_candidates`` the pairs are dropped first, then
+    the list is cut.
+    """
+    singles, pairs, doubles = [], [], []
+    for j in range(k):
+        for d in (-1, 1):
+            step = [0] * k
+            step[j] = d
+            singles.append(tuple(step))
+            step2 = [0] * k
+            step2[j] = 2 * d
+            doubles.append(tuple(step2))
+        for m in range(j + 1, k):
+            for a in (-1, 1):
+                for b in (-1, 1):
+                    step = [0] * k
+                    step[j], step[m] = a, b
+                    pairs.append(tuple(step))
+    moves = singles + pairs + doubles
+    if len(moves) > max_candidates:
+        moves = singles + doubles
+    return moves[:max_candidates]
+
+
+def _move_label(
+    stack: Stack, free: Sequence[FreeThickness], base: Sequence[float], step: Sequence[int]
+) -> str:
+    """A move in a grower's words: "barrier1 and barrier2 +1 ML (to 6 ML), well -1 ML (to 14 ML)"."""
+    parts = [
+        f"{' and '.join(stack.layers[i].name for i in f.layers)} {d:+d} ML (to {b + d:.0f} ML)"
+        for f, b, d in zip(free, base, step, strict=True)
+        if d
+    ]
+    return ", ".join(parts) or "the nominal rounded to whole monolayers"
+
+
+def recentre(
+    model: GrowthModel,
+    spec: Spec,
+    run: Runner,
+    *,
+    z: np.ndarray,
+    free: Sequence[FreeThickness],
+    nominal_passed: np.ndarray | None = None,
+    screen_share: float = RECENTRE_SCREEN_SHARE,
+    max_candidates: int = RECENTRE_MAX_CANDIDATES,
+) -> dict[str, Any]:
+    """The whole-monolayer design near the nominal with the highest yield under the same spreads.
+
+    Candidates are the :func:`neighbourhood` moves of the ``free`` thicknesses
+    within their bounds (plus the nominal rounded to whole monolayers when a
+    free thickness is fractional). Every candidate is grown from the same
+    coordinates ``z`` (common random numbers: differences between candidates
+    are the designs', not the draws'), at the wafer's centre, as one batch:
+    screened on the first ``screen_share`` of the samples; the best one is
+    then confirmed on the remaining samples, which the choice never saw, so
+    its yield and its gain over the nominal (the same samples) are not
+    flattered by having been picked among many (:func:`paired_gain`).
+
+    Returns ``free`` ({name, layers, nominal_ml, low_ml, high_ml}),
+    ``candidates`` (screen yields, best first: {move, label, screen_yield,
+    meets_spec}), ``budget`` ({candidates, screen_samples, confirm_samples,
+    devices, stacks}), ``design`` (None when no candidate beats the nominal on
+    the screen; else {label, move, thickness_ml, layers}), ``metrics`` and
+    ``spec_check`` of the chosen design without growth errors, ``yield`` and
+    ``nominal_yield`` (:func:`yield_record` on the confirming samples),
+    ``gain`` (:func:`paired_gain`), ``better`` (a measurable gain),
+    ``intervals_overlap`` and ``text`` (one sentence).
+    """
+    z = np.atleast_2d(z)
+    n = z.shape[0]
+    n_screen = min(max(4, int(round(screen_share * n))), n - 1)
+    scale = point_scale(model)
+    if nominal_passed is None:
+        nominal_passed = spec.passes(run(model.grow(z, sigma_scale=scale), desc="nominal"))
+    nominal_passed = np.asarray(nominal_passed, bool)
+    base = [float(np.round(model.nominal_ml[f.layers[0]])) for f in free]
+    fractional = any(
+        abs(model.nominal_ml[i] - round(model.nominal_ml[i])) > 1e-6 for f in free for i in f.layers
+    )
+    moves = ([tuple([0] * len(free))] if fractional else []) + neighbourhood(
+        len(free), max_candidates=max_candidates
+    )
+
+    def allowed(move: tuple[int, ...]) -> bool:
+        for f, b, d in zip(free, base, move, strict=True):
+            v = b + d
+            if v < max(1, f.low_ml) or (f.high_ml is not None and v > f.high_ml):
+                return False
+        return True
+
+    moves = [m for m in moves if allowed(m)]
+    free_rec = [
+        {
+            "name": f.name,
+            "layers": [model.stack.layers[i].name for i in f.layers],
+            "nominal_ml": float(model.nominal_ml[f.layers[0]]),
+            "low_ml": f.low_ml,
+            "high_ml": f.high_ml,
+        }
+        for f in free
+    ]
+    models = [
+        model.with_thickness_ml(
+            {i: b + d for f, b, d in zip(free, base, m, strict=True) for i in f.layers}
+        )
+        for m in moves
+    ]
+    out: dict[str, Any] = {
+        "free": free_rec,
+        "method": (
+            "every whole-monolayer move of at most two monolayers in all (each free "
+            "thickness +-1 or +-2 ML alone, or two of them +-1 ML together) within the "
+            f"study's ranges; screened on {n_screen} as-grown samples, the best confirmed on "
+            f"the other {n - n_screen}; the same random numbers for every design"
+        ),
+        "design": None,
+        "better": False,
+    }
+    if not moves:
+        out.update(
+            candidates=[],
+            budget={
+                "candidates": 0,
+                "screen_samples": 0,
+                "confirm_samples": 0,
+                "devices": 0,
+                "stacks": 0,
+            },
+            text="no whole-monolayer design within two monolayers stays inside the study's ranges",
+        )
+        return out
+    grown = AsGrown.concatenate([m.grow(z[:n_screen], sigma_scale=scale) for m in models])
+    ok = spec.passes(run(grown, desc="re-centre screen")).reshape(len(moves), n_screen)
+    plain = run(LayerTable.concatenate([m.nominal for m in models]), desc="re-centre nominal")
+    meets = spec.passes(plain)
+    screen_yield = ok.mean(axis=1)
+    order = sorted(range(len(moves)), key=lambda c: (-screen_yield[c], sum(map(abs, moves[c]))))
+    out["candidates"] = [
+        {
+            "move": dict(zip([f.name for f in free], map(int, moves[c]), strict=True)),
+            "label": _move_label(model.stack, free, base, moves[c]),
+            "screen_yield": float(screen_yield[c]),
+            "meets_spec": bool(meets[c]),
+        }
+        for c in order
+    ]
+    stacks = grown.table.n_stacks + len(moves)
+    nominal_screen = float(np.mean(nominal_passed[:n_screen]))
+    best = order[0]
+    budget = {
+        "candidates": len(moves),
+        "screen_samples": n_screen,
+        "confirm_samples": n - n_screen,
+        "devices": len(moves) * (n_screen + 1),
+        "stacks": int(stacks),
+    }
+    if screen_yield[best] <= nominal_screen:
+        out["budget"] = budget
+        out["text"] = (
+            f"no whole-monolayer design within two monolayers of the free thicknesses beats the "
+            f"nominal on the screen ({100 * screen_yield[best]:.0f} % at best against "
+            f"{100 * nominal_screen:.0f} %)"
+        )
+        return out
+    chosen = models[best].grow(z[n_screen:], sigma_scale=scale)
+    budget["devices"] += n - n_screen
+    budget["stacks"] += int(chosen.table.n_stacks)
+    ok_new = spec.passes(run(chosen, desc="re-centre confirm"))
+    ok_old = nominal_passed[n_screen:]
+    new_y, old_y = yield_record(ok_new), yield_record(ok_old)
+    gain = paired_gain(ok_new, ok_old)
+    metrics = {k: (None if not np.isfinite(v[best]) else float(v[best])) for k, v in plain.items()}
+    label = _move_label(model.stack, free, base, moves[best])
+    design = {
+        "label": label,
+        "move": out["candidates"][0]["move"],
+        "thickness_ml": {
+            f.name: int(b + d) for f, b, d in zip(free, base, moves[best], strict=True)
+        },
+        "layers": layer_records(models[best].stack),
+    }
+    better = bool(gain["measurable"] and gain["gain"] > 0)
+    verdict = "a measurable gain" if better else "not a measurable gain (within the yield's noise)"
+    out.update(
+        {
+            "budget": budget,
+            "design": design,
+            "metrics": metrics,
+            "spec_check": window_report(spec.windows, metrics),
+            "meets_spec": bool(meets[best]),
+            "yield": new_y,
+            "nominal_yield": old_y,
+            "gain": gain,
+            "better": better,
+            "intervals_overlap": bool(new_y["ci_low"] <= old_y["ci_high"]),
+            "text": (
+                f"re-centre to {label}: yield {100 * new_y['value']:.0f} % "
+                f"({100 * new_y['ci_low']:.0f} to {100 * new_y['ci_high']:.0f} %) against "
+                f"{100 * old_y['value']:.0f} % for the nominal on the same "
+                f"{new_y['samples']} samples, {100 * gain['gain']:+.0f} points: {verdict}"
+            ),
+        }
+    )
+    return out
+
+
+def _advice_recentre(recentred: dict[str, Any] | None) -> tuple[str, str]:
+    if recentred is not None and recentred.get("better"):
+        y = recentred["yield"]
+        return "re-centre", (
+            f"re-centre to {recentred['design']['label']} (yield {100 * y['value']:.0f} %, "
+            f"{100 * y['ci_low']:.0f} to {100 * y['ci_high']:.0f} %)"
+        )
+    if recentred is not None and recentred.get("design") is None and recentred.get("candidates"):
+        return "redesign", (
+            "no whole-monolayer design within two monolayers does better: relax the spec or "
+            "change the design"
+        )
+    if recentred is not None and recentred.get("design") is not None:
+        return "redesign", (
+            f"the best nearby design ({recentred['design']['label']}) gains no measurable "
+            "yield: relax the spec or change the design"
+        )
+    return "redesign", "the design itself must change (relax the spec or search again)"
 
 
 def allocate_tolerances(
@@ -831,8 +1173,11 @@ def allocate_tolerances(
     max_scale: float = 4.0,
     steps: int = 6,
     joint_thickness: bool = True,
+    nominal_passed: np.ndarray | None = None,
+    recentred: dict[str, Any] | None = None,
 ) -> list[dict[str, Any]]:
-    """Largest sigma of each named parameter that still gives ``target_yield``.
+    """Largest sigma of each named parameter that still gives ``target_yield``, and what the
+    grower should do about it.
 
     Bisection on the Monte Carlo yield over a factor ``s`` in ``[0, max_scale]``
     on that parameter's sigma (the others at theirs), with common random
@@ -840,10 +1185,26 @@ def allocate_tolerances(
     changes only through ``s``. With ``joint_thickness`` a last row scales
     every layer's thickness sigma by one common factor (the question "how
     well must the whole growth hold its monolayers?", which a single layer
-    cannot answer when several share the failures). Returns ``{parameter,
-    nominal_sigma, allowed_sigma, unit, yield_at_allowed, note}``;
-    ``allowed_sigma`` is None when even ``s = 0`` misses the target, and
-    ``max_scale * sigma`` (with a note) when the target holds up to there.
+    cannot answer when several share the failures). ``nominal_passed``: the
+    pass/fail of ``z`` at the nominal spreads (computed when None);
+    ``recentred``: the :func:`recentre` record the rows point to when the
+    target is out of reach.
+
+    Returns ``{parameter, nominal_sigma, allowed_sigma, unit, target_yield,
+    yield_nominal, yield_held_exactly, yield_at_allowed, gain, action, advice,
+    note}``; ``allowed_sigma`` is None when even ``s = 0`` misses the target,
+    and ``max_scale * sigma`` when the target holds up to there. Every row
+    carries one ``action`` of :data:`ACTIONS` with its ``advice`` in words:
+
+    - ``keep``: the target holds at the present spread (up to the allowed one);
+    - ``tighten``: the allowed spread reaches the target and the gain over the
+      present spread is measurable (:func:`paired_gain`, which ``gain`` holds);
+    - ``no measurable effect``: the gain from tightening it (to the allowed
+      spread, or holding it exactly when that misses the target) is within the
+      yield's noise, so tightening it is not recommended;
+    - ``re-centre`` / ``redesign``: the target is missed even with it held
+      exactly though it matters; the re-centred design if one does measurably
+      better, else the spec or the design must change.
     """
     names = list(model.names)
     base = point_scale(model)
@@ -852,50 +1213,102 @@ def allocate_tolerances(
     thickness = [j for j, par in enumerate(model.parameters) if par.kind == "thickness"]
     if joint_thickness and len(thickness) > 1:
         groups.append((ALL_THICKNESSES, thickness))
+    if nominal_passed is None:
+        nominal_passed = spec.passes(run(model.grow(z, sigma_scale=base), desc="allocate"))
+    ok_nominal = np.asarray(nominal_passed, bool)
+    y_nominal = float(np.mean(ok_nominal))
+    pct = lambda v: f"{100 * v:.0f} %"  # noqa: E731
     out = []
     for label, idx in groups:
         sig = float(np.max([model.sigmas[j] for j in idx]))
+        unit = model.parameters[idx[0]].unit
 
-        def yield_at(s: float, idx: list[int] = idx, label: str = label) -> float:
+        def passes_at(s: float, idx: list[int] = idx, label: str = label) -> np.ndarray:
             scale = base.copy()
             scale[idx] = s
             metrics = run(model.grow(z, sigma_scale=scale), desc=f"allocate {label}")
-            return float(np.mean(spec.passes(metrics)))
+            return spec.passes(metrics)
 
         rec: dict[str, Any] = {
             "parameter": label,
             "nominal_sigma": sig,
-            "unit": model.parameters[idx[0]].unit,
+            "unit": unit,
             "target_yield": target_yield,
+            "yield_nominal": y_nominal,
+            "yield_held_exactly": None,
+            "gain": None,
             "note": "" if len(idx) == 1 else "every layer's thickness sigma scaled together",
         }
-        y_hi = yield_at(max_scale)
-        if y_hi >= target_yield:
+        ok_hi = passes_at(max_scale)
+        if np.mean(ok_hi) >= target_yield:
+            allowed = max_scale * sig
             rec.update(
-                allowed_sigma=float(max_scale * sig),
-                yield_at_allowed=y_hi,
-                note=f"target met up to {max_scale:g} x the nominal sigma (search bound)",
+                allowed_sigma=float(allowed),
+                yield_at_allowed=float(np.mean(ok_hi)),
+                action="keep",
+                advice=f"no tightening needed: the target holds up to {max_scale:g} x the "
+                f"present spread ({allowed:.3g} {unit}; search bound)",
             )
             out.append(rec)
             continue
-        y_lo = yield_at(0.0)
-        if y_lo < target_yield:
-            rec.update(
-                allowed_sigma=None,
-                yield_at_allowed=y_lo,
-                note="target missed even with this held exactly; other spreads dominate",
-            )
+        ok_lo = passes_at(0.0)
+        rec["yield_held_exactly"] = float(np.mean(ok_lo))
+        if np.mean(ok_lo) < target_yield:
+            gain = paired_gain(ok_lo, ok_nominal)
+            rec.update(allowed_sigma=None, yield_at_allowed=float(np.mean(ok_lo)), gain=gain)
+            if not gain["measurable"]:
+                rec.update(
+                    action="no measurable effect",
+                    advice=f"no measurable effect: holding it exactly changes the yield by "
+                    f"{100 * gain['gain']:+.1f} points, within the yield's noise "
+                    f"(+-{100 * gain['yield_half_width']:.1f}); do not tighten it",
+                )
+            else:
+                action, what = _advice_recentre(recentred)
+                why = (
+                    "target missed even with this held exactly"
+                    if gain["gain"] > 0
+                    else "holding this exactly lowers the yield (the nominal misses the spec "
+                    "and the spread carries some samples into it)"
+                )
+                rec.update(
+                    action=action,
+                    advice=f"{why} (yield {pct(np.mean(ok_lo))} against {pct(y_nominal)}); {what}",
+                )
             out.append(rec)
             continue
-        lo, hi, y_best = 0.0, max_scale, y_lo
+        lo, hi, ok_best = 0.0, max_scale, ok_lo
         for _ in range(steps):
             mid = 0.5 * (lo + hi)
-            y = yield_at(mid)
-            if y >= target_yield:
-                lo, y_best = mid, y
+            ok_mid = passes_at(mid)
+            if np.mean(ok_mid) >= target_yield:
+                lo, ok_best = mid, ok_mid
             else:
                 hi = mid
-        rec.update(allowed_sigma=float(lo * sig), yield_at_allowed=y_best)
+        allowed = lo * sig
+        rec.update(allowed_sigma=float(allowed), yield_at_allowed=float(np.mean(ok_best)))
+        if lo >= 1.0:
+            rec.update(
+                action="keep",
+                advice=f"no tightening needed: the target holds up to {allowed:.3g} {unit}",
+            )
+        else:
+            gain = paired_gain(ok_best, ok_nominal)
+            rec["gain"] = gain
+            if gain["measurable"] and gain["gain"] > 0:
+                rec.update(
+                    action="tighten",
+                    advice=f"tighten from {sig:.3g} to {allowed:.3g} {unit}: yield "
+                    f"{pct(np.mean(ok_best))} ({100 * gain['gain']:+.0f} points, paired "
+                    f"p = {gain['p_value']:.2g})",
+                )
+            else:
+                rec.update(
+                    action="no measurable effect",
+                    advice=f"no measurable effect: tightening it to {allowed:.3g} {unit} changes "
+                    f"the yield by {100 * gain['gain']:+.1f} points, within the yield's noise "
+                    f"(+-{100 * gain['yield_half_width']:.1f}); do not tighten it",
+                )
         out.append(rec)
     return out
 
@@ -984,6 +1397,8 @@ def run_tolerance(
     figures: bool = True,
     second_order: bool = False,
     island_checks: int = 4,
+    variables: Sequence[Any] | None = None,
+    recentring: bool = True,
 ) -> dict[str, Any]:
     """The whole tolerance analysis of one design; optionally writes ``out_dir``.
 
@@ -996,7 +1411,12 @@ def run_tolerance(
     screening with ``max(2, samples // (n_params + 1))`` trajectories) or
     ``sobol`` (adds Sobol indices with the largest power of two
     ``<= samples // (n_params + 2)`` base samples, at least 8). The allocation
-    reuses the first :data:`ALLOCATION_SAMPLES` Monte Carlo samples.
+    reuses the first :data:`ALLOCATION_SAMPLES` Monte Carlo samples. When the
+    yield at the centre is below ``target_yield`` (and ``recentring``), the
+    whole-monolayer design nearby with the highest yield under the same
+    spreads is looked for on the same samples (:func:`recentre`, moving the
+    study's thickness ``variables``, see :func:`free_thicknesses`), and the
+    allocation rows point to it.
 
     The record (``tolerance.json``): ``yield`` {value, ci_low, ci_high,
     samples, passed, confidence} (at the wafer's centre); with
@@ -1016,7 +1436,12 @@ def run_tolerance(
     ``evaluations`` used and the ``budget``) and ``ranking_resolved`` (None for
     ``mc``); ``nominal`` metrics; ``valley_bounded_by_sweep``
     (:func:`valley_bounded_record`: nominal and Monte Carlo valleys not reached even
-    beyond the sweep end, whose figures are bounds); ``spec``; ``settings``; ``notes``. The Sobol
+    beyond the sweep end, whose figures are bounds); ``nominal_check`` (the nominal
+    design against each window,
+    :func:`wellwright.optimize.study.targets.window_report`) and ``nominal_misses``
+    (the texts of the windows it misses, by how much); ``recentre``
+    (:func:`recentre`, None when the target yield is met or nothing can move);
+    ``spec``; ``settings``; ``notes``. The Sobol
     design starts at :data:`SOBOL_START_BASE` base samples and doubles until
     the leader of pass/fail is separated from the runner-up beyond their
     confidence intervals or the budget is spent.
@@ -1062,6 +1487,13 @@ def run_tolerance(
             "current is an upper bound and valley voltage, PVCR, peak-to-valley differences "
             "and output power lower bounds (spreads and indices of these figures include "
             "bounds): raise the sweep's end bias"
+        )
+    record["nominal_check"] = window_report(spec.windows, tor["nominal"])
+    record["nominal_misses"] = [r["text"] for r in record["nominal_check"] if not r["inside"]]
+    if record["nominal_misses"]:
+        notes.append(
+            "the nominal design (no growth error) misses the spec: "
+            + "; ".join(record["nominal_misses"])
         )
     record["tornado"] = tor["layers"]
     islands = tor["islands"]
@@ -1139,14 +1571,28 @@ def run_tolerance(
         scores = {r["parameter"]: r["mu_star"] for r in record["morris"]["pass"]}
         measure = "Morris mu* of pass/fail"
     record["control_order"] = control_order(model, scores, measure)
+    z_alloc = mc["z"][:ALLOCATION_SAMPLES]
+    nominal_passed = mc["passed"][:ALLOCATION_SAMPLES]
+    record["recentre"] = None
+    if recentring and mc["yield"]["value"] < target_yield and z_alloc.shape[0] >= 8:
+        free = free_thicknesses(model.stack, variables)
+        if free:
+            record["recentre"] = recentre(
+                model, spec, run, z=z_alloc, free=free, nominal_passed=nominal_passed
+            )
+            notes.append(
+                f"yield below the target {100 * target_yield:.0f} %: " + record["recentre"]["text"]
+            )
     if allocate > 0 and d:
         record["allocation"] = allocate_tolerances(
             model,
             spec,
             run,
             parameters=[p for p in ranking_source if p != WAFER_PARAMETER][:allocate],
-            z=mc["z"][:ALLOCATION_SAMPLES],
+            z=z_alloc,
             target_yield=target_yield,
+            nominal_passed=nominal_passed,
+            recentred=record["recentre"],
         )
     else:
         record["allocation"] = []
@@ -1160,11 +1606,49 @@ def run_tolerance(
         "bias_max_v": float(run.bias_v[-1]),
         "seed": seed if isinstance(seed, int) else None,
         "target_yield": target_yield,
+        "allocation_samples": int(z_alloc.shape[0]),
+        "recentre_budget": None if record["recentre"] is None else record["recentre"]["budget"],
     }
     record["notes"] = notes
     if out_dir is not None:
         write_outputs(record, mc, Path(out_dir), figures=figures)
     return record
+
+
+#: Columns of ``allocation.csv`` (the report's copy uses the same).
+ALLOCATION_HEADER = [
+    "parameter",
+    "unit",
+    "nominal_sigma",
+    "allowed_sigma",
+    "yield_nominal",
+    "yield_held_exactly",
+    "yield_at_allowed",
+    "gain",
+    "p_value",
+    "action",
+    "advice",
+    "note",
+]
+
+
+def allocation_row(a: dict[str, Any]) -> list[Any]:
+    """One row of ``allocation.csv`` from an allocation record (:data:`ALLOCATION_HEADER`)."""
+    gain = a.get("gain") or {}
+    return [
+        a["parameter"],
+        a["unit"],
+        a["nominal_sigma"],
+        a["allowed_sigma"],
+        a.get("yield_nominal"),
+        a.get("yield_held_exactly"),
+        a.get("yield_at_allowed"),
+        gain.get("gain"),
+        gain.get("p_value"),
+        a.get("action", ""),
+        a.get("advice", ""),
+        a["note"],
+    ]
 
 
 def write_outputs(
@@ -1218,18 +1702,8 @@ def write_outputs(
     files["allocation_csv"] = str(
         write_csv(
             out / "allocation.csv",
-            ["parameter", "unit", "nominal_sigma", "allowed_sigma", "yield_at_allowed", "note"],
-            (
-                [
-                    a["parameter"],
-                    a["unit"],
-                    a["nominal_sigma"],
-                    a["allowed_sigma"],
-                    a["yield_at_allowed"],
-                    a["note"],
-                ]
-                for a in record["allocation"]
-            ),
+            ALLOCATION_HEADER,
+            (allocation_row(a) for a in record["allocation"]),
         )
     )
     if figures:
