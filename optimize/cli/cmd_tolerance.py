@@ -273,10 +273,14 @@ def run(args: argparse.Namespace) -> int:
                 f"{c['control']} ({', '.join(c['parameters'])})" for c in rec["control_order"][:3]
             )
         )
+    for text in rec.get("nominal_misses", []):
+        print(f"the nominal design misses the spec: {text}")
+    recentred = rec.get("recentre")
+    if recentred is not None:
+        print(f"re-centring: {recentred['text']}")
     for a in rec["allocation"]:
-        allowed = "-" if a["allowed_sigma"] is None else f"{a['allowed_sigma']:.3g} {a['unit']}"
         print(
-            f"allocation {a['parameter']}: sigma {a['nominal_sigma']:.3g} -> allowed {allowed} {a['note']}"
+            f"allocation {a['parameter']} (sigma {a['nominal_sigma']:.3g} {a['unit']}): {a['advice']}"
         )
     for note in rec["notes"]:
         print(f"note: {note}")

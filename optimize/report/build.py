@@ -556,6 +556,85 @@ def _control_html(record: dict[str, Any], files: Path, tag: str) -> str:
     )
 
 
+def _allocation_html(record: dict[str, Any], files: Path, tag: str) -> str:
+    """The nominal design against the spec, the re-centred design when the target yield is out
+    of reach, and the allocation: one thing to do per row (``allocation``, ``recentre``)."""
+    from wellwright.optimize.search.designs import GROWTH_SHEET_HEADER, growth_sheet_rows
+    from wellwright.optimize.tolerance.analysis import ALLOCATION_HEADER, allocation_row
+
+    body = []
+    misses = record.get("nominal_misses") or []
+    if misses:
+        body.append(
+            "<p><b>The nominal design misses the spec</b> even without growth errors: "
+            + _esc("; ".join(misses))
+            + ".</p>"
+        )
+    elif record.get("nominal_check"):
+        close = min(record["nominal_check"], key=lambda c: c["margin"] / (abs(c["bound"]) or 1.0))
+        body.append(
+            "<p>The nominal design meets every window of the spec; the closest: "
+            + _esc(close["text"])
+            + ".</p>"
+        )
+    rc = record.get("recentre")
+    if rc is not None:
+        budget = rc["budget"]
+        body.append(
+            "<p><b>Re-centring</b> (the yield is below the target): "
+            + _esc(rc["text"])
+            + ".</p>"
+            + f'<p class="small">Searched: {_esc(rc["method"])}; {budget["candidates"]} '
+            f"designs, {budget['devices']} as-grown devices ({budget['stacks']} stacks). The "
+            "gain is judged by "
+            + _esc(rc["gain"]["test"] if rc.get("gain") else "the screen")
+            + ".</p>"
+        )
+        if rc.get("design") is not None:
+            sheet = growth_sheet_rows(rc["design"])
+            write_csv(files / f"growth_sheet_recentred_{tag}.csv", GROWTH_SHEET_HEADER, sheet)
+            check = "; ".join(c["text"] for c in rc.get("spec_check", []))
+            body.append(
+                "<p>Growth sheet of the re-centred design "
+                f"({'meets' if rc.get('meets_spec') else 'misses'} the spec without growth "
+                f"errors: {_esc(check)}):</p>"
+                + _table(
+                    ["layer", "material", "monolayers", "nm", "doping (cm⁻³)", "note"],
+                    [[row[1], row[2], row[4], row[5], row[6], row[7]] for row in sheet],
+                )
+            )
+    alloc = record.get("allocation", [])
+    write_csv(
+        files / f"allocation_{tag}.csv", ALLOCATION_HEADER, [allocation_row(a) for a in alloc]
+    )
+    arows = [
+        [
+            _esc(names.parameter_words(a["parameter"])),
+            f"{a['nominal_sigma']:.3g} {_esc(a['unit'])}",
+            "-" if a["allowed_sigma"] is None else f"{a['allowed_sigma']:.3g} {_esc(a['unit'])}",
+            _num(a.get("yield_at_allowed"), 100, ".0f") + " %",
+            _esc(a.get("advice") or a["note"] or ""),
+        ]
+        for a in alloc
+    ]
+    ty = alloc[0]["target_yield"] if alloc else record.get("settings", {}).get("target_yield", 0.9)
+    body.append(
+        f"<p><b>Tolerance allocation</b>: the largest one-sigma spread of each "
+        f"top-ranked parameter that still keeps {100 * ty:.0f} % yield, the others at "
+        "their nominal spreads (bisection with common random numbers). A parameter is "
+        "recommended for tightening only when the gain is measurable: an exact McNemar test "
+        "on the paired samples (Q. McNemar, Psychometrika 12, 153 (1947)) and a gain beyond "
+        "the half-width of the yield's own interval; otherwise it has no measurable "
+        "effect.</p>"
+    )
+    body.append(
+        _table(["parameter", "nominal sigma", "allowed sigma", "yield there", "what to do"], arows)
+        if arows
+        else '<p class="small">No allocation in this run.</p>'
+    )
+    return "".join(body)
+
+
 def _growth(
     records: list[dict], figs: _Figures, files: Path, run_dir: Path, tol_dirs: list[Path]
 ) -> tuple[str, list[dict]]:
@@ -683,44 +762,7 @@ def _growth(
                 )
             )
         alloc = r.get("allocation", [])
-        arows = [
-            [
-                _esc(a["parameter"]),
-                f"{a['nominal_sigma']:.3g} {_esc(a['unit'])}",
-                "-"
-                if a["allowed_sigma"] is None
-                else f"{a['allowed_sigma']:.3g} {_esc(a['unit'])}",
-                _num(a.get("yield_at_allowed"), 100, ".0f") + " %",
-                _esc(a["note"] or ""),
-            ]
-            for a in alloc
-        ]
-        write_csv(
-            files / f"allocation_{tag}.csv",
-            ["parameter", "unit", "nominal_sigma", "allowed_sigma", "yield_at_allowed", "note"],
-            [
-                [
-                    a["parameter"],
-                    a["unit"],
-                    a["nominal_sigma"],
-                    a["allowed_sigma"],
-                    a.get("yield_at_allowed"),
-                    a["note"],
-                ]
-                for a in alloc
-            ],
-        )
-        ty = alloc[0]["target_yield"] if alloc else r.get("settings", {}).get("target_yield", 0.9)
-        body.append(
-            f"<p><b>Tolerance allocation</b>: the largest one-sigma spread of each "
-            f"top-ranked parameter that still keeps {100 * ty:.0f} % yield, the others at "
-            "their nominal spreads (bisection with common random numbers).</p>"
-        )
-        body.append(
-            _table(["parameter", "nominal sigma", "allowed sigma", "yield there", "note"], arows)
-            if arows
-            else '<p class="small">No allocation in this run.</p>'
-        )
+        body.append(_allocation_html(r, files, tag))
         notes = r.get("notes", [])
         if notes:
             body.append('<p class="small">Notes: ' + _esc("; ".join(notes)) + "</p>")

@@ -1490,11 +1490,6 @@ def run_tolerance(
         )
     record["nominal_check"] = window_report(spec.windows, tor["nominal"])
     record["nominal_misses"] = [r["text"] for r in record["nominal_check"] if not r["inside"]]
-    if record["nominal_misses"]:
-        notes.append(
-            "the nominal design (no growth error) misses the spec: "
-            + "; ".join(record["nominal_misses"])
-        )
     record["tornado"] = tor["layers"]
     islands = tor["islands"]
     if islands["continuous_layers"] and island_checks > 0:
@@ -1579,9 +1574,6 @@ def run_tolerance(
         if free:
             record["recentre"] = recentre(
                 model, spec, run, z=z_alloc, free=free, nominal_passed=nominal_passed
-            )
-            notes.append(
-                f"yield below the target {100 * target_yield:.0f} %: " + record["recentre"]["text"]
             )
     if allocate > 0 and d:
         record["allocation"] = allocate_tolerances(
