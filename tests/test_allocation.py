@@ -145,8 +145,8 @@ def test_neighbourhood_counts_every_move_of_at_most_two_monolayers():
 
 
 def test_free_thicknesses_follow_the_study_ranges(stack):
-    # the study's thickness ranges in whole monolayers (tied layers together); without
-    # any, every layer between the contacts alone
+    # the study's thickness ranges in whole monolayers (tied layers together); without a
+    # study, every layer between the contacts alone
     mono = stack.layers[5].monolayer_nm
     variables = [
         Variable("barrier1.thickness_ml", "thickness_ml", (2, 4), 4, 8, 1, False, True),
@@ -155,6 +155,7 @@ def test_free_thicknesses_follow_the_study_ranges(stack):
     ]
     free = free_thicknesses(stack, variables)
     assert [f.name for f in free] == ["barrier1.thickness_ml", "collector_spacer.thickness_nm"]
+    assert free_thicknesses(stack, variables[2:]) == []  # a study that varies no thickness
     assert free[0].layers == (2, 4) and (free[0].low_ml, free[0].high_ml) == (4, 8)
     assert free[1].low_ml == math.ceil(3.0 / mono) and free[1].high_ml == math.floor(6.0 / mono)
     every = free_thicknesses(stack)

@@ -556,7 +556,9 @@ def _control_html(record: dict[str, Any], files: Path, tag: str) -> str:
     )
 
 
-def _allocation_html(record: dict[str, Any], files: Path, tag: str) -> str:
+def _allocation_html(
+    record: dict[str, Any], files: Path, tag: str, figs: _Figures, tdir: Path
+) -> str:
     """The nominal design against the spec, the re-centred design when the target yield is out
     of reach, and the allocation: one thing to do per row (``allocation``, ``recentre``)."""
     from wellwright.optimize.search.designs import GROWTH_SHEET_HEADER, growth_sheet_rows
@@ -590,6 +592,17 @@ def _allocation_html(record: dict[str, Any], files: Path, tag: str) -> str:
             + _esc(rc["gain"]["test"] if rc.get("gain") else "the screen")
             + ".</p>"
         )
+        if figs.add_file(tdir / "recentre.png", f"{tag}_recentre.png") is not None:
+            body.append(
+                figs.html(
+                    f"{tag}_recentre.png",
+                    "Re-centring: the yield of each whole-monolayer design near the nominal on "
+                    "the screening samples (left; green: meets the spec without growth "
+                    "errors), and the chosen design's yield against the nominal's on samples "
+                    "the choice never saw, with 95 % Wilson intervals (right).",
+                    "re-centring",
+                )
+            )
         if rc.get("design") is not None:
             sheet = growth_sheet_rows(rc["design"])
             write_csv(files / f"growth_sheet_recentred_{tag}.csv", GROWTH_SHEET_HEADER, sheet)
@@ -762,7 +775,7 @@ def _growth(
                 )
             )
         alloc = r.get("allocation", [])
-        body.append(_allocation_html(r, files, tag))
+        body.append(_allocation_html(r, files, tag, figs, tdir))
         notes = r.get("notes", [])
         if notes:
             body.append('<p class="small">Notes: ' + _esc("; ".join(notes)) + "</p>")

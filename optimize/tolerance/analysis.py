@@ -904,8 +904,9 @@ def free_thicknesses(stack: Stack, variables: Sequence[Any] | None = None) -> li
 
     ``variables`` (:class:`wellwright.optimize.study.space.Variable`): the
     study's ``thickness_ml`` and ``thickness_nm`` ranges, with their bounds in
-    whole monolayers of the first layer they set. Without any, every layer
-    between the contacts that grows in monolayers, alone, at least 1 ML.
+    whole monolayers of the first layer they set (none when the study varies
+    no thickness). ``None`` (no study): every layer between the contacts that
+    grows in monolayers, alone, at least 1 ML.
     """
     out = []
     for v in variables or ():
@@ -917,7 +918,7 @@ def free_thicknesses(stack: Stack, variables: Sequence[Any] | None = None) -> li
         scale = 1.0 if v.key == "thickness_ml" else mono
         low = max(1, math.ceil(v.low / scale - 1e-9))
         out.append(FreeThickness(v.name, tuple(v.layers), low, math.floor(v.high / scale + 1e-9)))
-    if out:
+    if variables is not None:
         return out
     n = len(stack.layers)
     return [
@@ -996,7 +997,7 @@ def recentre(
 
     Returns ``free`` ({name, layers, nominal_ml, low_ml, high_ml}),
     ``candidates`` (screen yields, best first: {move, label, screen_yield,
-    meets_spec}), ``budget`` ({candidates, screen_samples, confirm_samples,
+    meets_spec}), ``nominal_screen_yield``, ``budget`` ({candidates, screen_samples, confirm_samples,
     devices, stacks}), ``design`` (None when no candidate beats the nominal on
     the screen; else {label, move, thickness_ml, layers}), ``metrics`` and
     ``spec_check`` of the chosen design without growth errors, ``yield`` and
@@ -1084,6 +1085,7 @@ def recentre(
     ]
     stacks = grown.table.n_stacks + len(moves)
     nominal_screen = float(np.mean(nominal_passed[:n_screen]))
+    out["nominal_screen_yield"] = nominal_screen
     best = order[0]
     budget = {
         "candidates": len(moves),
@@ -1412,7 +1414,8 @@ def run_tolerance(
     ``sobol`` (adds Sobol indices with the largest power of two
     ``<= samples // (n_params + 2)`` base samples, at least 8). The allocation
     reuses the first :data:`ALLOCATION_SAMPLES` Monte Carlo samples. When the
-    yield at the centre is below ``target_yield`` (and ``recentring``), the
+    yield at the centre is below ``target_yield`` (with ``recentring`` and an
+    allocation asked for, ``allocate`` > 0), the
     whole-monolayer design nearby with the highest yield under the same
     spreads is looked for on the same samples (:func:`recentre`, moving the
     study's thickness ``variables``, see :func:`free_thicknesses`), and the
@@ -1569,7 +1572,12 @@ def run_tolerance(
     z_alloc = mc["z"][:ALLOCATION_SAMPLES]
     nominal_passed = mc["passed"][:ALLOCATION_SAMPLES]
     record["recentre"] = None
-    if recentring and mc["yield"]["value"] < target_yield and z_alloc.shape[0] >= 8:
+    if (
+        recentring
+        and allocate > 0
+        and mc["yield"]["value"] < target_yield
+        and z_alloc.shape[0] >= 8
+    ):
         free = free_thicknesses(model.stack, variables)
         if free:
             record["recentre"] = recentre(

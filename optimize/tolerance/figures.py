@@ -1,4 +1,5 @@
-"""Figures of a tolerance analysis: histograms with the spec window, Sobol bars, tornado, wafer map.
+"""Figures of a tolerance analysis: histograms with the spec window, Sobol bars, tornado, wafer
+map, re-centring.
 
 Colours: the Okabe-Ito colour-blind-safe palette (M. Okabe and K. Ito,
 "Color Universal Design", 2002; hex values from memory). Units are the
@@ -15,7 +16,7 @@ import numpy as np
 from wellwright.optimize.shared import names
 from wellwright.optimize.shared.figures import PALETTE
 
-__all__ = ["save_all", "save_wafer_map", "OKABE_ITO"]
+__all__ = ["save_all", "save_wafer_map", "save_recentre", "OKABE_ITO"]
 
 OKABE_ITO = PALETTE  # one palette for every figure: wellwright.optimize.shared.figures.PALETTE
 
@@ -281,6 +282,71 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
     return save_figure(fig, path)
 
 
+def save_recentre(record: dict[str, Any], path: Path, *, shown: int = 12) -> Path | None:
+    """The re-centring: yield of each nearby whole-monolayer design on the screening samples
+    (best first, the nominal's as a line), and the chosen one's yield with its 95 % Wilson
+    interval on the samples the choice never saw, beside the nominal's on the same samples."""
+    from wellwright.optimize.shared.outputs import save_figure
+
+    rc = record.get("recentre")
+    if not rc or not rc.get("candidates"):
+        return None
+    plt = _plt()
+    cands = rc["candidates"][:shown][::-1]
+    fig, (ax, bx) = plt.subplots(
+        1, 2, figsize=(10.5, 0.9 + 0.32 * len(cands)), gridspec_kw={"width_ratios": [3, 1.2]}
+    )
+    y = np.arange(len(cands))
+    colours = [OKABE_ITO["green"] if c["meets_spec"] else OKABE_ITO["sky"] for c in cands]
+    ax.barh(y, [100 * c["screen_yield"] for c in cands], color=colours, edgecolor="none")
+    for k, c in enumerate(cands):
+        v = 100 * c["screen_yield"]
+        ax.text(v + 1, k, f"{v:.0f} %", va="center", fontsize=7)
+    ax.set_yticks(y, [c["label"] for c in cands], fontsize=8)
+    chosen = (rc.get("design") or {}).get("label")
+    for tick in ax.get_yticklabels():
+        if tick.get_text() == chosen:
+            tick.set_fontweight("bold")
+    ax.axvline(
+        100 * rc["nominal_screen_yield"], color=OKABE_ITO["black"], lw=1.2, label="nominal design"
+    )
+    ax.set_xlim(0, 100)
+    ax.set_xlabel(f"yield on the {rc['budget']['screen_samples']} screening samples (%)")
+    from matplotlib.patches import Patch
+
+    ax.legend(
+        handles=[
+            ax.get_lines()[0],
+            Patch(color=OKABE_ITO["green"], label="meets the spec without growth errors"),
+            Patch(color=OKABE_ITO["sky"], label="misses it without growth errors"),
+        ],
+        fontsize=7,
+        loc="lower right",
+    )
+    total = rc["budget"]["candidates"]
+    which = f"all {total}" if len(cands) == total else f"best {len(cands)} of {total}"
+    ax.set_title(f"nearby designs ({which}; chosen in bold)", fontsize=9)
+    if rc.get("design") is not None:
+        pts = [("nominal", rc["nominal_yield"]), ("re-centred", rc["yield"])]
+        for k, (_, rec) in enumerate(pts):
+            v = 100 * rec["value"]
+            err = [[max(v - 100 * rec["ci_low"], 0.0)], [max(100 * rec["ci_high"] - v, 0.0)]]
+            colour = OKABE_ITO["black"] if k == 0 else OKABE_ITO["vermillion"]
+            bx.errorbar([k], [v], yerr=err, fmt="o", color=colour, capsize=4)
+        bx.set_xticks([0, 1], [p[0] for p in pts])
+        bx.set_xlim(-0.6, 1.6)
+        bx.set_ylim(0, 100)
+        bx.set_ylabel(f"yield on {rc['yield']['samples']} unseen samples (%)")
+        verdict = "measurable gain" if rc.get("better") else "gain within the noise"
+        bx.set_title(f"{100 * rc['gain']['gain']:+.0f} points: {verdict}", fontsize=9)
+    else:
+        bx.axis("off")
+        bx.text(0.5, 0.5, "no nearby design\nbeats the nominal", ha="center", va="center")
+    fig.suptitle("Re-centring: whole-monolayer designs near the nominal, same growth spreads")
+    fig.tight_layout()
+    return save_figure(fig, path)
+
+
 def save_all(record: dict[str, Any], mc: dict[str, Any], out: Path) -> dict[str, str]:
     """Every tolerance figure the record supports; returns their paths by name.
 
@@ -294,6 +360,9 @@ def save_all(record: dict[str, Any], mc: dict[str, Any], out: Path) -> dict[str,
         Output folder.
     """
     files = {"histograms": str(save_histograms(record, mc, out / "histograms.png"))}
+    p = save_recentre(record, out / "recentre.png")
+    if p is not None:
+        files["recentre"] = str(p)
     p = save_wafer_map(record, out / "wafer_map.png")
     if p is not None:
         files["wafer_map"] = str(p)
