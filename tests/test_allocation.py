@@ -325,3 +325,18 @@ def test_no_recentring_when_the_target_yield_is_met(stack):
     assert rec["yield"]["value"] >= 0.5 and rec["recentre"] is None
     assert not rec["nominal_misses"]
     assert all(r["action"] == "keep" for r in rec["allocation"])
+
+
+def test_spec_depth_is_the_distance_to_the_nearer_bound_in_window_scales():
+    # definition (analysis.spec_depth), arithmetic: Jp window 100 to 300 kA/cm² (scale 100),
+    # PVCR >= 5 (scale 5)
+    from wellwright.optimize.tolerance.analysis import spec_depth
+
+    spec = Spec((("peak_current_density_a_cm2", 1e5, 3e5), ("pvcr", 5.0, math.inf)))
+    m = {
+        "peak_current_density_a_cm2": np.array([2.5e5, 2e5, 3.5e5, np.nan]),
+        "pvcr": np.array([9.0, 6.0, 20.0, 9.0]),
+    }
+    d = spec_depth(spec, m)
+    assert d[:3] == pytest.approx([0.5, 0.2, -0.5])
+    assert d[3] == -np.inf

@@ -603,7 +603,7 @@ def _allocation_html(
                     "re-centring",
                 )
             )
-        if rc.get("design") is not None:
+        if rc.get("better"):  # a growth sheet only for a design worth growing
             sheet = growth_sheet_rows(rc["design"])
             write_csv(files / f"growth_sheet_recentred_{tag}.csv", GROWTH_SHEET_HEADER, sheet)
             check = "; ".join(c["text"] for c in rc.get("spec_check", []))

@@ -70,6 +70,7 @@ __all__ = [
     "free_thicknesses",
     "neighbourhood",
     "recentre",
+    "spec_depth",
     "choose_island_layers",
     "with_island_layers",
     "island_truncation_error",
@@ -960,6 +961,27 @@ def neighbourhood(
     return moves[:max_candidates]
 
 
+def spec_depth(spec: Spec, metrics: dict[str, np.ndarray]) -> np.ndarray:
+    """How deep each design sits inside the spec: the smallest, over the windows, of its
+    distance to the nearer bound in units of the window's scale (half the width of a
+    two-sided window, the bound's magnitude for a one-sided one; negative outside, -inf
+    for NaN). Breaks ties between equal yields: the deeper design has more room for growth
+    errors (common practice)."""
+    n = len(next(iter(metrics.values())))
+    depth = np.full(n, np.inf)
+    for name, lo, hi in spec.windows:
+        if math.isfinite(lo) and math.isfinite(hi):
+            scale = 0.5 * (hi - lo)
+        else:
+            bound = lo if math.isfinite(lo) else hi
+            scale = abs(bound) or 1.0
+        v = np.asarray(metrics[name], float)
+        with np.errstate(invalid="ignore"):
+            d = np.minimum(v - lo, hi - v) / scale
+        depth = np.minimum(depth, np.where(np.isnan(v), -np.inf, d))
+    return depth
+
+
 def _move_label(
     stack: Stack, free: Sequence[FreeThickness], base: Sequence[float], step: Sequence[int]
 ) -> str:
@@ -997,7 +1019,8 @@ def recentre(
 
     Returns ``free`` ({name, layers, nominal_ml, low_ml, high_ml}),
     ``candidates`` (screen yields, best first: {move, label, screen_yield,
-    meets_spec}), ``nominal_screen_yield``, ``budget`` ({candidates, screen_samples, confirm_samples,
+    meets_spec, depth}; equal yields ordered by :func:`spec_depth`, then by the
+    smaller move), ``nominal_screen_yield``, ``budget`` ({candidates, screen_samples, confirm_samples,
     devices, stacks}), ``design`` (None when no candidate beats the nominal on
     the screen; else {label, move, thickness_ml, layers}), ``metrics`` and
     ``spec_check`` of the chosen design without growth errors, ``yield`` and
@@ -1070,20 +1093,27 @@ def recentre(
         return out
     grown = AsGrown.concatenate([m.grow(z[:n_screen], sigma_scale=scale) for m in models])
     ok = spec.passes(run(grown, desc="re-centre screen")).reshape(len(moves), n_screen)
-    plain = run(LayerTable.concatenate([m.nominal for m in models]), desc="re-centre nominal")
+    plain = run(
+        LayerTable.concatenate([m.nominal for m in [*models, model]]), desc="re-centre nominal"
+    )
     meets = spec.passes(plain)
+    depth = spec_depth(spec, plain)  # last entry: the nominal itself
     screen_yield = ok.mean(axis=1)
-    order = sorted(range(len(moves)), key=lambda c: (-screen_yield[c], sum(map(abs, moves[c]))))
+    order = sorted(
+        range(len(moves)),
+        key=lambda c: (-screen_yield[c], -depth[c], sum(map(abs, moves[c]))),
+    )
     out["candidates"] = [
         {
             "move": dict(zip([f.name for f in free], map(int, moves[c]), strict=True)),
             "label": _move_label(model.stack, free, base, moves[c]),
             "screen_yield": float(screen_yield[c]),
             "meets_spec": bool(meets[c]),
+            "depth": float(depth[c]),
         }
         for c in order
     ]
-    stacks = grown.table.n_stacks + len(moves)
+    stacks = grown.table.n_stacks + len(moves) + 1
     nominal_screen = float(np.mean(nominal_passed[:n_screen]))
     out["nominal_screen_yield"] = nominal_screen
     best = order[0]
@@ -1091,15 +1121,19 @@ def recentre(
         "candidates": len(moves),
         "screen_samples": n_screen,
         "confirm_samples": n - n_screen,
-        "devices": len(moves) * (n_screen + 1),
+        "devices": len(moves) * (n_screen + 1) + 1,
         "stacks": int(stacks),
     }
-    if screen_yield[best] <= nominal_screen:
+    # a tie on the screen (few samples, or every design passing) goes to the design deeper
+    # inside the spec windows
+    if screen_yield[best] < nominal_screen or (
+        screen_yield[best] == nominal_screen and depth[best] <= depth[-1]
+    ):
         out["budget"] = budget
         out["text"] = (
             f"no whole-monolayer design within two monolayers of the free thicknesses beats the "
             f"nominal on the screen ({100 * screen_yield[best]:.0f} % at best against "
-            f"{100 * nominal_screen:.0f} %)"
+            f"{100 * nominal_screen:.0f} %, none deeper inside the spec at equal yield)"
         )
         return out
     chosen = models[best].grow(z[n_screen:], sigma_scale=scale)
@@ -1134,10 +1168,16 @@ def recentre(
             "better": better,
             "intervals_overlap": bool(new_y["ci_low"] <= old_y["ci_high"]),
             "text": (
-                f"re-centre to {label}: yield {100 * new_y['value']:.0f} % "
+                (
+                    f"re-centre to {label}: yield "
+                    if better
+                    else f"the best nearby design ({label}) yields "
+                )
+                + f"{100 * new_y['value']:.0f} % "
                 f"({100 * new_y['ci_low']:.0f} to {100 * new_y['ci_high']:.0f} %) against "
                 f"{100 * old_y['value']:.0f} % for the nominal on the same "
                 f"{new_y['samples']} samples, {100 * gain['gain']:+.0f} points: {verdict}"
+                + ("" if better else "; keep the nominal")
             ),
         }
     )

@@ -294,7 +294,7 @@ def save_recentre(record: dict[str, Any], path: Path, *, shown: int = 12) -> Pat
     plt = _plt()
     cands = rc["candidates"][:shown][::-1]
     fig, (ax, bx) = plt.subplots(
-        1, 2, figsize=(10.5, 0.9 + 0.32 * len(cands)), gridspec_kw={"width_ratios": [3, 1.2]}
+        1, 2, figsize=(11.5, 1.4 + 0.32 * len(cands)), gridspec_kw={"width_ratios": [3, 1.4]}
     )
     y = np.arange(len(cands))
     colours = [OKABE_ITO["green"] if c["meets_spec"] else OKABE_ITO["sky"] for c in cands]
@@ -307,10 +307,16 @@ def save_recentre(record: dict[str, Any], path: Path, *, shown: int = 12) -> Pat
     for tick in ax.get_yticklabels():
         if tick.get_text() == chosen:
             tick.set_fontweight("bold")
+    nominal = 100 * rc["nominal_screen_yield"]
     ax.axvline(
-        100 * rc["nominal_screen_yield"], color=OKABE_ITO["black"], lw=1.2, label="nominal design"
+        nominal,
+        color=OKABE_ITO["black"],
+        lw=1.5,
+        zorder=3,
+        label=f"nominal design ({nominal:.0f} %)",
     )
-    ax.set_xlim(0, 100)
+    ax.set_xlim(0, 112)
+    ax.set_xticks([0, 20, 40, 60, 80, 100])
     ax.set_xlabel(f"yield on the {rc['budget']['screen_samples']} screening samples (%)")
     from matplotlib.patches import Patch
 
@@ -327,18 +333,21 @@ def save_recentre(record: dict[str, Any], path: Path, *, shown: int = 12) -> Pat
     which = f"all {total}" if len(cands) == total else f"best {len(cands)} of {total}"
     ax.set_title(f"nearby designs ({which}; chosen in bold)", fontsize=9)
     if rc.get("design") is not None:
-        pts = [("nominal", rc["nominal_yield"]), ("re-centred", rc["yield"])]
+        pts = [
+            ("nominal", rc["nominal_yield"]),
+            ("re-centred" if rc.get("better") else "best nearby", rc["yield"]),
+        ]
         for k, (_, rec) in enumerate(pts):
             v = 100 * rec["value"]
             err = [[max(v - 100 * rec["ci_low"], 0.0)], [max(100 * rec["ci_high"] - v, 0.0)]]
             colour = OKABE_ITO["black"] if k == 0 else OKABE_ITO["vermillion"]
             bx.errorbar([k], [v], yerr=err, fmt="o", color=colour, capsize=4)
-        bx.set_xticks([0, 1], [p[0] for p in pts])
-        bx.set_xlim(-0.6, 1.6)
+        bx.set_xticks([0, 1], [p[0] for p in pts], fontsize=8)
+        bx.set_xlim(-0.7, 1.7)
         bx.set_ylim(0, 100)
         bx.set_ylabel(f"yield on {rc['yield']['samples']} unseen samples (%)")
         verdict = "measurable gain" if rc.get("better") else "gain within the noise"
-        bx.set_title(f"{100 * rc['gain']['gain']:+.0f} points: {verdict}", fontsize=9)
+        bx.set_title(f"{100 * rc['gain']['gain']:+.0f} points: {verdict}", fontsize=8)
     else:
         bx.axis("off")
         bx.text(0.5, 0.5, "no nearby design\nbeats the nominal", ha="center", va="center")
