@@ -561,9 +561,6 @@ def _allocation_html(
 ) -> str:
     """The nominal design against the spec, the re-centred design when the target yield is out
     of reach, and the allocation: one thing to do per row (``allocation``, ``recentre``)."""
-    from wellwright.optimize.search.designs import GROWTH_SHEET_HEADER, growth_sheet_rows
-    from wellwright.optimize.tolerance.analysis import ALLOCATION_HEADER, allocation_row
-
     body = []
     misses = record.get("nominal_misses") or []
     if misses:
@@ -603,9 +600,10 @@ def _allocation_html(
                     "re-centring",
                 )
             )
-        if rc.get("better"):  # a growth sheet only for a design worth growing
-            sheet = growth_sheet_rows(rc["design"])
-            write_csv(files / f"growth_sheet_recentred_{tag}.csv", GROWTH_SHEET_HEADER, sheet)
+        path = tdir / "growth_sheet_recentred.csv"
+        if rc.get("better") and path.is_file():  # as the tolerance stage wrote it
+            head, *sheet = csv.reader(_read_text(path).splitlines())
+            write_csv(files / f"growth_sheet_recentred_{tag}.csv", head, sheet)
             check = "; ".join(c["text"] for c in rc.get("spec_check", []))
             body.append(
                 "<p>Growth sheet of the re-centred design "
@@ -617,9 +615,10 @@ def _allocation_html(
                 )
             )
     alloc = record.get("allocation", [])
-    write_csv(
-        files / f"allocation_{tag}.csv", ALLOCATION_HEADER, [allocation_row(a) for a in alloc]
-    )
+    src = tdir / "allocation.csv"
+    if src.is_file():  # as the tolerance stage wrote it
+        head, *rows = csv.reader(_read_text(src).splitlines())
+        write_csv(files / f"allocation_{tag}.csv", head, rows)
     arows = [
         [
             _esc(names.parameter_words(a["parameter"])),

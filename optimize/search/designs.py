@@ -18,7 +18,11 @@ import numpy as np
 import optuna
 from optuna.trial import FrozenTrial, TrialState
 from wellwright.optimize.shared.model_text import model_label
-from wellwright.optimize.study.space import layer_records  # re-exported
+from wellwright.optimize.study.space import (  # re-exported
+    GROWTH_SHEET_HEADER,
+    growth_sheet_rows,
+    layer_records,
+)
 from wellwright.physics.device import device_quantities
 from wellwright.physics.iv import BOUNDED_BY_SWEEP, VALLEY_BOUNDED
 
@@ -37,7 +41,6 @@ __all__ = [
     "MIN_TRIALS_FOR_IMPORTANCE",
 ]
 
-GROWTH_SHEET_HEADER = ["layer", "name", "material", "x", "monolayers", "nm", "doping_cm3", "note"]
 MIN_TRIALS_FOR_IMPORTANCE = 20
 
 
@@ -261,41 +264,6 @@ def rank_trials(
 
 
 # --------------------------------------------------------------------------- outputs
-
-
-def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
-    """Rows of a design's growth sheet, in stack order (first row: emitter contact).
-
-    Material in trade notation; monolayers always whole numbers with the nm
-    they make beside them: a layer the study gives in nm whose thickness is
-    not a whole number of monolayers is rounded to the nearest and the last
-    column (``note``) says so. Contacts have no thickness (grown as thick as
-    the device process needs).
-    """
-    rows = []
-    for i, layer in enumerate(record["layers"] or []):
-        ml, nm = layer["thickness_ml"], layer["thickness_nm"]
-        note = ""
-        if ml is not None and nm and abs(ml - round(ml)) > 1e-6:
-            whole = max(1, round(ml))
-            note = (
-                f"given as {nm:.3f} nm = {ml:.2f} ML; rounded to {whole} ML "
-                f"({whole * nm / ml:.3f} nm) for growth"
-            )
-            ml, nm = whole, whole * nm / ml
-        rows.append(
-            [
-                i,
-                layer["name"],
-                layer["label"],
-                "" if layer["x"] is None else f"{layer['x']:.3f}",
-                "" if ml is None else str(int(round(ml))),
-                "" if nm is None else f"{nm:.3f}",
-                f"{layer['doping_cm3']:.3g}",
-                note,
-            ]
-        )
-    return rows
 
 
 def _designs_table(

@@ -36,6 +36,8 @@ __all__ = [
     "parameter_key",
     "is_finite_number",
     "layer_records",
+    "growth_sheet_rows",
+    "GROWTH_SHEET_HEADER",
 ]
 
 #: Layer keys that may be ranges (every numeric stack key).
@@ -489,3 +491,42 @@ def layer_records(stack: Stack) -> list[dict[str, Any]]:
             }
         )
     return out
+
+
+#: Columns of a growth sheet (:func:`growth_sheet_rows`).
+GROWTH_SHEET_HEADER = ["layer", "name", "material", "x", "monolayers", "nm", "doping_cm3", "note"]
+
+
+def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
+    """Rows of a design's growth sheet, in stack order (first row: emitter contact).
+
+    Material in trade notation; monolayers always whole numbers with the nm
+    they make beside them: a layer the study gives in nm whose thickness is
+    not a whole number of monolayers is rounded to the nearest and the last
+    column (``note``) says so. Contacts have no thickness (grown as thick as
+    the device process needs).
+    """
+    rows = []
+    for i, layer in enumerate(record["layers"] or []):
+        ml, nm = layer["thickness_ml"], layer["thickness_nm"]
+        note = ""
+        if ml is not None and nm and abs(ml - round(ml)) > 1e-6:
+            whole = max(1, round(ml))
+            note = (
+                f"given as {nm:.3f} nm = {ml:.2f} ML; rounded to {whole} ML "
+                f"({whole * nm / ml:.3f} nm) for growth"
+            )
+            ml, nm = whole, whole * nm / ml
+        rows.append(
+            [
+                i,
+                layer["name"],
+                layer["label"],
+                "" if layer["x"] is None else f"{layer['x']:.3f}",
+                "" if ml is None else str(int(round(ml))),
+                "" if nm is None else f"{nm:.3f}",
+                f"{layer['doping_cm3']:.3g}",
+                note,
+            ]
+        )
+    return rows

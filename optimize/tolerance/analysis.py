@@ -31,7 +31,7 @@ import numpy as np
 from wellwright.optimize.shared.model_text import model_record
 from wellwright.optimize.shared.processes import exit_with_parent
 from wellwright.optimize.study.growth import AsGrown, GrowthModel, as_generator
-from wellwright.optimize.study.space import layer_records
+from wellwright.optimize.study.space import GROWTH_SHEET_HEADER, growth_sheet_rows, layer_records
 from wellwright.optimize.study.targets import (
     Spec,  # re-exported: the pass/fail form of [targets]
     window_report,
@@ -71,6 +71,7 @@ __all__ = [
     "neighbourhood",
     "recentre",
     "spec_depth",
+    "RECENTRED_SHEET",
     "choose_island_layers",
     "with_island_layers",
     "island_truncation_error",
@@ -1655,6 +1656,8 @@ def run_tolerance(
     return record
 
 
+#: The growth sheet of the re-centred design (written when it is a measurable gain).
+RECENTRED_SHEET = "growth_sheet_recentred.csv"
 #: Columns of ``allocation.csv`` (the report's copy uses the same).
 ALLOCATION_HEADER = [
     "parameter",
@@ -1695,7 +1698,8 @@ def write_outputs(
     record: dict[str, Any], mc: dict[str, Any], out: Path, *, figures: bool = True
 ) -> dict[str, str]:
     """``tolerance.json``, ``samples.csv``, ``sobol_<metric>.csv``, ``tornado.csv``,
-    ``allocation.csv`` and the PNG figures, each written to a temporary name and renamed."""
+    ``allocation.csv``, :data:`RECENTRED_SHEET` (when re-centring is a measurable gain) and
+    the PNG figures, each written to a temporary name and renamed."""
     from wellwright.optimize.shared.outputs import write_csv, write_json
 
     files = {}
@@ -1746,6 +1750,11 @@ def write_outputs(
             (allocation_row(a) for a in record["allocation"]),
         )
     )
+    rc = record.get("recentre")
+    if rc is not None and rc.get("better"):  # a growth sheet only for a design worth growing
+        files["growth_sheet_recentred"] = str(
+            write_csv(out / RECENTRED_SHEET, GROWTH_SHEET_HEADER, growth_sheet_rows(rc["design"]))
+        )
     if figures:
         from wellwright.optimize.tolerance import figures as tf
 
