@@ -7,6 +7,7 @@ tests (seeded Monte Carlo, judged with intervals, not pinned values) are kept ap
 
 from __future__ import annotations
 
+import csv
 import dataclasses
 import math
 from dataclasses import replace
@@ -217,7 +218,7 @@ def test_noise_guard_never_recommends_a_parameter_without_effect(stack):
     assert all(r["advice"] for r in rows)
 
 
-def test_recentring_moves_the_barrier_the_toy_physics_asks_for(stack):
+def test_recentring_moves_the_barrier_the_toy_physics_asks_for(stack, tmp_path):
     # statistical (toy physics, quick). The toy's Jp falls by exp(a_ml / 0.3 nm) ~ 2.6 per
     # AlAs monolayer of either barrier (arithmetic on its formula): with 5 ML barriers it is
     # ~ 74 kA/cm², above the invented window 20 to 40 kA/cm²; one more monolayer on
@@ -240,6 +241,7 @@ def test_recentring_moves_the_barrier_the_toy_physics_asks_for(stack):
         allocate=5,
         target_yield=0.9,
         variables=variables,
+        out_dir=tmp_path,
     )
     assert "above the maximum 40.0 kA/cm²" in rec["nominal_misses"][0]
     rc = rec["recentre"]
@@ -256,6 +258,14 @@ def test_recentring_moves_the_barrier_the_toy_physics_asks_for(stack):
     rows = {r["parameter"]: r for r in rec["allocation"]}
     assert all(r["action"] in ACTIONS and r["advice"] for r in rows.values())
     assert rows["well.thickness_ml"]["action"] == "no measurable effect"
+    # what the grower gets on file: the re-centred growth sheet, the advice per row
+    sheet = list(csv.DictReader((tmp_path / "growth_sheet_recentred.csv").open()))
+    by_name = {r["name"]: r for r in sheet}
+    assert by_name["barrier1"]["monolayers"] == "6" and by_name["barrier2"]["monolayers"] == "5"
+    alloc = list(csv.DictReader((tmp_path / "allocation.csv").open()))
+    assert [r["parameter"] for r in alloc] == list(rows)
+    assert all(r["action"] in ACTIONS and r["advice"] for r in alloc)
+    assert (tmp_path / "recentre.png").is_file()
 
 
 @pytest.mark.slow
