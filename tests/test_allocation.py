@@ -334,6 +334,9 @@ def test_no_recentring_when_the_target_yield_is_met(stack):
     )
     assert rec["yield"]["value"] >= 0.5 and rec["recentre"] is None
     assert not rec["nominal_misses"]
+    # the toy's nominal Jp ~ 74 kA/cm² is 73 kA/cm² above the minimum 1 kA/cm² and
+    # ~ 9900 kA/cm² below the maximum: the nearer bound is the minimum (arithmetic)
+    assert "inside the minimum 1.0 kA/cm²" in rec["nominal_closest"]
     assert all(r["action"] == "keep" for r in rec["allocation"])
 
 

@@ -275,6 +275,8 @@ def run(args: argparse.Namespace) -> int:
         )
     for text in rec.get("nominal_misses", []):
         print(f"the nominal design misses the spec: {text}")
+    if rec.get("nominal_closest"):
+        print(f"the nominal design meets every window; the closest: {rec['nominal_closest']}")
     recentred = rec.get("recentre")
     if recentred is not None:
         print(f"re-centring: {recentred['text']}")

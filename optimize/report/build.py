@@ -569,11 +569,10 @@ def _allocation_html(
             + _esc("; ".join(misses))
             + ".</p>"
         )
-    elif record.get("nominal_check"):
-        close = min(record["nominal_check"], key=lambda c: c["margin"] / (abs(c["bound"]) or 1.0))
+    elif record.get("nominal_closest"):
         body.append(
             "<p>The nominal design meets every window of the spec; the closest: "
-            + _esc(close["text"])
+            + _esc(record["nominal_closest"])
             + ".</p>"
         )
     rc = record.get("recentre")

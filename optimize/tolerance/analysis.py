@@ -1178,7 +1178,12 @@ def recentre(
                 f"({100 * new_y['ci_low']:.0f} to {100 * new_y['ci_high']:.0f} %) against "
                 f"{100 * old_y['value']:.0f} % for the nominal on the same "
                 f"{new_y['samples']} samples, {100 * gain['gain']:+.0f} points: {verdict}"
-                + ("" if better else "; keep the nominal")
+                + (
+                    ""
+                    if better
+                    else "; keep the nominal"
+                    + (" (more samples would tell)" if gain["gain"] > 0 else "")
+                )
             ),
         }
     )
@@ -1483,7 +1488,8 @@ def run_tolerance(
     beyond the sweep end, whose figures are bounds); ``nominal_check`` (the nominal
     design against each window,
     :func:`wellwright.optimize.study.targets.window_report`) and ``nominal_misses``
-    (the texts of the windows it misses, by how much); ``recentre``
+    (the texts of the windows it misses, by how much), ``nominal_closest`` (when it
+    misses none: the window it is nearest to leaving, relative to the bound); ``recentre``
     (:func:`recentre`, None when the target yield is met or nothing can move);
     ``spec``; ``settings``; ``notes``. The Sobol
     design starts at :data:`SOBOL_START_BASE` base samples and doubles until
@@ -1534,6 +1540,12 @@ def run_tolerance(
         )
     record["nominal_check"] = window_report(spec.windows, tor["nominal"])
     record["nominal_misses"] = [r["text"] for r in record["nominal_check"] if not r["inside"]]
+    inside = [r for r in record["nominal_check"] if r["inside"]]
+    record["nominal_closest"] = (
+        None
+        if record["nominal_misses"] or not inside
+        else min(inside, key=lambda r: r["margin"] / (abs(r["bound"]) or 1.0))["text"]
+    )
     record["tornado"] = tor["layers"]
     islands = tor["islands"]
     if islands["continuous_layers"] and island_checks > 0:
