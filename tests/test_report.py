@@ -298,3 +298,27 @@ def test_report_of_a_folder_missing_a_stage_record_is_one_line(demo_dir, tmp_pat
     assert len(err) == 1
     assert missing.split("/")[-1] in err[0] and "rerun 'wellwright run'" in err[0]
     assert not (run / "report.html").exists() and not (run / FILES_DIR).exists()
+
+
+def test_control_table_does_not_rank_what_is_indistinguishable_from_zero(tmp_path):
+    # the table said "layer well 0.75" under a ranking that listed the well's thickness as
+    # "no effect distinguishable from zero" (the quick demo's report): one rule for both
+    from wellwright.optimize.report.build import _control_html
+
+    measure = "Morris mu* of pass/fail"
+    record = {
+        "ranking": {"indistinguishable_from_zero": ["well.thickness_ml", "In.flux"]},
+        "control_order": [
+            {"control": "layer well", "parameters": ["well.thickness_ml"], "score": 0.75},
+            {"control": "layer barrier1", "parameters": ["barrier1.thickness_ml"], "score": 0.5},
+            {"control": "In cell", "parameters": ["In.flux"], "score": 0.1},
+        ],
+    }
+    for row in record["control_order"]:
+        row["measure"] = measure
+    html = _control_html(record, tmp_path, "rank01")
+    assert "layer barrier1 first" in html
+    assert html.count("no effect distinguishable from zero") == 2
+    assert "0.75" not in html
+    record["ranking"]["indistinguishable_from_zero"].append("barrier1.thickness_ml")
+    assert "no source cell or layer stands out" in _control_html(record, tmp_path, "rank01")

@@ -541,18 +541,28 @@ def _control_html(record: dict[str, Any], files: Path, tag: str) -> str:
         ["control", "score", "measure", "parameters"],
         [[c["control"], c["score"], c["measure"], " ".join(c["parameters"])] for c in order],
     )
+    # a group whose every parameter has an effect indistinguishable from zero is not ranked
+    # (the same rule as the ranking's resolution, tolerance.json "ranking")
+    zero = set((record.get("ranking") or {}).get("indistinguishable_from_zero") or [])
+    silent = [all(p in zero for p in c["parameters"]) for c in order]
     rows = [
         [
             _esc(c["control"]),
-            f"{c['score']:.3g}",
+            "no effect distinguishable from zero" if quiet else f"{c['score']:.3g}",
             _esc(", ".join(names.parameter_words(p) for p in c["parameters"])),
         ]
-        for c in order
+        for c, quiet in zip(order, silent, strict=True)
     ]
+    lead = next((c["control"] for c, quiet in zip(order, silent, strict=True) if not quiet), None)
+    head = (
+        f"{_esc(lead)} first"
+        if lead is not None
+        else "no source cell or layer stands out from zero at this sample size (more --samples "
+        "would tell)"
+    )
     return (
         f"<p><b>Control hardest</b> (per source cell and layer, by {_esc(order[0]['measure'])}): "
-        f"{_esc(order[0]['control'])} first.</p>"
-        + _table(["what the grower controls", "score", "growth parameters"], rows)
+        f"{head}.</p>" + _table(["what the grower controls", "score", "growth parameters"], rows)
     )
 
 
@@ -730,9 +740,10 @@ def _growth(
             what = names.words(output)
             top = ", ".join(_esc(names.parameter_words(x["parameter"])) for x in rows[:3])
             body.append(
-                f"<p><b>Hold these most tightly:</b> {top} (ranked by "
-                f"{'total Sobol index' if method == 'sobol' else 'Morris mu*'} of "
-                f"{_esc(what)}).</p>"
+                f"<p><b>Largest effect on {_esc(what)}:</b> {top} (ranked by "
+                f"{'total Sobol index' if method == 'sobol' else 'Morris mu*'}; the figure "
+                "below). Which to hold tightest for the yield: the pass/fail ranking and the "
+                "control table that follow.</p>"
             )
             body.append(_resolution_text(r.get("ranking")))
             body.append(
