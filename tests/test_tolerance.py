@@ -567,3 +567,44 @@ def test_bad_wafer_entries_name_the_key(wafer, key, text):
     with pytest.raises(InputError, match=text) as info:
         parse_growth({"wafer": wafer}, source="s.toml")
     assert info.value.key == key
+
+
+class _OneBarrierToy(_ToyRunner):
+    """'Jp' depends on barrier1 alone (the same exponential trend), so pass/fail has one cause."""
+
+    def __call__(self, devices, desc=""):
+        m = super().__call__(devices, desc)
+        if isinstance(devices, LayerTable):
+            devices = AsGrown(
+                devices, np.arange(devices.n_stacks), np.ones(devices.n_stacks), devices.n_stacks
+            )
+        t = devices.table.thickness_nm
+        jp = 1e5 * np.exp(-(2 * t[:, 2] - 2.74) / 0.3)
+        n = devices.n_samples
+        m["peak_current_density_a_cm2"] = np.bincount(
+            devices.owner, weights=devices.area_share * jp, minlength=n
+        )
+        return m
+
+
+def test_morris_trajectories_grow_until_the_ranking_is_resolved(stack):
+    # issue 14: the Morris sample grows (doubling) until the pass/fail leader stands apart
+    # from the runner-up beyond their intervals (Campolongo et al. 2007 mu*, SALib's bootstrap
+    # intervals) or the budget is spent. One cause: resolved on the first quarter of the
+    # budget. Two equal causes (the symmetric toy): never resolved, the whole budget used.
+    g = GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0.01, x_sigma=0.0, doping_sigma=0.0)
+    model = growth_model(stack, g)
+    spec = Spec((("peak_current_density_a_cm2", 0.6e5, 1.6e5),))
+    d = len(model.parameters)
+    budget = 64 * (d + 1)
+    one = run_tolerance(
+        model, spec, _OneBarrierToy(), method="morris", samples=budget, seed=5, allocate=0
+    )
+    assert one["ranking"]["resolved"], one["ranking"]
+    assert one["ranking"]["leader"] == "barrier1.thickness_ml"
+    assert one["ranking"]["evaluations"] == 16 * (d + 1) < budget
+    two = run_tolerance(
+        model, spec, _ToyRunner(), method="morris", samples=budget, seed=5, allocate=0
+    )
+    assert not two["ranking"]["resolved"], two["ranking"]
+    assert two["ranking"]["evaluations"] == budget

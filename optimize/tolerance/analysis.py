@@ -680,22 +680,74 @@ def morris_analysis(
     trajectories: int,
     levels: int = 4,
     seed: int | np.random.Generator | None = None,
+    start_trajectories: int | None = None,
 ) -> dict[str, Any]:
     """Morris elementary effects (mu*, sigma) per figure of merit and pass/fail, ordered by mu*.
 
     Parameters span +-2.5 sigma on a uniform grid of ``levels``; each point is
     the island mixture of :meth:`GrowthModel.grow`; elementary effects are per
-    unit of the unit cube (5 sigma).
+    unit of the unit cube (5 sigma) [1]_. The number of trajectories starts at
+    ``start_trajectories`` and doubles (new independent trajectories appended,
+    the earlier ones kept) until :func:`ranking_resolution` of pass/fail says
+    resolved or ``trajectories`` (the budget) is reached.
+
+    Parameters
+    ----------
+    model, spec, run
+        Growth model, spec and evaluator (:class:`Runner`).
+    trajectories
+        Largest number of trajectories (``trajectories * (n_params + 1)`` evaluations).
+    levels
+        Grid levels per parameter.
+    seed
+        Seed or generator.
+    start_trajectories
+        First number of trajectories (default: ``trajectories``, no growth).
+
+    Returns
+    -------
+    dict
+        ``morris`` (output -> rows), ``notes``, ``evaluations``, ``resolution``
+        (:func:`ranking_resolution` of pass/fail) and ``trajectories`` used.
+
+    References
+    ----------
+    .. [1] F. Campolongo, J. Cariboni, A. Saltelli, Environ. Model. Softw. 22, 1509 (2007)
+       (mu*).
     """
-    from SALib.analyze import morris as morris_analyze
     from SALib.sample import morris as morris_sample
 
     rng = as_generator(seed)
     d = len(model.parameters)
     problem = {"num_vars": d, "names": list(model.names), "bounds": [[0.0, 1.0]] * d}
-    x = morris_sample.sample(problem, trajectories, num_levels=levels, seed=_int_seed(rng))
-    z = (x - 0.5) * 5.0  # [0, 1] -> [-2.5, 2.5] sigma
-    metrics = run(model.grow(z), desc="Morris")
+    t = max(2, min(start_trajectories or trajectories, trajectories))
+    x = np.zeros((0, d))
+    metrics: dict[str, np.ndarray] = {}
+    while True:
+        new_x = morris_sample.sample(
+            problem, t - x.shape[0] // (d + 1), num_levels=levels, seed=_int_seed(rng)
+        )
+        new = run(model.grow((new_x - 0.5) * 5.0), desc="Morris")  # [0, 1] -> +-2.5 sigma
+        metrics = {k: np.concatenate([metrics.get(k, np.zeros(0)), v]) for k, v in new.items()}
+        x = np.concatenate([x, new_x])
+        out, notes = _morris_tables(problem, model, spec, x, metrics, levels, rng)
+        resolution = ranking_resolution(out.get("pass", []), score="mu_star", conf="mu_star_conf")
+        if resolution["resolved"] or t >= trajectories:
+            break
+        t = min(2 * t, trajectories)
+    return {
+        "morris": out,
+        "notes": notes,
+        "evaluations": int(x.shape[0]),
+        "resolution": resolution,
+        "trajectories": t,
+    }
+
+
+def _morris_tables(problem, model, spec, x, metrics, levels, rng):
+    """SALib's Morris analysis of every finite output and of pass/fail, ordered by mu*."""
+    from SALib.analyze import morris as morris_analyze
+
     out: dict[str, list] = {}
     notes = []
     outputs = {name: metrics[name] for name in output_names(metrics)}
@@ -722,7 +774,7 @@ def morris_analysis(
             for i, p in enumerate(model.names)
         ]
         out[name] = sorted(rows, key=lambda r: -r["mu_star"])
-    return {"morris": out, "notes": notes, "evaluations": int(x.shape[0])}
+    return out, notes
 
 
 # --------------------------------------------------------------------------- tornado
@@ -1456,10 +1508,11 @@ def run_tolerance(
     mixture to measure the truncation error (``islands.check``).
 
     ``method``: ``mc`` (yield, tornado, allocation), ``morris`` (adds Morris
-    screening with ``max(2, samples // (n_params + 1))`` trajectories) or
-    ``sobol`` (adds Sobol indices with the largest power of two
-    ``<= samples // (n_params + 2)`` base samples, at least 8). The allocation
-    reuses the first :data:`ALLOCATION_SAMPLES` Monte Carlo samples. When the
+    screening: a quarter of ``max(2, samples // (n_params + 1))`` trajectories,
+    doubled until the pass/fail ranking is resolved or that budget is reached) or
+    ``sobol`` (adds Sobol indices, base samples doubled from :data:`SOBOL_START_BASE`
+    until resolved, up to the largest power of two ``<= samples // (n_params + 2)``). The
+    allocation reuses the first :data:`ALLOCATION_SAMPLES` Monte Carlo samples. When the
     yield at the centre is below ``target_yield`` (with ``recentring`` and an
     allocation asked for, ``allocate`` > 0), the
     whole-monolayer design nearby with the highest yield under the same
@@ -1589,12 +1642,18 @@ def run_tolerance(
         # parameters whose total index is indistinguishable from zero are not ranked
         ranking_source = s["resolution"]["ranked"] or None
     elif method == "morris":
+        budget_t = max(2, samples // (d + 1))
         m = morris_analysis(
-            model, spec, run, trajectories=max(2, samples // (d + 1)), seed=seeds[1]
+            model,
+            spec,
+            run,
+            trajectories=budget_t,
+            start_trajectories=max(2, budget_t // 4),
+            seed=seeds[1],
         )
         record["morris"] = m["morris"]
         record["ranking"] = {
-            **ranking_resolution(m["morris"].get("pass", []), score="mu_star", conf="mu_star_conf"),
+            **m["resolution"],
             "measure": "Morris mu* of pass/fail",
             "evaluations": m["evaluations"],
             "budget": samples,
