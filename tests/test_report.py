@@ -322,3 +322,22 @@ def test_control_table_does_not_rank_what_is_indistinguishable_from_zero(tmp_pat
     assert "0.75" not in html
     record["ranking"]["indistinguishable_from_zero"].append("barrier1.thickness_ml")
     assert "no source cell or layer stands out" in _control_html(record, tmp_path, "rank01")
+
+
+def test_report_describes_the_model_from_the_run_record(demo_dir, tmp_path):
+    """The model section comes from what ran (tolerance.json's model record), not from
+    re-reading the study: a record that says another roughness shows in the report."""
+    from wellwright.optimize.report.build import build_report
+    from wellwright.optimize.shared.model_text import model_from_record, model_record
+    from wellwright.physics.stack import ModelOptions
+
+    odd = ModelOptions(electrostatics="linear", roughness_height_nm=0.77, broadening_mev=1.5)
+    assert model_from_record(model_record(odd)) == odd
+    run = tmp_path / "run"
+    shutil.copytree(demo_dir, run)
+    for tol in sorted((run / "tolerance").glob("rank*/tolerance.json")):
+        rec = json.loads(tol.read_text())
+        rec["model"]["roughness_height_nm"] = 0.77
+        tol.write_text(json.dumps(rec))
+    build_report(run)
+    assert "height 0.77 nm" in _html(run)

@@ -30,7 +30,11 @@ from typing import Any
 
 from wellwright.optimize.search.history import TRIALS_FILE, read_trials
 from wellwright.optimize.shared import names
-from wellwright.optimize.shared.model_text import model_assumptions, model_label
+from wellwright.optimize.shared.model_text import (
+    model_assumptions,
+    model_from_record,
+    model_label,
+)
 from wellwright.optimize.shared.outputs import (
     atomic_write,
     atomic_write_text,
@@ -889,7 +893,9 @@ def build_report(run_dir: str | Path) -> Path:
     figs = _Figures(files)
     search = stages["search"]
     settings = record.get("settings", {})
-    model = study.stack(designs[0]["params"]).model  # the model every design ran with
+    # the model that ran, from the run's own record (tolerance.json), else from the study copy
+    ran = [r["model"] for r in records if isinstance(r.get("model"), dict)]
+    model = model_from_record(ran[0]) if ran else study.stack(designs[0]["params"]).model
 
     brief_html, brief_data = _brief(study, files)
     figs.add_file(run_dir / "search" / "designs.csv", "designs_ranked.csv")

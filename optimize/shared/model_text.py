@@ -6,11 +6,11 @@ model that actually ran (:class:`wellwright.physics.stack.ModelOptions`).
 
 from __future__ import annotations
 
-from dataclasses import asdict
+from dataclasses import asdict, fields
 
 from wellwright.physics.stack import ModelOptions, Stack
 
-__all__ = ["model_label", "model_record", "model_assumptions"]
+__all__ = ["model_label", "model_record", "model_from_record", "model_assumptions"]
 
 
 def model_label(stack: Stack | ModelOptions) -> str:
@@ -27,6 +27,12 @@ def model_record(stack: Stack | ModelOptions) -> dict:
     """The model as a JSON-ready record: its label and every ``[model]`` option."""
     m = stack.model if isinstance(stack, Stack) else stack
     return {"label": model_label(m), **asdict(m)}
+
+
+def model_from_record(record: dict) -> ModelOptions:
+    """The model a :func:`model_record` describes (its label and unknown keys ignored)."""
+    names = {f.name for f in fields(ModelOptions)}
+    return ModelOptions(**{k: v for k, v in record.items() if k in names})
 
 
 TSU_ESAKI = "R. Tsu and L. Esaki, Appl. Phys. Lett. 22, 562 (1973)"
