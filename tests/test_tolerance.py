@@ -592,7 +592,10 @@ def test_morris_trajectories_grow_until_the_ranking_is_resolved(stack):
     # from the runner-up beyond their intervals (Campolongo et al. 2007 mu*, SALib's bootstrap
     # intervals) or the budget is spent. One cause: resolved on the first quarter of the
     # budget. Two equal causes (the symmetric toy): never resolved, the whole budget used.
-    g = GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0.01, x_sigma=0.0, doping_sigma=0.0)
+    # No rate spread: a rate factor scales barrier1 too and would be a real second cause,
+    # whose detection on the first quarter depends on the sampler's random stream (it did
+    # with SALib 1.4.7 at seed 5, not with 1.6); the one-cause case must have one cause.
+    g = GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0.0, x_sigma=0.0, doping_sigma=0.0)
     model = growth_model(stack, g)
     spec = Spec((("peak_current_density_a_cm2", 0.6e5, 1.6e5),))
     d = len(model.parameters)
