@@ -220,15 +220,13 @@ def run(args: argparse.Namespace) -> int:
             ) from None
         Client(args.cluster)  # registers itself as joblib's dask backend target
         backend, n_jobs = "dask", -1
-    runner = Runner(
+    runner = Runner.for_stack(
+        stack,
         bias,
-        model=stack.model,
-        series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
         n_jobs=n_jobs,
         backend=backend,
         progress=not args.no_progress,
         at_bias_v=study.at_bias_v,
-        area_um2=stack.device.area_um2,
     )
     rec = run_tolerance(
         model,

@@ -143,14 +143,12 @@ def tolerance_of_design(
         source=study.source,
     )
     model = growth_model(stack, settings, per_layer)
-    runner = Runner(
+    runner = Runner.for_stack(
+        stack,
         _design_bias(study, s),
-        model=stack.model,
-        series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
         n_jobs=s.jobs,
         progress=progress,
         at_bias_v=study.at_bias_v,
-        area_um2=stack.device.area_um2,
     )
     return run_tolerance(
         model,

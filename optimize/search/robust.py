@@ -107,13 +107,8 @@ def design_yields(
 
     out = []
     for stack in stacks:
-        run = Runner(
-            np.asarray(bias_v, float),
-            model=stack.model,
-            series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
-            batch_size=plan.samples,
-            at_bias_v=plan.spec.at_bias_v,
-            area_um2=stack.device.area_um2,
+        run = Runner.for_stack(
+            stack, bias_v, batch_size=plan.samples, at_bias_v=plan.spec.at_bias_v
         )
         model, _ = with_island_layers(growth_model(stack, plan.settings, plan.per_layer), run)
         z = common_random_numbers(model.names, samples=plan.samples, seed=plan.seed)

@@ -299,6 +299,18 @@ class Runner:
     at_bias_v: tuple[float, ...] = ()
     area_um2: float | None = None
 
+    @classmethod
+    def for_stack(cls, stack: Stack, bias_v, **how: Any) -> Runner:
+        """The runner of ``stack``: its model, series resistance and mesa area; ``how`` sets
+        the other fields (``at_bias_v``, ``n_jobs``, ``backend``, ``batch_size``, ...)."""
+        return cls(
+            np.asarray(bias_v, float),
+            model=stack.model,
+            series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
+            area_um2=stack.device.area_um2,
+            **how,
+        )
+
     def __call__(self, table: LayerTable | AsGrown, desc: str = "samples") -> dict[str, np.ndarray]:
         return evaluate_metrics(
             table,
