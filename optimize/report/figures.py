@@ -14,6 +14,7 @@ import numpy as np
 from matplotlib.figure import Figure
 from wellwright.optimize.shared import names
 from wellwright.optimize.shared.figures import PALETTE, style
+from wellwright.optimize.tolerance.figures import sensitivity_figure
 
 __all__ = ["yield_figure", "ranking_figure", "ranking_rows"]
 
@@ -108,7 +109,9 @@ def ranking_rows(record: dict[str, Any]) -> tuple[str, str, list[dict[str, Any]]
 
 
 def ranking_figure(record: dict[str, Any], *, top: int = 10) -> Figure | None:
-    """Which growth parameter matters most: horizontal bars, most important on top.
+    """Which growth parameter matters most (:func:`ranking_rows`), as
+    :func:`wellwright.optimize.tolerance.figures.sensitivity_figure` draws it; None for a
+    Monte Carlo run.
 
     Parameters
     ----------
@@ -120,48 +123,4 @@ def ranking_figure(record: dict[str, Any], *, top: int = 10) -> Figure | None:
     method, output, rows = ranking_rows(record)
     if not rows:
         return None
-    style()
-    rows = rows[:top][::-1]
-    ypos = np.arange(len(rows))
-    fig = Figure(figsize=(7.5, 0.42 * len(rows) + 1.8))
-    ax = fig.add_subplot()
-    what = names.words(output)
-    if method == "sobol":
-        ax.barh(
-            ypos + 0.2,
-            [r["total_index"] for r in rows],
-            0.4,
-            xerr=[r["total_conf"] for r in rows],
-            color=PALETTE["blue"],
-            label="total index",
-            error_kw={"capsize": 3},
-        )
-        ax.barh(
-            ypos - 0.2,
-            [r["first_index"] for r in rows],
-            0.4,
-            xerr=[r["first_conf"] for r in rows],
-            color=PALETTE["orange"],
-            label="first-order index",
-            error_kw={"capsize": 3},
-        )
-        ax.set_xlabel(f"Sobol index of {what} (share of variance, 0 to 1)")
-        ax.set_xlim(left=min(0.0, ax.get_xlim()[0]))
-    else:
-        factor, label = names.quantity(output).factor, names.label(output)
-        ax.barh(
-            ypos,
-            [factor * r["mu_star"] for r in rows],
-            0.6,
-            xerr=[factor * r["mu_star_conf"] for r in rows],
-            color=PALETTE["blue"],
-            label="mu* (mean |elementary effect|)",
-            error_kw={"capsize": 3},
-        )
-        ax.set_xlabel(f"Morris mu* of {label} (per 5 sigma of the parameter)")
-        ax.set_xlim(left=0.0)
-    ax.set_yticks(ypos, [names.parameter_words(r["parameter"]) for r in rows])
-    ax.set_title(f"which growth error matters most ({'Sobol' if method == 'sobol' else 'Morris'})")
-    ax.legend(fontsize=8, loc="lower right")
-    fig.tight_layout()
-    return fig
+    return sensitivity_figure(method, output, rows, top=top)

@@ -14,9 +14,9 @@ from typing import Any
 
 import numpy as np
 from wellwright.optimize.shared import names
-from wellwright.optimize.shared.figures import PALETTE
+from wellwright.optimize.shared.figures import PALETTE, style
 
-__all__ = ["save_all", "save_wafer_map", "save_recentre", "OKABE_ITO"]
+__all__ = ["save_all", "save_wafer_map", "save_recentre", "sensitivity_figure", "OKABE_ITO"]
 
 OKABE_ITO = PALETTE  # one palette for every figure: wellwright.optimize.shared.figures.PALETTE
 
@@ -84,48 +84,73 @@ def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> P
     return save_figure(fig, path)
 
 
-def save_sobol(record: dict[str, Any], path: Path, *, key: str = "pass") -> Path | None:
-    """Bars of the first-order and total Sobol indices of up to 12 parameters; ``None`` without that table.
+def sensitivity_figure(method: str, output: str, rows: list[dict[str, Any]], *, top: int = 12):
+    """Which growth parameter matters most for ``output``: horizontal bars, most important on
+    top, with the confidence intervals as error bars.
 
     Parameters
     ----------
-    record
-        The tolerance record.
-    path
-        PNG file to write.
-    key
-        The output the indices are of (``pass`` or a metric name).
+    method
+        ``sobol`` (total and first-order indices) or ``morris`` (mu*).
+    output
+        The output the rows are of (``pass`` or a metric name).
+    rows
+        Rows of the record's ``sobol`` or ``morris`` table, most important first.
+    top
+        Most parameters shown.
     """
+    from matplotlib.figure import Figure
+
+    style()
+    rows = rows[:top][::-1]
+    ypos = np.arange(len(rows))
+    fig = Figure(figsize=(7.5, 0.42 * len(rows) + 1.8))
+    ax = fig.add_subplot()
+    if method == "sobol":
+        for shift, score, colour, label in (
+            (0.2, "total", "blue", "total index"),
+            (-0.2, "first", "orange", "first-order index"),
+        ):
+            ax.barh(
+                ypos + shift,
+                [r[f"{score}_index"] for r in rows],
+                0.4,
+                xerr=[r[f"{score}_conf"] for r in rows],
+                color=PALETTE[colour],
+                label=label,
+                error_kw={"capsize": 3},
+            )
+        ax.set_xlabel(f"Sobol index of {names.words(output)} (share of variance, 0 to 1)")
+        ax.set_xlim(left=min(0.0, ax.get_xlim()[0]))
+    else:
+        factor = names.quantity(output).factor
+        ax.barh(
+            ypos,
+            [factor * r["mu_star"] for r in rows],
+            0.6,
+            xerr=[factor * r["mu_star_conf"] for r in rows],
+            color=PALETTE["blue"],
+            label="mu* (mean |elementary effect|)",
+            error_kw={"capsize": 3},
+        )
+        ax.set_xlabel(f"Morris mu* of {names.label(output)} (per 5 sigma of the parameter)")
+        ax.set_xlim(left=0.0)
+    ax.set_yticks(ypos, [names.parameter_words(r["parameter"]) for r in rows])
+    ax.set_title(f"which growth error matters most ({'Sobol' if method == 'sobol' else 'Morris'})")
+    ax.legend(fontsize=8, loc="lower right")
+    fig.tight_layout()
+    return fig
+
+
+def save_sobol(record: dict[str, Any], path: Path, *, key: str = "pass") -> Path | None:
+    """:func:`sensitivity_figure` of the Sobol indices of ``key`` (``pass`` or a metric name)
+    at ``path``; ``None`` without that table."""
     from wellwright.optimize.shared.outputs import save_figure
 
     table = record["sobol"].get(key)
     if not table:
         return None
-    plt = _plt()
-    rows = table[:12][::-1]
-    ypos = np.arange(len(rows))
-    fig, ax = plt.subplots(figsize=(6.4, 0.35 * len(rows) + 1.4))
-    ax.barh(
-        ypos + 0.2,
-        [r["total_index"] for r in rows],
-        0.4,
-        xerr=[r["total_conf"] for r in rows],
-        color=OKABE_ITO["blue"],
-        label="total index",
-    )
-    ax.barh(
-        ypos - 0.2,
-        [r["first_index"] for r in rows],
-        0.4,
-        xerr=[r["first_conf"] for r in rows],
-        color=OKABE_ITO["orange"],
-        label="first-order index",
-    )
-    ax.set_yticks(ypos, [names.parameter_words(r["parameter"]) for r in rows])
-    what = names.words(key)
-    ax.set_xlabel(f"Sobol index of {what} (share of variance, dimensionless)")
-    ax.legend(fontsize=8, loc="lower right")
-    return save_figure(fig, path)
+    return save_figure(sensitivity_figure("sobol", key, table), path)
 
 
 def save_tornado(
