@@ -524,6 +524,9 @@ def test_wafer_yield_is_the_area_inside_the_passing_radius(stack):
 
 
 def test_tolerance_record_has_wafer_yield_and_map(stack, tmp_path):
+    import matplotlib
+
+    matplotlib.use("svg")  # a user's backend (a notebook's inline one, say) ...
     m = _wafer_model(stack, {"diameter_mm": 76.2, "thickness_loss": 0.1})
     spec = Spec((("peak_current_density_a_cm2", 0.0, 1.5e5),))
     rec = run_tolerance(m, spec, _ToyRunner(), method="mc", samples=200, seed=1, out_dir=tmp_path)
@@ -531,9 +534,12 @@ def test_tolerance_record_has_wafer_yield_and_map(stack, tmp_path):
     assert rec["yield"]["value"] == 1.0  # at the centre the toy meets the spec
     assert rec["wafer_yield"]["value"] < 1.0
     assert (tmp_path / "wafer_map.png").is_file()
+    assert (tmp_path / "histograms.png").is_file()
     assert rec["allocation"] == [] or all(
         a["parameter"] != "wafer.radius_mm" for a in rec["allocation"]
     )
+    assert matplotlib.get_backend() == "svg"  # ... survives the tolerance figures (issue 16)
+    matplotlib.use("agg")
 
 
 @pytest.mark.parametrize(

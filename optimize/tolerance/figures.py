@@ -21,13 +21,13 @@ __all__ = ["save_all", "save_wafer_map", "save_recentre", "sensitivity_figure", 
 OKABE_ITO = PALETTE  # one palette for every figure: wellwright.optimize.shared.figures.PALETTE
 
 
-def _plt():
-    import matplotlib
+def _subplots(*grid: int, figsize: tuple[float, float], constrained: bool = False, **kw: Any):
+    """A figure and its axes without pyplot, so that saving a figure never changes the
+    caller's matplotlib backend (a notebook keeps its inline plots)."""
+    from matplotlib.figure import Figure
 
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
+    fig = Figure(figsize=figsize, layout="constrained") if constrained else Figure(figsize=figsize)
+    return fig, fig.subplots(*grid, **kw)
 
 
 def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> Path:
@@ -44,10 +44,9 @@ def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> P
     """
     from wellwright.optimize.shared.outputs import save_figure
 
-    plt = _plt()
     spec = {s["metric"]: s for s in record["spec"]}
     shown = list(spec) or ["peak_current_density_a_cm2", "peak_voltage_v", "pvcr"]
-    fig, axes = plt.subplots(1, len(shown), figsize=(4.2 * len(shown), 3.4), squeeze=False)
+    fig, axes = _subplots(1, len(shown), figsize=(4.2 * len(shown), 3.4), squeeze=False)
     for ax, name in zip(axes[0], shown):
         f, label = names.quantity(name).factor, names.label(name)
         v = np.asarray(mc["metrics"][name], float) * f
@@ -178,10 +177,9 @@ def save_tornado(
     ]
     if nominal is None or not rows:
         return None
-    plt = _plt()
     rows = rows[::-1]
     ypos = np.arange(len(rows))
-    fig, ax = plt.subplots(figsize=(6.4, 0.4 * len(rows) + 1.4))
+    fig, ax = _subplots(figsize=(6.4, 0.4 * len(rows) + 1.4))
     n = nominal * f
     ax.barh(
         ypos,
@@ -244,7 +242,6 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
     wafer = record.get("wafer")
     if not wafer:
         return None
-    plt = _plt()
     radius = 0.5 * wafer["diameter_mm"]
     rings = wafer["rings"]
     r_out = np.array([g["r_out_mm"] for g in rings])
@@ -253,7 +250,7 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
     key = "peak_current_density_a_cm2"
     q = names.quantity(key)
     jp = np.array([np.nan if v[key] is None else v[key] * q.factor for v in wafer["profile"]])
-    fig, axes = plt.subplots(1, 3, figsize=(15.5, 4.6), layout="constrained")
+    fig, axes = _subplots(1, 3, figsize=(15.5, 4.6), constrained=True)
     im = _disk(
         axes[0],
         radius,
@@ -316,9 +313,8 @@ def save_recentre(record: dict[str, Any], path: Path, *, shown: int = 12) -> Pat
     rc = record.get("recentre")
     if not rc or not rc.get("candidates"):
         return None
-    plt = _plt()
     cands = rc["candidates"][:shown][::-1]
-    fig, (ax, bx) = plt.subplots(
+    fig, (ax, bx) = _subplots(
         1, 2, figsize=(11.5, 1.4 + 0.32 * len(cands)), gridspec_kw={"width_ratios": [3, 1.4]}
     )
     y = np.arange(len(cands))
