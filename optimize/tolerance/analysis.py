@@ -1589,109 +1589,22 @@ def run_tolerance(
         **_wafer_record(model, mc),
         "sobol": {},
         "morris": {},
+        "model": model_record(model.stack),
+        **_nominal_fields(spec, tor["nominal"], mc["metrics"], notes),
+        "tornado": tor["layers"],
     }
-    record["model"] = model_record(model.stack)
-    record["nominal"] = tor["nominal"]
-    bounded = valley_bounded_record(tor["nominal"], mc["metrics"])
-    record[VALLEY_BOUNDED] = bounded
-    if bounded["nominal"] or bounded["samples"]:
-        notes.append(
-            f"valley bounded by the sweep end (the current still falls at the last bias "
-            f"computed): {'the nominal design and ' if bounded['nominal'] else ''}"
-            f"{bounded['samples']} of {bounded['of']} Monte Carlo samples; their valley "
-            "current is an upper bound and valley voltage, PVCR, peak-to-valley differences "
-            "and output power lower bounds (spreads and indices of these figures include "
-            "bounds): raise the sweep's end bias"
-        )
-    record["nominal_check"] = window_report(spec.windows, tor["nominal"])
-    record["nominal_misses"] = [r["text"] for r in record["nominal_check"] if not r["inside"]]
-    inside = [r for r in record["nominal_check"] if r["inside"]]
-    record["nominal_closest"] = (
-        None
-        if record["nominal_misses"] or not inside
-        else min(inside, key=lambda r: r["margin"] / (abs(r["bound"]) or 1.0))["text"]
-    )
-    record["tornado"] = tor["layers"]
     islands = tor["islands"]
     if islands["continuous_layers"] and island_checks > 0:
         islands["check"] = island_truncation_error(model, run, mc["z"][:island_checks])
     record["islands"] = islands
     notes.append(_island_note(islands))
-    d = len(model.parameters)
-    ranking_source = None
     if method == "sobol":
-        per_base = 2 * d + 2 if second_order else d + 2
-        n_base = max(8, 2 ** int(math.floor(math.log2(max(1, samples // per_base)))))
-        s = sobol_analysis(
-            model,
-            spec,
-            run,
-            base_samples=min(n_base, SOBOL_START_BASE),
-            max_evaluations=n_base * per_base,
-            second_order=second_order,
-            seed=seeds[1],
+        record.update(
+            _sobol_fields(model, spec, run, samples, second_order, seed=seeds[1], notes=notes)
         )
-        n_base = s["base_samples"]
-        record["sobol"] = s["sobol"]
-        if second_order:
-            record["sobol_second_order"] = s["sobol_second_order"]
-        notes += s["notes"]
-        widest = max((r["total_conf"] for r in s["sobol"]["pass"]), default=0.0)
-        if widest > SOBOL_WIDE_CONF:
-            notes.append(
-                f"Sobol on {n_base} base samples for {d} parameters: confidence half-widths up "
-                f"to {widest:.2f}, so negative first-order estimates and totals above 1 are "
-                "sampling noise; trust the order of the leading parameters, not the values, "
-                "or rerun with more --samples (the half-widths shrink as 1/sqrt(samples))"
-            )
-        record["sobol_evaluations"] = s["evaluations"]
-        record["ranking"] = {
-            **s["resolution"],
-            "measure": "total Sobol index of pass/fail",
-            "evaluations": s["evaluations"],
-            "budget": samples,
-        }
-        # parameters whose total index is indistinguishable from zero are not ranked
-        ranking_source = s["resolution"]["ranked"] or None
     elif method == "morris":
-        budget_t = max(2, samples // (d + 1))
-        m = morris_analysis(
-            model,
-            spec,
-            run,
-            trajectories=budget_t,
-            start_trajectories=max(2, budget_t // 4),
-            seed=seeds[1],
-        )
-        record["morris"] = m["morris"]
-        record["ranking"] = {
-            **m["resolution"],
-            "measure": "Morris mu* of pass/fail",
-            "evaluations": m["evaluations"],
-            "budget": samples,
-        }
-        notes += m["notes"]
-        if "pass" in m["morris"] and any(r["mu_star"] > 0 for r in m["morris"]["pass"]):
-            ranking_source = [r["parameter"] for r in m["morris"]["pass"]]
-    if ranking_source is None:
-        # rank by the Monte Carlo correlation of |z| with failure (cheap fallback)
-        fail = (~mc["passed"]).astype(float)
-        score = [
-            abs(np.corrcoef(np.abs(mc["z"][:, j]), fail)[0, 1]) if fail.std() > 0 else 0.0
-            for j in range(d)
-        ]
-        ranking_source = [model.names[j] for j in np.argsort(score)[::-1]]
-        scores = dict(zip(model.names, map(float, score), strict=True))
-        measure = "correlation of |deviation| with failure (Monte Carlo)"
-        notes.append(
-            "allocation parameters ranked by correlation of |deviation| with failure in the Monte Carlo"
-        )
-    elif method == "sobol":
-        scores = {r["parameter"]: r["total_index"] for r in record["sobol"]["pass"]}
-        measure = "total Sobol index of pass/fail"
-    else:
-        scores = {r["parameter"]: r["mu_star"] for r in record["morris"]["pass"]}
-        measure = "Morris mu* of pass/fail"
+        record.update(_morris_fields(model, spec, run, samples, seed=seeds[1], notes=notes))
+    ranking_source, scores, measure = _control_scores(model, record, mc, notes)
     record["control_order"] = control_order(model, scores, measure)
     z_alloc = mc["z"][:ALLOCATION_SAMPLES]
     nominal_passed = mc["passed"][:ALLOCATION_SAMPLES]
@@ -1707,8 +1620,8 @@ def run_tolerance(
             record["recentre"] = recentre(
                 model, spec, run, z=z_alloc, free=free, nominal_passed=nominal_passed
             )
-    if allocate > 0 and d:
-        record["allocation"] = allocate_tolerances(
+    record["allocation"] = (
+        allocate_tolerances(
             model,
             spec,
             run,
@@ -1718,8 +1631,9 @@ def run_tolerance(
             nominal_passed=nominal_passed,
             recentred=record["recentre"],
         )
-    else:
-        record["allocation"] = []
+        if allocate > 0 and model.parameters
+        else []
+    )
     record["ranking_resolved"] = record.get("ranking", {}).get("resolved")
     record["settings"] = {
         "method": method,
@@ -1737,6 +1651,155 @@ def run_tolerance(
     if out_dir is not None:
         write_outputs(record, mc, Path(out_dir), figures=figures)
     return record
+
+
+def _nominal_fields(
+    spec: Spec, nominal: dict[str, Any], mc_metrics: dict[str, np.ndarray], notes: list[str]
+) -> dict[str, Any]:
+    """The record's fields on the nominal design: ``nominal`` metrics, the valley-bounded
+    flags, ``nominal_check``, ``nominal_misses`` and ``nominal_closest`` (see
+    :func:`run_tolerance`); a note when valleys are bounded by the sweep end."""
+    bounded = valley_bounded_record(nominal, mc_metrics)
+    if bounded["nominal"] or bounded["samples"]:
+        notes.append(
+            f"valley bounded by the sweep end (the current still falls at the last bias "
+            f"computed): {'the nominal design and ' if bounded['nominal'] else ''}"
+            f"{bounded['samples']} of {bounded['of']} Monte Carlo samples; their valley "
+            "current is an upper bound and valley voltage, PVCR, peak-to-valley differences "
+            "and output power lower bounds (spreads and indices of these figures include "
+            "bounds): raise the sweep's end bias"
+        )
+    check = window_report(spec.windows, nominal)
+    misses = [r["text"] for r in check if not r["inside"]]
+    inside = [r for r in check if r["inside"]]
+    closest = (
+        None
+        if misses or not inside
+        else min(inside, key=lambda r: r["margin"] / (abs(r["bound"]) or 1.0))["text"]
+    )
+    return {
+        "nominal": nominal,
+        VALLEY_BOUNDED: bounded,
+        "nominal_check": check,
+        "nominal_misses": misses,
+        "nominal_closest": closest,
+    }
+
+
+def _sobol_fields(
+    model: GrowthModel,
+    spec: Spec,
+    run: Runner,
+    samples: int,
+    second_order: bool,
+    *,
+    seed: np.random.Generator,
+    notes: list[str],
+) -> dict[str, Any]:
+    """The record's Sobol fields (``sobol``, ``sobol_second_order``, ``sobol_evaluations``,
+    ``ranking``) from :func:`sobol_analysis` within the budget ``samples``."""
+    d = len(model.parameters)
+    per_base = 2 * d + 2 if second_order else d + 2
+    n_base = max(8, 2 ** int(math.floor(math.log2(max(1, samples // per_base)))))
+    s = sobol_analysis(
+        model,
+        spec,
+        run,
+        base_samples=min(n_base, SOBOL_START_BASE),
+        max_evaluations=n_base * per_base,
+        second_order=second_order,
+        seed=seed,
+    )
+    notes += s["notes"]
+    widest = max((r["total_conf"] for r in s["sobol"]["pass"]), default=0.0)
+    if widest > SOBOL_WIDE_CONF:
+        notes.append(
+            f"Sobol on {s['base_samples']} base samples for {d} parameters: confidence "
+            f"half-widths up to {widest:.2f}, so negative first-order estimates and totals "
+            "above 1 are sampling noise; trust the order of the leading parameters, not the "
+            "values, or rerun with more --samples (the half-widths shrink as 1/sqrt(samples))"
+        )
+    out = {
+        "sobol": s["sobol"],
+        "sobol_evaluations": s["evaluations"],
+        "ranking": {
+            **s["resolution"],
+            "measure": "total Sobol index of pass/fail",
+            "evaluations": s["evaluations"],
+            "budget": samples,
+        },
+    }
+    if second_order:
+        out["sobol_second_order"] = s["sobol_second_order"]
+    return out
+
+
+def _morris_fields(
+    model: GrowthModel,
+    spec: Spec,
+    run: Runner,
+    samples: int,
+    *,
+    seed: np.random.Generator,
+    notes: list[str],
+) -> dict[str, Any]:
+    """The record's Morris fields (``morris``, ``ranking``) from :func:`morris_analysis`:
+    a quarter of the budget's trajectories first, doubled until resolved."""
+    budget_t = max(2, samples // (len(model.parameters) + 1))
+    m = morris_analysis(
+        model,
+        spec,
+        run,
+        trajectories=budget_t,
+        start_trajectories=max(2, budget_t // 4),
+        seed=seed,
+    )
+    notes += m["notes"]
+    return {
+        "morris": m["morris"],
+        "ranking": {
+            **m["resolution"],
+            "measure": "Morris mu* of pass/fail",
+            "evaluations": m["evaluations"],
+            "budget": samples,
+        },
+    }
+
+
+def _control_scores(
+    model: GrowthModel, record: dict[str, Any], mc: dict[str, Any], notes: list[str]
+) -> tuple[list[str], dict[str, float], str]:
+    """The parameters to allocate (most important first), their scores and the measure: the
+    resolved Sobol ranking, else Morris mu* of pass/fail, else the Monte Carlo correlation of
+    |deviation| with failure (a cheap fallback, noted). Sobol parameters indistinguishable
+    from zero are not ranked."""
+    sobol_pass = record["sobol"].get("pass", [])
+    morris_pass = record["morris"].get("pass", [])
+    if record["sobol"] and record["ranking"]["ranked"]:
+        return (
+            record["ranking"]["ranked"],
+            {r["parameter"]: r["total_index"] for r in sobol_pass},
+            "total Sobol index of pass/fail",
+        )
+    if any(r["mu_star"] > 0 for r in morris_pass):
+        return (
+            [r["parameter"] for r in morris_pass],
+            {r["parameter"]: r["mu_star"] for r in morris_pass},
+            "Morris mu* of pass/fail",
+        )
+    fail = (~mc["passed"]).astype(float)
+    score = [
+        abs(np.corrcoef(np.abs(mc["z"][:, j]), fail)[0, 1]) if fail.std() > 0 else 0.0
+        for j in range(len(model.parameters))
+    ]
+    notes.append(
+        "allocation parameters ranked by correlation of |deviation| with failure in the Monte Carlo"
+    )
+    return (
+        [model.names[j] for j in np.argsort(score)[::-1]],
+        dict(zip(model.names, map(float, score), strict=True)),
+        "correlation of |deviation| with failure (Monte Carlo)",
+    )
 
 
 #: The growth sheet of the re-centred design (written when it is a measurable gain).
