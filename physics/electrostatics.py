@@ -401,6 +401,41 @@ def extended_slice_grid(
     return SliceGrid(layer_index=li, width_nm=width, center_nm=center)
 
 
+def potential_on_grid(
+    potential_ev: np.ndarray, source_center_nm: np.ndarray, target_center_nm: np.ndarray
+) -> np.ndarray:
+    """A potential on one slice grid carried to another of the same stacks, by position.
+
+    A batch's per-layer slice counts follow its thickest stack
+    (:func:`physics.bands.slice_grid`), so a solve of some of a batch's stacks has another
+    grid than the batch's; this moves a start potential between them (linear between
+    nodes; the potential is continuous).
+
+    Parameters
+    ----------
+    potential_ev
+        ``(n_stacks, n_biases, n_source)`` potential on the source nodes, eV.
+    source_center_nm, target_center_nm
+        ``(n_stacks, n_source)`` and ``(n_stacks, n_target)`` node positions, nm
+        (:attr:`SliceGrid.center_nm`).
+
+    Returns
+    -------
+    ndarray
+        ``(n_stacks, n_biases, n_target)``; ``potential_ev`` itself when the grids agree.
+    """
+    if source_center_nm.shape == target_center_nm.shape and np.array_equal(
+        source_center_nm, target_center_nm
+    ):
+        return potential_ev
+    n_stacks, n_biases = potential_ev.shape[:2]
+    out = np.empty((n_stacks, n_biases, target_center_nm.shape[1]))
+    for s in range(n_stacks):
+        for b in range(n_biases):
+            out[s, b] = np.interp(target_center_nm[s], source_center_nm[s], potential_ev[s, b])
+    return out
+
+
 def _barrier_region(table: LayerTable, grid: SliceGrid) -> tuple[np.ndarray, np.ndarray]:
     """Mask of slices inside [first barrier, last barrier] and the split position, per stack."""
     edge = table.edge_ev

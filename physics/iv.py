@@ -451,15 +451,26 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
     each step; stacks already settled repeat their last bias.
 
     Returns the up sweep's peak bias and current, and the window (last bias
-    on the charged branch minus ``vp``; 0 where the I-V is single-valued).
+    on the charged branch minus ``vp``; 0 where the I-V is single-valued). ``peak`` is
+    the node positions (``(n_stacks, n_nodes)``, nm) and solution of the peak's solve.
     The down branch is taken to be the single-solve one (checked against
     :func:`sweep_hysteresis` on the InP example stack: the down sweep follows
     the single solves there).
     """
-    from .electrostatics import ElectrostaticsConvergenceError
+    from .electrostatics import (
+        ElectrostaticsConvergenceError,
+        extended_slice_grid,
+        potential_on_grid,
+    )
 
     options = {"slice_nm": model.slice_nm}
-    sol = peak[1]  # the solve at vp (made for the peak's band profile)
+    # the solve at vp (made for the peak's band profile, of a batch that may hold more
+    # stacks, so on a grid with more slices per layer): carried to this batch's grid
+    source_center_nm, sol = peak
+    target_center_nm = extended_slice_grid(table, slice_nm=model.slice_nm).center_nm
+    sol = replace(
+        sol, potential_ev=potential_on_grid(sol.potential_ev, source_center_nm, target_center_nm)
+    )
 
     def continued(v, state):
         g_, s_ = solve_stack_poisson(
@@ -712,7 +723,7 @@ def sweep(
                 after_v[k],
                 after_j[k],
                 vv[k],
-                peak=(peak_solution[0], _take_solution(peak_solution[1], k)),
+                peak=(peak_solution[0].center_nm[k], _take_solution(peak_solution[1], k)),
             )
             vp_up, jp_up, window = vp.copy(), jp.copy(), window.copy()
             better = up_j > jp[k]

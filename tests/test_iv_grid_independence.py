@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from wellwright.physics.iv import sweep, sweep_hysteresis
+from wellwright.physics.iv import FOLD_TOLERANCE_V, current_at_bias, sweep, sweep_hysteresis
 from wellwright.physics.stack import load_stack
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -85,3 +85,41 @@ def test_bistable_window_reported_with_the_up_sweep() -> None:
     assert inside.any() and np.all(up[inside] > 2.0 * down[inside])  # two branches
     assert broad["peak_current_density_up_a_cm2"] == pytest.approx(up.max(), rel=J_RTOL)
     assert broad["peak_voltage_up_v"] == pytest.approx(bias[np.argmax(up)], abs=V_ATOL)
+
+
+def test_up_branch_starts_from_a_peak_solved_in_a_larger_batch() -> None:
+    # A regression found by running the demo: the up branch continues the peak's solve of the
+    # stacks with NDR, but only for those whose current fell just above the peak, and a
+    # Poisson grid's slices per layer follow the batch's thickest stack. When the subset lost
+    # that stack the start potential had one node too many (a broadcast error ended the run).
+    # The start is now carried to the subset's grid by position; the result must be the one
+    # of a peak solved with the stack alone (same solution, other start: to the solver's
+    # tolerance). No external reference: a property of the continuation, not of the physics.
+    from wellwright.physics.current import EnergyGrid
+    from wellwright.physics.iv import _solve_at, _take_solution, _up_branch
+
+    stack = load_stack(BROAD)
+    model = dataclasses.replace(stack.model, electrostatics="self-consistent", transport="coherent")
+    alone = stack.table()
+    thick = alone.thickness_nm.copy()
+    thick[0, -2] += 3.0  # the collector spacer 3 nm thicker: more slices in that layer
+    pair = alone.take(np.array([0, 0])).with_thickness_nm(
+        np.vstack([alone.thickness_nm[0], thick[0]])
+    )
+    m = _metrics(BROAD, 61)
+    vp = np.array([m["peak_voltage_v"]])
+    v_after = vp + 5e-3  # inside the window (test above: some 19 mV)
+    j_after = current_at_bias(alone, v_after[:, None], model=model)[:, 0]
+    vv = np.array([m["valley_voltage_v"]])
+    grid = EnergyGrid()
+    results = []
+    for peak_table, rows in ((alone, [0]), (pair, [0])):
+        g, sol = _solve_at(peak_table, np.array([[vp[0]], [vp[0]]])[: peak_table.n_stacks], model)
+        peak = (g.center_nm[rows], _take_solution(sol, np.array(rows)))
+        results.append(_up_branch(alone, model, grid, vp, v_after, j_after, vv, peak=peak))
+    (v1, j1, w1), (v2, j2, w2) = results
+    assert w1[0] > 0.0  # bistable: the case that takes the continuation
+    assert v2 == pytest.approx(v1, abs=FOLD_TOLERANCE_V) and w2 == pytest.approx(
+        w1, abs=FOLD_TOLERANCE_V
+    )
+    assert j2 == pytest.approx(j1, rel=1e-3)

@@ -421,19 +421,25 @@ def test_dask_backend_gives_the_same_metrics(stack):
 # --------------------------------------------------------------------------- failed solves
 
 
-def test_failed_self_consistent_solves_are_counted_not_fatal(stack, monkeypatch):
+@pytest.mark.parametrize("kind", ["no convergence", "program fault"])
+def test_failed_self_consistent_solves_are_counted_not_fatal(stack, monkeypatch, kind):
     # issue 12: one as-grown sample whose self-consistent solve does not converge must not end
     # the run; it is a failed sample, counted as such. The failure is invented (a stand-in sweep
-    # raising for samples with a thicker first barrier); the rest is the real physics.
+    # raising for samples with a thicker first barrier); the rest is the real physics. A fault
+    # of the program (as a broadcast error in the up-branch continuation once was) is handled
+    # the same way, and said with a warning.
+    import warnings
+
     import wellwright.optimize.tolerance.analysis as analysis
     from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 
     real = analysis.sweep
     nominal = stack.table().thickness_nm[0, 2]
+    error = ElectrostaticsConvergenceError if kind == "no convergence" else ValueError
 
     def flaky(table, bias_v, **kw):
         if np.any(table.thickness_nm[:, 2] > nominal + 0.1):
-            raise ElectrostaticsConvergenceError("did not converge (invented for the test)")
+            raise error(f"{kind} (invented for the test)")
         return real(table, bias_v, **kw)
 
     monkeypatch.setattr(analysis, "sweep", flaky)
@@ -441,7 +447,10 @@ def test_failed_self_consistent_solves_are_counted_not_fatal(stack, monkeypatch)
     model = growth_model(stack, g)
     spec = Spec((("pvcr", 3.0, np.inf),))
     run = Runner(np.linspace(0.0, 1.0, 21), batch_size=8)
-    mc = monte_carlo_yield(model, spec, run, samples=24, seed=5)
+    with warnings.catch_warnings(record=True) as said:
+        warnings.simplefilter("always")
+        mc = monte_carlo_yield(model, spec, run, samples=24, seed=5)
+    faults = [w for w in said if "counted as a failed sample" in str(w.message)]
     # a sample fails when any of its island stacks has the thicker barrier
     grown = model.grow(mc["z"])
     thick_row = grown.table.thickness_nm[:, 2] > nominal + 0.1
@@ -453,6 +462,7 @@ def test_failed_self_consistent_solves_are_counted_not_fatal(stack, monkeypatch)
     assert np.all(np.isfinite(mc["metrics"]["peak_current_density_a_cm2"][~failed]))
     assert mc["failures"]["solve_failed"] == int(thick.sum())
     assert not np.any(mc["passed"][failed])
+    assert len(faults) == (int(thick.sum()) if error is ValueError else 0)
 
 
 def test_island_layers_are_the_barriers_first(stack, oat):

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import math
 import os
+import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -176,7 +177,9 @@ def batch_metrics(
     """Metrics of a batch (of devices, with area ``weights``: see
     :func:`wellwright.physics.iv.sweep`, also for ``at_bias_v`` and ``area_um2``); where the
     self-consistent solve fails, each device alone, and a device that still fails gets NaN
-    metrics and :data:`SOLVE_FAILED` set (a failed sample, counted, never the end of the run)."""
+    metrics and :data:`SOLVE_FAILED` set (a failed sample, counted, never the end of the run).
+    Any other error is handled the same way and also printed with the device's layer
+    thicknesses, since it is a fault of the program to be reported, not of the sample."""
     n = table.n_stacks if weights is None else weights.shape[0]
     keys = metric_keys(at_bias_v, area_um2)
     try:
@@ -190,8 +193,15 @@ def batch_metrics(
             area_um2=area_um2,
         ).metrics
         return {**{k: metrics[k] for k in keys}, SOLVE_FAILED: np.zeros(n)}
-    except ElectrostaticsConvergenceError:
+    except Exception as error:
         if n == 1:
+            if not isinstance(error, ElectrostaticsConvergenceError):
+                warnings.warn(
+                    f"a sample failed with {type(error).__name__}: {error} (layer thicknesses "
+                    f"{np.round(table.thickness_nm, 3).tolist()} nm); counted as a failed "
+                    "sample, please report it",
+                    stacklevel=1,
+                )
             nan = {name: np.full(1, np.nan) for name in keys}
             return {**nan, SOLVE_FAILED: np.ones(1)}
     parts = []
