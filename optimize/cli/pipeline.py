@@ -299,27 +299,7 @@ def run_pipeline(
         When no searched design meets the spec (unless ``continue_infeasible``).
     """
     path = Path(study_path)
-    try:
-        study_bytes = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError("file not found", source=str(path)) from None
-    except OSError as exc:
-        raise InputError(f"cannot read file ({exc.strerror})", source=str(path)) from None
-    study = study_from_text(
-        study_bytes,
-        source=str(path),
-        name=path.stem,
-        base_dir=path.parent,
-    )
-    s = run_settings(study, settings)
-    if (study.search.trials if s.trials is None else s.trials) < 1:
-        raise InputError("a run needs at least one trial", source=study.source, key="search.trials")
-    if not study.targets:
-        raise InputError(
-            "the tolerance stage needs at least one window (e.g. pvcr = {min = 3})",
-            source=study.source,
-            key="targets",
-        )
+    study_bytes, study, s = _checked_study(path, settings)
     run_dir = check_output_folder(out_dir, key="--out")
     if run_dir.is_dir() and not _is_run_folder(run_dir):
         raise InputError(
@@ -327,19 +307,7 @@ def run_pipeline(
             key="--out",
             source=str(run_dir),
         )
-    # the linked calibration shapes every result: kept beside the study copy (the report
-    # reads it from there) and part of every stage's fingerprint (a new calibration reruns)
-    cal = linked_calibration(study)
-    cal_bytes = None if cal is None else cal.read_bytes()  # parse_study read it a moment ago
-    inputs = study_bytes if cal_bytes is None else study_bytes + b"\0calibration\0" + cal_bytes
-    # the first bytes written are the study copy, so a run stopped at any later moment
-    # (even before pipeline.json exists) is a run folder that the same command resumes
-    remove_temporaries(run_dir)
-    atomic_write(run_dir / STUDY_COPY, study_bytes)
-    if cal_bytes is not None:
-        atomic_write(run_dir / CALIBRATION_COPY, cal_bytes)
-    else:
-        (run_dir / CALIBRATION_COPY).unlink(missing_ok=True)
+    inputs = _write_inputs(run_dir, study, study_bytes)
     old: dict[str, Any] = {}
     if (run_dir / PIPELINE_FILE).is_file():
         old = load_run(run_dir)
@@ -357,30 +325,7 @@ def run_pipeline(
         "settings": asdict(s),
         "stages": dict(old.get("stages", {})),
     }
-    stages = record["stages"]
-    fp = _stage_fingerprints(inputs, s, None)
-
-    # search
-    prev = stages.get("search", {})
-    done = (
-        prev.get("status") == "done"
-        and prev.get("fingerprint") == fp["search"]
-        and (run_dir / "search" / "designs.json").is_file()
-        and (run_dir / "search" / TRIALS_FILE).is_file()  # absent in folders before it existed
-    )
-    if done:
-        _log(progress, "search: done earlier, skipped")
-    else:
-        _log(progress, "search: running (resumes from its storage)")
-        stages["search"] = {"status": "running", "fingerprint": fp["search"]}
-        stages.pop("report", None)
-        _save(run_dir, record)
-        stages["search"] = {
-            "status": "done",
-            "fingerprint": fp["search"],
-            **_stage_search(study, s, run_dir, progress),
-        }
-        _save(run_dir, record)
+    _search_stage(study, s, run_dir, record, _stage_fingerprints(inputs, s, None), progress)
     # the copy the report reads; written once the search accepted this file
     designs = json.loads((run_dir / "search" / "designs.json").read_text(encoding="utf-8"))
     chosen = designs[: s.designs]
@@ -392,8 +337,97 @@ def run_pipeline(
     if not chosen[0].get("feasible") and not continue_infeasible:
         raise SpecNotMet(closest_miss(study, chosen[0]))
     fp = _stage_fingerprints(inputs, s, chosen)
+    _tolerance_stage(study, s, run_dir, record, fp, chosen, progress)
+    _report_stage(run_dir, record, fingerprint(fp), report, progress)
+    return record
 
-    # tolerance, one design at a time
+
+def _checked_study(path: Path, settings: dict[str, Any] | None) -> tuple[bytes, Study, RunSettings]:
+    """The study file's bytes, the study and the run's settings, checked before anything is
+    written (:class:`InputError` otherwise)."""
+    try:
+        study_bytes = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError("file not found", source=str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read file ({exc.strerror})", source=str(path)) from None
+    study = study_from_text(study_bytes, source=str(path), name=path.stem, base_dir=path.parent)
+    s = run_settings(study, settings)
+    if (study.search.trials if s.trials is None else s.trials) < 1:
+        raise InputError("a run needs at least one trial", source=study.source, key="search.trials")
+    if not study.targets:
+        raise InputError(
+            "the tolerance stage needs at least one window (e.g. pvcr = {min = 3})",
+            source=study.source,
+            key="targets",
+        )
+    return study_bytes, study, s
+
+
+def _write_inputs(run_dir: Path, study: Study, study_bytes: bytes) -> bytes:
+    """Copy the study (and the calibration it links to) into the run folder; returns the bytes
+    every stage's fingerprint is made of.
+
+    The linked calibration shapes every result: kept beside the study copy (the report reads
+    it from there) and part of every fingerprint (a new calibration reruns). The first bytes
+    written are the study copy, so a run stopped at any later moment (even before
+    ``pipeline.json`` exists) is a run folder that the same command resumes.
+    """
+    cal = linked_calibration(study)
+    cal_bytes = None if cal is None else cal.read_bytes()  # parse_study read it a moment ago
+    remove_temporaries(run_dir)
+    atomic_write(run_dir / STUDY_COPY, study_bytes)
+    if cal_bytes is None:
+        (run_dir / CALIBRATION_COPY).unlink(missing_ok=True)
+        return study_bytes
+    atomic_write(run_dir / CALIBRATION_COPY, cal_bytes)
+    return study_bytes + b"\0calibration\0" + cal_bytes
+
+
+def _search_stage(
+    study: Study,
+    s: RunSettings,
+    run_dir: Path,
+    record: dict[str, Any],
+    fp: dict[str, str],
+    progress: bool,
+) -> None:
+    """The search stage: skipped when done with the same fingerprint, else run (resuming
+    from its storage), recorded in ``record['stages']`` and saved before and after."""
+    stages = record["stages"]
+    prev = stages.get("search", {})
+    if (
+        prev.get("status") == "done"
+        and prev.get("fingerprint") == fp["search"]
+        and (run_dir / "search" / "designs.json").is_file()
+        and (run_dir / "search" / TRIALS_FILE).is_file()  # absent in folders before it existed
+    ):
+        _log(progress, "search: done earlier, skipped")
+        return
+    _log(progress, "search: running (resumes from its storage)")
+    stages["search"] = {"status": "running", "fingerprint": fp["search"]}
+    stages.pop("report", None)
+    _save(run_dir, record)
+    stages["search"] = {
+        "status": "done",
+        "fingerprint": fp["search"],
+        **_stage_search(study, s, run_dir, progress),
+    }
+    _save(run_dir, record)
+
+
+def _tolerance_stage(
+    study: Study,
+    s: RunSettings,
+    run_dir: Path,
+    record: dict[str, Any],
+    fp: dict[str, str],
+    chosen: list[dict[str, Any]],
+    progress: bool,
+) -> None:
+    """The tolerance stage, one chosen design at a time, each skipped when done with the same
+    fingerprint; designs no longer chosen leave the record."""
+    stages = record["stages"]
     tol = dict(stages.get("tolerance", {}))
     wanted = {f"rank{d['rank']:02d}" for d in chosen}
     for key in list(tol):
@@ -435,8 +469,16 @@ def run_pipeline(
         _save(run_dir, record)
     stages["tolerance"] = tol
 
-    # report
-    report_fp = fingerprint(fp)
+
+def _report_stage(
+    run_dir: Path,
+    record: dict[str, Any],
+    report_fp: str,
+    report: Callable[..., Any] | None,
+    progress: bool,
+) -> None:
+    """The report stage: skipped when done with the same fingerprint, else built."""
+    stages = record["stages"]
     prev = stages.get("report", {})
     if (
         prev.get("status") == "done"
@@ -444,7 +486,7 @@ def run_pipeline(
         and (run_dir / "report.html").is_file()
     ):
         _log(progress, "report: done earlier, skipped")
-        return record
+        return
     _log(progress, "report: building")
     if report is None:
         from wellwright.optimize.report.build import build_report
@@ -459,4 +501,3 @@ def run_pipeline(
         "file": str(Path(html).relative_to(run_dir)),
     }
     _save(run_dir, record)
-    return record
