@@ -1069,6 +1069,51 @@ def _move_label(
     return ", ".join(parts) or "the nominal rounded to whole monolayers"
 
 
+def _recentre_moves(
+    model: GrowthModel, free: Sequence[FreeThickness], max_candidates: int
+) -> tuple[list[float], list[tuple[int, ...]]]:
+    """The whole-monolayer base of the ``free`` thicknesses and the :func:`neighbourhood`
+    moves from it that stay within their bounds (plus no move at all when a free thickness
+    is fractional: the nominal rounded)."""
+    base = [float(np.round(model.nominal_ml[f.layers[0]])) for f in free]
+    fractional = any(
+        abs(model.nominal_ml[i] - round(model.nominal_ml[i])) > 1e-6 for f in free for i in f.layers
+    )
+    moves = ([tuple([0] * len(free))] if fractional else []) + neighbourhood(
+        len(free), max_candidates=max_candidates
+    )
+
+    def allowed(move: tuple[int, ...]) -> bool:
+        for f, b, d in zip(free, base, move, strict=True):
+            v = b + d
+            if v < max(1, f.low_ml) or (f.high_ml is not None and v > f.high_ml):
+                return False
+        return True
+
+    return base, [m for m in moves if allowed(m)]
+
+
+def _recentre_text(
+    label: str, new_y: dict[str, Any], old_y: dict[str, Any], gain: dict[str, Any], better: bool
+) -> str:
+    """The one sentence on the confirmed re-centring: yields, gain and the verdict."""
+    verdict = "a measurable gain" if better else "not a measurable gain (within the yield's noise)"
+    keep = (
+        ""
+        if better
+        else "; keep the nominal" + (" (more samples would tell)" if gain["gain"] > 0 else "")
+    )
+    head = (
+        f"re-centre to {label}: yield " if better else f"the best nearby design ({label}) yields "
+    )
+    return (
+        f"{head}{100 * new_y['value']:.0f} % "
+        f"({100 * new_y['ci_low']:.0f} to {100 * new_y['ci_high']:.0f} %) against "
+        f"{100 * old_y['value']:.0f} % for the nominal on the same "
+        f"{new_y['samples']} samples, {100 * gain['gain']:+.0f} points: {verdict}{keep}"
+    )
+
+
 def recentre(
     model: GrowthModel,
     spec: Spec,
@@ -1110,22 +1155,7 @@ def recentre(
     if nominal_passed is None:
         nominal_passed = spec.passes(run(model.grow(z, sigma_scale=scale), desc="nominal"))
     nominal_passed = np.asarray(nominal_passed, bool)
-    base = [float(np.round(model.nominal_ml[f.layers[0]])) for f in free]
-    fractional = any(
-        abs(model.nominal_ml[i] - round(model.nominal_ml[i])) > 1e-6 for f in free for i in f.layers
-    )
-    moves = ([tuple([0] * len(free))] if fractional else []) + neighbourhood(
-        len(free), max_candidates=max_candidates
-    )
-
-    def allowed(move: tuple[int, ...]) -> bool:
-        for f, b, d in zip(free, base, move, strict=True):
-            v = b + d
-            if v < max(1, f.low_ml) or (f.high_ml is not None and v > f.high_ml):
-                return False
-        return True
-
-    moves = [m for m in moves if allowed(m)]
+    base, moves = _recentre_moves(model, free, max_candidates)
     free_rec = [
         {
             "name": f.name,
@@ -1156,13 +1186,9 @@ def recentre(
     if not moves:
         out.update(
             candidates=[],
-            budget={
-                "candidates": 0,
-                "screen_samples": 0,
-                "confirm_samples": 0,
-                "devices": 0,
-                "stacks": 0,
-            },
+            budget=dict.fromkeys(
+                ("candidates", "screen_samples", "confirm_samples", "devices", "stacks"), 0
+            ),
             text="no whole-monolayer design within two monolayers stays inside the study's ranges",
         )
         return out
@@ -1229,7 +1255,6 @@ def recentre(
         "layers": layer_records(models[best].stack),
     }
     better = bool(gain["measurable"] and gain["gain"] > 0)
-    verdict = "a measurable gain" if better else "not a measurable gain (within the yield's noise)"
     out.update(
         {
             "budget": budget,
@@ -1242,23 +1267,7 @@ def recentre(
             "gain": gain,
             "better": better,
             "intervals_overlap": bool(new_y["ci_low"] <= old_y["ci_high"]),
-            "text": (
-                (
-                    f"re-centre to {label}: yield "
-                    if better
-                    else f"the best nearby design ({label}) yields "
-                )
-                + f"{100 * new_y['value']:.0f} % "
-                f"({100 * new_y['ci_low']:.0f} to {100 * new_y['ci_high']:.0f} %) against "
-                f"{100 * old_y['value']:.0f} % for the nominal on the same "
-                f"{new_y['samples']} samples, {100 * gain['gain']:+.0f} points: {verdict}"
-                + (
-                    ""
-                    if better
-                    else "; keep the nominal"
-                    + (" (more samples would tell)" if gain["gain"] > 0 else "")
-                )
-            ),
+            "text": _recentre_text(label, new_y, old_y, gain, better),
         }
     )
     return out
