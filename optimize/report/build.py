@@ -663,14 +663,22 @@ def _allocation_html(
 def _growth(
     records: list[dict], figs: _Figures, files: Path, run_dir: Path, tol_dirs: list[Path]
 ) -> tuple[str, list[dict]]:
-    from wellwright.optimize.report.figures import (
-        ranking_figure,
-        ranking_rows,
-        yield_figure,
-    )
-
+    """The growth-check section: the yields of every design, then one card per design;
+    returns its HTML and the records for ``report.json``."""
+    body = [_yield_summary(records, figs, files)]
     out: list[dict] = []
-    body = []
+    for r, tdir in zip(records, tol_dirs, strict=True):
+        html, rec = _growth_card(r, figs, files, tdir.relative_to(run_dir), tdir)
+        body.append(html)
+        out.append(rec)
+    return "".join(body), out
+
+
+def _yield_summary(records: list[dict], figs: _Figures, files: Path) -> str:
+    """The yield of each design with its interval and failures by spec (``yield.csv``,
+    ``yield.png``) and the wafer yields."""
+    from wellwright.optimize.report.figures import yield_figure
+
     figs.add_figure(yield_figure(records), "yield.png")
     yrows, ycsv = [], []
     for r in records:
@@ -711,101 +719,103 @@ def _growth(
     )
     params = records[0].get("parameters", [])
     spreads = ", ".join(f"{p['name']} {p['sigma']:g} {p['unit']}" for p in params[:6])
-    body.append(
-        "<p>Each design is grown many times in simulation with the study's one-sigma growth "
-        f"spreads ({_esc(spreads)}{', ...' if len(params) > 6 else ''}); the yield is the share "
-        "of as-grown samples that still meet the spec, with its 95 % Wilson score interval "
-        "(E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927)).</p>"
+    return "".join(
+        [
+            "<p>Each design is grown many times in simulation with the study's one-sigma "
+            f"growth spreads ({_esc(spreads)}{', ...' if len(params) > 6 else ''}); the yield "
+            "is the share of as-grown samples that still meet the spec, with its 95 % Wilson "
+            "score interval (E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927)).</p>",
+            _table(["design", "yield", "95 % interval", "passed", "failures by spec"], yrows),
+            _wafer_yield_html(records, files),
+            figs.html(
+                "yield.png",
+                "Yield with its interval (left) and the share of samples "
+                "missing each spec (right; a sample can miss several).",
+                "yield",
+            ),
+        ]
     )
-    body.append(_table(["design", "yield", "95 % interval", "passed", "failures by spec"], yrows))
-    body.append(_wafer_yield_html(records, files))
-    body.append(
-        figs.html(
-            "yield.png",
-            "Yield with its interval (left) and the share of samples "
-            "missing each spec (right; a sample can miss several).",
-            "yield",
+
+
+def _growth_card(r: dict, figs: _Figures, files: Path, where: Path, tdir: Path) -> tuple[str, dict]:
+    """One design's growth check: ranking, control table, wafer map, tornado, allocation and
+    notes (``where``: its tolerance folder within the run folder, ``tdir`` on disk)."""
+    from wellwright.optimize.report.figures import ranking_figure, ranking_rows
+
+    rank = r["design"].get("rank")
+    tag = f"rank{rank:02d}"
+    body = [f'<div class="card"><h3>Growth check of rank {rank}</h3>']
+    method, output, rows = ranking_rows(r)
+    fig = ranking_figure(r)
+    if fig is not None:
+        figs.add_figure(fig, f"{tag}_ranking.png")
+        score = "total_index" if method == "sobol" else "mu_star"
+        write_csv(
+            files / f"ranking_{tag}.csv",
+            ["parameter", method + "_" + score, "output"],
+            [[x["parameter"], x[score], output] for x in rows],
         )
-    )
-    for r, tdir in zip(records, tol_dirs, strict=True):
-        rank = r["design"].get("rank")
-        tag = f"rank{rank:02d}"
-        body.append(f'<div class="card"><h3>Growth check of rank {rank}</h3>')
-        method, output, rows = ranking_rows(r)
-        fig = ranking_figure(r)
-        if fig is not None:
-            figs.add_figure(fig, f"{tag}_ranking.png")
-            score = "total_index" if method == "sobol" else "mu_star"
-            write_csv(
-                files / f"ranking_{tag}.csv",
-                ["parameter", method + "_" + score, "output"],
-                [[x["parameter"], x[score], output] for x in rows],
-            )
-            what = names.words(output)
-            top = ", ".join(_esc(names.parameter_words(x["parameter"])) for x in rows[:3])
-            body.append(
-                f"<p><b>Largest effect on {_esc(what)}:</b> {top} (ranked by "
-                f"{'total Sobol index' if method == 'sobol' else 'Morris mu*'}; the figure "
-                "below). Which to hold tightest for the yield: the pass/fail ranking and the "
-                "control table that follow.</p>"
-            )
-            body.append(_resolution_text(r.get("ranking")))
-            body.append(
-                figs.html(
-                    f"{tag}_ranking.png",
-                    "Growth parameters ranked by their share "
-                    "of the output's variance (Sobol) or mean elementary effect "
-                    "(Morris); bars show 95 % confidence.",
-                    "ranking",
-                )
-            )
-        else:
-            body.append(
-                '<p class="small">No Sobol or Morris ranking in this run '
-                "(method mc, or every index zero).</p>"
-            )
-        body.append(_control_html(r, files, tag))
-        if figs.add_file(tdir / "wafer_map.png", f"{tag}_wafer_map.png") is not None:
-            body.append(
-                figs.html(
-                    f"{tag}_wafer_map.png",
-                    "Wafer map: the probability that a device meets the spec in each "
-                    "equal-area ring (left; from the as-grown samples placed uniformly over the "
-                    "wafer), the nominal design's peak current density across the wafer with "
-                    "only the reactor's radial profile (middle), and both against the radius "
-                    "with 95 % Wilson intervals (right).",
-                    "wafer map",
-                )
-            )
-        src = tdir / "tornado_peak_current_density_a_cm2.png"
-        if figs.add_file(src, f"{tag}_tornado.png") is not None:
-            body.append(
-                figs.html(
-                    f"{tag}_tornado.png",
-                    "Tornado: peak current density when one "
-                    "layer at a time is grown one monolayer thinner or thicker.",
-                    "tornado",
-                )
-            )
-        alloc = r.get("allocation", [])
-        body.append(_allocation_html(r, files, tag, figs, tdir))
-        notes = r.get("notes", [])
-        if notes:
-            body.append('<p class="small">Notes: ' + _esc("; ".join(notes)) + "</p>")
+        what = names.words(output)
+        top = ", ".join(_esc(names.parameter_words(x["parameter"])) for x in rows[:3])
         body.append(
-            f'<p class="small">Full record: <code>{_esc(tdir.relative_to(run_dir))}'
-            "/tolerance.json</code></p></div>"
+            f"<p><b>Largest effect on {_esc(what)}:</b> {top} (ranked by "
+            f"{'total Sobol index' if method == 'sobol' else 'Morris mu*'}; the figure "
+            "below). Which to hold tightest for the yield: the pass/fail ranking and the "
+            "control table that follow.</p>"
         )
-        out.append(
-            {
-                "rank": rank,
-                "yield": r["yield"],
-                "failures": r["failures"],
-                "ranking": {"method": method, "output": output, "rows": rows},
-                "allocation": alloc,
-            }
+        body.append(_resolution_text(r.get("ranking")))
+        body.append(
+            figs.html(
+                f"{tag}_ranking.png",
+                "Growth parameters ranked by their share "
+                "of the output's variance (Sobol) or mean elementary effect "
+                "(Morris); bars show 95 % confidence.",
+                "ranking",
+            )
         )
-    return "".join(body), out
+    else:
+        body.append(
+            '<p class="small">No Sobol or Morris ranking in this run '
+            "(method mc, or every index zero).</p>"
+        )
+    body.append(_control_html(r, files, tag))
+    if figs.add_file(tdir / "wafer_map.png", f"{tag}_wafer_map.png") is not None:
+        body.append(
+            figs.html(
+                f"{tag}_wafer_map.png",
+                "Wafer map: the probability that a device meets the spec in each "
+                "equal-area ring (left; from the as-grown samples placed uniformly over the "
+                "wafer), the nominal design's peak current density across the wafer with "
+                "only the reactor's radial profile (middle), and both against the radius "
+                "with 95 % Wilson intervals (right).",
+                "wafer map",
+            )
+        )
+    src = tdir / "tornado_peak_current_density_a_cm2.png"
+    if figs.add_file(src, f"{tag}_tornado.png") is not None:
+        body.append(
+            figs.html(
+                f"{tag}_tornado.png",
+                "Tornado: peak current density when one "
+                "layer at a time is grown one monolayer thinner or thicker.",
+                "tornado",
+            )
+        )
+    body.append(_allocation_html(r, files, tag, figs, tdir))
+    notes = r.get("notes", [])
+    if notes:
+        body.append('<p class="small">Notes: ' + _esc("; ".join(notes)) + "</p>")
+    body.append(
+        f'<p class="small">Full record: <code>{_esc(where)}/tolerance.json</code></p></div>'
+    )
+    rec = {
+        "rank": rank,
+        "yield": r["yield"],
+        "failures": r["failures"],
+        "ranking": {"method": method, "output": output, "rows": rows},
+        "allocation": r.get("allocation", []),
+    }
+    return "".join(body), rec
 
 
 def _search_figures(study: Study, points: list[dict[str, Any]], figs: _Figures) -> str:
