@@ -171,22 +171,7 @@ def run(args: argparse.Namespace) -> int:
     _check_args(args)
     study = load_study(args.study)
     search_dir = Path(args.search_dir) if args.search_dir else Path(f"{study.name}_out")
-    file_growth: dict[str, Any] = {}
-    is_rank = args.design.isascii() and args.design.isdigit()  # not '²' or Arabic-Indic digits
-    if args.design == "best" or is_rank:
-        if is_rank and int(args.design) < 1:
-            raise InputError("ranks start at 1", key="--design")
-        stack, design = _from_search(study, args.design, search_dir)
-        label = "best" if args.design == "best" else f"rank{int(args.design)}"
-    else:
-        path = Path(args.design)
-        if not path.is_file():
-            raise InputError(
-                f"{args.design!r} is neither 'best', a rank nor an existing stack file",
-                key="--design",
-            )
-        stack, design, file_growth = _from_file(study, path)
-        label = path.stem
+    stack, design, file_growth, label = _chosen_design(args, study, search_dir)
     settings, per_layer = parse_growth(
         study.reserved.get("growth"),
         {**study.layer_growth, **file_growth},
@@ -207,19 +192,7 @@ def run(args: argparse.Namespace) -> int:
         else np.linspace(sw.bias_min_v, sw.bias_max_v, args.bias_points)
     )
     out = Path(args.out) if args.out else search_dir / f"tolerance_{label}"
-
-    backend = None
-    n_jobs = args.jobs or os.cpu_count() or 1
-    if args.cluster:
-        try:
-            from dask.distributed import Client
-        except ImportError:
-            raise InputError(
-                "needs dask.distributed installed (pip install 'dask[distributed]')",
-                key="--cluster",
-            ) from None
-        Client(args.cluster)  # registers itself as joblib's dask backend target
-        backend, n_jobs = "dask", -1
+    backend, n_jobs = _parallelism(args)
     runner = Runner.for_stack(
         stack,
         bias,
@@ -242,6 +215,51 @@ def run(args: argparse.Namespace) -> int:
         second_order=args.second_order,
         variables=study.variables,
     )
+    _print_summary(rec)
+    print(f"results in {out}/ (tolerance.json, samples.csv, figures)")
+    return 0
+
+
+def _chosen_design(
+    args: argparse.Namespace, study: Study, search_dir: Path
+) -> tuple[Stack, dict[str, Any], dict[str, Any], str]:
+    """The design ``--design`` names: the stack, its design record, the growth keys of its
+    file (empty for a design of the search) and the label of its output folder."""
+    is_rank = args.design.isascii() and args.design.isdigit()  # not '²' or Arabic-Indic digits
+    if args.design == "best" or is_rank:
+        if is_rank and int(args.design) < 1:
+            raise InputError("ranks start at 1", key="--design")
+        stack, design = _from_search(study, args.design, search_dir)
+        return stack, design, {}, "best" if args.design == "best" else f"rank{int(args.design)}"
+    path = Path(args.design)
+    if not path.is_file():
+        raise InputError(
+            f"{args.design!r} is neither 'best', a rank nor an existing stack file",
+            key="--design",
+        )
+    stack, design, file_growth = _from_file(study, path)
+    return stack, design, file_growth, path.stem
+
+
+def _parallelism(args: argparse.Namespace) -> tuple[str | None, int]:
+    """joblib's backend and workers: ``--jobs`` local workers (default: every core), or every
+    worker of the dask cluster ``--cluster``."""
+    if not args.cluster:
+        return None, args.jobs or os.cpu_count() or 1
+    try:
+        from dask.distributed import Client
+    except ImportError:
+        raise InputError(
+            "needs dask.distributed installed (pip install 'dask[distributed]')",
+            key="--cluster",
+        ) from None
+    Client(args.cluster)  # registers itself as joblib's dask backend target
+    return "dask", -1
+
+
+def _print_summary(rec: dict[str, Any]) -> None:
+    """The tolerance record in a few lines: yields, failures, ranking, what to control,
+    the nominal against the spec, re-centring, allocation and notes."""
     y = rec["yield"]
     print(
         f"yield {100 * y['value']:.1f} % (95 % Wilson interval {100 * y['ci_low']:.1f} to "
@@ -284,5 +302,3 @@ def run(args: argparse.Namespace) -> int:
         )
     for note in rec["notes"]:
         print(f"note: {note}")
-    print(f"results in {out}/ (tolerance.json, samples.csv, figures)")
-    return 0
