@@ -867,6 +867,49 @@ def _calibration_note(study) -> str:
     )
 
 
+def _finished_tolerance_dirs(run_dir: Path, record: dict[str, Any]) -> dict[str, Path]:
+    """The tolerance folders of the designs whose tolerance stage finished (``rankNN`` ->
+    folder), by rank;
+    :class:`InputError` when the search or every tolerance stage has not finished."""
+    stages = record.get("stages", {})
+    if stages.get("search", {}).get("status") != "done":
+        raise InputError(
+            "the search stage has not finished; rerun 'wellwright run'", source=str(run_dir)
+        )
+    tol = stages.get("tolerance", {})
+    done = sorted(k for k, v in tol.items() if v.get("status") == "done")
+    if not done:
+        raise InputError("no finished tolerance stage; rerun 'wellwright run'", source=str(run_dir))
+    return {k: run_dir / tol[k]["dir"] for k in done}
+
+
+def _reproduce_html(
+    record: dict[str, Any], run_dir: Path, vers: dict[str, str], seeds: dict[str, Any]
+) -> str:
+    """How to reproduce the run: the study's fingerprint, the command, versions, seeds,
+    settings and the search storage."""
+    search = record["stages"]["search"]
+    settings = record.get("settings", {})
+    vrows = [[_esc(k), _esc(v)] for k, v in vers.items()]
+    srows = [[_esc(k), _esc(v)] for k, v in seeds.items()]
+    srows += [[_esc(k), _esc(v)] for k, v in settings.items() if k not in ("seed",)]
+    src = Path(record["study"]["path"])
+    return (
+        "<p>The same study file, settings, seeds and versions give the same numbers. The study "
+        f"file as run is kept in <code>study.toml</code> (fingerprint "
+        f"<code>{_esc(record['study']['fingerprint'])}</code>); rerun with</p>"
+        f"<pre><code>wellwright run {_esc(src.name)} --out {_esc(run_dir.name)}</code></pre>"
+        + '<div class="pair"><div>'
+        + _table(["package", "version"], vrows)
+        + "</div><div>"
+        + _table(["setting", "value"], srows)
+        + "</div></div>"
+        + f'<p class="small">Search storage: <code>{_esc(search.get("storage"))}</code> '
+        f"(study <code>{_esc(search.get('study_name'))}</code>; open it with optuna.load_study "
+        "or the Optuna dashboard).</p>"
+    )
+
+
 def build_report(run_dir: str | Path) -> Path:
     """(Re)build ``DIR/report.html`` and ``DIR/report_files/`` from a finished run.
 
@@ -879,18 +922,11 @@ def build_report(run_dir: str | Path) -> Path:
     run_dir = Path(run_dir)
     record = load_run(run_dir)
     stages = record.get("stages", {})
-    if stages.get("search", {}).get("status") != "done":
-        raise InputError(
-            "the search stage has not finished; rerun 'wellwright run'", source=str(run_dir)
-        )
-    tol = stages.get("tolerance", {})
-    done = sorted((k for k, v in tol.items() if v.get("status") == "done"))
-    if not done:
-        raise InputError("no finished tolerance stage; rerun 'wellwright run'", source=str(run_dir))
+    finished = _finished_tolerance_dirs(run_dir, record)
     study = study_from_run(run_dir, record)
     designs = json.loads(_read_text(run_dir / "search" / "designs.json"))
-    tol_dirs = [run_dir / tol[k]["dir"] for k in done]
-    reported = [d for d in designs if f"rank{d['rank']:02d}" in done]
+    reported = [d for d in designs if f"rank{d['rank']:02d}" in finished]
+    tol_dirs = [finished[f"rank{d['rank']:02d}"] for d in reported]
     for path in _needed_files(run_dir, reported, tol_dirs):
         if not path.is_file():
             study_path = record.get("study", {}).get("path", "STUDY.toml")
@@ -911,8 +947,7 @@ def build_report(run_dir: str | Path) -> Path:
     figs.add_file(run_dir / "search" / "designs.csv", "designs_ranked.csv")
     figs.names.remove("designs_ranked.csv")
     cards, card_data = [], []
-    for d in reported:
-        tdir = run_dir / tol[f"rank{d['rank']:02d}"]["dir"]
+    for d, tdir in zip(reported, tol_dirs, strict=True):
         h, data = _design_card(d, figs, files, run_dir, tdir / DESIGN_DIR)
         cards.append(h)
         card_data.append(data)
@@ -948,25 +983,8 @@ def build_report(run_dir: str | Path) -> Path:
         + "".join(f"<li>{_esc(a)}</li>" for a in model_assumptions(model))
         + "</ul>"
         f'<div class="caution"><b>Calibrate before a growth decision.</b> {_esc(CAUTION)}</div>',
+        "reproduce": _reproduce_html(record, run_dir, vers, seeds),
     }
-    vrows = [[_esc(k), _esc(v)] for k, v in vers.items()]
-    srows = [[_esc(k), _esc(v)] for k, v in seeds.items()]
-    srows += [[_esc(k), _esc(v)] for k, v in settings.items() if k not in ("seed",)]
-    src = Path(record["study"]["path"])
-    section_body["reproduce"] = (
-        "<p>The same study file, settings, seeds and versions give the same numbers. The study "
-        f"file as run is kept in <code>study.toml</code> (fingerprint "
-        f"<code>{_esc(record['study']['fingerprint'])}</code>); rerun with</p>"
-        f"<pre><code>wellwright run {_esc(src.name)} --out {_esc(run_dir.name)}</code></pre>"
-        + '<div class="pair"><div>'
-        + _table(["package", "version"], vrows)
-        + "</div><div>"
-        + _table(["setting", "value"], srows)
-        + "</div></div>"
-        + f'<p class="small">Search storage: <code>{_esc(search.get("storage"))}</code> '
-        f"(study <code>{_esc(search.get('study_name'))}</code>; open it with optuna.load_study "
-        "or the Optuna dashboard).</p>"
-    )
     for anchor, heading in SECTIONS:
         parts.append(
             f'<section id="{anchor}"><h2>{_esc(heading)}</h2>{section_body[anchor]}</section>'
