@@ -1348,7 +1348,6 @@ def allocate_tolerances(
         nominal_passed = spec.passes(run(model.grow(z, sigma_scale=base), desc="allocate"))
     ok_nominal = np.asarray(nominal_passed, bool)
     y_nominal = float(np.mean(ok_nominal))
-    pct = lambda v: f"{100 * v:.0f} %"  # noqa: E731
     out = []
     for label, idx in groups:
         sig = float(np.max([model.sigmas[j] for j in idx]))
@@ -1385,27 +1384,7 @@ def allocate_tolerances(
         ok_lo = passes_at(0.0)
         rec["yield_held_exactly"] = float(np.mean(ok_lo))
         if np.mean(ok_lo) < target_yield:
-            gain = paired_gain(ok_lo, ok_nominal)
-            rec.update(allowed_sigma=None, yield_at_allowed=float(np.mean(ok_lo)), gain=gain)
-            if not gain["measurable"]:
-                rec.update(
-                    action="no measurable effect",
-                    advice=f"no measurable effect: holding it exactly changes the yield by "
-                    f"{100 * gain['gain']:+.1f} points, within the yield's noise "
-                    f"(+-{100 * gain['yield_half_width']:.1f}); do not tighten it",
-                )
-            else:
-                action, what = _advice_recentre(recentred)
-                why = (
-                    "target missed even with this held exactly"
-                    if gain["gain"] > 0
-                    else "holding this exactly lowers the yield (the nominal misses the spec "
-                    "and the spread carries some samples into it)"
-                )
-                rec.update(
-                    action=action,
-                    advice=f"{why} (yield {pct(np.mean(ok_lo))} against {pct(y_nominal)}); {what}",
-                )
+            rec.update(_missed_when_held(ok_lo, ok_nominal, recentred))
             out.append(rec)
             continue
         lo, hi, ok_best = 0.0, max_scale, ok_lo
@@ -1416,32 +1395,79 @@ def allocate_tolerances(
                 lo, ok_best = mid, ok_mid
             else:
                 hi = mid
-        allowed = lo * sig
-        rec.update(allowed_sigma=float(allowed), yield_at_allowed=float(np.mean(ok_best)))
-        if lo >= 1.0:
-            rec.update(
-                action="keep",
-                advice=f"no tightening needed: the target holds up to {allowed:.3g} {unit}",
-            )
-        else:
-            gain = paired_gain(ok_best, ok_nominal)
-            rec["gain"] = gain
-            if gain["measurable"] and gain["gain"] > 0:
-                rec.update(
-                    action="tighten",
-                    advice=f"tighten from {sig:.3g} to {allowed:.3g} {unit}: yield "
-                    f"{pct(np.mean(ok_best))} ({100 * gain['gain']:+.0f} points, paired "
-                    f"p = {gain['p_value']:.2g})",
-                )
-            else:
-                rec.update(
-                    action="no measurable effect",
-                    advice=f"no measurable effect: tightening it to {allowed:.3g} {unit} changes "
-                    f"the yield by {100 * gain['gain']:+.1f} points, within the yield's noise "
-                    f"(+-{100 * gain['yield_half_width']:.1f}); do not tighten it",
-                )
+        rec.update(_allowed_row(lo, sig, unit, ok_best, ok_nominal))
         out.append(rec)
     return out
+
+
+def _pct(value: float) -> str:
+    return f"{100 * value:.0f} %"
+
+
+def _missed_when_held(
+    ok_held: np.ndarray, ok_nominal: np.ndarray, recentred: dict[str, Any] | None
+) -> dict[str, Any]:
+    """An allocation row's fields when the target is missed even with the parameter held
+    exactly (pass/fail ``ok_held``): no measurable effect, else re-centre or redesign."""
+    gain = paired_gain(ok_held, ok_nominal)
+    row: dict[str, Any] = {
+        "allowed_sigma": None,
+        "yield_at_allowed": float(np.mean(ok_held)),
+        "gain": gain,
+    }
+    if not gain["measurable"]:
+        return {
+            **row,
+            "action": "no measurable effect",
+            "advice": f"no measurable effect: holding it exactly changes the yield by "
+            f"{100 * gain['gain']:+.1f} points, within the yield's noise "
+            f"(+-{100 * gain['yield_half_width']:.1f}); do not tighten it",
+        }
+    action, what = _advice_recentre(recentred)
+    why = (
+        "target missed even with this held exactly"
+        if gain["gain"] > 0
+        else "holding this exactly lowers the yield (the nominal misses the spec "
+        "and the spread carries some samples into it)"
+    )
+    yields = f"yield {_pct(np.mean(ok_held))} against {_pct(np.mean(ok_nominal))}"
+    return {**row, "action": action, "advice": f"{why} ({yields}); {what}"}
+
+
+def _allowed_row(
+    scale: float, sigma: float, unit: str, ok_best: np.ndarray, ok_nominal: np.ndarray
+) -> dict[str, Any]:
+    """An allocation row's fields once the bisection found the largest ``scale`` of the
+    present ``sigma`` that meets the target (pass/fail there ``ok_best``): keep, tighten
+    (a measurable gain) or no measurable effect."""
+    allowed = scale * sigma
+    row: dict[str, Any] = {
+        "allowed_sigma": float(allowed),
+        "yield_at_allowed": float(np.mean(ok_best)),
+    }
+    if scale >= 1.0:
+        return {
+            **row,
+            "action": "keep",
+            "advice": f"no tightening needed: the target holds up to {allowed:.3g} {unit}",
+        }
+    gain = paired_gain(ok_best, ok_nominal)
+    row["gain"] = gain
+    if gain["measurable"] and gain["gain"] > 0:
+        return {
+            **row,
+            "action": "tighten",
+            "advice": f"tighten from {sigma:.3g} to {allowed:.3g} {unit}: yield "
+            f"{_pct(np.mean(ok_best))} ({100 * gain['gain']:+.0f} points, paired "
+            f"p = {gain['p_value']:.2g})",
+        }
+    return {
+        **row,
+        "action": "no measurable effect",
+        "advice": f"no measurable effect: tightening it to {allowed:.3g} {unit} changes "
+        f"the yield by {100 * gain['gain']:+.1f} points, within the yield's noise "
+        f"(+-{100 * gain['yield_half_width']:.1f}); do not tighten it",
+    }
 
 
 # --------------------------------------------------------------------------- driver
