@@ -35,8 +35,10 @@ def register(sub) -> None:
     p = sub.add_parser(
         "iv",
         help="I-V curve, figures of merit and figures of one stack",
-        description="Compute the coherent Tsu-Esaki I-V of a stack file, its peak, valley and PVCR, "
-        "and write iv.csv, metrics.json and three PNG figures.",
+        description="Compute the I-V of a stack file with the model its [model] table sets "
+        "(default: the Tsu-Esaki current plus the scattering-assisted channel, self-consistent "
+        "electrostatics), its peak, valley and PVCR, and write iv.csv, metrics.json and three "
+        "PNG figures.",
     )
     p.add_argument("stack", help="stack file (TOML)")
     p.add_argument(

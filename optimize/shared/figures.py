@@ -131,36 +131,9 @@ def iv_figure(
         end = float(curves.bias_v[-1] if beyond_end else curves.bias_v[0])
         for axis in (ax, lx):
             axis.axvline(end, ls=":", color="0.45", lw=1, label="sweep end" if axis is ax else None)
-    bounded = bool(marks) and m.get("valley_bounded_by_sweep") == 1.0
     if marks:
-        valley_text = (
-            f"$J_v$ ≤ {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
-            f"{m['valley_voltage_v'] * 1e3:.0f} mV, the last bias\ncomputed: the valley lies beyond"
-            if bounded
-            else f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
-            f"{m['valley_voltage_v'] * 1e3:.0f} mV"
-        )
-        pvcr = (
-            f"PVCR {'≥' if bounded else '='} {m['pvcr']:.1f}"
-            if m["pvcr"] is not None
-            else "PVCR undefined (valley current ≤ 0)"
-        )
-        beyond = "\n(continued past the sweep end)" if extended else ""
-        vp_terminal = float(
-            external_bias_v(
-                m["peak_voltage_v"],
-                m["peak_current_density_a_cm2"],
-                series_resistance_ohm_um2=series_resistance_ohm_um2,
-            )
-        )
-        terminal = (
-            f",\n{vp_terminal * 1e3:.0f} mV at the terminals"
-            if series_resistance_ohm_um2 > 0
-            else ""
-        )
         ax.annotate(
-            f"first NDR peak: $J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
-            f"{m['peak_voltage_v'] * 1e3:.0f} mV{terminal}\n{valley_text}\n{pvcr}{beyond}",
+            _peak_valley_text(m, extended, series_resistance_ohm_um2),
             xy=(0.03, 0.97),
             xycoords="axes fraction",
             va="top",
@@ -190,6 +163,39 @@ def iv_figure(
     fig.align_ylabels()
     fig.tight_layout()
     return fig
+
+
+def _peak_valley_text(m: dict, extended: bool, series_resistance_ohm_um2: float) -> str:
+    """The I-V figure's box: Jp and Vp (and Vp at the terminals with a series resistance),
+    Jv and Vv (as bounds when the valley is bounded by the sweep) and the PVCR."""
+    bounded = m.get("valley_bounded_by_sweep") == 1.0
+    valley_text = (
+        f"$J_v$ ≤ {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
+        f"{m['valley_voltage_v'] * 1e3:.0f} mV, the last bias\ncomputed: the valley lies beyond"
+        if bounded
+        else f"$J_v$ = {m['valley_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
+        f"{m['valley_voltage_v'] * 1e3:.0f} mV"
+    )
+    pvcr = (
+        f"PVCR {'≥' if bounded else '='} {m['pvcr']:.1f}"
+        if m["pvcr"] is not None
+        else "PVCR undefined (valley current ≤ 0)"
+    )
+    beyond = "\n(continued past the sweep end)" if extended else ""
+    terminal = ""
+    if series_resistance_ohm_um2 > 0:
+        vp_terminal = float(
+            external_bias_v(
+                m["peak_voltage_v"],
+                m["peak_current_density_a_cm2"],
+                series_resistance_ohm_um2=series_resistance_ohm_um2,
+            )
+        )
+        terminal = f",\n{vp_terminal * 1e3:.0f} mV at the terminals"
+    return (
+        f"first NDR peak: $J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
+        f"{m['peak_voltage_v'] * 1e3:.0f} mV{terminal}\n{valley_text}\n{pvcr}{beyond}"
+    )
 
 
 def _bistable_note(m: dict) -> str:
