@@ -404,7 +404,7 @@ def _search_stage(
     ):
         _log(progress, "search: done earlier, skipped")
         return
-    _log(progress, "search: running (resumes from its storage)")
+    _log(progress, "search: resuming from its storage" if prev else "search: running")
     stages["search"] = {"status": "running", "fingerprint": fp["search"]}
     stages.pop("report", None)
     _save(run_dir, record)
