@@ -561,6 +561,48 @@ def _extend_valleys(devices, model, grid, v_side, j_side, ip, need, sign):
     return v_ext, j_ext, valley, bounded
 
 
+def _at_bias_metrics(devices, at_bias_v, area_um2, model, grid) -> dict[str, np.ndarray]:
+    """The current density at each stated bias (:func:`at_bias_key`, A/cm^2), computed there
+    in one batched call, and with a mesa area the mesa's current (:func:`at_bias_current_key`,
+    mA)."""
+    at = np.asarray(at_bias_v, float).reshape(-1)
+    out: dict[str, np.ndarray] = {}
+    if not at.size:
+        return out
+    j_at = devices.current(at, model, grid)
+    for col, b in enumerate(at):
+        out[at_bias_key(b)] = j_at[:, col]
+        if area_um2 is not None:  # A/cm^2 times um^2 (1e-8 cm^2), in mA (1e3)
+            out[at_bias_current_key(b)] = j_at[:, col] * area_um2 * 1e-5
+    return out
+
+
+def _up_sweep_peaks(table, model, grid, vp, jp, vv, after_v, after_j, peak_solution):
+    """The up sweep's peak (bias, current) and bistable window of each stack with NDR
+    (``table``: those stacks): :func:`_up_branch` for the stacks whose current fell just
+    above the peak (``after_v`` before the valley ``vv``), the single-solve peak elsewhere."""
+    vp_up, jp_up, window = vp.copy(), jp.copy(), np.zeros(vp.size)
+    after = np.isfinite(after_v) & (after_v < vv)
+    if not np.any(after):
+        return vp_up, jp_up, window
+    k = np.nonzero(after)[0]
+    up_v, up_j, fold = _up_branch(
+        table.take(k),
+        model,
+        grid,
+        vp[k],
+        after_v[k],
+        after_j[k],
+        vv[k],
+        peak=(peak_solution[0].center_nm[k], _take_solution(peak_solution[1], k)),
+    )
+    better = up_j > jp[k]
+    vp_up[k] = np.where(better, up_v, vp[k])
+    jp_up[k] = np.where(better, up_j, jp[k])
+    window[k] = fold
+    return vp_up, jp_up, window
+
+
 def sweep(
     table: LayerTable,
     bias_v: np.ndarray,
@@ -623,13 +665,7 @@ def sweep(
     j = devices.current(bias, model, grid)
     table = devices.largest()  # the stack-level figures below: one stack per device
     metrics = {name: np.full(devices.n, np.nan) for name in METRIC_NAMES}
-    at = np.asarray(at_bias_v, float).reshape(-1)
-    if at.size:
-        j_at = devices.current(at, model, grid)
-        for col, b in enumerate(at):
-            metrics[at_bias_key(b)] = j_at[:, col]
-            if area_um2 is not None:  # A/cm^2 times um^2 (1e-8 cm^2), in mA (1e3)
-                metrics[at_bias_current_key(b)] = j_at[:, col] * area_um2 * 1e-5
+    metrics.update(_at_bias_metrics(devices, at_bias_v, area_um2, model, grid))
 
     forward = bias >= 0
     if np.count_nonzero(bias > 0) >= 3:
@@ -680,6 +716,7 @@ def sweep(
         interior = ~bounded[rows]  # a valley on the last point computed stays there
         vv = np.where(interior, c[n:], vv)
         jv = np.where(interior, np.minimum(y[n:], jv), jv)
+        after_v, after_j = after_v[:n], after_j[:n]
     metrics["peak_current_density_a_cm2"][rows] = jp
     metrics["peak_voltage_v"][rows] = vp
     metrics["valley_current_density_a_cm2"][rows] = jv
@@ -710,26 +747,10 @@ def sweep(
     for name in BISTABILITY_NAMES:
         metrics[name] = np.full(table.n_stacks, np.nan)
     vp_up, jp_up, window = vp, jp, np.zeros(rows.size)
-    if refine and model.electrostatics == "self-consistent" and sign > 0:
-        after = np.isfinite(after_v[: rows.size]) & (after_v[: rows.size] < vv)
-        if np.any(after):
-            k = np.nonzero(after)[0]
-            assert peak_solution is not None
-            up_v, up_j, fold = _up_branch(
-                table.take(rows[k]),
-                model,
-                grid,
-                vp[k],
-                after_v[k],
-                after_j[k],
-                vv[k],
-                peak=(peak_solution[0].center_nm[k], _take_solution(peak_solution[1], k)),
-            )
-            vp_up, jp_up, window = vp.copy(), jp.copy(), window.copy()
-            better = up_j > jp[k]
-            vp_up[k] = np.where(better, up_v, vp[k])
-            jp_up[k] = np.where(better, up_j, jp[k])
-            window[k] = fold
+    if refine and peak_solution is not None and sign > 0:
+        vp_up, jp_up, window = _up_sweep_peaks(
+            table.take(rows), model, grid, vp, jp, vv, after_v, after_j, peak_solution
+        )
     metrics["peak_current_density_up_a_cm2"][rows] = jp_up
     metrics["peak_voltage_up_v"][rows] = vp_up
     metrics["bistable_window_v"][rows] = window
