@@ -275,7 +275,6 @@ def solve_poisson_1d(
     )
     mu = np.broadcast_to(fermi_ev, shape)
     fixed = np.broadcast_to(np.asarray(fixed_electron_cm3, float) * 1e6, shape)
-    q = ELEMENTARY_CHARGE_C
 
     def density(u_):
         eta = (mu - offset - u_) / kt
@@ -284,11 +283,10 @@ def solve_poisson_1d(
         dn_du = np.where(mask, -nc * df / kt, 0.0)
         return n, dn_du
 
-    flat_batch = int(np.prod(batch)) if batch else 1
+    flat = int(np.prod(batch)) if batch else 1
     if compiled_kernel("poisson_newton") is not None and n_nodes >= 3:
-        # the same iteration compiled, each entry to its own tolerance (the loop below is
-        # the reference; tests/test_kernel_backends.py compares the two)
-        flat = int(np.prod(batch)) if batch else 1
+        # the same iteration compiled, each entry to its own tolerance (the loop of
+        # _newton_reference is the reference; tests/test_kernel_backends.py compares the two)
         system = _NewtonSystem(
             g=g.reshape(flat, n_nodes - 1),
             w=w.reshape(flat, n_nodes),
@@ -312,6 +310,28 @@ def solve_poisson_1d(
             electron_cm3=electrons.reshape(shape) * 1e-6,
             iterations=used,
         )
+    return _newton_reference(
+        u,
+        g,
+        w,
+        donors,
+        density,
+        tolerance_ev=tolerance_ev,
+        max_iterations=max_iterations,
+        max_step_ev=max_step_ev,
+    )
+
+
+def _newton_reference(u, g, w, donors, density, *, tolerance_ev, max_iterations, max_step_ev):
+    """The damped Newton iteration of :func:`solve_poisson_1d` in numpy, every system of the
+    batch in one banded solve; ``u`` (start, boundary values set) is updated in place;
+    ``density(u)`` gives the electron density (m^-3) and its derivative."""
+    from scipy.linalg import solve_banded  # here: the linear model never pays its import
+
+    batch, n_nodes = u.shape[:-1], u.shape[-1]
+    flat = int(np.prod(batch)) if batch else 1
+    q = ELEMENTARY_CHARGE_C
+    worst = np.inf
     for iteration in range(1, max_iterations + 1):
         n, dn_du = density(u)
         flux = g * np.diff(u, axis=-1)  # C/m^2 (U in V-equivalent eV)
@@ -319,17 +339,13 @@ def solve_poisson_1d(
             flux[..., 1:] - flux[..., :-1] - q * w[..., 1:-1] * (donors[..., 1:-1] - n[..., 1:-1])
         )
         diag = -(g[..., 1:] + g[..., :-1]) + q * w[..., 1:-1] * dn_du[..., 1:-1]
-        upper = g[..., 1:-1]  # coupling i -> i+1 for interior rows
-        lower = g[..., 1:-1]
         ab = np.zeros(batch + (3, n_nodes - 2))
-        ab[..., 0, 1:] = upper
+        ab[..., 0, 1:] = g[..., 1:-1]  # coupling i -> i+1 for interior rows
         ab[..., 1, :] = diag
-        ab[..., 2, :-1] = lower
+        ab[..., 2, :-1] = g[..., 1:-1]
         # every system of the batch in one banded solve: laid end to end they stay
         # decoupled, because each block's first upper and last lower entries are zero
-        ab_long = ab.reshape(flat_batch, 3, n_nodes - 2).transpose(1, 0, 2).reshape(3, -1)
-        from scipy.linalg import solve_banded  # here: the linear model never pays its import
-
+        ab_long = ab.reshape(flat, 3, n_nodes - 2).transpose(1, 0, 2).reshape(3, -1)
         step = solve_banded((1, 1), ab_long, -residual.reshape(-1), check_finite=False)
         step = step.reshape(batch + (n_nodes - 2,))
         biggest = np.max(np.abs(step), axis=-1, keepdims=True)
