@@ -105,6 +105,13 @@ def wilson_interval(successes: int, n: int, *, confidence: float = 0.95) -> tupl
 
     .. math:: \\frac{\\hat p + z^2/2n \\pm z\\sqrt{\\hat p(1-\\hat p)/n + z^2/4n^2}}{1 + z^2/n}
 
+    Parameters
+    ----------
+    successes, n
+        Passing outcomes and all outcomes; ``n <= 0`` gives ``(0, 1)``.
+    confidence
+        Two-sided confidence level of the interval, between 0 and 1.
+
     References
     ----------
     .. [1] E. B. Wilson, J. Am. Stat. Assoc. 22, 209 (1927).
@@ -144,6 +151,13 @@ def valley_bounded_record(nominal: dict[str, Any], metrics: dict[str, np.ndarray
     ``nominal`` (bool), ``samples`` (how many samples' valleys were not reached even
     beyond the sweep end), ``of`` (samples with NDR) and ``bounded_figures`` (the figures
     of :data:`wellwright.physics.iv.BOUNDED_BY_SWEEP` that are then bounds, not values).
+
+    Parameters
+    ----------
+    nominal
+        Figures of merit of the nominal design (its :data:`VALLEY_BOUNDED` flag is read).
+    metrics
+        Monte Carlo figures of merit, name -> array over the samples.
     """
     flag = np.asarray(metrics.get(VALLEY_BOUNDED, np.zeros(0)), float)
     return {
@@ -156,7 +170,15 @@ def valley_bounded_record(nominal: dict[str, Any], metrics: dict[str, np.ndarray
 
 def metric_keys(at_bias_v: Sequence[float] = (), area_um2: float | None = None) -> tuple[str, ...]:
     """The figures of merit an evaluation returns: :data:`METRIC_NAMES`, then the current
-    density at each stated bias and, with a mesa area, the mesa's current there in mA."""
+    density at each stated bias and, with a mesa area, the mesa's current there in mA.
+
+    Parameters
+    ----------
+    at_bias_v
+        Stated biases, V, at which a current density is asked for.
+    area_um2
+        Mesa area, um^2; None: no mesa currents in mA.
+    """
     extra: list[str] = []
     for bias in at_bias_v:
         extra.append(at_bias_key(bias))
@@ -174,12 +196,28 @@ def batch_metrics(
     at_bias_v: Sequence[float] = (),
     area_um2: float | None = None,
 ) -> dict[str, np.ndarray]:
-    """Metrics of a batch (of devices, with area ``weights``: see
-    :func:`wellwright.physics.iv.sweep`, also for ``at_bias_v`` and ``area_um2``); where the
+    """Metrics of a batch (of devices, see :func:`wellwright.physics.iv.sweep`); where the
     self-consistent solve fails, each device alone, and a device that still fails gets NaN
     metrics and :data:`SOLVE_FAILED` set (a failed sample, counted, never the end of the run).
     Any other error is handled the same way and also printed with the device's layer
-    thicknesses, since it is a fault of the program to be reported, not of the sample."""
+    thicknesses, since it is a fault of the program to be reported, not of the sample.
+
+    Parameters
+    ----------
+    table
+        Layers of the batch's stacks.
+    bias_v
+        Bias sweep, V.
+    model
+        Model options of the sweep.
+    resistance_ohm_um2
+        Series resistance times area, ohm um^2 (enters only the cutoff frequency).
+    weights
+        Area weights, ``(n_devices, n_stacks)``, mixing the stacks into devices; None: one
+        device per stack.
+    at_bias_v, area_um2
+        Stated biases, V, and the mesa area, um^2 (:func:`metric_keys`).
+    """
     n = table.n_stacks if weights is None else weights.shape[0]
     keys = metric_keys(at_bias_v, area_um2)
     try:
@@ -254,10 +292,31 @@ def evaluate_metrics(
     area_um2: float | None = None,
 ) -> dict[str, np.ndarray]:
     """Figures of merit of every row of ``table`` (or every device of an :class:`AsGrown`,
-    from its island-mixture curve): batches of ``batch_size`` devices per kernel call,
-    spread over ``n_jobs`` joblib workers (``backend`` None: loky); the series resistance
-    enters only the cutoff frequency; ``at_bias_v`` and ``area_um2``: the currents at stated
-    biases (:func:`metric_keys`)."""
+    from its island-mixture curve), in batches spread over joblib workers.
+
+    Parameters
+    ----------
+    table
+        Stacks, or as-grown devices.
+    bias_v
+        Bias sweep, V.
+    model
+        Model options of the sweep.
+    series_resistance_ohm_um2
+        Series resistance times area, ohm um^2; enters only the cutoff frequency.
+    batch_size
+        Devices per kernel call.
+    n_jobs
+        Number of joblib workers.
+    backend
+        joblib backend; None: loky, whose workers leave with this process.
+    progress
+        Show a progress bar.
+    desc
+        Label of the progress bar.
+    at_bias_v, area_um2
+        Stated biases, V, and the mesa area, um^2: the currents there (:func:`metric_keys`).
+    """
     from joblib import Parallel, delayed, parallel_config
 
     n = table.n_samples if isinstance(table, AsGrown) else table.n_stacks
@@ -311,8 +370,18 @@ class Runner:
 
     @classmethod
     def for_stack(cls, stack: Stack, bias_v, **how: Any) -> Runner:
-        """The runner of ``stack``: its model, series resistance and mesa area; ``how`` sets
-        the other fields (``at_bias_v``, ``n_jobs``, ``backend``, ``batch_size``, ...)."""
+        """The runner of ``stack``: its model, series resistance and mesa area.
+
+        Parameters
+        ----------
+        stack
+            The design.
+        bias_v
+            Bias sweep, V.
+        **how
+            The other fields of the runner (``at_bias_v``, ``n_jobs``, ``backend``,
+            ``batch_size``, ...).
+        """
         return cls(
             np.asarray(bias_v, float),
             model=stack.model,
@@ -341,8 +410,16 @@ class Runner:
 
 
 def yield_record(ok: np.ndarray, confidence: float = 0.95) -> dict[str, Any]:
-    """Yield of pass/fail outcomes ``ok``: ``value`` (fraction passing), ``ci_low``,
-    ``ci_high`` (Wilson score interval [1]_), ``samples``, ``passed``, ``confidence``."""
+    """Yield of pass/fail outcomes: ``value`` (fraction passing), ``ci_low``,
+    ``ci_high`` (Wilson score interval [1]_), ``samples``, ``passed``, ``confidence``.
+
+    Parameters
+    ----------
+    ok
+        Pass/fail outcomes, bool array.
+    confidence
+        Confidence level of the Wilson interval.
+    """
     k, n = int(np.count_nonzero(ok)), int(ok.size)
     lo, hi = wilson_interval(k, n, confidence=confidence)
     return {
@@ -372,6 +449,19 @@ def monte_carlo_yield(
     numbers, reused as common random numbers by the allocation). Each sample is
     the island mixture of :meth:`GrowthModel.grow`, at the wafer's centre (see
     :func:`wafer_yield` for the yield over the wafer).
+
+    Parameters
+    ----------
+    model
+        Growth spreads of the design.
+    spec
+        Windows a sample must meet.
+    run
+        How samples are evaluated.
+    samples
+        Number of Monte Carlo samples.
+    seed
+        A whole-number seed, a generator or None (fresh entropy).
     """
     rng = as_generator(seed)
     z = model.draw_z(samples, rng)
@@ -403,7 +493,7 @@ def point_scale(model: GrowthModel) -> np.ndarray | None:
 def wafer_yield(
     model: GrowthModel, spec: Spec, run: Runner, z: np.ndarray, *, rings: int | None = None
 ) -> dict[str, Any]:
-    """Yield over the wafer's area: the samples ``z`` at their own places on the wafer.
+    """Yield over the wafer's area: the samples at their own places on the wafer.
 
     Returns ``yield`` (:func:`yield_record`: the share of the wafer's area
     where a device meets the spec, with its Wilson interval [1]_),
@@ -412,6 +502,19 @@ def wafer_yield(
     probability by radius) and ``profile`` (the nominal design's figures of
     merit at 13 radii from the centre to the edge, only the wafer's profile
     applied: ``{radius_mm, <metric>...}``).
+
+    Parameters
+    ----------
+    model
+        Growth spreads of the design, with a wafer (``[growth.wafer]``).
+    spec
+        Windows a device must meet.
+    run
+        How samples are evaluated.
+    z
+        Standard-normal coordinates of the samples, ``(n, n_parameters)``.
+    rings
+        Number of equal-area rings; None: ``n // 48`` clipped to 3..8.
     """
     wafer = model.wafer
     r = model.radius_mm(z)
@@ -452,9 +555,21 @@ def saltelli_design(
     second_order: bool = False,
     seed: int | np.random.Generator | None = None,
 ) -> np.ndarray:
-    """Saltelli design points in the unit cube (SALib's scrambled Sobol' sampler;
-    ``base_samples`` a power of 2): ``base_samples * (n_params + 2)`` rows for first and
-    total order, ``base_samples * (2 n_params + 2)`` with ``second_order``."""
+    """Saltelli design points in the unit cube (SALib's scrambled Sobol' sampler):
+    ``base_samples * (n_params + 2)`` rows for first and
+    total order, ``base_samples * (2 n_params + 2)`` with ``second_order``.
+
+    Parameters
+    ----------
+    n_params
+        Number of parameters (dimensions of the cube).
+    base_samples
+        Base sample count ``N``, a power of 2.
+    second_order
+        Also the rows for second-order indices.
+    seed
+        A whole-number seed, a generator or None.
+    """
     from SALib.sample import sobol as sobol_sample
 
     problem = {
@@ -479,8 +594,23 @@ def sobol_table(
     """First and total Sobol indices of outputs ``y`` on a :func:`saltelli_design`, ordered by
     total index, most important first: ``{parameter, first_index, first_conf, total_index, total_conf}``.
 
-    With a list ``pairs`` (and ``y`` on a second-order design) the second-order
-    indices are appended to it as ``{parameters: [a, b], index, conf}``, largest first.
+    With ``pairs`` the second-order indices are appended to it as ``{parameters: [a, b], index, conf}``, largest first.
+
+    Parameters
+    ----------
+    names
+        Parameter names, in the design's column order.
+    y
+        Outputs, one per design row.
+    seed
+        A whole-number seed, a generator or None (for the bootstrap).
+    confidence
+        Confidence level of the bootstrap intervals.
+    resamples
+        Bootstrap resamples.
+    pairs
+        A list to receive the second-order indices (``y`` on a second-order design); None:
+        first and total order only.
     """
     from SALib.analyze import sobol as sobol_analyze
 
@@ -539,11 +669,18 @@ def ranking_resolution(
 ) -> dict[str, Any]:
     """Whether a ranking is resolved: the leader's interval lies above the runner-up's.
 
-    ``rows`` are ordered, most important first, each with a ``score`` and its
-    confidence half-width ``conf``. A parameter whose interval reaches zero
+    A parameter whose interval reaches zero
     (``score - conf <= 0``) is indistinguishable from no effect and is listed
     as such, not ranked. Returns ``resolved``, ``leader``, ``runner_up`` (None
     when absent), ``ranked`` and ``indistinguishable_from_zero`` (names).
+
+    Parameters
+    ----------
+    rows
+        Ranked rows, most important first, each with ``parameter``, a score and its
+        confidence half-width.
+    score, conf
+        Keys of the score and of its half-width in a row.
     """
     zero = [r["parameter"] for r in rows if r[score] - r[conf] <= 0]
     ranked = [r for r in rows if r["parameter"] not in zero]
@@ -574,15 +711,30 @@ def sobol_until_resolved(
 ) -> dict[str, Any]:
     """Sobol indices on a Saltelli design that doubles until the ranking of ``key`` is resolved.
 
-    ``evaluate(u)`` maps design rows in the unit cube to outputs (name ->
-    values). The design of ``2 N`` base samples starts with the rows of the
+    The design of ``2 N`` base samples starts with the rows of the
     ``N`` design (same scrambled sequence), so each doubling evaluates only
     the new rows; it stops when :func:`ranking_resolution` of ``key`` says
-    resolved or when the next doubling would exceed ``max_evaluations``
-    (the first design, ``start_base`` base samples, is always run). Returns
+    resolved or when the next doubling would exceed the budget. Returns
     ``outputs`` (name -> values on the final design), ``u``, ``tables``
     (name -> :func:`sobol_table` rows; None where an output is not finite),
     ``resolution`` and ``evaluations``.
+
+    Parameters
+    ----------
+    names
+        Parameter names, one per column of the design.
+    evaluate
+        ``evaluate(u)`` maps design rows in the unit cube to outputs (name -> values).
+    key
+        The output whose ranking must be resolved.
+    max_evaluations
+        Budget of evaluations; a doubling that would exceed it is not run.
+    start_base
+        Base samples of the first design (always run).
+    second_order
+        Use a second-order design (``N (2 D + 2)`` rows instead of ``N (D + 2)``).
+    seed
+        A whole-number seed, a generator or None.
 
     References
     ----------
@@ -646,6 +798,23 @@ def sobol_analysis(
     ``second_order`` (``N (2 D + 2)`` evaluations instead of ``N (D + 2)``)
     also ``sobol_second_order`` (name -> pairs of parameters with their
     interaction index, largest first).
+
+    Parameters
+    ----------
+    model
+        Growth spreads of the design.
+    spec
+        Windows that define pass/fail.
+    run
+        How samples are evaluated.
+    base_samples
+        Base samples of the (first) design.
+    max_evaluations
+        Budget of evaluations; None: a single design.
+    second_order
+        Also second-order indices.
+    seed
+        A whole-number seed, a generator or None.
     """
     rng = as_generator(seed)
 
@@ -808,6 +977,13 @@ def tornado(stack: Stack, run: Runner) -> dict[str, Any]:
     Returns ``nominal`` (metrics) and ``layers``: a list of ``{layer, minus,
     plus}`` (metrics at -1 / +1 ML), ordered by the swing of the peak
     current density, largest first. One batched evaluation of ``1 + 2k`` stacks.
+
+    Parameters
+    ----------
+    stack
+        The nominal design.
+    run
+        How the stacks are evaluated.
     """
     idx = [i for i, lay in enumerate(stack.layers[1:-1], start=1) if lay.monolayer_nm is not None]
     table = stack.table()
@@ -847,6 +1023,15 @@ def choose_island_layers(
     between layers add to that, so the analysis measures the truncation error
     (:func:`island_truncation_error`) rather than trusting it. Returns None (every layer) when there are no more layers
     than ``max_layers``.
+
+    Parameters
+    ----------
+    stack
+        The design.
+    tornado_layers
+        Tornado rows ordered by curvature, largest first (``layer`` names).
+    max_layers
+        Largest number of island layers.
     """
     names = [lay.name for lay in stack.layers]
     if len(tornado_layers) <= max_layers:
@@ -869,7 +1054,15 @@ def _curvature_order(nominal: dict, layers: list[dict]) -> list[dict]:
 def with_island_layers(model: GrowthModel, run: Runner) -> tuple[GrowthModel, dict[str, Any]]:
     """``model`` with its island layers chosen (:func:`choose_island_layers`) and the
     tornado record it was chosen from, with ``islands``: {layers, continuous_layers,
-    curvatures (relative, of the peak current density)}."""
+    curvatures (relative, of the peak current density)}.
+
+    Parameters
+    ----------
+    model
+        Growth spreads of the design.
+    run
+        How the tornado stacks are evaluated.
+    """
     import dataclasses
 
     tor = tornado(model.stack, run)
@@ -889,7 +1082,17 @@ def island_truncation_error(
     model: GrowthModel, run: Runner, z: np.ndarray
 ) -> dict[str, float | int | None]:
     """Largest relative difference of Jp, Vp and PVCR between the chosen island layers and
-    the full mixture over every layer (``2**k`` stacks) on the samples ``z``."""
+    the full mixture over every layer (``2**k`` stacks).
+
+    Parameters
+    ----------
+    model
+        Growth spreads with the chosen island layers.
+    run
+        How samples are evaluated.
+    z
+        Standard-normal coordinates of the samples checked, ``(n, n_parameters)``.
+    """
     import dataclasses
 
     full = run(dataclasses.replace(model, island_layers=None).grow(z), desc="island check")
@@ -935,6 +1138,15 @@ def paired_gain(
     (samples passing with only one of them), ``samples``, ``p_value``,
     ``yield_half_width``, ``measurable`` and ``test`` (its name).
 
+    Parameters
+    ----------
+    new, old
+        Pass/fail outcomes of the two designs on the same samples.
+    confidence
+        Confidence level of the Wilson interval of the ``old`` yield.
+    level
+        Significance level of the McNemar test.
+
     References
     ----------
     .. [1] Q. McNemar, Psychometrika 12, 153 (1947) (from memory).
@@ -978,11 +1190,16 @@ class FreeThickness:
 def free_thicknesses(stack: Stack, variables: Sequence[Any] | None = None) -> list[FreeThickness]:
     """The thicknesses a re-centring may move.
 
-    ``variables`` (:class:`wellwright.optimize.study.space.Variable`): the
-    study's ``thickness_ml`` and ``thickness_nm`` ranges, with their bounds in
-    whole monolayers of the first layer they set (none when the study varies
-    no thickness). ``None`` (no study): every layer between the contacts that
-    grows in monolayers, alone, at least 1 ML.
+    Parameters
+    ----------
+    stack
+        The design.
+    variables
+        The study's variables (:class:`wellwright.optimize.study.space.Variable`): its
+        ``thickness_ml`` and ``thickness_nm`` ranges, with their bounds in whole monolayers
+        of the first layer they set (none when the study varies no thickness). ``None`` (no
+        study): every layer between the contacts that grows in monolayers, alone, at least
+        1 ML.
     """
     out = []
     for v in variables or ():
@@ -1012,8 +1229,15 @@ def neighbourhood(
 
     That is ``4 k + 2 k (k - 1)`` moves (13 for two free thicknesses, 60 for
     five): the moves a grower would call "nearby", growing quadratically, not
-    as ``5**k``. Beyond ``max_candidates`` the pairs are dropped first, then
+    as ``5**k``. Beyond the largest number the pairs are dropped first, then
     the list is cut.
+
+    Parameters
+    ----------
+    k
+        Number of free thicknesses.
+    max_candidates
+        Largest number of moves returned.
     """
     singles, pairs, doubles = [], [], []
     for j in range(k):
@@ -1041,7 +1265,15 @@ def spec_depth(spec: Spec, metrics: dict[str, np.ndarray]) -> np.ndarray:
     distance to the nearer bound in units of the window's scale (half the width of a
     two-sided window, the bound's magnitude for a one-sided one; negative outside, -inf
     for NaN). Breaks ties between equal yields: the deeper design has more room for growth
-    errors (common practice)."""
+    errors (common practice).
+
+    Parameters
+    ----------
+    spec
+        The windows.
+    metrics
+        Figures of merit of the designs, name -> array.
+    """
     n = len(next(iter(metrics.values())))
     depth = np.full(n, np.inf)
     for name, lo, hi in spec.windows:
@@ -1147,6 +1379,27 @@ def recentre(
     ``nominal_yield`` (:func:`yield_record` on the confirming samples),
     ``gain`` (:func:`paired_gain`), ``better`` (a measurable gain),
     ``intervals_overlap`` and ``text`` (one sentence).
+
+    Parameters
+    ----------
+    model
+        Growth spreads of the nominal design.
+    spec
+        Windows a device must meet.
+    run
+        How samples are evaluated.
+    z
+        Standard-normal coordinates of the samples, ``(n, n_parameters)``, shared by every
+        candidate.
+    free
+        The thicknesses that may move (:func:`free_thicknesses`).
+    nominal_passed
+        Pass/fail of the nominal design on ``z``; None: computed.
+    screen_share
+        Share of the samples used to screen the candidates (at least 4, and at least one
+        sample left to confirm).
+    max_candidates
+        Largest number of candidate moves (:func:`neighbourhood`).
     """
     z = np.atleast_2d(z)
     n = z.shape[0]
@@ -1316,10 +1569,7 @@ def allocate_tolerances(
     changes only through ``s``. With ``joint_thickness`` a last row scales
     every layer's thickness sigma by one common factor (the question "how
     well must the whole growth hold its monolayers?", which a single layer
-    cannot answer when several share the failures). ``nominal_passed``: the
-    pass/fail of ``z`` at the nominal spreads (computed when None);
-    ``recentred``: the :func:`recentre` record the rows point to when the
-    target is out of reach.
+    cannot answer when several share the failures).
 
     Returns ``{parameter, nominal_sigma, allowed_sigma, unit, target_yield,
     yield_nominal, yield_held_exactly, yield_at_allowed, gain, action, advice,
@@ -1336,6 +1586,31 @@ def allocate_tolerances(
     - ``re-centre`` / ``redesign``: the target is missed even with it held
       exactly though it matters; the re-centred design if one does measurably
       better, else the spec or the design must change.
+
+    Parameters
+    ----------
+    model
+        Growth spreads of the design.
+    spec
+        Windows a device must meet.
+    run
+        How samples are evaluated.
+    parameters
+        Names of the growth parameters to allocate, one row each.
+    z
+        Standard-normal coordinates of the samples, ``(n, n_parameters)``, used at every step.
+    target_yield
+        Yield to reach, between 0 and 1.
+    max_scale
+        Largest factor ``s`` on a sigma that is tried.
+    steps
+        Bisection steps.
+    joint_thickness
+        Add the row of all layer thicknesses scaled together.
+    nominal_passed
+        Pass/fail of ``z`` at the nominal spreads; None: computed.
+    recentred
+        The :func:`recentre` record the rows point to when the target is out of reach.
     """
     names = list(model.names)
     base = point_scale(model)
@@ -1519,7 +1794,17 @@ def _wafer_record(model: GrowthModel, mc: dict[str, Any]) -> dict[str, Any]:
 def control_order(model: GrowthModel, scores: dict[str, float], measure: str) -> list[dict]:
     """What the grower should control hardest: the parameters grouped by what controls
     them (a source cell, a layer, a material's rate), each group scored by its largest
-    parameter score, largest first: ``{control, parameters, score, measure}``."""
+    parameter score, largest first: ``{control, parameters, score, measure}``.
+
+    Parameters
+    ----------
+    model
+        Growth spreads; each parameter names what controls it.
+    scores
+        Score of each parameter, name -> value (missing: 0).
+    measure
+        What the scores are (copied into each row).
+    """
     groups: dict[str, list[str]] = {}
     for p in model.parameters:
         groups.setdefault(p.control, []).append(p.name)
@@ -1560,8 +1845,8 @@ def run_tolerance(
     """The whole tolerance analysis of one design; optionally writes ``out_dir``.
 
     The island layers are chosen first (:func:`with_island_layers`); with
-    ``island_checks`` > 0 and layers left continuous, the first
-    ``island_checks`` Monte Carlo samples are also evaluated with the full
+    layers left continuous, the first ``island_checks`` Monte Carlo samples are also
+    evaluated with the full
     mixture to measure the truncation error (``islands.check``).
 
     ``method``: ``mc`` (yield, tornado, allocation), ``morris`` (adds Morris
@@ -1605,6 +1890,39 @@ def run_tolerance(
     design starts at :data:`SOBOL_START_BASE` base samples and doubles until
     the leader of pass/fail is separated from the runner-up beyond their
     confidence intervals or the budget is spent.
+
+    Parameters
+    ----------
+    model
+        Growth spreads of the design.
+    spec
+        Windows a device must meet.
+    run
+        How samples are evaluated.
+    method
+        ``sobol``, ``morris`` or ``mc`` (see above).
+    samples
+        Monte Carlo samples, also the budget of the Morris or Sobol design.
+    seed
+        A whole-number seed, a generator or None.
+    allocate
+        Number of the most important parameters given a tolerance allocation; 0: none.
+    target_yield
+        Yield the allocation and the re-centring aim at, between 0 and 1.
+    out_dir
+        Folder the outputs are written to (:func:`write_outputs`); None: nothing written.
+    design
+        The design's record, stored as ``design``.
+    figures
+        Also write the PNG figures.
+    second_order
+        Also second-order Sobol indices (``method`` ``sobol``).
+    island_checks
+        Monte Carlo samples evaluated with the full island mixture; 0: no check.
+    variables
+        The study's variables, for the thicknesses a re-centring may move.
+    recentring
+        Look for a re-centred design when the yield misses the target.
     """
     if method not in METHODS:
         raise ValueError(f"method must be one of {METHODS}")
@@ -1890,7 +2208,19 @@ def write_outputs(
 ) -> dict[str, str]:
     """``tolerance.json``, ``samples.csv``, ``sobol_<metric>.csv``, ``tornado.csv``,
     ``allocation.csv``, :data:`RECENTRED_SHEET` (when re-centring is a measurable gain) and
-    the PNG figures, each written to a temporary name and renamed."""
+    the PNG figures, each written to a temporary name and renamed.
+
+    Parameters
+    ----------
+    record
+        The tolerance record (:func:`run_tolerance`); its ``files`` are set.
+    mc
+        The Monte Carlo record (:func:`monte_carlo_yield`, with ``wafer`` when there is one).
+    out
+        Folder to write to.
+    figures
+        Also write the PNG figures.
+    """
     from wellwright.optimize.shared.outputs import write_csv, write_json
 
     files = {}
