@@ -954,6 +954,17 @@ class GrowthModel:
 
         See :mod:`wellwright.physics.islands`: the layers ``island_layers``
         as islands (``2**k`` stacks per sample), the others continuous.
+
+        Parameters
+        ----------
+        z
+            Standard-normal coordinates of the variation parameters, ``(n, n_parameters)``.
+        sigma_scale
+            Factor on each parameter's sigma, ``(n_parameters,)``; ``None``: 1 (0 fixes a
+            parameter at its nominal value).
+        radius_mm
+            Radii on the wafer to put the samples at, mm (with ``[growth.wafer]``); ``None``:
+            from ``z``.
         """
         cols, mono, ml = self._continuous(z, sigma_scale, radius_mm)
         return self._mixture(cols, mono, ml)
@@ -1029,7 +1040,13 @@ class AsGrown:
         )
 
     def batch(self, start: int, stop: int) -> tuple[LayerTable, np.ndarray]:
-        """Stacks and ``(stop - start, n_rows)`` area weights of the devices ``start:stop``."""
+        """Stacks and ``(stop - start, n_rows)`` area weights of the devices ``start:stop``.
+
+        Parameters
+        ----------
+        start, stop
+            First device and one past the last (sample indices).
+        """
         lo, hi = np.searchsorted(self.owner, [start, stop])
         owner = self.owner[lo:hi] - start
         weights = area_weight_matrix(owner, self.area_share[lo:hi], stop - start)

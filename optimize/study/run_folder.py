@@ -55,7 +55,19 @@ def fingerprint(*parts: Any) -> str:
 
 
 def study_from_text(text: str | bytes, *, source: str, name: str, base_dir: str | Path) -> Study:
-    """The study in ``text`` (bytes must be UTF-8)."""
+    """The study in ``text`` (bytes must be UTF-8).
+
+    Parameters
+    ----------
+    text
+        The study file's contents.
+    source
+        File name for messages.
+    name
+        Default study name.
+    base_dir
+        Folder that relative paths in the study are relative to.
+    """
     return parse_study(parse_toml(text, source=source), source=source, name=name, base_dir=base_dir)
 
 
@@ -95,7 +107,15 @@ def linked_calibration(study: Study) -> Path | None:
 
 def study_from_run(run_dir: str | Path, record: dict[str, Any]) -> Study:
     """The study of a run, from the copies the run keeps (the originals may have moved or
-    changed): the study file, and the calibration it links to."""
+    changed): the study file, and the calibration it links to.
+
+    Parameters
+    ----------
+    run_dir
+        The run folder.
+    record
+        The run's record (its ``study`` entry gives the original path and the name).
+    """
     d = Path(run_dir)
     text = (d / STUDY_COPY).read_text(encoding="utf-8")
     origin = record["study"]

@@ -264,6 +264,13 @@ class Study:
         """The variables' values in a stack whose layers carry the study's layer names
         (see :func:`wellwright.optimize.study.space.parameters_of`).
 
+        Parameters
+        ----------
+        stack
+            A stack with the study's layers.
+        source
+            Where the stack came from, for messages; None: the stack's own source.
+
         Raises
         ------
         InputError
@@ -332,6 +339,13 @@ class Study:
 
         Those of :func:`wellwright.optimize.study.targets.constraint_values`; a multi-objective
         study adds ``spec``: :meth:`spec_violation`.
+
+        Parameters
+        ----------
+        stack
+            The parsed design, or ``None`` when its stack was invalid.
+        metrics
+            Its figures of merit (NaN where there is no NDR).
         """
         out = _targets.constraint_values(self.constraints, stack, metrics)
         if self.multi_objective:

@@ -177,7 +177,15 @@ class Spec:
 
 
 def inside(values: Any, low: float, high: float) -> np.ndarray:
-    """``low <= values <= high`` elementwise; NaN is outside."""
+    """``low <= values <= high`` elementwise; NaN is outside.
+
+    Parameters
+    ----------
+    values
+        Values to test (array-like).
+    low, high
+        Bounds, included; ``-inf``/``inf`` when open.
+    """
     v = np.asarray(values, float)
     with np.errstate(invalid="ignore"):
         return (v >= low) & (v <= high)
@@ -189,7 +197,15 @@ def inside(values: Any, low: float, high: float) -> np.ndarray:
 def window_distances(
     targets: Sequence[Window], metrics: dict[str, np.ndarray]
 ) -> dict[str, np.ndarray]:
-    """Normalised distance outside each target window (0 inside, NaN for NaN)."""
+    """Normalised distance outside each target window (0 inside, NaN for NaN).
+
+    Parameters
+    ----------
+    targets
+        The target windows.
+    metrics
+        Figures of merit, name -> array.
+    """
     return {w.metric: w.distance(metrics[w.metric]) for w in targets}
 
 
@@ -199,10 +215,15 @@ def window_report(
 ) -> list[dict[str, Any]]:
     """How one design stands against each window of a spec, in the metric's trade unit.
 
-    ``windows`` are :class:`Window` or ``(metric, low, high)`` tuples (the
-    :class:`Spec` form); ``metrics`` maps each metric to a value (None or NaN:
-    no NDR in the sweep). The one place that phrases "misses X by Y" (the
+    The one place that phrases "misses X by Y" (the
     ``run`` command's closest-design line and the tolerance analysis use it).
+
+    Parameters
+    ----------
+    windows
+        :class:`Window` or ``(metric, low, high)`` tuples (the :class:`Spec` form).
+    metrics
+        Each metric's value (None or NaN: no NDR in the sweep).
 
     Returns
     -------
@@ -254,6 +275,15 @@ def spec_violation(
 ) -> np.ndarray:
     """How far each design is from meeting the spec; 0 when it meets it.
 
+    Parameters
+    ----------
+    targets
+        The target windows.
+    objectives
+        The objectives (their figures add the NaN penalty too).
+    metrics
+        Figures of merit, name -> array over the designs.
+
     Notes
     -----
     Sum over the target windows of ``log1p(d)``, ``d`` the distance
@@ -277,6 +307,15 @@ def merit(
     targets: Sequence[Window], objectives: Sequence[Objective], metrics: dict[str, np.ndarray]
 ) -> np.ndarray:
     """Merit of an on-spec design in [0, 1) for the single-objective score.
+
+    Parameters
+    ----------
+    targets
+        The target windows.
+    objectives
+        At most one objective.
+    metrics
+        Figures of merit, name -> array over the designs.
 
     Notes
     -----
@@ -320,6 +359,15 @@ def single_score(
     (-1, 0]) for a design that meets the spec: every on-spec design scores
     below every off-spec one, off-spec designs are ordered by how far off
     they are, on-spec designs by the objective.
+
+    Parameters
+    ----------
+    targets
+        The target windows.
+    objectives
+        At most one objective.
+    metrics
+        Figures of merit, name -> array over the designs.
     """
     v = spec_violation(targets, objectives, metrics)
     return np.where(v > 0, v, -merit(targets, objectives, metrics))
@@ -331,6 +379,13 @@ def objective_values(objectives: Sequence[Objective], metrics: dict[str, np.ndar
     NaN (no NDR) becomes the worst value (``-inf`` to maximise, ``inf`` to
     minimise); such designs are off-spec and ranked by the ``spec``
     constraint anyway.
+
+    Parameters
+    ----------
+    objectives
+        The objectives, one column each.
+    metrics
+        Figures of merit, name -> array over the designs.
     """
     cols = []
     for o in objectives:
@@ -419,6 +474,20 @@ def critical_thickness_excess(stack: Stack) -> float:
 
 
 def parse_window(value: Any, *, source: str, key: str, metric: str) -> Window:
+    """The window of ``metric`` given as ``{min, max}`` (either may be left out)
+    or ``{target, tolerance}``.
+
+    Parameters
+    ----------
+    value
+        The window's table from the study file.
+    source
+        File name for messages.
+    key
+        The key in the file, for messages.
+    metric
+        The figure of merit the window bounds.
+    """
     form = "{min = .., max = ..} (either may be left out) or {target = .., tolerance = ..}"
     if not isinstance(value, dict):
         raise InputError(f"must be a window {form}", source=source, key=key)
@@ -481,9 +550,21 @@ def parse_at_bias(
 ) -> list[Window]:
     """Windows of a current at stated biases: one table or a list of tables (see module).
 
-    Each ``bias_v`` must lie in the sweep ``sweep_v`` (first and last bias, V) and is kept
-    to 6 significant digits (it names the metric, e.g. ``current_density_at_0.3_v_a_cm2``);
-    the same bias twice is refused; the mA form needs the mesa area ``area_um2``.
+    Each ``bias_v`` is kept to 6 significant digits (it names the metric, e.g.
+    ``current_density_at_0.3_v_a_cm2``); the same bias twice is refused.
+
+    Parameters
+    ----------
+    value
+        One table or a list of tables, each with ``bias_v`` and a window.
+    source
+        File name for messages.
+    key
+        ``current_density_at_bias`` (A/cm^2) or ``current_at_bias_ma`` (mA).
+    sweep_v
+        First and last bias of the sweep, V; each ``bias_v`` must lie within.
+    area_um2
+        Mesa area, um^2; the mA form needs it.
     """
     unit = "A/cm^2" if key == "current_density_at_bias" else "mA"
     if unit == "mA" and area_um2 is None:
@@ -563,8 +644,19 @@ def parse_targets(
     sweep_v: tuple[float, float] = (-math.inf, math.inf),
     area_um2: float | None = None,
 ) -> tuple[tuple[Window, ...], tuple[Objective, ...]]:
-    """The ``[targets]`` windows and objectives; ``sweep_v`` (first and last bias of the
-    sweep, V) and ``area_um2`` (the stack's mesa area) check the currents at a stated bias."""
+    """The ``[targets]`` windows and objectives.
+
+    Parameters
+    ----------
+    table
+        The ``[targets]`` table of the study file.
+    source
+        File name for messages.
+    sweep_v
+        First and last bias of the sweep, V: checks the currents at a stated bias.
+    area_um2
+        The stack's mesa area, um^2: checks the currents at a stated bias in mA.
+    """
     targets = []
     objectives: list[Objective] = []
     for key, value in table.items():
@@ -607,6 +699,16 @@ def parse_targets(
 
 
 def parse_constraints(table: dict[str, Any], *, source: str) -> Constraints:
+    """The ``[constraints]`` table: the active thickness limit, the critical-thickness
+    check and windows on figures of merit.
+
+    Parameters
+    ----------
+    table
+        The ``[constraints]`` table of the study file.
+    source
+        File name for messages.
+    """
     max_t = None
     critical = False
     bounds = []

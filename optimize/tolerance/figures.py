@@ -142,8 +142,17 @@ def sensitivity_figure(method: str, output: str, rows: list[dict[str, Any]], *, 
 
 
 def save_sobol(record: dict[str, Any], path: Path, *, key: str = "pass") -> Path | None:
-    """:func:`sensitivity_figure` of the Sobol indices of ``key`` (``pass`` or a metric name)
-    at ``path``; ``None`` without that table."""
+    """:func:`sensitivity_figure` of the Sobol indices of ``key`` at ``path``; ``None`` without that table.
+
+    Parameters
+    ----------
+    record
+        The tolerance record (its ``sobol`` tables).
+    path
+        PNG file to write.
+    key
+        ``pass`` or a figure-of-merit name.
+    """
     from wellwright.optimize.shared.outputs import save_figure
 
     table = record["sobol"].get(key)
@@ -307,7 +316,17 @@ def save_wafer_map(record: dict[str, Any], path: Path) -> Path | None:
 def save_recentre(record: dict[str, Any], path: Path, *, shown: int = 12) -> Path | None:
     """The re-centring: yield of each nearby whole-monolayer design on the screening samples
     (best first, the nominal's as a line), and the chosen one's yield with its 95 % Wilson
-    interval on the samples the choice never saw, beside the nominal's on the same samples."""
+    interval on the samples the choice never saw, beside the nominal's on the same samples.
+
+    Parameters
+    ----------
+    record
+        The tolerance record (its ``recentre`` record); no figure without candidates.
+    path
+        PNG file to write.
+    shown
+        Largest number of candidate designs shown.
+    """
     from wellwright.optimize.shared.outputs import save_figure
 
     rc = record.get("recentre")
