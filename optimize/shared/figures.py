@@ -222,7 +222,17 @@ def _layer_spans(profile) -> list[tuple[float, float, int]]:
 
 
 def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
-    """Conduction-band edges at ``bias_v`` (Gamma; X and L dashed) with resonances and Fermi levels."""
+    """Conduction-band edges at ``bias_v`` (Gamma; X and L dashed) with resonances and Fermi levels.
+
+    Parameters
+    ----------
+    stack
+        The design.
+    bias_v
+        Bias, V.
+    title
+        Figure title; empty: a default.
+    """
     style()
     table = stack.table()
     profile = band_profile(table, [bias_v], model=stack.model).take((0, 0))
@@ -319,7 +329,17 @@ def _fmt_energy(value_ev: float) -> str:
 
 
 def transmission_figure(stack: Stack, biases_v: list[float], *, title: str = ""):
-    """T(E) on a log scale at each bias."""
+    """T(E) on a log scale at each bias.
+
+    Parameters
+    ----------
+    stack
+        The design.
+    biases_v
+        Biases, V, one curve each (up to four colours).
+    title
+        Figure title; empty: "transmission".
+    """
     style()
     table = stack.table()
     profile = band_profile(table, biases_v, model=stack.model)
@@ -350,7 +370,20 @@ def iv_figures(
 ) -> dict[str, str]:
     """Write the three standard figures of one design; returns ``{name: path}``.
 
-    ``prefix`` starts the file names; ``label`` (e.g. "rank 1") starts the titles.
+    Parameters
+    ----------
+    stack
+        The design.
+    curves
+        Computed I-V curves.
+    out_dir
+        Folder the PNG files go to.
+    i
+        Index of the design in ``curves``.
+    prefix
+        Start of the file names.
+    label
+        Start of the titles (e.g. "rank 1"); empty: default titles.
     """
     from pathlib import Path
 

@@ -170,7 +170,12 @@ def unit(key: str) -> str:
 def label(key: str, *, dimensionless: str = "") -> str:
     """Words and unit for an axis or a column: "peak current density (kA/cm²)".
 
-    A quantity without unit shows ``dimensionless`` in brackets when given.
+    Parameters
+    ----------
+    key
+        Name of the quantity in the names table.
+    dimensionless
+        Shown in brackets for a quantity without unit; empty: nothing.
     """
     q = quantity(key)
     u = q.unit or dimensionless
@@ -178,7 +183,15 @@ def label(key: str, *, dimensionless: str = "") -> str:
 
 
 def to_display(key: str, value: Any) -> float | None:
-    """``value`` (in the key's unit) in the trade unit; None for None or NaN."""
+    """``value`` (in the key's unit) in the trade unit; None for None or NaN.
+
+    Parameters
+    ----------
+    key
+        Name of the quantity in the names table.
+    value
+        Value in the key's unit, or None.
+    """
     if value is None:
         return None
     v = float(value)
@@ -186,7 +199,17 @@ def to_display(key: str, value: Any) -> float | None:
 
 
 def format_value(key: str, value: Any, *, with_unit: bool = False) -> str:
-    """``value`` in the trade unit with the quantity's format; "-" when missing."""
+    """``value`` in the trade unit with the quantity's format; "-" when missing.
+
+    Parameters
+    ----------
+    key
+        Name of the quantity in the names table.
+    value
+        Value in the key's unit, or None.
+    with_unit
+        Append the trade unit.
+    """
     v = to_display(key, value)
     if v is None:
         return "-"
@@ -198,9 +221,20 @@ def format_value(key: str, value: Any, *, with_unit: bool = False) -> str:
 def format_bound(key: str, value: Any, *, bounded: bool, with_unit: bool = False) -> str:
     """:func:`format_value`, marked where the valley was bounded by the sweep end.
 
-    With ``bounded`` and ``key`` one of :data:`wellwright.physics.iv.BOUNDED_BY_SWEEP`:
+    When bounded and ``key`` is one of :data:`wellwright.physics.iv.BOUNDED_BY_SWEEP`:
     "≥ 476" (the true value is at least this), "≤ 33.1" (at most), or "265 (valley bounded)"
     (derived from a bound, either way).
+
+    Parameters
+    ----------
+    key
+        Name of the quantity in the names table.
+    value
+        Value in the key's unit, or None.
+    bounded
+        Whether the valley was bounded by the sweep end for this design.
+    with_unit
+        Append the trade unit.
     """
     from wellwright.physics.iv import BOUNDED_BY_SWEEP
 
