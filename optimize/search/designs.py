@@ -101,7 +101,15 @@ def finite_or_none(value: float) -> float | None:
 
 def at_range_limit(study: Study, params: dict[str, Any]) -> list[str]:
     """Variables whose value sits on the lower or upper end of its range (the optimum may
-    lie beyond it: widen the range)."""
+    lie beyond it: widen the range).
+
+    Parameters
+    ----------
+    study
+        The study (its variables and their ranges).
+    params
+        The design's values, variable name -> value.
+    """
     out = []
     for v in study.variables:
         value = params.get(v.name)
@@ -135,6 +143,13 @@ def design_record(study: Study, trial: FrozenTrial) -> dict[str, Any]:
     ``[device] area_um2``, ``device`` (the mesa's current in mA, conductance in
     mS, capacitance in fF, output power in uW:
     :func:`wellwright.physics.device.device_quantities`).
+
+    Parameters
+    ----------
+    study
+        The study.
+    trial
+        The Optuna trial of the design (its user attributes hold the evaluation).
     """
     a = trial.user_attrs
     rec: dict[str, Any] = {"trial": trial.number, "feasible": bool(a.get("feasible", False))}
@@ -220,6 +235,15 @@ def rank_trials(
     A robust search (``[search] robust``) ranks the designs that meet the
     constraints first, by yield (highest first), then by nominal spec
     violation and score; then the others as above.
+
+    Parameters
+    ----------
+    study
+        The study.
+    trials
+        Trials of the search; only complete ones are ranked, the first of each parameter set.
+    top
+        Keep only the best ``top`` records; None: all.
     """
     seen: dict[tuple, FrozenTrial] = {}
     for t in sorted(trials, key=lambda t: t.number):
@@ -310,6 +334,15 @@ def parameter_importances(
     Skipped (with a ``note``) below :data:`MIN_TRIALS_FOR_IMPORTANCE` complete
     trials or with fewer than two parameters; multi-objective importances are
     over the designs that meet the spec.
+
+    Parameters
+    ----------
+    study
+        The study.
+    ostudy
+        The Optuna study of the search.
+    complete
+        Its complete trials.
     """
     if len(study.variables) < 2:
         return {"note": "fewer than two search parameters; nothing to rank"}
@@ -345,7 +378,19 @@ def write_outputs(
     study: Study, ostudy: optuna.Study, result: SearchResult, complete: list[FrozenTrial]
 ) -> None:
     """Write designs.csv/json, growth sheets, trials.csv, history/Pareto/importance figures
-    and the best I-V."""
+    and the best I-V.
+
+    Parameters
+    ----------
+    study
+        The study.
+    ostudy
+        The Optuna study of the search.
+    result
+        The search result; written to its ``out_dir``, its ``files`` and ``notes`` updated.
+    complete
+        The complete trials.
+    """
     from wellwright.optimize.search import figures as search_figures
     from wellwright.optimize.search.history import TRIALS_FILE, trial_points, write_trials
     from wellwright.optimize.shared.outputs import write_csv, write_json

@@ -151,9 +151,19 @@ Evaluator = Callable[..., dict[str, np.ndarray]]
 def nominal_metrics(
     stacks: Sequence[Stack], bias_v: np.ndarray, *, at_bias_v: Sequence[float] = ()
 ) -> dict[str, np.ndarray]:
-    """Figures of merit of the stacks as given, in one batched sweep; with ``at_bias_v`` also
-    the current at each of those biases (computed there: :func:`wellwright.physics.iv.sweep`),
-    per area and, when the stacks give ``[device] area_um2``, of the mesa in mA."""
+    """Figures of merit of the stacks as given, in one batched sweep; also the current at
+    each stated bias (computed there: :func:`wellwright.physics.iv.sweep`),
+    per area and, when the stacks give ``[device] area_um2``, of the mesa in mA.
+
+    Parameters
+    ----------
+    stacks
+        The designs; the model and the mesa area are the first one's.
+    bias_v
+        Bias sweep, V.
+    at_bias_v
+        Stated biases, V, at which the current is also computed.
+    """
     from wellwright.physics.iv import sweep
 
     table = LayerTable.from_stacks(list(stacks))
@@ -176,8 +186,17 @@ def make_sampler(study: Study, *, seed: int, n_trials: int) -> optuna.samplers.B
 
     TPE (``multivariate`` and ``startup_trials`` from ``[search]``, constant
     liar so concurrent workers and batches spread out), NSGA-II (population
-    ``max(8, min(50, trials // 5))``) or random. Constraints reach the samplers
+    ``max(8, min(50, n_trials // 5))``) or random. Constraints reach the samplers
     through the trials' constraint values.
+
+    Parameters
+    ----------
+    study
+        The study (its ``[search]`` settings).
+    seed
+        Seed of the sampler.
+    n_trials
+        Trials of the search (sets the NSGA-II population).
     """
     s = study.search
     with warnings.catch_warnings():
@@ -202,6 +221,13 @@ def design_budget(study: Study, trials: int) -> int:
     A trial that repeats a design already evaluated is answered from storage
     (``duplicate_of``) and does not count; a sampler that keeps repeating is
     stopped after :data:`MAX_REPEATS` repeats per design of the budget.
+
+    Parameters
+    ----------
+    study
+        The study (its variables give the grid, if any).
+    trials
+        Trials asked for.
     """
     grid = grid_values(study.variables)
     return trials if grid is None else min(trials, grid_size(grid))
@@ -209,7 +235,17 @@ def design_budget(study: Study, trials: int) -> int:
 
 def grid_designs(study: Study, *, trials: int, seed: int) -> list[dict[str, Any]]:
     """Every design of a space on a grid with at most ``trials`` designs, in an order
-    shuffled by ``seed``; empty when the space is continuous or larger."""
+    shuffled by ``seed``; empty when the space is continuous or larger.
+
+    Parameters
+    ----------
+    study
+        The study (its variables give the grid, if any).
+    trials
+        Largest number of designs.
+    seed
+        Seed of the shuffle.
+    """
     grid = grid_values(study.variables)
     if grid is None or grid_size(grid) > trials:
         return []
@@ -235,7 +271,18 @@ class _Outcome:
 def evaluate(
     study: Study, params_list: Sequence[dict[str, float]], evaluator: Evaluator
 ) -> tuple[list[_Outcome], float]:
-    """Evaluate parameter sets in one batch; returns the outcomes and the evaluator's seconds."""
+    """Evaluate parameter sets in one batch; returns the outcomes and the evaluator's seconds.
+
+    Parameters
+    ----------
+    study
+        The study.
+    params_list
+        Parameter sets, variable name -> value.
+    evaluator
+        ``evaluator(stacks, bias_v, **extra)`` -> figures of merit (:func:`nominal_metrics`
+        by default).
+    """
     stacks: list[Stack | None] = []
     errors: list[str | None] = []
     for params in params_list:

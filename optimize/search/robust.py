@@ -75,9 +75,18 @@ def _stream(seed: int, label: str) -> np.random.Generator:
 def common_random_numbers(parameter_names: Sequence[str], *, samples: int, seed: int) -> np.ndarray:
     """Standard normals ``(samples, n_parameters)``.
 
-    Each column comes from its own stream keyed by ``seed`` and the parameter
+    Each column comes from its own stream keyed by the seed and the parameter
     name, so a column depends only on its name: two designs with the same
     named parameters get the same draws, whatever else they have.
+
+    Parameters
+    ----------
+    parameter_names
+        Names of the growth parameters, one column each.
+    samples
+        Number of rows.
+    seed
+        Seed of the streams (required).
     """
     if seed is None:
         raise ValueError("common random numbers need a seed")
@@ -96,6 +105,15 @@ def design_yields(
     ``ci_low``, ``ci_high``, ``samples``, ``passed``, ``confidence``) plus
     ``failures``: per window, the samples missing it, and ``solve_failed``, the samples
     whose self-consistent solve did not converge (failed samples).
+
+    Parameters
+    ----------
+    stacks
+        The designs.
+    bias_v
+        Bias sweep, V.
+    plan
+        The robust search's plan: growth settings, spec, samples and seed.
     """
     from wellwright.optimize.study.growth import growth_model
     from wellwright.optimize.tolerance.analysis import (
@@ -125,6 +143,15 @@ def design_yields(
 
 def robust_value(yield_value: float, score: float, *, samples: int) -> float:
     """The value a robust search minimises: ``(1 - yield) + t(score) / (samples + 1)``.
+
+    Parameters
+    ----------
+    yield_value
+        Monte Carlo yield, between 0 and 1.
+    score
+        Nominal single-objective score (NaN allowed).
+    samples
+        Monte Carlo samples of the yield.
 
     Notes
     -----
