@@ -131,7 +131,15 @@ class FitResult:
 
 
 def point_weights(bias_v: np.ndarray, current: np.ndarray) -> np.ndarray:
-    """Weights of the measured points: rise, NDR region and the rest count alike (see module notes)."""
+    """Weights of the measured points: rise, NDR region and the rest count alike (see module notes).
+
+    Parameters
+    ----------
+    bias_v
+        Measured biases, V.
+    current
+        Measured current densities there, A/cm^2.
+    """
     w = np.zeros(bias_v.size)
     for sign in (1.0, -1.0):
         side = np.nonzero(sign * bias_v > 0)[0]
@@ -181,12 +189,28 @@ class Objective:
         return int(sum(np.count_nonzero(w) for w in self.weights))
 
     def raw_log_residuals(self, z: np.ndarray, intrinsic=None) -> list[np.ndarray]:
-        """Unweighted ``ln`` residuals per measurement, ``(m, n_points)``."""
+        """Unweighted ``ln`` residuals per measurement, ``(m, n_points)``.
+
+        Parameters
+        ----------
+        z
+            Fit coordinates, ``(m, p)``.
+        intrinsic
+            Intrinsic curves of these rows (:meth:`Problem.intrinsic_currents`); None: computed.
+        """
         pred = self.problem.predict(self.problem.deviations(z), intrinsic)
         return [np.log(np.abs(p) + f) - lg for p, f, lg in zip(pred, self.floors, self.logs)]
 
     def residuals_many(self, z: np.ndarray, intrinsic=None) -> np.ndarray:
-        """``(m, n_residuals)``: weighted data residuals in sigmas, then the priors."""
+        """``(m, n_residuals)``: weighted data residuals in sigmas, then the priors.
+
+        Parameters
+        ----------
+        z
+            Fit coordinates, ``(m, p)`` or ``(p,)``.
+        intrinsic
+            Intrinsic curves of these rows (:meth:`Problem.intrinsic_currents`); None: computed.
+        """
         z = np.atleast_2d(z)
         self.evaluations += z.shape[0]
         raw = self.raw_log_residuals(z, intrinsic)
@@ -383,9 +407,21 @@ def global_stage(
     obj: Objective, starts: int, *, rng: np.random.Generator, random_starts: int = RANDOM_STARTS
 ) -> tuple[list[np.ndarray], int, int]:
     """The best ``starts`` starts, each with its series resistance fitted: the whole-monolayer
-    combinations (continuous parameters nominal) and ``random_starts`` random draws of the
+    combinations (continuous parameters nominal) and random draws of the
     continuous parameters on the best combination. Returns the starts, the number of
-    combinations and the number of random draws."""
+    combinations and the number of random draws.
+
+    Parameters
+    ----------
+    obj
+        The fit's objective.
+    starts
+        Largest number of starts kept (those not far worse than the best).
+    rng
+        Random generator of the draws.
+    random_starts
+        Random draws of the continuous parameters.
+    """
     rows = _combos(obj.problem)
     intrinsic = obj.problem.intrinsic_currents(obj.problem.deviations(rows))
     scored = []
@@ -480,8 +516,21 @@ def run_fit(
 ) -> FitResult:
     """Fit ``problem``: global stage, local fits, scatter re-estimated, covariance at the optimum.
 
-    ``seed`` seeds the random starts of the global stage (the only random
-    step; module notes): the same seed gives the same result.
+    Parameters
+    ----------
+    problem
+        What is fitted to which measurements.
+    starts
+        Largest number of local fits (the best starts of the global stage).
+    max_nfev
+        Largest number of function evaluations of each local fit (per whole-monolayer cell).
+    seed
+        A whole-number seed or a generator of the random starts of the global stage (the
+        only random step; module notes): the same seed gives the same result.
+    random_starts
+        Random starts of the global stage.
+    progress
+        Callable receiving one-line progress messages; None: silent.
     """
     say = progress or (lambda msg: None)
     rng = as_generator(seed)

@@ -217,12 +217,21 @@ class Problem:
 
         Returns the table of ``m * 2**k`` rows (row ``i * 2**k + c`` is corner
         ``c`` of parameter row ``i``; ``k`` island layers) and the weights
-        ``(m, 2**k)``. ``continuous=True`` gives one row per parameter row with
-        fractional thicknesses (for total-thickness constraints). A list given
-        as ``slopes`` receives, per island layer, the derivatives of the
-        weights with respect to its thickness ``(m, 2**k)`` (the island current
-        is multilinear within a monolayer: its thickness derivatives need no
-        further stacks).
+        ``(m, 2**k)``.
+
+        Parameters
+        ----------
+        dev
+            Deviations from the nominal, ``(m, p)``.
+        temperature_k
+            Temperature of the measurement, K; None: the stack's.
+        continuous
+            One row per parameter row with fractional thicknesses (for total-thickness
+            constraints).
+        slopes
+            A list that receives, per island layer, the derivatives of the weights with respect
+            to its thickness, ``(m, 2**k)`` (the island current is multilinear within a
+            monolayer: its thickness derivatives need no further stacks); None: not computed.
         """
         dev = np.atleast_2d(dev)
         m = dev.shape[0]
@@ -290,6 +299,15 @@ class Problem:
     def model_options(
         self, dev_row: np.ndarray, temperature_k: float | None = None
     ) -> ModelOptions:
+        """Model options of one parameter row: the stack's, with the fitted model options changed.
+
+        Parameters
+        ----------
+        dev_row
+            Deviations from the nominal of one row, ``(p,)``.
+        temperature_k
+            Temperature of the measurement, K; None: the stack's.
+        """
         stack = self.stacks_by_temperature.get(temperature_k, self.stack)
         changes = {
             p.key: p.nominal + dev_row[j]
@@ -333,9 +351,15 @@ class Problem:
         Rows with equal physics (they differ only in series resistance) are
         computed once; rows are grouped by model options, one batched kernel
         call (and one for the cliffs) per group and measurement.
-        ``with_slopes`` also returns, per measurement, ``(m, k, n)``
-        derivatives with respect to the thickness of each island layer
-        (monolayers) on the same biases, from the same corners.
+
+        Parameters
+        ----------
+        dev
+            Deviations from the nominal, ``(m, p)``.
+        with_slopes
+            Also return, per measurement, ``(m, k, n)`` derivatives with respect to the
+            thickness of each island layer (monolayers) on the same biases, from the same
+            corners.
         """
         dev = np.atleast_2d(dev)
         phys = np.array([p.kind != "resistance" for p in self.parameters])
@@ -390,7 +414,15 @@ class Problem:
         return currents
 
     def resistance_ohm_um2(self, dev: np.ndarray, meas: Measurement) -> np.ndarray:
-        """``(m,)`` effective specific series resistance of each row for one measurement."""
+        """``(m,)`` effective specific series resistance of each row for one measurement.
+
+        Parameters
+        ----------
+        dev
+            Deviations from the nominal, ``(m, p)``.
+        meas
+            The measurement (its area turns an area-independent resistance into ohm um^2).
+        """
         dev = np.atleast_2d(dev)
         r = np.zeros(dev.shape[0])
         vals = self.values(dev)
@@ -414,6 +446,13 @@ class Problem:
         resistance folds the NDR region back (``V + J R`` decreasing), the
         sweep jumps ahead to the next point of equal terminal bias, as a
         measured up sweep does.
+
+        Parameters
+        ----------
+        dev
+            Deviations from the nominal, ``(m, p)``.
+        intrinsic
+            Intrinsic curves of these rows (:meth:`intrinsic_currents`); None: computed.
         """
         dev = np.atleast_2d(dev)
         intrinsic = self.intrinsic_currents(dev) if intrinsic is None else intrinsic
@@ -499,10 +538,19 @@ def _distinct_currents(
 def up_sweep(
     bias_v: np.ndarray, current_a_cm2: np.ndarray, r_ohm_um2: float, terminal_v: np.ndarray
 ) -> np.ndarray:
-    """Current at terminal biases ``terminal_v`` of an up sweep with series resistance.
+    """Current at terminal biases of an up sweep with series resistance; each polarity
+    is swept away from zero.
 
-    ``bias_v`` increasing intrinsic biases (either side of zero), the
-    intrinsic currents there; each polarity is swept away from zero.
+    Parameters
+    ----------
+    bias_v
+        Increasing intrinsic biases, V (either side of zero).
+    current_a_cm2
+        Intrinsic current densities there, A/cm^2.
+    r_ohm_um2
+        Specific series resistance, ohm um^2.
+    terminal_v
+        Terminal biases, V, at which the current is wanted.
     """
     out = np.zeros(terminal_v.size)
     for sign in (1.0, -1.0):
@@ -549,7 +597,20 @@ def _barrier_span(stack: Stack) -> tuple[int, ...]:
 def candidate_parameters(
     stack: Stack, growth: GrowthSettings, per_layer: dict[str, GrowthSettings], n_areas: int
 ) -> tuple[dict[str, FitParameter], tuple[str, ...]]:
-    """Every fittable parameter of a stack, and the names of the default set."""
+    """Every fittable parameter of a stack, and the names of the default set.
+
+    Parameters
+    ----------
+    stack
+        The nominal stack.
+    growth
+        Growth spreads of the stack (the priors' sigmas).
+    per_layer
+        Growth spreads of named layers that differ from ``growth``.
+    n_areas
+        Number of distinct device areas measured; with two or more the area-independent
+        series resistance joins the default set.
+    """
     n = len(stack.layers)
     cands: dict[str, FitParameter] = {}
     default: list[str] = []
@@ -617,7 +678,18 @@ def candidate_parameters(
 def select(
     cands: dict[str, FitParameter], default: tuple[str, ...], fit: list[str] | None
 ) -> tuple[FitParameter, ...]:
-    """The fit set: ``--fit`` names and groups, or the default set."""
+    """The fit set: the ``--fit`` parameters, or the default set.
+
+    Parameters
+    ----------
+    cands
+        Every fittable parameter, name -> parameter.
+    default
+        Names of the default set.
+    fit
+        ``--fit`` items: parameter names, group names (:data:`GROUPS`) or ``default``;
+        None or empty: the default set.
+    """
     if not fit:
         return tuple(cands[n] for n in default)
     chosen: list[str] = []
@@ -642,7 +714,17 @@ def select(
 def calibration_table(
     raw: Any, *, source: str, stack: Stack
 ) -> tuple[float, float, tuple[int, ...]] | None:
-    """``[calibration]`` of the input file: ``xrd_period_nm = {value, sigma}``, ``xrd_layers``."""
+    """``[calibration]`` of the input file: ``xrd_period_nm = {value, sigma}``, ``xrd_layers``.
+
+    Parameters
+    ----------
+    raw
+        The ``[calibration]`` table, or None.
+    source
+        File name for messages.
+    stack
+        The stack (its layer names, for ``xrd_layers``).
+    """
     if raw is None:
         return None
     checks.table(raw, CALIBRATION_KEYS, source=source, key="calibration")
@@ -675,6 +757,13 @@ def read_input(
     """Split a stack or study file into its stack dictionary, layer growth tables, [growth], [calibration].
 
     A study's ranges are refused: a calibration needs the stack that was grown.
+
+    Parameters
+    ----------
+    data
+        The parsed stack or study file.
+    source
+        File name for messages.
     """
     from wellwright.physics.stack import TOP_KEYS
 
@@ -705,7 +794,21 @@ def build_problem(
     fit: list[str] | None = None,
     bias_points: int | None = None,
 ) -> Problem:
-    """Validate the input file's stack, growth and calibration tables against the measured sweeps."""
+    """Validate the input file's stack, growth and calibration tables against the measured sweeps.
+
+    Parameters
+    ----------
+    data
+        The parsed input file (stack or study without ranges).
+    measurements
+        The measured sweeps.
+    source
+        File name for messages.
+    fit
+        ``--fit`` items (:func:`select`); None: the default set.
+    bias_points
+        Points of the intrinsic bias grid; None: twice the measured density.
+    """
     stack_data, layer_growth, growth_raw, calib_raw = read_input(data, source=source)
     stack = parse_stack(stack_data, source=source)
     names = tuple(lay.name for lay in stack.layers)

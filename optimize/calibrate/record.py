@@ -29,7 +29,15 @@ FOM_KEYS = (
 
 def figures_of_merit(bias_v: np.ndarray, current: np.ndarray) -> dict[str, float | None]:
     """Jp, Vp, Jv, Vv, PVCR of one sampled curve (first NDR peak of the forward branch,
-    else the reverse one; magnitudes), at the sampled points."""
+    else the reverse one; magnitudes), at the sampled points.
+
+    Parameters
+    ----------
+    bias_v
+        Sampled biases, V.
+    current
+        Current densities there, A/cm^2.
+    """
     out: dict[str, float | None] = {k: None for k, *_ in FOM_KEYS}
     for sign in (1.0, -1.0):
         side = np.nonzero(sign * bias_v > 0)[0]
@@ -59,6 +67,13 @@ def identifiability(problem: Problem, result: FitResult) -> list[dict[str, Any]]
       is what the data fix, given with its interval;
     - a parameter whose posterior sigma is above ``PRIOR_DOMINATED`` of its
       prior sigma: the data say little about it, its value is mostly its prior.
+
+    Parameters
+    ----------
+    problem
+        The fitted problem.
+    result
+        The fit (values, standard deviations, correlation).
     """
     notes: list[dict[str, Any]] = []
     params = problem.parameters
@@ -143,7 +158,16 @@ def _rows(problem: Problem, result: FitResult) -> list[dict[str, Any]]:
 
 
 def grower_sentence(rows: list[dict[str, Any]], problem: Problem) -> str:
-    """What to tell the grower: the growth parameters whose 95 % interval excludes the nominal, largest first."""
+    """What to tell the grower: the growth parameters whose 95 % interval excludes the nominal, largest first.
+
+    Parameters
+    ----------
+    rows
+        Fitted parameter rows (``name``, ``value``, ``nominal``, ``sd``, ``ci_low``,
+        ``ci_high``).
+    problem
+        The fitted problem (the kind of each parameter).
+    """
     kinds = {p.name: p.kind for p in problem.parameters}
     off = []
     for r in rows:
@@ -188,7 +212,17 @@ def grower_sentence(rows: list[dict[str, Any]], problem: Problem) -> str:
 def calibration_record(
     problem: Problem, result: FitResult, *, command: dict[str, Any]
 ) -> dict[str, Any]:
-    """The calibration.json record (plain data)."""
+    """The calibration.json record (plain data).
+
+    Parameters
+    ----------
+    problem
+        The fitted problem.
+    result
+        The fit.
+    command
+        The command's settings, stored as given.
+    """
     rows = _rows(problem, result)
     fine = []
     for meas in problem.measurements:
@@ -278,6 +312,15 @@ def calibrated_toml(problem: Problem, result: FitResult, *, note: str) -> str:
     band-edge corrections (as ``conduction_band_ev`` of the layers), model
     options and the specific series resistance are written; an
     area-independent resistance is noted in a comment.
+
+    Parameters
+    ----------
+    problem
+        The fitted problem.
+    result
+        The fit.
+    note
+        Text written as comment lines at the top.
     """
     stack = problem.stack
     dev, vals = result.dev, dict(zip(problem.names, result.values))

@@ -40,8 +40,22 @@ def calibrate(
 ) -> tuple[Any, Any, dict[str, Any]]:
     """Read and fit; returns the problem, the fit result and the record (nothing written).
 
-    ``seed`` seeds the fit's random starts (:func:`~wellwright.optimize.calibrate.fit.run_fit`);
-    the record keeps it (``command.seed`` and ``method.seed``).
+    Parameters
+    ----------
+    stack_path
+        The stack (or study without ranges) file.
+    measured
+        Measured I-V files.
+    fit
+        ``--fit`` items; None: the default set.
+    starts
+        Largest number of local fits.
+    seed
+        Seed of the fit's random starts
+        (:func:`~wellwright.optimize.calibrate.fit.run_fit`); the record keeps it
+        (``command.seed`` and ``method.seed``).
+    progress
+        Callable receiving one-line progress messages; None: silent.
     """
     data = read_toml(stack_path)
     measurements = [read_measured(p) for p in measured]
@@ -58,7 +72,19 @@ def calibrate(
 
 
 def write_outputs(out: str | Path, problem, result, record: dict[str, Any]) -> Path:
-    """Write the output folder (each file atomically)."""
+    """Write the output folder (each file atomically).
+
+    Parameters
+    ----------
+    out
+        The output folder.
+    problem
+        The fitted problem.
+    result
+        The fit.
+    record
+        The calibration record (:func:`calibrate`).
+    """
     from wellwright.optimize.calibrate.figures import overlay_figure
 
     out = Path(out)
@@ -91,7 +117,17 @@ def write_outputs(out: str | Path, problem, result, record: dict[str, Any]) -> P
 
 
 def page(record: dict[str, Any], fom_rows: list[list[Any]], png: Path) -> str:
-    """The standalone calibration.html: inline CSS, the overlay as base64 PNG, no scripts or links."""
+    """The standalone calibration.html: inline CSS, the overlay as base64 PNG, no scripts or links.
+
+    Parameters
+    ----------
+    record
+        The calibration record.
+    fom_rows
+        Rows of the figures-of-merit table (file, figure, measured, fitted, unit).
+    png
+        The overlay figure, embedded.
+    """
     img = base64.b64encode(png.read_bytes()).decode()
     esc = html.escape
 
