@@ -57,7 +57,16 @@ def register(sub) -> None:
 
 
 def check_sweep(bias_min: float, bias_max: float, points: int) -> np.ndarray:
-    """The sweep's biases, or an InputError naming the option."""
+    """The sweep's biases, or an InputError naming the option.
+
+    Parameters
+    ----------
+    bias_min, bias_max
+        First and last bias, V (``--bias-min``, ``--bias-max``), each within
+        ``+-MAX_ABS_BIAS_V``, the last above the first.
+    points
+        Number of biases (``--points``), 2 to ``MAX_POINTS``.
+    """
     for key, v in (("--bias-min", bias_min), ("--bias-max", bias_max)):
         if not np.isfinite(v) or abs(v) > MAX_ABS_BIAS_V:
             raise InputError(f"{v:g} outside [-{MAX_ABS_BIAS_V:g}, {MAX_ABS_BIAS_V:g}] V", key=key)
@@ -75,6 +84,13 @@ def iv_record(stack, curves) -> dict:
     valley fell on its last point (:func:`wellwright.physics.iv.sweep`);
     ``bounded_by_sweep`` lists the figures that are bounds because the valley was not
     reached even there (empty otherwise).
+
+    Parameters
+    ----------
+    stack
+        The stack.
+    curves
+        Its computed I-V curves (the first one is recorded).
     """
     bias, j = curves.curve_of(0)
     record = {
@@ -112,7 +128,17 @@ def iv_record(stack, curves) -> dict:
 
 
 def model_warnings(stack, metrics: dict, bias: np.ndarray) -> list[str]:
-    """Plain-line warnings about what the model leaves out for this stack (X-valley current)."""
+    """Plain-line warnings about what the model leaves out for this stack (X-valley current).
+
+    Parameters
+    ----------
+    stack
+        The stack.
+    metrics
+        Its figures of merit (the peak voltage is checked, else the sweep's end).
+    bias
+        The sweep's biases, V.
+    """
     peak = metrics.get("peak_voltage_v")
     at, where = (peak, " (the peak)") if peak is not None else (float(bias[-1]), " (no peak)")
     message = x_valley_message(x_valley_issues(stack, at), at, where=where)
@@ -121,7 +147,15 @@ def model_warnings(stack, metrics: dict, bias: np.ndarray) -> list[str]:
 
 def fractional_layers(path: str | Path, stack) -> tuple[list[int], list[str]]:
     """Layers the file gives a fractional ``thickness_ml``, and one line on each
-    saying how it is modelled (monolayer islands, :mod:`wellwright.physics.islands`)."""
+    saying how it is modelled (monolayer islands, :mod:`wellwright.physics.islands`).
+
+    Parameters
+    ----------
+    path
+        The stack file (read again for the thicknesses as given).
+    stack
+        The parsed stack.
+    """
     raw = read_toml(path).get("layers", [])
     index, lines = [], []
     for i, (lay, given) in enumerate(zip(stack.layers, raw, strict=False)):

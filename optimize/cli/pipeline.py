@@ -80,7 +80,15 @@ STAGES = ("search", "tolerance", "report")
 
 def run_settings(study: Study, overrides: dict[str, Any] | None = None) -> RunSettings:
     """Defaults, then the study file's ``[tolerance] designs`` and ``[report]`` table,
-    then ``overrides`` (command-line values that are not None)."""
+    then the command-line values.
+
+    Parameters
+    ----------
+    study
+        The study.
+    overrides
+        Command-line values; None values are ignored.
+    """
     tables = settings_from_tables(
         study.reserved.get("report"), study.reserved.get("tolerance"), source=study.source
     )
@@ -131,7 +139,21 @@ def _design_bias(study: Study, s: RunSettings) -> np.ndarray:
 def tolerance_of_design(
     study: Study, design: dict[str, Any], s: RunSettings, out_dir: Path, *, progress: bool
 ) -> dict[str, Any]:
-    """The tolerance analysis of one design record of ``designs.json``."""
+    """The tolerance analysis of one design record of ``designs.json``.
+
+    Parameters
+    ----------
+    study
+        The study.
+    design
+        One record of ``designs.json`` (``rank``, ``trial``, ``params``).
+    s
+        The run's settings (method, samples, seed, allocation, target yield, jobs).
+    out_dir
+        Folder of the tolerance outputs.
+    progress
+        Show progress bars.
+    """
     from wellwright.optimize.study.growth import growth_model, parse_growth
     from wellwright.optimize.tolerance.analysis import Runner, Spec, run_tolerance
 
@@ -174,6 +196,15 @@ def write_design_files(study: Study, design: dict[str, Any], out_dir: Path) -> d
     the study's, as in the search. A design the model cannot evaluate (the
     search's evaluation errors) gets a record with its ``error`` and no
     figures: one design never stops the run.
+
+    Parameters
+    ----------
+    study
+        The study.
+    design
+        One record of ``designs.json`` (``rank``, ``trial``, ``params``).
+    out_dir
+        Folder the files go to.
     """
     from wellwright.optimize.shared.figures import iv_figures
     from wellwright.optimize.shared.model_text import model_label
@@ -241,7 +272,15 @@ EXIT_SPEC_NOT_MET = 3
 
 
 def closest_miss(study: Study, design: dict[str, Any]) -> str:
-    """One line: the closest design and each window of the spec it misses, by how much."""
+    """One line: the closest design and each window of the spec it misses, by how much.
+
+    Parameters
+    ----------
+    study
+        The study (its targets).
+    design
+        The closest design's record (``trial``, ``params``, ``metrics``, ``constraints``).
+    """
     misses = [r["text"] for r in window_report(study.targets, design["metrics"]) if not r["inside"]]
     if not misses:
         misses = [
