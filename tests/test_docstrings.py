@@ -1,5 +1,6 @@
-"""Docstring rules of physics/ (STYLE.md, item 6; issue 16): every public function with two or
-more parameters has a numpydoc Parameters section, and the names it documents are parameters.
+"""Docstring rules of physics/ and optimize/ (STYLE.md, item 6; issue 16): every public function
+(and public method of a public class) with two or more parameters has a numpydoc Parameters
+section, and the names it documents are parameters.
 
 Reads the source with ``ast`` (no import); a regression check of the project's own style,
 common practice in numpydoc projects.
@@ -11,13 +12,14 @@ import ast
 import re
 from pathlib import Path
 
-PHYSICS = Path(__file__).resolve().parents[1] / "physics"
+ROOT = Path(__file__).resolve().parents[1]
+PACKAGES = (ROOT / "physics", ROOT / "optimize")
 SECTION = re.compile(r"^(\s*)(\w[\w ]*)\n\1-{3,}\n", re.M)
 
 
-def _public_functions():
-    for path in sorted(PHYSICS.rglob("*.py")):
-        rel = path.relative_to(PHYSICS.parent)
+def _public_functions(packages=PACKAGES):
+    for path in sorted(p for package in packages for p in package.rglob("*.py")):
+        rel = path.relative_to(ROOT)
         if any(part.startswith("_") and part != "__init__.py" for part in rel.parts):
             continue
         tree = ast.parse(path.read_text())
@@ -62,7 +64,7 @@ def _documented(doc: str) -> list[str] | None:
     return None
 
 
-def test_public_physics_functions_document_their_parameters():
+def test_public_functions_document_their_parameters():
     missing = [
         where
         for where, node in _public_functions()
