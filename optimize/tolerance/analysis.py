@@ -1229,7 +1229,7 @@ def neighbourhood(
 
     That is ``4 k + 2 k (k - 1)`` moves (13 for two free thicknesses, 60 for
     five): the moves a grower would call "nearby", growing quadratically, not
-    as ``5**k``. Beyond the largest number the pairs are dropped first, then
+    as ``5**k``. Beyond ``max_candidates`` moves the pairs are dropped first, then
     the list is cut.
 
     Parameters
