@@ -324,6 +324,22 @@ def test_control_table_does_not_rank_what_is_indistinguishable_from_zero(tmp_pat
     assert "no source cell or layer stands out" in _control_html(record, tmp_path, "rank01")
 
 
+def test_report_cautions_where_the_island_mixture_was_truncated_too_far(demo_dir, tmp_path):
+    """A tolerance record whose island check says 'indicative only' puts a caution at the top
+    of that design's growth check (issue 17: the truncation error stated where it matters)."""
+    from wellwright.optimize.report.build import build_report
+
+    run = tmp_path / "run"
+    shutil.copytree(demo_dir, run)
+    tol = sorted((run / "tolerance").glob("rank*/tolerance.json"))[0]
+    rec = json.loads(tol.read_text())
+    rec["islands"]["warning"] = "the island mixture misses it (invented for the test)"
+    tol.write_text(json.dumps(rec))
+    build_report(run)
+    html = _html(run)
+    assert "<b>Monolayer islands.</b> the island mixture misses it (invented for the test)" in html
+
+
 def test_report_describes_the_model_from_the_run_record(demo_dir, tmp_path):
     """The model section comes from what ran (tolerance.json's model record), not from
     re-reading the study: a record that says another roughness shows in the report."""

@@ -479,6 +479,23 @@ def test_island_layers_are_the_barriers_first(stack, oat):
     assert choose_island_layers(stack, ordered, max_layers=len(ordered)) is None
 
 
+def test_island_truncation_beyond_a_tenth_is_said_as_a_warning():
+    # the record, the CLI and the report say "indicative only" when the truncated island
+    # mixture misses the full one by more than ISLAND_TRUNCATION_WARN in Jp or PVCR (the full
+    # demo's best design: 95 % in Jp with two island layers of five, measured); within it,
+    # or with every layer as islands (no check), nothing is said
+    from wellwright.optimize.tolerance.analysis import ISLAND_TRUNCATION_WARN, island_warning
+
+    islands = {"layers": ["well", "emitter_spacer"], "continuous_layers": ["barrier1"]}
+    small = {"samples": 4, "peak_current_density_a_cm2": 0.05, "peak_voltage_v": 0.3, "pvcr": 0.08}
+    assert island_warning({**islands, "check": small}) is None  # Vp is not a yield figure here
+    assert island_warning(islands) is None
+    big = {**small, "pvcr": ISLAND_TRUNCATION_WARN + 0.01}
+    text = island_warning({**islands, "check": big})
+    assert text is not None and "2 of 3 layers" in text and "11 % in PVCR" in text
+    assert "indicative only" in text and "island_layers" in text
+
+
 # --------------------------------------------------------------------------- wafer
 
 

@@ -272,6 +272,9 @@ def _print_summary(rec: dict[str, Any]) -> None:
             f"to {100 * w['ci_high']:.1f} %) over a {rec['wafer']['diameter_mm']:g} mm wafer; "
             "the yield above is at its centre"
         )
+    warning = (rec.get("islands") or {}).get("warning")
+    if warning:
+        print(f"warning: {warning}")
     fails = {k: v for k, v in rec["failures"].items() if v}
     if fails:
         print("failures: " + ", ".join(f"{k} {v}" for k, v in fails.items()))

@@ -745,6 +745,9 @@ def _growth_card(r: dict, figs: _Figures, files: Path, where: Path, tdir: Path) 
     rank = r["design"].get("rank")
     tag = f"rank{rank:02d}"
     body = [f'<div class="card"><h3>Growth check of rank {rank}</h3>']
+    warning = (r.get("islands") or {}).get("warning")
+    if warning:
+        body.append(f'<div class="caution"><b>Monolayer islands.</b> {_esc(warning)}.</div>')
     method, output, rows = ranking_rows(r)
     fig = ranking_figure(r)
     if fig is not None:
