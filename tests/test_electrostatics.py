@@ -396,3 +396,20 @@ def _property_strategy_test():
 
 
 test_convergence_property_strategy = _property_strategy_test()
+
+
+def test_potential_carried_to_another_grid_keeps_a_linear_drop_exactly() -> None:
+    # analytic: linear interpolation reproduces a linear function exactly, so the linear
+    # drop of one batch's grid is the linear drop on another's (the start potential of the
+    # up-branch continuation, physics.iv._up_branch); the same grid returns the array itself
+    from wellwright.physics.electrostatics import potential_on_grid
+
+    rng = np.random.default_rng(4)
+    src = np.sort(rng.uniform(-20.0, 40.0, (2, 30)), axis=1)
+    src[:, 0], src[:, -1] = -20.0, 40.0
+    dst = np.sort(rng.uniform(-20.0, 40.0, (2, 23)), axis=1)
+    slope = np.array([[0.01, -0.02, 0.0], [0.005, 0.03, -0.01]])  # (stacks, biases) eV/nm
+    u = slope[:, :, None] * src[:, None, :] + 0.1
+    got = potential_on_grid(u, src, dst)
+    np.testing.assert_allclose(got, slope[:, :, None] * dst[:, None, :] + 0.1, atol=1e-12)
+    assert potential_on_grid(u, src, src.copy()) is u
