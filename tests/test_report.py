@@ -357,3 +357,20 @@ def test_report_describes_the_model_from_the_run_record(demo_dir, tmp_path):
         tol.write_text(json.dumps(rec))
     build_report(run)
     assert "height 0.77 nm" in _html(run)
+
+
+def test_candidates_count_distinct_designs_not_copies():
+    # the full demo's report said "250 complete trials, 138 meet the spec" for a search of
+    # 150 designs: a design the sampler suggests again is stored as a copy of its first
+    # evaluation, so the count a designer wants is of distinct designs (exact, no physics)
+    from wellwright.optimize.report.build import _distinct_designs
+
+    points = [
+        {"params": {"a": 4.0, "b": 0.5}, "feasible": False},
+        {"params": {"b": 0.5, "a": 4.0}, "feasible": False},  # a copy, keys in another order
+        {"params": {"a": 5.0, "b": 0.5}, "feasible": True},
+        {"params": {"a": 5.0, "b": 0.5}, "feasible": True},
+        {"params": {"a": 6.0, "b": float("nan")}, "feasible": False},
+        {"params": {"a": 6.0, "b": float("nan")}, "feasible": False},
+    ]
+    assert _distinct_designs(points) == (3, 1)

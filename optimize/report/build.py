@@ -285,7 +285,19 @@ def _brief(study: Study, files: Path) -> tuple[str, dict[str, Any]]:
     return "".join(body), data
 
 
-def _candidates(study: Study, designs: list[dict], reported: int, search: dict) -> str:
+def _distinct_designs(points: list[dict[str, Any]]) -> tuple[int, int]:
+    """How many distinct designs the trials hold, and how many of them meet the spec (a
+    search stores a design it suggests again as a copy of the first evaluation)."""
+    seen: dict[tuple, bool] = {}
+    for p in points:
+        key = tuple((k, repr(v)) for k, v in sorted(p["params"].items()))
+        seen[key] = seen.get(key, False) or bool(p["feasible"])
+    return len(seen), sum(seen.values())
+
+
+def _candidates(
+    study: Study, designs: list[dict], reported: int, search: dict, points: list[dict[str, Any]]
+) -> str:
     # the currents at the spec's stated biases follow the standard columns
     columns = (*METRIC_COLUMNS, *(k for k in study.metric_names if names.AT_BIAS_KEY.match(k)))
     head = (
@@ -317,6 +329,7 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
         if bounded
         else ""
     )
+    distinct, distinct_ok = _distinct_designs(points)
     widen = (
         "<p><b>At a range limit:</b> the analysed designs sit at an end of the range of "
         + _esc(", ".join(names.variable_label(v) for v in limits))
@@ -325,9 +338,10 @@ def _candidates(study: Study, designs: list[dict], reported: int, search: dict) 
         else ""
     )
     return (
-        f"<p>{search.get('complete', '?')} complete trials, {search.get('feasible', '?')} meet "
-        "the spec and every constraint. The ten best distinct designs, best first; "
-        f"* marks the {reported} analysed below.</p>"
+        f"<p>{distinct} distinct designs evaluated, {distinct_ok} of them meet the spec and "
+        f"every constraint ({search.get('complete', '?')} complete trials: a design the "
+        "sampler suggests again is stored as a copy, not evaluated again). The ten best "
+        f"distinct designs, best first; * marks the {reported} analysed below.</p>"
         + widen
         + beyond
         + '<div style="overflow-x:auto">'
@@ -976,7 +990,7 @@ def build_report(run_dir: str | Path) -> Path:
     ]
     section_body = {
         "brief": brief_html,
-        "candidates": _candidates(study, designs, len(reported), search),
+        "candidates": _candidates(study, designs, len(reported), search, points),
         "search": _search_figures(study, points, figs),
         "designs": "".join(cards),
         "growth": growth_html,
