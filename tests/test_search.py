@@ -143,7 +143,10 @@ def test_duplicates_are_copied_not_recomputed(write_study, tmp_path):
     r = run_search(study, trials=5, out_dir=tmp_path / "o", progress=False, write=False)
     assert r.timing["evaluated"] == 5 and r.timing["copied"] >= 1
     assert r.n_complete == 5 + r.timing["copied"]
+    assert r.n_designs == 5  # what the summary and the report count: the copies left out
     trials = _trials(r)
+    first = [t for t in trials if "duplicate_of" not in t.user_attrs]
+    assert r.n_designs_feasible == sum(1 for t in first if t.user_attrs["feasible"])
     for t in trials:
         if "duplicate_of" in t.user_attrs:
             prior = next(p for p in trials if p.number == t.user_attrs["duplicate_of"])
@@ -486,4 +489,5 @@ def test_cli_search_help_and_summary(write_study, tmp_path, capsys):
         == 0
     )
     text = capsys.readouterr().out
-    assert "study 'study': 2 complete trials" in text and (tmp_path / "o" / "designs.json").exists()
+    assert "study 'study': 2 distinct designs evaluated" in text
+    assert "(2 complete trials" in text and (tmp_path / "o" / "designs.json").exists()

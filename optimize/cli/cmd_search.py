@@ -116,8 +116,9 @@ def run(args: argparse.Namespace) -> int:
     )
     robust = bool(result.designs) and result.designs[0].get("yield") is not None
     print(
-        f"study '{result.study_name}': {result.n_complete} complete trials, "
-        f"{result.n_feasible} meet the spec and constraints"
+        f"study '{result.study_name}': {result.n_designs} distinct designs evaluated, "
+        f"{result.n_designs_feasible} meet the spec and constraints ({result.n_complete} "
+        "complete trials, the sampler's repeats stored as copies)"
     )
     print(f"storage: {result.storage}")
     if result.designs:

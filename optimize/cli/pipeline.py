@@ -123,6 +123,8 @@ def _stage_search(study: Study, s: RunSettings, run_dir: Path, progress: bool) -
         "study_name": result.study_name,
         "complete": result.n_complete,
         "feasible": result.n_feasible,
+        "designs": result.n_designs,
+        "designs_feasible": result.n_designs_feasible,
         "designs_file": str((out / "designs.json").relative_to(run_dir)),
         "seed": study.search.seed if s.search_seed is None else s.search_seed,
         "notes": list(result.notes),

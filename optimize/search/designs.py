@@ -58,7 +58,10 @@ class SearchResult:
     out_dir
         Output folder.
     n_complete, n_feasible
-        Complete trials in the study, and how many of them meet spec and constraints.
+        Complete trials in the study, and how many of them meet spec and constraints
+        (copies of a design the sampler suggested again included).
+    n_designs, n_designs_feasible
+        The same without the copies: distinct designs evaluated, and how many meet them.
     designs
         The ``[search] top`` best designs, best first, one per distinct parameter
         set, as plain records (see :func:`design_record` and :func:`rank_trials`,
@@ -83,6 +86,8 @@ class SearchResult:
     files: dict[str, str] = field(default_factory=dict)
     timing: dict[str, float] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
+    n_designs: int = 0
+    n_designs_feasible: int = 0
 
     @property
     def best(self) -> dict[str, Any] | None:

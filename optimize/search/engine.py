@@ -883,6 +883,7 @@ def run_search(
     all_trials = ostudy.get_trials(deepcopy=False)
     complete = [t for t in all_trials if t.state == TrialState.COMPLETE]
     designs = rank_trials(study, complete, top=study.search.top)
+    first = [t for t in complete if "duplicate_of" not in t.user_attrs]  # copies left out
     result = SearchResult(
         study_name=study.optuna_name,
         storage=url,
@@ -892,6 +893,8 @@ def run_search(
         designs=designs,
         directions=study.directions,
         timing=timing,
+        n_designs=len(first),
+        n_designs_feasible=sum(1 for t in first if t.user_attrs.get("feasible")),
     )
     if write:
         write_outputs(study, ostudy, result, complete)
