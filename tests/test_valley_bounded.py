@@ -61,7 +61,7 @@ def test_bounded_valley_in_designs_json_and_csv(tmp_path) -> None:
     # the report's design tables read the record: bounds marked, and a sentence says why
     from wellwright.optimize.report.build import _candidates
 
-    html = _candidates(_study(), designs, 1, {"complete": 2, "feasible": 2})
+    html = _candidates(_study(), designs, 1, {"complete": 2, "feasible": 2}, [])
     assert "Valley beyond the sweep" in html and "≥ 620" in html  # valley voltage, mV
     assert "≤" in html  # the valley current
 
