@@ -92,65 +92,15 @@ def read_measured(path: str | Path) -> Measurement:
         temperature, ``current_a`` without an ``# area_um2`` line.
     """
     source = str(path)
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found", source=source) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read file ({exc})", source=source) from None
-    settings: dict[str, float] = {}
-    rows: list[tuple[int, list[str]]] = []
-    header: list[str] | None = None
-    header_line = 0
-    for lineno, line in enumerate(text.splitlines(), start=1):
-        if not line.strip():
-            continue
-        if line.lstrip().startswith("#"):
-            found = _setting(line, source, lineno)
-            if found:
-                settings[found[0]] = found[1]
-            continue
-        cells = [c.strip() for c in next(csv.reader([line]))]
-        if header is None:
-            header, header_line = cells, lineno
-            if _is_number(cells[0]):
-                raise InputError(
-                    f"line {lineno}: no header; the first line must name the columns, "
-                    "e.g. bias_v,current_density_a_cm2",
-                    source=source,
-                )
-            continue
-        rows.append((lineno, cells))
-    if header is None:
-        raise InputError("no header and no data", source=source)
-    columns = _columns(header, settings, source=source, lineno=header_line)
-    values = {name: np.empty(len(rows)) for name in columns}
-    for r, (lineno, cells) in enumerate(rows):
-        for name, col in columns.items():
-            where = f"line {lineno}, column {col + 1} ({name})"
-            if col >= len(cells) or cells[col] == "":
-                raise InputError(f"{where}: empty cell", source=source)
-            if not _is_number(cells[col]):
-                raise InputError(f"{where}: {cells[col]!r} is not a number", source=source)
-            v = float(cells[col])
-            if not math.isfinite(v):
-                raise InputError(f"{where}: {cells[col]} is not a finite number", source=source)
-            values[name][r] = v
+    settings, header, rows = _split_lines(_read_file(path, source), source)
+    columns = _columns(header[1], settings, source=source, lineno=header[0])
+    values = _cell_values(rows, columns, source)
     if len(rows) < MIN_POINTS:
         raise InputError(
             f"{len(rows)} data rows; a sweep needs at least {MIN_POINTS}", source=source
         )
     bias = values["bias_v"]
-    step = np.diff(bias)
-    direction = 1.0 if step[0] > 0 else -1.0
-    bad = np.nonzero(direction * step <= 0)[0]
-    if bad.size:
-        lineno = rows[bad[0] + 1][0]
-        raise InputError(
-            f"line {lineno}, column {columns['bias_v'] + 1} (bias_v): biases must be strictly "
-            f"monotonic (one sweep), {bias[bad[0] + 1]:g} V follows {bias[bad[0]]:g} V",
-            source=source,
-        )
+    direction = _sweep_direction(bias, [lineno for lineno, _ in rows], columns["bias_v"], source)
     temperature = settings.get("temperature_k")
     if "temperature_k" in values:
         t = values["temperature_k"]
@@ -172,6 +122,83 @@ def read_measured(path: str | Path) -> Measurement:
     if direction < 0:
         bias, j = bias[::-1], j[::-1]
     return Measurement(source, bias.copy(), j.copy(), area, temperature)
+
+
+def _read_file(path: str | Path, source: str) -> str:
+    """The file's text; one line when it is missing or unreadable."""
+    try:
+        return Path(path).read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("file not found", source=source) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read file ({exc})", source=source) from None
+
+
+def _split_lines(
+    text: str, source: str
+) -> tuple[dict[str, float], tuple[int, list[str]], list[tuple[int, list[str]]]]:
+    """The settings of the comment lines, the header ``(line, cells)`` and the data rows
+    ``(line, cells)`` of a measured file (lines from 1; blank lines skipped)."""
+    settings: dict[str, float] = {}
+    rows: list[tuple[int, list[str]]] = []
+    header: tuple[int, list[str]] | None = None
+    for lineno, line in enumerate(text.splitlines(), start=1):
+        if not line.strip():
+            continue
+        if line.lstrip().startswith("#"):
+            found = _setting(line, source, lineno)
+            if found:
+                settings[found[0]] = found[1]
+            continue
+        cells = [c.strip() for c in next(csv.reader([line]))]
+        if header is None:
+            header = (lineno, cells)
+            if _is_number(cells[0]):
+                raise InputError(
+                    f"line {lineno}: no header; the first line must name the columns, "
+                    "e.g. bias_v,current_density_a_cm2",
+                    source=source,
+                )
+            continue
+        rows.append((lineno, cells))
+    if header is None:
+        raise InputError("no header and no data", source=source)
+    return settings, header, rows
+
+
+def _cell_values(
+    rows: list[tuple[int, list[str]]], columns: dict[str, int], source: str
+) -> dict[str, np.ndarray]:
+    """Each read column as an array over the data rows; one line naming the first cell
+    that is empty, not a number or not finite."""
+    values = {name: np.empty(len(rows)) for name in columns}
+    for r, (lineno, cells) in enumerate(rows):
+        for name, col in columns.items():
+            where = f"line {lineno}, column {col + 1} ({name})"
+            if col >= len(cells) or cells[col] == "":
+                raise InputError(f"{where}: empty cell", source=source)
+            if not _is_number(cells[col]):
+                raise InputError(f"{where}: {cells[col]!r} is not a number", source=source)
+            v = float(cells[col])
+            if not math.isfinite(v):
+                raise InputError(f"{where}: {cells[col]} is not a finite number", source=source)
+            values[name][r] = v
+    return values
+
+
+def _sweep_direction(bias: np.ndarray, linenos: list[int], col: int, source: str) -> float:
+    """+1 for biases increasing, -1 decreasing; one line naming the first bias that breaks a
+    strictly monotonic sweep (``linenos``: the file line of each bias, ``col``: its column)."""
+    step = np.diff(bias)
+    direction = 1.0 if step[0] > 0 else -1.0
+    bad = np.nonzero(direction * step <= 0)[0]
+    if bad.size:
+        raise InputError(
+            f"line {linenos[bad[0] + 1]}, column {col + 1} (bias_v): biases must be strictly "
+            f"monotonic (one sweep), {bias[bad[0] + 1]:g} V follows {bias[bad[0]]:g} V",
+            source=source,
+        )
+    return direction
 
 
 def _is_number(cell: str) -> bool:

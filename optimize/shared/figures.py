@@ -91,42 +91,12 @@ def iv_figure(
     # computed beyond the sweep to find the valley (counted before the marks join the curve)
     extended = v.size > curves.bias_v.size
     beyond_end = bool(extended and v[-1] > curves.bias_v[-1])
-    marks = []
-    if m["peak_voltage_v"] is not None:
-        for name in ("peak", "valley"):
-            marks.append((name, m[f"{name}_voltage_v"], m[f"{name}_current_density_a_cm2"]))
-        extra_v = np.array([x for _, x, _ in marks])
-        extra_j = np.array([y for _, _, y in marks]) * np.sign(extra_v)
-        order = np.argsort(np.concatenate([v, extra_v]), kind="stable")
-        v = np.concatenate([v, extra_v])[order]
-        j = np.concatenate([j, extra_j])[order]
+    marks = _peak_valley_marks(m)
+    v, j = _through_marks(v, j, marks)
     for axis, scale in ((ax, 1e-3), (lx, 1.0)):
-        y = j * scale if axis is ax else np.where(j != 0, np.abs(j), np.nan)
-        axis.plot(v, y, color=PALETTE["blue"], lw=2, label="Tsu-Esaki current")
-        if series_resistance_ohm_um2 > 0:
-            axis.plot(
-                external_bias_v(v, j, series_resistance_ohm_um2=series_resistance_ohm_um2),
-                y,
-                color=PALETTE["blue"],
-                lw=1.2,
-                ls="--",
-                label=f"at the terminals ({series_resistance_ohm_um2:g} Ω µm²)"
-                if axis is ax
-                else None,
-            )
-        for (name, x, yv), marker, color in zip(marks, ("o", "s"), ("vermillion", "green")):
-            axis.plot(
-                x,
-                yv * scale if axis is ax else abs(yv),
-                marker,
-                ms=9,
-                mfc="none",
-                mec=PALETTE[color],
-                mew=2,
-                clip_on=False,
-                zorder=5,
-                label="first NDR peak" if name == "peak" else "its valley",
-            )
+        _draw_iv_panel(
+            axis, v, j, marks, scale=scale, linear=axis is ax, r_ohm_um2=series_resistance_ohm_um2
+        )
     if extended:
         end = float(curves.bias_v[-1] if beyond_end else curves.bias_v[0])
         for axis in (ax, lx):
@@ -142,6 +112,94 @@ def iv_figure(
         )
     else:
         ax.text(0.03, 0.95, "no NDR in this sweep", transform=ax.transAxes, va="top")
+    _iv_axes(ax, lx, j, title=title, r_ohm_um2=series_resistance_ohm_um2)
+    fig.align_ylabels()
+    fig.tight_layout()
+    return fig
+
+
+def _peak_valley_marks(m: dict) -> list[tuple[str, float, float]]:
+    """``(name, bias_v, current_density_a_cm2)`` of the first NDR peak and its valley;
+    none without NDR."""
+    marks = []
+    if m["peak_voltage_v"] is not None:
+        for name in ("peak", "valley"):
+            marks.append((name, m[f"{name}_voltage_v"], m[f"{name}_current_density_a_cm2"]))
+    return marks
+
+
+def _through_marks(
+    v: np.ndarray, j: np.ndarray, marks: list[tuple[str, float, float]]
+) -> tuple[np.ndarray, np.ndarray]:
+    """The curve with the refined peak and valley inserted in bias order, so the markers
+    sit on it (the current takes the sign of the bias)."""
+    if not marks:
+        return v, j
+    extra_v = np.array([x for _, x, _ in marks])
+    extra_j = np.array([y for _, _, y in marks]) * np.sign(extra_v)
+    order = np.argsort(np.concatenate([v, extra_v]), kind="stable")
+    return np.concatenate([v, extra_v])[order], np.concatenate([j, extra_j])[order]
+
+
+def _draw_iv_panel(
+    axis,
+    v: np.ndarray,
+    j: np.ndarray,
+    marks: list[tuple[str, float, float]],
+    *,
+    scale: float,
+    linear: bool,
+    r_ohm_um2: float,
+) -> None:
+    """One panel of the I-V figure: the curve, the curve at the terminals (with a series
+    resistance) and the peak and valley marks.
+
+    Parameters
+    ----------
+    axis
+        Matplotlib axes to draw on.
+    v
+        Intrinsic bias, V.
+    j
+        Current density, A/cm², signed.
+    marks
+        ``(name, bias_v, current_density_a_cm2)`` of the peak and valley (:func:`iv_figure`).
+    scale
+        Factor from A/cm² to the panel's unit (linear panel only).
+    linear
+        The linear panel (labels the legend entries); else the log panel of ``|J|``.
+    r_ohm_um2
+        Specific series resistance, Ω µm²; 0: no terminal curve.
+    """
+    y = j * scale if linear else np.where(j != 0, np.abs(j), np.nan)
+    axis.plot(v, y, color=PALETTE["blue"], lw=2, label="Tsu-Esaki current")
+    if r_ohm_um2 > 0:
+        axis.plot(
+            external_bias_v(v, j, series_resistance_ohm_um2=r_ohm_um2),
+            y,
+            color=PALETTE["blue"],
+            lw=1.2,
+            ls="--",
+            label=f"at the terminals ({r_ohm_um2:g} Ω µm²)" if linear else None,
+        )
+    for (name, x, yv), marker, color in zip(marks, ("o", "s"), ("vermillion", "green")):
+        axis.plot(
+            x,
+            yv * scale if linear else abs(yv),
+            marker,
+            ms=9,
+            mfc="none",
+            mec=PALETTE[color],
+            mew=2,
+            clip_on=False,
+            zorder=5,
+            label="first NDR peak" if name == "peak" else "its valley",
+        )
+
+
+def _iv_axes(ax, lx, j: np.ndarray, *, title: str, r_ohm_um2: float) -> None:
+    """Limits, labels, legend and title of the I-V figure's linear (``ax``) and log (``lx``)
+    panels; ``j`` the drawn current density, A/cm²."""
     jk = j / 1e3
     top = float(np.nanmax(jk)) if np.isfinite(jk).any() else 1.0
     low = float(np.nanmin(jk)) if np.isfinite(jk).any() else 0.0
@@ -157,12 +215,9 @@ def iv_figure(
     lx.set_ylabel("|current density| (A/cm², log)")
     lx.set_xlabel(
         "bias (V): intrinsic (solid), at the terminals V + J R (dashed)"
-        if series_resistance_ohm_um2 > 0
+        if r_ohm_um2 > 0
         else "bias (V)"
     )
-    fig.align_ylabels()
-    fig.tight_layout()
-    return fig
 
 
 def _peak_valley_text(m: dict, extended: bool, series_resistance_ohm_um2: float) -> str:
@@ -208,16 +263,22 @@ def _bistable_note(m: dict) -> str:
     )
 
 
-def _layer_spans(profile) -> list[tuple[float, float, int]]:
-    """``(z0, z1, layer)`` of each interior layer from the profile's slices, emitter interface at 0."""
+def _slice_edges_nm(profile) -> tuple[np.ndarray, np.ndarray]:
+    """Left and right edge of each slice of the profile, nm, emitter interface at 0."""
     right = np.cumsum(profile.width_nm)
     left = right - profile.width_nm
+    origin = left[np.argmax(profile.layer_index == 1)]
+    return left - origin, right - origin
+
+
+def _layer_spans(profile) -> list[tuple[float, float, int]]:
+    """``(z0, z1, layer)`` of each interior layer from the profile's slices, emitter interface at 0."""
+    left, right = _slice_edges_nm(profile)
     li = profile.layer_index
-    origin = left[np.argmax(li == 1)]
     spans = []
     for idx in range(1, int(li.max())):
         where = np.nonzero(li == idx)[0]
-        spans.append((float(left[where[0]] - origin), float(right[where[-1]] - origin), idx))
+        spans.append((float(left[where[0]]), float(right[where[-1]]), idx))
     return spans
 
 
@@ -238,35 +299,13 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     profile = band_profile(table, [bias_v], model=stack.model).take((0, 0))
     edge = profile.edge_ev
     spans = _layer_spans(profile)
-    right = np.cumsum(profile.width_nm)
-    origin = (right - profile.width_nm)[np.argmax(profile.layer_index == 1)]
-    bounds = np.concatenate(
-        [[right[0] - origin], right[1:-1] - origin]
-    )  # slice edges, 0 = emitter interface
-    z_lo, z_hi = float(bounds[0]), float(bounds[-1])
+    bounds = _slice_edges_nm(profile)[1][:-1]  # slice edges, 0 = emitter interface
     length = spans[-1][1]
     fig, ax = plt.subplots(figsize=(7.0, 4.4))
-    xs = np.concatenate([[z_lo - CONTACT_DRAW_NM], bounds, [z_hi + CONTACT_DRAW_NM]])
-    ys = np.concatenate([[edge[0]], edge[1:-1], [edge[-1], edge[-1]]])
-    ax.step(xs, ys, where="post", color=PALETTE["black"], lw=1.8, label="Γ edge (transport)")
-    x_edge, l_edge = indirect_edges_ev(stack, profile)
-    for valley_edge, name, color, dash in (
-        (x_edge, "X", "green", "--"),
-        (l_edge, "L", "purple", ":"),
-    ):
-        if np.isfinite(valley_edge).any():
-            ys_valley = np.concatenate(
-                [[valley_edge[0]], valley_edge[1:-1], [valley_edge[-1], valley_edge[-1]]]
-            )
-            ax.step(
-                xs,
-                ys_valley,
-                where="post",
-                color=PALETTE[color],
-                ls=dash,
-                lw=1.3,
-                label=f"{name} edge (no current modelled)",
-            )
+    xs = np.concatenate(
+        [[float(bounds[0]) - CONTACT_DRAW_NM], bounds, [float(bounds[-1]) + CONTACT_DRAW_NM]]
+    )
+    _draw_band_edges(ax, stack, profile, xs)
     active = profile.layer_index[1:-1]
     top = float(edge[1:-1][(active > 0) & (active < profile.layer_index.max())].max())
     emitter_edge = stack.layers[0].conduction_band_ev
@@ -275,6 +314,60 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
         for z0, z1, idx in spans
         if stack.layers[idx].conduction_band_ev > emitter_edge + 0.05
     ]
+    _draw_layers(ax, stack, spans, barriers, top=top)
+    mu_e, mu_c = (float(x[0]) for x in contact_fermi_levels_ev(table))
+    ax.hlines(mu_e, xs[0], 0, colors=PALETTE["orange"], linestyles="--", lw=2, label="Fermi levels")
+    ax.hlines(edge[-1] + mu_c, length, xs[-1], colors=PALETTE["orange"], linestyles="--", lw=2)
+    _draw_resonances(ax, profile, barriers, top=top, length_nm=length)
+    ax.set_xlabel("position from the emitter interface (nm)")
+    ax.set_ylabel("energy from emitter band edge (eV)")
+    ax.set_xlim(max(xs[0], -25.0), min(xs[-1], length + 35.0))  # the active region, some contact
+    ax.set_ylim(min(float(edge.min()), 0.0) - 0.1, top * 1.35 + 0.15)
+    # below the axes: the emitter side now carries the X and L edges
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=3, fontsize=8, frameon=False)
+    model = "linear drop" if stack.model.electrostatics == "linear" else "self-consistent"
+    ax.set_title(title or f"band diagram at {bias_v * 1e3:.0f} mV ({model})")
+    return fig
+
+
+def _draw_band_edges(ax, stack: Stack, profile, xs: np.ndarray) -> None:
+    """The Gamma edge (solid) and the X and L edges (dashed, where defined) as steps over the
+    slice edges ``xs`` (nm; the contacts drawn flat beyond)."""
+
+    def steps(e: np.ndarray) -> np.ndarray:
+        return np.concatenate([[e[0]], e[1:-1], [e[-1], e[-1]]])
+
+    edge = profile.edge_ev
+    ax.step(
+        xs, steps(edge), where="post", color=PALETTE["black"], lw=1.8, label="Γ edge (transport)"
+    )
+    x_edge, l_edge = indirect_edges_ev(stack, profile)
+    for valley_edge, name, color, dash in (
+        (x_edge, "X", "green", "--"),
+        (l_edge, "L", "purple", ":"),
+    ):
+        if np.isfinite(valley_edge).any():
+            ax.step(
+                xs,
+                steps(valley_edge),
+                where="post",
+                color=PALETTE[color],
+                ls=dash,
+                lw=1.3,
+                label=f"{name} edge (no current modelled)",
+            )
+
+
+def _draw_layers(
+    ax,
+    stack: Stack,
+    spans: list[tuple[float, float, int]],
+    barriers: list[tuple[float, float]],
+    *,
+    top: float,
+) -> None:
+    """Shade the barriers and write each interior layer's name and material above ``top``
+    (the highest edge of the active region, eV)."""
     for z0, z1, idx in spans:
         layer = stack.layers[idx]
         if (z0, z1) in barriers:
@@ -288,14 +381,20 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
             fontsize=7,
             rotation=90,
         )
-    mu_e, mu_c = (float(x[0]) for x in contact_fermi_levels_ev(table))
-    ax.hlines(mu_e, xs[0], 0, colors=PALETTE["orange"], linestyles="--", lw=2, label="Fermi levels")
-    ax.hlines(edge[-1] + mu_c, length, xs[-1], colors=PALETTE["orange"], linestyles="--", lw=2)
+
+
+def _draw_resonances(
+    ax, profile, barriers: list[tuple[float, float]], *, top: float, length_nm: float
+) -> None:
+    """Up to four resonance levels drawn across the well(s) between the first and last
+    barrier, each labelled with its energy and width (``top``: the highest edge of the active
+    region, eV; ``length_nm``: its length)."""
+    edge = profile.edge_ev
     res = find_resonances(
         profile, energy_min_ev=max(0.0, float(edge[-1])) - 0.3, energy_max_ev=top, n_max=4
     )
-    w0, w1 = (barriers[0][1], barriers[-1][0]) if len(barriers) >= 2 else (0.0, length)
-    label_z = (barriers[-1][1] if barriers else length) + 0.4
+    w0, w1 = (barriers[0][1], barriers[-1][0]) if len(barriers) >= 2 else (0.0, length_nm)
+    label_z = (barriers[-1][1] if barriers else length_nm) + 0.4
     order = np.argsort(res.energy_ev)
     for n, k in enumerate([k for k in order if res.valid[k]], start=1):
         e_r, g = float(res.energy_ev[k]), float(res.width_ev[k])
@@ -311,15 +410,6 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
             color=PALETTE["vermillion"],
             bbox={"fc": "white", "ec": "none", "alpha": 0.8, "pad": 0.5},  # over the X, L lines
         )
-    ax.set_xlabel("position from the emitter interface (nm)")
-    ax.set_ylabel("energy from emitter band edge (eV)")
-    ax.set_xlim(max(xs[0], -25.0), min(xs[-1], length + 35.0))  # the active region, some contact
-    ax.set_ylim(min(float(edge.min()), 0.0) - 0.1, top * 1.35 + 0.15)
-    # below the axes: the emitter side now carries the X and L edges
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=3, fontsize=8, frameon=False)
-    model = "linear drop" if stack.model.electrostatics == "linear" else "self-consistent"
-    ax.set_title(title or f"band diagram at {bias_v * 1e3:.0f} mV ({model})")
-    return fig
 
 
 def _fmt_energy(value_ev: float) -> str:
