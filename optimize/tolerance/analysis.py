@@ -1325,6 +1325,21 @@ def _recentre_moves(
     return base, [m for m in moves if allowed(m)]
 
 
+def _free_records(model: GrowthModel, free: Sequence[FreeThickness]) -> list[dict[str, Any]]:
+    """The ``free`` thicknesses of a re-centring as plain records: {name, layers, nominal_ml,
+    low_ml, high_ml}."""
+    return [
+        {
+            "name": f.name,
+            "layers": [model.stack.layers[i].name for i in f.layers],
+            "nominal_ml": float(model.nominal_ml[f.layers[0]]),
+            "low_ml": f.low_ml,
+            "high_ml": f.high_ml,
+        }
+        for f in free
+    ]
+
+
 def _recentre_text(
     label: str, new_y: dict[str, Any], old_y: dict[str, Any], gain: dict[str, Any], better: bool
 ) -> str:
@@ -1409,16 +1424,6 @@ def recentre(
         nominal_passed = spec.passes(run(model.grow(z, sigma_scale=scale), desc="nominal"))
     nominal_passed = np.asarray(nominal_passed, bool)
     base, moves = _recentre_moves(model, free, max_candidates)
-    free_rec = [
-        {
-            "name": f.name,
-            "layers": [model.stack.layers[i].name for i in f.layers],
-            "nominal_ml": float(model.nominal_ml[f.layers[0]]),
-            "low_ml": f.low_ml,
-            "high_ml": f.high_ml,
-        }
-        for f in free
-    ]
     models = [
         model.with_thickness_ml(
             {i: b + d for f, b, d in zip(free, base, m, strict=True) for i in f.layers}
@@ -1426,13 +1431,8 @@ def recentre(
         for m in moves
     ]
     out: dict[str, Any] = {
-        "free": free_rec,
-        "method": (
-            "every whole-monolayer move of at most two monolayers in all (each free "
-            "thickness +-1 or +-2 ML alone, or two of them +-1 ML together) within the "
-            f"study's ranges; screened on {n_screen} as-grown samples, the best confirmed on "
-            f"the other {n - n_screen}; the same random numbers for every design"
-        ),
+        "free": _free_records(model, free),
+        "method": _recentre_method(n_screen, n - n_screen),
         "design": None,
         "better": False,
     }
@@ -1445,85 +1445,160 @@ def recentre(
             text="no whole-monolayer design within two monolayers stays inside the study's ranges",
         )
         return out
-    grown = AsGrown.concatenate([m.grow(z[:n_screen], sigma_scale=scale) for m in models])
-    ok = spec.passes(run(grown, desc="re-centre screen")).reshape(len(moves), n_screen)
+    screen = _screen_candidates(model, models, moves, spec, run, z=z[:n_screen], scale=scale)
+    out["candidates"] = _candidate_records(model.stack, free, base, moves, screen)
+    nominal_screen = float(np.mean(nominal_passed[:n_screen]))
+    out["nominal_screen_yield"] = nominal_screen
+    out["budget"] = {
+        "candidates": len(moves),
+        "screen_samples": n_screen,
+        "confirm_samples": n - n_screen,
+        "devices": len(moves) * (n_screen + 1) + 1,
+        "stacks": screen.stacks,
+    }
+    best = screen.order[0]
+    if not _beats_nominal(screen, nominal_screen):
+        out["text"] = (
+            f"no whole-monolayer design within two monolayers of the free thicknesses beats the "
+            f"nominal on the screen ({100 * screen.yields[best]:.0f} % at best against "
+            f"{100 * nominal_screen:.0f} %, none deeper inside the spec at equal yield)"
+        )
+        return out
+    chosen = models[best].grow(z[n_screen:], sigma_scale=scale)
+    out["budget"]["devices"] += n - n_screen
+    out["budget"]["stacks"] += int(chosen.table.n_stacks)
+    ok_new = spec.passes(run(chosen, desc="re-centre confirm"))
+    design = _design_record(models[best], free, base, moves[best], out["candidates"][0])
+    out.update(_confirmed(spec, screen, design, ok_new=ok_new, ok_old=nominal_passed[n_screen:]))
+    return out
+
+
+def _recentre_method(n_screen: int, n_confirm: int) -> str:
+    """How :func:`recentre` searched, in words (the record's ``method``)."""
+    return (
+        "every whole-monolayer move of at most two monolayers in all (each free "
+        "thickness +-1 or +-2 ML alone, or two of them +-1 ML together) within the "
+        f"study's ranges; screened on {n_screen} as-grown samples, the best confirmed on "
+        f"the other {n_confirm}; the same random numbers for every design"
+    )
+
+
+@dataclass(frozen=True)
+class _Screen:
+    """The re-centring candidates on the screening samples (index ``c`` for a candidate;
+    ``plain``, ``meets`` and ``depth`` have the nominal design as their last entry)."""
+
+    yields: np.ndarray  #: screen yield of each candidate
+    plain: dict[str, np.ndarray]  #: figures of merit without growth errors
+    meets: np.ndarray  #: meets the spec without growth errors
+    depth: np.ndarray  #: :func:`spec_depth` without growth errors
+    order: list[int]  #: candidates, best first
+    stacks: int  #: stacks evaluated
+
+
+def _screen_candidates(
+    model: GrowthModel,
+    models: list[GrowthModel],
+    moves: list[tuple[int, ...]],
+    spec: Spec,
+    run: Runner,
+    *,
+    z: np.ndarray,
+    scale: np.ndarray | None,
+) -> _Screen:
+    """Grow every candidate of :func:`recentre` from the same coordinates ``z`` as one batch,
+    and evaluate each candidate and the nominal design without growth errors; equal
+    yields are ordered by :func:`spec_depth`, then by the smaller move."""
+    grown = AsGrown.concatenate([m.grow(z, sigma_scale=scale) for m in models])
+    ok = spec.passes(run(grown, desc="re-centre screen")).reshape(len(moves), z.shape[0])
     plain = run(
         LayerTable.concatenate([m.nominal for m in [*models, model]]), desc="re-centre nominal"
     )
-    meets = spec.passes(plain)
     depth = spec_depth(spec, plain)  # last entry: the nominal itself
     screen_yield = ok.mean(axis=1)
     order = sorted(
         range(len(moves)),
         key=lambda c: (-screen_yield[c], -depth[c], sum(map(abs, moves[c]))),
     )
-    out["candidates"] = [
+    stacks = grown.table.n_stacks + len(moves) + 1
+    return _Screen(screen_yield, plain, spec.passes(plain), depth, order, int(stacks))
+
+
+def _candidate_records(
+    stack: Stack,
+    free: Sequence[FreeThickness],
+    base: Sequence[float],
+    moves: list[tuple[int, ...]],
+    screen: _Screen,
+) -> list[dict[str, Any]]:
+    """The screened candidates of :func:`recentre`, best first: {move, label, screen_yield,
+    meets_spec, depth}."""
+    return [
         {
             "move": dict(zip([f.name for f in free], map(int, moves[c]), strict=True)),
-            "label": _move_label(model.stack, free, base, moves[c]),
-            "screen_yield": float(screen_yield[c]),
-            "meets_spec": bool(meets[c]),
-            "depth": float(depth[c]),
+            "label": _move_label(stack, free, base, moves[c]),
+            "screen_yield": float(screen.yields[c]),
+            "meets_spec": bool(screen.meets[c]),
+            "depth": float(screen.depth[c]),
         }
-        for c in order
+        for c in screen.order
     ]
-    stacks = grown.table.n_stacks + len(moves) + 1
-    nominal_screen = float(np.mean(nominal_passed[:n_screen]))
-    out["nominal_screen_yield"] = nominal_screen
-    best = order[0]
-    budget = {
-        "candidates": len(moves),
-        "screen_samples": n_screen,
-        "confirm_samples": n - n_screen,
-        "devices": len(moves) * (n_screen + 1) + 1,
-        "stacks": int(stacks),
+
+
+def _design_record(
+    chosen: GrowthModel,
+    free: Sequence[FreeThickness],
+    base: Sequence[float],
+    move: tuple[int, ...],
+    candidate: dict[str, Any],
+) -> dict[str, Any]:
+    """The chosen design of :func:`recentre`: {label, move, thickness_ml, layers}
+    (``chosen``: its growth model, ``candidate``: its record among the candidates)."""
+    return {
+        "label": candidate["label"],
+        "move": candidate["move"],
+        "thickness_ml": {f.name: int(b + d) for f, b, d in zip(free, base, move, strict=True)},
+        "layers": layer_records(chosen.stack),
     }
-    # a tie on the screen (few samples, or every design passing) goes to the design deeper
-    # inside the spec windows
-    if screen_yield[best] < nominal_screen or (
-        screen_yield[best] == nominal_screen and depth[best] <= depth[-1]
-    ):
-        out["budget"] = budget
-        out["text"] = (
-            f"no whole-monolayer design within two monolayers of the free thicknesses beats the "
-            f"nominal on the screen ({100 * screen_yield[best]:.0f} % at best against "
-            f"{100 * nominal_screen:.0f} %, none deeper inside the spec at equal yield)"
-        )
-        return out
-    chosen = models[best].grow(z[n_screen:], sigma_scale=scale)
-    budget["devices"] += n - n_screen
-    budget["stacks"] += int(chosen.table.n_stacks)
-    ok_new = spec.passes(run(chosen, desc="re-centre confirm"))
-    ok_old = nominal_passed[n_screen:]
+
+
+def _beats_nominal(screen: _Screen, nominal_screen: float) -> bool:
+    """The best candidate does better than the nominal on the screen: a higher yield, or
+    (a tie, with few samples or every design passing) deeper inside the spec windows."""
+    best = screen.order[0]
+    return not (
+        screen.yields[best] < nominal_screen
+        or (screen.yields[best] == nominal_screen and screen.depth[best] <= screen.depth[-1])
+    )
+
+
+def _confirmed(
+    spec: Spec,
+    screen: _Screen,
+    design: dict[str, Any],
+    *,
+    ok_new: np.ndarray,
+    ok_old: np.ndarray,
+) -> dict[str, Any]:
+    """The :func:`recentre` fields of the chosen design confirmed on the samples the screen
+    never saw (``ok_new`` its pass/fail there, ``ok_old`` the nominal's)."""
+    best = screen.order[0]
     new_y, old_y = yield_record(ok_new), yield_record(ok_old)
     gain = paired_gain(ok_new, ok_old)
-    metrics = {k: (None if not np.isfinite(v[best]) else float(v[best])) for k, v in plain.items()}
-    label = _move_label(model.stack, free, base, moves[best])
-    design = {
-        "label": label,
-        "move": out["candidates"][0]["move"],
-        "thickness_ml": {
-            f.name: int(b + d) for f, b, d in zip(free, base, moves[best], strict=True)
-        },
-        "layers": layer_records(models[best].stack),
-    }
+    metrics = _clean(screen.plain, best)
     better = bool(gain["measurable"] and gain["gain"] > 0)
-    out.update(
-        {
-            "budget": budget,
-            "design": design,
-            "metrics": metrics,
-            "spec_check": window_report(spec.windows, metrics),
-            "meets_spec": bool(meets[best]),
-            "yield": new_y,
-            "nominal_yield": old_y,
-            "gain": gain,
-            "better": better,
-            "intervals_overlap": bool(new_y["ci_low"] <= old_y["ci_high"]),
-            "text": _recentre_text(label, new_y, old_y, gain, better),
-        }
-    )
-    return out
+    return {
+        "design": design,
+        "metrics": metrics,
+        "spec_check": window_report(spec.windows, metrics),
+        "meets_spec": bool(screen.meets[best]),
+        "yield": new_y,
+        "nominal_yield": old_y,
+        "gain": gain,
+        "better": better,
+        "intervals_overlap": bool(new_y["ci_low"] <= old_y["ci_high"]),
+        "text": _recentre_text(design["label"], new_y, old_y, gain, better),
+    }
 
 
 def _advice_recentre(recentred: dict[str, Any] | None) -> tuple[str, str]:
@@ -1973,18 +2048,8 @@ def run_tolerance(
         mc["wafer"] = wafer_yield(model, spec, run, mc["z"])
     record: dict[str, Any] = {
         "design": design or {},
-        "parameters": [
-            {"name": p.name, "kind": p.kind, "sigma": p.sigma, "unit": p.unit, "control": p.control}
-            for p in model.parameters
-        ],
-        "spec": [
-            {
-                "metric": m,
-                "min": lo if math.isfinite(lo) else None,
-                "max": hi if math.isfinite(hi) else None,
-            }
-            for m, lo, hi in spec.windows
-        ],
+        "parameters": _parameter_records(model),
+        "spec": _spec_records(spec),
         "yield": mc["yield"],
         "failures": mc["failures"],
         **_wafer_record(model, mc),
@@ -1994,12 +2059,8 @@ def run_tolerance(
         **_nominal_fields(spec, tor["nominal"], mc["metrics"], notes),
         "tornado": tor["layers"],
     }
-    islands = tor["islands"]
-    if islands["continuous_layers"] and island_checks > 0:
-        islands["check"] = island_truncation_error(model, run, mc["z"][:island_checks])
-    islands["warning"] = island_warning(islands)
-    record["islands"] = islands
-    notes.append(_island_note(islands))
+    record["islands"] = _checked_islands(model, run, tor["islands"], mc["z"], checks=island_checks)
+    notes.append(_island_note(record["islands"]))
     if method == "sobol":
         record.update(
             _sobol_fields(model, spec, run, samples, second_order, seed=seeds[1], notes=notes)
@@ -2009,41 +2070,24 @@ def run_tolerance(
     ranking_source, scores, measure = _control_scores(model, record, mc, notes)
     record["control_order"] = control_order(model, scores, measure)
     z_alloc = mc["z"][:ALLOCATION_SAMPLES]
-    nominal_passed = mc["passed"][:ALLOCATION_SAMPLES]
-    record["recentre"] = None
-    if (
-        recentring
-        and allocate > 0
-        and mc["yield"]["value"] < target_yield
-        and z_alloc.shape[0] >= 8
-    ):
-        free = free_thicknesses(model.stack, variables)
-        if free:
-            record["recentre"] = recentre(
-                model, spec, run, z=z_alloc, free=free, nominal_passed=nominal_passed
-            )
-    record["allocation"] = (
-        allocate_tolerances(
-            model,
-            spec,
-            run,
-            parameters=[p for p in ranking_source if p != WAFER_PARAMETER][:allocate],
-            z=z_alloc,
-            target_yield=target_yield,
-            nominal_passed=nominal_passed,
-            recentred=record["recentre"],
-        )
-        if allocate > 0 and model.parameters
-        else []
+    record["recentre"], record["allocation"] = _recentre_and_allocate(
+        model,
+        spec,
+        run,
+        ranking_source,
+        allocate=allocate,
+        z=z_alloc,
+        nominal_passed=mc["passed"][:ALLOCATION_SAMPLES],
+        target_yield=target_yield,
+        recentring=recentring and mc["yield"]["value"] < target_yield,
+        variables=variables,
     )
     record["ranking_resolved"] = record.get("ranking", {}).get("resolved")
     record["settings"] = {
         "method": method,
         "second_order": bool(second_order and method == "sobol"),
         "samples": samples,
-        "bias_points": int(run.bias_v.size),
-        "bias_min_v": float(run.bias_v[0]),
-        "bias_max_v": float(run.bias_v[-1]),
+        **_bias_settings(run),
         "seed": seed if isinstance(seed, int) else None,
         "target_yield": target_yield,
         "allocation_samples": int(z_alloc.shape[0]),
@@ -2053,6 +2097,90 @@ def run_tolerance(
     if out_dir is not None:
         write_outputs(record, mc, Path(out_dir), figures=figures)
     return record
+
+
+def _parameter_records(model: GrowthModel) -> list[dict[str, Any]]:
+    """The growth parameters as plain records {name, kind, sigma, unit, control}."""
+    return [
+        {"name": p.name, "kind": p.kind, "sigma": p.sigma, "unit": p.unit, "control": p.control}
+        for p in model.parameters
+    ]
+
+
+def _spec_records(spec: Spec) -> list[dict[str, Any]]:
+    """The spec's windows as plain records {metric, min, max} (None: no bound)."""
+    return [
+        {
+            "metric": m,
+            "min": lo if math.isfinite(lo) else None,
+            "max": hi if math.isfinite(hi) else None,
+        }
+        for m, lo, hi in spec.windows
+    ]
+
+
+def _checked_islands(
+    model: GrowthModel, run: Runner, islands: dict[str, Any], z: np.ndarray, *, checks: int
+) -> dict[str, Any]:
+    """The ``islands`` record of :func:`with_island_layers` with its warning and, when layers
+    are left continuous, its truncation check on the first ``checks`` samples of ``z``
+    (0: none)."""
+    if islands["continuous_layers"] and checks > 0:
+        islands["check"] = island_truncation_error(model, run, z[:checks])
+    islands["warning"] = island_warning(islands)
+    return islands
+
+
+def _recentre_and_allocate(
+    model: GrowthModel,
+    spec: Spec,
+    run: Runner,
+    ranking: list[str],
+    *,
+    allocate: int,
+    z: np.ndarray,
+    nominal_passed: np.ndarray,
+    target_yield: float,
+    recentring: bool,
+    variables: Sequence[Any] | None,
+) -> tuple[dict[str, Any] | None, list[dict]]:
+    """The re-centring and the allocation of :func:`run_tolerance`, both on the samples ``z``.
+
+    The re-centring (:func:`recentre`; else None) when ``recentring`` (the yield misses the
+    target), an allocation is asked for (``allocate`` > 0), ``z`` holds at least 8 samples
+    and a thickness of the study's ``variables`` may move. The allocation
+    (:func:`allocate_tolerances`, pointing to the re-centred design) of the first
+    ``allocate`` parameters of ``ranking`` but the wafer's place; none when ``allocate`` is
+    0 or the model has no growth parameter."""
+    recentred = None
+    if recentring and allocate > 0 and z.shape[0] >= 8:
+        free = free_thicknesses(model.stack, variables)
+        if free:
+            recentred = recentre(model, spec, run, z=z, free=free, nominal_passed=nominal_passed)
+    allocation = (
+        allocate_tolerances(
+            model,
+            spec,
+            run,
+            parameters=[p for p in ranking if p != WAFER_PARAMETER][:allocate],
+            z=z,
+            target_yield=target_yield,
+            nominal_passed=nominal_passed,
+            recentred=recentred,
+        )
+        if allocate > 0 and model.parameters
+        else []
+    )
+    return recentred, allocation
+
+
+def _bias_settings(run: Runner) -> dict[str, Any]:
+    """The sweep of ``run`` for the record's settings: points, first and last bias."""
+    return {
+        "bias_points": int(run.bias_v.size),
+        "bias_min_v": float(run.bias_v[0]),
+        "bias_max_v": float(run.bias_v[-1]),
+    }
 
 
 def _nominal_fields(
