@@ -148,6 +148,19 @@ def _read_text(path: Path) -> str:
         raise InputError(f"unreadable ({exc.strerror})", source=str(path)) from None
 
 
+def _read_csv(path: Path) -> tuple[list[str], list[list[str]]]:
+    """The header and the rows of a CSV file of the run folder (:func:`_read_text`)."""
+    head, *rows = csv.reader(_read_text(path).splitlines())
+    return head, rows
+
+
+def _copy_csv(src: Path, dest: Path) -> list[list[str]]:
+    """Copy a CSV file a stage wrote into the report's files; returns its rows."""
+    head, rows = _read_csv(src)
+    write_csv(dest, head, rows)
+    return rows
+
+
 def _needed_files(run_dir: Path, reported: list[dict], tol_dirs: list[Path]) -> list[Path]:
     """Every finished file the report reads: checked before anything is written."""
     out = [run_dir / "search" / "designs.json", run_dir / "search" / TRIALS_FILE]
@@ -428,13 +441,57 @@ def _sheet_path(run_dir: Path, d: dict) -> Path:
 def _design_card(
     d: dict, figs: _Figures, files: Path, run_dir: Path, design_dir: Path
 ) -> tuple[str, dict]:
+    """One reported design's card: its growth sheet and its nominal curves (I-V, T(E), band
+    diagram) as the stages wrote them; returns its HTML and its record for ``report.json``."""
     tag = f"rank{d['rank']:02d}"
     sheet: list[list[Any]] = []
     path = _sheet_path(run_dir, d)
     if path.is_file():  # the growth sheet as the search wrote it (none when its stack failed)
-        head, *lines = csv.reader(_read_text(path).splitlines())
+        head, lines = _read_csv(path)
         sheet = [[int(r[0]), *r[1:]] for r in lines]
         write_csv(files / f"growth_sheet_{tag}.csv", head, sheet)
+    rows = _sheet_rows(sheet)
+    # the nominal curves and figures, written by the stage that computed them
+    design = json.loads(_read_text(design_dir / DESIGN_RECORD))
+    m = design["metrics"]
+    _copy_design_figures(design.get("figures") or {}, figs, files, design_dir, tag)
+    status = (
+        '<span class="ok">meets the spec</span>'
+        if d["feasible"]
+        else '<span class="bad">misses the spec (closest found)</span>'
+    )
+    body = [
+        f'<div class="card"><h3 id="design-{tag}">Design rank {d["rank"]} (trial {d["trial"]}): '
+        f"{status}</h3>",
+        "<p><b>Growth sheet</b> (emitter first; contacts grown as thick as the process needs)</p>",
+        _table(SHEET_HEAD, rows, left=3, raw=True),
+        (
+            f'<p class="bad">The model could not compute this design\'s curves: '
+            f"{_esc(design['error'])}</p>"
+            if design.get("error")
+            else ""
+        ),
+        _curve_figures_html(figs, tag, d["rank"]),
+        "</div>",
+    ]
+    return "".join(body), {"rank": d["rank"], "growth_sheet": sheet, "metrics": m}
+
+
+#: Column headings of a growth sheet in a design card (trusted HTML).
+SHEET_HEAD = [
+    "layer",
+    "name",
+    "material",
+    "x",
+    "monolayers (ML)",
+    "thickness (nm)",
+    "doping (cm<sup>-3</sup>)",
+    "note",
+]
+
+
+def _sheet_rows(sheet: list[list[Any]]) -> list[list[Any]]:
+    """The rows of a growth sheet as HTML cells (contacts' thickness as "contact")."""
     rows = []
     for r in sheet:
         layer, name, label, x, ml, nm, dop, note = r
@@ -451,67 +508,47 @@ def _design_card(
                 _esc(note),
             ]
         )
-    # the nominal curves and figures, written by the stage that computed them
-    design = json.loads(_read_text(design_dir / DESIGN_RECORD))
-    m = design["metrics"]
-    written = design.get("figures") or {}
+    return rows
+
+
+def _copy_design_figures(
+    written: dict[str, str], figs: _Figures, files: Path, design_dir: Path, tag: str
+) -> None:
+    """Copy the design's I-V, band diagram and T(E) figures (``written``: kind -> file name in
+    ``design_dir``); a figure not computed (the model failed on the design) leaves no stale
+    copy either."""
     for kind, name in (("iv", "iv"), ("band_diagram", "band"), ("transmission", "transmission")):
         if kind in written:
             figs.add_file(design_dir / written[kind], f"{tag}_{name}.png")
-        else:  # not computed (the model failed on this design): no stale copy either
+        else:
             (files / f"{tag}_{name}.png").unlink(missing_ok=True)
-    status = (
-        '<span class="ok">meets the spec</span>'
-        if d["feasible"]
-        else '<span class="bad">misses the spec (closest found)</span>'
+
+
+def _curve_figures_html(figs: _Figures, tag: str, rank: int) -> str:
+    """The I-V and T(E) figures side by side, then the band diagram, of a design card."""
+    return "".join(
+        [
+            '<div class="pair">',
+            figs.html(
+                f"{tag}_iv.png",
+                "I-V with the peak (circle) and valley (square) marked; "
+                "current density in kA/cm<sup>2</sup>.",
+                f"I-V of rank {rank}",
+            ),
+            figs.html(
+                f"{tag}_transmission.png",
+                "Transmission T(E) on a log scale at zero bias and at the peak voltage.",
+                f"T(E) of rank {rank}",
+            ),
+            "</div>",
+            figs.html(
+                f"{tag}_band.png",
+                "Conduction-band edge at the peak voltage with the "
+                "quasi-bound (resonance) levels, their widths, and the contact Fermi levels.",
+                f"band diagram of rank {rank}",
+            ),
+        ]
     )
-    body = [
-        f'<div class="card"><h3 id="design-{tag}">Design rank {d["rank"]} (trial {d["trial"]}): '
-        f"{status}</h3>",
-        "<p><b>Growth sheet</b> (emitter first; contacts grown as thick as the process needs)</p>",
-        _table(
-            [
-                "layer",
-                "name",
-                "material",
-                "x",
-                "monolayers (ML)",
-                "thickness (nm)",
-                "doping (cm<sup>-3</sup>)",
-                "note",
-            ],
-            rows,
-            left=3,
-            raw=True,
-        ),
-        (
-            f'<p class="bad">The model could not compute this design\'s curves: '
-            f"{_esc(design['error'])}</p>"
-            if design.get("error")
-            else ""
-        ),
-        '<div class="pair">',
-        figs.html(
-            f"{tag}_iv.png",
-            "I-V with the peak (circle) and valley (square) marked; "
-            "current density in kA/cm<sup>2</sup>.",
-            f"I-V of rank {d['rank']}",
-        ),
-        figs.html(
-            f"{tag}_transmission.png",
-            "Transmission T(E) on a log scale at zero bias and at the peak voltage.",
-            f"T(E) of rank {d['rank']}",
-        ),
-        "</div>",
-        figs.html(
-            f"{tag}_band.png",
-            "Conduction-band edge at the peak voltage with the "
-            "quasi-bound (resonance) levels, their widths, and the contact Fermi levels.",
-            f"band diagram of rank {d['rank']}",
-        ),
-        "</div>",
-    ]
-    return "".join(body), {"rank": d["rank"], "growth_sheet": sheet, "metrics": m}
 
 
 def _wafer_yield_html(records: list[dict], files: Path) -> str:
@@ -589,63 +626,13 @@ def _allocation_html(
 ) -> str:
     """The nominal design against the spec, the re-centred design when the target yield is out
     of reach, and the allocation: one thing to do per row (``allocation``, ``recentre``)."""
-    body = []
-    misses = record.get("nominal_misses") or []
-    if misses:
-        body.append(
-            "<p><b>The nominal design misses the spec</b> even without growth errors: "
-            + _esc("; ".join(misses))
-            + ".</p>"
-        )
-    elif record.get("nominal_closest"):
-        body.append(
-            "<p>The nominal design meets every window of the spec; the closest: "
-            + _esc(record["nominal_closest"])
-            + ".</p>"
-        )
-    rc = record.get("recentre")
-    if rc is not None:
-        budget = rc["budget"]
-        body.append(
-            "<p><b>Re-centring</b> (the yield is below the target): "
-            + _esc(rc["text"])
-            + ".</p>"
-            + f'<p class="small">Searched: {_esc(rc["method"])}; {budget["candidates"]} '
-            f"designs, {budget['devices']} as-grown devices ({budget['stacks']} stacks). The "
-            "gain is judged by "
-            + _esc(rc["gain"]["test"] if rc.get("gain") else "the screen")
-            + ".</p>"
-        )
-        if figs.add_file(tdir / "recentre.png", f"{tag}_recentre.png") is not None:
-            body.append(
-                figs.html(
-                    f"{tag}_recentre.png",
-                    "Re-centring: the yield of each whole-monolayer design near the nominal on "
-                    "the screening samples (left; green: meets the spec without growth "
-                    "errors), and the chosen design's yield against the nominal's on samples "
-                    "the choice never saw, with 95 % Wilson intervals (right).",
-                    "re-centring",
-                )
-            )
-        path = tdir / "growth_sheet_recentred.csv"
-        if rc.get("better") and path.is_file():  # as the tolerance stage wrote it
-            head, *sheet = csv.reader(_read_text(path).splitlines())
-            write_csv(files / f"growth_sheet_recentred_{tag}.csv", head, sheet)
-            check = "; ".join(c["text"] for c in rc.get("spec_check", []))
-            body.append(
-                "<p>Growth sheet of the re-centred design "
-                f"({'meets' if rc.get('meets_spec') else 'misses'} the spec without growth "
-                f"errors: {_esc(check)}):</p>"
-                + _table(
-                    ["layer", "material", "monolayers", "nm", "doping (cm⁻³)", "note"],
-                    [[row[1], row[2], row[4], row[5], row[6], row[7]] for row in sheet],
-                )
-            )
+    body = [_nominal_spec_html(record)]
+    if record.get("recentre") is not None:
+        body.append(_recentre_html(record["recentre"], files, tag, figs, tdir))
     alloc = record.get("allocation", [])
     src = tdir / "allocation.csv"
     if src.is_file():  # as the tolerance stage wrote it
-        head, *rows = csv.reader(_read_text(src).splitlines())
-        write_csv(files / f"allocation_{tag}.csv", head, rows)
+        _copy_csv(src, files / f"allocation_{tag}.csv")
     arows = [
         [
             _esc(names.parameter_words(a["parameter"])),
@@ -671,6 +658,66 @@ def _allocation_html(
         if arows
         else '<p class="small">No allocation in this run.</p>'
     )
+    return "".join(body)
+
+
+def _nominal_spec_html(record: dict[str, Any]) -> str:
+    """The windows the nominal design misses without growth errors, or the one it is nearest
+    to leaving (``nominal_misses``, ``nominal_closest``); empty when neither is recorded."""
+    misses = record.get("nominal_misses") or []
+    if misses:
+        return (
+            "<p><b>The nominal design misses the spec</b> even without growth errors: "
+            + _esc("; ".join(misses))
+            + ".</p>"
+        )
+    if record.get("nominal_closest"):
+        return (
+            "<p>The nominal design meets every window of the spec; the closest: "
+            + _esc(record["nominal_closest"])
+            + ".</p>"
+        )
+    return ""
+
+
+def _recentre_html(rc: dict[str, Any], files: Path, tag: str, figs: _Figures, tdir: Path) -> str:
+    """The re-centring (``recentre`` of tolerance.json): its verdict and budget, its figure,
+    and the re-centred growth sheet when it is a measurable gain."""
+    budget = rc["budget"]
+    body = [
+        "<p><b>Re-centring</b> (the yield is below the target): "
+        + _esc(rc["text"])
+        + ".</p>"
+        + f'<p class="small">Searched: {_esc(rc["method"])}; {budget["candidates"]} '
+        f"designs, {budget['devices']} as-grown devices ({budget['stacks']} stacks). The "
+        "gain is judged by "
+        + _esc(rc["gain"]["test"] if rc.get("gain") else "the screen")
+        + ".</p>"
+    ]
+    if figs.add_file(tdir / "recentre.png", f"{tag}_recentre.png") is not None:
+        body.append(
+            figs.html(
+                f"{tag}_recentre.png",
+                "Re-centring: the yield of each whole-monolayer design near the nominal on "
+                "the screening samples (left; green: meets the spec without growth "
+                "errors), and the chosen design's yield against the nominal's on samples "
+                "the choice never saw, with 95 % Wilson intervals (right).",
+                "re-centring",
+            )
+        )
+    path = tdir / "growth_sheet_recentred.csv"
+    if rc.get("better") and path.is_file():  # as the tolerance stage wrote it
+        sheet = _copy_csv(path, files / f"growth_sheet_recentred_{tag}.csv")
+        check = "; ".join(c["text"] for c in rc.get("spec_check", []))
+        body.append(
+            "<p>Growth sheet of the re-centred design "
+            f"({'meets' if rc.get('meets_spec') else 'misses'} the spec without growth "
+            f"errors: {_esc(check)}):</p>"
+            + _table(
+                ["layer", "material", "monolayers", "nm", "doping (cm⁻³)", "note"],
+                [[row[1], row[2], row[4], row[5], row[6], row[7]] for row in sheet],
+            )
+        )
     return "".join(body)
 
 
@@ -944,12 +991,7 @@ def build_report(run_dir: str | Path) -> Path:
     designs = json.loads(_read_text(run_dir / "search" / "designs.json"))
     reported = [d for d in designs if f"rank{d['rank']:02d}" in finished]
     tol_dirs = [finished[f"rank{d['rank']:02d}"] for d in reported]
-    for path in _needed_files(run_dir, reported, tol_dirs):
-        if not path.is_file():
-            study_path = record.get("study", {}).get("path", "STUDY.toml")
-            raise InputError(
-                f"{RERUN}: wellwright run {study_path} --out {run_dir}", source=str(path)
-            )
+    _check_needed_files(run_dir, record, reported, tol_dirs)
     records = [json.loads(_read_text(d / "tolerance.json")) for d in tol_dirs]
     points = read_trials(run_dir / "search" / TRIALS_FILE, study)
     files = run_dir / FILES_DIR
@@ -963,52 +1005,27 @@ def build_report(run_dir: str | Path) -> Path:
     brief_html, brief_data = _brief(study, files)
     figs.add_file(run_dir / "search" / "designs.csv", "designs_ranked.csv")
     figs.names.remove("designs_ranked.csv")
-    cards, card_data = [], []
-    for d, tdir in zip(reported, tol_dirs, strict=True):
-        h, data = _design_card(d, figs, files, run_dir, tdir / DESIGN_DIR)
-        cards.append(h)
-        card_data.append(data)
+    cards = [
+        _design_card(d, figs, files, run_dir, tdir / DESIGN_DIR)
+        for d, tdir in zip(reported, tol_dirs, strict=True)
+    ]
     growth_html, growth_data = _growth(records, figs, files, run_dir, tol_dirs)
     vers = versions()
     seeds = {"search sampler seed": search.get("seed"), "tolerance seed": settings.get("seed")}
     label = record.get("label")
     title = f"wellwright report: {study.name}"
     now = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
-
-    parts = [
-        '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">',
-        f"<title>{_esc(title)}</title><style>{CSS}</style></head><body><main>",
-        "<header>",
-        f'<span class="tag">{_esc(label)}</span>' if label else "",
-        f"<h1>{_esc(title)}</h1>",
-        f'<div class="small">RTD design study <code>{_esc(study.source)}</code>; built {now} by '
-        f"wellwright {_esc(vers['wellwright'])}.</div></header>",
-        f'<div class="caution"><b>Caution.</b> {_esc(CAUTION)}</div>',
-        "<nav><b>Contents</b><ol>"
-        + "".join(f'<li><a href="#{a}">{_esc(h.split(". ", 1)[1])}</a></li>' for a, h in SECTIONS)
-        + "</ol></nav>",
-    ]
     section_body = {
         "brief": brief_html,
         "candidates": _candidates(study, designs, len(reported), search, points),
         "search": _search_figures(study, points, figs),
-        "designs": "".join(cards),
+        "designs": "".join(h for h, _ in cards),
         "growth": growth_html,
-        "model": _calibration_note(study)
-        + f"<p>Model that produced every figure here: <b>{_esc(model_label(model))}</b>.</p>"
-        + "<ul>"
-        + "".join(f"<li>{_esc(a)}</li>" for a in model_assumptions(model))
-        + "</ul>"
-        f'<div class="caution"><b>Calibrate before a growth decision.</b> {_esc(CAUTION)}</div>',
+        "model": _model_html(study, model),
         "reproduce": _reproduce_html(record, run_dir, vers, seeds),
     }
-    for anchor, heading in SECTIONS:
-        parts.append(
-            f'<section id="{anchor}"><h2>{_esc(heading)}</h2>{section_body[anchor]}</section>'
-        )
-    parts.append(
-        '<p class="small">Tables as CSV and figures as PNG are in '
-        f"<code>{FILES_DIR}/</code> beside this file.</p></main></body></html>"
+    page = _page(
+        title, label, study, f"built {now} by wellwright {vers['wellwright']}", section_body
     )
     write_json(
         files / "report.json",
@@ -1017,7 +1034,7 @@ def build_report(run_dir: str | Path) -> Path:
             "label": label,
             "sections": [h for _, h in SECTIONS],
             "brief": brief_data,
-            "designs": card_data,
+            "designs": [data for _, data in cards],
             "growth": growth_data,
             "versions": vers,
             "seeds": seeds,
@@ -1025,4 +1042,60 @@ def build_report(run_dir: str | Path) -> Path:
             "figures": figs.names,
         },
     )
-    return atomic_write_text(run_dir / "report.html", "".join(parts))
+    return atomic_write_text(run_dir / "report.html", page)
+
+
+def _check_needed_files(
+    run_dir: Path, record: dict[str, Any], reported: list[dict], tol_dirs: list[Path]
+) -> None:
+    """One line naming the first finished file the report needs that is missing
+    (:func:`_needed_files`), with the command that writes it."""
+    for path in _needed_files(run_dir, reported, tol_dirs):
+        if not path.is_file():
+            study_path = record.get("study", {}).get("path", "STUDY.toml")
+            raise InputError(
+                f"{RERUN}: wellwright run {study_path} --out {run_dir}", source=str(path)
+            )
+
+
+def _model_html(study: Study, model: Any) -> str:
+    """The model section: the calibration, the model that produced every figure and its
+    assumptions, and the caution."""
+    return (
+        _calibration_note(study)
+        + f"<p>Model that produced every figure here: <b>{_esc(model_label(model))}</b>.</p>"
+        + "<ul>"
+        + "".join(f"<li>{_esc(a)}</li>" for a in model_assumptions(model))
+        + "</ul>"
+        f'<div class="caution"><b>Calibrate before a growth decision.</b> {_esc(CAUTION)}</div>'
+    )
+
+
+def _page(
+    title: str, label: str | None, study: Study, built: str, section_body: dict[str, str]
+) -> str:
+    """The whole HTML page: head with the inline style, header (``label`` tag, title,
+    ``built``: when and by which version), caution, contents, then each section of
+    :data:`SECTIONS` from ``section_body`` (anchor -> HTML)."""
+    parts = [
+        '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">',
+        f"<title>{_esc(title)}</title><style>{CSS}</style></head><body><main>",
+        "<header>",
+        f'<span class="tag">{_esc(label)}</span>' if label else "",
+        f"<h1>{_esc(title)}</h1>",
+        f'<div class="small">RTD design study <code>{_esc(study.source)}</code>; {_esc(built)}.'
+        "</div></header>",
+        f'<div class="caution"><b>Caution.</b> {_esc(CAUTION)}</div>',
+        "<nav><b>Contents</b><ol>"
+        + "".join(f'<li><a href="#{a}">{_esc(h.split(". ", 1)[1])}</a></li>' for a, h in SECTIONS)
+        + "</ol></nav>",
+    ]
+    for anchor, heading in SECTIONS:
+        parts.append(
+            f'<section id="{anchor}"><h2>{_esc(heading)}</h2>{section_body[anchor]}</section>'
+        )
+    parts.append(
+        '<p class="small">Tables as CSV and figures as PNG are in '
+        f"<code>{FILES_DIR}/</code> beside this file.</p></main></body></html>"
+    )
+    return "".join(parts)
