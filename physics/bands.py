@@ -156,8 +156,9 @@ def slice_grid(table: LayerTable, *, slice_nm: float = 0.25, own_counts: bool = 
         to the batch's count with zero-width slices that repeat the layer's
         last slice (same centre, so the same potential): an exact identity in
         the transmission recursion, which the compiled kernel skips. A stack's
-        result then does not depend on its batch partners. Not for Poisson
-        grids, which need cells of non-zero width.
+        result then does not depend on its batch partners. In a Poisson grid
+        the padding nodes carry no charge and are tied to their neighbours
+        (:func:`physics.electrostatics.extended_slice_grid`).
     """
     thick = table.thickness_nm[:, 1:-1]
     own = np.maximum(1, np.ceil(thick / slice_nm - 1e-9).astype(int))
@@ -243,9 +244,26 @@ def profile_from_potential(table: LayerTable, grid: SliceGrid, potential_ev: np.
     potential_ev
         ``(n_stacks, n_biases, n_slices)`` electrostatic potential energy of
         an electron, eV, with the emitter contact at 0.
+
+    Notes
+    -----
+    A zero-width padding slice inside the stack (a stack's own slice counts in a
+    batch, :func:`slice_grid`) takes the potential of the slice before it, so the
+    profile repeats the layer's last slice whatever the potential's value at the
+    padding node (a Poisson node at the layer's end, for the self-consistent model):
+    a stack's profile, and every quantity read from its slices, is then the same
+    in any batch.
     """
     li = grid.layer_index
     edge = (table.edge_ev - table.edge_ev[:, :1])[:, li]
+    n = li.size
+    real = grid.width_nm > 0
+    real[:, [0, -1]] = True
+    if not np.all(real):
+        source = np.maximum.accumulate(np.where(real, np.arange(n), 0), axis=-1)
+        potential_ev = np.take_along_axis(
+            potential_ev, np.broadcast_to(source[:, None, :], potential_ev.shape), axis=-1
+        )
     return Profile(
         edge_ev=edge[:, None, :] + potential_ev,
         mass_m0=table.mass_m0[:, li][:, None, :],

@@ -356,6 +356,7 @@ def find_resonances(
     energy_max_ev: float | np.ndarray,
     n_coarse: int = 200,
     n_max: int = 4,
+    edge_power: float = 1.0,
 ) -> Resonances:
     """Resonances of ``profile`` between two energies (eV from the emitter edge).
 
@@ -369,10 +370,16 @@ def find_resonances(
         Points of the coarse grid on which peaks are first located.
     n_max
         Largest number of resonances reported per profile (the highest peaks).
+    edge_power
+        Coarse nodes at ``lo + (hi - lo) u**edge_power`` for ``u`` uniform in [0, 1]:
+        1 is a uniform grid; above 1 the nodes crowd towards ``energy_min_ev`` (a line
+        within a few meV of a band edge, where ``T`` rises from 0 and is not
+        Lorentzian, needs nodes finer than its width to be fitted).
     """
     lo = np.broadcast_to(np.asarray(energy_min_ev, float), profile.batch_shape)
     hi = np.broadcast_to(np.asarray(energy_max_ev, float), profile.batch_shape)
-    grid = lo[..., None] + (hi - lo)[..., None] * np.linspace(0.0, 1.0, n_coarse)
+    u = np.linspace(0.0, 1.0, n_coarse) ** edge_power
+    grid = lo[..., None] + (hi - lo)[..., None] * u
     grid = np.broadcast_to(grid, profile.batch_shape + grid.shape[-1:])
     t = transmission(grid, profile=profile)
     index, valid = local_peaks(t, n_max)
