@@ -603,6 +603,87 @@ def _up_sweep_peaks(table, model, grid, vp, jp, vv, after_v, after_j, peak_solut
     return vp_up, jp_up, window
 
 
+def _metrics_branch(bias: np.ndarray) -> tuple[np.ndarray, float] | None:
+    """Indices of the branch the metrics are taken on (ordered by increasing ``|V|``) and its
+    sign: forward with at least three positive biases, else reverse, else None."""
+    if np.count_nonzero(bias > 0) >= 3:
+        return np.nonzero(bias >= 0)[0], 1.0
+    if np.count_nonzero(bias < 0) >= 3:
+        return np.nonzero(bias < 0)[0][::-1], -1.0
+    return None
+
+
+def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded, sign, *, refine):
+    """Peak and valley (bias, current) of the devices ``rows`` from their sweep points
+    ``ip``, ``iv`` on the branch ``v_side``, ``j_side`` (magnitudes), refined by
+    :func:`_refine` with ``refine``; a valley ``bounded`` by the sweep stays on its point.
+    Returns ``vp, jp, vv, jv`` and the first point past each peak that fell ``(v, j)``
+    (None without refinement)."""
+    vp, jp = v_side[ip[rows]], j_side[rows, ip[rows]]
+    vv, jv = v_side[iv[rows]], j_side[rows, iv[rows]]
+    if not refine:
+        return vp, jp, vv, jv, None
+    step = np.abs(np.diff(v_side)).max() if v_side.size > 1 else 0.0
+    n = rows.size
+    extremum = np.concatenate([np.ones(n), -np.ones(n)])  # maximise J at peaks, -J at valleys
+    c, y, after_v, after_j = _refine(
+        devices.take(rows).twice(),
+        model,
+        grid,
+        np.concatenate([vp, vv]),
+        np.full(2 * n, step),
+        extremum * sign,
+    )
+    y = sign * y  # back to magnitudes on this branch
+    vp, jp = c[:n], np.maximum(y[:n], jp)
+    interior = ~bounded[rows]  # a valley on the last point computed stays there
+    vv = np.where(interior, c[n:], vv)
+    jv = np.where(interior, np.minimum(y[n:], jv), jv)
+    return vp, jp, vv, jv, (after_v[:n], after_j[:n])
+
+
+def _peak_figures(
+    metrics, peaked, model, grid, *, rows, up_sweep, curve, extrema, series_resistance_ohm_um2
+) -> None:
+    """Fill ``metrics`` (in place) with the figures read at the peak of the stacks ``rows``
+    (``peaked``): the device figures (:func:`physics.device.device_figures`) from the
+    peak's profile and, with the self-consistent model and ``up_sweep``, the up sweep's
+    peak and bistable window (:func:`_up_sweep_peaks`; the peak's solve is shared).
+    ``curve`` is ``(|V|, J, table)`` of the branch and every device; ``extrema`` is
+    ``(vp, jp, vv, after)`` from :func:`_peak_and_valley`."""
+    v_abs, j_side, table = curve
+    vp, jp, vv, after = extrema
+    peak_solution = None  # the self-consistent solve at the peak, shared with the up branch
+    if model.electrostatics == "self-consistent":
+        peak_solution = _solve_at(peaked, vp[:, None], model)
+        peak_profile = profile_from_potential(
+            peaked, peak_solution[0], peak_solution[1].potential_ev
+        )
+    else:
+        peak_profile = band_profile(peaked, vp[:, None], model=model)
+    metrics.update(
+        device_figures(
+            table,
+            v_abs,
+            j_side,
+            metrics,
+            peak_profile=peak_profile,
+            rows=rows,
+            series_resistance_ohm_um2=series_resistance_ohm_um2,
+        )
+    )
+    for name in BISTABILITY_NAMES:
+        metrics[name] = np.full(table.n_stacks, np.nan)
+    vp_up, jp_up, window = vp, jp, np.zeros(rows.size)
+    if up_sweep and peak_solution is not None and after is not None:
+        vp_up, jp_up, window = _up_sweep_peaks(
+            peaked, model, grid, vp, jp, vv, after[0], after[1], peak_solution
+        )
+    metrics["peak_current_density_up_a_cm2"][rows] = jp_up
+    metrics["peak_voltage_up_v"][rows] = vp_up
+    metrics["bistable_window_v"][rows] = window
+
+
 def sweep(
     table: LayerTable,
     bias_v: np.ndarray,
@@ -667,13 +748,10 @@ def sweep(
     metrics = {name: np.full(devices.n, np.nan) for name in METRIC_NAMES}
     metrics.update(_at_bias_metrics(devices, at_bias_v, area_um2, model, grid))
 
-    forward = bias >= 0
-    if np.count_nonzero(bias > 0) >= 3:
-        sel, sign = np.nonzero(forward)[0], 1.0
-    elif np.count_nonzero(bias < 0) >= 3:
-        sel, sign = np.nonzero(~forward)[0][::-1], -1.0
-    else:
+    branch = _metrics_branch(bias)
+    if branch is None:
         return IVCurves(bias, j, metrics)
+    sel, sign = branch
     v_side = bias[sel]
     j_side = sign * j[:, sel]
     ip, iv = locate_peak_valley(np.abs(v_side), j_side)
@@ -697,26 +775,9 @@ def sweep(
     curves = functools.partial(IVCurves, extension_bias_v=ext_v, extension_a_cm2=ext_j)
 
     rows = np.nonzero(has)[0]
-    vp, jp = v_side[ip[rows]], j_side[rows, ip[rows]]
-    vv, jv = v_side[iv[rows]], j_side[rows, iv[rows]]
-    if refine:
-        step = np.abs(np.diff(v_side)).max() if v_side.size > 1 else 0.0
-        n = rows.size
-        extremum = np.concatenate([np.ones(n), -np.ones(n)])  # maximise J at peaks, -J at valleys
-        c, y, after_v, after_j = _refine(
-            devices.take(rows).twice(),
-            model,
-            grid,
-            np.concatenate([vp, vv]),
-            np.full(2 * n, step),
-            extremum * sign,
-        )
-        y = sign * y  # back to magnitudes on this branch
-        vp, jp = c[:n], np.maximum(y[:n], jp)
-        interior = ~bounded[rows]  # a valley on the last point computed stays there
-        vv = np.where(interior, c[n:], vv)
-        jv = np.where(interior, np.minimum(y[n:], jv), jv)
-        after_v, after_j = after_v[:n], after_j[:n]
+    vp, jp, vv, jv, after = _peak_and_valley(
+        devices, model, grid, v_side, j_side, rows, ip, iv, bounded, sign, refine=refine
+    )
     metrics["peak_current_density_a_cm2"][rows] = jp
     metrics["peak_voltage_v"][rows] = vp
     metrics["valley_current_density_a_cm2"][rows] = jv
@@ -725,35 +786,17 @@ def sweep(
     metrics["delta_current_density_a_cm2"][rows] = jp - jv
     metrics["delta_voltage_v"][rows] = np.abs(vv - vp)
     metrics[VALLEY_BOUNDED][rows] = bounded[rows].astype(float)
-    peak_solution = None  # the self-consistent solve at the peak, shared with the up branch
-    if model.electrostatics == "self-consistent":
-        peak_solution = _solve_at(table.take(rows), vp[:, None], model)
-        peak_profile = profile_from_potential(
-            table.take(rows), peak_solution[0], peak_solution[1].potential_ev
-        )
-    else:
-        peak_profile = band_profile(table.take(rows), vp[:, None], model=model)
-    metrics.update(
-        device_figures(
-            table,
-            np.abs(v_side),
-            j_side,
-            metrics,
-            peak_profile=peak_profile,
-            rows=rows,
-            series_resistance_ohm_um2=series_resistance_ohm_um2,
-        )
+    _peak_figures(
+        metrics,
+        table.take(rows),
+        model,
+        grid,
+        rows=rows,
+        up_sweep=refine and sign > 0,
+        curve=(np.abs(v_side), j_side, table),
+        extrema=(vp, jp, vv, after),
+        series_resistance_ohm_um2=series_resistance_ohm_um2,
     )
-    for name in BISTABILITY_NAMES:
-        metrics[name] = np.full(table.n_stacks, np.nan)
-    vp_up, jp_up, window = vp, jp, np.zeros(rows.size)
-    if refine and peak_solution is not None and sign > 0:
-        vp_up, jp_up, window = _up_sweep_peaks(
-            table.take(rows), model, grid, vp, jp, vv, after_v, after_j, peak_solution
-        )
-    metrics["peak_current_density_up_a_cm2"][rows] = jp_up
-    metrics["peak_voltage_up_v"][rows] = vp_up
-    metrics["bistable_window_v"][rows] = window
     return curves(bias, j, metrics)
 
 
