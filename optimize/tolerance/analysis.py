@@ -1061,23 +1061,27 @@ def _island_order(nominal: dict, layers: list[dict]) -> list[dict]:
     """
     jp, jv, vp = "peak_current_density_a_cm2", "valley_current_density_a_cm2", "peak_voltage_v"
 
-    def curvature(r: dict, key: str) -> float | None:
+    def steps(r: dict, key: str) -> tuple[float, float, float] | None:
+        """(minus, nominal, plus) of ``key``; None where one is missing or the nominal is 0."""
         j0, a, b = nominal.get(key), r["minus"].get(key), r["plus"].get(key)
-        if None in (j0, a, b) or j0 == 0:
-            return None
+        return None if j0 is None or a is None or b is None or j0 == 0 else (a, j0, b)
+
+    def curvature(values: tuple[float, float, float]) -> float:
+        a, j0, b = values
         return abs(a - 2 * j0 + b) / abs(j0)
 
     rows = []
     for r in layers:
-        peak, valley = curvature(r, jp), curvature(r, jv)
-        v0, va, vb = nominal.get(vp), r["minus"].get(vp), r["plus"].get(vp)
-        if peak is None or None in (v0, va, vb) or v0 == 0:
-            peak = valley = shift = math.inf
+        peak, valley, bias = steps(r, jp), steps(r, jv), steps(r, vp)
+        if peak is None or bias is None:
+            curv = valley_curv = shift = math.inf
         else:
-            shift = abs(vb - va) / (4.0 * abs(v0))
-        valley = 0.0 if valley is None else valley
-        rows.append({**r, "curvature": peak, "valley_curvature": valley, "peak_shift": shift,
-                     "estimate": max(peak / 8.0, valley / 8.0, shift)})  # fmt: skip
+            curv = curvature(peak)
+            valley_curv = 0.0 if valley is None else curvature(valley)
+            shift = abs(bias[2] - bias[0]) / (4.0 * abs(bias[1]))
+        estimate = max(curv / 8.0, valley_curv / 8.0, shift)
+        rows.append({**r, "curvature": curv, "valley_curvature": valley_curv,
+                     "peak_shift": shift, "estimate": estimate})  # fmt: skip
     return sorted(rows, key=lambda r: -r["estimate"])
 
 
