@@ -151,3 +151,30 @@ def test_no_isolated_spikes_before_the_peak(monkeypatch) -> None:
     assert worst_spike() < 0.02
     monkeypatch.setattr(electrostatics, "WELL_SEARCH_EDGE_POWER", 1.0)
     assert worst_spike() > 0.05  # the old search shows the spikes
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("seed", [0, 5])
+def test_no_isolated_spikes_over_as_grown_samples(seed: int) -> None:
+    # Statistical scan (seeded Monte Carlo samples of both example designs, default model,
+    # 2.5 mV steps): no current more than 5 % off the mean of two neighbours that agree
+    # within 2 %. Measured: 0 of 48 stacks per seed; with the uniform well-state search, 3 of
+    # 48 for seed 0 (+31 to +33 % on two InP samples).
+    from wellwright.optimize.study.growth import growth_model
+
+    spiky = []
+    for name, top_v in (("inp_thz_oscillator", 1.0), ("gaas_low_power_memory", 0.8)):
+        stack = load_stack(ROOT / "studies" / f"{name}.toml")
+        model = growth_model(stack)
+        table = model.as_grown(model.draw_z(24, seed), seed=seed + 1)
+        bias = np.linspace(0.0, top_v, 401)
+        j = current_at_bias(table, bias, model=stack.model)
+        mid = 0.5 * (j[:, :-2] + j[:, 2:])
+        scale = np.maximum(np.abs(mid), 1e-30)
+        spike = (np.abs(j[:, 1:-1] - mid) / scale > 0.05) & (
+            np.abs(j[:, :-2] - j[:, 2:]) / scale < 0.02
+        )
+        spiky += [
+            f"{name} sample {i} at {bias[1:-1][spike[i]]} V" for i in np.nonzero(spike.any(1))[0]
+        ]
+    assert not spiky, spiky
