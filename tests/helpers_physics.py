@@ -631,20 +631,24 @@ def _trapezoid_rows(f, e):
 
 def _sharp_maxima(t, max_per_row):
     """(row, index) of interior local maxima of ``t`` (rows, n) with fewer than
-    NEST_RESOLVED samples above their half, at most ``max_per_row`` highest per row."""
+    NEST_RESOLVED samples above their half, at most ``max_per_row`` highest per row.
+
+    Sharpness is judged before the cap: ranked by height alone, the broad maxima
+    above the barriers (T ~ 1, many samples each) took the slots of the narrow
+    lines that carry the current (measured: an InSb well with ten lines in the
+    supply window, 15 % off at 4096 energies).
+    """
     inner = (t[:, 1:-1] > t[:, :-2]) & (t[:, 1:-1] >= t[:, 2:])
-    score = np.where(inner, t[:, 1:-1], -np.inf)
-    order = np.argsort(-score, axis=1)[:, :max_per_row]
     rows, k = [], []
     for r in range(t.shape[0]):
-        for j in order[r]:
-            if score[r, j] == -np.inf:
-                break
-            i = j + 1
+        sharp = []
+        for i in np.nonzero(inner[r])[0] + 1:
             lo, hi = max(0, i - NEST_RESOLVED), min(t.shape[1], i + NEST_RESOLVED + 1)
             if np.count_nonzero(t[r, lo:hi] >= 0.5 * t[r, i]) < NEST_RESOLVED:
-                rows.append(r)
-                k.append(i)
+                sharp.append(i)
+        for i in sorted(sharp, key=lambda i: -t[r, i])[:max_per_row]:
+            rows.append(r)
+            k.append(i)
     return np.array(rows, int), np.array(k, int)
 
 
