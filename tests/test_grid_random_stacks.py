@@ -12,7 +12,9 @@ grid-refinement check, common practice, seeded. Tolerance: 0.5 % of each
 stack's largest current at every bias (the accuracy issue 18 asks for).
 Before the fixes of issue 18, 20 of 200 stacks failed (5 by more than 5 %).
 Statistical tests (seeded draws): the share of stacks beyond the tolerance is
-bounded (see each test), as the grid does not yet meet it everywhere.
+bounded (see each test), as the grid does not yet meet it everywhere; and a
+stack beyond it must have raised a :class:`GridAccuracyWarning` (the run-time
+estimate) but for a bounded few, each named in the failure message.
 """
 
 from __future__ import annotations
@@ -165,18 +167,54 @@ def _assert_rare(stacks, bias, j, ref, error, *, share: float, worst: float) -> 
 
 
 def test_default_grid_against_brute_force_over_random_stacks() -> None:
-    # Statistical: the issue asks for no stack beyond 0.5 %; measured on this draw, 1 of
-    # 240 (1.0 %, a 3e-4 A/cm^2 current through 6-7 nm AlAs barriers at 1.7 V); before
-    # the fixes of issue 18, about 10 % of stacks, 2.5 % beyond 5 %.
-    _assert_rare(*grid_errors(240, 9, 2026), share=0.01, worst=0.05)
+    # Statistical: the issue asks for no stack beyond 0.5 %; measured on this draw, 2 of
+    # 240 (0.8 %): 1.0 % on a 3e-4 A/cm^2 current through 6-7 nm AlAs barriers at 1.7 V,
+    # 0.75 % on 3e-12 A/cm^2 through 6-9 nm AlSb; before the fixes of issue 18, about 10 %
+    # of stacks, 2.5 % beyond 5 %.
+    _assert_rare(*grid_errors(240, 9, 2026), share=0.01, worst=0.02)
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6, 7, 8])
 def test_long_scan_against_brute_force(seed: int) -> None:
-    # Statistical, 2400 stacks at 13 biases: measured 1-2 stacks of 300 per draw beyond
-    # 0.5 %, the worst (InSb/AlSb at high Fermi levels) up to ~30 % (see DEVELOPERS.md).
-    _assert_rare(*grid_errors(300, 13, 100 + seed), share=0.02, worst=0.5)
+    # Statistical, 2400 stacks at 13 biases: measured 0-2 stacks of 300 per draw beyond
+    # 0.5 % (9 of 2400), the worst 8.8 % (an InSb/AlSb line hidden beside another above
+    # the barriers, warned); before the crowded-line fix 1-3 of 300, up to 12 %.
+    _assert_rare(*grid_errors(300, 13, 100 + seed), share=0.01, worst=0.1)
+
+
+def silent_errors(n_stacks: int, n_biases: int, seed: int):
+    """Stacks (one table each) beyond TOLERANCE that raised no GridAccuracyWarning:
+    ``(index, description)`` of each, and how many warned."""
+    stacks, _, bias = random_case(n_stacks, n_biases, seed)
+    model = ModelOptions(electrostatics="linear", transport="coherent")  # explicit, as above
+    silent, n_warned = [], 0
+    for i, s in enumerate(stacks):
+        table = LayerTable.from_stacks([s])  # one stack per call: the warning names it
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", GridAccuracyWarning)
+            j = current_at_bias(table, bias[i : i + 1], model=model)
+        warned = any(issubclass(w.category, GridAccuracyWarning) for w in caught)
+        n_warned += warned
+        ref = brute_force_current_a_cm2(table, bias[i : i + 1], model=model)
+        error = np.abs(j - ref) / max(np.abs(ref).max(), 1e-300)
+        if error.max() > TOLERANCE and not warned:
+            k = int(np.argmax(error))
+            silent.append(
+                f"stack {i} ({s.layers[0].material}/{s.layers[2].material}, "
+                f"{s.temperature_k:.0f} K) at {bias[i, k]:.3f} V: {error.max():.2%}"
+            )
+    return silent, n_warned
+
+
+def test_stacks_beyond_the_tolerance_raise_the_grid_warning() -> None:
+    # Statistical (seeded draw, 160 stacks, one I-V per call so a warning belongs to its
+    # stack): a stack beyond 0.5 % of its largest current is either fixed or warned of.
+    # Measured on this draw: none silent, 2 warned (the run-time estimate's false alarms
+    # on stacks within 0.5 %); over seeds 101-108 (2400 stacks), 3 silent, 0.8-1.0 %.
+    silent, n_warned = silent_errors(160, 9, 2027)
+    assert not silent, f"beyond 0.5 % without a GridAccuracyWarning: {silent}"
+    assert n_warned <= 0.05 * 160, f"{n_warned} of 160 stacks warned: too many false alarms"
 
 
 def test_grid_accuracy_warning_when_refinement_cannot_reach_the_tolerance(monkeypatch) -> None:
