@@ -590,9 +590,10 @@ def _add_resolved_lines(
     nodes, node_weights = _line_rule(
         lines.center[where], lines.width[where], lines.a[where], lines.b[where], low[rows], n_nodes
     )
-    t_lines = transmission_rows(nodes, profile=profile, rows=rows)
+    t_full = transmission_rows(nodes, profile=profile, rows=rows)
+    t_lines = t_full
     if reduce is not None:
-        t_lines = t_lines * coherent_factor(nodes, **{k: v[rows] for k, v in reduce.items()})
+        t_lines = t_full * coherent_factor(nodes, **{k: v[rows] for k, v in reduce.items()})
     s_lines = supply_function_ev(
         nodes,
         mu_emitter_ev=mu_e[rows][:, None],
@@ -602,7 +603,8 @@ def _add_resolved_lines(
     per_line = np.sum(node_weights * t_lines * s_lines, axis=-1)
     np.add.at(integral, rows, per_line)
     hidden = np.zeros(integral.shape)
-    np.add.at(hidden, rows, _second_maxima(nodes, t_lines, t_lines * np.abs(s_lines)))
+    # on the whole T: the scattering channel's reduction dips at a line's centre, no line
+    np.add.at(hidden, rows, _second_maxima(nodes, t_full, t_full * np.abs(s_lines)))
     doubtful = np.zeros(integral.shape)
     too_narrow = lines.width[where] < LINE_WIDTH_FLOOR_EV
     np.add.at(doubtful, rows, np.where(too_narrow, np.abs(per_line), 0.0))
