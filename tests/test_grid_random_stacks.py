@@ -177,10 +177,11 @@ def test_default_grid_against_brute_force_over_random_stacks() -> None:
 @pytest.mark.slow
 @pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6, 7, 8])
 def test_long_scan_against_brute_force(seed: int) -> None:
-    # Statistical, 2400 stacks at 13 biases: measured 0-2 stacks of 300 per draw beyond
-    # 0.5 % (9 of 2400), the worst 8.8 % (an InSb/AlSb line hidden beside another above
-    # the barriers, warned); before the crowded-line fix 1-3 of 300, up to 12 %.
-    _assert_rare(*grid_errors(300, 13, 100 + seed), share=0.01, worst=0.1)
+    # Statistical, 2400 stacks at 13 biases: measured 0-1 stacks of 300 per draw beyond
+    # 0.5 % (5 of 2400), the worst 4.5 % (an InSb/AlSb line hidden beside another above the
+    # barriers, warned; a 1e-15 eV InAs/AlSb line lost in this batch); before the checks
+    # for crowded and hidden lines, 14 of 2400, up to 12 % (with the corrected reference).
+    _assert_rare(*grid_errors(300, 13, 100 + seed), share=0.01, worst=0.06)
 
 
 def silent_errors(n_stacks: int, n_biases: int, seed: int):
@@ -210,11 +211,24 @@ def silent_errors(n_stacks: int, n_biases: int, seed: int):
 def test_stacks_beyond_the_tolerance_raise_the_grid_warning() -> None:
     # Statistical (seeded draw, 160 stacks, one I-V per call so a warning belongs to its
     # stack): a stack beyond 0.5 % of its largest current is either fixed or warned of.
-    # Measured on this draw: none silent, 2 warned (the run-time estimate's false alarms
-    # on stacks within 0.5 %); over seeds 101-108 (2400 stacks), 3 silent, 0.8-1.0 %.
+    # Measured on this draw: none silent; 1 warned (a 1e-15 eV line through 6-8 nm AlSb,
+    # 1.6 % off). Not met everywhere: the draw of the test above has one silent stack
+    # (1.0 %, see the slow scan below for the mechanism).
     silent, n_warned = silent_errors(160, 9, 2027)
     assert not silent, f"beyond 0.5 % without a GridAccuracyWarning: {silent}"
     assert n_warned <= 0.05 * 160, f"{n_warned} of 160 stacks warned: too many false alarms"
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6, 7, 8])
+def test_long_scan_stacks_beyond_the_tolerance_raise_the_grid_warning(seed: int) -> None:
+    # Statistical, 2400 stacks at 13 biases, one I-V per call: measured 2 silent stacks
+    # (0.93 % and 1.57 %, both a line broader than kT at a high bias, whose own rule's tail
+    # nodes are too sparse for the supply's fall across it), 3 warned of 5 beyond 0.5 %,
+    # 0-2 warnings per 300 stacks.
+    silent, n_warned = silent_errors(300, 13, 100 + seed)
+    assert len(silent) <= 1, f"beyond 0.5 % without a GridAccuracyWarning: {silent}"
+    assert n_warned <= 0.03 * 300, f"{n_warned} of 300 stacks warned: too many false alarms"
 
 
 def test_grid_accuracy_warning_when_refinement_cannot_reach_the_tolerance(monkeypatch) -> None:
