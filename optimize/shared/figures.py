@@ -301,7 +301,7 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     spans = _layer_spans(profile)
     bounds = _slice_edges_nm(profile)[1][:-1]  # slice edges, 0 = emitter interface
     length = spans[-1][1]
-    fig, ax = plt.subplots(figsize=(7.0, 4.4))
+    fig, ax = plt.subplots(figsize=(7.0, 5.2))
     xs = np.concatenate(
         [[float(bounds[0]) - CONTACT_DRAW_NM], bounds, [float(bounds[-1]) + CONTACT_DRAW_NM]]
     )
@@ -314,7 +314,7 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
         for z0, z1, idx in spans
         if stack.layers[idx].conduction_band_ev > emitter_edge + 0.05
     ]
-    _draw_layers(ax, stack, spans, barriers, top=top)
+    _draw_layers(ax, stack, spans, barriers)
     mu_e, mu_c = (float(x[0]) for x in contact_fermi_levels_ev(table))
     ax.hlines(mu_e, xs[0], 0, colors=PALETTE["orange"], linestyles="--", lw=2, label="Fermi levels")
     ax.hlines(edge[-1] + mu_c, length, xs[-1], colors=PALETTE["orange"], linestyles="--", lw=2)
@@ -322,7 +322,7 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     ax.set_xlabel("position from the emitter interface (nm)")
     ax.set_ylabel("energy from emitter band edge (eV)")
     ax.set_xlim(max(xs[0], -25.0), min(xs[-1], length + 35.0))  # the active region, some contact
-    ax.set_ylim(min(float(edge.min()), 0.0) - 0.1, top * 1.35 + 0.15)
+    ax.set_ylim(min(float(edge.min()), 0.0) - 0.1, top * 1.15 + 0.1)
     # below the axes: the emitter side now carries the X and L edges
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=3, fontsize=8, frameon=False)
     model = "linear drop" if stack.model.electrostatics == "linear" else "self-consistent"
@@ -363,24 +363,20 @@ def _draw_layers(
     stack: Stack,
     spans: list[tuple[float, float, int]],
     barriers: list[tuple[float, float]],
-    *,
-    top: float,
 ) -> None:
-    """Shade the barriers and write each interior layer's name and material above ``top``
-    (the highest edge of the active region, eV)."""
-    for z0, z1, idx in spans:
-        layer = stack.layers[idx]
+    """Shade the barriers and name each interior layer and its material on a top axis (one
+    rotated line per layer, above the plot, so thin neighbours and the title stay apart)."""
+    for z0, z1, _ in spans:
         if (z0, z1) in barriers:
             ax.axvspan(z0, z1, color=PALETTE["sky"], alpha=0.25, lw=0)
-        ax.text(
-            0.5 * (z0 + z1),
-            top * 1.04 + 0.02,
-            f"{layer.name}\n{layer.label}",
-            ha="center",
-            va="bottom",
-            fontsize=7,
-            rotation=90,
-        )
+    names = ax.secondary_xaxis("top")
+    names.set_xticks(
+        [0.5 * (z0 + z1) for z0, z1, _ in spans],
+        labels=[f"{stack.layers[i].name} ({stack.layers[i].label})" for _, _, i in spans],
+        rotation=90,
+        fontsize=7,
+    )
+    names.tick_params(length=0, pad=2)
 
 
 def _draw_resonances(
