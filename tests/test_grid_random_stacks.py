@@ -223,9 +223,9 @@ def test_stacks_beyond_the_tolerance_raise_the_grid_warning() -> None:
 @pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6, 7, 8])
 def test_long_scan_stacks_beyond_the_tolerance_raise_the_grid_warning(seed: int) -> None:
     # Statistical, 2400 stacks at 13 biases, one I-V per call: measured 2 silent stacks
-    # (0.93 % and 1.57 %, both a line broader than kT at a high bias, whose own rule's tail
-    # nodes are too sparse for the supply's fall across it), 3 warned of 5 beyond 0.5 %,
-    # 0-2 warnings per 300 stacks.
+    # (0.93 % and 1.57 %, both a line broader than kT on a steep background at a high bias:
+    # T S peaks on its own rule's sparse tail nodes), 3 warned of 5 beyond 0.5 %, 0-2
+    # warnings per 300 stacks.
     silent, n_warned = silent_errors(300, 13, 100 + seed)
     assert len(silent) <= 1, f"beyond 0.5 % without a GridAccuracyWarning: {silent}"
     assert n_warned <= 0.03 * 300, f"{n_warned} of 300 stacks warned: too many false alarms"
