@@ -895,7 +895,8 @@ def well_sheet_density_cm2(table, grid, *, potential_ev, bias_v, mu_emitter_ev, 
 
     Each 2D subband ``E_1`` (up to four, found on a 64-point grid of ``T(E)``
     of the current profile by :func:`physics.resonances.find_resonances`,
-    between the injecting contact's band edge and ``mu + 12 kT``; their
+    between the injecting contact's band edge and ``mu + 12 kT``, its nodes
+    crowded towards that edge by :data:`WELL_SEARCH_EDGE_POWER`; their
     contributions are summed) is fed by the injecting contact (the emitter for
     ``V >= 0``) at rate ``Gamma_E`` and emptied at ``Gamma``; with the
     transverse momentum conserved each 2D state at ``E_1 + E_par`` has
