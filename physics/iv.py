@@ -465,7 +465,7 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
 
     options = {"slice_nm": model.slice_nm}
     # the solve at vp (made for the peak's band profile, of a batch that may hold more
-    # stacks, so on a grid with more slices per layer): carried to this batch's grid
+    # stacks, so on a grid with more padding slices per layer): carried to this batch's grid
     source_center_nm, sol = peak
     target_center_nm = extended_slice_grid(table, slice_nm=model.slice_nm).center_nm
     sol = replace(
