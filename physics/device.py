@@ -422,9 +422,9 @@ def device_quantities(metrics: dict[str, np.ndarray], *, area_um2: float) -> dic
 def device_figures(
     table: LayerTable,
     bias_v: np.ndarray,
+    *,
     current_density_a_cm2: np.ndarray,
     metrics: dict[str, np.ndarray],
-    *,
     peak_profile: Profile | None,
     rows: np.ndarray,
     series_resistance_ohm_um2=0.0,

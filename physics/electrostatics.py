@@ -438,7 +438,7 @@ def extended_slice_grid(
 
 
 def potential_on_grid(
-    potential_ev: np.ndarray, source_center_nm: np.ndarray, target_center_nm: np.ndarray
+    potential_ev: np.ndarray, *, source_center_nm: np.ndarray, target_center_nm: np.ndarray
 ) -> np.ndarray:
     """A potential on one slice grid carried to another of the same stacks, by position.
 

@@ -84,7 +84,7 @@ def island_mixture(thickness_ml: np.ndarray, *, layers: np.ndarray | None = None
     )
 
 
-def area_weight_matrix(owner: np.ndarray, area_share: np.ndarray, n_samples: int) -> np.ndarray:
+def area_weight_matrix(owner: np.ndarray, *, area_share: np.ndarray, n_samples: int) -> np.ndarray:
     """Dense ``(n_samples, n_rows)`` area weights from each row's sample and share.
 
     Parameters

@@ -469,7 +469,10 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
     source_center_nm, sol = peak
     target_center_nm = extended_slice_grid(table, slice_nm=model.slice_nm).center_nm
     sol = replace(
-        sol, potential_ev=potential_on_grid(sol.potential_ev, source_center_nm, target_center_nm)
+        sol,
+        potential_ev=potential_on_grid(
+            sol.potential_ev, source_center_nm=source_center_nm, target_center_nm=target_center_nm
+        ),
     )
 
     def continued(v, state):
@@ -665,8 +668,8 @@ def _peak_figures(
         device_figures(
             table,
             v_abs,
-            j_side,
-            metrics,
+            current_density_a_cm2=j_side,
+            metrics=metrics,
             peak_profile=peak_profile,
             rows=rows,
             series_resistance_ohm_um2=series_resistance_ohm_um2,
@@ -842,7 +845,7 @@ def stack_iv(
         )
         whole = np.where(np.isfinite(mix.whole_ml), mix.whole_ml * mono, table.thickness_nm)
         table = table.with_thickness_nm(whole)
-        weights = area_weight_matrix(mix.owner, mix.area_share, 1)
+        weights = area_weight_matrix(mix.owner, area_share=mix.area_share, n_samples=1)
     return sweep(
         table,
         bias_v,

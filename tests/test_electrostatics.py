@@ -410,6 +410,6 @@ def test_potential_carried_to_another_grid_keeps_a_linear_drop_exactly() -> None
     dst = np.sort(rng.uniform(-20.0, 40.0, (2, 23)), axis=1)
     slope = np.array([[0.01, -0.02, 0.0], [0.005, 0.03, -0.01]])  # (stacks, biases) eV/nm
     u = slope[:, :, None] * src[:, None, :] + 0.1
-    got = potential_on_grid(u, src, dst)
+    got = potential_on_grid(u, source_center_nm=src, target_center_nm=dst)
     np.testing.assert_allclose(got, slope[:, :, None] * dst[:, None, :] + 0.1, atol=1e-12)
-    assert potential_on_grid(u, src, src.copy()) is u
+    assert potential_on_grid(u, source_center_nm=src, target_center_nm=src.copy()) is u

@@ -174,7 +174,7 @@ def test_half_monolayer_is_the_mean_of_the_two_whole_monolayer_curves(stack):
     thick[:, i] = mix.whole_ml[:, i] * stack.layers[i].monolayer_nm
     table = table.with_thickness_nm(thick)
     bias = np.linspace(0.0, 1.0, 41)
-    w = area_weight_matrix(mix.owner, mix.area_share, 1)
+    w = area_weight_matrix(mix.owner, area_share=mix.area_share, n_samples=1)
     two = sweep(table, bias, model=stack.model, refine=False)
     mixed = sweep(table, bias, model=stack.model, refine=False, area_weights=w)
     mean = 0.5 * (two.current_density_a_cm2[0] + two.current_density_a_cm2[1])

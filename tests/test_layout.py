@@ -242,3 +242,17 @@ def test_long_function_allowlist_only_shrinks():
         f"no longer over {MAX_BODY_LINES} lines, remove from LONG_FUNCTIONS_ALLOWED: "
         + "; ".join(stale)
     )
+
+
+def test_physics_functions_take_keywords_beyond_their_main_inputs():
+    # issue 16: same-typed arguments passed by position swap silently (two Fermi levels, two
+    # node grids); a public physics function takes at most three positional parameters and
+    # the rest by keyword
+    offenders = []
+    for path in sorted((REPO / "physics").rglob("*.py")):
+        for node in ast.parse(path.read_text()).body:
+            if isinstance(node, ast.FunctionDef) and not node.name.startswith("_"):
+                positional = node.args.posonlyargs + node.args.args
+                if len(positional) > 3:
+                    offenders.append(f"{path.relative_to(REPO)} {node.name}: {len(positional)}")
+    assert not offenders, offenders

@@ -1049,7 +1049,9 @@ class AsGrown:
         """
         lo, hi = np.searchsorted(self.owner, [start, stop])
         owner = self.owner[lo:hi] - start
-        weights = area_weight_matrix(owner, self.area_share[lo:hi], stop - start)
+        weights = area_weight_matrix(
+            owner, area_share=self.area_share[lo:hi], n_samples=stop - start
+        )
         return self.table.take(slice(lo, hi)), weights
 
 
