@@ -178,9 +178,9 @@ def test_default_grid_against_brute_force_over_random_stacks() -> None:
 @pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6, 7, 8])
 def test_long_scan_against_brute_force(seed: int) -> None:
     # Statistical, 2400 stacks at 13 biases: measured 0-1 stacks of 300 per draw beyond
-    # 0.5 % (5 of 2400), the worst 4.5 % (an InSb/AlSb line hidden beside another above the
-    # barriers, warned; a 1e-15 eV InAs/AlSb line lost in this batch); before the checks
-    # for crowded and hidden lines, 14 of 2400, up to 12 % (with the corrected reference).
+    # 0.5 % (2 of 2400): 0.8 % (1.6e-13 A/cm^2 at 12 K) and 4.5 % (a 1e-15 eV InAs/AlSb
+    # line lost in this batch, found when the stack is alone); before the checks for
+    # crowded, hidden and steep lines, 14 of 2400, up to 12 % (with the corrected reference).
     _assert_rare(*grid_errors(300, 13, 100 + seed), share=0.01, worst=0.06)
 
 
@@ -213,7 +213,8 @@ def test_stacks_beyond_the_tolerance_raise_the_grid_warning() -> None:
     # stack): a stack beyond 0.5 % of its largest current is either fixed or warned of.
     # Measured on this draw: none silent; 1 warned (a 1e-15 eV line through 6-8 nm AlSb,
     # 1.6 % off). Not met everywhere: the draw of the test above has one silent stack
-    # (1.0 %, see the slow scan below for the mechanism).
+    # (1.0 %: InGaAs/AlAs at 1.68 V, a line broader than kT on a steep background, its rule
+    # 2 % off with T S smooth on the rule's nodes; see DEVELOPERS.md).
     silent, n_warned = silent_errors(160, 9, 2027)
     assert not silent, f"beyond 0.5 % without a GridAccuracyWarning: {silent}"
     assert n_warned <= 0.05 * 160, f"{n_warned} of 160 stacks warned: too many false alarms"
@@ -222,13 +223,13 @@ def test_stacks_beyond_the_tolerance_raise_the_grid_warning() -> None:
 @pytest.mark.slow
 @pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6, 7, 8])
 def test_long_scan_stacks_beyond_the_tolerance_raise_the_grid_warning(seed: int) -> None:
-    # Statistical, 2400 stacks at 13 biases, one I-V per call: measured 2 silent stacks
-    # (0.93 % and 1.57 %, both a line broader than kT on a steep background at a high bias:
-    # T S peaks on its own rule's sparse tail nodes), 3 warned of 5 beyond 0.5 %, 0-2
-    # warnings per 300 stacks.
+    # Statistical, 2400 stacks at 13 biases, one I-V per call: measured none silent, 2 of
+    # 2400 beyond 0.5 % (both warned), 0-2 warnings per 300 stacks (6 of 2400). Before the
+    # check of steep lines, 2 silent (0.9 and 1.6 %, lines broader than kT on a steep
+    # background at a high bias).
     silent, n_warned = silent_errors(300, 13, 100 + seed)
-    assert len(silent) <= 1, f"beyond 0.5 % without a GridAccuracyWarning: {silent}"
-    assert n_warned <= 0.03 * 300, f"{n_warned} of 300 stacks warned: too many false alarms"
+    assert not silent, f"beyond 0.5 % without a GridAccuracyWarning: {silent}"
+    assert n_warned <= 0.02 * 300, f"{n_warned} of 300 stacks warned: too many false alarms"
 
 
 def test_grid_accuracy_warning_when_refinement_cannot_reach_the_tolerance(monkeypatch) -> None:
