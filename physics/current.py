@@ -252,7 +252,7 @@ def _coarse_reach(depth, span, n_coarse: int):
 
 
 def _line_rule(center, width, a, b, edge, n: int):
-    """Nodes and weights for ``[a, b]`` around a line, in ``v = sqrt(E - edge)``.
+    """Nodes (ascending) and weights for ``[a, b]`` around a line, in ``v = sqrt(E - edge)``.
 
     T rises like ``sqrt(E - edge)`` from the window's lower edge, a singularity for a
     Gauss rule in ``E`` when a line's interval reaches it (a state within a few widths
@@ -628,9 +628,7 @@ STEEP_SHARE = 0.15
 def _steep_share(nodes, weights, f) -> np.ndarray:
     """The part of a line's integral on nodes where ``T S`` changes by more than
     :data:`STEEP_RATIO` to a neighbour, ``(rows,)``."""
-    order = np.argsort(nodes, axis=-1)
-    g = np.abs(np.take_along_axis(f, order, axis=-1))
-    w = np.take_along_axis(weights, order, axis=-1)
+    g, w = np.abs(f), weights  # the rule's nodes ascend (_line_rule)
     tiny = 1e-300
     up = np.maximum(g[..., 1:], tiny) / np.maximum(g[..., :-1], tiny)
     jump = (up > STEEP_RATIO) | (up < 1.0 / STEEP_RATIO)
@@ -653,10 +651,7 @@ def _second_maxima(nodes, t, f) -> np.ndarray:
     sparse there (measured: two InSb lines 21 meV apart at 1.5 eV, 9 % of the current,
     no estimate above the tolerance).
     """
-    order = np.argsort(nodes, axis=-1)
-    e = np.take_along_axis(nodes, order, axis=-1)
-    g = np.take_along_axis(f, order, axis=-1)
-    h = np.take_along_axis(t, order, axis=-1)
+    e, g, h = nodes, f, t  # the rule's nodes ascend (_line_rule)
     # strict maxima: the nodes clipped to an interval's end repeat, a plateau is no line
     peak = (h[..., 1:-1] > h[..., :-2]) & (h[..., 1:-1] > h[..., 2:])
     stake = np.where(peak, g[..., 1:-1] * 0.5 * (e[..., 2:] - e[..., :-2]), 0.0)
