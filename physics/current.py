@@ -108,6 +108,14 @@ HIDDEN_LINE_TOLERANCE = 5e-3
 #: REFINE_TOLERANCE of a stack's largest current, a :class:`GridAccuracyWarning` at once
 #: (a finer coarse grid does not help; it may lose the line: measured 59 % off).
 LINE_WIDTH_FLOOR_EV = 1e-14
+#: Neighbouring nodes of a line's rule whose ``T S`` differ by more than this factor ...
+STEEP_RATIO = 4.0
+#: ... carrying more than this share of a stack's largest current refine the stack, with
+#: twice the nodes per line: a line broader than kT on a steep background at a high bias
+#: (T rising 1e4-fold across its interval while the supply falls) has T S peak on its rule's
+#: sparse tail nodes (measured: 0.9 and 1.6 % off, shares 1.0 and 0.32; at most 0.09 over
+#: the example spaces' stacks, where the rules are right).
+STEEP_SHARE = 0.15
 
 
 class GridAccuracyWarning(UserWarning):
@@ -615,27 +623,17 @@ def _add_resolved_lines(
     return hidden, steep, doubtful
 
 
-#: Neighbouring nodes of a line's rule whose ``T S`` differ by more than this factor ...
-STEEP_RATIO = 4.0
-#: ... carrying more than this share of a stack's largest current refine the stack, with
-#: twice the nodes per line: a line broader than kT on a steep background at a high bias
-#: (T rising 1e4-fold across its interval while the supply falls) has T S peak on its rule's
-#: sparse tail nodes (measured: 0.9 and 1.6 % off, shares 1.0 and 0.32; at most 0.09 over
-#: the example spaces' stacks, where the rules are right).
-STEEP_SHARE = 0.15
-
-
 def _steep_share(nodes, weights, f) -> np.ndarray:
     """The part of a line's integral on nodes where ``T S`` changes by more than
     :data:`STEEP_RATIO` to a neighbour, ``(rows,)``."""
-    g, w = np.abs(f), weights  # the rule's nodes ascend (_line_rule)
+    g = np.abs(f)  # on the rule's nodes, ascending (_line_rule)
     tiny = 1e-300
     up = np.maximum(g[..., 1:], tiny) / np.maximum(g[..., :-1], tiny)
     jump = (up > STEEP_RATIO) | (up < 1.0 / STEEP_RATIO)
     steep = np.zeros(g.shape, bool)
     steep[..., 1:] |= jump
     steep[..., :-1] |= jump
-    return np.sum(np.where(steep, w * g, 0.0), axis=-1)
+    return np.sum(np.where(steep, weights * g, 0.0), axis=-1)
 
 
 def _second_maxima(nodes, t, f) -> np.ndarray:
@@ -651,12 +649,12 @@ def _second_maxima(nodes, t, f) -> np.ndarray:
     sparse there (measured: two InSb lines 21 meV apart at 1.5 eV, 9 % of the current,
     no estimate above the tolerance).
     """
-    e, g, h = nodes, f, t  # the rule's nodes ascend (_line_rule)
-    # strict maxima: the nodes clipped to an interval's end repeat, a plateau is no line
-    peak = (h[..., 1:-1] > h[..., :-2]) & (h[..., 1:-1] > h[..., 2:])
-    stake = np.where(peak, g[..., 1:-1] * 0.5 * (e[..., 2:] - e[..., :-2]), 0.0)
+    # the rule's nodes ascend (_line_rule); strict maxima: the nodes clipped to an
+    # interval's end repeat, a plateau is no line
+    peak = (t[..., 1:-1] > t[..., :-2]) & (t[..., 1:-1] > t[..., 2:])
+    stake = np.where(peak, f[..., 1:-1] * 0.5 * (nodes[..., 2:] - nodes[..., :-2]), 0.0)
     # all but the largest maximum (the line itself)
-    main = np.argmax(np.where(peak, g[..., 1:-1], -1.0), axis=-1)[..., None]
+    main = np.argmax(np.where(peak, f[..., 1:-1], -1.0), axis=-1)[..., None]
     return stake.sum(axis=-1) - np.take_along_axis(stake, main, axis=-1)[..., 0]
 
 
