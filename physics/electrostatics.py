@@ -132,6 +132,9 @@ class PoissonSolution:
     electron_cm3: np.ndarray  #: Thomas-Fermi electrons plus the well charge
     iterations: int
     well_sheet_cm2: np.ndarray | None = None  #: electrons in the well, cm^-2, ``batch``
+    #: entries given up because their well charge was shown to lie below
+    #: ``abandon_below_cm2`` (:func:`solve_stack_poisson`): not converged; ``batch``
+    abandoned: np.ndarray | None = None
 
 
 def _fixed_parts(
@@ -514,6 +517,7 @@ def solve_stack_poisson(
     initial_well_cm2: np.ndarray | None = None,
     max_well_iterations: int = 60,
     max_step_ev: float = MAX_STEP_EV,
+    abandon_below_cm2: np.ndarray | None = None,
 ) -> tuple[SliceGrid, PoissonSolution]:
     """Self-consistent potential of each stack at each bias.
 
@@ -536,6 +540,12 @@ def solve_stack_poisson(
         Start of the well sheet density ``(n_stacks, n_biases)``, cm^-2.
     max_step_ev
         Damping of the Poisson-Newton steps (see :func:`solve_poisson_1d`).
+    abandon_below_cm2
+        Optional ``(n_stacks, n_biases)`` charges, cm^-2: an entry whose well-charge
+        iteration evaluates a charge at or below this with ``F(n_w) < n_w`` (so its root
+        lies in ``[0, n_w]``: ``F >= 0``) stops there, not converged, and is flagged in
+        ``solution.abandoned`` (a continuation that only needs to know that the charge
+        collapsed, :func:`physics.iv.sweep`'s up-branch check).
 
     Returns
     -------
@@ -615,11 +625,25 @@ def solve_stack_poisson(
         bias=bias,
         fermi=fermi,
         right=right,
+        abandon_below_cm2=(
+            None
+            if abandon_below_cm2 is None
+            else np.broadcast_to(abandon_below_cm2, bias.shape).copy()
+        ),
     )
 
 
 def _iterate_well_charge(
-    poisson, solution, well, *, max_well_iterations, well_target, bias, fermi, right
+    poisson,
+    solution,
+    well,
+    *,
+    max_well_iterations,
+    well_target,
+    bias,
+    fermi,
+    right,
+    abandon_below_cm2=None,
 ) -> PoissonSolution:
     """The well-charge iteration of :func:`solve_stack_poisson` around ``poisson``.
 
@@ -640,8 +664,12 @@ def _iterate_well_charge(
         ``well_target(potential_ev, bias_v)``: the charge the states hold in a potential.
     bias, fermi, right
         Bias (V), quasi-Fermi levels and collector potential (eV) of each entry.
+    abandon_below_cm2
+        Optional charges, cm^-2, of each entry: see :func:`solve_stack_poisson`.
     """
     root = _WellChargeRoot.start(bias.shape)
+    abandoned = np.zeros(bias.shape, bool)
+    below = abandon_below_cm2
     out_u, out_n, out_well = (
         solution.potential_ev.copy(),
         solution.electron_cm3.copy(),
@@ -653,22 +681,34 @@ def _iterate_well_charge(
         target = well_target(solution.potential_ev, bias)
         residual = target - well
         converged = np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2
-        new = (converged | root.settled) & ~recorded
+        # the root lies in [0, well] (F >= 0 > residual): below the charge to give up at
+        gone = (
+            np.zeros(well.shape, bool)
+            if below is None
+            else ~converged & ~root.settled & (residual < 0) & (well <= below)
+        )
+        new = (converged | root.settled | gone) & ~recorded
         if np.any(new):
             si, ci = np.nonzero(new)
             out_u[si, cols[ci]] = solution.potential_ev[si, ci]
             out_n[si, cols[ci]] = solution.electron_cm3[si, ci]
             out_well[si, cols[ci]] = well[si, ci]
+            abandoned[si, cols[ci]] = gone[si, ci]
             recorded |= new
             most = max(most, solution.iterations + outer)
         finished = np.all(recorded, axis=0)
         if np.all(finished):
             return PoissonSolution(
-                potential_ev=out_u, electron_cm3=out_n, iterations=most, well_sheet_cm2=out_well
+                potential_ev=out_u,
+                electron_cm3=out_n,
+                iterations=most,
+                well_sheet_cm2=out_well,
+                abandoned=abandoned if below is not None else None,
             )
         if np.any(finished):
             keep = ~finished
             cols = cols[keep]
+            below = None if below is None else below[:, keep]
             solution = replace(
                 solution,
                 potential_ev=solution.potential_ev[:, keep],
