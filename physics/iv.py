@@ -320,9 +320,17 @@ class _Devices:
     def n(self) -> int:
         return self.table.n_stacks if self.weights is None else self.weights.shape[0]
 
-    def current(self, bias_v, model: ModelOptions, grid: EnergyGrid) -> np.ndarray:
-        """``(n_devices, n_biases)``; biases ``(n_biases,)`` or per device ``(n_devices, n)``."""
+    def current(self, bias_v, model: ModelOptions, grid: EnergyGrid, *, keep=None) -> np.ndarray:
+        """``(n_devices, n_biases)``; biases ``(n_biases,)`` or per device ``(n_devices, n)``.
+
+        ``keep``: a list to which the self-consistent solve (grid, solution) is appended
+        (one stack per device only; the same solve :func:`current_at_bias` makes)."""
         if self.weights is None:
+            if keep is not None and model.electrostatics == "self-consistent":
+                g, sol = _solve_at(self.table, bias_v, model)
+                keep.append((g, sol))
+                profile = profile_from_potential(self.table, g, sol.potential_ev)
+                return _current_of_profile(profile, self.table, bias_v, model, grid)
             return current_at_bias(self.table, bias_v, model=model, grid=grid)
         bias = np.asarray(bias_v, float)
         if bias.ndim == 2:
@@ -391,26 +399,39 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
     drop_v, drop_j = np.full(center.size, np.inf), np.full(center.size, np.nan)
     open_ = np.ones(center.size, bool)
     offsets = np.linspace(-1.0, 1.0, REFINE_POINTS)
-    for _ in range(REFINE_MAX_ROUNDS):
+    # the self-consistent solve at each extremum's best point: (node positions, potential,
+    # electrons, well charge) of that stack, kept for the peak's own figures
+    kept: list = [None] * center.size
+    keep = [] if devices.weights is None and model.electrostatics == "self-consistent" else None
+    for round_ in range(REFINE_MAX_ROUNDS):
         idx = np.nonzero(open_)[0]
         if idx.size == 0:
             break
         sub, sgn, rows = devices.take(idx), sign[idx], np.arange(idx.size)
         v = center[idx, None] + half[idx, None] * offsets
-        j = sgn[:, None] * sub.current(v, model, grid)
+        j = sgn[:, None] * sub.current(v, model, grid, keep=keep)
         top = np.argmax(j, axis=1)
         pick = np.clip(top, 1, REFINE_POINTS - 2)[:, None] + np.array([-1, 0, 1])
         x3, j3 = v[rows[:, None], pick], j[rows[:, None], pick]
         offset, curvature, lowest = parabola_through(x3, -j3)
         vertex = x3[:, 1] + offset
+        edge = (top == 0) | (top == REFINE_POINTS - 1)
+        narrower = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
         # a kink (a neighbour of the best sample lies far below it): no parabola fits, so
-        # its vertex cannot end the round; only the smooth tops' vertices are computed
+        # its vertex cannot end the round and is computed only where the round is the last
+        # (the bracket then below the bias tolerance), where the vertex may be the best point
         kink = np.max(j3[:, 1:2] - j3, axis=1) > REFINE_KINK_DROP * np.abs(j3[:, 1])
+        last = (narrower < REFINE_BIAS_TOLERANCE_V) | (round_ == REFINE_MAX_ROUNDS - 1)
+        fit = np.nonzero(~kink | last)[0]
         j_vertex = np.full(idx.size, -np.inf)
-        if not np.all(kink):
-            fit = np.nonzero(~kink)[0]
-            j_vertex[fit] = sgn[fit] * sub.take(fit).current(vertex[fit, None], model, grid)[:, 0]
+        if fit.size:
+            j_vertex[fit] = (
+                sgn[fit] * sub.take(fit).current(vertex[fit, None], model, grid, keep=keep)[:, 0]
+            )
         better = j_vertex >= j[rows, top]
+        if keep:
+            _keep_best(kept, keep, idx, fit if fit.size else None, better, top)
+            keep.clear()
         center[idx] = np.where(better, vertex, v[rows, top])
         best[idx] = np.maximum(j_vertex, j[rows, top])
         # the nearest sample above the extremum that lies NDR_DROP below it (used for peaks)
@@ -422,13 +443,50 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
         nearer = v_fall < drop_v[idx]
         drop_v[idx] = np.where(nearer, v_fall, drop_v[idx])
         drop_j[idx] = np.where(nearer, sgn * j[rows, first], drop_j[idx])
-        edge = (top == 0) | (top == REFINE_POINTS - 1)
-        half[idx] = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
+        half[idx] = narrower
         smooth = (curvature > 0) & (
             np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(best[idx])
         )
         open_[idx] = ~((smooth & ~edge) | (half[idx] < REFINE_BIAS_TOLERANCE_V))
-    return center, sign * best, drop_v, drop_j
+    return center, sign * best, drop_v, drop_j, (kept if keep is not None else None)
+
+
+def _keep_best(kept, solves, idx, fit, better, top):
+    """Record in ``kept`` (per extremum) the solve at this round's best point of each
+    extremum ``idx``: the vertex's (``solves[1]``, entries ``fit``) where ``better``, else
+    the best sample's (``solves[0]``, column ``top``)."""
+    (g_s, s_s), vertex = solves[0], (solves[1] if fit is not None else None)
+    where = {int(f): k for k, f in enumerate(fit)} if fit is not None else {}
+    for e, i in enumerate(idx):
+        if better[e] and vertex is not None:
+            g, sol, row, col = vertex[0], vertex[1], where[e], 0
+        else:
+            g, sol, row, col = g_s, s_s, e, int(top[e])
+        kept[i] = (
+            g.center_nm[row],
+            sol.potential_ev[row, col],
+            sol.electron_cm3[row, col],
+            sol.well_sheet_cm2[row, col],
+        )
+
+
+def _kept_solution(table, kept, model):
+    """The peak's solve (grid, solution) of ``table``'s stacks from the refinement's kept
+    solves (one per stack, each carried to this table's slice grid by position)."""
+    from .electrostatics import PoissonSolution, extended_slice_grid
+
+    g = extended_slice_grid(table, slice_nm=model.slice_nm)
+    n, nodes = g.center_nm.shape
+    pot, el = np.empty((n, 1, nodes)), np.empty((n, 1, nodes))
+    well = np.empty((n, 1))
+    for s, (center_nm, u, e, w) in enumerate(kept):
+        if center_nm.shape == g.center_nm[s].shape and np.array_equal(center_nm, g.center_nm[s]):
+            pot[s, 0], el[s, 0] = u, e
+        else:
+            pot[s, 0] = np.interp(g.center_nm[s], center_nm, u)
+            el[s, 0] = np.interp(g.center_nm[s], center_nm, e)
+        well[s, 0] = w
+    return g, PoissonSolution(potential_ev=pot, electron_cm3=el, iterations=0, well_sheet_cm2=well)
 
 
 def _solve_at(table, bias_v, model):
@@ -649,16 +707,17 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     """Peak and valley (bias, current) of the devices ``rows`` from their sweep points
     ``ip``, ``iv`` on the branch ``v_side``, ``j_side`` (magnitudes), refined by
     :func:`_refine` with ``refine``; a valley ``bounded`` by the sweep stays on its point.
-    Returns ``vp, jp, vv, jv`` and the first point past each peak that fell ``(v, j)``
-    (None without refinement)."""
+    Returns ``vp, jp, vv, jv``, the first point past each peak that fell ``(v, j)`` (None
+    without refinement) and the self-consistent solve at each refined peak (the peak's
+    entries of :func:`_refine`'s kept solves; None without them)."""
     vp, jp = v_side[ip[rows]], j_side[rows, ip[rows]]
     vv, jv = v_side[iv[rows]], j_side[rows, iv[rows]]
     if not refine:
-        return vp, jp, vv, jv, None
+        return vp, jp, vv, jv, None, None
     step = np.abs(np.diff(v_side)).max() if v_side.size > 1 else 0.0
     n = rows.size
     extremum = np.concatenate([np.ones(n), -np.ones(n)])  # maximise J at peaks, -J at valleys
-    c, y, after_v, after_j = _refine(
+    c, y, after_v, after_j, kept = _refine(
         devices.take(rows).twice(),
         model,
         grid,
@@ -671,7 +730,9 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     interior = ~bounded[rows]  # a valley on the last point computed stays there
     vv = np.where(interior, c[n:], vv)
     jv = np.where(interior, np.minimum(y[n:], jv), jv)
-    return vp, jp, vv, jv, (after_v[:n], after_j[:n])
+    # the refinement's solve at its best point, vp
+    at_peak = None if kept is None or any(k is None for k in kept[:n]) else kept[:n]
+    return vp, jp, vv, jv, (after_v[:n], after_j[:n]), at_peak
 
 
 def _peak_figures(
@@ -682,12 +743,17 @@ def _peak_figures(
     peak's profile and, with the self-consistent model and ``up_sweep``, the up sweep's
     peak and bistable window (:func:`_up_sweep_peaks`; the peak's solve is shared).
     ``curve`` is ``(|V|, J, table)`` of the branch and every device; ``extrema`` is
-    ``(vp, jp, vv, after)`` from :func:`_peak_and_valley`."""
+    ``(vp, jp, vv, after, at_peak)`` from :func:`_peak_and_valley` (``at_peak``: the
+    refinement's solves at ``vp``, which spare the peak's own solve, or None)."""
     v_abs, j_side, table = curve
-    vp, jp, vv, after = extrema
+    vp, jp, vv, after, at_peak = extrema
     peak_solution = None  # the self-consistent solve at the peak, shared with the up branch
     if model.electrostatics == "self-consistent":
-        peak_solution = _solve_at(peaked, vp[:, None], model)
+        peak_solution = (
+            _solve_at(peaked, vp[:, None], model)
+            if at_peak is None
+            else _kept_solution(peaked, at_peak, model)
+        )
         peak_profile = profile_from_potential(
             peaked, peak_solution[0], peak_solution[1].potential_ev
         )
@@ -807,7 +873,7 @@ def sweep(
     curves = functools.partial(IVCurves, extension_bias_v=ext_v, extension_a_cm2=ext_j)
 
     rows = np.nonzero(has)[0]
-    vp, jp, vv, jv, after = _peak_and_valley(
+    vp, jp, vv, jv, after, at_peak = _peak_and_valley(
         devices, model, grid, v_side, j_side, rows, ip, iv, bounded, sign, refine=refine
     )
     metrics["peak_current_density_a_cm2"][rows] = jp
@@ -826,7 +892,7 @@ def sweep(
         rows=rows,
         up_sweep=refine and sign > 0,
         curve=(np.abs(v_side), j_side, table),
-        extrema=(vp, jp, vv, after),
+        extrema=(vp, jp, vv, after, at_peak),
         series_resistance_ohm_um2=series_resistance_ohm_um2,
     )
     return curves(bias, j, metrics)
