@@ -214,7 +214,8 @@ def breakdown(repeats: int) -> None:
     """Where the default model's I-V spends its time (issue 12: why not 10x), per stack.
 
     Wraps the phases of :func:`wellwright.physics.iv.sweep` (the main sweep, the peak and
-    valley refinement, the peak's solve, the up-branch check) and counts the
+    valley refinement with its solves, which also serve as the peak's, the up-branch check)
+    and counts the
     self-consistent solves, their well-charge steps (each one Poisson solve and one search
     for the quasi-bound states), the current calls and the compiled routines' time.
     """
@@ -264,7 +265,7 @@ def breakdown(repeats: int) -> None:
     saved = {
         (iv, "_refine"): timed(iv, "_refine", "refinement (_refine)"),
         (iv, "_up_branch"): timed(iv, "_up_branch", "up-branch check (_up_branch)"),
-        (iv, "_solve_at"): timed(iv, "_solve_at", "the peak's solve"),
+        (iv, "_solve_at"): timed(iv, "_solve_at", "s.-c. solves (refinement)"),
         (iv, "solve_stack_poisson"): timed(iv, "solve_stack_poisson", "s.-c. solves (iv)"),
         (es, "solve_stack_poisson"): timed(es, "solve_stack_poisson", "s.-c. solves (profile)"),
         (es, "well_sheet_density_cm2"): timed(es, "well_sheet_density_cm2", "well-charge steps"),
