@@ -402,7 +402,9 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
     # the self-consistent solve at each extremum's best point: (node positions, potential,
     # electrons, well charge) of that stack, kept for the peak's own figures
     kept: list = [None] * center.size
-    keep = [] if devices.weights is None and model.electrostatics == "self-consistent" else None
+    keep: list | None = (
+        [] if devices.weights is None and model.electrostatics == "self-consistent" else None
+    )
     for round_ in range(REFINE_MAX_ROUNDS):
         idx = np.nonzero(open_)[0]
         if idx.size == 0:
