@@ -30,6 +30,7 @@ __all__ = [
     "linear_drop_ev",
     "builtin_offset_ev",
     "profile_from_potential",
+    "profile_builder",
     "linear_profile",
 ]
 
@@ -254,23 +255,47 @@ def profile_from_potential(table: LayerTable, grid: SliceGrid, potential_ev: np.
     a stack's profile, and every quantity read from its slices, is then the same
     in any batch.
     """
+    return profile_builder(table, grid)(potential_ev)
+
+
+def profile_builder(table: LayerTable, grid: SliceGrid):
+    """:func:`profile_from_potential` for one table and grid, its fixed parts computed once:
+    returns ``build(potential_ev) -> Profile`` (for solvers that make many profiles of the
+    same stacks, such as the well-charge iteration of the self-consistent model).
+
+    Parameters
+    ----------
+    table
+        Layer parameters, ``(n_stacks, n_layers)``.
+    grid
+        Slices from :func:`slice_grid`.
+    """
     li = grid.layer_index
-    edge = (table.edge_ev - table.edge_ev[:, :1])[:, li]
+    edge = (table.edge_ev - table.edge_ev[:, :1])[:, li][:, None, :]
     n = li.size
     real = grid.width_nm > 0
     real[:, [0, -1]] = True
+    source = None
     if not np.all(real):
-        source = np.maximum.accumulate(np.where(real, np.arange(n), 0), axis=-1)
-        potential_ev = np.take_along_axis(
-            potential_ev, np.broadcast_to(source[:, None, :], potential_ev.shape), axis=-1
+        source = np.maximum.accumulate(np.where(real, np.arange(n), 0), axis=-1)[:, None, :]
+    mass = table.mass_m0[:, li][:, None, :]
+    alpha = table.nonparabolicity_per_ev[:, li][:, None, :]
+    width = grid.width_nm[:, None, :]
+
+    def build(potential_ev: np.ndarray) -> Profile:
+        if source is not None:
+            potential_ev = np.take_along_axis(
+                potential_ev, np.broadcast_to(source, potential_ev.shape), axis=-1
+            )
+        return Profile(
+            edge_ev=edge + potential_ev,
+            mass_m0=mass,
+            nonparabolicity_per_ev=alpha,
+            width_nm=width,
+            layer_index=li,
         )
-    return Profile(
-        edge_ev=edge[:, None, :] + potential_ev,
-        mass_m0=table.mass_m0[:, li][:, None, :],
-        nonparabolicity_per_ev=table.nonparabolicity_per_ev[:, li][:, None, :],
-        width_nm=grid.width_nm[:, None, :],
-        layer_index=li,
-    )
+
+    return build
 
 
 def linear_profile(table: LayerTable, bias_v: np.ndarray, *, slice_nm: float = 0.25) -> Profile:

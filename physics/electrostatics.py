@@ -70,7 +70,14 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .bands import Profile, SliceGrid, builtin_offset_ev, profile_from_potential, slice_grid
+from .bands import (
+    Profile,
+    SliceGrid,
+    builtin_offset_ev,
+    profile_builder,
+    profile_from_potential,
+    slice_grid,
+)
 from .constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, VACUUM_PERMITTIVITY_F_M
 from .fermi import (
     effective_density_of_states_cm3,
@@ -609,6 +616,7 @@ def solve_stack_poisson(
             for s in range(n_stacks)
         ]
     )
+    profile_of = profile_builder(table, grid)
     return grid, _iterate_well_charge(
         poisson,
         solution,
@@ -621,6 +629,7 @@ def solve_stack_poisson(
             bias_v=bias_v,
             mu_emitter_ev=mu_e,
             well_mass_m0=mass_w,
+            profile_of=profile_of,
         )[0],
         bias=bias,
         fermi=fermi,
@@ -930,7 +939,9 @@ class _WellChargeRoot:
         return well
 
 
-def well_sheet_density_cm2(table, grid, *, potential_ev, bias_v, mu_emitter_ev, well_mass_m0):
+def well_sheet_density_cm2(
+    table, grid, *, potential_ev, bias_v, mu_emitter_ev, well_mass_m0, profile_of=None
+):
     """Estimate of the electron sheet density in the quasi-bound states, cm^-2.
 
     Each 2D subband ``E_1`` (up to four, found on a 64-point grid of ``T(E)``
@@ -975,11 +986,18 @@ def well_sheet_density_cm2(table, grid, *, potential_ev, bias_v, mu_emitter_ev, 
         Emitter Fermi level above its band edge, eV, ``(n_stacks,)``.
     well_mass_m0
         Mass of the well, m0, ``(n_stacks,)``.
+    profile_of
+        Optional :func:`physics.bands.profile_builder` of ``table`` and ``grid`` (the
+        iteration's, built once).
     """
     from .constants import ELECTRON_MASS_KG, HBAR_J_S
     from .resonances import find_resonances
 
-    profile = profile_from_potential(table, grid, potential_ev)
+    profile = (
+        profile_from_potential(table, grid, potential_ev)
+        if profile_of is None
+        else profile_of(potential_ev)
+    )
     kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None]
     bias = np.asarray(bias_v, float)
     forward = bias >= 0
