@@ -525,8 +525,7 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
     current exceeds ``j_after`` by :data:`BISTABLE_EXCESS`, follows the
     charged branch upwards (steps doubled while it holds, halved when the
     current falls off it, from :data:`FOLD_FIRST_STEP_V` to :data:`FOLD_TOLERANCE_V`, at most
-    :data:`FOLD_STEPS` solves; not beyond ``v_end``, the valley, nor to a bias where a step
-    already fell: halved instead, as a step that fell there again would be), as
+    :data:`FOLD_STEPS` solves; not beyond ``v_end``, the valley), as
     :func:`sweep_hysteresis` does on a grid. Every stack of the batch takes
     each step; stacks already settled repeat their last bias.
 
@@ -582,7 +581,6 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
     best_v, best_j = np.where(bistable, v_after, vp), np.where(bistable, j_hi, -np.inf)
     v_hi, step = v_after.copy(), np.maximum(v_after - vp, FOLD_FIRST_STEP_V)
     active, fell = bistable.copy(), np.zeros(bistable.shape, bool)
-    v_fall = np.full(v_hi.shape, np.inf)  # the lowest bias where a step fell off the branch
     for _ in range(FOLD_STEPS):
         if not np.any(active):
             break
@@ -601,15 +599,7 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
         higher = hold & (j_try > best_j)
         best_v, best_j = np.where(higher, v_try, best_v), np.where(higher, j_try, best_j)
         fell |= active & ~hold
-        v_fall = np.where(active & ~hold, np.minimum(v_fall, v_try), v_fall)
         step = np.where(hold, 2.0 * step, 0.5 * step)
-        # the fold lies below a bias where the branch was left: no step goes there again
-        # (halved as a step that fell there would be)
-        for _ in range(64):
-            again = active & (v_hi + step >= v_fall - 1e-12)
-            if not np.any(again):
-                break
-            step = np.where(again, 0.5 * step, step)
         active &= ~(fell & (step < FOLD_TOLERANCE_V)) & ~(hold & (v_try >= v_end))
     return best_v, best_j, np.where(bistable, v_hi - vp, 0.0)
 
