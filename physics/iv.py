@@ -8,9 +8,8 @@ the peak again or the sweep ends. Both are then located more finely than
 the sweep grid, so that they do not depend on it: nine extra biases across
 the neighbouring grid points (one batched call for peaks and valleys of
 every stack), then the current at the vertex of a parabola through the
-three best points (one more call; not where the best point sits on a kink,
-the edge of a current cliff, where no parabola fits), repeated on a bracket
-four times narrower until the vertex's current agrees with the parabola (a smooth top:
+three best points (one more call), repeated on a bracket four times
+narrower until the vertex's current agrees with the parabola (a smooth top:
 one round; a peak at the edge of a current cliff: a few); the better of the
 vertex and the best sampled point is reported, so the figures of merit are
 always computed currents, never extrapolations.
@@ -300,11 +299,6 @@ REFINE_POINTS = 9
 REFINE_MAX_ROUNDS = 8
 REFINE_RELATIVE_TOLERANCE = 1e-3
 REFINE_BIAS_TOLERANCE_V = 2e-5
-#: A round whose best sample has a neighbour more than this fraction of its current below
-#: it sits on a kink (the edge of a current cliff: measured 54-71 % on the example stacks'
-#: self-consistent peaks, against at most 4 % beside the smooth tops): its parabola's vertex
-#: is not computed (it never ends such a round) and the next round zooms on the best sample.
-REFINE_KINK_DROP = 0.25
 
 
 @dataclass(frozen=True)
@@ -388,10 +382,11 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
     of a current cliff (self-consistent charge, narrow lines) therefore takes
     a few rounds, a smooth one only one. The better of the vertex and the
     best sample is kept, so the result is always a computed current, never
-    an extrapolation (a parabola overshoots at a kink). Where the best sample's
-    neighbour lies more than :data:`REFINE_KINK_DROP` below it (a kink) the
-    vertex is not computed: the round zooms on the best sample. A best sample on the
-    bracket's edge moves the bracket without narrowing it.
+    an extrapolation (a parabola overshoots at a kink). A best sample on the
+    bracket's edge moves the bracket without narrowing it. With the
+    self-consistent model the solve at each extremum's best point is kept
+    (returned last: node positions, potential, electrons and well charge of its
+    stack; None otherwise).
     """
     center = np.array(center_v, float)
     half = np.array(half_span_v, float)
@@ -405,7 +400,7 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
     keep: list | None = (
         [] if devices.weights is None and model.electrostatics == "self-consistent" else None
     )
-    for round_ in range(REFINE_MAX_ROUNDS):
+    for _ in range(REFINE_MAX_ROUNDS):
         idx = np.nonzero(open_)[0]
         if idx.size == 0:
             break
@@ -417,22 +412,10 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
         x3, j3 = v[rows[:, None], pick], j[rows[:, None], pick]
         offset, curvature, lowest = parabola_through(x3, -j3)
         vertex = x3[:, 1] + offset
-        edge = (top == 0) | (top == REFINE_POINTS - 1)
-        narrower = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
-        # a kink (a neighbour of the best sample lies far below it): no parabola fits, so
-        # its vertex cannot end the round and is computed only where the round is the last
-        # (the bracket then below the bias tolerance), where the vertex may be the best point
-        kink = np.max(j3[:, 1:2] - j3, axis=1) > REFINE_KINK_DROP * np.abs(j3[:, 1])
-        last = (narrower < REFINE_BIAS_TOLERANCE_V) | (round_ == REFINE_MAX_ROUNDS - 1)
-        fit = np.nonzero(~kink | last)[0]
-        j_vertex = np.full(idx.size, -np.inf)
-        if fit.size:
-            j_vertex[fit] = (
-                sgn[fit] * sub.take(fit).current(vertex[fit, None], model, grid, keep=keep)[:, 0]
-            )
+        j_vertex = sgn * sub.current(vertex[:, None], model, grid, keep=keep)[:, 0]
         better = j_vertex >= j[rows, top]
         if keep:
-            _keep_best(kept, keep, idx, fit if fit.size else None, better, top)
+            _keep_best(kept, keep, idx, better, top)
             keep.clear()
         center[idx] = np.where(better, vertex, v[rows, top])
         best[idx] = np.maximum(j_vertex, j[rows, top])
@@ -445,7 +428,8 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
         nearer = v_fall < drop_v[idx]
         drop_v[idx] = np.where(nearer, v_fall, drop_v[idx])
         drop_j[idx] = np.where(nearer, sgn * j[rows, first], drop_j[idx])
-        half[idx] = narrower
+        edge = (top == 0) | (top == REFINE_POINTS - 1)
+        half[idx] = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
         smooth = (curvature > 0) & (
             np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(best[idx])
         )
@@ -453,15 +437,14 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
     return center, sign * best, drop_v, drop_j, (kept if keep is not None else None)
 
 
-def _keep_best(kept, solves, idx, fit, better, top):
+def _keep_best(kept, solves, idx, better, top):
     """Record in ``kept`` (per extremum) the solve at this round's best point of each
-    extremum ``idx``: the vertex's (``solves[1]``, entries ``fit``) where ``better``, else
-    the best sample's (``solves[0]``, column ``top``)."""
-    (g_s, s_s), vertex = solves[0], (solves[1] if fit is not None else None)
-    where = {int(f): k for k, f in enumerate(fit)} if fit is not None else {}
+    extremum ``idx``: the vertex's (``solves[1]``) where ``better``, else the best
+    sample's (``solves[0]``, column ``top``)."""
+    (g_s, s_s), (g_v, s_v) = solves
     for e, i in enumerate(idx):
-        if better[e] and vertex is not None:
-            g, sol, row, col = vertex[0], vertex[1], where[e], 0
+        if better[e]:
+            g, sol, row, col = g_v, s_v, e, 0
         else:
             g, sol, row, col = g_s, s_s, e, int(top[e])
         kept[i] = (
