@@ -56,6 +56,7 @@ __all__ = [
     "stack_iv",
     "band_profile",
     "current_at_bias",
+    "current_of_profile",
     "locate_peak_valley",
     "external_bias_v",
     "HysteresisCurves",
@@ -235,6 +236,38 @@ def current_at_bias(
         Adaptive energy grid settings.
     """
     return _current_of_profile(band_profile(table, bias_v, model=model), table, bias_v, model, grid)
+
+
+def current_of_profile(
+    profile,
+    table: LayerTable,
+    *,
+    bias_v: np.ndarray,
+    model: ModelOptions = ModelOptions(),
+    grid: EnergyGrid = EnergyGrid(),
+) -> np.ndarray:
+    """Current density, A/cm^2, ``(n_stacks, n_biases)``, of band profiles already computed.
+
+    The transport step of :func:`current_at_bias` alone: the profile depends
+    only on the electrostatics (:func:`band_profile`), so a caller that
+    changes only the transport settings (broadening, the scattering-assisted
+    channel) can reuse it.
+
+    Parameters
+    ----------
+    profile
+        Band profiles of ``table`` at ``bias_v`` (:func:`band_profile`), batch shape
+        ``(n_stacks, n_biases)``.
+    table
+        Layers of ``n_stacks`` stacks.
+    bias_v
+        Bias, V, ``(n_biases,)`` or ``(n_stacks, n_biases)``.
+    model
+        Model options (broadening, transport).
+    grid
+        Adaptive energy grid settings.
+    """
+    return _current_of_profile(profile, table, bias_v, model, grid)
 
 
 def _current_of_profile(profile, table, bias_v, model, grid) -> np.ndarray:

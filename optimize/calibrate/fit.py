@@ -74,7 +74,7 @@ from typing import Any
 
 import numpy as np
 from scipy.optimize import least_squares
-from wellwright.optimize.calibrate.problem import Problem
+from wellwright.optimize.calibrate.problem import KernelCache, Problem
 from wellwright.optimize.study.growth import as_generator
 from wellwright.physics.iv import locate_peak_valley
 
@@ -183,6 +183,8 @@ class Objective:
         self.evaluations = 0
         self.jumps = 0  #: points whose slope was taken from one side (NDR jump), last covariance
         self._cache: dict[bytes, np.ndarray] = {}
+        #: corner stacks computed so far (currents, band profiles): never computed twice
+        self.kernel_cache = KernelCache()
 
     @property
     def n_points(self) -> int:
@@ -198,7 +200,7 @@ class Objective:
         intrinsic
             Intrinsic curves of these rows (:meth:`Problem.intrinsic_currents`); None: computed.
         """
-        pred = self.problem.predict(self.problem.deviations(z), intrinsic)
+        pred = self.problem.predict(self.problem.deviations(z), intrinsic, cache=self.kernel_cache)
         return [np.log(np.abs(p) + f) - lg for p, f, lg in zip(pred, self.floors, self.logs)]
 
     def residuals_many(self, z: np.ndarray, intrinsic=None) -> np.ndarray:
@@ -240,7 +242,9 @@ class Objective:
             if q.kind == "thickness"
         }
         need = [0] + [j + 1 for j in range(p) if kinds[j] not in ("thickness", "resistance")]
-        base, slopes = prob.intrinsic_currents(prob.deviations(rows[need]), with_slopes=True)
+        base, slopes = prob.intrinsic_currents(
+            prob.deviations(rows[need]), with_slopes=True, cache=self.kernel_cache
+        )
         intrinsic = []
         for cur, sl in zip(base, slopes):
             full = np.repeat(cur[:1], p + 1, axis=0)
@@ -423,7 +427,7 @@ def global_stage(
         Random draws of the continuous parameters.
     """
     rows = _combos(obj.problem)
-    intrinsic = obj.problem.intrinsic_currents(obj.problem.deviations(rows))
+    intrinsic = obj.problem.intrinsic_currents(obj.problem.deviations(rows), cache=obj.kernel_cache)
     scored = []
     for i in range(rows.shape[0]):
         z, c = _fit_resistance(obj, rows[i], [j[i : i + 1] for j in intrinsic])
@@ -431,7 +435,7 @@ def global_stage(
     scored.sort(key=lambda t: (t[0], t[1]))
     extra = _random_rows(obj, rows[scored[0][1]], random_starts, rng)
     if extra.shape[0]:
-        more = obj.problem.intrinsic_currents(obj.problem.deviations(extra))
+        more = obj.problem.intrinsic_currents(obj.problem.deviations(extra), cache=obj.kernel_cache)
         drawn = []
         for i in range(extra.shape[0]):
             z, c = _fit_resistance(obj, extra[i], [j[i : i + 1] for j in more])

@@ -43,6 +43,7 @@ from __future__ import annotations
 
 import itertools
 import math
+from collections import OrderedDict
 from dataclasses import dataclass, fields, replace
 from typing import Any, Literal, overload
 
@@ -54,10 +55,10 @@ from wellwright.optimize.study.growth import GrowthSettings, parse_growth, split
 from wellwright.physics import checks, materials
 from wellwright.physics.current import EnergyGrid
 from wellwright.physics.errors import InputError
-from wellwright.physics.iv import current_at_bias, locate_peak_valley
+from wellwright.physics.iv import band_profile, current_of_profile, locate_peak_valley
 from wellwright.physics.stack import LayerTable, ModelOptions, Stack, parse_stack
 
-__all__ = ["FitParameter", "Problem", "build_problem", "GROUPS", "MODEL_FIT"]
+__all__ = ["FitParameter", "Problem", "KernelCache", "build_problem", "GROUPS", "MODEL_FIT"]
 
 GROUPS = ("thickness", "rate", "x", "doping", "offset", "model", "resistance")
 #: Fittable model options: (unit, scale, lower, upper). Only those ModelOptions has are used.
@@ -330,16 +331,20 @@ class Problem:
 
     @overload
     def intrinsic_currents(
-        self, dev: np.ndarray, *, with_slopes: Literal[False] = False
+        self,
+        dev: np.ndarray,
+        *,
+        with_slopes: Literal[False] = False,
+        cache: KernelCache | None = None,
     ) -> list[np.ndarray]: ...
 
     @overload
     def intrinsic_currents(
-        self, dev: np.ndarray, *, with_slopes: Literal[True]
+        self, dev: np.ndarray, *, with_slopes: Literal[True], cache: KernelCache | None = None
     ) -> tuple[list[np.ndarray], list[np.ndarray]]: ...
 
     def intrinsic_currents(
-        self, dev: np.ndarray, *, with_slopes: bool = False
+        self, dev: np.ndarray, *, with_slopes: bool = False, cache: KernelCache | None = None
     ) -> list[np.ndarray] | tuple[list[np.ndarray], list[np.ndarray]]:
         """Island-averaged intrinsic curves per measurement, ``(m, 2, n)``: ``[:, 0]`` the
         intrinsic biases of each row, ``[:, 1]`` the currents there.
@@ -360,6 +365,9 @@ class Problem:
             Also return, per measurement, ``(m, k, n)`` derivatives with respect to the
             thickness of each island layer (monolayers) on the same biases, from the same
             corners.
+        cache
+            Corner stacks computed before (their currents and band profiles), used and
+            filled; None: every stack computed here.
         """
         dev = np.atleast_2d(dev)
         phys = np.array([p.kind != "resistance" for p in self.parameters])
@@ -385,7 +393,13 @@ class Problem:
                 )
                 model = self.model_options(sub[0], meas.temperature_k)
                 v, j = _distinct_currents(
-                    table, w.reshape(-1), grid_v, model=model, grid=self.grid, all_rows=with_slopes
+                    table,
+                    w.reshape(-1),
+                    grid_v,
+                    model=model,
+                    grid=self.grid,
+                    all_rows=with_slopes,
+                    cache=cache,
                 )
                 n_c = w.shape[1]
                 v = v.reshape(len(members), n_c, -1)
@@ -437,7 +451,11 @@ class Problem:
         return r
 
     def predict(
-        self, dev: np.ndarray, intrinsic: list[np.ndarray] | None = None
+        self,
+        dev: np.ndarray,
+        intrinsic: list[np.ndarray] | None = None,
+        *,
+        cache: KernelCache | None = None,
     ) -> list[np.ndarray]:
         """Model currents at the measured biases, ``(m, n_points)`` per measurement.
 
@@ -453,9 +471,11 @@ class Problem:
             Deviations from the nominal, ``(m, p)``.
         intrinsic
             Intrinsic curves of these rows (:meth:`intrinsic_currents`); None: computed.
+        cache
+            Stacks computed before (:class:`KernelCache`), for ``intrinsic`` None.
         """
         dev = np.atleast_2d(dev)
-        intrinsic = self.intrinsic_currents(dev) if intrinsic is None else intrinsic
+        intrinsic = self.intrinsic_currents(dev, cache=cache) if intrinsic is None else intrinsic
         out = []
         for meas, j in zip(self.measurements, intrinsic):
             r = self.resistance_ohm_um2(dev, meas)
@@ -479,6 +499,104 @@ ZERO_WEIGHT = 1e-9
 CLIFF_POINTS = 8
 
 
+class KernelCache:
+    """Corner stacks a calibration has computed: their currents, and their band profiles.
+
+    A fit evaluates the same whole-monolayer corner stacks again and again: the
+    base row of a Jacobian is the point the trust region just accepted, a local
+    fit in the next cell starts where the last one ended, the covariance steps
+    thicknesses within their cells. A stack's current does not depend on its
+    batch partners (each keeps its own slices: ``physics.bands.slice_grid``,
+    ``own_counts``), so a stack computed once is taken from here: its
+    intrinsic curve by its layers, model options, energy grid and biases; its
+    band profile (which depends on the electrostatics alone, not on the
+    transport settings) by its layers, electrostatics and biases, so that a
+    row that changes only the scattering channel (the roughness column of a
+    Jacobian) computes the transport step alone. Profiles are kept for the
+    last :data:`PROFILE_STACKS` stacks (the arrays are large); currents for all.
+    """
+
+    PROFILE_STACKS = 96
+
+    def __init__(self) -> None:
+        self.curves: dict[bytes, tuple[np.ndarray, np.ndarray]] = {}
+        self.profiles: OrderedDict[bytes, tuple[Any, int]] = OrderedDict()
+        self.computed = 0  #: stacks whose intrinsic curve was computed here
+        self.reused_profiles = 0  #: of those, stacks whose band profiles were reused
+
+    def profile_of(self, key: bytes) -> tuple[Any, int] | None:
+        found = self.profiles.get(key)
+        if found is not None:
+            self.profiles.move_to_end(key)
+        return found
+
+    def keep_profiles(self, keys: list[bytes], profile: Any) -> None:
+        for i, key in enumerate(keys):
+            self.profiles[key] = (profile, i)
+            self.profiles.move_to_end(key)
+        while len(self.profiles) > self.PROFILE_STACKS:
+            self.profiles.popitem(last=False)
+
+
+def _row_keys(table: LayerTable) -> np.ndarray:
+    """``(n_stacks, n_values)`` every layer value of each stack (equal rows: equal stacks)."""
+    arrays = [v for v in table.__dict__.values() if v is not None]
+    return np.nan_to_num(
+        np.concatenate([np.asarray(a, float).reshape(table.n_stacks, -1) for a in arrays], axis=1),
+        nan=-1.0,
+    )
+
+
+def _currents(
+    table: LayerTable,
+    bias_v: np.ndarray,
+    keys: np.ndarray,
+    *,
+    model: ModelOptions,
+    grid: EnergyGrid,
+    cache: KernelCache | None,
+) -> np.ndarray:
+    """``current_at_bias`` of ``table`` at ``bias_v`` (``(n_biases,)`` shared or
+    ``(n_stacks, n_biases)``), band profiles reused from ``cache`` where it has them
+    (stacks identified by the rows of ``keys``)."""
+    if cache is None:
+        return current_of_profile(
+            band_profile(table, bias_v, model=model), table, bias_v=bias_v, model=model, grid=grid
+        )
+    shared = bias_v.ndim == 1
+    per_row = np.broadcast_to(bias_v, (table.n_stacks, bias_v.shape[-1]))
+    electro = f"{model.electrostatics}|{model.slice_nm!r}|".encode()
+    pkeys = [electro + keys[i].tobytes() + per_row[i].tobytes() for i in range(table.n_stacks)]
+    out = np.empty(per_row.shape)
+    by_batch: dict[int, tuple[Any, list[int], list[int]]] = {}
+    new: list[int] = []
+    for i, key in enumerate(pkeys):
+        found = cache.profile_of(key)
+        if found is None:
+            new.append(i)
+        else:
+            batch = by_batch.setdefault(id(found[0]), (found[0], [], []))
+            batch[1].append(i)
+            batch[2].append(found[1])
+    for profile, rows, at in by_batch.values():
+        sub = table.take(np.array(rows))
+        out[rows] = current_of_profile(
+            profile.take(np.array(at)),
+            sub,
+            bias_v=bias_v if shared else bias_v[rows],
+            model=model,
+            grid=grid,
+        )
+        cache.reused_profiles += len(rows)
+    if new:
+        sub = table.take(np.array(new))
+        bias = bias_v if shared else bias_v[new]
+        profile = band_profile(sub, bias, model=model)
+        cache.keep_profiles([pkeys[i] for i in new], profile)
+        out[new] = current_of_profile(profile, sub, bias_v=bias, model=model, grid=grid)
+    return out
+
+
 def _distinct_currents(
     table: LayerTable,
     weights: np.ndarray,
@@ -487,6 +605,7 @@ def _distinct_currents(
     model: ModelOptions,
     grid: EnergyGrid,
     all_rows: bool,
+    cache: KernelCache | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Biases and currents ``(n_stacks, n + CLIFF_POINTS)`` of the rows of ``table``: the
     uniform ``bias_v`` (increasing, one side of zero or spanning it), then
@@ -499,39 +618,59 @@ def _distinct_currents(
     neighbouring whole-monolayer combinations coincide) share one kernel
     computation: a stack's current does not depend on its batch partners.
     The 27 whole-monolayer combinations of three layers need 27 stacks
-    instead of 216.
+    instead of 216. Stacks in ``cache`` (:class:`KernelCache`) are not
+    computed again; those computed here are added to it.
     """
     need = np.ones(weights.size, bool) if all_rows else weights >= ZERO_WEIGHT
     idx = np.nonzero(need)[0]
-    arrays = [v for v in table.__dict__.values() if v is not None]
-    key = np.nan_to_num(
-        np.concatenate([np.asarray(a, float).reshape(table.n_stacks, -1) for a in arrays], axis=1),
-        nan=-1.0,
-    )
+    key = _row_keys(table)
     _, first, inverse = np.unique(key[idx], axis=0, return_index=True, return_inverse=True)
     distinct = table.take(idx[first])
-    j = current_at_bias(distinct, bias_v, model=model, grid=grid)
-    # the side the sweep goes: a measurement is one polarity away from zero
+    n_d = distinct.n_stacks
+    v_all = np.empty((n_d, bias_v.size + CLIFF_POINTS))
+    j_all = np.empty_like(v_all)
+    tag = f"{model!r}|{grid!r}|".encode() + bias_v.tobytes()
+    skeys = [tag + key[idx[f]].tobytes() for f in first]
+    todo = []
+    for d, skey in enumerate(skeys):
+        hit = None if cache is None else cache.curves.get(skey)
+        if hit is None:
+            todo.append(d)
+        else:
+            v_all[d], j_all[d] = hit
+    if todo:
+        rows = distinct.take(np.array(todo))
+        rkeys = key[idx[first[todo]]]
+        j = _currents(rows, bias_v, rkeys, model=model, grid=grid, cache=cache)
+        # the side the sweep goes: a measurement is one polarity away from zero
+        sign = 1.0 if abs(bias_v[-1]) >= abs(bias_v[0]) else -1.0
+        order = np.argsort(sign * bias_v)
+        v_side, j_side = sign * bias_v[order], sign * j[:, order]
+        keep = v_side >= 0
+        v_side, j_side = v_side[keep], j_side[:, keep]
+        peak, _ = locate_peak_valley(v_side, np.abs(j_side))
+        start = np.where(peak >= 0, peak, v_side.size - 2)
+        h = np.diff(v_side)[start]
+        frac = np.arange(1, CLIFF_POINTS + 1) / (CLIFF_POINTS + 1)
+        cliff = sign * (v_side[start, None] + h[:, None] * frac[None, :])
+        j_cliff = _currents(rows, cliff, rkeys, model=model, grid=grid, cache=cache)
+        v_all[todo, : bias_v.size] = bias_v
+        v_all[todo, bias_v.size :] = cliff
+        j_all[todo, : bias_v.size] = j
+        j_all[todo, bias_v.size :] = j_cliff
+        if cache is not None:
+            cache.computed += len(todo)
+            for d in todo:
+                cache.curves[skeys[d]] = (v_all[d].copy(), j_all[d].copy())
     sign = 1.0 if abs(bias_v[-1]) >= abs(bias_v[0]) else -1.0
-    order = np.argsort(sign * bias_v)
-    v_side, j_side = sign * bias_v[order], sign * j[:, order]
-    keep = v_side >= 0
-    v_side, j_side = v_side[keep], j_side[:, keep]
-    peak, _ = locate_peak_valley(v_side, np.abs(j_side))
-    start = np.where(peak >= 0, peak, v_side.size - 2)
-    h = np.diff(v_side)[start]
-    frac = np.arange(1, CLIFF_POINTS + 1) / (CLIFF_POINTS + 1)
-    cliff = sign * (v_side[start, None] + h[:, None] * frac[None, :])
-    j_cliff = current_at_bias(distinct, cliff, model=model, grid=grid)
     inv = np.asarray(inverse).reshape(-1)
     v_out = np.zeros((table.n_stacks, bias_v.size + CLIFF_POINTS))
     j_out = np.zeros_like(v_out)
     v_out[:, : bias_v.size] = bias_v
     # a skipped row (weight 0) repeats the sweep's far end: no new bias for its row's union
     v_out[:, bias_v.size :] = bias_v[-1] if sign > 0 else bias_v[0]
-    v_out[idx, bias_v.size :] = cliff[inv]
-    j_out[idx, : bias_v.size] = j[inv]
-    j_out[idx, bias_v.size :] = j_cliff[inv]
+    v_out[idx] = v_all[inv]
+    j_out[idx] = j_all[inv]
     return v_out, j_out
 
 
