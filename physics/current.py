@@ -102,12 +102,15 @@ MAX_MEAN_SPACING_EV = 0.025
 #: stake 1.0 %).
 HIDDEN_LINE_TOLERANCE = 5e-3
 #: A line narrower than this is not integrated reliably: T(E) in double precision is not
-#: smooth on its scale (about 50 rounding units of a 1 eV band offset; measured: a
-#: 1e-15 eV line through 6-8 nm AlSb barriers, its integral changing by 1-5 % with the
-#: rule's nodes and the refinement rounds). Where such lines carry more than
+#: smooth on its scale (measured: a 1e-15 eV line through 6-8 nm AlSb barriers, its
+#: integral changing by 1-5 % with the rule's nodes and the refinement rounds; lines of
+#: 2e-14 to 5e-14 eV through 6-9 nm AlSb, their widths changing by up to 25 % and the
+#: stack's current by 0.15-0.5 % with the rounding of T, e.g. the padding slices a batch
+#: gives it; a stack alone against in a batch of 240 random ones: 3e-5 with 5e-14 eV lines,
+#: 1e-6 with 6e-13 eV, 2e-7 with 1e-12 eV). Where such lines carry more than
 #: REFINE_TOLERANCE of a stack's largest current, a :class:`GridAccuracyWarning` at once
 #: (a finer coarse grid does not help; it may lose the line: measured 59 % off).
-LINE_WIDTH_FLOOR_EV = 1e-14
+LINE_WIDTH_FLOOR_EV = 1e-13
 #: Neighbouring nodes of a line's rule whose ``T S`` differ by more than this factor ...
 STEEP_RATIO = 4.0
 #: ... carrying more than this share of a stack's largest current refine the stack, with

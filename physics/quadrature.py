@@ -49,7 +49,10 @@ def sinh_gauss_legendre(center_ev, *, width_ev, low_ev, high_ev, n: int):
 
     Three Gauss-Legendre panels in ``s``: the core ``|E - E_r| <= CORE_WIDTHS W``
     (``n - 2 m`` nodes, ``m = 3n // 10``) and the two tails beyond it (``m`` nodes
-    each; a tail outside ``[low, high]`` gets zero weights). One panel over the
+    each). Where ``[low, high]`` ends inside the core, that tail is the core's outer
+    ``m / n`` instead (so every node is used: measured, a 35 meV line broader than kT
+    whose interval lay within its core had 16 of its 40 nodes and missed a shoulder of
+    ``T S`` by 1 % of the stack's current; 0.1 % with all 40). One panel over the
     whole interval loses the line once ``[low, high]`` is many decades wider than
     ``W`` (measured on a Lorentzian: 32 nodes, interval 1e6 widths: -0.5 %; 1e10:
     -5 %); with the panels, a Lorentzian times a Fermi step over 1e10 widths:
@@ -72,8 +75,12 @@ def sinh_gauss_legendre(center_ev, *, width_ev, low_ev, high_ev, n: int):
     s_a = np.arcsinh((low - center) / half)
     s_b = np.arcsinh((high - center) / half)
     cut = np.arcsinh(2.0 * CORE_WIDTHS)
-    s_lo, s_hi = np.clip(s_a, -cut, cut), np.clip(s_b, -cut, cut)
     m = (3 * n) // 10
+    # a tail inside the core takes the core's outer share of nodes instead of none (an
+    # interval within the core had only its n - 2 m nodes)
+    core_lo, core_hi = np.maximum(s_a, -cut), np.minimum(s_b, cut)
+    s_lo = np.clip(np.maximum(-cut, s_a + (m / n) * (core_hi - s_a)), s_a, s_b)
+    s_hi = np.clip(np.minimum(cut, s_b - (m / n) * (s_b - core_lo)), s_lo, s_b)
     parts = [
         _panel(s_a, s_lo, m, center, half),
         _panel(s_lo, s_hi, n - 2 * m, center, half),

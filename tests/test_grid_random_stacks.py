@@ -167,20 +167,23 @@ def _assert_rare(stacks, bias, j, ref, error, *, share: float, worst: float) -> 
 
 
 def test_default_grid_against_brute_force_over_random_stacks() -> None:
-    # Statistical: the issue asks for no stack beyond 0.5 %; measured on this draw, 2 of
-    # 240 (0.8 %): 1.0 % on a 3e-4 A/cm^2 current through 6-7 nm AlAs barriers at 1.7 V,
-    # 0.75 % on 3e-12 A/cm^2 through 6-9 nm AlSb; before the fixes of issue 18, about 10 %
-    # of stacks, 2.5 % beyond 5 %.
-    _assert_rare(*grid_errors(240, 9, 2026), share=0.01, worst=0.02)
+    # Statistical: the issue asks for no stack beyond 0.5 % but those that warn; measured
+    # on this draw, 1 of 240: 0.75 % on 3e-12 A/cm^2 through 6-9 nm AlSb, carried by lines
+    # of 2e-14 eV (it warns, see the batch-partner test below). Before the tails of a line's
+    # rule took nodes inside its core (physics.quadrature), also 1.0 % on a 3e-4 A/cm^2
+    # current through 6-7 nm AlAs barriers at 1.7 V (silent); before the fixes of issue 18,
+    # about 10 % of stacks, 2.5 % beyond 5 %.
+    _assert_rare(*grid_errors(240, 9, 2026), share=0.005, worst=0.01)
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6, 7, 8])
 def test_long_scan_against_brute_force(seed: int) -> None:
     # Statistical, 2400 stacks at 13 biases: measured 0-1 stacks of 300 per draw beyond
-    # 0.5 % (2 of 2400): 0.8 % (1.6e-13 A/cm^2 at 12 K) and 4.5 % (a 1e-15 eV InAs/AlSb
-    # line lost in this batch, found when the stack is alone); before the checks for
-    # crowded, hidden and steep lines, 14 of 2400, up to 12 % (with the corrected reference).
+    # 0.5 % (2 of 2400, both InAs/AlSb carried by lines narrower than 1e-13 eV, both
+    # warned): 1.7 % (1.6e-13 A/cm^2 at 12 K) and 2.2 % (a 1e-15 eV line); before the
+    # checks for crowded, hidden and steep lines, 14 of 2400, up to 12 % (with the
+    # corrected reference).
     _assert_rare(*grid_errors(300, 13, 100 + seed), share=0.01, worst=0.06)
 
 
@@ -212,9 +215,9 @@ def test_stacks_beyond_the_tolerance_raise_the_grid_warning() -> None:
     # Statistical (seeded draw, 160 stacks, one I-V per call so a warning belongs to its
     # stack): a stack beyond 0.5 % of its largest current is either fixed or warned of.
     # Measured on this draw: none silent; 1 warned (a 1e-15 eV line through 6-8 nm AlSb,
-    # 1.6 % off). Not met everywhere: the draw of the test above has one silent stack
-    # (1.0 %: InGaAs/AlAs at 1.68 V, a line broader than kT on a steep background, its rule
-    # 2 % off with T S smooth on the rule's nodes; see DEVELOPERS.md).
+    # 1.6 % off). The draw of the scan above had one silent stack (1.0 %: InGaAs/AlAs at
+    # 1.68 V, a 35 meV line whose interval lay within its rule's core panel, so 16 of its
+    # 40 nodes were used); it is 0.1 % since the tails take nodes inside the core.
     silent, n_warned = silent_errors(160, 9, 2027)
     assert not silent, f"beyond 0.5 % without a GridAccuracyWarning: {silent}"
     assert n_warned <= 0.05 * 160, f"{n_warned} of 160 stacks warned: too many false alarms"
@@ -224,7 +227,8 @@ def test_stacks_beyond_the_tolerance_raise_the_grid_warning() -> None:
 @pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6, 7, 8])
 def test_long_scan_stacks_beyond_the_tolerance_raise_the_grid_warning(seed: int) -> None:
     # Statistical, 2400 stacks at 13 biases, one I-V per call: measured none silent, 2 of
-    # 2400 beyond 0.5 % (both warned), 0-2 warnings per 300 stacks (6 of 2400). Before the
+    # 2400 beyond 0.5 % (both warned), 0-2 warnings per 300 stacks (passes with the line
+    # width floor raised to 1e-13 eV; the warnings were not counted again). Before the
     # check of steep lines, 2 silent (0.9 and 1.6 %, lines broader than kT on a steep
     # background at a high bias).
     silent, n_warned = silent_errors(300, 13, 100 + seed)
@@ -251,3 +255,29 @@ def test_cli_prints_the_grid_warning_as_one_line(monkeypatch, tmp_path, capsys) 
     lines = [x for x in capsys.readouterr().err.splitlines() if "energy grid" in x]
     assert lines
     assert all(x.startswith("wellwright iv: warning: the energy grid") for x in lines)
+
+
+def test_a_stack_current_does_not_depend_on_its_batch_partners() -> None:
+    # Statistical (seeded draw, the 240 stacks of the batch scan above): each stack's I-V
+    # computed alone against in the batch of all 240, where it gets padding slices and
+    # shares the compiled kernel's lanes with others. Within 0.1 % of its largest current
+    # (a fifth of the grid's tolerance), or the stack warned alone (lines narrower than
+    # LINE_WIDTH_FLOOR_EV, whose T is rounding-sensitive). Measured on this draw: 4e-7 at
+    # most beside lines of 6e-13 eV and wider; 9e-6 and 1e-2 beside 4.7e-14 and 1.7e-14 eV
+    # lines (the second warns; with the former floor of 1e-14 eV it did not, and this
+    # test failed).
+    stacks, table, bias = random_case(240, 9, 2026)
+    model = ModelOptions(electrostatics="linear", transport="coherent")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", GridAccuracyWarning)
+        batched = current_at_bias(table, bias, model=model)
+    apart = []
+    for i, s in enumerate(stacks):
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", GridAccuracyWarning)
+            alone = current_at_bias(LayerTable.from_stacks([s]), bias[i : i + 1], model=model)
+        warned = any(issubclass(w.category, GridAccuracyWarning) for w in caught)
+        diff = np.abs(alone[0] - batched[i]).max() / max(np.abs(alone).max(), 1e-300)
+        if diff > 0.2 * TOLERANCE and not warned:
+            apart.append(f"stack {i} ({s.layers[0].material}/{s.layers[2].material}): {diff:.1e}")
+    assert not apart, apart
