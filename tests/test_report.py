@@ -374,3 +374,22 @@ def test_candidates_count_distinct_designs_not_copies():
         {"params": {"a": 6.0, "b": float("nan")}, "feasible": False},
     ]
     assert _distinct_designs(points) == (3, 1)
+
+
+def test_failure_bars_sit_by_their_design_label():
+    # Only the causes some design has get a slot, centred on the design's label (before, one
+    # cause among five sat 0.32 below its label, the empty causes' slots pushing it down).
+    from wellwright.optimize.report.figures import yield_figure
+
+    causes = ["peak_current_density_a_cm2", "peak_voltage_v", "pvcr", "no_ndr", "solve_failed"]
+    record = {
+        "design": {"rank": 1},
+        "yield": {"value": 0.6, "ci_low": 0.5, "ci_high": 0.7, "passed": 38, "samples": 64},
+        "failures": {k: 26 if k == causes[0] else 0 for k in causes},
+    }
+    fig = yield_figure([record])
+    bars = [p for p in fig.axes[1].patches if p.get_width() > 0]
+    assert len(bars) == 1
+    centre = bars[0].get_y() + 0.5 * bars[0].get_height()
+    assert centre == pytest.approx(0.0, abs=1e-9)  # the label's tick is at 0
+    assert bars[0].get_width() == pytest.approx(100 * 26 / 64)

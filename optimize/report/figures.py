@@ -55,30 +55,36 @@ def yield_figure(records: list[dict[str, Any]]) -> Figure:
     ax.set_xlim(0, 105)
     ax.set_xlabel("yield against the spec (%)")
     ax.set_title("yield under growth spreads")
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=2, fontsize=8)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.3), ncol=2, fontsize=8)
 
-    keys = [k for k in records[0]["failures"]]
+    every = list(records[0]["failures"])  # a cause keeps its colour whichever others occur
+    keys = [k for k in every if any(r["failures"].get(k, 0) for r in records)]
     colors = [
         PALETTE[c]
         for c in ("vermillion", "orange", "sky", "green", "purple", "yellow", "blue", "black")
     ]
-    width = 0.8 / max(1, len(keys))
+    # slots for the causes that occur only, centred on their design's label
+    width = min(0.55, 0.8 / max(1, len(keys)))
     for j, k in enumerate(keys):
         share = [100 * r["failures"].get(k, 0) / max(1, r["yield"]["samples"]) for r in records][
             ::-1
         ]
         bx.barh(
-            ypos - 0.4 + (j + 0.5) * width,
+            ypos + (j + 0.5 - 0.5 * len(keys)) * width,
             share,
             width,
-            color=colors[j % len(colors)],
+            color=colors[every.index(k) % len(colors)],
             label=names.words(k),
         )
+    if not keys:
+        bx.text(50, (n - 1) / 2, "no sample failed", ha="center", va="center")
     bx.set_yticks(ypos, labels)
+    bx.set_ylim(ax.get_ylim())
     bx.set_xlim(0, 100)
     bx.set_xlabel("samples missing this spec (%)")
     bx.set_title("why samples fail")
-    bx.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=3, fontsize=8)
+    if keys:
+        bx.legend(loc="upper center", bbox_to_anchor=(0.5, -0.3), ncol=3, fontsize=8)
     fig.tight_layout()
     return fig
 
