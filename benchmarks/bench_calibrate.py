@@ -33,7 +33,6 @@ import argparse
 import copy
 import json
 import os
-import subprocess
 import sys
 import tempfile
 import time
@@ -43,6 +42,7 @@ os.environ.setdefault("OMP_NUM_THREADS", "1")
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
+from timing import TreeWorker, before_after_trees  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 STUDIES = REPO / "studies"
@@ -150,67 +150,10 @@ def worker(tree: str) -> None:
         print(json.dumps(fit_once(alone=line.strip() == "alone")), flush=True)
 
 
-def _symlink_tree(repo: Path, into: Path) -> Path:
-    """A folder where ``import wellwright`` finds ``repo``'s physics/ and optimize/."""
-    (into / "wellwright").mkdir(parents=True)
-    for part in ("physics", "optimize"):
-        (into / "wellwright" / part).symlink_to(repo / part)
-    return into
-
-
-def _baseline_repo(ref: str, into: Path) -> Path:
-    """Commit ``ref`` unpacked into ``into`` with its compiled kernel built in place."""
-    archive = subprocess.run(
-        ["git", "-C", str(REPO), "archive", ref], check=True, capture_output=True
-    ).stdout
-    into.mkdir(parents=True)
-    subprocess.run(["tar", "-x", "-C", str(into)], input=archive, check=True)
-    subprocess.run(
-        [sys.executable, "setup.py", "-q", "build_ext", "--inplace"],
-        cwd=into,
-        check=True,
-        capture_output=True,
-    )
-    if not list((into / "physics").glob("_slices*.so")):
-        raise SystemExit(f"the compiled kernel of {ref} did not build")
-    return into
-
-
-class _Worker:
-    def __init__(self, tree: Path) -> None:
-        env = dict(os.environ, PYTHONPATH=str(tree))
-        self.proc = subprocess.Popen(
-            [sys.executable, __file__, "--worker", str(tree)],
-            stdin=subprocess.PIPE,
-            stdout=subprocess.PIPE,
-            text=True,
-            env=env,
-            cwd=tempfile.gettempdir(),  # never the repository: import the tree's code
-        )
-        assert self.proc.stdout is not None
-        loaded = json.loads(self.proc.stdout.readline())
-        if Path(loaded) != (tree / "wellwright" / "physics").resolve():
-            raise SystemExit(f"worker for {tree} imported {loaded}")
-
-    def fit(self, variant: str = "plain") -> dict:
-        assert self.proc.stdin is not None and self.proc.stdout is not None
-        self.proc.stdin.write(variant + "\n")
-        self.proc.stdin.flush()
-        return json.loads(self.proc.stdout.readline())
-
-    def close(self) -> None:
-        if self.proc.stdin:
-            self.proc.stdin.close()
-        self.proc.wait()
-
-
 def before_after(ref: str, repeats: int, alone: bool) -> None:
     with tempfile.TemporaryDirectory() as tmp:
-        base = _baseline_repo(ref, Path(tmp) / "repo")
-        workers = {
-            "before": _Worker(_symlink_tree(base, Path(tmp) / "before")),
-            "after": _Worker(_symlink_tree(REPO, Path(tmp) / "after")),
-        }
+        trees = before_after_trees(ref, Path(tmp), REPO)
+        workers = {side: TreeWorker(__file__, tree) for side, tree in trees.items()}
         runs: dict[str, list[dict]] = {"before": [], "after": []}
         if alone:
             runs["before, one stack per kernel call"] = []
@@ -219,7 +162,7 @@ def before_after(ref: str, repeats: int, alone: bool) -> None:
             for _ in range(repeats):
                 for label in runs:
                     side = "before" if label.startswith("before") else "after"
-                    out = workers[side].fit("alone" if label != side else "plain")
+                    out = workers[side].ask("alone" if label != side else "plain")
                     runs[label].append(out)
                     _print_fit(label, out)
         finally:

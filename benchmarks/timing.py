@@ -2,7 +2,13 @@
 
 from __future__ import annotations
 
+import json
+import os
+import subprocess
+import sys
+import tempfile
 import time
+from pathlib import Path
 
 import numpy as np
 
@@ -54,3 +60,62 @@ class KernelClock:
 
     def __exit__(self, *exc) -> None:
         self._module._slices = self._inner
+
+
+def before_after_trees(ref: str, tmp: Path, repo: Path) -> dict[str, Path]:
+    """Folders under ``tmp`` where ``import wellwright`` finds the code of commit ``ref``
+    (``"before"``, unpacked with its compiled kernel built in place) and of ``repo`` as it
+    is (``"after"``)."""
+    archive = subprocess.run(
+        ["git", "-C", str(repo), "archive", ref], check=True, capture_output=True
+    ).stdout
+    base = tmp / "repo"
+    base.mkdir(parents=True)
+    subprocess.run(["tar", "-x", "-C", str(base)], input=archive, check=True)
+    subprocess.run(
+        [sys.executable, "setup.py", "-q", "build_ext", "--inplace"],
+        cwd=base,
+        check=True,
+        capture_output=True,
+    )
+    if not list((base / "physics").glob("_slices*.so")):
+        raise SystemExit(f"the compiled kernel of {ref} did not build")
+    trees = {}
+    for side, source in (("before", base), ("after", repo)):
+        (tmp / side / "wellwright").mkdir(parents=True)
+        for part in ("physics", "optimize"):
+            (tmp / side / "wellwright" / part).symlink_to(source / part)
+        trees[side] = tmp / side
+    return trees
+
+
+class TreeWorker:
+    """A benchmark script run as ``script --worker TREE`` in its own process, importing
+    ``wellwright`` from ``tree`` (checked): one request line in, one JSON line out."""
+
+    def __init__(self, script: str, tree: Path) -> None:
+        env = dict(os.environ, PYTHONPATH=str(tree))
+        self.proc = subprocess.Popen(
+            [sys.executable, script, "--worker", str(tree)],
+            stdin=subprocess.PIPE,
+            stdout=subprocess.PIPE,
+            text=True,
+            env=env,
+            cwd=tempfile.gettempdir(),  # never the repository: import the tree's code
+        )
+        assert self.proc.stdout is not None
+        loaded = json.loads(self.proc.stdout.readline())
+        if Path(loaded) != (tree / "wellwright" / "physics").resolve():
+            raise SystemExit(f"worker for {tree} imported {loaded}")
+
+    def ask(self, request: str):
+        """The worker's answer to one request line (decoded JSON)."""
+        assert self.proc.stdin is not None and self.proc.stdout is not None
+        self.proc.stdin.write(request + "\n")
+        self.proc.stdin.flush()
+        return json.loads(self.proc.stdout.readline())
+
+    def close(self) -> None:
+        if self.proc.stdin:
+            self.proc.stdin.close()
+        self.proc.wait()
