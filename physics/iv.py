@@ -592,7 +592,12 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
         )[:, 0]
         return s_, np.where(left, np.nan, j)
 
-    state, j_hi = continued(v_after, sol)
+    try:
+        state, j_hi = continued(v_after, sol)
+    except ElectrostaticsConvergenceError:
+        if vp.size == 1:
+            raise
+        return _up_branch_each(table, model, grid, vp, v_after, j_after, v_end, peak=peak)
     bistable = j_hi > (1.0 + BISTABLE_EXCESS) * j_after
     best_v, best_j = np.where(bistable, v_after, vp), np.where(bistable, j_hi, -np.inf)
     v_hi, step = v_after.copy(), np.maximum(v_after - vp, FOLD_FIRST_STEP_V)
@@ -604,6 +609,8 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
         try:
             trial, j_try = continued(v_try, state, need=active)
         except ElectrostaticsConvergenceError:
+            if vp.size > 1:  # one stack's failure must not end its partners' branches
+                return _up_branch_each(table, model, grid, vp, v_after, j_after, v_end, peak=peak)
             break  # keep the branch found so far
         hold = active & (j_try >= (1.0 - NDR_DROP) * j_hi)  # still on the charged branch
         state = replace(
@@ -618,6 +625,26 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
         step = np.where(hold, 2.0 * step, 0.5 * step)
         active &= ~(fell & (step < FOLD_TOLERANCE_V)) & ~(hold & (v_try >= v_end))
     return best_v, best_j, np.where(bistable, v_hi - vp, 0.0)
+
+
+def _up_branch_each(table, model, grid, vp, v_after, j_after, v_end, *, peak):
+    """:func:`_up_branch` of each stack alone, once a solve of the batch failed to converge:
+    each stack's branch is then the one it has alone, whatever its partners do."""
+    center_nm, solution = peak
+    alone = [
+        _up_branch(
+            table.take([i]),
+            model,
+            grid,
+            vp[[i]],
+            v_after[[i]],
+            j_after[[i]],
+            v_end[[i]],
+            peak=(center_nm[[i]], _take_solution(solution, [i])),
+        )
+        for i in range(vp.size)
+    ]
+    return tuple(np.concatenate(parts) for parts in zip(*alone, strict=True))
 
 
 def _extend_valleys(devices, model, grid, v_side, j_side, ip, need, sign):
