@@ -128,15 +128,31 @@ def _fermi_dirac_half_and_slope(eta):
 
 
 #: The tabulated ``ln F_1/2`` of :func:`fermi_dirac_half_tabulated`: range and step of eta.
-_ETA_LO, _ETA_HI, _ETA_STEP = -30.0, 120.0, 0.01
+_ETA_LO, _ETA_HI, _ETA_STEP = -30.0, 120.0, 0.02
 _TABLE: dict[str, np.ndarray] = {}
+
+
+def _hermite_table() -> np.ndarray:
+    """Cubic Hermite coefficients of ``ln F_1/2`` per cell of the table ``(n_cells, 4)``,
+    highest power first, from the quadrature's values and slopes at the cells' ends."""
+    h = _ETA_STEP
+    grid = np.arange(_ETA_LO, _ETA_HI + 0.5 * h, h)
+    f, df = _fermi_dirac_half_and_slope(grid)
+    y, s = np.log(f), df / f  # ln F and its slope F_-1/2 / F_1/2
+    m = np.diff(y) / h
+    cubic = (s[:-1] + s[1:] - 2.0 * m) / h**2
+    square = (3.0 * m - 2.0 * s[:-1] - s[1:]) / h
+    return np.ascontiguousarray(np.stack([cubic, square, s[:-1], y[:-1]], axis=1))
 
 
 def fermi_dirac_half_tabulated(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """F_1/2(eta) and its derivative dF_1/2/d eta = F_-1/2(eta), fast, for Newton iterations.
 
-    ``ln F_1/2`` is tabulated once with :func:`fermi_dirac_half` on ``[-30, 120]``
-    (step 0.01) and interpolated by a cubic spline (relative error about 1e-9);
+    ``ln F_1/2`` is tabulated once with the quadrature of :func:`fermi_dirac_half`, values
+    and slopes, on ``[-30, 120]`` (step 0.02) and interpolated by the cubic Hermite
+    polynomial of each cell (relative error 2e-11 in ``F_1/2``, 4e-9 in its derivative,
+    measured on 2e5 random eta; the not-a-knot spline of step 0.01 it replaces, 5e-12 and
+    5e-10, took scipy's import and twice the quadrature's nodes at a command's start);
     below ``-30`` the nondegenerate limit ``F_1/2 = exp(eta)`` is used (relative
     error ``exp(eta) / 2^1.5`` < 1e-13, [1]_); above 120 the degenerate limit
     ``(4 / (3 sqrt(pi))) eta^1.5`` (relative error ~1e-4, [1]_).
@@ -153,12 +169,8 @@ def fermi_dirac_half_tabulated(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     """
     coef = _TABLE.get("coef")
     if coef is None:
-        from scipy.interpolate import CubicSpline
-
-        grid = np.arange(_ETA_LO, _ETA_HI + 0.5 * _ETA_STEP, _ETA_STEP)
-        spline = CubicSpline(grid, np.log(fermi_dirac_half(grid)))
-        coef = _TABLE["coef"] = np.ascontiguousarray(spline.c.T)  # (n_cells, 4), cubic first
-    # the spline evaluated directly on its uniform cells (scipy's generic search is slower)
+        coef = _TABLE["coef"] = _hermite_table()
+    # the cubic evaluated directly on its uniform cells
     e = np.clip(eta, _ETA_LO, _ETA_HI)
     cell = np.minimum(((e - _ETA_LO) / _ETA_STEP).astype(np.intp), coef.shape[0] - 1)
     dx = e - (_ETA_LO + cell * _ETA_STEP)
