@@ -654,7 +654,7 @@ def _extend_valleys(devices, model, grid, v_side, j_side, ip, need, sign):
     batched call (only the stacks still open), until the current rises again after
     its lowest point, or :data:`VALLEY_EXTENSION_FACTOR` times the end bias
     (magnitudes; ``sign`` -1 for the reverse branch). A self-consistent solve that
-    fails beyond the end stops the extension of that call's stacks.
+    fails beyond the end stops the extension of the stacks that fail alone too.
 
     Returns the extension's bias magnitudes ``(m,)``, their currents ``(n, m)``
     (magnitudes on the branch, NaN where not computed), the valley index on the
@@ -678,7 +678,12 @@ def _extend_valleys(devices, model, grid, v_side, j_side, ip, need, sign):
         try:
             j = devices.take(rows).current(sign * v_ext[chunk], model, grid)
         except ElectrostaticsConvergenceError:
-            break  # these stay bounded by the last point computed
+            # one stack's failure must not end its partners' extension: each alone; those
+            # that fail alone too stay bounded by the last point computed
+            j = _currents_each(devices.take(rows), sign * v_ext[chunk], model, grid)
+            failed = np.isnan(j).any(axis=1)
+            open_[rows[failed]] = False
+            rows, j = rows[~failed], j[~failed]
         j_ext[rows, chunk] = sign * j
         done = chunk.stop
         for s in rows:  # per stack: where the extended curve's valley is, not physics
@@ -694,6 +699,20 @@ def _extend_valleys(devices, model, grid, v_side, j_side, ip, need, sign):
         last = v_side.size + int(np.count_nonzero(np.isfinite(j_ext[s]))) - 1
         valley[s] = last
     return v_ext, j_ext, valley, bounded
+
+
+def _currents_each(devices, bias_v, model, grid) -> np.ndarray:
+    """:meth:`_Devices.current` of each device alone, ``(n_devices, n_biases)``; a row of NaN
+    where the self-consistent solve fails for that device alone too."""
+    from .electrostatics import ElectrostaticsConvergenceError
+
+    out = np.full((devices.n, np.size(bias_v)), np.nan)
+    for i in range(devices.n):
+        try:
+            out[i] = devices.take([i]).current(bias_v, model, grid)[0]
+        except ElectrostaticsConvergenceError:
+            pass
+    return out
 
 
 def _at_bias_metrics(devices, at_bias_v, area_um2, model, grid) -> dict[str, np.ndarray]:
