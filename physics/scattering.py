@@ -251,13 +251,15 @@ def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geomet
 
 
 def _i0e(x):
-    """``exp(-x) I0(x)`` for ``x >= 0`` (numpy's ``i0``, Cephes' Chebyshev expansions; the
-    asymptotic ``1 / sqrt(2 pi x)`` beyond 700, where ``I0`` overflows); equal to
-    ``scipy.special.i0e`` to 4e-16 over 0-700 (checked), without scipy's import at a
-    command's start."""
+    """``exp(-x) I0(x)`` for ``x >= 0`` (numpy's ``i0``, Cephes' Chebyshev expansions; beyond
+    700, where ``I0`` overflows, its asymptotic series to ``x^-2``, DLMF 10.40.1); equal to
+    ``scipy.special.i0e`` to 4e-16 over 0-700 and 3e-10 beyond (checked), without scipy's
+    import at a command's start."""
     x = np.asarray(x, float)
-    safe = np.minimum(x, 700.0)
-    return np.where(x < 700.0, np.exp(-safe) * np.i0(safe), 1.0 / np.sqrt(2.0 * np.pi * x))
+    inside = np.minimum(x, 700.0)
+    big = np.maximum(x, 700.0)
+    beyond = (1.0 + 1.0 / (8.0 * big) + 9.0 / (128.0 * big**2)) / np.sqrt(2.0 * np.pi * big)
+    return np.where(x < 700.0, np.exp(-inside) * np.i0(inside), beyond)
 
 
 def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, kt_ev, params):
