@@ -491,18 +491,16 @@ def _keep_best(kept, solves, idx, better, top):
 def _kept_solution(table, kept, model):
     """The peak's solve (grid, solution) of ``table``'s stacks from the refinement's kept
     solves (one per stack, each carried to this table's slice grid by position)."""
-    from .electrostatics import PoissonSolution, extended_slice_grid
+    from .electrostatics import PoissonSolution, extended_slice_grid, potential_on_grid
 
     g = extended_slice_grid(table, slice_nm=model.slice_nm)
     n, nodes = g.center_nm.shape
     pot, el = np.empty((n, 1, nodes)), np.empty((n, 1, nodes))
     well = np.empty((n, 1))
     for s, (center_nm, u, e, w) in enumerate(kept):
-        if center_nm.shape == g.center_nm[s].shape and np.array_equal(center_nm, g.center_nm[s]):
-            pot[s, 0], el[s, 0] = u, e
-        else:
-            pot[s, 0] = np.interp(g.center_nm[s], center_nm, u)
-            el[s, 0] = np.interp(g.center_nm[s], center_nm, e)
+        grids = {"source_center_nm": center_nm[None], "target_center_nm": g.center_nm[s : s + 1]}
+        pot[s] = potential_on_grid(u[None, None], **grids)[0]
+        el[s] = potential_on_grid(e[None, None], **grids)[0]
         well[s, 0] = w
     return g, PoissonSolution(potential_ev=pot, electron_cm3=el, iterations=0, well_sheet_cm2=well)
 

@@ -180,6 +180,31 @@ def test_no_isolated_spikes_over_as_grown_samples(seed: int) -> None:
     assert not spiky, spiky
 
 
+def _three_wells():
+    """The InP design and its well 0.3 nm thinner and thicker (bistable, windows of 14-18 mV;
+    valleys 0.74-1.0 V), one table."""
+    nominal = STACK.table().thickness_nm[0]
+    rows = [nominal.copy() for _ in range(3)]
+    rows[1][3] -= 0.3
+    rows[2][3] += 0.3
+    return STACK.table().take(np.zeros(3, int)).with_thickness_nm(np.vstack(rows))
+
+
+def _calls_in_progress(monkeypatch, owner, name) -> list[int]:
+    """Wrap ``owner.name`` so that it counts its calls in progress; returns the counter."""
+    depth, real = [0], getattr(owner, name)
+
+    def counted(*args, **kwargs):
+        depth[0] += 1
+        try:
+            return real(*args, **kwargs)
+        finally:
+            depth[0] -= 1
+
+    monkeypatch.setattr(owner, name, counted)
+    return depth
+
+
 def test_a_stack_failing_its_up_branch_leaves_its_partners_branches(monkeypatch) -> None:
     # Three bistable InP stacks (the design, its well 0.3 nm thinner and thicker; windows of
     # 14-18 mV) swept together, where a continuation solve of the up branch fails to converge
@@ -189,23 +214,12 @@ def test_a_stack_failing_its_up_branch_leaves_its_partners_branches(monkeypatch)
     from wellwright.physics import iv
     from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 
-    nominal = STACK.table().thickness_nm[0]
-    rows = [nominal.copy() for _ in range(3)]
-    rows[1][3] -= 0.3
-    rows[2][3] += 0.3
-    table = STACK.table().take(np.zeros(3, int)).with_thickness_nm(np.vstack(rows))
+    table = _three_wells()
     bias = np.linspace(0.0, 1.0, 61)
     alone = [sweep(table.take([i]), bias, model=STACK.model).metrics_of(0) for i in range(3)]
 
-    depth, solves = [0], [0]
-    real_branch, real_solve = iv._up_branch, iv.solve_stack_poisson
-
-    def branch(*args, **kwargs):
-        depth[0] += 1
-        try:
-            return real_branch(*args, **kwargs)
-        finally:
-            depth[0] -= 1
+    solves, real_solve = [0], iv.solve_stack_poisson
+    depth = _calls_in_progress(monkeypatch, iv, "_up_branch")
 
     def solve(table, *args, **kwargs):
         if depth[0] and table.n_stacks > 1:
@@ -214,7 +228,6 @@ def test_a_stack_failing_its_up_branch_leaves_its_partners_branches(monkeypatch)
                 raise ElectrostaticsConvergenceError("injected")
         return real_solve(table, *args, **kwargs)
 
-    monkeypatch.setattr(iv, "_up_branch", branch)
     monkeypatch.setattr(iv, "solve_stack_poisson", solve)
     together = sweep(table, bias, model=STACK.model)
     assert solves[0] >= 2  # the failure happened
@@ -237,30 +250,18 @@ def test_a_stack_failing_beyond_the_sweep_leaves_its_partners_valleys(monkeypatc
     from wellwright.physics import iv
     from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 
-    nominal = STACK.table().thickness_nm[0]
-    rows = [nominal.copy() for _ in range(3)]
-    rows[1][3] -= 0.3
-    rows[2][3] += 0.3
-    table = STACK.table().take(np.zeros(3, int)).with_thickness_nm(np.vstack(rows))
+    table = _three_wells()
     bias = np.linspace(0.0, 0.7, 36)
     alone = [sweep(table.take([i]), bias, model=STACK.model).metrics_of(0) for i in range(3)]
 
-    real_extend, real_current = iv._extend_valleys, iv._Devices.current
-    inside = [False]
-
-    def extend(*args, **kwargs):
-        inside[0] = True
-        try:
-            return real_extend(*args, **kwargs)
-        finally:
-            inside[0] = False
+    real_current = iv._Devices.current
+    inside = _calls_in_progress(monkeypatch, iv, "_extend_valleys")
 
     def current(self, bias_v, *args, **kwargs):
         if inside[0] and self.n > 1:
             raise ElectrostaticsConvergenceError("injected")
         return real_current(self, bias_v, *args, **kwargs)
 
-    monkeypatch.setattr(iv, "_extend_valleys", extend)
     monkeypatch.setattr(iv._Devices, "current", current)
     together = sweep(table, bias, model=STACK.model)
     for i in range(3):

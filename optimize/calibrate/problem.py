@@ -673,12 +673,12 @@ def _distinct_currents(
             todo.append(d)
         else:
             v_all[d], j_all[d] = hit
+    # the side the sweep goes: a measurement is one polarity away from zero
+    sign = 1.0 if abs(bias_v[-1]) >= abs(bias_v[0]) else -1.0
     if todo:
         rows = distinct.take(np.array(todo))
         rkeys = key[idx[first[todo]]]
         j = _currents(rows, bias_v, rkeys, model=model, grid=grid, cache=cache)
-        # the side the sweep goes: a measurement is one polarity away from zero
-        sign = 1.0 if abs(bias_v[-1]) >= abs(bias_v[0]) else -1.0
         order = np.argsort(sign * bias_v)
         v_side, j_side = sign * bias_v[order], sign * j[:, order]
         keep = v_side >= 0
@@ -696,7 +696,6 @@ def _distinct_currents(
             cache.computed += len(todo)
             for d in todo:
                 cache.curves[skeys[d]] = (v_all[d].copy(), j_all[d].copy())
-    sign = 1.0 if abs(bias_v[-1]) >= abs(bias_v[0]) else -1.0
     inv = np.asarray(inverse).reshape(-1)
     v_out = np.zeros((table.n_stacks, bias_v.size + CLIFF_POINTS))
     j_out = np.zeros_like(v_out)
