@@ -1,16 +1,28 @@
 """The default model against published devices, and the trade's common-practice trends.
 
 ``tests/reference_devices.py`` lists published double-barrier RTDs with their measured
-figures of merit, each cited, with what was assumed where the paper is silent. The
-comparison (slow: one self-consistent sweep per device) prints every device's result.
+figures of merit, each cited, with what was checked in which public source, what stays
+from memory, and what was assumed where the paper is silent; its docstring says how the
+devices were chosen (every one found with a printed structure) and lists those found
+without one. The comparison (slow: one self-consistent sweep per device, seconds each)
+prints every device's result.
 
 Tolerances: Jp within x2 and PVCR within x3 of the measured value, for at least
-``MIN_SHARE`` of the devices that give the value; devices with a stated reason
-(``expected_miss``) are reported but not counted. Measured when written (default model):
-Jp 2 of 2, PVCR 3 of 6 within tolerance (the InAs-insert devices of Smet et al. and the
-thin-barrier device of Broekaert and Fonstad have PVCRs 4 to 8 times the model's; their
-structures and the latter's PVCR are from memory). Issue 12 asks for "most"; half is
-what the model reaches, and the threshold says so rather than hide it.
+``MIN_SHARE_JP`` and ``MIN_SHARE_PVCR`` of the devices that give the value; devices with a
+stated reason (``expected_miss``, only X-valley current in AlAs barriers, which the README
+says is not modelled, and only where the model's own X-valley check flags a barrier at the
+peak bias, which the test asserts) are reported but not counted. Measured (default model,
+Dec 2026): Jp 2 of 2 within x2 (Zhang et al. 2006: 4.6e3 against 3e3 A/cm^2; Broekaert
+and Fonstad 1990: 5.4e5 against > 4.5e5 A/cm^2); PVCR 3 of 6 within x3 (Zhang 15.4
+against 17, Sollner et al. 13 against 6, Inata et al. 14.7 against 15; misses: the
+InAs-insert devices of Smet et al., 10.9 against 42 at 300 K and 10.4 against 85 at 77 K,
+and Broekaert and Fonstad's thin barriers, 13 against 3). Goodhue et al.'s GaAs/AlAs
+device (31 against 3.5) is the expected miss; counted, PVCR would be 3 of 7. Only one
+device (Zhang et al.) has its structure and figures checked in a public source; it is
+within tolerance on both. The structures of the six others are from memory
+(``from_memory``), so their hits and misses test the model less than they seem to.
+Issue 12 asks for "most"; the model reaches all for Jp (of two devices) and half for PVCR,
+and the thresholds say so rather than hide it.
 
 Common practice (no single source; facts of the trade):
 - the valley current rises and the PVCR falls with temperature;
@@ -24,13 +36,19 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from reference_devices import DEVICES, Device
+from reference_devices import DEVICES, Device, verified
 from wellwright.physics.iv import current_at_bias, locate_peak_valley, sweep
 from wellwright.physics.stack import ModelOptions, parse_stack
+from wellwright.physics.valleys import x_valley_issues
 
 JP_FACTOR = 2.0
 PVCR_FACTOR = 3.0
-MIN_SHARE = 0.5
+#: Jp: the model reaches 2 of 2 (measured Dec 2026); 0.9 asks for all of them, a margin
+#: below the measured share that with two devices cannot allow a miss.
+MIN_SHARE_JP = 0.9
+#: PVCR: the model reaches 3 of 6 (measured Dec 2026), not more than half, so the
+#: threshold stays at one half and says so (issue 12 asks for "most").
+MIN_SHARE_PVCR = 0.5
 BIAS = np.linspace(0.0, 2.0, 81)
 
 
@@ -67,28 +85,41 @@ def _within(model_value, measured, factor):
 def test_default_model_against_published_devices():
     """Jp within x2 and PVCR within x3 for most published devices (default model)."""
     hits = {"jp": [], "pvcr": []}
+    checked = {"jp": [], "pvcr": []}  # devices whose structure and figures were verified
     lines = []
     for d in DEVICES:
         stack = device_stack(d)
         m = sweep(stack.table(), BIAS, model=stack.model).metrics_of(0)
-        jp, pvcr = m["peak_current_density_a_cm2"], m["pvcr"]
+        jp, pvcr, vp = m["peak_current_density_a_cm2"], m["pvcr"], m["peak_voltage_v"]
         ok_jp = None if d.jp_a_cm2 is None else _within(jp, d.jp_a_cm2, JP_FACTOR)
         ok_pvcr = _within(pvcr, d.pvcr, PVCR_FACTOR)
-        if not d.expected_miss:
-            if ok_jp is not None:
-                hits["jp"].append(ok_jp)
-            hits["pvcr"].append(ok_pvcr)
+        if d.expected_miss:
+            # the only accepted reason is X-valley current the model leaves out: its own
+            # check must flag a barrier's X edge within reach of the emitter at the peak
+            assert vp is not None and x_valley_issues(stack, vp), d.key
+        else:
+            for key, ok in (("jp", ok_jp), ("pvcr", ok_pvcr)):
+                if ok is not None:
+                    hits[key].append(ok)
+                    if verified(d):
+                        checked[key].append(ok)
+        memory = ", ".join(d.from_memory) or "-"
         lines.append(
-            f"{d.key:30s} {d.temperature_k:5.0f} K  Jp {jp or float('nan'):10.3g} A/cm^2 "
-            f"(measured {d.jp_a_cm2 or float('nan'):.3g}: {ok_jp})  "
-            f"PVCR {pvcr or float('nan'):6.3g} (measured {d.pvcr:g}: {ok_pvcr})"
-            + (f"  expected miss: {d.expected_miss}" if d.expected_miss else "")
+            f"{d.key:28s} {d.temperature_k:5.0f} K  Jp {jp or float('nan'):9.3g} "
+            f"(meas. {d.jp_a_cm2 or float('nan'):.3g}: {ok_jp})  "
+            f"PVCR {pvcr or float('nan'):5.3g} (meas. {d.pvcr:g}: {ok_pvcr})  "
+            f"Vp {vp or float('nan'):.3f} V (meas. {d.vp_v or float('nan'):.3g})  "
+            f"from memory: {memory}"
+            + (f"  expected miss: {d.expected_miss[:60]}..." if d.expected_miss else "")
         )
+    shares = {k: f"{sum(v)} of {len(v)}" for k, v in hits.items()}
+    shares_checked = {k: f"{sum(v)} of {len(v)}" for k, v in checked.items()}
     print("\n".join(["", f"default model: {ModelOptions()}", *lines]))
-    for key, results in hits.items():
-        assert results, key
-        share = np.mean(results)
-        assert share >= MIN_SHARE, f"{key}: {share:.0%} of devices within tolerance"
+    print(f"within tolerance: {shares}; of devices with verified structure: {shares_checked}")
+    for key, minimum in (("jp", MIN_SHARE_JP), ("pvcr", MIN_SHARE_PVCR)):
+        assert hits[key], key
+        share = np.mean(hits[key])
+        assert share >= minimum, f"{key}: {share:.0%} of devices within tolerance"
 
 
 def _ingaas_alas(barrier_ml=5, temperature_k=300.0, model=None):
