@@ -26,15 +26,19 @@ def median_time(fn, repeats: int, *, warmup: bool = False) -> float:
 
 
 class KernelClock:
-    """Context manager summing the wall time spent inside the compiled transmission kernel.
+    """Context manager summing the wall time spent inside the compiled kernel.
 
-    Wraps ``wellwright.physics.transmission._slices`` for the duration, so a benchmark can
-    split a run into kernel time and everything else (Python and numpy).
+    Wraps every routine of the compiled extension (``physics/_slices.c``: the transmission,
+    the resonance refinement, the Poisson-Newton iteration, whatever it holds) as reached
+    through ``wellwright.physics.transmission._slices`` for the duration, so a benchmark can
+    split a run into compiled time and everything else (Python and numpy).
+    ``seconds_by_routine`` holds each routine's share.
     """
 
     def __init__(self) -> None:
         self.seconds = 0.0
         self.calls = 0
+        self.seconds_by_routine: dict[str, float] = {}
 
     def __enter__(self) -> KernelClock:
         import importlib
@@ -47,19 +51,34 @@ class KernelClock:
         clock = self
 
         class _Timed:
-            def transmission(self, *args):
-                t0 = time.perf_counter()
-                try:
-                    return clock._inner.transmission(*args)
-                finally:
-                    clock.seconds += time.perf_counter() - t0
-                    clock.calls += 1
+            def __getattr__(self, name):
+                routine = getattr(clock._inner, name)
+                if not callable(routine):
+                    return routine
+
+                def timed(*args):
+                    t0 = time.perf_counter()
+                    try:
+                        return routine(*args)
+                    finally:
+                        dt = time.perf_counter() - t0
+                        clock.seconds += dt
+                        clock.calls += 1
+                        by = clock.seconds_by_routine
+                        by[name] = by.get(name, 0.0) + dt
+
+                return timed
 
         tm._slices = _Timed()
         return self
 
     def __exit__(self, *exc) -> None:
         self._module._slices = self._inner
+
+    def breakdown(self) -> str:
+        """``name s, ...`` of each compiled routine, largest first."""
+        items = sorted(self.seconds_by_routine.items(), key=lambda kv: -kv[1])
+        return ", ".join(f"{k} {v:.2f} s" for k, v in items)
 
 
 def before_after_trees(ref: str, tmp: Path, repo: Path) -> dict[str, Path]:
