@@ -506,14 +506,10 @@ def _kept_solution(table, kept, model):
 
 
 def _solve_at(table, bias_v, model):
-    """Self-consistent solve (grid, solution) as :func:`band_profile` makes it: all biases
-    at once, by continuation where that does not converge."""
-    from .electrostatics import ElectrostaticsConvergenceError, solve_by_continuation
+    """Self-consistent solve (grid, solution) as :func:`band_profile` makes it."""
+    from .electrostatics import solve_self_consistent
 
-    try:
-        return solve_stack_poisson(table, bias_v, slice_nm=model.slice_nm)
-    except ElectrostaticsConvergenceError:
-        return solve_by_continuation(table, bias_v, slice_nm=model.slice_nm)
+    return solve_self_consistent(table, bias_v, slice_nm=model.slice_nm)
 
 
 def _take_solution(solution, rows):
