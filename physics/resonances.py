@@ -78,7 +78,7 @@ LOOSE_FIT = 20.0
 
 
 def local_peaks(
-    values: np.ndarray, n_max: int, *, weight: np.ndarray | None = None
+    values: np.ndarray, n_max: int, *, weight: np.ndarray | None = None, first: bool = False
 ) -> tuple[np.ndarray, np.ndarray]:
     """Indices of the ``n_max`` highest interior local maxima of ``values`` along the last axis.
 
@@ -90,6 +90,8 @@ def local_peaks(
         Number of peaks kept.
     weight
         Optional ranking: peaks are ordered by ``values * weight`` instead of ``values``.
+    first
+        Keep the first ``n_max`` maxima along the axis instead of the highest.
 
     Returns
     -------
@@ -100,6 +102,8 @@ def local_peaks(
     v = values
     inner = (v[..., 1:-1] > v[..., :-2]) & (v[..., 1:-1] >= v[..., 2:])
     rank = v if weight is None else v * weight
+    if first:
+        rank = -np.broadcast_to(np.arange(v.shape[-1], dtype=float), v.shape)
     score = np.where(inner, rank[..., 1:-1], -np.inf)
     order = np.argsort(-score, axis=-1)[..., :n_max]
     valid = np.take_along_axis(score, order, axis=-1) > -np.inf

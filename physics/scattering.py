@@ -205,6 +205,7 @@ class _Geometry:
     inner1: np.ndarray  #: index of the first barrier's last slice
     inner2: np.ndarray  #: index of the second barrier's first slice
     outer2: np.ndarray  #: index of the second barrier's last slice
+    well: np.ndarray  #: (..., n) slices of the well
     well_edge_ev: np.ndarray  #: width-weighted mean band edge of the well
     well_bottom_ev: np.ndarray
     well_nm: np.ndarray
@@ -240,6 +241,7 @@ def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geomet
         run2=(idx > j2[..., None]) & (idx <= i2[..., None]),
         source=idx < i1[..., None],
         has=has,
+        well=well,
         outer1=i1,
         inner1=np.maximum(j1 - 1, 0),
         inner2=np.minimum(j2 + 1, n - 1),
@@ -266,7 +268,26 @@ def _i0e(x):
     return np.where(x < 700.0, np.exp(-inside) * np.i0(inside), beyond)
 
 
-def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, kt_ev, params):
+def _kinetic_ev(energy_ev, geo: _Geometry, *, edge, width):
+    """A state's kinetic energy in the well ``e_w`` (eV, floored at 5 meV) and the well's
+    width it spreads over (nm), both ``(..., L)``: over the part of the well where the state
+    is classically allowed (band edge below ``E_n``). That is the whole well unless the bias
+    tilts the well's edge above the state; then the width-weighted mean edge of the whole
+    well can lie above ``E_n`` and ``e_w`` would be clamped, the floor of note 2 (as
+    ``e_w^3``) vanishing and the channel's current rising tenfold on the states found there
+    (measured on random stacks at high bias)."""
+    allowed = geo.well[..., None, :] & (edge[..., None, :] < energy_ev[..., :, None])
+    w = np.where(allowed, width[..., None, :], 0.0)
+    nm = w.sum(axis=-1)
+    some = nm > 0
+    mean = (w * edge[..., None, :]).sum(axis=-1) / np.where(some, nm, 1.0)
+    mean = np.where(some, mean, np.asarray(geo.well_edge_ev)[..., None])
+    return np.maximum(energy_ev - mean, 5e-3), np.where(
+        some, nm, np.asarray(geo.well_nm)[..., None]
+    )
+
+
+def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, width, kt_ev, params):
     """Roughness width, phonon width (no occupation factor), floor energy^2 and Bose factor.
 
     ``energy_ev`` is ``(..., L)`` state energies on the oriented profile; the
@@ -278,20 +299,21 @@ def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, kt_ev, params
         State energies, eV, ``(..., L)``, on the oriented profile.
     geo
         Where the barriers and the well are (oriented profile).
-    edge, mass
-        Band edge (eV) and mass (m0) of the oriented profile's slices, ``(..., n)``.
+    edge, mass, width
+        Band edge (eV), mass (m0) and width (nm) of the oriented profile's slices,
+        ``(..., n)``.
     kt_ev
         Thermal energy kT, eV, ``(...)``.
     params
         Channel settings.
     """
     ex = lambda a: np.asarray(a)[..., None]  # noqa: E731
-    e_w = np.maximum(energy_ev - ex(geo.well_edge_ev), 5e-3)
+    e_w, well_nm = _kinetic_ev(energy_ev, geo, edge=edge, width=width)
     top1 = ex(_at(edge, geo.inner1)) - energy_ev
     top2 = ex(_at(edge, geo.inner2)) - energy_ev
     k1 = _kappa(ex(_at(mass, geo.inner1)), top1)
     k2 = _kappa(ex(_at(mass, geo.inner2)), top2)
-    w_eff = ex(geo.well_nm) + 1.0 / k1 + 1.0 / k2
+    w_eff = well_nm + 1.0 / k1 + 1.0 / k2
     m_w = ex(geo.well_mass_m0)
     kt = ex(kt_ev)
     lam, delta = params.roughness_length_nm, params.roughness_height_nm
@@ -380,7 +402,12 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     hi = np.maximum(high, lo + 1e-3)
     grid = lo[..., None] + (hi - lo)[..., None] * np.linspace(0.0, 1.0, params.n_search)
     t = transmission(grid, profile=probe)
-    index, valid = local_peaks(t, params.n_states + 2)
+    # candidates: the tallest maxima of the coarse T and the lowest ones (a narrow deep state
+    # shows on the coarse grid only as a small maximum of its tails, below the upper lines)
+    k = params.n_states + 2
+    tall, tall_ok = local_peaks(t, k)
+    low, low_ok = local_peaks(t, k, first=True)
+    index, valid = np.concatenate([tall, low], axis=-1), np.concatenate([tall_ok, low_ok], axis=-1)
     center, gamma, peak = refine_grid_peaks(
         grid, t=t, index=index, valid=valid, profile=probe, exact_peak=True
     )
@@ -477,7 +504,7 @@ def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, par
     scale = gamma_l / np.maximum(tau_l, 1e-300)  # Gamma_L(z) = scale tau_L(z)
     gamma_coh = np.where(matched, width_c, scale * tau_l_dev + gamma_r)
     g_ifr, g_lo, floor2, bose = scattering_widths_ev(
-        e_n, geo, edge=edge, mass=mass, kt_ev=kt, params=params
+        e_n, geo, edge=edge, mass=mass, width=width, kt_ev=kt, params=params
     )
     return {
         "e_n": e_n,
@@ -490,7 +517,7 @@ def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, par
         "floor2": floor2,
         "bose": bose,
         "hw": geo.lo_phonon_ev[..., None] * np.ones_like(e_n),
-        "e_w": np.maximum(e_n - geo.well_edge_ev[..., None], 5e-3),
+        "e_w": _kinetic_ev(e_n, geo, edge=edge, width=width)[0],
         # q^2 Lambda^2 / 4 per eV of lateral energy gained (note 2)
         "lateral_per_ev": (geo.well_mass_m0[..., None] / (2.0 * HBAR2_2M0_EV_NM2))
         * 0.5
