@@ -48,7 +48,8 @@ Departures from [2]_, each stated:
    barrier (thick rectangular barrier, ground state of a deep well, equal
    masses; derived for this module, not from a publication), gives
    ``eps_n^2 = 16 e_k e_w^3 / (pi^2 (e_w + e_k)^2)`` with ``e_w`` the state's
-   kinetic energy in the well and ``e_k`` the emitter barrier's height above
+   kinetic energy in the well (above the mean band edge of the part of the well
+   where it is classically allowed) and ``e_k`` the emitter barrier's height above
    it (tens of meV). The floor is applied with half the roughness width (the
    source-side interface only; the phonon term below takes the same floor with
    its full rate) and only where the state exists at the electron's total
