@@ -118,18 +118,25 @@ def _fermi_dirac_half_and_slope(eta):
         axis=-1,
     )
     w = np.concatenate([t_step[..., None] * _WEIGHTS, (t_max - t_step)[..., None] * _WEIGHTS], -1)
-    occupation = np.exp(-np.logaddexp(0.0, t**2 - eta[..., None]))
-    scale = 4.0 / np.sqrt(np.pi) * w * t**2
-    value = np.sum(scale * occupation, axis=-1)
+    # the occupation 1 / (1 + e^x), x = t^2 - eta, as e^-x / (1 + e^-x) above the Fermi
+    # step: overflow-safe and exact in relative terms in both tails (as exp(-logaddexp(0, x))
+    # to rounding, about three times faster: numpy vectorises exp, not logaddexp)
+    x = t * t - eta[..., None]
+    e = np.exp(-np.abs(x))
+    occupation = np.where(x > 0.0, e, 1.0) / (1.0 + e)
+    weighted = (4.0 / np.sqrt(np.pi)) * w * (t * t) * occupation
+    value = np.sum(weighted, axis=-1)
     # d/d eta of the occupation is occ (1 - occ); the moving split point adds nothing
     # (the integrand is continuous there)
-    slope = np.sum(scale * occupation * (1.0 - occupation), axis=-1)
+    slope = np.sum(weighted * (1.0 - occupation), axis=-1)
     return value, slope
 
 
 #: The tabulated ``ln F_1/2`` of :func:`fermi_dirac_half_tabulated`: range and step of eta.
 _ETA_LO, _ETA_HI, _ETA_STEP = -30.0, 120.0, 0.02
 _TABLE: dict[str, np.ndarray] = {}
+#: Etas per block of the table's quadrature (:func:`_hermite_table`).
+_TABLE_BLOCK = 256
 
 
 def _hermite_table() -> np.ndarray:
@@ -137,7 +144,16 @@ def _hermite_table() -> np.ndarray:
     highest power first, from the quadrature's values and slopes at the cells' ends."""
     h = _ETA_STEP
     grid = np.arange(_ETA_LO, _ETA_HI + 0.5 * h, h)
-    f, df = _fermi_dirac_half_and_slope(grid)
+    # in blocks of _TABLE_BLOCK etas: the same numbers (each eta's sum is its own), but the
+    # quadrature's arrays stay in cache (one block of 200 nodes ~ 0.4 MB instead of 12 MB):
+    # a fraction of the CPU time in a new process, which would otherwise page in the
+    # large arrays
+    parts = [
+        _fermi_dirac_half_and_slope(grid[i : i + _TABLE_BLOCK])
+        for i in range(0, grid.size, _TABLE_BLOCK)
+    ]
+    f = np.concatenate([p[0] for p in parts])
+    df = np.concatenate([p[1] for p in parts])
     y, s = np.log(f), df / f  # ln F and its slope F_-1/2 / F_1/2
     m = np.diff(y) / h
     cubic = (s[:-1] + s[1:] - 2.0 * m) / h**2

@@ -2,6 +2,6 @@
 
 import sys
 
-from wellwright.optimize.cli.app import main
+from wellwright.optimize.cli import main
 
 sys.exit(main())
