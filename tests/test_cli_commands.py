@@ -106,3 +106,35 @@ def test_iv_without_figures_loads_no_heavy_library_nor_scipy(tmp_path, fast):
         "assert 'scipy' not in sys.modules, 'scipy imported'"
     )
     assert _loaded_after(code) == set()
+
+
+#: The thread-count variables the command defaults (wellwright.optimize.cli.THREAD_VARIABLES).
+THREADS = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+def _environment_after(code: str, **preset: str) -> dict[str, str]:
+    """The THREADS variables a fresh interpreter holds after running ``code``."""
+    import os
+
+    env = {k: v for k, v in os.environ.items() if k not in THREADS} | preset
+    probe = (
+        f"import os\n{code}\n"
+        f"print(' '.join(k + '=' + os.environ.get(k, 'unset') for k in {THREADS!r}))"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", probe], capture_output=True, text=True, check=True, env=env
+    )
+    return dict(w.split("=") for w in out.stdout.splitlines()[-1].split())
+
+
+def test_the_command_defaults_to_one_blas_thread_and_keeps_the_users_choice(tmp_path):
+    # common practice: a process-level choice (thread counts) belongs to the program, not to a
+    # library; numpy's BLAS reads these variables once, when it loads
+    run = "from wellwright.optimize.cli import main\nmain(['materials', '--json'])"
+    assert _environment_after(run) == dict.fromkeys(THREADS, "1")
+    assert _environment_after(run, OPENBLAS_NUM_THREADS="3")["OPENBLAS_NUM_THREADS"] == "3"
+    # numpy loaded first (a library or a test calling main): nothing is set
+    assert _environment_after("import numpy\n" + run) == dict.fromkeys(THREADS, "unset")
+    # importing the library sets nothing
+    library = "import wellwright.optimize.cli, wellwright.physics, wellwright.optimize"
+    assert _environment_after(library) == dict.fromkeys(THREADS, "unset")
