@@ -59,12 +59,14 @@ print(" ".join(m for m in {heavy!r} if m in sys.modules))
 """
 
 
-def cpu_seconds(argv: list[str], runs: int) -> float:
+def cpu_seconds(argv: list[str], runs: int, env: dict[str, str] | None = None) -> float:
     """Median CPU seconds (user + system) of ``runs`` child processes."""
     times = []
     for _ in range(runs):
         r0 = resource.getrusage(resource.RUSAGE_CHILDREN)
-        subprocess.run(argv, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        subprocess.run(
+            argv, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env
+        )
         r1 = resource.getrusage(resource.RUSAGE_CHILDREN)
         times.append(r1.ru_utime - r0.ru_utime + r1.ru_stime - r0.ru_stime)
     return statistics.median(times)
@@ -85,7 +87,11 @@ def main(argv: list[str] | None = None) -> int:
         command = [py, "-m", "wellwright.optimize.cli", "iv", str(STACK), "--no-figures"]
         command += ["--out", tmp]
         bare = cpu_seconds([py, "-c", "pass"], args.runs)
-        numpy = cpu_seconds([py, "-c", "import numpy"], args.runs)
+        from wellwright.optimize.cli import THREAD_VARIABLES
+
+        # numpy as the command loads it: with its thread defaults where the user set none
+        env = THREAD_VARIABLES | dict(os.environ)
+        numpy = cpu_seconds([py, "-c", "import numpy"], args.runs, env)
         whole = cpu_seconds(command, args.runs)
         ivs, loaded, threads = [], "", ""
         for _ in range(args.runs):
@@ -103,7 +109,7 @@ def main(argv: list[str] | None = None) -> int:
         f"(load average {load:.2f} at the start, {os.getloadavg()[0]:.2f} at the end)"
     )
     print(f"  python -c pass                 {bare:6.3f}")
-    print(f"  python -c 'import numpy'       {numpy:6.3f}")
+    print(f"  python -c 'import numpy'       {numpy:6.3f}  (the command's thread settings)")
     print(f"  wellwright iv --no-figures     {whole:6.3f}")
     print(f"  the I-V itself (in-process)    {iv:6.3f}")
     startup = whole - iv
