@@ -22,7 +22,12 @@ change can remove.
 Targets (issue 15): search >= 5x the plain loop's trials/s at 500 trials,
 physics >= 50 % of the search's wall time, 2 workers >= 1.7x one.
 
-Usage: ``python benchmarks/bench_search.py [--quick]``
+``--workers-only`` runs only the 1- and 2-worker searches and prints, for
+each, the CPU seconds with the worker processes' start and per evaluated
+design, and the speed-up two free cores would allow at that CPU cost (the
+wall-time ratio depends on what else the machine runs).
+
+Usage: ``python benchmarks/bench_search.py [--quick] [--workers-only]``
 """
 
 from __future__ import annotations
