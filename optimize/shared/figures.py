@@ -172,7 +172,7 @@ def _draw_iv_panel(
         Specific series resistance, Ω µm²; 0: no terminal curve.
     """
     y = j * scale if linear else np.where(j != 0, np.abs(j), np.nan)
-    axis.plot(v, y, color=PALETTE["blue"], lw=2, label="Tsu-Esaki current")
+    axis.plot(v, y, color=PALETTE["blue"], lw=2, label="intrinsic" if r_ohm_um2 > 0 else "current")
     if r_ohm_um2 > 0:
         axis.plot(
             external_bias_v(v, j, series_resistance_ohm_um2=r_ohm_um2),
