@@ -617,21 +617,12 @@ def solve_stack_poisson(
             for s in range(n_stacks)
         ]
     )
-    profile_of = profile_builder(table, grid)
     return grid, _iterate_well_charge(
         poisson,
         solution,
         well,
         max_well_iterations=max_well_iterations,
-        well_target=lambda potential_ev, bias_v: well_sheet_density_cm2(
-            table,
-            grid,
-            potential_ev=potential_ev,
-            bias_v=bias_v,
-            mu_emitter_ev=mu_e,
-            well_mass_m0=mass_w,
-            profile_of=profile_of,
-        )[0],
+        well_target=_well_charge_target(table, grid, mu_emitter_ev=mu_e, well_mass_m0=mass_w),
         bias=bias,
         fermi=fermi,
         right=right,
@@ -938,6 +929,98 @@ class _WellChargeRoot:
         self.last_side, self.reopened, self.settled = last_side, reopened, settled
         self.frozen, self.push, self.previous = frozen, push, previous
         return well
+
+
+def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
+    """``target(potential_ev, bias_v)``: the first output of :func:`well_sheet_density_cm2`
+    (the same numbers, tested), its parts that do not change during a solve made once and
+    the state search in one compiled call (``grid_states``); the function itself where that
+    routine is not in use.
+
+    Parameters
+    ----------
+    table, grid, mu_emitter_ev, well_mass_m0
+        As for :func:`well_sheet_density_cm2`.
+    """
+    from .constants import ELECTRON_MASS_KG, HBAR2_2M0_EV_NM2, HBAR_J_S
+    from .resonances import EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT
+
+    states = compiled_kernel("grid_states")
+    profile_of = profile_builder(table, grid)
+    if states is None:
+        return lambda potential_ev, bias_v: well_sheet_density_cm2(
+            table,
+            grid,
+            potential_ev=potential_ev,
+            bias_v=bias_v,
+            mu_emitter_ev=mu_emitter_ev,
+            well_mass_m0=well_mass_m0,
+            profile_of=profile_of,
+        )[0]
+    # the fixed parts of well_sheet_density_cm2 and of the profiles (profile_builder)
+    li = grid.layer_index
+    n_slices = li.size
+    base = np.ascontiguousarray((table.edge_ev - table.edge_ev[:, :1])[:, li][:, None, :])
+    real = grid.width_nm > 0
+    real[:, [0, -1]] = True
+    source = (
+        None
+        if np.all(real)
+        else np.maximum.accumulate(np.where(real, np.arange(n_slices), 0), axis=-1)[:, None, :]
+    )
+    fixed_rows = (table.mass_m0[:, li], table.nonparabolicity_per_ev[:, li], grid.width_nm)
+    per_shape: dict = {}  # mass, alpha, width as the kernel reads them, per batch shape
+    kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None]
+    kt3 = kt[..., None]
+    mu_fwd = mu_emitter_ev[:, None]
+    u = np.linspace(0.0, 1.0, 64) ** WELL_SEARCH_EDGE_POWER
+    n2d_cm2 = (
+        well_mass_m0[:, None]
+        * ELECTRON_MASS_KG
+        * kt
+        * ELEMENTARY_CHARGE_C
+        / (np.pi * HBAR_J_S**2)
+        * 1e-4
+    )[..., None]
+    inv_hb2 = 1.0 / HBAR2_2M0_EV_NM2
+
+    def target(potential_ev, bias_v):
+        if source is not None:
+            potential_ev = np.take_along_axis(
+                potential_ev, np.broadcast_to(source, potential_ev.shape), axis=-1
+            )
+        edge_ev = np.ascontiguousarray(base + potential_ev)
+        shape = edge_ev.shape
+        rest = per_shape.get(shape)
+        if rest is None:
+            rest = per_shape[shape] = tuple(
+                np.ascontiguousarray(np.broadcast_to(a[:, None, :], shape)) for a in fixed_rows
+            )
+        bias = np.asarray(bias_v, float)
+        forward = bias >= 0
+        if np.all(forward):
+            mu, edge = np.broadcast_to(mu_fwd, bias.shape), np.zeros(bias.shape)
+        else:
+            mu = np.where(forward, mu_fwd, mu_fwd - bias)
+            edge = np.where(forward, 0.0, edge_ev[..., -1])
+        lo = edge + 1e-6
+        hi = mu + 12.0 * kt
+        energy = lo[..., None] + (hi - lo)[..., None] * u
+        out = np.empty(shape[:-1] + (4, 4))
+        states(
+            n_slices, 64, energy, edge_ev, *rest, inv_hb2, 4, 6, EXTRA_ROUNDS, LOOSE_BRACKET,
+            LOOSE_FIT, 1, out,
+        )  # fmt: skip
+        width, peak = out[..., 1], out[..., 2]
+        ok = (out[..., 3] > 0.0) & np.isfinite(width) & (width > 0)
+        e1 = np.where(ok, out[..., 0], 0.0)
+        tp = np.where(ok, peak, 0.0)
+        fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.clip(tp, 0.0, 1.0)))
+        fraction = fraction * -np.expm1(-np.maximum(e1 - edge[..., None], 0.0) / kt3)
+        supply = fermi_dirac_zero((mu[..., None] - e1) / kt3)
+        return np.sum(np.where(ok, fraction * n2d_cm2 * supply, 0.0), axis=-1)
+
+    return target
 
 
 def well_sheet_density_cm2(

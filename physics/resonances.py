@@ -27,6 +27,7 @@ from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR_J_S
 from .transmission import (
     compiled_bracket_rounds,
+    compiled_grid_states,
     compiled_refine_peaks,
     transmission,
     transmission_rows,
@@ -385,9 +386,26 @@ def find_resonances(
     u = np.linspace(0.0, 1.0, n_coarse) ** edge_power
     grid = lo[..., None] + (hi - lo)[..., None] * u
     grid = np.broadcast_to(grid, profile.batch_shape + grid.shape[-1:])
-    t = transmission(grid, profile=profile)
-    index, valid = local_peaks(t, n_max)
-    energy, width, peak = refine_grid_peaks(grid, t=t, index=index, valid=valid, profile=profile)
+    # the steps below in one compiled call (the numpy statement is the reference,
+    # tests/test_kernel_backends.py compares the two)
+    found = compiled_grid_states(
+        grid,
+        profile=profile,
+        n_max=n_max,
+        iterations=6,
+        extra_rounds=EXTRA_ROUNDS,
+        loose_bracket=LOOSE_BRACKET,
+        loose_fit=LOOSE_FIT,
+        exact_peak=True,
+    )
+    if found is not None:
+        energy, width, peak, valid = found
+    else:
+        t = transmission(grid, profile=profile)
+        index, valid = local_peaks(t, n_max)
+        energy, width, peak = refine_grid_peaks(
+            grid, t=t, index=index, valid=valid, profile=profile
+        )
     valid = valid & np.isfinite(width) & (width > 0)
     nan = np.nan
     return Resonances(

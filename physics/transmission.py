@@ -351,6 +351,62 @@ def compiled_refine_peaks(
     return out[:, 0], out[:, 1], out[:, 2]
 
 
+def compiled_grid_states(
+    grid_ev: np.ndarray,
+    *,
+    profile: Profile,
+    n_max: int,
+    iterations: int,
+    extra_rounds: int,
+    loose_bracket: float,
+    loose_fit: float,
+    exact_peak: bool,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
+    """T on a grid per profile, its ``n_max`` highest local maxima and their refinement
+    (:func:`physics.resonances.local_peaks` and :func:`physics.resonances.refine_grid_peaks`,
+    the latter as :func:`compiled_refine_peaks`) in one compiled call.
+
+    Parameters
+    ----------
+    grid_ev
+        Energies, eV, ``profile.batch_shape + (n,)``, sorted along the last axis.
+    profile
+        Band profiles.
+    n_max
+        Slots per profile (the highest maxima first).
+    iterations, extra_rounds, loose_bracket, loose_fit, exact_peak
+        As for :func:`compiled_refine_peaks`.
+
+    Returns
+    -------
+    tuple or None
+        Centre, width and peak transmission (NaN where the slot holds no maximum) and
+        whether it holds one, each ``profile.batch_shape + (n_max,)``; None where the
+        compiled routine is not in use (the caller runs the numpy statement).
+    """
+    states = compiled_kernel("grid_states")
+    if states is None or not 1 <= n_max <= 64 or grid_ev.shape[-1] < 3:
+        return None
+    batch = profile.batch_shape
+    energy = np.ascontiguousarray(np.broadcast_to(grid_ev, batch + grid_ev.shape[-1:]), float)
+    out = np.empty(batch + (n_max, 4))
+    states(
+        profile.n_slices,
+        energy.shape[-1],
+        energy,
+        *profile.slice_arrays,
+        1.0 / HBAR2_2M0_EV_NM2,
+        int(n_max),
+        int(iterations),
+        int(extra_rounds),
+        float(loose_bracket),
+        float(loose_fit),
+        int(bool(exact_peak)),
+        out,
+    )
+    return out[..., 0], out[..., 1], out[..., 2], out[..., 3] > 0.0
+
+
 def _backend(backend: str | None) -> str:
     if backend is None:
         if DEFAULT_BACKEND not in BACKENDS:
