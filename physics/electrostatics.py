@@ -65,7 +65,7 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, fields, replace
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -561,35 +561,135 @@ def solve_stack_poisson(
         The extended slice grid and the potential on its nodes,
         ``(n_stacks, n_biases, n_nodes)``.
     """
-    grid = extended_slice_grid(
-        table, slice_nm=slice_nm, contact_nm=contact_nm, contact_slice_nm=contact_slice_nm
+    setup = _solve_setup(
+        table,
+        slice_nm=slice_nm,
+        contact_nm=contact_nm,
+        contact_slice_nm=contact_slice_nm,
+        tolerance_ev=tolerance_ev,
+        max_iterations=max_iterations,
+        max_step_ev=max_step_ev,
     )
+    grid, mu_e = setup.grid, setup.mu_e
     n_stacks = table.n_stacks
     bias = np.asarray(bias_v, float)
     bias = np.broadcast_to(
         bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :],
         (n_stacks, np.atleast_1d(bias).shape[-1]),
     )
+    right = -(bias + setup.builtin_ev[:, None])  # collector potential, as in the linear model
+    fermi = np.where(
+        setup.emitter_side[:, None, :], mu_e[:, None, None], (mu_e[:, None] - bias)[:, :, None]
+    )
+    if initial_ev is None:
+        initial_ev = right[:, :, None] * setup.frac[:, None, :]
+    poisson = setup.poisson
+    well = (
+        np.zeros(bias.shape)
+        if initial_well_cm2 is None
+        else np.broadcast_to(initial_well_cm2, bias.shape).copy()
+    )
+    has_well = setup.target is not None
+    solution = poisson(initial_ev, well if well_charge and has_well else 0.0 * well, fermi, right)
+    if not (well_charge and has_well):
+        return grid, replace(solution, well_sheet_cm2=np.zeros(bias.shape))
+    return grid, _iterate_well_charge(
+        poisson,
+        solution,
+        well,
+        max_well_iterations=max_well_iterations,
+        well_target=setup.target,
+        bias=bias,
+        fermi=fermi,
+        right=right,
+        abandon_below_cm2=(
+            None
+            if abandon_below_cm2 is None
+            else np.broadcast_to(abandon_below_cm2, bias.shape).copy()
+        ),
+    )
+
+
+@dataclass(frozen=True)
+class _SolveSetup:
+    """The parts of :func:`solve_stack_poisson` that depend on the stacks and the settings
+    only (not on the bias, the start or the charge)."""
+
+    grid: SliceGrid
+    mu_e: np.ndarray  #: emitter Fermi level, eV, ``(n_stacks,)``
+    builtin_ev: np.ndarray  #: :func:`physics.bands.builtin_offset_ev`
+    emitter_side: np.ndarray  #: nodes on the emitter's side of the split
+    frac: np.ndarray  #: the linear start's fraction of the drop at each node
+    poisson: object  #: :func:`_stack_poisson_solver`
+    target: object  #: :func:`_well_charge_target`; None where no stack has a well
+
+
+#: Setups of the last few solves (a sweep solves the same stacks 20 to 30 times: its main
+#: solve, the refinement rounds, the up-branch steps); found by the stacks' values, not by
+#: the table object, so an equal table made again reuses it and a changed one does not.
+_SETUPS: list = []
+_SETUPS_KEPT = 8
+
+
+def _table_values(table: LayerTable) -> tuple:
+    return tuple(getattr(table, f.name) for f in fields(table))
+
+
+def _same_values(a: tuple, b: tuple) -> bool:
+    return all(
+        (x is None and y is None)
+        or (x is not None and y is not None and x.shape == y.shape and np.array_equal(x, y))
+        for x, y in zip(a, b, strict=True)
+    )
+
+
+def _solve_setup(table: LayerTable, **settings) -> _SolveSetup:
+    """The setup of :func:`solve_stack_poisson` for ``table`` and ``settings`` (its
+    keyword arguments ``slice_nm``, ``contact_nm``, ``contact_slice_nm``, ``tolerance_ev``,
+    ``max_iterations``, ``max_step_ev``), made once and kept in :data:`_SETUPS`."""
+    values = _table_values(table)
+    # what the setup also reads: the module's constants and the routines in use
+    settings = dict(
+        settings,
+        constants=(BARRIER_EV, WELL_SEARCH_EDGE_POWER, CONTACT_GRADING, ZERO_WIDTH_TIE),
+        compiled=tuple(compiled_kernel(n) is not None for n in ("poisson_newton", "grid_states")),
+    )
+    for entry in _SETUPS:
+        if entry[1] == settings and _same_values(entry[0], values):
+            return entry[2]
+    values = tuple(None if v is None else np.array(v, copy=True) for v in values)
+    setup = _make_setup(
+        table, **{k: v for k, v in settings.items() if k not in ("constants", "compiled")}
+    )
+    _SETUPS.insert(0, (values, settings, setup))
+    del _SETUPS[_SETUPS_KEPT:]
+    return setup
+
+
+def _make_setup(
+    table: LayerTable,
+    *,
+    slice_nm: float,
+    contact_nm: float,
+    contact_slice_nm: float,
+    tolerance_ev: float,
+    max_iterations: int,
+    max_step_ev: float,
+) -> _SolveSetup:
+    grid = extended_slice_grid(
+        table, slice_nm=slice_nm, contact_nm=contact_nm, contact_slice_nm=contact_slice_nm
+    )
+    n_stacks = table.n_stacks
     li = grid.layer_index
     mu_e = fermi_level_ev(
         table.doping_cm3[:, 0], mass_m0=table.mass_m0[:, 0], temperature_k=table.temperature_k
     )
-    right = -(
-        bias + builtin_offset_ev(table)[:, None]
-    )  # collector potential, as in the linear model
     inside, split = _barrier_region(table, grid)
-    emitter_side = grid.center_nm < split[:, None]
-    fermi = np.where(
-        emitter_side[:, None, :], mu_e[:, None, None], (mu_e[:, None] - bias)[:, :, None]
-    )
     offset = (table.edge_ev - table.edge_ev[:, :1])[:, li]
-    if initial_ev is None:
-        length = grid.center_nm[:, -1] - grid.center_nm[:, 0] - 2.0 * contact_nm
-        frac = np.clip(grid.center_nm / np.maximum(length, 1e-9)[:, None], 0.0, 1.0)
-        initial_ev = right[:, :, None] * frac[:, None, :]
+    length = grid.center_nm[:, -1] - grid.center_nm[:, 0] - 2.0 * contact_nm
+    frac = np.clip(grid.center_nm / np.maximum(length, 1e-9)[:, None], 0.0, 1.0)
     well_slices = inside & (offset < np.maximum(offset[:, :1], offset[:, -1:]) + BARRIER_EV)
     well_nm = np.sum(np.where(well_slices, grid.width_nm, 0.0), axis=1)
-
     poisson = _stack_poisson_solver(
         table,
         grid,
@@ -601,36 +701,23 @@ def solve_stack_poisson(
         max_iterations=max_iterations,
         max_step_ev=max_step_ev,
     )
-
-    well = (
-        np.zeros(bias.shape)
-        if initial_well_cm2 is None
-        else np.broadcast_to(initial_well_cm2, bias.shape).copy()
-    )
-    has_well = np.any(well_nm > 0)
-    solution = poisson(initial_ev, well if well_charge and has_well else 0.0 * well, fermi, right)
-    if not (well_charge and has_well):
-        return grid, replace(solution, well_sheet_cm2=np.zeros(bias.shape))
-    mass_w = np.array(
-        [
-            table.mass_m0[s, li[well_slices[s]]].min() if well_slices[s].any() else 1.0
-            for s in range(n_stacks)
-        ]
-    )
-    return grid, _iterate_well_charge(
-        poisson,
-        solution,
-        well,
-        max_well_iterations=max_well_iterations,
-        well_target=_well_charge_target(table, grid, mu_emitter_ev=mu_e, well_mass_m0=mass_w),
-        bias=bias,
-        fermi=fermi,
-        right=right,
-        abandon_below_cm2=(
-            None
-            if abandon_below_cm2 is None
-            else np.broadcast_to(abandon_below_cm2, bias.shape).copy()
-        ),
+    target = None
+    if np.any(well_nm > 0):
+        mass_w = np.array(
+            [
+                table.mass_m0[s, li[well_slices[s]]].min() if well_slices[s].any() else 1.0
+                for s in range(n_stacks)
+            ]
+        )
+        target = _well_charge_target(table, grid, mu_emitter_ev=mu_e, well_mass_m0=mass_w)
+    return _SolveSetup(
+        grid=grid,
+        mu_e=mu_e,
+        builtin_ev=builtin_offset_ev(table),
+        emitter_side=grid.center_nm < split[:, None],
+        frac=frac,
+        poisson=poisson,
+        target=target,
     )
 
 
