@@ -557,7 +557,8 @@ done:
    (local_peaks: v[i] > v[i-1] and v[i] >= v[i+1], ranked by T, ties by grid index), each
    refined from its node and neighbours (refine_grid_peaks: the rounds and end above, the
    brackets in numpy's nonzero order). out: n_profiles * n_max * 4 values (centre, width,
-   peak T, 1 where the slot holds a grid maximum; NaN centre, width and peak where not). */
+   peak T, 1 where the slot holds a grid maximum; where not, as refine_grid_peaks: the grid's
+   second energy, NaN width and peak). */
 static void grid_states(int n, const double *edge, const double *mass, const double *alpha,
                         const double *width, Py_ssize_t n_profiles, Py_ssize_t ne,
                         const double *grid, int n_max, int iterations, int extra_rounds,
@@ -574,8 +575,9 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
         double *o = out + g * n_max * 4;
         Py_ssize_t best[64];
         int found = 0;
-        for (int k = 0; k < n_max; k++) {
-            o[4 * k] = o[4 * k + 1] = o[4 * k + 2] = NAN;
+        for (int k = 0; k < n_max; k++) { /* an empty slot: the grid's second node, as numpy */
+            o[4 * k] = e[1];
+            o[4 * k + 1] = o[4 * k + 2] = NAN;
             o[4 * k + 3] = 0.0;
         }
         /* the n_max highest maxima, kept sorted by T (descending, earlier index first) */
@@ -963,7 +965,7 @@ static PyMethodDef methods[] = {
      " iterations, extra_rounds, loose_bracket, loose_fit, exact_peak, out)\n\n"
      "T on each profile's grid (energy: n_energy per profile), its n_max highest interior"
      " maxima refined as refine_peaks does; out (n_profiles, n_max, 4): centre, width, peak T,"
-     " 1.0 where the slot holds a maximum (NaN, NaN, NaN, 0.0 where not)."},
+     " 1.0 where the slot holds a maximum (the grid's second energy, NaN, NaN, 0.0 where not)."},
     {"poisson_newton", py_poisson_newton, METH_VARARGS,
      "poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,"
      " eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)\n\n"

@@ -380,8 +380,9 @@ def compiled_grid_states(
     Returns
     -------
     tuple or None
-        Centre, width and peak transmission (NaN where the slot holds no maximum) and
-        whether it holds one, each ``profile.batch_shape + (n_max,)``; None where the
+        Centre, width and peak transmission and whether the slot holds a maximum (where
+        not, as :func:`physics.resonances.refine_grid_peaks`: the grid's second energy, NaN
+        width and peak), each ``profile.batch_shape + (n_max,)``; None where the
         compiled routine is not in use (the caller runs the numpy statement).
     """
     states = compiled_kernel("grid_states")
