@@ -217,6 +217,10 @@ class _Geometry:
 
 
 def _at(a, i):
+    """``a[..., i]`` per batch entry: ``take_along_axis`` (a plain gather where the shapes agree)."""
+    if a.shape[:-1] == i.shape:
+        flat = a.reshape(-1, a.shape[-1])
+        return flat[np.arange(flat.shape[0]), i.reshape(-1)].reshape(i.shape)
     return np.take_along_axis(a, i[..., None], axis=-1)[..., 0]
 
 
@@ -269,6 +273,25 @@ def _i0e(x):
     return np.where(x < 700.0, np.exp(-inside) * np.i0(inside), beyond)
 
 
+#: :func:`_i0e` of the values met so far: its argument depends on the well's mass, the
+#: temperature and the roughness length only, so a sweep meets a few values many times
+_I0E_VALUES: dict[float, float] = {}
+
+
+def _i0e_of_values(x):
+    """:func:`_i0e` elementwise through :data:`_I0E_VALUES` (the same numbers)."""
+    x = np.asarray(x, float)
+    if not np.all(np.isfinite(x)):  # NaN is no key
+        return _i0e(x)
+    values, where = np.unique(x, return_inverse=True)
+    missing = [v for v in values.tolist() if v not in _I0E_VALUES]
+    if missing:
+        if len(_I0E_VALUES) > 4096:
+            _I0E_VALUES.clear()
+        _I0E_VALUES.update(zip(missing, _i0e(np.array(missing)).tolist(), strict=True))
+    return np.array([_I0E_VALUES[v] for v in values.tolist()])[where.reshape(-1)].reshape(x.shape)
+
+
 def _kinetic_ev(energy_ev, geo: _Geometry, *, edge, width):
     """A state's kinetic energy in the well ``e_w`` (eV, floored at 5 meV) and the well's
     width it spreads over (nm), both ``(..., L)``: over the part of the well where the state
@@ -319,7 +342,7 @@ def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, width, kt_ev,
     kt = ex(kt_ev)
     lam, delta = params.roughness_length_nm, params.roughness_height_nm
     m_over_hbar2 = m_w / (2.0 * HBAR2_2M0_EV_NM2)  # m / hbar^2, 1/(eV nm^2)
-    angle = _i0e(m_over_hbar2 * kt * lam**2)
+    angle = _i0e_of_values(m_over_hbar2 * kt * lam**2)
     gamma_ifr = np.pi * m_over_hbar2 * delta**2 * lam**2 * angle * 2.0 * (2.0 * e_w / w_eff) ** 2
     e_k = np.maximum(top1, 1e-3)
     floor2 = 16.0 * e_k * e_w**3 / (np.pi**2 * (e_w + e_k) ** 2)
