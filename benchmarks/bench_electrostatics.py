@@ -190,6 +190,27 @@ def breakdown(repeats: int) -> None:
         setattr(module, name, wrapper)
         return inner
 
+    def timed_steps(module, name, key):  # a factory whose products are timed
+        inner = getattr(module, name)
+
+        def factory(*a, **k):
+            return timed_callable(inner(*a, **k), key)
+
+        setattr(module, name, factory)
+        return inner
+
+    def timed_callable(fn, key):
+        def call(*a, **k):
+            t0 = time.perf_counter()
+            try:
+                return fn(*a, **k)
+            finally:
+                entry = clock.setdefault(key, [0, 0.0])
+                entry[0] += 1
+                entry[1] += time.perf_counter() - t0
+
+        return call
+
     class Compiled:  # every routine of the extension, timed
         def __init__(self, real):
             self.real = real
@@ -214,11 +235,16 @@ def breakdown(repeats: int) -> None:
         (iv, "_solve_at"): timed(iv, "_solve_at", "s.-c. solves (refinement)"),
         (iv, "solve_stack_poisson"): timed(iv, "solve_stack_poisson", "s.-c. solves (iv)"),
         (es, "solve_stack_poisson"): timed(es, "solve_stack_poisson", "s.-c. solves (profile)"),
-        (es, "well_sheet_density_cm2"): timed(es, "well_sheet_density_cm2", "well-charge steps"),
+        # the charge estimate of each well-charge step (the Poisson solve is the compiled
+        # poisson_newton below)
+        (es, "_well_charge_target"): timed_steps(
+            es, "_well_charge_target", "well-charge steps (charge estimate)"
+        ),
         (iv, "_current_of_profile"): timed(iv, "_current_of_profile", "current calls"),
     }
     real = tm._slices
     tm._slices = Compiled(real)
+    es._SETUPS.clear()  # solve setups made before the wrappers hold unwrapped steps
     try:
         for study, path in STUDIES.items():
             stack = load_stack(path)
@@ -232,13 +258,14 @@ def breakdown(repeats: int) -> None:
             print(f"{study} example, default model, per 61-point I-V ({1e3 * total:.0f} ms):")
             for key, (n, t) in sorted(clock.items(), key=lambda kv: -kv[1][1]):
                 print(
-                    f"  {key:34s} {n / repeats:7.1f} calls {1e3 * t / repeats:8.1f} ms"
+                    f"  {key:36s} {n / repeats:7.1f} calls {1e3 * t / repeats:8.1f} ms"
                     f" ({100 * t / repeats / total:4.1f} %)"
                 )
     finally:
         tm._slices = real
         for (module, name), fn in saved.items():
             setattr(module, name, fn)
+        es._SETUPS.clear()
 
 
 def before_after(ref: str, repeats: int) -> None:

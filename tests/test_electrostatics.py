@@ -413,3 +413,71 @@ def test_potential_carried_to_another_grid_keeps_a_linear_drop_exactly() -> None
     got = potential_on_grid(u, source_center_nm=src, target_center_nm=dst)
     np.testing.assert_allclose(got, slope[:, :, None] * dst[:, None, :] + 0.1, atol=1e-12)
     assert potential_on_grid(u, source_center_nm=src, target_center_nm=src.copy()) is u
+
+
+def test_well_charge_step_equals_the_estimate_both_polarities(monkeypatch) -> None:
+    # the iteration's per-solve well-charge step (_well_charge_target: fixed parts made once,
+    # the state search compiled) against well_sheet_density_cm2 on the same potentials, in a
+    # batch of three stacks (padding slices) and under reverse bias: the same numbers
+    from wellwright.physics import electrostatics as es
+
+    stack = load_stack(STUDY)
+    base = stack.table()
+    table = base.take([0, 0, 0]).with_thickness_nm(
+        base.thickness_nm[[0, 0, 0]] * np.array([[1.0], [1.1], [0.93]])
+    )
+    bias = np.array([-0.6, -0.3, 0.0, 0.25, 0.45, 0.7])
+    grid, sol = solve_stack_poisson(table, bias, well_charge=False)
+    mu = fermi_level_ev(
+        table.doping_cm3[:, 0], mass_m0=table.mass_m0[:, 0], temperature_k=table.temperature_k
+    )
+    mass_w = table.mass_m0[:, 3]
+    args = {"mu_emitter_ev": mu, "well_mass_m0": mass_w}
+    expected = es.well_sheet_density_cm2(
+        table, grid, potential_ev=sol.potential_ev, bias_v=bias, **args
+    )[0]
+    assert np.all(expected[:, 3:] > 0)  # states charged under forward bias
+    got = es._well_charge_target(table, grid, **args)(
+        sol.potential_ev, np.broadcast_to(bias, expected.shape)
+    )
+    np.testing.assert_array_equal(got, expected)
+    # where the compiled search is not in use the step is the estimate itself
+    monkeypatch.setattr(es, "compiled_kernel", lambda name: None)
+    fallback = es._well_charge_target(table, grid, **args)(
+        sol.potential_ev, np.broadcast_to(bias, expected.shape)
+    )
+    np.testing.assert_array_equal(fallback, expected)
+
+
+def test_solve_setup_kept_only_for_the_same_stacks_and_settings(monkeypatch) -> None:
+    # the setup of a solve is reused for stacks of equal values and equal settings (a sweep
+    # solves the same stacks many times) and made again when a value, a setting, a module
+    # constant it reads or the routines in use change; the solve's result is the same
+    from wellwright.physics import electrostatics as es
+
+    table = load_stack(STUDY).table()
+    bias = np.array([0.3])
+    monkeypatch.setattr(es, "_SETUPS", [])
+    made = []
+    real = es._make_setup
+
+    def counted(*a, **k):
+        made.append(1)
+        return real(*a, **k)
+
+    monkeypatch.setattr(es, "_make_setup", counted)
+    first = solve_stack_poisson(table, bias)[1]
+    again = solve_stack_poisson(table.take([0]), bias)[1]  # an equal table, another object
+    assert len(made) == 1
+    np.testing.assert_array_equal(again.potential_ev, first.potential_ev)
+    thicker = table.with_thickness_nm(table.thickness_nm * 1.01)
+    solve_stack_poisson(thicker, bias)
+    assert len(made) == 2
+    solve_stack_poisson(table, bias, tolerance_ev=1e-8)
+    assert len(made) == 3
+    monkeypatch.setattr(es, "WELL_SEARCH_EDGE_POWER", 1.0)
+    solve_stack_poisson(table, bias)
+    assert len(made) == 4
+    monkeypatch.setattr(es, "compiled_kernel", lambda name: None)
+    solve_stack_poisson(table, bias)
+    assert len(made) == 5

@@ -216,3 +216,58 @@ def test_compiled_poisson_newton_agrees(study: str, monkeypatch) -> None:
             _on_numpy(monkeypatch, run)
         with pytest.raises(ElectrostaticsConvergenceError, match="did not converge"):
             run()
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 2**31 - 1), bias=st.floats(-0.6, 0.6), power=st.sampled_from([1, 3]))
+def test_compiled_grid_states_agree(seed: int, bias: float, power: int) -> None:
+    # the state search of find_resonances (T on its grid, the highest maxima, their
+    # refinement) in one compiled call (grid_states) against its numpy statement, which
+    # calls the same compiled T(E) and refinement: the same numbers, bit for bit
+    from wellwright.physics import resonances
+    from wellwright.physics.resonances import find_resonances
+
+    rng = np.random.default_rng(seed)
+    barrier = rng.uniform(0.2, 1.2)
+    table = custom_table(
+        [0.0, barrier, 0.0, barrier, 0.0],
+        [0.067, 0.09, 0.067, 0.09, 0.067],
+        [0.0, rng.uniform(0.5, 6.0), rng.uniform(2.0, 16.0), rng.uniform(0.5, 6.0), 0.0],
+        alphas_per_ev=rng.uniform(0.0, 2.0, 5),
+    )
+    p = linear_profile(table, np.linspace(0.0, bias, 7))
+    n_max = int(rng.integers(1, 7))
+
+    def run():
+        return find_resonances(
+            p, energy_min_ev=-0.2, energy_max_ev=barrier, n_coarse=64, n_max=n_max, edge_power=power
+        )
+
+    got = run()
+    with pytest.MonkeyPatch().context() as m:
+        m.setattr(resonances, "compiled_grid_states", lambda *a, **k: None)
+        ref = run()
+    np.testing.assert_array_equal(got.valid, ref.valid)
+    for name in ("energy_ev", "width_ev", "peak_transmission"):
+        np.testing.assert_array_equal(getattr(got, name), getattr(ref, name))
+
+
+def test_grid_states_empty_slots_and_bad_input() -> None:
+    # below a single barrier T rises with energy, no interior maximum: every slot empty, its
+    # centre the grid's second energy (as refine_grid_peaks leaves it); inconsistent buffers
+    # raise instead of reading past them
+    p = flat_profile(np.array([0.0, 0.3, 0.0]), np.full(3, 0.067), np.array([0.0, 2.0, 0.0]))
+    grid = np.linspace(0.01, 0.25, 16)
+    c, w, t, valid = kernel.compiled_grid_states(
+        grid, profile=p, n_max=3, iterations=6, extra_rounds=6, loose_bracket=20.0,
+        loose_fit=20.0, exact_peak=True,
+    )  # fmt: skip
+    assert not valid.any() and np.all(c == grid[1]) and np.isnan(w).all() and np.isnan(t).all()
+    states = kernel._slices.grid_states
+    edge, mass, alpha, width = p.slice_arrays
+    with pytest.raises(ValueError, match="n_energy"):
+        states(3, 16, grid[:10], edge, mass, alpha, width, 1.0, 3, 6, 6, 20.0, 20.0, 1,
+               np.empty(12))  # fmt: skip
+    with pytest.raises(ValueError, match="n_energy"):
+        states(3, 16, grid, edge, mass, alpha, width, 1.0, 3, 6, 6, 20.0, 20.0, 1,
+               np.empty(11))  # fmt: skip
