@@ -853,9 +853,12 @@ def _stack_poisson_solver(
             g=g, w=w, donors=donors, offset=offset_si, mask=mask, nc=nc, kt=kt[:, 0]
         )
 
+    rows_of: dict = {}  # the Newton system's row of each entry, per bias count
+    well_in = well_slices[:, None, :]
+
     def poisson(start, well_cm2, fermi, right):
         fixed = np.where(
-            well_slices[:, None, :],
+            well_in,
             (well_cm2 / np.maximum(well_nm, 1e-9)[:, None] * 1e7)[:, :, None],
             0.0,
         )
@@ -864,11 +867,16 @@ def _stack_poisson_solver(
             u0 = np.array(np.broadcast_to(start, shape), dtype=float, order="C", copy=True)
             u0[..., 0] = 0.0
             u0[..., -1] = right
+            rows = rows_of.get(right.shape[1])
+            if rows is None:
+                rows = rows_of[right.shape[1]] = np.repeat(np.arange(n_stacks), right.shape[1])
             u, electrons, used = system.solve(
-                np.repeat(np.arange(n_stacks), right.shape[1]),
+                rows,
                 u0.reshape(-1, li.size),
-                np.broadcast_to(fermi, shape).reshape(-1, li.size),
-                (np.broadcast_to(fixed, shape) * 1e6).reshape(-1, li.size),
+                (fermi if fermi.shape == shape else np.broadcast_to(fermi, shape)).reshape(
+                    -1, li.size
+                ),
+                (fixed * 1e6).reshape(-1, li.size),
                 tolerance_ev=tolerance_ev,
                 max_iterations=max_iterations,
                 max_step_ev=max_step_ev,
@@ -1056,7 +1064,7 @@ def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
         else np.maximum.accumulate(np.where(real, np.arange(n_slices), 0), axis=-1)[:, None, :]
     )
     fixed_rows = (table.mass_m0[:, li], table.nonparabolicity_per_ev[:, li], grid.width_nm)
-    per_shape: dict = {}  # mass, alpha, width as the kernel reads them, per batch shape
+    per_shape: dict = {}  # fixed_of below, per batch shape
     kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None]
     kt3 = kt[..., None]
     mu_fwd = mu_emitter_ev[:, None]
@@ -1071,28 +1079,46 @@ def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
     )[..., None]
     inv_hb2 = 1.0 / HBAR2_2M0_EV_NM2
 
-    def target(potential_ev, bias_v):
-        if source is not None:
-            potential_ev = np.take_along_axis(
-                potential_ev, np.broadcast_to(source, potential_ev.shape), axis=-1
+    def fixed_of(shape):
+        """The step's parts fixed for a batch shape: the kernel's mass, nonparabolicity and
+        width rows, the padding nodes' index and the forward-bias search window."""
+        n_stacks, n_biases = shape[:2]
+        rows = tuple(
+            np.ascontiguousarray(np.broadcast_to(a[:, None, :], shape)) for a in fixed_rows
+        )
+        pick = None
+        if source is not None:  # take_along_axis's index, made once
+            pick = (
+                np.arange(n_stacks)[:, None, None],
+                np.arange(n_biases)[None, :, None],
+                np.broadcast_to(source, shape),
             )
-        edge_ev = np.ascontiguousarray(base + potential_ev)
-        shape = edge_ev.shape
-        rest = per_shape.get(shape)
-        if rest is None:
-            rest = per_shape[shape] = tuple(
-                np.ascontiguousarray(np.broadcast_to(a[:, None, :], shape)) for a in fixed_rows
-            )
-        bias = np.asarray(bias_v, float)
-        forward = bias >= 0
-        if np.all(forward):
-            mu, edge = np.broadcast_to(mu_fwd, bias.shape), np.zeros(bias.shape)
-        else:
-            mu = np.where(forward, mu_fwd, mu_fwd - bias)
-            edge = np.where(forward, 0.0, edge_ev[..., -1])
+        mu = np.broadcast_to(mu_fwd, shape[:-1])
+        edge = np.zeros(shape[:-1])
         lo = edge + 1e-6
         hi = mu + 12.0 * kt
         energy = lo[..., None] + (hi - lo)[..., None] * u
+        return rows, pick, (mu, edge, energy)
+
+    def target(potential_ev, bias_v):
+        shape = potential_ev.shape
+        fixed = per_shape.get(shape)
+        if fixed is None:
+            fixed = per_shape[shape] = fixed_of(shape)
+        rest, pick, forward_window = fixed
+        if pick is not None:
+            potential_ev = potential_ev[pick]
+        edge_ev = np.ascontiguousarray(base + potential_ev)
+        bias = np.asarray(bias_v, float)
+        if np.all(bias >= 0):
+            mu, edge, energy = forward_window
+        else:
+            forward = bias >= 0
+            mu = np.where(forward, mu_fwd, mu_fwd - bias)
+            edge = np.where(forward, 0.0, edge_ev[..., -1])
+            lo = edge + 1e-6
+            hi = mu + 12.0 * kt
+            energy = lo[..., None] + (hi - lo)[..., None] * u
         out = np.empty(shape[:-1] + (4, 4))
         states(
             n_slices, 64, energy, edge_ev, *rest, inv_hb2, 4, 6, EXTRA_ROUNDS, LOOSE_BRACKET,
