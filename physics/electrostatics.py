@@ -65,6 +65,7 @@ References
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, fields, replace
 from typing import TYPE_CHECKING
 
@@ -620,8 +621,9 @@ class _SolveSetup:
     builtin_ev: np.ndarray  #: :func:`physics.bands.builtin_offset_ev`
     emitter_side: np.ndarray  #: nodes on the emitter's side of the split
     frac: np.ndarray  #: the linear start's fraction of the drop at each node
-    poisson: object  #: :func:`_stack_poisson_solver`
-    target: object  #: :func:`_well_charge_target`; None where no stack has a well
+    poisson: Callable[..., PoissonSolution]  #: :func:`_stack_poisson_solver`
+    #: :func:`_well_charge_target`; None where no stack has a well
+    target: Callable[[np.ndarray, np.ndarray], np.ndarray] | None
 
 
 #: Setups of the last few solves (a sweep solves the same stacks 20 to 30 times: its main
