@@ -1031,20 +1031,17 @@ class _WellChargeRoot:
 def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
     """``target(potential_ev, bias_v)``: the first output of :func:`well_sheet_density_cm2`
     (the same numbers, tested), its parts that do not change during a solve made once and
-    the state search in one compiled call (``grid_states``); the function itself where that
-    routine is not in use.
+    the state search in one compiled call (``grid_states``, :class:`_WellChargeStep`); the
+    function itself where that routine is not in use.
 
     Parameters
     ----------
     table, grid, mu_emitter_ev, well_mass_m0
         As for :func:`well_sheet_density_cm2`.
     """
-    from .constants import ELECTRON_MASS_KG, HBAR2_2M0_EV_NM2, HBAR_J_S
-    from .resonances import EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT
-
     states = compiled_kernel("grid_states")
-    profile_of = profile_builder(table, grid)
     if states is None:
+        profile_of = profile_builder(table, grid)
         return lambda potential_ev, bias_v: well_sheet_density_cm2(
             table,
             grid,
@@ -1054,88 +1051,99 @@ def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
             well_mass_m0=well_mass_m0,
             profile_of=profile_of,
         )[0]
-    # the fixed parts of well_sheet_density_cm2 and of the profiles (profile_builder)
-    li = grid.layer_index
-    n_slices = li.size
-    base = np.ascontiguousarray((table.edge_ev - table.edge_ev[:, :1])[:, li][:, None, :])
-    real = grid.width_nm > 0
-    real[:, [0, -1]] = True
-    source = (
-        None
-        if np.all(real)
-        else np.maximum.accumulate(np.where(real, np.arange(n_slices), 0), axis=-1)[:, None, :]
+    return _WellChargeStep(
+        table, grid, mu_emitter_ev=mu_emitter_ev, well_mass_m0=well_mass_m0, states=states
     )
-    fixed_rows = (table.mass_m0[:, li], table.nonparabolicity_per_ev[:, li], grid.width_nm)
-    per_shape: dict = {}  # fixed_of below, per batch shape
-    kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None]
-    kt3 = kt[..., None]
-    mu_fwd = mu_emitter_ev[:, None]
-    u = np.linspace(0.0, 1.0, 64) ** WELL_SEARCH_EDGE_POWER
-    n2d_cm2 = (
-        well_mass_m0[:, None]
-        * ELECTRON_MASS_KG
-        * kt
-        * ELEMENTARY_CHARGE_C
-        / (np.pi * HBAR_J_S**2)
-        * 1e-4
-    )[..., None]
-    inv_hb2 = 1.0 / HBAR2_2M0_EV_NM2
 
-    def fixed_of(shape):
+
+class _WellChargeStep:
+    """:func:`well_sheet_density_cm2`'s charge for one solve's stacks, called once per
+    well-charge step: the profile arrays (:func:`physics.bands.profile_builder`'s), the
+    constants and, per batch shape, the kernel's rows and the forward-bias search window are
+    made once; the state search is the compiled ``grid_states``; the same arithmetic."""
+
+    def __init__(self, table, grid, *, mu_emitter_ev, well_mass_m0, states):
+        from .constants import ELECTRON_MASS_KG, HBAR2_2M0_EV_NM2, HBAR_J_S
+        from .resonances import EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT
+
+        li = grid.layer_index
+        self.n_slices = li.size
+        self.base = np.ascontiguousarray((table.edge_ev - table.edge_ev[:, :1])[:, li][:, None, :])
+        real = grid.width_nm > 0
+        real[:, [0, -1]] = True
+        self.source = (
+            None
+            if np.all(real)
+            else np.maximum.accumulate(np.where(real, np.arange(li.size), 0), axis=-1)[:, None, :]
+        )
+        self.fixed_rows = (table.mass_m0[:, li], table.nonparabolicity_per_ev[:, li], grid.width_nm)
+        self.per_shape: dict = {}  # _fixed_of, per batch shape
+        self.kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None]
+        self.kt3 = self.kt[..., None]
+        self.mu_fwd = mu_emitter_ev[:, None]
+        self.u = np.linspace(0.0, 1.0, 64) ** WELL_SEARCH_EDGE_POWER
+        self.n2d_cm2 = (
+            well_mass_m0[:, None]
+            * ELECTRON_MASS_KG
+            * self.kt
+            * ELEMENTARY_CHARGE_C
+            / (np.pi * HBAR_J_S**2)
+            * 1e-4
+        )[..., None]
+        self.states = states
+        self.settings = (1.0 / HBAR2_2M0_EV_NM2, 4, 6, EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT, 1)
+
+    def _window(self, mu, edge):
+        """The search grid of well_sheet_density_cm2 (find_resonances with 64 nodes)."""
+        lo = edge + 1e-6
+        hi = mu + 12.0 * self.kt
+        return lo[..., None] + (hi - lo)[..., None] * self.u
+
+    def _fixed_of(self, shape):
         """The step's parts fixed for a batch shape: the kernel's mass, nonparabolicity and
         width rows, the padding nodes' index and the forward-bias search window."""
         n_stacks, n_biases = shape[:2]
         rows = tuple(
-            np.ascontiguousarray(np.broadcast_to(a[:, None, :], shape)) for a in fixed_rows
+            np.ascontiguousarray(np.broadcast_to(a[:, None, :], shape)) for a in self.fixed_rows
         )
         pick = None
-        if source is not None:  # take_along_axis's index, made once
+        if self.source is not None:  # take_along_axis's index, made once
             pick = (
                 np.arange(n_stacks)[:, None, None],
                 np.arange(n_biases)[None, :, None],
-                np.broadcast_to(source, shape),
+                np.broadcast_to(self.source, shape),
             )
-        mu = np.broadcast_to(mu_fwd, shape[:-1])
+        mu = np.broadcast_to(self.mu_fwd, shape[:-1])
         edge = np.zeros(shape[:-1])
-        lo = edge + 1e-6
-        hi = mu + 12.0 * kt
-        energy = lo[..., None] + (hi - lo)[..., None] * u
-        return rows, pick, (mu, edge, energy)
+        return rows, pick, (mu, edge, self._window(mu, edge))
 
-    def target(potential_ev, bias_v):
+    def __call__(self, potential_ev, bias_v):
         shape = potential_ev.shape
-        fixed = per_shape.get(shape)
+        fixed = self.per_shape.get(shape)
         if fixed is None:
-            fixed = per_shape[shape] = fixed_of(shape)
-        rest, pick, forward_window = fixed
+            fixed = self.per_shape[shape] = self._fixed_of(shape)
+        rows, pick, forward_window = fixed
         if pick is not None:
             potential_ev = potential_ev[pick]
-        edge_ev = np.ascontiguousarray(base + potential_ev)
+        edge_ev = np.ascontiguousarray(self.base + potential_ev)
         bias = np.asarray(bias_v, float)
         if np.all(bias >= 0):
             mu, edge, energy = forward_window
         else:
             forward = bias >= 0
-            mu = np.where(forward, mu_fwd, mu_fwd - bias)
+            mu = np.where(forward, self.mu_fwd, self.mu_fwd - bias)
             edge = np.where(forward, 0.0, edge_ev[..., -1])
-            lo = edge + 1e-6
-            hi = mu + 12.0 * kt
-            energy = lo[..., None] + (hi - lo)[..., None] * u
+            energy = self._window(mu, edge)
         out = np.empty(shape[:-1] + (4, 4))
-        states(
-            n_slices, 64, energy, edge_ev, *rest, inv_hb2, 4, 6, EXTRA_ROUNDS, LOOSE_BRACKET,
-            LOOSE_FIT, 1, out,
-        )  # fmt: skip
+        self.states(self.n_slices, 64, energy, edge_ev, *rows, *self.settings, out)
         width, peak = out[..., 1], out[..., 2]
         ok = (out[..., 3] > 0.0) & np.isfinite(width) & (width > 0)
         e1 = np.where(ok, out[..., 0], 0.0)
         tp = np.where(ok, peak, 0.0)
         fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.clip(tp, 0.0, 1.0)))
-        fraction = fraction * -np.expm1(-np.maximum(e1 - edge[..., None], 0.0) / kt3)
-        supply = fermi_dirac_zero((mu[..., None] - e1) / kt3)
-        return np.sum(np.where(ok, fraction * n2d_cm2 * supply, 0.0), axis=-1)
-
-    return target
+        fraction = fraction * -np.expm1(-np.maximum(e1 - edge[..., None], 0.0) / self.kt3)
+        supply = fermi_dirac_zero((mu[..., None] - e1) / self.kt3)
+        return np.sum(np.where(ok, fraction * self.n2d_cm2 * supply, 0.0), axis=-1)
 
 
 def well_sheet_density_cm2(
