@@ -31,10 +31,11 @@
  *   refine_peaks(..., exact_peak, out): the same, then the end of refine_bracketed (centre,
  *                width and peak T of each line into out, 3 n values).
  *   grid_states(n_slices, n_energy, energy, edge, mass, alpha, width, inv_hb2, n_max,
- *               iterations, extra_rounds, loose_bracket, loose_fit, exact_peak, out)
+ *               n_first, iterations, extra_rounds, loose_bracket, loose_fit, exact_peak, out)
  * find_resonances of physics/resonances.py after its grid is made: T on each profile's
- * grid, the n_max highest local maxima, each refined as refine_peaks does (one call per
- * well-charge step of the self-consistent model instead of a dozen numpy steps).
+ * grid, the n_max highest local maxima and the n_first first ones, each refined as
+ * refine_peaks does (one call per well-charge step of the self-consistent model instead of a
+ * dozen numpy steps).
  *   poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,
  *                  eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)
  * the damped Newton iteration of physics/electrostatics.py (solve_poisson_1d), entry by entry.
@@ -554,14 +555,15 @@ done:
 
 /* ---- states on a coarse grid (physics/resonances.py: find_resonances after its grid) ----
    T on each profile's own grid of ne energies, the n_max highest interior local maxima
-   (local_peaks: v[i] > v[i-1] and v[i] >= v[i+1], ranked by T, ties by grid index), each
+   (local_peaks: v[i] > v[i-1] and v[i] >= v[i+1], ranked by T, ties by grid index), then
+   the n_first first ones along the grid (local_peaks with first=True), each
    refined from its node and neighbours (refine_grid_peaks: the rounds and end above, the
-   brackets in numpy's nonzero order). out: n_profiles * n_max * 4 values (centre, width,
-   peak T, 1 where the slot holds a grid maximum; where not, as refine_grid_peaks: the grid's
+   brackets in numpy's nonzero order). out: n_profiles * (n_max + n_first) * 4 values
+   (centre, width, peak T, 1 where the slot holds a grid maximum; where not, as refine_grid_peaks: the grid's
    second energy, NaN width and peak). */
 static void grid_states(int n, const double *edge, const double *mass, const double *alpha,
                         const double *width, Py_ssize_t n_profiles, Py_ssize_t ne,
-                        const double *grid, int n_max, int iterations, int extra_rounds,
+                        const double *grid, int n_max, int n_first, int iterations, int extra_rounds,
                         double loose_bracket, double loose_fit, int exact_peak, double inv_hb2,
                         double *t_grid, int64_t *peak_rows, double *x, double *y,
                         Py_ssize_t *slot, Py_ssize_t *active, double *h_buf, double *u_buf,
@@ -572,10 +574,11 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
     Py_ssize_t n_peaks = 0;
     for (Py_ssize_t g = 0; g < n_profiles; g++) {
         const double *v = t_grid + g * ne, *e = grid + g * ne;
-        double *o = out + g * n_max * 4;
-        Py_ssize_t best[64];
-        int found = 0;
-        for (int k = 0; k < n_max; k++) { /* an empty slot: the grid's second node, as numpy */
+        const int n_slots = n_max + n_first;
+        double *o = out + g * n_slots * 4;
+        Py_ssize_t best[128];
+        int found = 0, n_found_first = 0;
+        for (int k = 0; k < n_slots; k++) { /* an empty slot: the grid's second node, as numpy */
             o[4 * k] = e[1];
             o[4 * k + 1] = o[4 * k + 2] = NAN;
             o[4 * k + 3] = 0.0;
@@ -583,6 +586,9 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
         /* the n_max highest maxima, kept sorted by T (descending, earlier index first) */
         for (Py_ssize_t i = 1; i + 1 < ne; i++) {
             if (!(v[i] > v[i - 1] && v[i] >= v[i + 1])) continue;
+            if (n_found_first < n_first) /* the first n_first maxima, after the tallest */
+                best[n_max + n_found_first++] = i;
+            if (n_max == 0) continue;
             int q = found < n_max ? found : n_max;
             if (q == n_max && !(v[i] > v[best[n_max - 1]])) continue;
             if (q == n_max) q--;
@@ -593,14 +599,15 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
             best[q] = i;
             if (found < n_max) found++;
         }
-        for (int k = 0; k < found; k++) {
+        for (int k = 0; k < n_slots; k++) {
+            if (k < n_max ? k >= found : k - n_max >= n_found_first) continue;
             const Py_ssize_t i = best[k];
             for (int c = 0; c < 3; c++) {
                 x[3 * n_peaks + c] = e[i - 1 + c];
                 y[3 * n_peaks + c] = 1.0 / max_nan(v[i - 1 + c], 1e-150);
             }
             peak_rows[n_peaks] = g;
-            slot[n_peaks++] = g * n_max + k;
+            slot[n_peaks++] = g * n_slots + k;
             o[4 * k + 3] = 1.0;
         }
     }
@@ -616,15 +623,15 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
 
 static PyObject *py_grid_states(PyObject *self, PyObject *args)
 {
-    int n, n_max, iterations, extra_rounds, exact_peak;
+    int n, n_max, n_first, iterations, extra_rounds, exact_peak;
     Py_ssize_t ne;
     double inv_hb2, loose_bracket, loose_fit;
     Py_buffer be = {0}, bv = {0}, bm = {0}, ba = {0}, bw = {0}, bo = {0};
     PyObject *result = NULL;
     void *work = NULL;
     (void)self;
-    if (!PyArg_ParseTuple(args, "iny*y*y*y*y*diiiddiw*", &n, &ne, &be, &bv, &bm, &ba, &bw,
-                          &inv_hb2, &n_max, &iterations, &extra_rounds, &loose_bracket,
+    if (!PyArg_ParseTuple(args, "iny*y*y*y*y*diiiiddiw*", &n, &ne, &be, &bv, &bm, &ba, &bw,
+                          &inv_hb2, &n_max, &n_first, &iterations, &extra_rounds, &loose_bracket,
                           &loose_fit, &exact_peak, &bo))
         return NULL;
     if (!(need_double(&be, "energy") && need_double(&bv, "edge") && need_double(&bm, "mass") &&
@@ -637,14 +644,15 @@ static PyObject *py_grid_states(PyObject *self, PyObject *args)
         goto done;
     }
     const Py_ssize_t n_profiles = n_slice_values / n;
-    if (ne < 3 || n_max < 1 || n_max > 64 || iterations < 0 || extra_rounds < 0 ||
-        be.len != n_profiles * ne * 8 || bo.len != n_profiles * n_max * 4 * 8) {
-        PyErr_SetString(PyExc_ValueError,
-                        "energy: n_energy >= 3 values per profile; out: 4 n_max per profile");
+    if (ne < 3 || n_max < 0 || n_max > 64 || n_first < 0 || n_first > 64 ||
+        n_max + n_first < 1 || iterations < 0 || extra_rounds < 0 ||
+        be.len != n_profiles * ne * 8 || bo.len != n_profiles * (n_max + n_first) * 4 * 8) {
+        PyErr_SetString(PyExc_ValueError, "energy: n_energy >= 3 values per profile; out: "
+                                          "4 (n_max + n_first) per profile, each 0 to 64");
         goto done;
     }
     if (n_profiles > 0) {
-        const size_t n_peaks = (size_t)n_profiles * (size_t)n_max;
+        const size_t n_peaks = (size_t)n_profiles * (size_t)(n_max + n_first);
         /* t_grid: n_profiles ne; peak_rows, slot, active, h, u, n_probe(int): n_peaks each;
            x, y, energy, rows, t, fit: 3 n_peaks each */
         const size_t bytes = (size_t)n_profiles * (size_t)ne * 8 + n_peaks * (5 * 8 + sizeof(int)) +
@@ -681,7 +689,8 @@ static PyObject *py_grid_states(PyObject *self, PyObject *args)
         p += n_peaks * 24;
         int *n_probe = (int *)p;
         Py_BEGIN_ALLOW_THREADS
-        grid_states(n, bv.buf, bm.buf, ba.buf, bw.buf, n_profiles, ne, be.buf, n_max, iterations,
+        grid_states(n, bv.buf, bm.buf, ba.buf, bw.buf, n_profiles, ne, be.buf, n_max, n_first,
+                    iterations,
                     extra_rounds, loose_bracket, loose_fit, exact_peak, inv_hb2, t_grid,
                     peak_rows, x, y, slot, active, h_buf, u_buf, energy, rows, t, n_probe, fit,
                     bo.buf);
@@ -961,10 +970,11 @@ static PyMethodDef methods[] = {
      "refine_brackets, then the end of physics.resonances.refine_bracketed: out (n, 3) gets"
      " each line's centre, width and peak transmission."},
     {"grid_states", py_grid_states, METH_VARARGS,
-     "grid_states(n_slices, n_energy, energy, edge, mass, alpha, width, inv_hb2, n_max,"
+     "grid_states(n_slices, n_energy, energy, edge, mass, alpha, width, inv_hb2, n_max, n_first,"
      " iterations, extra_rounds, loose_bracket, loose_fit, exact_peak, out)\n\n"
      "T on each profile's grid (energy: n_energy per profile), its n_max highest interior"
-     " maxima refined as refine_peaks does; out (n_profiles, n_max, 4): centre, width, peak T,"
+     " maxima and n_first first ones refined as refine_peaks does; out (n_profiles, n_max +"
+     " n_first, 4): centre, width, peak T,"
      " 1.0 where the slot holds a maximum (the grid's second energy, NaN, NaN, 0.0 where not)."},
     {"poisson_newton", py_poisson_newton, METH_VARARGS,
      "poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,"

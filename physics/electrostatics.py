@@ -1091,7 +1091,7 @@ class _WellChargeStep:
             * 1e-4
         )[..., None]
         self.states = states
-        self.settings = (1.0 / HBAR2_2M0_EV_NM2, 4, 6, EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT, 1)
+        self.settings = (1.0 / HBAR2_2M0_EV_NM2, 4, 0, 6, EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT, 1)
 
     def _window(self, mu, edge):
         """The search grid of well_sheet_density_cm2 (find_resonances with 64 nodes)."""

@@ -361,6 +361,7 @@ def compiled_grid_states(
     loose_bracket: float,
     loose_fit: float,
     exact_peak: bool,
+    n_first: int = 0,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
     """T on a grid per profile, its ``n_max`` highest local maxima and their refinement
     (:func:`physics.resonances.local_peaks` and :func:`physics.resonances.refine_grid_peaks`,
@@ -373,24 +374,31 @@ def compiled_grid_states(
     profile
         Band profiles.
     n_max
-        Slots per profile (the highest maxima first).
+        Slots for the highest maxima per profile, highest first.
     iterations, extra_rounds, loose_bracket, loose_fit, exact_peak
         As for :func:`compiled_refine_peaks`.
+    n_first
+        Further slots, after those: the first maxima along the grid
+        (:func:`physics.resonances.local_peaks` with ``first=True``).
 
     Returns
     -------
     tuple or None
         Centre, width and peak transmission and whether the slot holds a maximum (where
         not, as :func:`physics.resonances.refine_grid_peaks`: the grid's second energy, NaN
-        width and peak), each ``profile.batch_shape + (n_max,)``; None where the
+        width and peak), each ``profile.batch_shape + (n_max + n_first,)``; None where the
         compiled routine is not in use (the caller runs the numpy statement).
     """
     states = compiled_kernel("grid_states")
-    if states is None or not 1 <= n_max <= 64 or grid_ev.shape[-1] < 3:
+    if (
+        states is None
+        or not (0 <= n_max <= 64 and 0 <= n_first <= 64 and n_max + n_first >= 1)
+        or grid_ev.shape[-1] < 3
+    ):
         return None
     batch = profile.batch_shape
     energy = np.ascontiguousarray(np.broadcast_to(grid_ev, batch + grid_ev.shape[-1:]), float)
-    out = np.empty(batch + (n_max, 4))
+    out = np.empty(batch + (n_max + n_first, 4))
     states(
         profile.n_slices,
         energy.shape[-1],
@@ -398,6 +406,7 @@ def compiled_grid_states(
         *profile.slice_arrays,
         1.0 / HBAR2_2M0_EV_NM2,
         int(n_max),
+        int(n_first),
         int(iterations),
         int(extra_rounds),
         float(loose_bracket),

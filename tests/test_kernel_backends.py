@@ -252,6 +252,46 @@ def test_compiled_grid_states_agree(seed: int, bias: float, power: int) -> None:
         np.testing.assert_array_equal(getattr(got, name), getattr(ref, name))
 
 
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 2**31 - 1), n_max=st.integers(0, 4), n_first=st.integers(0, 4))
+def test_compiled_grid_states_first_maxima(seed: int, n_max: int, n_first: int) -> None:
+    # the highest maxima, then the first ones along the grid, each refined: against the same
+    # steps in numpy (local_peaks, the first maxima picked by hand, refine_grid_peaks)
+    from wellwright.physics.resonances import local_peaks, refine_grid_peaks
+
+    if n_max + n_first == 0:
+        return
+    rng = np.random.default_rng(seed)
+    barrier = rng.uniform(0.3, 1.0)
+    table = custom_table(
+        [0.0, barrier, 0.0, barrier, 0.0],
+        [0.067, 0.09, 0.067, 0.09, 0.067],
+        [0.0, rng.uniform(0.5, 4.0), rng.uniform(8.0, 20.0), rng.uniform(0.5, 4.0), 0.0],
+    )
+    p = linear_profile(table, np.linspace(0.0, 0.3, 5))
+    grid = np.broadcast_to(np.linspace(0.005, barrier, 48), p.batch_shape + (48,))
+    got = kernel.compiled_grid_states(
+        grid, profile=p, n_max=n_max, n_first=n_first, iterations=6, extra_rounds=6,
+        loose_bracket=20.0, loose_fit=20.0, exact_peak=True,
+    )  # fmt: skip
+    t = transmission(grid, profile=p, backend="compiled")
+    tall, tall_ok = local_peaks(t, max(n_max, 1))
+    tall, tall_ok = tall[..., :n_max], tall_ok[..., :n_max]
+    inner = (t[..., 1:-1] > t[..., :-2]) & (t[..., 1:-1] >= t[..., 2:])
+    first = np.ones(p.batch_shape + (n_first,), int)
+    first_ok = np.zeros(first.shape, bool)
+    for row in np.ndindex(p.batch_shape):
+        found = (np.nonzero(inner[row])[0] + 1)[:n_first]
+        first[row][: found.size], first_ok[row][: found.size] = found, True
+    index = np.concatenate([tall, first], axis=-1)
+    valid = np.concatenate([tall_ok, first_ok], axis=-1)
+    ref = refine_grid_peaks(grid, t=t, index=index, valid=valid, profile=p)
+    np.testing.assert_array_equal(got[3], valid)
+    for a, b in zip(got[:3], ref, strict=True):
+        np.testing.assert_array_equal(a, b)
+    assert n_first == 0 or valid[..., n_max:].any()  # the first maxima are there
+
+
 def test_grid_states_empty_slots_and_bad_input() -> None:
     # below a single barrier T rises with energy, no interior maximum: every slot empty, its
     # centre the grid's second energy (as refine_grid_peaks leaves it); inconsistent buffers
@@ -266,8 +306,8 @@ def test_grid_states_empty_slots_and_bad_input() -> None:
     states = kernel._slices.grid_states
     edge, mass, alpha, width = p.slice_arrays
     with pytest.raises(ValueError, match="n_energy"):
-        states(3, 16, grid[:10], edge, mass, alpha, width, 1.0, 3, 6, 6, 20.0, 20.0, 1,
+        states(3, 16, grid[:10], edge, mass, alpha, width, 1.0, 3, 0, 6, 6, 20.0, 20.0, 1,
                np.empty(12))  # fmt: skip
     with pytest.raises(ValueError, match="n_energy"):
-        states(3, 16, grid, edge, mass, alpha, width, 1.0, 3, 6, 6, 20.0, 20.0, 1,
+        states(3, 16, grid, edge, mass, alpha, width, 1.0, 3, 0, 6, 6, 20.0, 20.0, 1,
                np.empty(11))  # fmt: skip
