@@ -36,6 +36,9 @@
  * grid, the n_max highest local maxima and the n_first first ones, each refined as
  * refine_peaks does (one call per well-charge step of the self-consistent model instead of a
  * dozen numpy steps).
+ *   well_root_step(state, well, residual, target, done, has_previous, mixing, tolerance,
+ *                  abs_cm2)
+ * one step of the well-charge root search of physics/electrostatics.py (_WellChargeRoot).
  *   poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,
  *                  eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)
  * the damped Newton iteration of physics/electrostatics.py (solve_poisson_1d), entry by entry.
@@ -709,6 +712,116 @@ done:
     return result;
 }
 
+/* ---- well-charge root step (physics/electrostatics.py: _WellChargeRoot.next_well) ----
+   One step of the secant / Illinois regula falsi search for F(n) = n of every entry, the
+   same arithmetic as the numpy statement (which stays the reference; tests compare the
+   two bit for bit). No fused multiply-add: a * b + c rounds as numpy's two operations. */
+#if defined(__GNUC__) && !defined(__clang__)
+#define WW_NO_FMA __attribute__((optimize("fp-contract=off")))
+#else
+#define WW_NO_FMA
+#endif
+
+enum { R_LO, R_RLO, R_LOKNOWN, R_HI, R_RHI, R_SIDE, R_REOPENED, R_SETTLED, R_FROZEN, R_PUSH,
+       R_PREVW, R_PREVR, R_ROWS };
+
+WW_NO_FMA
+static int root_step(Py_ssize_t n_entries, double *st, double *well, const double *residual,
+                     const double *target, const double *done, int has_previous, double mixing,
+                     double tolerance, double abs_cm2)
+{
+    int any_collapsed = 0;
+#define S(row) st[(row) * n_entries + e]
+    for (Py_ssize_t e = 0; e < n_entries; e++) {
+        const double w = well[e], r = residual[e], tg = target[e];
+        const int dn = done[e] != 0.0;
+        const int up = r >= 0.0;
+        const int moved_lo = !dn && up && (w >= S(R_LO));
+        const int moved_hi = !dn && !up && (w <= S(R_HI));
+        if (moved_lo) {
+            S(R_LOKNOWN) = 1.0;
+            S(R_LO) = w;
+            S(R_RLO) = r;
+        }
+        if (moved_hi) {
+            S(R_HI) = w;
+            S(R_RHI) = r;
+        }
+        const double side = moved_lo ? 1.0 : (moved_hi ? -1.0 : 0.0);
+        if (side == 1.0 && S(R_SIDE) == 1.0) S(R_RHI) = 0.5 * S(R_RHI); /* stale end: halve */
+        if (side == -1.0 && S(R_SIDE) == -1.0) S(R_RLO) = 0.5 * S(R_RLO);
+        if (side != 0.0) S(R_SIDE) = side;
+        double candidate = w + mixing * r;
+        if (has_previous) {
+            const double d_well = w - S(R_PREVW), d_res = r - S(R_PREVR);
+            if (fabs(d_well) > 0.0 && d_res != 0.0) candidate = w - r * d_well / d_res;
+        }
+        const double lo = S(R_LO), hi = S(R_HI), r_lo = S(R_RLO), r_hi = S(R_RHI);
+        const double ceiling = 4.0 * max_nan(tg, w) + abs_cm2;
+        const int open_ok = isfinite(candidate) && candidate > lo && candidate < ceiling;
+        const int bracketed = isfinite(hi);
+        const double denom = bracketed ? r_lo - r_hi : 1.0;
+        const double falsi = (S(R_LOKNOWN) != 0.0 && denom > 0.0)
+                                 ? (lo * -r_hi + (bracketed ? hi : 0.0) * r_lo) / denom
+                                 : 0.5 * (lo + hi);
+        S(R_PREVW) = w;
+        S(R_PREVR) = r;
+        const int creeping = !bracketed && !open_ok && r > 0.0;
+        S(R_PUSH) = creeping ? 2.0 * S(R_PUSH) : 1.0;
+        const double fallback = min_nan(w + S(R_PUSH) * r, max_nan(ceiling, tg));
+        const double step = bracketed ? falsi : (open_ok ? candidate : fallback);
+        double next = dn ? w : step;
+        /* a collapsed bracket with a large residual: reopened once, then settled at the jump */
+        if (bracketed && (hi - lo) <= tolerance * fabs(hi) + abs_cm2 && !dn) {
+            any_collapsed = 1;
+            if (S(R_REOPENED) != 0.0) {
+                S(R_FROZEN) = 0.5 * (lo + hi);
+                S(R_SETTLED) = 1.0;
+            } else {
+                S(R_REOPENED) = 1.0;
+                S(R_LO) = 0.0;
+                S(R_LOKNOWN) = 0.0;
+                S(R_HI) = INFINITY;
+                S(R_SIDE) = 0.0;
+                next = tg;
+            }
+        }
+        if (S(R_SETTLED) != 0.0) next = S(R_FROZEN);
+        well[e] = next;
+    }
+#undef S
+    return any_collapsed ? 0 : 1; /* a collapse forgets every entry's previous step */
+}
+
+static PyObject *py_well_root_step(PyObject *self, PyObject *args)
+{
+    int has_previous;
+    double mixing, tolerance, abs_cm2;
+    Py_buffer bs = {0}, bw = {0}, br = {0}, bt = {0}, bd = {0};
+    PyObject *result = NULL;
+    (void)self;
+    if (!PyArg_ParseTuple(args, "w*w*y*y*y*iddd", &bs, &bw, &br, &bt, &bd, &has_previous, &mixing,
+                          &tolerance, &abs_cm2))
+        return NULL;
+    if (!(need_double(&bs, "state") && need_double(&bw, "well") && need_double(&br, "residual") &&
+          need_double(&bt, "target") && need_double(&bd, "done")))
+        goto done;
+    const Py_ssize_t n_entries = bw.len / (Py_ssize_t)sizeof(double);
+    if (br.len != bw.len || bt.len != bw.len || bd.len != bw.len || bs.len != R_ROWS * bw.len) {
+        PyErr_SetString(PyExc_ValueError, "well, residual, target, done: n values; state: 12 n");
+        goto done;
+    }
+    result = PyLong_FromLong(root_step(n_entries, bs.buf, bw.buf, br.buf, bt.buf, bd.buf,
+                                       has_previous, mixing, tolerance, abs_cm2));
+done:
+    PyBuffer_Release(&bs);
+    PyBuffer_Release(&bw);
+    PyBuffer_Release(&br);
+    PyBuffer_Release(&bt);
+    PyBuffer_Release(&bd);
+    return result;
+}
+
 /* ---- Poisson-Newton (physics/electrostatics.py: solve_poisson_1d) ----
    The damped Newton iteration of the finite-volume Poisson equation with Thomas-Fermi
    electrons, one batch entry at a time (each entry stops when its own largest update is
@@ -976,6 +1089,13 @@ static PyMethodDef methods[] = {
      " maxima and n_first first ones refined as refine_peaks does; out (n_profiles, n_max +"
      " n_first, 4): centre, width, peak T,"
      " 1.0 where the slot holds a maximum (the grid's second energy, NaN, NaN, 0.0 where not)."},
+    {"well_root_step", py_well_root_step, METH_VARARGS,
+     "well_root_step(state, well, residual, target, done, has_previous, mixing, tolerance,"
+     " abs_cm2)\n\n"
+     "One step of physics.electrostatics._WellChargeRoot.next_well on n entries: state (12, n)"
+     " float64 (lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push,"
+     " previous well, previous residual) and well (the next charge) updated in place; returns"
+     " whether the previous step is kept (0 after a collapsed bracket)."},
     {"poisson_newton", py_poisson_newton, METH_VARARGS,
      "poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,"
      " eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)\n\n"

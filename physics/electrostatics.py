@@ -948,6 +948,35 @@ class _WellChargeRoot:
             previous=None,
         )
 
+    _PACKED = ("lo", "r_lo", "lo_known", "hi", "r_hi", "last_side", "reopened", "settled",
+               "frozen", "push")  # fmt: skip
+
+    def _next_well_compiled(self, step, well, residual, *, target, done):
+        """:meth:`next_well` by the compiled ``well_root_step`` on the state packed in rows."""
+        state = np.empty((12,) + well.shape)
+        for row, name in enumerate(self._PACKED):
+            state[row] = getattr(self, name)
+        if self.previous is not None:
+            state[10], state[11] = self.previous
+        new = np.array(well, dtype=float, order="C", copy=True)
+        keep = step(
+            state,
+            new,
+            np.ascontiguousarray(residual, dtype=float),
+            np.ascontiguousarray(target, dtype=float),
+            np.ascontiguousarray(done, dtype=float),
+            int(self.previous is not None),
+            WELL_MIXING,
+            WELL_TOLERANCE,
+            WELL_ABS_CM2,
+        )
+        self.lo, self.r_lo, self.hi, self.r_hi = state[0], state[1], state[3], state[4]
+        self.lo_known, self.reopened, self.settled = state[2] != 0, state[6] != 0, state[7] != 0
+        self.last_side = state[5].astype(int)
+        self.frozen, self.push = state[8], state[9]
+        self.previous = (state[10], state[11]) if keep else None
+        return new
+
     def keep_columns(self, keep: np.ndarray) -> None:
         """Drop the bias columns not in ``keep`` (finished)."""
         for name in (
@@ -961,6 +990,9 @@ class _WellChargeRoot:
         self, well: np.ndarray, residual: np.ndarray, *, target: np.ndarray, done: np.ndarray
     ) -> np.ndarray:
         """The next charge of every entry (``done`` entries keep theirs)."""
+        step = compiled_kernel("well_root_step")
+        if step is not None:  # the statement below, compiled (the same numbers, tested)
+            return self._next_well_compiled(step, well, residual, target=target, done=done)
         # the step as written for plain arrays: the state is read here and stored at the end
         lo, r_lo, lo_known, hi, r_hi = self.lo, self.r_lo, self.lo_known, self.hi, self.r_hi
         last_side, reopened, settled = self.last_side, self.reopened, self.settled

@@ -311,3 +311,52 @@ def test_grid_states_empty_slots_and_bad_input() -> None:
     with pytest.raises(ValueError, match="n_energy"):
         states(3, 16, grid, edge, mass, alpha, width, 1.0, 3, 0, 6, 6, 20.0, 20.0, 1,
                np.empty(11))  # fmt: skip
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_compiled_well_root_step_agrees(seed: int, monkeypatch) -> None:
+    # the well-charge root search (secant, Illinois regula falsi, reopening and settling a
+    # collapsed bracket) stepped compiled and in numpy on the same charge functions, each
+    # entry's F(n) smooth, or with a jump (no fixed point: the bracket collapses on it, is
+    # reopened and then settled), or steep beside a fold: the same charges, bit for bit
+    from wellwright.physics import electrostatics as es
+
+    rng = np.random.default_rng(seed)
+    shape = (3, 7)
+    scale = rng.uniform(1e10, 1e12, shape)
+    slope = rng.uniform(0.2, 3.0, shape)
+    jumps = rng.random(shape) < 0.4
+    jumps[0, :3] = True
+    slope[jumps] = rng.uniform(0.2, 0.9, jumps.sum())  # F(n) < n beyond the jump: no root
+    jump = rng.uniform(0.2, 2.0, shape) * scale * jumps
+
+    def charge(n):  # F >= 0
+        smooth = scale * np.tanh(slope * n / scale)
+        return np.where(n < 0.7 * scale, smooth + jump, smooth)
+
+    def run(compiled: bool) -> list:
+        with monkeypatch.context() as m:
+            if not compiled:
+                m.setattr(es, "compiled_kernel", lambda name: None)
+            root = es._WellChargeRoot.start(shape)
+            well, seen = np.zeros(shape), []
+            done = np.zeros(shape, bool)
+            for _ in range(40):
+                target = charge(well)
+                residual = target - well
+                done = done | (
+                    np.abs(residual) <= es.WELL_TOLERANCE * np.abs(target) + es.WELL_ABS_CM2
+                )
+                well = root.next_well(well, residual, target=target, done=done)
+                seen.append((well.copy(), root.settled.copy(), root.reopened.copy()))
+            return seen
+
+    got, ref = run(True), run(False)
+    for (w1, s1, r1), (w2, s2, r2) in zip(got, ref, strict=True):
+        np.testing.assert_array_equal(w1, w2)
+        np.testing.assert_array_equal(s1, s2)
+        np.testing.assert_array_equal(r1, r2)
+    assert ref[-1][1].any() and ref[-1][2].any()  # the jump's entries were settled
+    bad = np.zeros(3)
+    with pytest.raises(ValueError, match="state"):
+        kernel._slices.well_root_step(np.zeros(30), bad, bad, bad, bad, 0, 0.5, 1e-4, 1e7)
