@@ -19,6 +19,9 @@ two runs' best (a common bar); the 2-worker speed-up; and the sampler's cost
 per trial as the study grows (in memory, no physics), which no storage
 change can remove.
 
+Like ``wellwright search``, it runs with one BLAS/OpenMP thread where the
+environment sets none (:func:`wellwright.optimize.cli.thread_defaults`).
+
 Targets (issue 15): search >= 5x the plain loop's trials/s at 500 trials,
 physics >= 50 % of the search's wall time, 2 workers >= 1.7x one.
 
@@ -43,6 +46,12 @@ import warnings
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+# as `wellwright search` runs: one BLAS/OpenMP thread unless the environment says otherwise,
+# set before numpy loads and inherited by the worker processes
+from wellwright.optimize.cli import thread_defaults  # noqa: E402
+
+THREADS_SET = thread_defaults()
 
 import numpy as np  # noqa: E402
 import optuna  # noqa: E402
@@ -244,11 +253,20 @@ def _pct(x) -> str:
     return "-" if x is None else f"{x:.0%}"
 
 
+def _print_threads() -> None:
+    from wellwright.optimize.cli import THREAD_VARIABLES
+
+    values = " ".join(f"{k}={os.environ.get(k, 'unset')}" for k in THREAD_VARIABLES)
+    source = "the command's defaults" if THREADS_SET else "as set in the environment"
+    print(f"threads: {values} ({source})")
+
+
 def _workers_only(n: int) -> int:
     """The 2-worker target alone: the search with 1 and 2 workers, in turn, one run."""
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
     load = os.getloadavg()[0]
+    _print_threads()
     with tempfile.TemporaryDirectory() as tmp:
         one, two = search(n, 1, Path(tmp)), search(n, 2, Path(tmp))
     print(
@@ -288,6 +306,8 @@ def main(argv: list[str] | None = None) -> int:
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
 
+    print(f"load average at the start {os.getloadavg()[0]:.2f}")
+    _print_threads()
     with tempfile.TemporaryDirectory() as tmp:
         rows = [plain_loop(n, Path(tmp)), search(n, 1, Path(tmp)), search(n, 2, Path(tmp))]
     plain, one, two = rows
@@ -326,6 +346,7 @@ def main(argv: list[str] | None = None) -> int:
         f"{_time_to(plain['events'], bar) / _time_to(one['events'], bar):.2f}x"
     )
     print(f"2 workers / 1 worker: {two_x:.2f}x (target >= 1.7x: {verdict(two_x >= 1.7)})")
+    print(f"load average at the end {os.getloadavg()[0]:.2f}")
 
     print("\nsampler cost per trial (ask + 5 suggests) as the study grows, in memory, no physics")
     for k, s in sampler_cost(n):
