@@ -626,6 +626,11 @@ class _SolveSetup:
     target: Callable[[np.ndarray, np.ndarray], np.ndarray] | None
 
 
+#: The well-charge step keeps its per-shape arrays (:class:`_WellChargeStep`) for at most
+#: this many batch shapes, each of at most this many slice values (3 arrays of 8 bytes each).
+STEP_KEEP_SHAPES = 8
+STEP_KEEP_VALUES = 1 << 15
+
 #: Setups of the last few solves (a sweep solves the same stacks 20 to 30 times: its main
 #: solve, the refinement rounds, the up-branch steps); found by the stacks' values, not by
 #: the table object, so an equal table made again reuses it and a changed one does not.
@@ -1153,7 +1158,13 @@ class _WellChargeStep:
         shape = potential_ev.shape
         fixed = self.per_shape.get(shape)
         if fixed is None:
-            fixed = self.per_shape[shape] = self._fixed_of(shape)
+            fixed = self._fixed_of(shape)
+            # kept only while small: a setup lives on in _SETUPS, and a large batch's many
+            # shapes (columns leave as they converge) would hold hundreds of MB
+            if shape[0] * shape[1] * shape[2] <= STEP_KEEP_VALUES:
+                if len(self.per_shape) >= STEP_KEEP_SHAPES:
+                    self.per_shape.clear()
+                self.per_shape[shape] = fixed
         rows, pick, forward_window = fixed
         if pick is not None:
             potential_ev = potential_ev[pick]
