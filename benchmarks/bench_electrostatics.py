@@ -238,7 +238,11 @@ def breakdown(repeats: int) -> None:
         (iv, "_up_branch"): timed(iv, "_up_branch", "up-branch check (_up_branch)"),
         (iv, "_solve_at"): timed(iv, "_solve_at", "s.-c. solves (refinement)"),
         (iv, "solve_stack_poisson"): timed(iv, "solve_stack_poisson", "s.-c. solves (iv)"),
-        (es, "solve_stack_poisson"): timed(es, "solve_stack_poisson", "s.-c. solves (profile)"),
+        # the sweep's and the valley extension's solves (band_profile); the refinement's go
+        # through _solve_at, both through electrostatics.solve_self_consistent
+        (iv, "self_consistent_profile"): timed(
+            iv, "self_consistent_profile", "s.-c. solves (profile)"
+        ),
         # the charge estimate of each well-charge step (the Poisson solve is the compiled
         # poisson_newton below)
         (es, "_well_charge_target"): timed_steps(
