@@ -38,6 +38,7 @@ __all__ = [
     "find_resonances",
     "refine_bracketed",
     "refine_grid_peaks",
+    "grid_maxima",
     "local_peaks",
     "parabola_through",
 ]
@@ -354,6 +355,54 @@ def refine_grid_peaks(
     return center, width, peak
 
 
+def grid_maxima(
+    grid_ev: np.ndarray, *, profile: Profile, n_max: int, n_first: int = 0
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """T on a grid per profile, its ``n_max`` highest local maxima (then the ``n_first``
+    first along the grid) and their refinement: :func:`local_peaks` and
+    :func:`refine_grid_peaks`, in one compiled call where the compiled kernel is in use (the
+    numpy statement here is the reference, ``tests/test_kernel_backends.py`` compares them).
+
+    Parameters
+    ----------
+    grid_ev
+        Energies, eV, ``profile.batch_shape + (n,)``, sorted along the last axis.
+    profile
+        Band profiles.
+    n_max, n_first
+        Slots for the highest maxima, and after them for the first ones.
+
+    Returns
+    -------
+    tuple
+        Centre, width, peak transmission and whether the slot holds a maximum, each
+        ``profile.batch_shape + (n_max + n_first,)`` (see :func:`refine_grid_peaks`).
+    """
+    found = compiled_grid_states(
+        grid_ev,
+        profile=profile,
+        n_max=n_max,
+        n_first=n_first,
+        iterations=6,
+        extra_rounds=EXTRA_ROUNDS,
+        loose_bracket=LOOSE_BRACKET,
+        loose_fit=LOOSE_FIT,
+        exact_peak=True,
+    )
+    if found is not None:
+        return found
+    t = transmission(grid_ev, profile=profile)
+    index, valid = local_peaks(t, n_max)
+    if n_first:
+        first, first_ok = local_peaks(t, n_first, first=True)
+        index = np.concatenate([index, first], axis=-1)
+        valid = np.concatenate([valid, first_ok], axis=-1)
+    energy, width, peak = refine_grid_peaks(
+        grid_ev, t=t, index=index, valid=valid, profile=profile, exact_peak=True
+    )
+    return energy, width, peak, valid
+
+
 def find_resonances(
     profile: Profile,
     *,
@@ -386,26 +435,7 @@ def find_resonances(
     u = np.linspace(0.0, 1.0, n_coarse) ** edge_power
     grid = lo[..., None] + (hi - lo)[..., None] * u
     grid = np.broadcast_to(grid, profile.batch_shape + grid.shape[-1:])
-    # the steps below in one compiled call (the numpy statement is the reference,
-    # tests/test_kernel_backends.py compares the two)
-    found = compiled_grid_states(
-        grid,
-        profile=profile,
-        n_max=n_max,
-        iterations=6,
-        extra_rounds=EXTRA_ROUNDS,
-        loose_bracket=LOOSE_BRACKET,
-        loose_fit=LOOSE_FIT,
-        exact_peak=True,
-    )
-    if found is not None:
-        energy, width, peak, valid = found
-    else:
-        t = transmission(grid, profile=profile)
-        index, valid = local_peaks(t, n_max)
-        energy, width, peak = refine_grid_peaks(
-            grid, t=t, index=index, valid=valid, profile=profile
-        )
+    energy, width, peak, valid = grid_maxima(grid, profile=profile, n_max=n_max)
     valid = valid & np.isfinite(width) & (width > 0)
     nan = np.nan
     return Resonances(

@@ -146,8 +146,8 @@ import numpy as np
 from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR2_2M0_EV_NM2, VACUUM_PERMITTIVITY_F_M
 from .fermi import occupation
-from .resonances import EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT, local_peaks, refine_grid_peaks
-from .transmission import compiled_grid_states, transmission, transmission_rows
+from .resonances import grid_maxima
+from .transmission import transmission_rows
 
 __all__ = [
     "ScatteringParameters",
@@ -426,31 +426,9 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     hi = np.maximum(high, lo + 1e-3)
     grid = lo[..., None] + (hi - lo)[..., None] * np.linspace(0.0, 1.0, params.n_search)
     # candidates: the tallest maxima of the coarse T and the lowest ones (a narrow deep state
-    # shows on the coarse grid only as a small maximum of its tails, below the upper lines);
-    # in one compiled call where it is in use (the same numbers as the numpy steps below)
+    # shows on the coarse grid only as a small maximum of its tails, below the upper lines)
     k = params.n_states + 2
-    found = compiled_grid_states(
-        grid,
-        profile=probe,
-        n_max=k,
-        n_first=k,
-        iterations=6,
-        extra_rounds=EXTRA_ROUNDS,
-        loose_bracket=LOOSE_BRACKET,
-        loose_fit=LOOSE_FIT,
-        exact_peak=True,
-    )
-    if found is not None:
-        center, gamma, peak, valid = found
-    else:
-        t = transmission(grid, profile=probe)
-        tall, tall_ok = local_peaks(t, k)
-        low, low_ok = local_peaks(t, k, first=True)
-        index = np.concatenate([tall, low], axis=-1)
-        valid = np.concatenate([tall_ok, low_ok], axis=-1)
-        center, gamma, peak = refine_grid_peaks(
-            grid, t=t, index=index, valid=valid, profile=probe, exact_peak=True
-        )
+    center, gamma, peak, valid = grid_maxima(grid, profile=probe, n_max=k, n_first=k)
     gamma = _half_maximum_width(center, gamma, peak, valid, probe)
     valid &= (
         np.isfinite(gamma)
