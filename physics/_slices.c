@@ -250,6 +250,8 @@ static void kernel(int n, const double *edge, const double *mass, const double *
 }
 
 static int need_double(Py_buffer *b, const char *name);
+static Py_ssize_t slice_profiles(int n, Py_buffer *bv, Py_buffer *bm, Py_buffer *ba,
+                                 Py_buffer *bw);
 
 /* ---- resonance bracketing (physics/resonances.py: refine_bracketed, _bracket_round) ----
    The rounds that shrink a bracket of three energies around a transmission peak, the same
@@ -412,17 +414,10 @@ static PyObject *py_refine_peaks(PyObject *self, PyObject *args)
                           &bx, &by, &iterations, &extra_rounds, &loose_bracket, &loose_fit,
                           &exact_peak, &bo))
         return NULL;
-    if (!(need_double(&bv, "edge") && need_double(&bm, "mass") && need_double(&ba, "alpha") &&
-          need_double(&bw, "width") && need_double(&bx, "x") && need_double(&by, "y") &&
-          need_double(&bo, "out")))
+    if (!(need_double(&bx, "x") && need_double(&by, "y") && need_double(&bo, "out")))
         goto done;
-    const Py_ssize_t n_slice_values = bv.len / (Py_ssize_t)sizeof(double);
-    if (n < 2 || n_slice_values % n != 0 || bm.len != bv.len || ba.len != bv.len ||
-        bw.len != bv.len) {
-        PyErr_SetString(PyExc_ValueError, "slice buffers must hold n_profiles * n_slices values");
-        goto done;
-    }
-    const Py_ssize_t n_profiles = n_slice_values / n;
+    const Py_ssize_t n_profiles = slice_profiles(n, &bv, &bm, &ba, &bw);
+    if (n_profiles < 0) goto done;
     const Py_ssize_t n_peaks = bi.len / (Py_ssize_t)sizeof(int64_t);
     if (bi.len != n_peaks * (Py_ssize_t)sizeof(int64_t) || bx.len != 3 * n_peaks * 8 ||
         by.len != bx.len || bo.len != bx.len || iterations < 0 || extra_rounds < 0) {
@@ -491,16 +486,9 @@ static PyObject *py_refine_brackets(PyObject *self, PyObject *args)
     if (!PyArg_ParseTuple(args, "iy*y*y*y*dy*w*w*iidd", &n, &bv, &bm, &ba, &bw, &inv_hb2, &bi,
                           &bx, &by, &iterations, &extra_rounds, &loose_bracket, &loose_fit))
         return NULL;
-    if (!(need_double(&bv, "edge") && need_double(&bm, "mass") && need_double(&ba, "alpha") &&
-          need_double(&bw, "width") && need_double(&bx, "x") && need_double(&by, "y")))
-        goto done;
-    const Py_ssize_t n_slice_values = bv.len / (Py_ssize_t)sizeof(double);
-    if (n < 2 || n_slice_values % n != 0 || bm.len != bv.len || ba.len != bv.len ||
-        bw.len != bv.len) {
-        PyErr_SetString(PyExc_ValueError, "slice buffers must hold n_profiles * n_slices values");
-        goto done;
-    }
-    const Py_ssize_t n_profiles = n_slice_values / n;
+    if (!(need_double(&bx, "x") && need_double(&by, "y"))) goto done;
+    const Py_ssize_t n_profiles = slice_profiles(n, &bv, &bm, &ba, &bw);
+    if (n_profiles < 0) goto done;
     const Py_ssize_t n_peaks = bi.len / (Py_ssize_t)sizeof(int64_t);
     if (bi.len != n_peaks * (Py_ssize_t)sizeof(int64_t) || bx.len != 3 * n_peaks * 8 ||
         by.len != bx.len || iterations < 0 || extra_rounds < 0) {
@@ -637,16 +625,9 @@ static PyObject *py_grid_states(PyObject *self, PyObject *args)
                           &inv_hb2, &n_max, &n_first, &iterations, &extra_rounds, &loose_bracket,
                           &loose_fit, &exact_peak, &bo))
         return NULL;
-    if (!(need_double(&be, "energy") && need_double(&bv, "edge") && need_double(&bm, "mass") &&
-          need_double(&ba, "alpha") && need_double(&bw, "width") && need_double(&bo, "out")))
-        goto done;
-    const Py_ssize_t n_slice_values = bv.len / (Py_ssize_t)sizeof(double);
-    if (n < 2 || n_slice_values % n != 0 || bm.len != bv.len || ba.len != bv.len ||
-        bw.len != bv.len) {
-        PyErr_SetString(PyExc_ValueError, "slice buffers must hold n_profiles * n_slices values");
-        goto done;
-    }
-    const Py_ssize_t n_profiles = n_slice_values / n;
+    if (!(need_double(&be, "energy") && need_double(&bo, "out"))) goto done;
+    const Py_ssize_t n_profiles = slice_profiles(n, &bv, &bm, &ba, &bw);
+    if (n_profiles < 0) goto done;
     if (ne < 3 || n_max < 0 || n_max > 64 || n_first < 0 || n_first > 64 ||
         n_max + n_first < 1 || iterations < 0 || extra_rounds < 0 ||
         be.len != n_profiles * ne * 8 || bo.len != n_profiles * (n_max + n_first) * 4 * 8) {
@@ -988,6 +969,23 @@ done:
     return result;
 }
 
+/* The profiles' slice buffers (edge, mass, alpha, width): float64, n_profiles * n slices each;
+   returns n_profiles, or -1 with a Python error set. */
+static Py_ssize_t slice_profiles(int n, Py_buffer *bv, Py_buffer *bm, Py_buffer *ba,
+                                 Py_buffer *bw)
+{
+    if (!(need_double(bv, "edge") && need_double(bm, "mass") && need_double(ba, "alpha") &&
+          need_double(bw, "width")))
+        return -1;
+    const Py_ssize_t n_slice_values = bv->len / (Py_ssize_t)sizeof(double);
+    if (n < 2 || n_slice_values % n != 0 || bm->len != bv->len || ba->len != bv->len ||
+        bw->len != bv->len) {
+        PyErr_SetString(PyExc_ValueError, "slice buffers must hold n_profiles * n_slices values");
+        return -1;
+    }
+    return n_slice_values / n;
+}
+
 static int need_double(Py_buffer *b, const char *name)
 {
     if (b->len % (Py_ssize_t)sizeof(double) != 0) {
@@ -1018,16 +1016,9 @@ static PyObject *py_transmission(PyObject *self, PyObject *args)
         return NULL;
     if ((have_r = optional_buffer(r_obj, &br, PyBUF_WRITABLE)) < 0) goto done;
     if ((have_rows = optional_buffer(rows_obj, &bi, PyBUF_SIMPLE)) < 0) goto done;
-    if (!(need_double(&be, "energy") && need_double(&bv, "edge") && need_double(&bm, "mass") &&
-          need_double(&ba, "alpha") && need_double(&bw, "width") && need_double(&bt, "t_out")))
-        goto done;
-    const Py_ssize_t n_slice_values = bv.len / (Py_ssize_t)sizeof(double);
-    if (n < 2 || n_slice_values % n != 0 || bm.len != bv.len || ba.len != bv.len ||
-        bw.len != bv.len) {
-        PyErr_SetString(PyExc_ValueError, "slice buffers must hold n_profiles * n_slices values");
-        goto done;
-    }
-    const Py_ssize_t n_profiles = n_slice_values / n;
+    if (!(need_double(&be, "energy") && need_double(&bt, "t_out"))) goto done;
+    const Py_ssize_t n_profiles = slice_profiles(n, &bv, &bm, &ba, &bw);
+    if (n_profiles < 0) goto done;
     const Py_ssize_t n_values = be.len / (Py_ssize_t)sizeof(double);
     if (ne < 1 || n_values % ne != 0 || bt.len != be.len || (have_r && br.len != be.len)) {
         PyErr_SetString(PyExc_ValueError, "energy and outputs must hold n_groups * n_energy values");
