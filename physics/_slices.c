@@ -549,7 +549,8 @@ done:
    (local_peaks: v[i] > v[i-1] and v[i] >= v[i+1], ranked by T, ties by grid index), then
    the n_first first ones along the grid (local_peaks with first=True), each
    refined from its node and neighbours (refine_grid_peaks: the rounds and end above, the
-   brackets in numpy's nonzero order). out: n_profiles * (n_max + n_first) * 4 values
+   brackets in numpy's nonzero order; a first maximum that is also among the highest is
+   refined once and copied, the same numbers). out: n_profiles * (n_max + n_first) * 4 values
    (centre, width, peak T, 1 where the slot holds a grid maximum; where not, as refine_grid_peaks: the grid's
    second energy, NaN width and peak). */
 static void grid_states(int n, const double *edge, const double *mass, const double *alpha,
@@ -559,10 +560,10 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
                         double *t_grid, int64_t *peak_rows, double *x, double *y,
                         Py_ssize_t *slot, Py_ssize_t *active, double *h_buf, double *u_buf,
                         double *energy, int64_t *rows, double *t, int *n_probe, double *fit,
-                        double *out)
+                        Py_ssize_t *twin, Py_ssize_t *twin_of, double *out)
 {
     kernel(n, edge, mass, alpha, width, NULL, n_profiles * ne, ne, grid, inv_hb2, t_grid, NULL);
-    Py_ssize_t n_peaks = 0;
+    Py_ssize_t n_peaks = 0, n_twins = 0;
     for (Py_ssize_t g = 0; g < n_profiles; g++) {
         const double *v = t_grid + g * ne, *e = grid + g * ne;
         const int n_slots = n_max + n_first;
@@ -593,13 +594,21 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
         for (int k = 0; k < n_slots; k++) {
             if (k < n_max ? k >= found : k - n_max >= n_found_first) continue;
             const Py_ssize_t i = best[k];
+            o[4 * k + 3] = 1.0;
+            int same = -1; /* a first maximum that is also among the highest: refined once */
+            for (int j = 0; k >= n_max && j < found && same < 0; j++)
+                if (best[j] == i) same = j;
+            if (same >= 0) {
+                twin[n_twins] = g * n_slots + k;
+                twin_of[n_twins++] = g * n_slots + same;
+                continue;
+            }
             for (int c = 0; c < 3; c++) {
                 x[3 * n_peaks + c] = e[i - 1 + c];
                 y[3 * n_peaks + c] = 1.0 / max_nan(v[i - 1 + c], 1e-150);
             }
             peak_rows[n_peaks] = g;
             slot[n_peaks++] = g * n_slots + k;
-            o[4 * k + 3] = 1.0;
         }
     }
     if (n_peaks == 0) return;
@@ -610,6 +619,8 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
                  energy, t, fit);
     for (Py_ssize_t p = 0; p < n_peaks; p++)
         for (int c = 0; c < 3; c++) out[4 * slot[p] + c] = fit[3 * p + c];
+    for (Py_ssize_t p = 0; p < n_twins; p++)
+        for (int c = 0; c < 3; c++) out[4 * twin[p] + c] = out[4 * twin_of[p] + c];
 }
 
 static PyObject *py_grid_states(PyObject *self, PyObject *args)
@@ -637,9 +648,9 @@ static PyObject *py_grid_states(PyObject *self, PyObject *args)
     }
     if (n_profiles > 0) {
         const size_t n_peaks = (size_t)n_profiles * (size_t)(n_max + n_first);
-        /* t_grid: n_profiles ne; peak_rows, slot, active, h, u, n_probe(int): n_peaks each;
-           x, y, energy, rows, t, fit: 3 n_peaks each */
-        const size_t bytes = (size_t)n_profiles * (size_t)ne * 8 + n_peaks * (5 * 8 + sizeof(int)) +
+        /* t_grid: n_profiles ne; peak_rows, slot, active, h, u, twin, twin_of, n_probe(int):
+           n_peaks each; x, y, energy, rows, t, fit: 3 n_peaks each */
+        const size_t bytes = (size_t)n_profiles * (size_t)ne * 8 + n_peaks * (7 * 8 + sizeof(int)) +
                              n_peaks * 6 * 24;
         work = PyMem_RawMalloc(bytes);
         if (!work) {
@@ -671,13 +682,17 @@ static PyObject *py_grid_states(PyObject *self, PyObject *args)
         p += n_peaks * 24;
         double *fit = (double *)p;
         p += n_peaks * 24;
+        Py_ssize_t *twin = (Py_ssize_t *)p;
+        p += n_peaks * 8;
+        Py_ssize_t *twin_of = (Py_ssize_t *)p;
+        p += n_peaks * 8;
         int *n_probe = (int *)p;
         Py_BEGIN_ALLOW_THREADS
         grid_states(n, bv.buf, bm.buf, ba.buf, bw.buf, n_profiles, ne, be.buf, n_max, n_first,
                     iterations,
                     extra_rounds, loose_bracket, loose_fit, exact_peak, inv_hb2, t_grid,
                     peak_rows, x, y, slot, active, h_buf, u_buf, energy, rows, t, n_probe, fit,
-                    bo.buf);
+                    twin, twin_of, bo.buf);
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
