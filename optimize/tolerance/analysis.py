@@ -1744,7 +1744,9 @@ def allocate_tolerances(
         def passes_at(s: float, idx: list[int] = idx, label: str = label) -> np.ndarray:
             scale = base.copy()
             scale[idx] = s
-            metrics = run(model.grow(z, sigma_scale=scale), desc=f"allocate {label}")
+            metrics = run(
+                model.grow(z, sigma_scale=scale), desc=f"allocate {label}: spread x{s:.3g}"
+            )
             return spec.passes(metrics)
 
         rec: dict[str, Any] = {
