@@ -40,7 +40,7 @@ os.environ.setdefault("OMP_NUM_THREADS", "1")
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
-from timing import TreeWorker, before_after_trees  # noqa: E402
+from timing import KernelClock, TreeWorker, before_after_trees  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 STUDIES = {
@@ -169,39 +169,13 @@ def breakdown(repeats: int) -> None:
     self-consistent solves, their well-charge steps (each one Poisson solve and one search
     for the quasi-bound states), the current calls and the compiled routines' time.
     """
-    import importlib
     import time
 
     from wellwright.physics import electrostatics as es
     from wellwright.physics import iv
     from wellwright.physics.stack import load_stack
 
-    tm = importlib.import_module("wellwright.physics.transmission")
     clock: dict = {}
-
-    def timed(module, name, key):
-        inner = getattr(module, name)
-
-        def wrapper(*a, **k):
-            t0 = time.perf_counter()
-            try:
-                return inner(*a, **k)
-            finally:
-                entry = clock.setdefault(key, [0, 0.0])
-                entry[0] += 1
-                entry[1] += time.perf_counter() - t0
-
-        setattr(module, name, wrapper)
-        return inner
-
-    def timed_steps(module, name, key):  # a factory whose products are timed
-        inner = getattr(module, name)
-
-        def factory(*a, **k):
-            return timed_callable(inner(*a, **k), key)
-
-        setattr(module, name, factory)
-        return inner
 
     def timed_callable(fn, key):
         def call(*a, **k):
@@ -215,23 +189,19 @@ def breakdown(repeats: int) -> None:
 
         return call
 
-    class Compiled:  # every routine of the extension, timed
-        def __init__(self, real):
-            self.real = real
+    def timed(module, name, key):
+        inner = getattr(module, name)
+        setattr(module, name, timed_callable(inner, key))
+        return inner
 
-        def __getattr__(self, name):
-            fn = getattr(self.real, name)
+    def timed_steps(module, name, key):  # a factory whose products are timed
+        inner = getattr(module, name)
 
-            def call(*a):
-                t0 = time.perf_counter()
-                try:
-                    return fn(*a)
-                finally:
-                    entry = clock.setdefault("compiled " + name, [0, 0.0])
-                    entry[0] += 1
-                    entry[1] += time.perf_counter() - t0
+        def factory(*a, **k):
+            return timed_callable(inner(*a, **k), key)
 
-            return call
+        setattr(module, name, factory)
+        return inner
 
     saved = {
         (iv, "_refine"): timed(iv, "_refine", "refinement (_refine)"),
@@ -250,19 +220,20 @@ def breakdown(repeats: int) -> None:
         ),
         (iv, "_current_of_profile"): timed(iv, "_current_of_profile", "current calls"),
     }
-    real = tm._slices
-    tm._slices = Compiled(real)
     es._SETUPS.clear()  # solve setups made before the wrappers hold unwrapped steps
     try:
         for study, path in STUDIES.items():
             stack = load_stack(path)
             model = _model(stack, "default (s.-c. + scat.-assisted)")
-            iv.sweep(stack.table(), BIAS, model=model)
-            clock.clear()
-            t0 = time.perf_counter()
-            for _ in range(repeats):
+            with KernelClock() as compiled:  # every routine of the extension, timed
                 iv.sweep(stack.table(), BIAS, model=model)
-            total = (time.perf_counter() - t0) / repeats
+                clock.clear()
+                compiled.by_routine.clear()
+                t0 = time.perf_counter()
+                for _ in range(repeats):
+                    iv.sweep(stack.table(), BIAS, model=model)
+                total = (time.perf_counter() - t0) / repeats
+            clock.update({f"compiled {k}": v for k, v in compiled.by_routine.items()})
             print(f"{study} example, default model, per 61-point I-V ({1e3 * total:.0f} ms):")
             for key, (n, t) in sorted(clock.items(), key=lambda kv: -kv[1][1]):
                 print(
@@ -270,7 +241,6 @@ def breakdown(repeats: int) -> None:
                     f" ({100 * t / repeats / total:4.1f} %)"
                 )
     finally:
-        tm._slices = real
         for (module, name), fn in saved.items():
             setattr(module, name, fn)
         es._SETUPS.clear()

@@ -311,7 +311,7 @@ def _kinetic_ev(energy_ev, geo: _Geometry, *, edge, width):
     )
 
 
-def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, width, kt_ev, params):
+def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, kinetic, kt_ev, params):
     """Roughness width, phonon width (no occupation factor), floor energy^2 and Bose factor.
 
     ``energy_ev`` is ``(..., L)`` state energies on the oriented profile; the
@@ -323,16 +323,17 @@ def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, width, kt_ev,
         State energies, eV, ``(..., L)``, on the oriented profile.
     geo
         Where the barriers and the well are (oriented profile).
-    edge, mass, width
-        Band edge (eV), mass (m0) and width (nm) of the oriented profile's slices,
-        ``(..., n)``.
+    edge, mass
+        Band edge (eV) and mass (m0) of the oriented profile's slices, ``(..., n)``.
+    kinetic
+        The states' ``e_w`` and well width, :func:`_kinetic_ev`.
     kt_ev
         Thermal energy kT, eV, ``(...)``.
     params
         Channel settings.
     """
     ex = lambda a: np.asarray(a)[..., None]  # noqa: E731
-    e_w, well_nm = _kinetic_ev(energy_ev, geo, edge=edge, width=width)
+    e_w, well_nm = kinetic
     top1 = ex(_at(edge, geo.inner1)) - energy_ev
     top2 = ex(_at(edge, geo.inner2)) - energy_ev
     k1 = _kappa(ex(_at(mass, geo.inner1)), top1)
@@ -521,8 +522,9 @@ def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, par
     gamma_l, gamma_r = _split_widths(peak_c, width_c, tau_l, tau_r)
     scale = gamma_l / np.maximum(tau_l, 1e-300)  # Gamma_L(z) = scale tau_L(z)
     gamma_coh = np.where(matched, width_c, scale * tau_l_dev + gamma_r)
+    kinetic = _kinetic_ev(e_n, geo, edge=edge, width=width)
     g_ifr, g_lo, floor2, bose = scattering_widths_ev(
-        e_n, geo, edge=edge, mass=mass, width=width, kt_ev=kt, params=params
+        e_n, geo, edge=edge, mass=mass, kinetic=kinetic, kt_ev=kt, params=params
     )
     return {
         "e_n": e_n,
@@ -535,7 +537,7 @@ def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, par
         "floor2": floor2,
         "bose": bose,
         "hw": geo.lo_phonon_ev[..., None] * np.ones_like(e_n),
-        "e_w": _kinetic_ev(e_n, geo, edge=edge, width=width)[0],
+        "e_w": kinetic[0],
         # q^2 Lambda^2 / 4 per eV of lateral energy gained (note 2)
         "lateral_per_ev": (geo.well_mass_m0[..., None] / (2.0 * HBAR2_2M0_EV_NM2))
         * 0.5
