@@ -743,37 +743,54 @@ def _iterate_well_charge(
     """The well-charge iteration of :func:`solve_stack_poisson` around ``poisson``.
 
     Each (stack, bias) entry is its own problem. An entry's potential, density and charge
-    go to the outputs the first time it converges and stay there (so a stack's result
-    does not depend on how long its batch partners iterate); a bias column whose every
-    entry has converged leaves the iteration.
+    go to the outputs the first time it converges (or settles, or is abandoned) and it
+    leaves the iteration: each step computes the open entries only, in one flat batch
+    (each entry carries its stack's row), so a stack's result does not depend on how long
+    its batch partners iterate and converged entries cost nothing. (The compiled state
+    search rounds a padded stack's entry differently with different partners, ~1e-13 in
+    ``T``: tests/test_electrostatics.py.)
 
     Parameters
     ----------
     poisson
-        ``poisson(start, well_cm2, fermi, right)`` (:func:`_stack_poisson_solver`).
+        ``poisson(start, well_cm2, fermi, right, stack)`` (:func:`_stack_poisson_solver`).
     solution
         The solve with the start charge ``well`` (cm^-2, ``(n_stacks, n_biases)``).
     max_well_iterations
         Limit of outer iterations.
     well_target
-        ``well_target(potential_ev, bias_v)``: the charge the states hold in a potential.
+        ``well_target(potential_ev, bias_v, stack)``: the charge the states hold in a
+        potential (:class:`_WellChargeStep`).
     bias, fermi, right
         Bias (V), quasi-Fermi levels and collector potential (eV) of each entry.
     abandon_below_cm2
         Optional charges, cm^-2, of each entry: see :func:`solve_stack_poisson`.
     """
-    root = _WellChargeRoot.start(bias.shape)
-    abandoned = np.zeros(bias.shape, bool)
-    below = abandon_below_cm2
-    out_u, out_n, out_well = (
-        solution.potential_ev.copy(),
-        solution.electron_cm3.copy(),
-        well.copy(),
-    )
-    recorded = np.zeros(bias.shape, bool)  # of the open columns
-    cols, most = np.arange(bias.shape[1]), 0
+    shape = bias.shape
+    n_nodes = solution.potential_ev.shape[-1]
+    # the outputs, one row per entry (stack-major, as the (n_stacks, n_biases) arrays)
+    out_u = solution.potential_ev.reshape(-1, n_nodes).copy()
+    out_n = solution.electron_cm3.reshape(-1, n_nodes).copy()
+    out_well = np.array(well, dtype=float).reshape(-1)
+    abandoned = np.zeros(bias.size, bool)
+    # the open entries: their index in the outputs, their stack row and their arrays
+    entry = np.arange(bias.size)
+    stack = entry // shape[1]
+    u = solution.potential_ev.reshape(-1, n_nodes)
+    used = solution.iterations
+    well = out_well.copy()
+    bias = bias.reshape(-1)
+    fermi = np.broadcast_to(fermi, shape + (n_nodes,)).reshape(-1, n_nodes)
+    right = right.reshape(-1)
+    below = None if abandon_below_cm2 is None else abandon_below_cm2.reshape(-1)
+    root = _WellChargeRoot.start(well.shape)
+    most = 0
     for outer in range(1, max_well_iterations + 1):
-        target = well_target(solution.potential_ev, bias)
+        if entry.size == out_well.size:  # every entry open: the batch's own shape, whose
+            # parts _WellChargeStep keeps (small batches); the same arithmetic per entry
+            target = well_target(u.reshape(shape + (n_nodes,)), bias.reshape(shape)).reshape(-1)
+        else:
+            target = well_target(u, bias, stack)
         residual = target - well
         converged = np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2
         # the root lies in [0, well] (F >= 0 > residual): below the charge to give up at
@@ -782,43 +799,37 @@ def _iterate_well_charge(
             if below is None
             else ~converged & ~root.settled & (residual < 0) & (well <= below)
         )
-        new = (converged | root.settled | gone) & ~recorded
+        new = converged | root.settled | gone
         if np.any(new):
-            si, ci = np.nonzero(new)
-            out_u[si, cols[ci]] = solution.potential_ev[si, ci]
-            out_n[si, cols[ci]] = solution.electron_cm3[si, ci]
-            out_well[si, cols[ci]] = well[si, ci]
-            abandoned[si, cols[ci]] = gone[si, ci]
-            recorded |= new
-            most = max(most, solution.iterations + outer)
-        finished = np.all(recorded, axis=0)
-        if np.all(finished):
-            return PoissonSolution(
-                potential_ev=out_u,
-                electron_cm3=out_n,
-                iterations=most,
-                well_sheet_cm2=out_well,
-                abandoned=abandoned if below is not None else None,
+            out_u[entry[new]] = u[new]
+            out_n[entry[new]] = solution.electron_cm3.reshape(-1, n_nodes)[new]
+            out_well[entry[new]] = well[new]
+            abandoned[entry[new]] = gone[new]
+            most = max(most, used + outer)
+            if np.all(new):
+                return PoissonSolution(
+                    potential_ev=out_u.reshape(shape + (n_nodes,)),
+                    electron_cm3=out_n.reshape(shape + (n_nodes,)),
+                    iterations=most,
+                    well_sheet_cm2=out_well.reshape(shape),
+                    abandoned=abandoned.reshape(shape) if below is not None else None,
+                )
+            keep = ~new
+            entry, stack, u, well, bias, fermi, right = (
+                entry[keep],
+                stack[keep],
+                u[keep],
+                well[keep],
+                bias[keep],
+                fermi[keep],
+                right[keep],
             )
-        if np.any(finished):
-            keep = ~finished
-            cols = cols[keep]
-            below = None if below is None else below[:, keep]
-            solution = replace(
-                solution,
-                potential_ev=solution.potential_ev[:, keep],
-                electron_cm3=solution.electron_cm3[:, keep],
-            )
-            bias, fermi, right = bias[:, keep], fermi[:, keep], right[:, keep]
-            target, residual, recorded, well = (
-                target[:, keep],
-                residual[:, keep],
-                recorded[:, keep],
-                well[:, keep],
-            )
-            root.keep_columns(keep)
-        well = root.next_well(well, residual, target=target, done=recorded)
-        solution = poisson(solution.potential_ev, well, fermi, right)
+            target, residual = target[keep], residual[keep]
+            below = None if below is None else below[keep]
+            root.keep_entries(keep)
+        well = root.next_well(well, residual, target=target, done=np.zeros(well.shape, bool))
+        solution = poisson(u, well, fermi, right, stack)
+        u, used = solution.potential_ev, solution.iterations
     raise ElectrostaticsConvergenceError(
         f"well-charge iteration did not converge in {max_well_iterations} steps: largest change "
         f"{float(np.max(np.abs(residual))):.3g} cm^-2"
@@ -838,77 +849,81 @@ def _stack_poisson_solver(
     max_step_ev: float,
 ):
     """The Poisson solve of :func:`solve_stack_poisson`: ``poisson(start, well_cm2, fermi,
-    right)`` from a start potential with the well charge spread over ``well_slices``; the
+    right, stack=None)`` from a start potential with the well charge spread over
+    ``well_slices``, on the batch's shape or on entries (``stack``: each one's row); the
     compiled Newton iteration on the stacks' fixed parts (built once) where it is built,
     else :func:`solve_poisson_1d`."""
     li = grid.layer_index
     n_stacks = table.n_stacks
+    per_stack = {  # solve_poisson_1d's arguments of each stack, (n_stacks, n_nodes)
+        "width_nm": grid.width_nm,
+        "permittivity_r": table.permittivity_r[:, li],
+        "donor_cm3": table.doping_cm3[:, li],
+        "band_offset_ev": offset,
+        "mass_m0": table.mass_m0[:, li],
+        "electron_mask": ~inside,
+    }
     system = None
     if compiled_kernel("poisson_newton") is not None and li.size >= 3:
         # the stacks' fixed parts once for every bias and well-charge step (compiled Newton)
         w, _, donors, offset_si, mask, kt, nc, g = _fixed_parts(
-            (n_stacks, li.size),
-            width_nm=grid.width_nm,
-            permittivity_r=table.permittivity_r[:, li],
-            donor_cm3=table.doping_cm3[:, li],
-            band_offset_ev=offset,
-            mass_m0=table.mass_m0[:, li],
-            temperature_k=table.temperature_k,
-            electron_mask=~inside,
+            (n_stacks, li.size), temperature_k=table.temperature_k, **per_stack
         )
         system = _NewtonSystem(
             g=g, w=w, donors=donors, offset=offset_si, mask=mask, nc=nc, kt=kt[:, 0]
         )
-
     rows_of: dict = {}  # the Newton system's row of each entry, per bias count
-    well_in = well_slices[:, None, :]
+    spread_nm = np.maximum(well_nm, 1e-9)
 
-    def poisson(start, well_cm2, fermi, right):
-        fixed = np.where(
-            well_in,
-            (well_cm2 / np.maximum(well_nm, 1e-9)[:, None] * 1e7)[:, :, None],
-            0.0,
-        )
-        if system is not None:  # as solve_poisson_1d below, without rebuilding the fixed parts
-            shape = right.shape + (li.size,)
-            u0 = np.array(np.broadcast_to(start, shape), dtype=float, order="C", copy=True)
-            u0[..., 0] = 0.0
-            u0[..., -1] = right
-            rows = rows_of.get(right.shape[1])
-            if rows is None:
-                rows = rows_of[right.shape[1]] = np.repeat(np.arange(n_stacks), right.shape[1])
-            u, electrons, used = system.solve(
-                rows,
-                u0.reshape(-1, li.size),
-                (fermi if fermi.shape == shape else np.broadcast_to(fermi, shape)).reshape(
-                    -1, li.size
+    def poisson(start, well_cm2, fermi, right, stack=None):
+        """``start``, ``fermi`` ``(n_stacks, n_biases, n_nodes)``, ``well_cm2``, ``right``
+        ``(n_stacks, n_biases)``; or, with ``stack`` (the stack row of each of ``n``
+        entries), ``(n, n_nodes)`` and ``(n,)``. The compiled Newton iteration gives each
+        entry the same numbers either way."""
+        if stack is None:
+            fixed = np.where(
+                well_slices[:, None, :], (well_cm2 / spread_nm[:, None] * 1e7)[:, :, None], 0.0
+            )
+        else:
+            fixed = np.where(well_slices[stack], (well_cm2 / spread_nm[stack] * 1e7)[:, None], 0.0)
+        shape = right.shape + (li.size,)
+        if system is None:  # the numpy statement, on the stacks' rows of each entry
+            return solve_poisson_1d(
+                **{k: v[:, None, :] if stack is None else v[stack] for k, v in per_stack.items()},
+                fermi_ev=fermi,
+                temperature_k=(
+                    table.temperature_k[:, None] if stack is None else table.temperature_k[stack]
                 ),
-                (fixed * 1e6).reshape(-1, li.size),
+                left_ev=np.zeros(right.shape),
+                right_ev=right,
+                initial_ev=np.broadcast_to(start, shape),
                 tolerance_ev=tolerance_ev,
                 max_iterations=max_iterations,
+                fixed_electron_cm3=fixed,
                 max_step_ev=max_step_ev,
             )
-            return PoissonSolution(
-                potential_ev=u.reshape(shape),
-                electron_cm3=electrons.reshape(shape) * 1e-6,
-                iterations=used,
-            )
-        return solve_poisson_1d(
-            width_nm=grid.width_nm[:, None, :],
-            permittivity_r=table.permittivity_r[:, li][:, None, :],
-            donor_cm3=table.doping_cm3[:, li][:, None, :],
-            band_offset_ev=offset[:, None, :],
-            fermi_ev=fermi,
-            mass_m0=table.mass_m0[:, li][:, None, :],
-            temperature_k=table.temperature_k[:, None],
-            electron_mask=~inside[:, None, :],
-            left_ev=np.zeros(right.shape),
-            right_ev=right,
-            initial_ev=np.broadcast_to(start, right.shape + (li.size,)),
+        # as solve_poisson_1d, without rebuilding the fixed parts
+        u0 = np.array(np.broadcast_to(start, shape), dtype=float, order="C", copy=True)
+        u0[..., 0] = 0.0
+        u0[..., -1] = right
+        rows = stack
+        if rows is None:
+            if right.shape[1] not in rows_of:
+                rows_of[right.shape[1]] = np.repeat(np.arange(n_stacks), right.shape[1])
+            rows = rows_of[right.shape[1]]
+        u, electrons, used = system.solve(
+            rows,
+            u0.reshape(-1, li.size),
+            (fermi if fermi.shape == shape else np.broadcast_to(fermi, shape)).reshape(-1, li.size),
+            (fixed * 1e6).reshape(-1, li.size),
             tolerance_ev=tolerance_ev,
             max_iterations=max_iterations,
-            fixed_electron_cm3=fixed,
             max_step_ev=max_step_ev,
+        )
+        return PoissonSolution(
+            potential_ev=u.reshape(shape),
+            electron_cm3=electrons.reshape(shape) * 1e-6,
+            iterations=used,
         )
 
     return poisson
@@ -982,14 +997,12 @@ class _WellChargeRoot:
         self.previous = (state[10], state[11]) if keep else None
         return new
 
-    def keep_columns(self, keep: np.ndarray) -> None:
-        """Drop the bias columns not in ``keep`` (finished)."""
-        for name in (
-            "lo", "r_lo", "lo_known", "hi", "r_hi", "last_side", "reopened", "settled", "frozen", "push"
-        ):  # fmt: skip
-            setattr(self, name, getattr(self, name)[:, keep])
+    def keep_entries(self, keep: np.ndarray) -> None:
+        """Keep the entries ``keep`` (a mask of the last axis) and drop the others."""
+        for name in self._PACKED:
+            setattr(self, name, getattr(self, name)[..., keep])
         if self.previous is not None:
-            self.previous = (self.previous[0][:, keep], self.previous[1][:, keep])
+            self.previous = (self.previous[0][..., keep], self.previous[1][..., keep])
 
     def next_well(
         self, well: np.ndarray, residual: np.ndarray, *, target: np.ndarray, done: np.ndarray
@@ -1079,15 +1092,29 @@ def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
     states = compiled_kernel("grid_states")
     if states is None:
         profile_of = profile_builder(table, grid)
-        return lambda potential_ev, bias_v: well_sheet_density_cm2(
-            table,
-            grid,
-            potential_ev=potential_ev,
-            bias_v=bias_v,
-            mu_emitter_ev=mu_emitter_ev,
-            well_mass_m0=well_mass_m0,
-            profile_of=profile_of,
-        )[0]
+
+        def target(potential_ev, bias_v, stack=None):
+            if stack is None:
+                return well_sheet_density_cm2(
+                    table,
+                    grid,
+                    potential_ev=potential_ev,
+                    bias_v=bias_v,
+                    mu_emitter_ev=mu_emitter_ev,
+                    well_mass_m0=well_mass_m0,
+                    profile_of=profile_of,
+                )[0]
+            # entries (stack row of each): each entry a stack of its own with one bias
+            return well_sheet_density_cm2(
+                table.take(stack),
+                SliceGrid(grid.layer_index, grid.width_nm[stack], grid.center_nm[stack]),
+                potential_ev=potential_ev[:, None, :],
+                bias_v=bias_v[:, None],
+                mu_emitter_ev=mu_emitter_ev[stack],
+                well_mass_m0=well_mass_m0[stack],
+            )[0][:, 0]
+
+        return target
     return _WellChargeStep(
         table, grid, mu_emitter_ev=mu_emitter_ev, well_mass_m0=well_mass_m0, states=states
     )
@@ -1097,7 +1124,8 @@ class _WellChargeStep:
     """:func:`well_sheet_density_cm2`'s charge for one solve's stacks, called once per
     well-charge step: the profile arrays (:func:`physics.bands.profile_builder`'s), the
     constants and, per batch shape, the kernel's rows and the forward-bias search window are
-    made once; the state search is the compiled ``grid_states``; the same arithmetic."""
+    made once (for entries of several stacks, ``stack`` given, gathered per call); the state
+    search is the compiled ``grid_states``; the same arithmetic."""
 
     def __init__(self, table, grid, *, mu_emitter_ev, well_mass_m0, states):
         from .constants import ELECTRON_MASS_KG, HBAR2_2M0_EV_NM2, HBAR_J_S
@@ -1130,10 +1158,10 @@ class _WellChargeStep:
         self.states = states
         self.settings = (1.0 / HBAR2_2M0_EV_NM2, 4, 0, 6, EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT, 1)
 
-    def _window(self, mu, edge):
+    def _window(self, mu, edge, kt):
         """The search grid of well_sheet_density_cm2 (find_resonances with 64 nodes)."""
         lo = edge + 1e-6
-        hi = mu + 12.0 * self.kt
+        hi = mu + 12.0 * kt
         return lo[..., None] + (hi - lo)[..., None] * self.u
 
     def _fixed_of(self, shape):
@@ -1152,31 +1180,54 @@ class _WellChargeStep:
             )
         mu = np.broadcast_to(self.mu_fwd, shape[:-1])
         edge = np.zeros(shape[:-1])
-        return rows, pick, (mu, edge, self._window(mu, edge))
+        return rows, pick, (mu, edge, self._window(mu, edge, self.kt))
 
-    def __call__(self, potential_ev, bias_v):
+    def _parts(self, shape, stack):
+        """The per-stack parts for the entries of ``stack`` (one row each; ``shape`` is
+        ``(n_entries, n_slices)``), gathered for the call: the profile's base, the kernel's
+        rows, the padding nodes' index, kT (``(n,)`` and ``(n, 1)``), the emitter Fermi
+        level, the 2D density of states and the forward-bias search window."""
+        rows = tuple(a[stack] for a in self.fixed_rows)
+        pick = None
+        if self.source is not None:
+            pick = (np.arange(shape[0])[:, None], self.source[stack, 0])
+        kt = self.kt[stack, 0]
+        mu = self.mu_fwd[stack, 0]
+        edge = np.zeros(shape[:-1])
+        window = (mu, edge, self._window(mu, edge, kt))
+        return self.base[stack, 0], rows, pick, kt, kt[:, None], mu, self.n2d_cm2[stack, 0], window
+
+    def __call__(self, potential_ev, bias_v, stack=None):
+        """The charge at ``potential_ev`` (``(n_stacks, n_biases, n_slices)``) and ``bias_v``
+        (``(n_stacks, n_biases)``); or, with ``stack`` (``(n,)`` row of each entry), of ``n``
+        entries: ``potential_ev`` ``(n, n_slices)``, ``bias_v`` ``(n,)``. The same numbers
+        per entry either way."""
         shape = potential_ev.shape
-        fixed = self.per_shape.get(shape)
-        if fixed is None:
-            fixed = self._fixed_of(shape)
-            # kept only while small: a setup lives on in _SETUPS, and a large batch's many
-            # shapes (columns leave as they converge) would hold hundreds of MB
-            if shape[0] * shape[1] * shape[2] <= STEP_KEEP_VALUES:
-                if len(self.per_shape) >= STEP_KEEP_SHAPES:
-                    self.per_shape.clear()
-                self.per_shape[shape] = fixed
-        rows, pick, forward_window = fixed
+        if stack is not None:
+            base, rows, pick, kt, kt3, mu_fwd, n2d_cm2, forward_window = self._parts(shape, stack)
+        else:
+            base, kt, kt3, mu_fwd, n2d_cm2 = self.base, self.kt, self.kt3, self.mu_fwd, self.n2d_cm2
+            fixed = self.per_shape.get(shape)
+            if fixed is None:
+                fixed = self._fixed_of(shape)
+                # kept only while small: a setup lives on in _SETUPS, and a large batch's
+                # many shapes would hold hundreds of MB
+                if shape[0] * shape[1] * shape[2] <= STEP_KEEP_VALUES:
+                    if len(self.per_shape) >= STEP_KEEP_SHAPES:
+                        self.per_shape.clear()
+                    self.per_shape[shape] = fixed
+            rows, pick, forward_window = fixed
         if pick is not None:
             potential_ev = potential_ev[pick]
-        edge_ev = np.ascontiguousarray(self.base + potential_ev)
+        edge_ev = np.ascontiguousarray(base + potential_ev)
         bias = np.asarray(bias_v, float)
         if np.all(bias >= 0):
             mu, edge, energy = forward_window
         else:
             forward = bias >= 0
-            mu = np.where(forward, self.mu_fwd, self.mu_fwd - bias)
+            mu = np.where(forward, mu_fwd, mu_fwd - bias)
             edge = np.where(forward, 0.0, edge_ev[..., -1])
-            energy = self._window(mu, edge)
+            energy = self._window(mu, edge, kt)
         out = np.empty(shape[:-1] + (4, 4))
         self.states(self.n_slices, 64, energy, edge_ev, *rows, *self.settings, out)
         width, peak = out[..., 1], out[..., 2]
@@ -1184,9 +1235,9 @@ class _WellChargeStep:
         e1 = np.where(ok, out[..., 0], 0.0)
         tp = np.where(ok, peak, 0.0)
         fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.clip(tp, 0.0, 1.0)))
-        fraction = fraction * -np.expm1(-np.maximum(e1 - edge[..., None], 0.0) / self.kt3)
-        supply = fermi_dirac_zero((mu[..., None] - e1) / self.kt3)
-        return np.sum(np.where(ok, fraction * self.n2d_cm2 * supply, 0.0), axis=-1)
+        fraction = fraction * -np.expm1(-np.maximum(e1 - edge[..., None], 0.0) / kt3)
+        supply = fermi_dirac_zero((mu[..., None] - e1) / kt3)
+        return np.sum(np.where(ok, fraction * n2d_cm2 * supply, 0.0), axis=-1)
 
 
 def well_sheet_density_cm2(
