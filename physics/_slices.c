@@ -42,6 +42,9 @@
  *   poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,
  *                  eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)
  * the damped Newton iteration of physics/electrostatics.py (solve_poisson_1d), entry by entry.
+ *   barrier_action(n_slices, lo, hi, hb2, z, edge, mass, width, run, out)
+ * int kappa dz over one barrier at many energies per profile (physics/scattering.py,
+ * _barrier_action: the WKB couplings of the scattering-assisted channel).
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
@@ -1072,6 +1075,74 @@ done:
     return result;
 }
 
+/* ---- barrier action (physics/scattering.py: _barrier_action) ----
+   int kappa dz over one barrier's slices at many energies: per row (a profile) and energy z,
+   the sum over slices lo..hi-1 of sqrt(mass max(edge - z, 0) / hb2) width where the slice
+   is in the barrier's run, 0 elsewhere. The same arithmetic as the numpy statement (which
+   stays the reference; tests compare the two bit for bit): the quotient by hb2 (not a
+   product with its inverse), the slices added in order (numpy's order when it sums along
+   an outer axis), no fused multiply-add. sqrt is correctly rounded in both. */
+WW_NO_FMA
+static void barrier_action(Py_ssize_t n_rows, Py_ssize_t n_slices, Py_ssize_t n_z, Py_ssize_t lo,
+                           Py_ssize_t hi, double hb2, const double *z, const double *edge,
+                           const double *mass, const double *width, const unsigned char *run,
+                           double *out)
+{
+    for (Py_ssize_t r = 0; r < n_rows; r++) {
+        const double *zr = z + r * n_z;
+        double *o = out + r * n_z;
+        for (Py_ssize_t s = lo; s < hi; s++) {
+            const Py_ssize_t k = r * n_slices + s;
+            const double e = edge[k], m = mass[k], w = width[k];
+            const int in_run = run[k] != 0, first = s == lo;
+            for (Py_ssize_t j = 0; j < n_z; j++) {
+                const double h = e - zr[j];
+                const double hp = h < 0.0 ? 0.0 : h; /* numpy's maximum: NaN stays NaN */
+                const double v = in_run ? sqrt(m * hp / hb2) * w : 0.0;
+                o[j] = first ? v : o[j] + v;
+            }
+        }
+    }
+}
+
+static PyObject *py_barrier_action(PyObject *self, PyObject *args)
+{
+    Py_ssize_t n, lo, hi;
+    double hb2;
+    Py_buffer bz = {0}, be = {0}, bm = {0}, bw = {0}, br = {0}, bo = {0};
+    PyObject *result = NULL;
+    (void)self;
+    if (!PyArg_ParseTuple(args, "nnndy*y*y*y*y*w*", &n, &lo, &hi, &hb2, &bz, &be, &bm, &bw, &br,
+                          &bo))
+        return NULL;
+    if (!(need_double(&bz, "z") && need_double(&be, "edge") && need_double(&bm, "mass") &&
+          need_double(&bw, "width") && need_double(&bo, "out")))
+        goto done;
+    const Py_ssize_t n_values = be.len / (Py_ssize_t)sizeof(double);
+    const Py_ssize_t n_z_total = bz.len / (Py_ssize_t)sizeof(double);
+    if (n <= 0 || n_values % n != 0 || n_values == 0 || bm.len != be.len || bw.len != be.len ||
+        br.len != n_values || bo.len != bz.len || n_z_total % (n_values / n) != 0 || lo < 0 ||
+        hi > n || lo >= hi) {
+        PyErr_SetString(PyExc_ValueError,
+                        "edge, mass, width (float64), run (bool): rows x n_slices values; z and"
+                        " out: rows x n_z; 0 <= lo < hi <= n_slices");
+        goto done;
+    }
+    const Py_ssize_t rows = n_values / n;
+    barrier_action(rows, n, n_z_total / rows, lo, hi, hb2, bz.buf, be.buf, bm.buf, bw.buf, br.buf,
+                   bo.buf);
+    result = Py_None;
+    Py_INCREF(result);
+done:
+    PyBuffer_Release(&bz);
+    PyBuffer_Release(&be);
+    PyBuffer_Release(&bm);
+    PyBuffer_Release(&bw);
+    PyBuffer_Release(&br);
+    PyBuffer_Release(&bo);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"transmission", py_transmission, METH_VARARGS,
      "transmission(n_slices, n_energy, energy, edge, mass, alpha, width, inv_hb2, t_out, r_out,"
@@ -1108,6 +1179,11 @@ static PyMethodDef methods[] = {
      "Damped Newton solve of physics.electrostatics.solve_poisson_1d per entry (u, mu, fixed,"
      " electrons per entry; g, w, donors, offset, mask, nc, kt per profile row rows[entry]);"
      " u and electrons updated in place; returns (iterations, failed, last largest update)."},
+    {"barrier_action", py_barrier_action, METH_VARARGS,
+     "barrier_action(n_slices, lo, hi, hb2, z, edge, mass, width, run, out)\n\n"
+     "int kappa dz of physics.scattering._barrier_action: out (rows, n_z) gets, per row of"
+     " edge, mass, width (float64) and run (bool), all (rows, n), and energy z (rows, n_z), the"
+     " sum over slices lo..hi-1 in run of sqrt(mass max(edge - z, 0) / hb2) width."},
     {NULL, NULL, 0, NULL},
 };
 

@@ -139,7 +139,9 @@ References
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -147,7 +149,7 @@ from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR2_2M0_EV_NM2, VACUUM_PERMITTIVITY_F_M
 from .fermi import occupation
 from .resonances import grid_maxima
-from .transmission import transmission_rows
+from .transmission import compiled_kernel, transmission_rows
 
 __all__ = [
     "ScatteringParameters",
@@ -224,6 +226,16 @@ def _at(a, i):
     return np.take_along_axis(a, i[..., None], axis=-1)[..., 0]
 
 
+def _take_last(index, *arrays):
+    """``np.take_along_axis(a, index, axis=-1)`` of each of ``arrays``; one flat index for all
+    where they are ``batch + (m,)`` and ``index`` is ``batch + (j,)`` (the same numbers)."""
+    batch, m = index.shape[:-1], arrays[0].shape[-1]
+    if any(a.shape[:-1] != batch or a.shape[-1] != m for a in arrays):
+        return [np.take_along_axis(a, index, axis=-1) for a in arrays]
+    flat = index + (np.arange(math.prod(batch)) * m).reshape(batch + (1,))
+    return [a.reshape(-1)[flat] for a in arrays]
+
+
 def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geometry:
     """Barriers, well and source side of oriented slice arrays ``(..., n)``."""
     n = edge.shape[-1]
@@ -281,6 +293,8 @@ _I0E_VALUES: dict[float, float] = {}
 def _i0e_of_values(x):
     """:func:`_i0e` elementwise through :data:`_I0E_VALUES` (the same numbers)."""
     x = np.asarray(x, float)
+    if x.size and (x == x.flat[0]).all() and x.flat[0] in _I0E_VALUES:  # one value met before
+        return np.full(x.shape, _I0E_VALUES[x.flat[0]])
     if not np.all(np.isfinite(x)):  # NaN is no key
         return _i0e(x)
     values, where = np.unique(x, return_inverse=True)
@@ -378,28 +392,90 @@ def coherent_factor(energy_ev, *, center_ev, width_ev, valid, gamma_s_ev):
     return np.prod((d2 + 0.25 * g**2) / (d2 + 0.25 * (g + gs) ** 2 + 1e-300), axis=-2)
 
 
-def _theta(z, edge, mass, width, run, lo, hi):
-    """WKB transparency ``exp(-2 int kappa dz)`` of the barrier ``run`` at energies ``z`` ``(..., L, K)``."""
-    if hi <= lo:
-        return np.ones(z.shape)
+def _barrier_action(z, edge, mass, width, run, lo, hi, *, compiled=True):
+    """``int kappa dz`` over the barrier ``run`` (slices ``lo:hi``) at energies ``z``
+    ``(..., L, K)``: the numpy statement, or the same sum compiled (``_slices.c``:
+    ``barrier_action``, bit for bit: the slices added in order, as numpy adds along an outer
+    axis; with one energy per entry numpy sums the slices pairwise, so that case stays here)."""
+    routine = compiled_kernel("barrier_action") if compiled else None
+    if routine is not None and z.shape[-2] * z.shape[-1] > 1 and z.shape[:-2] == edge.shape[:-1]:
+        n = edge.shape[-1]
+        zz = np.ascontiguousarray(z, dtype=float)
+        out = np.empty(z.shape)
+        flat = (-1, n)
+        routine(
+            n,
+            lo,
+            hi,
+            HBAR2_2M0_EV_NM2,
+            zz,
+            np.ascontiguousarray(edge, dtype=float).reshape(flat),
+            np.ascontiguousarray(mass, dtype=float).reshape(flat),
+            np.ascontiguousarray(width, dtype=float).reshape(flat),
+            np.ascontiguousarray(run, dtype=bool).reshape(flat),
+            out,
+        )
+        return out
     # every slice of the barrier at once (axis -3 of the slices; z gets that axis too)
     h = edge[..., lo:hi, None, None] - z[..., None, :, :]
     kap = np.sqrt(mass[..., lo:hi, None, None] * np.maximum(h, 0.0) / HBAR2_2M0_EV_NM2)
     acc = np.where(run[..., lo:hi, None, None], kap * width[..., lo:hi, None, None], 0.0)
-    return np.exp(-2.0 * np.sum(acc, axis=-3))
+    return np.sum(acc, axis=-3)
 
 
-def _lead_coupling(z, lead_edge, lead_mass, edge, mass, width, run, outer, lo, hi):
-    """WKB coupling ``tau(z)`` of a lead through one barrier: interface factor x transparency."""
-    ex = lambda a: np.asarray(a)[..., None, None]  # noqa: E731
-    kin = z - ex(lead_edge)
-    k = np.sqrt(np.maximum(kin, 0.0) * ex(lead_mass) / HBAR2_2M0_EV_NM2)
-    m_b = ex(_at(mass, outer))
-    kap = _kappa(m_b, ex(_at(edge, outer)) - z)
-    tau = _interface_factor(k / ex(lead_mass), kap / m_b) * _theta(
-        z, edge, mass, width, run, lo, hi
+def _theta(z, edge, mass, width, run, lo, hi):
+    """WKB transparency ``exp(-2 int kappa dz)`` of the barrier ``run`` at energies ``z`` ``(..., L, K)``."""
+    if hi <= lo:
+        return np.ones(z.shape)
+    return np.exp(-2.0 * _barrier_action(z, edge, mass, width, run, lo, hi))
+
+
+@dataclass(frozen=True)
+class _Barrier:
+    """One barrier of an oriented profile as :func:`_lead_coupling` reads it."""
+
+    run: np.ndarray  #: (..., n) its slices
+    lo: int  #: the slices ``lo:hi`` hold every entry's run
+    hi: int
+    outer_mass: np.ndarray  #: (..., 1, 1) mass of the slice next to the lead, m0
+    outer_edge: np.ndarray  #: (..., 1, 1) its band edge, eV
+
+
+def _barriers(geo: _Geometry, edge, mass) -> tuple[_Barrier, _Barrier]:
+    """The source-side and the drain-side barrier of ``geo``."""
+    ex = lambda a: a[..., None, None]  # noqa: E731
+    return (
+        _Barrier(
+            geo.run1,
+            int(geo.outer1.min()),
+            int(geo.inner1.max()) + 1,
+            ex(_at(mass, geo.outer1)),
+            ex(_at(edge, geo.outer1)),
+        ),
+        _Barrier(
+            geo.run2,
+            int(geo.inner2.min()),
+            int(geo.outer2.max()) + 1,
+            ex(_at(mass, geo.outer2)),
+            ex(_at(edge, geo.outer2)),
+        ),
     )
-    return np.where(kin > 0.0, tau, 0.0)
+
+
+def _lead_coupling(z, lead_edges, lead_mass, barrier: _Barrier, edge, mass, width):
+    """WKB coupling ``tau(z)`` of a lead through one barrier: interface factor x transparency,
+    one array per band edge of the lead in ``lead_edges`` (the same energies and barrier)."""
+    ex = lambda a: np.asarray(a)[..., None, None]  # noqa: E731
+    m_b = barrier.outer_mass
+    kap = _kappa(m_b, barrier.outer_edge - z)
+    theta = _theta(z, edge, mass, width, barrier.run, barrier.lo, barrier.hi)
+    out = []
+    for lead_edge in lead_edges:
+        kin = z - ex(lead_edge)
+        k = np.sqrt(np.maximum(kin, 0.0) * ex(lead_mass) / HBAR2_2M0_EV_NM2)
+        tau = _interface_factor(k / ex(lead_mass), kap / m_b) * theta
+        out.append(np.where(kin > 0.0, tau, 0.0))
+    return out
 
 
 def _split_widths(peak, width, tau_l, tau_r):
@@ -425,7 +501,7 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     )
     lo = np.maximum(e_r, geo.well_bottom_ev) + 1e-4
     hi = np.maximum(high, lo + 1e-3)
-    grid = lo[..., None] + (hi - lo)[..., None] * np.linspace(0.0, 1.0, params.n_search)
+    grid = lo[..., None] + (hi - lo)[..., None] * _spaced(0.0, 1.0, params.n_search)
     # candidates: the tallest maxima of the coarse T and the lowest ones (a narrow deep state
     # shows on the coarse grid only as a small maximum of its tails, below the upper lines)
     k = params.n_states + 2
@@ -441,9 +517,7 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     )
     # the lowest states (the tallest peaks need not be the lowest)
     order = np.argsort(np.where(valid, center, np.inf), axis=-1)[..., : params.n_states]
-    center, gamma, peak, valid = (
-        np.take_along_axis(x, order, axis=-1) for x in (center, gamma, peak, valid)
-    )
+    center, gamma, peak, valid = _take_last(order, center, gamma, peak, valid)
     return center, gamma, peak, valid
 
 
@@ -489,41 +563,34 @@ def _match_lines(e_n, gamma_p, peak_p, valid, lines, top):
     narrow = lines["valid"] & (lines["width_ev"] < top[..., None] - lines["center_ev"])
     d = np.where(narrow[..., None, :], d, np.inf)
     near = np.argmin(d, axis=-1)
-
-    def pick(a):
-        return np.take_along_axis(a, near, axis=-1)
-
+    line_width, line_center, line_peak = _take_last(
+        near, lines["width_ev"], lines["center_ev"], lines["peak"]
+    )
     matched = (
         valid
         & (e_n > gamma_p)
-        & (pick(lines["center_ev"]) > pick(lines["width_ev"]))
-        & (np.min(d, axis=-1) < 0.5 * (gamma_p + pick(lines["width_ev"])))
+        & (line_center > line_width)
+        & (np.min(d, axis=-1) < 0.5 * (gamma_p + line_width))
     )
-    center = np.where(valid, np.where(matched, pick(lines["center_ev"]), e_n), 0.0)
-    width = np.where(valid, np.where(matched, pick(lines["width_ev"]), gamma_p), 1.0)
-    peak = np.where(matched, pick(lines["peak"]), peak_p)
+    center = np.where(valid, np.where(matched, line_center, e_n), 0.0)
+    width = np.where(valid, np.where(matched, line_width, gamma_p), 1.0)
+    peak = np.where(matched, line_peak, peak_p)
     return center, width, peak, matched
 
 
-def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, params):
+def _state_widths(edge, mass, width, geo, barriers, e_n, width_c, peak_c, matched, kt, params):
     """Per state: ``Gamma_R``, the scale of ``Gamma_L(z)``, ``Gamma_t`` and the rates (notes 4-5)."""
     n = edge.shape[-1]
-    lo2, hi2 = int(geo.inner2.min()), int(geo.outer2.max()) + 1
-    tau_r = _lead_coupling(
-        e_n[..., None],
-        edge[..., -1],
-        mass[..., n - 1],
-        edge,
-        mass,
-        width,
-        geo.run2,
-        geo.outer2,
-        lo2,
-        hi2,
-    )[..., 0]
+    z = e_n[..., None]
+    (tau_r,) = _lead_coupling(z, (edge[..., -1],), mass[..., n - 1], barriers[1], edge, mass, width)
+    tau_r = tau_r[..., 0]
     # the left coupling at E_n of the line's own profile: the device's (matched) or the probe's
-    tau_l_dev = _left_coupling(e_n[..., None], 0.0, edge, mass, width, geo)[..., 0]
-    tau_l_probe = _left_coupling(e_n[..., None], edge[..., -1], edge, mass, width, geo)[..., 0]
+    tau_l_dev, tau_l_probe = (
+        t[..., 0]
+        for t in _lead_coupling(
+            z, (0.0, edge[..., -1]), mass[..., 0], barriers[0], edge, mass, width
+        )
+    )
     tau_l = np.where(matched, tau_l_dev, tau_l_probe)
     gamma_l, gamma_r = _split_widths(peak_c, width_c, tau_l, tau_r)
     scale = gamma_l / np.maximum(tau_l, 1e-300)  # Gamma_L(z) = scale tau_L(z)
@@ -552,12 +619,17 @@ def _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, par
     }
 
 
-def _left_coupling(z, lead_edge, edge, mass, width, geo):
-    """``tau_L(z)`` of the source lead at band edge ``lead_edge`` through the first barrier."""
-    lo, hi = int(geo.outer1.min()), int(geo.inner1.max()) + 1
-    return _lead_coupling(
-        z, lead_edge, mass[..., 0], edge, mass, width, geo.run1, geo.outer1, lo, hi
-    )
+@lru_cache(maxsize=16)
+def _spaced(start: float, stop: float, n: int) -> np.ndarray:
+    """``np.linspace(start, stop, n)``, made once (read-only)."""
+    out = np.linspace(start, stop, n)
+    out.flags.writeable = False
+    return out
+
+
+#: the geometric steps of :func:`_energy_nodes` above 0 and ``-hbar w``, eV
+_GEOMETRIC_EV = 0.02 * 0.5 ** np.arange(8.0)
+_GEOMETRIC_EV.flags.writeable = False
 
 
 def _energy_nodes(st, high_ev, params):
@@ -566,13 +638,13 @@ def _energy_nodes(st, high_ev, params):
     e_n, gamma_t, hw = st["e_n"], st["gamma_t"], st["hw"]
     e_lo = np.minimum(-hw, 0.0) - 1e-4
     e_hi = np.maximum(high_ev[..., None], e_lo + 1e-3)
-    u = np.linspace(0.0, 1.0, params.n_uniform)
-    s = np.linspace(-1.0, 1.0, params.n_line)
+    u = _spaced(0.0, 1.0, params.n_uniform)
+    s = _spaced(-1.0, 1.0, params.n_line)
     a = np.arcsinh((e_lo - e_n) / (0.5 * gamma_t))
     b = np.arcsinh((e_hi - e_n) / (0.5 * gamma_t))
     mid, rad = 0.5 * (a + b), 0.5 * (b - a)
     about = e_n[..., None] + 0.5 * gamma_t[..., None] * np.sinh(mid[..., None] + rad[..., None] * s)
-    geometric = 0.02 * 0.5 ** np.arange(8.0)
+    geometric = _GEOMETRIC_EV
     nodes = np.concatenate(
         [
             e_lo[..., None] + (e_hi - e_lo)[..., None] * u,
@@ -585,25 +657,34 @@ def _energy_nodes(st, high_ev, params):
     return np.sort(np.clip(nodes, e_lo[..., None], e_hi[..., None]), axis=-1)
 
 
-def _couplings(nodes, st, edge, mass, width, geo):
+def _couplings(both, steps, st, edge, mass, width, barrier: _Barrier):
     """Reservoir couplings ``g_L, g_R`` (elastic) and ``p_L, p_R`` (phonon emission, per
-    ``N + 1``) at the total energies ``nodes`` (module notes 1-3)."""
+    ``N + 1``) at the total energies ``nodes`` (module notes 1-3).
+
+    ``both`` is ``nodes`` and ``nodes + hbar w`` side by side along the last axis
+    (``(..., L, 2K)``), ``steps`` the ``np.diff`` of ``nodes``."""
 
     def ex(q):
         return q[..., None]
 
     def cumulative(y):
-        steps = np.cumsum(0.5 * (y[..., 1:] + y[..., :-1]) * np.diff(nodes), axis=-1)
-        return np.concatenate([np.zeros(y.shape[:-1] + (1,)), steps], axis=-1)
+        out = np.empty(y.shape)
+        out[..., 0] = 0.0
+        np.cumsum(0.5 * (y[..., 1:] + y[..., :-1]) * steps, axis=-1, out=out[..., 1:])
+        return out
 
+    n_k = both.shape[-1] // 2
+    nodes = both[..., :n_k]
     e_n, gamma_t, hw = ex(st["e_n"]), ex(st["gamma_t"]), ex(st["hw"])
     g_ifr, g_lo, gamma_r = ex(st["g_ifr"]), ex(st["g_lo"]), ex(st["gamma_r"])
     flr = 1.0 / ex(st["floor2"])
     # roughness gives lateral momentum q with weight exp(-q^2 Lambda^2 / 4) (Gaussian
     # correlation): an emitter electron entering the state gains z - E_n of lateral energy
     lateral = np.exp(-ex(st["lateral_per_ev"]) * np.maximum(nodes - e_n, 0.0))
-    gl_el = ex(st["scale"]) * _left_coupling(nodes, 0.0, edge, mass, width, geo) * lateral
-    gl_lo = ex(st["scale"]) * _left_coupling(nodes + hw, 0.0, edge, mass, width, geo)
+    # tau_L at z = E and at z = E + hbar w in one call (same barrier, same lead)
+    (tau_both,) = _lead_coupling(both, (0.0,), mass[..., 0], barrier, edge, mass, width)
+    gl_el = ex(st["scale"]) * tau_both[..., :n_k] * lateral
+    gl_lo = ex(st["scale"]) * tau_both[..., n_k:]
     lor = 1.0 / ((nodes - e_n) ** 2 + 0.25 * gamma_t**2)
     exists = 0.5 + np.arctan(2.0 * (nodes - e_n) / gamma_t) / np.pi
     g_left = g_ifr * (cumulative(gl_el * lor) + 0.5 * exists * cumulative(gl_el) * flr)
@@ -628,18 +709,18 @@ def _couplings(nodes, st, edge, mass, width, geo):
     return g_left, g_right, p_left, p_right
 
 
-def _reservoir_fluxes(nodes, couplings, hw, bose, mu_left, mu_right, kt):
+def _reservoir_fluxes(both, couplings, bose, mu_left, mu_right, kt):
     """Flux from the left lead into the reservoir and from it to the right lead, per energy.
 
+    ``both``: the nodes and the nodes plus ``hbar w``, side by side (:func:`_couplings`).
     The occupation ``f_w`` makes the reservoir's net current zero at every energy.
     """
     g_l, g_r, p_l, p_r = couplings
-    f_l, f_r = (
-        occupation(nodes, mu_ev=mu_left, kt_ev=kt),
-        occupation(nodes, mu_ev=mu_right, kt_ev=kt),
-    )
-    fu_l = occupation(nodes + hw, mu_ev=mu_left, kt_ev=kt)
-    fu_r = occupation(nodes + hw, mu_ev=mu_right, kt_ev=kt)
+    n_k = both.shape[-1] // 2
+    occ_l = occupation(both, mu_ev=mu_left, kt_ev=kt)
+    occ_r = occupation(both, mu_ev=mu_right, kt_ev=kt)
+    f_l, fu_l = occ_l[..., :n_k], occ_l[..., n_k:]
+    f_r, fu_r = occ_r[..., :n_k], occ_r[..., n_k:]
     emit_l, emit_r = (bose + 1.0) * p_l, (bose + 1.0) * p_r
     absorb_l, absorb_r = bose * p_l, bose * p_r
     num = g_l * f_l + g_r * f_r + emit_l * fu_l + emit_r * fu_r
@@ -712,7 +793,8 @@ def sequential_fluxes_ev2(
     top = np.minimum(_at(edge, geo.inner1), _at(edge, geo.inner2))
     e_p, gamma_p, peak_p, valid = _find_states(edge, mass, alpha, width, geo, top, high_ev, params)
     e_n, width_c, peak_c, matched = _match_lines(e_p, gamma_p, peak_p, valid, lines, top)
-    st = _state_widths(edge, mass, width, geo, e_n, width_c, peak_c, matched, kt, params)
+    barriers = _barriers(geo, edge, mass)
+    st = _state_widths(edge, mass, width, geo, barriers, e_n, width_c, peak_c, matched, kt, params)
     # the states' coherent transmission goes from width Gamma to Gamma_t (Buttiker)
     reduction = {
         "center_ev": e_n,
@@ -721,21 +803,24 @@ def sequential_fluxes_ev2(
         "gamma_s_ev": st["gamma_t"] - st["gamma_coh"],
     }
     nodes = _energy_nodes(st, high_ev, params)
-    couplings = _couplings(nodes, st, edge, mass, width, geo)
+    # the nodes and the nodes one phonon energy up, side by side: the coupling and the
+    # occupations at both in one call each
+    both = np.concatenate([nodes, nodes + st["hw"][..., None]], axis=-1)
+    steps = np.diff(nodes)
+    couplings = _couplings(both, steps, st, edge, mass, width, barriers[0])
 
     def ex2(q):
         return np.asarray(q)[..., None, None]
 
     flux_l, flux_r = _reservoir_fluxes(
-        nodes,
+        both,
         couplings,
-        st["hw"][..., None],
         st["bose"][..., None],
         ex2(mu_left_ev),
         ex2(mu_right_ev),
         ex2(kt),
     )
-    weights = 0.5 * np.diff(nodes)
+    weights = 0.5 * steps
 
     def integral(y):
         per_state = np.sum(weights * (y[..., 1:] + y[..., :-1]), axis=-1)
@@ -803,8 +888,11 @@ def sequential_integral_ev2(
     rev = np.asarray(bias_v) < 0
     e_right = edge[..., -1]
     shift = np.where(rev, e_right, 0.0)
+    turned = bool(rev.any())
 
     def orient(a):
+        if not turned:  # the same numbers as np.where below, without the copy
+            return a
         return np.where(rev[..., None], a[..., ::-1], a)
 
     edge_o = orient(edge) - shift[..., None]

@@ -360,3 +360,40 @@ def test_compiled_well_root_step_agrees(seed: int, monkeypatch) -> None:
     bad = np.zeros(3)
     with pytest.raises(ValueError, match="state"):
         kernel._slices.well_root_step(np.zeros(30), bad, bad, bad, bad, 0, 0.5, 1e-4, 1e7)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_compiled_barrier_action_agrees(seed: int) -> None:
+    # int kappa dz of the scattering channel's WKB couplings (physics/scattering.py,
+    # _barrier_action) compiled and in numpy on random slices, barrier runs and energies
+    # (below, across and above the barrier tops, NaN among them): the same numbers bit for
+    # bit, in the shapes the channel uses (energy nodes (..., L, K) and a state's energy)
+    from wellwright.physics import scattering as sc
+
+    rng = np.random.default_rng(seed)
+    batch, n = (2, 5), 14
+    edge = rng.uniform(-0.3, 1.2, batch + (n,))
+    mass = rng.uniform(0.02, 0.2, batch + (n,))
+    width = rng.uniform(0.0, 0.6, batch + (n,))
+    width[..., 3] = 0.0  # a padding slice
+    lo, hi = 2, 12
+    start = rng.integers(lo, 6, batch)
+    stop = rng.integers(7, hi + 1, batch)
+    idx = np.arange(n)
+    run = (idx >= start[..., None]) & (idx < stop[..., None])
+    run[0, 0] = False  # an entry without a barrier
+    for shape in ((3, 40), (1, 96), (2, 1)):
+        z = rng.uniform(-0.5, 1.5, batch + shape)
+        z[0, 1, 0, 0] = np.nan
+        assert sc.compiled_kernel("barrier_action") is not None
+        got = sc._barrier_action(z, edge, mass, width, run, lo, hi)
+        ref = sc._barrier_action(z, edge, mass, width, run, lo, hi, compiled=False)
+        np.testing.assert_array_equal(got, ref)
+        finite = np.ones(got.shape, bool)
+        finite[0, 1, 0, 0] = False
+        assert np.isnan(got[0, 1, 0, 0]) and np.all(np.isfinite(got[finite]))
+        assert np.all(got[0, 0] == 0.0) and np.any(got > 0.0)
+    bad = np.zeros(2 * n)
+    with pytest.raises(ValueError, match="lo < hi"):
+        kernel._slices.barrier_action(n, 5, 5, 1.0, np.zeros(4), bad, bad, bad,
+                                      np.zeros(2 * n, bool), np.zeros(4))  # fmt: skip
