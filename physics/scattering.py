@@ -216,14 +216,9 @@ class _Geometry:
     lo_phonon_ev: np.ndarray
     permittivity_high_r: np.ndarray
     permittivity_r: np.ndarray
-
-
-def _at(a, i):
-    """``a[..., i]`` per batch entry: ``take_along_axis`` (a plain gather where the shapes agree)."""
-    if a.shape[:-1] == i.shape:
-        flat = a.reshape(-1, a.shape[-1])
-        return flat[np.arange(flat.shape[0]), i.reshape(-1)].reshape(i.shape)
-    return np.take_along_axis(a, i[..., None], axis=-1)[..., 0]
+    #: (..., 5) band edge and mass at outer1, inner1, inner2, outer2 and the well's bottom
+    edge_at: np.ndarray
+    mass_at: np.ndarray
 
 
 def _take_last(index, *arrays):
@@ -253,6 +248,9 @@ def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geomet
     well_nm = w.sum(axis=-1)
     safe = np.maximum(well_nm, 1e-12)
     bottom = np.argmin(np.where(well, edge, np.inf), axis=-1)
+    inner1, inner2 = np.maximum(j1 - 1, 0), np.minimum(j2 + 1, n - 1)
+    edge_at, mass_at = _take_last(np.stack([i1, inner1, inner2, i2, bottom], axis=-1), edge, mass)
+    phonon_at = _take_last(bottom[..., None], phonon_ev, eps_high, eps_s)
     return _Geometry(
         run1=(idx >= i1[..., None]) & (idx < j1[..., None]),
         run2=(idx > j2[..., None]) & (idx <= i2[..., None]),
@@ -260,16 +258,18 @@ def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geomet
         has=has,
         well=well,
         outer1=i1,
-        inner1=np.maximum(j1 - 1, 0),
-        inner2=np.minimum(j2 + 1, n - 1),
+        inner1=inner1,
+        inner2=inner2,
         outer2=i2,
         well_edge_ev=(w * edge).sum(axis=-1) / safe,
-        well_bottom_ev=_at(edge, bottom),
+        well_bottom_ev=edge_at[..., 4],
         well_nm=well_nm,
         well_mass_m0=(w * mass).sum(axis=-1) / safe,
-        lo_phonon_ev=_at(phonon_ev, bottom),
-        permittivity_high_r=_at(eps_high, bottom),
-        permittivity_r=_at(eps_s, bottom),
+        lo_phonon_ev=phonon_at[0][..., 0],
+        permittivity_high_r=phonon_at[1][..., 0],
+        permittivity_r=phonon_at[2][..., 0],
+        edge_at=edge_at,
+        mass_at=mass_at,
     )
 
 
@@ -348,10 +348,10 @@ def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, kinetic, kt_e
     """
     ex = lambda a: np.asarray(a)[..., None]  # noqa: E731
     e_w, well_nm = kinetic
-    top1 = ex(_at(edge, geo.inner1)) - energy_ev
-    top2 = ex(_at(edge, geo.inner2)) - energy_ev
-    k1 = _kappa(ex(_at(mass, geo.inner1)), top1)
-    k2 = _kappa(ex(_at(mass, geo.inner2)), top2)
+    top1 = ex(geo.edge_at[..., 1]) - energy_ev
+    top2 = ex(geo.edge_at[..., 2]) - energy_ev
+    k1 = _kappa(ex(geo.mass_at[..., 1]), top1)
+    k2 = _kappa(ex(geo.mass_at[..., 2]), top2)
     w_eff = well_nm + 1.0 / k1 + 1.0 / k2
     m_w = ex(geo.well_mass_m0)
     kt = ex(kt_ev)
@@ -441,7 +441,7 @@ class _Barrier:
     outer_edge: np.ndarray  #: (..., 1, 1) its band edge, eV
 
 
-def _barriers(geo: _Geometry, edge, mass) -> tuple[_Barrier, _Barrier]:
+def _barriers(geo: _Geometry) -> tuple[_Barrier, _Barrier]:
     """The source-side and the drain-side barrier of ``geo``."""
     ex = lambda a: a[..., None, None]  # noqa: E731
     return (
@@ -449,15 +449,15 @@ def _barriers(geo: _Geometry, edge, mass) -> tuple[_Barrier, _Barrier]:
             geo.run1,
             int(geo.outer1.min()),
             int(geo.inner1.max()) + 1,
-            ex(_at(mass, geo.outer1)),
-            ex(_at(edge, geo.outer1)),
+            ex(geo.mass_at[..., 0]),
+            ex(geo.edge_at[..., 0]),
         ),
         _Barrier(
             geo.run2,
             int(geo.inner2.min()),
             int(geo.outer2.max()) + 1,
-            ex(_at(mass, geo.outer2)),
-            ex(_at(edge, geo.outer2)),
+            ex(geo.mass_at[..., 3]),
+            ex(geo.edge_at[..., 3]),
         ),
     )
 
@@ -790,10 +790,10 @@ def sequential_fluxes_ev2(
     kt = np.broadcast_to(kt_ev, geo.has.shape)
     # a quasi-bound state lies below the lower barrier's inner edge by more than its width
     # (a bound independent of temperature: the channel stays on in the cold)
-    top = np.minimum(_at(edge, geo.inner1), _at(edge, geo.inner2))
+    top = np.minimum(geo.edge_at[..., 1], geo.edge_at[..., 2])
     e_p, gamma_p, peak_p, valid = _find_states(edge, mass, alpha, width, geo, top, high_ev, params)
     e_n, width_c, peak_c, matched = _match_lines(e_p, gamma_p, peak_p, valid, lines, top)
-    barriers = _barriers(geo, edge, mass)
+    barriers = _barriers(geo)
     st = _state_widths(edge, mass, width, geo, barriers, e_n, width_c, peak_c, matched, kt, params)
     # the states' coherent transmission goes from width Gamma to Gamma_t (Buttiker)
     reduction = {
