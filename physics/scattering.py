@@ -640,10 +640,11 @@ def _energy_nodes(st, high_ev, params):
     e_hi = np.maximum(high_ev[..., None], e_lo + 1e-3)
     u = _spaced(0.0, 1.0, params.n_uniform)
     s = _spaced(-1.0, 1.0, params.n_line)
-    a = np.arcsinh((e_lo - e_n) / (0.5 * gamma_t))
-    b = np.arcsinh((e_hi - e_n) / (0.5 * gamma_t))
+    half = 0.5 * gamma_t
+    a = np.arcsinh((e_lo - e_n) / half)
+    b = np.arcsinh((e_hi - e_n) / half)
     mid, rad = 0.5 * (a + b), 0.5 * (b - a)
-    about = e_n[..., None] + 0.5 * gamma_t[..., None] * np.sinh(mid[..., None] + rad[..., None] * s)
+    about = e_n[..., None] + half[..., None] * np.sinh(mid[..., None] + rad[..., None] * s)
     geometric = _GEOMETRIC_EV
     nodes = np.concatenate(
         [
@@ -678,34 +679,38 @@ def _couplings(both, steps, st, edge, mass, width, barrier: _Barrier):
     e_n, gamma_t, hw = ex(st["e_n"]), ex(st["gamma_t"]), ex(st["hw"])
     g_ifr, g_lo, gamma_r = ex(st["g_ifr"]), ex(st["g_lo"]), ex(st["gamma_r"])
     flr = 1.0 / ex(st["floor2"])
+    above = nodes - e_n  # E - E_n, used five times below
     # roughness gives lateral momentum q with weight exp(-q^2 Lambda^2 / 4) (Gaussian
     # correlation): an emitter electron entering the state gains z - E_n of lateral energy
-    lateral = np.exp(-ex(st["lateral_per_ev"]) * np.maximum(nodes - e_n, 0.0))
+    lateral = np.exp(-ex(st["lateral_per_ev"]) * np.maximum(above, 0.0))
     # tau_L at z = E and at z = E + hbar w in one call (same barrier, same lead)
     (tau_both,) = _lead_coupling(both, (0.0,), mass[..., 0], barrier, edge, mass, width)
     gl_el = ex(st["scale"]) * tau_both[..., :n_k] * lateral
     gl_lo = ex(st["scale"]) * tau_both[..., n_k:]
-    lor = 1.0 / ((nodes - e_n) ** 2 + 0.25 * gamma_t**2)
-    exists = 0.5 + np.arctan(2.0 * (nodes - e_n) / gamma_t) / np.pi
+    half2 = 0.25 * gamma_t**2
+    lor = 1.0 / (above**2 + half2)
+    exists = 0.5 + np.arctan(2.0 * above / gamma_t) / np.pi
     g_left = g_ifr * (cumulative(gl_el * lor) + 0.5 * exists * cumulative(gl_el) * flr)
     # phonon emission: the emitter state's admixture at z = y + hbar w (Lorentzian about
     # E_n), landing at longitudinal y in the state that exists at total energy E; the
     # Frohlich 1/q^2 and the well's form factor favour |y - E_n| below e_w (note 3)
-    lor_up = 1.0 / ((nodes + hw - e_n) ** 2 + 0.25 * gamma_t**2)
-    forward = 1.0 / (1.0 + np.abs(nodes - e_n) / ex(st["e_w"]))
+    lor_up = 1.0 / ((nodes + hw - e_n) ** 2 + half2)
+    forward = 1.0 / (1.0 + np.abs(above) / ex(st["e_w"]))
     p_left = g_lo * exists * cumulative(gl_lo * (lor_up + flr) * forward)
 
-    def right(rate, floor_rate, centre, bottom):  # the drain's (constant Gamma_R): closed form
-        lower = bottom - centre
-        top = np.maximum(nodes - centre, lower)
-        g2 = 2.0 / gamma_t
+    g2 = 2.0 / gamma_t
+
+    def right(rate, floor_rate, centre, bottom, offset):  # the drain's (constant Gamma_R):
+        lower = bottom - centre  # closed form; offset: E - centre
+        top = np.maximum(offset, lower)
         arc = g2 * (np.arctan(g2 * top) - np.arctan(g2 * lower))
         return gamma_r * (rate * arc + floor_rate * exists * (top - lower) * flr)
 
     e_r = ex(ex(edge[..., -1]))
-    g_right = right(g_ifr, 0.5 * g_ifr, e_n, e_r)
+    g_right = right(g_ifr, 0.5 * g_ifr, e_n, e_r, above)
     # (the drain's phonon term without the forward weight: an upper bound of a minor term)
-    p_right = exists * right(g_lo, g_lo, e_n - hw, e_r - hw)
+    e_down = e_n - hw
+    p_right = exists * right(g_lo, g_lo, e_down, e_r - hw, nodes - e_down)
     return g_left, g_right, p_left, p_right
 
 
@@ -723,18 +728,15 @@ def _reservoir_fluxes(both, couplings, bose, mu_left, mu_right, kt):
     f_r, fu_r = occ_r[..., :n_k], occ_r[..., n_k:]
     emit_l, emit_r = (bose + 1.0) * p_l, (bose + 1.0) * p_r
     absorb_l, absorb_r = bose * p_l, bose * p_r
-    num = g_l * f_l + g_r * f_r + emit_l * fu_l + emit_r * fu_r
-    den = (
-        g_l
-        + g_r
-        + emit_l * fu_l
-        + absorb_l * (1.0 - fu_l)
-        + emit_r * fu_r
-        + absorb_r * (1.0 - fu_r)
-    )
+    # products and complements used twice, made once (the same numbers)
+    in_l, in_r = emit_l * fu_l, emit_r * fu_r
+    empty_l, empty_r = 1.0 - fu_l, 1.0 - fu_r
+    num = g_l * f_l + g_r * f_r + in_l + in_r
+    den = g_l + g_r + in_l + absorb_l * empty_l + in_r + absorb_r * empty_r
     f_w = np.where(den > 0, num / np.maximum(den, 1e-300), 0.0)
-    flux_l = g_l * (f_l - f_w) + emit_l * fu_l * (1.0 - f_w) - absorb_l * f_w * (1.0 - fu_l)
-    flux_r = g_r * (f_w - f_r) - emit_r * fu_r * (1.0 - f_w) + absorb_r * f_w * (1.0 - fu_r)
+    free = 1.0 - f_w
+    flux_l = g_l * (f_l - f_w) + in_l * free - absorb_l * f_w * empty_l
+    flux_r = g_r * (f_w - f_r) - in_r * free + absorb_r * f_w * empty_r
     return flux_l, flux_r
 
 
