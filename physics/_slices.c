@@ -45,6 +45,9 @@
  *   barrier_action(n_slices, lo, hi, hb2, z, edge, mass, width, run, out)
  * int kappa dz over one barrier at many energies per profile (physics/scattering.py,
  * _barrier_action: the WKB couplings of the scattering-assisted channel).
+ *   node_arguments(...), node_fluxes(...)
+ * the scattering channel's couplings and reservoir fluxes at its energy nodes
+ * (physics/scattering.py: _couplings, _reservoir_fluxes) around numpy's exp, arctan, tanh.
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
@@ -1143,6 +1146,250 @@ done:
     return result;
 }
 
+/* ---- the scattering channel at its energy nodes (physics/scattering.py: _couplings and
+   _reservoir_fluxes) ----
+   Two passes around numpy's exp, arctan and tanh (which stay numpy's, so that the numbers
+   are the numpy statement's bit for bit): node_arguments writes the arguments of those
+   functions, node_fluxes takes their values and computes the couplings, the cumulative
+   integrals, the reservoir's occupation and the two fluxes, in the numpy statement's order
+   of operations, without fused multiply-add. Row r is one state of batch entry r / n_states;
+   its scalars are the NODE_P values of par (order: enum below). */
+enum { P_EN, P_GT, P_HW, P_GIFR, P_GLO, P_GR, P_FLOOR2, P_LPS, P_SCALE, P_EW, P_BOSE, P_ER,
+       P_MUL, P_MUR, P_KT, P_LEADM, P_BM, P_BE, NODE_P };
+
+static inline double max_numpy(double a, double b) { return (a >= b || a != a) ? a : b; }
+
+/* exp arguments (rows x 3K): lateral (K), -2 int kappa dz at E and E + hbar w (2K);
+   arctan arguments (rows x 3K + 2 rows): exists, drain (elastic), drain (phonon) (K each),
+   then per row the two lower ends; tanh arguments (rows x 4K): source lead at E and
+   E + hbar w, drain lead at both. */
+WW_NO_FMA
+static void node_arguments(Py_ssize_t rows, Py_ssize_t n_states, Py_ssize_t k, const double *par,
+                           const double *both, Py_ssize_t n_slices, Py_ssize_t lo, Py_ssize_t hi,
+                           double hb2, const double *edge, const double *mass,
+                           const double *width, const unsigned char *run, double *ex_arg,
+                           double *at_arg, double *th_arg)
+{
+    for (Py_ssize_t r = 0; r < rows; r++) {
+        const double *p = par + r * NODE_P;
+        const double *z = both + r * 2 * k;
+        double *xe = ex_arg + r * 3 * k, *xa = at_arg + r * 3 * k, *xt = th_arg + r * 4 * k;
+        const double e_n = p[P_EN], gamma_t = p[P_GT], hw = p[P_HW];
+        const double neg_lps = -p[P_LPS], g2 = 2.0 / gamma_t;
+        const double lower_el = p[P_ER] - e_n, e_down = e_n - hw;
+        const double lower_ph = (p[P_ER] - hw) - e_down;
+        for (Py_ssize_t j = 0; j < k; j++) {
+            const double above = z[j] - e_n;
+            xe[j] = neg_lps * max_numpy(above, 0.0);
+            xa[j] = 2.0 * above / gamma_t;
+            xa[k + j] = g2 * max_numpy(above, lower_el);
+            xa[2 * k + j] = g2 * max_numpy(z[j] - e_down, lower_ph);
+        }
+        at_arg[rows * 3 * k + 2 * r] = g2 * lower_el;
+        at_arg[rows * 3 * k + 2 * r + 1] = g2 * lower_ph;
+        for (Py_ssize_t j = 0; j < 2 * k; j++) {
+            xt[j] = 0.5 * (z[j] - p[P_MUL]) / p[P_KT];
+            xt[2 * k + j] = 0.5 * (z[j] - p[P_MUR]) / p[P_KT];
+        }
+        /* the source barrier's int kappa dz at both node sets (barrier_action's sum) */
+        double *act = xe + k;
+        const Py_ssize_t b = r / n_states;
+        if (hi <= lo) {
+            for (Py_ssize_t j = 0; j < 2 * k; j++) act[j] = 0.0;
+        }
+        for (Py_ssize_t s2 = lo; s2 < hi; s2++) {
+            const Py_ssize_t o = b * n_slices + s2;
+            const double e = edge[o], m = mass[o], w = width[o];
+            const int in_run = run[o] != 0, first = s2 == lo;
+            for (Py_ssize_t j = 0; j < 2 * k; j++) {
+                const double h = e - z[j];
+                const double hp = h < 0.0 ? 0.0 : h;
+                const double v = in_run ? sqrt(m * hp / hb2) * w : 0.0;
+                act[j] = first ? v : act[j] + v;
+            }
+        }
+        for (Py_ssize_t j = 0; j < 2 * k; j++) act[j] = -2.0 * act[j];
+    }
+}
+
+/* cumulative trapezoid integral of y (k values) over the node steps (k - 1), from 0 */
+static inline void cumulative(Py_ssize_t k, const double *y, const double *steps, double *out)
+{
+    out[0] = 0.0;
+    for (Py_ssize_t j = 1; j < k; j++) out[j] = out[j - 1] + 0.5 * (y[j] + y[j - 1]) * steps[j - 1];
+}
+
+WW_NO_FMA
+static int node_fluxes(Py_ssize_t rows, Py_ssize_t k, double hb2, const double *par,
+                       const double *both, const double *steps, const double *ex_val,
+                       const double *at_val, const double *th_val, double *flux_l,
+                       double *flux_r)
+{
+    double *work = PyMem_RawMalloc(sizeof(double) * (size_t)(7 * k));
+    if (!work) return 0;
+    double *gl_el = work, *y = work + k, *cum_a = work + 2 * k, *cum_b = work + 3 * k;
+    double *cum_c = work + 4 * k, *gl_lo = work + 5 * k, *exists = work + 6 * k;
+    for (Py_ssize_t r = 0; r < rows; r++) {
+        const double *p = par + r * NODE_P;
+        const double *z = both + r * 2 * k, *st = steps + r * (k - 1);
+        const double *lat = ex_val + r * 3 * k, *theta = lat + k;
+        const double *at = at_val + r * 3 * k, *tl = th_val + r * 4 * k, *tr = tl + 2 * k;
+        const double at_lower_el = at_val[rows * 3 * k + 2 * r];
+        const double at_lower_ph = at_val[rows * 3 * k + 2 * r + 1];
+        const double e_n = p[P_EN], gamma_t = p[P_GT], hw = p[P_HW], g_ifr = p[P_GIFR];
+        const double g_lo = p[P_GLO], gamma_r = p[P_GR], scale = p[P_SCALE], e_w = p[P_EW];
+        const double bose = p[P_BOSE], lead_m = p[P_LEADM], m_b = p[P_BM], b_edge = p[P_BE];
+        const double flr = 1.0 / p[P_FLOOR2], half2 = 0.25 * (gamma_t * gamma_t);
+        const double g2 = 2.0 / gamma_t, lower_el = p[P_ER] - e_n, e_down = e_n - hw;
+        const double lower_ph = (p[P_ER] - hw) - e_down, floor_el = 0.5 * g_ifr;
+        const double bose1 = bose + 1.0;
+        /* tau_L (interface factor x transparency) at E and E + hbar w */
+        for (Py_ssize_t j = 0; j < 2 * k; j++) {
+            const double kin = z[j] - 0.0;
+            const double kap = sqrt(m_b * max_numpy(b_edge - z[j], 1e-3) / hb2);
+            const double kk = sqrt(max_numpy(kin, 0.0) * lead_m / hb2);
+            const double a = kk / lead_m, bb = kap / m_b;
+            const double tau = 4.0 * a * bb / (a * a + bb * bb + 1e-300) * theta[j];
+            const double t = kin > 0.0 ? tau : 0.0;
+            if (j < k)
+                gl_el[j] = scale * t * lat[j];
+            else
+                gl_lo[j - k] = scale * t;
+        }
+        for (Py_ssize_t j = 0; j < k; j++) {
+            const double above = z[j] - e_n;
+            exists[j] = 0.5 + at[j] / M_PI;
+            y[j] = gl_el[j] * (1.0 / (above * above + half2));
+        }
+        cumulative(k, y, st, cum_a);
+        cumulative(k, gl_el, st, cum_b);
+        for (Py_ssize_t j = 0; j < k; j++) {
+            const double above = z[j] - e_n, up = z[j] + hw - e_n;
+            const double lor_up = 1.0 / (up * up + half2);
+            const double forward = 1.0 / (1.0 + fabs(above) / e_w);
+            y[j] = gl_lo[j] * (lor_up + flr) * forward;
+        }
+        cumulative(k, y, st, cum_c);
+        double *fl = flux_l + r * k, *fr = flux_r + r * k;
+        for (Py_ssize_t j = 0; j < k; j++) {
+            const double above = z[j] - e_n, ex = exists[j];
+            const double g_l = g_ifr * (cum_a[j] + 0.5 * ex * cum_b[j] * flr);
+            const double p_l = g_lo * ex * cum_c[j];
+            const double top_el = max_numpy(above, lower_el);
+            const double arc_el = g2 * (at[k + j] - at_lower_el);
+            const double g_r =
+                gamma_r * (g_ifr * arc_el + floor_el * ex * (top_el - lower_el) * flr);
+            const double top_ph = max_numpy(z[j] - e_down, lower_ph);
+            const double arc_ph = g2 * (at[2 * k + j] - at_lower_ph);
+            const double p_r =
+                ex * (gamma_r * (g_lo * arc_ph + g_lo * ex * (top_ph - lower_ph) * flr));
+            const double f_l = 0.5 * (1.0 - tl[j]), fu_l = 0.5 * (1.0 - tl[k + j]);
+            const double f_r = 0.5 * (1.0 - tr[j]), fu_r = 0.5 * (1.0 - tr[k + j]);
+            const double emit_l = bose1 * p_l, emit_r = bose1 * p_r;
+            const double absorb_l = bose * p_l, absorb_r = bose * p_r;
+            const double in_l = emit_l * fu_l, in_r = emit_r * fu_r;
+            const double empty_l = 1.0 - fu_l, empty_r = 1.0 - fu_r;
+            const double num = g_l * f_l + g_r * f_r + in_l + in_r;
+            const double den = g_l + g_r + in_l + absorb_l * empty_l + in_r + absorb_r * empty_r;
+            const double f_w = den > 0.0 ? num / max_numpy(den, 1e-300) : 0.0;
+            const double free = 1.0 - f_w;
+            fl[j] = g_l * (f_l - f_w) + in_l * free - absorb_l * f_w * empty_l;
+            fr[j] = g_r * (f_w - f_r) - in_r * free + absorb_r * f_w * empty_r;
+        }
+    }
+    PyMem_RawFree(work);
+    return 1;
+}
+
+static PyObject *py_node_arguments(PyObject *self, PyObject *args)
+{
+    Py_ssize_t n_states, k, n_slices, lo, hi;
+    double hb2;
+    Py_buffer bp = {0}, bz = {0}, be = {0}, bm = {0}, bw = {0}, br = {0}, bx = {0}, ba = {0},
+              bt = {0};
+    PyObject *result = NULL;
+    (void)self;
+    if (!PyArg_ParseTuple(args, "nny*y*nnndy*y*y*y*w*w*w*", &n_states, &k, &bp, &bz, &n_slices,
+                          &lo, &hi, &hb2, &be, &bm, &bw, &br, &bx, &ba, &bt))
+        return NULL;
+    if (!(need_double(&bp, "par") && need_double(&bz, "both") && need_double(&be, "edge") &&
+          need_double(&bm, "mass") && need_double(&bw, "width") && need_double(&bx, "ex_arg") &&
+          need_double(&ba, "at_arg") && need_double(&bt, "th_arg")))
+        goto done;
+    const Py_ssize_t rows = bp.len / (Py_ssize_t)(sizeof(double) * NODE_P);
+    const Py_ssize_t d = (Py_ssize_t)sizeof(double);
+    if (n_states <= 0 || k <= 1 || n_slices <= 0 || rows <= 0 || rows % n_states != 0 ||
+        bp.len != rows * NODE_P * d || bz.len != rows * 2 * k * d ||
+        be.len != (rows / n_states) * n_slices * d || bm.len != be.len || bw.len != be.len ||
+        br.len * d != be.len || bx.len != rows * 3 * k * d || ba.len != (rows * 3 * k + 2 * rows) * d ||
+        bt.len != rows * 4 * k * d || lo < 0 || hi > n_slices) {
+        PyErr_SetString(PyExc_ValueError,
+                        "par: rows x 18, both: rows x 2k, slices: rows / n_states x n_slices,"
+                        " ex_arg: rows x 3k, at_arg: rows x (3k) + 2 rows, th_arg: rows x 4k,"
+                        " 0 <= lo, hi <= n_slices");
+        goto done;
+    }
+    node_arguments(rows, n_states, k, bp.buf, bz.buf, n_slices, lo, hi, hb2, be.buf, bm.buf,
+                   bw.buf, br.buf, bx.buf, ba.buf, bt.buf);
+    result = Py_None;
+    Py_INCREF(result);
+done:
+    PyBuffer_Release(&bp);
+    PyBuffer_Release(&bz);
+    PyBuffer_Release(&be);
+    PyBuffer_Release(&bm);
+    PyBuffer_Release(&bw);
+    PyBuffer_Release(&br);
+    PyBuffer_Release(&bx);
+    PyBuffer_Release(&ba);
+    PyBuffer_Release(&bt);
+    return result;
+}
+
+static PyObject *py_node_fluxes(PyObject *self, PyObject *args)
+{
+    Py_ssize_t k;
+    double hb2;
+    Py_buffer bp = {0}, bz = {0}, bs = {0}, bx = {0}, ba = {0}, bt = {0}, bl = {0}, br = {0};
+    PyObject *result = NULL;
+    (void)self;
+    if (!PyArg_ParseTuple(args, "ndy*y*y*y*y*y*w*w*", &k, &hb2, &bp, &bz, &bs, &bx, &ba, &bt, &bl,
+                          &br))
+        return NULL;
+    if (!(need_double(&bp, "par") && need_double(&bz, "both") && need_double(&bs, "steps") &&
+          need_double(&bx, "ex_val") && need_double(&ba, "at_val") &&
+          need_double(&bt, "th_val") && need_double(&bl, "flux_l") && need_double(&br, "flux_r")))
+        goto done;
+    const Py_ssize_t rows = bp.len / (Py_ssize_t)(sizeof(double) * NODE_P);
+    const Py_ssize_t d = (Py_ssize_t)sizeof(double);
+    if (k <= 1 || rows <= 0 || bp.len != rows * NODE_P * d || bz.len != rows * 2 * k * d ||
+        bs.len != rows * (k - 1) * d || bx.len != rows * 3 * k * d ||
+        ba.len != (rows * 3 * k + 2 * rows) * d || bt.len != rows * 4 * k * d ||
+        bl.len != rows * k * d || br.len != bl.len) {
+        PyErr_SetString(PyExc_ValueError,
+                        "par: rows x 18, both: rows x 2k, steps: rows x (k - 1), ex_val: rows x 3k,"
+                        " at_val: rows x (3k) + 2 rows, th_val: rows x 4k, fluxes: rows x k");
+        goto done;
+    }
+    if (!node_fluxes(rows, k, hb2, bp.buf, bz.buf, bs.buf, bx.buf, ba.buf, bt.buf, bl.buf,
+                     br.buf)) {
+        PyErr_NoMemory();
+        goto done;
+    }
+    result = Py_None;
+    Py_INCREF(result);
+done:
+    PyBuffer_Release(&bp);
+    PyBuffer_Release(&bz);
+    PyBuffer_Release(&bs);
+    PyBuffer_Release(&bx);
+    PyBuffer_Release(&ba);
+    PyBuffer_Release(&bt);
+    PyBuffer_Release(&bl);
+    PyBuffer_Release(&br);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"transmission", py_transmission, METH_VARARGS,
      "transmission(n_slices, n_energy, energy, edge, mass, alpha, width, inv_hb2, t_out, r_out,"
@@ -1184,6 +1431,15 @@ static PyMethodDef methods[] = {
      "int kappa dz of physics.scattering._barrier_action: out (rows, n_z) gets, per row of"
      " edge, mass, width (float64) and run (bool), all (rows, n), and energy z (rows, n_z), the"
      " sum over slices lo..hi-1 in run of sqrt(mass max(edge - z, 0) / hb2) width."},
+    {"node_arguments", py_node_arguments, METH_VARARGS,
+     "node_arguments(n_states, k, par, both, n_slices, lo, hi, hb2, edge, mass, width, run,"
+     " ex_arg, at_arg, th_arg)\n\n"
+     "The arguments of exp, arctan and tanh of the scattering channel at its energy nodes"
+     " (physics.scattering._compiled_node_fluxes)."},
+    {"node_fluxes", py_node_fluxes, METH_VARARGS,
+     "node_fluxes(k, hb2, par, both, steps, ex_val, at_val, th_val, flux_l, flux_r)\n\n"
+     "The channel's couplings and reservoir fluxes at its energy nodes from the values of"
+     " those functions (physics.scattering._couplings and _reservoir_fluxes, bit for bit)."},
     {NULL, NULL, 0, NULL},
 };
 

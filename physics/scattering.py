@@ -740,6 +740,84 @@ def _reservoir_fluxes(both, couplings, bose, mu_left, mu_right, kt):
     return flux_l, flux_r
 
 
+#: the per-state values of the compiled node passes, in the order of ``_slices.c`` (``NODE_P``)
+_NODE_STATE = (
+    "e_n",
+    "gamma_t",
+    "hw",
+    "g_ifr",
+    "g_lo",
+    "gamma_r",
+    "floor2",
+    "lateral_per_ev",
+    "scale",
+    "e_w",
+    "bose",
+)
+
+
+def _compiled_node_fluxes(both, steps, st, edge, mass, width, barrier, mu_left, mu_right, kt):
+    """:func:`_couplings` and :func:`_reservoir_fluxes` compiled: two passes (``_slices.c``:
+    ``node_arguments``, ``node_fluxes``) around numpy's ``exp``, ``arctan`` and ``tanh``, each
+    called once on all its arguments; the numbers of the numpy statement bit for bit (the
+    same operations in the same order, no fused multiply-add; ``tests/test_kernel_backends.py``).
+    None where the routines are not built or not in use (the caller runs the numpy statement)."""
+    arguments, fluxes = compiled_kernel("node_arguments"), compiled_kernel("node_fluxes")
+    shape, k = both.shape[:-1], both.shape[-1] // 2  # batch + (L,), nodes per state
+    if arguments is None or fluxes is None or k < 2 or shape[:-1] != edge.shape[:-1]:
+        return None
+    par = np.empty(shape + (18,))
+    for i, name in enumerate(_NODE_STATE):
+        par[..., i] = st[name]
+    per_entry = (
+        edge[..., -1],
+        mu_left,
+        mu_right,
+        kt,
+        mass[..., 0],
+        barrier.outer_mass[..., 0, 0],
+        barrier.outer_edge[..., 0, 0],
+    )
+    for i, value in enumerate(per_entry, start=len(_NODE_STATE)):
+        par[..., i] = np.asarray(value)[..., None]
+    rows, n = math.prod(shape), edge.shape[-1]
+    flat = (-1, n)
+    exp_arg, atan_arg = np.empty(rows * 3 * k), np.empty(rows * (3 * k + 2))
+    tanh_arg = np.empty(rows * 4 * k)
+    both = np.ascontiguousarray(both)
+    arguments(
+        shape[-1],
+        k,
+        par,
+        both,
+        n,
+        barrier.lo,
+        barrier.hi,
+        HBAR2_2M0_EV_NM2,
+        np.ascontiguousarray(edge, dtype=float).reshape(flat),
+        np.ascontiguousarray(mass, dtype=float).reshape(flat),
+        np.ascontiguousarray(width, dtype=float).reshape(flat),
+        np.ascontiguousarray(barrier.run, dtype=bool).reshape(flat),
+        exp_arg,
+        atan_arg,
+        tanh_arg,
+    )
+    flux_l, flux_r = np.empty(shape + (k,)), np.empty(shape + (k,))
+    fluxes(
+        k,
+        HBAR2_2M0_EV_NM2,
+        par,
+        both,
+        np.ascontiguousarray(steps),
+        np.exp(exp_arg),
+        np.arctan(atan_arg),
+        np.tanh(tanh_arg),
+        flux_l,
+        flux_r,
+    )
+    return flux_l, flux_r
+
+
 def sequential_fluxes_ev2(
     *,
     edge,
@@ -809,19 +887,24 @@ def sequential_fluxes_ev2(
     # occupations at both in one call each
     both = np.concatenate([nodes, nodes + st["hw"][..., None]], axis=-1)
     steps = np.diff(nodes)
-    couplings = _couplings(both, steps, st, edge, mass, width, barriers[0])
-
-    def ex2(q):
-        return np.asarray(q)[..., None, None]
-
-    flux_l, flux_r = _reservoir_fluxes(
-        both,
-        couplings,
-        st["bose"][..., None],
-        ex2(mu_left_ev),
-        ex2(mu_right_ev),
-        ex2(kt),
+    fluxes = _compiled_node_fluxes(
+        both, steps, st, edge, mass, width, barriers[0], mu_left_ev, mu_right_ev, kt
     )
+    if fluxes is None:  # the numpy statement
+        couplings = _couplings(both, steps, st, edge, mass, width, barriers[0])
+
+        def ex2(q):
+            return np.asarray(q)[..., None, None]
+
+        fluxes = _reservoir_fluxes(
+            both,
+            couplings,
+            st["bose"][..., None],
+            ex2(mu_left_ev),
+            ex2(mu_right_ev),
+            ex2(kt),
+        )
+    flux_l, flux_r = fluxes
     weights = 0.5 * steps
 
     def integral(y):

@@ -397,3 +397,50 @@ def test_compiled_barrier_action_agrees(seed: int) -> None:
     with pytest.raises(ValueError, match="lo < hi"):
         kernel._slices.barrier_action(n, 5, 5, 1.0, np.zeros(4), bad, bad, bad,
                                       np.zeros(2 * n, bool), np.zeros(4))  # fmt: skip
+
+
+@pytest.mark.parametrize("study", ["inp_thz_oscillator.toml", "gaas_low_power_memory.toml"])
+def test_compiled_node_fluxes_agree(study: str, monkeypatch) -> None:
+    # the scattering channel's couplings and reservoir fluxes at its energy nodes
+    # (physics/scattering.py: _couplings, _reservoir_fluxes) compiled (node_arguments and
+    # node_fluxes around numpy's exp, arctan and tanh) and in numpy, on every channel call of
+    # the example stack's I-Vs (both polarities, linear and self-consistent profiles): the
+    # channel's integrals and states the same, bit for bit
+    from dataclasses import replace
+
+    from wellwright.physics import current as cur
+    from wellwright.physics import scattering as sc
+    from wellwright.physics.iv import sweep
+    from wellwright.physics.stack import load_stack
+
+    stack = load_stack(Path(__file__).resolve().parents[1] / "studies" / study)
+    seen, used = [], []
+    channel, node_fluxes = cur.sequential_integral_ev2, sc._compiled_node_fluxes
+    with monkeypatch.context() as m:
+        m.setattr(
+            cur, "sequential_integral_ev2", lambda *a, **k: seen.append((a, k)) or channel(*a, **k)
+        )
+        for electrostatics in ("linear", "self-consistent"):
+            model = replace(
+                stack.model, electrostatics=electrostatics, transport="scattering-assisted"
+            )
+            sweep(stack.table(), np.linspace(-0.6, 0.8, 15), model=model)
+    assert len(seen) >= 4
+    real = sc.compiled_kernel
+    for args, kwargs in seen:
+        with monkeypatch.context() as m:
+            m.setattr(
+                sc, "_compiled_node_fluxes", lambda *a: used.append(node_fluxes(*a)) or used[-1]
+            )
+            got = channel(*args, **kwargs)
+        with monkeypatch.context() as m:
+            m.setattr(sc, "compiled_kernel", lambda name: None if "node" in name else real(name))
+            ref = channel(*args, **kwargs)
+        np.testing.assert_array_equal(got[0], ref[0])
+        np.testing.assert_array_equal(got[1], ref[1])
+        for key in ref[2]:
+            np.testing.assert_array_equal(got[2][key], ref[2][key])
+    assert used and all(u is not None for u in used)  # the compiled passes ran
+    bad = np.zeros(18)
+    with pytest.raises(ValueError, match="rows x"):
+        kernel._slices.node_fluxes(4, 1.0, bad, bad, bad, bad, bad, bad, bad, bad)
