@@ -1155,7 +1155,7 @@ done:
    of operations, without fused multiply-add. Row r is one state of batch entry r / n_states;
    its scalars are the NODE_P values of par (order: enum below). */
 enum { P_EN, P_GT, P_HW, P_GIFR, P_GLO, P_GR, P_FLOOR2, P_LPS, P_SCALE, P_EW, P_BOSE, P_ER,
-       P_MUL, P_MUR, P_KT, P_LEADM, P_BM, P_BE, NODE_P };
+       P_MUL, P_MUR, P_KT, P_LEADM, P_BM, P_BE, P_LOCAL, NODE_P };
 
 static inline double max_numpy(double a, double b) { return (a >= b || a != a) ? a : b; }
 
@@ -1242,14 +1242,17 @@ static int node_fluxes(Py_ssize_t rows, Py_ssize_t k, double hb2, const double *
         const double flr = 1.0 / p[P_FLOOR2], half2 = 0.25 * (gamma_t * gamma_t);
         const double g2 = 2.0 / gamma_t, lower_el = p[P_ER] - e_n, e_down = e_n - hw;
         const double lower_ph = (p[P_ER] - hw) - e_down, floor_el = 0.5 * g_ifr;
-        const double bose1 = bose + 1.0;
-        /* tau_L (interface factor x transparency) at E and E + hbar w */
+        const double bose1 = bose + 1.0, per_ev = lead_m / hb2, local = p[P_LOCAL];
+        /* tau_L (step x interface factor x transparency) at E and E + hbar w */
         for (Py_ssize_t j = 0; j < 2 * k; j++) {
             const double kin = z[j] - 0.0;
             const double kap = sqrt(m_b * max_numpy(b_edge - z[j], 1e-3) / hb2);
-            const double kk = sqrt(max_numpy(kin, 0.0) * lead_m / hb2);
+            const double k_lead = sqrt(max_numpy(kin, 0.0) * per_ev);
+            const double kk = sqrt(max_numpy(z[j] - local, 0.0) * per_ev);
+            const double sum = k_lead + kk;
+            const double step = 4.0 * k_lead * kk / max_numpy(sum * sum, 1e-300);
             const double a = kk / lead_m, bb = kap / m_b;
-            const double tau = 4.0 * a * bb / (a * a + bb * bb + 1e-300) * theta[j];
+            const double tau = step * (4.0 * a * bb / (a * a + bb * bb + 1e-300)) * theta[j];
             const double t = kin > 0.0 ? tau : 0.0;
             if (j < k)
                 gl_el[j] = scale * t * lat[j];
@@ -1324,7 +1327,7 @@ static PyObject *py_node_arguments(PyObject *self, PyObject *args)
         br.len * d != be.len || bx.len != rows * 3 * k * d || ba.len != (rows * 3 * k + 2 * rows) * d ||
         bt.len != rows * 4 * k * d || lo < 0 || hi > n_slices) {
         PyErr_SetString(PyExc_ValueError,
-                        "par: rows x 18, both: rows x 2k, slices: rows / n_states x n_slices,"
+                        "par: rows x 19, both: rows x 2k, slices: rows / n_states x n_slices,"
                         " ex_arg: rows x 3k, at_arg: rows x (3k) + 2 rows, th_arg: rows x 4k,"
                         " 0 <= lo, hi <= n_slices");
         goto done;
@@ -1367,7 +1370,7 @@ static PyObject *py_node_fluxes(PyObject *self, PyObject *args)
         ba.len != (rows * 3 * k + 2 * rows) * d || bt.len != rows * 4 * k * d ||
         bl.len != rows * k * d || br.len != bl.len) {
         PyErr_SetString(PyExc_ValueError,
-                        "par: rows x 18, both: rows x 2k, steps: rows x (k - 1), ex_val: rows x 3k,"
+                        "par: rows x 19, both: rows x 2k, steps: rows x (k - 1), ex_val: rows x 3k,"
                         " at_val: rows x (3k) + 2 rows, th_val: rows x 4k, fluxes: rows x k");
         goto done;
     }

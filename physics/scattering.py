@@ -80,9 +80,15 @@ Departures from [2]_, each stated:
    profile whose emitter side (every slice before the first barrier) is
    lowered to the collector's band edge. ``Gamma_L(z)`` away from ``E_n``
    follows the emitter barrier's WKB transparency with the interface factor
-   ``4 (k/m)(kappa/m_b) / ((k/m)^2 + (kappa/m_b)^2)`` of the emitter's wave
-   number ``k`` (so it vanishes at the emitter band edge); ``Gamma_R`` is
-   held constant across the line.
+   ``4 (k/m)(kappa/m_b) / ((k/m)^2 + (kappa/m_b)^2)`` of the wave number ``k``
+   next to the barrier, where an accumulation layer lowers the band edge below the
+   emitter's (WKB through the layer), times the step factor ``4 k_0 k / (k_0 + k)^2``
+   of the emitter's own wave number ``k_0`` (a sharp step's transmission, a textbook
+   result, from memory: it keeps ``Gamma_L`` vanishing at the emitter band edge and is
+   1 without a layer). Until 2026-12-03 ``k`` was the emitter's ``k_0``; the scale that
+   the device's own line then gave rose 2.5 to 6 times as a state neared the emitter
+   edge, against the probe's, and inflated the peak current there (a test compares the
+   two scales). ``Gamma_R`` is held constant across the line.
 5. *Rates.* ``Gamma_s = Gamma_IFR + N Gamma_LO`` (absorption only: a state at
    the bottom of its subband cannot emit). Interface roughness, both
    interfaces, Gaussian correlation [6]_:
@@ -216,7 +222,8 @@ class _Geometry:
     lo_phonon_ev: np.ndarray
     permittivity_high_r: np.ndarray
     permittivity_r: np.ndarray
-    #: (..., 5) band edge and mass at outer1, inner1, inner2, outer2 and the well's bottom
+    #: (..., 7) band edge and mass at outer1, inner1, inner2, outer2, the well's bottom and
+    #: the slices just outside the barriers (before outer1, after outer2)
     edge_at: np.ndarray
     mass_at: np.ndarray
 
@@ -249,7 +256,8 @@ def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geomet
     safe = np.maximum(well_nm, 1e-12)
     bottom = np.argmin(np.where(well, edge, np.inf), axis=-1)
     inner1, inner2 = np.maximum(j1 - 1, 0), np.minimum(j2 + 1, n - 1)
-    edge_at, mass_at = _take_last(np.stack([i1, inner1, inner2, i2, bottom], axis=-1), edge, mass)
+    ends = [i1, inner1, inner2, i2, bottom, np.maximum(i1 - 1, 0), np.minimum(i2 + 1, n - 1)]
+    edge_at, mass_at = _take_last(np.stack(ends, axis=-1), edge, mass)
     phonon_at = _take_last(bottom[..., None], phonon_ev, eps_high, eps_s)
     return _Geometry(
         run1=(idx >= i1[..., None]) & (idx < j1[..., None]),
@@ -439,6 +447,7 @@ class _Barrier:
     hi: int
     outer_mass: np.ndarray  #: (..., 1, 1) mass of the slice next to the lead, m0
     outer_edge: np.ndarray  #: (..., 1, 1) its band edge, eV
+    near_edge: np.ndarray  #: (...) band edge of the lead's slice next to the barrier, eV
 
 
 def _barriers(geo: _Geometry) -> tuple[_Barrier, _Barrier]:
@@ -451,6 +460,7 @@ def _barriers(geo: _Geometry) -> tuple[_Barrier, _Barrier]:
             int(geo.inner1.max()) + 1,
             ex(geo.mass_at[..., 0]),
             ex(geo.edge_at[..., 0]),
+            geo.edge_at[..., 5],
         ),
         _Barrier(
             geo.run2,
@@ -458,22 +468,32 @@ def _barriers(geo: _Geometry) -> tuple[_Barrier, _Barrier]:
             int(geo.outer2.max()) + 1,
             ex(geo.mass_at[..., 3]),
             ex(geo.edge_at[..., 3]),
+            geo.edge_at[..., 6],
         ),
     )
 
 
 def _lead_coupling(z, lead_edges, lead_mass, barrier: _Barrier, edge, mass, width):
-    """WKB coupling ``tau(z)`` of a lead through one barrier: interface factor x transparency,
-    one array per band edge of the lead in ``lead_edges`` (the same energies and barrier)."""
+    """WKB coupling ``tau(z)`` of a lead through one barrier (module note 4): the step from
+    the lead's band edge to the one next to the barrier, the interface factor there and the
+    barrier's transparency; zero below the lead's band edge. One array per band edge of the
+    lead in ``lead_edges`` (the same energies and barrier)."""
     ex = lambda a: np.asarray(a)[..., None, None]  # noqa: E731
     m_b = barrier.outer_mass
     kap = _kappa(m_b, barrier.outer_edge - z)
     theta = _theta(z, edge, mass, width, barrier.run, barrier.lo, barrier.hi)
+    per_ev = ex(lead_mass) / HBAR2_2M0_EV_NM2
     out = []
     for lead_edge in lead_edges:
         kin = z - ex(lead_edge)
-        k = np.sqrt(np.maximum(kin, 0.0) * ex(lead_mass) / HBAR2_2M0_EV_NM2)
-        tau = _interface_factor(k / ex(lead_mass), kap / m_b) * theta
+        # an accumulation layer lowers the edge next to the barrier below the lead's: the
+        # electron meets the barrier with that larger kinetic energy (a depletion layer is
+        # left out: its hump is not part of the barrier here, as before)
+        local = np.minimum(lead_edge, barrier.near_edge)
+        k_lead = np.sqrt(np.maximum(kin, 0.0) * per_ev)
+        k = np.sqrt(np.maximum(z - ex(local), 0.0) * per_ev)
+        step = 4.0 * k_lead * k / np.maximum((k_lead + k) ** 2, 1e-300)  # 1 where no layer
+        tau = step * _interface_factor(k / ex(lead_mass), kap / m_b) * theta
         out.append(np.where(kin > 0.0, tau, 0.0))
     return out
 
@@ -766,7 +786,7 @@ def _compiled_node_fluxes(both, steps, st, edge, mass, width, barrier, mu_left, 
     shape, k = both.shape[:-1], both.shape[-1] // 2  # batch + (L,), nodes per state
     if arguments is None or fluxes is None or k < 2 or shape[:-1] != edge.shape[:-1]:
         return None
-    par = np.empty(shape + (18,))
+    par = np.empty(shape + (19,))
     for i, name in enumerate(_NODE_STATE):
         par[..., i] = st[name]
     per_entry = (
@@ -777,6 +797,7 @@ def _compiled_node_fluxes(both, steps, st, edge, mass, width, barrier, mu_left, 
         mass[..., 0],
         barrier.outer_mass[..., 0, 0],
         barrier.outer_edge[..., 0, 0],
+        np.minimum(0.0, barrier.near_edge),
     )
     for i, value in enumerate(per_entry, start=len(_NODE_STATE)):
         par[..., i] = np.asarray(value)[..., None]

@@ -16,6 +16,7 @@ Checks against sources outside the project:
 from __future__ import annotations
 
 from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -273,7 +274,8 @@ def test_no_spike_where_the_state_crosses_the_emitter_edge():
     there; the emitter width fitted to it, divided by the emitter's coupling that vanishes
     at the edge, overstated ``Gamma_L(z)`` 20 times and the current was 22,000 A/cm^2
     within 4 uV of bias, against 3,400 before the cliff and 1,800 after it (and the peak
-    refinement reported that spike as Jp). Common practice: no physics of the stack has
+    refinement reported that spike as Jp; measured before the emitter coupling took the
+    accumulation layer into account, after which the cliff falls by 17 %). Common practice: no physics of the stack has
     structure on a micro-volt scale here. Checked: every current from 10 uV before the
     cliff to 10 uV after it is at most 5 % above the current 1 mV before it."""
     layer = lambda name, mat, **kw: {"name": name, "material": mat, **kw}  # noqa: E731
@@ -300,7 +302,7 @@ def test_no_spike_where_the_state_crosses_the_emitter_edge():
     bias = np.linspace(0.24, 0.29, 51)
     j = current(bias)
     k = int(np.argmin(np.diff(j)))  # the cliff lies between bias[k] and bias[k + 1]
-    assert j[k + 1] < 0.8 * j[k]
+    assert j[k + 1] < 0.9 * j[k]
     lo, hi = bias[k], bias[k + 1]
     for _ in range(16):  # the cliff to 15 nV: the current above the two sides' mean
         mid = 0.5 * (lo + hi)
@@ -308,3 +310,60 @@ def test_no_spike_where_the_state_crosses_the_emitter_edge():
     window = current(lo + np.linspace(-10e-6, 10e-6, 21))
     print(f"cliff at {lo:.7f} V; before {j[k]:.1f}, window {window.min():.1f}-{window.max():.1f}")
     assert window.max() <= 1.05 * j[k]
+
+
+def _coupling_scales(table, bias, model):
+    """Per matched state (its line found in the device's own ``T``): the channel's scale
+    ``Gamma_L(E_n) / tau_L(E_n)`` from that exact line and from the probe's (the profile
+    with its emitter side lowered), both as the channel computes them."""
+    seen, pairs = {}, []
+    match, widths = scattering._match_lines, scattering._state_widths
+
+    def spy_match(e_p, gamma_p, peak_p, valid, lines, top):
+        seen["probe"] = (e_p, gamma_p, peak_p)
+        return match(e_p, gamma_p, peak_p, valid, lines, top)
+
+    def spy_widths(edge, mass, width, geo, barriers, e_n, width_c, peak_c, matched, kt, params):
+        out = widths(edge, mass, width, geo, barriers, e_n, width_c, peak_c, matched, kt, params)
+        probe = widths(edge, mass, width, geo, barriers, *seen["probe"], 0 * matched, kt, params)
+        both = matched & (probe["scale"] > 0)
+        pairs.extend(zip(out["scale"][both], probe["scale"][both], e_n[both], strict=True))
+        return out
+
+    try:
+        scattering._match_lines, scattering._state_widths = spy_match, spy_widths
+        current_at_bias(table, bias, model=model)
+    finally:
+        scattering._match_lines, scattering._state_widths = match, widths
+    return np.array(pairs)
+
+
+def test_emitter_coupling_agrees_with_the_exact_lines():
+    """The channel's emitter coupling ``Gamma_L(z) = scale tau_L(z)`` (module note 4) takes
+    its scale from one state's line; its energy dependence is the WKB ``tau_L``. Two lines
+    give the scale independently: the device's own ``T`` (exact transfer matrix) where the
+    state lies above the emitter edge, and the probe's. Where ``tau_L`` has the right energy
+    dependence the two agree at every bias. Over 8 as-grown samples of each example design
+    (default model, 31 biases): 5-95 % of the ratios within 0.8-1.25, all within 0.4-2.5
+    (measured: 0.92-1.03 and 0.91-1.62 on 387 states; 0.85-1.07 and 0.61-2.2 over 842
+    states of four random-stack sets). With the emitter's bulk wave number in the
+    interface factor, as until 2026-12-03 (not the one next to the barrier, where an
+    accumulation layer lowers the band edge), the device's scale rose 2.5 times as the GaAs
+    example's state fell from 53 to 5 meV above the edge, and the ratios here spread to
+    0.93-1.33 and up to 3.6 (this test failed; measured)."""
+    from wellwright.optimize.study.growth import growth_model
+    from wellwright.physics.stack import load_stack
+
+    root = Path(__file__).resolve().parents[1]
+    ratios = []
+    for name, top_v in (("inp_thz_oscillator", 0.6), ("gaas_low_power_memory", 0.4)):
+        stack = load_stack(root / "studies" / f"{name}.toml")
+        grown = growth_model(stack)
+        table = grown.as_grown(grown.draw_z(8, 3), seed=4)
+        pairs = _coupling_scales(table, np.linspace(0.05, top_v, 31), stack.model)
+        ratios.append(pairs[:, 0] / pairs[:, 1])
+        print(name, len(pairs), np.percentile(ratios[-1], [0, 5, 50, 95, 100]).round(3))
+    r = np.concatenate(ratios)
+    assert r.size > 200
+    assert 0.8 <= np.percentile(r, 5) and np.percentile(r, 95) <= 1.25
+    assert 0.4 <= r.min() and r.max() <= 2.5
