@@ -409,8 +409,7 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
     the best sample and its neighbours and computes the current at its vertex
     (one more call). An extremum is resolved when that current agrees with
     the parabola's value to :data:`REFINE_RELATIVE_TOLERANCE` (the top is
-    smooth on the sampled scale), when its best sample is the top of a cliff to that
-    tolerance (:func:`_cliff_resolved`) or when the bracket is below
+    smooth on the sampled scale) or the bracket is below
     :data:`REFINE_BIAS_TOLERANCE_V`; otherwise the next round zooms onto the
     best point with the sample spacing as its half span. A peak on the edge
     of a current cliff (self-consistent charge, narrow lines) therefore takes
@@ -467,34 +466,8 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
         smooth = (curvature > 0) & (
             np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(best[idx])
         )
-        open_[idx] = ~(
-            (smooth & ~edge) | _cliff_resolved(j, top, edge) | (half[idx] < REFINE_BIAS_TOLERANCE_V)
-        )
+        open_[idx] = ~((smooth & ~edge) | (half[idx] < REFINE_BIAS_TOLERANCE_V))
     return center, sign * best, drop_v, drop_j, (kept if keep is not None else None)
-
-
-def _cliff_resolved(j, top, edge):
-    """Per extremum of a refinement round (samples ``j``, ``(n, REFINE_POINTS)``, of
-    ``sign * J``; best sample ``top``): whether the best sample is the top of a cliff to
-    :data:`REFINE_RELATIVE_TOLERANCE`.
-
-    That is the case when one neighbour has fallen by :data:`NDR_DROP` (the cliff: the
-    well's charge collapses between the two samples) and the other lies within the
-    tolerance of the best: the current rises by less than the tolerance over one spacing
-    towards the cliff, so over the part not sampled (less than one spacing) it rises by
-    about that much at most. Zooming on would move the peak's bias by less than a spacing
-    and its current by less than the tolerance (measured on both example stacks: there the
-    rise per spacing shrinks in proportion to the spacing, without steepening at the cliff).
-    """
-    rows = np.arange(j.shape[0])
-    at = j[rows, top]
-    gap = NDR_DROP * np.abs(at)
-    right = j[rows, np.minimum(top + 1, REFINE_POINTS - 1)]
-    left = j[rows, np.maximum(top - 1, 0)]
-    fell_right, fell_left = ~edge & (right < at - gap), ~edge & (left < at - gap)
-    other = np.where(fell_right, left, right)
-    rise = at - other
-    return (fell_right != fell_left) & (rise <= REFINE_RELATIVE_TOLERANCE * np.abs(at))
 
 
 def _keep_best(kept, solves, idx, better, top):
