@@ -223,7 +223,7 @@ class _Geometry:
     permittivity_high_r: np.ndarray
     permittivity_r: np.ndarray
     #: (..., 7) band edge and mass at outer1, inner1, inner2, outer2, the well's bottom and
-    #: the slices just outside the barriers (before outer1, after outer2)
+    #: the real slices just outside the barriers (before outer1, after outer2)
     edge_at: np.ndarray
     mass_at: np.ndarray
 
@@ -256,7 +256,11 @@ def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geomet
     safe = np.maximum(well_nm, 1e-12)
     bottom = np.argmin(np.where(well, edge, np.inf), axis=-1)
     inner1, inner2 = np.maximum(j1 - 1, 0), np.minimum(j2 + 1, n - 1)
-    ends = [i1, inner1, inner2, i2, bottom, np.maximum(i1 - 1, 0), np.minimum(i2 + 1, n - 1)]
+    # the real slices (not a batch's zero-width padding) just outside the two barriers
+    real = width > 0
+    near1 = np.max(np.where(real & (idx < i1[..., None]), idx, 0), axis=-1)
+    near2 = np.min(np.where(real & (idx > i2[..., None]), idx, n - 1), axis=-1)
+    ends = [i1, inner1, inner2, i2, bottom, near1, near2]
     edge_at, mass_at = _take_last(np.stack(ends, axis=-1), edge, mass)
     phonon_at = _take_last(bottom[..., None], phonon_ev, eps_high, eps_s)
     return _Geometry(

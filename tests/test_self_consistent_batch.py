@@ -154,7 +154,9 @@ def test_well_charge_estimate_against_a_fine_uniform_search(monkeypatch) -> None
 def test_no_isolated_spikes_before_the_peak(monkeypatch) -> None:
     # 29 biases 0.5 mV apart just below this variant's peak (its current falls at 0.527 V):
     # each current within 2 % of the mean of its neighbours. With the uniform well-state
-    # search the current jumped by +19 % at 0.5235 V and +21 % at 0.5245 V (measured).
+    # search the current jumped by +19 % at 0.5235 V and +21 % at 0.5245 V (measured; by
+    # 2.9 % once the channel's emitter coupling took the accumulation layer into account,
+    # 2026-12-03: the check below still fails with that search).
     table = _variant()
     bias = np.linspace(0.512, 0.526, 29)
 
@@ -164,7 +166,7 @@ def test_no_isolated_spikes_before_the_peak(monkeypatch) -> None:
 
     assert worst_spike() < 0.02
     monkeypatch.setattr(electrostatics, "WELL_SEARCH_EDGE_POWER", 1.0)
-    assert worst_spike() > 0.05  # the old search shows the spikes
+    assert worst_spike() > 0.02  # the old search shows the spikes
 
 
 @pytest.mark.slow
