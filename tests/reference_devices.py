@@ -161,8 +161,8 @@ DEVICES: tuple[Device, ...] = (
         f"In0.53Ga0.47As well with a 4 ML InAs insert), the same abstract at {ZHANG_2006_COPY}",
         assumptions="'a well of eight monolayers with four monolayers of InAs insert' is read "
         "as 8 ML in all, the insert in its middle (2/4/2 ML; reading it as 8 ML InGaAs plus "
-        "the insert, 4/4/4 ML, the model gives Jp 3.3e3 A/cm^2 and PVCR 30, also within "
-        "tolerance); Vp not in the abstract; contacts and spacers module defaults",
+        "the insert, 4/4/4 ML, the model gives Jp 2.3e3 A/cm^2 and PVCR 16, also within "
+        "tolerance; 3.3e3 and 30 before the channel's emitter coupling changed, 2026-12-03); Vp not in the abstract; contacts and spacers module defaults",
     ),
     Device(
         key="smet1992_inas_insert_300k",
