@@ -411,9 +411,11 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
     the parabola's value to :data:`REFINE_RELATIVE_TOLERANCE` (the top is
     smooth on the sampled scale) or the bracket is below
     :data:`REFINE_BIAS_TOLERANCE_V`; otherwise the next round zooms onto the
-    best point with the sample spacing as its half span. A peak on the edge
-    of a current cliff (self-consistent charge, narrow lines) therefore takes
-    a few rounds, a smooth one only one. The better of the vertex and the
+    best point with the sample spacing as its half span, or, where a neighbour of the best
+    sample has fallen by :data:`NDR_DROP` (a cliff: the well's charge collapses between
+    them, or a narrow line passes the emitter edge), onto the interval between the two
+    alone (8 times narrower a round instead of 4). A peak on the edge
+    of a current cliff therefore takes a few rounds, a smooth one only one. The better of the vertex and the
     best sample is kept, so the result is always a computed current, never
     an extrapolation (a parabola overshoots at a kink). A best sample on the
     bracket's edge moves the bracket without narrowing it. With the
@@ -463,11 +465,32 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
         drop_j[idx] = np.where(nearer, sgn * j[rows, first], drop_j[idx])
         edge = (top == 0) | (top == REFINE_POINTS - 1)
         half[idx] = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
+        # a cliff beside the best sample: the extremum lies between the best point and the
+        # fallen neighbour, so the next round spans only that interval
+        side = _cliff_side(j, top)
+        cliff = side != 0
+        if np.any(cliff):
+            best_v, across = center[idx], v[rows, np.clip(top + side, 0, REFINE_POINTS - 1)]
+            center[idx] = np.where(cliff, 0.5 * (best_v + across), best_v)
+            half[idx] = np.where(cliff, 0.5 * np.abs(across - best_v), half[idx])
         smooth = (curvature > 0) & (
             np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(best[idx])
         )
         open_[idx] = ~((smooth & ~edge) | (half[idx] < REFINE_BIAS_TOLERANCE_V))
     return center, sign * best, drop_v, drop_j, (kept if keep is not None else None)
+
+
+def _cliff_side(j, top):
+    """Per extremum of a refinement round (samples ``j``, ``(n, REFINE_POINTS)``, of
+    ``sign * J``; best sample ``top``): +1 where the next sample has fallen by
+    :data:`NDR_DROP` below the best and the previous one has not (a cliff above it), -1
+    for the mirror case, 0 otherwise (no cliff, or an isolated spike)."""
+    rows = np.arange(j.shape[0])
+    at = j[rows, top]
+    gap = NDR_DROP * np.abs(at)
+    up = (top < REFINE_POINTS - 1) & (j[rows, np.minimum(top + 1, REFINE_POINTS - 1)] < at - gap)
+    down = (top > 0) & (j[rows, np.maximum(top - 1, 0)] < at - gap)
+    return np.where(up & ~down, 1, np.where(down & ~up, -1, 0))
 
 
 def _keep_best(kept, solves, idx, better, top):
