@@ -401,7 +401,7 @@ def _check_area_weights(area_weights, n_stacks: int) -> np.ndarray:
     return w
 
 
-def _refine(devices, model, grid, center_v, half_span_v, sign):
+def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
 
     Each round samples :data:`REFINE_POINTS` biases across ``center +- half``
@@ -412,9 +412,10 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
     smooth on the sampled scale) or the bracket is below
     :data:`REFINE_BIAS_TOLERANCE_V`; otherwise the next round zooms onto the
     best point with the sample spacing as its half span, or, where a neighbour of the best
-    sample has fallen by :data:`NDR_DROP` (a cliff: the well's charge collapses between
-    them, or a narrow line passes the emitter edge), onto the interval between the two
-    alone (8 times narrower a round instead of 4). A peak on the edge
+    sample of a peak (``peaks``) has fallen by :data:`NDR_DROP` (a cliff: the well's charge
+    collapses between them, or a narrow line passes the emitter edge), onto the interval
+    between the two alone (8 times narrower a round instead of 4; not at a valley, whose
+    neighbour on the NDR side is steep but no cliff). A peak on the edge
     of a current cliff therefore takes a few rounds, a smooth one only one. The better of the vertex and the
     best sample is kept, so the result is always a computed current, never
     an extrapolation (a parabola overshoots at a kink). A best sample on the
@@ -467,7 +468,7 @@ def _refine(devices, model, grid, center_v, half_span_v, sign):
         half[idx] = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
         # a cliff beside the best sample: the extremum lies between the best point and the
         # fallen neighbour, so the next round spans only that interval
-        side = _cliff_side(j, top)
+        side = np.where(peaks[idx], _cliff_side(j, top), 0)
         cliff = side != 0
         if np.any(cliff):
             best_v, across = center[idx], v[rows, np.clip(top + side, 0, REFINE_POINTS - 1)]
@@ -805,6 +806,7 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
         np.concatenate([vp, vv]),
         np.full(2 * n, step),
         extremum * sign,
+        extremum > 0,
     )
     y = sign * y  # back to magnitudes on this branch
     vp, jp = c[:n], np.maximum(y[:n], jp)
