@@ -411,12 +411,13 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     the parabola's value to :data:`REFINE_RELATIVE_TOLERANCE` (the top is
     smooth on the sampled scale) or the bracket is below
     :data:`REFINE_BIAS_TOLERANCE_V`; otherwise the next round zooms onto the
-    best point with the sample spacing as its half span, or, where a neighbour of the best
-    sample of a peak (``peaks``) has fallen by :data:`NDR_DROP` (a cliff: the well's charge
-    collapses between them, or a narrow line passes the emitter edge), onto the interval
-    between the two alone (8 times narrower a round instead of 4; not at a valley, whose
-    neighbour on the NDR side is steep but no cliff). A peak on the edge
-    of a current cliff therefore takes a few rounds, a smooth one only one. The better of the vertex and the
+    best point with the sample spacing as its half span, or, where a neighbour
+    of a peak's (``peaks``) best sample has fallen by :data:`NDR_DROP` (a cliff:
+    the well's charge collapses between them, or a narrow line passes the
+    emitter edge), onto the interval between the two alone (8 times narrower a
+    round instead of 4; not at a valley, whose neighbour on the NDR side is
+    steep but no cliff). A peak on the edge of a current cliff therefore takes
+    a few rounds, a smooth one only one. The better of the vertex and the
     best sample is kept, so the result is always a computed current, never
     an extrapolation (a parabola overshoots at a kink). A best sample on the
     bracket's edge moves the bracket without narrowing it. With the
