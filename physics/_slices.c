@@ -1191,22 +1191,14 @@ static void node_arguments(Py_ssize_t rows, Py_ssize_t n_states, Py_ssize_t k, c
             xt[j] = 0.5 * (z[j] - p[P_MUL]) / p[P_KT];
             xt[2 * k + j] = 0.5 * (z[j] - p[P_MUR]) / p[P_KT];
         }
-        /* the source barrier's int kappa dz at both node sets (barrier_action's sum) */
+        /* the source barrier's int kappa dz at both node sets, times -2 */
         double *act = xe + k;
-        const Py_ssize_t b = r / n_states;
+        const Py_ssize_t o = (r / n_states) * n_slices;
         if (hi <= lo) {
             for (Py_ssize_t j = 0; j < 2 * k; j++) act[j] = 0.0;
-        }
-        for (Py_ssize_t s2 = lo; s2 < hi; s2++) {
-            const Py_ssize_t o = b * n_slices + s2;
-            const double e = edge[o], m = mass[o], w = width[o];
-            const int in_run = run[o] != 0, first = s2 == lo;
-            for (Py_ssize_t j = 0; j < 2 * k; j++) {
-                const double h = e - z[j];
-                const double hp = h < 0.0 ? 0.0 : h;
-                const double v = in_run ? sqrt(m * hp / hb2) * w : 0.0;
-                act[j] = first ? v : act[j] + v;
-            }
+        } else {
+            barrier_action(1, n_slices, 2 * k, lo, hi, hb2, z, edge + o, mass + o, width + o,
+                           run + o, act);
         }
         for (Py_ssize_t j = 0; j < 2 * k; j++) act[j] = -2.0 * act[j];
     }

@@ -827,7 +827,7 @@ def _iterate_well_charge(
             target, residual = target[keep], residual[keep]
             below = None if below is None else below[keep]
             root.keep_entries(keep)
-        well = root.next_well(well, residual, target=target, done=np.zeros(well.shape, bool))
+        well = root.next_well(well, residual, target=target)
         solution = poisson(u, well, fermi, right, stack)
         u, used = solution.potential_ev, solution.iterations
     raise ElectrostaticsConvergenceError(
@@ -1005,9 +1005,16 @@ class _WellChargeRoot:
             self.previous = (self.previous[0][..., keep], self.previous[1][..., keep])
 
     def next_well(
-        self, well: np.ndarray, residual: np.ndarray, *, target: np.ndarray, done: np.ndarray
+        self,
+        well: np.ndarray,
+        residual: np.ndarray,
+        *,
+        target: np.ndarray,
+        done: np.ndarray | None = None,
     ) -> np.ndarray:
-        """The next charge of every entry (``done`` entries keep theirs)."""
+        """The next charge of every entry (``done`` entries, if given, keep theirs)."""
+        if done is None:
+            done = np.zeros(well.shape, bool)
         step = compiled_kernel("well_root_step")
         if step is not None:  # the statement below, compiled (the same numbers, tested)
             return self._next_well_compiled(step, well, residual, target=target, done=done)

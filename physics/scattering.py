@@ -790,9 +790,6 @@ def _compiled_node_fluxes(both, steps, st, edge, mass, width, barrier, mu_left, 
     shape, k = both.shape[:-1], both.shape[-1] // 2  # batch + (L,), nodes per state
     if arguments is None or fluxes is None or k < 2 or shape[:-1] != edge.shape[:-1]:
         return None
-    par = np.empty(shape + (19,))
-    for i, name in enumerate(_NODE_STATE):
-        par[..., i] = st[name]
     per_entry = (
         edge[..., -1],
         mu_left,
@@ -803,6 +800,9 @@ def _compiled_node_fluxes(both, steps, st, edge, mass, width, barrier, mu_left, 
         barrier.outer_edge[..., 0, 0],
         np.minimum(0.0, barrier.near_edge),
     )
+    par = np.empty(shape + (len(_NODE_STATE) + len(per_entry),))
+    for i, name in enumerate(_NODE_STATE):
+        par[..., i] = st[name]
     for i, value in enumerate(per_entry, start=len(_NODE_STATE)):
         par[..., i] = np.asarray(value)[..., None]
     rows, n = math.prod(shape), edge.shape[-1]
