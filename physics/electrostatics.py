@@ -65,6 +65,7 @@ References
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass, fields, replace
 from typing import TYPE_CHECKING
@@ -202,10 +203,12 @@ class _NewtonSystem:
 
     def solve(self, rows, u, mu, fixed, *, tolerance_ev, max_iterations, max_step_ev):
         """Solve entry ``e`` (rows of ``u``, ``mu``, ``fixed`` in eV, eV, m^-3; ``u`` holds
-        the start with the boundary values in place) on profile row ``rows[e]``; returns the
-        potential, the electron density (m^-3) and the largest number of steps used."""
+        the start with the boundary values in place, overwritten where it is a writeable
+        C-ordered float array) on profile row ``rows[e]``; returns the potential, the
+        electron density (m^-3) and the largest number of steps used."""
         n = self.w.shape[-1]
-        u = np.array(u, dtype=float, order="C", copy=True)
+        if not (u.flags.c_contiguous and u.flags.writeable and u.dtype == float):
+            u = np.array(u, dtype=float, order="C")
         electrons = np.empty(u.shape)
         used, failed, worst = compiled_kernel("poisson_newton")(
             n,
@@ -627,7 +630,8 @@ class _SolveSetup:
 
 
 #: The well-charge step keeps its per-shape arrays (:class:`_WellChargeStep`) for at most
-#: this many batch shapes, each of at most this many slice values (3 arrays of 8 bytes each).
+#: this many batch shapes (or sets of entries), each of at most this many slice values (3
+#: arrays of 8 bytes each).
 STEP_KEEP_SHAPES = 8
 STEP_KEEP_VALUES = 1 << 15
 
@@ -881,13 +885,12 @@ def _stack_poisson_solver(
         entries), ``(n, n_nodes)`` and ``(n,)``. The compiled Newton iteration gives each
         entry the same numbers either way."""
         if stack is None:
-            fixed = np.where(
-                well_slices[:, None, :], (well_cm2 / spread_nm[:, None] * 1e7)[:, :, None], 0.0
-            )
+            spread, where = well_cm2 / spread_nm[:, None] * 1e7, well_slices[:, None, :]
         else:
-            fixed = np.where(well_slices[stack], (well_cm2 / spread_nm[stack] * 1e7)[:, None], 0.0)
+            spread, where = well_cm2 / spread_nm[stack] * 1e7, well_slices[stack]
         shape = right.shape + (li.size,)
         if system is None:  # the numpy statement, on the stacks' rows of each entry
+            fixed = np.where(where, spread[..., None], 0.0)
             return solve_poisson_1d(
                 **{k: v[:, None, :] if stack is None else v[stack] for k, v in per_stack.items()},
                 fermi_ev=fermi,
@@ -902,7 +905,8 @@ def _stack_poisson_solver(
                 fixed_electron_cm3=fixed,
                 max_step_ev=max_step_ev,
             )
-        # as solve_poisson_1d, without rebuilding the fixed parts
+        # as solve_poisson_1d, without rebuilding the fixed parts (the charge in m^-3)
+        fixed = np.where(where, (spread * 1e6)[..., None], 0.0)
         u0 = np.array(np.broadcast_to(start, shape), dtype=float, order="C", copy=True)
         u0[..., 0] = 0.0
         u0[..., -1] = right
@@ -915,7 +919,7 @@ def _stack_poisson_solver(
             rows,
             u0.reshape(-1, li.size),
             (fermi if fermi.shape == shape else np.broadcast_to(fermi, shape)).reshape(-1, li.size),
-            (fixed * 1e6).reshape(-1, li.size),
+            fixed.reshape(-1, li.size),
             tolerance_ev=tolerance_ev,
             max_iterations=max_iterations,
             max_step_ev=max_step_ev,
@@ -938,71 +942,40 @@ class _WellChargeRoot:
     mixing) steps; then regula falsi with the Illinois modification. A collapsed
     bracket with a large residual is reopened once; collapsing again, it is a jump of
     ``F`` and the charge is settled at the jump.
+
+    The state of every entry is kept packed, one row per quantity (:attr:`ROWS`; flags as
+    0 and 1), as the compiled ``well_root_step`` reads and writes it.
     """
 
-    lo: np.ndarray
-    r_lo: np.ndarray
-    lo_known: np.ndarray  #: residual(lo) evaluated (else lo = 0 is a bound only)
-    hi: np.ndarray
-    r_hi: np.ndarray
-    last_side: np.ndarray  #: +1: lo moved last, -1: hi moved last (Illinois)
-    reopened: np.ndarray  #: bracket collapsed once and was reopened
-    settled: np.ndarray  #: collapsed again: a jump of F, accepted at the jump
-    frozen: np.ndarray  #: the charge of the settled entries
-    push: np.ndarray  #: growth of the step past the target (see next_well)
-    previous: tuple[np.ndarray, np.ndarray] | None  #: (well, residual) of the last step
+    state: np.ndarray  #: ``(12,) + shape``, the rows of ROWS
+    has_previous: bool  #: the last two rows hold the last step's (well, residual)
+
+    #: lo, r_lo, hi, r_hi: the bracket and its residuals; lo_known: residual(lo) evaluated
+    #: (else lo = 0 is a bound only); last_side: +1 lo moved last, -1 hi moved last
+    #: (Illinois); reopened: the bracket collapsed once and was reopened; settled: it
+    #: collapsed again, a jump of F accepted at the jump; frozen: the charge of the settled
+    #: entries; push: growth of the step past the target (see next_well)
+    ROWS = ("lo", "r_lo", "lo_known", "hi", "r_hi", "last_side", "reopened", "settled",
+            "frozen", "push", "previous_well", "previous_residual")  # fmt: skip
 
     @classmethod
     def start(cls, shape: tuple[int, ...]) -> _WellChargeRoot:
-        return cls(
-            lo=np.zeros(shape),
-            r_lo=np.zeros(shape),
-            lo_known=np.zeros(shape, bool),
-            hi=np.full(shape, np.inf),
-            r_hi=np.zeros(shape),
-            last_side=np.zeros(shape, int),
-            reopened=np.zeros(shape, bool),
-            settled=np.zeros(shape, bool),
-            frozen=np.zeros(shape),
-            push=np.full(shape, 0.5),
-            previous=None,
-        )
+        state = np.zeros((len(cls.ROWS),) + tuple(shape))
+        state[cls.ROWS.index("hi")] = np.inf
+        state[cls.ROWS.index("push")] = 0.5
+        return cls(state=state, has_previous=False)
 
-    _PACKED = ("lo", "r_lo", "lo_known", "hi", "r_hi", "last_side", "reopened", "settled",
-               "frozen", "push")  # fmt: skip
+    @property
+    def settled(self) -> np.ndarray:
+        return self.state[7] != 0
 
-    def _next_well_compiled(self, step, well, residual, *, target, done):
-        """:meth:`next_well` by the compiled ``well_root_step`` on the state packed in rows."""
-        state = np.empty((12,) + well.shape)
-        for row, name in enumerate(self._PACKED):
-            state[row] = getattr(self, name)
-        if self.previous is not None:
-            state[10], state[11] = self.previous
-        new = np.array(well, dtype=float, order="C", copy=True)
-        keep = step(
-            state,
-            new,
-            np.ascontiguousarray(residual, dtype=float),
-            np.ascontiguousarray(target, dtype=float),
-            np.ascontiguousarray(done, dtype=float),
-            int(self.previous is not None),
-            WELL_MIXING,
-            WELL_TOLERANCE,
-            WELL_ABS_CM2,
-        )
-        self.lo, self.r_lo, self.hi, self.r_hi = state[0], state[1], state[3], state[4]
-        self.lo_known, self.reopened, self.settled = state[2] != 0, state[6] != 0, state[7] != 0
-        self.last_side = state[5].astype(int)
-        self.frozen, self.push = state[8], state[9]
-        self.previous = (state[10], state[11]) if keep else None
-        return new
+    @property
+    def reopened(self) -> np.ndarray:
+        return self.state[6] != 0
 
     def keep_entries(self, keep: np.ndarray) -> None:
         """Keep the entries ``keep`` (a mask of the last axis) and drop the others."""
-        for name in self._PACKED:
-            setattr(self, name, getattr(self, name)[..., keep])
-        if self.previous is not None:
-            self.previous = (self.previous[0][..., keep], self.previous[1][..., keep])
+        self.state = np.compress(keep, self.state, axis=-1)  # C-ordered, as the step needs
 
     def next_well(
         self,
@@ -1013,15 +986,33 @@ class _WellChargeRoot:
         done: np.ndarray | None = None,
     ) -> np.ndarray:
         """The next charge of every entry (``done`` entries, if given, keep theirs)."""
-        if done is None:
-            done = np.zeros(well.shape, bool)
         step = compiled_kernel("well_root_step")
         if step is not None:  # the statement below, compiled (the same numbers, tested)
-            return self._next_well_compiled(step, well, residual, target=target, done=done)
+            new = np.array(well, dtype=float, order="C", copy=True)
+            self.has_previous = bool(
+                step(
+                    self.state,
+                    new,
+                    np.ascontiguousarray(residual, dtype=float),
+                    np.ascontiguousarray(target, dtype=float),
+                    np.zeros(well.shape)
+                    if done is None
+                    else np.ascontiguousarray(done, dtype=float),
+                    int(self.has_previous),
+                    WELL_MIXING,
+                    WELL_TOLERANCE,
+                    WELL_ABS_CM2,
+                )
+            )
+            return new
+        if done is None:
+            done = np.zeros(well.shape, bool)
         # the step as written for plain arrays: the state is read here and stored at the end
-        lo, r_lo, lo_known, hi, r_hi = self.lo, self.r_lo, self.lo_known, self.hi, self.r_hi
-        last_side, reopened, settled = self.last_side, self.reopened, self.settled
-        frozen, push, previous = self.frozen, self.push, self.previous
+        st = self.state
+        lo, r_lo, hi, r_hi, frozen, push = st[0], st[1], st[3], st[4], st[8], st[9]
+        lo_known, reopened, settled = st[2] != 0, st[6] != 0, st[7] != 0
+        last_side = st[5].astype(int)
+        previous = (st[10], st[11]) if self.has_previous else None
         # Root of residual(well) = F(well) - well per (stack, bias). F >= 0, so a root lies in
         # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi). Until hi is
         # found, secant (or mixing) steps; then regula falsi with the Illinois modification
@@ -1079,9 +1070,10 @@ class _WellChargeRoot:
             well = np.where(first, target, well)
             previous = None
         well = np.where(settled, frozen, well)
-        self.lo, self.r_lo, self.lo_known, self.hi, self.r_hi = lo, r_lo, lo_known, hi, r_hi
-        self.last_side, self.reopened, self.settled = last_side, reopened, settled
-        self.frozen, self.push, self.previous = frozen, push, previous
+        rows = (lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push)
+        rows += (st[10], st[11]) if previous is None else previous
+        self.state = np.stack([np.broadcast_to(r, well.shape) for r in rows]).astype(float)
+        self.has_previous = previous is not None
         return well
 
 
@@ -1130,9 +1122,10 @@ def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
 class _WellChargeStep:
     """:func:`well_sheet_density_cm2`'s charge for one solve's stacks, called once per
     well-charge step: the profile arrays (:func:`physics.bands.profile_builder`'s), the
-    constants and, per batch shape, the kernel's rows and the forward-bias search window are
-    made once (for entries of several stacks, ``stack`` given, gathered per call); the state
-    search is the compiled ``grid_states``; the same arithmetic."""
+    constants and, per batch shape or per set of entries (the iteration calls on the same
+    entries until one leaves), the kernel's rows, the padding nodes and the forward-bias
+    search window are made once; the state search is the compiled ``grid_states``; the same
+    arithmetic."""
 
     def __init__(self, table, grid, *, mu_emitter_ev, well_mass_m0, states):
         from .constants import ELECTRON_MASS_KG, HBAR2_2M0_EV_NM2, HBAR_J_S
@@ -1143,15 +1136,13 @@ class _WellChargeStep:
         self.base = np.ascontiguousarray((table.edge_ev - table.edge_ev[:, :1])[:, li][:, None, :])
         real = grid.width_nm > 0
         real[:, [0, -1]] = True
-        self.source = (
-            None
-            if np.all(real)
-            else np.maximum.accumulate(np.where(real, np.arange(li.size), 0), axis=-1)[:, None, :]
-        )
+        # a padding node (zero width inside a stack) takes the potential of the real node
+        # before it, as in profile_builder
+        self.padded = ~real[:, None, :]
+        self.source = np.maximum.accumulate(np.where(real, np.arange(li.size), 0), axis=-1)
         self.fixed_rows = (table.mass_m0[:, li], table.nonparabolicity_per_ev[:, li], grid.width_nm)
-        self.per_shape: dict = {}  # _fixed_of, per batch shape
+        self.kept: dict = {}  # _parts per batch shape, and of the last entries (key None)
         self.kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None]
-        self.kt3 = self.kt[..., None]
         self.mu_fwd = mu_emitter_ev[:, None]
         self.u = np.linspace(0.0, 1.0, 64) ** WELL_SEARCH_EDGE_POWER
         self.n2d_cm2 = (
@@ -1171,38 +1162,40 @@ class _WellChargeStep:
         hi = mu + 12.0 * kt
         return lo[..., None] + (hi - lo)[..., None] * self.u
 
-    def _fixed_of(self, shape):
-        """The step's parts fixed for a batch shape: the kernel's mass, nonparabolicity and
-        width rows, the padding nodes' index and the forward-bias search window."""
-        n_stacks, n_biases = shape[:2]
-        rows = tuple(
-            np.ascontiguousarray(np.broadcast_to(a[:, None, :], shape)) for a in self.fixed_rows
-        )
-        pick = None
-        if self.source is not None:  # take_along_axis's index, made once
-            pick = (
-                np.arange(n_stacks)[:, None, None],
-                np.arange(n_biases)[None, :, None],
-                np.broadcast_to(self.source, shape),
-            )
-        mu = np.broadcast_to(self.mu_fwd, shape[:-1])
-        edge = np.zeros(shape[:-1])
-        return rows, pick, (mu, edge, self._window(mu, edge, self.kt))
-
     def _parts(self, shape, stack):
-        """The per-stack parts for the entries of ``stack`` (one row each; ``shape`` is
-        ``(n_entries, n_slices)``), gathered for the call: the profile's base, the kernel's
-        rows, the padding nodes' index, kT (``(n,)`` and ``(n, 1)``), the emitter Fermi
-        level, the 2D density of states and the forward-bias search window."""
-        rows = tuple(a[stack] for a in self.fixed_rows)
-        pick = None
-        if self.source is not None:
-            pick = (np.arange(shape[0])[:, None], self.source[stack, 0])
-        kt = self.kt[stack, 0]
-        mu = self.mu_fwd[stack, 0]
+        """The parts fixed for a batch shape (``stack`` None) or for entries (``stack``: the
+        stack row of each, ``shape`` ``(n_entries, n_slices)``), kept while small (a setup
+        lives on in _SETUPS): the profile's base, the kernel's mass, nonparabolicity and width
+        rows, the padding nodes (their index, their base and the index of the potential they
+        take), kT (batch-shaped and with an axis for the states), the emitter Fermi level,
+        the 2D density of states and the forward-bias search window."""
+        key = shape if stack is None else None
+        found = self.kept.get(key)
+        if found is not None and (stack is None or found[0] is stack):
+            return found[1]
+        if stack is None:  # each (stack, bias) reads its stack's row
+            base, kt, mu, n2d_cm2 = self.base, self.kt, self.mu_fwd, self.n2d_cm2
+            rows = tuple(
+                np.ascontiguousarray(np.broadcast_to(a[:, None, :], shape)) for a in self.fixed_rows
+            )
+            at = np.nonzero(np.broadcast_to(self.padded, shape))
+            source = at[:-1] + (self.source[at[0], at[-1]],)
+            window_mu = np.broadcast_to(mu, shape[:-1])
+        else:
+            base, kt, mu = self.base[stack, 0], self.kt[stack, 0], self.mu_fwd[stack, 0]
+            n2d_cm2, rows = self.n2d_cm2[stack, 0], tuple(a[stack] for a in self.fixed_rows)
+            at = np.nonzero(self.padded[stack, 0])
+            source = (at[0], self.source[stack[at[0]], at[1]])
+            window_mu = mu
         edge = np.zeros(shape[:-1])
-        window = (mu, edge, self._window(mu, edge, kt))
-        return self.base[stack, 0], rows, pick, kt, kt[:, None], mu, self.n2d_cm2[stack, 0], window
+        pad = (at, np.broadcast_to(base, shape)[at], source) if at[0].size else None
+        window = (window_mu, edge, self._window(window_mu, edge, kt))
+        parts = (base, rows, pad, kt, kt[..., None], mu, n2d_cm2, window)
+        if math.prod(shape) <= STEP_KEEP_VALUES:
+            if len(self.kept) >= STEP_KEEP_SHAPES:
+                self.kept.clear()
+            self.kept[key] = (stack, parts)
+        return parts
 
     def __call__(self, potential_ev, bias_v, stack=None):
         """The charge at ``potential_ev`` (``(n_stacks, n_biases, n_slices)``) and ``bias_v``
@@ -1210,23 +1203,11 @@ class _WellChargeStep:
         entries: ``potential_ev`` ``(n, n_slices)``, ``bias_v`` ``(n,)``. The same numbers
         per entry either way."""
         shape = potential_ev.shape
-        if stack is not None:
-            base, rows, pick, kt, kt3, mu_fwd, n2d_cm2, forward_window = self._parts(shape, stack)
-        else:
-            base, kt, kt3, mu_fwd, n2d_cm2 = self.base, self.kt, self.kt3, self.mu_fwd, self.n2d_cm2
-            fixed = self.per_shape.get(shape)
-            if fixed is None:
-                fixed = self._fixed_of(shape)
-                # kept only while small: a setup lives on in _SETUPS, and a large batch's
-                # many shapes would hold hundreds of MB
-                if shape[0] * shape[1] * shape[2] <= STEP_KEEP_VALUES:
-                    if len(self.per_shape) >= STEP_KEEP_SHAPES:
-                        self.per_shape.clear()
-                    self.per_shape[shape] = fixed
-            rows, pick, forward_window = fixed
-        if pick is not None:
-            potential_ev = potential_ev[pick]
+        base, rows, pad, kt, kt3, mu_fwd, n2d_cm2, forward_window = self._parts(shape, stack)
         edge_ev = np.ascontiguousarray(base + potential_ev)
+        if pad is not None:
+            at, base_at, source = pad
+            edge_ev[at] = base_at + potential_ev[source]
         bias = np.asarray(bias_v, float)
         if np.all(bias >= 0):
             mu, edge, energy = forward_window
