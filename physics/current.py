@@ -707,9 +707,12 @@ def _cell_errors(coarse, f, a, b, valid):
     d2[..., 1:-1] = np.abs(np.diff(slope, axis=-1)) / np.maximum(h[..., :-1] + h[..., 1:], 1e-300)
     error = h**3 / 6.0 * np.maximum(d2[..., :-1], d2[..., 1:])  # f'' = 2 d2
     if a is not None:
-        e0, e1 = coarse[..., :-1, None], coarse[..., 1:, None]
-        lo = np.minimum(np.maximum(a[..., None, :], e0), e1)
-        hi = np.minimum(np.maximum(b[..., None, :], e0), e1)
-        covered = np.sum(np.where(valid[..., None, :], hi - lo, 0.0), axis=-1)
+        e0, e1 = coarse[..., :-1], coarse[..., 1:]
+        covered = np.zeros(h.shape)
+        # the slots in order (a slot holding no line anywhere adds nothing)
+        for r in np.nonzero(valid.reshape(-1, valid.shape[-1]).any(axis=0))[0]:
+            lo = np.minimum(np.maximum(a[..., r, None], e0), e1)
+            hi = np.minimum(np.maximum(b[..., r, None], e0), e1)
+            covered += np.where(valid[..., r, None], hi - lo, 0.0)
         error = error * np.clip(1.0 - covered / np.maximum(h, 1e-300), 0.0, 1.0)
     return error
