@@ -1070,8 +1070,8 @@ class _WellChargeRoot:
             well = np.where(first, target, well)
             previous = None
         well = np.where(settled, frozen, well)
-        rows = (lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push)
-        rows += (st[10], st[11]) if previous is None else previous
+        last = (st[10], st[11]) if previous is None else previous
+        rows = (lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push, *last)
         self.state = np.stack([np.broadcast_to(r, well.shape) for r in rows]).astype(float)
         self.has_previous = previous is not None
         return well
