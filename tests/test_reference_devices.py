@@ -184,7 +184,9 @@ def test_thicker_barriers_raise_pvcr():
     "1/(1 + |y - E_n|/e_w) is e_w (17 meV here, about 35 mV of bias) wide, so its current "
     "falls smoothly from the peak (measured at 4.2 K: 1428 A/cm^2 at 0.15 V to 718 at 0.22 V, "
     "the replica expected at 0.19 V); no separate maximum (issue 12 report). Before "
-    "2026-12-03 the channel was off at 4.2 K altogether",
+    "2026-12-03 the channel was off at 4.2 K altogether. The 1/q weight of Frohlich's "
+    "coupling summed over q_z gives a clear second cliff but waits for the emission entry's "
+    "double counting to be fixed (DEVELOPERS.md, known gaps)",
 )
 def test_phonon_replica_one_phonon_above_the_peak():
     """At 4.2 K the current beyond the peak shows a replica bump about hbar w_LO / eta above
