@@ -158,8 +158,11 @@ def test_iv_files_and_figures(study_run) -> None:
         image = mpimg.imread(out / name)
         assert image.ndim == 3 and min(image.shape[:2]) > 100, name
         assert float(np.std(image)) > 0.0, name  # not blank
-    metrics = json.loads((out / "metrics.json").read_text())["metrics"]
-    assert metrics == json.loads(result.stdout)["metrics"]
+    saved = json.loads((out / "metrics.json").read_text())
+    assert saved["metrics"] == json.loads(result.stdout)["metrics"]
+    # the file says which model produced it (issue 12: every output names its model)
+    assert saved["model"] == json.loads(result.stdout)["model"]
+    assert saved["model"]["label"].startswith("Tsu-Esaki")
     rows = (out / "iv.csv").read_text().strip().splitlines()
     assert rows[0] == "bias_v,current_density_a_cm2" and len(rows) == 62
 

@@ -187,6 +187,8 @@ def run(args) -> int:
         out / "metrics.json",
         {
             "stack": stack.source,
+            "model": record["model"],
+            "temperature_k": stack.temperature_k,
             "metrics": record["metrics"],
             "warnings": record["warnings"],
             "islands": island_lines,
@@ -204,6 +206,7 @@ def run(args) -> int:
     else:
         m = record["metrics"]
         print(f"{stack.source}: {len(bias)} biases from {bias[0]:g} to {bias[-1]:g} V")
+        print(f"  model: {record['model']['label']}, {stack.temperature_k:g} K")
         extended = len(record["bias_v"]) - len(bias)
         if extended:
             print(
