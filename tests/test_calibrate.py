@@ -397,6 +397,10 @@ def test_command_writes_record_stack_and_page(tmp_path, capsys):
     page = (out / "calibration.html").read_text()
     assert "data:image/png;base64," in page and "<script" not in page and "http" not in page
     assert "barrier1" in record["grower"]
+    # the record names the physics the fit used, here the stack file's fast model
+    physics = record["physics_model"]
+    assert physics["electrostatics"] == "linear" and physics["transport"] == "coherent"
+    assert physics["label"] == "Tsu-Esaki coherent, linear drop"
     # the calibrated stack runs through `iv`
     assert (
         main(["iv", str(out / "calibrated.toml"), "--out", str(tmp_path / "iv"), "--no-figures"])

@@ -71,8 +71,8 @@ def overlay_figure(record: dict[str, Any], path: str | Path) -> Path:
         ax.set_xlabel("applied bias (V)")
     axes[0].legend(fontsize=8, loc="center right")  # clear of the peak and the valley
     axes[0].set_title(
-        "Measured and fitted I-V\nsquares: measured peak/valley; diamonds: fitted, at the "
-        "measured biases",
+        f"Measured and fitted I-V ({record['physics_model']['label']})\nsquares: measured "
+        "peak/valley; diamonds: fitted, at the measured biases",
         fontsize=10,
         loc="left",
     )

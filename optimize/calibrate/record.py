@@ -7,6 +7,7 @@ from typing import Any
 import numpy as np
 from wellwright.optimize.calibrate.fit import CORRELATED, PRIOR_DOMINATED, Z95, FitResult
 from wellwright.optimize.calibrate.problem import Problem
+from wellwright.optimize.shared.model_text import model_record
 from wellwright.physics.iv import locate_peak_valley
 
 __all__ = [
@@ -272,6 +273,8 @@ def calibration_record(
         "parameters": rows,
         "correlations": {"names": list(problem.names), "matrix": result.correlation},
         "model": model,
+        # the physics the fit used: the stack's [model] with the fitted options
+        "physics_model": model_record(problem.model_options(result.dev)),
         "residual": {
             "points": result.n_points,
             "scatter_ln_current": result.scatter,

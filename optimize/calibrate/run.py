@@ -159,7 +159,8 @@ td:first-child, th:first-child {{ text-align: left; }}
 img {{ max-width: 100%; }}
 </style></head><body>
 <h1>Calibration against the measured I-V</h1>
-<p>Stack: {esc(record["stack"])}; measured: {esc(", ".join(record["measured"]))}.</p>
+<p>Stack: {esc(record["stack"])}; measured: {esc(", ".join(record["measured"]))};
+model: {esc(record["physics_model"]["label"])}.</p>
 <h2>For the grower</h2>
 <p class="grower">{esc(record["grower"])}</p>
 <h2>Measured and fitted I-V</h2>
