@@ -275,20 +275,19 @@ def profile_builder(table: LayerTable, grid: SliceGrid):
     n = li.size
     real = grid.width_nm > 0
     real[:, [0, -1]] = True
-    source = None
-    if not np.all(real):
-        source = np.maximum.accumulate(np.where(real, np.arange(n), 0), axis=-1)[:, None, :]
+    # each padding node (stack, node) and the real node before it, whose potential it takes
+    stack, node = np.nonzero(~real)
+    source = np.maximum.accumulate(np.where(real, np.arange(n), 0), axis=-1)[stack, node]
     mass = table.mass_m0[:, li][:, None, :]
     alpha = table.nonparabolicity_per_ev[:, li][:, None, :]
     width = grid.width_nm[:, None, :]
 
     def build(potential_ev: np.ndarray) -> Profile:
-        if source is not None:
-            potential_ev = np.take_along_axis(
-                potential_ev, np.broadcast_to(source, potential_ev.shape), axis=-1
-            )
+        edge_ev = edge + potential_ev
+        if stack.size:
+            edge_ev[stack, :, node] = edge[stack, 0, node][:, None] + potential_ev[stack, :, source]
         return Profile(
-            edge_ev=edge + potential_ev,
+            edge_ev=edge_ev,
             mass_m0=mass,
             nonparabolicity_per_ev=alpha,
             width_nm=width,
