@@ -907,7 +907,9 @@ def _stack_poisson_solver(
             )
         # as solve_poisson_1d, without rebuilding the fixed parts (the charge in m^-3)
         fixed = np.where(where, (spread * 1e6)[..., None], 0.0)
-        u0 = np.array(np.broadcast_to(start, shape), dtype=float, order="C", copy=True)
+        u0 = np.array(
+            start if start.shape == shape else np.broadcast_to(start, shape), dtype=float, order="C"
+        )
         u0[..., 0] = 0.0
         u0[..., -1] = right
         rows = stack
