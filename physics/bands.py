@@ -132,7 +132,9 @@ class Profile:
         """
         shape = self.batch_shape + (self.n_slices,)
         edge, mass, alpha, width = (
-            np.ascontiguousarray(np.broadcast_to(a, shape), dtype=float)
+            np.ascontiguousarray(
+                a if np.shape(a) == shape else np.broadcast_to(a, shape), dtype=float
+            )
             for a in (self.edge_ev, self.mass_m0, self.nonparabolicity_per_ev, self.width_nm)
         )
         return edge, mass, alpha, width
