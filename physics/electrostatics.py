@@ -642,14 +642,21 @@ _SETUPS: list = []
 _SETUPS_KEPT = 8
 
 
+_TABLE_FIELDS: list = []  # the names of LayerTable's fields (read once)
+
+
 def _table_values(table: LayerTable) -> tuple:
-    return tuple(getattr(table, f.name) for f in fields(table))
+    if not _TABLE_FIELDS:
+        _TABLE_FIELDS.extend(f.name for f in fields(table))
+    return tuple(getattr(table, name) for name in _TABLE_FIELDS)
 
 
 def _same_values(a: tuple, b: tuple) -> bool:
+    # (x == y).all() is np.array_equal for arrays of one shape (NaN unequal), without its
+    # Python layer: this runs for every solve of a sweep
     return all(
         (x is None and y is None)
-        or (x is not None and y is not None and x.shape == y.shape and np.array_equal(x, y))
+        or (x is not None and y is not None and x.shape == y.shape and bool((x == y).all()))
         for x, y in zip(a, b, strict=True)
     )
 
