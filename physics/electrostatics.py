@@ -805,19 +805,21 @@ def _iterate_well_charge(
         residual = target - well
         converged = np.abs(residual) <= WELL_TOLERANCE * np.abs(target) + WELL_ABS_CM2
         # the root lies in [0, well] (F >= 0 > residual): below the charge to give up at
-        gone = (
-            np.zeros(well.shape, bool)
-            if below is None
-            else ~converged & ~root.settled & (residual < 0) & (well <= below)
-        )
-        new = converged | root.settled | gone
-        if np.any(new):
+        settled = root.settled
+        if below is None:
+            gone = None
+            new = converged | settled
+        else:
+            gone = ~converged & ~settled & (residual < 0) & (well <= below)
+            new = converged | settled | gone
+        if new.any():
             out_u[entry[new]] = u[new]
             out_n[entry[new]] = solution.electron_cm3.reshape(-1, n_nodes)[new]
             out_well[entry[new]] = well[new]
-            abandoned[entry[new]] = gone[new]
+            if gone is not None:
+                abandoned[entry[new]] = gone[new]
             most = max(most, used + outer)
-            if np.all(new):
+            if new.all():
                 return PoissonSolution(
                     potential_ev=out_u.reshape(shape + (n_nodes,)),
                     electron_cm3=out_n.reshape(shape + (n_nodes,)),
@@ -1218,7 +1220,7 @@ class _WellChargeStep:
             at, base_at, source = pad
             edge_ev[at] = base_at + potential_ev[source]
         bias = np.asarray(bias_v, float)
-        if np.all(bias >= 0):
+        if (bias >= 0).all():
             mu, edge, energy = forward_window
         else:
             forward = bias >= 0
@@ -1231,10 +1233,11 @@ class _WellChargeStep:
         ok = (out[..., 3] > 0.0) & np.isfinite(width) & (width > 0)
         e1 = np.where(ok, out[..., 0], 0.0)
         tp = np.where(ok, peak, 0.0)
-        fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.clip(tp, 0.0, 1.0)))
+        # np.clip(tp, 0, 1) as its two ufuncs (the same values, without clip's Python layer)
+        fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.minimum(np.maximum(tp, 0.0), 1.0)))
         fraction = fraction * -np.expm1(-np.maximum(e1 - edge[..., None], 0.0) / kt3)
         supply = fermi_dirac_zero((mu[..., None] - e1) / kt3)
-        return np.sum(np.where(ok, fraction * n2d_cm2 * supply, 0.0), axis=-1)
+        return np.where(ok, fraction * n2d_cm2 * supply, 0.0).sum(axis=-1)
 
 
 def well_sheet_density_cm2(
