@@ -229,17 +229,35 @@ class _Geometry:
 
 
 def _take_last(index, *arrays):
-    """``np.take_along_axis(a, index, axis=-1)`` of each of ``arrays``; one flat index for all
-    where they are ``batch + (m,)`` and ``index`` is ``batch + (j,)`` (the same numbers)."""
-    batch, m = index.shape[:-1], arrays[0].shape[-1]
-    if any(a.shape[:-1] != batch or a.shape[-1] != m for a in arrays):
-        return [np.take_along_axis(a, index, axis=-1) for a in arrays]
-    flat = index + (np.arange(math.prod(batch)) * m).reshape(batch + (1,))
-    return [a.reshape(-1)[flat] for a in arrays]
+    """``np.take_along_axis(a, index, axis=-1)`` of each of ``arrays``, whose leading axes
+    broadcast to ``index``'s, by one flat index per array (the same numbers)."""
+    out = []
+    for a in arrays:
+        batch = a.shape[:-1]
+        if len(batch) != index.ndim - 1:
+            out.append(np.take_along_axis(a, index, axis=-1))
+            continue
+        start = np.arange(0, math.prod(batch) * a.shape[-1], a.shape[-1])
+        out.append(a.reshape(-1)[index + start.reshape(batch + (1,))])
+    return out
 
 
-def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geometry:
-    """Barriers, well and source side of oriented slice arrays ``(..., n)``."""
+def _geometry(
+    edge, mass, width, barrier, phonon_ev, eps_high, eps_s, *, per_stack=False
+) -> _Geometry:
+    """Barriers, well and source side of oriented slice arrays ``(..., n)``.
+
+    With ``per_stack`` every slice array but ``edge`` is the same at every bias (axis -2):
+    the layout is found on the first bias of each stack and broadcast (the same numbers)."""
+    shape = edge.shape[:-1]
+    if per_stack:
+        mass, width, barrier, phonon_ev, eps_high, eps_s = (
+            a[..., :1, :] for a in (mass, width, barrier, phonon_ev, eps_high, eps_s)
+        )
+
+    def full(a):  # a per-stack array as a view of the batch's shape
+        return np.broadcast_to(a, shape + a.shape[len(shape) :]) if per_stack else a
+
     n = edge.shape[-1]
     idx = np.arange(n)
     has = barrier.any(axis=-1)
@@ -254,29 +272,29 @@ def _geometry(edge, mass, width, barrier, phonon_ev, eps_high, eps_s) -> _Geomet
     w = np.where(well, width, 0.0)
     well_nm = w.sum(axis=-1)
     safe = np.maximum(well_nm, 1e-12)
-    bottom = np.argmin(np.where(well, edge, np.inf), axis=-1)
+    bottom = np.argmin(np.where(well, edge, np.inf), axis=-1)  # the bias's own
     inner1, inner2 = np.maximum(j1 - 1, 0), np.minimum(j2 + 1, n - 1)
     # the real slices (not a batch's zero-width padding) just outside the two barriers
     real = width > 0
     near1 = np.max(np.where(real & (idx < i1[..., None]), idx, 0), axis=-1)
     near2 = np.min(np.where(real & (idx > i2[..., None]), idx, n - 1), axis=-1)
-    ends = [i1, inner1, inner2, i2, bottom, near1, near2]
+    ends = [full(i) for i in (i1, inner1, inner2, i2)] + [bottom] + [full(near1), full(near2)]
     edge_at, mass_at = _take_last(np.stack(ends, axis=-1), edge, mass)
     phonon_at = _take_last(bottom[..., None], phonon_ev, eps_high, eps_s)
     return _Geometry(
-        run1=(idx >= i1[..., None]) & (idx < j1[..., None]),
-        run2=(idx > j2[..., None]) & (idx <= i2[..., None]),
-        source=idx < i1[..., None],
-        has=has,
-        well=well,
-        outer1=i1,
-        inner1=inner1,
-        inner2=inner2,
-        outer2=i2,
+        run1=full((idx >= i1[..., None]) & (idx < j1[..., None])),
+        run2=full((idx > j2[..., None]) & (idx <= i2[..., None])),
+        source=full(idx < i1[..., None]),
+        has=full(has),
+        well=full(well),
+        outer1=full(i1),
+        inner1=full(inner1),
+        inner2=full(inner2),
+        outer2=full(i2),
         well_edge_ev=(w * edge).sum(axis=-1) / safe,
         well_bottom_ev=edge_at[..., 4],
-        well_nm=well_nm,
-        well_mass_m0=(w * mass).sum(axis=-1) / safe,
+        well_nm=full(well_nm),
+        well_mass_m0=full((w * mass).sum(axis=-1) / safe),
         lo_phonon_ev=phonon_at[0][..., 0],
         permittivity_high_r=phonon_at[1][..., 0],
         permittivity_r=phonon_at[2][..., 0],
@@ -834,9 +852,9 @@ def _compiled_node_fluxes(both, steps, st, edge, mass, width, barrier, mu_left, 
         par,
         both,
         np.ascontiguousarray(steps),
-        np.exp(exp_arg),
-        np.arctan(atan_arg),
-        np.tanh(tanh_arg),
+        np.exp(exp_arg, out=exp_arg),  # in place: no second buffer
+        np.arctan(atan_arg, out=atan_arg),
+        np.tanh(tanh_arg, out=tanh_arg),
         flux_l,
         flux_r,
     )
@@ -857,6 +875,7 @@ def sequential_fluxes_ev2(
     high_ev,
     lines,
     params: ScatteringParameters,
+    per_stack: bool = False,
 ):
     """Sequential flux into the well from the left lead and out of it to the right, eV^2.
 
@@ -890,8 +909,11 @@ def sequential_fluxes_ev2(
         The coherent ``T``'s lines on this profile (see above).
     params
         Channel settings.
+    per_stack
+        Whether ``mass``, ``width``, ``barrier`` and ``phonon`` are the same at every bias
+        (axis -2) of a stack: the well and the barriers are then found once per stack.
     """
-    geo = _geometry(edge, mass, width, barrier, *phonon)
+    geo = _geometry(edge, mass, width, barrier, *phonon, per_stack=per_stack)
     kt = np.broadcast_to(kt_ev, geo.has.shape)
     # a quasi-bound state lies below the lower barrier's inner edge by more than its width
     # (a bound independent of temperature: the channel stays on in the cold)
@@ -1010,6 +1032,9 @@ def sequential_integral_ev2(
     mu_left = np.where(rev, mu_c, mu_emitter_ev) - shift
     mu_right = np.where(rev, mu_emitter_ev, mu_c) - shift
     lines_o = dict(lines, center_ev=lines["center_ev"] - shift[..., None])
+    # masses, widths and layer data the same at every bias of a stack (a batch of biases)
+    same = [np.ndim(a) < 2 or np.shape(a)[-2] == 1 for a in (profile.mass_m0, profile.width_nm)]
+    per_stack = not turned and shape[-2] > 1 and all(same)
     left, right, reduction = sequential_fluxes_ev2(
         edge=edge_o,
         mass=orient(mass),
@@ -1023,6 +1048,7 @@ def sequential_integral_ev2(
         high_ev=high_ev - shift,
         lines=lines_o,
         params=params,
+        per_stack=per_stack,
     )
     # detailed balance makes the channel vanish at zero bias; enforce it past rounding
     sign = np.where(rev, -1.0, 1.0) * (np.asarray(bias_v) != 0.0)
