@@ -231,14 +231,16 @@ class _Geometry:
 def _take_last(index, *arrays):
     """``np.take_along_axis(a, index, axis=-1)`` of each of ``arrays``, whose leading axes
     broadcast to ``index``'s, by one flat index per array (the same numbers)."""
+    flat: dict[tuple[int, ...], np.ndarray] = {}  # per shape of the arrays
     out = []
     for a in arrays:
-        batch = a.shape[:-1]
+        batch, m = a.shape[:-1], a.shape[-1]
         if len(batch) != index.ndim - 1:
             out.append(np.take_along_axis(a, index, axis=-1))
             continue
-        start = np.arange(0, math.prod(batch) * a.shape[-1], a.shape[-1])
-        out.append(a.reshape(-1)[index + start.reshape(batch + (1,))])
+        if a.shape not in flat:
+            flat[a.shape] = index + np.arange(0, math.prod(batch) * m, m).reshape(batch + (1,))
+        out.append(a.reshape(-1)[flat[a.shape]])
     return out
 
 
@@ -583,7 +585,7 @@ def _half_maximum_width(center, gamma, peak, valid, probe):
     t = transmission_rows(energy, profile=probe, rows=where[:-1])
     ratio = peak[where][:, None] / np.maximum(t, 1e-300) - 1.0
     side = np.where(ratio > 0, 2.0 * d[:, None] / np.sqrt(np.maximum(ratio, 1e-300)), np.nan)
-    width = np.mean(side, axis=-1)
+    width = 0.5 * (side[:, 0] + side[:, 1])  # np.mean's numbers
     out = gamma.copy()
     out[where] = np.where(np.isfinite(width) & (width > 0), width, gamma[where])
     return out
