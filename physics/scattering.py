@@ -1029,7 +1029,7 @@ def sequential_integral_ev2(
             return a
         return np.where(rev[..., None], a[..., ::-1], a)
 
-    edge_o = orient(edge) - shift[..., None]
+    edge_o = orient(edge) - shift[..., None] if turned else edge  # (x - 0 is x: no copy)
     mu_c = mu_emitter_ev - bias_v
     mu_left = np.where(rev, mu_c, mu_emitter_ev) - shift
     mu_right = np.where(rev, mu_emitter_ev, mu_c) - shift
