@@ -79,6 +79,40 @@ def test_reservoir_conserves_current(temperature_k):
     np.testing.assert_allclose(left, right, rtol=0, atol=1e-9 * scale)
 
 
+def test_layout_found_per_stack_gives_the_same_numbers():
+    """The well and barriers found once per stack (slices the same at every bias) give the
+    channel's numbers of the per-bias search bit for bit (a regression pin, no physics)."""
+    stacks = [_stack(), _stack(spacer_nm=(3.0, 1.0), barrier_ml=6, well_ml=12)]
+    table = type(stacks[0].table()).concatenate([s.table() for s in stacks])
+    bias = np.linspace(0.0, 1.0, 11)
+    seen = []
+    original = scattering.sequential_fluxes_ev2
+
+    def spy(**kwargs):
+        seen.append(kwargs)
+        return original(**kwargs)
+
+    profile = band_profile(table, bias)
+    try:
+        scattering.sequential_fluxes_ev2 = spy
+        current_density_a_cm2(
+            profile,
+            table=table,
+            bias_v=np.broadcast_to(bias, profile.batch_shape),
+            scattering=scattering.ScatteringParameters(),
+        )
+    finally:
+        scattering.sequential_fluxes_ev2 = original
+    assert seen and all(k["per_stack"] for k in seen)
+    for kwargs in seen:
+        fast = original(**kwargs)
+        slow = original(**dict(kwargs, per_stack=False))
+        np.testing.assert_array_equal(fast[0], slow[0])
+        np.testing.assert_array_equal(fast[1], slow[1])
+        for key in slow[2]:
+            np.testing.assert_array_equal(fast[2][key], slow[2][key])
+
+
 def test_vanishes_without_scattering():
     """The channel goes to zero with the scattering: the coherent current to 1e-6."""
     stack = _stack()
