@@ -257,8 +257,8 @@ def _geometry(
             a[..., :1, :] for a in (mass, width, barrier, phonon_ev, eps_high, eps_s)
         )
 
-    def full(a):  # a per-stack array as a view of the batch's shape
-        return np.broadcast_to(a, shape + a.shape[len(shape) :]) if per_stack else a
+    def full(a):  # a per-stack array repeated to the batch's shape (cheaper than a view here)
+        return a.repeat(shape[-1], axis=len(shape) - 1) if per_stack else a
 
     n = edge.shape[-1]
     idx = np.arange(n)
@@ -913,7 +913,8 @@ def sequential_fluxes_ev2(
         Channel settings.
     per_stack
         Whether ``mass``, ``width``, ``barrier`` and ``phonon`` are the same at every bias
-        (axis -2) of a stack: the well and the barriers are then found once per stack.
+        (axis -2) of a stack: the well and the barriers are then found once per stack
+        (``barrier`` and ``phonon`` may then be ``(..., 1, n)``).
     """
     geo = _geometry(edge, mass, width, barrier, *phonon, per_stack=per_stack)
     kt = np.broadcast_to(kt_ev, geo.has.shape)
@@ -1018,7 +1019,7 @@ def sequential_integral_ev2(
         value = getattr(table, name)
         layer_data.append(np.full(rel.shape, default) if value is None else value)
     layer_data.append(table.permittivity_r)
-    per_slice = [np.broadcast_to(d[:, li][:, None, :], shape) for d in layer_data]
+    per_slice = [d[:, li][:, None, :] for d in layer_data]  # (stacks, 1, n)
     rev = np.asarray(bias_v) < 0
     e_right = edge[..., -1]
     shift = np.where(rev, e_right, 0.0)
@@ -1037,6 +1038,8 @@ def sequential_integral_ev2(
     # masses, widths and layer data the same at every bias of a stack (a batch of biases)
     same = [np.ndim(a) < 2 or np.shape(a)[-2] == 1 for a in (profile.mass_m0, profile.width_nm)]
     per_stack = not turned and shape[-2] > 1 and all(same)
+    if not (turned or per_stack or shape[-2] == 1):  # (orient broadcasts where turned)
+        per_slice = [np.broadcast_to(d, shape) for d in per_slice]
     left, right, reduction = sequential_fluxes_ev2(
         edge=edge_o,
         mass=orient(mass),
