@@ -1016,9 +1016,13 @@ class _WellChargeRoot:
                 )
             )
             return new
-        if done is None:
-            done = np.zeros(well.shape, bool)
-        # the step as written for plain arrays: the state is read here and stored at the end
+        return self._next_well_numpy(
+            well, residual, target=target, done=np.zeros(well.shape, bool) if done is None else done
+        )
+
+    def _next_well_numpy(self, well, residual, *, target, done):
+        """:meth:`next_well` as written for plain arrays (the reference of ``well_root_step``):
+        the state is read here and stored at the end."""
         st = self.state
         lo, r_lo, hi, r_hi, frozen, push = st[0], st[1], st[3], st[4], st[8], st[9]
         lo_known, reopened, settled = st[2] != 0, st[6] != 0, st[7] != 0
