@@ -494,6 +494,7 @@ def test_solve_setup_kept_only_for_the_same_stacks_and_settings(monkeypatch) -> 
     monkeypatch.setattr(es, "WELL_SEARCH_EDGE_POWER", 1.0)
     solve_stack_poisson(table, bias)
     assert len(made) == 4
-    monkeypatch.setattr(es, "compiled_kernel", lambda name: None)
-    solve_stack_poisson(table, bias)
-    assert len(made) == 5
+    if es.compiled_kernel("poisson_newton") is not None:  # the numpy backend: nothing to switch
+        monkeypatch.setattr(es, "compiled_kernel", lambda name: None)
+        solve_stack_poisson(table, bias)
+        assert len(made) == 5
