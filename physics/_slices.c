@@ -1259,10 +1259,9 @@ static int node_fluxes(Py_ssize_t rows, Py_ssize_t k, double hb2, const double *
         cumulative(k, y, st, cum_a);
         cumulative(k, gl_el, st, cum_b);
         for (Py_ssize_t j = 0; j < k; j++) {
-            const double above = z[j] - e_n, up = z[j] + hw - e_n;
-            const double lor_up = 1.0 / (up * up + half2);
-            const double forward = 1.0 / (1.0 + fabs(above) / e_w);
-            y[j] = gl_lo[j] * (lor_up + flr) * forward;
+            const double reach = sqrt((fabs(z[j] - e_n) + 0.5 * gamma_t) / e_w);
+            const double forward = M_PI_2 / (reach * (1.0 + M_PI_2 * reach));
+            y[j] = gl_lo[j] * flr * forward;
         }
         cumulative(k, y, st, cum_c);
         double *fl = flux_l + r * k, *fr = flux_r + r * k;
