@@ -867,7 +867,14 @@ def run_search(
             n_first = min(target, len(complete) + len(missing))
             timing = _work(_Job(study, url, n_first, base_seed, n_workers, evaluator))
         ctx = multiprocessing.get_context("spawn")
-        with concurrent.futures.ProcessPoolExecutor(max_workers=n_workers, mp_context=ctx) as pool:
+        # each worker watches this process from its start, before the job's imports (a
+        # spawned worker under load takes seconds to reach _work)
+        with concurrent.futures.ProcessPoolExecutor(
+            max_workers=n_workers,
+            mp_context=ctx,
+            initializer=exit_with_parent,
+            initargs=(os.getpid(),),
+        ) as pool:
             futures = [
                 pool.submit(
                     _work,
