@@ -83,6 +83,12 @@ def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> P
     return save_figure(fig, path)
 
 
+def _error_bars(values: list[float]) -> list[float] | None:
+    """Error bars for ``barh``; None where no value is finite (an index without a confidence
+    interval: every bar would be empty, and matplotlib before 3.7 fails on an all-NaN list)."""
+    return values if np.isfinite(np.asarray(values, float)).any() else None
+
+
 def sensitivity_figure(method: str, output: str, rows: list[dict[str, Any]], *, top: int = 12):
     """Which growth parameter matters most for ``output``: horizontal bars, most important on
     top, with the confidence intervals as error bars.
@@ -114,7 +120,7 @@ def sensitivity_figure(method: str, output: str, rows: list[dict[str, Any]], *, 
                 ypos + shift,
                 [r[f"{score}_index"] for r in rows],
                 0.4,
-                xerr=[r[f"{score}_conf"] for r in rows],
+                xerr=_error_bars([r[f"{score}_conf"] for r in rows]),
                 color=PALETTE[colour],
                 label=label,
                 error_kw={"capsize": 3},
@@ -127,7 +133,7 @@ def sensitivity_figure(method: str, output: str, rows: list[dict[str, Any]], *, 
             ypos,
             [factor * r["mu_star"] for r in rows],
             0.6,
-            xerr=[factor * r["mu_star_conf"] for r in rows],
+            xerr=_error_bars([factor * r["mu_star_conf"] for r in rows]),
             color=PALETTE["blue"],
             label="mu* (mean |elementary effect|)",
             error_kw={"capsize": 3},
