@@ -85,7 +85,8 @@ def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> P
 
 def _error_bars(values: list[float]) -> list[float] | None:
     """Error bars for ``barh``; None where no value is finite (an index without a confidence
-    interval: every bar would be empty, and matplotlib before 3.7 fails on an all-NaN list)."""
+    interval: every bar would be empty, and matplotlib 3.7.0, the lowest version allowed,
+    fails on an all-NaN list)."""
     return values if np.isfinite(np.asarray(values, float)).any() else None
 
 
