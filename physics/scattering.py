@@ -758,9 +758,9 @@ def _couplings(both, steps, st, edge, mass, width, barrier: _Barrier):
     lor = 1.0 / (above**2 + half2)
     exists = 0.5 + np.arctan(2.0 * above / gamma_t) / np.pi
     g_left = g_ifr * (cumulative(gl_el * lor) + 0.5 * exists * cumulative(gl_el) * flr)
-    # phonon emission: the emitter state's admixture at z = y + hbar w (Lorentzian about
-    # E_n), landing at longitudinal y in the state that exists at total energy E; the
-    # Frohlich 1/q^2 and the well's form factor favour |y - E_n| below e_w (note 3)
+    # phonon emission, off-resonant (note 3): the emitter's non-resonant amplitude in the
+    # well (the floor) at z = y + hbar w, landing at longitudinal y in the state that exists
+    # at total energy E; Frohlich's 1/q^2 summed over q_z favours |y - E_n| << e_w
     reach = np.sqrt((np.abs(above) + 0.5 * gamma_t) / ex(st["e_w"]))  # q / q_w
     forward = _HALF_PI / (reach * (1.0 + _HALF_PI * reach))
     p_left = g_lo * exists * cumulative(gl_lo * flr * forward)
