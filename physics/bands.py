@@ -31,6 +31,7 @@ __all__ = [
     "builtin_offset_ev",
     "profile_from_potential",
     "profile_builder",
+    "real_nodes",
     "linear_profile",
 ]
 
@@ -260,6 +261,16 @@ def profile_from_potential(table: LayerTable, grid: SliceGrid, potential_ev: np.
     return profile_builder(table, grid)(potential_ev)
 
 
+def real_nodes(grid: SliceGrid) -> tuple[np.ndarray, np.ndarray]:
+    """Which nodes of ``grid`` are real (not a batch's zero-width padding inside a stack; the
+    contacts always are) and, per node, the last real node at or before it, whose potential a
+    padding node takes; ``(n_stacks, n_nodes)`` each."""
+    real = grid.width_nm > 0
+    real[:, [0, -1]] = True
+    before = np.maximum.accumulate(np.where(real, np.arange(real.shape[-1]), 0), axis=-1)
+    return real, before
+
+
 def profile_builder(table: LayerTable, grid: SliceGrid):
     """:func:`profile_from_potential` for one table and grid, its fixed parts computed once:
     returns ``build(potential_ev) -> Profile`` (for solvers that make many profiles of the
@@ -274,12 +285,10 @@ def profile_builder(table: LayerTable, grid: SliceGrid):
     """
     li = grid.layer_index
     edge = (table.edge_ev - table.edge_ev[:, :1])[:, li][:, None, :]
-    n = li.size
-    real = grid.width_nm > 0
-    real[:, [0, -1]] = True
+    real, before = real_nodes(grid)
     # each padding node (stack, node) and the real node before it, whose potential it takes
     stack, node = np.nonzero(~real)
-    source = np.maximum.accumulate(np.where(real, np.arange(n), 0), axis=-1)[stack, node]
+    source = before[stack, node]
     mass = table.mass_m0[:, li][:, None, :]
     alpha = table.nonparabolicity_per_ev[:, li][:, None, :]
     width = grid.width_nm[:, None, :]

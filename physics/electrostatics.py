@@ -78,6 +78,7 @@ from .bands import (
     builtin_offset_ev,
     profile_builder,
     profile_from_potential,
+    real_nodes,
     slice_grid,
 )
 from .constants import BOLTZMANN_EV_K, ELEMENTARY_CHARGE_C, VACUUM_PERMITTIVITY_F_M
@@ -978,11 +979,11 @@ class _WellChargeRoot:
 
     @property
     def settled(self) -> np.ndarray:
-        return self.state[7] != 0
+        return self.state[self.ROWS.index("settled")] != 0
 
     @property
     def reopened(self) -> np.ndarray:
-        return self.state[6] != 0
+        return self.state[self.ROWS.index("reopened")] != 0
 
     def keep_entries(self, keep: np.ndarray) -> None:
         """Keep the entries ``keep`` (a mask of the last axis) and drop the others."""
@@ -1023,11 +1024,10 @@ class _WellChargeRoot:
     def _next_well_numpy(self, well, residual, *, target, done):
         """:meth:`next_well` as written for plain arrays (the reference of ``well_root_step``):
         the state is read here and stored at the end."""
-        st = self.state
-        lo, r_lo, hi, r_hi, frozen, push = st[0], st[1], st[3], st[4], st[8], st[9]
-        lo_known, reopened, settled = st[2] != 0, st[6] != 0, st[7] != 0
-        last_side = st[5].astype(int)
-        previous = (st[10], st[11]) if self.has_previous else None
+        lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push, *last = self.state
+        lo_known, reopened, settled = lo_known != 0, reopened != 0, settled != 0
+        last_side = last_side.astype(int)
+        previous = tuple(last) if self.has_previous else None
         # Root of residual(well) = F(well) - well per (stack, bias). F >= 0, so a root lies in
         # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi). Until hi is
         # found, secant (or mixing) steps; then regula falsi with the Illinois modification
@@ -1085,8 +1085,8 @@ class _WellChargeRoot:
             well = np.where(first, target, well)
             previous = None
         well = np.where(settled, frozen, well)
-        last = (st[10], st[11]) if previous is None else previous
-        rows = (lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push, *last)
+        kept = last if previous is None else previous
+        rows = (lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push, *kept)
         self.state = np.stack([np.broadcast_to(r, well.shape) for r in rows]).astype(float)
         self.has_previous = previous is not None
         return well
@@ -1149,12 +1149,10 @@ class _WellChargeStep:
         li = grid.layer_index
         self.n_slices = li.size
         self.base = np.ascontiguousarray((table.edge_ev - table.edge_ev[:, :1])[:, li][:, None, :])
-        real = grid.width_nm > 0
-        real[:, [0, -1]] = True
         # a padding node (zero width inside a stack) takes the potential of the real node
         # before it, as in profile_builder
+        real, self.source = real_nodes(grid)
         self.padded = ~real[:, None, :]
-        self.source = np.maximum.accumulate(np.where(real, np.arange(li.size), 0), axis=-1)
         self.fixed_rows = (table.mass_m0[:, li], table.nonparabolicity_per_ev[:, li], grid.width_nm)
         self.kept: dict = {}  # _parts per batch shape, and of the last entries (key None)
         self.kt = (BOLTZMANN_EV_K * table.temperature_k)[:, None]
