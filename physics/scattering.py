@@ -132,7 +132,16 @@ Departures from [2]_, each stated:
    probe counts as a state where it lies below the lower barrier's inner edge
    by more than its width (until 2026-12-03 also where it was narrower than
    ``kT``: the channel switched off below about 8 K in a GaAs/AlGaAs stack
-   whose state is 0.6 meV wide, and its valley current fell 4.5 times). A state is
+   whose state is 0.6 meV wide, and its valley current fell 4.5 times) and where its
+   kinetic energy in the well ``e_w`` is at least a quarter of the box energy
+   ``hbar^2 pi^2 / (2 m_w w_eff^2)`` of the effective width (note 5): a state confined
+   to the well has about that much or more (uncertainty principle; measured 0.34-0.93
+   of it on the example stacks and the reference devices). Lower lines are small
+   maxima of the probe's ``T`` that no state of the well makes (a wide scan of random
+   stacks found them 0.01-0.03 of it above a tilted or narrow well's bottom); taken as
+   the lowest state, they switched the channel off and on between neighbouring biases,
+   and their ``e_w^3`` (note 2) grew the floor without bound (24 times the coherent
+   current on an InP/InAlAs stack with 1-ML barriers). A state is
    treated alone: no scattering between states, no coherence between them.
    Stacks with more than two barriers take the region between the outer
    barriers as the well.
@@ -190,6 +199,10 @@ __all__ = [
 
 #: A layer whose band edge lies this far above the emitter's (at zero bias) is a barrier.
 BARRIER_MIN_EV = 0.05
+#: A line counts as a state of the well only where its kinetic energy in the well is at
+#: least this share of the box energy of ``w_eff`` (module note 6; measured 0.34-0.93 on
+#: the example stacks and the reference devices)
+CONFINED_SHARE = 0.25
 #: e^2 / (4 pi eps0), eV nm
 COULOMB_EV_NM = ELEMENTARY_CHARGE_C / (4.0 * np.pi * VACUUM_PERMITTIVITY_F_M) * 1e9
 #: GaAs values where a table carries no phonon data (module notes)
@@ -218,6 +231,16 @@ class ScatteringParameters:
 def _kappa(mass_m0, height_ev):
     """Decay constant, 1/nm, under a barrier ``height_ev`` (floored at 1 meV)."""
     return np.sqrt(mass_m0 * np.maximum(height_ev, 1e-3) / HBAR2_2M0_EV_NM2)
+
+
+def _effective_width_nm(energy_ev, geo, well_nm):
+    """``w_eff = w + 1/kappa_1 + 1/kappa_2`` of states at ``energy_ev`` ``(..., L)`` (note 5)
+    and the box energy ``hbar^2 pi^2 / (2 m_w w_eff^2)`` of that width, eV."""
+    ex = lambda a: np.asarray(a)[..., None]  # noqa: E731
+    k1 = _kappa(ex(geo.mass_at[..., 1]), ex(geo.edge_at[..., 1]) - energy_ev)
+    k2 = _kappa(ex(geo.mass_at[..., 2]), ex(geo.edge_at[..., 2]) - energy_ev)
+    w_eff = well_nm + 1.0 / k1 + 1.0 / k2
+    return w_eff, HBAR2_2M0_EV_NM2 / ex(geo.well_mass_m0) * (np.pi / w_eff) ** 2
 
 
 def _interface_factor(k_over_m, kappa_over_m):
@@ -404,10 +427,7 @@ def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, kinetic, kt_e
     ex = lambda a: np.asarray(a)[..., None]  # noqa: E731
     e_w, well_nm = kinetic
     top1 = ex(geo.edge_at[..., 1]) - energy_ev
-    top2 = ex(geo.edge_at[..., 2]) - energy_ev
-    k1 = _kappa(ex(geo.mass_at[..., 1]), top1)
-    k2 = _kappa(ex(geo.mass_at[..., 2]), top2)
-    w_eff = well_nm + 1.0 / k1 + 1.0 / k2
+    w_eff = _effective_width_nm(energy_ev, geo, well_nm)[0]
     m_w = ex(geo.well_mass_m0)
     kt = ex(kt_ev)
     lam, delta = params.roughness_length_nm, params.roughness_height_nm
@@ -574,6 +594,7 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     k = params.n_states + 2
     center, gamma, peak, valid = grid_maxima(grid, profile=probe, n_max=k, n_first=k)
     gamma = _half_maximum_width(center, gamma, peak, valid, probe)
+    e_w, well_nm = _kinetic_ev(center, geo, edge=edge, width=width)
     valid &= (
         np.isfinite(gamma)
         & (gamma > 0)
@@ -581,6 +602,7 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
         & (center > lo[..., None])
         & (center < hi[..., None])
         & geo.has[..., None]
+        & (e_w >= CONFINED_SHARE * _effective_width_nm(center, geo, well_nm)[1])
     )
     # the lowest states (the tallest peaks need not be the lowest)
     order = np.argsort(np.where(valid, center, np.inf), axis=-1)[..., : params.n_states]
