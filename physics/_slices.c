@@ -36,6 +36,10 @@
  * grid, the n_max highest local maxima and the n_first first ones, each refined as
  * refine_peaks does (one call per well-charge step of the self-consistent model instead of a
  * dozen numpy steps).
+ *   charge_arguments(n_slots, states, edge, mu, kt, em1_arg, exp_arg),
+ *   charge_sums(n_slots, states, mu, kt, n2d, em1_val, log1p_val, charge)
+ * the well-sheet charge of each well-charge step from grid_states' out (physics/
+ * electrostatics.py, _WellChargeStep) around numpy's expm1, exp and log1p.
  *   well_root_step(state, well, residual, target, done, has_previous, mixing, tolerance,
  *                  abs_cm2)
  * one step of the well-charge root search of physics/electrostatics.py (_WellChargeRoot).
@@ -824,6 +828,114 @@ done:
     return result;
 }
 
+/* ---- the well-charge step's charge (physics/electrostatics.py: _WellChargeStep) ----
+   well_sheet_density_cm2's charge from grid_states' slots, in two passes around numpy's
+   expm1, exp and log1p (each called once on all its arguments): the numpy statement's
+   operations in its order, without fused multiply-add, and numpy's maximum, minimum
+   (NaN propagated; of two equal values the second) and sum over the slots (in order): the
+   same numbers bit for bit (tests/test_kernel_backends.py). Per entry i: states holds
+   n_slots slots of 4 values (centre, width, peak T, 1 where found); edge, mu and kt are
+   the injecting contact's band edge and Fermi level and kT, eV; n2d the 2D density of
+   states times kT, cm^-2. */
+
+/* a slot holding a state (found, finite positive width) */
+static inline int state_found(const double *s) { return s[3] > 0.0 && isfinite(s[1]) && s[1] > 0.0; }
+
+/* the arguments of expm1 (occupancy switch-on) and of exp (F_0's tail), n_slots per entry */
+WW_NO_FMA
+static void charge_arguments(Py_ssize_t n_entries, int n_slots, const double *states,
+                             const double *edge, const double *mu, const double *kt,
+                             double *em1_arg, double *exp_arg)
+{
+    for (Py_ssize_t i = 0; i < n_entries; i++) {
+        for (int k = 0; k < n_slots; k++) {
+            const Py_ssize_t o = i * n_slots + k;
+            const double *s = states + 4 * o;
+            const double e1 = state_found(s) ? s[0] : 0.0;
+            em1_arg[o] = -max_nan(e1 - edge[i], 0.0) / kt[i];
+            exp_arg[o] = -fabs((mu[i] - e1) / kt[i]);
+        }
+    }
+}
+
+/* the charge of each entry from expm1 of the first arguments and log1p(exp) of the second */
+WW_NO_FMA
+static void charge_sums(Py_ssize_t n_entries, int n_slots, const double *states, const double *mu,
+                        const double *kt, const double *n2d, const double *em1_val,
+                        const double *log1p_val, double *charge)
+{
+    for (Py_ssize_t i = 0; i < n_entries; i++) {
+        double sum = 0.0;
+        for (int k = 0; k < n_slots; k++) {
+            const Py_ssize_t o = i * n_slots + k;
+            const double *s = states + 4 * o;
+            const int ok = state_found(s);
+            const double e1 = ok ? s[0] : 0.0, tp = ok ? s[2] : 0.0;
+            double fraction = 0.5 * (1.0 - sqrt(1.0 - min_nan(max_nan(tp, 0.0), 1.0)));
+            fraction = fraction * -em1_val[o];
+            const double supply = max_nan((mu[i] - e1) / kt[i], 0.0) + log1p_val[o];
+            const double value = ok ? fraction * n2d[i] * supply : 0.0;
+            sum = k == 0 ? value : sum + value; /* numpy's sum over the slots: in order */
+        }
+        charge[i] = sum;
+    }
+}
+
+/* charge_arguments (second = 0): states, edge, mu, kt -> em1_arg, exp_arg;
+   charge_sums (second = 1): states, mu, kt, n2d, em1_val, log1p_val -> charge */
+static PyObject *py_charge_pass(PyObject *args, int second)
+{
+    int n_slots;
+    Py_buffer bs = {0}, ba = {0}, bb = {0}, bc = {0}, bx = {0}, by = {0}, bo = {0};
+    const char *names[3] = {second ? "mu" : "edge", second ? "kt" : "mu", second ? "n2d" : "kt"};
+    PyObject *result = NULL;
+    const int parsed = second ? PyArg_ParseTuple(args, "iy*y*y*y*y*y*w*", &n_slots, &bs, &ba,
+                                                 &bb, &bc, &bx, &by, &bo)
+                              : PyArg_ParseTuple(args, "iy*y*y*y*w*w*", &n_slots, &bs, &ba, &bb,
+                                                 &bc, &bx, &by);
+    if (!parsed) return NULL;
+    if (!(need_double(&bs, "states") && need_double(&ba, names[0]) &&
+          need_double(&bb, names[1]) && need_double(&bc, names[2]) &&
+          need_double(&bx, second ? "em1_val" : "em1_arg") &&
+          need_double(&by, second ? "log1p_val" : "exp_arg") &&
+          (!second || need_double(&bo, "charge"))))
+        goto done;
+    const Py_ssize_t d = (Py_ssize_t)sizeof(double), n = ba.len / d;
+    if (n_slots < 1 || bs.len != n * n_slots * 4 * d || bb.len != ba.len || bc.len != ba.len ||
+        bx.len != n * n_slots * d || by.len != bx.len || (second && bo.len != ba.len)) {
+        PyErr_SetString(PyExc_ValueError, "states: n x n_slots x 4; edge, mu, kt, n2d, charge:"
+                                          " n; arguments and values: n x n_slots");
+        goto done;
+    }
+    if (second)
+        charge_sums(n, n_slots, bs.buf, ba.buf, bb.buf, bc.buf, bx.buf, by.buf, bo.buf);
+    else
+        charge_arguments(n, n_slots, bs.buf, ba.buf, bb.buf, bc.buf, bx.buf, by.buf);
+    result = Py_None;
+    Py_INCREF(result);
+done:
+    PyBuffer_Release(&bs);
+    PyBuffer_Release(&ba);
+    PyBuffer_Release(&bb);
+    PyBuffer_Release(&bc);
+    PyBuffer_Release(&bx);
+    PyBuffer_Release(&by);
+    PyBuffer_Release(&bo);
+    return result;
+}
+
+static PyObject *py_charge_arguments(PyObject *self, PyObject *args)
+{
+    (void)self;
+    return py_charge_pass(args, 0);
+}
+
+static PyObject *py_charge_sums(PyObject *self, PyObject *args)
+{
+    (void)self;
+    return py_charge_pass(args, 1);
+}
+
 /* ---- Poisson-Newton (physics/electrostatics.py: solve_poisson_1d) ----
    The damped Newton iteration of the finite-volume Poisson equation with Thomas-Fermi
    electrons, one batch entry at a time (each entry stops when its own largest update is
@@ -1414,6 +1526,14 @@ static PyMethodDef methods[] = {
      " float64 (lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push,"
      " previous well, previous residual) and well (the next charge) updated in place; returns"
      " whether the previous step is kept (0 after a collapsed bracket)."},
+    {"charge_arguments", py_charge_arguments, METH_VARARGS,
+     "charge_arguments(n_slots, states, edge, mu, kt, em1_arg, exp_arg)\n\n"
+     "The arguments of expm1 and exp of the well-charge step's charge (physics.electrostatics."
+     "_WellChargeStep) from grid_states' out (n, n_slots, 4); edge, mu, kt: n values each."},
+    {"charge_sums", py_charge_sums, METH_VARARGS,
+     "charge_sums(n_slots, states, mu, kt, n2d, em1_val, log1p_val, charge)\n\n"
+     "The well-charge step's charge of each entry (n values, cm^-2) from expm1 of the first"
+     " arguments and log1p(exp) of the second (bit for bit the numpy statement's)."},
     {"poisson_newton", py_poisson_newton, METH_VARARGS,
      "poisson_newton(n_nodes, rows, u, g, w, donors, offset, mu, mask, fixed, nc, kt, coef,"
      " eta_lo, eta_step, eta_hi, tolerance, max_step, max_iterations, q, electrons)\n\n"

@@ -1094,9 +1094,10 @@ class _WellChargeRoot:
 
 def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
     """``target(potential_ev, bias_v)``: the first output of :func:`well_sheet_density_cm2`
-    (the same numbers, tested), its parts that do not change during a solve made once and
-    the state search in one compiled call (``grid_states``, :class:`_WellChargeStep`); the
-    function itself where that routine is not in use.
+    (the same numbers, tested), its parts that do not change during a solve made once, the
+    state search in one compiled call (``grid_states``) and the charge from the states in
+    two (``charge_arguments``, ``charge_sums``; :class:`_WellChargeStep`); the function
+    itself where those routines are not in use.
 
     Parameters
     ----------
@@ -1104,7 +1105,8 @@ def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
         As for :func:`well_sheet_density_cm2`.
     """
     states = compiled_kernel("grid_states")
-    if states is None:
+    passes = (compiled_kernel("charge_arguments"), compiled_kernel("charge_sums"))
+    if states is None or None in passes:
         profile_of = profile_builder(table, grid)
 
         def target(potential_ev, bias_v, stack=None):
@@ -1130,7 +1132,12 @@ def _well_charge_target(table, grid, *, mu_emitter_ev, well_mass_m0):
 
         return target
     return _WellChargeStep(
-        table, grid, mu_emitter_ev=mu_emitter_ev, well_mass_m0=well_mass_m0, states=states
+        table,
+        grid,
+        mu_emitter_ev=mu_emitter_ev,
+        well_mass_m0=well_mass_m0,
+        states=states,
+        passes=passes,
     )
 
 
@@ -1139,10 +1146,12 @@ class _WellChargeStep:
     well-charge step: the profile arrays (:func:`physics.bands.profile_builder`'s), the
     constants and, per batch shape or per set of entries (the iteration calls on the same
     entries until one leaves), the kernel's rows, the padding nodes and the forward-bias
-    search window are made once; the state search is the compiled ``grid_states``; the same
-    arithmetic."""
+    search window are made once; the state search is the compiled ``grid_states``, the
+    charge from its states the compiled ``charge_arguments`` and ``charge_sums`` around
+    numpy's ``expm1``, ``exp`` and ``log1p`` (the estimate's arithmetic in its order, bit
+    for bit: tests/test_electrostatics.py, tests/test_kernel_backends.py)."""
 
-    def __init__(self, table, grid, *, mu_emitter_ev, well_mass_m0, states):
+    def __init__(self, table, grid, *, mu_emitter_ev, well_mass_m0, states, passes):
         from .constants import ELECTRON_MASS_KG, HBAR2_2M0_EV_NM2, HBAR_J_S
         from .resonances import EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT
 
@@ -1166,7 +1175,7 @@ class _WellChargeStep:
             / (np.pi * HBAR_J_S**2)
             * 1e-4
         )[..., None]
-        self.states = states
+        self.states, self.passes = states, passes
         self.settings = (1.0 / HBAR2_2M0_EV_NM2, 4, 0, 6, EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT, 1)
 
     def _window(self, mu, edge, kt):
@@ -1180,8 +1189,9 @@ class _WellChargeStep:
         stack row of each, ``shape`` ``(n_entries, n_slices)``), kept while small (a setup
         lives on in _SETUPS): the profile's base, the kernel's mass, nonparabolicity and width
         rows, the padding nodes (their index, their base and the index of the potential they
-        take), kT (batch-shaped and with an axis for the states), the emitter Fermi level,
-        the 2D density of states and the forward-bias search window."""
+        take), the emitter Fermi level, kT and the 2D density of states times kT (each one
+        value per entry, contiguous, as the charge passes read them) and the forward-bias
+        search window."""
         key = shape if stack is None else None
         found = self.kept.get(key)
         if found is not None and (stack is None or found[0] is stack):
@@ -1202,8 +1212,11 @@ class _WellChargeStep:
             window_mu = mu
         edge = np.zeros(shape[:-1])
         pad = (at, np.broadcast_to(base, shape)[at], source) if at[0].size else None
-        window = (window_mu, edge, self._window(window_mu, edge, kt))
-        parts = (base, rows, pad, kt, kt[..., None], mu, n2d_cm2, window)
+        window = (np.ascontiguousarray(window_mu), edge, self._window(window_mu, edge, kt))
+        per_entry = tuple(
+            np.ascontiguousarray(np.broadcast_to(a, shape[:-1])) for a in (kt, n2d_cm2[..., 0])
+        )
+        parts = (base, rows, pad, kt, mu, per_entry, window)
         if math.prod(shape) <= STEP_KEEP_VALUES:
             if len(self.kept) >= STEP_KEEP_SHAPES:
                 self.kept.clear()
@@ -1216,7 +1229,7 @@ class _WellChargeStep:
         entries: ``potential_ev`` ``(n, n_slices)``, ``bias_v`` ``(n,)``. The same numbers
         per entry either way."""
         shape = potential_ev.shape
-        base, rows, pad, kt, kt3, mu_fwd, n2d_cm2, forward_window = self._parts(shape, stack)
+        base, rows, pad, kt, mu_fwd, (kt_e, n2d_e), forward_window = self._parts(shape, stack)
         edge_ev = np.ascontiguousarray(base + potential_ev)
         if pad is not None:
             at, base_at, source = pad
@@ -1231,15 +1244,14 @@ class _WellChargeStep:
             energy = self._window(mu, edge, kt)
         out = np.empty(shape[:-1] + (4, 4))
         self.states(self.n_slices, 64, energy, edge_ev, *rows, *self.settings, out)
-        width, peak = out[..., 1], out[..., 2]
-        ok = (out[..., 3] > 0.0) & np.isfinite(width) & (width > 0)
-        e1 = np.where(ok, out[..., 0], 0.0)
-        tp = np.where(ok, peak, 0.0)
-        # np.clip(tp, 0, 1) as its two ufuncs (the same values, without clip's Python layer)
-        fraction = 0.5 * (1.0 - np.sqrt(1.0 - np.minimum(np.maximum(tp, 0.0), 1.0)))
-        fraction = fraction * -np.expm1(-np.maximum(e1 - edge[..., None], 0.0) / kt3)
-        supply = fermi_dirac_zero((mu[..., None] - e1) / kt3)
-        return np.where(ok, fraction * n2d_cm2 * supply, 0.0).sum(axis=-1)
+        # well_sheet_density_cm2's charge from the states: the arguments of its expm1 and of
+        # fermi_dirac_zero's exp, then the sum over the states from their values
+        arguments, sums = self.passes
+        switch, tail = np.empty(shape[:-1] + (4,)), np.empty(shape[:-1] + (4,))
+        arguments(4, out, edge, mu, kt_e, switch, tail)
+        charge = np.empty(shape[:-1])
+        sums(4, out, mu, kt_e, n2d_e, np.expm1(switch), np.log1p(np.exp(tail)), charge)
+        return charge
 
 
 def well_sheet_density_cm2(

@@ -451,3 +451,39 @@ def test_compiled_node_fluxes_agree(study: str, monkeypatch) -> None:
     bad = np.zeros(18)
     with pytest.raises(ValueError, match="rows x"):
         kernel._slices.node_fluxes(4, 1.0, bad, bad, bad, bad, bad, bad, bad, bad)
+
+
+@pytest.mark.parametrize("study", ["inp_thz_oscillator.toml", "gaas_low_power_memory.toml"])
+def test_compiled_well_charge_agrees(study: str) -> None:
+    # the well-charge step's charge from the compiled state search (charge_arguments and
+    # charge_sums around numpy's expm1, exp and log1p) against its numpy statement,
+    # well_sheet_density_cm2, on three variants of the example stack (padding slices) at
+    # both polarities, in the potentials without well charge and with random bumps that
+    # move the states: the same numbers, bit for bit
+    from wellwright.physics import electrostatics as es
+    from wellwright.physics.fermi import fermi_level_ev
+    from wellwright.physics.stack import load_stack
+
+    base = load_stack(Path(__file__).resolve().parents[1] / "studies" / study).table()
+    rng = np.random.default_rng(7)
+    table = base.take([0, 0, 0]).with_thickness_nm(
+        base.thickness_nm[[0, 0, 0]] * rng.uniform(0.85, 1.15, (3, base.thickness_nm.shape[1]))
+    )
+    bias = np.array([-0.7, -0.2, 0.0, 0.1, 0.3, 0.5, 0.9])
+    grid, sol = es.solve_stack_poisson(table, bias, well_charge=False)
+    mu = fermi_level_ev(
+        table.doping_cm3[:, 0], mass_m0=table.mass_m0[:, 0], temperature_k=table.temperature_k
+    )
+    args = {"mu_emitter_ev": mu, "well_mass_m0": table.mass_m0.min(axis=1)}
+    step = es._well_charge_target(table, grid, **args)
+    assert isinstance(step, es._WellChargeStep)  # the compiled passes in use
+    bias_2d = np.broadcast_to(bias, sol.potential_ev.shape[:-1])
+    center = rng.uniform(grid.center_nm.min(), grid.center_nm.max(), (3, bias.size, 1))
+    for bump_ev in (0.0, 0.05, -0.08):
+        u = sol.potential_ev + bump_ev * np.exp(-(((grid.center_nm[:, None] - center) / 4.0) ** 2))
+        expected = es.well_sheet_density_cm2(table, grid, potential_ev=u, bias_v=bias, **args)[0]
+        np.testing.assert_array_equal(step(u, bias_2d), expected)
+        assert np.all(expected >= 0) and np.any(expected > 0)
+    bad = np.zeros(3)
+    with pytest.raises(ValueError, match="n_slots"):
+        kernel._slices.charge_sums(4, np.zeros(40), bad, bad, bad, bad, bad, np.zeros(3))
