@@ -10,7 +10,8 @@
  * phase factor exp(2 i k d) is either (cos, sin) or a real decay: no complex
  * square roots or exponentials are needed; the rotation comes from one tangent of
  * the half angle, cos = (1 - t^2)/(1 + t^2) and sin = 2t/(1 + t^2). Lanes of LANES (energy, profile)
- * items advance through the slices together; on x86-64 glibc the loops compile to SIMD
+ * items (WIDE_LANES on the long grids of grid_states: two vectors whose recursions overlap)
+ * advance through the slices together; on x86-64 glibc the loops compile to SIMD
  * with the vector math library (libmvec), in clones for AVX-512, AVX2 and
  * baseline SSE2 picked at load time.
  *
@@ -59,6 +60,7 @@
 #include <stdint.h>
 
 #define LANES 8
+#define WIDE_LANES 16
 #define MIN_MASS_FACTOR 0.5
 #define K2_FLOOR 1e-12 /* K2_FLOOR_PER_NM2 of transmission.py */
 #define RENORM_EVERY 8
@@ -94,25 +96,25 @@ static inline double slice_k2(double e, Py_ssize_t o, const double *edge, const 
     return floor_k2(m * kin * inv_hb2);
 }
 
-/* One chunk of LANES (energy, profile) items from item e0 on. Item i belongs to energy
+/* One chunk of `lanes` (lanes or WIDE_LANES) (energy, profile) items from item e0 on. Item i belongs to energy
    group i / ne, which runs on profile rows[group] (the group itself without rows).
    Lanes run over items, not over one profile's energies, so that short energy lists
    (two probes per resonance in the refinement) fill the vectors too; each lane then
    gathers its own profile's slice parameters. With `shared` (the chunk inside one
-   energy group: every chunk when ne is a multiple of LANES, all but the straddling ones
+   energy group: every chunk when ne is a multiple of lanes, all but the straddling ones
    otherwise) all lanes read one profile: plain loads instead of gathers, and padding
-   slices are skipped. Inlined twice, once per case. */
+   slices are skipped. Inlined once per case and width. */
 static inline __attribute__((always_inline)) void chunk(
-    const int shared, int n, const double *edge, const double *mass, const double *alpha,
+    const int shared, const int lanes, int n, const double *edge, const double *mass, const double *alpha,
     const double *width, const int64_t *rows, Py_ssize_t n_items, Py_ssize_t ne,
     const double *energy, double inv_hb2, double *t_out, double *r_out, Py_ssize_t e0)
 {
-    double en[LANES], rr[LANES], ri[LANES], lg[LANES], pm[LANES];
-    double q_next[LANES], p_next[LANES], q_coll[LANES], arg[LANES];
-    Py_ssize_t base[LANES]; /* offset of the lane's profile in the slice arrays */
-    const int used = (n_items - e0) < LANES ? (int)(n_items - e0) : LANES;
+    double en[WIDE_LANES], rr[WIDE_LANES], ri[WIDE_LANES], lg[WIDE_LANES], pm[WIDE_LANES];
+    double q_next[WIDE_LANES], p_next[WIDE_LANES], q_coll[WIDE_LANES], arg[WIDE_LANES];
+    Py_ssize_t base[WIDE_LANES]; /* offset of the lane's profile in the slice arrays */
+    const int used = (n_items - e0) < lanes ? (int)(n_items - e0) : lanes;
     Py_ssize_t group = e0 / ne, within = e0 % ne; /* of lane 0; the others count on */
-    for (int l = 0; l < LANES; l++) {
+    for (int l = 0; l < lanes; l++) {
         en[l] = energy[e0 + (l < used ? l : used - 1)];
         base[l] = (rows ? (Py_ssize_t)rows[group] : group) * n;
         if (l + 1 < used && ++within == ne) {
@@ -124,7 +126,7 @@ static inline __attribute__((always_inline)) void chunk(
     {
         const int j = n - 1;
         WW_SIMD
-        for (int l = 0; l < LANES; l++) {
+        for (int l = 0; l < lanes; l++) {
             double m;
             const double k2 = slice_k2(en[l], (shared ? base0 : base[l]) + j, edge, mass, alpha,
                                        inv_hb2, &m);
@@ -145,12 +147,12 @@ static inline __attribute__((always_inline)) void chunk(
                 alpha[o] == alpha[o + 1]) {
                 /* a zero-width copy of the next slice (padding): an exact identity, whose
                    den = 2 is what the final normalisation by 2^(n-1) expects */
-                for (int l = 0; l < LANES; l++) pm[l] *= 4.0;
+                for (int l = 0; l < lanes; l++) pm[l] *= 4.0;
                 continue;
             }
         }
         WW_SIMD
-        for (int l = 0; l < LANES; l++) {
+        for (int l = 0; l < lanes; l++) {
             const Py_ssize_t o = (shared ? base0 : base[l]) + j;
             double m;
             const double k2 = slice_k2(en[l], o, edge, mass, alpha, inv_hb2, &m);
@@ -183,12 +185,12 @@ static inline __attribute__((always_inline)) void chunk(
            of one kind only (the common case: inside a barrier or a well) skip the
            other kind's functions. */
         double n_prop = 0.0;
-        for (int l = 0; l < LANES; l++) n_prop += p_next[l];
+        for (int l = 0; l < lanes; l++) n_prop += p_next[l];
         if (j == 0) {
             /* the emitter: rho' is its reflection ratio */
-        } else if (n_prop == LANES) {
+        } else if (n_prop == lanes) {
             WW_SIMD
-            for (int l = 0; l < LANES; l++) {
+            for (int l = 0; l < lanes; l++) {
                 const double th = tan(0.5 * arg[l]), den = 1.0 / (1.0 + th * th);
                 const double c = (1.0 - th * th) * den, si = 2.0 * th * den;
                 const double xr = rr[l], xi = ri[l];
@@ -197,7 +199,7 @@ static inline __attribute__((always_inline)) void chunk(
             }
         } else if (n_prop == 0.0) {
             WW_SIMD
-            for (int l = 0; l < LANES; l++) {
+            for (int l = 0; l < lanes; l++) {
                 const double c = exp(-arg[l]);
                 rr[l] *= c;
                 ri[l] *= c;
@@ -205,7 +207,7 @@ static inline __attribute__((always_inline)) void chunk(
             }
         } else {
             WW_SIMD
-            for (int l = 0; l < LANES; l++) {
+            for (int l = 0; l < lanes; l++) {
                 const double p = p_next[l];
                 const double th = tan(0.5 * arg[l]), den = 1.0 / (1.0 + th * th);
                 const double cs = (1.0 - th * th) * den, sn = 2.0 * th * den, ex = exp(-arg[l]);
@@ -218,15 +220,15 @@ static inline __attribute__((always_inline)) void chunk(
         }
         if ((n - j) % RENORM_EVERY == 0) { /* keep the product of |den|^2 in range */
             WW_SIMD
-            for (int l = 0; l < LANES; l++) {
+            for (int l = 0; l < lanes; l++) {
                 lg[l] += log(pm[l]);
                 pm[l] = 1.0;
             }
         }
     }
-    double t[LANES], refl[LANES];
+    double t[WIDE_LANES], refl[WIDE_LANES];
     WW_SIMD
-    for (int l = 0; l < LANES; l++) {
+    for (int l = 0; l < lanes; l++) {
         const double flux_in = p_next[l] * q_next[l];
         const double log_amp = lg[l] + log(pm[l]) - 2.0 * (n - 1) * LN2;
         const double ok = flux_in > 0.0 ? 1.0 : 0.0;
@@ -243,19 +245,40 @@ static inline __attribute__((always_inline)) void chunk(
     }
 }
 
+/* T (and R) of n_items (energy, profile) items in chunks of LANES; with `wide`, two such
+   chunks at a time where they share a kind (both inside one energy group, or neither): one
+   chunk of WIDE_LANES, two vectors' worth whose recursions (a chain of dependent operations
+   per slice) overlap. Each item is computed as in its chunk of LANES (in one group: plain
+   loads, padding slices skipped; else gathered), so its numbers are the same either way. */
 WW_CLONES
 static void kernel(int n, const double *edge, const double *mass, const double *alpha,
                    const double *width, const int64_t *rows, Py_ssize_t n_items, Py_ssize_t ne,
-                   const double *energy, double inv_hb2, double *t_out, double *r_out)
+                   const double *energy, double inv_hb2, double *t_out, double *r_out, int wide)
 {
-    for (Py_ssize_t e0 = 0; e0 < n_items; e0 += LANES) {
-        const Py_ssize_t last = (e0 + LANES < n_items ? e0 + LANES : n_items) - 1;
-        if (e0 / ne == last / ne) /* the whole chunk in one energy group: one profile */
-            chunk(1, n, edge, mass, alpha, width, rows, n_items, ne, energy, inv_hb2, t_out,
-                  r_out, e0);
+    Py_ssize_t e0 = 0;
+    while (e0 < n_items) {
+        const Py_ssize_t end = e0 + LANES < n_items ? e0 + LANES : n_items;
+        const int one = e0 / ne == (end - 1) / ne; /* the chunk in one energy group */
+        if (wide && end < n_items) {
+            const Py_ssize_t end2 = end + LANES < n_items ? end + LANES : n_items;
+            if (one == (end / ne == (end2 - 1) / ne) && (!one || e0 / ne == end / ne)) {
+                if (one)
+                    chunk(1, WIDE_LANES, n, edge, mass, alpha, width, rows, n_items, ne, energy,
+                          inv_hb2, t_out, r_out, e0);
+                else
+                    chunk(0, WIDE_LANES, n, edge, mass, alpha, width, rows, n_items, ne, energy,
+                          inv_hb2, t_out, r_out, e0);
+                e0 = end2;
+                continue;
+            }
+        }
+        if (one)
+            chunk(1, LANES, n, edge, mass, alpha, width, rows, n_items, ne, energy, inv_hb2,
+                  t_out, r_out, e0);
         else
-            chunk(0, n, edge, mass, alpha, width, rows, n_items, ne, energy, inv_hb2, t_out,
-                  r_out, e0);
+            chunk(0, LANES, n, edge, mass, alpha, width, rows, n_items, ne, energy, inv_hb2,
+                  t_out, r_out, e0);
+        e0 = end;
     }
 }
 
@@ -299,7 +322,7 @@ static void refine_kernel(int n, const double *edge, const double *mass, const d
                           double *x, double *y, int iterations, int extra_rounds,
                           double loose_bracket, double loose_fit, double inv_hb2,
                           Py_ssize_t *active, double *h_buf, double *u_buf, double *energy,
-                          int64_t *rows, double *t, int *n_probe)
+                          int64_t *rows, double *t, int *n_probe, int wide)
 {
     Py_ssize_t n_active = n_peaks;
     for (Py_ssize_t i = 0; i < n_peaks; i++) active[i] = i;
@@ -344,7 +367,7 @@ static void refine_kernel(int n, const double *edge, const double *mass, const d
                 n_probe[k] = 3;
             }
         }
-        kernel(n, edge, mass, alpha, width, rows, n_items, 1, energy, inv_hb2, t, NULL);
+        kernel(n, edge, mass, alpha, width, rows, n_items, 1, energy, inv_hb2, t, NULL, wide);
         Py_ssize_t item = 0;
         for (Py_ssize_t k = 0; k < n_active; k++) {
             const Py_ssize_t i = active[k];
@@ -396,7 +419,7 @@ static void refine_kernel(int n, const double *edge, const double *mass, const d
 static void final_vertex(int n, const double *edge, const double *mass, const double *alpha,
                          const double *width, const int64_t *peak_rows, Py_ssize_t n_peaks,
                          const double *x, const double *y, int exact_peak, double inv_hb2,
-                         double *energy, double *t, double *out)
+                         double *energy, double *t, double *out, int wide)
 {
     for (Py_ssize_t i = 0; i < n_peaks; i++) {
         double u, a, ymin;
@@ -407,7 +430,8 @@ static void final_vertex(int n, const double *edge, const double *mass, const do
         out[3 * i + 1] = 2.0 * half;
         t[i] = isfinite(half) ? 1.0 / ymin : 0.0;
     }
-    if (exact_peak) kernel(n, edge, mass, alpha, width, peak_rows, n_peaks, 1, energy, inv_hb2, t, NULL);
+    if (exact_peak)
+        kernel(n, edge, mass, alpha, width, peak_rows, n_peaks, 1, energy, inv_hb2, t, NULL, wide);
     for (Py_ssize_t i = 0; i < n_peaks; i++)
         out[3 * i + 2] = min_nan(max_nan(max_nan(t[i], 1.0 / y[3 * i + 1]), 0.0), 1.0);
 }
@@ -465,9 +489,9 @@ static PyObject *py_refine_peaks(PyObject *self, PyObject *args)
         Py_BEGIN_ALLOW_THREADS
         refine_kernel(n, bv.buf, bm.buf, ba.buf, bw.buf, peak_rows, n_peaks, bx.buf, by.buf,
                       iterations, extra_rounds, loose_bracket, loose_fit, inv_hb2, active, h_buf,
-                      u_buf, energy, rows, t, n_probe);
+                      u_buf, energy, rows, t, n_probe, 0);
         final_vertex(n, bv.buf, bm.buf, ba.buf, bw.buf, peak_rows, n_peaks, bx.buf, by.buf,
-                     exact_peak, inv_hb2, energy, t, bo.buf);
+                     exact_peak, inv_hb2, energy, t, bo.buf, 0);
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
@@ -537,7 +561,7 @@ static PyObject *py_refine_brackets(PyObject *self, PyObject *args)
         Py_BEGIN_ALLOW_THREADS
         refine_kernel(n, bv.buf, bm.buf, ba.buf, bw.buf, peak_rows, n_peaks, bx.buf, by.buf,
                       iterations, extra_rounds, loose_bracket, loose_fit, inv_hb2, active, h_buf,
-                      u_buf, energy, rows, t, n_probe);
+                      u_buf, energy, rows, t, n_probe, 0);
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
@@ -572,7 +596,7 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
                         double *energy, int64_t *rows, double *t, int *n_probe, double *fit,
                         Py_ssize_t *twin, Py_ssize_t *twin_of, double *out)
 {
-    kernel(n, edge, mass, alpha, width, NULL, n_profiles * ne, ne, grid, inv_hb2, t_grid, NULL);
+    kernel(n, edge, mass, alpha, width, NULL, n_profiles * ne, ne, grid, inv_hb2, t_grid, NULL, 1);
     Py_ssize_t n_peaks = 0, n_twins = 0;
     for (Py_ssize_t g = 0; g < n_profiles; g++) {
         const double *v = t_grid + g * ne, *e = grid + g * ne;
@@ -624,9 +648,9 @@ static void grid_states(int n, const double *edge, const double *mass, const dou
     if (n_peaks == 0) return;
     refine_kernel(n, edge, mass, alpha, width, peak_rows, n_peaks, x, y, iterations,
                   extra_rounds, loose_bracket, loose_fit, inv_hb2, active, h_buf, u_buf, energy,
-                  rows, t, n_probe);
+                  rows, t, n_probe, 1);
     final_vertex(n, edge, mass, alpha, width, peak_rows, n_peaks, x, y, exact_peak, inv_hb2,
-                 energy, t, fit);
+                 energy, t, fit, 1);
     for (Py_ssize_t p = 0; p < n_peaks; p++)
         for (int c = 0; c < 3; c++) out[4 * slot[p] + c] = fit[3 * p + c];
     for (Py_ssize_t p = 0; p < n_twins; p++)
@@ -1173,7 +1197,7 @@ static PyObject *py_transmission(PyObject *self, PyObject *args)
     double *t_out = bt.buf, *r_out = have_r ? (double *)br.buf : NULL;
     if (n_values > 0) {
         Py_BEGIN_ALLOW_THREADS
-        kernel(n, edge, mass, alpha, width, rows, n_values, ne, energy, inv_hb2, t_out, r_out);
+        kernel(n, edge, mass, alpha, width, rows, n_values, ne, energy, inv_hb2, t_out, r_out, 0);
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
