@@ -294,23 +294,29 @@ def _take_last(index, *arrays):
     return out
 
 
-def _geometry(
-    edge, mass, width, barrier, phonon_ev, eps_high, eps_s, *, per_stack=False
-) -> _Geometry:
-    """Barriers, well and source side of oriented slice arrays ``(..., n)``.
+#: :func:`_layout` of the slice arrays met last, found by their values (a sweep's channel
+#: calls meet the same stack many times: the sweep, the refinement rounds, the up branch)
+_LAYOUTS: list = []
+_LAYOUTS_KEPT = 8
 
-    With ``per_stack`` every slice array but ``edge`` is the same at every bias (axis -2):
-    the layout is found on the first bias of each stack and broadcast (the same numbers)."""
-    shape = edge.shape[:-1]
-    if per_stack:
-        mass, width, barrier, phonon_ev, eps_high, eps_s = (
-            a[..., :1, :] for a in (mass, width, barrier, phonon_ev, eps_high, eps_s)
-        )
+
+def _layout(mass, width, barrier, shape, per_stack) -> dict:
+    """The part of :func:`_geometry` that does not depend on the band edge: the barriers,
+    the well and the slices next to them of ``mass``, ``width``, ``barrier`` (already cut to
+    one bias per stack with ``per_stack``), the per-stack ones repeated to the batch
+    ``shape``; made once per values and kept in :data:`_LAYOUTS` (read-only arrays)."""
+    key = (shape, per_stack)
+    for entry in _LAYOUTS:
+        if entry[0] == key and all(
+            x.shape == y.shape and bool((x == y).all())
+            for x, y in zip(entry[1], (mass, width, barrier), strict=True)
+        ):
+            return entry[2]
 
     def full(a):  # a per-stack array repeated to the batch's shape (cheaper than a view here)
         return a.repeat(shape[-1], axis=len(shape) - 1) if per_stack else a
 
-    n = edge.shape[-1]
+    n = barrier.shape[-1]
     idx = np.arange(n)
     has = barrier.any(axis=-1)
     i1 = np.argmax(barrier, axis=-1)
@@ -324,29 +330,71 @@ def _geometry(
     w = np.where(well, width, 0.0)
     well_nm = w.sum(axis=-1)
     safe = np.maximum(well_nm, 1e-12)
-    bottom = np.argmin(np.where(well, edge, np.inf), axis=-1)  # the bias's own
     inner1, inner2 = np.maximum(j1 - 1, 0), np.minimum(j2 + 1, n - 1)
     # the real slices (not a batch's zero-width padding) just outside the two barriers
     real = width > 0
     near1 = np.max(np.where(real & (idx < i1[..., None]), idx, 0), axis=-1)
     near2 = np.min(np.where(real & (idx > i2[..., None]), idx, n - 1), axis=-1)
-    ends = [full(i) for i in (i1, inner1, inner2, i2)] + [bottom] + [full(near1), full(near2)]
+    out = {
+        "well": well,
+        "w": w,
+        "safe": safe,
+        "inner_ends": [full(i) for i in (i1, inner1, inner2, i2)],
+        "outer_ends": [full(near1), full(near2)],
+        "run1": full((idx >= i1[..., None]) & (idx < j1[..., None])),
+        "run2": full((idx > j2[..., None]) & (idx <= i2[..., None])),
+        "source": full(idx < i1[..., None]),
+        "has": full(has),
+        "well_full": full(well),
+        "outer1": full(i1),
+        "inner1": full(inner1),
+        "inner2": full(inner2),
+        "outer2": full(i2),
+        "well_nm": full(well_nm),
+        "well_mass_m0": full((w * mass).sum(axis=-1) / safe),
+    }
+    for value in out.values():
+        for a in value if isinstance(value, list) else [value]:
+            a.flags.writeable = False
+    kept = tuple(np.array(a, copy=True) for a in (mass, width, barrier))
+    _LAYOUTS.insert(0, (key, kept, out))
+    del _LAYOUTS[_LAYOUTS_KEPT:]
+    return out
+
+
+def _geometry(
+    edge, mass, width, barrier, phonon_ev, eps_high, eps_s, *, per_stack=False
+) -> _Geometry:
+    """Barriers, well and source side of oriented slice arrays ``(..., n)``.
+
+    With ``per_stack`` every slice array but ``edge`` is the same at every bias (axis -2):
+    the layout is found on the first bias of each stack and broadcast (the same numbers).
+    The layout (:func:`_layout`) is made once per stack's values."""
+    shape = edge.shape[:-1]
+    if per_stack:
+        mass, width, barrier, phonon_ev, eps_high, eps_s = (
+            a[..., :1, :] for a in (mass, width, barrier, phonon_ev, eps_high, eps_s)
+        )
+    lay = _layout(mass, width, barrier, shape, per_stack)
+    well, w = lay["well"], lay["w"]
+    bottom = np.argmin(np.where(well, edge, np.inf), axis=-1)  # the bias's own
+    ends = lay["inner_ends"] + [bottom] + lay["outer_ends"]
     edge_at, mass_at = _take_last(np.stack(ends, axis=-1), edge, mass)
     phonon_at = _take_last(bottom[..., None], phonon_ev, eps_high, eps_s)
     return _Geometry(
-        run1=full((idx >= i1[..., None]) & (idx < j1[..., None])),
-        run2=full((idx > j2[..., None]) & (idx <= i2[..., None])),
-        source=full(idx < i1[..., None]),
-        has=full(has),
-        well=full(well),
-        outer1=full(i1),
-        inner1=full(inner1),
-        inner2=full(inner2),
-        outer2=full(i2),
-        well_edge_ev=(w * edge).sum(axis=-1) / safe,
+        run1=lay["run1"],
+        run2=lay["run2"],
+        source=lay["source"],
+        has=lay["has"],
+        well=lay["well_full"],
+        outer1=lay["outer1"],
+        inner1=lay["inner1"],
+        inner2=lay["inner2"],
+        outer2=lay["outer2"],
+        well_edge_ev=(w * edge).sum(axis=-1) / lay["safe"],
         well_bottom_ev=edge_at[..., 4],
-        well_nm=full(well_nm),
-        well_mass_m0=full((w * mass).sum(axis=-1) / safe),
+        well_nm=lay["well_nm"],
+        well_mass_m0=lay["well_mass_m0"],
         lo_phonon_ev=phonon_at[0][..., 0],
         permittivity_high_r=phonon_at[1][..., 0],
         permittivity_r=phonon_at[2][..., 0],
