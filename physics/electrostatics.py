@@ -201,6 +201,10 @@ class _NewtonSystem:
 
         self.g, self.w, self.donors, self.offset = c(g), c(w), c(donors), c(offset)
         self.mask, self.nc, self.kt = c(mask), c(nc), c(kt).reshape(-1)
+        # the routine and the F_1/2 table, looked up once (a setup is made again when the
+        # routine in use changes: _solve_setup)
+        self.newton = compiled_kernel("poisson_newton")
+        self.spline = fermi_dirac_half_spline()
 
     def solve(self, rows, u, mu, fixed, *, tolerance_ev, max_iterations, max_step_ev):
         """Solve entry ``e`` (rows of ``u``, ``mu``, ``fixed`` in eV, eV, m^-3; ``u`` holds
@@ -211,7 +215,7 @@ class _NewtonSystem:
         if not (u.flags.c_contiguous and u.flags.writeable and u.dtype == float):
             u = np.array(u, dtype=float, order="C")
         electrons = np.empty(u.shape)
-        used, failed, worst = compiled_kernel("poisson_newton")(
+        used, failed, worst = self.newton(
             n,
             np.ascontiguousarray(rows, dtype=np.int64),
             u,
@@ -224,7 +228,7 @@ class _NewtonSystem:
             np.ascontiguousarray(fixed, dtype=float),
             self.nc,
             self.kt,
-            *fermi_dirac_half_spline(),
+            *self.spline,
             float(tolerance_ev),
             float(max_step_ev),
             int(max_iterations),
@@ -644,6 +648,8 @@ _SETUPS_KEPT = 8
 
 
 _TABLE_FIELDS: list = []  # the names of LayerTable's fields (read once)
+#: the compiled routines a setup is built around (a setup is made again when one is not in use)
+_SETUP_ROUTINES = ("poisson_newton", "grid_states", "charge_arguments", "charge_sums")
 
 
 def _table_values(table: LayerTable) -> tuple:
@@ -671,7 +677,7 @@ def _solve_setup(table: LayerTable, **settings) -> _SolveSetup:
     settings = dict(
         settings,
         constants=(BARRIER_EV, WELL_SEARCH_EDGE_POWER, CONTACT_GRADING, ZERO_WIDTH_TIE),
-        compiled=tuple(compiled_kernel(n) is not None for n in ("poisson_newton", "grid_states")),
+        compiled=tuple(compiled_kernel(n) is not None for n in _SETUP_ROUTINES),
     )
     for entry in _SETUPS:
         if entry[1] == settings and _same_values(entry[0], values):
