@@ -23,7 +23,8 @@ then move less with the load of a shared machine; the refinement rows stay wall 
 phases of the sweep, the number of self-consistent solves and well-charge steps, the
 current calls and the compiled routines.
 
-Run: ``python benchmarks/bench_electrostatics.py [--quick] [--cpu] [--baseline REF] [--breakdown]``.
+Run: ``python benchmarks/bench_electrostatics.py [--quick | --repeats N] [--cpu] [--baseline REF]
+[--breakdown]``.
 """
 
 from __future__ import annotations
@@ -282,6 +283,9 @@ def before_after(ref: str, repeats: int) -> None:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer repeats")
+    parser.add_argument(
+        "--repeats", type=int, metavar="N", help="I-Vs of each model per median (9; 3 with --quick)"
+    )
     parser.add_argument("--baseline", metavar="REF", help="also time the code of commit REF")
     parser.add_argument(
         "--breakdown", action="store_true", help="where the default model's time goes"
@@ -298,7 +302,7 @@ def main() -> None:
         return
     if args.cpu:  # read by _timed_sweep here and in the --baseline workers
         os.environ["WELLWRIGHT_BENCH_CPU"] = "1"
-    repeats = 3 if args.quick else 9
+    repeats = args.repeats if args.repeats else (3 if args.quick else 9)
     if args.breakdown:
         breakdown(repeats)
         return
