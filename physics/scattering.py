@@ -244,7 +244,8 @@ def _effective_width_nm(energy_ev, geo, well_nm):
     k1 = _kappa(ex(geo.mass_at[..., 1]), ex(geo.edge_at[..., 1]) - energy_ev)
     k2 = _kappa(ex(geo.mass_at[..., 2]), ex(geo.edge_at[..., 2]) - energy_ev)
     w_eff = well_nm + 1.0 / k1 + 1.0 / k2
-    return w_eff, HBAR2_2M0_EV_NM2 / ex(geo.well_mass_m0) * (np.pi / w_eff) ** 2
+    m_w = np.maximum(ex(geo.well_mass_m0), 1e-6)  # (0 where the stack has no well)
+    return w_eff, HBAR2_2M0_EV_NM2 / m_w * (np.pi / w_eff) ** 2
 
 
 def _interface_factor(k_over_m, kappa_over_m):
