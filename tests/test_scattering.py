@@ -292,6 +292,16 @@ JUMPS = {
 }
 
 
+def _share_off(stack, bias):
+    """The channel's share of the current (total over coherent, log) at each inner bias less
+    the mean of its neighbours'; and the two currents."""
+    total = current_at_bias(stack.table(), bias, model=stack.model)[0]
+    coherent_model = replace(stack.model, transport="coherent")
+    coherent = current_at_bias(stack.table(), bias, model=coherent_model)[0]
+    share = np.log(total / coherent)
+    return share[1:-1] - 0.5 * (share[:-2] + share[2:]), total, coherent
+
+
 @pytest.mark.parametrize("case", sorted(JUMPS))
 def test_channel_smooth_in_bias_where_its_state_changes_character(case):
     """The channel's share of the current (scattering-assisted over coherent) changes
@@ -299,11 +309,7 @@ def test_channel_smooth_in_bias_where_its_state_changes_character(case):
     Common practice: nothing in either current has structure on a 5 mV scale here (the
     coherent current is smooth)."""
     stack, bias = JUMPS[case]
-    channel = current_at_bias(stack.table(), bias, model=stack.model)[0]
-    coherent_model = replace(stack.model, transport="coherent")
-    coherent = current_at_bias(stack.table(), bias, model=coherent_model)[0]
-    share = np.log(channel / coherent)
-    off = share[1:-1] - 0.5 * (share[:-2] + share[2:])
+    off, channel, coherent = _share_off(stack, bias)
     print(case, channel, coherent)
     assert np.all(np.abs(off) < np.log(1.1))
 
@@ -455,11 +461,7 @@ def test_no_channel_through_lines_that_are_not_states_of_the_well():
         None,
     )  # fmt: skip
     bias = np.linspace(0.0, 1.462752009073673, 121)[36:56]
-    total = current_at_bias(stack.table(), bias, model=stack.model)[0]
-    coherent_model = replace(stack.model, transport="coherent")
-    coherent = current_at_bias(stack.table(), bias, model=coherent_model)[0]
-    share = np.log(total / coherent)
-    off = share[1:-1] - 0.5 * (share[:-2] + share[2:])
+    off, total, coherent = _share_off(stack, bias)
     print(np.c_[bias, total, coherent])
     assert np.all(np.abs(off) < np.log(2.0))
 
@@ -485,10 +487,6 @@ def test_channel_keeps_a_narrow_lowest_state_near_the_bottom_of_the_search():
         model={"nonparabolicity": False},
     )  # fmt: skip
     bias = np.linspace(0.0, 0.3537215291811787, 121)[1:]
-    total = current_at_bias(stack.table(), bias, model=stack.model)[0]
-    coherent_model = replace(stack.model, transport="coherent")
-    coherent = current_at_bias(stack.table(), bias, model=coherent_model)[0]
-    share = np.log(total / coherent)
-    off = share[1:-1] - 0.5 * (share[:-2] + share[2:])
+    off = _share_off(stack, bias)[0]
     print(np.abs(off).max(), bias[1:-1][np.argmax(np.abs(off))])
     assert np.all(np.abs(off) < np.log(2.0))
