@@ -1520,6 +1520,99 @@ done:
     return result;
 }
 
+/* ---- the well's interface slopes (physics/scattering.py: _interface_slopes_ev_nm) ----
+   -dE_n/dz_i at the well's two interfaces from psi shot through the well's slices at E_n,
+   the same arithmetic as the numpy statement (which stays the reference and the fallback;
+   a test compares the two). par per entry: first, last (well slices), has, U_b1, m_b1,
+   U_b2, m_b2. */
+enum { S_FIRST, S_LAST, S_HAS, S_UB1, S_MB1, S_UB2, S_MB2, SLOPE_P };
+
+static void interface_slopes(Py_ssize_t n_rows, Py_ssize_t n_slices, Py_ssize_t n_states,
+                             double hb2, const double *energy, const double *par,
+                             const double *edge, const double *mass, const double *width,
+                             double *out)
+{
+    for (Py_ssize_t r = 0; r < n_rows; r++) {
+        const double *p = par + r * SLOPE_P;
+        const double *er = edge + r * n_slices, *mr = mass + r * n_slices,
+                     *wr = width + r * n_slices;
+        const Py_ssize_t first = (Py_ssize_t)p[S_FIRST], last = (Py_ssize_t)p[S_LAST];
+        const Py_ssize_t stop = p[S_HAS] != 0.0 ? last : first - 1;
+        for (Py_ssize_t l = 0; l < n_states; l++) {
+            const double e_n = energy[r * n_states + l];
+            const double k1 = sqrt(p[S_MB1] * max_numpy(p[S_UB1] - e_n, 1e-3) / hb2);
+            const double k2 = sqrt(p[S_MB2] * max_numpy(p[S_UB2] - e_n, 1e-3) / hb2);
+            double psi = 1.0, flux = k1 / p[S_MB1], norm = 0.5 / k1;
+            for (Py_ssize_t s = first; s <= stop; s++) {
+                const double d = wr[s], m = mr[s];
+                if (!(d > 0.0)) continue;
+                const double k2s = m * (e_n - er[s]) / hb2;
+                const double q = sqrt(fabs(k2s)), qd = q * d;
+                const int up = k2s >= 0.0;
+                const double c = up ? cos(qd) : cosh(qd);
+                const double sn = qd > 1e-8 ? (up ? sin(qd) : sinh(qd)) / (q > 1e-300 ? q : 1e-300) : d;
+                const double x2 = k2s * d * d;
+                const double odd = fabs(x2) < 1e-3 ? d * d * d * (1.0 / 3.0 - x2 / 15.0)
+                                                   : (d - sn * c) / (2.0 * k2s);
+                const double slope = m * flux;
+                norm += psi * psi * 0.5 * (d + sn * c) + slope * slope * odd + psi * slope * sn * sn;
+                const double psi_next = c * psi + sn * slope;
+                flux = (-k2s * sn * psi + c * slope) / m;
+                psi = psi_next;
+            }
+            norm += psi * psi * 0.5 / k2;
+            const double psi1 = 1.0 / norm, psi2 = psi * psi / norm;
+            double *o = out + 2 * (r * n_states + l);
+            o[0] = psi1 * ((e_n - er[first]) + mr[first] / p[S_MB1] * (p[S_UB1] - e_n));
+            o[1] = psi2 * ((e_n - er[last]) + mr[last] / p[S_MB2] * (p[S_UB2] - e_n));
+        }
+    }
+}
+
+static PyObject *py_interface_slopes(PyObject *self, PyObject *args)
+{
+    Py_ssize_t n, n_states;
+    double hb2;
+    Py_buffer bE = {0}, bp = {0}, be = {0}, bm = {0}, bw = {0}, bo = {0};
+    PyObject *result = NULL;
+    (void)self;
+    if (!PyArg_ParseTuple(args, "nndy*y*y*y*y*w*", &n, &n_states, &hb2, &bE, &bp, &be, &bm, &bw,
+                          &bo))
+        return NULL;
+    if (!(need_double(&bE, "energy") && need_double(&bp, "par") && need_double(&be, "edge") &&
+          need_double(&bm, "mass") && need_double(&bw, "width") && need_double(&bo, "out")))
+        goto done;
+    const Py_ssize_t n_values = be.len / (Py_ssize_t)sizeof(double);
+    const Py_ssize_t rows = n > 0 ? n_values / n : 0;
+    if (n <= 0 || n_states <= 0 || n_values % n != 0 || bm.len != be.len || bw.len != be.len ||
+        bE.len != rows * n_states * (Py_ssize_t)sizeof(double) ||
+        bp.len != rows * SLOPE_P * (Py_ssize_t)sizeof(double) || bo.len != 2 * bE.len) {
+        PyErr_SetString(PyExc_ValueError,
+                        "edge, mass, width: rows x n_slices float64; energy: rows x n_states;"
+                        " par: rows x 7; out: rows x n_states x 2");
+        goto done;
+    }
+    for (Py_ssize_t r = 0; r < rows; r++) {
+        const double *p = (const double *)bp.buf + r * SLOPE_P;
+        if (!(p[S_FIRST] >= 0.0 && p[S_LAST] >= 0.0 && p[S_FIRST] < (double)n &&
+              p[S_LAST] < (double)n)) {
+            PyErr_SetString(PyExc_ValueError, "par: well slices outside 0..n_slices-1");
+            goto done;
+        }
+    }
+    interface_slopes(rows, n, n_states, hb2, bE.buf, bp.buf, be.buf, bm.buf, bw.buf, bo.buf);
+    result = Py_None;
+    Py_INCREF(result);
+done:
+    PyBuffer_Release(&bE);
+    PyBuffer_Release(&bp);
+    PyBuffer_Release(&be);
+    PyBuffer_Release(&bm);
+    PyBuffer_Release(&bw);
+    PyBuffer_Release(&bo);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"transmission", py_transmission, METH_VARARGS,
      "transmission(n_slices, n_energy, energy, edge, mass, alpha, width, inv_hb2, t_out, r_out,"
@@ -1578,6 +1671,11 @@ static PyMethodDef methods[] = {
      "node_fluxes(k, hb2, par, both, steps, ex_val, at_val, th_val, flux_l, flux_r)\n\n"
      "The channel's couplings and reservoir fluxes at its energy nodes from the values of"
      " those functions (physics.scattering._couplings and _reservoir_fluxes, bit for bit)."},
+    {"interface_slopes", py_interface_slopes, METH_VARARGS,
+     "interface_slopes(n_slices, n_states, hb2, energy, par, edge, mass, width, out)\n\n"
+     "-dE_n/dz at the well's two interfaces (physics.scattering._interface_slopes_ev_nm): out"
+     " (rows, n_states, 2) from the states' energies (rows, n_states), par (rows, 7: first,"
+     " last, has, U_b1, m_b1, U_b2, m_b2) and the slices' edge, mass, width (rows, n)."},
     {NULL, NULL, 0, NULL},
 };
 

@@ -410,6 +410,40 @@ def test_compiled_barrier_action_agrees(seed: int) -> None:
                                       np.zeros(2 * n, bool), np.zeros(4))  # fmt: skip
 
 
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_compiled_interface_slopes_agree(seed: int) -> None:
+    # -dE_n/dz_i of the roughness width (physics/scattering.py, _interface_slopes_ev_nm)
+    # compiled and in numpy on random wells (tilted, with deep and classically forbidden
+    # slices, a zero-width padding slice, an entry without a well) and energies: the same
+    # arithmetic, equal to 1e-12 (cos, sin, cosh, sinh are the C library's, not numpy's)
+    from wellwright.physics import scattering as sc
+
+    rng = np.random.default_rng(seed)
+    batch, n = (3, 4), 16
+    edge = rng.uniform(-0.4, 0.3, batch + (n,))
+    edge[..., :4] = edge[..., -4:] = rng.uniform(0.6, 1.3, batch + (1,))  # the barriers
+    edge[..., [0, -1]] = 0.0  # the contacts
+    mass = rng.uniform(0.02, 0.15, batch + (n,))
+    width = rng.uniform(0.1, 0.6, batch + (n,))
+    width[..., [0, -1]] = 0.0
+    width[..., 6] = 0.0  # a padding slice in the well
+    barrier = edge > sc.BARRIER_MIN_EV
+    barrier[..., 4:-4] = False
+    barrier[0, 0] = False  # an entry without a well
+    ones = np.ones_like(edge)
+    geo = sc._geometry(edge, mass, width, barrier, 0.036 * ones, 10.9 * ones, 12.9 * ones)
+    energy = rng.uniform(-0.1, 0.5, batch + (2,))
+    assert sc.compiled_kernel("interface_slopes") is not None
+    got = sc._interface_slopes_ev_nm(energy, geo, edge=edge, mass=mass, width=width)
+    ref = sc._interface_slopes_ev_nm(energy, geo, edge=edge, mass=mass, width=width, compiled=False)
+    assert got.shape == batch + (2, 2) and np.all(np.isfinite(got))
+    np.testing.assert_allclose(got, ref, rtol=1e-12, atol=0)
+    bad = np.zeros(n)
+    with pytest.raises(ValueError, match="par"):
+        kernel._slices.interface_slopes(n, 1, 1.0, np.zeros(1), np.zeros(6), bad, bad, bad,
+                                        np.zeros(2))  # fmt: skip
+
+
 @pytest.mark.parametrize("study", ["inp_thz_oscillator.toml", "gaas_low_power_memory.toml"])
 def test_compiled_node_fluxes_agree(study: str, monkeypatch) -> None:
     # the scattering channel's couplings and reservoir fluxes at its energy nodes

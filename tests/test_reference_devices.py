@@ -12,18 +12,18 @@ Tolerances: Jp within x2 and PVCR within x3 of the measured value, for at least
 stated reason (``expected_miss``, only X-valley current in AlAs barriers, which the README
 says is not modelled, and only where the model's own X-valley check flags a barrier at the
 peak bias, which the test asserts) are reported but not counted. Measured (default model,
-Dec 2026, after the phonon terms became off-resonant only): Jp 2 of 2 within x2 (Zhang et
-al. 2006: 2.7e3 against 3e3 A/cm^2; Broekaert and Fonstad 1990: 5.4e5 against > 4.5e5
-A/cm^2); PVCR 3 of 6 within x3 (Zhang 8.3 against 17, Sollner et al. 8.7 against 6, Inata
-et al. 11.1 against 15; misses: the InAs-insert devices of Smet et al., 7.6 against 42 at
-300 K and 8.0 against 85 at 77 K, and Broekaert and Fonstad's thin barriers, 10.8 against
-3). Goodhue et al.'s GaAs/AlAs device (16.8 against 3.5) is the expected miss; counted,
-PVCR would be 3 of 7. Only one
-device (Zhang et al.) has its structure and figures checked in a public source; it is
-within tolerance on both. The structures of the six others are from memory
-(``from_memory``), so their hits and misses test the model less than they seem to.
-Issue 12 asks for "most"; the model reaches all for Jp (of two devices) and half for PVCR,
-and the thresholds say so rather than hide it.
+2026-12-04, after the roughness width took the level's exact shift per interface
+displacement instead of a box's): Jp 2 of 2 within x2 (Zhang et al. 2006: 2.8e3 against
+3e3 A/cm^2; Broekaert and Fonstad 1990: 5.7e5 against > 4.5e5 A/cm^2); PVCR 4 of 6 within
+x3 (Zhang 16.2 against 17, Smet et al. at 300 K 15.9 against 42, Sollner et al. 8.7
+against 6, Inata et al. 12.9 against 15; misses: Smet et al. at 77 K, 18.4 against 85,
+where the model's PVCR hardly rises on cooling, and Broekaert and Fonstad's thin barriers,
+12.8 against 3). Goodhue et al.'s GaAs/AlAs device (19.9 against 3.5) is the expected
+miss; counted, PVCR would be 4 of 7. Before that change (2026-12-03): PVCR 3 of 6 (Zhang
+8.3, Smet 7.6 and 8.0, Broekaert 10.8, Sollner 8.7, Inata 11.1). Only one device (Zhang et
+al.) has its structure and figures checked in a public source; it is within tolerance on
+both. The structures of the six others are from memory (``from_memory``), so their hits
+and misses test the model less than they seem to.
 
 Common practice (no single source; facts of the trade):
 - the valley current rises and the PVCR falls with temperature;
@@ -47,9 +47,9 @@ PVCR_FACTOR = 3.0
 #: Jp: the model reaches 2 of 2 (measured Dec 2026); 0.9 asks for all of them, a margin
 #: below the measured share that with two devices cannot allow a miss.
 MIN_SHARE_JP = 0.9
-#: PVCR: the model reaches 3 of 6 (measured Dec 2026), not more than half, so the
-#: threshold stays at one half and says so (issue 12 asks for "most").
-MIN_SHARE_PVCR = 0.5
+#: PVCR: the model reaches 4 of 6 (measured 2026-12-04); issue 12 asks for "most", more
+#: than half: 0.6 fails at 3 of 6.
+MIN_SHARE_PVCR = 0.6
 BIAS = np.linspace(0.0, 2.0, 81)
 
 
@@ -150,7 +150,7 @@ def test_valley_current_rises_and_pvcr_falls_with_temperature():
 @pytest.mark.xfail(
     strict=True,
     reason="known limitation: the model's valley current is mostly the roughness channel, "
-    "which depends little on temperature (measured: PVCR 15.8 at 77 K, 12.8 at 300 K)",
+    "which depends little on temperature (measured: PVCR 19.4 at 77 K, 15.9 at 300 K)",
 )
 def test_pvcr_at_77k_a_few_times_that_at_300k():
     """Common practice for InGaAs/AlAs (e.g. 85 against 42 in Smet et al. 1992, table):
