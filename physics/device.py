@@ -351,9 +351,9 @@ def cutoff_frequency_hz(
     and with ``R_s = 0`` the limit ``1 / (4 tau)`` where the delayed
     conductance changes sign. To first order in ``w tau`` the delayed
     conductance is the quantum-inductance model of [2]_,
-    ``G / (1 + i w tau)``; the exponential form is this project's choice. The
-    first crossing is found on a log grid from 1 MHz to 100 THz and refined
-    by bisection.
+    ``G / (1 + i w tau)``; the exponential form is this project's choice. Without
+    ``R_s`` the crossing is ``1 / (4 tau)``; with it, the first crossing is found on a
+    log grid from 1 MHz to 100 THz and refined by bisection.
 
     References
     ----------
@@ -368,13 +368,30 @@ def cutoff_frequency_hz(
     c = np.broadcast_to(np.asarray(capacitance_f_cm2, float), g.shape)
     r = np.broadcast_to(np.asarray(series_resistance_ohm_cm2, float), g.shape)
     tau = np.broadcast_to(np.nan_to_num(np.asarray(delay_s, float)), g.shape)
+    freq = np.logspace(6, 14, 321)
+    # without R_s, Re Y = G cos(w tau): negative up to w tau = pi/2, f = 1/(4 tau) (the grid's
+    # range kept: 0 below its first frequency, its last where tau = 0)
+    quarter = 0.25 / np.where(tau > 0, tau, np.inf)
+    out = np.where(
+        tau <= 0, freq[-1], np.where(quarter < freq[0], 0.0, np.minimum(quarter, freq[-1]))
+    )
+    k = np.nonzero(r != 0)[0]  # with R_s: the first crossing on the grid, then bisection
+    if k.size:
+        out[k] = _first_crossing_hz(g[k], c[k], r[k], tau[k], freq)
+    ok = (g < 0) & np.isfinite(c) & (c > 0)
+    return np.where(ok, out, np.nan).reshape(np.shape(ndr_conductance_s_cm2))
+
+
+def _first_crossing_hz(g, c, r, tau, freq):
+    """:func:`cutoff_frequency_hz` where ``R_s > 0``: the first frequency of ``freq`` (log
+    grid) where ``R_s |Y|^2 + Re Y`` turns positive, refined by bisection (50 halvings);
+    the grid's last frequency where it never does, 0 where it never is negative."""
 
     def excess(f):  # R_s |Y|^2 + Re Y: < 0 where the terminals show negative resistance
         w = 2 * np.pi * f
         y = g[:, None] * np.exp(-1j * w * tau[:, None]) + 1j * w * c[:, None]
         return r[:, None] * np.abs(y) ** 2 + y.real
 
-    freq = np.logspace(6, 14, 321)
     neg = excess(np.broadcast_to(freq, (g.size, freq.size))) < 0
     first_pos = np.argmax(~neg, axis=1)
     lo = np.where(first_pos > 0, freq[np.maximum(first_pos - 1, 0)], np.nan)
@@ -383,11 +400,8 @@ def cutoff_frequency_hz(
         mid = np.sqrt(lo * hi)
         below = excess(mid[:, None])[:, 0] < 0
         lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
-    out = np.sqrt(lo * hi)
-    out = np.where(neg.all(axis=1), freq[-1], out)
-    out = np.where(~neg[:, 0] & (g < 0), 0.0, out)  # |G| R_s >= 1: never negative
-    ok = (g < 0) & np.isfinite(c) & (c > 0)
-    return np.where(ok, out, np.nan).reshape(np.shape(ndr_conductance_s_cm2))
+    out = np.where(neg.all(axis=1), freq[-1], np.sqrt(lo * hi))
+    return np.where(~neg[:, 0] & (g < 0), 0.0, out)  # |G| R_s >= 1: never negative
 
 
 def device_quantities(metrics: dict[str, np.ndarray], *, area_um2: float) -> dict[str, np.ndarray]:
