@@ -127,9 +127,10 @@ Departures from [2]_, each stated:
    2026-12-04 ``2 e_w / w_eff`` (``w_eff = w + 1/kappa_1 + 1/kappa_2``), a box's
    ``dE/dw`` that ignores the mass step and the well's shape: at zero bias on the
    reference devices it overstated the width 1.1 (GaAs/AlGaAs) to 2.8 times
-   (In0.53Ga0.47As/AlAs with an InAs insert), and their PVCR by up to 2 times. Phonons: ``Gamma_LO = 2 alpha hbar w_LO`` with the Frohlich
-   constant ``alpha = (e^2 / 4 pi eps0 hbar) sqrt(m_w / 2 hbar w_LO)
-   (1/eps_inf - 1/eps_s)`` of the well material [10]_ (the bulk emission rate
+   (In0.53Ga0.47As/AlAs with an InAs insert), and their PVCR by up to 2 times.
+   Phonons: ``Gamma_LO = 2 alpha hbar w_LO`` with the Frohlich constant
+   ``alpha = (e^2 / 4 pi eps0 hbar) sqrt(m_w / 2 hbar w_LO) (1/eps_inf - 1/eps_s)`` of the
+   well material [10]_ (the bulk emission rate
    well above threshold, from memory; a 2-D state's rate is of the same
    order). Alloy disorder (about 0.5 meV in an In0.53Ga0.47As well, estimate
    from [11]_) and ionised impurities (the well is undoped) are neglected.
