@@ -1521,11 +1521,43 @@ done:
 }
 
 /* ---- the well's interface slopes (physics/scattering.py: _interface_slopes_ev_nm) ----
-   -dE_n/dz_i at the well's two interfaces from psi shot through the well's slices at E_n,
+   -dE_n/dz_i at the well's two interfaces from psi shot through the well's slices at E_n
+   from each interface in turn,
    the same arithmetic as the numpy statement (which stays the reference and the fallback;
    a test compares the two). par per entry: first, last (well slices), has, U_b1, m_b1,
    U_b2, m_b2. */
 enum { S_FIRST, S_LAST, S_HAS, S_UB1, S_MB1, S_UB2, S_MB2, SLOPE_P };
+
+/* -dE/dz at the interface a shot starts from: psi shot through the slices s0, s0 + step, ...
+   (count of them) from that interface's barrier (U_a, m_a) towards the other's (U_b, m_b) */
+static double shot_slope(double e_n, double hb2, const double *er, const double *mr,
+                         const double *wr, Py_ssize_t s0, Py_ssize_t step, Py_ssize_t count,
+                         double u_a, double m_a, double u_b, double m_b)
+{
+    const double k1 = sqrt(m_a * max_numpy(u_a - e_n, 1e-3) / hb2);
+    const double k2 = sqrt(m_b * max_numpy(u_b - e_n, 1e-3) / hb2);
+    double psi = 1.0, flux = k1 / m_a, norm = 0.5 / k1;
+    for (Py_ssize_t i = 0; i < count; i++) {
+        const Py_ssize_t s = s0 + i * step;
+        const double d = wr[s], m = mr[s];
+        if (!(d > 0.0)) continue;
+        const double k2s = m * (e_n - er[s]) / hb2;
+        const double q = sqrt(fabs(k2s)), qd = q * d;
+        const int up = k2s >= 0.0;
+        const double c = up ? cos(qd) : cosh(qd);
+        const double sn = qd > 1e-8 ? (up ? sin(qd) : sinh(qd)) / (q > 1e-300 ? q : 1e-300) : d;
+        const double x2 = k2s * d * d;
+        const double odd = fabs(x2) < 1e-3 ? d * d * d * (1.0 / 3.0 - x2 / 15.0)
+                                           : (d - sn * c) / (2.0 * k2s);
+        const double slope = m * flux;
+        norm += psi * psi * 0.5 * (d + sn * c) + slope * slope * odd + psi * slope * sn * sn;
+        const double psi_next = c * psi + sn * slope;
+        flux = (-k2s * sn * psi + c * slope) / m;
+        psi = psi_next;
+    }
+    norm += psi * psi * 0.5 / k2;
+    return ((e_n - er[s0]) + mr[s0] / m_a * (u_a - e_n)) / norm;
+}
 
 static void interface_slopes(Py_ssize_t n_rows, Py_ssize_t n_slices, Py_ssize_t n_states,
                              double hb2, const double *energy, const double *par,
@@ -1537,34 +1569,14 @@ static void interface_slopes(Py_ssize_t n_rows, Py_ssize_t n_slices, Py_ssize_t 
         const double *er = edge + r * n_slices, *mr = mass + r * n_slices,
                      *wr = width + r * n_slices;
         const Py_ssize_t first = (Py_ssize_t)p[S_FIRST], last = (Py_ssize_t)p[S_LAST];
-        const Py_ssize_t stop = p[S_HAS] != 0.0 ? last : first - 1;
+        const Py_ssize_t count = p[S_HAS] != 0.0 ? last - first + 1 : 0;
         for (Py_ssize_t l = 0; l < n_states; l++) {
             const double e_n = energy[r * n_states + l];
-            const double k1 = sqrt(p[S_MB1] * max_numpy(p[S_UB1] - e_n, 1e-3) / hb2);
-            const double k2 = sqrt(p[S_MB2] * max_numpy(p[S_UB2] - e_n, 1e-3) / hb2);
-            double psi = 1.0, flux = k1 / p[S_MB1], norm = 0.5 / k1;
-            for (Py_ssize_t s = first; s <= stop; s++) {
-                const double d = wr[s], m = mr[s];
-                if (!(d > 0.0)) continue;
-                const double k2s = m * (e_n - er[s]) / hb2;
-                const double q = sqrt(fabs(k2s)), qd = q * d;
-                const int up = k2s >= 0.0;
-                const double c = up ? cos(qd) : cosh(qd);
-                const double sn = qd > 1e-8 ? (up ? sin(qd) : sinh(qd)) / (q > 1e-300 ? q : 1e-300) : d;
-                const double x2 = k2s * d * d;
-                const double odd = fabs(x2) < 1e-3 ? d * d * d * (1.0 / 3.0 - x2 / 15.0)
-                                                   : (d - sn * c) / (2.0 * k2s);
-                const double slope = m * flux;
-                norm += psi * psi * 0.5 * (d + sn * c) + slope * slope * odd + psi * slope * sn * sn;
-                const double psi_next = c * psi + sn * slope;
-                flux = (-k2s * sn * psi + c * slope) / m;
-                psi = psi_next;
-            }
-            norm += psi * psi * 0.5 / k2;
-            const double psi1 = 1.0 / norm, psi2 = psi * psi / norm;
             double *o = out + 2 * (r * n_states + l);
-            o[0] = psi1 * ((e_n - er[first]) + mr[first] / p[S_MB1] * (p[S_UB1] - e_n));
-            o[1] = psi2 * ((e_n - er[last]) + mr[last] / p[S_MB2] * (p[S_UB2] - e_n));
+            o[0] = shot_slope(e_n, hb2, er, mr, wr, first, 1, count, p[S_UB1], p[S_MB1], p[S_UB2],
+                              p[S_MB2]);
+            o[1] = shot_slope(e_n, hb2, er, mr, wr, last, -1, count, p[S_UB2], p[S_MB2], p[S_UB1],
+                              p[S_MB1]);
         }
     }
 }

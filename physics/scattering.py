@@ -267,9 +267,9 @@ def _interface_slopes_ev_nm(energy_ev, geo, *, edge, mass, width, compiled=True)
     the Hellmann-Feynman theorem for the BenDaniel-Duke Hamiltonian, ``psi`` and
     ``psi'/m`` continuous; ``U``, ``m`` of the well's and the barrier's slices next to the
     interface; for equal masses ``Delta U |psi(z_i)|^2``). ``psi`` is shot through the
-    well's slices at ``E_n`` (``cos``/``sin`` or ``cosh``/``sinh`` in each), starting from
-    the barrier's decaying tail ``exp(kappa_1 (z - z_1))``, and normalised over the well
-    and both tails (``|psi(z_i)|^2 / (2 kappa_i)``, barriers thick against ``1/kappa``).
+    well's slices at ``E_n`` (``cos``/``sin`` or ``cosh``/``sinh`` in each) from each
+    interface in turn, starting from that barrier's decaying tail, and normalised over the
+    well and both tails (``|psi(z_i)|^2 / (2 kappa_i)``, barriers thick against ``1/kappa``).
     The numpy statement, or the same arithmetic compiled (``_slices.c``:
     ``interface_slopes``). Checked against the derivative of the finite well's level and
     of a well with an insert (tests)."""
@@ -305,7 +305,27 @@ def _interface_slopes_ev_nm(energy_ev, geo, *, edge, mass, width, compiled=True)
 def _shoot_through_well(energy, par, edge, mass, width):
     """:func:`_interface_slopes_ev_nm`'s numpy statement: ``par`` ``(..., 7)`` per entry holds
     the well's first and last slice, whether it has a well, and the band edge and mass of
-    the two barriers' slices next to it; ``energy`` ``(..., L)``."""
+    the two barriers' slices next to it; ``energy`` ``(..., L)``. Each interface's value
+    comes from ``psi`` shot from that interface (from the other one, an error of ``E_n``
+    against the thick-barrier level grows across the well: 15 % on a 14 nm well whose level
+    is known to 1e-5 eV)."""
+    n = edge.shape[-1]
+    first, last = par[..., 0].astype(int), par[..., 1].astype(int)
+    mirror = par[..., [0, 1, 2, 5, 6, 3, 4]].copy()  # the other side's barrier first
+    mirror[..., 0], mirror[..., 1] = n - 1 - last, n - 1 - first
+    flip = lambda a: a[..., ::-1]  # noqa: E731
+    return np.stack(
+        [
+            _shoot_from_first(energy, par, edge, mass, width),
+            _shoot_from_first(energy, mirror, flip(edge), flip(mass), flip(width)),
+        ],
+        axis=-1,
+    )
+
+
+def _shoot_from_first(energy, par, edge, mass, width):
+    """``-dE_n/dz`` at the interface before the well's first slice (``par`` as
+    :func:`_shoot_through_well`'s), ``psi`` shot from there through the well."""
     n = edge.shape[-1]
     first, last = par[..., 0].astype(int), par[..., 1].astype(int)
     has = par[..., 2] != 0.0
@@ -315,8 +335,7 @@ def _shoot_through_well(energy, par, edge, mass, width):
     inside = (idx <= last[..., None]) & has[..., None]
     e_s, m_s, d_s = _take_last(np.minimum(idx, n - 1), edge, mass, width)
     d_s = np.where(inside, d_s, 0.0)  # beyond the well: no width, no change
-    u_w1, m_w1 = _take_last(first[..., None], edge, mass)
-    u_w2, m_w2 = _take_last(last[..., None], edge, mass)
+    u_w, m_w = _take_last(first[..., None], edge, mass)
     k1 = _kappa(m_b1, u_b1 - energy)
     k2 = _kappa(m_b2, u_b2 - energy)
     psi = np.ones(energy.shape)
@@ -344,10 +363,7 @@ def _shoot_through_well(energy, par, edge, mass, width):
         psi, slope = c * psi + sn * slope, -k2s * sn * psi + c * slope
         flux = np.where(d > 0.0, slope / m, flux)
     norm = norm + psi * psi * 0.5 / k2
-    psi1, psi2 = 1.0 / norm, psi * psi / norm
-    s1 = psi1 * ((energy - u_w1) + m_w1 / m_b1 * (u_b1 - energy))
-    s2 = psi2 * ((energy - u_w2) + m_w2 / m_b2 * (u_b2 - energy))
-    return np.stack([s1, s2], axis=-1)
+    return ((energy - u_w) + m_w / m_b1 * (u_b1 - energy)) / norm
 
 
 def _interface_factor(k_over_m, kappa_over_m):
