@@ -425,7 +425,7 @@ _CLAIMED = (TrialState.COMPLETE, TrialState.RUNNING)
 
 
 def _copied(out: _Outcome, source: int | None) -> _Outcome:
-    """A duplicate design's outcome: ``out`` with ``duplicate_of`` (set later when None)."""
+    """A duplicate design's outcome: ``out`` with ``duplicate_of`` (set when stored when None)."""
     attrs = {k: v for k, v in out.attrs.items() if k not in ("worker", "duplicate_of")}
     if source is not None:
         attrs["duplicate_of"] = source
@@ -597,7 +597,8 @@ class _Worker:
         """Outcomes of a batch: new designs evaluated in one call, known ones copied.
 
         Also returns the copies of designs first seen earlier in this batch
-        (index -> index of the first), whose ``duplicate_of`` is set once stored.
+        (index -> index of the first, earlier in the batch), whose ``duplicate_of`` is the
+        first's trial number, written with the row.
         """
         keys = [self.study.parameter_key(p) for p in params]
         first: dict[tuple, int] = {}
@@ -645,15 +646,18 @@ class _Worker:
         t0 = time.perf_counter()
         ids: list[int] = []
         try:
-            for trial, out in zip(asked, outcomes, strict=True):
+            for k, (trial, out) in enumerate(zip(asked, outcomes, strict=True)):
+                if k in twins:  # its first is stored already (earlier in the batch): its number
+                    # goes in with the row, so no other worker counts the row as a new design
+                    first = self.storage.get_trial_number_from_id(ids[twins[k]])
+                    out = _Outcome(
+                        out.values, out.constraints, {**out.attrs, "duplicate_of": first}
+                    )
                 ids.append(
                     self.storage.create_new_trial(
                         self.study_id, template_trial=self._template(trial, out)
                     )
                 )
-            for i, j in twins.items():
-                number = self.storage.get_trial_number_from_id(ids[j])
-                self.storage.set_trial_user_attr(ids[i], "duplicate_of", number)
             kept = self._within_total(ids)
             for k, (trial_id, out) in enumerate(zip(ids, outcomes, strict=True)):
                 if not kept[k]:
