@@ -255,15 +255,15 @@ def _kappa(mass_m0, height_ev):
     return np.sqrt(mass_m0 * np.maximum(height_ev, 1e-3) / HBAR2_2M0_EV_NM2)
 
 
-def _effective_width_nm(energy_ev, geo, well_nm):
-    """``w_eff = w + 1/kappa_1 + 1/kappa_2`` of states at ``energy_ev`` ``(..., L)`` (note 5)
-    and the box energy ``hbar^2 pi^2 / (2 m_w w_eff^2)`` of that width, eV."""
+def _box_energy_ev(energy_ev, geo, well_nm):
+    """The box energy ``hbar^2 pi^2 / (2 m_w w_eff^2)`` (eV) of the effective width
+    ``w_eff = w + 1/kappa_1 + 1/kappa_2`` of states at ``energy_ev`` ``(..., L)`` (note 6)."""
     ex = lambda a: np.asarray(a)[..., None]  # noqa: E731
     k1 = _kappa(ex(geo.mass_at[..., 1]), ex(geo.edge_at[..., 1]) - energy_ev)
     k2 = _kappa(ex(geo.mass_at[..., 2]), ex(geo.edge_at[..., 2]) - energy_ev)
     w_eff = well_nm + 1.0 / k1 + 1.0 / k2
     m_w = np.maximum(ex(geo.well_mass_m0), 1e-6)  # (0 where the stack has no well)
-    return w_eff, HBAR2_2M0_EV_NM2 / m_w * (np.pi / w_eff) ** 2
+    return HBAR2_2M0_EV_NM2 / m_w * (np.pi / w_eff) ** 2
 
 
 def _interface_slopes_ev_nm(energy_ev, geo, *, edge, mass, width, compiled=True):
@@ -783,7 +783,7 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
         & (center > lo[..., None])
         & (center < hi[..., None])
         & geo.has[..., None]
-        & (e_w >= CONFINED_SHARE * _effective_width_nm(center, geo, well_nm)[1])
+        & (e_w >= CONFINED_SHARE * _box_energy_ev(center, geo, well_nm))
     )
     # the lowest states (the tallest peaks need not be the lowest)
     order = np.argsort(np.where(valid, center, np.inf), axis=-1)[..., : params.n_states]
