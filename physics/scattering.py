@@ -95,9 +95,14 @@ Departures from [2]_, each stated:
    to the collector dominates).
 4. *Widths.* ``Gamma_R`` and ``Gamma_L`` at ``E_n`` come from the line's
    peak and width: ``T_p = 4 Gamma_L Gamma_R / Gamma^2`` has two roots; the
-   one assigned to the collector is the one whose barrier is the more
-   transparent by a WKB estimate [9]_. A state below the emitter band edge
-   does not show in the device's ``T(E)``; it is found in a copy of the
+   larger is assigned to the lead whose barrier is the more transparent by a WKB
+   estimate [9]_ on the probe's line (below), and on a device line matched to a probe
+   state the root nearer the probe's ``Gamma_R`` goes to the collector (the two profiles
+   differ on the source side only). Until 2026-12-04 the WKB rule decided on device lines
+   too: as a state behind the thinner barrier neared the emitter edge, where its
+   ``Gamma_L`` vanishes, the larger root went to the emitter, ``Gamma_R`` fell 30 times
+   and the current dipped 3 times (an InGaAs/AlAsSb stack, tested). A state below the
+   emitter band edge does not show in the device's ``T(E)``; it is found in a copy of the
    profile whose emitter side (every slice before the first barrier) is
    lowered to the collector's band edge. ``Gamma_L(z)`` away from ``E_n``
    follows the emitter barrier's WKB transparency with the interface factor
@@ -744,12 +749,16 @@ def _lead_coupling(z, lead_edges, lead_mass, barrier: _Barrier, edge, mass, widt
     return out
 
 
-def _split_widths(peak, width, tau_l, tau_r):
+def _split_widths(peak, width, tau_l, tau_r, drain_ev=None):
     """``(Gamma_L, Gamma_R)`` from ``T_p = 4 G_L G_R / G^2``, ``G = G_L + G_R``; the larger to
-    the lead whose WKB coupling ``tau`` is larger."""
+    the lead whose WKB coupling ``tau`` is larger or, where ``drain_ev`` (a known
+    ``Gamma_R``) is given and finite, the root nearer it (by ratio) to the drain."""
     root = np.sqrt(np.clip(1.0 - peak, 0.0, 1.0))
     big, small = 0.5 * width * (1.0 + root), 0.5 * width * (1.0 - root)
     left_big = tau_l >= tau_r
+    if drain_ev is not None:  # small * big >= drain^2: the small root is the nearer one
+        known = np.isfinite(drain_ev) & (drain_ev > 0)
+        left_big = np.where(known, small * big >= drain_ev**2, left_big)
     return np.where(left_big, big, small), np.where(left_big, small, big)
 
 
@@ -865,11 +874,16 @@ def _state_widths(
         )
     )
     tau_l = np.where(matched, tau_l_dev, tau_l_probe)
-    gamma_l, gamma_r = _split_widths(peak_c, width_c, tau_l, tau_r)
+    # the probe's line (its source side lowered, its drain side the device's) sets which root
+    # of a matched line is the drain's: near the emitter edge the device line's Gamma_L
+    # vanishes while the WKB estimate still calls the thinner barrier the more transparent
+    gamma_l_probe, gamma_r_probe = _split_widths(probe[1], probe[0], tau_l_probe, tau_r)
+    gamma_l, gamma_r = _split_widths(
+        peak_c, width_c, tau_l, tau_r, drain_ev=np.where(matched, gamma_r_probe, np.nan)
+    )
     scale = gamma_l / np.maximum(tau_l, 1e-300)  # Gamma_L(z) = scale tau_L(z)
     # near the emitter edge the device line's width stops following tau_L (note 4): its
     # scale is mixed with the probe's, the line's own only some kT above the edge
-    gamma_l_probe, _ = _split_widths(probe[1], probe[0], tau_l_probe, tau_r)
     scale_probe = gamma_l_probe / np.maximum(tau_l_probe, 1e-300)
     trust = np.where(matched, -np.expm1(-np.maximum(e_n, 0.0) / kt[..., None]), 0.0)
     both = matched & (scale > 0) & (scale_probe > 0)
