@@ -114,15 +114,20 @@ Departures from [2]_, each stated:
    1 without a layer). Until 2026-12-03 ``k`` was the emitter's ``k_0``; the scale that
    the device's own line then gave rose 2.5 to 6 times as a state neared the emitter
    edge, against the probe's, and inflated the peak current there (a test compares the
-   two scales). Nearer the edge than a few ``kT`` the device line's width no longer follows
-   ``tau_L``'s wave number: the scale ``Gamma_L / tau_L`` a matched line gives is mixed
-   geometrically with the probe line's, with the weight ``1 - exp(-E_n / kT)`` on the
-   device's (this project's choice; the probe's scale is set where the lowered emitter's
-   ``k`` is large). Until 2026-12-04 the device line's scale was taken alone wherever the
-   line was matched: on an InAs/AlSb stack (12.4 nm well, 361 K) it rose from 0.71 at
-   13 meV above the edge to 3.22 at 0.42 meV, against the probe's 0.66 just below, and the
-   current spiked to 3.8 times the coherent one at one bias between 2.3 and 10 times
-   (tested). ``Gamma_R`` is held constant across the line.
+   two scales). Near the edge the device line's width no longer follows ``tau_L``'s wave
+   number: the scale ``Gamma_L / tau_L`` a matched line gives is mixed geometrically with
+   the probe line's, with the weight ``1 - exp(-E_n / (kT + Gamma_t / 2))`` on the
+   device's: the line's own scale counts where the energies the channel samples about the
+   state (the supply's ``kT``, the line's half width) lie above the edge (this project's
+   choice; the probe's scale is set where the lowered emitter's ``k`` is large). Until
+   2026-12-04 the device line's scale was taken alone wherever the line was matched: on an
+   InAs/AlSb stack (12.4 nm well, 361 K) it rose from 0.71 at 13 meV above the edge to 3.22
+   at 0.42 meV, against the probe's 0.66 just below, and the current spiked to 3.8 times
+   the coherent one at one bias between 2.3 and 10 times (tested); then, the same day,
+   the weight took ``kT`` alone: on a GaAs/AlAs stack (2.7 nm well, 53 K, a roughness
+   width of 0.14 eV) the line's scale, 0.02 against the probe's 0.33 8 meV above the edge,
+   held until a few meV from it and the current rose 14 times in 15 mV (tested).
+   ``Gamma_R`` is held constant across the line.
 5. *Rates.* ``Gamma_s = Gamma_IFR``: the state's width in the coherent
    reduction and the Lorentzian of the elastic couplings is the roughness
    width alone, the one whose entries match it (note 3). Interface roughness, both
@@ -882,19 +887,21 @@ def _state_widths(
         peak_c, width_c, tau_l, tau_r, drain_ev=np.where(matched, gamma_r_probe, np.nan)
     )
     scale = gamma_l / np.maximum(tau_l, 1e-300)  # Gamma_L(z) = scale tau_L(z)
+    kinetic = _kinetic_ev(e_n, geo, edge=edge, width=width)
+    g_ifr, g_lo, floor2, bose = scattering_widths_ev(
+        e_n, geo, edge=edge, mass=mass, width=width, kinetic=kinetic, kt_ev=kt, params=params
+    )
     # near the emitter edge the device line's width stops following tau_L (note 4): its
-    # scale is mixed with the probe's, the line's own only some kT above the edge
+    # scale is mixed with the probe's, the line's own only where the energies the channel
+    # samples about the state (its supply's kT and its line's half width) lie above the edge
     scale_probe = gamma_l_probe / np.maximum(tau_l_probe, 1e-300)
-    trust = np.where(matched, -np.expm1(-np.maximum(e_n, 0.0) / kt[..., None]), 0.0)
+    spread = kt[..., None] + 0.5 * (width_c + g_ifr)
+    trust = np.where(matched, -np.expm1(-np.maximum(e_n, 0.0) / spread), 0.0)
     both = matched & (scale > 0) & (scale_probe > 0)
     mixed = trust * np.log(np.where(both, scale, 1.0))
     mixed += (1.0 - trust) * np.log(np.where(both, scale_probe, 1.0))
     line_scale, scale = scale, np.where(both, np.exp(mixed), scale)
     gamma_coh = np.where(matched, width_c, scale * tau_l_dev + gamma_r)
-    kinetic = _kinetic_ev(e_n, geo, edge=edge, width=width)
-    g_ifr, g_lo, floor2, bose = scattering_widths_ev(
-        e_n, geo, edge=edge, mass=mass, width=width, kinetic=kinetic, kt_ev=kt, params=params
-    )
     return {
         "e_n": e_n,
         "gamma_r": gamma_r,

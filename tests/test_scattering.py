@@ -706,3 +706,29 @@ def test_no_dip_where_a_state_crosses_the_emitter_edge_behind_a_thinner_barrier(
     assert drain.max() < 1.2 * drain.min()
     ratio = j[1:-1] / np.sqrt(j[:-2] * j[2:])
     assert np.all(np.abs(np.log(ratio)) < np.log(1.1)), (bias[1:-1], np.round(ratio, 3))
+
+
+def test_no_rise_of_a_broad_state_across_the_emitter_edge():
+    """Near the emitter edge a matched line's own scale ``Gamma_L / tau_L`` is mixed with
+    the probe's (note 4) over the energies the channel samples about the state: its supply's
+    ``kT`` and its line's half width. On a stack of the wide scan (GaAs/AlAs, 2.7 nm well,
+    7.8e18 cm^-3, 53 K; seed 32, stack 194 of ``tests/test_default_model_scan.py``'s draws,
+    invented layers as drawn), after the well's charge collapses (0.900-0.905 V) the state
+    (roughness width 0.14 eV) crosses the emitter edge 8 meV above it. With the mixing over
+    ``kT`` (4.5 meV) alone the line's scale (0.02, against the probe's 0.33) held until within
+    a few meV of the edge, and the current rose 14 times in 15 mV (4.9 to 70 kA/cm^2;
+    measured; this test failed). Checked: neighbours at 5 mV steps within a factor 1.2
+    (common practice: a smooth valley side; measured after: at most 1.12)."""
+    stack = _scan_stack(
+        ("GaAs", "AlAs"),
+        (5.650288332856169, 1.9802633000046101, 2.6924623042791733, 2.270739731208806,
+         7.078231362884806),
+        (7.843992558781921e18, 1.1977225618693808e19),
+        52.51954500231996,
+    )  # fmt: skip
+    bias = np.linspace(0.905, 0.94, 8)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the X-valley and grid-accuracy warnings: not tested
+        j = current_at_bias(stack.table(), bias, model=stack.model)[0]
+    step = j[1:] / j[:-1]
+    assert np.all(np.abs(np.log(step)) < np.log(1.2)), (bias[1:], np.round(step, 3))
