@@ -387,6 +387,7 @@ def _coupling_scales(table, bias, model):
             kt,
             rest[0],
             (gamma_p, peak_p),
+            rest[2],
         )
         both = matched & (probe["scale"] > 0)
         pairs.extend(zip(out["line_scale"][both], probe["scale"][both], e_n[both], strict=True))
@@ -732,3 +733,52 @@ def test_no_rise_of_a_broad_state_across_the_emitter_edge():
         j = current_at_bias(stack.table(), bias, model=stack.model)[0]
     step = j[1:] / j[:-1]
     assert np.all(np.abs(np.log(step)) < np.log(1.2)), (bias[1:], np.round(step, 3))
+
+
+def _onset_steps(stack, bias):
+    """Ratios of neighbouring currents of ``stack`` (default model) over ``bias``."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the X-valley and grid-accuracy warnings: not tested
+        j = np.abs(current_at_bias(stack.table(), bias, model=stack.model)[0])
+    return j[1:] / j[:-1]
+
+
+def test_a_broad_state_above_the_energy_window_sets_in_smoothly():
+    """The probe searches for states up to the lower barrier's inner edge, above the energy
+    window too (note 6): a broad state above the window reaches into it with its line's tail.
+    On a stack of the wide scan (GaAs/AlAs, 0.76 nm barriers, 2.8 nm well, 70 K; seed 50,
+    stack 89 of ``tests/test_default_model_scan.py``'s draws, invented layers as drawn) the
+    state (0.18 eV, 44 meV wide, roughness width 0.1 eV) entered the window (30 kT above the
+    Fermi level) at 0.157 V and the current rose 11.6 times between 0.1545 and 0.1600 V
+    (measured; this test failed). Checked: neighbours at 5.5 mV steps within a factor 1.1
+    (common practice: no step where nothing in the device changes; measured after: 1.03)."""
+    stack = _scan_stack(
+        ("GaAs", "AlAs"),
+        (3.545784775865409, 0.7626838461152492, 2.814328586388453, 0.7626838461152492,
+         2.311827094121726),
+        (1.4760260463534912e17, 1.6837186100825117e17),
+        69.90704009057413,
+    )  # fmt: skip
+    step = _onset_steps(stack, np.linspace(0.116, 0.182, 13))
+    assert np.all(np.abs(np.log(step)) < np.log(1.1)), np.round(step, 3)
+
+
+def test_a_state_near_the_barrier_top_fades_into_the_channel():
+    """A state takes the scattering rates in full from two widths below the lower barrier's
+    inner edge and none within one (a smoothstep between; note 6). On a stack of the wide
+    scan (GaAs/Al0.54Ga0.46As, 1.3 nm barriers, 1.55 nm well, 2.3e18 cm^-3, 230 K; seed 50,
+    stack 46, invented layers as drawn) the state, 0.13 eV wide, came within its width of
+    the barrier's edge below 0.035 V, and the channel switched on at full strength between
+    0.030 and 0.0375 V: the current rose 7.1 times (measured; this test failed). Checked:
+    neighbours at 7.5 mV steps from 0.0075 V within a factor 2.1 (the coherent current rises
+    twofold from 0.0075 to 0.015 V; measured after: 2.02, 1.52, 1.35 and falling, as the
+    coherent current's)."""
+    stack = _scan_stack(
+        ("GaAs", "Al0.54Ga0.46As"),
+        (0.9547587439456413, 1.2955659529268932, 1.5484940657122652, 1.3293186647742912,
+         7.3007148375560575),
+        (2.2748225120437786e18, 2.441492986846145e18),
+        229.97064768767862,
+    )  # fmt: skip
+    step = _onset_steps(stack, np.linspace(0.0075, 0.06, 8))
+    assert np.all(step < 2.1), np.round(step, 3)
