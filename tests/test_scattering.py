@@ -782,3 +782,26 @@ def test_a_state_near_the_barrier_top_fades_into_the_channel():
     )  # fmt: skip
     step = _onset_steps(stack, np.linspace(0.0075, 0.06, 8))
     assert np.all(step < 2.1), np.round(step, 3)
+
+
+def test_no_step_where_the_wkb_couplings_of_the_two_barriers_cross():
+    """Where no device line fixes the drain's root (a state below the emitter edge), the
+    probe's two roots go to the leads by the WKB couplings' ratio ``rho = tau_L / tau_R``,
+    with the share ``1 / (1 + rho^-6)`` of the larger-to-the-emitter assignment (geometric
+    mixing, the product ``Gamma_L Gamma_R`` and so ``T_p`` kept; note 4). On a stack of the
+    wide scan (In0.53Ga0.47As/AlAs, 1.80 and 1.95 nm barriers, 11.1 nm well, 152 K; seed 50,
+    stack 84, invented layers as drawn) the two estimates cross in the valley while the
+    line's roots differ 4.4 times: ``Gamma_R`` went from 1.0e-5 to 4.4e-5 eV between 0.580
+    and 0.585 V and the current fell 3.2 times (measured; this test failed). Checked:
+    neighbours at 5 mV steps within a factor 1.1 (common practice: a smooth valley;
+    measured after: at most 1.07)."""
+    stack = _scan_stack(
+        ("In0.53Ga0.47As", "AlAs"),
+        (3.3949622737056937, 1.7956819625127718, 11.05708269136326, 1.9455229502121956,
+         4.92249729044008),
+        (9.01335342263624e17, 6.192792648073275e17),
+        152.1735862110339,
+        substrate="InP",
+    )  # fmt: skip
+    step = _onset_steps(stack, np.linspace(0.55, 0.61, 13))
+    assert np.all(np.abs(np.log(step)) < np.log(1.1)), np.round(step, 3)
