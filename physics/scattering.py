@@ -130,8 +130,12 @@ Departures from [2]_, each stated:
    the coherent one at one bias between 2.3 and 10 times (tested); then, the same day,
    the weight took ``kT`` alone: on a GaAs/AlAs stack (2.7 nm well, 53 K, a roughness
    width of 0.14 eV) the line's scale, 0.02 against the probe's 0.33 8 meV above the edge,
-   held until a few meV from it and the current rose 14 times in 15 mV (tested).
-   ``Gamma_R`` is held constant across the line.
+   held until a few meV from it and the current rose 14 times in 15 mV (tested). The
+   matched line's drain width is mixed with the probe's by the same weight (until
+   2026-12-04 the line's own: 2.4 meV above the edge of a GaAs/AlGaAs stack neither of its
+   roots was near the probe's drain width, the nearer one flipped between neighbouring
+   biases and the current spiked 1.24 times; tested). ``Gamma_R`` is held constant across
+   the line.
 5. *Rates.* ``Gamma_s = Gamma_IFR``: the state's width in the coherent
    reduction and the Lorentzian of the elastic couplings is the roughness
    width alone, the one whose entries match it (note 3). Interface roughness, both
@@ -899,6 +903,14 @@ def _bound_share(center, gamma, top):
     return np.where(np.isfinite(t), t * t * (3.0 - 2.0 * t), 1.0)
 
 
+def _towards_probe(trust, line, probe, matched):
+    """``line^trust probe^(1 - trust)`` where ``matched`` and both are positive, else ``line``."""
+    both = matched & (line > 0) & (probe > 0)
+    mixed = trust * np.log(np.where(both, line, 1.0))
+    mixed += (1.0 - trust) * np.log(np.where(both, probe, 1.0))
+    return np.where(both, np.exp(mixed), line)
+
+
 def _state_widths(
     edge, mass, width, geo, barriers, e_n, width_c, peak_c, matched, kt, params, probe, bound
 ):
@@ -930,16 +942,15 @@ def _state_widths(
         e_n, geo, edge=edge, mass=mass, width=width, kinetic=kinetic, kt_ev=kt, params=params
     )
     g_ifr, g_lo = bound * g_ifr, bound * g_lo
-    # near the emitter edge the device line's width stops following tau_L (note 4): its
-    # scale is mixed with the probe's, the line's own only where the energies the channel
+    # near the emitter edge the device line is no clean line (note 4): its scale and drain
+    # width are mixed with the probe's, the line's own only where the energies the channel
     # samples about the state (its supply's kT and its line's half width) lie above the edge
     scale_probe = gamma_l_probe / np.maximum(tau_l_probe, 1e-300)
     spread = kt[..., None] + 0.5 * (width_c + g_ifr)
-    trust = np.where(matched, -np.expm1(-np.maximum(e_n, 0.0) / spread), 0.0)
-    both = matched & (scale > 0) & (scale_probe > 0)
-    mixed = trust * np.log(np.where(both, scale, 1.0))
-    mixed += (1.0 - trust) * np.log(np.where(both, scale_probe, 1.0))
-    line_scale, scale = scale, np.where(both, np.exp(mixed), scale)
+    trust = -np.expm1(-np.maximum(e_n, 0.0) / spread)
+    line_scale = scale
+    scale = _towards_probe(trust, scale, scale_probe, matched)
+    gamma_r = _towards_probe(trust, gamma_r, gamma_r_probe, matched)
     gamma_coh = np.where(matched, width_c, scale * tau_l_dev + gamma_r)
     return {
         "e_n": e_n,

@@ -805,3 +805,29 @@ def test_no_step_where_the_wkb_couplings_of_the_two_barriers_cross():
     )  # fmt: skip
     step = _onset_steps(stack, np.linspace(0.55, 0.61, 13))
     assert np.all(np.abs(np.log(step)) < np.log(1.1)), np.round(step, 3)
+
+
+def test_no_spike_where_a_matched_line_near_the_emitter_edge_is_no_clean_line():
+    """A device line within a few ``kT`` (and half widths) of the emitter edge is no clean
+    Breit-Wigner line: its drain width, like its scale, is mixed with the probe's (note 4).
+    On a stack of the wide scan (GaAs/Al0.54Ga0.46As, 2.76 and 1.98 nm barriers, 13.4 nm
+    well, 4.2e18 cm^-3, 181 K, reverse bias; seed 52, stack 51, invented layers as drawn),
+    2.4 meV above the edge neither root of the device line was near the probe's drain width
+    (4.7e-4 and about 2e-6 eV against 2.5e-5): the nearer one by ratio, 4.7e-4, went to the
+    drain at -0.430 V and 2.4e-6 at -0.425 V, and the current spiked to 1.24 times its
+    neighbours' mean at -0.430 V (measured; this test failed). Checked: each sample at 5 mV
+    steps within 5 % of its neighbours' geometric mean (common practice: no isolated spike;
+    measured after: within 2.6 %)."""
+    stack = _scan_stack(
+        ("GaAs", "Al0.54Ga0.46As"),
+        (4.329535144806863, 2.762453369043886, 13.356013267421154, 1.975306370532046,
+         0.3021529535847527),
+        (4.159215347400868e18, 6.825277504472547e18),
+        181.3432512839054,
+    )  # fmt: skip
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the X-valley and grid-accuracy warnings: not tested
+        bias = np.linspace(-0.445, -0.42, 6)
+        j = np.abs(current_at_bias(stack.table(), bias, model=stack.model)[0])
+    ratio = j[1:-1] / np.sqrt(j[:-2] * j[2:])
+    assert np.all(np.abs(np.log(ratio)) < np.log(1.05)), np.round(ratio, 3)
