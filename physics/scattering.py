@@ -791,10 +791,15 @@ def _split_widths(peak, width, tau_l, tau_r, drain_ev=None):
     if drain_ev is not None:  # small * big >= drain^2: the small root is the nearer one
         known = np.isfinite(drain_ev) & (drain_ev > 0)
         left_big = np.where(known, small * big >= drain_ev**2, left_big)
-    log_big, log_small = np.log(np.maximum(big, 1e-300)), np.log(np.maximum(small, 1e-300))
-    gamma_l = np.exp(left_big * log_big + (1.0 - left_big) * log_small)
-    gamma_r = np.exp(left_big * log_small + (1.0 - left_big) * log_big)
-    return gamma_l, gamma_r
+    big, small = np.maximum(big, 1e-300), np.maximum(small, 1e-300)
+    return _geometric_mix(left_big, big, small), _geometric_mix(left_big, small, big)
+
+
+def _geometric_mix(weight, a, b):
+    """``a^weight b^(1 - weight)`` of positive ``a``, ``b``."""
+    mixed = weight * np.log(a)
+    mixed += (1.0 - weight) * np.log(b)
+    return np.exp(mixed)
 
 
 def _find_states(edge, mass, alpha, width, geo, top, high, params):
@@ -908,9 +913,9 @@ def _bound_share(center, gamma, top):
 def _towards_probe(trust, line, probe, matched):
     """``line^trust probe^(1 - trust)`` where ``matched`` and both are positive, else ``line``."""
     both = matched & (line > 0) & (probe > 0)
-    mixed = trust * np.log(np.where(both, line, 1.0))
-    mixed += (1.0 - trust) * np.log(np.where(both, probe, 1.0))
-    return np.where(both, np.exp(mixed), line)
+    return np.where(
+        both, _geometric_mix(trust, np.where(both, line, 1.0), np.where(both, probe, 1.0)), line
+    )
 
 
 def _state_widths(
