@@ -120,10 +120,12 @@ Departures from [2]_, each stated:
    edge, against the probe's, and inflated the peak current there (a test compares the
    two scales). Near the edge the device line's width no longer follows ``tau_L``'s wave
    number: the scale ``Gamma_L / tau_L`` a matched line gives is mixed geometrically with
-   the probe line's, with the weight ``1 - exp(-E_n / (kT + Gamma_t / 2))`` on the
-   device's: the line's own scale counts where the energies the channel samples about the
-   state (the supply's ``kT``, the line's half width) lie above the edge (this project's
-   choice; the probe's scale is set where the lowered emitter's ``k`` is large). Until
+   the probe line's, with the weight ``1 - exp(-(E_n - w) / (kT + Gamma_t / 2))`` on the
+   device's (0 below ``w``, the larger of the probe's and the line's widths, the matching
+   threshold: so the weight is 0 where the line stops being matched): the line's own scale
+   counts where the energies the channel samples about the state (the supply's ``kT``, the
+   line's half width) lie above the edge (this project's choice; the probe's scale is set
+   where the lowered emitter's ``k`` is large). Until
    2026-12-04 the device line's scale was taken alone wherever the line was matched: on an
    InAs/AlSb stack (12.4 nm well, 361 K) it rose from 0.71 at 13 meV above the edge to 3.22
    at 0.42 meV, against the probe's 0.66 just below, and the current spiked to 3.8 times
@@ -134,8 +136,11 @@ Departures from [2]_, each stated:
    matched line's drain width is mixed with the probe's by the same weight (until
    2026-12-04 the line's own: 2.4 meV above the edge of a GaAs/AlGaAs stack neither of its
    roots was near the probe's drain width, the nearer one flipped between neighbouring
-   biases and the current spiked 1.24 times; tested). ``Gamma_R`` is held constant across
-   the line.
+   biases and the current spiked 1.24 times; tested). Until later that day the weight
+   counted ``E_n`` from the edge, not from the matching threshold: it was 0.29 where a 15 meV
+   wide line stopped being matched, and the current stepped 1.58 times (an InGaAs/AlAs
+   stack with 3 ML barriers; tested; 1.13 now, from the line's own width in the coherent
+   part). ``Gamma_R`` is held constant across the line.
 5. *Rates.* ``Gamma_s = Gamma_IFR``: the state's width in the coherent
    reduction and the Lorentzian of the elastic couplings is the roughness
    width alone, the one whose entries match it (note 3). Interface roughness, both
@@ -951,10 +956,11 @@ def _state_widths(
     g_ifr, g_lo = bound * g_ifr, bound * g_lo
     # near the emitter edge the device line is no clean line (note 4): its scale and drain
     # width are mixed with the probe's, the line's own only where the energies the channel
-    # samples about the state (its supply's kT and its line's half width) lie above the edge
+    # samples about the state (its supply's kT and its line's half width) lie above the
+    # matching threshold (the widths), so that the weight is 0 where matching stops
     scale_probe = gamma_l_probe / np.maximum(tau_l_probe, 1e-300)
     spread = kt[..., None] + 0.5 * (width_c + g_ifr)
-    trust = -np.expm1(-np.maximum(e_n, 0.0) / spread)
+    trust = -np.expm1(-np.maximum(e_n - np.maximum(probe[0], width_c), 0.0) / spread)
     line_scale = scale
     scale = _towards_probe(trust, scale, scale_probe, matched)
     gamma_r = _towards_probe(trust, gamma_r, gamma_r_probe, matched)
