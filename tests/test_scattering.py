@@ -641,6 +641,19 @@ def test_interface_slope_over_random_wells(seed):
     np.testing.assert_allclose(got[0, 0], expect, rtol=0.015)
 
 
+def _scan_currents(stack, bias):
+    """``|J|`` of ``stack`` (its own model) over ``bias``, A/cm^2."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the X-valley and grid-accuracy warnings: not tested
+        return np.abs(current_at_bias(stack.table(), bias, model=stack.model)[0])
+
+
+def _onset_steps(stack, bias):
+    """Ratios of neighbouring currents of ``stack`` (its own model) over ``bias``."""
+    j = _scan_currents(stack, bias)
+    return j[1:] / j[:-1]
+
+
 def test_no_spike_where_a_line_reaches_the_emitter_edge_from_above():
     """Where a matched line nears the emitter edge its own scale ``Gamma_L / tau_L`` rises
     (note 4); the channel mixes it with the probe's within a few kT of the edge. On a stack
@@ -659,9 +672,7 @@ def test_no_spike_where_a_line_reaches_the_emitter_edge_from_above():
         substrate="InAs",
     )  # fmt: skip
     bias = np.linspace(-0.2233, -0.1638, 21)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # the X-valley and grid-accuracy warnings: not tested
-        j = np.abs(current_at_bias(stack.table(), bias, model=stack.model)[0])
+    j = _scan_currents(stack, bias)
     print(np.round(j, 2))
     spike = j[1:-1] > 1.5 * np.maximum(j[:-2], j[2:])
     assert not spike.any(), bias[1:-1][spike]
@@ -728,19 +739,8 @@ def test_no_rise_of_a_broad_state_across_the_emitter_edge():
         52.51954500231996,
     )  # fmt: skip
     bias = np.linspace(0.905, 0.94, 8)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # the X-valley and grid-accuracy warnings: not tested
-        j = current_at_bias(stack.table(), bias, model=stack.model)[0]
-    step = j[1:] / j[:-1]
+    step = _onset_steps(stack, bias)
     assert np.all(np.abs(np.log(step)) < np.log(1.2)), (bias[1:], np.round(step, 3))
-
-
-def _onset_steps(stack, bias):
-    """Ratios of neighbouring currents of ``stack`` (default model) over ``bias``."""
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # the X-valley and grid-accuracy warnings: not tested
-        j = np.abs(current_at_bias(stack.table(), bias, model=stack.model)[0])
-    return j[1:] / j[:-1]
 
 
 def test_a_broad_state_above_the_energy_window_sets_in_smoothly():
@@ -825,10 +825,7 @@ def test_no_spike_where_a_matched_line_near_the_emitter_edge_is_no_clean_line():
         (4.159215347400868e18, 6.825277504472547e18),
         181.3432512839054,
     )  # fmt: skip
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # the X-valley and grid-accuracy warnings: not tested
-        bias = np.linspace(-0.445, -0.42, 6)
-        j = np.abs(current_at_bias(stack.table(), bias, model=stack.model)[0])
+    j = _scan_currents(stack, np.linspace(-0.445, -0.42, 6))
     ratio = j[1:-1] / np.sqrt(j[:-2] * j[2:])
     assert np.all(np.abs(np.log(ratio)) < np.log(1.05)), np.round(ratio, 3)
 
