@@ -34,9 +34,12 @@ runs' designs cost the same (the 2-worker run's physics share scaled by the rati
 ``--workers-only`` runs only the 1- and 2-worker searches and prints, for
 each, the CPU seconds with the worker processes' start and per evaluated
 design, and the speed-up two free cores would allow at that CPU cost (the
-wall-time ratio depends on what else the machine runs).
+wall-time ratio depends on what else the machine runs). With ``--sampler random``
+both runs draw their designs from the same distribution whatever the results (the
+study's random sampler), so that over hundreds of trials a design costs the same in
+both on average and the raw wall-time ratio measures the workers alone.
 
-Usage: ``python benchmarks/bench_search.py [--quick] [--workers-only]``
+Usage: ``python benchmarks/bench_search.py [--quick] [--workers-only [--sampler random]]``
 """
 
 from __future__ import annotations
@@ -193,8 +196,9 @@ def _cpu_with_children() -> float:
     return me.ru_utime + me.ru_stime + kids.ru_utime + kids.ru_stime
 
 
-def search(trials: int, workers: int, tmp: Path) -> dict:
-    study = parse_study(STUDY, name=f"search_w{workers}")
+def search(trials: int, workers: int, tmp: Path, sampler: str = "tpe") -> dict:
+    spec = {**STUDY, "search": {**STUDY["search"], "sampler": sampler}}
+    study = parse_study(spec, name=f"search_w{workers}")
     start = datetime.datetime.now()
     with StatementCounter() as sql:
         t0, cpu0 = time.perf_counter(), _cpu_with_children()
@@ -306,16 +310,16 @@ def _print_threads() -> None:
     print(f"threads: {values} ({source})")
 
 
-def _workers_only(n: int) -> int:
+def _workers_only(n: int, sampler: str) -> int:
     """The 2-worker target alone: the search with 1 and 2 workers, in turn, one run."""
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
     load = os.getloadavg()[0]
     _print_threads()
     with tempfile.TemporaryDirectory() as tmp:
-        one, two = search(n, 1, Path(tmp)), search(n, 2, Path(tmp))
+        one, two = search(n, 1, Path(tmp), sampler), search(n, 2, Path(tmp), sampler)
     print(
-        f"\n{n} trials, SQLite; load average at the start {load:.2f}, at the end "
+        f"\n{n} trials, {sampler} sampler, SQLite; load average at the start {load:.2f}, at the end "
         f"{os.getloadavg()[0]:.2f}"
     )
     for r in (one, two):
@@ -345,10 +349,19 @@ def main(argv: list[str] | None = None) -> int:
         action="store_true",
         help="only the 1- and 2-worker searches (the 2-worker target), side by side",
     )
+    p.add_argument(
+        "--sampler",
+        choices=("tpe", "random"),
+        default="tpe",
+        help="with --workers-only: the study's sampler (random: the same design distribution "
+        "in both runs)",
+    )
     args = p.parse_args(argv)
     n = 100 if args.quick else 500
     if args.workers_only:
-        return _workers_only(n)
+        return _workers_only(n, args.sampler)
+    if args.sampler != "tpe":
+        p.error("--sampler applies to --workers-only")
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
 
