@@ -25,8 +25,9 @@ environment sets none (:func:`wellwright.optimize.cli.thread_defaults`).
 Targets (issue 15): search >= 5x the plain loop's trials/s at 500 trials,
 physics >= 50 % of the search's wall time, 2 workers >= 1.7x one.
 
-The two runs' samplers choose different designs (the 2-worker searches of this study
-settled in another region of the space, of dearer designs, in every run measured), and a
+The two runs' samplers choose different designs (with the seed used here the 2-worker
+search settles in another optimum of the study, of dearer designs; over seeds 1-5 either
+run can, see the README's Benchmarks), and a
 design's physics costs 50-200 ms depending on the stack: the designs of each run are therefore evaluated again in this process, the runs
 taking turns batch by batch, and the speed-up is also printed as it would be had both
 runs' designs cost the same (the 2-worker run's physics share scaled by the ratio).
