@@ -1021,14 +1021,13 @@ def _energy_nodes(st, high_ev, supply_top_ev, params):
     b = np.arcsinh((e_hi - e_n) / half)
     mid, rad = 0.5 * (a + b), 0.5 * (b - a)
     about = e_n[..., None] + half[..., None] * np.sinh(mid[..., None] + rad[..., None] * s)
-    geometric = _GEOMETRIC_EV
     nodes = np.concatenate(
         [
             e_lo[..., None] + (e_mid - e_lo)[..., None] * dense,
             e_mid[..., None] + (e_hi - e_mid)[..., None] * tail,
             about,
-            np.broadcast_to(geometric, e_n.shape + geometric.shape),
-            -hw[..., None] + geometric,
+            np.broadcast_to(_GEOMETRIC_EV, e_n.shape + _GEOMETRIC_EV.shape),
+            -hw[..., None] + _GEOMETRIC_EV,
         ],
         axis=-1,
     )

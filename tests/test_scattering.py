@@ -240,25 +240,37 @@ def test_channel_stays_on_in_the_cold():
     assert np.all(np.abs(np.diff(np.log(channel))) < np.log(1.3))
 
 
-def _double_barrier(contact, barrier, layers_nm, doping_cm3, temperature_k):
-    """Emitter, spacer, barrier, well, barrier, spacer, collector on InP (invented numbers)."""
+def _scan_stack(materials, layers_nm, doping_cm3, temperature_k, substrate=None, model=None):
+    """A double barrier of the wide random scan over material systems (seeded draws of
+    ``tests/test_grid_random_stacks.py``'s ``random_stack`` with the default model;
+    invented layers, as drawn)."""
+    contact, barrier = materials
     names = ("spacer1", "barrier1", "well", "barrier2", "spacer2")
-    materials = (contact, barrier, contact, barrier, contact)
-    inner = [
+    mats = (contact, barrier, contact, barrier, contact)
+    layers = [{"name": "emitter", "material": contact, "doping_cm3": doping_cm3[0]}]
+    layers += [
         {"name": n, "material": m, "thickness_nm": t}
-        for n, m, t in zip(names, materials, layers_nm, strict=True)
+        for n, m, t in zip(names, mats, layers_nm, strict=True)
     ]
-    return parse_stack(
-        {
-            "temperature_k": temperature_k,
-            "substrate": "InP",
-            "layers": [
-                {"name": "emitter", "material": contact, "doping_cm3": doping_cm3[0]},
-                *inner,
-                {"name": "collector", "material": contact, "doping_cm3": doping_cm3[1]},
-            ],
-            "model": {"electrostatics": "linear", "transport": "scattering-assisted"},
-        }
+    layers.append({"name": "collector", "material": contact, "doping_cm3": doping_cm3[1]})
+    data = {"temperature_k": temperature_k, "layers": layers}
+    if substrate:
+        data["substrate"] = substrate
+    if model:
+        data["model"] = model
+    return parse_stack(data, source="scan")
+
+
+def _double_barrier(contact, barrier, layers_nm, doping_cm3, temperature_k):
+    """Emitter, spacer, barrier, well, barrier, spacer, collector on InP (invented numbers),
+    linear drop with the scattering-assisted channel."""
+    return _scan_stack(
+        (contact, barrier),
+        layers_nm,
+        doping_cm3,
+        temperature_k,
+        substrate="InP",
+        model={"electrostatics": "linear", "transport": "scattering-assisted"},
     )
 
 
@@ -430,27 +442,6 @@ def test_emitter_coupling_agrees_with_the_exact_lines():
     assert r.size > 200
     assert 0.8 <= np.percentile(r, 5) and np.percentile(r, 95) <= 1.25
     assert 0.4 <= r.min() and r.max() <= 2.5
-
-
-def _scan_stack(materials, layers_nm, doping_cm3, temperature_k, substrate=None, model=None):
-    """A double barrier of the wide random scan over material systems (seeded draws of
-    ``tests/test_grid_random_stacks.py``'s ``random_stack`` with the default model;
-    invented layers, as drawn)."""
-    contact, barrier = materials
-    names = ("spacer1", "barrier1", "well", "barrier2", "spacer2")
-    mats = (contact, barrier, contact, barrier, contact)
-    layers = [{"name": "emitter", "material": contact, "doping_cm3": doping_cm3[0]}]
-    layers += [
-        {"name": n, "material": m, "thickness_nm": t}
-        for n, m, t in zip(names, mats, layers_nm, strict=True)
-    ]
-    layers.append({"name": "collector", "material": contact, "doping_cm3": doping_cm3[1]})
-    data = {"temperature_k": temperature_k, "layers": layers}
-    if substrate:
-        data["substrate"] = substrate
-    if model:
-        data["model"] = model
-    return parse_stack(data, source="scan")
 
 
 def test_no_channel_through_lines_that_are_not_states_of_the_well():
