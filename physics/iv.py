@@ -416,7 +416,10 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     the well's charge collapses between them, or a narrow line passes the
     emitter edge), onto the interval between the two alone (8 times narrower a
     round instead of 4; not at a valley, whose neighbour on the NDR side is
-    steep but no cliff). A peak on the edge of a current cliff therefore takes
+    steep but no cliff). A cliff round computes no vertex (a parabola through a
+    fallen sample says nothing of the top) and ends the refinement only by its
+    bracket. A
+    peak on the edge of a current cliff therefore takes
     a few rounds, a smooth one only one. The better of the vertex and the
     best sample is kept, so the result is always a computed current, never
     an extrapolation (a parabola overshoots at a kink). A best sample on the
@@ -445,14 +448,23 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
         v = center[idx, None] + half[idx, None] * offsets
         j = sgn[:, None] * sub.current(v, model, grid, keep=keep)
         top = np.argmax(j, axis=1)
+        # a cliff beside the best sample: the extremum lies between the best point and the
+        # fallen neighbour; a parabola through a fallen sample says nothing of the top, so
+        # its vertex is not computed there
+        side = np.where(peaks[idx], _cliff_side(j, top), 0)
+        cliff = side != 0
         pick = np.clip(top, 1, REFINE_POINTS - 2)[:, None] + np.array([-1, 0, 1])
         x3, j3 = v[rows[:, None], pick], j[rows[:, None], pick]
         offset, curvature, lowest = parabola_through(x3, -j3)
         vertex = x3[:, 1] + offset
-        j_vertex = sgn * sub.current(vertex[:, None], model, grid, keep=keep)[:, 0]
+        j_vertex = np.full(idx.size, -np.inf)
+        fit = np.nonzero(~cliff)[0]
+        if fit.size:
+            at = sub if fit.size == idx.size else sub.take(fit)
+            j_vertex[fit] = sgn[fit] * at.current(vertex[fit, None], model, grid, keep=keep)[:, 0]
         better = j_vertex >= j[rows, top]
         if keep:
-            _keep_best(kept, keep, idx, better, top)
+            _keep_best(kept, keep, idx, better, top, fit)
             keep.clear()
         center[idx] = np.where(better, vertex, v[rows, top])
         best[idx] = np.maximum(j_vertex, j[rows, top])
@@ -467,16 +479,15 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
         drop_j[idx] = np.where(nearer, sgn * j[rows, first], drop_j[idx])
         edge = (top == 0) | (top == REFINE_POINTS - 1)
         half[idx] = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
-        # a cliff beside the best sample: the extremum lies between the best point and the
-        # fallen neighbour, so the next round spans only that interval
-        side = np.where(peaks[idx], _cliff_side(j, top), 0)
-        cliff = side != 0
+        # at a cliff the next round spans only the interval to the fallen neighbour
         if np.any(cliff):
             best_v, across = center[idx], v[rows, np.clip(top + side, 0, REFINE_POINTS - 1)]
             center[idx] = np.where(cliff, 0.5 * (best_v + across), best_v)
             half[idx] = np.where(cliff, 0.5 * np.abs(across - best_v), half[idx])
-        smooth = (curvature > 0) & (
-            np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(best[idx])
+        smooth = (
+            ~cliff
+            & (curvature > 0)
+            & (np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(best[idx]))
         )
         open_[idx] = ~((smooth & ~edge) | (half[idx] < REFINE_BIAS_TOLERANCE_V))
     return center, sign * best, drop_v, drop_j, (kept if keep is not None else None)
@@ -495,14 +506,14 @@ def _cliff_side(j, top):
     return np.where(up & ~down, 1, np.where(down & ~up, -1, 0))
 
 
-def _keep_best(kept, solves, idx, better, top):
+def _keep_best(kept, solves, idx, better, top, fit):
     """Record in ``kept`` (per extremum) the solve at this round's best point of each
-    extremum ``idx``: the vertex's (``solves[1]``) where ``better``, else the best
-    sample's (``solves[0]``, column ``top``)."""
-    (g_s, s_s), (g_v, s_v) = solves
+    extremum ``idx``: the vertex's (``solves[1]``, made for the extrema ``fit`` only) where
+    ``better``, else the best sample's (``solves[0]``, column ``top``)."""
+    (g_s, s_s), *vertex = solves
     for e, i in enumerate(idx):
         if better[e]:
-            g, sol, row, col = g_v, s_v, e, 0
+            (g, sol), row, col = vertex[0], int(np.searchsorted(fit, e)), 0
         else:
             g, sol, row, col = g_s, s_s, e, int(top[e])
         kept[i] = (
