@@ -102,7 +102,12 @@ Departures from [2]_, each stated:
    not decide; until 2026-12-04 they decided outright, and where they crossed while the roots
    differed 4.4 times the current fell 3.2 times in one 5 mV step, an InGaAs/AlAs stack,
    tested). On a device line matched to a probe state the root nearer the probe's
-   ``Gamma_R`` goes to the collector (the two profiles differ on the source side only). Until 2026-12-04 the WKB rule decided on device lines
+   ``Gamma_R`` goes to the collector (the two profiles differ on the source side only).
+   A matched line's width and peak are the device's ``T`` at its centre and at its
+   half-maximum points, as the probe's are; until 2026-12-04 they were the coherent line
+   search's fit, whose width on lines 15-25 meV wide moved 10 % (and whose peak went to
+   its clipped 1.0) where the fit's start crossed a coarse node, and the current stepped
+   8-15 % in 0.2 mV (two stacks, tested). Until 2026-12-04 the WKB rule decided on device lines
    too: as a state behind the thinner barrier neared the emitter edge, where its
    ``Gamma_L`` vanishes, the larger root went to the emitter, ``Gamma_R`` fell 30 times
    and the current dipped 3 times (an InGaAs/AlAsSb stack, tested). A state below the
@@ -833,7 +838,7 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     # shows on the coarse grid only as a small maximum of its tails, below the upper lines)
     k = params.n_states + 2
     center, gamma, peak, valid = grid_maxima(grid, profile=probe, n_max=k, n_first=k)
-    gamma = _half_maximum_width(center, gamma, peak, valid, probe)
+    gamma, peak = _half_maximum_width(center, gamma, peak, valid, probe)
     e_w, well_nm = _kinetic_ev(center, geo, edge=edge, width=width)
     valid &= (
         np.isfinite(gamma)
@@ -850,30 +855,40 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     return center, gamma, peak, valid
 
 
-def _half_maximum_width(center, gamma, peak, valid, probe):
+def _half_maximum_width(center, gamma, peak, valid, profile, *, peak_at_center=False):
     """Widths of the lines ``center`` (fitted width ``gamma``, peak ``peak``) from ``T`` at
     ``center +- gamma / 2``: on each side the Lorentzian through the peak and that point,
-    ``2 d / sqrt(T_p / T(E_n + d) - 1)``, the two sides averaged.
+    ``2 d / sqrt(T_p / T(E_n + d) - 1)``, the two sides averaged. With ``peak_at_center``
+    the peak is ``T`` computed at ``center`` (in the same call), for lines whose ``peak`` is
+    a fit's value. Returns the widths and the peaks.
 
     The fit's width is the curvature of 1/T over its last bracket, whose spacing depends on
     the refinement's path; near the band edge a state's line is not Lorentzian, and that
     width moved by 2 % with rounding-level changes of ``T`` (a stack swept alone or beside
-    others). At the half-maximum points the width of a near-Lorentzian line depends on the
-    fit only to second order. Exact for a Lorentzian.
+    others); a broad line (15 to 25 meV) moved by 10 % where its refinement's start moved
+    across a coarse node, and its fitted peak (the parabola's, clipped at 1) with it
+    (module note 4). At the half-maximum points the width of a near-Lorentzian line depends
+    on the fit only to second order. Exact for a Lorentzian.
     """
     ok = valid & np.isfinite(gamma) & (gamma > 0) & np.isfinite(peak) & (peak > 0)
     if not ok.any():
-        return gamma
+        return gamma, peak
     where = np.nonzero(ok)
     d = 0.5 * gamma[where]
-    energy = center[where][:, None] + d[:, None] * np.array([-1.0, 1.0])
-    t = transmission_rows(energy, profile=probe, rows=where[:-1])
-    ratio = peak[where][:, None] / np.maximum(t, 1e-300) - 1.0
+    steps = np.array([-1.0, 0.0, 1.0]) if peak_at_center else np.array([-1.0, 1.0])
+    energy = center[where][:, None] + d[:, None] * steps
+    t = transmission_rows(energy, profile=profile, rows=where[:-1])
+    at_peak = t[:, 1] if peak_at_center else peak[where]
+    if peak_at_center:
+        t = t[:, ::2]
+    ratio = at_peak[:, None] / np.maximum(t, 1e-300) - 1.0
     side = np.where(ratio > 0, 2.0 * d[:, None] / np.sqrt(np.maximum(ratio, 1e-300)), np.nan)
     width = 0.5 * (side[:, 0] + side[:, 1])  # np.mean's numbers
-    out = gamma.copy()
-    out[where] = np.where(np.isfinite(width) & (width > 0), width, gamma[where])
-    return out
+    out, out_peak = gamma.copy(), np.array(peak, dtype=float, copy=True)
+    good = np.isfinite(width) & (width > 0)
+    out[where] = np.where(good, width, gamma[where])
+    out_peak[where] = np.where(good, at_peak, peak[where])
+    return out, out_peak
 
 
 def _match_lines(e_n, gamma_p, peak_p, valid, lines, top):
@@ -1255,6 +1270,17 @@ def sequential_fluxes_ev2(
     top = np.minimum(geo.edge_at[..., 1], geo.edge_at[..., 2])
     e_p, gamma_p, peak_p, valid = _find_states(edge, mass, alpha, width, geo, top, high_ev, params)
     e_n, width_c, peak_c, matched = _match_lines(e_p, gamma_p, peak_p, valid, lines, top)
+    # a matched line's width and peak as the probe's: T at its centre and half-maximum points
+    device = Profile(
+        edge_ev=edge,
+        mass_m0=mass,
+        nonparabolicity_per_ev=alpha,
+        width_nm=width,
+        layer_index=np.arange(edge.shape[-1]),
+    )
+    width_c, peak_c = _half_maximum_width(
+        e_n, width_c, peak_c, matched, device, peak_at_center=True
+    )
     barriers = _barriers(geo)
     st = _state_widths(
         edge,

@@ -844,6 +844,52 @@ def test_no_step_where_a_line_stops_being_matched():
     assert np.all(np.abs(np.log(step)) < np.log(1.2)), np.round(step, 3)
 
 
+#: Two stacks of the wide scan (seed 80 of ``tests/test_default_model_scan.py``'s draws,
+#: stacks 39 and 49, invented layers as drawn) whose matched line is 15 and 23 meV wide:
+#: (stack, biases across the bias where its width's fit moved)
+BROAD_LINES = {
+    "InP/InAlAs 183 K": (
+        _scan_stack(
+            ("InP", "In0.52Al0.48As"),
+            (3.6361638361085658, 3.9045490804706753, 1.9037523925044122, 4.438476153310469,
+             3.4491852737489705),
+            (9.299679393503443e17, 1.535446124247088e18),
+            182.61127986601196,
+            substrate="InP",
+        ),
+        np.linspace(0.1146, 0.1158, 7),
+    ),
+    "GaAs/AlGaAs 150 K": (
+        _scan_stack(
+            ("GaAs", "Al0.56Ga0.44As"),
+            (7.366743009729093, 1.8471244612440199, 2.476998283232162, 1.8471244612440199,
+             1.291122412762942),
+            (3.364883564271426e18, 2.5950124781593723e18),
+            150.12814668552934,
+        ),
+        np.linspace(0.0285, 0.0320, 8),
+    ),
+}  # fmt: skip
+
+
+@pytest.mark.parametrize("case", sorted(BROAD_LINES))
+def test_no_step_where_a_broad_lines_fit_moves(case):
+    """A matched line's width and peak are taken as the probe's are, from ``T`` computed at
+    its centre and its half-maximum points (note 4). Taken from the coherent line search's
+    fit (the curvature of 1/T over its last bracket, whose start moves with the coarse
+    grid's nodes), a broad line's width moved by 10 % between neighbouring biases (16.1 to
+    14.5 meV; 23.2 to 21.8 meV) and its peak went from 0.98 to the fit's clipped 1.0, so
+    the split of the width into its two leads' parts moved by a quarter and the current
+    fell 15 % (rose 12 % and fell 8 % on the second stack) within 0.2 mV, the coherent
+    current smooth (measured; this test failed). Common practice: nothing in either current
+    has structure on this scale. Checked: the channel's share of the current at each bias
+    within 2 % of the mean of its neighbours' (in log; measured after: at most 0.07 %)."""
+    stack, bias = BROAD_LINES[case]
+    off, channel, coherent = _share_off(stack, bias)
+    print(case, np.round(channel, 1), np.round(coherent, 1))
+    assert np.all(np.abs(off) < np.log(1.02)), np.round(off, 4)
+
+
 @pytest.mark.parametrize(
     "name, bias_v",
     [
