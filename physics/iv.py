@@ -417,10 +417,10 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     emitter edge), onto the interval between the two alone (8 times narrower a
     round instead of 4; not at a valley, whose neighbour on the NDR side is
     steep but no cliff). A cliff round computes no vertex (a parabola through a
-    fallen sample says nothing of the top) and ends the refinement only by its
-    bracket. A
-    peak on the edge of a current cliff therefore takes
-    a few rounds, a smooth one only one. The better of the vertex and the
+    fallen sample says nothing of the top) and ends the zoom only by its bracket
+    (a test on the currents there made a stack's Jp depend on its batch partners:
+    DEVELOPERS.md). A peak on the edge of a current cliff therefore takes a few
+    rounds, a smooth one only one. The better of the vertex and the
     best sample is kept, so the result is always a computed current, never
     an extrapolation (a parabola overshoots at a kink). A best sample on the
     bracket's edge moves the bracket without narrowing it. With the
