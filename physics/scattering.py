@@ -812,18 +812,24 @@ def _geometric_mix(weight, a, b):
     return np.exp(mixed)
 
 
-def _find_states(edge, mass, alpha, width, geo, top, high, params):
-    """Quasi-bound states of the profile with its source side lowered to the drain's edge:
-    lines below ``top`` (the lower barrier's inner edge) by more than their width."""
-    e_r = edge[..., -1]
-    lowered = np.where(geo.source, np.minimum(edge, e_r[..., None]), edge)
-    probe = Profile(
-        edge_ev=lowered,
+def _slices_profile(edge, mass, alpha, width) -> Profile:
+    """The :class:`Profile` of an oriented profile's slices (``(..., n)`` each), one layer a
+    slice."""
+    return Profile(
+        edge_ev=edge,
         mass_m0=mass,
         nonparabolicity_per_ev=alpha,
         width_nm=width,
         layer_index=np.arange(edge.shape[-1]),
     )
+
+
+def _find_states(edge, mass, alpha, width, geo, top, high, params):
+    """Quasi-bound states of the profile with its source side lowered to the drain's edge:
+    lines below ``top`` (the lower barrier's inner edge) by more than their width."""
+    e_r = edge[..., -1]
+    lowered = np.where(geo.source, np.minimum(edge, e_r[..., None]), edge)
+    probe = _slices_profile(lowered, mass, alpha, width)
     lo = np.maximum(e_r, geo.well_bottom_ev) + 1e-4
     hi = np.maximum(high, lo + 1e-3)
     # quadratic from the bottom, where the lowest state lies: a narrow line (tens of ueV) on a
@@ -1271,13 +1277,7 @@ def sequential_fluxes_ev2(
     e_p, gamma_p, peak_p, valid = _find_states(edge, mass, alpha, width, geo, top, high_ev, params)
     e_n, width_c, peak_c, matched = _match_lines(e_p, gamma_p, peak_p, valid, lines, top)
     # a matched line's width and peak as the probe's: T at its centre and half-maximum points
-    device = Profile(
-        edge_ev=edge,
-        mass_m0=mass,
-        nonparabolicity_per_ev=alpha,
-        width_nm=width,
-        layer_index=np.arange(edge.shape[-1]),
-    )
+    device = _slices_profile(edge, mass, alpha, width)
     width_c, peak_c = _half_maximum_width(
         e_n, width_c, peak_c, matched, device, peak_at_center=True
     )
