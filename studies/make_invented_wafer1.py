@@ -11,10 +11,10 @@ channel, its roughness at the default), the model ``wellwright calibrate``
 fits with the same file; the CSV names it in a comment line, and a test
 checks that it is still the default. ``wellwright calibrate
 studies/inp_thz_oscillator.toml --measured studies/inp_thz_wafer1_invented.csv``
-names the two layer errors (measured 2026-12-04: barrier1 6.00 ML, 95 % interval 5.97 to
-6.03; the well 14.00 ML, 13.96 to 14.05); the rate, which trades with the series
-resistance and the roughness, stays near its prior's nominal 1.00, its interval short of
-the true 1.02 (the README says what that does). Rerun with ``python studies/make_invented_wafer1.py``
+names the two layer errors (measured 2026-12-04: barrier1 5.99 ML, 95 % interval 5.96 to
+6.02; the well 14.00 ML, 13.96 to 14.05); the rate, which trades with the series
+resistance and the roughness, stays near its prior's nominal 1.00, its interval just short
+of the true 1.02 (the README says what that does). Rerun with ``python studies/make_invented_wafer1.py``
 after a change of the default model.
 """
 
