@@ -401,6 +401,42 @@ def _check_area_weights(area_weights, n_stacks: int) -> np.ndarray:
     return w
 
 
+@dataclass
+class _Brackets:
+    """:func:`_refine`'s state, per extremum: bracket centre and half span (V), best current
+    (``sign * J``), nearest fallen sample (bias and current), still open, and, for a cliff
+    round's bracket, its two known ends (biases and ``sign * J``, by bias); ``kept``: the
+    self-consistent solve at the best point (see :func:`_refine`)."""
+
+    center: np.ndarray
+    half: np.ndarray
+    best: np.ndarray
+    drop_v: np.ndarray
+    drop_j: np.ndarray
+    open_: np.ndarray
+    known: np.ndarray
+    ends_v: np.ndarray
+    ends_j: np.ndarray
+    kept: list
+
+    @classmethod
+    def start(cls, center_v, half_span_v) -> _Brackets:
+        center = np.array(center_v, float)
+        n = center.size
+        return cls(
+            center=center,
+            half=np.array(half_span_v, float),
+            best=np.full(n, -np.inf),
+            drop_v=np.full(n, np.inf),
+            drop_j=np.full(n, np.nan),
+            open_=np.ones(n, bool),
+            known=np.zeros(n, bool),
+            ends_v=np.zeros((n, 2)),
+            ends_j=np.zeros((n, 2)),
+            kept=[None] * n,
+        )
+
+
 def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
 
@@ -414,9 +450,12 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     best point with the sample spacing as its half span, or, where a neighbour
     of a peak's (``peaks``) best sample has fallen by :data:`NDR_DROP` (a cliff:
     the well's charge collapses between them, or a narrow line passes the
-    emitter edge), onto the interval between the two alone (8 times narrower a
-    round instead of 4; not at a valley, whose neighbour on the NDR side is
-    steep but no cliff). A cliff round computes no vertex (a parabola through a
+    emitter edge), onto the interval between the two alone (not at a valley,
+    whose neighbour on the NDR side is steep but no cliff): their currents are
+    known, so that round samples its :data:`REFINE_POINTS` new biases strictly
+    inside it (10 times narrower a round instead of 4; extrema with and without
+    known ends are computed in separate calls, so a stack's path does not depend
+    on its batch partners). A cliff round computes no vertex (a parabola through a
     fallen sample says nothing of the top) and ends the zoom only by its bracket
     (a test on the currents there made a stack's Jp depend on its batch partners:
     DEVELOPERS.md). A peak on the edge of a current cliff therefore takes a few
@@ -428,94 +467,114 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     (returned last: node positions, potential, electrons and well charge of its
     stack; None otherwise).
     """
-    center = np.array(center_v, float)
-    half = np.array(half_span_v, float)
-    best = np.full(center.size, -np.inf)
-    drop_v, drop_j = np.full(center.size, np.inf), np.full(center.size, np.nan)
-    open_ = np.ones(center.size, bool)
-    offsets = np.linspace(-1.0, 1.0, REFINE_POINTS)
-    # the self-consistent solve at each extremum's best point: (node positions, potential,
-    # electrons, well charge) of that stack, kept for the peak's own figures
-    kept: list = [None] * center.size
+    st = _Brackets.start(center_v, half_span_v)
     keep: list | None = (
         [] if devices.weights is None and model.electrostatics == "self-consistent" else None
     )
     for _ in range(REFINE_MAX_ROUNDS):
-        idx = np.nonzero(open_)[0]
+        idx = np.nonzero(st.open_)[0]
         if idx.size == 0:
             break
-        sub, sgn, rows = devices.take(idx), sign[idx], np.arange(idx.size)
-        v = center[idx, None] + half[idx, None] * offsets
+        # each group in its own calls, so that a row's path is its own
+        groups = ((idx[st.known[idx]], True), (idx[~st.known[idx]], False))
+        for group, ends in groups:
+            if group.size:
+                _refine_round(devices, model, grid, sign, peaks, st, keep, group, ends)
+    return st.center, sign * st.best, st.drop_v, st.drop_j, (st.kept if keep is not None else None)
+
+
+def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
+    """One round of :func:`_refine` for the extrema ``idx`` (state ``st``, updated in place),
+    all with known ends (``ends``) or none."""
+    n_points = REFINE_POINTS + 2 if ends else REFINE_POINTS
+    sub, sgn, rows = devices.take(idx), sign[idx], np.arange(idx.size)
+    v = st.center[idx, None] + st.half[idx, None] * np.linspace(-1.0, 1.0, n_points)
+    if ends:
+        v[:, 0], v[:, -1] = st.ends_v[idx, 0], st.ends_v[idx, 1]
+        j = np.empty(v.shape)
+        j[:, 1:-1] = sgn[:, None] * sub.current(v[:, 1:-1], model, grid, keep=keep)
+        j[:, 0], j[:, -1] = st.ends_j[idx, 0], st.ends_j[idx, 1]
+    else:
         j = sgn[:, None] * sub.current(v, model, grid, keep=keep)
-        top = np.argmax(j, axis=1)
-        # a cliff beside the best sample: the extremum lies between the best point and the
-        # fallen neighbour; a parabola through a fallen sample says nothing of the top, so
-        # its vertex is not computed there
-        side = np.where(peaks[idx], _cliff_side(j, top), 0)
-        cliff = side != 0
-        pick = np.clip(top, 1, REFINE_POINTS - 2)[:, None] + np.array([-1, 0, 1])
-        x3, j3 = v[rows[:, None], pick], j[rows[:, None], pick]
-        offset, curvature, lowest = parabola_through(x3, -j3)
-        vertex = x3[:, 1] + offset
-        j_vertex = np.full(idx.size, -np.inf)
-        fit = np.nonzero(~cliff)[0]
-        if fit.size:
-            at = sub if fit.size == idx.size else sub.take(fit)
-            j_vertex[fit] = sgn[fit] * at.current(vertex[fit, None], model, grid, keep=keep)[:, 0]
-        better = j_vertex >= j[rows, top]
-        if keep:
-            _keep_best(kept, keep, idx, better, top, fit)
-            keep.clear()
-        center[idx] = np.where(better, vertex, v[rows, top])
-        best[idx] = np.maximum(j_vertex, j[rows, top])
-        # the nearest sample above the extremum that lies NDR_DROP below it (used for peaks)
-        fallen = (v > center[idx, None]) & (
-            j < best[idx, None] - NDR_DROP * np.abs(best[idx, None])
-        )
-        first = np.argmax(fallen, axis=1)
-        v_fall = np.where(fallen.any(axis=1), v[rows, first], np.inf)
-        nearer = v_fall < drop_v[idx]
-        drop_v[idx] = np.where(nearer, v_fall, drop_v[idx])
-        drop_j[idx] = np.where(nearer, sgn * j[rows, first], drop_j[idx])
-        edge = (top == 0) | (top == REFINE_POINTS - 1)
-        half[idx] = np.where(edge, half[idx], half[idx] * 2.0 / (REFINE_POINTS - 1))
-        # at a cliff the next round spans only the interval to the fallen neighbour
-        if np.any(cliff):
-            best_v, across = center[idx], v[rows, np.clip(top + side, 0, REFINE_POINTS - 1)]
-            center[idx] = np.where(cliff, 0.5 * (best_v + across), best_v)
-            half[idx] = np.where(cliff, 0.5 * np.abs(across - best_v), half[idx])
-        smooth = (
-            ~cliff
-            & (curvature > 0)
-            & (np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(best[idx]))
-        )
-        open_[idx] = ~((smooth & ~edge) | (half[idx] < REFINE_BIAS_TOLERANCE_V))
-    return center, sign * best, drop_v, drop_j, (kept if keep is not None else None)
+    top = np.argmax(j, axis=1)
+    # a cliff beside the best sample: the extremum lies between the best point and the
+    # fallen neighbour; a parabola through a fallen sample says nothing of the top, so
+    # its vertex is not computed there
+    side = np.where(peaks[idx], _cliff_side(j, top), 0)
+    cliff = side != 0
+    pick = np.clip(top, 1, n_points - 2)[:, None] + np.array([-1, 0, 1])
+    x3, j3 = v[rows[:, None], pick], j[rows[:, None], pick]
+    offset, curvature, lowest = parabola_through(x3, -j3)
+    vertex = x3[:, 1] + offset
+    j_vertex = np.full(idx.size, -np.inf)
+    fit = np.nonzero(~cliff)[0]
+    if fit.size:
+        at = sub if fit.size == idx.size else sub.take(fit)
+        j_vertex[fit] = sgn[fit] * at.current(vertex[fit, None], model, grid, keep=keep)[:, 0]
+    better = j_vertex >= j[rows, top]
+    if keep:
+        # a known end as the best sample: the last round's solve there stays kept
+        _keep_best(st.kept, keep, idx, better, top, fit, shift=1 if ends else 0)
+        keep.clear()
+    st.center[idx] = np.where(better, vertex, v[rows, top])
+    st.best[idx] = np.maximum(j_vertex, j[rows, top])
+    # the nearest sample above the extremum that lies NDR_DROP below it (used for peaks)
+    fallen = (v > st.center[idx, None]) & (
+        j < st.best[idx, None] - NDR_DROP * np.abs(st.best[idx, None])
+    )
+    first = np.argmax(fallen, axis=1)
+    v_fall = np.where(fallen.any(axis=1), v[rows, first], np.inf)
+    nearer = v_fall < st.drop_v[idx]
+    st.drop_v[idx] = np.where(nearer, v_fall, st.drop_v[idx])
+    st.drop_j[idx] = np.where(nearer, sgn * j[rows, first], st.drop_j[idx])
+    edge = (top == 0) | (top == n_points - 1)
+    st.half[idx] = np.where(edge, st.half[idx], st.half[idx] * 2.0 / (n_points - 1))
+    # at a cliff the next round spans only the interval to the fallen neighbour
+    st.known[idx] = cliff
+    if np.any(cliff):
+        across = np.clip(top + side, 0, n_points - 1)
+        best_v, across_v = st.center[idx], v[rows, across]
+        st.center[idx] = np.where(cliff, 0.5 * (best_v + across_v), best_v)
+        st.half[idx] = np.where(cliff, 0.5 * np.abs(across_v - best_v), st.half[idx])
+        lo, hi = np.minimum(top, across), np.maximum(top, across)
+        st.ends_v[idx] = np.stack([v[rows, lo], v[rows, hi]], axis=1)
+        st.ends_j[idx] = np.stack([j[rows, lo], j[rows, hi]], axis=1)
+    smooth = (
+        ~cliff
+        & (curvature > 0)
+        & (np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(st.best[idx]))
+    )
+    st.open_[idx] = ~((smooth & ~edge) | (st.half[idx] < REFINE_BIAS_TOLERANCE_V))
 
 
 def _cliff_side(j, top):
-    """Per extremum of a refinement round (samples ``j``, ``(n, REFINE_POINTS)``, of
+    """Per extremum of a refinement round (samples ``j``, ``(n, n_points)``, of
     ``sign * J``; best sample ``top``): +1 where the next sample has fallen by
     :data:`NDR_DROP` below the best and the previous one has not (a cliff above it), -1
     for the mirror case, 0 otherwise (no cliff, or an isolated spike)."""
-    rows = np.arange(j.shape[0])
+    rows, last = np.arange(j.shape[0]), j.shape[1] - 1
     at = j[rows, top]
     gap = NDR_DROP * np.abs(at)
-    up = (top < REFINE_POINTS - 1) & (j[rows, np.minimum(top + 1, REFINE_POINTS - 1)] < at - gap)
+    up = (top < last) & (j[rows, np.minimum(top + 1, last)] < at - gap)
     down = (top > 0) & (j[rows, np.maximum(top - 1, 0)] < at - gap)
     return np.where(up & ~down, 1, np.where(down & ~up, -1, 0))
 
 
-def _keep_best(kept, solves, idx, better, top, fit):
+def _keep_best(kept, solves, idx, better, top, fit, shift=0):
     """Record in ``kept`` (per extremum) the solve at this round's best point of each
     extremum ``idx``: the vertex's (``solves[1]``, made for the extrema ``fit`` only) where
-    ``better``, else the best sample's (``solves[0]``, column ``top``)."""
+    ``better``, else the best sample's (``solves[0]``, column ``top - shift``; with ``shift``
+    1 the round's first and last samples were known ends, not solved: an end as the best
+    sample keeps what ``kept`` holds, the last round's solve there)."""
     (g_s, s_s), *vertex = solves
+    n_solved = s_s.potential_ev.shape[1]
     for e, i in enumerate(idx):
         if better[e]:
             (g, sol), row, col = vertex[0], int(np.searchsorted(fit, e)), 0
+        elif not 0 <= top[e] - shift < n_solved:
+            continue
         else:
-            g, sol, row, col = g_s, s_s, e, int(top[e])
+            g, sol, row, col = g_s, s_s, e, int(top[e]) - shift
         kept[i] = (
             g.center_nm[row],
             sol.potential_ev[row, col],

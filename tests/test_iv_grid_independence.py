@@ -79,8 +79,13 @@ def _against_hysteresis(path: Path, m: dict, step_v: float) -> None:
     assert inside.any() and np.all(up[inside] > 2.0 * down[inside])  # two branches
     beyond = bias > m["peak_voltage_up_v"] + step_v / 2
     assert np.allclose(up[beyond], down[beyond], rtol=1e-3)  # one branch again
-    # the refined up peak lies on the edge of the up branch's cliff, above the grid's best
-    assert m["peak_current_density_up_a_cm2"] >= up.max() * (1 - J_RTOL)
+    # the refined up peak lies on the edge of the up branch's cliff: the fold search stops
+    # within FOLD_TOLERANCE_V of the fold, so its peak is at least the grid's best that far
+    # below it. (Not the grid's best outright: on the narrow stack the branch's current rises
+    # 18 % within the last 0.25 mV before its fold, and a 3 uV shift of this grid moved its
+    # best from 517 to 438 A/cm^2; measured 2026-12-04.)
+    below = bias <= m["peak_voltage_up_v"] - FOLD_TOLERANCE_V
+    assert m["peak_current_density_up_a_cm2"] >= up[below].max() * (1 - J_RTOL)
     # the fold lies between the reference's last point on the up branch and its next one
     # (a continuation with finite steps leaves a branch up to one step before its fold)
     assert m["peak_voltage_up_v"] == pytest.approx(bias[np.argmax(up)], abs=2 * step_v)
