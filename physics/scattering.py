@@ -102,7 +102,10 @@ Departures from [2]_, each stated:
    not decide; until 2026-12-04 they decided outright, and where they crossed while the roots
    differed 4.4 times the current fell 3.2 times in one 5 mV step, an InGaAs/AlAs stack,
    tested). On a device line matched to a probe state the root nearer the probe's
-   ``Gamma_R`` goes to the collector (the two profiles differ on the source side only).
+   ``Gamma_R`` goes to the collector (the two profiles differ on the source side only),
+   the two assignments mixed as sharply as the WKB share where that width lies near the
+   roots' geometric mean (chosen outright until 2026-12-04: the current fell 13 % in 0.5 mV
+   where it passed between roots of 5.9 and 10 meV, an InP/InAlAs stack, tested).
    A matched line's width and peak are the device's ``T`` at its centre and at its
    half-maximum points, as the probe's are; until 2026-12-04 they were the coherent line
    search's fit, whose width on lines 15-25 meV wide moved 10 % (and whose peak went to
@@ -800,7 +803,12 @@ def _split_widths(peak, width, tau_l, tau_r, drain_ev=None):
     left_big = np.where(np.isfinite(left_big), left_big, (tau_l >= tau_r).astype(float))
     if drain_ev is not None:  # small * big >= drain^2: the small root is the nearer one
         known = np.isfinite(drain_ev) & (drain_ev > 0)
-        left_big = np.where(known, small * big >= drain_ev**2, left_big)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            # by ratio, as sharply as the WKB share: the two assignments mixed where the drain
+            # width lies near the roots' geometric mean
+            near = 1.0 / (1.0 + (drain_ev**2 / (small * big)) ** WKB_SHARPNESS)
+        near = np.where(np.isfinite(near), near, (small * big >= drain_ev**2).astype(float))
+        left_big = np.where(known, near, left_big)
     big, small = np.maximum(big, 1e-300), np.maximum(small, 1e-300)
     return _geometric_mix(left_big, big, small), _geometric_mix(left_big, small, big)
 
