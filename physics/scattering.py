@@ -798,19 +798,23 @@ def _split_widths(peak, width, tau_l, tau_r, drain_ev=None):
     given and finite, the root nearer it (by ratio) to the drain."""
     root = np.sqrt(np.clip(1.0 - peak, 0.0, 1.0))
     big, small = 0.5 * width * (1.0 + root), 0.5 * width * (1.0 - root)
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        left_big = 1.0 / (1.0 + (tau_r / tau_l) ** WKB_SHARPNESS)
-    left_big = np.where(np.isfinite(left_big), left_big, (tau_l >= tau_r).astype(float))
+    left_big = _larger_share(tau_l, tau_r)
     if drain_ev is not None:  # small * big >= drain^2: the small root is the nearer one
         known = np.isfinite(drain_ev) & (drain_ev > 0)
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            # by ratio, as sharply as the WKB share: the two assignments mixed where the drain
-            # width lies near the roots' geometric mean
-            near = 1.0 / (1.0 + (drain_ev**2 / (small * big)) ** WKB_SHARPNESS)
-        near = np.where(np.isfinite(near), near, (small * big >= drain_ev**2).astype(float))
-        left_big = np.where(known, near, left_big)
+        # by ratio, as sharply as the WKB share: the two assignments mixed where the drain
+        # width lies near the roots' geometric mean
+        left_big = np.where(known, _larger_share(small * big, drain_ev**2), left_big)
     big, small = np.maximum(big, 1e-300), np.maximum(small, 1e-300)
     return _geometric_mix(left_big, big, small), _geometric_mix(left_big, small, big)
+
+
+def _larger_share(a, b):
+    """``1 / (1 + (b / a)^WKB_SHARPNESS)`` of positive ``a``, ``b``: near 1 where ``a`` is the
+    larger by some 30 % or more, near 0 where ``b`` is, 1/2 where they are equal; ``a >= b``
+    (1 or 0) where the ratio is not finite (note 4)."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        share = 1.0 / (1.0 + (b / a) ** WKB_SHARPNESS)
+    return np.where(np.isfinite(share), share, (a >= b).astype(float))
 
 
 def _geometric_mix(weight, a, b):
