@@ -9,7 +9,7 @@ from pathlib import Path
 from wellwright.optimize.cli.pipeline import run_pipeline
 from wellwright.physics.errors import InputError
 
-#: The scenario files shipped as package data (pyproject: optimize/scenarios/*.toml).
+#: The scenario files shipped as package data (pyproject.toml: optimize/cli/scenarios/*.toml).
 SCENARIOS = Path(__file__).resolve().parent / "scenarios"
 DEMO_LABEL = "Invented demo scenario (not measured data)"
 
