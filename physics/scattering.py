@@ -625,6 +625,14 @@ def _kinetic_ev(energy_ev, geo: _Geometry, *, edge, width):
     )
 
 
+def non_resonant_floor2_ev2(e_k, e_w):
+    """``eps_n^2`` (eV^2) of the spectral weight's non-resonant floor ``1/eps_n^2`` (note 2)
+    from the emitter barrier's height ``e_k`` above the state and the state's kinetic energy
+    ``e_w`` in the well, eV (checked against the exact density of a scattering state:
+    tests/test_scattering.py)."""
+    return 16.0 * e_k * e_w**3 / (np.pi**2 * (e_w + e_k) ** 2)
+
+
 def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, width, kinetic, kt_ev, params):
     """Roughness width, phonon width (no occupation factor), floor energy^2 and Bose factor.
 
@@ -656,8 +664,7 @@ def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, width, kineti
     angle = _i0e_of_values(m_over_hbar2 * kt * lam**2)
     slopes = _interface_slopes_ev_nm(energy_ev, geo, edge=edge, mass=mass, width=width)
     gamma_ifr = np.pi * m_over_hbar2 * delta**2 * lam**2 * angle * (slopes**2).sum(axis=-1)
-    e_k = np.maximum(top1, 1e-3)
-    floor2 = 16.0 * e_k * e_w**3 / (np.pi**2 * (e_w + e_k) ** 2)
+    floor2 = non_resonant_floor2_ev2(np.maximum(top1, 1e-3), e_w)
     hw = ex(geo.lo_phonon_ev)
     polar = 1.0 / ex(geo.permittivity_high_r) - 1.0 / ex(geo.permittivity_r)
     alpha = COULOMB_EV_NM * np.sqrt(m_over_hbar2 / (2.0 * hw)) * polar
