@@ -106,9 +106,19 @@ def before_after_trees(ref: str, tmp: Path, repo: Path) -> dict[str, Path]:
     base = tmp / "repo"
     base.mkdir(parents=True)
     subprocess.run(["tar", "-x", "-C", str(base)], input=archive, check=True)
+    # the build runs setup.py directly, so it needs a setuptools that reads the commit's
+    # pyproject.toml (77 and newer for its SPDX licence); a venv's own may be older (65 in
+    # Python 3.11's) or absent (3.12 on): a private copy, as pip's isolated builds fetch one
+    tools = tmp / "build-tools"
+    subprocess.run(
+        [sys.executable, "-m", "pip", "install", "-q", "--target", str(tools), "setuptools>=77"],
+        check=True,
+        capture_output=True,
+    )
     subprocess.run(
         [sys.executable, "setup.py", "-q", "build_ext", "--inplace"],
         cwd=base,
+        env={**os.environ, "PYTHONPATH": str(tools)},
         check=True,
         capture_output=True,
     )

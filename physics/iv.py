@@ -121,6 +121,9 @@ FOLD_STEPS = 12
 #: below, is not computed; measured on the example stacks: the charged branch loses at most
 #: 31 % of its charge in one step up to its fold, a fall off it 99 % and more).
 FOLD_CHARGE_COLLAPSE = 0.25
+#: A well charge below this (cm^-2) on both sides of a pair of refinement samples is no jump
+#: of the self-consistent solution worth resolving (see :func:`_jump_side`).
+JUMP_FLOOR_CM2 = 1e10
 
 
 @dataclass(frozen=True)
@@ -405,8 +408,8 @@ def _check_area_weights(area_weights, n_stacks: int) -> np.ndarray:
 class _Brackets:
     """:func:`_refine`'s state, per extremum: bracket centre and half span (V), best current
     (``sign * J``), nearest fallen sample (bias and current), still open, and, for a cliff
-    round's bracket, its two known ends (biases and ``sign * J``, by bias); ``kept``: the
-    self-consistent solve at the best point (see :func:`_refine`)."""
+    round's bracket, its two known ends (biases, ``sign * J`` and well charges, by bias);
+    ``kept``: the self-consistent solve at the best point (see :func:`_refine`)."""
 
     center: np.ndarray
     half: np.ndarray
@@ -417,6 +420,7 @@ class _Brackets:
     known: np.ndarray
     ends_v: np.ndarray
     ends_j: np.ndarray
+    ends_w: np.ndarray
     kept: list
 
     @classmethod
@@ -433,6 +437,7 @@ class _Brackets:
             known=np.zeros(n, bool),
             ends_v=np.zeros((n, 2)),
             ends_j=np.zeros((n, 2)),
+            ends_w=np.full((n, 2), np.nan),
             kept=[None] * n,
         )
 
@@ -450,7 +455,9 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     best point with the sample spacing as its half span, or, where a neighbour
     of a peak's (``peaks``) best sample has fallen by :data:`NDR_DROP` (a cliff:
     the well's charge collapses between them, or a narrow line passes the
-    emitter edge), onto the interval between the two alone (not at a valley,
+    emitter edge; with the self-consistent model, where the well charge jumps between
+    the best sample and one neighbour, towards that one, :func:`_jump_side`), onto the
+    interval between the two alone (not at a valley,
     whose neighbour on the NDR side is steep but no cliff): their currents are
     known, so that round samples its :data:`REFINE_POINTS` new biases strictly
     inside it (10 times narrower a round instead of 4; extrema with and without
@@ -499,8 +506,16 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     top = np.argmax(j, axis=1)
     # a cliff beside the best sample: the extremum lies between the best point and the
     # fallen neighbour; a parabola through a fallen sample says nothing of the top, so
-    # its vertex is not computed there
-    side = np.where(peaks[idx], _cliff_side(j, top), 0)
+    # its vertex is not computed there. With the self-consistent model a jump of the well
+    # charge on one side of the best sample decides the side: the single solves' branch
+    # changes between them, the current can peak just past the change whether or not a
+    # sample has fallen there, and a fall on the other side is then the branch's own decline
+    side = _cliff_side(j, top)
+    well = _round_charges(keep, st, idx, ends, n_points)
+    if well is not None:
+        jump = _jump_side(well, top)
+        side = np.where(jump != 0, jump, side)
+    side = np.where(peaks[idx], side, 0)
     cliff = side != 0
     pick = np.clip(top, 1, n_points - 2)[:, None] + np.array([-1, 0, 1])
     x3, j3 = v[rows[:, None], pick], j[rows[:, None], pick]
@@ -539,6 +554,8 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
         lo, hi = np.minimum(top, across), np.maximum(top, across)
         st.ends_v[idx] = np.stack([v[rows, lo], v[rows, hi]], axis=1)
         st.ends_j[idx] = np.stack([j[rows, lo], j[rows, hi]], axis=1)
+        if well is not None:
+            st.ends_w[idx] = np.stack([well[rows, lo], well[rows, hi]], axis=1)
     smooth = (
         ~cliff
         & (curvature > 0)
@@ -557,6 +574,40 @@ def _cliff_side(j, top):
     gap = NDR_DROP * np.abs(at)
     up = (top < last) & (j[rows, np.minimum(top + 1, last)] < at - gap)
     down = (top > 0) & (j[rows, np.maximum(top - 1, 0)] < at - gap)
+    return np.where(up & ~down, 1, np.where(down & ~up, -1, 0))
+
+
+def _round_charges(keep, st, idx, ends, n_points):
+    """Well charges (cm^-2, ``(len(idx), n_points)``) of a refinement round's samples: its
+    solve (the first one ``keep`` holds) and, with known ``ends``, the ends' from the round
+    before; None without the self-consistent solves."""
+    if not keep or keep[0][1].well_sheet_cm2 is None:
+        return None
+    solved = keep[0][1].well_sheet_cm2
+    if not ends:
+        return solved
+    well = np.empty((idx.size, n_points))
+    well[:, 1:-1], well[:, 0], well[:, -1] = solved, st.ends_w[idx, 0], st.ends_w[idx, 1]
+    return well
+
+
+def _jump_side(well, top):
+    """Per extremum of a refinement round (well charges ``well`` of its samples, best sample
+    ``top``): +1 where the well charge jumps between the best sample and the next one (the
+    smaller below :data:`FOLD_CHARGE_COLLAPSE` of the larger, which is at least
+    :data:`JUMP_FLOOR_CM2`) and not between it and the previous one, -1 for the mirror case,
+    0 otherwise. Measured on a GaAs/AlGaAs stack in reverse bias (DEVELOPERS.md): its well
+    charge collapses from 3.3e11 to 1.5e10 cm^-2 within 0.1 mV and the current jumps up by
+    23 % there, then falls back within 3 mV; samples 3.6 mV apart on either side had the same
+    current."""
+    rows, last = np.arange(well.shape[0]), well.shape[1] - 1
+
+    def jump(other):
+        a, b = well[rows, top], well[rows, other]
+        big, small = np.fmax(np.abs(a), np.abs(b)), np.fmin(np.abs(a), np.abs(b))
+        return (other != top) & (big >= JUMP_FLOOR_CM2) & (small < FOLD_CHARGE_COLLAPSE * big)
+
+    up, down = jump(np.minimum(top + 1, last)), jump(np.maximum(top - 1, 0))
     return np.where(up & ~down, 1, np.where(down & ~up, -1, 0))
 
 

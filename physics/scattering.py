@@ -626,10 +626,16 @@ def _kinetic_ev(energy_ev, geo: _Geometry, *, edge, width):
 
 
 def non_resonant_floor2_ev2(e_k, e_w):
-    """``eps_n^2`` (eV^2) of the spectral weight's non-resonant floor ``1/eps_n^2`` (note 2)
-    from the emitter barrier's height ``e_k`` above the state and the state's kinetic energy
-    ``e_w`` in the well, eV (checked against the exact density of a scattering state:
-    tests/test_scattering.py)."""
+    """``eps_n^2`` (eV^2) of the spectral weight's non-resonant floor ``1/eps_n^2`` (note 2;
+    checked against the exact density of a scattering state: tests/test_scattering.py).
+
+    Parameters
+    ----------
+    e_k
+        The emitter barrier's height above the state, eV.
+    e_w
+        The state's kinetic energy in the well, eV.
+    """
     return 16.0 * e_k * e_w**3 / (np.pi**2 * (e_w + e_k) ** 2)
 
 
