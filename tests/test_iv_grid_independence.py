@@ -30,6 +30,21 @@ J_RTOL = 0.01
 V_ATOL = 5e-3
 
 
+def _invented(temperature_k: float, substrate: str, *layers: tuple):
+    """An invented stack (numbers rounded from a random scan, not a measured device) from
+    ``(name, material, keys)`` tuples, emitter first."""
+    from wellwright.physics.stack import parse_stack
+
+    return parse_stack(
+        {
+            "temperature_k": temperature_k,
+            "substrate": substrate,
+            "layers": [{"name": n, "material": m, **keys} for n, m, keys in layers],
+        },
+        source="invented",
+    )
+
+
 def _metrics(path: Path, points: int) -> dict:
     stack = load_stack(path)
     # coherent transport pinned: with the scattering-assisted channel the InP stack's current
@@ -151,24 +166,16 @@ def _jump_stack():
     self-consistent I-V in reverse bias jumps up by 23 % where its well charge collapses
     (3.3e11 to 1.4e10 cm^-2 between -0.16075 and -0.16100 V) and falls back to the level
     before the jump within 3 mV (measured)."""
-    from wellwright.physics.stack import parse_stack
-
-    layer = lambda name, mat, **kw: {"name": name, "material": mat, **kw}  # noqa: E731
-    return parse_stack(
-        {
-            "temperature_k": 204.0,
-            "substrate": "GaAs",
-            "layers": [
-                layer("emitter", "GaAs", doping_cm3=9e17),
-                layer("spacer1", "GaAs", thickness_nm=3.69),
-                layer("barrier1", "AlGaAs", x=0.83, thickness_nm=1.24),
-                layer("well", "GaAs", thickness_nm=7.96),
-                layer("barrier2", "AlGaAs", x=0.83, thickness_nm=0.84),
-                layer("spacer2", "GaAs", thickness_nm=1.47),
-                layer("collector", "GaAs", doping_cm3=1.2e18),
-            ],
-        },
-        source="jump",
+    return _invented(
+        204.0,
+        "GaAs",
+        ("emitter", "GaAs", {"doping_cm3": 9e17}),
+        ("spacer1", "GaAs", {"thickness_nm": 3.69}),
+        ("barrier1", "AlGaAs", {"x": 0.83, "thickness_nm": 1.24}),
+        ("well", "GaAs", {"thickness_nm": 7.96}),
+        ("barrier2", "AlGaAs", {"x": 0.83, "thickness_nm": 0.84}),
+        ("spacer2", "GaAs", {"thickness_nm": 1.47}),
+        ("collector", "GaAs", {"doping_cm3": 1.2e18}),
     )
 
 
@@ -203,24 +210,17 @@ def test_a_top_narrower_than_the_samples_is_zoomed_into() -> None:
     stack). Checked here to the refinement's own tolerance (REFINE_RELATIVE_TOLERANCE)
     against 241 biases."""
     from wellwright.physics.iv import REFINE_RELATIVE_TOLERANCE
-    from wellwright.physics.stack import parse_stack
 
-    layer = lambda name, mat, **kw: {"name": name, "material": mat, **kw}  # noqa: E731
-    stack = parse_stack(
-        {
-            "temperature_k": 167.0,
-            "substrate": "GaAs",
-            "layers": [
-                layer("emitter", "GaAs", doping_cm3=1e18),
-                layer("spacer1", "GaAs", thickness_nm=7.59),
-                layer("barrier1", "AlGaAs", x=0.65, thickness_nm=1.05),
-                layer("well", "GaAs", thickness_nm=5.59),
-                layer("barrier2", "AlGaAs", x=0.65, thickness_nm=1.05),
-                layer("spacer2", "GaAs", thickness_nm=4.06),
-                layer("collector", "GaAs", doping_cm3=1.5e18),
-            ],
-        },
-        source="narrow top",
+    stack = _invented(
+        167.0,
+        "GaAs",
+        ("emitter", "GaAs", {"doping_cm3": 1e18}),
+        ("spacer1", "GaAs", {"thickness_nm": 7.59}),
+        ("barrier1", "AlGaAs", {"x": 0.65, "thickness_nm": 1.05}),
+        ("well", "GaAs", {"thickness_nm": 5.59}),
+        ("barrier2", "AlGaAs", {"x": 0.65, "thickness_nm": 1.05}),
+        ("spacer2", "GaAs", {"thickness_nm": 4.06}),
+        ("collector", "GaAs", {"doping_cm3": 1.5e18}),
     )
     coarse, fine = (
         sweep(stack.table(), np.linspace(0.0, 1.8, n), model=stack.model).metrics_of(0)
@@ -268,24 +268,17 @@ def test_a_step_beside_the_best_sample_is_no_cliff_where_the_top_is_on_the_other
     step) and 0.2 % lower; the zoom resolved the step's edge and gave 2.154e4 A/cm^2 at
     -0.3114 V against the top's 2.190e4 at -0.3058 V (1.65 %, 5.6 mV). Tolerances of the
     issue; the reference is 241 biases."""
-    from wellwright.physics.stack import parse_stack
-
-    layer = lambda name, mat, **kw: {"name": name, "material": mat, "x": 0.53, **kw}  # noqa: E731
-    stack = parse_stack(
-        {
-            "temperature_k": 228.0,
-            "substrate": "InP",
-            "layers": [
-                layer("emitter", "InGaAs", doping_cm3=2.6e18),
-                layer("spacer1", "InGaAs", thickness_nm=3.35),
-                {"name": "barrier1", "material": "AlAsSb", "x": 0.44, "thickness_nm": 1.65},
-                layer("well", "InGaAs", thickness_nm=11.26),
-                {"name": "barrier2", "material": "AlAsSb", "x": 0.44, "thickness_nm": 1.60},
-                layer("spacer2", "InGaAs", thickness_nm=7.18),
-                layer("collector", "InGaAs", doping_cm3=3.1e18),
-            ],
-        },
-        source="step beside the top",
+    ingaas = {"x": 0.53}
+    stack = _invented(
+        228.0,
+        "InP",
+        ("emitter", "InGaAs", {**ingaas, "doping_cm3": 2.6e18}),
+        ("spacer1", "InGaAs", {**ingaas, "thickness_nm": 3.35}),
+        ("barrier1", "AlAsSb", {"x": 0.44, "thickness_nm": 1.65}),
+        ("well", "InGaAs", {**ingaas, "thickness_nm": 11.26}),
+        ("barrier2", "AlAsSb", {"x": 0.44, "thickness_nm": 1.60}),
+        ("spacer2", "InGaAs", {**ingaas, "thickness_nm": 7.18}),
+        ("collector", "InGaAs", {**ingaas, "doping_cm3": 3.1e18}),
     )
     coarse, fine = (
         sweep(stack.table(), -np.linspace(0.0, 1.11, n)[::-1], model=stack.model).metrics_of(0)
