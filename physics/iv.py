@@ -469,7 +469,10 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     rounds, a smooth one only one. The better of the vertex and the
     best sample is kept, so the result is always a computed current, never
     an extrapolation (a parabola overshoots at a kink). A best sample on the
-    bracket's edge moves the bracket without narrowing it. With the
+    bracket's edge moves the bracket there and doubles it (keeps it, where its ends
+    were known), and a peak's round decides no top while both of the best sample's
+    neighbours have fallen by :data:`NDR_DROP` or the top lies on the flank away from a
+    fallen one (:func:`_top_on_other_flank`). With the
     self-consistent model the solve at each extremum's best point is kept
     (returned last: node positions, potential, electrons and well charge of its
     stack; None otherwise).
