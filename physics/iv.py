@@ -509,18 +509,9 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     top = np.argmax(j, axis=1)
     # a cliff beside the best sample: the extremum lies between the best point and the
     # fallen neighbour; a parabola through a fallen sample says nothing of the top, so
-    # its vertex is not computed there. With the self-consistent model a jump of the well
-    # charge on one side of the best sample decides the side: the single solves' branch
-    # changes between them, the current can peak just past the change whether or not a
-    # sample has fallen there, and a fall on the other side is then the branch's own decline
-    side, narrow = _cliff_side(j, top)
-    flank = _top_on_other_flank(j, top, side)
-    side = np.where(flank, 0, side)
+    # its vertex is not computed there
     well = _round_charges(keep, st, idx, ends, n_points)
-    if well is not None:
-        jump = _jump_side(well, top)
-        side = np.where(jump != 0, jump, side)
-    side = np.where(peaks[idx], side, 0)
+    side, narrow, flank = _round_side(j, top, well, peaks[idx])
     cliff = side != 0
     pick = np.clip(top, 1, n_points - 2)[:, None] + np.array([-1, 0, 1])
     x3, j3 = v[rows[:, None], pick], j[rows[:, None], pick]
@@ -577,6 +568,24 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
         & (np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(st.best[idx]))
     )
     st.open_[idx] = ~((smooth & ~edge) | (st.half[idx] < REFINE_BIAS_TOLERANCE_V))
+
+
+def _round_side(j, top, well, peaks):
+    """The cliff side of each extremum of a refinement round (+1, -1 or 0; 0 for valleys:
+    ``peaks`` False), whether its top is narrower than the samples and whether it lies on
+    the flank away from a fallen neighbour (:func:`_cliff_side`,
+    :func:`_top_on_other_flank`). With the self-consistent model (``well``, the samples' well
+    charges, not None) a jump of the well charge on one side of the best sample decides the
+    side: the single solves' branch changes between them, the current can peak just past the
+    change whether or not a sample has fallen there, and a fall on the other side is then
+    the branch's own decline (:func:`_jump_side`)."""
+    side, narrow = _cliff_side(j, top)
+    flank = _top_on_other_flank(j, top, side)
+    side = np.where(flank, 0, side)
+    if well is not None:
+        jump = _jump_side(well, top)
+        side = np.where(jump != 0, jump, side)
+    return np.where(peaks, side, 0), narrow, flank
 
 
 def _cliff_side(j, top):
