@@ -599,7 +599,12 @@ def _cliff_side(j, top):
     gap = NDR_DROP * np.abs(at)
     up = (top < last) & (j[rows, np.minimum(top + 1, last)] < at - gap)
     down = (top > 0) & (j[rows, np.maximum(top - 1, 0)] < at - gap)
-    return np.where(up & ~down, 1, np.where(down & ~up, -1, 0)), up & down
+    return _one_side(up, down), up & down
+
+
+def _one_side(up, down):
+    """+1 where only ``up`` holds, -1 where only ``down`` does, 0 otherwise."""
+    return np.where(up & ~down, 1, np.where(down & ~up, -1, 0))
 
 
 def _top_on_other_flank(j, top, side):
@@ -613,17 +618,15 @@ def _top_on_other_flank(j, top, side):
     bias (DEVELOPERS.md): neighbours 2.3 % lower (a step) and 0.2 % lower, the parabola's top
     21905 A/cm^2 against the best sample's 21535 and the true top's 21909."""
     rows, last = np.arange(j.shape[0]), j.shape[1] - 1
-    near, far = top - side, top - 2 * side
-    ok = (side != 0) & (far >= 0) & (far <= last)
+    near = top - side  # the neighbour on that flank, the middle of the three samples
+    ok = (side != 0) & (near - 1 >= 0) & (near + 1 <= last)
+    x3 = np.clip(near[:, None] + np.array([-1, 0, 1]), 0, last)  # in samples
+    with np.errstate(divide="ignore", invalid="ignore"):  # clipped rows (not ``ok``) repeat x
+        offset, curvature, lowest = parabola_through(x3.astype(float), -j[rows[:, None], x3])
+    towards_best = offset * side  # 0 at the neighbour, 1 at the best sample
     y0 = j[rows, top]
-    y1, y2 = j[rows, np.clip(near, 0, last)], j[rows, np.clip(far, 0, last)]
-    a = 0.5 * (y2 - 2.0 * y1 + y0)  # y(x) = y0 + b x + a x^2, x in samples towards the flank
-    b = y1 - y0 - a
-    with np.errstate(divide="ignore", invalid="ignore"):
-        x = -b / (2.0 * a)
-        peak = y0 - b * b / (4.0 * a)
-    above = peak > y0 + REFINE_RELATIVE_TOLERANCE * np.abs(y0)
-    return ok & (a < 0) & (x > 0) & (x < 1) & above
+    above = -lowest > y0 + REFINE_RELATIVE_TOLERANCE * np.abs(y0)
+    return ok & (curvature > 0) & (towards_best > 0) & (towards_best < 1) & above
 
 
 def _round_charges(keep, st, idx, ends, n_points):
@@ -656,8 +659,7 @@ def _jump_side(well, top):
         big, small = np.fmax(np.abs(a), np.abs(b)), np.fmin(np.abs(a), np.abs(b))
         return (other != top) & (big >= JUMP_FLOOR_CM2) & (small < FOLD_CHARGE_COLLAPSE * big)
 
-    up, down = jump(np.minimum(top + 1, last)), jump(np.maximum(top - 1, 0))
-    return np.where(up & ~down, 1, np.where(down & ~up, -1, 0))
+    return _one_side(jump(np.minimum(top + 1, last)), jump(np.maximum(top - 1, 0)))
 
 
 def _keep_best(kept, solves, idx, better, top, fit, shift=0):

@@ -814,8 +814,9 @@ def _split_widths(peak, width, tau_l, tau_r, drain_ev=None):
     left_big = _larger_share(tau_l, tau_r)
     if drain_ev is not None:  # small * big >= drain^2: the small root is the nearer one
         known = np.isfinite(drain_ev) & (drain_ev > 0)
-        # by ratio, as sharply as the WKB share: the two assignments mixed where the drain
-        # width lies near the roots' geometric mean
+        # by ratio: the two assignments mixed where the drain width lies near the roots'
+        # geometric mean (the share rule on squared widths, so twice as sharp in the drain
+        # width's ratio to that mean as the WKB share is in tau_R / tau_L)
         left_big = np.where(known, _larger_share(small * big, drain_ev**2), left_big)
     big, small = np.maximum(big, 1e-300), np.maximum(small, 1e-300)
     return _geometric_mix(left_big, big, small), _geometric_mix(left_big, small, big)
