@@ -1396,7 +1396,7 @@ static int node_fluxes(Py_ssize_t rows, Py_ssize_t k, double hb2, const double *
         cumulative(k, gl_el, st, cum_b);
         for (Py_ssize_t j = 0; j < k; j++) {
             const double reach = sqrt((fabs(z[j] - e_n) + 0.5 * gamma_t) / e_w);
-            const double forward = M_PI_2 / (reach * (1.0 + M_PI_2 * reach));
+            const double forward = M_PI_2 / (reach * (1.0 + M_PI / 3.0 * reach));
             y[j] = gl_lo[j] * flr * forward;
         }
         cumulative(k, y, st, cum_c);
