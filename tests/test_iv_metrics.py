@@ -11,7 +11,13 @@ import numpy as np
 import pytest
 from helpers_physics import M_BARRIER, M_WELL, V_BARRIER_EV, custom_table
 from scipy.optimize import brentq
-from wellwright.physics.iv import NDR_DROP, external_bias_v, locate_peak_valley, sweep
+from wellwright.physics.iv import (
+    CLEAR_NDR_DROP,
+    NDR_DROP,
+    external_bias_v,
+    locate_peak_valley,
+    sweep,
+)
 from wellwright.physics.stack import ModelOptions
 
 #: the fast model these metric tests were written for (linear drop, coherent current)
@@ -84,6 +90,21 @@ def test_small_wiggle_is_not_ndr() -> None:
     assert ip[0] == -1
     ip, iv = locate_peak_valley(v, dip(0.05)[None, :])
     assert ip[0] >= 0 and v[iv[0]] == pytest.approx(0.5, abs=0.01)
+
+
+def test_a_wiggle_before_a_clear_peak_is_not_the_peak() -> None:
+    # Documented rule (module docstring): a maximum followed by a fall of 2-10 % that the
+    # current then rises above (a wiggle) is the peak only where no clear NDR follows. Here a
+    # 5 % dip at 0.32 V on the rise to a Lorentzian peak at 0.6 V that falls by half.
+    v = np.linspace(0.0, 1.0, 401)
+    dip = 1.0 - 0.05 * np.exp(-(((v - 0.32) / 0.01) ** 2))
+    wiggly = (0.3 + 0.2 * v) * dip + _lorentz_plus_background(v, v0=0.6, w=0.05, c=0.0)
+    assert CLEAR_NDR_DROP == pytest.approx(0.1)
+    ip, iv = locate_peak_valley(v, wiggly[None, :])
+    assert 0.55 < v[ip[0]] < 0.65 and v[iv[0]] > 0.65
+    # the same dip on a current that only rises (no clear NDR follows) is a weak peak
+    ip, iv = locate_peak_valley(v, ((0.5 + v) * dip)[None, :])
+    assert 0.28 < v[ip[0]] < 0.33 and 0.3 < v[iv[0]] < 0.36
 
 
 def test_first_peak_is_reported() -> None:
