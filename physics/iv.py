@@ -15,10 +15,12 @@ one round; a peak at the edge of a current cliff: a few); the better of the
 vertex and the best sampled point is reported, so the figures of merit are
 always computed currents, never extrapolations.
 
-A valley that falls on the last point of the sweep is not a valley: the
+A valley that falls on the last point of the sweep is not a valley, nor one
+after which the current rises by no more than ``CLEAR_NDR_DROP`` (10 %) of the
+valley's current before the sweep ends (a bump of the floor, a flat floor): the
 sweep of that stack (only of the stacks that need it) goes on beyond its end
 in steps of the sweep's own spacing, :data:`VALLEY_EXTENSION_CHUNK` biases
-per batched call, until the current rises again, at most to
+per batched call, until the current rises by more than that, at most to
 :data:`VALLEY_EXTENSION_FACTOR` times the end bias. Where the current still
 falls there (or a self-consistent solve beyond the end fails), the valley is
 reported at the last computed point and ``valley_bounded_by_sweep`` is 1: the
@@ -108,9 +110,10 @@ VALLEY_EXTENSION_CHUNK = 8
 VALLEY_EXTENSION_FACTOR = 1.5
 #: Smallest relative current drop after a maximum that counts as NDR.
 NDR_DROP = 0.02
-#: A drop after a maximum that makes it the peak even where a weaker NDR comes first (module
-#: docstring; this project's choice: the wiggles of 2-6 % before the main peak that scans of
-#: random stacks found, which only fine bias grids resolve, are not the peak).
+#: A drop after a maximum that makes it the peak even where a weaker NDR comes first, and a
+#: rise after the lowest current that makes it the valley (module docstring; this project's
+#: choice: the wiggles of 2-6 % before the main peak and the bumps of a valley's floor that
+#: scans of random stacks found, which only fine bias grids resolve, are neither).
 CLEAR_NDR_DROP = 0.1
 #: Extra metrics of the up sweep (self-consistent model, forward bias): its peak, and the
 #: width of the bias window above the peak where the I-V is bistable (0 where it is not).
@@ -846,18 +849,22 @@ def _up_branch_each(table, model, grid, vp, v_after, j_after, v_end, *, peak):
     return tuple(np.concatenate(parts) for parts in zip(*alone, strict=True))
 
 
-def _extend_valleys(devices, model, grid, v_side, j_side, ip, need, sign):
-    """Go on beyond the sweep's end for the stacks whose valley fell on its last point.
+def _extend_valleys(devices, model, grid, v_side, j_side, ip, iv, need, sign):
+    """Go on beyond the sweep's end for the stacks whose valley (``iv``) is not established:
+    on the sweep's last point, or with the current rising after it by no more than
+    :data:`CLEAR_NDR_DROP` of its own (``need``).
 
     Steps of the sweep's last spacing, :data:`VALLEY_EXTENSION_CHUNK` biases per
-    batched call (only the stacks still open), until the current rises again after
-    its lowest point, or :data:`VALLEY_EXTENSION_FACTOR` times the end bias
+    batched call (only the stacks still open), until the current rises after its
+    lowest point by more than :data:`CLEAR_NDR_DROP` of that point's current
+    (:func:`_valley_rise`), or :data:`VALLEY_EXTENSION_FACTOR` times the end bias
     (magnitudes; ``sign`` -1 for the reverse branch). A self-consistent solve that
     fails beyond the end stops the extension of the stacks that fail alone too.
 
     Returns the extension's bias magnitudes ``(m,)``, their currents ``(n, m)``
     (magnitudes on the branch, NaN where not computed), the valley index on the
-    extended curve and whether the valley is still bounded by the last computed point.
+    extended curve (``iv`` where not needed) and whether the valley is still bounded by the
+    last computed point (the current lowest there).
     """
     from .electrostatics import ElectrostaticsConvergenceError
 
@@ -867,8 +874,7 @@ def _extend_valleys(devices, model, grid, v_side, j_side, ip, need, sign):
     count = int(np.floor((VALLEY_EXTENSION_FACTOR - 1.0) * end / step + 1e-9)) if step > 0 else 0
     v_ext = end + step * np.arange(1, count + 1)
     j_ext = np.full((n, count), np.nan)
-    valley = np.full(n, -1)
-    bounded = need.copy()
+    valley = iv.copy()
     open_ = need.copy()
     done = 0
     while done < count and np.any(open_):
@@ -892,12 +898,19 @@ def _extend_valleys(devices, model, grid, v_side, j_side, ip, need, sign):
             stop = above[0] if above.size else after.size
             k = ip[s] + 1 + int(np.argmin(after[:stop]))
             valley[s] = k
-            if k < jj.size - 1:  # the current rises again after it
-                open_[s] = bounded[s] = False
-    for s in np.nonzero(bounded)[0]:  # still falling: the last point computed
-        last = v_side.size + int(np.count_nonzero(np.isfinite(j_ext[s]))) - 1
-        valley[s] = last
-    return v_ext, j_ext, valley, bounded
+            if _valley_rise(jj, k) > CLEAR_NDR_DROP:  # the current rises clearly after it
+                open_[s] = False
+    # bounded: the lowest current is the last one computed (still falling there)
+    last = v_side.size - 1 + np.count_nonzero(np.isfinite(j_ext), axis=1)
+    return v_ext, j_ext, valley, need & (valley == last)
+
+
+def _valley_rise(j, valley) -> float:
+    """How far the current rises after the valley (index ``valley`` of the magnitudes ``j``),
+    as a share of the valley's current (as the peak's fall is of the peak's): above
+    :data:`CLEAR_NDR_DROP` the valley is established, below it (a wiggle or a bump of the
+    valley's floor, a flat floor) a lower one may follow."""
+    return float((np.max(j[valley:]) - j[valley]) / max(j[valley], 1e-300))
 
 
 def _currents_each(devices, bias_v, model, grid) -> np.ndarray:
@@ -1121,16 +1134,18 @@ def sweep(
     if not np.any(has):
         return IVCurves(bias, j, metrics)
 
-    # a valley on the last point: go on beyond the end (only the stacks that need it)
+    # a valley the current does not clearly rise from before the end: go on beyond the end
+    # (only the stacks that need it)
     bounded = np.zeros(devices.n, bool)
     ext_v, ext_j = np.zeros(0), None
-    need = has & (iv == v_side.size - 1)
+    need = np.array(
+        [has[s] and _valley_rise(j_side[s], iv[s]) <= CLEAR_NDR_DROP for s in range(devices.n)]
+    )
     if np.any(need):
-        mag, ext_j, iv_ext, bounded = _extend_valleys(
-            devices, model, grid, np.abs(v_side), j_side, ip, need, sign
+        mag, ext_j, iv, bounded = _extend_valleys(
+            devices, model, grid, np.abs(v_side), j_side, ip, iv, need, sign
         )
         ext_v = sign * mag
-        iv = np.where(need, iv_ext, iv)
         v_side = np.concatenate([v_side, ext_v])  # common biases; NaN where not computed
         j_side = np.concatenate([j_side, ext_j], axis=1)
         ext_j = sign * ext_j
