@@ -5,7 +5,8 @@ that is followed by clear negative differential resistance (the current falls
 by more than ``CLEAR_NDR_DROP``, 10 %, of the peak before rising above it
 again); where no maximum is, the first one followed by a fall of more than
 ``NDR_DROP`` (2 %), a weak NDR. The valley is the lowest current after the
-peak, before the current first exceeds the peak again or the sweep ends. Both are then located more finely than
+peak, before the current first exceeds the peak again or the sweep ends.
+Both are then located more finely than
 the sweep grid, so that they do not depend on it: nine extra biases across
 the neighbouring grid points (one batched call for peaks and valleys of
 every stack), then the current at the vertex of a parabola through the
