@@ -1014,6 +1014,8 @@ def _golden_rule_emission_per_alpha_hw(q_nm, *, width_nm, depth_ev, mass_m0, hw_
     ``G = int dq_z/(2 pi) |F(q_z)|^2 / (q^2 + q_z^2)``, ``F`` the Fourier transform of
     ``|psi|^2`` and ``hbar^2 q_LO^2 / 2 m = hbar w`` (derived for this check). Returns
     ``hbar W / (alpha hbar w)`` at each ``q`` (1/nm) and the state's energy (eV)."""
+    from scipy.integrate import trapezoid  # (numpy's own only from numpy 2.0)
+
     e_n = _finite_well_level(width_nm, depth_ev, mass_m0, mass_m0)
     k = np.sqrt(mass_m0 * e_n / HBAR2_2M0_EV_NM2)
     kappa = np.sqrt(mass_m0 * (depth_ev - e_n) / HBAR2_2M0_EV_NM2)
@@ -1021,10 +1023,10 @@ def _golden_rule_emission_per_alpha_hw(q_nm, *, width_nm, depth_ev, mass_m0, hw_
     inside = z <= 0.5 * width_nm
     outside = np.cos(0.5 * k * width_nm) ** 2 * np.exp(-2.0 * kappa * (z - 0.5 * width_nm))
     density = np.where(inside, np.cos(k * z) ** 2, outside)
-    density /= 2.0 * np.trapezoid(density, z)
+    density /= 2.0 * trapezoid(density, z)
     q_z = np.linspace(0.0, 80.0 / width_nm + 40.0 * kappa, 6001)
-    form = np.array([2.0 * np.trapezoid(density * np.cos(t * z), z) for t in q_z])
-    g = np.array([2.0 * np.trapezoid(form**2 / (q**2 + q_z**2), q_z) for q in q_nm]) / (2 * np.pi)
+    form = np.array([2.0 * trapezoid(density * np.cos(t * z), z) for t in q_z])
+    g = np.array([2.0 * trapezoid(form**2 / (q**2 + q_z**2), q_z) for q in q_nm]) / (2 * np.pi)
     q_lo = np.sqrt(mass_m0 * hw_ev / HBAR2_2M0_EV_NM2)
     return 2.0 * np.pi * q_lo * g, e_n
 
