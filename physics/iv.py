@@ -23,8 +23,8 @@ sweep of that stack (only of the stacks that need it) goes on beyond its end
 in steps of the sweep's own spacing, :data:`VALLEY_EXTENSION_CHUNK` biases
 per batched call, until the current rises by more than that, at most to
 :data:`VALLEY_EXTENSION_FACTOR` times the end bias. Where the current still
-falls there (or a self-consistent solve beyond the end fails), the valley is
-reported at the last computed point and ``valley_bounded_by_sweep`` is 1: the
+falls there (or falls up to the last point a self-consistent solve beyond the end
+reached), the valley is reported at that point and ``valley_bounded_by_sweep`` is 1: the
 true valley lies beyond it, so ``Jv`` is an upper bound, ``Vv``, ``Delta V``
 and the PVCR lower bounds, and every figure of :data:`BOUNDED_BY_SWEEP` is
 derived from a bound. The extra points are kept in

@@ -30,19 +30,21 @@ J_RTOL = 0.01
 V_ATOL = 5e-3
 
 
-def _invented(temperature_k: float, substrate: str, *layers: tuple):
+def _invented(temperature_k: float, substrate: str | None, *layers: tuple, model=None):
     """An invented stack (numbers rounded from a random scan, not a measured device) from
-    ``(name, material, keys)`` tuples, emitter first."""
+    ``(name, material, keys)`` tuples, emitter first; ``substrate`` None for the default,
+    ``model`` the ``[model]`` keys that differ from the defaults."""
     from wellwright.physics.stack import parse_stack
 
-    return parse_stack(
-        {
-            "temperature_k": temperature_k,
-            "substrate": substrate,
-            "layers": [{"name": n, "material": m, **keys} for n, m, keys in layers],
-        },
-        source="invented",
-    )
+    data = {
+        "temperature_k": temperature_k,
+        "layers": [{"name": n, "material": m, **keys} for n, m, keys in layers],
+    }
+    if substrate is not None:
+        data["substrate"] = substrate
+    if model is not None:
+        data["model"] = model
+    return parse_stack(data, source="invented")
 
 
 def _metrics(path: Path, points: int) -> dict:
@@ -298,9 +300,9 @@ def test_a_valley_the_current_hardly_rises_from_is_followed_beyond_the_end() -> 
     ended on a falling current and went on beyond the end to 1.61 V. A valley is now
     established only where the current rises after it by more than ``CLEAR_NDR_DROP`` of its
     own, so both go on: Jv within 1 % (issue 12's tolerance)."""
-    from wellwright.physics.stack import parse_stack
-
-    layers = [
+    stack = _invented(
+        329.0,
+        None,
         ("emitter", "GaAs", {"doping_cm3": 3.46e16}),
         ("spacer1", "GaAs", {"thickness_nm": 0.51}),
         ("barrier1", "AlAs", {"thickness_nm": 1.13}),
@@ -308,14 +310,7 @@ def test_a_valley_the_current_hardly_rises_from_is_followed_beyond_the_end() -> 
         ("barrier2", "AlAs", {"thickness_nm": 1.13}),
         ("spacer2", "GaAs", {"thickness_nm": 6.76}),
         ("collector", "GaAs", {"doping_cm3": 2.88e16}),
-    ]
-    stack = parse_stack(
-        {
-            "temperature_k": 329.0,
-            "model": {"nonparabolicity": False},
-            "layers": [{"name": n, "material": m, **keys} for n, m, keys in layers],
-        },
-        source="invented",
+        model={"nonparabolicity": False},
     )
     found = [
         sweep(stack.table(), np.linspace(0.0, 1.2, n), model=stack.model).metrics_of(0)
