@@ -14,7 +14,8 @@ results. This sweeps, with the code of a git commit ``REF`` and with the code as
 
 and prints how many stacks (and how many of them bistable) were compared and, per figure
 of merit and for the swept I-V (relative to the stack's largest current), the largest
-relative difference (0 where identical) and where it is. It exits
+relative difference (0 where identical) and where it is, then the median change of the main
+figures (for a physics change, which is meant to move them). It exits
 with status 1 where a difference exceeds ``--rtol`` (default 1e-6).
 
 Run: ``python benchmarks/check_default_metrics.py REF [--rtol 1e-6]`` (about a minute a side).
@@ -37,6 +38,13 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 from timing import before_after_trees  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
+#: the figures whose typical change a physics change reports (:func:`_print_medians`)
+MAIN_FIGURES = (
+    "peak_current_density_a_cm2",
+    "valley_current_density_a_cm2",
+    "pvcr",
+    "peak_voltage_v",
+)
 
 
 def metrics(out: str) -> None:
@@ -101,7 +109,22 @@ def compare(before: dict, after: dict, rtol: float) -> bool:
     print(f"{len(before)} stacks ({bistable} bistable), largest relative difference per figure:")
     for name, (d, key, x, y) in sorted(worst.items(), key=lambda kv: -kv[1][0]):
         print(f"  {name:32s} {d:.2e}  ({key}: {x:.9g} -> {y:.9g})")
+    _print_medians(before, after)
     return all(v[0] <= rtol for v in worst.values())
+
+
+def _print_medians(before: dict, after: dict) -> None:
+    """For a physics change: the median and the 5th-95th percentiles of the ratio after/before
+    of the main figures over the stacks where both are finite and positive."""
+    import numpy as np
+
+    print("ratio after/before, median (5th-95th percentile) over the stacks:")
+    for name in MAIN_FIGURES:
+        r = np.array([after[k][name] / before[k][name] for k in before if before[k][name] > 0])
+        r = r[np.isfinite(r) & (r > 0)]
+        if r.size:
+            lo, med, hi = np.percentile(r, [5, 50, 95])
+            print(f"  {name:32s} {med:.4g} ({lo:.4g}-{hi:.4g}), {r.size} stacks")
 
 
 def main() -> None:

@@ -1371,6 +1371,7 @@ static int node_fluxes(Py_ssize_t rows, Py_ssize_t k, double hb2, const double *
         const double g2 = 2.0 / gamma_t, lower_el = p[P_ER] - e_n, e_down = e_n - hw;
         const double lower_ph = (p[P_ER] - hw) - e_down, floor_el = 0.5 * g_ifr;
         const double bose1 = bose + 1.0, per_ev = lead_m / hb2, local = p[P_LOCAL];
+        const double e_b = 2.0 * e_w / M_PI, flr_lo = 1.0 / (e_b * e_b); /* bulk_floor2_ev2 */
         /* tau_L (step x interface factor x transparency) at E and E + hbar w */
         for (Py_ssize_t j = 0; j < 2 * k; j++) {
             const double kin = z[j] - 0.0;
@@ -1397,7 +1398,7 @@ static int node_fluxes(Py_ssize_t rows, Py_ssize_t k, double hb2, const double *
         for (Py_ssize_t j = 0; j < k; j++) {
             const double reach = sqrt((fabs(z[j] - e_n) + 0.5 * gamma_t) / e_w);
             const double forward = M_PI_2 / (reach * (1.0 + M_PI / 3.0 * reach));
-            y[j] = gl_lo[j] * flr * forward;
+            y[j] = gl_lo[j] * flr_lo * forward;
         }
         cumulative(k, y, st, cum_c);
         double *fl = flux_l + r * k, *fr = flux_r + r * k;
@@ -1412,7 +1413,7 @@ static int node_fluxes(Py_ssize_t rows, Py_ssize_t k, double hb2, const double *
             const double top_ph = max_numpy(z[j] - e_down, lower_ph);
             const double arc_ph = g2 * (at[2 * k + j] - at_lower_ph);
             const double p_r =
-                ex * (gamma_r * (g_lo * arc_ph + g_lo * ex * (top_ph - lower_ph) * flr));
+                ex * (gamma_r * (g_lo * arc_ph + g_lo * ex * (top_ph - lower_ph) * flr_lo));
             const double f_l = 0.5 * (1.0 - tl[j]), fu_l = 0.5 * (1.0 - tl[k + j]);
             const double f_r = 0.5 * (1.0 - tr[j]), fu_r = 0.5 * (1.0 - tr[k + j]);
             const double emit_l = bose1 * p_l, emit_r = bose1 * p_r;

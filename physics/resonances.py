@@ -120,7 +120,10 @@ def local_peaks(
 def parabola_through(x: np.ndarray, y: np.ndarray):
     """Vertex offset from ``x[..., 1]``, curvature ``a`` and minimum of the parabola through
     three points ``(..., 3)`` (sorted, unevenly spaced); where ``a <= 0`` (no minimum) the
-    offset is 0. The offset is kept within the outer two points.
+    offset is 0. The offset is kept within the outer two points. Two equal abscissae (a
+    search grid whose nodes above its window repeat the window's top where the barrier's edge
+    lies below it) give NaN slopes and so the offset 0, as the compiled kernel computes
+    (until 2026-12-04 a divide warning here, an error under the tests, on the numpy path).
 
     Parameters
     ----------
@@ -131,9 +134,10 @@ def parabola_through(x: np.ndarray, y: np.ndarray):
     """
     d0 = x[..., 0] - x[..., 1]
     d2 = x[..., 2] - x[..., 1]
-    s0 = (y[..., 0] - y[..., 1]) / d0  # secant slopes on each side
-    s2 = (y[..., 2] - y[..., 1]) / d2
-    a = (s2 - s0) / (d2 - d0)  # y = y1 + b u + a u^2, u = E - x1
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s0 = (y[..., 0] - y[..., 1]) / d0  # secant slopes on each side
+        s2 = (y[..., 2] - y[..., 1]) / d2
+        a = (s2 - s0) / (d2 - d0)  # y = y1 + b u + a u^2, u = E - x1
     b = s0 - a * d0
     good = a > 0
     u = np.where(good, -b / (2.0 * np.where(good, a, 1.0)), 0.0)

@@ -154,8 +154,10 @@ def test_no_current_at_zero_bias_and_mirror_symmetry():
 
 def test_valley_current_raised_peak_kept():
     """The channel carries current through the state after it drops below the emitter edge
-    (the valley, S. Luryi, Appl. Phys. Lett. 47, 490 (1985)): the valley current rises many
-    times while the peak, whose area Buttiker's reservoir conserves, changes little."""
+    (the valley, S. Luryi, Appl. Phys. Lett. 47, 490 (1985)): the valley current rises
+    several times while the peak, whose area Buttiker's reservoir conserves, changes little.
+    Measured 4.7 times (PVCR 18.9 against 90.7) with the phonon entry's bulk floor; 5.5 times
+    (16.1) with the interface floor it took until 2026-12-04, when the bound was 5."""
     stack = _stack()
     bias = np.linspace(0.0, 1.0, 51)
     linear = ModelOptions(electrostatics="linear", transport="coherent")
@@ -165,8 +167,8 @@ def test_valley_current_raised_peak_kept():
     assert (
         0.8 < m["peak_current_density_a_cm2"][0] / coherent["peak_current_density_a_cm2"][0] < 1.5
     )
-    assert m["valley_current_density_a_cm2"][0] > 5 * coherent["valley_current_density_a_cm2"][0]
-    assert 1.5 < m["pvcr"][0] < coherent["pvcr"][0] / 5
+    assert m["valley_current_density_a_cm2"][0] > 3 * coherent["valley_current_density_a_cm2"][0]
+    assert 1.5 < m["pvcr"][0] < coherent["pvcr"][0] / 3
 
 
 def test_frohlich_constant_of_gaas():
@@ -944,17 +946,16 @@ def test_channel_energy_integral_converged(name, bias_v):
     assert np.all(error < 0.01), np.round(100 * error, 3)
 
 
-def _density_at_inner_interface(energy_ev, *, well_nm, barrier_nm, barrier_ev, mass_m0):
-    """|psi|^2 of an emitter scattering state (unit incident amplitude, per unit wave number)
-    at the well side of the emitter barrier of a flat double barrier with one mass: the
-    textbook matching of psi and psi' at each interface, from the collector (transmitted wave
-    only) back to the emitter, written here for the check (not the package's kernel)."""
-    edges = [0.0, barrier_nm, barrier_nm + well_nm, 2.0 * barrier_nm + well_nm]
-    band = [0.0, barrier_ev, 0.0, barrier_ev, 0.0]
-    k = [np.sqrt(complex((energy_ev - u) * mass_m0 / HBAR2_2M0_EV_NM2)) for u in band]
-    coef = [(1.0 + 0j, 0j)]  # (A, B) of A e^{ikx} + B e^{-ikx}, collector first
-    for r in range(3, -1, -1):
-        x, (a, b) = edges[r], coef[-1]
+def _plane_wave_coefficients(energy_ev, edges_nm, band_ev, mass_m0):
+    """Wave numbers and ``(A, B)`` of ``A e^{ikx} + B e^{-ikx}`` in each region of a flat
+    profile with one mass (regions split at ``edges_nm``), for a unit wave leaving on the
+    right: the textbook matching of psi and psi' at each interface, from the collector back
+    to the emitter (written for these checks, not the package's kernel). Returns ``k`` and
+    the coefficients, emitter's last."""
+    k = [np.sqrt(complex((energy_ev - u) * mass_m0 / HBAR2_2M0_EV_NM2)) for u in band_ev]
+    coef = [(1.0 + 0j, 0j)]
+    for r in range(len(edges_nm) - 1, -1, -1):
+        x, (a, b) = edges_nm[r], coef[-1]
         f = a * np.exp(1j * k[r + 1] * x) + b * np.exp(-1j * k[r + 1] * x)
         df = 1j * k[r + 1] * (a * np.exp(1j * k[r + 1] * x) - b * np.exp(-1j * k[r + 1] * x))
         coef.append(
@@ -963,6 +964,16 @@ def _density_at_inner_interface(energy_ev, *, well_nm, barrier_nm, barrier_ev, m
                 0.5 * (f - df / (1j * k[r])) * np.exp(1j * k[r] * x),
             )
         )
+    return k, coef
+
+
+def _density_at_inner_interface(energy_ev, *, well_nm, barrier_nm, barrier_ev, mass_m0):
+    """|psi|^2 of an emitter scattering state (unit incident amplitude, per unit wave number)
+    at the well side of the emitter barrier of a flat double barrier with one mass
+    (:func:`_plane_wave_coefficients`)."""
+    edges = [0.0, barrier_nm, barrier_nm + well_nm, 2.0 * barrier_nm + well_nm]
+    band = [0.0, barrier_ev, 0.0, barrier_ev, 0.0]
+    k, coef = _plane_wave_coefficients(energy_ev, edges, band, mass_m0)
     (a_in, _), (a_w, b_w) = coef[-1], coef[2]  # the emitter's and the well's coefficients
     inner = a_w * np.exp(1j * k[2] * edges[1]) + b_w * np.exp(-1j * k[2] * edges[1])
     return abs(inner) ** 2 / abs(a_in) ** 2 / k[0].real
@@ -1003,6 +1014,85 @@ def test_non_resonant_floor_is_the_exact_density_to_order_one(well_nm, barrier_n
         f"well {well_nm} nm, barrier {barrier_nm} nm: E_n {1e3 * e_n:.0f} meV, floor/exact {ratio:.2f}"
     )
     assert 0.1 < ratio < 10.0
+
+
+def _well_bulk_weight(*, well_nm, barrier_nm, barrier_ev, mass_m0, above_ev):
+    """The exact weight of the phonon entry (module note 3) of a flat double barrier: the
+    density in the well of an emitter scattering state at ``E_n + above_ev``, weighted by
+    the lowest state's ``|psi_n|^2`` (``int |psi_n|^2 |chi|^2``; the Frohlich coupling acts
+    over the whole well), divided by the emitter barrier's own transmission (the model's
+    ``Gamma_L(z)`` carries that) and relative to both at ``E_n``. Returns the weights, the
+    state's energy and its line's full width at half maximum (eV)."""
+    from scipy.integrate import trapezoid  # (numpy's own only from numpy 2.0)
+    from scipy.optimize import brentq, minimize_scalar
+
+    edges = [0.0, barrier_nm, barrier_nm + well_nm, 2.0 * barrier_nm + well_nm]
+    band = [0.0, barrier_ev, 0.0, barrier_ev, 0.0]
+    x = np.linspace(barrier_nm, barrier_nm + well_nm, 401)
+
+    def chi(e):  # the scattering state in the well, per unit incident flux
+        k, coef = _plane_wave_coefficients(e, edges, band, mass_m0)
+        (a_in, _), (a_w, b_w) = coef[-1], coef[2]
+        return (a_w * np.exp(1j * k[2] * x) + b_w * np.exp(-1j * k[2] * x)) / a_in
+
+    def barrier_t(e):  # the emitter barrier alone
+        _, coef = _plane_wave_coefficients(e, [0.0, barrier_nm], [0.0, barrier_ev, 0.0], mass_m0)
+        return 1.0 / abs(coef[-1][0]) ** 2
+
+    centre = lambda e: abs(chi(e)[200]) ** 2  # noqa: E731  (the well's middle: a maximum
+    # of the lowest state)
+    scan = np.linspace(1e-4, 0.95 * barrier_ev, 4001)
+    d = np.array([centre(e) for e in scan])
+    i = int(np.nonzero((d[1:-1] > d[:-2]) & (d[1:-1] >= d[2:]))[0][0]) + 1
+    e_n = minimize_scalar(lambda e: -centre(e), bounds=(scan[i - 1], scan[i + 1])).x
+    half = lambda e: centre(e) - 0.5 * centre(e_n)  # noqa: E731
+    lo = e_n - 1e-6
+    while half(lo) > 0:
+        lo = e_n - 2.0 * (e_n - lo)
+    hi = e_n + 1e-6
+    while half(hi) > 0:
+        hi = e_n + 2.0 * (hi - e_n)
+    gamma = brentq(half, e_n, hi) - brentq(half, max(lo, 1e-9), e_n)
+    psi_n = np.abs(chi(e_n)) ** 2
+    psi_n /= trapezoid(psi_n, x)
+    bulk = lambda e: trapezoid(psi_n * np.abs(chi(e)) ** 2, x) / barrier_t(e)  # noqa: E731
+    return np.array([bulk(e_n + a) for a in above_ev]) / bulk(e_n), e_n, gamma
+
+
+@pytest.mark.parametrize("mass_m0", [0.041, 0.067])
+@pytest.mark.parametrize("barrier_ev", [0.3, 1.0])
+@pytest.mark.parametrize(("well_nm", "barrier_nm"), [(3.0, 1.4), (6.0, 2.0), (12.5, 1.4)])
+def test_phonon_entry_floor_is_the_exact_bulk_density(well_nm, barrier_nm, barrier_ev, mass_m0):
+    """The phonon entry's spectral weight, the Lorentzian plus the bulk floor
+    ``1/eps_b^2`` (:func:`scattering.bulk_floor2_ev2`, derived for the module from a
+    Fabry-Perot resonator), against the exact weight of a flat double barrier
+    (:func:`_well_bulk_weight`), both relative to their values at the resonance and
+    averaged geometrically over 20-60 meV above the state (one LO-phonon energy and about):
+    within x3 (measured 0.96-2.6 here; 0.55-2.8 over 90 wells of 3-16 nm, barriers 0.3-1 eV
+    high and 1.4-3 nm thick, in a coarser scan of 2026-12-04). The interface floor of
+    roughness (:func:`scattering.non_resonant_floor2_ev2`), which the phonon entry took until
+    2026-12-04, overstates it on wide wells: 3.2-10.7 times on the 12.5 nm wells here (the
+    test fails with it), up to 20 times in that scan. Analytic matching of plane waves; no
+    source beyond the textbook (common practice)."""
+    above = np.linspace(0.02, 0.06, 9)
+    exact, e_n, gamma = _well_bulk_weight(
+        well_nm=well_nm,
+        barrier_nm=barrier_nm,
+        barrier_ev=barrier_ev,
+        mass_m0=mass_m0,
+        above_ev=above,
+    )
+    half2 = 0.25 * gamma**2
+    lorentzian = half2 / (above**2 + half2)
+    model = lorentzian + half2 / scattering.bulk_floor2_ev2(e_n)  # flat well: e_w = E_n
+    interface = lorentzian + half2 / scattering.non_resonant_floor2_ev2(barrier_ev - e_n, e_n)
+    mean = lambda r: float(np.exp(np.mean(np.log(r))))  # noqa: E731
+    print(
+        f"well {well_nm} nm, barriers {barrier_nm} nm {barrier_ev} eV, {mass_m0} m0: E_n "
+        f"{1e3 * e_n:.0f} meV, width {1e3 * gamma:.3g} meV; model/exact {mean(model / exact):.2f}"
+        f" (interface floor {mean(interface / exact):.2f})"
+    )
+    assert 1 / 3 < mean(model / exact) < 3.0
 
 
 def _golden_rule_emission_per_alpha_hw(q_nm, *, width_nm, depth_ev, mass_m0, hw_ev):
