@@ -10,7 +10,11 @@ Checks against sources outside the project:
 - the Frohlich coupling constant of GaAs, about 0.068 (textbook value, e.g. B. K. Ridley,
   Quantum Processes in Semiconductors; from memory);
 - interface-roughness scattering is elastic: it does not freeze out in the cold (common
-  practice), so the channel's valley current is continuous in temperature.
+  practice), so the channel's valley current is continuous in temperature;
+- the spectral weights of the entries against the exact scattering state of a flat double
+  barrier (plane-wave matching, textbook): at the interface for roughness, over the well
+  for the phonon entry; and the phonon entry's rate against Fermi's golden rule computed
+  by quadrature.
 """
 
 from __future__ import annotations
