@@ -326,18 +326,25 @@ def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndar
         for i in range(1, n - 1):
             if not (j[i] >= j[i - 1] and j[i] > j[i + 1]):
                 continue
-            after = j[i + 1 :]
-            above = np.nonzero(after > j[i])[0]
-            stop = above[0] if above.size else after.size
-            if stop == 0:
+            k = _lowest_after(j, i)
+            if k is None:
                 continue
-            k = int(np.argmin(after[:stop]))
-            if after[k] < (1.0 - CLEAR_NDR_DROP) * j[i]:
-                peak[s], valley[s] = i, i + 1 + k
+            if j[k] < (1.0 - CLEAR_NDR_DROP) * j[i]:
+                peak[s], valley[s] = i, k
                 break
-            if peak[s] < 0 and after[k] < (1.0 - NDR_DROP) * j[i]:
-                peak[s], valley[s] = i, i + 1 + k  # a weak NDR, kept unless a clear one follows
+            if peak[s] < 0 and j[k] < (1.0 - NDR_DROP) * j[i]:
+                peak[s], valley[s] = i, k  # a weak NDR, kept unless a clear one follows
     return peak, valley
+
+
+def _lowest_after(j: np.ndarray, i: int) -> int | None:
+    """Index of the lowest current of the magnitudes ``j`` after index ``i`` and before the
+    current first exceeds ``j[i]`` again (a maximum's valley, module docstring); None where
+    the next current already exceeds it."""
+    after = j[i + 1 :]
+    above = np.nonzero(after > j[i])[0]
+    stop = above[0] if above.size else after.size
+    return None if stop == 0 else i + 1 + int(np.argmin(after[:stop]))
 
 
 #: Peak and valley refinement: biases per round, most rounds, and when a round ends it: the
@@ -894,12 +901,8 @@ def _extend_valleys(devices, model, grid, v_side, j_side, ip, iv, need, sign):
         done = chunk.stop
         for s in rows:  # per stack: where the extended curve's valley is, not physics
             jj = np.concatenate([j_side[s], j_ext[s, :done]])
-            after = jj[ip[s] + 1 :]
-            above = np.nonzero(after > jj[ip[s]])[0]
-            stop = above[0] if above.size else after.size
-            k = ip[s] + 1 + int(np.argmin(after[:stop]))
-            valley[s] = k
-            if _valley_rise(jj, k) > CLEAR_NDR_DROP:  # the current rises clearly after it
+            valley[s] = _lowest_after(jj, ip[s])  # (the peak's next current is below it)
+            if _valley_rise(jj, valley[s]) > CLEAR_NDR_DROP:  # the current rises clearly after it
                 open_[s] = False
     # bounded: the lowest current is the last one computed (still falling there)
     last = v_side.size - 1 + np.count_nonzero(np.isfinite(j_ext), axis=1)

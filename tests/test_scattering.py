@@ -971,12 +971,18 @@ def _plane_wave_coefficients(energy_ev, edges_nm, band_ev, mass_m0):
     return k, coef
 
 
+def _flat_double_barrier(well_nm, barrier_nm, barrier_ev):
+    """Region edges (nm) and band edges (eV) of a flat double barrier for
+    :func:`_plane_wave_coefficients`: emitter, barrier, well, barrier, collector."""
+    edges = [0.0, barrier_nm, barrier_nm + well_nm, 2.0 * barrier_nm + well_nm]
+    return edges, [0.0, barrier_ev, 0.0, barrier_ev, 0.0]
+
+
 def _density_at_inner_interface(energy_ev, *, well_nm, barrier_nm, barrier_ev, mass_m0):
     """|psi|^2 of an emitter scattering state (unit incident amplitude, per unit wave number)
     at the well side of the emitter barrier of a flat double barrier with one mass
     (:func:`_plane_wave_coefficients`)."""
-    edges = [0.0, barrier_nm, barrier_nm + well_nm, 2.0 * barrier_nm + well_nm]
-    band = [0.0, barrier_ev, 0.0, barrier_ev, 0.0]
+    edges, band = _flat_double_barrier(well_nm, barrier_nm, barrier_ev)
     k, coef = _plane_wave_coefficients(energy_ev, edges, band, mass_m0)
     (a_in, _), (a_w, b_w) = coef[-1], coef[2]  # the emitter's and the well's coefficients
     inner = a_w * np.exp(1j * k[2] * edges[1]) + b_w * np.exp(-1j * k[2] * edges[1])
@@ -1030,8 +1036,7 @@ def _well_bulk_weight(*, well_nm, barrier_nm, barrier_ev, mass_m0, above_ev):
     from scipy.integrate import trapezoid  # (numpy's own only from numpy 2.0)
     from scipy.optimize import brentq, minimize_scalar
 
-    edges = [0.0, barrier_nm, barrier_nm + well_nm, 2.0 * barrier_nm + well_nm]
-    band = [0.0, barrier_ev, 0.0, barrier_ev, 0.0]
+    edges, band = _flat_double_barrier(well_nm, barrier_nm, barrier_ev)
     x = np.linspace(barrier_nm, barrier_nm + well_nm, 401)
 
     def chi(e):  # the scattering state in the well, per unit incident flux
