@@ -940,7 +940,8 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     # shows on the coarse grid only as a small maximum of its tails, below the upper lines)
     k = params.n_states + 2
     center, gamma, peak, valid = grid_maxima(grid, profile=probe, n_max=k, n_first=k)
-    gamma, peak = _half_maximum_width(center, gamma, peak, valid, probe)
+    # a maximum without a half-maximum width is no state (NaN: not valid below)
+    gamma, peak = _half_maximum_width(center, gamma, peak, valid, probe, unresolved_width=np.nan)
     e_w, well_nm = _kinetic_ev(center, geo, edge=edge, width=width)
     valid &= (
         np.isfinite(gamma)
@@ -957,7 +958,9 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     return center, gamma, peak, valid
 
 
-def _half_maximum_width(center, gamma, peak, valid, profile, *, peak_at_center=False):
+def _half_maximum_width(
+    center, gamma, peak, valid, profile, *, peak_at_center=False, unresolved_width=None
+):
     """Widths of the lines ``center`` (fitted width ``gamma``, peak ``peak``) from ``T`` at
     ``center +- gamma / 2``: on each side the Lorentzian through the peak and that point,
     ``2 d / sqrt(T_p / T(E_n + d) - 1)``, the two sides averaged. With ``peak_at_center``
@@ -971,6 +974,10 @@ def _half_maximum_width(center, gamma, peak, valid, profile, *, peak_at_center=F
     across a coarse node, and its fitted peak (the parabola's, clipped at 1) with it
     (module note 4). At the half-maximum points the width of a near-Lorentzian line depends
     on the fit only to second order. Exact for a Lorentzian.
+
+    A line whose ``T`` at a half-maximum point is not below its peak has no half-maximum
+    width there (a ripple of a nearly transparent stack, no quasi-bound state's line): it
+    keeps the fit's width, or gets ``unresolved_width`` where that is given.
     """
     ok = valid & np.isfinite(gamma) & (gamma > 0) & np.isfinite(peak) & (peak > 0)
     if not ok.any():
@@ -988,7 +995,8 @@ def _half_maximum_width(center, gamma, peak, valid, profile, *, peak_at_center=F
     width = 0.5 * (side[:, 0] + side[:, 1])  # np.mean's numbers
     out, out_peak = gamma.copy(), np.array(peak, dtype=float, copy=True)
     good = np.isfinite(width) & (width > 0)
-    out[where] = np.where(good, width, gamma[where])
+    fallback = gamma[where] if unresolved_width is None else unresolved_width
+    out[where] = np.where(good, width, fallback)
     out_peak[where] = np.where(good, at_peak, peak[where])
     return out, out_peak
 
