@@ -426,7 +426,8 @@ def _check_area_weights(area_weights, n_stacks: int) -> np.ndarray:
 @dataclass
 class _Brackets:
     """:func:`_refine`'s state, per extremum: bracket centre and half span (V), best current
-    (``sign * J``), nearest fallen sample (bias and current), still open, and, for a cliff
+    (``sign * J``), nearest fallen sample (bias, current and well charge, NaN where not
+    known), still open, and, for a cliff
     round's bracket, its two known ends (biases, ``sign * J`` and well charges, by bias);
     ``kept``: the self-consistent solve at the best point (see :func:`_refine`)."""
 
@@ -435,6 +436,7 @@ class _Brackets:
     best: np.ndarray
     drop_v: np.ndarray
     drop_j: np.ndarray
+    drop_w: np.ndarray
     open_: np.ndarray
     known: np.ndarray
     ends_v: np.ndarray
@@ -452,6 +454,7 @@ class _Brackets:
             best=np.full(n, -np.inf),
             drop_v=np.full(n, np.inf),
             drop_j=np.full(n, np.nan),
+            drop_w=np.full(n, np.nan),
             open_=np.ones(n, bool),
             known=np.zeros(n, bool),
             ends_v=np.zeros((n, 2)),
@@ -509,7 +512,8 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
         for group, ends in groups:
             if group.size:
                 _refine_round(devices, model, grid, sign, peaks, st, keep, group, ends)
-    return st.center, sign * st.best, st.drop_v, st.drop_j, (st.kept if keep is not None else None)
+    kept = st.kept if keep is not None else None
+    return st.center, sign * st.best, (st.drop_v, st.drop_j, st.drop_w), kept
 
 
 def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
@@ -557,6 +561,8 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     nearer = v_fall < st.drop_v[idx]
     st.drop_v[idx] = np.where(nearer, v_fall, st.drop_v[idx])
     st.drop_j[idx] = np.where(nearer, sgn * j[rows, first], st.drop_j[idx])
+    if well is not None:
+        st.drop_w[idx] = np.where(nearer, well[rows, first], st.drop_w[idx])
     edge = (top == 0) | (top == n_points - 1)
     # a best sample on the bracket's edge: the bracket moves there and, where its ends were
     # not known, doubles, so that an extremum some spans away is reached in a few rounds
@@ -738,26 +744,28 @@ def _take_solution(solution, rows):
     )
 
 
-def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
+def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
     """Where the self-consistent I-V is bistable above its peak: the up sweep's branch.
 
     Every bias of a sweep is solved from the linear drop with no well charge,
     which lands on the low-charge branch where two solutions exist. The up
     sweep (a curve tracer going up) instead carries the well charge past the
-    peak. This takes the solve at the peak bias ``vp`` (``peak``: grid and
-    solution, the one made for the peak's band profile), continues it to
-    ``v_after`` (the nearest refinement sample above the peak that had
-    fallen by :data:`NDR_DROP`, current ``j_after``) and, where the continued
+    peak. This takes the last single solve on the charged branch, at ``v_start``
+    (``peak``: grid and solution; the peak's own where the branch falls off just above
+    it), continues it to
+    ``v_after`` (the first bias above it whose single solve has fallen off the branch,
+    :func:`_collapse_bracket`; its current ``j_after``) and, where the continued
     current exceeds ``j_after`` by :data:`BISTABLE_EXCESS`, follows the
-    charged branch upwards (steps doubled while it holds, halved when the
-    current falls off it, from :data:`FOLD_FIRST_STEP_V` to :data:`FOLD_TOLERANCE_V`, at most
-    :data:`FOLD_STEPS` solves; not beyond ``v_end``, the valley), as
+    charged branch upwards (steps doubled while it holds, halved where the continued
+    solve's charge falls below :data:`FOLD_CHARGE_COLLAPSE` of the start's, from
+    :data:`FOLD_FIRST_STEP_V` to :data:`FOLD_TOLERANCE_V`, at most :data:`FOLD_STEPS`
+    solves; not beyond ``v_end``, the valley), as
     :func:`sweep_hysteresis` does on a grid. Every stack of the batch takes
     each step; stacks already settled repeat their last bias.
 
     Returns the up sweep's peak bias and current, and the window (last bias
-    on the charged branch minus ``vp``; 0 where the I-V is single-valued). ``peak`` is
-    the node positions (``(n_stacks, n_nodes)``, nm) and solution of the peak's solve.
+    on the charged branch minus ``v_start``; 0 where the I-V is single-valued). ``peak`` is
+    the node positions (``(n_stacks, n_nodes)``, nm) and solution of the start's solve.
     The down branch is taken to be the single-solve one (checked against
     :func:`sweep_hysteresis` on the InP example stack: the down sweep follows
     the single solves there).
@@ -769,8 +777,9 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
     )
 
     options = {"slice_nm": model.slice_nm}
-    # the solve at vp (made for the peak's band profile, of a batch that may hold more
-    # stacks, so on a grid with more padding slices per layer): carried to this batch's grid
+    # the solve at v_start (the peak's, made for its band profile, or the sweep's, both of a
+    # batch that may hold more stacks, so on a grid with more padding slices per layer):
+    # carried to this batch's grid
     source_center_nm, sol = peak
     target_center_nm = extended_slice_grid(table, slice_nm=model.slice_nm).center_nm
     sol = replace(
@@ -785,7 +794,7 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
         whose step counts), a stack whose well charge collapses below
         :data:`FOLD_CHARGE_COLLAPSE` of its start has left the charged branch: its solve
         stops there and its current is NaN (not computed when no stack needs one)."""
-        abandon = None if need is None else FOLD_CHARGE_COLLAPSE * state.well_sheet_cm2
+        abandon = None if need is None else FOLD_CHARGE_COLLAPSE * sol.well_sheet_cm2
         g_, s_ = solve_stack_poisson(
             table,
             v[:, None],
@@ -805,12 +814,12 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
     try:
         state, j_hi = continued(v_after, sol)
     except ElectrostaticsConvergenceError:
-        if vp.size == 1:
+        if v_start.size == 1:
             raise
-        return _up_branch_each(table, model, grid, vp, v_after, j_after, v_end, peak=peak)
+        return _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, peak=peak)
     bistable = j_hi > (1.0 + BISTABLE_EXCESS) * j_after
-    best_v, best_j = np.where(bistable, v_after, vp), np.where(bistable, j_hi, -np.inf)
-    v_hi, step = v_after.copy(), np.maximum(v_after - vp, FOLD_FIRST_STEP_V)
+    best_v, best_j = np.where(bistable, v_after, v_start), np.where(bistable, j_hi, -np.inf)
+    v_hi, step = v_after.copy(), np.maximum(v_after - v_start, FOLD_FIRST_STEP_V)
     active, fell = bistable.copy(), np.zeros(bistable.shape, bool)
     for _ in range(FOLD_STEPS):
         if not np.any(active):
@@ -819,10 +828,12 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
         try:
             trial, j_try = continued(v_try, state, need=active)
         except ElectrostaticsConvergenceError:
-            if vp.size > 1:  # one stack's failure must not end its partners' branches
-                return _up_branch_each(table, model, grid, vp, v_after, j_after, v_end, peak=peak)
+            if v_start.size > 1:  # one stack's failure must not end its partners' branches
+                return _up_branch_each(
+                    table, model, grid, v_start, v_after, j_after, v_end, peak=peak
+                )
             break  # keep the branch found so far
-        hold = active & (j_try >= (1.0 - NDR_DROP) * j_hi)  # still on the charged branch
+        hold = active & np.isfinite(j_try)  # the charge held: still on the charged branch
         state = replace(
             state,
             potential_ev=np.where(hold[:, None, None], trial.potential_ev, state.potential_ev),
@@ -834,10 +845,10 @@ def _up_branch(table, model, grid, vp, v_after, j_after, v_end, *, peak):
         fell |= active & ~hold
         step = np.where(hold, 2.0 * step, 0.5 * step)
         active &= ~(fell & (step < FOLD_TOLERANCE_V)) & ~(hold & (v_try >= v_end))
-    return best_v, best_j, np.where(bistable, v_hi - vp, 0.0)
+    return best_v, best_j, np.where(bistable, v_hi - v_start, 0.0)
 
 
-def _up_branch_each(table, model, grid, vp, v_after, j_after, v_end, *, peak):
+def _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
     """:func:`_up_branch` of each stack alone, once a solve of the batch failed to converge:
     each stack's branch is then the one it has alone, whatever its partners do."""
     center_nm, solution = peak
@@ -846,13 +857,13 @@ def _up_branch_each(table, model, grid, vp, v_after, j_after, v_end, *, peak):
             table.take([i]),
             model,
             grid,
-            vp[[i]],
+            v_start[[i]],
             v_after[[i]],
             j_after[[i]],
             v_end[[i]],
             peak=(center_nm[[i]], _take_solution(solution, [i])),
         )
-        for i in range(vp.size)
+        for i in range(v_start.size)
     ]
     return tuple(np.concatenate(parts) for parts in zip(*alone, strict=True))
 
@@ -947,30 +958,114 @@ def _at_bias_metrics(devices, at_bias_v, area_um2, model, grid) -> dict[str, np.
     return out
 
 
-def _up_sweep_peaks(table, model, grid, vp, jp, vv, after_v, after_j, peak_solution):
+def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept):
     """The up sweep's peak (bias, current) and bistable window of each stack with NDR
-    (``table``: those stacks): :func:`_up_branch` for the stacks whose current fell just
-    above the peak (``after_v`` before the valley ``vv``), the single-solve peak elsewhere."""
+    (``table``: those stacks): :func:`_up_branch` from the last single solve on the charged
+    branch above the peak, for the stacks whose single solves fall off it before the valley
+    ``vv`` (:func:`_collapse_bracket`), the single-solve peak elsewhere."""
     vp_up, jp_up, window = vp.copy(), jp.copy(), np.zeros(vp.size)
-    after = np.isfinite(after_v) & (after_v < vv)
-    if not np.any(after):
+    v_start, start, v_after, j_after = _collapse_bracket(
+        table, model, grid, vp, vv, after, peak_solution, swept
+    )
+    found = np.isfinite(v_after)
+    if not np.any(found):
         return vp_up, jp_up, window
-    k = np.nonzero(after)[0]
+    k = np.nonzero(found)[0]
     up_v, up_j, fold = _up_branch(
         table.take(k),
         model,
         grid,
-        vp[k],
-        after_v[k],
-        after_j[k],
+        v_start[k],
+        v_after[k],
+        j_after[k],
         vv[k],
-        peak=(peak_solution[0].center_nm[k], _take_solution(peak_solution[1], k)),
+        peak=(start[0][k], _take_solution(start[1], k)),
     )
     better = up_j > jp[k]
     vp_up[k] = np.where(better, up_v, vp[k])
     jp_up[k] = np.where(better, up_j, jp[k])
     window[k] = fold
     return vp_up, jp_up, window
+
+
+def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
+    """Where the single solves fall off the charged branch above each peak ``vp`` (before
+    the valley ``vv``): the first bias whose well charge lies below
+    :data:`FOLD_CHARGE_COLLAPSE` of the peak's (a peak's charge of at least
+    :data:`JUMP_FLOOR_CM2`), to :data:`FOLD_TOLERANCE_V`, and the last single solve on the
+    branch below it (the up branch's start).
+
+    The bracket comes from the sweep's own points (``swept``: biases ``|V|``, currents,
+    node positions, potentials and well charges of the stacks, or None) and the
+    refinement's first fallen sample (``after``: bias, current, charge), and is halved by
+    single solves until it is narrower than :data:`FOLD_TOLERANCE_V`: so it does not
+    depend on which samples the grid happened to hold (on the GaAs example the single
+    solves fall off 5.5 mV after a smooth top, which the refinement's samples reached on
+    61 biases and not on 121; DEVELOPERS.md). Without charges (mixed devices) the
+    refinement's first fallen sample is taken, from the peak's solve.
+
+    Returns the start's bias and solve (node positions ``(n, n_nodes)`` and solution, on
+    ``table``'s grid) and the first bias off the branch with its single-solve current (NaN
+    where the single solves stay on the branch).
+    """
+    from .electrostatics import PoissonSolution, extended_slice_grid, potential_on_grid
+
+    after_v, after_j, after_w = after
+    source_nm, peak = peak_solution[0].center_nm, peak_solution[1]
+    target_nm = extended_slice_grid(table, slice_nm=model.slice_nm).center_nm
+    pot = potential_on_grid(
+        peak.potential_ev, source_center_nm=source_nm, target_center_nm=target_nm
+    )[:, 0]
+    well = peak.well_sheet_cm2[:, 0].copy()
+    v_lo, v_hi, j_hi = vp.copy(), np.full(vp.size, np.nan), np.full(vp.size, np.nan)
+    limit = FOLD_CHARGE_COLLAPSE * well
+    known = np.isfinite(after_w) | (swept is not None)  # the charges (else the old rule)
+    charged = ~known | (well >= JUMP_FLOOR_CM2)  # a charge worth a branch at the peak
+    fallen = (after_v < vv) & ((after_w < limit) | ~known)
+    v_hi, j_hi = np.where(fallen, after_v, v_hi), np.where(fallen, after_j, j_hi)
+    if swept is not None:
+        v_sw, j_sw, center_sw, u_sw, w_sw = swept
+        carried = potential_on_grid(u_sw, source_center_nm=center_sw, target_center_nm=target_nm)
+        for s in range(vp.size):
+            inside = (v_sw > vp[s]) & (v_sw < min(vv[s], np.nan_to_num(v_hi[s], nan=np.inf)))
+            gone = np.nonzero(inside & (w_sw[s] < limit[s]))[0]
+            if gone.size:
+                v_hi[s], j_hi[s] = v_sw[gone[0]], j_sw[s, gone[0]]
+            held = np.nonzero(inside & (v_sw < v_hi[s]) & (w_sw[s] >= limit[s]))[0]
+            if held.size:
+                v_lo[s], pot[s], well[s] = v_sw[held[-1]], carried[s, held[-1]], w_sw[s, held[-1]]
+    v_hi = np.where(charged, v_hi, np.nan)
+    # halve the bracket by single solves of the stacks whose bracket is still wide
+    hi_pot = np.full_like(pot, np.nan)
+    while True:
+        k = np.nonzero(known & np.isfinite(v_hi) & (v_hi - v_lo >= FOLD_TOLERANCE_V))[0]
+        if not k.size:
+            break
+        mid = 0.5 * (v_lo[k] + v_hi[k])
+        sub = table.take(k)
+        g, sol = _solve_at(sub, mid[:, None], model)
+        u = potential_on_grid(
+            sol.potential_ev, source_center_nm=g.center_nm, target_center_nm=target_nm[k]
+        )[:, 0]
+        on = sol.well_sheet_cm2[:, 0] >= limit[k]
+        up, down = k[on], k[~on]
+        v_lo[up], pot[up], well[up] = mid[on], u[on], sol.well_sheet_cm2[on, 0]
+        v_hi[down], hi_pot[down], j_hi[down] = mid[~on], u[~on], np.nan
+    redo = np.nonzero(np.isfinite(v_hi) & np.isnan(j_hi))[0]
+    if redo.size:  # the single-solve current where the bracket's upper end moved
+        sub = table.take(redo)
+        sub_nm = extended_slice_grid(sub, slice_nm=model.slice_nm)
+        u = potential_on_grid(
+            hi_pot[redo][:, None], source_center_nm=target_nm[redo],
+            target_center_nm=sub_nm.center_nm,
+        )  # fmt: skip
+        profile = profile_from_potential(sub, sub_nm, u)
+        j_hi[redo] = _current_of_profile(profile, sub, v_hi[redo][:, None], model, grid)[:, 0]
+    start = PoissonSolution(
+        potential_ev=pot[:, None], electron_cm3=np.zeros_like(pot[:, None]), iterations=0,
+        well_sheet_cm2=well[:, None],
+    )  # fmt: skip
+    return v_lo, (target_nm, start), v_hi, j_hi
 
 
 def _metrics_branch(bias: np.ndarray) -> tuple[np.ndarray, float] | None:
@@ -987,9 +1082,10 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     """Peak and valley (bias, current) of the devices ``rows`` from their sweep points
     ``ip``, ``iv`` on the branch ``v_side``, ``j_side`` (magnitudes), refined by
     :func:`_refine` with ``refine``; a valley ``bounded`` by the sweep stays on its point.
-    Returns ``vp, jp, vv, jv``, the first point past each peak that fell ``(v, j)`` (None
-    without refinement) and the self-consistent solve at each refined peak (the peak's
-    entries of :func:`_refine`'s kept solves; None without them)."""
+    Returns ``vp, jp, vv, jv``, the first point past each peak that fell ``(v, j, well
+    charge)`` (None without refinement; the charge NaN where not known) and the
+    self-consistent solve at each refined peak (the peak's entries of :func:`_refine`'s
+    kept solves; None without them)."""
     vp, jp = v_side[ip[rows]], j_side[rows, ip[rows]]
     vv, jv = v_side[iv[rows]], j_side[rows, iv[rows]]
     if not refine:
@@ -997,7 +1093,7 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     step = np.abs(np.diff(v_side)).max() if v_side.size > 1 else 0.0
     n = rows.size
     extremum = np.concatenate([np.ones(n), -np.ones(n)])  # maximise J at peaks, -J at valleys
-    c, y, after_v, after_j, kept = _refine(
+    c, y, (after_v, after_j, after_w), kept = _refine(
         devices.take(rows).twice(),
         model,
         grid,
@@ -1013,7 +1109,7 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     jv = np.where(interior, np.minimum(y[n:], jv), jv)
     # the refinement's solve at its best point, vp
     at_peak = None if kept is None or any(k is None for k in kept[:n]) else kept[:n]
-    return vp, jp, vv, jv, (after_v[:n], after_j[:n]), at_peak
+    return vp, jp, vv, jv, (after_v[:n], after_j[:n], after_w[:n]), at_peak
 
 
 def _peak_figures(
@@ -1024,10 +1120,11 @@ def _peak_figures(
     peak's profile and, with the self-consistent model and ``up_sweep``, the up sweep's
     peak and bistable window (:func:`_up_sweep_peaks`; the peak's solve is shared).
     ``curve`` is ``(|V|, J, table)`` of the branch and every device; ``extrema`` is
-    ``(vp, jp, vv, after, at_peak)`` from :func:`_peak_and_valley` (``at_peak``: the
-    refinement's solves at ``vp``, which spare the peak's own solve, or None)."""
+    ``(vp, jp, vv, after, at_peak, swept)``: the first five from :func:`_peak_and_valley`
+    (``at_peak``: the refinement's solves at ``vp``, which spare the peak's own solve, or
+    None), ``swept`` the sweep's points of ``rows`` (see :func:`_collapse_bracket`) or None."""
     v_abs, j_side, table = curve
-    vp, jp, vv, after, at_peak = extrema
+    vp, jp, vv, after, at_peak, swept = extrema
     peak_solution = None  # the self-consistent solve at the peak, shared with the up branch
     if model.electrostatics == "self-consistent":
         peak_solution = (
@@ -1056,7 +1153,7 @@ def _peak_figures(
     vp_up, jp_up, window = vp, jp, np.zeros(rows.size)
     if up_sweep and peak_solution is not None and after is not None:
         vp_up, jp_up, window = _up_sweep_peaks(
-            peaked, model, grid, vp, jp, vv, after[0], after[1], peak_solution
+            peaked, model, grid, vp, jp, vv, after, peak_solution, swept
         )
     metrics["peak_current_density_up_a_cm2"][rows] = jp_up
     metrics["peak_voltage_up_v"][rows] = vp_up
@@ -1122,7 +1219,14 @@ def sweep(
     if area_weights is not None:
         area_weights = _check_area_weights(area_weights, table.n_stacks)
     devices = _Devices(table, area_weights)
-    j = devices.current(bias, model, grid)
+    # the sweep's self-consistent solves (one stack per device): their well charges bracket
+    # where the single solves fall off a charged branch above a peak (_collapse_bracket)
+    solves: list | None = (
+        []
+        if refine and devices.weights is None and model.electrostatics == "self-consistent"
+        else None
+    )
+    j = devices.current(bias, model, grid, keep=solves)
     table = devices.largest()  # the stack-level figures below: one stack per device
     metrics = {name: np.full(devices.n, np.nan) for name in METRIC_NAMES}
     metrics.update(_at_bias_metrics(devices, at_bias_v, area_um2, model, grid))
@@ -1167,6 +1271,16 @@ def sweep(
     metrics["delta_current_density_a_cm2"][rows] = jp - jv
     metrics["delta_voltage_v"][rows] = np.abs(vv - vp)
     metrics[VALLEY_BOUNDED][rows] = bounded[rows].astype(float)
+    swept = None  # the branch's sweep points of the stacks rows: biases, currents, solves
+    if solves:
+        g, sol = solves[0]
+        swept = (
+            np.abs(bias[sel]),
+            j_side[rows, : sel.size],
+            g.center_nm[rows],
+            sol.potential_ev[rows][:, sel],
+            sol.well_sheet_cm2[rows][:, sel],
+        )
     _peak_figures(
         metrics,
         table.take(rows),
@@ -1175,7 +1289,7 @@ def sweep(
         rows=rows,
         up_sweep=refine and sign > 0,
         curve=(np.abs(v_side), j_side, table),
-        extrema=(vp, jp, vv, after, at_peak),
+        extrema=(vp, jp, vv, after, at_peak, swept),
         series_resistance_ohm_um2=series_resistance_ohm_um2,
     )
     return curves(bias, j, metrics)
