@@ -235,10 +235,10 @@ def run(args) -> int:
                 )
             if (m.get("bistable_window_v") or 0.0) > 0.0:
                 print(
-                    f"  bistable: the up sweep stays on the charged branch for "
-                    f"{m['bistable_window_v'] * 1e3:.1f} mV above the peak, to "
-                    f"{m['peak_current_density_up_a_cm2'] / 1e3:.2f} kA/cm² at "
-                    f"{m['peak_voltage_up_v'] * 1e3:.0f} mV (the curve is the down sweep's branch)"
+                    f"  bistable over {m['bistable_window_v'] * 1e3:.1f} mV above the peak: an "
+                    "up sweep keeps the well's charge there (the curve is the down sweep's "
+                    f"branch); the up sweep's peak {m['peak_current_density_up_a_cm2'] / 1e3:.3g}"
+                    f" kA/cm² at {m['peak_voltage_up_v'] * 1e3:.0f} mV"
                 )
         print(f"  results in {out}/")
     return 0

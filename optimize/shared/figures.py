@@ -250,6 +250,7 @@ def _peak_valley_text(m: dict, extended: bool, series_resistance_ohm_um2: float)
     return (
         f"first NDR peak: $J_p$ = {m['peak_current_density_a_cm2'] / 1e3:.3g} kA/cm² at "
         f"{m['peak_voltage_v'] * 1e3:.0f} mV{terminal}\n{valley_text}\n{pvcr}{beyond}"
+        + _bistable_note(m)
     )
 
 
@@ -258,8 +259,8 @@ def _bistable_note(m: dict) -> str:
     if not (m.get("bistable_window_v") or 0.0) > 0.0:
         return ""
     return (
-        f"\nbistable {m['bistable_window_v'] * 1e3:.0f} mV, up sweep "
-        f"{m['peak_current_density_up_a_cm2'] / 1e3:.3g} kA/cm$^2$"
+        f"\nbistable over {m['bistable_window_v'] * 1e3:.2g} mV above the peak\n(up sweep's "
+        f"peak {m['peak_current_density_up_a_cm2'] / 1e3:.3g} kA/cm²)"
     )
 
 
