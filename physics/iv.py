@@ -1035,21 +1035,21 @@ def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
             if held.size:
                 v_lo[s], pot[s], well[s] = v_sw[held[-1]], carried[s, held[-1]], w_sw[s, held[-1]]
     v_hi = np.where(charged, v_hi, np.nan)
-    # halve the bracket by single solves of the stacks whose bracket is still wide
-    hi_pot = np.full_like(pot, np.nan)
+    # halve the bracket by single solves of the stacks whose bracket is still wide (a stack
+    # whose solve fails keeps the bracket it has)
+    hi_pot, failed = np.full_like(pot, np.nan), np.zeros(vp.size, bool)
     while True:
-        k = np.nonzero(known & np.isfinite(v_hi) & (v_hi - v_lo >= FOLD_TOLERANCE_V))[0]
+        wide = known & ~failed & np.isfinite(v_hi) & (v_hi - v_lo >= FOLD_TOLERANCE_V)
+        k = np.nonzero(wide)[0]
         if not k.size:
             break
         mid = 0.5 * (v_lo[k] + v_hi[k])
-        sub = table.take(k)
-        g, sol = _solve_at(sub, mid[:, None], model)
-        u = potential_on_grid(
-            sol.potential_ev, source_center_nm=g.center_nm, target_center_nm=target_nm[k]
-        )[:, 0]
-        on = sol.well_sheet_cm2[:, 0] >= limit[k]
+        u, charge = _single_solves(table.take(k), mid, model, target_nm[k])
+        failed[k] = np.isnan(charge)
+        k, mid, u, charge = k[~failed[k]], mid[~failed[k]], u[~failed[k]], charge[~failed[k]]
+        on = charge >= limit[k]
         up, down = k[on], k[~on]
-        v_lo[up], pot[up], well[up] = mid[on], u[on], sol.well_sheet_cm2[on, 0]
+        v_lo[up], pot[up], well[up] = mid[on], u[on], charge[on]
         v_hi[down], hi_pot[down], j_hi[down] = mid[~on], u[~on], np.nan
     redo = np.nonzero(np.isfinite(v_hi) & np.isnan(j_hi))[0]
     if redo.size:  # the single-solve current where the bracket's upper end moved
@@ -1066,6 +1066,28 @@ def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
         well_sheet_cm2=well[:, None],
     )  # fmt: skip
     return v_lo, (target_nm, start), v_hi, j_hi
+
+
+def _single_solves(table, bias_v, model, target_nm):
+    """The single solve of each stack at its bias ``bias_v`` (``(n,)``): its potential on the
+    node positions ``target_nm`` and its well charge; NaN for a stack whose solve does not
+    converge even alone (its partners' are their own either way)."""
+    from .electrostatics import ElectrostaticsConvergenceError, potential_on_grid
+
+    try:
+        g, sol = _solve_at(table, bias_v[:, None], model)
+    except ElectrostaticsConvergenceError:
+        if table.n_stacks == 1:
+            return np.full(target_nm.shape, np.nan), np.full(1, np.nan)
+        parts = [
+            _single_solves(table.take([i]), bias_v[[i]], model, target_nm[[i]])
+            for i in range(table.n_stacks)
+        ]
+        return np.concatenate([u for u, _ in parts]), np.concatenate([w for _, w in parts])
+    u = potential_on_grid(
+        sol.potential_ev, source_center_nm=g.center_nm, target_center_nm=target_nm
+    )
+    return u[:, 0], sol.well_sheet_cm2[:, 0]
 
 
 def _metrics_branch(bias: np.ndarray) -> tuple[np.ndarray, float] | None:

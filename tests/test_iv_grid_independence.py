@@ -363,3 +363,41 @@ def test_a_valley_the_current_hardly_rises_from_is_followed_beyond_the_end() -> 
     assert coarse["valley_current_density_a_cm2"] == pytest.approx(
         fine["valley_current_density_a_cm2"], rel=J_RTOL
     )
+
+
+def test_a_failed_solve_in_the_collapse_bracket_leaves_the_partners_alone(monkeypatch) -> None:
+    """A single solve that does not converge while the bias where the single solves lose the
+    well's charge is halved (physics/iv.py, _collapse_bracket) ends no sweep: that stack keeps
+    the bracket it has, and its batch partner's window is the one it gets alone. A property
+    of the control flow (no outside reference): the failure is forced on the second of two
+    copies of the GaAs example (its collector spacer 0.01 nm thicker) inside the bracket."""
+    from wellwright.physics import iv as iv_module
+    from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
+
+    stack = load_stack(NARROW)
+    alone = stack.table()
+    thick = alone.thickness_nm.copy()
+    thick[0, -2] += 0.01
+    pair = alone.take(np.array([0, 0])).with_thickness_nm(
+        np.vstack([alone.thickness_nm[0], thick[0]])
+    )
+    marked = float(thick[0, -2])
+    solve = iv_module._solve_at
+    calls: list = []
+
+    def failing(table, bias_v, model):
+        inside = np.any((bias_v > 0.3170) & (bias_v < 0.3198))
+        if bias_v.shape[-1] == 1 and inside and np.any(table.thickness_nm[:, -2] == marked):
+            calls.append(bias_v.size)
+            raise ElectrostaticsConvergenceError("forced in the test")
+        return solve(table, bias_v, model)
+
+    bias = np.linspace(0.0, 1.0, 61)
+    expected = sweep(alone, bias, model=stack.model).metrics_of(0)
+    monkeypatch.setattr(iv_module, "_solve_at", failing)
+    both = sweep(pair, bias, model=stack.model)
+    first = both.metrics_of(0)
+    for name in ("bistable_window_v", "peak_current_density_up_a_cm2", "peak_voltage_up_v"):
+        assert first[name] == pytest.approx(expected[name], rel=1e-6, abs=1e-9), name
+    assert np.isfinite(both.metrics_of(1)["bistable_window_v"])
+    assert calls  # the failure was met
