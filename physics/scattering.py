@@ -1052,8 +1052,8 @@ def _state_widths(
     edge, mass, width, geo, barriers, e_n, width_c, peak_c, matched, kt, params, probe, bound
 ):
     """Per state: ``Gamma_R``, the scale of ``Gamma_L(z)``, ``Gamma_t`` and the rates (notes 4-5);
-    ``probe``: the width and peak of the probe's line of each state; ``bound``: the share of
-    the rates each state takes (:func:`_bound_share`)."""
+    ``probe``: the width, peak and centre of the probe's line of each state; ``bound``: the
+    share of the rates each state takes (:func:`_bound_share`)."""
     n = edge.shape[-1]
     z = e_n[..., None]
     (tau_r,) = _lead_coupling(z, (edge[..., -1],), mass[..., n - 1], barriers[1], edge, mass, width)
@@ -1079,19 +1079,24 @@ def _state_widths(
         e_n, geo, edge=edge, mass=mass, width=width, kinetic=kinetic, kt_ev=kt, params=params
     )
     g_ifr, g_lo = bound * g_ifr, bound * g_lo
-    # near the emitter edge the device line is no clean line (note 4): its scale and drain
-    # width are mixed with the probe's, the line's own only where the energies the channel
-    # samples about the state (its supply's kT and its line's half width) lie above the
-    # matching threshold (the widths), so that the weight is 0 where matching stops
+    # near the emitter edge the device line is no clean line (note 4): its scale, drain
+    # width, coherent width and centre are mixed with the probe's, the line's own only where
+    # the energies the channel samples about the state (its supply's kT and its line's half
+    # width) lie above the matching threshold (the widths), so that the weight is 0 where
+    # matching stops (the centre and the coherent width unmixed until 2026-12-05: a 3 % step
+    # of the current there; the couplings and scattering widths stay at the line's centre)
     scale_probe = gamma_l_probe / np.maximum(tau_l_probe, 1e-300)
     spread = kt[..., None] + 0.5 * (width_c + g_ifr)
     trust = -np.expm1(-np.maximum(e_n - np.maximum(probe[0], width_c), 0.0) / spread)
     line_scale = scale
     scale = _towards_probe(trust, scale, scale_probe, matched)
     gamma_r = _towards_probe(trust, gamma_r, gamma_r_probe, matched)
-    gamma_coh = np.where(matched, width_c, scale * tau_l_dev + gamma_r)
+    unmatched_coh = scale * tau_l_dev + gamma_r
+    gamma_coh = np.where(
+        matched, _towards_probe(trust, width_c, unmatched_coh, matched), unmatched_coh
+    )
     return {
-        "e_n": e_n,
+        "e_n": np.where(matched, probe[2] + trust * (e_n - probe[2]), e_n),
         "gamma_r": gamma_r,
         "scale": scale,
         "line_scale": line_scale,  # the state's own line's, before the mixing (diagnostics)
@@ -1398,7 +1403,7 @@ def sequential_fluxes_ev2(
         matched,
         kt,
         params,
-        (gamma_p, peak_p),
+        (gamma_p, peak_p, e_p),
         _bound_share(e_p, gamma_p, top),
     )
     # the states' coherent transmission goes from width Gamma to Gamma_t (Buttiker)
