@@ -478,6 +478,18 @@ def test_no_channel_through_lines_that_are_not_states_of_the_well():
     assert np.all(np.abs(off) < np.log(2.0))
 
 
+def _total_and_coherent(stack, bias):
+    """The current of ``stack`` over ``bias`` with its own model and with the coherent one
+    alone, A/cm^2 (the X-valley and grid-accuracy warnings: not tested here)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        coherent_model = replace(stack.model, transport="coherent")
+        return (
+            current_at_bias(stack.table(), bias, model=stack.model)[0],
+            current_at_bias(stack.table(), bias, model=coherent_model)[0],
+        )
+
+
 def test_no_channel_through_ripples_of_a_nearly_transparent_stack():
     """A maximum of the probe's ``T`` whose ``T`` half a fitted width away is not below it
     is a ripple, not a quasi-bound state's line (a line falls to half its peak there:
@@ -498,12 +510,7 @@ def test_no_channel_through_ripples_of_a_nearly_transparent_stack():
         64.0,
     )
     bias = np.linspace(0.40, 0.85, 91)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        total = current_at_bias(stack.table(), bias, model=stack.model)[0]
-        coherent = current_at_bias(
-            stack.table(), bias, model=replace(stack.model, transport="coherent")
-        )[0]
+    total, coherent = _total_and_coherent(stack, bias)
     assert total == pytest.approx(coherent, rel=1e-9)
 
 
@@ -528,12 +535,7 @@ def test_no_step_where_a_state_stops_being_matched_near_the_emitter_edge():
         model={"nonparabolicity": False},
     )
     bias = np.linspace(0.240, 0.255, 31)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        total = current_at_bias(stack.table(), bias, model=stack.model)[0]
-        coherent = current_at_bias(
-            stack.table(), bias, model=replace(stack.model, transport="coherent")
-        )[0]
+    total, coherent = _total_and_coherent(stack, bias)
     share = total / coherent - 1.0
     print(np.c_[bias, share])
     assert np.max(np.abs(np.diff(share))) < 5e-3
