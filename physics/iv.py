@@ -1025,7 +1025,7 @@ def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
     v_hi, j_hi = np.where(fallen, after_v, v_hi), np.where(fallen, after_j, j_hi)
     if swept is not None:
         v_sw, j_sw, center_sw, u_sw, w_sw = swept
-        carried = potential_on_grid(u_sw, source_center_nm=center_sw, target_center_nm=target_nm)
+        last_held = np.full(vp.size, -1)  # the sweep point each start moves to (-1: the peak)
         for s in range(vp.size):
             inside = (v_sw > vp[s]) & (v_sw < min(vv[s], np.nan_to_num(v_hi[s], nan=np.inf)))
             gone = np.nonzero(inside & (w_sw[s] < limit[s]))[0]
@@ -1033,7 +1033,16 @@ def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
                 v_hi[s], j_hi[s] = v_sw[gone[0]], j_sw[s, gone[0]]
             held = np.nonzero(inside & (v_sw < v_hi[s]) & (w_sw[s] >= limit[s]))[0]
             if held.size:
-                v_lo[s], pot[s], well[s] = v_sw[held[-1]], carried[s, held[-1]], w_sw[s, held[-1]]
+                last_held[s] = held[-1]
+        moved = np.nonzero(last_held >= 0)[0]
+        if moved.size:  # only those points' potentials are carried to this grid
+            at = last_held[moved]
+            v_lo[moved], well[moved] = v_sw[at], w_sw[moved, at]
+            pot[moved] = potential_on_grid(
+                u_sw[moved, at][:, None],
+                source_center_nm=center_sw[moved],
+                target_center_nm=target_nm[moved],
+            )[:, 0]
     v_hi = np.where(charged, v_hi, np.nan)
     # halve the bracket by single solves of the stacks whose bracket is still wide (a stack
     # whose solve fails keeps the bracket it has)
@@ -1070,24 +1079,26 @@ def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
 
 def _single_solves(table, bias_v, model, target_nm):
     """The single solve of each stack at its bias ``bias_v`` (``(n,)``): its potential on the
-    node positions ``target_nm`` and its well charge; NaN for a stack whose solve does not
-    converge even alone (its partners' are their own either way)."""
+    node positions ``target_nm`` and its well charge; where the batch does not converge each
+    stack alone, NaN for one that does not converge alone either (as :func:`_currents_each`)."""
     from .electrostatics import ElectrostaticsConvergenceError, potential_on_grid
 
+    def solved(sub, v, nm):
+        g, sol = _solve_at(sub, v[:, None], model)
+        u = potential_on_grid(sol.potential_ev, source_center_nm=g.center_nm, target_center_nm=nm)
+        return u[:, 0], sol.well_sheet_cm2[:, 0]
+
     try:
-        g, sol = _solve_at(table, bias_v[:, None], model)
+        return solved(table, bias_v, target_nm)
     except ElectrostaticsConvergenceError:
-        if table.n_stacks == 1:
-            return np.full(target_nm.shape, np.nan), np.full(1, np.nan)
-        parts = [
-            _single_solves(table.take([i]), bias_v[[i]], model, target_nm[[i]])
-            for i in range(table.n_stacks)
-        ]
-        return np.concatenate([u for u, _ in parts]), np.concatenate([w for _, w in parts])
-    u = potential_on_grid(
-        sol.potential_ev, source_center_nm=g.center_nm, target_center_nm=target_nm
-    )
-    return u[:, 0], sol.well_sheet_cm2[:, 0]
+        u, charge = np.full(target_nm.shape, np.nan), np.full(bias_v.size, np.nan)
+        for i in range(table.n_stacks):
+            try:
+                one_u, one_charge = solved(table.take([i]), bias_v[[i]], target_nm[[i]])
+            except ElectrostaticsConvergenceError:
+                continue
+            u[i], charge[i] = one_u[0], one_charge[0]
+        return u, charge
 
 
 def _metrics_branch(bias: np.ndarray) -> tuple[np.ndarray, float] | None:
