@@ -1182,7 +1182,8 @@ class _WellChargeStep:
             * 1e-4
         )[..., None]
         self.states, self.passes = states, passes
-        self.settings = (1.0 / HBAR2_2M0_EV_NM2, 4, 0, 6, EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT, 1)
+        # the four lowest states (n_max 0, n_first 4), as well_sheet_density_cm2
+        self.settings = (1.0 / HBAR2_2M0_EV_NM2, 0, 4, 6, EXTRA_ROUNDS, LOOSE_BRACKET, LOOSE_FIT, 1)
 
     def _window(self, mu, edge, kt):
         """The search grid of well_sheet_density_cm2 (find_resonances with 64 nodes)."""
@@ -1265,11 +1266,14 @@ def well_sheet_density_cm2(
 ):
     """Estimate of the electron sheet density in the quasi-bound states, cm^-2.
 
-    Each 2D subband ``E_1`` (up to four, found on a 64-point grid of ``T(E)``
-    of the current profile by :func:`physics.resonances.find_resonances`,
+    Each 2D subband ``E_1`` (the four lowest maxima of ``T(E)`` on a 64-point grid
+    of the current profile, :func:`physics.resonances.find_resonances`,
     between the injecting contact's band edge and ``mu + 12 kT``, its nodes
     crowded towards that edge by :data:`WELL_SEARCH_EDGE_POWER`; their
-    contributions are summed) is fed by the injecting contact (the emitter for
+    contributions are summed; the lowest, not the tallest: the lower states hold the
+    charge, and in a wide well with more lines in the window the tallest on the coarse
+    grid changed from one potential to the next, so the charge jumped, by up to 20 times,
+    and the self-consistent I-V with it: a 13 nm InSb well, measured 2026-12-05) is fed by the injecting contact (the emitter for
     ``V >= 0``) at rate ``Gamma_E`` and emptied at ``Gamma``; with the
     transverse momentum conserved each 2D state at ``E_1 + E_par`` has
     occupancy ``(Gamma_E / Gamma) f(E_1 + E_par)``, so, with the 2D density
@@ -1330,7 +1334,8 @@ def well_sheet_density_cm2(
         energy_min_ev=edge + 1e-6,
         energy_max_ev=top,
         n_coarse=64,
-        n_max=4,
+        n_max=0,
+        n_first=4,
         edge_power=WELL_SEARCH_EDGE_POWER,
     )
     e1, tp, ok = res.energy_ev, res.peak_transmission, res.valid

@@ -808,19 +808,19 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
         left = np.zeros(v.size, bool) if s_.abandoned is None else s_.abandoned[:, 0]
         return g_, s_, left
 
-    def current_of(g_, potential_ev, v):
-        """Currents at biases ``v`` ``(n, m)`` of potentials ``(n, m, n_slices)``."""
-        return _current_of_profile(
-            profile_from_potential(table, g_, potential_ev), table, v, model, grid
-        )
-
     try:
         g_after, state, _ = continued(v_after, sol)
     except ElectrostaticsConvergenceError:
         if v_start.size == 1:
             raise
         return _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, peak=peak)
-    j_hi = current_of(g_after, state.potential_ev, v_after[:, None])[:, 0]
+
+    def current_of(potential_ev, v):
+        """Currents at biases ``v`` ``(n, m)`` of potentials ``(n, m, n_slices)``."""
+        profile = profile_from_potential(table, g_after, potential_ev)
+        return _current_of_profile(profile, table, v, model, grid)
+
+    j_hi = current_of(state.potential_ev, v_after[:, None])[:, 0]
     bistable = j_hi > (1.0 + BISTABLE_EXCESS) * j_after
     v_hi, step = v_after.copy(), np.maximum(v_after - v_start, FOLD_FIRST_STEP_V)
     active, fell = bistable.copy(), np.zeros(bistable.shape, bool)
@@ -849,22 +849,28 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
         fell |= active & ~hold
         step = np.where(hold, 2.0 * step, 0.5 * step)
         active &= ~(fell & (step < FOLD_TOLERANCE_V)) & ~(hold & (v_try >= v_end))
-    # the up sweep's peak: the highest current on the branch (the first of equals), the
-    # currents of every step that held computed in one call (a stack that did not hold at
-    # a step takes its last held state there, and that current is not a candidate)
+    best_v, best_j = _highest_on_branch(current_of, v_start, v_after, j_hi, bistable, held)
+    return best_v, best_j, np.where(bistable, v_hi - v_start, 0.0)
+
+
+def _highest_on_branch(current_of, v_start, v_after, j_hi, bistable, held):
+    """The up sweep's peak of :func:`_up_branch`: the highest current on the branch (the
+    first of equals) from ``v_after`` (current ``j_hi``) and the steps that held (``held``:
+    bias, potential and hold of each stack per step), their currents computed in one call
+    (``current_of(potential, bias)``; a stack that did not hold at a step takes its last
+    held state there, and that current is no candidate). Returns bias and current, ``v_start``
+    and ``-inf`` where the branch is not ``bistable``."""
     candidates = np.where(bistable, j_hi, -np.inf)[:, None]
     biases = v_after[:, None]
     if held:
         v_steps = np.stack([v for v, _, _ in held], axis=1)
-        j_steps = current_of(g_after, np.stack([p for _, p, _ in held], axis=1), v_steps)
+        j_steps = current_of(np.stack([p for _, p, _ in held], axis=1), v_steps)
         ok = np.stack([h for _, _, h in held], axis=1) & np.isfinite(j_steps)
         candidates = np.concatenate([candidates, np.where(ok, j_steps, -np.inf)], axis=1)
         biases = np.concatenate([biases, v_steps], axis=1)
     top = np.argmax(candidates, axis=1)
     rows = np.arange(top.size)
-    best_v = np.where(bistable, biases[rows, top], v_start)
-    best_j = candidates[rows, top]
-    return best_v, best_j, np.where(bistable, v_hi - v_start, 0.0)
+    return np.where(bistable, biases[rows, top], v_start), candidates[rows, top]
 
 
 def _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, *, peak):

@@ -415,6 +415,7 @@ def find_resonances(
     n_coarse: int = 200,
     n_max: int = 4,
     edge_power: float = 1.0,
+    n_first: int = 0,
 ) -> Resonances:
     """Resonances of ``profile`` between two energies (eV from the emitter edge).
 
@@ -428,6 +429,9 @@ def find_resonances(
         Points of the coarse grid on which peaks are first located.
     n_max
         Largest number of resonances reported per profile (the highest peaks).
+    n_first
+        After those, slots for the first resonances along the grid (the lowest; a
+        resonance among both is reported in both).
     edge_power
         Coarse nodes at ``lo + (hi - lo) u**edge_power`` for ``u`` uniform in [0, 1]:
         1 is a uniform grid; above 1 the nodes crowd towards ``energy_min_ev`` (a line
@@ -439,7 +443,7 @@ def find_resonances(
     u = np.linspace(0.0, 1.0, n_coarse) ** edge_power
     grid = lo[..., None] + (hi - lo)[..., None] * u
     grid = np.broadcast_to(grid, profile.batch_shape + grid.shape[-1:])
-    energy, width, peak, valid = grid_maxima(grid, profile=profile, n_max=n_max)
+    energy, width, peak, valid = grid_maxima(grid, profile=profile, n_max=n_max, n_first=n_first)
     valid = valid & np.isfinite(width) & (width > 0)
     nan = np.nan
     return Resonances(

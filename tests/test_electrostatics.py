@@ -498,3 +498,55 @@ def test_solve_setup_kept_only_for_the_same_stacks_and_settings(monkeypatch) -> 
         monkeypatch.setattr(es, "compiled_kernel", lambda name: None)
         solve_stack_poisson(table, bias)
         assert len(made) == 5
+
+
+def _wide_insb_well():
+    """An invented InSb/AlSb stack with a 13.2 nm well (a random scan's stack, rounded):
+    five lines lie in the well-charge estimate's window at 0.47 V."""
+    layers = [
+        {"name": "emitter", "material": "InSb", "doping_cm3": 1.5e18},
+        {"name": "spacer1", "material": "InSb", "thickness_nm": 7.29},
+        {"name": "barrier1", "material": "AlSb", "thickness_nm": 2.11},
+        {"name": "well", "material": "InSb", "thickness_nm": 13.2},
+        {"name": "barrier2", "material": "AlSb", "thickness_nm": 2.11},
+        {"name": "spacer2", "material": "InSb", "thickness_nm": 5.75},
+        {"name": "collector", "material": "InSb", "doping_cm3": 3.0e18},
+    ]
+    return parse_stack({"temperature_k": 342.0, "substrate": "InSb", "layers": layers})
+
+
+def test_the_charge_of_a_wide_well_with_many_lines_is_continuous() -> None:
+    # The charge map F(n_w) (the charge the states hold in the potential a well charge n_w
+    # makes) moves continuously with n_w where the states' energies do (common practice: a
+    # level moves continuously with the potential). With the four tallest maxima of the
+    # coarse T taken as the states, which ones they were changed from one n_w to the next
+    # in this wide well: F jumped between 0.3e11 and 8.6e11 cm^-2, and the self-consistent
+    # I-V by 30 % between biases 5 mV apart (measured 2026-12-05). The four lowest are taken
+    # now; they hold the charge.
+    from wellwright.physics import electrostatics as es
+
+    stack = _wide_insb_well()
+    table = stack.table()
+    setup = es._solve_setup(
+        table,
+        slice_nm=0.25,
+        contact_nm=es.CONTACT_NM,
+        contact_slice_nm=es.CONTACT_SLICE_NM,
+        tolerance_ev=1e-7,
+        max_iterations=60,
+        max_step_ev=es.MAX_STEP_EV,
+    )
+    n_w = np.linspace(0.0, 1.2e12, 49)[None, :]
+    bias = np.full(n_w.shape, 0.47)
+    right = -(bias + setup.builtin_ev[:, None])
+    fermi = np.where(
+        setup.emitter_side[:, None, :],
+        setup.mu_e[:, None, None],
+        (setup.mu_e[:, None] - bias)[:, :, None],
+    )
+    solution = setup.poisson(right[:, :, None] * setup.frac[:, None, :], n_w, fermi, right)
+    charge = setup.target(solution.potential_ev, bias)[0]
+    assert np.all(np.abs(np.diff(charge)) < 0.1 * charge.max()), charge / 1e11
+    # and the self-consistent I-V rises smoothly towards its peak (0.56 V)
+    j = current_at_bias(table, np.linspace(0.45, 0.55, 21), model=stack.model)[0]
+    assert np.all(np.diff(j) > 0), j
