@@ -52,12 +52,14 @@ def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> P
         v = np.asarray(mc["metrics"][name], float) * f
         v = v[np.isfinite(v)]
         if v.size:
-            ax.hist(
+            counts, _, _ = ax.hist(
                 v,
                 bins=max(5, min(40, int(math.sqrt(v.size)) * 2)),
                 color=OKABE_ITO["sky"],
                 edgecolor=OKABE_ITO["blue"],
             )
+            # headroom above the tallest bar, where the legend goes (it hid low bars)
+            ax.set_ylim(0.0, 1.5 * max(float(np.max(counts)), 1.0))
         s = spec.get(name)
         if s is not None:
             for bound in ("min", "max"):
@@ -72,7 +74,7 @@ def save_histograms(record: dict[str, Any], mc: dict[str, Any], path: Path) -> P
         nominal = record["nominal"].get(name)
         if nominal is not None:
             ax.axvline(nominal * f, color=OKABE_ITO["black"], lw=1, label="nominal design")
-        ax.legend(fontsize=8)
+        ax.legend(fontsize=8, loc="upper right")
         ax.set_xlabel(label)
         ax.set_ylabel("samples")
     y = record["yield"]
