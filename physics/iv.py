@@ -62,6 +62,7 @@ __all__ = [
     "current_at_bias",
     "current_of_profile",
     "locate_peak_valley",
+    "higher_peak_beyond_valley",
     "external_bias_v",
     "HysteresisCurves",
     "sweep_hysteresis",
@@ -335,6 +336,41 @@ def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndar
             if peak[s] < 0 and j[k] < (1.0 - NDR_DROP) * j[i]:
                 peak[s], valley[s] = i, k  # a weak NDR, kept unless a clear one follows
     return peak, valley
+
+
+def higher_peak_beyond_valley(
+    bias_v: np.ndarray, current_a_cm2: np.ndarray, *, peak_current_a_cm2, valley_voltage_v
+) -> tuple[float, float] | None:
+    """A clear NDR peak of a swept curve past the first peak's valley that is higher than
+    the first peak (a second resonance's, say): the highest such sample, ``(bias_v,
+    current_a_cm2)`` on the sweep's grid (not refined), or None.
+
+    The figures of merit are the first clear NDR peak's (:func:`locate_peak_valley`); a
+    designer should know when a larger one follows in the sweep. A maximum counts when
+    the current after it falls by :data:`CLEAR_NDR_DROP` before rising above it again.
+
+    Parameters
+    ----------
+    bias_v, current_a_cm2
+        The curve, ``(n,)`` each (biases increasing; currents of the bias's sign).
+    peak_current_a_cm2, valley_voltage_v
+        The first peak's current and its valley's bias (None or NaN: no NDR).
+    """
+    if peak_current_a_cm2 is None or valley_voltage_v is None or not np.isfinite(valley_voltage_v):
+        return None
+    v, j = np.asarray(bias_v, float), np.abs(np.asarray(current_a_cm2, float))
+    side = np.sign(valley_voltage_v) * v > abs(valley_voltage_v)
+    v, j = v[side], j[side]
+    if np.sign(valley_voltage_v) < 0:  # along increasing |V|
+        v, j = v[::-1], j[::-1]
+    best = None
+    for i in range(1, j.size - 1):
+        if j[i] >= j[i - 1] and j[i] > j[i + 1] and j[i] > abs(peak_current_a_cm2):
+            k = _lowest_after(j, i)
+            if k is not None and j[k] < (1.0 - CLEAR_NDR_DROP) * j[i]:
+                if best is None or j[i] > best[1]:
+                    best = (float(v[i]), float(j[i]))
+    return best
 
 
 def _lowest_after(j: np.ndarray, i: int) -> int | None:

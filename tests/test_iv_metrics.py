@@ -298,3 +298,31 @@ def test_series_resistance_shift() -> None:
     assert external_bias_v(-0.3, -1e5, series_resistance_ohm_um2=10.0) == pytest.approx(
         -0.31, rel=1e-12
     )
+
+
+def test_a_higher_peak_beyond_the_first_valley_is_named() -> None:
+    # Invented curves (A/cm^2 on a 50 mV grid): a first clear NDR peak at 0.2 V and a larger
+    # second one at 0.6 V whose current then falls by more than CLEAR_NDR_DROP; the helper
+    # names the second (the figures of merit stay the first peak's: locate_peak_valley)
+    from wellwright.physics.iv import higher_peak_beyond_valley, locate_peak_valley
+
+    v = np.arange(0.0, 0.85, 0.05)
+    j = np.array([0, 50, 90, 120, 130, 60, 40, 50, 80, 150, 250, 380, 500, 420, 90, 80, 95.0])
+    peak, valley = locate_peak_valley(v, j[None, :])
+    assert v[peak[0]] == pytest.approx(0.2) and v[valley[0]] == pytest.approx(0.3)
+    higher = higher_peak_beyond_valley(v, j, peak_current_a_cm2=130.0, valley_voltage_v=0.3)
+    assert higher == (pytest.approx(0.6), 500.0)
+    # the same in reverse bias (currents of the bias's sign)
+    back = higher_peak_beyond_valley(
+        -v[::-1], -j[::-1], peak_current_a_cm2=130.0, valley_voltage_v=-0.3
+    )
+    assert back == (pytest.approx(-0.6), 500.0)
+    # a later maximum below the first peak, or one still rising at the sweep's end: none
+    low = np.where(v > 0.3, np.minimum(j, 110.0), j)
+    assert higher_peak_beyond_valley(v, low, peak_current_a_cm2=130.0, valley_voltage_v=0.3) is None
+    rising = np.where(v > 0.6, 500.0 + 100 * (v - 0.6), j)
+    assert (
+        higher_peak_beyond_valley(v, rising, peak_current_a_cm2=130.0, valley_voltage_v=0.3) is None
+    )
+    # no NDR: nothing to compare with
+    assert higher_peak_beyond_valley(v, j, peak_current_a_cm2=None, valley_voltage_v=None) is None

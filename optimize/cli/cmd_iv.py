@@ -22,6 +22,7 @@ from wellwright.physics.iv import (
     VALLEY_BOUNDED,
     VALLEY_EXTENSION_FACTOR,
     external_bias_v,
+    higher_peak_beyond_valley,
     stack_iv,
 )
 from wellwright.physics.stack import load_stack, read_toml
@@ -83,7 +84,9 @@ def iv_record(stack, curves) -> dict:
     The curve is the sweep followed by the biases computed beyond its end where the
     valley fell on its last point (:func:`wellwright.physics.iv.sweep`);
     ``bounded_by_sweep`` lists the figures that are bounds because the valley was not
-    reached even there (empty otherwise).
+    reached even there (empty otherwise); ``higher_peak_beyond_valley`` a higher clear NDR
+    peak of the swept curve after the first one's valley
+    (:func:`wellwright.physics.iv.higher_peak_beyond_valley`), or None.
 
     Parameters
     ----------
@@ -101,14 +104,23 @@ def iv_record(stack, curves) -> dict:
         "current_density_a_cm2": j,
         "metrics": curves.metrics_of(0),
     }
-    bounded = record["metrics"].get(VALLEY_BOUNDED) == 1.0
+    m = record["metrics"]
+    bounded = m.get(VALLEY_BOUNDED) == 1.0
     record["bounded_by_sweep"] = [k for k in BOUNDED_BY_SWEEP if bounded]
+    higher = higher_peak_beyond_valley(
+        bias,
+        j,
+        peak_current_a_cm2=m["peak_current_density_a_cm2"],
+        valley_voltage_v=m["valley_voltage_v"],
+    )
+    record["higher_peak_beyond_valley"] = (
+        None if higher is None else {"bias_v": higher[0], "current_density_a_cm2": higher[1]}
+    )
     dev = stack.device
     if dev.series_resistance_ohm_um2 > 0:
         record["external_bias_v"] = external_bias_v(
             bias, j, series_resistance_ohm_um2=dev.series_resistance_ohm_um2
         )
-        m = record["metrics"]
         for name in ("peak", "valley"):
             v, jj = m[f"{name}_voltage_v"], m[f"{name}_current_density_a_cm2"]
             m[f"{name}_voltage_external_v"] = (
@@ -120,7 +132,6 @@ def iv_record(stack, curves) -> dict:
             )
     if dev.area_um2 is not None:
         record["current_ma"] = j * dev.area_um2 * 1e-8 * 1e3
-        m = record["metrics"]
         for name in ("peak", "valley"):
             jj = m[f"{name}_current_density_a_cm2"]
             m[f"{name}_current_ma"] = None if jj is None else jj * dev.area_um2 * 1e-5
@@ -190,6 +201,7 @@ def run(args) -> int:
             "model": record["model"],
             "temperature_k": stack.temperature_k,
             "metrics": record["metrics"],
+            "higher_peak_beyond_valley": record["higher_peak_beyond_valley"],
             "warnings": record["warnings"],
             "islands": island_lines,
         },
@@ -232,6 +244,13 @@ def run(args) -> int:
                     f"extended to {VALLEY_EXTENSION_FACTOR:g} times its end), so the valley "
                     "figures are bounds (≥, ≤: where the true value lies; '(valley bounded)': "
                     "derived from one): raise --bias-max"
+                )
+            higher = record["higher_peak_beyond_valley"]
+            if higher is not None:
+                print(
+                    f"  a higher NDR peak follows: {higher['current_density_a_cm2'] / 1e3:.3g} "
+                    f"kA/cm² at {higher['bias_v'] * 1e3:.0f} mV (a sample of the sweep, not "
+                    "refined; the figures above are the first peak's)"
                 )
             if (m.get("bistable_window_v") or 0.0) > 0.0:
                 print(

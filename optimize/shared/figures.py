@@ -11,7 +11,12 @@ from typing import Any
 import matplotlib.pyplot as plt
 import numpy as np
 from wellwright.physics.current import contact_fermi_levels_ev
-from wellwright.physics.iv import IVCurves, band_profile, external_bias_v
+from wellwright.physics.iv import (
+    IVCurves,
+    band_profile,
+    external_bias_v,
+    higher_peak_beyond_valley,
+)
 from wellwright.physics.resonances import find_resonances
 from wellwright.physics.stack import Stack
 from wellwright.physics.transmission import transmission
@@ -92,6 +97,12 @@ def iv_figure(
     extended = v.size > curves.bias_v.size
     beyond_end = bool(extended and v[-1] > curves.bias_v[-1])
     marks = _peak_valley_marks(m)
+    higher = higher_peak_beyond_valley(
+        v,
+        j,
+        peak_current_a_cm2=m["peak_current_density_a_cm2"],
+        valley_voltage_v=m["valley_voltage_v"],
+    )
     v, j = _through_marks(v, j, marks)
     for axis, scale in ((ax, 1e-3), (lx, 1.0)):
         _draw_iv_panel(
@@ -103,7 +114,7 @@ def iv_figure(
             axis.axvline(end, ls=":", color="0.45", lw=1, label="sweep end" if axis is ax else None)
     if marks:
         ax.annotate(
-            _peak_valley_text(m, extended, series_resistance_ohm_um2),
+            _peak_valley_text(m, extended, series_resistance_ohm_um2) + _higher_peak_note(higher),
             xy=(0.03, 0.97),
             xycoords="axes fraction",
             va="top",
@@ -252,6 +263,13 @@ def _peak_valley_text(m: dict, extended: bool, series_resistance_ohm_um2: float)
         f"{m['peak_voltage_v'] * 1e3:.0f} mV{terminal}\n{valley_text}\n{pvcr}{beyond}"
         + _bistable_note(m)
     )
+
+
+def _higher_peak_note(higher: tuple[float, float] | None) -> str:
+    """A line for the I-V box where a higher clear NDR peak follows the first one's valley."""
+    if higher is None:
+        return ""
+    return f"\nhigher peak after it: {higher[1] / 1e3:.3g} kA/cm² at {higher[0] * 1e3:.0f} mV"
 
 
 def _bistable_note(m: dict) -> str:
