@@ -1272,10 +1272,11 @@ def well_sheet_density_cm2(
     crowded towards that edge by :data:`WELL_SEARCH_EDGE_POWER`; their
     contributions are summed; the lowest, not the tallest: the lower states hold the
     charge, and in a wide well with more lines in the window the tallest on the coarse
-    grid changed from one potential to the next, so the charge jumped, by up to 20 times,
-    and the self-consistent I-V with it: a 13 nm InSb well, measured 2026-12-05) is fed by the injecting contact (the emitter for
-    ``V >= 0``) at rate ``Gamma_E`` and emptied at ``Gamma``; with the
-    transverse momentum conserved each 2D state at ``E_1 + E_par`` has
+    grid changed from one potential to the next, so the charge jumped, by up to 20
+    times, and the self-consistent I-V with it: a 13 nm InSb well, measured
+    2026-12-05) is fed by the injecting contact (the emitter for ``V >= 0``) at rate
+    ``Gamma_E`` and emptied at ``Gamma``; with the transverse momentum conserved each 2D
+    state at ``E_1 + E_par`` has
     occupancy ``(Gamma_E / Gamma) f(E_1 + E_par)``, so, with the 2D density
     of states ``m_w / (pi hbar^2)`` (spin included; standard, stated from
     memory),
