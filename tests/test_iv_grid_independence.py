@@ -401,3 +401,33 @@ def test_a_failed_solve_in_the_collapse_bracket_leaves_the_partners_alone(monkey
         assert first[name] == pytest.approx(expected[name], rel=1e-6, abs=1e-9), name
     assert np.isfinite(both.metrics_of(1)["bistable_window_v"])
     assert calls  # the failure was met
+
+
+def test_a_sharp_valley_beside_the_cliff_is_zoomed_into() -> None:
+    """A valley close to the NDR cliff is no parabola on the first round's samples: on 61
+    biases its three samples about the best were nearly symmetric (11470, 10760 and 11511
+    A/cm^2, 6.9 mV apart), the vertex's current agreed with the parabola's to 6e-4 and the
+    round ended 2.6 mV from the minimum, which lies between the best sample and the cliff:
+    Jv 1.076e4 against 1.065e4 A/cm^2 on 241 biases (1.04 %). A sharp valley's parabola
+    must now also predict the samples two spacings out. Invented GaAs/Al0.34Ga0.66As stack
+    (rounded from a random scan, seed 126) in reverse bias to -1.65 V; tolerances of the
+    issue, the reference 241 biases."""
+    stack = _invented(
+        237.0,
+        None,
+        ("emitter", "GaAs", {"doping_cm3": 1.04e18}),
+        ("spacer1", "GaAs", {"thickness_nm": 7.94}),
+        ("barrier1", "AlGaAs", {"x": 0.34, "thickness_nm": 3.46}),
+        ("well", "GaAs", {"thickness_nm": 12.34}),
+        ("barrier2", "AlGaAs", {"x": 0.34, "thickness_nm": 3.46}),
+        ("spacer2", "GaAs", {"thickness_nm": 5.25}),
+        ("collector", "GaAs", {"doping_cm3": 9.5e17}),
+    )
+    coarse, fine = (
+        sweep(stack.table(), -np.linspace(0.0, 1.65, n)[::-1], model=stack.model).metrics_of(0)
+        for n in (61, 241)
+    )
+    assert coarse["valley_current_density_a_cm2"] == pytest.approx(
+        fine["valley_current_density_a_cm2"], rel=J_RTOL
+    )
+    assert coarse["valley_voltage_v"] == pytest.approx(fine["valley_voltage_v"], abs=V_ATOL)
