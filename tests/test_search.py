@@ -51,6 +51,34 @@ def _new(trials):
     ]
 
 
+def _meeting_evaluator(stacks, bias_v, **extra):
+    """:func:`nominal_metrics`, but each worker process's first call waits (at most 60 s)
+    until two worker processes have called (marks in ``WELLWRIGHT_TEST_MEETING``; the test
+    process itself, which may evaluate baseline designs, does not count): so both workers
+    take trials however late one starts. On a loaded machine the second worker once started
+    after the first had taken all 16 trials, and "both took trials" failed with nothing
+    wrong (2026-12-05)."""
+    folder = Path(os.environ["WELLWRIGHT_TEST_MEETING"])
+    if os.getpid() != int(os.environ["WELLWRIGHT_TEST_PARENT"]):
+        mark = folder / str(os.getpid())
+        if not mark.exists():
+            mark.touch()
+            deadline = time.time() + 60.0
+            while len(list(folder.iterdir())) < 2 and time.time() < deadline:
+                time.sleep(0.02)
+    return nominal_metrics(stacks, bias_v, **extra)
+
+
+@pytest.fixture
+def meeting(tmp_path, monkeypatch):
+    """The workers' meeting place of :func:`_meeting_evaluator` (inherited by spawned workers)."""
+    folder = tmp_path / "meeting"
+    folder.mkdir()
+    monkeypatch.setenv("WELLWRIGHT_TEST_MEETING", str(folder))
+    monkeypatch.setenv("WELLWRIGHT_TEST_PARENT", str(os.getpid()))
+    return _meeting_evaluator
+
+
 def _broken_evaluator(stacks, bias_v):
     raise RuntimeError("evaluator failed on purpose")
 
@@ -376,9 +404,17 @@ def test_resume_after_sigkill_keeps_completed_trials(write_study, tmp_path):
     assert not [t for t in after if t.state == TrialState.RUNNING]
 
 
-def test_two_workers_share_one_sqlite_study(write_study, tmp_path):
+def test_two_workers_share_one_sqlite_study(write_study, tmp_path, meeting):
     study = _study(write_study, well="{min = 8, max = 22}", barrier="{min = 3, max = 8}")
-    r = run_search(study, trials=24, workers=2, out_dir=tmp_path / "o", progress=False, write=False)
+    r = run_search(
+        study,
+        trials=24,
+        workers=2,
+        out_dir=tmp_path / "o",
+        progress=False,
+        write=False,
+        evaluator=meeting,
+    )
     trials = _trials(r, states=None)
     complete = [t for t in trials if t.state == TrialState.COMPLETE]
     assert len(_new(complete)) == 24
@@ -387,7 +423,7 @@ def test_two_workers_share_one_sqlite_study(write_study, tmp_path):
 
 
 def test_postgresql_study_shared_by_workers_and_a_second_machine(
-    write_study, tmp_path, postgres_url
+    write_study, tmp_path, postgres_url, meeting
 ):
     # 120 designs: more than the 96 trials, so searched, not enumerated
     study = _study(
@@ -401,6 +437,7 @@ def test_postgresql_study_shared_by_workers_and_a_second_machine(
         out_dir=tmp_path / "o",
         progress=False,
         write=False,
+        evaluator=meeting,
     )
     assert len(_new(_trials(r))) == 16 and r.storage == postgres_url
     assert len({t.user_attrs["worker"] for t in _trials(r)}) == 2
