@@ -59,6 +59,15 @@ def _metrics(path: Path, points: int) -> dict:
     return curves.metrics_of(0)
 
 
+def _on_61_and_241(stack, end_v: float) -> tuple[dict, dict]:
+    """The stack's figures of merit (its own model) swept from 0 to ``end_v`` on 61 and on
+    241 biases, in increasing order."""
+    return tuple(
+        sweep(stack.table(), np.sort(np.linspace(0.0, end_v, n)), model=stack.model).metrics_of(0)
+        for n in (61, 241)
+    )
+
+
 def _agree(a: dict, b: dict) -> None:
     for name in ("peak", "valley", "peak_up"):
         j, v = f"{name}_current_density_a_cm2", f"{name}_voltage_v"
@@ -266,10 +275,7 @@ def test_a_top_narrower_than_the_samples_is_zoomed_into() -> None:
         ("spacer2", "GaAs", {"thickness_nm": 4.06}),
         ("collector", "GaAs", {"doping_cm3": 1.5e18}),
     )
-    coarse, fine = (
-        sweep(stack.table(), np.linspace(0.0, 1.8, n), model=stack.model).metrics_of(0)
-        for n in (61, 241)
-    )
+    coarse, fine = _on_61_and_241(stack, 1.8)
     assert coarse["peak_current_density_a_cm2"] == pytest.approx(
         fine["peak_current_density_a_cm2"], rel=REFINE_RELATIVE_TOLERANCE
     )
@@ -291,12 +297,7 @@ def test_a_peak_some_spans_beyond_the_bracket_is_reached() -> None:
     for _ in range(25):
         stack = _default_model(random_stack(rng))
         top, sign = rng.uniform(0.3, 2.0), -1.0 if rng.random() < 0.5 else 1.0
-    coarse, fine = (
-        sweep(
-            stack.table(), np.sort(sign * np.linspace(0.0, top, n)), model=stack.model
-        ).metrics_of(0)
-        for n in (61, 241)
-    )
+    coarse, fine = _on_61_and_241(stack, sign * top)
     assert coarse["peak_current_density_a_cm2"] == pytest.approx(
         fine["peak_current_density_a_cm2"], rel=J_RTOL
     )
@@ -324,10 +325,7 @@ def test_a_step_beside_the_best_sample_is_no_cliff_where_the_top_is_on_the_other
         ("spacer2", "InGaAs", {**ingaas, "thickness_nm": 7.18}),
         ("collector", "InGaAs", {**ingaas, "doping_cm3": 3.1e18}),
     )
-    coarse, fine = (
-        sweep(stack.table(), -np.linspace(0.0, 1.11, n)[::-1], model=stack.model).metrics_of(0)
-        for n in (61, 241)
-    )
+    coarse, fine = _on_61_and_241(stack, -1.11)
     assert coarse["peak_current_density_a_cm2"] == pytest.approx(
         fine["peak_current_density_a_cm2"], rel=J_RTOL
     )
@@ -423,10 +421,7 @@ def test_a_sharp_valley_beside_the_cliff_is_zoomed_into() -> None:
         ("spacer2", "GaAs", {"thickness_nm": 5.25}),
         ("collector", "GaAs", {"doping_cm3": 9.5e17}),
     )
-    coarse, fine = (
-        sweep(stack.table(), -np.linspace(0.0, 1.65, n)[::-1], model=stack.model).metrics_of(0)
-        for n in (61, 241)
-    )
+    coarse, fine = _on_61_and_241(stack, -1.65)
     assert coarse["valley_current_density_a_cm2"] == pytest.approx(
         fine["valley_current_density_a_cm2"], rel=J_RTOL
     )
