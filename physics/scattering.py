@@ -232,8 +232,19 @@ Departures from [2]_, each stated:
    none within one, a smoothstep between (this project's choice: a state that far up is
    hardly bound; until 2026-12-04 it took them in full from one width below, and the
    channel switched on at full strength between neighbouring biases, 7.1 times the current
-   on a GaAs/AlGaAs stack; tested). A state is
-   treated alone: no scattering between states, no coherence between them.
+   on a GaAs/AlGaAs stack; tested). Where the window reaches above the lower barrier's
+   inner edge the 32 points end there, no state lying higher (until 2026-12-05 they ran
+   to the window's top: 1 eV on a GaAs/Al0.22Ga0.78As stack with 0.2 eV barriers, 14 meV
+   apart near a 21 meV line, a maximum at some biases only; tested). A state takes its
+   rates only as far as its line is resolved: on each side the lowest ``T`` of the probe
+   at 1/4 to 4 widths from the centre, the higher side's against the peak, in full where
+   it lies below half the peak (a Lorentzian alone dips to 1/5 of it one width away),
+   none where it reaches the peak, a smoothstep between (:func:`_resolved_share`; this
+   project's choice: a line that no longer dips towards its neighbour is no quasi-bound
+   state, and the sequential picture's premise, a state narrower than its spacing, fails;
+   until 2026-12-05 such a line kept its full rates until the coarse search lost it, and
+   the channel's share of that stack's current stepped between 0.31 and 0.02; tested).
+   A state is treated alone: no scattering between states, no coherence between them.
    Stacks with more than two barriers take the region between the outer
    barriers as the well.
 
@@ -294,6 +305,12 @@ BARRIER_MIN_EV = 0.05
 #: least this share of the box energy of ``w_eff`` (module note 6; measured 0.34-0.93 on
 #: the example stacks and the reference devices)
 CONFINED_SHARE = 0.25
+#: A state takes its rates in full where ``T`` dips below this share of its line's peak on
+#: both sides (a Lorentzian alone: to 1/5 one width from its centre), none where it does not
+#: dip below the peak on one side (module note 6)
+RESOLVED_BELOW = 0.5
+#: Where ``T`` is looked at for the dip beside a line, in its widths from its centre
+DIP_OFFSETS = 2.0 ** np.arange(-2.0, 2.01, 0.5)
 #: e^2 / (4 pi eps0), eV nm
 COULOMB_EV_NM = ELEMENTARY_CHARGE_C / (4.0 * np.pi * VACUUM_PERMITTIVITY_F_M) * 1e9
 #: GaAs values where a table carries no phonon data (module notes)
@@ -922,19 +939,25 @@ def _slices_profile(edge, mass, alpha, width) -> Profile:
 
 def _find_states(edge, mass, alpha, width, geo, top, high, params):
     """Quasi-bound states of the profile with its source side lowered to the drain's edge:
-    lines below ``top`` (the lower barrier's inner edge) by more than their width."""
+    lines below ``top`` (the lower barrier's inner edge) by more than their width. Returns
+    their centre, width, peak, ``valid`` and how far each line is resolved
+    (:func:`_resolved_share`)."""
     e_r = edge[..., -1]
     lowered = np.where(geo.source, np.minimum(edge, e_r[..., None]), edge)
     probe = _slices_profile(lowered, mass, alpha, width)
     lo = np.maximum(e_r, geo.well_bottom_ev) + 1e-4
     hi = np.maximum(high, lo + 1e-3)
     # quadratic from the bottom, where the lowest state lies: a narrow line (tens of ueV) on a
-    # rising background is a local maximum of T only on a grid finer than some 15 meV near it
-    grid = lo[..., None] + (hi - lo)[..., None] * _spaced(0.0, 1.0, params.n_search) ** 2
+    # rising background is a local maximum of T only on a grid finer than some 15 meV near it;
+    # up to the barrier's inner edge where the window reaches above it (no state lies higher:
+    # a 0.2 eV barrier under a window to 1 eV left 14 of the 32 nodes to the states, 14 meV
+    # apart, and a 21 meV line was a maximum at some biases only)
+    end = np.minimum(hi, np.maximum(top, lo + 1e-3))
+    grid = lo[..., None] + (end - lo)[..., None] * _spaced(0.0, 1.0, params.n_search) ** 2
     # and on to the barrier's inner edge: a broad state above the window reaches into it with
     # its line's tail (found only inside the window, it set in at full strength there)
     ceiling = np.maximum(top, hi)
-    above = hi[..., None] + (ceiling - hi)[..., None] * _spaced(0.0, 1.0, params.n_above + 1)[1:]
+    above = end[..., None] + (ceiling - end)[..., None] * _spaced(0.0, 1.0, params.n_above + 1)[1:]
     grid = np.concatenate([grid, above], axis=-1)
     # candidates: the tallest maxima of the coarse T and the lowest ones (a narrow deep state
     # shows on the coarse grid only as a small maximum of its tails, below the upper lines)
@@ -955,7 +978,7 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     # the lowest states (the tallest peaks need not be the lowest)
     order = np.argsort(np.where(valid, center, np.inf), axis=-1)[..., : params.n_states]
     center, gamma, peak, valid = _take_last(order, center, gamma, peak, valid)
-    return center, gamma, peak, valid
+    return center, gamma, peak, valid, _resolved_share(center, gamma, peak, valid, probe)
 
 
 def _half_maximum_width(
@@ -1038,6 +1061,29 @@ def _bound_share(center, gamma, top):
     with np.errstate(invalid="ignore", divide="ignore"):
         t = np.clip((top[..., None] - center) / gamma - 1.0, 0.0, 1.0)
     return np.where(np.isfinite(t), t * t * (3.0 - 2.0 * t), 1.0)
+
+
+def _resolved_share(center, gamma, peak, valid, probe):
+    """How far each state's line is resolved from its surroundings (note 6): on each side the
+    lowest ``T`` of the probe at :data:`DIP_OFFSETS` widths ``gamma`` from the centre (the
+    dip towards the next line or the background), the higher side's against the peak: 1
+    where it is below :data:`RESOLVED_BELOW` of it, 0 where it reaches it, a smoothstep
+    between. The lines whose ``T`` one width away is below that on both sides (every line of
+    a usual stack) are resolved without the other offsets."""
+    share = np.ones_like(center)
+    ok = valid & np.isfinite(gamma) & (gamma > 0) & np.isfinite(peak) & (peak > 0)
+    for offsets in (np.array([1.0]), DIP_OFFSETS):
+        where = np.nonzero(ok)
+        if not where[0].size:
+            break
+        steps = np.concatenate([-offsets, offsets])
+        energy = center[where][:, None] + gamma[where][:, None] * steps
+        t = transmission_rows(energy, profile=probe, rows=where[:-1]).reshape(-1, 2, offsets.size)
+        dip = np.max(np.min(t, axis=-1), axis=-1) / peak[where]
+        x = np.clip((1.0 - dip) / (1.0 - RESOLVED_BELOW), 0.0, 1.0)
+        share[where] = x * x * (3.0 - 2.0 * x)
+        ok[where] = x < 1.0  # decided where resolved one width away
+    return share
 
 
 def _towards_probe(trust, line, probe, matched):
@@ -1383,7 +1429,9 @@ def sequential_fluxes_ev2(
     # a quasi-bound state lies below the lower barrier's inner edge by more than its width
     # (a bound independent of temperature: the channel stays on in the cold)
     top = np.minimum(geo.edge_at[..., 1], geo.edge_at[..., 2])
-    e_p, gamma_p, peak_p, valid = _find_states(edge, mass, alpha, width, geo, top, high_ev, params)
+    e_p, gamma_p, peak_p, valid, resolved = _find_states(
+        edge, mass, alpha, width, geo, top, high_ev, params
+    )
     e_n, width_c, peak_c, matched = _match_lines(e_p, gamma_p, peak_p, valid, lines, top)
     # a matched line's width and peak as the probe's: T at its centre and half-maximum points
     device = _slices_profile(edge, mass, alpha, width)
@@ -1404,7 +1452,7 @@ def sequential_fluxes_ev2(
         kt,
         params,
         (gamma_p, peak_p, e_p),
-        _bound_share(e_p, gamma_p, top),
+        _bound_share(e_p, gamma_p, top) * resolved,
     )
     # the states' coherent transmission goes from width Gamma to Gamma_t (Buttiker)
     reduction = {
