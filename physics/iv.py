@@ -390,6 +390,10 @@ REFINE_POINTS = 9
 REFINE_MAX_ROUNDS = 8
 REFINE_RELATIVE_TOLERANCE = 1e-3
 REFINE_BIAS_TOLERANCE_V = 2e-5
+#: The bracket a peak's zoom ends on where its best sample lies just past a collapse of the
+#: well's charge (the current jumps up there and falls steeply on: about 60 A/cm^2 per uV,
+#: 0.12 % per uV, on an InP/InAlAs stack; DEVELOPERS.md), V.
+REFINE_JUMP_TOLERANCE_V = 2e-7
 #: A valley whose best sample's neighbours both rise above it by more than this share of it
 #: (a sharp valley on the samples' scale) is resolved only where the parabola through the
 #: three also predicts the rise to the samples two spacings out within this factor (either
@@ -481,6 +485,7 @@ class _Brackets:
     drop_w: np.ndarray
     open_: np.ndarray
     known: np.ndarray
+    past_jump: np.ndarray
     ends_v: np.ndarray
     ends_j: np.ndarray
     ends_w: np.ndarray
@@ -499,6 +504,7 @@ class _Brackets:
             drop_w=np.full(n, np.nan),
             open_=np.ones(n, bool),
             known=np.zeros(n, bool),
+            past_jump=np.zeros(n, bool),
             ends_v=np.zeros((n, 2)),
             ends_j=np.zeros((n, 2)),
             ends_w=np.full((n, 2), np.nan),
@@ -613,8 +619,9 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     st.half[idx] = np.where(edge, moved, st.half[idx] * 2.0 / (n_points - 1))
     # at a cliff the next round spans only the interval to the fallen neighbour
     st.known[idx] = cliff
+    across = np.clip(top + side, 0, n_points - 1)
+    st.past_jump[idx] = _past_jump(cliff, well, top, across)
     if np.any(cliff):
-        across = np.clip(top + side, 0, n_points - 1)
         best_v, across_v = st.center[idx], v[rows, across]
         st.center[idx] = np.where(cliff, 0.5 * (best_v + across_v), best_v)
         st.half[idx] = np.where(cliff, 0.5 * np.abs(across_v - best_v), st.half[idx])
@@ -635,7 +642,23 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
         & (curvature > 0)
         & (np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(st.best[idx]))
     )
-    st.open_[idx] = ~((smooth & ~edge) | (st.half[idx] < REFINE_BIAS_TOLERANCE_V))
+    tolerance = np.where(st.past_jump[idx], REFINE_JUMP_TOLERANCE_V, REFINE_BIAS_TOLERANCE_V)
+    st.open_[idx] = ~((smooth & ~edge) | (st.half[idx] < tolerance))
+
+
+def _past_jump(cliff, well, top, across):
+    """Whether each extremum's best sample (``top``) lies just past a collapse of the well's
+    charge towards its cliff's other sample (``across``): its charge below
+    :data:`FOLD_CHARGE_COLLAPSE` of that one's. There the current has jumped up on the
+    discharged branch and falls steeply on (0.13 % 1 uV past the collapse, 1.3 % 10 uV past
+    it, on an InP/InAlAs stack; DEVELOPERS.md), so the zoom goes on to
+    :data:`REFINE_JUMP_TOLERANCE_V`; where the current falls at the collapse (a usual NDR
+    cliff) the best sample holds the larger charge."""
+    if well is None:
+        return np.zeros(cliff.shape, bool)
+    rows = np.arange(cliff.size)
+    there = well[rows, across]
+    return cliff & (there >= JUMP_FLOOR_CM2) & (well[rows, top] < FOLD_CHARGE_COLLAPSE * there)
 
 
 def _parabola_holds_wider(v, j, top, x3, j3, lowest):
