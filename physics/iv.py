@@ -134,6 +134,11 @@ FOLD_CHARGE_COLLAPSE = 0.25
 #: A well charge below this (cm^-2) on both sides of a pair of refinement samples is no jump
 #: of the self-consistent solution worth resolving (see :func:`_jump_side`).
 JUMP_FLOOR_CM2 = 1e10
+#: A step of the well charge between neighbouring refinement samples of at least this share
+#: of the larger charge and this many times the round's median step is a jump too
+#: (:func:`_charge_jump`).
+JUMP_STEP_SHARE = 0.1
+JUMP_STEP_OVER_TYPICAL = 10.0
 
 
 @dataclass(frozen=True)
@@ -620,7 +625,7 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     # at a cliff the next round spans only the interval to the fallen neighbour
     st.known[idx] = cliff
     across = np.clip(top + side, 0, n_points - 1)
-    st.past_jump[idx] = _past_jump(cliff, well, top, across)
+    st.past_jump[idx] = _past_jump(cliff, well, top, across, v)
     if np.any(cliff):
         best_v, across_v = st.center[idx], v[rows, across]
         st.center[idx] = np.where(cliff, 0.5 * (best_v + across_v), best_v)
@@ -646,19 +651,18 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     st.open_[idx] = ~((smooth & ~edge) | (st.half[idx] < tolerance))
 
 
-def _past_jump(cliff, well, top, across):
-    """Whether each extremum's best sample (``top``) lies just past a collapse of the well's
-    charge towards its cliff's other sample (``across``): its charge below
-    :data:`FOLD_CHARGE_COLLAPSE` of that one's. There the current has jumped up on the
-    discharged branch and falls steeply on (0.13 % 1 uV past the collapse, 1.3 % 10 uV past
-    it, on an InP/InAlAs stack; DEVELOPERS.md), so the zoom goes on to
-    :data:`REFINE_JUMP_TOLERANCE_V`; where the current falls at the collapse (a usual NDR
-    cliff) the best sample holds the larger charge."""
+def _past_jump(cliff, well, top, across, v):
+    """Whether each extremum's best sample (``top``) lies just past a jump of the well's
+    charge (:func:`_charge_jump`) from its cliff's other sample (``across``), past it in
+    bias magnitude (biases ``v``). There the current has jumped up onto the other branch and
+    falls steeply on (0.13 % 1 uV past a collapse, 1.3 % 10 uV past it, on an InP/InAlAs
+    stack; DEVELOPERS.md), so the zoom goes on to :data:`REFINE_JUMP_TOLERANCE_V`; at a
+    usual NDR cliff the best sample lies before the collapse."""
     if well is None:
         return np.zeros(cliff.shape, bool)
     rows = np.arange(cliff.size)
-    there = well[rows, across]
-    return cliff & (there >= JUMP_FLOOR_CM2) & (well[rows, top] < FOLD_CHARGE_COLLAPSE * there)
+    beyond = np.abs(v[rows, top]) > np.abs(v[rows, across])
+    return cliff & beyond & _charge_jump(well, top, across)
 
 
 def _parabola_holds_wider(v, j, top, x3, j3, lowest):
@@ -769,21 +773,36 @@ def _round_charges(keep, st, idx, ends, n_points):
 
 def _jump_side(well, top):
     """Per extremum of a refinement round (well charges ``well`` of its samples, best sample
-    ``top``): +1 where the well charge jumps between the best sample and the next one (the
-    smaller below :data:`FOLD_CHARGE_COLLAPSE` of the larger, which is at least
-    :data:`JUMP_FLOOR_CM2`) and not between it and the previous one, -1 for the mirror case,
-    0 otherwise. Measured on a GaAs/AlGaAs stack in reverse bias (DEVELOPERS.md): its well
+    ``top``): +1 where the well charge jumps (:func:`_charge_jump`) between the best sample
+    and the next one and not between it and the previous one, -1 for the mirror case, 0
+    otherwise. Measured on a GaAs/AlGaAs stack in reverse bias (DEVELOPERS.md): its well
     charge collapses from 3.3e11 to 1.5e10 cm^-2 within 0.1 mV and the current jumps up by
     23 % there, then falls back within 3 mV; samples 3.6 mV apart on either side had the same
     current."""
-    rows, last = np.arange(well.shape[0]), well.shape[1] - 1
+    last = well.shape[1] - 1
+    return _one_side(
+        _charge_jump(well, top, np.minimum(top + 1, last)),
+        _charge_jump(well, top, np.maximum(top - 1, 0)),
+    )
 
-    def jump(other):
-        a, b = well[rows, top], well[rows, other]
-        big, small = np.fmax(np.abs(a), np.abs(b)), np.fmin(np.abs(a), np.abs(b))
-        return (other != top) & (big >= JUMP_FLOOR_CM2) & (small < FOLD_CHARGE_COLLAPSE * big)
 
-    return _one_side(jump(np.minimum(top + 1, last)), jump(np.maximum(top - 1, 0)))
+def _charge_jump(well, top, other):
+    """Whether the well charge jumps between samples ``top`` and ``other`` of each extremum's
+    round (``well``, ``(n, n_points)``; the larger at least :data:`JUMP_FLOOR_CM2`): a
+    collapse (the smaller below :data:`FOLD_CHARGE_COLLAPSE` of the larger), or a step of at
+    least :data:`JUMP_STEP_SHARE` of the larger and :data:`JUMP_STEP_OVER_TYPICAL` times the
+    round's median step between neighbouring samples (the single solves change branch: on an
+    InGaAs/AlAs stack at 301 K the charge stepped from 1.26e12 to 1.63e12 cm^-2 within 0.1
+    mV, steps of 4e9 on either side, and the current spiked 4 % above its plateau within
+    0.3 mV past it; DEVELOPERS.md)."""
+    rows = np.arange(well.shape[0])
+    a, b = np.abs(well[rows, top]), np.abs(well[rows, other])
+    big, small = np.fmax(a, b), np.fmin(a, b)
+    typical = np.median(np.abs(np.diff(well, axis=1)), axis=1)
+    step = (big - small >= JUMP_STEP_SHARE * big) & (
+        big - small >= JUMP_STEP_OVER_TYPICAL * typical
+    )
+    return (other != top) & (big >= JUMP_FLOOR_CM2) & ((small < FOLD_CHARGE_COLLAPSE * big) | step)
 
 
 def _keep_best(kept, solves, idx, better, top, fit, shift=0):
