@@ -30,6 +30,14 @@ and the PVCR lower bounds, and every figure of :data:`BOUNDED_BY_SWEEP` is
 derived from a bound. The extra points are kept in
 :attr:`IVCurves.extension_bias_v` / :attr:`IVCurves.extension_a_cm2`.
 
+With the self-consistent model a resonance's NDR can be narrower than the sweep's
+spacing where a state leaves the emitter's supply window: the well's charge then falls.
+Where it falls below :data:`HIDDEN_CHARGE_DROP` of its largest value so far, before the
+peak found (or anywhere, where none was), the current is computed at
+:data:`REFINE_POINTS` biases on either side of the charge's low point after the fall; where
+those show a clear NDR peak there, that stack is swept again with them, and its figures of merit and
+the new points (kept as extension points) replace its own.
+
 Currents at stated biases (``sweep(..., at_bias_v=...)``, the circuit
 designer's ``current_density_at_bias`` targets) are computed at those biases
 exactly, one more batched call of the same physics; they are never
@@ -139,6 +147,11 @@ JUMP_FLOOR_CM2 = 1e10
 #: (:func:`_charge_jump`).
 JUMP_STEP_SHARE = 0.1
 JUMP_STEP_OVER_TYPICAL = 10.0
+#: A well charge that falls below this share of its largest value so far, before the peak:
+#: a state may have left the supply window there with an NDR narrower than the sweep's
+#: spacing (:func:`_hidden_collapse`; an InP/InAlAs stack's charge fell 3.3 times between
+#: points 30 mV apart while its current fell 36 % within 2 mV).
+HIDDEN_CHARGE_DROP = 0.5
 
 
 @dataclass(frozen=True)
@@ -1269,12 +1282,17 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     step = np.abs(np.diff(v_side)).max() if v_side.size > 1 else 0.0
     n = rows.size
     extremum = np.concatenate([np.ones(n), -np.ones(n)])  # maximise J at peaks, -J at valleys
+    # a peak and valley nearer each other than half the sweep's largest spacing (the extra
+    # points of a collapse between two sweep points, _hidden_collapse) span only to each
+    # other: a valley's span reaching below its peak found the fall towards zero bias, a
+    # peak's beyond its valley the next resonance's rise
+    half = np.where(np.abs(vv - vp) < 0.5 * step, np.abs(vv - vp), step)
     c, y, (after_v, after_j, after_w), kept = _refine(
         devices.take(rows).twice(),
         model,
         grid,
         np.concatenate([vp, vv]),
-        np.full(2 * n, step),
+        np.concatenate([half, half]),
         extremum * sign,
         extremum > 0,
     )
@@ -1389,6 +1407,154 @@ def sweep(
     A valley on the sweep's last point is looked for beyond it (see the module
     docstring); :data:`VALLEY_BOUNDED` says where it was not found.
     """
+    curves, between = _sweep_on(
+        table,
+        bias_v,
+        model=model,
+        grid=grid,
+        refine=refine,
+        series_resistance_ohm_um2=series_resistance_ohm_um2,
+        area_weights=area_weights,
+        at_bias_v=at_bias_v,
+        area_um2=area_um2,
+    )
+    if between:
+        curves = _look_between(
+            curves,
+            table,
+            between,
+            model=model,
+            grid=grid,
+            refine=refine,
+            series_resistance_ohm_um2=series_resistance_ohm_um2,
+            at_bias_v=at_bias_v,
+            area_um2=area_um2,
+        )
+    return curves
+
+
+def _look_between(curves: IVCurves, table: LayerTable, between: dict, **options) -> IVCurves:
+    """Devices whose well charge falls before their peak (``between``,
+    :func:`_hidden_collapse`): the current at :data:`REFINE_POINTS` biases inside each of the
+    two intervals about the charge's low point (one call for all of them); where those show
+    a clear NDR peak (:data:`CLEAR_NDR_DROP`) there or before, that device is swept again
+    alone with them (:func:`_sweep_on`) and its figures of merit and the new points replace
+    its own (:func:`_with_device_of`). A weak NDR there is left alone: on a stack whose single
+    solves land on either of two branches there the refinement wandered to the next
+    resonance."""
+    rows = np.array(sorted(between))
+    ends = np.array([between[int(s)] for s in rows])
+    u = np.linspace(0.0, 1.0, REFINE_POINTS + 2)[1:-1]
+    extra = np.concatenate(
+        [ends[:, i : i + 1] + (ends[:, i + 1 : i + 2] - ends[:, i : i + 1]) * u for i in (0, 1)],
+        axis=1,
+    )
+    j_extra = _Devices(table.take(rows)).current(extra, options["model"], options["grid"])
+    r_all = np.broadcast_to(options.pop("series_resistance_ohm_um2"), (table.n_stacks,))
+    for e, s in enumerate(rows):
+        bias = np.concatenate([curves.bias_v, extra[e]])
+        order = np.argsort(bias)
+        branch = _metrics_branch(bias[order])
+        if branch is None:
+            continue
+        sel, sign = branch
+        v = bias[order][sel]
+        j = sign * np.concatenate([curves.current_density_a_cm2[s], j_extra[e]])[order][sel]
+        ip, iv = (i[0] for i in locate_peak_valley(np.abs(v), j[None, :]))
+        if ip < 0 or abs(v[ip]) > np.max(np.abs(ends[e])) or j[iv] >= (1 - CLEAR_NDR_DROP) * j[ip]:
+            continue  # no clear NDR peak before the collapse's intervals end
+        one, _ = _sweep_on(
+            table.take(np.array([s])),
+            np.sort(bias),
+            series_resistance_ohm_um2=r_all[[s]],
+            area_weights=None,
+            look_between=False,
+            **options,
+        )
+        curves = _with_device_of(curves, s, one)
+    return curves
+
+
+def _hidden_collapse(solves, sel, v_side, ip) -> dict:
+    """The devices whose well charge, along increasing ``|V|`` before their peak's sweep
+    point (or anywhere, where the sweep shows no NDR), falls below :data:`HIDDEN_CHARGE_DROP`
+    of its largest value so far (at least :data:`JUMP_FLOOR_CM2`): device -> the biases of
+    the sweep points about the charge's first low point after that fall, the one before, it
+    and the one after (one spacing beyond the sweep's end there). A state leaving the
+    emitter's supply window empties the well, and the resonance's NDR lies where it has
+    left, which can be narrower than the sweep's spacing (a 12.3 nm GaAs/AlGaAs well at
+    211 K: a 19 % fall within 4 mV between points 11 mV apart; DEVELOPERS.md). Measured
+    against the largest charge so far, not the point before, so that a fall spread over
+    several points is seen on every grid (between neighbouring points it was a fall to 0.30
+    on 61 biases, 0.50 on 121 and 0.65 on 241 on an InP/InAlAs stack). Empty without the
+    self-consistent solves."""
+    if not solves or solves[0][1].well_sheet_cm2 is None:
+        return {}
+    well = solves[0][1].well_sheet_cm2[:, sel]
+    most = np.maximum.accumulate(np.nan_to_num(well, nan=0.0), axis=1)
+    fallen = (most[:, :-1] >= JUMP_FLOOR_CM2) & (well[:, 1:] < HIDDEN_CHARGE_DROP * most[:, :-1])
+    found = {}
+    for s in range(well.shape[0]):
+        end = ip[s] if ip[s] >= 0 else v_side.size
+        m = np.nonzero(fallen[s, : max(end - 1, 0)])[0]
+        if not m.size:
+            continue
+        low = m[0] + 1  # on to the charge's first low point (its next value not smaller)
+        while low + 1 < end and well[s, low + 1] < well[s, low]:
+            low += 1
+        if low + 1 >= end and ip[s] >= 0:
+            continue  # the low point is the peak's own neighbourhood
+        b = float(v_side[low])
+        c = float(v_side[low + 1]) if low + 1 < v_side.size else 2 * b - float(v_side[low - 1])
+        found[s] = (float(v_side[low - 1]), b, c)
+    return found
+
+
+def _with_device_of(curves: IVCurves, s: int, one: IVCurves) -> IVCurves:
+    """``curves`` with device ``s``'s figures of merit from ``one`` (its own sweep on more
+    biases) and the biases ``one`` computed beyond ``curves``' own (its extra points and
+    its extension) as device ``s``'s extension points, its earlier extension dropped."""
+    n = curves.current_density_a_cm2.shape[0]
+    metrics = {name: values.copy() for name, values in curves.metrics.items()}
+    for name, values in one.metrics.items():  # (the up sweep's names only where a peak was)
+        metrics.setdefault(name, np.full(n, np.nan))[s] = values[0]
+    extra = ~np.isin(one.bias_v, curves.bias_v)
+    add_v = np.concatenate([one.bias_v[extra], one.extension_bias_v])
+    add_j = np.concatenate(
+        [
+            one.current_density_a_cm2[0, extra],
+            np.zeros(0) if one.extension_a_cm2 is None else one.extension_a_cm2[0],
+        ]
+    )
+    old = (
+        np.full((n, 0), np.nan) if curves.extension_a_cm2 is None else curves.extension_a_cm2.copy()
+    )
+    old[s] = np.nan
+    new = np.full((n, add_v.size), np.nan)
+    new[s] = add_j
+    return replace(
+        curves,
+        metrics=metrics,
+        extension_bias_v=np.concatenate([curves.extension_bias_v, add_v]),
+        extension_a_cm2=np.concatenate([old, new], axis=1),
+    )
+
+
+def _sweep_on(
+    table: LayerTable,
+    bias_v: np.ndarray,
+    *,
+    model: ModelOptions,
+    grid: EnergyGrid,
+    refine: bool,
+    series_resistance_ohm_um2: float | np.ndarray,
+    area_weights: np.ndarray | None,
+    at_bias_v: Sequence[float],
+    area_um2: float | None,
+    look_between: bool = True,
+) -> tuple[IVCurves, dict]:
+    """:func:`sweep`'s work; also returns, with ``look_between``, the devices whose well
+    charge falls before their peak (:func:`_hidden_collapse`): device -> three biases."""
     bias = np.asarray(bias_v, float)
     if bias.ndim != 1 or bias.size < 1 or np.any(np.diff(bias) <= 0):
         raise ValueError("bias_v must be a 1-D strictly increasing array")
@@ -1409,17 +1575,17 @@ def sweep(
 
     branch = _metrics_branch(bias)
     if branch is None:
-        return IVCurves(bias, j, metrics)
+        return IVCurves(bias, j, metrics), {}
     sel, sign = branch
     v_side = bias[sel]
     j_side = sign * j[:, sel]
     ip, iv = locate_peak_valley(np.abs(v_side), j_side)
+    between = _hidden_collapse(solves, sel, v_side, ip) if look_between else {}
     has = ip >= 0
     if not np.any(has):
-        return IVCurves(bias, j, metrics)
+        return IVCurves(bias, j, metrics), between
 
-    # a valley the current does not clearly rise from before the end: go on beyond the end
-    # (only the stacks that need it)
+    # a valley the current does not clearly rise from before the end: go on beyond it
     bounded = np.zeros(devices.n, bool)
     ext_v, ext_j = np.zeros(0), None
     need = np.array(
@@ -1468,7 +1634,7 @@ def sweep(
         extrema=(vp, jp, vv, after, at_peak, swept),
         series_resistance_ohm_um2=series_resistance_ohm_um2,
     )
-    return curves(bias, j, metrics)
+    return curves(bias, j, metrics), between
 
 
 def stack_iv(
