@@ -320,3 +320,30 @@ def test_iv_names_a_higher_peak_after_the_first_valley(tmp_path, capsys) -> None
     assert 0.8 < higher["bias_v"] < 1.0
     assert higher["current_density_a_cm2"] > 3 * record["metrics"]["peak_current_density_a_cm2"]
     assert "a higher NDR peak follows" in text
+
+
+def test_iv_says_where_it_added_points_between_the_sweeps(tmp_path, capsys) -> None:
+    # An invented GaAs/Al0.4Ga0.6As stack with a 12.33 nm well at 211 K (rounded from a
+    # random scan): its first state's resonance falls 19 % within 4 mV near 0.094 V, between
+    # two of 61 sweep points; the sweep computes points between them (the well's charge falls
+    # there) and says so, not as a valley beyond the sweep end.
+    layers = [
+        {"name": "emitter", "material": "GaAs", "doping_cm3": 6.5e17},
+        {"name": "spacer1", "material": "GaAs", "thickness_nm": 5.13},
+        {"name": "barrier1", "material": "AlGaAs", "x": 0.4, "thickness_nm": 2.65},
+        {"name": "well", "material": "GaAs", "thickness_nm": 12.33},
+        {"name": "barrier2", "material": "AlGaAs", "x": 0.4, "thickness_nm": 3.88},
+        {"name": "spacer2", "material": "GaAs", "thickness_nm": 6.60},
+        {"name": "collector", "material": "GaAs", "doping_cm3": 8.8e17},
+    ]
+    path = write_stack(
+        tmp_path, stack_toml(layers, top={"temperature_k": 211, "substrate": "GaAs"})
+    )
+    out = tmp_path / "out"
+    args = ["iv", str(path), "--out", str(out), "--bias-max", "0.67", "--no-figures"]
+    assert main(args) == 0
+    text = capsys.readouterr().out
+    record = json.loads((out / "metrics.json").read_text())
+    assert 0.09 < record["metrics"]["peak_voltage_v"] < 0.1
+    assert "a resonance narrower than the sweep's spacing" in text
+    assert "valley beyond the sweep end" not in text

@@ -219,11 +219,18 @@ def run(args) -> int:
         m = record["metrics"]
         print(f"{stack.source}: {len(bias)} biases from {bias[0]:g} to {bias[-1]:g} V")
         print(f"  model: {record['model']['label']}, {stack.temperature_k:g} K")
-        extended = len(record["bias_v"]) - len(bias)
+        computed = np.asarray(record["bias_v"])
+        inside = (computed > bias[0]) & (computed < bias[-1]) & ~np.isin(computed, bias)
+        extended = len(computed) - len(bias) - int(inside.sum())
         if extended:
             print(
                 f"  valley beyond the sweep end: {extended} more biases to "
                 f"{record['bias_v'][-1 if bias[-1] > 0 else 0]:g} V"
+            )
+        if inside.any():
+            print(
+                f"  a resonance narrower than the sweep's spacing: {int(inside.sum())} more "
+                f"biases between {computed[inside].min():g} and {computed[inside].max():g} V"
             )
         for line in island_lines:
             print(f"  {line}")

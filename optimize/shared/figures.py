@@ -92,10 +92,11 @@ def iv_figure(
         2, 1, figsize=(6.4, 6.4), sharex=True, gridspec_kw={"height_ratios": [3, 2]}
     )
     m: dict[str, Any] = curves.metrics_of(i)  # None where undefined, checked below
-    v, j = curves.curve_of(i)  # with the biases computed beyond the end to find the valley
-    # computed beyond the sweep to find the valley (counted before the marks join the curve)
-    extended = v.size > curves.bias_v.size
-    beyond_end = bool(extended and v[-1] > curves.bias_v[-1])
+    v, j = curves.curve_of(i)  # with the biases computed beyond the end or between points
+    # computed beyond the sweep to find the valley (points added between the sweep's, about
+    # a resonance narrower than its spacing, are no extension)
+    beyond_end = bool(np.any(v > curves.bias_v[-1]))
+    extended = beyond_end or bool(np.any(v < curves.bias_v[0]))
     marks = _peak_valley_marks(m)
     higher = higher_peak_beyond_valley(
         v,
