@@ -152,6 +152,9 @@ JUMP_STEP_OVER_TYPICAL = 10.0
 #: spacing (:func:`_hidden_collapse`; an InP/InAlAs stack's charge fell 3.3 times between
 #: points 30 mV apart while its current fell 36 % within 2 mV).
 HIDDEN_CHARGE_DROP = 0.5
+#: ... from a largest value of at least this, cm^-2 (a lightly doped stack at 376 K held
+#: 7e9 and its current fell 39 % within 3 mV where the charge fell to a third).
+HIDDEN_CHARGE_FLOOR_CM2 = 1e9
 
 
 @dataclass(frozen=True)
@@ -1478,7 +1481,7 @@ def _look_between(curves: IVCurves, table: LayerTable, between: dict, **options)
 def _hidden_collapse(solves, sel, v_side, ip) -> dict:
     """The devices whose well charge, along increasing ``|V|`` before their peak's sweep
     point (or anywhere, where the sweep shows no NDR), falls below :data:`HIDDEN_CHARGE_DROP`
-    of its largest value so far (at least :data:`JUMP_FLOOR_CM2`): device -> the biases of
+    of its largest value so far (at least :data:`HIDDEN_CHARGE_FLOOR_CM2`): device -> the biases of
     the sweep points about the charge's first low point after that fall, the one before, it
     and the one after (one spacing beyond the sweep's end there). A state leaving the
     emitter's supply window empties the well, and the resonance's NDR lies where it has
@@ -1492,7 +1495,9 @@ def _hidden_collapse(solves, sel, v_side, ip) -> dict:
         return {}
     well = solves[0][1].well_sheet_cm2[:, sel]
     most = np.maximum.accumulate(np.nan_to_num(well, nan=0.0), axis=1)
-    fallen = (most[:, :-1] >= JUMP_FLOOR_CM2) & (well[:, 1:] < HIDDEN_CHARGE_DROP * most[:, :-1])
+    fallen = (most[:, :-1] >= HIDDEN_CHARGE_FLOOR_CM2) & (
+        well[:, 1:] < HIDDEN_CHARGE_DROP * most[:, :-1]
+    )
     found = {}
     for s in range(well.shape[0]):
         end = ip[s] if ip[s] >= 0 else v_side.size

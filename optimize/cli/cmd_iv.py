@@ -219,19 +219,7 @@ def run(args) -> int:
         m = record["metrics"]
         print(f"{stack.source}: {len(bias)} biases from {bias[0]:g} to {bias[-1]:g} V")
         print(f"  model: {record['model']['label']}, {stack.temperature_k:g} K")
-        computed = np.asarray(record["bias_v"])
-        inside = (computed > bias[0]) & (computed < bias[-1]) & ~np.isin(computed, bias)
-        extended = len(computed) - len(bias) - int(inside.sum())
-        if extended:
-            print(
-                f"  valley beyond the sweep end: {extended} more biases to "
-                f"{record['bias_v'][-1 if bias[-1] > 0 else 0]:g} V"
-            )
-        if inside.any():
-            print(
-                f"  a resonance narrower than the sweep's spacing: {int(inside.sum())} more "
-                f"biases between {computed[inside].min():g} and {computed[inside].max():g} V"
-            )
+        _print_added_biases(np.asarray(record["bias_v"]), bias)
         for line in island_lines:
             print(f"  {line}")
         if m["peak_current_density_a_cm2"] is None:
@@ -268,3 +256,20 @@ def run(args) -> int:
                 )
         print(f"  results in {out}/")
     return 0
+
+
+def _print_added_biases(computed: np.ndarray, bias: np.ndarray) -> None:
+    """Say where the I-V computed biases beyond the user's: past the sweep's end (a valley
+    not reached) or between its points (a resonance narrower than its spacing)."""
+    inside = (computed > bias[0]) & (computed < bias[-1]) & ~np.isin(computed, bias)
+    extended = len(computed) - len(bias) - int(inside.sum())
+    if extended:
+        print(
+            f"  valley beyond the sweep end: {extended} more biases to "
+            f"{computed[-1 if bias[-1] > 0 else 0]:g} V"
+        )
+    if inside.any():
+        print(
+            f"  a resonance narrower than the sweep's spacing: {int(inside.sum())} more "
+            f"biases between {computed[inside].min():g} and {computed[inside].max():g} V"
+        )
