@@ -492,7 +492,9 @@ def test_a_spike_past_a_step_of_the_well_charge_is_zoomed_into() -> None:
     assert coarse["peak_voltage_v"] == pytest.approx(fine["peak_voltage_v"], abs=1e-4)
 
 
-@pytest.mark.parametrize(("seed", "draw"), [(131, 8), (128, 52), (133, 30), (130, 17)])
+@pytest.mark.parametrize(
+    ("seed", "draw"), [(131, 8), (128, 52), (133, 30), (130, 17), (130, 5), (129, 20)]
+)
 def test_a_resonance_narrower_than_the_sweep_is_found_where_the_well_charge_collapses(
     seed: int, draw: int
 ) -> None:
@@ -513,7 +515,12 @@ def test_a_resonance_narrower_than_the_sweep_is_found_where_the_well_charge_coll
     at -0.069 V on 61 biases only), so the fall is measured against the largest charge so
     far; seed 130, draw 17, InGaAs/InAlAs with a 14.4 nm well at 376 K and 4.7e16 cm^-3,
     whose charge never reaches 1e10 cm^-2 (7e9) and falls to a third where the current falls
-    39 % within 3 mV at -0.048 V. Checked: 61 and 241 biases agree within the issue's tolerances (measured after: Jp
+    39 % within 3 mV at -0.048 V; seed 130, draw 5, InAs/AlSb with a 13.6 nm well, whose
+    charge falls only to 0.63 of its largest (other states stay filled) where the current
+    falls 17 % within 4 mV at -0.204 V (hence a fall to 0.7, not half); seed 129, draw 20,
+    InGaAs/InAlAs at 7.5e18 cm^-3, whose charge falls twice, first at 0.29 V with no NDR
+    and then at 0.62 V where the current falls 16 % (hence every fall before the peak, not
+    only the first). Checked: 61 and 241 biases agree within the issue's tolerances (measured after: Jp
     within 0.1 %, Jv 0.1 %), the stack in a batch (with the next draw) as alone, and its
     curve holds the points between."""
     from test_default_model_scan import _default_model
@@ -530,7 +537,6 @@ def test_a_resonance_narrower_than_the_sweep_is_found_where_the_well_charge_coll
         j, v = f"{name}_current_density_a_cm2", f"{name}_voltage_v"
         assert coarse[j] == pytest.approx(fine[j], rel=J_RTOL), name
         assert coarse[v] == pytest.approx(fine[v], abs=V_ATOL), name
-    assert abs(coarse["peak_voltage_v"]) < 0.1
     bias = np.sort(np.linspace(0.0, sign * top, 61))
     pair = sweep(LayerTable.concatenate([stack.table(), partner]), bias, model=stack.model)
     assert pair.metrics_of(0)["peak_current_density_a_cm2"] == pytest.approx(
