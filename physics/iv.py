@@ -34,9 +34,9 @@ With the self-consistent model a resonance's NDR can be narrower than the sweep'
 spacing where a state leaves the emitter's supply window: the well's charge then falls.
 Where it falls below :data:`HIDDEN_CHARGE_DROP` of its largest value so far, before the
 peak found (or anywhere, where none was), the current is computed at
-:data:`REFINE_POINTS` biases on either side of the charge's low point after the fall; where
-those show a clear NDR peak there, that stack is swept again with them, and its figures of merit and
-the new points (kept as extension points) replace its own.
+:data:`REFINE_POINTS` biases on either side of the charge's low point after the fall;
+where those show a clear NDR peak there, that stack is swept again with them, and its
+figures of merit and the new points (kept as extension points) replace its own.
 
 Currents at stated biases (``sweep(..., at_bias_v=...)``, the circuit
 designer's ``current_density_at_bias`` targets) are computed at those biases
@@ -1475,7 +1475,7 @@ def _look_between(curves: IVCurves, table: LayerTable, between: dict, **options)
             continue  # no clear NDR peak before the last fall's intervals end
         one, _ = _sweep_on(
             table.take(np.array([s])),
-            np.sort(bias),
+            np.unique(bias),
             series_resistance_ohm_um2=r_all[[s]],
             area_weights=None,
             look_between=False,
@@ -1490,8 +1490,8 @@ def _hidden_collapse(solves, sel, v_side, ip) -> dict:
     point (or anywhere, where the sweep shows no NDR), falls below :data:`HIDDEN_CHARGE_DROP`
     of its largest value so far (at least :data:`HIDDEN_CHARGE_FLOOR_CM2`): device -> for
     each such fall, the biases of the sweep points about the charge's low point after it,
-    the one before, it and the one after (one spacing beyond the sweep's end there). A state leaving the
-    emitter's supply window empties the well, and the resonance's NDR lies where it has
+    the one before, it and the one after (one spacing beyond the sweep's end there). A
+    state leaving the emitter's supply window empties the well, and the resonance's NDR lies where it has
     left, which can be narrower than the sweep's spacing (a 12.3 nm GaAs/AlGaAs well at
     211 K: a 19 % fall within 4 mV between points 11 mV apart; DEVELOPERS.md). Measured
     against the largest charge so far, not the point before, so that a fall spread over

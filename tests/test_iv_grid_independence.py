@@ -68,6 +68,20 @@ def _on_61_and_241(stack, end_v: float) -> tuple[dict, dict]:
     )
 
 
+def _scan_draw(seed: int, draw: int):
+    """Draw ``draw`` (from 0) of ``random_stack`` with ``seed`` as the grid-independence scan
+    makes it (``benchmarks/scan_grid_independence.py``: the default model, an end bias and a
+    polarity per draw): the stack, its signed end bias and the generator, for further draws."""
+    from test_default_model_scan import _default_model
+    from test_grid_random_stacks import random_stack
+
+    rng = np.random.default_rng(seed)
+    for _ in range(draw + 1):
+        stack = _default_model(random_stack(rng))
+        top, sign = rng.uniform(0.3, 2.0), -1.0 if rng.random() < 0.5 else 1.0
+    return stack, sign * top, rng
+
+
 def _agree(a: dict, b: dict) -> None:
     for name in ("peak", "valley", "peak_up"):
         j, v = f"{name}_current_density_a_cm2", f"{name}_voltage_v"
@@ -290,14 +304,8 @@ def test_a_peak_some_spans_beyond_the_bracket_is_reached() -> None:
     3 mV beyond the peak, and moving one 0.24 mV span a round the zoom ended 2.7 mV short
     of it: Jp 2.137e4 A/cm^2 on 61 biases against 2.171e4 on 241 (1.6 %; 0.4 % now, the top
     itself wiggles by 0.3 % with the channel's state choice). Tolerance of the issue (1 %)."""
-    from test_default_model_scan import _default_model
-    from test_grid_random_stacks import random_stack
-
-    rng = np.random.default_rng(113)
-    for _ in range(25):
-        stack = _default_model(random_stack(rng))
-        top, sign = rng.uniform(0.3, 2.0), -1.0 if rng.random() < 0.5 else 1.0
-    coarse, fine = _on_61_and_241(stack, sign * top)
+    stack, end_v, _ = _scan_draw(113, 24)
+    coarse, fine = _on_61_and_241(stack, end_v)
     assert coarse["peak_current_density_a_cm2"] == pytest.approx(
         fine["peak_current_density_a_cm2"], rel=J_RTOL
     )
@@ -478,14 +486,8 @@ def test_a_spike_past_a_step_of_the_well_charge_is_zoomed_into() -> None:
     at -1.0210 V and the current spikes 4 % above its plateau within 0.3 mV past it. Before,
     61 biases gave the plateau, 1.215e6 A/cm^2, against 1.268e6 on 121 to 481 biases (4.2 %).
     Checked: 61 and 241 biases within 1e-4 (measured after: 3e-6)."""
-    from test_default_model_scan import _default_model
-    from test_grid_random_stacks import random_stack
-
-    rng = np.random.default_rng(131)
-    for _ in range(11):
-        stack = _default_model(random_stack(rng))
-        top, sign = rng.uniform(0.3, 2.0), -1.0 if rng.random() < 0.5 else 1.0
-    coarse, fine = _on_61_and_241(stack, sign * top)
+    stack, end_v, _ = _scan_draw(131, 10)
+    coarse, fine = _on_61_and_241(stack, end_v)
     assert coarse["peak_current_density_a_cm2"] == pytest.approx(
         fine["peak_current_density_a_cm2"], rel=1e-4
     )
@@ -527,17 +529,14 @@ def test_a_resonance_narrower_than_the_sweep_is_found_where_the_well_charge_coll
     from test_grid_random_stacks import random_stack
     from wellwright.physics.stack import LayerTable
 
-    rng = np.random.default_rng(seed)
-    for _ in range(draw + 1):
-        stack = _default_model(random_stack(rng))
-        top, sign = rng.uniform(0.3, 2.0), -1.0 if rng.random() < 0.5 else 1.0
+    stack, end_v, rng = _scan_draw(seed, draw)
     partner = _default_model(random_stack(rng)).table()
-    coarse, fine = _on_61_and_241(stack, sign * top)
+    coarse, fine = _on_61_and_241(stack, end_v)
     for name in ("peak", "valley"):
         j, v = f"{name}_current_density_a_cm2", f"{name}_voltage_v"
         assert coarse[j] == pytest.approx(fine[j], rel=J_RTOL), name
         assert coarse[v] == pytest.approx(fine[v], abs=V_ATOL), name
-    bias = np.sort(np.linspace(0.0, sign * top, 61))
+    bias = np.sort(np.linspace(0.0, end_v, 61))
     pair = sweep(LayerTable.concatenate([stack.table(), partner]), bias, model=stack.model)
     assert pair.metrics_of(0)["peak_current_density_a_cm2"] == pytest.approx(
         coarse["peak_current_density_a_cm2"], rel=1e-9
