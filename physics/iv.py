@@ -507,7 +507,6 @@ class _Brackets:
     drop_w: np.ndarray
     open_: np.ndarray
     known: np.ndarray
-    past_jump: np.ndarray
     ends_v: np.ndarray
     ends_j: np.ndarray
     ends_w: np.ndarray
@@ -526,7 +525,6 @@ class _Brackets:
             drop_w=np.full(n, np.nan),
             open_=np.ones(n, bool),
             known=np.zeros(n, bool),
-            past_jump=np.zeros(n, bool),
             ends_v=np.zeros((n, 2)),
             ends_j=np.zeros((n, 2)),
             ends_w=np.full((n, 2), np.nan),
@@ -642,7 +640,7 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     # at a cliff the next round spans only the interval to the fallen neighbour
     st.known[idx] = cliff
     across = np.clip(top + side, 0, n_points - 1)
-    st.past_jump[idx] = _past_jump(cliff, well, top, across, v)
+    past_jump = _past_jump(cliff, well, top, across, v)
     if np.any(cliff):
         best_v, across_v = st.center[idx], v[rows, across]
         st.center[idx] = np.where(cliff, 0.5 * (best_v + across_v), best_v)
@@ -664,7 +662,7 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
         & (curvature > 0)
         & (np.abs(j_vertex + lowest) <= REFINE_RELATIVE_TOLERANCE * np.abs(st.best[idx]))
     )
-    tolerance = np.where(st.past_jump[idx], REFINE_JUMP_TOLERANCE_V, REFINE_BIAS_TOLERANCE_V)
+    tolerance = np.where(past_jump, REFINE_JUMP_TOLERANCE_V, REFINE_BIAS_TOLERANCE_V)
     st.open_[idx] = ~((smooth & ~edge) | (st.half[idx] < tolerance))
 
 
@@ -1446,8 +1444,8 @@ def _look_between(curves: IVCurves, table: LayerTable, between: dict, **options)
     its own (:func:`_with_device_of`). A weak NDR there is left alone: on a stack whose single
     solves land on either of two branches there the refinement wandered to the next
     resonance."""
-    rows = np.array([s for s in sorted(between) for _ in between[s]])  # a row per fall
-    ends = np.array([t for s in sorted(between) for t in between[s]])
+    falls = [(s, t) for s in sorted(between) for t in between[s]]  # a row per fall
+    rows, ends = np.array([s for s, _ in falls]), np.array([t for _, t in falls])
     u = np.linspace(0.0, 1.0, REFINE_POINTS + 2)[1:-1]
     extra = np.concatenate(
         [ends[:, i : i + 1] + (ends[:, i + 1 : i + 2] - ends[:, i : i + 1]) * u for i in (0, 1)],
