@@ -34,9 +34,10 @@ With the self-consistent model a resonance's NDR can be narrower than the sweep'
 spacing where a state leaves the emitter's supply window: the well's charge then falls.
 Where it falls below :data:`HIDDEN_CHARGE_DROP` of its largest value since the sweep's
 start or the last such fall, before the peak found (or anywhere, where none was), the
-current is computed at :data:`REFINE_POINTS` biases on either side of the charge's low point after the fall;
-where those show a clear NDR peak there, that stack is swept again with them, and its
-figures of merit and the new points (kept as extension points) replace its own.
+current is computed at :data:`REFINE_POINTS` biases between the last point before the fall
+and the charge's low point after it, and as many between that and the next point; where
+those show a clear NDR peak there, that stack is swept again with them, and its figures of
+merit and the new points (kept as extension points) replace its own.
 
 Currents at stated biases (``sweep(..., at_bias_v=...)``, the circuit
 designer's ``current_density_at_bias`` targets) are computed at those biases
@@ -1438,7 +1439,8 @@ def sweep(
 def _look_between(curves: IVCurves, table: LayerTable, between: dict, **options) -> IVCurves:
     """Devices whose well charge falls before their peak (``between``,
     :func:`_hidden_collapse`): the current at :data:`REFINE_POINTS` biases inside each of the
-    two intervals about the charge's low point (one call for all of them); where those show
+    two intervals, from the last point before the fall to the charge's low point and from
+    there to the next point (one call for all of them); where those show
     a clear NDR peak (:data:`CLEAR_NDR_DROP`) there or before, that device is swept again
     alone with them (:func:`_sweep_on`) and its figures of merit and the new points replace
     its own (:func:`_with_device_of`). A weak NDR there is left alone: on a stack whose single
@@ -1488,8 +1490,8 @@ def _hidden_collapse(solves, sel, v_side, ip) -> dict:
     point (or anywhere, where the sweep shows no NDR), falls below :data:`HIDDEN_CHARGE_DROP`
     of its largest value since the sweep's start or the last fall's low point (at least
     :data:`HIDDEN_CHARGE_FLOOR_CM2`): device -> for
-    each such fall, the biases of the sweep points about the charge's low point after it,
-    the one before, it and the one after (one spacing beyond the sweep's end there). A
+    each such fall, the biases of the last sweep point before it, of the charge's low point
+    after it and of the point after that (one spacing beyond the sweep's end there). A
     state leaving the emitter's supply window empties the well, and the resonance's NDR lies where it has
     left, which can be narrower than the sweep's spacing (a 12.3 nm GaAs/AlGaAs well at
     211 K: a 19 % fall within 4 mV between points 11 mV apart; DEVELOPERS.md). Measured
@@ -1519,7 +1521,7 @@ def _hidden_collapse(solves, sel, v_side, ip) -> dict:
                 break  # the low point is the peak's own neighbourhood
             b = float(v_side[low])
             c = float(v_side[low + 1]) if low + 1 < v_side.size else 2 * b - float(v_side[low - 1])
-            found.setdefault(s, []).append((float(v_side[low - 1]), b, c))
+            found.setdefault(s, []).append((float(v_side[k - 1]), b, c))
             top, k = np.nan_to_num(w[low]), low + 1  # the next fall: from the charge after it
     return found
 
