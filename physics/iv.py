@@ -1489,9 +1489,9 @@ def _hidden_collapse(solves, sel, v_side, ip) -> dict:
     """The devices whose well charge, along increasing ``|V|`` before their peak's sweep
     point (or anywhere, where the sweep shows no NDR), falls below :data:`HIDDEN_CHARGE_DROP`
     of its largest value since the sweep's start or the last fall's low point (at least
-    :data:`HIDDEN_CHARGE_FLOOR_CM2`): device -> for
-    each such fall, the biases of the last sweep point before it, of the charge's low point
-    after it and of the point after that (one spacing beyond the sweep's end there). A
+    :data:`HIDDEN_CHARGE_FLOOR_CM2`): device -> for each such fall, the biases of the last
+    sweep point before it, of the charge's low point after it and of the point after that
+    (one spacing beyond the sweep's end there). A
     state leaving the emitter's supply window empties the well, and the resonance's NDR lies where it has
     left, which can be narrower than the sweep's spacing (a 12.3 nm GaAs/AlGaAs well at
     211 K: a 19 % fall within 4 mV between points 11 mV apart; DEVELOPERS.md). Measured

@@ -228,7 +228,8 @@ Departures from [2]_, each stated:
    (until 2026-12-05 uniform, 170 meV apart on a GaAsSb/AlAsSb stack at 5 K, where a 3 meV
    line 6 meV above the top was a maximum at some biases only, the state carried switched
    between it and one 0.5 eV up, and the current stepped 35 % in 0.5 mV; tested): a broad
-   state above the window reaches into it with its line's tail (until 2026-12-04 the search stopped at the window's top, 30 kT above the Fermi
+   state above the window reaches into it with its line's tail (until 2026-12-04 the
+   search stopped at the window's top, 30 kT above the Fermi
    level, and such a state set in at full strength as it entered: the current rose 11.6
    times in one 5.5 mV step on a GaAs/AlAs stack at 70 K; tested). A state takes the
    scattering rates of note 5 in full from two widths below the lower barrier's inner edge,
@@ -960,10 +961,7 @@ def _find_states(edge, mass, alpha, width, geo, top, high, params):
     # and on to the barrier's inner edge: a broad state above the window reaches into it with
     # its line's tail (found only inside the window, it set in at full strength there); in
     # steps growing geometrically from the last one of the window's grid, so that a narrow
-    # state just above the window is a maximum on every bias (spaced uniformly, 170 meV
-    # apart, a 3 meV line 6 meV above the window top of a GaAsSb stack at 5 K was found at
-    # some biases only, the lowest state found switching with it between that one and one
-    # 0.5 eV up, and the current stepped 37 % in 0.5 mV: `random_stack` seed 140, draw 55)
+    # state just above the window is a maximum on every bias (module note 6)
     ceiling = np.maximum(top, hi)
     span = ceiling - end
     first = np.minimum(end - grid[..., -2], span)
