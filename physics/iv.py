@@ -498,10 +498,13 @@ class _Brackets:
     (``sign * J``), nearest fallen sample (bias, current and well charge, NaN where not
     known), still open, and, for a cliff
     round's bracket, its two known ends (biases, ``sign * J`` and well charges, by bias);
-    ``kept``: the self-consistent solve at the best point (see :func:`_refine`)."""
+    ``kept``: the self-consistent solve at the best point (see :func:`_refine`); ``low_v``,
+    ``high_v``: the biases its samples stay within."""
 
     center: np.ndarray
     half: np.ndarray
+    low_v: np.ndarray
+    high_v: np.ndarray
     best: np.ndarray
     drop_v: np.ndarray
     drop_j: np.ndarray
@@ -514,12 +517,14 @@ class _Brackets:
     kept: list
 
     @classmethod
-    def start(cls, center_v, half_span_v) -> _Brackets:
+    def start(cls, center_v, half_span_v, bounds_v) -> _Brackets:
         center = np.array(center_v, float)
         n = center.size
         return cls(
             center=center,
             half=np.array(half_span_v, float),
+            low_v=np.array(bounds_v[0], float),
+            high_v=np.array(bounds_v[1], float),
             best=np.full(n, -np.inf),
             drop_v=np.full(n, np.inf),
             drop_j=np.full(n, np.nan),
@@ -533,8 +538,9 @@ class _Brackets:
         )
 
 
-def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
-    """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``.
+def _refine(devices, model, grid, center_v, half_span_v, sign, peaks, bounds_v):
+    """Refine extrema of ``sign * J``: maxima where ``sign > 0``, minima where ``sign < 0``,
+    each within its ``bounds_v`` (lowest and highest bias, V).
 
     Each round samples :data:`REFINE_POINTS` biases across ``center +- half``
     (one batched call for every extremum still open), fits a parabola through
@@ -568,7 +574,7 @@ def _refine(devices, model, grid, center_v, half_span_v, sign, peaks):
     (returned last: node positions, potential, electrons and well charge of its
     stack; None otherwise).
     """
-    st = _Brackets.start(center_v, half_span_v)
+    st = _Brackets.start(center_v, half_span_v, bounds_v)
     keep: list | None = (
         [] if devices.weights is None and model.electrostatics == "self-consistent" else None
     )
@@ -590,6 +596,8 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     all with known ends (``ends``) or none."""
     n_points = REFINE_POINTS + 2 if ends else REFINE_POINTS
     sub, sgn, rows = devices.take(idx), sign[idx], np.arange(idx.size)
+    if not ends:  # a bracket reaching past its bounds: cut to them (known ends lie within)
+        _keep_within_bounds(st, idx)
     v = st.center[idx, None] + st.half[idx, None] * np.linspace(-1.0, 1.0, n_points)
     if ends:
         v[:, 0], v[:, -1] = st.ends_v[idx, 0], st.ends_v[idx, 1]
@@ -665,6 +673,20 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     )
     tolerance = np.where(past_jump, REFINE_JUMP_TOLERANCE_V, REFINE_BIAS_TOLERANCE_V)
     st.open_[idx] = ~((smooth & ~edge) | (st.half[idx] < tolerance))
+
+
+def _keep_within_bounds(st, idx) -> None:
+    """Cut the brackets ``idx`` of ``st`` that reach past their bounds to them (in place).
+    A valley's bracket that reached below its peak found the current's fall towards zero
+    bias there, moved with it round by round (a best sample on the bracket's edge moves
+    it) and ended at -0.64 V with a negative current on a forward sweep (a GaSb/AlSb stack,
+    `random_stack` seed 144, draw 30; DEVELOPERS.md)."""
+    lo, hi = st.center[idx] - st.half[idx], st.center[idx] + st.half[idx]
+    out = (lo < st.low_v[idx]) | (hi > st.high_v[idx])
+    if np.any(out):
+        lo, hi = np.maximum(lo, st.low_v[idx]), np.minimum(hi, st.high_v[idx])
+        st.center[idx] = np.where(out, 0.5 * (lo + hi), st.center[idx])
+        st.half[idx] = np.where(out, 0.5 * (hi - lo), st.half[idx])
 
 
 def _past_jump(cliff, well, top, across, v):
@@ -1285,11 +1307,14 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     step = np.abs(np.diff(v_side)).max() if v_side.size > 1 else 0.0
     n = rows.size
     extremum = np.concatenate([np.ones(n), -np.ones(n)])  # maximise J at peaks, -J at valleys
-    # a peak and valley nearer each other than half the sweep's largest spacing (the extra
-    # points of a collapse between two sweep points, _hidden_collapse) span only to each
-    # other: a valley's span reaching below its peak found the fall towards zero bias, a
-    # peak's beyond its valley the next resonance's rise
-    half = np.where(np.abs(vv - vp) < 0.5 * step, np.abs(vv - vp), step)
+    half = np.full(n, step)
+    # a peak stays on its side of its valley, a valley past its peak: a valley's span
+    # reaching below its peak found the fall towards zero bias, a peak's beyond its valley
+    # the next resonance's rise (a peak and valley nearer each other than the sweep's
+    # spacing: the extra points of a collapse between two sweep points, _hidden_collapse)
+    up = vv > vp
+    low = np.concatenate([np.where(up, -np.inf, vv), np.where(up, vp, -np.inf)])
+    high = np.concatenate([np.where(up, vv, np.inf), np.where(up, np.inf, vp)])
     c, y, (after_v, after_j, after_w), kept = _refine(
         devices.take(rows).twice(),
         model,
@@ -1298,6 +1323,7 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
         np.concatenate([half, half]),
         extremum * sign,
         extremum > 0,
+        (low, high),
     )
     y = sign * y  # back to magnitudes on this branch
     vp, jp = c[:n], np.maximum(y[:n], jp)

@@ -494,6 +494,26 @@ def test_a_spike_past_a_step_of_the_well_charge_is_zoomed_into() -> None:
     assert coarse["peak_voltage_v"] == pytest.approx(fine["peak_voltage_v"], abs=1e-4)
 
 
+def test_a_valley_is_refined_past_its_peak_only() -> None:
+    """A valley's refinement stays past its peak, a peak's on its side of its valley
+    (``_keep_within_bounds``). Draw 30 of ``random_stack`` seed 144 (invented GaSb/AlSb
+    stack, a 7.8 nm well, 365 K, forward bias to 1.10 V), whose first resonance is found
+    between the sweep points where the well charge falls: on 61 biases the valley's first
+    bracket (the sweep's largest spacing, 18 mV) reached below the peak 15 mV away, its best
+    sample lay on the rising flank there, and the bracket moved with the current's fall
+    round by round to -0.64 V, a valley of -2.1e5 A/cm^2 on a forward sweep (no PVCR).
+    Checked: the valley lies past the peak with a positive current, and 61 and 241 biases
+    agree within the issue's tolerances (measured after: Jv within 3e-4, Vv 0.4 mV)."""
+    stack, end_v, _ = _scan_draw(144, 30)
+    coarse, fine = _on_61_and_241(stack, end_v)
+    assert coarse["peak_voltage_v"] < coarse["valley_voltage_v"]
+    assert coarse["valley_current_density_a_cm2"] > 0
+    for name in ("peak", "valley"):
+        j, v = f"{name}_current_density_a_cm2", f"{name}_voltage_v"
+        assert coarse[j] == pytest.approx(fine[j], rel=J_RTOL), name
+        assert coarse[v] == pytest.approx(fine[v], abs=V_ATOL), name
+
+
 @pytest.mark.parametrize(
     ("seed", "draw"),
     [(131, 8), (128, 52), (133, 30), (130, 17), (130, 5), (129, 20), (138, 17), (143, 6)],
