@@ -495,8 +495,7 @@ def test_a_spike_past_a_step_of_the_well_charge_is_zoomed_into() -> None:
 
 
 def test_a_valley_is_refined_past_its_peak_only() -> None:
-    """A valley's refinement stays past its peak, a peak's on its side of its valley
-    (``_keep_within_bounds``). Draw 30 of ``random_stack`` seed 144 (invented GaSb/AlSb
+    """A valley's refinement stays past its peak (``_keep_within_bounds``). Draw 30 of ``random_stack`` seed 144 (invented GaSb/AlSb
     stack, a 7.8 nm well, 365 K, forward bias to 1.10 V), whose first resonance is found
     between the sweep points where the well charge falls: on 61 biases the valley's first
     bracket (the sweep's largest spacing, 18 mV) reached below the peak 15 mV away, its best
