@@ -1315,9 +1315,10 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     # current's fall towards zero bias and followed it (_keep_within_bounds). A peak is not
     # bound by its sampled valley: a higher top just past that sample is the peak (seed
     # 132, stack 51: 3255 A/cm^2 10 mV before the valley found on 241 biases)
-    past = np.where(vv > vp, vp, -np.inf), np.where(vv > vp, np.inf, vp)
+    after = vv > vp  # the valley at the larger bias (else the branch runs to negative ones)
+    valley_low, valley_high = np.where(after, vp, -np.inf), np.where(after, np.inf, vp)
     free = np.full(n, np.inf)
-    low, high = np.concatenate([-free, past[0]]), np.concatenate([free, past[1]])
+    low, high = np.concatenate([-free, valley_low]), np.concatenate([free, valley_high])
     c, y, (after_v, after_j, after_w), kept = _refine(
         devices.take(rows).twice(),
         model,
@@ -1551,7 +1552,7 @@ def _hidden_collapse(solves, sel, v_side, ip) -> dict:
             b = float(v_side[low])
             c = float(v_side[low + 1]) if low + 1 < v_side.size else 2 * b - float(v_side[low - 1])
             found.setdefault(s, []).append((float(v_side[k - 1]), b, c))
-            top, k = np.nan_to_num(w[low]), low + 1  # the next fall: from the charge after it
+            top, k = np.nan_to_num(w[low]), low + 1  # the next fall: from this low point on
     return found
 
 
