@@ -1332,8 +1332,28 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     y = sign * y  # back to magnitudes on this branch
     vp, jp = c[:n], np.maximum(y[:n], jp)
     interior = ~bounded[rows]  # a valley on the last point computed stays there
+    sampled_vv = vv
     vv = np.where(interior, c[n:], vv)
     jv = np.where(interior, np.minimum(y[n:], jv), jv)
+    # a peak and a valley refined towards each other past one another (a valley 6 mV
+    # before its peak on an InAs/AlSb stack at 19 K, PVCR 1.07: seed 146, stack 26): that
+    # valley is refined again, past the refined peak
+    crossed = np.nonzero(interior & np.where(after, vv <= vp, vv >= vp))[0]
+    if crossed.size:
+        bound = vp[crossed]
+        was = sampled_vv[crossed]
+        start = np.where(after[crossed], np.maximum(was, bound), np.minimum(was, bound))
+        c2, y2, _, _ = _refine(
+            devices.take(rows[crossed]),
+            model,
+            grid,
+            start,
+            np.full(crossed.size, step),
+            -sign * np.ones(crossed.size),
+            np.zeros(crossed.size, bool),
+            (np.where(after[crossed], bound, -np.inf), np.where(after[crossed], np.inf, bound)),
+        )
+        vv[crossed], jv[crossed] = c2, sign * y2
     # the refinement's solve at its best point, vp
     at_peak = None if kept is None or any(k is None for k in kept[:n]) else kept[:n]
     return vp, jp, vv, jv, (after_v[:n], after_j[:n], after_w[:n]), at_peak
