@@ -1316,7 +1316,12 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     # bound by its sampled valley: a higher top just past that sample is the peak (seed
     # 132, stack 51: 3255 A/cm^2 10 mV before the valley found on 241 biases)
     after = vv > vp  # the valley at the larger bias (else the branch runs to negative ones)
-    valley_low, valley_high = np.where(after, vp, -np.inf), np.where(after, np.inf, vp)
+
+    def past(peak_v, rows_after):
+        """The bounds (lowest, highest bias) of valleys past peaks at ``peak_v``."""
+        return np.where(rows_after, peak_v, -np.inf), np.where(rows_after, np.inf, peak_v)
+
+    valley_low, valley_high = past(vp, after)
     free = np.full(n, np.inf)
     low, high = np.concatenate([-free, valley_low]), np.concatenate([free, valley_high])
     c, y, (after_v, after_j, after_w), kept = _refine(
@@ -1332,7 +1337,7 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     y = sign * y  # back to magnitudes on this branch
     vp, jp = c[:n], np.maximum(y[:n], jp)
     interior = ~bounded[rows]  # a valley on the last point computed stays there
-    sampled_vv = vv
+    sampled_vv = vv  # (vv is rebound below, not written)
     vv = np.where(interior, c[n:], vv)
     jv = np.where(interior, np.minimum(y[n:], jv), jv)
     # a peak and a valley refined towards each other past one another (a valley 6 mV
@@ -1340,18 +1345,16 @@ def _peak_and_valley(devices, model, grid, v_side, j_side, rows, ip, iv, bounded
     # valley is refined again, past the refined peak
     crossed = np.nonzero(interior & np.where(after, vv <= vp, vv >= vp))[0]
     if crossed.size:
-        bound = vp[crossed]
-        was = sampled_vv[crossed]
-        start = np.where(after[crossed], np.maximum(was, bound), np.minimum(was, bound))
+        bounds = past(vp[crossed], after[crossed])
         c2, y2, _, _ = _refine(
             devices.take(rows[crossed]),
             model,
             grid,
-            start,
+            np.clip(sampled_vv[crossed], *bounds),  # from the sampled valley, within them
             np.full(crossed.size, step),
-            -sign * np.ones(crossed.size),
+            np.full(crossed.size, -sign),
             np.zeros(crossed.size, bool),
-            (np.where(after[crossed], bound, -np.inf), np.where(after[crossed], np.inf, bound)),
+            bounds,
         )
         vv[crossed], jv[crossed] = c2, sign * y2
     # the refinement's solve at its best point, vp
