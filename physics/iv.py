@@ -1284,11 +1284,13 @@ def _single_solves(table, bias_v, model, target_nm):
 
 def _metrics_branch(bias: np.ndarray) -> tuple[np.ndarray, float] | None:
     """Indices of the branch the metrics are taken on (ordered by increasing ``|V|``) and its
-    sign: forward with at least three positive biases, else reverse, else None."""
+    sign: forward with at least three positive biases, else reverse, else None. Either
+    branch starts at zero bias where the sweep has it, so that a peak on the first sample
+    past it counts on both polarities."""
     if np.count_nonzero(bias > 0) >= 3:
         return np.nonzero(bias >= 0)[0], 1.0
     if np.count_nonzero(bias < 0) >= 3:
-        return np.nonzero(bias < 0)[0][::-1], -1.0
+        return np.nonzero(bias <= 0)[0][::-1], -1.0
     return None
 
 

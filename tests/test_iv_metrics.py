@@ -194,6 +194,26 @@ def test_reverse_branch_mirrors_forward_for_symmetric_stack(sweeps) -> None:
     assert np.all(rev.current_density_a_cm2[0, :-1] < 0)
 
 
+def test_a_peak_on_the_first_sample_counts_on_both_polarities() -> None:
+    # Mirror symmetry (common practice), on a sweep whose first sample past zero is the
+    # highest before the cliff: the reverse branch starts at zero bias as the forward one
+    # does. (The reverse branch used to start at its first negative bias, so that sample
+    # could not be a peak there: a 14 nm InP well's first resonance at -0.04 V, narrower
+    # than a 61-bias sweep's spacing, was missed and the next one reported, Jp 24 % and Vp
+    # 0.3 V apart from 241 biases; random_stack seed 148 draw 2.)
+    table = _double_barrier()
+    fine = sweep(table, np.linspace(0.0, 0.5, 301), model=PARABOLIC).metrics
+    bias = np.arange(6) * 0.95 * fine["peak_voltage_v"][0]
+    fwd = sweep(table, bias, model=PARABOLIC)
+    rev = sweep(table, -bias[::-1], model=PARABOLIC)
+    assert np.argmax(fwd.current_density_a_cm2[0, :3]) == 1  # the peak's sample: the first
+    for key in ("peak_voltage_v", "valley_voltage_v"):
+        assert rev.metrics[key][0] == pytest.approx(-fwd.metrics[key][0], abs=1e-9), key
+        assert fwd.metrics[key][0] == pytest.approx(fine[key][0], abs=2e-3), key
+    for key in ("peak_current_density_a_cm2", "valley_current_density_a_cm2"):
+        assert rev.metrics[key][0] == pytest.approx(fwd.metrics[key][0], rel=1e-9), key
+
+
 def test_single_barrier_has_no_ndr_metrics() -> None:
     # A single barrier has no resonance below its top: J(V) rises monotonically (common
     # practice), so every figure of merit is NaN.
