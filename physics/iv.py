@@ -126,8 +126,9 @@ NDR_DROP = 0.02
 #: choice: the wiggles of 2-6 % before the main peak and the bumps of a valley's floor that
 #: scans of random stacks found, which only fine bias grids resolve, are neither).
 CLEAR_NDR_DROP = 0.1
-#: Extra metrics of the up sweep (self-consistent model, forward bias): its peak, and the
-#: width of the bias window above the peak where the I-V is bistable (0 where it is not).
+#: Extra metrics of the up sweep (self-consistent model; along |V| on either branch): its
+#: peak, and the width of the bias window past the peak where the I-V is bistable (0 where
+#: it is not).
 BISTABILITY_NAMES = ("peak_current_density_up_a_cm2", "peak_voltage_up_v", "bistable_window_v")
 #: The current continued from the peak counts as another branch when it exceeds the
 #: single-solve current by this fraction; the fold closing the window is found to this bias.
@@ -526,7 +527,7 @@ class _Brackets:
             low_v=np.array(bounds_v[0], float),
             high_v=np.array(bounds_v[1], float),
             best=np.full(n, -np.inf),
-            drop_v=np.full(n, np.inf),
+            drop_v=np.full(n, np.nan),
             drop_j=np.full(n, np.nan),
             drop_w=np.full(n, np.nan),
             open_=np.ones(n, bool),
@@ -629,17 +630,7 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
         keep.clear()
     st.center[idx] = np.where(better, vertex, v[rows, top])
     st.best[idx] = np.maximum(j_vertex, j[rows, top])
-    # the nearest sample above the extremum that lies NDR_DROP below it (used for peaks)
-    fallen = (v > st.center[idx, None]) & (
-        j < st.best[idx, None] - NDR_DROP * np.abs(st.best[idx, None])
-    )
-    first = np.argmax(fallen, axis=1)
-    v_fall = np.where(fallen.any(axis=1), v[rows, first], np.inf)
-    nearer = v_fall < st.drop_v[idx]
-    st.drop_v[idx] = np.where(nearer, v_fall, st.drop_v[idx])
-    st.drop_j[idx] = np.where(nearer, sgn * j[rows, first], st.drop_j[idx])
-    if well is not None:
-        st.drop_w[idx] = np.where(nearer, well[rows, first], st.drop_w[idx])
+    _note_fall(st, idx, v, j, well, sgn, peaks[idx])
     edge = (top == 0) | (top == n_points - 1)
     # a best sample on the bracket's edge: the bracket moves there and, where its ends were
     # not known, doubles, so that an extremum some spans away is reached in a few rounds
@@ -673,6 +664,27 @@ def _refine_round(devices, model, grid, sign, peaks, st, keep, idx, ends):
     )
     tolerance = np.where(past_jump, REFINE_JUMP_TOLERANCE_V, REFINE_BIAS_TOLERANCE_V)
     st.open_[idx] = ~((smooth & ~edge) | (st.half[idx] < tolerance))
+
+
+def _note_fall(st, idx, v, j, well, sgn, peaks) -> None:
+    """Keep in ``st`` (in place) the nearest sample of a round past each extremum ``idx``
+    along increasing ``|V|`` that lies :data:`NDR_DROP` below its best (biases ``v``,
+    ``sgn * J`` ``j`` and well charges ``well`` or None of the round's samples, ``peaks``
+    its peaks; NaN in ``st``: none yet)."""
+    rows, n_points = np.arange(idx.size), v.shape[1]
+    d = np.where(peaks, sgn, -sgn)  # +1 on a forward branch, -1 on a reverse one
+    fallen = (d[:, None] * v > d[:, None] * st.center[idx, None]) & (
+        j < st.best[idx, None] - NDR_DROP * np.abs(st.best[idx, None])
+    )
+    first = np.where(
+        d > 0, np.argmax(fallen, axis=1), n_points - 1 - np.argmax(fallen[:, ::-1], axis=1)
+    )
+    v_fall = v[rows, first]
+    nearer = fallen.any(axis=1) & ~(d * st.drop_v[idx] <= d * v_fall)
+    st.drop_v[idx] = np.where(nearer, v_fall, st.drop_v[idx])
+    st.drop_j[idx] = np.where(nearer, sgn * j[rows, first], st.drop_j[idx])
+    if well is not None:
+        st.drop_w[idx] = np.where(nearer, well[rows, first], st.drop_w[idx])
 
 
 def _keep_within_bounds(st, idx) -> None:
@@ -900,7 +912,7 @@ def _take_solution(solution, rows):
     )
 
 
-def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
+def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, sign=1.0):
     """Where the self-consistent I-V is bistable above its peak: the up sweep's branch.
 
     Every bias of a sweep is solved from the linear drop with no well charge,
@@ -924,7 +936,8 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
     Returns the up sweep's peak bias and current, and the window (last bias
     on the charged branch minus ``v_start``; 0 where the I-V is single-valued). ``peak`` is
     the node positions (``(n_stacks, n_nodes)``, nm) and solution of the start's solve.
-    The down branch is taken to be the single-solve one (checked against
+    Biases and currents go along the branch ``sign`` (+1 forward, -1 reverse): ``|V|``
+    and magnitudes. The down branch is taken to be the single-solve one (checked against
     :func:`sweep_hysteresis` on the InP example stack: the down sweep follows
     the single solves there).
     """
@@ -955,7 +968,7 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
         abandon = None if need is None else FOLD_CHARGE_COLLAPSE * sol.well_sheet_cm2
         g_, s_ = solve_stack_poisson(
             table,
-            v[:, None],
+            sign * v[:, None],
             initial_ev=state.potential_ev,
             initial_well_cm2=state.well_sheet_cm2,
             abandon_below_cm2=abandon,
@@ -964,17 +977,20 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
         left = np.zeros(v.size, bool) if s_.abandoned is None else s_.abandoned[:, 0]
         return g_, s_, left
 
+    each = functools.partial(  # each stack alone, where a solve of the batch fails
+        _up_branch_each, table, model, grid, v_start, v_after, j_after, v_end, peak=peak, sign=sign
+    )
     try:
         g_after, state, _ = continued(v_after, sol)
     except ElectrostaticsConvergenceError:
         if v_start.size == 1:
             raise
-        return _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, peak=peak)
+        return each()
 
     def current_of(potential_ev, v):
-        """Currents at biases ``v`` ``(n, m)`` of potentials ``(n, m, n_slices)``."""
+        """Current magnitudes at ``|V|`` ``v`` ``(n, m)`` of potentials ``(n, m, n_slices)``."""
         profile = profile_from_potential(table, g_after, potential_ev)
-        return _current_of_profile(profile, table, v, model, grid)
+        return sign * _current_of_profile(profile, table, sign * v, model, grid)
 
     j_hi = current_of(state.potential_ev, v_after[:, None])[:, 0]
     bistable = j_hi > (1.0 + BISTABLE_EXCESS) * j_after
@@ -989,9 +1005,7 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
             _, trial, left = continued(v_try, state, need=active)
         except ElectrostaticsConvergenceError:
             if v_start.size > 1:  # one stack's failure must not end its partners' branches
-                return _up_branch_each(
-                    table, model, grid, v_start, v_after, j_after, v_end, peak=peak
-                )
+                return each()
             break  # keep the branch found so far
         hold = active & ~left  # the charge held: still on the charged branch
         state = replace(
@@ -1029,7 +1043,7 @@ def _highest_on_branch(current_of, v_start, v_after, j_hi, bistable, held):
     return np.where(bistable, biases[rows, top], v_start), candidates[rows, top]
 
 
-def _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, *, peak):
+def _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, *, peak, sign):
     """:func:`_up_branch` of each stack alone, once a solve of the batch failed to converge:
     each stack's branch is then the one it has alone, whatever its partners do."""
     center_nm, solution = peak
@@ -1043,6 +1057,7 @@ def _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, *, pea
             j_after[[i]],
             v_end[[i]],
             peak=(center_nm[[i]], _take_solution(solution, [i])),
+            sign=sign,
         )
         for i in range(v_start.size)
     ]
@@ -1139,18 +1154,21 @@ def _at_bias_metrics(devices, at_bias_v, area_um2, model, grid) -> dict[str, np.
     return out
 
 
-def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept):
+def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept, *, sign):
     """The up sweep's peak (bias, current) and bistable window of each stack with NDR
     (``table``: those stacks): :func:`_up_branch` from the last single solve on the charged
     branch above the peak, for the stacks whose single solves fall off it before the valley
-    ``vv`` (:func:`_collapse_bracket`), the single-solve peak elsewhere."""
+    ``vv`` (:func:`_collapse_bracket`), the single-solve peak elsewhere. ``sign``: the
+    branch's (+1 forward, -1 reverse); both take their steps along ``|V|``."""
+    vp, vv = sign * vp, sign * vv  # along |V| (the currents are magnitudes already)
+    after = (sign * after[0], sign * after[1], after[2])
     vp_up, jp_up, window = vp.copy(), jp.copy(), np.zeros(vp.size)
     v_start, start, v_after, j_after = _collapse_bracket(
-        table, model, grid, vp, vv, after, peak_solution, swept
+        table, model, grid, vp, vv, after, peak_solution, swept, sign=sign
     )
     found = np.isfinite(v_after)
     if not np.any(found):
-        return vp_up, jp_up, window
+        return sign * vp_up, jp_up, window
     k = np.nonzero(found)[0]
     up_v, up_j, fold = _up_branch(
         table.take(k),
@@ -1161,15 +1179,16 @@ def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept)
         j_after[k],
         vv[k],
         peak=(start[0][k], _take_solution(start[1], k)),
+        sign=sign,
     )
     better = up_j > jp[k]
     vp_up[k] = np.where(better, up_v, vp[k])
     jp_up[k] = np.where(better, up_j, jp[k])
     window[k] = fold
-    return vp_up, jp_up, window
+    return sign * vp_up, jp_up, window
 
 
-def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
+def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept, *, sign):
     """Where the single solves fall off the charged branch above each peak ``vp`` (before
     the valley ``vv``): the first bias whose well charge lies below
     :data:`FOLD_CHARGE_COLLAPSE` of the peak's (a peak's charge of at least
@@ -1184,6 +1203,8 @@ def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
     solves fall off 5.5 mV after a smooth top, which the refinement's samples reached on
     61 biases and not on 121; DEVELOPERS.md). Without charges (mixed devices) the
     refinement's first fallen sample is taken, from the peak's solve.
+
+    Biases and currents are taken along the branch ``sign`` (``|V|`` and magnitudes).
 
     Returns the start's bias and solve (node positions ``(n, n_nodes)`` and solution, on
     ``table``'s grid) and the first bias off the branch with its single-solve current (NaN
@@ -1234,7 +1255,7 @@ def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
         if not k.size:
             break
         mid = 0.5 * (v_lo[k] + v_hi[k])
-        u, charge = _single_solves(table.take(k), mid, model, target_nm[k])
+        u, charge = _single_solves(table.take(k), sign * mid, model, target_nm[k])
         failed[k] = np.isnan(charge)
         k, mid, u, charge = k[~failed[k]], mid[~failed[k]], u[~failed[k]], charge[~failed[k]]
         on = charge >= limit[k]
@@ -1250,7 +1271,9 @@ def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept):
             target_center_nm=sub_nm.center_nm,
         )  # fmt: skip
         profile = profile_from_potential(sub, sub_nm, u)
-        j_hi[redo] = _current_of_profile(profile, sub, v_hi[redo][:, None], model, grid)[:, 0]
+        j_hi[redo] = (
+            sign * _current_of_profile(profile, sub, sign * v_hi[redo][:, None], model, grid)[:, 0]
+        )
     start = PoissonSolution(
         potential_ev=pot[:, None], electron_cm3=np.zeros_like(pot[:, None]), iterations=0,
         well_sheet_cm2=well[:, None],
@@ -1369,8 +1392,9 @@ def _peak_figures(
 ) -> None:
     """Fill ``metrics`` (in place) with the figures read at the peak of the stacks ``rows``
     (``peaked``): the device figures (:func:`physics.device.device_figures`) from the
-    peak's profile and, with the self-consistent model and ``up_sweep``, the up sweep's
-    peak and bistable window (:func:`_up_sweep_peaks`; the peak's solve is shared).
+    peak's profile and, with the self-consistent model and ``up_sweep`` (the branch's sign,
+    +1 forward, -1 reverse; 0: none), the up sweep's peak and bistable window
+    (:func:`_up_sweep_peaks`; the peak's solve is shared).
     ``curve`` is ``(|V|, J, table)`` of the branch and every device; ``extrema`` is
     ``(vp, jp, vv, after, at_peak, swept)``: the first five from :func:`_peak_and_valley`
     (``at_peak``: the refinement's solves at ``vp``, which spare the peak's own solve, or
@@ -1405,7 +1429,7 @@ def _peak_figures(
     vp_up, jp_up, window = vp, jp, np.zeros(rows.size)
     if up_sweep and peak_solution is not None and after is not None:
         vp_up, jp_up, window = _up_sweep_peaks(
-            peaked, model, grid, vp, jp, vv, after, peak_solution, swept
+            peaked, model, grid, vp, jp, vv, after, peak_solution, swept, sign=up_sweep
         )
     metrics["peak_current_density_up_a_cm2"][rows] = jp_up
     metrics["peak_voltage_up_v"][rows] = vp_up
@@ -1700,7 +1724,7 @@ def _sweep_on(
         model,
         grid,
         rows=rows,
-        up_sweep=refine and sign > 0,
+        up_sweep=sign if refine else 0.0,
         curve=(np.abs(v_side), j_side, table),
         extrema=(vp, jp, vv, after, at_peak, swept),
         series_resistance_ohm_um2=series_resistance_ohm_um2,
