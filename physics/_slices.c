@@ -789,7 +789,10 @@ static int root_step(Py_ssize_t n_entries, double *st, double *well, const doubl
         const double lo = S(R_LO), hi = S(R_HI), r_lo = S(R_RLO), r_hi = S(R_RHI);
         const double ceiling = 4.0 * max_nan(tg, w) + abs_cm2;
         const int open_ok = isfinite(candidate) && candidate > lo && candidate < ceiling;
-        const int bracketed = isfinite(hi);
+        /* with no lower end known yet (0 a bound only; a warm start whose residual is
+           negative), an open step below hi goes on towards the nearest root */
+        const int lo_open = S(R_LOKNOWN) == 0.0 && S(R_REOPENED) == 0.0;
+        const int bracketed = isfinite(hi) && !(lo_open && open_ok && candidate < hi);
         const double denom = bracketed ? r_lo - r_hi : 1.0;
         const double falsi = (S(R_LOKNOWN) != 0.0 && denom > 0.0)
                                  ? (lo * -r_hi + (bracketed ? hi : 0.0) * r_lo) / denom

@@ -38,7 +38,8 @@ after ``max_iterations``. The well charge is a scalar per (stack, bias),
 found as the root of ``F(n_w) - n_w`` (``F``: the charge of the states of
 the potential that ``n_w`` produces, each evaluation a full search for the
 states, so ``F`` is one function of ``n_w``) by secant steps until the root
-is bracketed and Illinois regula falsi after, an iteration that also raises
+is bracketed and Illinois regula falsi after (from a warm start, towards the
+root nearest it), an iteration that also raises
 that error after ``max_well_iterations``.
 
 Known limits: the quasi-bound states are detected on a coarse grid of
@@ -956,8 +957,14 @@ class _WellChargeRoot:
     """Root search of ``residual(well) = F(well) - well`` per (stack, bias), cm^-2.
 
     ``F >= 0``, so a root lies in ``[0, F]``: a bracket ``[lo, hi]`` with
-    ``residual(lo) >= 0 >= residual(hi)`` is kept; until ``hi`` is found, secant (or
-    mixing) steps; then regula falsi with the Illinois modification. A collapsed
+    ``residual(lo) >= 0 >= residual(hi)`` is kept; until both ends are evaluated, secant
+    (or mixing) steps; then regula falsi with the Illinois modification. A cold start
+    (charge 0) evaluates ``lo`` first. A warm start whose residual is negative (a
+    continuation in bias) has ``hi`` only: its open steps go on below it towards the
+    nearest root, and only a step that is not usable halves ``[0, hi]`` (halving at once
+    skipped the charged root of a bistable stack wherever the unstable root lay above
+    half the start's charge, and the up sweep left the branch early: the InP example's
+    up sweep ended at 0.4993 V where its branch holds to 0.5033 V). A collapsed
     bracket with a large residual is reopened once; collapsing again, it is a jump of
     ``F`` and the charge is settled at the jump.
 
@@ -1035,8 +1042,8 @@ class _WellChargeRoot:
         last_side = last_side.astype(int)
         previous = tuple(last) if self.has_previous else None
         # Root of residual(well) = F(well) - well per (stack, bias). F >= 0, so a root lies in
-        # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi). Until hi is
-        # found, secant (or mixing) steps; then regula falsi with the Illinois modification
+        # [0, F]: keep a bracket [lo, hi] with residual(lo) >= 0 >= residual(hi). Until both
+        # ends are known, secant (or mixing) steps; then regula falsi with the Illinois modification
         # (M. Dowell and P. Jarratt, BIT 11, 168 (1971), from memory), superlinear, always inside.
         # entries already within tolerance keep their charge (each entry's F depends on its
         # own charge only)
@@ -1057,7 +1064,10 @@ class _WellChargeRoot:
             candidate = np.where(ok, well - residual * d_well / np.where(ok, d_res, 1.0), candidate)
         ceiling = 4.0 * np.maximum(target, well) + WELL_ABS_CM2  # F is bounded
         open_ok = np.isfinite(candidate) & (candidate > lo) & (candidate < ceiling)
-        bracketed = np.isfinite(hi)
+        # with no lower end known yet (0 a bound only: a warm start whose residual is
+        # negative), an open step below hi goes on towards the nearest root
+        lo_open = ~lo_known & ~reopened
+        bracketed = np.isfinite(hi) & ~(lo_open & open_ok & (candidate < hi))
         denom = np.where(bracketed, r_lo - r_hi, 1.0)
         falsi = np.where(
             lo_known & (denom > 0),

@@ -963,8 +963,8 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
     def continued(v, state, need=None):
         """Solve at ``v`` from ``state``: the grid, the solution and the stacks that left the
         charged branch (with ``need``, the stacks whose step counts: a stack whose well charge
-        collapses below :data:`FOLD_CHARGE_COLLAPSE` of its start has left it, its solve
-        stops there)."""
+        collapses below :data:`FOLD_CHARGE_COLLAPSE` of its start has left it, whether its
+        solve stops there or converges below)."""
         abandon = None if need is None else FOLD_CHARGE_COLLAPSE * sol.well_sheet_cm2
         g_, s_ = solve_stack_poisson(
             table,
@@ -974,8 +974,8 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
             abandon_below_cm2=abandon,
             **options,
         )
-        left = np.zeros(v.size, bool) if s_.abandoned is None else s_.abandoned[:, 0]
-        return g_, s_, left
+        left = np.zeros(v.size, bool) if abandon is None else s_.well_sheet_cm2 <= abandon
+        return g_, s_, np.ravel(left)
 
     each = functools.partial(  # each stack alone, where a solve of the batch fails
         _up_branch_each, table, model, grid, v_start, v_after, j_after, v_end, peak=peak, sign=sign
