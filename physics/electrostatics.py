@@ -105,6 +105,7 @@ __all__ = [
     "solve_self_consistent",
     "self_consistent_profile",
     "well_sheet_density_cm2",
+    "well_charge_residual_cm2",
 ]
 
 #: Layers whose edge lies this far above both contacts' edges count as barriers, eV.
@@ -1368,6 +1369,34 @@ def well_sheet_density_cm2(
     )[..., None]
     supply = fermi_dirac_zero((mu[..., None] - np.where(ok, e1, 0.0)) / kt[..., None])
     return np.sum(np.where(ok, fraction * n2d_cm2 * supply, 0.0), axis=-1), e1
+
+
+def well_charge_residual_cm2(
+    table: LayerTable, bias_v: float, charge_cm2: np.ndarray, *, slice_nm: float = 0.25
+) -> np.ndarray:
+    """``F(n) - n`` of the well-charge equation of each stack at ``bias_v`` for each charge
+    ``n`` of ``charge_cm2`` (cm^-2, ``(m,)``): ``F`` the charge the quasi-bound states hold in
+    the potential that ``n`` in the well produces (one Poisson solve and one state search per
+    charge, all in one batch). A diagnostic: its falls through zero are the stable
+    self-consistent states at that bias, found without a root search and so without a start
+    or a path (the brute-force reference of the solver's continuation: tests,
+    ``benchmarks/scan_up_sweep_folds.py``). Returns ``(n_stacks, m)``, cm^-2."""
+    setup = _solve_setup(
+        table, slice_nm=slice_nm, contact_nm=CONTACT_NM, contact_slice_nm=CONTACT_SLICE_NM,
+        tolerance_ev=1e-7, max_iterations=60, max_step_ev=MAX_STEP_EV,
+    )  # fmt: skip
+    if setup.target is None:
+        raise ValueError("no stack of the table has a well")
+    charge = np.broadcast_to(np.asarray(charge_cm2, float), (table.n_stacks, np.size(charge_cm2)))
+    bias = np.full(charge.shape, float(bias_v))
+    right = -(bias + setup.builtin_ev[:, None])
+    fermi = np.where(
+        setup.emitter_side[:, None, :],
+        setup.mu_e[:, None, None],
+        (setup.mu_e[:, None] - bias)[:, :, None],
+    )
+    solved = setup.poisson(right[:, :, None] * setup.frac[:, None, :], charge, fermi, right)
+    return setup.target(solved.potential_ev, bias) - charge
 
 
 def solve_self_consistent(

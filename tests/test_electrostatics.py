@@ -19,9 +19,12 @@ from wellwright.physics.constants import (
 )
 from wellwright.physics.current import EnergyGrid, current_density_a_cm2
 from wellwright.physics.electrostatics import (
+    WELL_ABS_CM2,
+    WELL_TOLERANCE,
     ElectrostaticsConvergenceError,
     solve_poisson_1d,
     solve_stack_poisson,
+    well_charge_residual_cm2,
 )
 from wellwright.physics.fermi import fermi_level_ev
 from wellwright.physics.iv import current_at_bias, stack_iv, sweep, sweep_hysteresis
@@ -550,3 +553,19 @@ def test_the_charge_of_a_wide_well_with_many_lines_is_continuous() -> None:
     # and the self-consistent I-V rises smoothly towards its peak (0.56 V)
     j = current_at_bias(table, np.linspace(0.45, 0.55, 21), model=stack.model)[0]
     assert np.all(np.diff(j) > 0), j
+
+
+def test_the_well_charge_residual_vanishes_at_the_solved_charge() -> None:
+    """``well_charge_residual_cm2`` (the diagnostic the continuation is checked against) is
+    the equation the solver solves: at the solver's own charge its residual is within the
+    solver's tolerance (WELL_TOLERANCE of the charge plus WELL_ABS_CM2, from a fresh start
+    so the two need not agree bit for bit: four times that), and it changes sign there. No
+    external reference: a consistency check of two paths to one equation."""
+    table = load_stack(STUDY).table()
+    for bias_v in (0.26, 0.30):
+        _, solved = solve_stack_poisson(table, np.array([bias_v]))
+        n = float(solved.well_sheet_cm2[0, 0])
+        assert n > 1e10
+        r = well_charge_residual_cm2(table, bias_v, np.array([n, 0.9 * n, 1.1 * n]))[0]
+        assert abs(r[0]) <= 4 * (WELL_TOLERANCE * n + WELL_ABS_CM2)
+        assert r[1] > 0 > r[2]

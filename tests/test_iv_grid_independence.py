@@ -214,26 +214,12 @@ def test_the_up_sweep_is_followed_on_the_reverse_branch_too() -> None:
 
 def _charged_root_exists(table, bias_v: float, top_cm2: float) -> bool:
     """Whether the well-charge equation ``F(n) = n`` at ``bias_v`` has a charged stable root
-    besides the least one: a brute-force scan of the residual ``F(n) - n`` over 400 charges
-    up to ``top_cm2`` (each charge its own Poisson solve and state search, in one batch),
-    counting its falls through zero. The reference of the up sweep's end: no root search,
-    no start, so no path that could skip a root."""
-    from wellwright.physics import electrostatics as es
+    besides the least one: its residual over 400 charges up to ``top_cm2``
+    (``well_charge_residual_cm2``: no root search, no start, so no path that could skip a
+    root), counting its falls through zero. The reference of the up sweep's end."""
+    from wellwright.physics.electrostatics import well_charge_residual_cm2
 
-    setup = es._solve_setup(
-        table, slice_nm=0.25, contact_nm=es.CONTACT_NM, contact_slice_nm=es.CONTACT_SLICE_NM,
-        tolerance_ev=1e-7, max_iterations=60, max_step_ev=es.MAX_STEP_EV,
-    )  # fmt: skip
-    charge = np.linspace(0.0, top_cm2, 400)
-    bias = np.full((1, charge.size), bias_v)
-    right = -(bias + setup.builtin_ev[:, None])
-    fermi = np.where(
-        setup.emitter_side[:, None, :],
-        setup.mu_e[:, None, None],
-        (setup.mu_e[:, None] - bias)[:, :, None],
-    )
-    solved = setup.poisson(right[:, :, None] * setup.frac[:, None, :], charge[None], fermi, right)
-    sign = np.sign(setup.target(solved.potential_ev, bias)[0] - charge)
+    sign = np.sign(well_charge_residual_cm2(table, bias_v, np.linspace(0.0, top_cm2, 400))[0])
     return np.count_nonzero((sign[:-1] > 0) & (sign[1:] <= 0)) >= 2
 
 
