@@ -148,6 +148,9 @@ class PoissonSolution:
     #: entries given up because their well charge was shown to lie below
     #: ``abandon_below_cm2`` (:func:`solve_stack_poisson`): not converged; ``batch``
     abandoned: np.ndarray | None = None
+    #: with ``keep_failed`` (:func:`solve_stack_poisson`): the entries whose well-charge
+    #: iteration did not converge in its steps (their last iterate); ``batch``
+    failed: np.ndarray | None = None
 
 
 def _fixed_parts(
@@ -537,6 +540,7 @@ def solve_stack_poisson(
     max_well_iterations: int = 60,
     max_step_ev: float = MAX_STEP_EV,
     abandon_below_cm2: np.ndarray | None = None,
+    keep_failed: bool = False,
 ) -> tuple[SliceGrid, PoissonSolution]:
     """Self-consistent potential of each stack at each bias.
 
@@ -565,6 +569,10 @@ def solve_stack_poisson(
         lies in ``[0, n_w]``: ``F >= 0``) stops there, not converged, and is flagged in
         ``solution.abandoned`` (a continuation that only needs to know that the charge
         collapsed, :func:`physics.iv.sweep`'s up-branch check).
+    keep_failed
+        Entries whose well-charge iteration does not converge keep their last iterate and
+        are flagged in ``solution.failed`` instead of raising (the Poisson-Newton solve
+        still raises; :func:`solve_self_consistent` mends them).
 
     Returns
     -------
@@ -618,6 +626,7 @@ def solve_stack_poisson(
             if abandon_below_cm2 is None
             else np.broadcast_to(abandon_below_cm2, bias.shape).copy()
         ),
+        keep_failed=keep_failed,
     )
 
 
@@ -759,6 +768,7 @@ def _iterate_well_charge(
     fermi,
     right,
     abandon_below_cm2=None,
+    keep_failed=False,
 ) -> PoissonSolution:
     """The well-charge iteration of :func:`solve_stack_poisson` around ``poisson``.
 
@@ -785,6 +795,9 @@ def _iterate_well_charge(
         Bias (V), quasi-Fermi levels and collector potential (eV) of each entry.
     abandon_below_cm2
         Optional charges, cm^-2, of each entry: see :func:`solve_stack_poisson`.
+    keep_failed
+        Entries still open after ``max_well_iterations`` keep their last iterate and are
+        flagged in ``failed`` (else the iteration raises).
     """
     shape = bias.shape
     n_nodes = solution.potential_ev.shape[-1]
@@ -805,6 +818,17 @@ def _iterate_well_charge(
     below = None if abandon_below_cm2 is None else abandon_below_cm2.reshape(-1)
     root = _WellChargeRoot.start(well.shape)
     most = 0
+
+    def result(iterations, failed=None):
+        return PoissonSolution(
+            potential_ev=out_u.reshape(shape + (n_nodes,)),
+            electron_cm3=out_n.reshape(shape + (n_nodes,)),
+            iterations=iterations,
+            well_sheet_cm2=out_well.reshape(shape),
+            abandoned=abandoned.reshape(shape) if below is not None else None,
+            failed=failed,
+        )
+
     for outer in range(1, max_well_iterations + 1):
         if entry.size == out_well.size:  # every entry open: the batch's own shape, whose
             # parts _WellChargeStep keeps (small batches); the same arithmetic per entry
@@ -829,22 +853,10 @@ def _iterate_well_charge(
                 abandoned[entry[new]] = gone[new]
             most = max(most, used + outer)
             if new.all():
-                return PoissonSolution(
-                    potential_ev=out_u.reshape(shape + (n_nodes,)),
-                    electron_cm3=out_n.reshape(shape + (n_nodes,)),
-                    iterations=most,
-                    well_sheet_cm2=out_well.reshape(shape),
-                    abandoned=abandoned.reshape(shape) if below is not None else None,
-                )
+                return result(most)
             keep = ~new
             entry, stack, u, well, bias, fermi, right = (
-                entry[keep],
-                stack[keep],
-                u[keep],
-                well[keep],
-                bias[keep],
-                fermi[keep],
-                right[keep],
+                x[keep] for x in (entry, stack, u, well, bias, fermi, right)
             )
             target, residual = target[keep], residual[keep]
             below = None if below is None else below[keep]
@@ -852,6 +864,12 @@ def _iterate_well_charge(
         well = root.next_well(well, residual, target=target)
         solution = poisson(u, well, fermi, right, stack)
         u, used = solution.potential_ev, solution.iterations
+    if keep_failed:  # the open entries' last iterates, flagged
+        failed = np.zeros(out_well.size, bool)
+        failed[entry] = True
+        out_u[entry], out_well[entry] = u.reshape(-1, n_nodes), well
+        out_n[entry] = solution.electron_cm3.reshape(-1, n_nodes)
+        return result(max(most, used + max_well_iterations), failed.reshape(shape))
     raise ElectrostaticsConvergenceError(
         f"well-charge iteration did not converge in {max_well_iterations} steps: largest change "
         f"{float(np.max(np.abs(residual))):.3g} cm^-2"
@@ -1404,13 +1422,17 @@ def solve_self_consistent(
 ) -> tuple[SliceGrid, PoissonSolution]:
     """Self-consistent solve of every stack at each bias, with the fallbacks.
 
-    All biases of all stacks at once (:func:`solve_stack_poisson`); where that does not
-    converge, each stack of a batch is solved again alone, and a stack that fails alone
-    by continuation in bias (:func:`solve_by_continuation`). So a stack's result is the
-    one it gets alone, whether or not a batch partner's solve fails: continuation starts
-    each bias from the previous one and can follow the charged branch of a bistable stack
-    that the direct solve leaves (measured: a GaAs/AlAs stack's refined peak 4.22 beside a
-    failing partner against 3.94 A/cm^2 alone, 0.25 mV apart).
+    All biases of all stacks at once (:func:`solve_stack_poisson`). An entry (stack, bias)
+    whose well-charge iteration does not converge is solved again by continuation from a
+    solved entry of its stack (:func:`_mend_failed`); the other entries keep their own
+    solves, which do not depend on one another. (Until 2026-12-05 one such entry sent the
+    whole stack to continuation from zero bias, the up sweep, whose charged branch then
+    stood for the single solves' everywhere: whether a failing bias was among the sweep's
+    decided the stack's figures; an InSb/AlSb stack at 11 K gave Jp 7.1e5 A/cm^2 on 61
+    biases and 1.3e5 on 241.) Where the Poisson solve itself does not converge, each stack
+    of a batch is solved again alone, and a stack that fails alone by continuation in bias
+    (:func:`solve_by_continuation`). So a stack's result is the one it gets alone, whether
+    or not a batch partner's solve fails.
 
     Parameters
     ----------
@@ -1425,10 +1447,17 @@ def solve_self_consistent(
         grid, ``(n_stacks, n_biases, n_nodes)``).
     """
     try:
-        return solve_stack_poisson(table, bias_v, slice_nm=slice_nm, **options)
+        grid, solution = solve_stack_poisson(
+            table, bias_v, slice_nm=slice_nm, keep_failed=True, **options
+        )
     except ElectrostaticsConvergenceError:
         if table.n_stacks == 1:
             return solve_by_continuation(table, bias_v, slice_nm=slice_nm, **options)
+    else:
+        if solution.failed is not None and solution.failed.any():
+            bias = np.broadcast_to(np.asarray(bias_v, float), solution.failed.shape)
+            solution = _mend_failed(table, grid, bias, solution, slice_nm=slice_nm, **options)
+        return grid, replace(solution, failed=None)
     grid_options = {k: options[k] for k in ("contact_nm", "contact_slice_nm") if k in options}
     grid = extended_slice_grid(table, slice_nm=slice_nm, **grid_options)
     bias = np.asarray(bias_v, float)
@@ -1464,6 +1493,50 @@ def solve_self_consistent(
         if per_entry.get("abandon_below_cm2") is None
         else np.concatenate([sol.abandoned for _, _, sol in parts]),
     )
+
+
+def _mend_failed(table, grid, bias, solution, *, slice_nm, **options) -> PoissonSolution:
+    """``solution`` with its ``failed`` entries solved again by continuation in bias, each
+    from its stack's solved entry at the next larger ``|V|`` (the down sweep's branch, the
+    one the single solves land on where two exist), else the next smaller; in order of
+    decreasing ``|V|``, so that a run of failed entries is followed down. A stack with no
+    solved entry is solved by :func:`solve_by_continuation`. Raises
+    :class:`ElectrostaticsConvergenceError` where a continuation fails."""
+    grid_options = {k: options[k] for k in ("contact_nm", "contact_slice_nm") if k in options}
+    u, n, w = (np.array(x) for x in (solution.potential_ev, solution.electron_cm3,
+                                      solution.well_sheet_cm2))  # fmt: skip
+    failed = np.array(solution.failed)
+    for s in np.nonzero(failed.any(axis=1))[0]:
+        one = table.take(slice(s, s + 1))
+        own = extended_slice_grid(one, slice_nm=slice_nm, **grid_options)
+        to_own = {"source_center_nm": grid.center_nm[s : s + 1], "target_center_nm": own.center_nm}
+        back = {"source_center_nm": own.center_nm, "target_center_nm": grid.center_nm[s : s + 1]}
+        order, solved = np.argsort(np.abs(bias[s]), kind="stable"), ~failed[s]
+        if not solved.any():
+            _, sol = solve_by_continuation(one, bias[s : s + 1], slice_nm=slice_nm, **options)
+            u[s], n[s] = (
+                potential_on_grid(x, **back)[0] for x in (sol.potential_ev, sol.electron_cm3)
+            )
+            w[s] = np.asarray(sol.well_sheet_cm2)[0]
+            continue
+        step = _continuation_step(one, slice_nm=slice_nm, **options)
+        for pos in range(order.size - 1, -1, -1):
+            i = order[pos]
+            if solved[i]:
+                continue
+            later = [j for j in order[pos + 1 :] if solved[j]]
+            j = later[0] if later else [j for j in order[:pos] if solved[j]][-1]
+            start = PoissonSolution(
+                potential_ev=potential_on_grid(u[s : s + 1, j : j + 1], **to_own),
+                electron_cm3=potential_on_grid(n[s : s + 1, j : j + 1], **to_own),
+                iterations=0,
+                well_sheet_cm2=w[s : s + 1, j : j + 1],
+            )
+            _, sol = _continue_to(step, bias[s : s + 1, j], start, bias[s : s + 1, i])
+            u[s, i] = potential_on_grid(sol.potential_ev, **back)[0, 0]
+            n[s, i] = potential_on_grid(sol.electron_cm3, **back)[0, 0]
+            w[s, i], solved[i] = np.asarray(sol.well_sheet_cm2)[0, 0], True
+    return replace(solution, potential_ev=u, electron_cm3=n, well_sheet_cm2=w)
 
 
 def self_consistent_profile(
@@ -1540,46 +1613,14 @@ def solve_by_continuation(
         bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :],
         (n_stacks, np.atleast_1d(bias).shape[-1]),
     )
-    opts = dict(options)
-    for key in ("initial_ev", "initial_well_cm2"):
-        opts.pop(key, None)
-    opts["max_step_ev"] = CONTINUATION_DAMPING * opts.get("max_step_ev", MAX_STEP_EV)
-    opts["max_iterations"] = CONTINUATION_ITERATIONS * opts.get("max_iterations", 60)
-    opts["max_well_iterations"] = CONTINUATION_ITERATIONS * opts.get("max_well_iterations", 60)
-
-    def solve(v, start):
-        if start is None:
-            return solve_stack_poisson(table, v[:, None], **opts)
-        return solve_stack_poisson(
-            table,
-            v[:, None],
-            initial_ev=start[1].potential_ev,
-            initial_well_cm2=start[1].well_sheet_cm2,
-            **opts,
-        )
-
+    step = _continuation_step(table, **options)
     order = np.argsort(np.mean(np.abs(bias), axis=0), kind="stable")
     done: dict[int, tuple[SliceGrid, PoissonSolution]] = {}
     last_v = np.zeros(n_stacks)  # the chain starts at zero bias (flat bands: an easy solve)
-    last = solve(last_v, None)
+    last = step(last_v, None)
     for k in order:
-        target = bias[:, k]
-        steps = 1
-        while True:
-            try:
-                start = last
-                for f in np.arange(1, steps + 1) / steps:
-                    start = solve(last_v + f * (target - last_v), start)
-                break
-            except ElectrostaticsConvergenceError:
-                if steps >= 2**CONTINUATION_HALVINGS:
-                    raise ElectrostaticsConvergenceError(
-                        f"self-consistent solve did not converge at {float(target[0]):.4g} V "
-                        f"even by continuation in bias ({steps} steps from the last converged bias)"
-                    ) from None
-                steps *= 2
-        done[int(k)] = start
-        last, last_v = start, target
+        done[int(k)] = last = _continue_to(step, last_v, last, bias[:, k])
+        last_v = bias[:, k]
     grid = done[int(order[0])][0]
     cols = [done[k][1] for k in range(bias.shape[1])]
     return grid, PoissonSolution(
@@ -1588,3 +1629,51 @@ def solve_by_continuation(
         iterations=sum(c.iterations for c in cols),
         well_sheet_cm2=np.concatenate([c.well_sheet_cm2 for c in cols], axis=1),
     )
+
+
+def _continuation_step(table: LayerTable, **options):
+    """``step(v, start)``: the solve of ``table`` at biases ``v`` ``(n_stacks,)`` from the
+    grid and solution ``start`` (None: from the linear drop), with :data:`CONTINUATION_DAMPING`
+    times the Newton step limit and :data:`CONTINUATION_ITERATIONS` times the iteration
+    limits of ``options`` (settings of :func:`solve_stack_poisson`)."""
+    opts = dict(options)
+    for key in ("initial_ev", "initial_well_cm2"):
+        opts.pop(key, None)
+    opts["max_step_ev"] = CONTINUATION_DAMPING * opts.get("max_step_ev", MAX_STEP_EV)
+    opts["max_iterations"] = CONTINUATION_ITERATIONS * opts.get("max_iterations", 60)
+    opts["max_well_iterations"] = CONTINUATION_ITERATIONS * opts.get("max_well_iterations", 60)
+
+    def step(v, start):
+        if start is None:
+            return solve_stack_poisson(table, v[:, None], **opts)
+        solution = start[1] if isinstance(start, tuple) else start
+        return solve_stack_poisson(
+            table,
+            v[:, None],
+            initial_ev=solution.potential_ev,
+            initial_well_cm2=solution.well_sheet_cm2,
+            **opts,
+        )
+
+    return step
+
+
+def _continue_to(step, last_v, last, target):
+    """The solution at ``target`` continued from ``last`` at ``last_v`` (``(n_stacks,)`` each)
+    by ``step`` (:func:`_continuation_step`): one step, split into halves up to
+    :data:`CONTINUATION_HALVINGS` times where it fails (the intermediate biases' solutions
+    only serve as starts). Raises :class:`ElectrostaticsConvergenceError` naming the bias."""
+    steps = 1
+    while True:
+        try:
+            start = last
+            for f in np.arange(1, steps + 1) / steps:
+                start = step(last_v + f * (target - last_v), start)
+            return start
+        except ElectrostaticsConvergenceError:
+            if steps >= 2**CONTINUATION_HALVINGS:
+                raise ElectrostaticsConvergenceError(
+                    f"self-consistent solve did not converge at {float(target[0]):.4g} V "
+                    f"even by continuation in bias ({steps} steps from the last converged bias)"
+                ) from None
+            steps *= 2
