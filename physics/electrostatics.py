@@ -1398,7 +1398,7 @@ def well_charge_residual_cm2(
     charge, all in one batch). A diagnostic: its falls through zero are the stable
     self-consistent states at that bias, found without a root search and so without a start
     or a path (the brute-force reference of the solver's continuation: tests,
-    ``benchmarks/scan_up_sweep_folds.py``). Returns ``(n_stacks, m)``, cm^-2."""
+    ``benchmarks/scan_charge_roots.py``). Returns ``(n_stacks, m)``, cm^-2."""
     setup = _solve_setup(
         table, slice_nm=slice_nm, contact_nm=CONTACT_NM, contact_slice_nm=CONTACT_SLICE_NM,
         tolerance_ev=1e-7, max_iterations=60, max_step_ev=MAX_STEP_EV,

@@ -1,6 +1,10 @@
-"""Scan: where the up sweep's charged branch ends, against a brute-force scan of its equation.
+"""Scan: the self-consistent solves' well charges against a brute-force scan of their equation.
 
-Not a timing. The default model's sweep follows the charged branch of a bistable stack above
+Not a timing. Two checks, each against ``well_charge_residual_cm2`` (the well-charge equation
+``F(n) = n`` over a grid of charges, each charge its own Poisson solve and state search; no
+root search, no start, so no path that could skip a root).
+
+``folds``: the default model's sweep follows the charged branch of a bistable stack above
 its peak (``physics.iv._up_branch``) and reports the window up to where that branch ends.
 This checks the end on the stacks of ``tests/test_grid_convergence.py``'s four cases (the
 218 of ``check_default_metrics.py`` without the six alone and the two examples: 192 stacks
@@ -14,7 +18,16 @@ on 2026-12-05: 75 of 108 flagged before the continuation kept to the root neares
 search's 12 steps end on a bracket that wide (three more end at the fold within the scan's
 grid).
 
-Run: ``python benchmarks/scan_up_sweep_folds.py`` (about half a minute).
+``cold SEED N``: the single (cold) solves of ``N`` random stacks (``tests/test_grid_random_stacks.py``'s
+``random_stack``, the default model, 61 biases from 0 to 0.3-2 V of one polarity, as
+``scan_grid_independence.py`` draws them): at every bias where the equation has two or more
+stable roots, whether the cold solve is the least one (the single solves' convention: the
+down sweep's branch; DEVELOPERS.md). Measured on 2026-12-05, seeds 1-3 (140 stacks): 157 of
+158 such entries are (the other, a GaAsSb/AlAsSb stack at 6 K, seed 3 stack 59, took a
+charge of 4.7e11 where the least is 2.9e11 cm^-2).
+
+Run: ``python benchmarks/scan_charge_roots.py folds`` (about half a minute);
+``python benchmarks/scan_charge_roots.py cold 1 60`` (about two minutes).
 """
 
 from __future__ import annotations
@@ -25,6 +38,7 @@ from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
+from wellwright.physics.electrostatics import well_charge_residual_cm2
 
 REPO = Path(__file__).resolve().parents[1]
 FLAG_V = 1e-3
@@ -33,14 +47,12 @@ STEP_V = 2.5e-4
 
 def stable_roots(table, bias_v: float, top_cm2: float, n: int = 600) -> int:
     """How many times ``F(n) - n`` falls through zero over ``n`` charges up to ``top_cm2``."""
-    from wellwright.physics.electrostatics import well_charge_residual_cm2
-
     sign = np.sign(well_charge_residual_cm2(table, bias_v, np.linspace(0.0, top_cm2, n))[0])
     return int(np.count_nonzero((sign[:-1] > 0) & (sign[1:] <= 0)))
 
 
-def main() -> None:
-    sys.path.insert(0, str(REPO / "tests"))
+def folds() -> None:
+    """The ``folds`` check (module docstring)."""
     from test_grid_convergence import CASES
     from wellwright.physics import iv
 
@@ -83,6 +95,49 @@ def main() -> None:
                         f"{'  <-- flagged' if flag else ''}"
                     )
     print(f"{flagged} of {seen} windows end {1e3 * FLAG_V:g} mV or more before the branch does")
+
+
+def cold(seed: int, n_stacks: int) -> None:
+    """The ``cold`` check (module docstring)."""
+    from test_default_model_scan import _default_model, _describe
+    from test_grid_random_stacks import random_stack
+    from wellwright.physics.electrostatics import solve_self_consistent
+
+    rng = np.random.default_rng(seed)
+    seen = missed = 0
+    for i in range(n_stacks):
+        stack = _default_model(random_stack(rng))
+        top, sign = rng.uniform(0.3, 2.0), -1.0 if rng.random() < 0.5 else 1.0
+        table, bias = stack.table(), sign * np.linspace(0.0, top, 61)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            charge = solve_self_consistent(table, bias)[1].well_sheet_cm2[0]
+        if np.nanmax(charge) < 1e9:
+            continue
+        grid = np.linspace(0.0, 2.5 * np.nanmax(charge), 500)
+        for v, n in zip(bias, charge, strict=True):
+            sign_r = np.sign(well_charge_residual_cm2(table, v, grid)[0])
+            roots = grid[np.nonzero((sign_r[:-1] > 0) & (sign_r[1:] <= 0))[0]]
+            if roots.size < 2:
+                continue
+            seen += 1
+            if n > roots[0] + 2 * grid[1] + 1e-3 * n:
+                missed += 1
+                print(
+                    f"stack {i}, {v:.3f} V: cold {n:.3g}, least {roots[0]:.3g} cm^-2; {_describe(stack)}"
+                )
+    print(f"seed {seed}: {missed} of {seen} entries with two or more stable roots not the least")
+
+
+def main() -> None:
+    sys.path.insert(0, str(REPO / "tests"))
+    args = sys.argv[1:]
+    if args[:1] == ["folds"]:
+        folds()
+    elif args[:1] == ["cold"] and len(args) == 3:
+        cold(int(args[1]), int(args[2]))
+    else:
+        raise SystemExit("usage: scan_charge_roots.py folds | cold SEED N_STACKS")
 
 
 if __name__ == "__main__":
