@@ -89,3 +89,61 @@ def test_default_model_over_random_stacks_of_every_system() -> None:
     print(f"{len(made_by_channel)} of {N_STACKS} with channel-made jumps:", made_by_channel)
     assert not failures, failures
     assert len(made_by_channel) <= MAX_JUMP_SHARE * N_STACKS, made_by_channel
+
+
+#: mirror scan: stacks, seed, and the share of them allowed to differ (statistical)
+MIRROR_STACKS = 60
+MIRROR_SEED = 4
+MIRROR_MAX_SHARE = 0.05
+MIRROR_KEYS = (
+    "peak_current_density_a_cm2",
+    "peak_voltage_v",
+    "valley_current_density_a_cm2",
+    "valley_voltage_v",
+    "peak_current_density_up_a_cm2",
+    "peak_voltage_up_v",
+    "bistable_window_v",
+)
+
+
+def _mirror_differences(forward: dict, reverse: dict) -> list[str]:
+    """The figures of a reverse sweep of a stack's mirror that differ from the stack's forward
+    ones with V -> -V: currents by 1 %, biases by 5 mV (issue 12's grid tolerances); NaN on
+    both sides agrees."""
+    out = []
+    for key in MIRROR_KEYS:
+        a, b = (np.nan if m.get(key) is None else float(m[key]) for m in (forward, reverse))
+        if "voltage" in key:
+            b = -b
+        if np.isnan(a) and np.isnan(b):
+            continue
+        tolerance = 0.01 * max(abs(a), abs(b)) if "current" in key else 5e-3
+        if not abs(a - b) <= tolerance:
+            out.append(f"{key} {a:.4g}/{b:.4g}")
+    return out
+
+
+@pytest.mark.slow
+def test_a_mirrored_stack_in_reverse_gives_the_forward_figures() -> None:
+    """Statistical test (seeded draws): a stack's layers in reverse order, swept to negative
+    biases, are the same device seen from the other contact (common practice: mirror
+    symmetry), so every figure of merit, the up sweep's included, is the forward one with
+    V -> -V. Over random stacks of every system with the default model, 61 biases up to
+    0.3-2 V. Measured on 2026-12-05: 1 of 210 stacks of seeds 1, 3, 4 and 5 differed (seed
+    4 stack 41, whose current is 4e-7 A/cm^2: its peak voltage 7 mV apart), after two faults
+    were fixed (the reverse branch started past zero bias; the up sweep was followed on
+    forward sweeps only). Bound: 5 %."""
+    rng = np.random.default_rng(MIRROR_SEED)
+    differ = []
+    for i in range(MIRROR_STACKS):
+        stack = _default_model(random_stack(rng))
+        mirrored = replace(stack, layers=tuple(stack.layers[::-1]))
+        bias = np.linspace(0.0, rng.uniform(0.3, 2.0), 61)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # grid-accuracy and X-valley warnings: not tested
+            forward = sweep(stack.table(), bias, model=stack.model).metrics_of(0)
+            reverse = sweep(mirrored.table(), -bias[::-1], model=stack.model).metrics_of(0)
+        found = _mirror_differences(forward, reverse)
+        if found:
+            differ.append(f"stack {i} ({_describe(stack)}): " + "; ".join(found))
+    assert len(differ) <= MIRROR_MAX_SHARE * MIRROR_STACKS, "\n".join(differ)
