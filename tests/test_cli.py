@@ -203,6 +203,24 @@ def test_series_resistance_and_area_in_json(tmp_path, capsys) -> None:
         )
 
 
+def test_series_resistance_in_reverse_bias(tmp_path, capsys) -> None:
+    # V_ext = V + J R with the signed current (hand arithmetic): in reverse bias both are
+    # negative, so the terminal peak lies further from zero (the figures of merit are
+    # magnitudes; the terminal bias was computed with +Jp before 2026-12-05)
+    text = STUDY.read_text().replace(
+        "[model]", "[device]\nseries_resistance_ohm_um2 = 20.0\n\n[model]"
+    )
+    path = write_stack(tmp_path, text)
+    args = ["iv", str(path), "--out", str(tmp_path / "out"), "--points", "31"]
+    args += ["--bias-min", "-0.6", "--bias-max", "0", "--no-figures", "--json"]
+    assert main(args) == 0
+    m = json.loads(capsys.readouterr().out)["metrics"]
+    assert m["peak_voltage_v"] < 0
+    assert m["peak_voltage_external_v"] == pytest.approx(
+        m["peak_voltage_v"] - m["peak_current_density_a_cm2"] * 20.0 * 1e-8, rel=1e-12
+    )
+
+
 def test_critical_thickness_warns_but_succeeds(tmp_path) -> None:
     # 40 ML AlAs on InP exceeds its Matthews-Blakeslee critical thickness (J. Cryst.
     # Growth 27, 118 (1974)): the command warns on stderr and still succeeds (issue 2).

@@ -49,3 +49,22 @@ def test_terminal_curve_is_shifted_by_the_series_drop(r_ohm_um2: float) -> None:
     vp_terminal = m["peak_voltage_v"] + m["peak_current_density_a_cm2"] * r_ohm_um2 * 1e-8
     text = " ".join(t.get_text() for t in ax.texts)
     assert f"{vp_terminal * 1e3:.0f} mV at the terminals" in text
+
+
+def test_the_marks_lie_on_the_curve_in_reverse_bias_too() -> None:
+    # the figures of merit are magnitudes; on a reverse sweep the drawn current is negative,
+    # so the marks take the bias's sign (they were drawn at +Jp, above the plot, before
+    # 2026-12-05). No external reference: the marks must sit on the drawn curve.
+    stack = _stack()
+    curves = sweep(stack.table(), np.linspace(-0.6, 0.0, 31), model=stack.model)
+    m = curves.metrics_of(0)
+    assert m["peak_voltage_v"] < 0
+    ax = iv_figure(curves).axes[0]
+    drawn = next(ln for ln in ax.get_lines() if ln.get_label() == "current")
+    v, y = (np.asarray(a, float) for a in drawn.get_data())
+    for label, name in (("first NDR peak", "peak"), ("its valley", "valley")):
+        mark = next(ln for ln in ax.get_lines() if ln.get_label() == label)
+        x_mark, y_mark = (float(np.asarray(a)[0]) for a in mark.get_data())
+        assert x_mark == pytest.approx(m[f"{name}_voltage_v"])
+        assert y_mark == pytest.approx(-m[f"{name}_current_density_a_cm2"] / 1e3)
+        assert y_mark == pytest.approx(float(np.interp(x_mark, v, y)), rel=1e-9)

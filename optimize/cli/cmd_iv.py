@@ -126,8 +126,10 @@ def iv_record(stack, curves) -> dict:
             m[f"{name}_voltage_external_v"] = (
                 None
                 if v is None
-                else float(
-                    external_bias_v(v, jj, series_resistance_ohm_um2=dev.series_resistance_ohm_um2)
+                else float(  # (the figures of merit are magnitudes: the current's sign is V's)
+                    external_bias_v(
+                        v, np.sign(v) * jj, series_resistance_ohm_um2=dev.series_resistance_ohm_um2
+                    )
                 )
             )
     if dev.area_um2 is not None:
@@ -249,7 +251,7 @@ def run(args) -> int:
                 )
             if (m.get("bistable_window_v") or 0.0) > 0.0:
                 print(
-                    f"  bistable over {m['bistable_window_v'] * 1e3:.1f} mV above the peak: an "
+                    f"  bistable over {m['bistable_window_v'] * 1e3:.1f} mV past the peak: an "
                     "up sweep keeps the well's charge there (the curve is the down sweep's "
                     f"branch); the up sweep's peak {m['peak_current_density_up_a_cm2'] / 1e3:.3g}"
                     f" kA/cm² at {m['peak_voltage_up_v'] * 1e3:.0f} mV"

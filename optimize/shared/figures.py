@@ -131,12 +131,14 @@ def iv_figure(
 
 
 def _peak_valley_marks(m: dict) -> list[tuple[str, float, float]]:
-    """``(name, bias_v, current_density_a_cm2)`` of the first NDR peak and its valley;
+    """``(name, bias_v, current_density_a_cm2)`` of the first NDR peak and its valley, the
+    current with the sign of the bias as on the curve (the figures of merit are magnitudes);
     none without NDR."""
     marks = []
     if m["peak_voltage_v"] is not None:
         for name in ("peak", "valley"):
-            marks.append((name, m[f"{name}_voltage_v"], m[f"{name}_current_density_a_cm2"]))
+            v = m[f"{name}_voltage_v"]
+            marks.append((name, v, float(np.sign(v)) * m[f"{name}_current_density_a_cm2"]))
     return marks
 
 
@@ -144,11 +146,11 @@ def _through_marks(
     v: np.ndarray, j: np.ndarray, marks: list[tuple[str, float, float]]
 ) -> tuple[np.ndarray, np.ndarray]:
     """The curve with the refined peak and valley inserted in bias order, so the markers
-    sit on it (the current takes the sign of the bias)."""
+    sit on it."""
     if not marks:
         return v, j
     extra_v = np.array([x for _, x, _ in marks])
-    extra_j = np.array([y for _, _, y in marks]) * np.sign(extra_v)
+    extra_j = np.array([y for _, _, y in marks])
     order = np.argsort(np.concatenate([v, extra_v]), kind="stable")
     return np.concatenate([v, extra_v])[order], np.concatenate([j, extra_j])[order]
 
@@ -254,7 +256,7 @@ def _peak_valley_text(m: dict, extended: bool, series_resistance_ohm_um2: float)
         vp_terminal = float(
             external_bias_v(
                 m["peak_voltage_v"],
-                m["peak_current_density_a_cm2"],
+                np.sign(m["peak_voltage_v"]) * m["peak_current_density_a_cm2"],
                 series_resistance_ohm_um2=series_resistance_ohm_um2,
             )
         )
@@ -274,11 +276,11 @@ def _higher_peak_note(higher: tuple[float, float] | None) -> str:
 
 
 def _bistable_note(m: dict) -> str:
-    """A line for the I-V box where the self-consistent I-V is bistable above the peak."""
+    """A line for the I-V box where the self-consistent I-V is bistable past the peak."""
     if not (m.get("bistable_window_v") or 0.0) > 0.0:
         return ""
     return (
-        f"\nbistable over {m['bistable_window_v'] * 1e3:.2g} mV above the peak\n(up sweep's "
+        f"\nbistable over {m['bistable_window_v'] * 1e3:.2g} mV past the peak\n(up sweep's "
         f"peak {m['peak_current_density_up_a_cm2'] / 1e3:.3g} kA/cm²)"
     )
 

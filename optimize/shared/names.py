@@ -91,13 +91,13 @@ QUANTITIES: dict[str, Quantity] = {
         1.0,
         "1: the current still falls at the last bias computed; valley figures are bounds",
     ),
-    # the up sweep where the self-consistent I-V is bistable above the peak
+    # the up sweep where the self-consistent I-V is bistable past the peak
     "peak_current_density_up_a_cm2": Quantity(
         "peak current density of the up sweep", "kA/cm²", 1e-3, ".1f", 1e5, "charged branch"
     ),
     "peak_voltage_up_v": Quantity("peak voltage of the up sweep", "mV", 1e3, ".0f", 0.5),
     "bistable_window_v": Quantity(
-        "bistable window above the peak", "mV", 1e3, ".1f", 0.01, "0: single-valued"
+        "bistable window past the peak", "mV", 1e3, ".1f", 0.01, "0: single-valued"
     ),
     # device quantities of a mesa ([device] area_um2)
     "peak_current_ma": Quantity("peak current", "mA", 1.0, ".3g"),
