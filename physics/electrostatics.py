@@ -589,17 +589,14 @@ def solve_stack_poisson(
         max_iterations=max_iterations,
         max_step_ev=max_step_ev,
     )
-    grid, mu_e = setup.grid, setup.mu_e
+    grid = setup.grid
     n_stacks = table.n_stacks
     bias = np.asarray(bias_v, float)
     bias = np.broadcast_to(
         bias if bias.ndim == 2 else np.atleast_1d(bias)[None, :],
         (n_stacks, np.atleast_1d(bias).shape[-1]),
     )
-    right = -(bias + setup.builtin_ev[:, None])  # collector potential, as in the linear model
-    fermi = np.where(
-        setup.emitter_side[:, None, :], mu_e[:, None, None], (mu_e[:, None] - bias)[:, :, None]
-    )
+    right, fermi = setup.contacts(bias)
     if initial_ev is None:
         initial_ev = right[:, :, None] * setup.frac[:, None, :]
     poisson = setup.poisson
@@ -643,6 +640,17 @@ class _SolveSetup:
     poisson: Callable[..., PoissonSolution]  #: :func:`_stack_poisson_solver`
     #: :func:`_well_charge_target`; None where no stack has a well
     target: Callable[[np.ndarray, np.ndarray], np.ndarray] | None
+
+    def contacts(self, bias: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The collector's potential (eV, as in the linear model) and each node's
+        quasi-Fermi level (eV) at biases ``bias`` ``(n_stacks, n_biases)``."""
+        right = -(bias + self.builtin_ev[:, None])
+        fermi = np.where(
+            self.emitter_side[:, None, :],
+            self.mu_e[:, None, None],
+            (self.mu_e[:, None] - bias)[:, :, None],
+        )
+        return right, fermi
 
 
 #: The well-charge step keeps its per-shape arrays (:class:`_WellChargeStep`) for at most
@@ -1407,12 +1415,7 @@ def well_charge_residual_cm2(
         raise ValueError("no stack of the table has a well")
     charge = np.broadcast_to(np.asarray(charge_cm2, float), (table.n_stacks, np.size(charge_cm2)))
     bias = np.full(charge.shape, float(bias_v))
-    right = -(bias + setup.builtin_ev[:, None])
-    fermi = np.where(
-        setup.emitter_side[:, None, :],
-        setup.mu_e[:, None, None],
-        (setup.mu_e[:, None] - bias)[:, :, None],
-    )
+    right, fermi = setup.contacts(bias)
     solved = setup.poisson(right[:, :, None] * setup.frac[:, None, :], charge, fermi, right)
     return setup.target(solved.potential_ev, bias) - charge
 
