@@ -1400,13 +1400,30 @@ def well_sheet_density_cm2(
 def well_charge_residual_cm2(
     table: LayerTable, bias_v: float, charge_cm2: np.ndarray, *, slice_nm: float = 0.25
 ) -> np.ndarray:
-    """``F(n) - n`` of the well-charge equation of each stack at ``bias_v`` for each charge
-    ``n`` of ``charge_cm2`` (cm^-2, ``(m,)``): ``F`` the charge the quasi-bound states hold in
-    the potential that ``n`` in the well produces (one Poisson solve and one state search per
-    charge, all in one batch). A diagnostic: its falls through zero are the stable
-    self-consistent states at that bias, found without a root search and so without a start
-    or a path (the brute-force reference of the solver's continuation: tests,
-    ``benchmarks/scan_charge_roots.py``). Returns ``(n_stacks, m)``, cm^-2."""
+    """``F(n) - n`` of the well-charge equation of each stack at one bias for each charge
+    ``n``: ``F`` the charge the quasi-bound states hold in the potential that ``n`` in the
+    well produces (one Poisson solve and one state search per charge, all in one batch).
+
+    A diagnostic: its falls through zero are the stable self-consistent states at that
+    bias, found without a root search and so without a start or a path (the brute-force
+    reference of the solver's continuation: tests, ``benchmarks/scan_charge_roots.py``).
+
+    Parameters
+    ----------
+    table
+        Layers of ``n_stacks`` stacks (at least one with a well).
+    bias_v
+        The bias, V.
+    charge_cm2
+        ``(m,)`` well charges, cm^-2, the same for every stack.
+    slice_nm
+        Largest slice width inside the stack, nm (as :func:`solve_stack_poisson`).
+
+    Returns
+    -------
+    numpy.ndarray
+        ``(n_stacks, m)`` residuals, cm^-2.
+    """
     setup = _solve_setup(
         table, slice_nm=slice_nm, contact_nm=CONTACT_NM, contact_slice_nm=CONTACT_SLICE_NM,
         tolerance_ev=1e-7, max_iterations=60, max_step_ev=MAX_STEP_EV,

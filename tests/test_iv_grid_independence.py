@@ -195,8 +195,9 @@ def test_the_up_sweep_is_followed_on_the_reverse_branch_too() -> None:
     to negative biases, are the same device seen from the other contact, so its figures of
     merit are the example's forward ones with V -> -V, the up sweep's peak and bistable
     window included. (The up sweep was followed on forward sweeps only; a reverse sweep
-    reported no bistable window and the single solves' peak as the up sweep's: 16 mV and
-    212.9 against 205.4 kA/cm^2 forward.) To the grid-independence tolerances."""
+    reported a window of 0 and the single solves' peak as the up sweep's, where the forward
+    sweep has a 20 mV window and 213 against 205 kA/cm^2.) To the grid-independence
+    tolerances."""
     stack = load_stack(BROAD)
     mirrored = dataclasses.replace(stack, layers=tuple(stack.layers[::-1]))
     bias = np.linspace(0.0, 0.8, 61)
