@@ -68,3 +68,21 @@ def test_the_marks_lie_on_the_curve_in_reverse_bias_too() -> None:
         assert x_mark == pytest.approx(m[f"{name}_voltage_v"])
         assert y_mark == pytest.approx(-m[f"{name}_current_density_a_cm2"] / 1e3)
         assert y_mark == pytest.approx(float(np.interp(x_mark, v, y)), rel=1e-9)
+
+
+def test_the_band_diagram_keeps_its_level_labels_apart() -> None:
+    # Two levels 27 meV apart (the InP example at -0.459 V: a 0.06 meV line near the
+    # collector's edge below the well's second state) had their labels drawn over each other;
+    # each label now keeps a gap of 4.5 % of the drawn energy range from the one below. No
+    # external reference: readability of the figure.
+    from pathlib import Path
+
+    from wellwright.optimize.shared.figures import band_diagram_figure
+    from wellwright.physics.stack import load_stack
+
+    stack = load_stack(Path(__file__).resolve().parents[1] / "studies" / "inp_thz_oscillator.toml")
+    ax = band_diagram_figure(stack, -0.459).axes[0]
+    heights = sorted(t.get_position()[1] for t in ax.texts if t.get_text().startswith("E"))
+    assert len(heights) >= 3
+    lo, hi = ax.get_ylim()
+    assert np.min(np.diff(heights)) >= 0.03 * (hi - lo)
