@@ -45,10 +45,16 @@ FLAG_V = 1e-3
 STEP_V = 2.5e-4
 
 
+def stable_roots_cm2(table, bias_v: float, charge_cm2: np.ndarray) -> np.ndarray:
+    """The charges of ``charge_cm2`` after which ``F(n) - n`` falls through zero (the stable
+    roots, to the grid's spacing), cm^-2."""
+    sign = np.sign(well_charge_residual_cm2(table, bias_v, charge_cm2)[0])
+    return charge_cm2[np.nonzero((sign[:-1] > 0) & (sign[1:] <= 0))[0]]
+
+
 def stable_roots(table, bias_v: float, top_cm2: float, n: int = 600) -> int:
-    """How many times ``F(n) - n`` falls through zero over ``n`` charges up to ``top_cm2``."""
-    sign = np.sign(well_charge_residual_cm2(table, bias_v, np.linspace(0.0, top_cm2, n))[0])
-    return int(np.count_nonzero((sign[:-1] > 0) & (sign[1:] <= 0)))
+    """How many stable roots over ``n`` charges up to ``top_cm2``."""
+    return stable_roots_cm2(table, bias_v, np.linspace(0.0, top_cm2, n)).size
 
 
 def folds() -> None:
@@ -116,8 +122,7 @@ def cold(seed: int, n_stacks: int) -> None:
             continue
         grid = np.linspace(0.0, 2.5 * np.nanmax(charge), 500)
         for v, n in zip(bias, charge, strict=True):
-            sign_r = np.sign(well_charge_residual_cm2(table, v, grid)[0])
-            roots = grid[np.nonzero((sign_r[:-1] > 0) & (sign_r[1:] <= 0))[0]]
+            roots = stable_roots_cm2(table, v, grid)
             if roots.size < 2:
                 continue
             seen += 1

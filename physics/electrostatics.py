@@ -1488,15 +1488,12 @@ def solve_self_consistent(
     }
     parts = []
     for s in range(table.n_stacks):
-        one = table.take(slice(s, s + 1))
-        own = extended_slice_grid(one, slice_nm=slice_nm, **grid_options)
-        moves = {"source_center_nm": grid.center_nm[s : s + 1], "target_center_nm": own.center_nm}
+        one, moves, back = _one_stack(table, grid, s, slice_nm=slice_nm, **options)
         start = None if initial is None else potential_on_grid(initial[s : s + 1], **moves)
         rows = {k: None if v is None else np.asarray(v)[s : s + 1] for k, v in per_entry.items()}
-        g, sol = solve_self_consistent(
+        _, sol = solve_self_consistent(
             one, bias[s : s + 1], slice_nm=slice_nm, initial_ev=start, **rows, **options
         )
-        back = {"source_center_nm": g.center_nm, "target_center_nm": grid.center_nm[s : s + 1]}
         parts.append(
             (
                 potential_on_grid(sol.potential_ev, **back),
@@ -1515,6 +1512,20 @@ def solve_self_consistent(
     )
 
 
+def _one_stack(table, grid, s, *, slice_nm, **options):
+    """Stack ``s`` of ``table`` alone, and the moves of a potential from the batch's ``grid``
+    to that stack's own grid and back (keyword arguments of :func:`potential_on_grid`)."""
+    one = table.take(slice(s, s + 1))
+    grid_options = {k: options[k] for k in ("contact_nm", "contact_slice_nm") if k in options}
+    own = extended_slice_grid(one, slice_nm=slice_nm, **grid_options).center_nm
+    batch = grid.center_nm[s : s + 1]
+    return (
+        one,
+        {"source_center_nm": batch, "target_center_nm": own},
+        {"source_center_nm": own, "target_center_nm": batch},
+    )
+
+
 def _mend_failed(table, grid, bias, solution, *, slice_nm, **options) -> PoissonSolution:
     """``solution`` with its ``failed`` entries solved again by continuation in bias, each
     from its stack's solved entry at the next larger ``|V|`` (the down sweep's branch, the
@@ -1522,15 +1533,11 @@ def _mend_failed(table, grid, bias, solution, *, slice_nm, **options) -> Poisson
     decreasing ``|V|``, so that a run of failed entries is followed down. A stack with no
     solved entry is solved by :func:`solve_by_continuation`. Raises
     :class:`ElectrostaticsConvergenceError` where a continuation fails."""
-    grid_options = {k: options[k] for k in ("contact_nm", "contact_slice_nm") if k in options}
     u, n, w = (np.array(x) for x in (solution.potential_ev, solution.electron_cm3,
                                       solution.well_sheet_cm2))  # fmt: skip
     failed = np.array(solution.failed)
     for s in np.nonzero(failed.any(axis=1))[0]:
-        one = table.take(slice(s, s + 1))
-        own = extended_slice_grid(one, slice_nm=slice_nm, **grid_options)
-        to_own = {"source_center_nm": grid.center_nm[s : s + 1], "target_center_nm": own.center_nm}
-        back = {"source_center_nm": own.center_nm, "target_center_nm": grid.center_nm[s : s + 1]}
+        one, to_own, back = _one_stack(table, grid, s, slice_nm=slice_nm, **options)
         order, solved = np.argsort(np.abs(bias[s]), kind="stable"), ~failed[s]
         if not solved.any():
             _, sol = solve_by_continuation(one, bias[s : s + 1], slice_nm=slice_nm, **options)
@@ -1546,11 +1553,14 @@ def _mend_failed(table, grid, bias, solution, *, slice_nm, **options) -> Poisson
                 continue
             later = [j for j in order[pos + 1 :] if solved[j]]
             j = later[0] if later else [j for j in order[:pos] if solved[j]][-1]
-            start = PoissonSolution(
-                potential_ev=potential_on_grid(u[s : s + 1, j : j + 1], **to_own),
-                electron_cm3=potential_on_grid(n[s : s + 1, j : j + 1], **to_own),
-                iterations=0,
-                well_sheet_cm2=w[s : s + 1, j : j + 1],
+            start = (
+                None,
+                PoissonSolution(  # (grid, solution), as the step returns them
+                    potential_ev=potential_on_grid(u[s : s + 1, j : j + 1], **to_own),
+                    electron_cm3=potential_on_grid(n[s : s + 1, j : j + 1], **to_own),
+                    iterations=0,
+                    well_sheet_cm2=w[s : s + 1, j : j + 1],
+                ),
             )
             _, sol = _continue_to(step, bias[s : s + 1, j], start, bias[s : s + 1, i])
             u[s, i] = potential_on_grid(sol.potential_ev, **back)[0, 0]
@@ -1652,8 +1662,8 @@ def solve_by_continuation(
 
 
 def _continuation_step(table: LayerTable, **options):
-    """``step(v, start)``: the solve of ``table`` at biases ``v`` ``(n_stacks,)`` from the
-    grid and solution ``start`` (None: from the linear drop), with :data:`CONTINUATION_DAMPING`
+    """``step(v, start)``: the solve (grid, solution) of ``table`` at biases ``v``
+    ``(n_stacks,)`` from the grid and solution ``start`` (None: from the linear drop), with :data:`CONTINUATION_DAMPING`
     times the Newton step limit and :data:`CONTINUATION_ITERATIONS` times the iteration
     limits of ``options`` (settings of :func:`solve_stack_poisson`)."""
     opts = dict(options)
@@ -1666,12 +1676,11 @@ def _continuation_step(table: LayerTable, **options):
     def step(v, start):
         if start is None:
             return solve_stack_poisson(table, v[:, None], **opts)
-        solution = start[1] if isinstance(start, tuple) else start
         return solve_stack_poisson(
             table,
             v[:, None],
-            initial_ev=solution.potential_ev,
-            initial_well_cm2=solution.well_sheet_cm2,
+            initial_ev=start[1].potential_ev,
+            initial_well_cm2=start[1].well_sheet_cm2,
             **opts,
         )
 
