@@ -14,9 +14,10 @@ charge (each charge its own Poisson solve and state search; no root search, no s
 path that could skip a root), and so every 0.25 mV past it until only one stable root is
 left. A window whose branch holds 1 mV or more past its reported end is flagged. Measured
 on 2026-12-05: 75 of 108 flagged before the continuation kept to the root nearest its start
-(up to 11 mV short), 8 after, all 1-2 mV short on windows of 28-42 mV, where the fold
-search's 12 steps end on a bracket that wide (three more end at the fold within the scan's
-grid).
+(up to 11 mV short); 8 after it (1-2 mV short on windows of 28-42 mV, where the fold search's
+12 steps ended on a bracket that wide, having stepped past known falls again); none since
+the fold search halves its bracket (the farthest, an as-grown InP stack whose charged root
+past 0.4718 V is a jump of ``F``, 0.75 mV).
 
 ``cold SEED N``: the single (cold) solves of ``N`` random stacks (``tests/test_grid_random_stacks.py``'s
 ``random_stack``, the default model, 61 biases from 0 to 0.3-2 V of one polarity, as
