@@ -923,16 +923,17 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
     (``peak``: grid and solution; the peak's own where the branch falls off just above
     it), continues it to
     ``v_after`` (the first bias above it whose single solve has fallen off the branch,
-    :func:`_collapse_bracket`; its current ``j_after``) and, where the continued
-    current exceeds ``j_after`` by :data:`BISTABLE_EXCESS`, follows the
-    charged branch upwards to its fold (:class:`_FoldSearch`: a step whose continued solve's
-    charge falls below :data:`FOLD_CHARGE_COLLAPSE` of the start's has left it; from
+    :func:`_collapse_bracket`; its current ``j_after``) and, where it is still charged
+    there, follows the charged branch upwards to its fold (:class:`_FoldSearch`: a solve
+    whose charge falls below :data:`FOLD_CHARGE_COLLAPSE` of the start's has left it; from
     :data:`FOLD_FIRST_STEP_V` to :data:`FOLD_TOLERANCE_V`, at most :data:`FOLD_STEPS`
     solves; not beyond ``v_end``, the valley), as
     :func:`sweep_hysteresis` does on a grid. Every stack of the batch takes
     each step; stacks already settled repeat their last bias. The steps are judged by the
-    charge alone; the currents of the steps that held are computed in one call at the end
-    (one current call per step cost the InP example's default I-V about 6 %).
+    charge alone; the currents at ``v_after`` and of the steps that held are computed in one
+    call at the end (one current call per step cost the InP example's default I-V about 6 %,
+    the call at ``v_after`` alone 2 %), and the I-V is bistable where the current at
+    ``v_after`` exceeds ``j_after`` by :data:`BISTABLE_EXCESS`.
 
     Returns the up sweep's peak bias and current, and the window (last bias
     on the charged branch minus ``v_start``; 0 where the I-V is single-valued). ``peak`` is
@@ -982,7 +983,7 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
         _up_branch_each, table, model, grid, v_start, v_after, j_after, v_end, peak=peak, sign=sign
     )
     try:
-        g_after, state, _ = continued(v_after, sol)
+        g_after, state, left = continued(v_after, sol, need=np.ones(v_after.size, bool))
     except ElectrostaticsConvergenceError:
         if v_start.size == 1:
             raise
@@ -993,11 +994,10 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
         profile = profile_from_potential(table, g_after, potential_ev)
         return sign * _current_of_profile(profile, table, sign * v, model, grid)
 
-    j_hi = current_of(state.potential_ev, v_after[:, None])[:, 0]
-    bistable = j_hi > (1.0 + BISTABLE_EXCESS) * j_after
     fold = _FoldSearch.start(v_after, np.maximum(v_after - v_start, FOLD_FIRST_STEP_V), v_end)
-    active = bistable.copy()
-    held: list = []  # (bias, potential, hold) of each step where a stack held
+    active = ~left  # still charged at v_after: followed, the current judged at the end
+    # (bias, potential, hold) of v_after and of each step where a stack held
+    held: list = [(v_after, state.potential_ev[:, 0], active.copy())]
     for _ in range(FOLD_STEPS):
         if not np.any(active):
             break
@@ -1018,7 +1018,7 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
             held.append((v_try, state.potential_ev[:, 0], hold))
         active &= ~fold.update(v_try, hold, active)
     v_hi = fold.v_hi
-    best_v, best_j = _highest_on_branch(current_of, v_start, v_after, j_hi, bistable, held)
+    best_v, best_j, bistable = _highest_on_branch(current_of, v_start, j_after, held)
     return best_v, best_j, np.where(bistable, v_hi - v_start, 0.0)
 
 
@@ -1078,24 +1078,22 @@ class _FoldSearch:
         )
 
 
-def _highest_on_branch(current_of, v_start, v_after, j_hi, bistable, held):
-    """The up sweep's peak of :func:`_up_branch`: the highest current on the branch (the
-    first of equals) from ``v_after`` (current ``j_hi``) and the steps that held (``held``:
-    bias, potential and hold of each stack per step), their currents computed in one call
-    (``current_of(potential, bias)``; a stack that did not hold at a step takes its last
-    held state there, and that current is no candidate). Returns bias and current, ``v_start``
-    and ``-inf`` where the branch is not ``bistable``."""
-    candidates = np.where(bistable, j_hi, -np.inf)[:, None]
-    biases = v_after[:, None]
-    if held:
-        v_steps = np.stack([v for v, _, _ in held], axis=1)
-        j_steps = current_of(np.stack([p for _, p, _ in held], axis=1), v_steps)
-        ok = np.stack([h for _, _, h in held], axis=1) & np.isfinite(j_steps)
-        candidates = np.concatenate([candidates, np.where(ok, j_steps, -np.inf)], axis=1)
-        biases = np.concatenate([biases, v_steps], axis=1)
+def _highest_on_branch(current_of, v_start, j_after, held):
+    """The up sweep's peak of :func:`_up_branch`: the currents of ``held`` (bias, potential and
+    hold of each stack at ``v_after``, then per step; a stack that did not hold at a step takes
+    its last held state there, and that current is no candidate) in one call
+    (``current_of(potential, bias)``); bistable where the current at ``v_after`` exceeds the
+    single solve's ``j_after`` by :data:`BISTABLE_EXCESS`. Returns bias and current of the
+    highest current on the branch (the first of equals; ``v_start`` and ``-inf`` where not
+    bistable) and the bistable stacks."""
+    v_steps = np.stack([v for v, _, _ in held], axis=1)
+    j_steps = current_of(np.stack([p for _, p, _ in held], axis=1), v_steps)
+    ok = np.stack([h for _, _, h in held], axis=1) & np.isfinite(j_steps)
+    bistable = ok[:, 0] & (j_steps[:, 0] > (1.0 + BISTABLE_EXCESS) * j_after)
+    candidates = np.where(ok & bistable[:, None], j_steps, -np.inf)
     top = np.argmax(candidates, axis=1)
     rows = np.arange(top.size)
-    return np.where(bistable, biases[rows, top], v_start), candidates[rows, top]
+    return np.where(bistable, v_steps[rows, top], v_start), candidates[rows, top], bistable
 
 
 def _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, *, peak, sign):
