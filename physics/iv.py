@@ -1066,6 +1066,7 @@ class _FoldSearch:
         """Take each active stack's step (``hold``: still on the branch); returns the stacks
         whose search has ended."""
         fell = active & ~hold
+        stuck = v_try <= self.v_hi  # the valley at or before the last bias that held
         outward = ~np.isfinite(self._nearest_fall()[0])
         self.falls[:, self.taken] = np.where(fell, v_try, np.inf)
         self.seen_from[:, self.taken] = self.v_hi
@@ -1073,9 +1074,8 @@ class _FoldSearch:
         self.step = np.where(outward & hold, 2.0 * self.step, self.step)
         self.v_hi = np.where(hold, v_try, self.v_hi)
         v_off, seen = self._nearest_fall()
-        return ((v_off - self.v_hi < FOLD_TOLERANCE_V) & (seen >= self.v_hi)) | (
-            hold & (v_try >= self.v_end)
-        )
+        ended = (v_off - self.v_hi < FOLD_TOLERANCE_V) & (seen >= self.v_hi)
+        return ended | stuck | (hold & (v_try >= self.v_end))
 
 
 def _highest_on_branch(current_of, v_start, j_after, held):

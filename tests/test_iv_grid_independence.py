@@ -280,6 +280,18 @@ def test_the_fold_search_halves_its_bracket_and_checks_a_far_fall_again(
     assert all(len(r) == 1 or (len(r) == 2 and r[1] < r[0]) for r in seen.values()), tried
 
 
+def test_the_fold_search_ends_where_the_valley_leaves_no_room() -> None:
+    """A branch whose valley (the search's end) lies at its start: one step, no more (the
+    step cannot move, whether it holds or falls)."""
+    from wellwright.physics.iv import _FoldSearch
+
+    for hold in (True, False):
+        search = _FoldSearch.start(np.array([0.5]), np.array([2e-3]), np.array([0.5]))
+        v = search.trial()
+        assert v[0] == 0.5
+        assert search.update(v, np.array([hold]), np.array([True]))[0]
+
+
 def test_a_continued_solve_keeps_to_the_root_nearest_its_start() -> None:
     """Continuation in bias (``initial_well_cm2``) follows the root nearest its start: the
     InP example's charged state at 0.4973 V continued to 0.5013 V, where its residual at the
