@@ -86,3 +86,22 @@ def test_the_band_diagram_keeps_its_level_labels_apart() -> None:
     assert len(heights) >= 3
     lo, hi = ax.get_ylim()
     assert np.min(np.diff(heights)) >= 0.03 * (hi - lo)
+
+
+def test_the_axes_name_the_first_layer_for_what_it_is_at_the_bias() -> None:
+    # The band diagram and transmission axes are measured from the first layer's band edge
+    # and interface. In reverse bias that layer collects (electrons enter from the last
+    # one); the axes said "emitter" there. Common practice: the emitter is the contact
+    # electrons are injected from.
+    from pathlib import Path
+
+    from wellwright.optimize.shared.figures import band_diagram_figure, transmission_figure
+    from wellwright.physics.stack import load_stack
+
+    stack = load_stack(Path(__file__).resolve().parents[1] / "studies" / "inp_thz_oscillator.toml")
+    forward = band_diagram_figure(stack, 0.3).axes[0]
+    reverse = band_diagram_figure(stack, -0.3).axes[0]
+    assert "emitter" in forward.get_ylabel() and "emitter" in forward.get_xlabel()
+    assert "collector" in reverse.get_ylabel() and "emitter" not in reverse.get_xlabel()
+    assert "collector" in transmission_figure(stack, [-0.3]).axes[0].get_xlabel()
+    assert "emitter" in transmission_figure(stack, [0.0, 0.3]).axes[0].get_xlabel()

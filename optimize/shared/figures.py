@@ -304,6 +304,16 @@ def _layer_spans(profile) -> list[tuple[float, float, int]]:
     return spans
 
 
+def _first_contact(biases_v) -> str:
+    """What the stack's first layer is at these biases, for the axes measured from it: the
+    emitter in forward bias, the collector in reverse (electrons then enter from the last
+    layer)."""
+    b = np.asarray(biases_v, float)
+    if np.all(b >= 0):
+        return "emitter"
+    return "collector (layer 1)" if np.all(b < 0) else "layer 1"
+
+
 def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     """Conduction-band edges at ``bias_v`` (Gamma; X and L dashed) with resonances and Fermi levels.
 
@@ -341,8 +351,9 @@ def band_diagram_figure(stack: Stack, bias_v: float, *, title: str = ""):
     ax.hlines(mu_e, xs[0], 0, colors=PALETTE["orange"], linestyles="--", lw=2, label="Fermi levels")
     ax.hlines(edge[-1] + mu_c, length, xs[-1], colors=PALETTE["orange"], linestyles="--", lw=2)
     _draw_resonances(ax, profile, barriers, top=top, length_nm=length)
-    ax.set_xlabel("position from the emitter interface (nm)")
-    ax.set_ylabel("energy from emitter band edge (eV)")
+    first = _first_contact([bias_v])
+    ax.set_xlabel(f"position from the {first} interface (nm)")
+    ax.set_ylabel(f"energy from the {first} band edge (eV)")
     ax.set_xlim(max(xs[0], -25.0), min(xs[-1], length + 35.0))  # the active region, some contact
     ax.set_ylim(min(float(edge.min()), 0.0) - 0.1, top * 1.15 + 0.1)
     # below the axes: the emitter side now carries the X and L edges
@@ -469,7 +480,7 @@ def transmission_figure(stack: Stack, biases_v: list[float], *, title: str = "")
         ax.semilogy(
             e[o] * 1e3, np.maximum(tt[o], 1e-30), color=color, lw=1.6, label=f"{bias * 1e3:.0f} mV"
         )
-    ax.set_xlabel("energy from emitter band edge (meV)")
+    ax.set_xlabel(f"energy from the {_first_contact(biases_v)} band edge (meV)")
     ax.set_ylabel("transmission T(E)")
     ax.set_ylim(bottom=max(1e-20, float(np.nanmin(np.maximum(t, 1e-20)))), top=2.0)
     ax.legend(title="bias")
