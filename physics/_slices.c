@@ -753,7 +753,7 @@ done:
 #endif
 
 enum { R_LO, R_RLO, R_LOKNOWN, R_HI, R_RHI, R_SIDE, R_REOPENED, R_SETTLED, R_FROZEN, R_PUSH,
-       R_PREVW, R_PREVR, R_ROWS };
+       R_WARM, R_PREVW, R_PREVR, R_ROWS };
 
 WW_NO_FMA
 static int root_step(Py_ssize_t n_entries, double *st, double *well, const double *residual,
@@ -804,10 +804,11 @@ static int root_step(Py_ssize_t n_entries, double *st, double *well, const doubl
         const double fallback = min_nan(w + S(R_PUSH) * r, max_nan(ceiling, tg));
         const double step = bracketed ? falsi : (open_ok ? candidate : fallback);
         double next = dn ? w : step;
-        /* a collapsed bracket with a large residual: reopened once, then settled at the jump */
+        /* a collapsed bracket with a large residual: reopened once, then settled at the jump
+           (a warm start at once) */
         if (bracketed && (hi - lo) <= tolerance * fabs(hi) + abs_cm2 && !dn) {
             any_collapsed = 1;
-            if (S(R_REOPENED) != 0.0) {
+            if (S(R_REOPENED) != 0.0 || S(R_WARM) != 0.0) {
                 S(R_FROZEN) = 0.5 * (lo + hi);
                 S(R_SETTLED) = 1.0;
             } else {

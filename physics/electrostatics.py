@@ -824,7 +824,7 @@ def _iterate_well_charge(
     fermi = np.broadcast_to(fermi, shape + (n_nodes,)).reshape(-1, n_nodes)
     right = right.reshape(-1)
     below = None if abandon_below_cm2 is None else abandon_below_cm2.reshape(-1)
-    root = _WellChargeRoot.start(well.shape)
+    root = _WellChargeRoot.start(well.shape, warm=well > 0)  # a cold start's charge is 0
     most = 0
 
     def result(iterations, failed=None):
@@ -993,28 +993,35 @@ class _WellChargeRoot:
     half the start's charge, and the up sweep left the branch early: the InP example's
     up sweep ended at 0.4993 V where its branch holds to 0.5033 V). A collapsed
     bracket with a large residual is reopened once; collapsing again, it is a jump of
-    ``F`` and the charge is settled at the jump.
+    ``F`` and the charge is settled at the jump. A warm start settles at its first
+    collapse: its branch continues to the jump (a state pinned at the emitter's band
+    edge), and the reopened search, halving ``[0, hi]``, fell to a lower root (an
+    as-grown InP stack's and a random InGaAs/AlAs stack's up sweeps ended 0.8 and 8.8 mV
+    before their branches).
 
     The state of every entry is kept packed, one row per quantity (:attr:`ROWS`; flags as
     0 and 1), as the compiled ``well_root_step`` reads and writes it.
     """
 
-    state: np.ndarray  #: ``(12,) + shape``, the rows of ROWS
+    state: np.ndarray  #: ``(13,) + shape``, the rows of ROWS
     has_previous: bool  #: the last two rows hold the last step's (well, residual)
 
     #: lo, r_lo, hi, r_hi: the bracket and its residuals; lo_known: residual(lo) evaluated
     #: (else lo = 0 is a bound only); last_side: +1 lo moved last, -1 hi moved last
     #: (Illinois); reopened: the bracket collapsed once and was reopened; settled: it
     #: collapsed again, a jump of F accepted at the jump; frozen: the charge of the settled
-    #: entries; push: growth of the step past the target (see next_well)
+    #: entries; push: growth of the step past the target (see next_well); warm: started from
+    #: a charge (a continuation), settled at its first collapse
     ROWS = ("lo", "r_lo", "lo_known", "hi", "r_hi", "last_side", "reopened", "settled",
-            "frozen", "push", "previous_well", "previous_residual")  # fmt: skip
+            "frozen", "push", "warm", "previous_well", "previous_residual")  # fmt: skip
 
     @classmethod
-    def start(cls, shape: tuple[int, ...]) -> _WellChargeRoot:
+    def start(cls, shape: tuple[int, ...], warm: np.ndarray | None = None) -> _WellChargeRoot:
         state = np.zeros((len(cls.ROWS),) + tuple(shape))
         state[cls.ROWS.index("hi")] = np.inf
         state[cls.ROWS.index("push")] = 0.5
+        if warm is not None:
+            state[cls.ROWS.index("warm")] = warm
         return cls(state=state, has_previous=False)
 
     @property
@@ -1064,7 +1071,8 @@ class _WellChargeRoot:
     def _next_well_numpy(self, well, residual, *, target, done):
         """:meth:`next_well` as written for plain arrays (the reference of ``well_root_step``):
         the state is read here and stored at the end."""
-        lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push, *last = self.state
+        lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push, *rest = self.state
+        warm, last = rest[0] != 0, rest[1:]
         lo_known, reopened, settled = lo_known != 0, reopened != 0, settled != 0
         last_side = last_side.astype(int)
         previous = tuple(last) if self.has_previous else None
@@ -1117,10 +1125,10 @@ class _WellChargeRoot:
         # detection): the fixed point is the jump itself, accepted to the bracket width.
         collapsed = bracketed & ((hi - lo) <= WELL_TOLERANCE * np.abs(hi) + WELL_ABS_CM2) & ~done
         if np.any(collapsed):
-            again = collapsed & reopened
+            again = collapsed & (reopened | warm)
             frozen = np.where(again, 0.5 * (lo + hi), frozen)
             settled |= again
-            first = collapsed & ~reopened
+            first = collapsed & ~reopened & ~warm
             reopened |= first
             lo, lo_known = np.where(first, 0.0, lo), lo_known & ~first
             hi = np.where(first, np.inf, hi)
@@ -1129,7 +1137,8 @@ class _WellChargeRoot:
             previous = None
         well = np.where(settled, frozen, well)
         kept = last if previous is None else previous
-        rows = (lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push, *kept)
+        rows = (lo, r_lo, lo_known, hi, r_hi, last_side, reopened, settled, frozen, push, warm)
+        rows = (*rows, *kept)
         self.state = np.stack([np.broadcast_to(r, well.shape) for r in rows]).astype(float)
         self.has_previous = previous is not None
         return well

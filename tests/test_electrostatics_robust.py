@@ -94,3 +94,45 @@ def test_a_failed_entry_is_mended_alone_and_its_neighbours_keep_their_solves() -
     assert np.all(mended.well_sheet_cm2[0, 3:] < 1e9)  # the low branch past the peak
     # the mended entry: the charged state there (unique at 0.48 V), to the iteration's tolerance
     assert mended.well_sheet_cm2[0, 2] == pytest.approx(cold.well_sheet_cm2[0, 2], rel=1e-3)
+
+
+def test_a_continued_solve_holds_a_branch_pinned_at_a_jump_of_the_well_charge() -> None:
+    """Continuation in bias keeps a charged state whose root is a jump of ``F`` (the well's
+    state pinned at the emitter's band edge: the residual ``F(n) - n`` steps from +30e9 to
+    -37e9 cm^-2 between 9.8e11 and 9.9e11; ``well_charge_residual_cm2``). The reference is
+    that brute-force scan: the charged root exists up to about -1.0995 V on this invented
+    InGaAs/AlAs stack (random-stack seed 4, draw 3; 366 K). Before, a continued solve that
+    reached the jump reopened its bracket, halved [0, hi] and fell to a lower root: the up
+    sweep's window ended at -1.0910 V (47 mV) where the branch holds to -1.0995 V (55 mV)."""
+    from test_default_model_scan import _default_model
+    from test_grid_random_stacks import random_stack
+
+    rng = np.random.default_rng(4)
+    for _ in range(4):  # the scan's draws: stack, sweep end, polarity
+        stack = _default_model(random_stack(rng))
+        rng.uniform(0.3, 2.0), rng.random()
+    table = stack.table()
+    biases = np.concatenate([np.linspace(-1.0400, -1.0898, 26), [-1.0910, -1.09116, -1.0950]])
+    g, sol = solve_stack_poisson(table, np.array([[biases[0]]]), slice_nm=stack.model.slice_nm)
+    assert sol.well_sheet_cm2[0, 0] > 1e12  # the charged state at the peak
+    charges = []
+    for v in biases[1:]:
+        g, sol = solve_stack_poisson(
+            table,
+            np.array([[v]]),
+            initial_ev=sol.potential_ev,
+            initial_well_cm2=sol.well_sheet_cm2,
+            slice_nm=stack.model.slice_nm,
+        )
+        charges.append(sol.well_sheet_cm2[0, 0])
+    assert min(charges) > 8e11, np.round(np.array(charges) / 1e11, 2)
+    g_fine = np.linspace(0.0, 2.2e12, 1100)
+    assert stable_roots_count(table, -1.0950, g_fine) >= 2  # the brute force: still charged
+
+
+def stable_roots_count(table, bias_v: float, charge_cm2: np.ndarray) -> int:
+    """How many times ``F(n) - n`` falls through zero over ``charge_cm2`` (stable roots)."""
+    from wellwright.physics.electrostatics import well_charge_residual_cm2
+
+    sign = np.sign(well_charge_residual_cm2(table, bias_v, charge_cm2)[0])
+    return int(np.count_nonzero((sign[:-1] > 0) & (sign[1:] <= 0)))

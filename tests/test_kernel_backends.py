@@ -340,6 +340,9 @@ def test_compiled_well_root_step_agrees(seed: int, monkeypatch) -> None:
     jumps[0, :3] = True
     slope[jumps] = rng.uniform(0.2, 0.9, jumps.sum())  # F(n) < n beyond the jump: no root
     jump = rng.uniform(0.2, 2.0, shape) * scale * jumps
+    # warm starts (a continuation from a charge): settled at their first collapse
+    warm = rng.random(shape) < 0.4
+    warm[1, :3] = jumps[1, :3] = True
 
     def charge(n):  # F >= 0
         smooth = scale * np.tanh(slope * n / scale)
@@ -349,8 +352,8 @@ def test_compiled_well_root_step_agrees(seed: int, monkeypatch) -> None:
         with monkeypatch.context() as m:
             if not compiled:
                 m.setattr(es, "compiled_kernel", lambda name: None)
-            root = es._WellChargeRoot.start(shape)
-            well, seen = np.zeros(shape), []
+            root = es._WellChargeRoot.start(shape, warm=warm)
+            well, seen = np.where(warm, 1.5 * scale, 0.0), []
             done = np.zeros(shape, bool)
             for _ in range(40):
                 target = charge(well)
@@ -368,6 +371,8 @@ def test_compiled_well_root_step_agrees(seed: int, monkeypatch) -> None:
         np.testing.assert_array_equal(s1, s2)
         np.testing.assert_array_equal(r1, r2)
     assert ref[-1][1].any() and ref[-1][2].any()  # the jump's entries were settled
+    settled, reopened = ref[-1][1], ref[-1][2]
+    assert (settled & warm & ~reopened).any() and not (reopened & warm).any()
     bad = np.zeros(3)
     with pytest.raises(ValueError, match="state"):
         kernel._slices.well_root_step(np.zeros(30), bad, bad, bad, bad, 0, 0.5, 1e-4, 1e7)
