@@ -58,20 +58,55 @@ def stable_roots(table, bias_v: float, top_cm2: float, n: int = 600) -> int:
     return stable_roots_cm2(table, bias_v, np.linspace(0.0, top_cm2, n)).size
 
 
+def _record_branches(iv) -> list:
+    """Make ``iv._up_branch`` append (stacks, starts, windows, start charges, sign, valleys) of
+    each call to the returned list."""
+    branches: list = []
+    follow = iv._up_branch
+
+    def recorded(table, model, grid, v_start, v_after, j_after, v_end, *, peak, sign=1.0):
+        out = follow(table, model, grid, v_start, v_after, j_after, v_end, peak=peak, sign=sign)
+        charges = np.abs(peak[1].well_sheet_cm2[:, 0])
+        branches.append((table, v_start.copy(), out[2].copy(), charges, sign, v_end.copy()))
+        return out
+
+    iv._up_branch = recorded
+    return branches
+
+
+def _windows_flagged(label: str, branches: list) -> tuple[int, int]:
+    """Check every bistable window of ``branches`` against the scan (module docstring);
+    prints one line each. Returns (windows seen, flagged). A window that reaches the valley
+    (where the search stops by design) is not flagged."""
+    seen = flagged = 0
+    for stacks, starts, windows, charges, sign, valleys in branches:
+        for k in np.nonzero(windows > 0)[0]:
+            seen += 1
+            one, end, top = stacks.take(slice(k, k + 1)), starts[k] + windows[k], 2 * charges[k]
+            past = 0.0
+            while stable_roots(one, sign * (end + past + STEP_V), top) >= 2 and past < 0.05:
+                past += STEP_V
+            bad = stable_roots(one, sign * end, top) < 2 and past == 0.0
+            at_valley = end >= valleys[k] - 1e-9
+            flag = past >= FLAG_V and not at_valley
+            flagged += flag
+            print(
+                f"{label}: start {sign * starts[k]:+.4f} V, window "
+                f"{1e3 * windows[k]:.2f} mV, the branch holds {1e3 * past:.2f} mV past "
+                f"its end{' (fold at the end within the scan)' if bad else ''}"
+                f"{' (the valley: the search ends there)' if at_valley else ''}"
+                f"{'  <-- flagged' if flag else ''}",
+                flush=True,
+            )
+    return seen, flagged
+
+
 def folds() -> None:
     """The ``folds`` check (module docstring)."""
     from test_grid_convergence import CASES
     from wellwright.physics import iv
 
-    branches: list = []  # (stacks, starts, windows, start charges) of each up-branch call
-    follow = iv._up_branch
-
-    def recorded(table, model, grid, v_start, v_after, j_after, v_end, *, peak, sign=1.0):
-        out = follow(table, model, grid, v_start, v_after, j_after, v_end, peak=peak, sign=sign)
-        branches.append((table, v_start.copy(), out[2].copy(), peak[1].well_sheet_cm2[:, 0]))
-        return out
-
-    iv._up_branch = recorded
+    branches = _record_branches(iv)
     flagged = seen = 0
     warnings.simplefilter("ignore")  # grid-accuracy and X-valley warnings: not scanned here
     for case in sorted(CASES):
@@ -81,27 +116,29 @@ def folds() -> None:
         for first in range(0, table.n_stacks, 16):
             branches.clear()
             iv.sweep(table.take(slice(first, first + 16)), bias, model=model)
-            for stacks, starts, windows, charges in branches:
-                for k in np.nonzero(windows > 0)[0]:
-                    seen += 1
-                    one, end, top = (
-                        stacks.take(slice(k, k + 1)),
-                        starts[k] + windows[k],
-                        2 * charges[k],
-                    )
-                    past = 0.0
-                    while stable_roots(one, end + past + STEP_V, top) >= 2 and past < 0.05:
-                        past += STEP_V
-                    bad = stable_roots(one, end, top) < 2 and past == 0.0
-                    flag = past >= FLAG_V
-                    flagged += flag
-                    print(
-                        f"{case} batch {first}: start {starts[k]:.4f} V, window "
-                        f"{1e3 * windows[k]:.2f} mV, the branch holds {1e3 * past:.2f} mV past "
-                        f"its end{' (fold at the end within the scan)' if bad else ''}"
-                        f"{'  <-- flagged' if flag else ''}"
-                    )
+            counts = _windows_flagged(f"{case} batch {first}", branches)
+            seen, flagged = seen + counts[0], flagged + counts[1]
     print(f"{flagged} of {seen} windows end {1e3 * FLAG_V:g} mV or more before the branch does")
+
+
+def folds_random(seed: int, n_stacks: int) -> None:
+    """The ``folds SEED N`` check (module docstring): random stacks, each alone."""
+    from test_default_model_scan import _default_model
+    from test_grid_random_stacks import random_stack
+    from wellwright.physics import iv
+
+    branches = _record_branches(iv)
+    rng = np.random.default_rng(seed)
+    flagged = seen = 0
+    warnings.simplefilter("ignore")
+    for i in range(n_stacks):
+        stack = _default_model(random_stack(rng))
+        top, sign = rng.uniform(0.3, 2.0), -1.0 if rng.random() < 0.5 else 1.0
+        branches.clear()
+        iv.sweep(stack.table(), np.sort(sign * np.linspace(0.0, top, 61)), model=stack.model)
+        counts = _windows_flagged(f"seed {seed} stack {i}", branches)
+        seen, flagged = seen + counts[0], flagged + counts[1]
+    print(f"seed {seed}: {flagged} of {seen} windows end {1e3 * FLAG_V:g} mV or more early")
 
 
 def cold(seed: int, n_stacks: int) -> None:
@@ -138,12 +175,14 @@ def cold(seed: int, n_stacks: int) -> None:
 def main() -> None:
     sys.path.insert(0, str(REPO / "tests"))
     args = sys.argv[1:]
-    if args[:1] == ["folds"]:
+    if args == ["folds"]:
         folds()
+    elif args[:1] == ["folds"] and len(args) == 3:
+        folds_random(int(args[1]), int(args[2]))
     elif args[:1] == ["cold"] and len(args) == 3:
         cold(int(args[1]), int(args[2]))
     else:
-        raise SystemExit("usage: scan_charge_roots.py folds | cold SEED N_STACKS")
+        raise SystemExit("usage: scan_charge_roots.py folds [SEED N_STACKS] | cold SEED N_STACKS")
 
 
 if __name__ == "__main__":

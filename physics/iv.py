@@ -127,9 +127,15 @@ NDR_DROP = 0.02
 #: scans of random stacks found, which only fine bias grids resolve, are neither).
 CLEAR_NDR_DROP = 0.1
 #: Extra metrics of the up sweep (self-consistent model; along |V| on either branch): its
-#: peak, and the width of the bias window past the peak where the I-V is bistable (0 where
-#: it is not).
-BISTABILITY_NAMES = ("peak_current_density_up_a_cm2", "peak_voltage_up_v", "bistable_window_v")
+#: peak, the width of the bias window past the peak where the I-V is bistable (0 where
+#: it is not), and 1.0 where the charged branch still holds at the valley, where the check
+#: stops (the window is then a lower bound; 0.0 where it ends before).
+BISTABILITY_NAMES = (
+    "peak_current_density_up_a_cm2",
+    "peak_voltage_up_v",
+    "bistable_window_v",
+    "bistable_window_to_valley",
+)
 #: The current continued from the peak counts as another branch when it exceeds the
 #: single-solve current by this fraction; the fold closing the window is found to this bias.
 BISTABLE_EXCESS = 0.01
@@ -935,8 +941,9 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
     the call at ``v_after`` alone 2 %), and the I-V is bistable where the current at
     ``v_after`` exceeds ``j_after`` by :data:`BISTABLE_EXCESS`.
 
-    Returns the up sweep's peak bias and current, and the window (last bias
-    on the charged branch minus ``v_start``; 0 where the I-V is single-valued). ``peak`` is
+    Returns the up sweep's peak bias and current, the window (last bias
+    on the charged branch minus ``v_start``; 0 where the I-V is single-valued) and whether the
+    branch still holds at ``v_end`` (the window a lower bound there). ``peak`` is
     the node positions (``(n_stacks, n_nodes)``, nm) and solution of the start's solve.
     Biases and currents go along the branch ``sign`` (+1 forward, -1 reverse): ``|V|``
     and magnitudes. The down branch is taken to be the single-solve one (checked against
@@ -1019,7 +1026,7 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
         active &= ~fold.update(v_try, hold, active)
     v_hi = fold.v_hi
     best_v, best_j, bistable = _highest_on_branch(current_of, v_start, j_after, held)
-    return best_v, best_j, np.where(bistable, v_hi - v_start, 0.0)
+    return best_v, best_j, np.where(bistable, v_hi - v_start, 0.0), bistable & (v_hi >= v_end)
 
 
 @dataclass
@@ -1208,22 +1215,23 @@ def _at_bias_metrics(devices, at_bias_v, area_um2, model, grid) -> dict[str, np.
 
 
 def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept, *, sign):
-    """The up sweep's peak (bias, current) and bistable window of each stack with NDR
-    (``table``: those stacks): :func:`_up_branch` from the last single solve on the charged
+    """The up sweep's peak (bias, current), bistable window and whether it reaches the valley
+    (1.0, else 0.0) of each stack with NDR (``table``: those stacks): :func:`_up_branch` from the last single solve on the charged
     branch above the peak, for the stacks whose single solves fall off it before the valley
     ``vv`` (:func:`_collapse_bracket`), the single-solve peak elsewhere. ``sign``: the
     branch's (+1 forward, -1 reverse); both take their steps along ``|V|``."""
     vp, vv = sign * vp, sign * vv  # along |V| (the currents are magnitudes already)
     after = (sign * after[0], sign * after[1], after[2])
     vp_up, jp_up, window = vp.copy(), jp.copy(), np.zeros(vp.size)
+    to_valley = np.zeros(vp.size)
     v_start, start, v_after, j_after = _collapse_bracket(
         table, model, grid, vp, vv, after, peak_solution, swept, sign=sign
     )
     found = np.isfinite(v_after)
     if not np.any(found):
-        return sign * vp_up, jp_up, window
+        return sign * vp_up, jp_up, window, to_valley
     k = np.nonzero(found)[0]
-    up_v, up_j, fold = _up_branch(
+    up_v, up_j, fold, reached = _up_branch(
         table.take(k),
         model,
         grid,
@@ -1238,7 +1246,8 @@ def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept,
     vp_up[k] = np.where(better, up_v, vp[k])
     jp_up[k] = np.where(better, up_j, jp[k])
     window[k] = fold
-    return sign * vp_up, jp_up, window
+    to_valley[k] = reached
+    return sign * vp_up, jp_up, window, to_valley
 
 
 def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept, *, sign):
@@ -1479,14 +1488,16 @@ def _peak_figures(
     )
     for name in BISTABILITY_NAMES:
         metrics[name] = np.full(table.n_stacks, np.nan)
-    vp_up, jp_up, window = vp, jp, np.zeros(rows.size)
+    up = (vp, jp, np.zeros(rows.size), np.zeros(rows.size))
     if up_sweep and peak_solution is not None and after is not None:
-        vp_up, jp_up, window = _up_sweep_peaks(
+        up = _up_sweep_peaks(
             peaked, model, grid, vp, jp, vv, after, peak_solution, swept, sign=up_sweep
         )
+    vp_up, jp_up, window, to_valley = up
     metrics["peak_current_density_up_a_cm2"][rows] = jp_up
     metrics["peak_voltage_up_v"][rows] = vp_up
     metrics["bistable_window_v"][rows] = window
+    metrics["bistable_window_to_valley"][rows] = to_valley
 
 
 def sweep(

@@ -343,7 +343,7 @@ def test_up_branch_starts_from_a_peak_solved_in_a_larger_batch() -> None:
         g, sol = _solve_at(peak_table, np.array([[vp[0]], [vp[0]]])[: peak_table.n_stacks], model)
         peak = (g.center_nm[rows], _take_solution(sol, np.array(rows)))
         results.append(_up_branch(alone, model, grid, vp, v_after, j_after, vv, peak=peak))
-    (v1, j1, w1), (v2, j2, w2) = results
+    (v1, j1, w1, _), (v2, j2, w2, _) = results
     assert w1[0] > 0.0  # bistable: the case that takes the continuation
     assert v2 == pytest.approx(v1, abs=FOLD_TOLERANCE_V) and w2 == pytest.approx(
         w1, abs=FOLD_TOLERANCE_V
@@ -722,3 +722,26 @@ def test_a_resonance_narrower_than_the_sweep_is_found_where_the_well_charge_coll
         coarse["peak_current_density_a_cm2"], rel=1e-9
     )
     assert (pair.curve_of(0)[0].size > bias.size) == between  # the points between the two
+
+
+def test_a_window_that_reaches_the_valley_says_so() -> None:
+    """The fold search stops at the valley; where the charged branch still holds there, the
+    window is a lower bound and ``bistable_window_to_valley`` says so (1.0). On an invented
+    InSb/AlSb stack (random-stack seed 1, draw 2; 213 K) the brute-force scan of the
+    well-charge equation (``well_charge_residual_cm2``) finds the charged root at the valley
+    and 9 mV past it; the InP example's branch ends 342 mV before its valley (0.0)."""
+    from test_default_model_scan import _default_model
+    from test_grid_random_stacks import random_stack
+
+    rng = np.random.default_rng(1)
+    for _ in range(3):  # the scan's draws: stack, sweep end, polarity
+        stack = _default_model(random_stack(rng))
+        top, _ = rng.uniform(0.3, 2.0), rng.random()
+    table = stack.table()
+    m = sweep(table, np.linspace(0.0, top, 61), model=stack.model).metrics_of(0)
+    assert m["bistable_window_v"] > 5e-3
+    assert m["bistable_window_to_valley"] == 1.0
+    assert _charged_root_exists(table, m["valley_voltage_v"], 6e11)
+    inp = load_stack(BROAD)
+    m = sweep(inp.table(), np.linspace(0.0, 0.8, 61), model=inp.model).metrics_of(0)
+    assert m["bistable_window_v"] > 5e-3 and m["bistable_window_to_valley"] == 0.0

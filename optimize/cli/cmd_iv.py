@@ -251,13 +251,19 @@ def run(args) -> int:
                 )
             if (m.get("bistable_window_v") or 0.0) > 0.0:
                 print(
-                    f"  bistable over {m['bistable_window_v'] * 1e3:.1f} mV past the peak: an "
-                    "up sweep keeps the well's charge there (the curve is the down sweep's "
+                    f"  bistable over {_at_least(m)}{m['bistable_window_v'] * 1e3:.1f} mV past "
+                    "the peak: an up sweep keeps the well's charge there (the curve is the down "
+                    "sweep's "
                     f"branch); the up sweep's peak {m['peak_current_density_up_a_cm2'] / 1e3:.3g}"
                     f" kA/cm² at {m['peak_voltage_up_v'] * 1e3:.0f} mV"
                 )
         print(f"  results in {out}/")
     return 0
+
+
+def _at_least(m: dict) -> str:
+    """'at least ' where the bistable window reaches the valley (a lower bound)."""
+    return "at least " if m.get("bistable_window_to_valley") == 1.0 else ""
 
 
 def _print_added_biases(computed: np.ndarray, bias: np.ndarray) -> None:

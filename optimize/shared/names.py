@@ -99,6 +99,15 @@ QUANTITIES: dict[str, Quantity] = {
     "bistable_window_v": Quantity(
         "bistable window past the peak", "mV", 1e3, ".1f", 0.01, "0: single-valued"
     ),
+    "bistable_window_to_valley": Quantity(
+        "bistable window reaching the valley",
+        "",
+        1.0,
+        ".0f",
+        1.0,
+        "1: the charged branch still holds at the valley, where the check stops; the window "
+        "is a lower bound",
+    ),
     # device quantities of a mesa ([device] area_um2)
     "peak_current_ma": Quantity("peak current", "mA", 1.0, ".3g"),
     "valley_current_ma": Quantity("valley current", "mA", 1.0, ".3g"),
