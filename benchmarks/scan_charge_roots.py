@@ -17,7 +17,14 @@ on 2026-12-05: 75 of 108 flagged before the continuation kept to the root neares
 (up to 11 mV short); 8 after it (1-2 mV short on windows of 28-42 mV, where the fold search's
 12 steps ended on a bracket that wide, having stepped past known falls again); none since
 the fold search halves its bracket (the farthest, an as-grown InP stack whose charged root
-past 0.4718 V is a jump of ``F``, 0.75 mV).
+past 0.4718 V is a jump of ``F``, 0.75 mV; none once a continued solve settles on such a
+jump).
+
+``folds SEED N``: the same check on ``N`` random stacks (``random_stack``, every system, both
+polarities, 61 biases from 0 to 0.3-2 V, as ``scan_grid_independence.py`` draws them), each
+alone. A window that reaches the valley, where the search stops, is labelled and not flagged.
+Measured on 2026-12-05, seeds 1-6 (40 stacks each): 43 bistable windows, none flagged, 4
+reaching their valley (the branch holding 2-18 mV past it).
 
 ``cold SEED N``: the single (cold) solves of ``N`` random stacks (``tests/test_grid_random_stacks.py``'s
 ``random_stack``, the default model, 61 biases from 0 to 0.3-2 V of one polarity, as
@@ -28,6 +35,7 @@ down sweep's branch; DEVELOPERS.md). Measured on 2026-12-05, seeds 1-3 (140 stac
 charge of 4.7e11 where the least is 2.9e11 cm^-2).
 
 Run: ``python benchmarks/scan_charge_roots.py folds`` (about half a minute);
+``python benchmarks/scan_charge_roots.py folds 1 40`` (about a minute);
 ``python benchmarks/scan_charge_roots.py cold 1 60`` (about two minutes).
 """
 
