@@ -256,8 +256,8 @@ def test_the_fold_search_halves_its_bracket_and_checks_a_far_fall_again(
     below a fold about 22-26 mV past the start. With ``false_reach_v``, a step reaching that
     far or further from the last bias that held also falls within 1 mV of the fold, as a continued
     solve from a far state can skip the charged root there (seen on an as-grown InP stack,
-    DEVELOPERS.md). The search must end within ``FOLD_TOLERANCE_V`` below the fold, within
-    ``FOLD_STEPS`` steps, trying no bias more than twice, the second time from nearer (a
+    DEVELOPERS.md). After at most ``FOLD_STEPS`` steps its last held bias must lie within
+    ``FOLD_TOLERANCE_V`` below the fold, no bias tried more than twice, the second time from nearer (a
     fall seen from further back than the last bias that held is tried again from there).
     Before (steps doubled again after each hold, past a known fall): 12 steps ended on a
     1 mV bracket, and a far fall was taken for the fold."""
