@@ -93,6 +93,8 @@ def compare(before: dict, after: dict, rtol: float) -> bool:
     bistable = sum(1 for m in before.values() if m.get("bistable_window_v", 0.0) > 0.0)
     for key, old in before.items():
         for name, x in old.items():
+            if name not in after[key]:  # a figure one side does not have (added or renamed)
+                continue
             y = after[key][name]
             if name == "curve":  # the swept I-V: relative to the stack's largest current
                 scale = max(max(abs(v) for v in x), 1e-300)

@@ -128,13 +128,13 @@ NDR_DROP = 0.02
 CLEAR_NDR_DROP = 0.1
 #: Extra metrics of the up sweep (self-consistent model; along |V| on either branch): its
 #: peak, the width of the bias window past the peak where the I-V is bistable (0 where
-#: it is not), and 1.0 where the charged branch still holds at the valley, where the check
-#: stops (the window is then a lower bound; 0.0 where it ends before).
+#: it is not), and 1.0 where the charged branch still holds at the last bias computed, where
+#: the check stops (the window is then a lower bound; 0.0 where it ends before).
 BISTABILITY_NAMES = (
     "peak_current_density_up_a_cm2",
     "peak_voltage_up_v",
     "bistable_window_v",
-    "bistable_window_to_valley",
+    "bistable_window_to_sweep_end",
 )
 #: The current continued from the peak counts as another branch when it exceeds the
 #: single-solve current by this fraction; the fold closing the window is found to this bias.
@@ -919,7 +919,7 @@ def _take_solution(solution, rows):
     )
 
 
-def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, sign=1.0):
+def _up_branch(table, model, grid, v_start, v_after, j_after, v_ends, *, peak, sign=1.0):
     """Where the self-consistent I-V is bistable above its peak: the up sweep's branch.
 
     Every bias of a sweep is solved from the linear drop with no well charge,
@@ -933,7 +933,9 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
     there, follows the charged branch upwards to its fold (:class:`_FoldSearch`: a solve
     whose charge falls below :data:`FOLD_CHARGE_COLLAPSE` of the start's has left it; from
     :data:`FOLD_FIRST_STEP_V` to :data:`FOLD_TOLERANCE_V`, at most :data:`FOLD_STEPS`
-    solves; not beyond ``v_end``, the valley), as
+    solves; ``v_ends``: the valley and the last bias computed, beyond which it does not go;
+    past the valley a step holds only apart from the single solve there,
+    :func:`_continued_solve`), as
     :func:`sweep_hysteresis` does on a grid. Every stack of the batch takes
     each step; stacks already settled repeat their last bias. The steps are judged by the
     charge alone; the currents at ``v_after`` and of the steps that held are computed in one
@@ -943,7 +945,7 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
 
     Returns the up sweep's peak bias and current, the window (last bias
     on the charged branch minus ``v_start``; 0 where the I-V is single-valued) and whether the
-    branch still holds at ``v_end`` (the window a lower bound there). ``peak`` is
+    branch still holds at the last bias computed (the window a lower bound there). ``peak`` is
     the node positions (``(n_stacks, n_nodes)``, nm) and solution of the start's solve.
     Biases and currents go along the branch ``sign`` (+1 forward, -1 reverse): ``|V|``
     and magnitudes. The down branch is taken to be the single-solve one (checked against
@@ -969,25 +971,13 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
         ),
     )
 
-    def continued(v, state, need=None):
-        """Solve at ``v`` from ``state``: the grid, the solution and the stacks that left the
-        charged branch (with ``need``, the stacks whose step counts: a stack whose well charge
-        collapses below :data:`FOLD_CHARGE_COLLAPSE` of its start has left it, whether its
-        solve stops there or converges below)."""
-        abandon = None if need is None else FOLD_CHARGE_COLLAPSE * sol.well_sheet_cm2
-        g_, s_ = solve_stack_poisson(
-            table,
-            sign * v[:, None],
-            initial_ev=state.potential_ev,
-            initial_well_cm2=state.well_sheet_cm2,
-            abandon_below_cm2=abandon,
-            **options,
-        )
-        left = np.zeros(v.size, bool) if abandon is None else s_.well_sheet_cm2 <= abandon
-        return g_, s_, np.ravel(left)
+    v_valley, v_end = v_ends
+    continued = functools.partial(
+        _continued_solve, table, sol.well_sheet_cm2, v_valley, sign=sign, options=options
+    )
 
     each = functools.partial(  # each stack alone, where a solve of the batch fails
-        _up_branch_each, table, model, grid, v_start, v_after, j_after, v_end, peak=peak, sign=sign
+        _up_branch_each, table, model, grid, v_start, v_after, j_after, v_ends, peak=peak, sign=sign
     )
     try:
         g_after, state, left = continued(v_after, sol, need=np.ones(v_after.size, bool))
@@ -1027,6 +1017,47 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_end, *, peak, si
     v_hi = fold.v_hi
     best_v, best_j, bistable = _highest_on_branch(current_of, v_start, j_after, held)
     return best_v, best_j, np.where(bistable, v_hi - v_start, 0.0), bistable & (v_hi >= v_end)
+
+
+def _continued_solve(table, start_cm2, v_valley, v, state, need=None, *, sign, options):
+    """Solve at ``|V|`` ``v`` from ``state`` (:func:`_up_branch`'s step): the grid, the solution
+    and the stacks that left the charged branch. With ``need`` (the stacks whose step counts),
+    a stack has left it where its well charge falls below :data:`FOLD_CHARGE_COLLAPSE` of its
+    start's (``start_cm2``), whether its solve stops there or converges below, and past its
+    valley ``v_valley`` also where the charge lies within that share of the single (cold)
+    solve's there: past the valley the single solves' charge can rise again (the next
+    resonance) and meet the branch, which then holds a charge without a second root (on 6 of
+    58 bistable random stacks the branch went on 2-50 mV past the valley; DEVELOPERS.md)."""
+    abandon = None if need is None else FOLD_CHARGE_COLLAPSE * start_cm2
+    g, s = solve_stack_poisson(
+        table,
+        sign * v[:, None],
+        initial_ev=state.potential_ev,
+        initial_well_cm2=state.well_sheet_cm2,
+        abandon_below_cm2=abandon,
+        **options,
+    )
+    if abandon is None:
+        return g, s, np.zeros(v.size, bool)
+    charge = np.asarray(s.well_sheet_cm2)[:, 0]
+    left = charge <= abandon[:, 0]
+    past = np.nonzero(np.ravel(need) & ~left & (v > v_valley))[0]
+    if past.size:
+        single = _single_charges(table.take(past), sign * v[past], options)
+        left[past] = charge[past] - single <= abandon[past, 0]
+    return g, s, left
+
+
+def _single_charges(table, bias_v, options) -> np.ndarray:
+    """The single (cold) solves' well charges, one bias per stack, cm^-2 (inf where a solve
+    fails: the step then counts as off the branch)."""
+    from .electrostatics import ElectrostaticsConvergenceError
+
+    try:
+        _, solution = solve_stack_poisson(table, bias_v[:, None], **options)
+    except ElectrostaticsConvergenceError:
+        return np.full(bias_v.size, np.inf)
+    return np.asarray(solution.well_sheet_cm2)[:, 0]
 
 
 @dataclass
@@ -1103,7 +1134,7 @@ def _highest_on_branch(current_of, v_start, j_after, held):
     return np.where(bistable, v_steps[rows, top], v_start), candidates[rows, top], bistable
 
 
-def _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, *, peak, sign):
+def _up_branch_each(table, model, grid, v_start, v_after, j_after, v_ends, *, peak, sign):
     """:func:`_up_branch` of each stack alone, once a solve of the batch failed to converge:
     each stack's branch is then the one it has alone, whatever its partners do."""
     center_nm, solution = peak
@@ -1115,7 +1146,7 @@ def _up_branch_each(table, model, grid, v_start, v_after, j_after, v_end, *, pea
             v_start[[i]],
             v_after[[i]],
             j_after[[i]],
-            v_end[[i]],
+            tuple(v[[i]] for v in v_ends),
             peak=(center_nm[[i]], _take_solution(solution, [i])),
             sign=sign,
         )
@@ -1214,22 +1245,23 @@ def _at_bias_metrics(devices, at_bias_v, area_um2, model, grid) -> dict[str, np.
     return out
 
 
-def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept, *, sign):
-    """The up sweep's peak (bias, current), bistable window and whether it reaches the valley
-    (1.0, else 0.0) of each stack with NDR (``table``: those stacks): :func:`_up_branch` from the last single solve on the charged
-    branch above the peak, for the stacks whose single solves fall off it before the valley
-    ``vv`` (:func:`_collapse_bracket`), the single-solve peak elsewhere. ``sign``: the
-    branch's (+1 forward, -1 reverse); both take their steps along ``|V|``."""
+def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept, *, sign, v_stop):
+    """The up sweep's peak (bias, current), bistable window and whether it reaches the last bias
+    computed, ``v_stop`` (1.0, else 0.0), of each stack with NDR (``table``: those stacks):
+    :func:`_up_branch` from the last single solve on the charged branch above the peak, for
+    the stacks whose single solves fall off it before the valley ``vv``
+    (:func:`_collapse_bracket`), the single-solve peak elsewhere. ``sign``: the branch's (+1
+    forward, -1 reverse); both take their steps along ``|V|``."""
     vp, vv = sign * vp, sign * vv  # along |V| (the currents are magnitudes already)
     after = (sign * after[0], sign * after[1], after[2])
     vp_up, jp_up, window = vp.copy(), jp.copy(), np.zeros(vp.size)
-    to_valley = np.zeros(vp.size)
+    to_end = np.zeros(vp.size)
     v_start, start, v_after, j_after = _collapse_bracket(
         table, model, grid, vp, vv, after, peak_solution, swept, sign=sign
     )
     found = np.isfinite(v_after)
     if not np.any(found):
-        return sign * vp_up, jp_up, window, to_valley
+        return sign * vp_up, jp_up, window, to_end
     k = np.nonzero(found)[0]
     up_v, up_j, fold, reached = _up_branch(
         table.take(k),
@@ -1238,7 +1270,7 @@ def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept,
         v_start[k],
         v_after[k],
         j_after[k],
-        vv[k],
+        (vv[k], v_stop[k]),
         peak=(start[0][k], _take_solution(start[1], k)),
         sign=sign,
     )
@@ -1246,8 +1278,8 @@ def _up_sweep_peaks(table, model, grid, vp, jp, vv, after, peak_solution, swept,
     vp_up[k] = np.where(better, up_v, vp[k])
     jp_up[k] = np.where(better, up_j, jp[k])
     window[k] = fold
-    to_valley[k] = reached
-    return sign * vp_up, jp_up, window, to_valley
+    to_end[k] = reached
+    return sign * vp_up, jp_up, window, to_end
 
 
 def _collapse_bracket(table, model, grid, vp, vv, after, peak_solution, swept, *, sign):
@@ -1490,14 +1522,26 @@ def _peak_figures(
         metrics[name] = np.full(table.n_stacks, np.nan)
     up = (vp, jp, np.zeros(rows.size), np.zeros(rows.size))
     if up_sweep and peak_solution is not None and after is not None:
+        # the last bias computed of each stack (the sweep's or its extension's)
+        v_stop = np.array([np.max(v_abs[np.isfinite(j_side[r])]) for r in rows])
         up = _up_sweep_peaks(
-            peaked, model, grid, vp, jp, vv, after, peak_solution, swept, sign=up_sweep
+            peaked,
+            model,
+            grid,
+            vp,
+            jp,
+            vv,
+            after,
+            peak_solution,
+            swept,
+            sign=up_sweep,
+            v_stop=v_stop,
         )
-    vp_up, jp_up, window, to_valley = up
+    vp_up, jp_up, window, to_end = up
     metrics["peak_current_density_up_a_cm2"][rows] = jp_up
     metrics["peak_voltage_up_v"][rows] = vp_up
     metrics["bistable_window_v"][rows] = window
-    metrics["bistable_window_to_valley"][rows] = to_valley
+    metrics["bistable_window_to_sweep_end"][rows] = to_end
 
 
 def sweep(

@@ -342,7 +342,8 @@ def test_up_branch_starts_from_a_peak_solved_in_a_larger_batch() -> None:
     for peak_table, rows in ((alone, [0]), (pair, [0])):
         g, sol = _solve_at(peak_table, np.array([[vp[0]], [vp[0]]])[: peak_table.n_stacks], model)
         peak = (g.center_nm[rows], _take_solution(sol, np.array(rows)))
-        results.append(_up_branch(alone, model, grid, vp, v_after, j_after, vv, peak=peak))
+        ends = (vv, np.array([0.8]))
+        results.append(_up_branch(alone, model, grid, vp, v_after, j_after, ends, peak=peak))
     (v1, j1, w1, _), (v2, j2, w2, _) = results
     assert w1[0] > 0.0  # bistable: the case that takes the continuation
     assert v2 == pytest.approx(v1, abs=FOLD_TOLERANCE_V) and w2 == pytest.approx(
@@ -724,12 +725,14 @@ def test_a_resonance_narrower_than_the_sweep_is_found_where_the_well_charge_coll
     assert (pair.curve_of(0)[0].size > bias.size) == between  # the points between the two
 
 
-def test_a_window_that_reaches_the_valley_says_so() -> None:
-    """The fold search stops at the valley; where the charged branch still holds there, the
-    window is a lower bound and ``bistable_window_to_valley`` says so (1.0). On an invented
-    InSb/AlSb stack (random-stack seed 1, draw 2; 213 K) the brute-force scan of the
-    well-charge equation (``well_charge_residual_cm2``) finds the charged root at the valley
-    and 9 mV past it; the InP example's branch ends 342 mV before its valley (0.0)."""
+def test_the_up_sweep_follows_its_branch_past_the_valley() -> None:
+    """The charged branch can hold past the single solves' valley; the up sweep follows it
+    to its fold, each step past the valley held only apart from the single solve there. On an
+    invented InSb/AlSb stack (random-stack seed 1, draw 2; 213 K) the brute-force scan of the
+    well-charge equation (``well_charge_residual_cm2``) has the charged root one
+    ``FOLD_TOLERANCE_V`` before the window's end and none one past it, 9 mV past the valley.
+    Before, the search stopped at the valley: a window of 7.3 mV where the branch holds
+    16.5 mV."""
     from test_default_model_scan import _default_model
     from test_grid_random_stacks import random_stack
 
@@ -739,9 +742,29 @@ def test_a_window_that_reaches_the_valley_says_so() -> None:
         top, _ = rng.uniform(0.3, 2.0), rng.random()
     table = stack.table()
     m = sweep(table, np.linspace(0.0, top, 61), model=stack.model).metrics_of(0)
-    assert m["bistable_window_v"] > 5e-3
-    assert m["bistable_window_to_valley"] == 1.0
-    assert _charged_root_exists(table, m["valley_voltage_v"], 6e11)
-    inp = load_stack(BROAD)
-    m = sweep(inp.table(), np.linspace(0.0, 0.8, 61), model=inp.model).metrics_of(0)
-    assert m["bistable_window_v"] > 5e-3 and m["bistable_window_to_valley"] == 0.0
+    end = m["peak_voltage_v"] + m["bistable_window_v"]
+    assert end > m["valley_voltage_v"] + 5e-3
+    assert m["bistable_window_to_sweep_end"] == 0.0
+    assert _charged_root_exists(table, end - FOLD_TOLERANCE_V, 6e11)
+    assert not _charged_root_exists(table, end + FOLD_TOLERANCE_V, 6e11)
+
+
+def test_a_window_that_reaches_the_last_bias_computed_says_so() -> None:
+    """Where the charged branch still holds at the last bias computed (the search's end), the
+    window is a lower bound and ``bistable_window_to_sweep_end`` says so: the InP example's up
+    branch (fold 20.8 mV past its peak, test above) checked only 5 mV past its start."""
+    from wellwright.physics.current import EnergyGrid
+    from wellwright.physics.iv import _solve_at, _up_branch
+
+    stack = load_stack(BROAD)
+    table, m = stack.table(), _metrics(BROAD, 61)
+    vp = np.array([m["peak_voltage_v"]])
+    v_after, v_stop = vp + 2e-3, vp + 5e-3
+    j_after = current_at_bias(table, v_after[:, None], model=stack.model)[:, 0]
+    g, sol = _solve_at(table, vp[:, None], stack.model)
+    ends = (np.array([m["valley_voltage_v"]]), v_stop)
+    _, _, window, reached = _up_branch(
+        table, stack.model, EnergyGrid(), vp, v_after, j_after, ends, peak=(g.center_nm, sol)
+    )
+    assert reached[0] and window[0] == pytest.approx(5e-3)
+    assert _metrics(BROAD, 61)["bistable_window_to_sweep_end"] == 0.0

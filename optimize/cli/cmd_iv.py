@@ -262,8 +262,8 @@ def run(args) -> int:
 
 
 def _at_least(m: dict) -> str:
-    """'at least ' where the bistable window reaches the valley (a lower bound)."""
-    return "at least " if m.get("bistable_window_to_valley") == 1.0 else ""
+    """'at least ' where the bistable window reaches the sweep's end (a lower bound)."""
+    return "at least " if m.get("bistable_window_to_sweep_end") == 1.0 else ""
 
 
 def _print_added_biases(computed: np.ndarray, bias: np.ndarray) -> None:

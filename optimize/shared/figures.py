@@ -280,7 +280,7 @@ def _bistable_note(m: dict) -> str:
     if not (m.get("bistable_window_v") or 0.0) > 0.0:
         return ""
     return (
-        f"\nbistable over {'≥' if m.get('bistable_window_to_valley') == 1.0 else ''}"
+        f"\nbistable over {'≥' if m.get('bistable_window_to_sweep_end') == 1.0 else ''}"
         f"{m['bistable_window_v'] * 1e3:.2g} mV past the peak\n(up sweep's "
         f"peak {m['peak_current_density_up_a_cm2'] / 1e3:.3g} kA/cm²)"
     )

@@ -99,14 +99,14 @@ QUANTITIES: dict[str, Quantity] = {
     "bistable_window_v": Quantity(
         "bistable window past the peak", "mV", 1e3, ".1f", 0.01, "0: single-valued"
     ),
-    "bistable_window_to_valley": Quantity(
-        "bistable window reaching the valley",
+    "bistable_window_to_sweep_end": Quantity(
+        "bistable window reaching the sweep's end",
         "",
         1.0,
         ".0f",
         1.0,
-        "1: the charged branch still holds at the valley, where the check stops; the window "
-        "is a lower bound",
+        "1: the charged branch still holds at the last bias computed, where the check stops; "
+        "the window is a lower bound",
     ),
     # device quantities of a mesa ([device] area_um2)
     "peak_current_ma": Quantity("peak current", "mA", 1.0, ".3g"),
