@@ -1019,16 +1019,16 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_ends, *, peak, s
     return best_v, best_j, np.where(bistable, v_hi - v_start, 0.0), bistable & (v_hi >= v_end)
 
 
-def _continued_solve(table, start_cm2, v_valley, v, state, need=None, *, sign, options):
+def _continued_solve(table, start_cm2, v_valley, v, state, need, *, sign, options):
     """Solve at ``|V|`` ``v`` from ``state`` (:func:`_up_branch`'s step): the grid, the solution
-    and the stacks that left the charged branch. With ``need`` (the stacks whose step counts),
+    and the stacks that left the charged branch. Of the stacks whose step counts (``need``),
     a stack has left it where its well charge falls below :data:`FOLD_CHARGE_COLLAPSE` of its
     start's (``start_cm2``), whether its solve stops there or converges below, and past its
     valley ``v_valley`` also where the charge lies within that share of the single (cold)
     solve's there: past the valley the single solves' charge can rise again (the next
     resonance) and meet the branch, which then holds a charge without a second root (on 6 of
     58 bistable random stacks the branch went on 2-50 mV past the valley; DEVELOPERS.md)."""
-    abandon = None if need is None else FOLD_CHARGE_COLLAPSE * start_cm2
+    abandon = FOLD_CHARGE_COLLAPSE * start_cm2
     g, s = solve_stack_poisson(
         table,
         sign * v[:, None],
@@ -1037,11 +1037,9 @@ def _continued_solve(table, start_cm2, v_valley, v, state, need=None, *, sign, o
         abandon_below_cm2=abandon,
         **options,
     )
-    if abandon is None:
-        return g, s, np.zeros(v.size, bool)
     charge = np.asarray(s.well_sheet_cm2)[:, 0]
     left = charge <= abandon[:, 0]
-    past = np.nonzero(np.ravel(need) & ~left & (v > v_valley))[0]
+    past = np.nonzero(need & ~left & (v > v_valley))[0]
     if past.size:
         single = _single_charges(table.take(past), sign * v[past], options)
         left[past] = charge[past] - single <= abandon[past, 0]
