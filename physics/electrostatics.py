@@ -112,6 +112,9 @@ __all__ = [
 BARRIER_EV = 0.05
 #: Largest change of the potential of any node in one Newton step, eV.
 MAX_STEP_EV = 0.1
+#: The Poisson-Newton solve's convergence (largest update, eV) and its iteration limit.
+POISSON_TOLERANCE_EV = 1e-7
+POISSON_MAX_ITERATIONS = 60
 CONTACT_NM = 80.0
 #: Width of the contact-region slice next to the stack, nm; the slices grow outwards.
 CONTACT_SLICE_NM = 0.5
@@ -265,8 +268,8 @@ def solve_poisson_1d(
     left_ev: np.ndarray,
     right_ev: np.ndarray,
     initial_ev: np.ndarray,
-    tolerance_ev: float = 1e-7,
-    max_iterations: int = 60,
+    tolerance_ev: float = POISSON_TOLERANCE_EV,
+    max_iterations: int = POISSON_MAX_ITERATIONS,
     fixed_electron_cm3: np.ndarray | float = 0.0,
     max_step_ev: float = MAX_STEP_EV,
 ) -> PoissonSolution:
@@ -533,8 +536,8 @@ def solve_stack_poisson(
     contact_nm: float = CONTACT_NM,
     contact_slice_nm: float = CONTACT_SLICE_NM,
     initial_ev: np.ndarray | None = None,
-    tolerance_ev: float = 1e-7,
-    max_iterations: int = 60,
+    tolerance_ev: float = POISSON_TOLERANCE_EV,
+    max_iterations: int = POISSON_MAX_ITERATIONS,
     well_charge: bool = True,
     initial_well_cm2: np.ndarray | None = None,
     max_well_iterations: int = 60,
@@ -598,7 +601,7 @@ def solve_stack_poisson(
     )
     right, fermi = setup.contacts(bias)
     if initial_ev is None:
-        initial_ev = right[:, :, None] * setup.frac[:, None, :]
+        initial_ev = setup.linear_drop(right)
     poisson = setup.poisson
     well = (
         np.zeros(bias.shape)
@@ -651,6 +654,11 @@ class _SolveSetup:
             (self.mu_e[:, None] - bias)[:, :, None],
         )
         return right, fermi
+
+    def linear_drop(self, right: np.ndarray) -> np.ndarray:
+        """The potential falling linearly to the collector's ``right`` ``(n_stacks, n_biases)``
+        (the solve's default start), ``(n_stacks, n_biases, n_nodes)``, eV."""
+        return right[:, :, None] * self.frac[:, None, :]
 
 
 #: The well-charge step keeps its per-shape arrays (:class:`_WellChargeStep`) for at most
@@ -1435,14 +1443,15 @@ def well_charge_residual_cm2(
     """
     setup = _solve_setup(
         table, slice_nm=slice_nm, contact_nm=CONTACT_NM, contact_slice_nm=CONTACT_SLICE_NM,
-        tolerance_ev=1e-7, max_iterations=60, max_step_ev=MAX_STEP_EV,
+        tolerance_ev=POISSON_TOLERANCE_EV, max_iterations=POISSON_MAX_ITERATIONS,
+        max_step_ev=MAX_STEP_EV,
     )  # fmt: skip
     if setup.target is None:
         raise ValueError("no stack of the table has a well")
     charge = np.broadcast_to(np.asarray(charge_cm2, float), (table.n_stacks, np.size(charge_cm2)))
     bias = np.full(charge.shape, float(bias_v))
     right, fermi = setup.contacts(bias)
-    solved = setup.poisson(right[:, :, None] * setup.frac[:, None, :], charge, fermi, right)
+    solved = setup.poisson(setup.linear_drop(right), charge, fermi, right)
     return setup.target(solved.potential_ev, bias) - charge
 
 

@@ -958,7 +958,6 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_ends, *, peak, s
         potential_on_grid,
     )
 
-    options = {"slice_nm": model.slice_nm}
     # the solve at v_start (the peak's, made for its band profile, or the sweep's, both of a
     # batch that may hold more stacks, so on a grid with more padding slices per layer):
     # carried to this batch's grid
@@ -973,7 +972,7 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_ends, *, peak, s
 
     v_valley, v_end = v_ends
     continued = functools.partial(
-        _continued_solve, table, sol.well_sheet_cm2, v_valley, sign=sign, options=options
+        _continued_solve, table, sol.well_sheet_cm2, v_valley, sign=sign, model=model
     )
 
     each = functools.partial(  # each stack alone, where a solve of the batch fails
@@ -1019,13 +1018,13 @@ def _up_branch(table, model, grid, v_start, v_after, j_after, v_ends, *, peak, s
     return best_v, best_j, np.where(bistable, v_hi - v_start, 0.0), bistable & (v_hi >= v_end)
 
 
-def _continued_solve(table, start_cm2, v_valley, v, state, need, *, sign, options):
+def _continued_solve(table, start_cm2, v_valley, v, state, need, *, sign, model):
     """Solve at ``|V|`` ``v`` from ``state`` (:func:`_up_branch`'s step): the grid, the solution
     and the stacks that left the charged branch. Of the stacks whose step counts (``need``),
     a stack has left it where its well charge falls below :data:`FOLD_CHARGE_COLLAPSE` of its
     start's (``start_cm2``), whether its solve stops there or converges below, and past its
-    valley ``v_valley`` also where the charge lies within that share of the single (cold)
-    solve's there: past the valley the single solves' charge can rise again (the next
+    valley ``v_valley`` also where the charge lies within that share of the single solve's
+    there (:func:`_solve_at`, as the sweep's; a stack whose single solve fails counts as off): past the valley the single solves' charge can rise again (the next
     resonance) and meet the branch, which then holds a charge without a second root (on 6 of
     58 bistable random stacks the branch went on 2-50 mV past the valley; DEVELOPERS.md)."""
     abandon = FOLD_CHARGE_COLLAPSE * start_cm2
@@ -1035,27 +1034,22 @@ def _continued_solve(table, start_cm2, v_valley, v, state, need, *, sign, option
         initial_ev=state.potential_ev,
         initial_well_cm2=state.well_sheet_cm2,
         abandon_below_cm2=abandon,
-        **options,
+        slice_nm=model.slice_nm,
     )
     charge = np.asarray(s.well_sheet_cm2)[:, 0]
     left = charge <= abandon[:, 0]
     past = np.nonzero(need & ~left & (v > v_valley))[0]
     if past.size:
-        single = _single_charges(table.take(past), sign * v[past], options)
-        left[past] = charge[past] - single <= abandon[past, 0]
+        from .electrostatics import ElectrostaticsConvergenceError
+
+        try:
+            single = np.asarray(
+                _solve_at(table.take(past), sign * v[past, None], model)[1].well_sheet_cm2
+            )
+        except ElectrostaticsConvergenceError:
+            single = np.full((past.size, 1), np.inf)
+        left[past] = charge[past] - single[:, 0] <= abandon[past, 0]
     return g, s, left
-
-
-def _single_charges(table, bias_v, options) -> np.ndarray:
-    """The single (cold) solves' well charges, one bias per stack, cm^-2 (inf where a solve
-    fails: the step then counts as off the branch)."""
-    from .electrostatics import ElectrostaticsConvergenceError
-
-    try:
-        _, solution = solve_stack_poisson(table, bias_v[:, None], **options)
-    except ElectrostaticsConvergenceError:
-        return np.full(bias_v.size, np.inf)
-    return np.asarray(solution.well_sheet_cm2)[:, 0]
 
 
 @dataclass
@@ -1521,7 +1515,7 @@ def _peak_figures(
     up = (vp, jp, np.zeros(rows.size), np.zeros(rows.size))
     if up_sweep and peak_solution is not None and after is not None:
         # the last bias computed of each stack (the sweep's or its extension's)
-        v_stop = np.array([np.max(v_abs[np.isfinite(j_side[r])]) for r in rows])
+        v_stop = np.max(np.where(np.isfinite(j_side[rows]), v_abs, -np.inf), axis=1)
         up = _up_sweep_peaks(
             peaked,
             model,
