@@ -53,6 +53,9 @@
  *   node_arguments(...), node_fluxes(...)
  * the scattering channel's couplings and reservoir fluxes at its energy nodes
  * (physics/scattering.py: _couplings, _reservoir_fluxes) around numpy's exp, arctan, tanh.
+ *   well_shots(n_slices, n_states, hb2, energy, par, edge, mass, width, out)
+ * psi shot through the well at each state's energy: the slopes -dE_n/dz at the well's
+ * interfaces and the kinetic energy in the well (physics/scattering.py, _well_shots).
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
@@ -1525,23 +1528,24 @@ done:
     return result;
 }
 
-/* ---- the well's interface slopes (physics/scattering.py: _interface_slopes_ev_nm) ----
+/* ---- shots through the well (physics/scattering.py: _well_shots) ----
    -dE_n/dz_i at the well's two interfaces from psi shot through the well's slices at E_n
-   from each interface in turn,
+   from each interface in turn, and the state's kinetic energy <E_n - U> in the well,
    the same arithmetic as the numpy statement (which stays the reference and the fallback;
    a test compares the two). par per entry: first, last (well slices), has, U_b1, m_b1,
    U_b2, m_b2. */
 enum { S_FIRST, S_LAST, S_HAS, S_UB1, S_MB1, S_UB2, S_MB2, SLOPE_P };
 
 /* -dE/dz at the interface a shot starts from: psi shot through the slices s0, s0 + step, ...
-   (count of them) from that interface's barrier (U_a, m_a) towards the other's (U_b, m_b) */
+   (count of them) from that interface's barrier (U_a, m_a) towards the other's (U_b, m_b);
+   and that psi's <E_n - U> over the well into *kinetic */
 static double shot_slope(double e_n, double hb2, const double *er, const double *mr,
                          const double *wr, Py_ssize_t s0, Py_ssize_t step, Py_ssize_t count,
-                         double u_a, double m_a, double u_b, double m_b)
+                         double u_a, double m_a, double u_b, double m_b, double *kinetic)
 {
     const double k1 = sqrt(m_a * max_numpy(u_a - e_n, 1e-3) / hb2);
     const double k2 = sqrt(m_b * max_numpy(u_b - e_n, 1e-3) / hb2);
-    double psi = 1.0, flux = k1 / m_a, norm = 0.5 / k1;
+    double psi = 1.0, flux = k1 / m_a, norm = 0.5 / k1, in_well = 0.0, kin = 0.0;
     for (Py_ssize_t i = 0; i < count; i++) {
         const Py_ssize_t s = s0 + i * step;
         const double d = wr[s], m = mr[s];
@@ -1555,19 +1559,25 @@ static double shot_slope(double e_n, double hb2, const double *er, const double 
         const double odd = fabs(x2) < 1e-3 ? d * d * d * (1.0 / 3.0 - x2 / 15.0)
                                            : (d - sn * c) / (2.0 * k2s);
         const double slope = m * flux;
-        norm += psi * psi * 0.5 * (d + sn * c) + slope * slope * odd + psi * slope * sn * sn;
+        const double piece = psi * psi * 0.5 * (d + sn * c) + slope * slope * odd +
+                             psi * slope * sn * sn;
+        norm += piece;
+        in_well += piece;
+        kin += piece * (e_n - er[s]);
         const double psi_next = c * psi + sn * slope;
         flux = (-k2s * sn * psi + c * slope) / m;
         psi = psi_next;
     }
     norm += psi * psi * 0.5 / k2;
+    *kinetic = kin / (in_well > 0.0 ? in_well : 1.0);
     return ((e_n - er[s0]) + mr[s0] / m_a * (u_a - e_n)) / norm;
 }
 
-static void interface_slopes(Py_ssize_t n_rows, Py_ssize_t n_slices, Py_ssize_t n_states,
-                             double hb2, const double *energy, const double *par,
-                             const double *edge, const double *mass, const double *width,
-                             double *out)
+/* per state: the two interface slopes and the kinetic energy of the shot from the interface
+   whose well slice lies higher (physics/scattering.py, _well_shots) */
+static void well_shots(Py_ssize_t n_rows, Py_ssize_t n_slices, Py_ssize_t n_states, double hb2,
+                       const double *energy, const double *par, const double *edge,
+                       const double *mass, const double *width, double *out)
 {
     for (Py_ssize_t r = 0; r < n_rows; r++) {
         const double *p = par + r * SLOPE_P;
@@ -1577,16 +1587,18 @@ static void interface_slopes(Py_ssize_t n_rows, Py_ssize_t n_slices, Py_ssize_t 
         const Py_ssize_t count = p[S_HAS] != 0.0 ? last - first + 1 : 0;
         for (Py_ssize_t l = 0; l < n_states; l++) {
             const double e_n = energy[r * n_states + l];
-            double *o = out + 2 * (r * n_states + l);
+            double *o = out + 3 * (r * n_states + l);
+            double kin_a, kin_b;
             o[0] = shot_slope(e_n, hb2, er, mr, wr, first, 1, count, p[S_UB1], p[S_MB1], p[S_UB2],
-                              p[S_MB2]);
+                              p[S_MB2], &kin_a);
             o[1] = shot_slope(e_n, hb2, er, mr, wr, last, -1, count, p[S_UB2], p[S_MB2], p[S_UB1],
-                              p[S_MB1]);
+                              p[S_MB1], &kin_b);
+            o[2] = er[first] >= er[last] ? kin_a : kin_b;
         }
     }
 }
 
-static PyObject *py_interface_slopes(PyObject *self, PyObject *args)
+static PyObject *py_well_shots(PyObject *self, PyObject *args)
 {
     Py_ssize_t n, n_states;
     double hb2;
@@ -1603,10 +1615,10 @@ static PyObject *py_interface_slopes(PyObject *self, PyObject *args)
     const Py_ssize_t rows = n > 0 ? n_values / n : 0;
     if (n <= 0 || n_states <= 0 || n_values % n != 0 || bm.len != be.len || bw.len != be.len ||
         bE.len != rows * n_states * (Py_ssize_t)sizeof(double) ||
-        bp.len != rows * SLOPE_P * (Py_ssize_t)sizeof(double) || bo.len != 2 * bE.len) {
+        bp.len != rows * SLOPE_P * (Py_ssize_t)sizeof(double) || bo.len != 3 * bE.len) {
         PyErr_SetString(PyExc_ValueError,
                         "edge, mass, width: rows x n_slices float64; energy: rows x n_states;"
-                        " par: rows x 7; out: rows x n_states x 2");
+                        " par: rows x 7; out: rows x n_states x 3");
         goto done;
     }
     for (Py_ssize_t r = 0; r < rows; r++) {
@@ -1617,7 +1629,7 @@ static PyObject *py_interface_slopes(PyObject *self, PyObject *args)
             goto done;
         }
     }
-    interface_slopes(rows, n, n_states, hb2, bE.buf, bp.buf, be.buf, bm.buf, bw.buf, bo.buf);
+    well_shots(rows, n, n_states, hb2, bE.buf, bp.buf, be.buf, bm.buf, bw.buf, bo.buf);
     result = Py_None;
     Py_INCREF(result);
 done:
@@ -1688,10 +1700,11 @@ static PyMethodDef methods[] = {
      "node_fluxes(k, hb2, par, both, steps, ex_val, at_val, th_val, flux_l, flux_r)\n\n"
      "The channel's couplings and reservoir fluxes at its energy nodes from the values of"
      " those functions (physics.scattering._couplings and _reservoir_fluxes, bit for bit)."},
-    {"interface_slopes", py_interface_slopes, METH_VARARGS,
-     "interface_slopes(n_slices, n_states, hb2, energy, par, edge, mass, width, out)\n\n"
-     "-dE_n/dz at the well's two interfaces (physics.scattering._interface_slopes_ev_nm): out"
-     " (rows, n_states, 2) from the states' energies (rows, n_states), par (rows, 7: first,"
+    {"well_shots", py_well_shots, METH_VARARGS,
+     "well_shots(n_slices, n_states, hb2, energy, par, edge, mass, width, out)\n\n"
+     "-dE_n/dz at the well's two interfaces and <E_n - U> in the well"
+     " (physics.scattering._well_shots): out"
+     " (rows, n_states, 3) from the states' energies (rows, n_states), par (rows, 7: first,"
      " last, has, U_b1, m_b1, U_b2, m_b2) and the slices' edge, mass, width (rows, n)."},
     {NULL, NULL, 0, NULL},
 };

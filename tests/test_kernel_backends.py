@@ -416,9 +416,9 @@ def test_compiled_barrier_action_agrees(seed: int) -> None:
 
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
-def test_compiled_interface_slopes_agree(seed: int) -> None:
-    # -dE_n/dz_i of the roughness width (physics/scattering.py, _interface_slopes_ev_nm)
-    # compiled and in numpy on random wells (tilted, with deep and classically forbidden
+def test_compiled_well_shots_agree(seed: int) -> None:
+    # -dE_n/dz_i of the roughness width and the states' kinetic energy in the well
+    # (physics/scattering.py, _well_shots) compiled and in numpy on random wells (tilted, with deep and classically forbidden
     # slices, a zero-width padding slice, an entry without a well) and energies: the same
     # arithmetic, equal to 1e-12 (cos, sin, cosh, sinh are the C library's, not numpy's)
     from wellwright.physics import scattering as sc
@@ -438,15 +438,17 @@ def test_compiled_interface_slopes_agree(seed: int) -> None:
     ones = np.ones_like(edge)
     geo = sc._geometry(edge, mass, width, barrier, 0.036 * ones, 10.9 * ones, 12.9 * ones)
     energy = rng.uniform(-0.1, 0.5, batch + (2,))
-    assert sc.compiled_kernel("interface_slopes") is not None
-    got = sc._interface_slopes_ev_nm(energy, geo, edge=edge, mass=mass, width=width)
-    ref = sc._interface_slopes_ev_nm(energy, geo, edge=edge, mass=mass, width=width, compiled=False)
-    assert got.shape == batch + (2, 2) and np.all(np.isfinite(got))
-    np.testing.assert_allclose(got, ref, rtol=1e-12, atol=0)
+    assert sc.compiled_kernel("well_shots") is not None
+    got = sc._well_shots(energy, geo, edge=edge, mass=mass, width=width)
+    ref = sc._well_shots(energy, geo, edge=edge, mass=mass, width=width, compiled=False)
+    assert got[0].shape == batch + (2, 2) and got[1].shape == batch + (2,)
+    for a, b in zip(got, ref, strict=True):
+        assert np.all(np.isfinite(a))
+        np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-15)
     bad = np.zeros(n)
     with pytest.raises(ValueError, match="par"):
-        kernel._slices.interface_slopes(n, 1, 1.0, np.zeros(1), np.zeros(6), bad, bad, bad,
-                                        np.zeros(2))  # fmt: skip
+        kernel._slices.well_shots(n, 1, 1.0, np.zeros(1), np.zeros(6), bad, bad, bad,
+                                  np.zeros(3))  # fmt: skip
 
 
 @pytest.mark.parametrize("study", ["inp_thz_oscillator.toml", "gaas_low_power_memory.toml"])
