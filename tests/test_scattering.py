@@ -610,9 +610,7 @@ def test_interface_slope_is_the_finite_well_levels_derivative(width_nm, depth_ev
     ) / (2 * h)
     barrier = (depth_ev, m_b, 10.0)
     geo, edge, mass, width = _well_geometry([barrier, (0.0, m_w, width_nm), barrier])
-    got = scattering._well_shots(
-        np.array([[level]]), geo, edge=edge, mass=mass, width=width
-    )[0]
+    got = scattering._well_shots(np.array([[level]]), geo, edge=edge, mass=mass, width=width)[0]
     np.testing.assert_allclose(got[0, 0], [slope, slope], rtol=1e-6)
 
 
@@ -648,9 +646,7 @@ def test_interface_slope_of_a_well_with_an_insert():
             wider[i][2] += h
             expect.append(-(lowest(wider) - level) / h)
         geo, edge, mass, width = _well_geometry(layers)
-        got = scattering._well_shots(
-            np.array([[level]]), geo, edge=edge, mass=mass, width=width
-        )[0]
+        got = scattering._well_shots(np.array([[level]]), geo, edge=edge, mass=mass, width=width)[0]
         np.testing.assert_allclose(got[0, 0], expect, rtol=0.01)
 
 
@@ -695,9 +691,7 @@ def test_interface_slope_over_random_wells(seed):
         -(lowest(layers(extra_right=h)) - level) / h,
     ]
     geo, edge, mass, width = _well_geometry(base)
-    got = scattering._well_shots(
-        np.array([[level]]), geo, edge=edge, mass=mass, width=width
-    )[0]
+    got = scattering._well_shots(np.array([[level]]), geo, edge=edge, mass=mass, width=width)[0]
     np.testing.assert_allclose(got[0, 0], expect, rtol=0.015)
 
 
