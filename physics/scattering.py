@@ -383,14 +383,8 @@ def _well_shots(energy_ev, geo, *, edge, mass, width, compiled=True):
     the virial theorem of a triangular well (tests)."""
     n = edge.shape[-1]
     edge, mass, width = np.broadcast_arrays(edge, mass, width)
-    well = np.broadcast_to(geo.well, edge.shape)
-    first = np.argmax(well, axis=-1)
-    last = n - 1 - np.argmax(well[..., ::-1], axis=-1)
-    has = np.broadcast_to(geo.has, first.shape) & well.any(axis=-1)
-    ends = [np.broadcast_to(a, first.shape) for a in (first, last, has)]
-    ends += [geo.edge_at[..., 1], geo.mass_at[..., 1], geo.edge_at[..., 2], geo.mass_at[..., 2]]
-    par = np.stack(np.broadcast_arrays(*ends), axis=-1).astype(float)
-    energy = np.ascontiguousarray(np.broadcast_to(energy_ev, first.shape + energy_ev.shape[-1:]))
+    par = np.broadcast_to(geo.shot_par, edge.shape[:-1] + (7,))
+    energy = np.ascontiguousarray(np.broadcast_to(energy_ev, par.shape[:-1] + energy_ev.shape[-1:]))
     routine = compiled_kernel("well_shots") if compiled else None
     if routine is None:
         return _shoot_through_well(energy, par, edge, mass, width)
@@ -507,6 +501,9 @@ class _Geometry:
     #: the real slices just outside the barriers (before outer1, after outer2)
     edge_at: np.ndarray
     mass_at: np.ndarray
+    #: (..., 7) the rows of the well shots (_well_shots): the well's first and last slice,
+    #: whether it has one, band edge and mass of the barrier slices next to it
+    shot_par: np.ndarray
 
 
 def _take_last(index, *arrays):
@@ -583,6 +580,15 @@ def _layout(mass, width, barrier, shape, per_stack) -> dict:
         "outer2": full(i2),
         "well_nm": full(well_nm),
         "well_mass_m0": full((w * mass).sum(axis=-1) / safe),
+        # the well's first and last slice and whether there is one, as _well_shots reads them
+        "shot_ends": [
+            full(a.astype(float))
+            for a in (
+                np.argmax(well, axis=-1),
+                n - 1 - np.argmax(well[..., ::-1], axis=-1),
+                has & well.any(axis=-1),
+            )
+        ],
     }
     for value in out.values():
         for a in value if isinstance(value, list) else [value]:
@@ -631,6 +637,16 @@ def _geometry(
         permittivity_r=phonon_at[2][..., 0],
         edge_at=edge_at,
         mass_at=mass_at,
+        shot_par=np.stack(
+            np.broadcast_arrays(
+                *lay["shot_ends"],
+                edge_at[..., 1],
+                mass_at[..., 1],
+                edge_at[..., 2],
+                mass_at[..., 2],
+            ),
+            axis=-1,
+        ),
     )
 
 
