@@ -490,7 +490,6 @@ class _Geometry:
     inner2: np.ndarray  #: index of the second barrier's first slice
     outer2: np.ndarray  #: index of the second barrier's last slice
     well: np.ndarray  #: (..., n) slices of the well
-    well_edge_ev: np.ndarray  #: width-weighted mean band edge of the well
     well_bottom_ev: np.ndarray
     well_nm: np.ndarray
     well_mass_m0: np.ndarray
@@ -565,8 +564,6 @@ def _layout(mass, width, barrier, shape, per_stack) -> dict:
     near2 = np.min(np.where(real & (idx > i2[..., None]), idx, n - 1), axis=-1)
     out = {
         "well": well,
-        "w": w,
-        "safe": safe,
         "inner_ends": [full(i) for i in (i1, inner1, inner2, i2)],
         "outer_ends": [full(near1), full(near2)],
         "run1": full((idx >= i1[..., None]) & (idx < j1[..., None])),
@@ -613,7 +610,7 @@ def _geometry(
             a[..., :1, :] for a in (mass, width, barrier, phonon_ev, eps_high, eps_s)
         )
     lay = _layout(mass, width, barrier, shape, per_stack)
-    well, w = lay["well"], lay["w"]
+    well = lay["well"]
     bottom = np.argmin(np.where(well, edge, np.inf), axis=-1)  # the bias's own
     ends = lay["inner_ends"] + [bottom] + lay["outer_ends"]
     edge_at, mass_at = _take_last(np.stack(ends, axis=-1), edge, mass)
@@ -628,7 +625,6 @@ def _geometry(
         inner1=lay["inner1"],
         inner2=lay["inner2"],
         outer2=lay["outer2"],
-        well_edge_ev=(w * edge).sum(axis=-1) / lay["safe"],
         well_bottom_ev=edge_at[..., 4],
         well_nm=lay["well_nm"],
         well_mass_m0=lay["well_mass_m0"],
@@ -691,8 +687,9 @@ def _kinetic_ev(energy_ev, geo: _Geometry, *, edge, mass, width):
     continuous in the bias. Until 2026-12-05 it was ``E_n`` less the width-weighted mean
     edge of the slices where the state is classically allowed, which stepped as a tilted
     well's slices crossed ``E_n``: 2 % steps of the current every 4-5 mV on a 14 nm
-    GaAs/AlAs well at 309 K (seed 154, stack 35 of the grid scan; tested) and a 26 % step
-    where a self-consistent well's flat hump took ten slices at once (DEVELOPERS.md). The
+    GaAs/AlAs well at 309 K (seed 154, stack 35 of the grid scan; tested) and the channel's
+    current +47 % within 3 mV where a self-consistent well's flat hump took ten slices at
+    once (seed 128, stack 48; DEVELOPERS.md). The
     width is that of the classically allowed slices (where none is, the whole well's)."""
     allowed = geo.well[..., None, :] & (edge[..., None, :] < energy_ev[..., :, None])
     nm = np.where(allowed, width[..., None, :], 0.0).sum(axis=-1)
