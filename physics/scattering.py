@@ -215,8 +215,9 @@ Departures from [2]_, each stated:
    whose state is 0.6 meV wide, and its valley current fell 4.5 times) and where its
    kinetic energy in the well ``e_w`` is at least a quarter of the box energy
    ``hbar^2 pi^2 / (2 m_w w_eff^2)`` of the effective width (note 5): a state confined
-   to the well has about that much or more (uncertainty principle; measured 0.34-0.93
-   of it on the example stacks and the reference devices). Lower lines are small
+   to the well has about that much or more (uncertainty principle; measured 0.32-0.93
+   of it on the example stacks and the reference devices with the state's own kinetic
+   energy, 0.34-0.93 with the earlier one). Lower lines are small
    maxima of the probe's ``T`` that no state of the well makes (a wide scan of random
    stacks found them 0.01-0.03 of it above a tilted or narrow well's bottom); taken as
    the lowest state, they switched the channel off and on between neighbouring biases,
@@ -308,7 +309,7 @@ __all__ = [
 #: A layer whose band edge lies this far above the emitter's (at zero bias) is a barrier.
 BARRIER_MIN_EV = 0.05
 #: A line counts as a state of the well only where its kinetic energy in the well is at
-#: least this share of the box energy of ``w_eff`` (module note 6; measured 0.34-0.93 on
+#: least this share of the box energy of ``w_eff`` (module note 6; measured 0.32-0.93 on
 #: the example stacks and the reference devices)
 CONFINED_SHARE = 0.25
 #: A state takes its rates in full where ``T`` dips below this share of its line's peak on
