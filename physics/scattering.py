@@ -288,6 +288,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from functools import lru_cache
+from typing import NamedTuple
 
 import numpy as np
 
@@ -680,9 +681,17 @@ def _i0e_of_values(x):
     return np.array([_I0E_VALUES[v] for v in values.tolist()])[where.reshape(-1)].reshape(x.shape)
 
 
-def _kinetic_ev(energy_ev, geo: _Geometry, *, edge, mass, width):
+class _InWell(NamedTuple):
+    """What :func:`_kinetic_ev` returns per state, ``(..., L)``."""
+
+    e_w_ev: np.ndarray  #: kinetic energy in the well, eV (floored at 5 meV)
+    allowed_nm: np.ndarray  #: the well's width the state spreads over, nm
+    slopes: np.ndarray  #: ``-dE_n/dz_i`` at the well's two interfaces, :func:`_well_shots`
+
+
+def _kinetic_ev(energy_ev, geo: _Geometry, *, edge, mass, width) -> _InWell:
     """A state's kinetic energy in the well ``e_w`` (eV, floored at 5 meV), the well's width
-    it spreads over (nm), both ``(..., L)``, and the slopes of :func:`_well_shots`.
+    it spreads over (nm) and the slopes of :func:`_well_shots` (:class:`_InWell`).
 
     ``e_w`` is ``<E_n - U>`` over the state's ``|psi|^2`` in the well (:func:`_well_shots`),
     continuous in the bias. Until 2026-12-05 it was ``E_n`` less the width-weighted mean
@@ -695,10 +704,8 @@ def _kinetic_ev(energy_ev, geo: _Geometry, *, edge, mass, width):
     allowed = geo.well[..., None, :] & (edge[..., None, :] < energy_ev[..., :, None])
     nm = np.where(allowed, width[..., None, :], 0.0).sum(axis=-1)
     slopes, kinetic = _well_shots(energy_ev, geo, edge=edge, mass=mass, width=width)
-    return (
-        np.maximum(kinetic, 5e-3),
-        np.where(nm > 0, nm, np.asarray(geo.well_nm)[..., None]),
-        slopes,
+    return _InWell(
+        np.maximum(kinetic, 5e-3), np.where(nm > 0, nm, np.asarray(geo.well_nm)[..., None]), slopes
     )
 
 
@@ -771,21 +778,21 @@ def scattering_widths_ev(energy_ev, geo: _Geometry, *, edge, mass, width, kineti
     edge, mass, width
         Band edge (eV), mass (m0) and width (nm) of the oriented profile's slices, ``(..., n)``.
     kinetic
-        The states' ``e_w``, well width and interface slopes, :func:`_kinetic_ev`.
+        The states' ``e_w``, well width and interface slopes (:func:`_kinetic_ev`).
     kt_ev
         Thermal energy kT, eV, ``(...)``.
     params
         Channel settings.
     """
     ex = lambda a: np.asarray(a)[..., None]  # noqa: E731
-    e_w = kinetic[0]
+    e_w = kinetic.e_w_ev
     top1 = ex(geo.edge_at[..., 1]) - energy_ev
     m_w = ex(geo.well_mass_m0)
     kt = ex(kt_ev)
     lam, delta = params.roughness_length_nm, params.roughness_height_nm
     m_over_hbar2 = m_w / (2.0 * HBAR2_2M0_EV_NM2)  # m / hbar^2, 1/(eV nm^2)
     angle = _i0e_of_values(m_over_hbar2 * kt * lam**2)
-    slopes = kinetic[2]
+    slopes = kinetic.slopes
     gamma_ifr = np.pi * m_over_hbar2 * delta**2 * lam**2 * angle * (slopes**2).sum(axis=-1)
     floor2 = non_resonant_floor2_ev2(np.maximum(top1, 1e-3), e_w)
     hw = ex(geo.lo_phonon_ev)
@@ -1191,7 +1198,7 @@ def _state_widths(
         "floor2": floor2,
         "bose": bose,
         "hw": geo.lo_phonon_ev[..., None] * np.ones_like(e_n),
-        "e_w": kinetic[0],
+        "e_w": kinetic.e_w_ev,
         # q^2 Lambda^2 / 4 per eV of lateral energy gained (note 2)
         "lateral_per_ev": (geo.well_mass_m0[..., None] / (2.0 * HBAR2_2M0_EV_NM2))
         * 0.5
