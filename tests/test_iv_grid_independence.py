@@ -562,42 +562,38 @@ def test_a_sharp_valley_beside_the_cliff_is_zoomed_into() -> None:
 
 def test_a_peak_just_past_a_collapse_of_the_well_charge_is_zoomed_to_the_collapse() -> None:
     """Where the current jumps up as the well's charge collapses and then falls steeply on
-    the discharged branch (about 60 A/cm^2, 0.12 %, per uV past the collapse), the peak is
-    the current just past the collapse, and the zoom goes on to REFINE_JUMP_TOLERANCE_V
-    there. Invented InP/In0.52Al0.48As stack (rounded from seed 131 of the grid-independence
-    scan, stack 46; 347 K, 4.42 and 6.58 nm barriers, a 4.79 nm well, contacts 1.3e18
-    cm^-3). Reference: the same model's current 1 nV past the collapse, which single solves'
-    well charge locates by bisection to 1 nV. Checked: Jp on 61 and 241 biases within 0.1 %
-    of it (measured after: within 0.03 %; before, 0.5 % low on every grid, 49001 against
-    49250 A/cm^2; on the scan's own stack 61 to 481 biases gave Jp 1.4 % apart, 0.5 % now,
-    the rest the single solves' choice of branch within 2 uV of the collapse)."""
+    the discharged branch (about 60 A/cm^2, 0.12 %, per uV past the collapse), staying above
+    the current before the collapse for longer than SPIKE_MIN_WIDTH_V, the peak is the
+    current just past the collapse, and the zoom goes on to REFINE_JUMP_TOLERANCE_V there.
+    Draw 46 of ``random_stack`` seed 131 (invented InP/In0.52Al0.48As stack, 347 K, 4.42 and
+    6.58 nm barriers, a 4.79 nm well, contacts 1.3e18 cm^-3, forward bias to 1.01 V): the
+    current jumps from 48552 to 50230 A/cm^2 at 0.25814 V and stays above 48552 for 80 uV.
+    Reference: the same model's current 1 nV past the collapse, which single solves' well
+    charge locates by bisection to 1 nV. Checked: Jp on 61 and 241 biases within 0.5 % of it
+    (measured: 61 to 481 biases within 0.4 %, the rest the single solves' choice of branch
+    within a few uV of the collapse; before the zoom to the collapse, 61 to 481 biases 1.4 %
+    apart). Until 2026-12-05 this test took a copy with rounded layers, whose discharged
+    branch stays above the current before the collapse for 37 uV only: its peak is now that
+    current (test_a_spike_narrower_than_the_zoom_past_a_jump_of_the_charge_is_not_the_peak)."""
     from wellwright.physics.electrostatics import solve_stack_poisson
 
-    stack = _invented(
-        347.0,
-        "InP",
-        ("emitter", "InP", {"doping_cm3": 1.3e18}),
-        ("spacer1", "InP", {"thickness_nm": 4.53}),
-        ("barrier1", "In0.52Al0.48As", {"thickness_nm": 4.42}),
-        ("well", "InP", {"thickness_nm": 4.79}),
-        ("barrier2", "In0.52Al0.48As", {"thickness_nm": 6.58}),
-        ("spacer2", "InP", {"thickness_nm": 3.98}),
-        ("collector", "InP", {"doping_cm3": 1.3e18}),
-    )
+    stack, end_v, _ = _scan_draw(131, 46)
     table = stack.table()
 
     def charge(v: float) -> float:
         return float(solve_stack_poisson(table, np.array([v]))[1].well_sheet_cm2[0, 0])
 
-    lo, hi = 0.2590, 0.2600  # charged at lo, collapsed at hi (measured: 2.1e11 and 1.6e10)
+    lo, hi = 0.2581, 0.2583  # charged at lo, collapsed at hi (measured: 2.0e11 and 8.7e9)
     assert charge(lo) > 1e11 > charge(hi)
     while hi - lo > 1e-9:
         mid = 0.5 * (lo + hi)
         lo, hi = (mid, hi) if charge(mid) > 1e11 else (lo, mid)
     limit = current_at_bias(table, np.array([hi + 1e-9]), model=stack.model)[0][0]
-    coarse, fine = _on_61_and_241(stack, 1.01)
+    before = current_at_bias(table, np.array([lo]), model=stack.model)[0][0]
+    assert limit > 1.02 * before  # the current jumps up at the collapse
+    coarse, fine = _on_61_and_241(stack, end_v)
     for m in (coarse, fine):
-        assert m["peak_current_density_a_cm2"] == pytest.approx(limit, rel=1e-3)
+        assert m["peak_current_density_a_cm2"] == pytest.approx(limit, rel=5e-3)
         assert m["peak_voltage_v"] == pytest.approx(hi, abs=V_ATOL)
 
 
@@ -768,3 +764,37 @@ def test_a_window_that_reaches_the_last_bias_computed_says_so() -> None:
     )
     assert reached[0] and window[0] == pytest.approx(5e-3)
     assert _metrics(BROAD, 61)["bistable_window_to_sweep_end"] == 0.0
+
+
+def test_a_spike_narrower_than_the_zoom_past_a_jump_of_the_charge_is_not_the_peak() -> None:
+    """Where the single solves jump to a low-charge root of the well-charge equation as it is
+    born (the current jumps up) and the current on it falls below the current before the jump
+    within SPIKE_MIN_WIDTH_V (40 uV), the peak is the current before the jump. Draw 26 of
+    ``random_stack`` seed 151 (invented In0.53Ga0.47As/AlAs stack, 2.55 and 3.20 nm barriers,
+    a 13.67 nm well, 137 K, forward bias to 1.80 V): at 1.56412 V the current jumps from 4665
+    to about 5000 A/cm^2 and is below 4665 again within 4 uV; where that happens and how high
+    the spike is moved by 4 uV and 5 % with the well-charge iteration's tolerance. Before, 61
+    biases reported the spike (5043 A/cm^2) and 121 to 481 biases the current before the jump
+    (4665): 8 % apart. Reference: the same model's current on the charged side of the jump,
+    located by bisection of single solves' well charge to 1 nV. Checked: Jp on 61 and 241
+    biases within 1e-3 of it (measured after: within 6e-5) and Vp within 5 mV. A spike that
+    stays up longer is the peak
+    (test_a_peak_just_past_a_collapse_of_the_well_charge_is_zoomed_to_the_collapse: 80 uV)."""
+    from wellwright.physics.electrostatics import solve_stack_poisson
+
+    stack, end_v, _ = _scan_draw(151, 26)
+    table = stack.table()
+
+    def charge(v: float) -> float:
+        return float(solve_stack_poisson(table, np.array([v]))[1].well_sheet_cm2[0, 0])
+
+    lo, hi = 1.5640, 1.5643  # charged at lo, collapsed at hi (measured: 5.3e11 and 2.7e10)
+    assert charge(lo) > 1e11 > charge(hi)
+    while hi - lo > 1e-9:
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if charge(mid) > 1e11 else (lo, mid)
+    before = current_at_bias(table, np.array([lo]), model=stack.model)[0][0]
+    coarse, fine = _on_61_and_241(stack, end_v)
+    for m in (coarse, fine):
+        assert m["peak_current_density_a_cm2"] == pytest.approx(before, rel=1e-3)
+        assert m["peak_voltage_v"] == pytest.approx(lo, abs=V_ATOL)
