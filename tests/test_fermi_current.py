@@ -25,6 +25,7 @@ from scipy.integrate import quad, simpson
 from wellwright.physics.bands import Profile, linear_profile
 from wellwright.physics.current import EnergyGrid, current_density_a_cm2, supply_function_ev
 from wellwright.physics.fermi import (
+    _fermi_dirac_half_and_slope,
     effective_density_of_states_cm3,
     fermi_dirac_half,
     fermi_dirac_half_tabulated,
@@ -67,6 +68,20 @@ def test_fermi_dirac_half_against_mpmath_polylog() -> None:
     eta = np.concatenate([np.linspace(-10, 50, 31), [-50.0, -30.0, 100.0, 200.0]])
     ref = np.array([_mp_f_half(x) for x in eta])
     np.testing.assert_allclose(fermi_dirac_half(eta), ref, rtol=2e-12, atol=0)
+
+
+def test_fermi_dirac_half_and_slope_deep_in_the_degenerate_range() -> None:
+    # A contact at a few K lies at eta of 1e2-1e4. Reference: mpmath's polylog at 40 digits
+    # for F_1/2 and F_-1/2 (DLMF 25.12.16). Before 2026-12-05 the quadrature alone: 6e-8 off
+    # at eta = 1000, 1.3e-6 at 1560, 6e-6 at 5000 (measured); now 1e-12 (the Sommerfeld series
+    # above eta 200; measured: 2e-13 and 5e-13 just above 200, 1e-14 and less beyond).
+    eta = np.array([150.0, 199.9, 200.1, 300.0, 1000.0, 1560.0, 5000.0, 1e5])
+    with mpmath.workdps(40):
+        ref = [-mpmath.polylog(s, -mpmath.exp(x)) for x in eta.tolist() for s in (1.5, 0.5)]
+    ref = np.array([float(mpmath.re(r)) for r in ref]).reshape(-1, 2)
+    value, slope = _fermi_dirac_half_and_slope(eta)
+    np.testing.assert_allclose(value, ref[:, 0], rtol=1e-12, atol=0)
+    np.testing.assert_allclose(slope, ref[:, 1], rtol=1e-9, atol=0)  # 5e-10 at 199.9
 
 
 def test_fermi_dirac_half_limits() -> None:
@@ -229,6 +244,40 @@ def test_fermi_level_boltzmann_limit() -> None:
     kt = KB_EV_K * 300.0
     mu = fermi_level_ev(1e14, mass_m0=0.067, temperature_k=300.0)
     assert abs(mu - kt * np.log(1e14 / nc)) < 1.1 * kt * (1e14 / nc) / 2**1.5
+
+
+@pytest.mark.parametrize("temperature_k", [0.5, 1.0, 4.0, 10.0])
+def test_fermi_level_degenerate_limit_at_low_temperature(temperature_k: float) -> None:
+    # Free electron gas (Ashcroft and Mermin, Solid State Physics, eqs. 2.21 and 2.77, from
+    # memory): E_F = hbar^2 (3 pi^2 n)^(2/3) / 2m, and mu = E_F (1 - (pi^2/12) (kT/E_F)^2) to
+    # second order. At these temperatures a contact of 1e18-1e19 cm^-3 lies at eta of 100 to
+    # 20000; the level solve was bounded at eta = 300 until 2026-12-05 and held the InP
+    # example's emitter at 26 meV instead of 135 at 1 K. Bound: 1e-6 of E_F (the next order
+    # is (kT/E_F)^4, below 1e-9 here; the solve's own tolerance 1e-13 in eta; measured 2e-9 at most).
+    for n_cm3, mass in [(2e18, 0.043), (1e19, 0.067), (1e18, 0.023)]:
+        e_f = (sc.hbar**2 * (3 * np.pi**2 * n_cm3 * 1e6) ** (2 / 3)) / (2 * mass * sc.m_e * sc.e)
+        kt = KB_EV_K * temperature_k
+        expected = e_f * (1 - np.pi**2 / 12 * (kt / e_f) ** 2)
+        mu = fermi_level_ev(n_cm3, mass_m0=mass, temperature_k=temperature_k)
+        assert mu == pytest.approx(expected, rel=1e-6)
+
+
+def test_degenerate_emitter_current_hardly_changes_below_10_k() -> None:
+    # A degenerate emitter's supply changes with temperature by about (kT / E_F)^2 (the
+    # Sommerfeld expansion; common practice: RTD currents are flat from liquid helium to
+    # a few tens of K). The InP example (E_F 135 meV) with the linear coherent model: Jp at
+    # 1 K and at 8 K within 1 % (measured: 0.01 %; before 2026-12-05 the Fermi-level bound
+    # made it 18 kA/cm^2 at 1 K against 177 at 8 K).
+    stack = load_stack(STUDY)
+    model = replace(stack.model, electrostatics="linear", transport="coherent")
+    jp = {}
+    for t_k in (1.0, 8.0):
+        table = stack.table()
+        table = replace(table, temperature_k=np.full_like(table.temperature_k, t_k))
+        jp[t_k] = sweep(table, np.linspace(0.0, 0.8, 61), model=model).metrics_of(0)[
+            "peak_current_density_a_cm2"
+        ]
+    assert jp[1.0] == pytest.approx(jp[8.0], rel=1e-2)
 
 
 def test_effective_density_of_states_gaas() -> None:
