@@ -48,13 +48,20 @@ interpolated on the sweep grid.
 from __future__ import annotations
 
 import functools
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from .bands import linear_profile, profile_from_potential
-from .current import EnergyGrid, current_density_a_cm2
+from .current import (
+    LINE_WIDTH_FLOOR_EV,
+    EnergyGrid,
+    GridAccuracyWarning,
+    current_density_a_cm2,
+    resolved_current_floor_a_cm2,
+)
 from .device import DEVICE_METRIC_NAMES, device_figures
 from .electrostatics import self_consistent_profile, solve_stack_poisson
 from .islands import area_weight_matrix, island_mixture, mixed_current
@@ -334,7 +341,9 @@ def _bias_2d(bias_v, n_stacks: int) -> np.ndarray:
     )
 
 
-def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def locate_peak_valley(
+    bias_v: np.ndarray, current: np.ndarray, *, floor_a_cm2=None
+) -> tuple[np.ndarray, np.ndarray]:
     """Grid indices of the peak (the first clear NDR peak, module docstring) and its valley
     along increasing ``|V|``.
 
@@ -344,6 +353,9 @@ def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndar
         ``(n,)`` increasing biases on one side of zero (all >= 0 or all <= 0).
     current
         ``(n_stacks, n)`` current magnitudes.
+    floor_a_cm2
+        Optional ``(n_stacks,)``: a maximum below it is no peak
+        (:func:`physics.current.resolved_current_floor_a_cm2`).
 
     Returns
     -------
@@ -353,10 +365,11 @@ def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndar
     n_stacks, n = current.shape
     peak = np.full(n_stacks, -1)
     valley = np.full(n_stacks, -1)
+    floor = np.zeros(n_stacks) if floor_a_cm2 is None else np.asarray(floor_a_cm2, float)
     for s in range(n_stacks):  # per stack: short loop over a sweep, not over the physics
         j = current[s]
         for i in range(1, n - 1):
-            if not (j[i] >= j[i - 1] and j[i] > j[i + 1]):
+            if not (j[i] >= j[i - 1] and j[i] > j[i + 1]) or j[i] < floor[s]:
                 continue
             k = _lowest_after(j, i)
             if k is None:
@@ -367,6 +380,23 @@ def locate_peak_valley(bias_v: np.ndarray, current: np.ndarray) -> tuple[np.ndar
             if peak[s] < 0 and j[k] < (1.0 - NDR_DROP) * j[i]:
                 peak[s], valley[s] = i, k  # a weak NDR, kept unless a clear one follows
     return peak, valley
+
+
+def _warn_below_floor(j_side, peak, floor_a_cm2) -> None:
+    """A :class:`GridAccuracyWarning` where a stack has no peak and its sweep's largest
+    current lies below its resolved-current floor (every maximum was set aside there)."""
+    largest = np.max(np.abs(j_side), axis=1, initial=0.0)
+    low = (peak < 0) & (largest < floor_a_cm2)
+    if np.any(low):
+        warnings.warn(
+            GridAccuracyWarning(
+                f"the largest current of the sweep, {largest[low].max():.2g} A/cm^2, is below "
+                f"{floor_a_cm2[low].min():.2g} A/cm^2, what a line narrower than "
+                f"{LINE_WIDTH_FLOOR_EV:.0e} eV carries (the energy grid does not resolve such "
+                "lines): no peak or valley is reported"
+            ),
+            stacklevel=3,
+        )
 
 
 def higher_peak_beyond_valley(
@@ -1706,7 +1736,8 @@ def _look_between(curves: IVCurves, table: LayerTable, between: dict, **options)
         v = bias[order][sel]
         j = np.concatenate([curves.current_density_a_cm2[s], j_extra[mine].ravel()])
         j = sign * j[order][sel]
-        ip, iv = (i[0] for i in locate_peak_valley(np.abs(v), j[None, :]))
+        floor = resolved_current_floor_a_cm2(table.take([s]))
+        ip, iv = (i[0] for i in locate_peak_valley(np.abs(v), j[None, :], floor_a_cm2=floor))
         if (
             ip < 0
             or abs(v[ip]) > np.max(np.abs(ends[mine]))
@@ -1835,7 +1866,9 @@ def _sweep_on(
     sel, sign = branch
     v_side = bias[sel]
     j_side = sign * j[:, sel]
-    ip, iv = locate_peak_valley(np.abs(v_side), j_side)
+    floor = resolved_current_floor_a_cm2(table)
+    ip, iv = locate_peak_valley(np.abs(v_side), j_side, floor_a_cm2=floor)
+    _warn_below_floor(j_side, ip, floor)
     between = _hidden_collapse(solves, sel, v_side, ip) if look_between else {}
     has = ip >= 0
     if not np.any(has):

@@ -346,3 +346,59 @@ def test_a_higher_peak_beyond_the_first_valley_is_named() -> None:
     )
     # no NDR: nothing to compare with
     assert higher_peak_beyond_valley(v, j, peak_current_a_cm2=None, valley_voltage_v=None) is None
+
+
+def _gaas_alas(barrier_ml: int):
+    """An invented GaAs/AlAs stack: ``barrier_ml`` monolayer AlAs barriers, a 20 ML well,
+    contacts 1e18 cm^-3, 300 K, the linear drop and the coherent current."""
+    from wellwright.physics.stack import parse_stack
+
+    layers = [
+        ("emitter", "GaAs", {"doping_cm3": 1e18}),
+        ("spacer1", "GaAs", {"thickness_nm": 2.0}),
+        ("barrier1", "AlAs", {"thickness_ml": barrier_ml}),
+        ("well", "GaAs", {"thickness_ml": 20}),
+        ("barrier2", "AlAs", {"thickness_ml": barrier_ml}),
+        ("spacer2", "GaAs", {"thickness_nm": 5.0}),
+        ("collector", "GaAs", {"doping_cm3": 1e18}),
+    ]
+    data = {
+        "temperature_k": 300.0,
+        "substrate": "GaAs",
+        "model": {"electrostatics": "linear", "transport": "coherent"},
+        "layers": [{"name": n, "material": m, **k} for n, m, k in layers],
+    }
+    return parse_stack(data, source="invented")
+
+
+def test_currents_below_the_resolved_line_floor_make_no_peak() -> None:
+    """A maximum of the current below what a line of the energy grid's narrowest resolved
+    width (LINE_WIDTH_FLOOR_EV, 1e-13 eV) carries at full transmission is no peak. Floor:
+    Tsu and Esaki's integral over a Lorentzian line of full width W and peak 1, (pi/2) W (an
+    analytic integral), times the supply at the emitter's Fermi level, with CODATA
+    constants (scipy). Invented GaAs/AlAs stack with 40 ML barriers: its currents up to
+    0.6 V lie at 1e-15 to 1e-9 A/cm^2 and dropped out at some biases (found by a fuzz run:
+    a "peak" at 21 mV with PVCR 17 before); now no peak and a GridAccuracyWarning. The same
+    stack with 8 ML barriers (currents of kA/cm^2) keeps its peak."""
+    from scipy import constants as sc
+    from wellwright.physics.current import (
+        LINE_WIDTH_FLOOR_EV,
+        GridAccuracyWarning,
+        contact_fermi_levels_ev,
+        resolved_current_floor_a_cm2,
+    )
+
+    thick = _gaas_alas(40)
+    table = thick.table()
+    mu_e = contact_fermi_levels_ev(table)[0][0]
+    prefactor = sc.e**3 * sc.m_e / (2 * np.pi**2 * sc.hbar**3) * 1e-4  # A/cm^2/eV^2 per m0
+    expected = prefactor * table.mass_m0[0, 0] * 0.5 * np.pi * LINE_WIDTH_FLOOR_EV * mu_e
+    floor = resolved_current_floor_a_cm2(table)[0]
+    assert floor == pytest.approx(expected, rel=1e-6)
+    bias = np.linspace(0.0, 0.6, 61)
+    with pytest.warns(GridAccuracyWarning, match="no peak or valley"):
+        m = sweep(table, bias, model=thick.model).metrics_of(0)
+    assert m["peak_current_density_a_cm2"] is None and m["pvcr"] is None
+    thin = _gaas_alas(8)
+    m = sweep(thin.table(), bias, model=thin.model).metrics_of(0)
+    assert m["peak_current_density_a_cm2"] > 1e3 * resolved_current_floor_a_cm2(thin.table())[0]
