@@ -105,3 +105,50 @@ def test_the_axes_name_the_first_layer_for_what_it_is_at_the_bias() -> None:
     assert "collector" in reverse.get_ylabel() and "emitter" not in reverse.get_xlabel()
     assert "collector" in transmission_figure(stack, [-0.3]).axes[0].get_xlabel()
     assert "emitter" in transmission_figure(stack, [0.0, 0.3]).axes[0].get_xlabel()
+
+
+def test_the_band_diagram_names_the_lowest_levels_and_draws_them_in_their_wells() -> None:
+    # Invented InGaAs/AlAs stack of three 5 ML barriers and wells of 12 and 16 ML (a fuzz
+    # run's): the band diagram labelled a 550 meV line "E1" (the tallest four maxima of T
+    # were drawn) and drew every level across the middle barrier. Reference: the lowest
+    # maximum of T on a dense uniform grid of 20000 energies (the transmission itself, not
+    # the resonance search the figure uses), within 1 meV; each level drawn only over the
+    # wells, not over the middle barrier (below its top).
+    from wellwright.optimize.shared.figures import band_diagram_figure
+    from wellwright.physics.iv import band_profile
+    from wellwright.physics.transmission import transmission
+
+    layers = [("emitter", "In0.53Ga0.47As", {"doping_cm3": 2e18})]
+    layers += [("spacer1", "In0.53Ga0.47As", {"thickness_nm": 2.0})]
+    for name, material, ml in (
+        ("b1", "AlAs", 5),
+        ("w1", "In0.53Ga0.47As", 12),
+        ("b2", "AlAs", 5),
+        ("w2", "In0.53Ga0.47As", 16),
+        ("b3", "AlAs", 5),
+    ):
+        layers.append((name, material, {"thickness_ml": ml}))
+    layers += [("spacer2", "In0.53Ga0.47As", {"thickness_nm": 5.0})]
+    layers += [("collector", "In0.53Ga0.47As", {"doping_cm3": 2e18})]
+    stack = parse_stack(
+        {
+            "temperature_k": 300.0,
+            "substrate": "InP",
+            "model": FAST,
+            "layers": [{"name": n, "material": m, **k} for n, m, k in layers],
+        }
+    )
+    ax = band_diagram_figure(stack, 0.03).axes[0]
+    labels = {t.get_text().split(" = ")[0]: t for t in ax.texts if t.get_text().startswith("E")}
+    e1_mev = float(labels["E1"].get_text().split(" = ")[1].split(" meV")[0])
+    profile = band_profile(stack.table(), [0.03], model=stack.model)
+    energy = np.linspace(1e-3, 0.5, 20000)
+    t = transmission(energy, profile=profile)[0, 0]
+    inner = np.nonzero((t[1:-1] > t[:-2]) & (t[1:-1] >= t[2:]))[0] + 1
+    assert e1_mev == pytest.approx(energy[inner[0]] * 1e3, abs=1.0)
+    # the middle barrier (b2) spans from the end of w1 to the start of w2: no level over it
+    segments = [seg for coll in ax.collections for seg in coll.get_segments()]
+    levels = [s for s in segments if np.isclose(s[0][1], e1_mev / 1e3, atol=1e-3)]
+    assert len(levels) == 2  # one in each well
+    (a0, a1), (b0, b1) = sorted((s[0][0], s[1][0]) for s in levels)
+    assert a1 < b0  # a gap between them: the middle barrier
