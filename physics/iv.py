@@ -382,9 +382,13 @@ def locate_peak_valley(
     return peak, valley
 
 
-def _warn_below_floor(j_side, peak, floor_a_cm2) -> None:
-    """A :class:`GridAccuracyWarning` where a stack has no peak and its sweep's largest
-    current lies below its resolved-current floor (every maximum was set aside there)."""
+def _resolved_peak_valley(v_abs, j_side, table) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`locate_peak_valley` above each stack's resolved-current floor
+    (:func:`physics.current.resolved_current_floor_a_cm2`), with a
+    :class:`GridAccuracyWarning` where a stack has no peak and its sweep's largest current
+    lies below the floor (every maximum was set aside there)."""
+    floor_a_cm2 = resolved_current_floor_a_cm2(table)
+    peak, valley = locate_peak_valley(v_abs, j_side, floor_a_cm2=floor_a_cm2)
     largest = np.max(np.abs(j_side), axis=1, initial=0.0)
     low = (peak < 0) & (largest < floor_a_cm2)
     if np.any(low):
@@ -397,6 +401,7 @@ def _warn_below_floor(j_side, peak, floor_a_cm2) -> None:
             ),
             stacklevel=3,
         )
+    return peak, valley
 
 
 def higher_peak_beyond_valley(
@@ -668,13 +673,14 @@ def _drop_narrow_spikes(devices, model, grid, sign, peaks, st) -> np.ndarray:
     v = np.stack([v_before, v_past + sgn * SPIKE_MIN_WIDTH_V], axis=1)
     solves: list = []
     j = sgn[:, None] * devices.take(rows).current(v, model, grid, keep=solves)
-    w = solves[0][1].well_sheet_cm2
+    g, sol = solves[0]
+    w = sol.well_sheet_cm2
     beyond = np.abs(w[:, 1] - w_before) >= 0.5 * np.abs(w_past - w_before)
     take = beyond & (j[:, 1] <= j[:, 0])
     for e in np.nonzero(take)[0]:
         i = rows[e]
         st.center[i], st.best[i] = v_before[e], j[e, 0]
-        st.kept[i] = _kept_entry(*solves[0], e, 0)
+        st.kept[i] = _kept_entry(g, sol, e, 0)
         if not sgn[e] * st.drop_v[i] <= sgn[e] * v[e, 1]:  # NaN: no fall noted yet
             st.drop_v[i], st.drop_j[i], st.drop_w[i] = v[e, 1], sgn[e] * j[e, 1], w[e, 1]
     narrow[rows[take]] = True
@@ -1736,7 +1742,7 @@ def _look_between(curves: IVCurves, table: LayerTable, between: dict, **options)
         v = bias[order][sel]
         j = np.concatenate([curves.current_density_a_cm2[s], j_extra[mine].ravel()])
         j = sign * j[order][sel]
-        floor = resolved_current_floor_a_cm2(table.take([s]))
+        floor = resolved_current_floor_a_cm2(table.take(np.array([s])))
         ip, iv = (i[0] for i in locate_peak_valley(np.abs(v), j[None, :], floor_a_cm2=floor))
         if (
             ip < 0
@@ -1866,9 +1872,7 @@ def _sweep_on(
     sel, sign = branch
     v_side = bias[sel]
     j_side = sign * j[:, sel]
-    floor = resolved_current_floor_a_cm2(table)
-    ip, iv = locate_peak_valley(np.abs(v_side), j_side, floor_a_cm2=floor)
-    _warn_below_floor(j_side, ip, floor)
+    ip, iv = _resolved_peak_valley(np.abs(v_side), j_side, table)
     between = _hidden_collapse(solves, sel, v_side, ip) if look_between else {}
     has = ip >= 0
     if not np.any(has):
