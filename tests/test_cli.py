@@ -365,3 +365,71 @@ def test_iv_says_where_it_added_points_between_the_sweeps(tmp_path, capsys) -> N
     assert 0.09 < record["metrics"]["peak_voltage_v"] < 0.1
     assert "a resonance narrower than the sweep's spacing" in text
     assert "valley beyond the sweep end" not in text
+
+
+def test_iv_records_every_warning_it_says(tmp_path, capsys, monkeypatch) -> None:
+    # fuzz find: the critical-thickness and energy-grid warnings went to stderr only, and
+    # metrics.json and --json said "warnings": [] (only the X-valley line was recorded). Now
+    # every warning of the run is in both, once each, in the words of stderr. 40 ML AlAs on
+    # InP exceeds its Matthews-Blakeslee critical thickness (J. Cryst. Growth 27, 118 (1974));
+    # a stand-in raises a grid warning during the I-V, twice.
+    import warnings
+
+    import wellwright.optimize.cli.cmd_iv as cmd_iv
+    from wellwright.physics.current import GridAccuracyWarning
+
+    real = cmd_iv.stack_iv
+
+    def warns(*args, **kwargs):
+        warnings.simplefilter("always")  # (inside the command's own record of warnings)
+        for _ in range(2):
+            text = "the energy grid's error\n estimate stays high"
+            warnings.warn(text, GridAccuracyWarning, stacklevel=2)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(cmd_iv, "stack_iv", warns)
+    layers = [
+        {"name": "emitter", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+        {"name": "barrier", "material": "AlAs", "thickness_ml": 40},
+        {"name": "collector", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+    ]
+    path = write_stack(tmp_path, stack_toml(layers, top={"substrate": "InP"}))
+    out = tmp_path / "out"
+    args = ["iv", str(path), "--points", "5", "--no-figures", "--json", "--out", str(out)]
+    assert main(args) == 0
+    captured = capsys.readouterr()
+    said = [line.removeprefix("wellwright iv: warning: ") for line in captured.err.splitlines()]
+    assert any("Matthews-Blakeslee" in line for line in said)
+    assert said.count("the energy grid's error estimate stays high") == 1
+    assert json.loads(captured.out)["warnings"] == said
+    assert json.loads((out / "metrics.json").read_text())["warnings"] == said
+
+
+def test_iv_text_keeps_three_significant_digits_of_small_figures(tmp_path, capsys) -> None:
+    # fuzz find: the InP example with 14 ML AlAs barriers printed "peak current density
+    # 0.0 kA/cm²" (26.8 A/cm²), "peak minus valley 0.0 kA/cm²" and "cutoff frequency 0 GHz"
+    # (126 MHz) beside a valley of "0.00171 kA/cm²". Every figure printed now agrees with
+    # metrics.json to three significant digits.
+    from wellwright.optimize.shared import names
+
+    layers = [
+        {"name": "emitter", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+        {"name": "spacer1", "material": "In0.53Ga0.47As", "thickness_nm": 2.0},
+        {"name": "barrier1", "material": "AlAs", "thickness_ml": 14},
+        {"name": "well", "material": "In0.53Ga0.47As", "thickness_ml": 15},
+        {"name": "barrier2", "material": "AlAs", "thickness_ml": 14},
+        {"name": "spacer2", "material": "In0.53Ga0.47As", "thickness_nm": 5.0},
+        {"name": "collector", "material": "In0.53Ga0.47As", "doping_cm3": 2e18},
+    ]
+    path = write_stack(tmp_path, stack_toml(layers, top={"substrate": "InP"}))
+    out = tmp_path / "out"
+    assert main(["iv", str(path), "--points", "21", "--no-figures", "--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    metrics = json.loads((out / "metrics.json").read_text())["metrics"]
+    assert metrics["peak_current_density_a_cm2"] < 100  # tens of A/cm²
+    shown = {line[2:40].strip(): line[40:].split()[0] for line in text.splitlines()[3:]}
+    checked = [k for k, v in metrics.items() if names.words(k) in shown and v]
+    assert {"delta_current_density_a_cm2", "cutoff_frequency_hz"} < set(checked)
+    for key in checked:
+        number = float(shown[names.words(key)])
+        assert number == pytest.approx(names.to_display(key, metrics[key]), rel=5e-3), key

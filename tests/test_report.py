@@ -300,6 +300,64 @@ def test_report_of_a_folder_missing_a_stage_record_is_one_line(demo_dir, tmp_pat
     assert not (run / "report.html").exists() and not (run / FILES_DIR).exists()
 
 
+@pytest.mark.parametrize(
+    "damaged",
+    [
+        "search/designs.json",
+        "tolerance/rank01/tolerance.json",
+        "tolerance/rank02/design/design.json",
+    ],
+)
+def test_report_of_a_folder_with_a_record_that_is_not_json_is_one_line(
+    demo_dir, tmp_path, damaged, capsys
+):
+    """A finished record replaced by text that is not JSON (fuzz find: a traceback, exit 1):
+    one line naming the file, that it is not valid JSON and where, exit status 2, nothing
+    written (as for a missing record)."""
+    run = tmp_path / "run"
+    shutil.copytree(demo_dir, run)
+    (run / damaged).write_text("{bad", encoding="utf-8")
+    shutil.rmtree(run / FILES_DIR)
+    (run / "report.html").unlink(missing_ok=True)
+    capsys.readouterr()
+    assert main(["report", str(run)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith(f"wellwright report: {run / damaged}: ")
+    assert "not valid JSON (" in err[0] and "line 1, column 2" in err[0]
+    assert not (run / "report.html").exists() and not (run / FILES_DIR).exists()
+
+
+def test_a_budget_below_the_methods_smallest_design_is_said_to_be_raised():
+    # fuzz find: `wellwright run --samples 8 --method sobol` reported "(144 of a budget of 8
+    # evaluations used)": Sobol's smallest design here was 8 base samples of D + 2 = 18
+    # evaluations, so the budget was raised to 144
+    from wellwright.optimize.report.build import _resolution_text
+
+    ranking = {"resolved": False, "leader": "a", "indistinguishable_from_zero": []}
+    raised = _resolution_text({**ranking, "evaluations": 144, "budget": 8})
+    assert "of a budget of" not in raised
+    assert "144 evaluations used: the budget of 8 (--samples)" in raised
+    assert "smallest design, so it was raised by 136" in raised
+    kept = _resolution_text({**ranking, "evaluations": 96, "budget": 128})
+    assert "96 of a budget of 128 evaluations used" in kept
+
+
+def test_control_table_names_no_control_first_when_every_score_is_zero(tmp_path):
+    # fuzz find: a Monte Carlo run with 100 % yield scores every control 0.0 and has no
+    # ranking; the table's head named the first layer of the stack
+    from wellwright.optimize.report.build import _control_html
+    from wellwright.optimize.tolerance.analysis import NO_CONTROL_STANDS_OUT
+
+    measure = "correlation of |deviation| with failure (Monte Carlo)"
+    order = [
+        {"control": f"layer {n}", "parameters": [f"{n}.x"], "score": 0.0, "measure": measure}
+        for n in ("emitter", "spacer1")
+    ]
+    html = _control_html({"control_order": order}, tmp_path, "rank01")
+    assert NO_CONTROL_STANDS_OUT in html and "emitter first" not in html
+    assert html.count("no effect distinguishable from zero") == 2
+
+
 def test_control_table_does_not_rank_what_is_indistinguishable_from_zero(tmp_path):
     # the table said "layer well 0.75" under a ranking that listed the well's thickness as
     # "no effect distinguishable from zero" (the quick demo's report): one rule for both

@@ -536,6 +536,55 @@ def test_island_truncation_beyond_a_tenth_is_said_as_a_warning():
     assert "indicative only" in text and "island_layers" in text
 
 
+def test_cli_and_report_say_the_same_of_what_to_control_hardest(tmp_path, capsys):
+    # fuzz find: `wellwright tolerance --method mc` with 100 % yield scores every control 0.0,
+    # and the command printed "control hardest: layer emitter (...), then layer spacer1 ...",
+    # the stack's order, where the report said that none stands out; both now take their
+    # words from control_summary
+    from wellwright.optimize.cli.cmd_tolerance import _print_summary
+    from wellwright.optimize.report.build import _control_html
+    from wellwright.optimize.tolerance.analysis import NO_CONTROL_STANDS_OUT, control_summary
+
+    measure = "correlation of |deviation| with failure (Monte Carlo)"
+    order = [
+        {"control": f"layer {n}", "parameters": [f"{n}.x"], "score": 0.0, "measure": measure}
+        for n in ("emitter", "spacer1", "well", "In")
+    ]
+    record = {
+        "yield": {"value": 1.0, "ci_low": 0.81, "ci_high": 1.0, "samples": 16},
+        "failures": {"pvcr": 0},
+        "sobol": {},
+        "control_order": order,
+        "allocation": [],
+        "notes": [],
+    }
+
+    def said() -> tuple[str, str]:
+        _print_summary(record)
+        out = capsys.readouterr().out.splitlines()
+        line = next(x for x in out if x.startswith("control hardest"))
+        head = _control_html(record, tmp_path, "rank01").split("</b>")[1].split("</p>")[0]
+        return line.split("): ", 1)[1], head.split("): ", 1)[1].removesuffix(".")
+
+    cli, report = said()
+    assert cli == report == NO_CONTROL_STANDS_OUT
+    for row in order:  # equal scores: none stands out from the others either
+        row["score"] = 0.4
+    cli, report = said()
+    assert cli == report == "no source cell or layer stands out from the others (equal scores)"
+    for row, score in zip(order, (0.4, 0.4, 0.2, 0.0), strict=True):
+        row["score"] = score
+    cli, report = said()
+    assert report == "layer emitter and layer spacer1 first"
+    assert (
+        cli
+        == "layer emitter (emitter.x) and layer spacer1 (spacer1.x) first, then layer well (well.x)"
+    )
+    assert (
+        control_summary(record, top=3) == "layer emitter and layer spacer1 first, then layer well"
+    )
+
+
 # --------------------------------------------------------------------------- wafer
 
 

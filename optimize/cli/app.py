@@ -16,6 +16,7 @@ import os
 import signal
 import sys
 import warnings
+from collections.abc import Iterable
 from typing import Any, NoReturn
 
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
@@ -124,9 +125,15 @@ def _run(args: argparse.Namespace) -> int:
         except KeyboardInterrupt:
             return _fail(args.command, "interrupted; finished work is kept", status=130)
     # after the command's own output, one plain line each (never before an error line)
-    for message in dict.fromkeys(" ".join(str(w.message).split()) for w in caught):
-        print(f"wellwright {args.command}: warning: {message}", file=sys.stderr)
+    for line in warning_lines(w.message for w in caught):
+        print(f"wellwright {args.command}: warning: {line}", file=sys.stderr)
     return status
+
+
+def warning_lines(messages: Iterable[Warning | str]) -> list[str]:
+    """Each distinct warning once, in the order raised, as the one plain line the command
+    prints (a command that records its warnings in a file records these lines)."""
+    return list(dict.fromkeys(" ".join(str(m).split()) for m in messages))
 
 
 def _terminate_as_interrupt() -> Any:

@@ -2,11 +2,14 @@
 
 from __future__ import annotations
 
+import functools
 import json
 import sys
+import warnings
 from pathlib import Path
 
 import numpy as np
+from wellwright.optimize.cli.app import warning_lines
 from wellwright.optimize.shared import names
 from wellwright.optimize.shared.model_text import model_record
 from wellwright.optimize.shared.outputs import (
@@ -185,12 +188,14 @@ def fractional_layers(path: str | Path, stack) -> tuple[list[int], list[str]]:
 
 def run(args) -> int:
     bias = check_sweep(args.bias_min, args.bias_max, args.points)
-    stack = load_stack(args.stack)
-    out = check_output_folder(args.out if args.out else f"{Path(args.stack).stem}_iv")
-    islands, island_lines = fractional_layers(args.stack, stack)
-    curves = stack_iv(stack, bias, island_layers=islands)
-    record = iv_record(stack, curves)
-    record["warnings"] = model_warnings(stack, record["metrics"], bias)
+    with warnings.catch_warnings(record=True) as caught:  # kept for metrics.json, said at the end
+        stack = load_stack(args.stack)
+        out = check_output_folder(args.out if args.out else f"{Path(args.stack).stem}_iv")
+        islands, island_lines = fractional_layers(args.stack, stack)
+        curves = stack_iv(stack, bias, island_layers=islands)
+        record = iv_record(stack, curves)
+        own = model_warnings(stack, record["metrics"], bias)
+    record["warnings"] = warning_lines([*(w.message for w in caught), *own])
     record["islands"] = island_lines
     cols = ["bias_v", "current_density_a_cm2"] + [
         k for k in ("external_bias_v", "current_ma") if k in record
@@ -208,8 +213,6 @@ def run(args) -> int:
             "islands": island_lines,
         },
     )
-    for line in record["warnings"]:
-        print(f"wellwright iv: warning: {line}", file=sys.stderr)
     if not args.no_figures:
         from wellwright.optimize.shared.figures import iv_figures
 
@@ -218,47 +221,57 @@ def run(args) -> int:
         json.dump(record, sys.stdout, indent=2)
         print()
     else:
-        m = record["metrics"]
-        print(f"{stack.source}: {len(bias)} biases from {bias[0]:g} to {bias[-1]:g} V")
-        print(f"  model: {record['model']['label']}, {stack.temperature_k:g} K")
-        _print_added_biases(np.asarray(record["bias_v"]), bias)
-        for line in island_lines:
-            print(f"  {line}")
-        if m["peak_current_density_a_cm2"] is None:
-            print("  no negative differential resistance in this sweep")
-        else:
-            print("  first NDR peak and its valley:")
-            bound = bool(record["bounded_by_sweep"])
-            for key in METRIC_NAMES:
-                if key == VALLEY_BOUNDED:
-                    continue
-                value = names.format_bound(key, m[key], bounded=bound, with_unit=True)
-                print(f"  {names.words(key):<38} {value}")
-            if bound:
-                print(
-                    f"  valley not reached: the current still falls at "
-                    f"{m['valley_voltage_v'] * 1e3:.0f} mV, the last bias computed (sweep "
-                    f"extended to {VALLEY_EXTENSION_FACTOR:g} times its end), so the valley "
-                    "figures are bounds (≥, ≤: where the true value lies; '(valley bounded)': "
-                    "derived from one): raise --bias-max"
-                )
-            higher = record["higher_peak_beyond_valley"]
-            if higher is not None:
-                print(
-                    f"  a higher NDR peak follows: {higher['current_density_a_cm2'] / 1e3:.3g} "
-                    f"kA/cm² at {higher['bias_v'] * 1e3:.0f} mV (a sample of the sweep, not "
-                    "refined; the figures above are the first peak's)"
-                )
-            if (m.get("bistable_window_v") or 0.0) > 0.0:
-                print(
-                    f"  bistable over {_at_least(m)}{m['bistable_window_v'] * 1e3:.1f} mV past "
-                    "the peak: an up sweep keeps the well's charge there (the curve is the down "
-                    "sweep's "
-                    f"branch); the up sweep's peak {m['peak_current_density_up_a_cm2'] / 1e3:.3g}"
-                    f" kA/cm² at {m['peak_voltage_up_v'] * 1e3:.0f} mV"
-                )
+        _print_text(stack, record, bias)
         print(f"  results in {out}/")
+    for line in record["warnings"]:  # printed by the command line after this output
+        warnings.warn(line, stacklevel=1)
     return 0
+
+
+def _print_text(stack, record: dict, bias: np.ndarray) -> None:
+    """The I-V in words: the sweep, the model, the figures of merit and what bounds them
+    (every figure through :mod:`wellwright.optimize.shared.names`)."""
+    m = record["metrics"]
+    print(f"{stack.source}: {len(bias)} biases from {bias[0]:g} to {bias[-1]:g} V")
+    print(f"  model: {record['model']['label']}, {stack.temperature_k:g} K")
+    _print_added_biases(np.asarray(record["bias_v"]), bias)
+    for line in record["islands"]:
+        print(f"  {line}")
+    if m["peak_current_density_a_cm2"] is None:
+        print("  no negative differential resistance in this sweep")
+        return
+    print("  first NDR peak and its valley:")
+    bound = bool(record["bounded_by_sweep"])
+    for key in METRIC_NAMES:
+        if key == VALLEY_BOUNDED:
+            continue
+        value = names.format_bound(key, m[key], bounded=bound, with_unit=True)
+        print(f"  {names.words(key):<38} {value}")
+    shown = functools.partial(names.format_value, with_unit=True)
+    if bound:
+        print(
+            f"  valley not reached: the current still falls at "
+            f"{shown('valley_voltage_v', m['valley_voltage_v'])}, the last bias computed (sweep "
+            f"extended to {VALLEY_EXTENSION_FACTOR:g} times its end), so the valley "
+            "figures are bounds (≥, ≤: where the true value lies; '(valley bounded)': "
+            "derived from one): raise --bias-max"
+        )
+    higher = record["higher_peak_beyond_valley"]
+    if higher is not None:
+        print(
+            "  a higher NDR peak follows: "
+            f"{shown('peak_current_density_a_cm2', higher['current_density_a_cm2'])} at "
+            f"{shown('peak_voltage_v', higher['bias_v'])} (a sample of the sweep, not "
+            "refined; the figures above are the first peak's)"
+        )
+    if (m.get("bistable_window_v") or 0.0) > 0.0:
+        print(
+            f"  bistable over {_at_least(m)}{shown('bistable_window_v', m['bistable_window_v'])}"
+            " past the peak: an up sweep keeps the well's charge there (the curve is the down "
+            "sweep's branch); the up sweep's peak "
+            f"{shown('peak_current_density_up_a_cm2', m['peak_current_density_up_a_cm2'])} at "
+            f"{shown('peak_voltage_up_v', m['peak_voltage_up_v'])}"
+        )
 
 
 def _at_least(m: dict) -> str:

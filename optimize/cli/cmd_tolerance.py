@@ -13,7 +13,13 @@ import numpy as np
 from wellwright.optimize.shared.outputs import check_output_folder
 from wellwright.optimize.study.growth import growth_model, parse_growth, split_layer_growth
 from wellwright.optimize.study.study import Study, load_study
-from wellwright.optimize.tolerance.analysis import METHODS, Runner, Spec, run_tolerance
+from wellwright.optimize.tolerance.analysis import (
+    METHODS,
+    Runner,
+    Spec,
+    control_summary,
+    run_tolerance,
+)
 from wellwright.physics import checks
 from wellwright.physics.errors import InputError
 from wellwright.physics.stack import CriticalThicknessWarning, Stack, parse_stack, read_toml
@@ -287,10 +293,8 @@ def _print_summary(rec: dict[str, Any]) -> None:
         )
     if rec.get("control_order"):
         print(
-            "control hardest: "
-            + ", then ".join(
-                f"{c['control']} ({', '.join(c['parameters'])})" for c in rec["control_order"][:3]
-            )
+            f"control hardest (by {rec['control_order'][0]['measure']}): "
+            + control_summary(rec, top=3, parameters=True)
         )
     for text in rec.get("nominal_misses", []):
         print(f"the nominal design misses the spec: {text}")

@@ -49,6 +49,7 @@ from wellwright.optimize.study.run_folder import (
     study_from_run,
 )
 from wellwright.optimize.study.study import Study
+from wellwright.optimize.tolerance.analysis import control_summary, controls_standing_out
 from wellwright.physics.errors import InputError
 
 __all__ = ["build_report", "SECTIONS", "versions"]
@@ -138,6 +139,10 @@ RERUN = (
 )
 
 
+#: What to do about a damaged record (the rerun writes again only what is missing).
+REWRITE = "remove it and rerun 'wellwright run' on the same study and folder to write it again"
+
+
 def _read_text(path: Path) -> str:
     """A finished file of the run folder; one line naming it and what to do when absent."""
     try:
@@ -146,6 +151,22 @@ def _read_text(path: Path) -> str:
         raise InputError(RERUN, source=str(path)) from None
     except OSError as exc:
         raise InputError(f"unreadable ({exc.strerror})", source=str(path)) from None
+
+
+def _read_json(path: Path, shape: type = dict) -> Any:
+    """A finished JSON record of the run folder (:func:`_read_text`): one line naming it
+    where it is not valid JSON or not the JSON ``shape`` (dict or list) its stage writes."""
+    try:
+        data = json.loads(_read_text(path))
+    except json.JSONDecodeError as exc:
+        raise InputError(
+            f"not valid JSON ({exc.msg} at line {exc.lineno}, column {exc.colno}); {REWRITE}",
+            source=str(path),
+        ) from None
+    if not isinstance(data, shape):
+        kind = "list" if shape is list else "object"
+        raise InputError(f"not the JSON {kind} its stage writes; {REWRITE}", source=str(path))
+    return data
 
 
 def _read_csv(path: Path) -> tuple[list[str], list[list[str]]]:
@@ -168,7 +189,7 @@ def _needed_files(run_dir: Path, reported: list[dict], tol_dirs: list[Path]) -> 
         design = tdir / DESIGN_DIR / DESIGN_RECORD
         out += [tdir / "tolerance.json", design]
         if design.is_file():  # and the figures it lists
-            figures = json.loads(_read_text(design)).get("figures") or {}
+            figures = _read_json(design).get("figures") or {}
             out += [design.parent / name for name in figures.values()]
     out += [_sheet_path(run_dir, d) for d in reported if d.get("layers") is not None]
     return out
@@ -396,10 +417,20 @@ def _resolution_text(ranking: dict | None) -> str:
         if zero
         else ""
     )
-    return (
-        f"{head} ({ranking.get('evaluations', '?')} of a budget of "
-        f"{ranking.get('budget', '?')} evaluations used).{tail}</p>"
-    )
+    return f"{head} ({_evaluations_text(ranking)}).{tail}</p>"
+
+
+def _evaluations_text(ranking: dict) -> str:
+    """The evaluations a ranking used against its budget (``--samples``). A budget below the
+    method's smallest design (Sobol: 8 base samples of D + 2 evaluations; Morris: two
+    trajectories of D + 1) was raised to that design, which is then what ran."""
+    used, budget = ranking.get("evaluations", "?"), ranking.get("budget", "?")
+    if isinstance(used, int) and isinstance(budget, int) and used > budget:
+        return (
+            f"{used} evaluations used: the budget of {budget} (--samples) is below the "
+            f"method's smallest design, so it was raised by {used - budget} to that"
+        )
+    return f"{used} of a budget of {budget} evaluations used"
 
 
 def _device_table(designs: list[dict], reported: int) -> str:
@@ -452,7 +483,7 @@ def _design_card(
         write_csv(files / f"growth_sheet_{tag}.csv", head, sheet)
     rows = _sheet_rows(sheet)
     # the nominal curves and figures, written by the stage that computed them
-    design = json.loads(_read_text(design_dir / DESIGN_RECORD))
+    design = _read_json(design_dir / DESIGN_RECORD)
     m = design["metrics"]
     _copy_design_figures(design.get("figures") or {}, figs, files, design_dir, tag)
     status = (
@@ -596,28 +627,20 @@ def _control_html(record: dict[str, Any], files: Path, tag: str) -> str:
         ["control", "score", "measure", "parameters"],
         [[c["control"], c["score"], c["measure"], " ".join(c["parameters"])] for c in order],
     )
-    # a group whose every parameter has an effect indistinguishable from zero is not ranked
-    # (the same rule as the ranking's resolution, tolerance.json "ranking")
-    zero = set((record.get("ranking") or {}).get("indistinguishable_from_zero") or [])
-    silent = [all(p in zero for p in c["parameters"]) for c in order]
+    # a group scoring zero, or whose every parameter has an effect indistinguishable from zero
+    # (the ranking's resolution, tolerance.json "ranking"), is not ranked
     rows = [
         [
             _esc(c["control"]),
-            "no effect distinguishable from zero" if quiet else f"{c['score']:.3g}",
+            f"{c['score']:.3g}" if standing else "no effect distinguishable from zero",
             _esc(", ".join(names.parameter_words(p) for p in c["parameters"])),
         ]
-        for c, quiet in zip(order, silent, strict=True)
+        for c, standing in zip(order, controls_standing_out(record), strict=True)
     ]
-    lead = next((c["control"] for c, quiet in zip(order, silent, strict=True) if not quiet), None)
-    head = (
-        f"{_esc(lead)} first"
-        if lead is not None
-        else "no source cell or layer stands out from zero at this sample size (more --samples "
-        "would tell)"
-    )
     return (
         f"<p><b>Control hardest</b> (per source cell and layer, by {_esc(order[0]['measure'])}): "
-        f"{head}.</p>" + _table(["what the grower controls", "score", "growth parameters"], rows)
+        f"{_esc(control_summary(record))}.</p>"
+        + _table(["what the grower controls", "score", "growth parameters"], rows)
     )
 
 
@@ -988,11 +1011,11 @@ def build_report(run_dir: str | Path) -> Path:
     stages = record.get("stages", {})
     finished = _finished_tolerance_dirs(run_dir, record)
     study = study_from_run(run_dir, record)
-    designs = json.loads(_read_text(run_dir / "search" / "designs.json"))
+    designs = _read_json(run_dir / "search" / "designs.json", list)
     reported = [d for d in designs if f"rank{d['rank']:02d}" in finished]
     tol_dirs = [finished[f"rank{d['rank']:02d}"] for d in reported]
     _check_needed_files(run_dir, record, reported, tol_dirs)
-    records = [json.loads(_read_text(d / "tolerance.json")) for d in tol_dirs]
+    records = [_read_json(d / "tolerance.json") for d in tol_dirs]
     points = read_trials(run_dir / "search" / TRIALS_FILE, study)
     files = run_dir / FILES_DIR
     figs = _Figures(files)

@@ -25,6 +25,7 @@ __all__ = [
     "label",
     "to_display",
     "format_value",
+    "SIGNIFICANT_DIGITS",
     "format_bound",
     "typical",
     "parameter_words",
@@ -48,6 +49,9 @@ class Quantity:
     typical: float = 1.0
     note: str = ""
 
+
+#: Significant digits a shown value keeps at least (:func:`format_value`).
+SIGNIFICANT_DIGITS = 3
 
 #: Figures of merit: the keys of every sweep, the device quantities of a mesa and the
 #: spec-failure reasons.
@@ -210,6 +214,10 @@ def to_display(key: str, value: Any) -> float | None:
 def format_value(key: str, value: Any, *, with_unit: bool = False) -> str:
     """``value`` in the trade unit with the quantity's format; "-" when missing.
 
+    Where the format would round away any of the first :data:`SIGNIFICANT_DIGITS`
+    significant digits (a small current in kA/cm², a cutoff below 1 GHz), the value is
+    shown with that many significant digits instead.
+
     Parameters
     ----------
     key
@@ -223,6 +231,9 @@ def format_value(key: str, value: Any, *, with_unit: bool = False) -> str:
     if v is None:
         return "-"
     text = format(v, quantity(key).fmt)
+    short = format(v, f".{SIGNIFICANT_DIGITS}g")
+    if format(float(text), f".{SIGNIFICANT_DIGITS}g") != short:  # "0.0" for 0.0268 kA/cm²
+        text = short
     u = quantity(key).unit
     return f"{text} {u}" if with_unit and u else text
 

@@ -77,6 +77,9 @@ __all__ = [
     "with_island_layers",
     "island_truncation_error",
     "control_order",
+    "control_summary",
+    "controls_standing_out",
+    "NO_CONTROL_STANDS_OUT",
     "run_tolerance",
     "wafer_yield",
     "point_scale",
@@ -1971,6 +1974,56 @@ def control_order(model: GrowthModel, scores: dict[str, float], measure: str) ->
         for control, names in groups.items()
     ]
     return sorted(rows, key=lambda r: -r["score"])
+
+
+#: :func:`control_summary` where no source cell or layer scores above zero.
+NO_CONTROL_STANDS_OUT = (
+    "no source cell or layer stands out from zero at this sample size (more --samples would tell)"
+)
+
+
+def controls_standing_out(record: dict[str, Any]) -> list[bool]:
+    """Per row of the record's ``control_order``: whether it stands out from zero (a score
+    above zero and a parameter the ``ranking`` does not list as indistinguishable from zero)."""
+    zero = set((record.get("ranking") or {}).get("indistinguishable_from_zero") or [])
+    return [
+        c["score"] > 0 and not all(p in zero for p in c["parameters"])
+        for c in record.get("control_order") or []
+    ]
+
+
+def control_summary(record: dict[str, Any], *, top: int = 1, parameters: bool = False) -> str:
+    """What the grower controls hardest, in words: "layer barrier1 first, then In cell";
+    controls of equal score share a place ("A and B first"); said plainly where none
+    stands out from zero or from the others (the command line and the report both say this).
+
+    Parameters
+    ----------
+    record
+        A tolerance record (``control_order``, optionally ``ranking``).
+    top
+        Places named (the first and the ones after it).
+    parameters
+        Name each control's growth parameters in brackets.
+    """
+    order = record.get("control_order") or []
+    standing = [c for c, s in zip(order, controls_standing_out(record), strict=True) if s]
+    if not standing:
+        return NO_CONTROL_STANDS_OUT
+    if len(order) > 1 and all(c["score"] == order[0]["score"] for c in order):
+        return "no source cell or layer stands out from the others (equal scores)"
+    places: list[list[dict[str, Any]]] = []  # controls of equal score, highest first
+    for c in standing:
+        if places and c["score"] == places[-1][0]["score"]:
+            places[-1].append(c)
+        else:
+            places.append([c])
+
+    def named(c: dict[str, Any]) -> str:
+        return f"{c['control']} ({', '.join(c['parameters'])})" if parameters else c["control"]
+
+    words = [" and ".join(named(c) for c in place) for place in places[:top]]
+    return f"{words[0]} first" + "".join(f", then {w}" for w in words[1:])
 
 
 def _clean(metrics: dict[str, np.ndarray], i: int) -> dict[str, float | None]:
