@@ -57,8 +57,9 @@ def stack_file(tmp_path: Path) -> Path:
         ("temperature_k = 300\n# caf\xe9\n".encode("latin-1"), "not UTF-8 text (byte 25 is 0xe9)"),
         (stack_toml(top={"temperature_k": 10**400}).encode(), "digits is too large"),
         (("temperature_k = " + "1" * 5000 + "\n").encode(), "not valid TOML"),
+        ("\ufeff".encode() + stack_toml().encode(), "starts with a byte-order mark"),
     ],
-    ids=["latin-1", "int-too-large-for-a-float", "int-past-python-digit-limit"],
+    ids=["latin-1", "int-too-large-for-a-float", "int-past-python-digit-limit", "utf-8-bom"],
 )
 def test_unreadable_numbers_and_encodings(tmp_path, monkeypatch, capsys, content, message):
     monkeypatch.chdir(tmp_path)
@@ -346,6 +347,42 @@ def test_warning_is_one_plain_line_after_the_output(tmp_path, capsys):
     path.write_text(stack_toml(layers, top={"substrate": "InP", "temperature_k": -1}))
     assert main(["iv", str(path), "--points", "5"]) == 2
     _one_error_line(capsys, "iv")
+
+
+# ----------------------------------------------------------------------------- calibrate
+
+STUDIES = Path(__file__).resolve().parents[1] / "studies"
+
+
+@pytest.mark.parametrize(
+    ("header", "factor", "area"),
+    [
+        ("bias_v,current_density_a_cm2", 1.0, True),  # A read as A/cm^2
+        ("bias_v,current_density_a_cm2", 1.0, False),
+        ("bias_v,current_a", 1e3, True),  # mA read as A
+    ],
+    ids=["amps-as-density", "amps-as-density-no-area", "milliamps"],
+)
+def test_measured_current_far_off_in_units_is_one_line(tmp_path, capsys, header, factor, area):
+    # the shipped INVENTED wafer (studies/make_invented_wafer1.py) with its currents given in
+    # the wrong unit: far outside what the stack can carry at any thickness within the fit's
+    # ranges, so refused before the fit (the first case ended in a traceback from the local
+    # fit's bounds)
+    lines = (STUDIES / "inp_thz_wafer1_invented.csv").read_text().splitlines()
+    if not area:
+        lines = [x for x in lines if not x.startswith("# area_um2")]
+    start = lines.index("bias_v,current_a")
+    rows = [f"{v},{float(i) * factor:.6e}" for v, i in (x.split(",") for x in lines[start + 1 :])]
+    csv = tmp_path / "m.csv"
+    csv.write_text("\n".join(lines[:start] + [header] + rows) + "\n")
+    out = tmp_path / "out"
+    stack = STUDIES / "inp_thz_oscillator.toml"
+    assert main(["calibrate", str(stack), "--measured", str(csv), "--out", str(out)]) == 2
+    line = _one_error_line(capsys, "calibrate")
+    assert f"{csv}: column {header.split(',')[1]}: the largest current density" in line
+    assert "far outside what the stack can carry within the fit's ranges" in line
+    assert "check the units" in line
+    assert not out.exists()
 
 
 # ----------------------------------------------------------------------------- fuzz

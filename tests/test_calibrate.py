@@ -90,13 +90,35 @@ BAD_FILES = {
     "few_points": (_csv(rows=9), "9 data rows; a sweep needs at least 10"),
     "non_monotonic": (
         _csv().replace("0.20,", "0.10,"),
-        "line 6, column 1 (bias_v): biases must be strictly monotonic",
+        "line 6, column 1 (bias_v): biases must run strictly away from zero bias, increasing",
+    ),
+    # one file is one polarity (studies/README.md): a sweep through zero is two files
+    "both_polarities": (
+        "bias_v,current_density_a_cm2\n"
+        + "\n".join(f"{0.05 * i - 0.1:.2f},{100.0 * (i - 2)}" for i in range(12)),
+        "line 2, column 1 (bias_v): -0.1 V in a sweep to 0.45 V; one file is one polarity",
+    ),
+    # ... swept away from zero: a positive sweep written from its end down to zero
+    "positive_sweep_written_down": (
+        "bias_v,current_density_a_cm2\n"
+        + "\n".join(f"{0.05 * (11 - i):.2f},{100.0 * (12 - i)}" for i in range(12)),
+        "line 3, column 1 (bias_v): biases must run strictly away from zero bias, increasing",
+    ),
+    "negative_sweep_written_up": (
+        "bias_v,current_density_a_cm2\n"
+        + "\n".join(f"{-0.05 * (11 - i):.2f},{-100.0 * (12 - i)}" for i in range(12)),
+        "line 3, column 1 (bias_v): biases must run strictly away from zero bias, decreasing",
     ),
     "nan": (
         _csv().replace(",400.0", ",nan"),
         "line 5, column 2 (current_density_a_cm2): nan is not a finite number",
     ),
     "no_area": (_csv(header="bias_v,current_a"), "current_a needs the mesa area"),
+    # found by a fuzz run: "'big' outside [0.01, 1e+08]" before
+    "area_not_a_number": (
+        "# area_um2 = big\n" + _csv(header="bias_v,current_a"),
+        "line 1: area_um2 = 'big' is not a number",
+    ),
     "empty_cell": (
         _csv().replace(",300.0", ","),
         "line 4, column 2 (current_density_a_cm2): empty cell",
@@ -239,6 +261,23 @@ def test_interval_below_a_value_just_above_a_whole_monolayer_uses_its_own_cell()
     assert len(lowers) == 2 and len(uppers) == 1  # one within-cell step, down to 5 ML
     across, within = lowers[0][:, j], lowers[1][:, j]
     assert np.linalg.norm(within) < np.linalg.norm(across)
+
+
+def test_a_thickness_at_the_top_of_its_range_is_refined_in_the_cell_below():
+    # a barrier fitted to the thick end of its range (a whole monolayer, nominal + 4 ML) was
+    # put in the whole-monolayer cell above it, outside the range: a cell of zero width, which
+    # least squares refuses (a traceback on currents far too small for the stack)
+    from wellwright.optimize.calibrate.fit import Objective, _local
+
+    data = _stack_data()
+    m = synthetic_measurement(data, TRUTH, BIAS, noise=0.02, seed=1)
+    problem = build_problem(data, [m])
+    obj = Objective(problem, 0.05)
+    j = problem.index("barrier1.thickness_ml")
+    z0 = np.zeros(len(problem.parameters))
+    z0[j] = obj.upper[j]
+    z, cost = _local(obj, z0, 2)
+    assert obj.lower[j] <= z[j] <= obj.upper[j] and np.isfinite(cost)
 
 
 # --------------------------------------------------------------------------- the fit
@@ -397,6 +436,9 @@ def test_command_writes_record_stack_and_page(tmp_path, capsys):
     page = (out / "calibration.html").read_text()
     assert "data:image/png;base64," in page and "<script" not in page and "http" not in page
     assert "barrier1" in record["grower"]
+    # a good fit: nothing at a bound of its range, no warning (record nor stderr)
+    assert record["warnings"] == [] and not any(p["at_bound"] for p in record["parameters"])
+    assert "warning" not in capsys.readouterr().err
     # the record names the physics the fit used, here the stack file's fast model
     physics = record["physics_model"]
     assert physics["electrostatics"] == "linear" and physics["transport"] == "coherent"
@@ -426,6 +468,55 @@ def _measured_file(tmp_path: Path, seed: int) -> Path:
         + "".join(f"{v:.4f},{j:.6g}\n" for v, j in zip(m.bias_v, m.current_density_a_cm2))
     )
     return csv
+
+
+def test_a_fit_that_cannot_be_trusted_says_so(tmp_path, capsys):
+    # invented: the fast model's sweep of the stack grown with TRUTH, every current divided by
+    # 80 (1/154 of the nominal stack's largest current, within what the stack can carry at the
+    # thick ends of the fitted thicknesses' ranges): the fit runs, cannot follow, and says so
+    # in every output: a parameter at a bound of its range, the poor fit, the units
+    m = synthetic_measurement(_stack_data(), TRUTH, BIAS, noise=0.02, seed=3)
+    csv = tmp_path / "m.csv"
+    csv.write_text(
+        "bias_v,current_density_a_cm2\n"
+        + "".join(f"{v:.4f},{j / 80:.6g}\n" for v, j in zip(m.bias_v, m.current_density_a_cm2))
+    )
+    out = tmp_path / "cal"
+    stack = _fast_stack_file(tmp_path)
+    assert main(["calibrate", str(stack), "--measured", str(csv), "--out", str(out)]) == 0
+    captured = capsys.readouterr()
+    record = json.loads((out / "calibration.json").read_text())
+    warns = record["warnings"]
+    assert {"at_bound", "poor_fit", "units"} <= {w["kind"] for w in warns}
+    shown = [
+        x for x in captured.err.splitlines() if x.startswith("wellwright calibrate: warning: ")
+    ]
+    assert shown == [f"wellwright calibrate: warning: {w['text']}" for w in warns]  # one line each
+    units = next(w["text"] for w in warns if w["kind"] == "units")
+    assert str(csv) in units and "1/154 of the nominal stack's" in units
+    assert "current_density_a_cm2 in A/cm^2" in units
+    bound = [p for p in record["parameters"] if p["at_bound"]]
+    assert bound
+    for p in bound:  # the printed summary marks the parameter's line
+        line = next(x for x in captured.out.splitlines() if x.strip().startswith(p["name"]))
+        assert f"(at its {p['at_bound']} bound: the data may need a value beyond the range)" in line
+    assert record["grower"].startswith("This fit cannot be trusted (see its warnings).")
+    assert "This fit cannot be trusted" in captured.out
+    page = (out / "calibration.html").read_text()
+    assert "<h2>Warnings</h2>" in page and "poor fit: scatter in ln J" in page
+    assert f"at its {bound[0]['at_bound']} bound" in page
+
+
+def test_at_a_bound_only_where_the_range_is_a_choice():
+    # a bound that is a physical limit (no series resistance) holds a result, not a sign of a
+    # range too narrow; the tolerance is a thousandth of the range
+    from wellwright.optimize.calibrate.problem import FitParameter
+    from wellwright.optimize.calibrate.record import _at_bound
+
+    r = FitParameter("r", "resistance", "ohm um^2", 0.0, 10.0, 0.0, 0.0, 1e5)
+    assert _at_bound(r, 0.0) is None and _at_bound(r, 1e5 - 50.0) == "upper"
+    t = FitParameter("b.thickness_ml", "thickness", "ML", 5.0, 1.0, 0.5, -4.0, 4.0)
+    assert _at_bound(t, -3.995) == "lower" and _at_bound(t, -3.9) is None
 
 
 def test_same_seed_same_record_and_seed_recorded(tmp_path):

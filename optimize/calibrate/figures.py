@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import textwrap
 from pathlib import Path
 from typing import Any
 
@@ -64,6 +65,10 @@ def overlay_figure(record: dict[str, Any], path: str | Path) -> Path:
         if fom.get("fitted_continuous"):
             text += f"\n  (fitted curve between the measured biases: {_fom_text(fom['fitted_continuous'])})"
         lines.append(text)
+    lines += [
+        textwrap.fill(f"warning: {w['text']}", 130, subsequent_indent="  ")
+        for w in record["warnings"]
+    ]
     axes[0].set_ylabel("current density (kA/cm$^2$)")
     axes[1].set_ylabel("|current density| (A/cm$^2$)")
     axes[1].set_yscale("log")

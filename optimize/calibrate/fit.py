@@ -68,6 +68,15 @@ rest by a few hundredths) made the series resistance look known to
 higher. Where one side's difference exceeds the other's by ``JUMP_RATIO``
 (and changes the residual by more than ``JUMP_SIGMAS``), the slope of the
 branch the point is on, the other side's, is used.
+
+Current scale: before the fit, each sweep's largest measured current density
+is set against the model's at the measured biases, for the nominal stack and
+for the stacks with every fitted thickness at the thin and at the thick end of
+its range (other parameters nominal): the least and largest of the three are
+what the stack can carry within the fit's ranges. A sweep more than
+``REACH_MARGIN`` beyond them cannot be fitted and is refused (bad input: the
+units, most likely). One more than ``UNITS_FACTOR`` from the nominal stack's
+is fitted with a warning naming the units (:mod:`.record`).
 """
 
 from __future__ import annotations
@@ -81,9 +90,17 @@ import numpy as np
 from scipy.optimize import least_squares
 from wellwright.optimize.calibrate.problem import KernelCache, Problem
 from wellwright.optimize.study.growth import as_generator
+from wellwright.physics.errors import InputError
 from wellwright.physics.iv import locate_peak_valley
 
-__all__ = ["FitResult", "run_fit", "point_weights", "AMBIGUOUS_DCHI2"]
+__all__ = [
+    "FitResult",
+    "run_fit",
+    "point_weights",
+    "current_scale",
+    "units_hint",
+    "AMBIGUOUS_DCHI2",
+]
 
 FLOOR_FRACTION = 1e-3
 INITIAL_SCATTER = 0.05
@@ -116,6 +133,15 @@ RANDOM_PRIOR_SIGMAS = 2.0
 RESISTANCE_SCAN = 13
 RESISTANCE_SCAN_LOW = 1e-3
 RESISTANCE_SCAN_HIGH = 0.5
+#: A sweep's largest current density more than this factor from the nominal stack's (either
+#: way) warns of its units. On the InP example every fitted thickness 4 ML off (the ends of the
+#: fit's ranges) moves it by 1/31 to 32x, and the invented wafer (two layers 1 ML off) by 0.55x;
+#: a unit slip moves it by 1e3 (mA read as A) or by the area in cm^2 (A read as A/cm^2).
+UNITS_FACTOR = 100.0
+#: A sweep's largest current density more than this factor past what the stacks at the ends of
+#: the fitted thicknesses' ranges carry is refused (room for the parameters those stacks keep
+#: nominal: rates, the valley channel's strength).
+REACH_MARGIN = 10.0
 
 
 @dataclass
@@ -139,6 +165,7 @@ class FitResult:
     combos: int = 0
     sd_low: np.ndarray | None = None  #: for the lower interval bound (one-sided at a kink)
     sd_high: np.ndarray | None = None  #: for the upper bound
+    scale: list[dict[str, Any]] = field(default_factory=list)  #: :func:`current_scale`
 
 
 def point_weights(bias_v: np.ndarray, current: np.ndarray) -> np.ndarray:
@@ -460,6 +487,58 @@ def _random_rows(obj: Objective, z: np.ndarray, n: int, rng: np.random.Generator
     return rows
 
 
+def current_scale(obj: Objective) -> list[dict[str, Any]]:
+    """Per sweep, its largest measured current density and the model's (module notes), A/cm^2.
+
+    Returns ``source``, ``column``, ``measured_a_cm2``, ``nominal_a_cm2`` and ``reach_a_cm2``
+    (the least and largest of the nominal stack's and those of the stacks with every fitted
+    thickness at an end of its range).
+
+    Raises
+    ------
+    InputError
+        A sweep more than ``REACH_MARGIN`` past that reach: no fit within the ranges meets it.
+    """
+    prob = obj.problem
+    rows = np.zeros((3, len(prob.parameters)))
+    for j, q in enumerate(prob.parameters):
+        if q.kind == "thickness":
+            rows[1, j], rows[2, j] = obj.lower[j], obj.upper[j]
+    pred = prob.predict(prob.deviations(rows), cache=obj.kernel_cache)
+    out = []
+    for m, p in zip(prob.measurements, pred):
+        largest = np.abs(p).max(axis=1)
+        measured = float(np.abs(m.current_density_a_cm2).max())
+        low, high = float(largest.min()), float(largest.max())
+        if not low / REACH_MARGIN <= measured <= high * REACH_MARGIN:
+            amps = ""
+            if m.column == "current_a" and m.area_um2:
+                amps = f" ({measured * m.area_um2 * 1e-8:.3g} A over {m.area_um2:g} um^2)"
+            raise InputError(
+                f"column {m.column}: the largest current density, {measured:.3g} A/cm^2{amps}, "
+                f"is far outside what the stack can carry within the fit's ranges, {low:.3g} to "
+                f"{high:.3g} A/cm^2 (nominal stack {largest[0]:.3g}); {units_hint(m.column)}",
+                source=m.source,
+            )
+        out.append(
+            {
+                "source": m.source,
+                "column": m.column,
+                "measured_a_cm2": measured,
+                "nominal_a_cm2": float(largest[0]),
+                "reach_a_cm2": [low, high],
+            }
+        )
+    return out
+
+
+def units_hint(column: str) -> str:
+    """What to check in a measured file whose current is far off, by its current column."""
+    if column == "current_a":
+        return "check the units: current_a in A (not mA or uA) and the '# area_um2' line in um^2"
+    return "check the units: current_density_a_cm2 in A/cm^2 (not A, or mA/cm^2)"
+
+
 def global_stage(
     obj: Objective, starts: int, *, rng: np.random.Generator, random_starts: int = RANDOM_STARTS
 ) -> tuple[list[np.ndarray], int, int]:
@@ -513,6 +592,18 @@ def _cell_bounds(
     return lo, hi
 
 
+def _cell(obj: Objective, j: int, ml: float) -> float:
+    """The lower whole monolayer of the cell of fitted thickness ``j`` at ``ml`` monolayers.
+
+    A thickness on the top of its range, a whole monolayer, is in the cell below it: the cell
+    above lies outside the range (its bounds would be one value, which the local fit refuses).
+    """
+    p = obj.problem.parameters[j]
+    cell = float(np.floor(ml + 1e-9))
+    top = obj.problem.nominal_ml[p.layers[0]] + obj.upper[j] * p.scale
+    return cell - 1.0 if cell >= top - 1e-9 else cell
+
+
 def _local(obj: Objective, z0: np.ndarray, max_nfev: int) -> tuple[np.ndarray, float]:
     """Local fit, one whole-monolayer cell of the island layers at a time.
 
@@ -525,7 +616,7 @@ def _local(obj: Objective, z0: np.ndarray, max_nfev: int) -> tuple[np.ndarray, f
     thick = [j for j, p in enumerate(obj.problem.parameters) if p.kind == "thickness"]
     z = np.clip(z0, obj.lower, obj.upper)
     ml = obj.problem.values(obj.problem.deviations(z))[0]
-    cells = {j: float(np.floor(ml[j] + 1e-9)) for j in thick}
+    cells = {j: _cell(obj, j, ml[j]) for j in thick}
     best: tuple[np.ndarray, float] | None = None
     tried = set()
     for _ in range(MAX_CELL_MOVES + 1):
@@ -592,6 +683,7 @@ def run_fit(
     say = progress or (lambda msg: None)
     rng = as_generator(seed)
     obj = Objective(problem, INITIAL_SCATTER)
+    scale = current_scale(obj)
     begins, n_combos, n_random = global_stage(obj, starts, rng=rng, random_starts=random_starts)
     say(
         f"{n_combos} whole-monolayer combinations and {n_random} random starts scored; "
@@ -627,6 +719,7 @@ def run_fit(
     result.seed = seed if isinstance(seed, int) else None
     result.alternatives = _alternatives(problem, z_best, chi2, rescored)
     result.evaluations = obj.evaluations
+    result.scale = scale
     return result
 
 

@@ -14,8 +14,9 @@ The first line that is not a comment is the header. Columns: ``bias_v`` and
 exactly one of ``current_density_a_cm2`` and ``current_a`` (then the
 ``# area_um2`` line is required); an optional ``temperature_k`` column must
 hold one value (one sweep is one temperature). Other columns are ignored.
-Biases must be strictly monotonic (an up sweep away from zero, either
-polarity), at least :data:`MIN_POINTS` rows, every cell a finite number.
+One file is one sweep away from zero bias in one polarity: biases ``>= 0``
+and strictly increasing, or ``<= 0`` and strictly decreasing (a negative
+sweep); at least :data:`MIN_POINTS` rows, every cell a finite number.
 A bad file raises :class:`wellwright.physics.errors.InputError` naming the
 file, the line (from 1) and the column.
 """
@@ -42,7 +43,8 @@ class Measurement:
     """One measured sweep, stored with the biases increasing.
 
     ``current_density_a_cm2`` carries the sign of the bias; ``area_um2`` is
-    ``None`` when the file gave current densities without an area line.
+    ``None`` when the file gave current densities without an area line;
+    ``column`` is the file's current column (for messages).
     """
 
     source: str
@@ -50,6 +52,7 @@ class Measurement:
     current_density_a_cm2: np.ndarray
     area_um2: float | None = None
     temperature_k: float | None = None
+    column: str = "current_density_a_cm2"
 
     @property
     def label(self) -> str:
@@ -71,7 +74,9 @@ def _setting(line: str, source: str, lineno: int) -> tuple[str, float] | None:
     try:
         v = float(value)
     except ValueError:
-        v = math.nan
+        raise InputError(
+            f"line {lineno}: {key} = {value!r} is not a number", source=source
+        ) from None
     lo, hi = SETTINGS[key]
     if not (math.isfinite(v) and lo <= v <= hi):
         raise InputError(
@@ -88,8 +93,9 @@ def read_measured(path: str | Path) -> Measurement:
     InputError
         Missing file, no header, a missing or duplicated current column, a
         non-numeric or non-finite cell (line and column named), fewer than
-        :data:`MIN_POINTS` rows, biases not strictly monotonic, more than one
-        temperature, ``current_a`` without an ``# area_um2`` line.
+        :data:`MIN_POINTS` rows, biases of both polarities or not running strictly
+        away from zero bias, more than one temperature, ``current_a`` without an
+        ``# area_um2`` line.
     """
     source = str(path)
     settings, header, rows = _split_lines(_read_file(path, source), source)
@@ -112,7 +118,8 @@ def read_measured(path: str | Path) -> Measurement:
             )
         temperature = float(t[0])
     area = settings.get("area_um2")
-    if "current_a" in values:
+    column = "current_a" if "current_a" in values else "current_density_a_cm2"
+    if column == "current_a":
         assert area is not None  # the header check requires the area with current_a
         j = values["current_a"] / (area * 1e-8)  # um^2 -> cm^2
     else:
@@ -121,7 +128,7 @@ def read_measured(path: str | Path) -> Measurement:
         raise InputError("every current is zero", source=source)
     if direction < 0:
         bias, j = bias[::-1], j[::-1]
-    return Measurement(source, bias.copy(), j.copy(), area, temperature)
+    return Measurement(source, bias.copy(), j.copy(), area, temperature, column)
 
 
 def _read_file(path: str | Path, source: str) -> str:
@@ -187,18 +194,31 @@ def _cell_values(
 
 
 def _sweep_direction(bias: np.ndarray, linenos: list[int], col: int, source: str) -> float:
-    """+1 for biases increasing, -1 decreasing; one line naming the first bias that breaks a
-    strictly monotonic sweep (``linenos``: the file line of each bias, ``col``: its column)."""
-    step = np.diff(bias)
-    direction = 1.0 if step[0] > 0 else -1.0
-    bad = np.nonzero(direction * step <= 0)[0]
-    if bad.size:
-        raise InputError(
-            f"line {linenos[bad[0] + 1]}, column {col + 1} (bias_v): biases must be strictly "
-            f"monotonic (one sweep), {bias[bad[0] + 1]:g} V follows {bias[bad[0]]:g} V",
-            source=source,
+    """+1 for a positive sweep (biases ``>= 0``, strictly increasing), -1 for a negative one
+    (``<= 0``, strictly decreasing); the polarity is that of the bias farthest from zero. One
+    line naming the first row that breaks the rule (``linenos``: the file line of each bias,
+    ``col``: its column)."""
+    end = float(bias[np.argmax(np.abs(bias))])
+    polarity = 1.0 if end > 0 else -1.0
+    wrong = np.nonzero(polarity * bias < 0)[0]
+    back = np.nonzero(polarity * np.diff(bias) <= 0)[0] + 1
+    if wrong.size:
+        i = wrong[0]
+        other = "negative" if polarity > 0 else "positive"
+        rule = (
+            f"{bias[i]:g} V in a sweep to {end:g} V; one file is one polarity, put the {other} "
+            "biases in a file of their own"
         )
-    return direction
+    elif back.size:
+        i = back[0]
+        way = "increasing" if polarity > 0 else "decreasing (a negative sweep)"
+        rule = (
+            f"biases must run strictly away from zero bias, {way}; {bias[i]:g} V follows "
+            f"{bias[i - 1]:g} V"
+        )
+    else:
+        return polarity
+    raise InputError(f"line {linenos[i]}, column {col + 1} (bias_v): {rule}", source=source)
 
 
 def _is_number(cell: str) -> bool:

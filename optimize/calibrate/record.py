@@ -2,11 +2,19 @@
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import numpy as np
-from wellwright.optimize.calibrate.fit import CORRELATED, PRIOR_DOMINATED, Z95, FitResult
-from wellwright.optimize.calibrate.problem import Problem
+from wellwright.optimize.calibrate.fit import (
+    CORRELATED,
+    PRIOR_DOMINATED,
+    UNITS_FACTOR,
+    Z95,
+    FitResult,
+    units_hint,
+)
+from wellwright.optimize.calibrate.problem import FitParameter, Problem
 from wellwright.optimize.shared.model_text import model_record
 from wellwright.physics.iv import locate_peak_valley
 
@@ -16,6 +24,8 @@ __all__ = [
     "grower_sentence",
     "calibrated_toml",
     "figures_of_merit",
+    "fit_warnings",
+    "CalibrationWarning",
 ]
 
 GROWTH_KINDS = ("thickness", "rate", "x", "doping")
@@ -26,6 +36,20 @@ FOM_KEYS = (
     ("valley_voltage_v", "Vv", "V", 1.0),
     ("pvcr", "PVCR", "", 1.0),
 )
+#: A fitted value within this fraction of its range's width from a bound is at the bound.
+BOUND_TOLERANCE = 1e-3
+#: Bounds that are physical limits, not a choice of range, by kind: a value there (no series
+#: resistance, no valley channel, a binary alloy) is a result, not a sign of a range too narrow.
+PHYSICAL_LIMITS = {"resistance": (0.0,), "model": (0.0,), "x": (0.0, 1.0)}
+#: Scatter in ln J above which the fit is poor: the fitted curve misses a typical measured point
+#: by more than a factor 1.35, far beyond a probe's noise of a few % (the invented wafer, 2 % noise,
+#: fits to 0.019), so the model does not reproduce the curve's shape and the values fitted to
+#: it are not growth errors to act on.
+POOR_FIT_SCATTER = 0.3
+
+
+class CalibrationWarning(UserWarning):
+    """A calibration that ran but whose result may not be trusted (:func:`fit_warnings`)."""
 
 
 def figures_of_merit(bias_v: np.ndarray, current: np.ndarray) -> dict[str, float | None]:
@@ -143,6 +167,16 @@ def identifiability(problem: Problem, result: FitResult) -> list[dict[str, Any]]
     return notes
 
 
+def _at_bound(p: FitParameter, dev: float) -> str | None:
+    """``"lower"`` or ``"upper"`` when the deviation ``dev`` lies within ``BOUND_TOLERANCE`` of
+    that bound of ``p``'s range, unless the bound is a physical limit (``PHYSICAL_LIMITS``)."""
+    for side, bound in (("lower", p.lower), ("upper", p.upper)):
+        limit = any(abs(p.nominal + bound - v) < 1e-9 for v in PHYSICAL_LIMITS.get(p.kind, ()))
+        if abs(dev - bound) <= BOUND_TOLERANCE * (p.upper - p.lower) and not limit:
+            return side
+    return None
+
+
 def _rows(problem: Problem, result: FitResult) -> list[dict[str, Any]]:
     rows = []
     for j, p in enumerate(problem.parameters):
@@ -152,10 +186,82 @@ def _rows(problem: Problem, result: FitResult) -> list[dict[str, Any]]:
         lo, hi = v - Z95 * sd_lo, v + Z95 * sd_hi
         if p.kind == "resistance" or p.kind == "model":
             lo = max(lo, p.nominal + p.lower)
+        ends = []
+        for bound in (p.lower, p.upper):  # the range in the reported unit
+            dev = result.dev.copy()
+            dev[j] = bound
+            ends.append(float(problem.values(dev[None, :])[0, j]))
         rows.append(
-            {"name": p.name, "nominal": p.nominal, "value": v, "ci_low": lo, "ci_high": hi, "unit": p.unit, "sd": sd}
-        )  # fmt: skip
+            {
+                "name": p.name,
+                "nominal": p.nominal,
+                "value": v,
+                "ci_low": lo,
+                "ci_high": hi,
+                "unit": p.unit,
+                "sd": sd,
+                "range": ends,
+                "at_bound": _at_bound(p, float(result.dev[j])),
+            }
+        )
     return rows
+
+
+def fit_warnings(result: FitResult, rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Why a fit that ran may not be trusted, one line of ``text`` each.
+
+    - a fitted parameter at a bound of its range (``at_bound``): the data may need a value
+      beyond it;
+    - the scatter in ln J above ``POOR_FIT_SCATTER``: the model does not reproduce the curve;
+    - a sweep's largest current density more than ``UNITS_FACTOR`` from the nominal stack's
+      (:func:`~wellwright.optimize.calibrate.fit.current_scale`): the units, most likely.
+
+    Parameters
+    ----------
+    result
+        The fit.
+    rows
+        Fitted parameter rows (``name``, ``value``, ``unit``, ``range``, ``at_bound``).
+    """
+    out: list[dict[str, Any]] = []
+    for r in rows:
+        if r["at_bound"]:
+            lo, hi = r["range"]
+            out.append(
+                {
+                    "kind": "at_bound",
+                    "parameters": [r["name"]],
+                    "text": f"{r['name']} = {r['value']:.5g} {r['unit']} is at its {r['at_bound']} "
+                    f"bound (range {lo:.5g} to {hi:.5g}): the data may need a value beyond the "
+                    "range; do not act on this fit",
+                }
+            )
+    if result.scatter > POOR_FIT_SCATTER:
+        out.append(
+            {
+                "kind": "poor_fit",
+                "text": f"poor fit: scatter in ln J {result.scatter:.3g}, above "
+                f"{POOR_FIT_SCATTER:g} (a typical point off by a factor "
+                f"{math.exp(result.scatter):.3g}): the model does not reproduce this I-V and the "
+                "fitted values are doubtful",
+            }
+        )
+    for sc in result.scale:
+        ratio = sc["measured_a_cm2"] / max(sc["nominal_a_cm2"], 1e-300)
+        if 1 / UNITS_FACTOR <= ratio <= UNITS_FACTOR:
+            continue
+        times = f"{ratio:.3g} times" if ratio > 1 else f"1/{1 / ratio:.3g} of"
+        out.append(
+            {
+                "kind": "units",
+                "source": sc["source"],
+                "text": f"{sc['source']}: the largest measured current density, "
+                f"{sc['measured_a_cm2']:.3g} A/cm^2, is {times} the nominal stack's "
+                f"({sc['nominal_a_cm2']:.3g}), more than growth errors give; "
+                f"{units_hint(sc['column'])}",
+            }
+        )
+    return out
 
 
 def grower_sentence(rows: list[dict[str, Any]], problem: Problem) -> str:
@@ -187,6 +293,8 @@ def grower_sentence(rows: list[dict[str, Any]], problem: Problem) -> str:
         obj, _, _ = r["name"].rpartition(".")
         fmt = {"thickness": ".2f", "rate": ".3f", "x": ".3f"}.get(kind, ".2e")
         ci = f"95 % interval {r['ci_low']:{fmt}} to {r['ci_high']:{fmt}}"
+        if r.get("at_bound"):
+            ci += f"; at the {r['at_bound']} bound of the fit's range"
         if kind == "thickness":
             d = r["value"] - r["nominal"]
             parts.append(
@@ -225,6 +333,10 @@ def calibration_record(
         The command's settings, stored as given.
     """
     rows = _rows(problem, result)
+    warnings = fit_warnings(result, rows)
+    grower = grower_sentence(rows, problem)
+    if warnings:
+        grower = "This fit cannot be trusted (see its warnings). " + grower
     fine = []
     for meas in problem.measurements:
         lo, hi = meas.bias_v[0], meas.bias_v[-1]
@@ -282,9 +394,10 @@ def calibration_record(
             "chi2_per_point": result.chi2 / max(result.n_points, 1),
         },
         "identifiability": identifiability(problem, result),
+        "warnings": warnings,
         "alternatives": result.alternatives,
         "figures_of_merit": table,
-        "grower": grower_sentence(rows, problem),
+        "grower": grower,
         "method": {
             "loss": "soft_l1 in ln current, f_scale 2 sigma; peak, NDR and valley regions weighted alike",
             "uncertainty": "Gauss-Newton covariance (J^T J)^-1 at the optimum, priors included; "

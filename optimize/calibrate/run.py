@@ -11,13 +11,19 @@ from __future__ import annotations
 
 import base64
 import html
+import warnings
 from pathlib import Path
 from typing import Any
 
 from wellwright.optimize.calibrate.fit import run_fit
 from wellwright.optimize.calibrate.measured import read_measured
 from wellwright.optimize.calibrate.problem import build_problem
-from wellwright.optimize.calibrate.record import FOM_KEYS, calibrated_toml, calibration_record
+from wellwright.optimize.calibrate.record import (
+    FOM_KEYS,
+    CalibrationWarning,
+    calibrated_toml,
+    calibration_record,
+)
 from wellwright.optimize.shared.outputs import atomic_write_text, write_csv, write_json
 from wellwright.physics.stack import read_toml
 
@@ -39,6 +45,9 @@ def calibrate(
     progress=None,
 ) -> tuple[Any, Any, dict[str, Any]]:
     """Read and fit; returns the problem, the fit result and the record (nothing written).
+
+    Each of the record's ``warnings`` (a fit that may not be trusted) is also issued as a
+    :class:`~wellwright.optimize.calibrate.record.CalibrationWarning`.
 
     Parameters
     ----------
@@ -68,7 +77,10 @@ def calibrate(
         "starts": starts,
         "seed": seed,
     }
-    return problem, result, calibration_record(problem, result, command=command)
+    record = calibration_record(problem, result, command=command)
+    for w in record["warnings"]:
+        warnings.warn(w["text"], CalibrationWarning, stacklevel=2)
+    return problem, result, record
 
 
 def write_outputs(out: str | Path, problem, result, record: dict[str, Any]) -> Path:
@@ -116,6 +128,13 @@ def write_outputs(out: str | Path, problem, result, record: dict[str, Any]) -> P
     return out
 
 
+def bound_text(row: dict[str, Any]) -> str:
+    """`` (at its upper bound: ...)`` for a fitted parameter at a bound of its range, else ``""``."""
+    if not row.get("at_bound"):
+        return ""
+    return f" (at its {row['at_bound']} bound: the data may need a value beyond the range)"
+
+
 def page(record: dict[str, Any], fom_rows: list[list[Any]], png: Path) -> str:
     """The standalone calibration.html: inline CSS, the overlay as base64 PNG, no scripts or links.
 
@@ -135,10 +154,14 @@ def page(record: dict[str, Any], fom_rows: list[list[Any]], png: Path) -> str:
         return "" if v is None else f"{v:.{digits}g}"
 
     prows = "".join(
-        f"<tr><td>{esc(p['name'])}</td><td>{num(p['nominal'])}</td><td><b>{num(p['value'])}</b></td>"
-        f"<td>{num(p['ci_low'])} to {num(p['ci_high'])}</td><td>{esc(p['unit'])}</td></tr>"
+        f"<tr><td>{esc(p['name'])}</td><td>{num(p['nominal'])}</td><td><b>{num(p['value'])}</b>"
+        f"{esc(bound_text(p))}</td><td>{num(p['ci_low'])} to {num(p['ci_high'])}</td>"
+        f"<td>{esc(p['unit'])}</td></tr>"
         for p in record["parameters"]
     )
+    warned = "".join(f"<li>{esc(w['text'])}</li>" for w in record["warnings"])
+    if warned:
+        warned = f'<h2>Warnings</h2><ul class="caution">{warned}</ul>\n'
     frows = "".join(
         f"<tr><td>{esc(str(r[0]))}</td><td>{esc(r[1])}</td><td>{num(r[2])}</td><td>{num(r[3])}</td><td>{esc(r[4])}</td></tr>"
         for r in fom_rows
@@ -161,7 +184,7 @@ img {{ max-width: 100%; }}
 <h1>Calibration against the measured I-V</h1>
 <p>Stack: {esc(record["stack"])}; measured: {esc(", ".join(record["measured"]))};
 model: {esc(record["physics_model"]["label"])}.</p>
-<h2>For the grower</h2>
+{warned}<h2>For the grower</h2>
 <p class="grower">{esc(record["grower"])}</p>
 <h2>Measured and fitted I-V</h2>
 <img alt="measured and fitted I-V" src="data:image/png;base64,{img}">

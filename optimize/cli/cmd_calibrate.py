@@ -48,7 +48,7 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
-    from wellwright.optimize.calibrate.run import calibrate, write_outputs
+    from wellwright.optimize.calibrate.run import bound_text, calibrate, write_outputs
     from wellwright.physics import checks
     from wellwright.physics.errors import InputError
 
@@ -74,7 +74,7 @@ def run(args) -> int:
     )
     for p in record["parameters"]:
         print(
-            f"  {p['name']:32s} {p['value']:12.5g}  ({p['ci_low']:.5g} to {p['ci_high']:.5g}) {p['unit']}   nominal {p['nominal']:.5g}"
+            f"  {p['name']:32s} {p['value']:12.5g}  ({p['ci_low']:.5g} to {p['ci_high']:.5g}) {p['unit']}   nominal {p['nominal']:.5g}{bound_text(p)}"
         )
     for note in record["identifiability"]:
         print(f"  note: {note['text']}")
