@@ -283,6 +283,12 @@ def parse_toml(data: bytes | str, *, source: str) -> dict[str, Any]:
         File name for the error message.
     """
     text = decode_text(data, source=source) if isinstance(data, bytes) else data
+    if text.startswith("\ufeff"):  # tomllib's message would name line 1, column 1 only
+        raise InputError(
+            "starts with a byte-order mark (UTF-8 with BOM), which TOML does not allow; save it "
+            "as UTF-8 without one",
+            source=source,
+        )
     try:
         return tomllib.loads(text)
     except ValueError as exc:  # TOMLDecodeError, or an integer past Python's digit limit

@@ -264,6 +264,11 @@ def test_thickness_and_metric_bound_constraints(write_study):
             ),
             r"layer 3 \('[^']+'\), key 'same_as': same_as chain loops back to this layer",
         ),
+        (  # a contact has no thickness to share (found by a fuzz run: a missing key before)
+            lambda t: t.replace('same_as = "barrier1"', 'same_as = "emitter"'),
+            r"layer 5 \('[^']+'\), key 'same_as': 'emitter' is a contact \(the first or last "
+            r"layer\), which has no thickness to share",
+        ),
         (
             lambda t: t.replace('name = "well"', 'name = "barrier1"'),
             r"layer 4 \('[^']+'\), key 'name': name 'barrier1' used twice",

@@ -329,6 +329,15 @@ def _resolve_same_as(
                     key="same_as",
                 )
             j = names.index(ref)
+            if j in (0, len(names) - 1):
+                raise InputError(
+                    f"'{ref}' is a contact (the first or last layer), which has no thickness to "
+                    "share; same_as ties inner layers only",
+                    source=source,
+                    layer=i,
+                    layer_name=names[i],
+                    key="same_as",
+                )
             if j in seen:
                 raise InputError(
                     "same_as chain loops back to this layer",
