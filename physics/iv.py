@@ -70,6 +70,7 @@ from .scattering import ScatteringParameters
 from .stack import LayerTable, ModelOptions, Stack
 
 __all__ = [
+    "metrics_branch",
     "METRIC_NAMES",
     "IVCurves",
     "sweep",
@@ -1486,7 +1487,7 @@ def _single_solves(table, bias_v, model, target_nm):
         return u, charge
 
 
-def _metrics_branch(bias: np.ndarray) -> tuple[np.ndarray, float] | None:
+def metrics_branch(bias: np.ndarray) -> tuple[np.ndarray, float] | None:
     """Indices of the branch the metrics are taken on (ordered by increasing ``|V|``) and its
     sign: forward with at least three positive biases, else reverse, else None. Either
     branch starts at zero bias where the sweep has it, so that a peak on the first sample
@@ -1735,7 +1736,7 @@ def _look_between(curves: IVCurves, table: LayerTable, between: dict, **options)
         mine = rows == s
         bias = np.concatenate([curves.bias_v, extra[mine].ravel()])
         order = np.argsort(bias)
-        branch = _metrics_branch(bias[order])
+        branch = metrics_branch(bias[order])
         if branch is None:
             continue
         sel, sign = branch
@@ -1866,7 +1867,7 @@ def _sweep_on(
     metrics = {name: np.full(devices.n, np.nan) for name in METRIC_NAMES}
     metrics.update(_at_bias_metrics(devices, at_bias_v, area_um2, model, grid))
 
-    branch = _metrics_branch(bias)
+    branch = metrics_branch(bias)
     if branch is None:
         return IVCurves(bias, j, metrics), {}
     sel, sign = branch

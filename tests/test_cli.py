@@ -433,3 +433,22 @@ def test_iv_text_keeps_three_significant_digits_of_small_figures(tmp_path, capsy
     for key in checked:
         number = float(shown[names.words(key)])
         assert number == pytest.approx(names.to_display(key, metrics[key]), rel=5e-3), key
+
+
+def test_iv_text_says_which_biases_it_analysed(tmp_path, capsys) -> None:
+    # fuzz finds: '--points 3' (0, 0.5 and 1 V, a clear fall between the last two) printed "no
+    # negative differential resistance" though the figures of merit need three biases of one
+    # polarity; a sweep from -1 to 1 V analysed the positive biases only without saying so.
+    # The rule is physics.iv.metrics_branch's; no external reference (what the text says).
+    text = (ROOT / "studies" / "gaas_low_power_memory.toml").read_text()
+    path = write_stack(tmp_path, text + '\n[model]\nelectrostatics = "linear"\n')
+
+    def run(*options: str) -> str:
+        out = tmp_path / f"out{len(options)}{options[-1]}"
+        assert main(["iv", str(path), "--out", str(out), "--no-figures", *options]) == 0
+        return capsys.readouterr().out
+
+    assert "fewer than three biases of either polarity" in run("--points", "3")
+    both = run("--bias-min", "-1", "--bias-max", "1", "--points", "81")
+    assert "of the positive biases; the sweep's other polarity is drawn, not analysed" in both
+    assert "other polarity" not in run("--points", "41")

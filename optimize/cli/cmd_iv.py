@@ -26,6 +26,7 @@ from wellwright.physics.iv import (
     VALLEY_EXTENSION_FACTOR,
     external_bias_v,
     higher_peak_beyond_valley,
+    metrics_branch,
     stack_iv,
 )
 from wellwright.physics.stack import load_stack, read_toml
@@ -237,10 +238,21 @@ def _print_text(stack, record: dict, bias: np.ndarray) -> None:
     _print_added_biases(np.asarray(record["bias_v"]), bias)
     for line in record["islands"]:
         print(f"  {line}")
+    branch = metrics_branch(bias)
+    if branch is None:
+        print("  fewer than three biases of either polarity: no figures of merit (raise --points)")
+        return
     if m["peak_current_density_a_cm2"] is None:
         print("  no negative differential resistance in this sweep")
         return
-    print("  first NDR peak and its valley:")
+    both = np.any(bias > 0) and np.any(bias < 0)
+    side = ("positive" if branch[1] > 0 else "negative") + " biases"
+    print(
+        f"  first NDR peak and its valley (of the {side}; the sweep's other polarity is drawn, "
+        "not analysed: sweep it alone for its figures):"
+        if both
+        else "  first NDR peak and its valley:"
+    )
     bound = bool(record["bounded_by_sweep"])
     for key in METRIC_NAMES:
         if key == VALLEY_BOUNDED:
