@@ -82,6 +82,21 @@ def _scan_draw(seed: int, draw: int):
     return stack, sign * top, rng
 
 
+def _charge_collapse(table, lo: float, hi: float) -> tuple[float, float]:
+    """The biases 1 nV apart between which single solves' well charge falls below 1e11
+    cm^-2 (charged at ``lo``, collapsed at ``hi``, V), by bisection."""
+    from wellwright.physics.electrostatics import solve_stack_poisson
+
+    def charge(v: float) -> float:
+        return float(solve_stack_poisson(table, np.array([v]))[1].well_sheet_cm2[0, 0])
+
+    assert charge(lo) > 1e11 > charge(hi)
+    while hi - lo > 1e-9:
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if charge(mid) > 1e11 else (lo, mid)
+    return lo, hi
+
+
 def _agree(a: dict, b: dict) -> None:
     for name in ("peak", "valley", "peak_up"):
         j, v = f"{name}_current_density_a_cm2", f"{name}_voltage_v"
@@ -575,19 +590,10 @@ def test_a_peak_just_past_a_collapse_of_the_well_charge_is_zoomed_to_the_collaps
     apart). Until 2026-12-05 this test took a copy with rounded layers, whose discharged
     branch stays above the current before the collapse for 37 uV only: its peak is now that
     current (test_a_spike_narrower_than_the_zoom_past_a_jump_of_the_charge_is_not_the_peak)."""
-    from wellwright.physics.electrostatics import solve_stack_poisson
-
     stack, end_v, _ = _scan_draw(131, 46)
     table = stack.table()
-
-    def charge(v: float) -> float:
-        return float(solve_stack_poisson(table, np.array([v]))[1].well_sheet_cm2[0, 0])
-
-    lo, hi = 0.2581, 0.2583  # charged at lo, collapsed at hi (measured: 2.0e11 and 8.7e9)
-    assert charge(lo) > 1e11 > charge(hi)
-    while hi - lo > 1e-9:
-        mid = 0.5 * (lo + hi)
-        lo, hi = (mid, hi) if charge(mid) > 1e11 else (lo, mid)
+    # charged at 0.2581 V, collapsed at 0.2583 V (measured: 2.0e11 and 8.7e9 cm^-2)
+    lo, hi = _charge_collapse(table, 0.2581, 0.2583)
     limit = current_at_bias(table, np.array([hi + 1e-9]), model=stack.model)[0][0]
     before = current_at_bias(table, np.array([lo]), model=stack.model)[0][0]
     assert limit > 1.02 * before  # the current jumps up at the collapse
@@ -832,19 +838,10 @@ def test_a_spike_narrower_than_the_zoom_past_a_jump_of_the_charge_is_not_the_pea
     biases within 1e-3 of it (measured after: within 6e-5) and Vp within 5 mV. A spike that
     stays up longer is the peak
     (test_a_peak_just_past_a_collapse_of_the_well_charge_is_zoomed_to_the_collapse: 80 uV)."""
-    from wellwright.physics.electrostatics import solve_stack_poisson
-
     stack, end_v, _ = _scan_draw(151, 26)
     table = stack.table()
-
-    def charge(v: float) -> float:
-        return float(solve_stack_poisson(table, np.array([v]))[1].well_sheet_cm2[0, 0])
-
-    lo, hi = 1.5640, 1.5643  # charged at lo, collapsed at hi (measured: 5.3e11 and 2.7e10)
-    assert charge(lo) > 1e11 > charge(hi)
-    while hi - lo > 1e-9:
-        mid = 0.5 * (lo + hi)
-        lo, hi = (mid, hi) if charge(mid) > 1e11 else (lo, mid)
+    # charged at 1.5640 V, collapsed at 1.5643 V (measured: 5.3e11 and 2.7e10 cm^-2)
+    lo, hi = _charge_collapse(table, 1.5640, 1.5643)
     before = current_at_bias(table, np.array([lo]), model=stack.model)[0][0]
     coarse, fine = _on_61_and_241(stack, end_v)
     for m in (coarse, fine):
