@@ -395,10 +395,9 @@ def _resolved_peak_valley(v_abs, j_side, table) -> tuple[np.ndarray, np.ndarray]
     if np.any(low):
         warnings.warn(
             GridAccuracyWarning(
-                f"the largest current of the sweep, {largest[low].max():.2g} A/cm^2, is below "
-                f"{floor_a_cm2[low].min():.2g} A/cm^2, what a line narrower than "
-                f"{LINE_WIDTH_FLOOR_EV:.0e} eV carries (the energy grid does not resolve such "
-                "lines): no peak or valley is reported"
+                f"a sweep whose currents stay below {floor_a_cm2[low].min():.0e} A/cm^2, what a "
+                f"line narrower than {LINE_WIDTH_FLOOR_EV:.0e} eV carries (the energy grid does "
+                "not resolve such lines), reports no peak or valley"
             ),
             stacklevel=3,
         )

@@ -163,6 +163,28 @@ def test_run_with_zero_trials_writes_nothing(write_study, tmp_path, capsys):
     assert _listing(tmp_path) == before
 
 
+@pytest.mark.parametrize(
+    ("option", "value", "key"),
+    [
+        ("--workers", "0", "--workers"),
+        ("--jobs", "0", "--jobs"),
+        ("--jobs", "-2", "--jobs"),
+        ("--storage", "mysql://nobody@nohost/db", "--storage"),
+    ],
+)
+def test_run_options_are_checked_before_the_run_folder(
+    write_study, tmp_path, capsys, option, value, key
+):
+    # fuzz finds: '--workers 0' and an unsupported database left pipeline.json and
+    # study.toml in the run folder before failing; '--jobs 0' and '--jobs -2' were accepted
+    study = write_study(study_text())
+    before = _listing(tmp_path)
+    argv = ["run", str(study), "--out", str(tmp_path / "r"), option, value, "--no-progress"]
+    assert main(argv) == 2
+    assert f"key '{key}'" in _one_error_line(capsys, "run")
+    assert _listing(tmp_path) == before
+
+
 def test_broken_pipe_gives_no_traceback():
     # `wellwright materials --json | head -c 10`: the reader leaves early
     proc = subprocess.run(

@@ -396,7 +396,7 @@ def test_currents_below_the_resolved_line_floor_make_no_peak() -> None:
     floor = resolved_current_floor_a_cm2(table)[0]
     assert floor == pytest.approx(expected, rel=1e-6)
     bias = np.linspace(0.0, 0.6, 61)
-    with pytest.warns(GridAccuracyWarning, match="no peak or valley"):
+    with pytest.warns(GridAccuracyWarning, match="reports no peak or valley"):
         m = sweep(table, bias, model=thick.model).metrics_of(0)
     assert m["peak_current_density_a_cm2"] is None and m["pvcr"] is None
     thin = _gaas_alas(8)

@@ -733,3 +733,31 @@ def test_morris_trajectories_grow_until_the_ranking_is_resolved(stack):
     )
     assert not two["ranking"]["resolved"], two["ranking"]
     assert two["ranking"]["evaluations"] == budget
+
+
+def test_warnings_of_worker_processes_reach_the_command() -> None:
+    # fuzz find: the tolerance stage's joblib workers printed their warnings raw on stderr
+    # (the energy grid's, with its source line, 13 times in a run) instead of through the
+    # command's one line each. Invented GaAs/AlAs stacks with 40 ML barriers (currents below
+    # the resolved-current floor, which warn) in two worker processes: each warning comes
+    # back to this process. No external reference (where the warnings go).
+    from wellwright.optimize.tolerance.analysis import evaluate_metrics
+    from wellwright.physics.current import GridAccuracyWarning
+    from wellwright.physics.stack import LayerTable, ModelOptions, parse_stack
+
+    layers = [
+        ("emitter", "GaAs", {"doping_cm3": 1e18}),
+        ("barrier1", "AlAs", {"thickness_ml": 40}),
+        ("well", "GaAs", {"thickness_ml": 20}),
+        ("barrier2", "AlAs", {"thickness_ml": 40}),
+        ("collector", "GaAs", {"doping_cm3": 1e18}),
+    ]
+    stack = parse_stack(
+        {"temperature_k": 300.0, "layers": [{"name": n, "material": m, **k} for n, m, k in layers]},
+        source="invented",
+    )
+    table = LayerTable.concatenate([stack.table()] * 4)
+    model = ModelOptions(electrostatics="linear", transport="coherent")
+    with pytest.warns(GridAccuracyWarning, match="reports no peak or valley"):
+        m = evaluate_metrics(table, np.linspace(0.0, 0.5, 21), model=model, batch_size=2, n_jobs=2)
+    assert np.all(np.isnan(m["peak_current_density_a_cm2"]))

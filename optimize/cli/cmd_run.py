@@ -8,6 +8,8 @@ import sys
 from pathlib import Path
 
 from wellwright.optimize.cli.pipeline import EXIT_SPEC_NOT_MET, METHODS, SpecNotMet, run_pipeline
+from wellwright.optimize.study.study import MAX_JOBS, MAX_WORKERS
+from wellwright.physics.errors import InputError
 
 
 def add_run_options(p: argparse.ArgumentParser) -> None:
@@ -102,6 +104,12 @@ def run(args: argparse.Namespace) -> int:
 
     if args.storage is not None:
         check_storage_url(args.storage)
+    # the search's and the tolerance stage's own checks, before the run folder is written
+    # (a fuzz run's '--workers 0' left pipeline.json and study.toml behind; '--jobs 0' ran)
+    if args.workers is not None and not 1 <= args.workers <= MAX_WORKERS:
+        raise InputError(f"{args.workers} outside [1, {MAX_WORKERS}]", key="--workers")
+    if args.jobs is not None and not 1 <= args.jobs <= MAX_JOBS:
+        raise InputError(f"{args.jobs} outside [1, {MAX_JOBS}]", key="--jobs")
     out = Path(args.out) if args.out else Path(f"{Path(args.study).stem}_run")
     try:
         run_pipeline(

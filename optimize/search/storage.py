@@ -69,6 +69,12 @@ def check_storage_url(url: str) -> None:
             "postgresql+psycopg2://user@host:5432/db",
             key="--storage",
         ) from None
+    if parsed.get_backend_name() not in ("sqlite", "postgresql"):
+        raise InputError(
+            f"{parsed.get_backend_name()!r} databases are not supported; use sqlite:///FILE or "
+            "postgresql+psycopg2://user@host:5432/db",
+            key="--storage",
+        )
     if parsed.get_backend_name() == "sqlite" and not parsed.database:
         raise InputError(
             "an in-memory SQLite database cannot be shared or resumed; give a file", key="--storage"

@@ -105,6 +105,8 @@ STUDY_TABLES = ("targets", "constraints", "search", "sweep")
 ALLOWED_TOP_KEYS = tuple(sorted(TOP_KEYS | set(STUDY_TABLES) | set(RESERVED_TABLES)))
 SAMPLERS = ("tpe", "nsga2", "random")
 MAX_WORKERS = 256
+#: Most local processes of the tolerance stage (--jobs)
+MAX_JOBS = 256
 MAX_POINTS = 2001
 MAX_ABS_BIAS_V = 10.0
 #: Bounds of ``[search] robust_samples`` (and ``--robust-samples``).

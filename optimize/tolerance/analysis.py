@@ -190,6 +190,16 @@ def metric_keys(at_bias_v: Sequence[float] = (), area_um2: float | None = None) 
     return (*METRIC_NAMES, *extra)
 
 
+def _batch_metrics_said(*args: Any) -> tuple[dict[str, np.ndarray], list[tuple[type, str]]]:
+    """:func:`batch_metrics` and the warnings it raised (category, message), so that a worker
+    process's warnings reach the command's one line each instead of its stderr raw (a fuzz
+    run's tolerance stage printed the energy grid's warning with its source line 13 times)."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = batch_metrics(*args)
+    return result, list(dict.fromkeys((w.category, str(w.message)) for w in caught))
+
+
 def batch_metrics(
     table: LayerTable,
     bias_v: np.ndarray,
@@ -326,7 +336,9 @@ def evaluate_metrics(
     batches = list(_batches(table, batch_size))
     starts = [b[0] for b in batches]
     jobs = (
-        delayed(batch_metrics)(t, bias_v, model, series_resistance_ohm_um2, w, at_bias_v, area_um2)
+        delayed(_batch_metrics_said)(
+            t, bias_v, model, series_resistance_ohm_um2, w, at_bias_v, area_um2
+        )
         for _, _, t, w in batches
     )
     bar = None
@@ -344,8 +356,10 @@ def evaluate_metrics(
     )
     with config:
         results = Parallel(n_jobs=n_jobs, return_as="generator")(jobs)
-        for s, r in zip(starts, results, strict=True):
+        for s, (r, said) in zip(starts, results, strict=True):
             parts.append(r)
+            for category, message in said:  # a worker's warnings, said once by the command
+                warnings.warn(message, category, stacklevel=2)
             if bar is not None:
                 bar.update(min(batch_size, n - s))
     if bar is not None:
