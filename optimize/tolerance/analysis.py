@@ -197,7 +197,7 @@ def _batch_metrics_said(*args: Any) -> tuple[dict[str, np.ndarray], list[tuple[t
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = batch_metrics(*args)
-    return result, list(dict.fromkeys((w.category, str(w.message)) for w in caught))
+    return result, [(w.category, str(w.message)) for w in caught]
 
 
 def batch_metrics(
