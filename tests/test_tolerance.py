@@ -761,3 +761,29 @@ def test_warnings_of_worker_processes_reach_the_command() -> None:
     with pytest.warns(GridAccuracyWarning, match="reports no peak or valley"):
         m = evaluate_metrics(table, np.linspace(0.0, 0.5, 21), model=model, batch_size=2, n_jobs=2)
     assert np.all(np.isnan(m["peak_current_density_a_cm2"]))
+
+
+@pytest.mark.parametrize(
+    ("params", "message"),
+    [
+        ({"barrier1.thickness_ml": 5, "well.thickness_ml": 30}, "outside this study's range"),
+        ({"b1.thickness_ml": 5, "well.thickness_ml": 12}, "its designs are not of this study"),
+    ],
+)
+def test_cli_refuses_a_search_of_another_study(tmp_path, capsys, params, message):
+    # fuzz find: 'tolerance' took an InP study's best design onto a GaAs study (its well
+    # outside the study's range) and reported a yield of 0 % for it
+    from conftest import study_text
+
+    f = tmp_path / "s.toml"
+    f.write_text(study_text())
+    search = tmp_path / "search"
+    search.mkdir()
+    designs = [{"rank": 1, "trial": 0, "feasible": True, "params": params}]
+    (search / "designs.json").write_text(json.dumps(designs))
+    out = tmp_path / "tol"
+    argv = ["tolerance", str(f), "--design", "best", "--search-dir", str(search)]
+    assert main([*argv, "--out", str(out), "--no-progress"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and message in err[0] and "key '--search-dir'" in err[0]
+    assert not out.exists()

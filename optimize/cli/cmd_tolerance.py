@@ -147,6 +147,7 @@ def _from_search(study: Study, which: str, search_dir: Path) -> tuple[Stack, dic
             "analyse an off-spec design",
             key="--design",
         )
+    _check_same_space(study, rec["params"], path)
     stack = study.stack(rec["params"])
     return stack, {
         "source": str(path),
@@ -154,6 +155,29 @@ def _from_search(study: Study, which: str, search_dir: Path) -> tuple[Stack, dic
         "trial": rec.get("trial"),
         "params": rec["params"],
     }
+
+
+def _check_same_space(study: Study, params: dict[str, Any], path: Path) -> None:
+    """One line where a search's design does not belong to ``study``: other parameters, or a
+    value outside the study's range (a fuzz run analysed an InP study's design with a GaAs
+    study, its well outside the study's range, and reported a yield of 0 %)."""
+    names = set(study.parameter_names)
+    if set(params) != names:
+        raise InputError(
+            f"its designs are not of this study: parameters {', '.join(sorted(params))} "
+            f"against the study's {', '.join(sorted(names)) or '(none)'}; give the study file "
+            "the search ran",
+            source=str(path),
+            key="--search-dir",
+        )
+    for v in study.variables:
+        if not v.contains(float(params[v.name])):
+            raise InputError(
+                f"its design has {v.name} = {params[v.name]:g}, outside this study's range "
+                f"[{v.low:g}, {v.high:g}]; give the study file the search ran",
+                source=str(path),
+                key="--search-dir",
+            )
 
 
 def _from_file(study: Study, path: Path) -> tuple[Stack, dict[str, Any], dict[str, Any]]:
