@@ -152,3 +152,36 @@ def test_the_band_diagram_names_the_lowest_levels_and_draws_them_in_their_wells(
     assert len(levels) == 2  # one in each well
     (a0, a1), (b0, b1) = sorted((s[0][0], s[1][0]) for s in levels)
     assert a1 < b0  # a gap between them: the middle barrier
+
+
+def test_figures_of_a_design_without_a_peak_do_not_say_at_the_peak(tmp_path, monkeypatch) -> None:
+    # fuzz find: a design with no NDR had its band diagram titled "conduction band at the
+    # peak, 500 mV" and narrow levels labelled "Γ = 0.0 µeV". No external reference: the
+    # words must match the curve (no peak) and a width must not print as zero.
+    import matplotlib.figure
+    from wellwright.optimize.shared import figures
+
+    titles: list[str] = []
+    real = matplotlib.figure.Figure.savefig
+
+    def keep_title(fig, *a, **k):
+        titles.extend(ax.get_title() for ax in fig.axes)
+        return real(fig, *a, **k)
+
+    monkeypatch.setattr(matplotlib.figure.Figure, "savefig", keep_title)
+    data = {
+        "temperature_k": 300.0,
+        "model": FAST,
+        "layers": [
+            {"name": "emitter", "material": "GaAs", "thickness_nm": 20, "doping_cm3": 2e18},
+            {"name": "barrier", "material": "AlAs", "thickness_ml": 6},
+            {"name": "collector", "material": "GaAs", "thickness_nm": 20, "doping_cm3": 2e18},
+        ],
+    }
+    single = parse_stack(data)
+    curves = sweep(single.table(), np.linspace(0.0, 0.6, 21), model=single.model)
+    assert curves.metrics_of(0)["peak_voltage_v"] is None
+    figures.iv_figures(single, curves, tmp_path, label="rank 1")
+    band = next(t for t in titles if "conduction band" in t)
+    assert "no NDR peak" in band and "at the peak" not in band
+    assert figures._fmt_energy(3e-11) == "3e-11 eV" and figures._fmt_energy(2e-6) == "2.0 µeV"

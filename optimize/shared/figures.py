@@ -467,9 +467,12 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
 
 
 def _fmt_energy(value_ev: float) -> str:
+    """A level's width in meV or µeV; below 0.1 µeV in eV (it printed as "0.0 µeV")."""
     if value_ev >= 1e-3:
         return f"{value_ev * 1e3:.2f} meV"
-    return f"{value_ev * 1e6:.1f} µeV"
+    if value_ev >= 1e-7:
+        return f"{value_ev * 1e6:.1f} µeV"
+    return f"{value_ev:.2g} eV"
 
 
 def transmission_figure(stack: Stack, biases_v: list[float], *, title: str = ""):
@@ -535,7 +538,11 @@ def iv_figures(
 
     out = Path(out_dir)
     m = curves.metrics_of(i)
-    peak = m["peak_voltage_v"] if m["peak_voltage_v"] is not None else float(curves.bias_v[-1]) / 2
+    has_peak = m["peak_voltage_v"] is not None
+    # without an NDR peak the figures are drawn at mid-sweep, and say so (a fuzz run's designs
+    # with no NDR had "conduction band at the peak, 500 mV")
+    peak = m["peak_voltage_v"] if has_peak else float(curves.bias_v[-1]) / 2
+    where = "at the peak" if has_peak else "at mid-sweep (no NDR peak)"
     head = f"{label}: " if label else ""
     paths = {
         "iv": save_figure(
@@ -551,7 +558,7 @@ def iv_figures(
             band_diagram_figure(
                 stack,
                 peak,
-                title=f"{head}conduction band at the peak, {peak * 1e3:.0f} mV" if label else "",
+                title=f"{head}conduction band {where}, {peak * 1e3:.0f} mV" if label else "",
             ),
             out / f"{prefix}band_diagram.png",
         ),
