@@ -507,3 +507,17 @@ def test_fuzz_study_parser_raises_only_input_errors(table, key, value):
     data = copy.deepcopy(STUDY)
     data.setdefault(table, {})[key] = value
     _only_input_errors(parse_study, data, source="fuzz")
+
+
+@pytest.mark.parametrize("command", ["search", "run"])
+def test_a_growth_cell_missing_is_said_before_the_search(write_study, tmp_path, capsys, command):
+    # fuzz find: [growth.cells] without the Al cell for an AlAs barrier was found by 'run' only
+    # after the whole search (which it wrote), without the layer's name, and not by 'search'
+    cells = "[growth]\nthickness_ml_sigma = 0.5\n[growth.cells]\nIn = {flux_sigma = 0.01}\n"
+    study = write_study(study_text(extra=cells + "Ga = {flux_sigma = 0.01}\n"))
+    before = _listing(tmp_path)
+    argv = [command, str(study), "--out", str(tmp_path / "r"), "--no-progress"]
+    assert main(argv) == 2
+    line = _one_error_line(capsys, command)
+    assert "('barrier1')" in line and "key 'growth.cells'" in line and "Al cell" in line
+    assert _listing(tmp_path) == before

@@ -538,11 +538,11 @@ def iv_figures(
 
     out = Path(out_dir)
     m = curves.metrics_of(i)
-    has_peak = m["peak_voltage_v"] is not None
     # without an NDR peak the figures are drawn at mid-sweep, and say so (a fuzz run's designs
     # with no NDR had "conduction band at the peak, 500 mV")
-    peak = m["peak_voltage_v"] if has_peak else float(curves.bias_v[-1]) / 2
-    where = "at the peak" if has_peak else "at mid-sweep (no NDR peak)"
+    v_peak = m["peak_voltage_v"]
+    peak = v_peak if v_peak is not None else float(curves.bias_v[-1]) / 2
+    where = "at the peak" if v_peak is not None else "at mid-sweep (no NDR peak)"
     head = f"{label}: " if label else ""
     paths = {
         "iv": save_figure(

@@ -630,6 +630,15 @@ def _run_position(stack: Stack) -> np.ndarray:
     return pos
 
 
+def check_cells(stack: Stack, settings: GrowthSettings) -> None:
+    """An :class:`InputError` where a layer of ``stack`` grows from a group-III cell that
+    ``settings.cells`` does not declare (none without cells); what :func:`growth_model` finds
+    later, said when the study is read (a fuzz run's ``run`` found it only after the search,
+    and ``search`` not at all)."""
+    if settings.cells:
+        _cell_use(stack, settings)
+
+
 def _cell_use(stack: Stack, settings: GrowthSettings) -> CellUse:
     iii = [c.name for c in settings.cells if not c.dopant]
     n = len(stack.layers)
@@ -643,6 +652,7 @@ def _cell_use(stack: Stack, settings: GrowthSettings) -> CellUse:
                     f"declare (declared: {', '.join(c.name for c in settings.cells)})",
                     source=stack.source,
                     layer=i,
+                    layer_name=layer.name,
                     key="growth.cells",
                 )
             share[iii.index(cell), i] = frac

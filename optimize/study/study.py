@@ -56,7 +56,7 @@ import numpy as np
 from wellwright.optimize.study import space as _space
 from wellwright.optimize.study import targets as _targets
 from wellwright.optimize.study.calibration import apply_calibration
-from wellwright.optimize.study.growth import GrowthSettings, parse_growth
+from wellwright.optimize.study.growth import GrowthSettings, check_cells, parse_growth
 from wellwright.optimize.study.run_settings import MAX_TRIALS, settings_from_tables
 from wellwright.optimize.study.space import RANGE_KEYS, Variable, is_finite_number, parse_space
 from wellwright.optimize.study.targets import (
@@ -436,12 +436,14 @@ def parse_study(
     )
     _check_corners(study)
     # [growth] is a later stage's, but a bad entry must stop the run before a search is written
-    parse_growth(
+    growth, _ = parse_growth(
         study.reserved.get("growth"),
         study.layer_growth,
         layer_names=study.layer_names,
         source=source,
     )
+    # the materials, and so the cells they grow from, are the same at every corner
+    check_cells(study.stack({v.name: v.low for v in study.variables}), growth)
     # [report] and [tolerance] belong to `run`, but every command that reads the file checks them
     settings_from_tables(reserved.get("report"), reserved.get("tolerance"), source=source)
     baseline = _parse_baseline(
