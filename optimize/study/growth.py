@@ -634,7 +634,15 @@ def check_cells(stack: Stack, settings: GrowthSettings) -> None:
     """An :class:`InputError` where a layer of ``stack`` grows from a group-III cell that
     ``settings.cells`` does not declare (none without cells); what :func:`growth_model` finds
     later, said when the study is read (a fuzz run's ``run`` found it only after the search,
-    and ``search`` not at all)."""
+    and ``search`` not at all).
+
+    Parameters
+    ----------
+    stack
+        A stack of the study (its materials are those of every design).
+    settings
+        The global growth settings (``[growth]``).
+    """
     if settings.cells:
         _cell_use(stack, settings)
 
