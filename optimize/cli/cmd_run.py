@@ -8,8 +8,7 @@ import sys
 from pathlib import Path
 
 from wellwright.optimize.cli.pipeline import EXIT_SPEC_NOT_MET, METHODS, SpecNotMet, run_pipeline
-from wellwright.optimize.study.study import MAX_JOBS, MAX_WORKERS
-from wellwright.physics.errors import InputError
+from wellwright.optimize.study.study import MAX_JOBS, MAX_WORKERS, check_process_count
 
 
 def add_run_options(p: argparse.ArgumentParser) -> None:
@@ -106,10 +105,8 @@ def run(args: argparse.Namespace) -> int:
         check_storage_url(args.storage)
     # the search's and the tolerance stage's own checks, before the run folder is written
     # (a fuzz run's '--workers 0' left pipeline.json and study.toml behind; '--jobs 0' ran)
-    if args.workers is not None and not 1 <= args.workers <= MAX_WORKERS:
-        raise InputError(f"{args.workers} outside [1, {MAX_WORKERS}]", key="--workers")
-    if args.jobs is not None and not 1 <= args.jobs <= MAX_JOBS:
-        raise InputError(f"{args.jobs} outside [1, {MAX_JOBS}]", key="--jobs")
+    check_process_count(args.workers, high=MAX_WORKERS, key="--workers")
+    check_process_count(args.jobs, high=MAX_JOBS, key="--jobs")
     out = Path(args.out) if args.out else Path(f"{Path(args.study).stem}_run")
     try:
         run_pipeline(

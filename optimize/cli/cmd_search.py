@@ -12,6 +12,7 @@ from wellwright.optimize.study.study import (
     MAX_TRIALS,
     MAX_WORKERS,
     MIN_ROBUST_SAMPLES,
+    check_process_count,
     load_study,
 )
 from wellwright.physics import checks
@@ -74,8 +75,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 def _check_args(args: argparse.Namespace) -> None:
     if args.trials is not None and not 0 <= args.trials <= MAX_TRIALS:
         raise InputError(f"{args.trials} outside [0, {MAX_TRIALS}]", key="--trials")
-    if args.workers is not None and not 1 <= args.workers <= MAX_WORKERS:
-        raise InputError(f"{args.workers} outside [1, {MAX_WORKERS}]", key="--workers")
+    check_process_count(args.workers, high=MAX_WORKERS, key="--workers")
     if args.seed is not None:
         checks.seed(args.seed, key="--seed")
     if args.robust_samples is not None and not (

@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 from wellwright.optimize.shared.outputs import check_output_folder
 from wellwright.optimize.study.growth import growth_model, parse_growth, split_layer_growth
-from wellwright.optimize.study.study import MAX_JOBS, Study, load_study
+from wellwright.optimize.study.study import MAX_JOBS, Study, check_process_count, load_study
 from wellwright.optimize.tolerance.analysis import (
     METHODS,
     Runner,
@@ -116,8 +116,7 @@ def _check_args(args: argparse.Namespace) -> None:
         raise InputError(f"{args.allocate} outside [0, 50]", key="--allocate")
     if not 0.0 < args.target_yield < 1.0:
         raise InputError(f"{args.target_yield:g} outside (0, 1)", key="--target-yield")
-    if args.jobs is not None and not 1 <= args.jobs <= MAX_JOBS:
-        raise InputError(f"{args.jobs} outside [1, {MAX_JOBS}]", key="--jobs")
+    check_process_count(args.jobs, high=MAX_JOBS, key="--jobs")
     checks.seed(args.seed, key="--seed")
     if args.cluster is not None and not args.cluster.startswith(("tcp://", "tls://")):
         raise InputError(

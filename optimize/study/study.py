@@ -107,6 +107,25 @@ SAMPLERS = ("tpe", "nsga2", "random")
 MAX_WORKERS = 256
 #: Most local processes of the tolerance stage (--jobs)
 MAX_JOBS = 256
+
+
+def check_process_count(value: int | None, *, high: int, key: str) -> None:
+    """One line where a count of processes (``--workers``, ``--jobs``; None: the default) lies
+    outside ``[1, high]``; shared by the commands that take it.
+
+    Parameters
+    ----------
+    value
+        The command-line value, or None.
+    high
+        The largest allowed.
+    key
+        The option, for the message.
+    """
+    if value is not None and not 1 <= value <= high:
+        raise InputError(f"{value} outside [1, {high}]", key=key)
+
+
 MAX_POINTS = 2001
 MAX_ABS_BIAS_V = 10.0
 #: Bounds of ``[search] robust_samples`` (and ``--robust-samples``).
