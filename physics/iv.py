@@ -75,6 +75,7 @@ __all__ = [
     "IVCurves",
     "sweep",
     "stack_iv",
+    "island_table",
     "band_profile",
     "current_at_bias",
     "current_of_profile",
@@ -1959,20 +1960,7 @@ def stack_iv(
         Indices (from 0) of layers with a fractional ``thickness_ml`` taken as monolayer
         islands.
     """
-    table = stack.table()
-    weights = None
-    if island_layers:
-        ml = np.full((1, len(stack.layers)), np.nan)
-        for i in island_layers:
-            ml[0, i] = stack.layers[i].thickness_ml
-        mix = island_mixture(ml)
-        table = table.take(np.zeros(mix.owner.size, int))
-        mono = np.array(
-            [np.nan if lay.monolayer_nm is None else lay.monolayer_nm for lay in stack.layers]
-        )
-        whole = np.where(np.isfinite(mix.whole_ml), mix.whole_ml * mono, table.thickness_nm)
-        table = table.with_thickness_nm(whole)
-        weights = area_weight_matrix(mix.owner, area_share=mix.area_share, n_samples=1)
+    table, weights = island_table([stack], island_layers)
     return sweep(
         table,
         bias_v,
@@ -1982,6 +1970,39 @@ def stack_iv(
         series_resistance_ohm_um2=stack.device.series_resistance_ohm_um2,
         area_weights=weights,
     )
+
+
+def island_table(
+    stacks: Sequence[Stack], island_layers: Sequence[int] = ()
+) -> tuple[LayerTable, np.ndarray | None]:
+    """The stacks' layer table with the fractional ``thickness_ml`` of ``island_layers``
+    taken as monolayer islands, and the area weights mixing its rows into the stacks.
+
+    Without island layers: the stacks' own table and ``None`` (one device per row).
+    Otherwise each stack becomes its whole-monolayer combinations
+    (:func:`physics.islands.island_mixture`; a whole thickness is one combination),
+    and the weights are ``(n_stacks, n_rows)`` for :func:`sweep`'s ``area_weights``.
+
+    Parameters
+    ----------
+    stacks
+        Validated stacks with the same layer count.
+    island_layers
+        Indices (from 0) of the layers taken as islands.
+    """
+    table = LayerTable.from_stacks(list(stacks))
+    if not island_layers:
+        return table, None
+    ml = np.full(table.thickness_nm.shape, np.nan)
+    mono = np.full(table.thickness_nm.shape, np.nan)
+    for i in island_layers:
+        ml[:, i] = [s.layers[i].thickness_ml for s in stacks]
+        mono[:, i] = [s.layers[i].monolayer_nm for s in stacks]
+    mix = island_mixture(ml)
+    rows = table.take(mix.owner)
+    whole = np.where(np.isfinite(mix.whole_ml), mix.whole_ml * mono[mix.owner], rows.thickness_nm)
+    weights = area_weight_matrix(mix.owner, area_share=mix.area_share, n_samples=len(stacks))
+    return rows.with_thickness_nm(whole), weights
 
 
 def external_bias_v(

@@ -18,6 +18,7 @@ from wellwright.optimize.shared.outputs import (
     write_csv,
     write_json,
 )
+from wellwright.optimize.study.space import island_text
 from wellwright.physics.errors import InputError
 from wellwright.physics.iv import (
     BOUNDED_BY_SWEEP,
@@ -179,11 +180,7 @@ def fractional_layers(path: str | Path, stack) -> tuple[list[int], list[str]]:
         t = given.get("thickness_ml") if isinstance(given, dict) else None
         if isinstance(t, (int, float)) and not float(t).is_integer():
             index.append(i)
-            n, f = int(np.floor(t)), t - np.floor(t)
-            lines.append(
-                f"layer {i + 1} '{lay.name}' at {t:g} ML: islands of {n} ML ({100 * (1 - f):.0f} % "
-                f"of the area) and {n + 1} ML ({100 * f:.0f} %); the I-V is their area-weighted mixture"
-            )
+            lines.append(f"layer {i + 1} '{lay.name}' at {t:g} ML: {island_text(t)}")
     return index, lines
 
 

@@ -225,7 +225,7 @@ def write_design_files(study: Study, design: dict[str, Any], out_dir: Path) -> d
         "error": None,
     }
     try:
-        curves = stack_iv(stack, study.sweep.bias_v)
+        curves = stack_iv(stack, study.sweep.bias_v, island_layers=study.island_layers)
         write_csv(
             out_dir / DESIGN_IV,
             ["bias_v", "current_density_a_cm2"],

@@ -455,7 +455,7 @@ def write_outputs(
             from wellwright.physics.iv import stack_iv
 
             stack = study.stack(best["params"])
-            curves = stack_iv(stack, study.sweep.bias_v)
+            curves = stack_iv(stack, study.sweep.bias_v, island_layers=study.island_layers)
             paths = iv_figures(stack, curves, out / "best_design")
             files.update({f"best_{k}": str(v) for k, v in paths.items()})
     result.files = files

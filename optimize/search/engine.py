@@ -104,7 +104,7 @@ from wellwright.optimize.study.study import MAX_ROBUST_SAMPLES, MIN_ROBUST_SAMPL
 from wellwright.optimize.tolerance.analysis import yield_record
 from wellwright.physics.electrostatics import ElectrostaticsConvergenceError
 from wellwright.physics.errors import InputError
-from wellwright.physics.stack import LayerTable, Stack
+from wellwright.physics.stack import Stack
 
 __all__ = [
     "SearchResult",
@@ -144,12 +144,17 @@ EVALUATION_ERRORS: tuple[type[Exception], ...] = (ElectrostaticsConvergenceError
 #: ``evaluator(stacks, bias_v) -> {metric name: (n_stacks,) array}``, NaN where
 #: there is no NDR. Must be a module-level function (workers receive it by name). When
 #: the spec asks for currents at stated biases it is called with ``at_bias_v=`` (those
-#: biases) too, and must return them (:func:`nominal_metrics`).
+#: biases) too, and must return them (:func:`nominal_metrics`); when the study grows a
+#: fractional layer as islands, with ``island_layers=`` (:attr:`Study.island_layers`).
 Evaluator = Callable[..., dict[str, np.ndarray]]
 
 
 def nominal_metrics(
-    stacks: Sequence[Stack], bias_v: np.ndarray, *, at_bias_v: Sequence[float] = ()
+    stacks: Sequence[Stack],
+    bias_v: np.ndarray,
+    *,
+    at_bias_v: Sequence[float] = (),
+    island_layers: Sequence[int] = (),
 ) -> dict[str, np.ndarray]:
     """Figures of merit of the stacks as given, in one batched sweep; also the current at
     each stated bias (computed there: :func:`wellwright.physics.iv.sweep`),
@@ -163,16 +168,21 @@ def nominal_metrics(
         Bias sweep, V.
     at_bias_v
         Stated biases, V, at which the current is also computed.
+    island_layers
+        Layers whose fractional ``thickness_ml`` is grown as monolayer islands
+        (:attr:`wellwright.optimize.study.Study.island_layers`): each design is then the
+        area-weighted mixture of its whole-monolayer stacks.
     """
-    from wellwright.physics.iv import sweep
+    from wellwright.physics.iv import island_table, sweep
 
-    table = LayerTable.from_stacks(list(stacks))
+    table, weights = island_table(stacks, island_layers)
     resistance = [s.device.series_resistance_ohm_um2 for s in stacks]
     return sweep(
         table,
         bias_v,
         model=stacks[0].model,
         series_resistance_ohm_um2=np.array(resistance),
+        area_weights=weights,
         at_bias_v=at_bias_v,
         area_um2=stacks[0].device.area_um2,
     ).metrics
@@ -297,7 +307,9 @@ def evaluate(
     n = len(params_list)
     names = study.metric_names
     metrics = {k: np.full(n, np.nan) for k in names}
-    extra = {"at_bias_v": study.at_bias_v} if study.at_bias_v else {}
+    extra: dict[str, Any] = {"at_bias_v": study.at_bias_v} if study.at_bias_v else {}
+    if study.island_layers:
+        extra["island_layers"] = study.island_layers
     t0 = time.perf_counter()
     if valid:
         bias = study.sweep.bias_v
@@ -345,7 +357,9 @@ def evaluate(
             "feasible": feasible,
             "spec_violation": float(violation[i]),
             "constraints": constraints,
-            "layers": layer_records(built_i) if built_i is not None else None,
+            "layers": layer_records(built_i, islands=study.island_layers)
+            if built_i is not None
+            else None,
         }
         if study.search.robust:
             attrs["yield"] = yields[i]

@@ -479,8 +479,17 @@ def parse_range(
     )
 
 
-def layer_records(stack: Stack) -> list[dict[str, Any]]:
-    """The layers of a stack as plain records (contacts have no thickness)."""
+def layer_records(stack: Stack, *, islands: Sequence[int] = ()) -> list[dict[str, Any]]:
+    """The layers of a stack as plain records (contacts have no thickness).
+
+    Parameters
+    ----------
+    stack
+        The design.
+    islands
+        Layers (from 0) grown and simulated as monolayer islands (their record has
+        ``islands: true``; :attr:`wellwright.optimize.study.Study.island_layers`).
+    """
     out = []
     n = len(stack.layers)
     for i, layer in enumerate(stack.layers):
@@ -497,9 +506,26 @@ def layer_records(stack: Stack) -> list[dict[str, Any]]:
                 else (int(round(ml)) if abs(ml - round(ml)) < 1e-9 else ml),
                 "thickness_nm": None if contact else layer.thickness_nm,
                 "doping_cm3": layer.doping_cm3,
+                **({"islands": True} if i in islands else {}),
             }
         )
     return out
+
+
+def island_text(thickness_ml: float) -> str:
+    """How a fractional monolayer count is grown and simulated: its islands' shares.
+
+    Parameters
+    ----------
+    thickness_ml
+        The layer's monolayers (fractional).
+    """
+    n = math.floor(thickness_ml)
+    f = thickness_ml - n
+    return (
+        f"islands of {n} ML ({100 * (1 - f):.0f} % of the area) and {n + 1} ML "
+        f"({100 * f:.0f} %); the I-V is their area-weighted mixture"
+    )
 
 
 #: Columns of a growth sheet (:func:`growth_sheet_rows`).
@@ -509,17 +535,21 @@ GROWTH_SHEET_HEADER = ["layer", "name", "material", "x", "monolayers", "nm", "do
 def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
     """Rows of a design's growth sheet, in stack order (first row: emitter contact).
 
-    Material in trade notation; monolayers always whole numbers with the nm
-    they make beside them: a layer the study gives in nm whose thickness is
-    not a whole number of monolayers is rounded to the nearest and the last
-    column (``note``) says so. Contacts have no thickness (grown as thick as
-    the device process needs).
+    Material in trade notation; monolayers with the nm they make beside them.
+    A fractional ``thickness_ml`` the study fixes is grown as given, the last
+    monolayer part-covered, and was simulated as such islands (``islands`` in
+    the record): the last column (``note``) gives their shares. A layer the
+    study gives in nm whose thickness is not a whole number of monolayers is
+    rounded to the nearest and the note says so. Contacts have no thickness
+    (grown as thick as the device process needs).
     """
     rows = []
     for i, layer in enumerate(record["layers"] or []):
         ml, nm = layer["thickness_ml"], layer["thickness_nm"]
         note = ""
-        if ml is not None and nm and abs(ml - round(ml)) > 1e-6:
+        if layer.get("islands"):
+            note = f"grown to {ml:g} ML, the last monolayer part-covered: {island_text(ml)}"
+        elif ml is not None and nm and abs(ml - round(ml)) > 1e-6:
             whole = max(1, round(ml))
             note = (
                 f"given as {nm:.3f} nm = {ml:.2f} ML; rounded to {whole} ML "
@@ -532,7 +562,7 @@ def growth_sheet_rows(record: dict[str, Any]) -> list[list[Any]]:
                 layer["name"],
                 layer["label"],
                 "" if layer["x"] is None else f"{layer['x']:.3f}",
-                "" if ml is None else str(int(round(ml))),
+                "" if ml is None else (f"{ml:g}" if layer.get("islands") else str(int(round(ml)))),
                 "" if nm is None else f"{nm:.3f}",
                 f"{layer['doping_cm3']:.3g}",
                 note,

@@ -224,6 +224,19 @@ class Study:
         return tuple(layer["name"] for layer in self.base["layers"])
 
     @property
+    def island_layers(self) -> tuple[int, ...]:
+        """Layers (from 0) the file gives a fixed fractional ``thickness_ml``: grown as
+        monolayer islands and simulated so by every command (:mod:`wellwright.physics.islands`;
+        a range of ``thickness_ml`` is whole monolayers, a ``thickness_nm`` a uniform layer)."""
+        layers = self.base["layers"]
+        return tuple(
+            i
+            for i, layer in enumerate(layers[1:-1], start=1)
+            if is_finite_number(layer.get("thickness_ml"))
+            and not float(layer["thickness_ml"]).is_integer()
+        )
+
+    @property
     def multi_objective(self) -> bool:
         return len(self.objectives) >= 2
 
