@@ -333,6 +333,20 @@ def test_outputs_multi_objective_pareto(write_study, tmp_path):
         assert not any(np.all(vals(e) >= vals(d)) and np.any(vals(e) > vals(d)) for e in feasible)
 
 
+def test_the_pareto_figure_counts_designs_not_the_samplers_repeats(write_study):
+    """A repeat of a design (stored as a copy) is no new design: the title counts each once."""
+    from wellwright.optimize.search.figures import pareto_figure
+
+    study = _study(
+        write_study, targets='pvcr = {min = 2}\nmaximize = ["pvcr", "peak_current_density_a_cm2"]\n'
+    )
+    one = {"feasible": True, "values": [5.0, 1e5], "params": {"well.thickness_ml": 12}}
+    other = {"feasible": False, "values": [1.0, 1e4], "params": {"well.thickness_ml": 13}}
+    trials = [{**one, "trial": 0}, {**other, "trial": 1}, {**one, "trial": 2}]
+    title = pareto_figure(study, trials).axes[0].get_title()
+    assert "of 1 designs meeting the spec (1 others not shown" in title
+
+
 # --------------------------------------------------------------------------- processes
 
 

@@ -302,6 +302,10 @@ def test_thickness_and_metric_bound_constraints(write_study):
             lambda t: t + "[sweep]\nbias_max_v = -1\n",
             r"key 'sweep.bias_max_v': must be above bias_min_v \(0 V\)",
         ),
+        (  # the metrics take one branch (physics.iv.metrics_branch): the other was ignored
+            lambda t: t + "[sweep]\nbias_min_v = -1\nbias_max_v = 1\n",
+            r"key 'sweep': -1 to 1 V spans both polarities",
+        ),
         (
             lambda t: t + "[sweep]\npoints = 3\n",
             r"key 'sweep.points': must be a whole number in \[5, 2001\]",

@@ -674,6 +674,11 @@ def test_tolerance_record_has_wafer_yield_and_map(stack, tmp_path):
             "growth.wafer.thickness_profile",
             "edge",
         ),
+        (  # radii in cm where mm were meant: a profile past the edge
+            {"diameter_mm": 76.2, "thickness_profile": [[0, 1], [38.1, 0.99], [381, 0.9]]},
+            "growth.wafer.thickness_profile",
+            "its last radius is 381 mm",
+        ),
         (
             {"diameter_mm": 76.2, "thickness_profile": [[5, 1], [38.1, 0.99]]},
             "growth.wafer.thickness_profile",

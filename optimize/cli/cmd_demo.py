@@ -24,8 +24,8 @@ def register(sub: argparse._SubParsersAction) -> None:
         "demo",
         help="run the whole job on an invented demo scenario and print where the report is",
         description="Run search, growth tolerance and report on the InP oscillator scenario "
-        "shipped with wellwright (an invented demo, not measured data): a few minutes on two "
-        "cores, under a minute with --quick. Rerunning resumes.",
+        "shipped with wellwright (an invented demo, not measured data). Full size it is long "
+        "(about 1.5 h on two cores, README); --quick takes about a minute. Rerunning resumes.",
     )
     p.add_argument(
         "--out",

@@ -154,11 +154,13 @@ def pareto_figure(study: Study, trials: Sequence[dict[str, Any]]) -> Figure:
     study
         The study (its first two objectives).
     trials
-        Plain records ``{"trial", "feasible", "values"}`` of the complete trials
-        (:func:`wellwright.optimize.search.history.trial_points`).
+        Plain records ``{"trial", "feasible", "values", "params"}`` of the complete trials
+        (:func:`wellwright.optimize.search.history.trial_points`); a repeated design counts once.
     """
     o1, o2 = study.objectives[:2]
     (l1, f1), (l2, f2) = metric_axis(o1.metric), metric_axis(o2.metric)
+    distinct = {tuple(sorted(t["params"].items())): t for t in reversed(trials)}  # first of each
+    trials = sorted(distinct.values(), key=lambda t: t["trial"])  # a repeat is no new design
     ok = [t for t in trials if t["feasible"] and all(math.isfinite(v) for v in t["values"][:2])]
     fig = Figure(figsize=(6.4, 4.8))
     ax = fig.add_subplot()

@@ -499,9 +499,11 @@ def _parse_wafer(table: Any, *, source: str) -> WaferSettings:
             key="growth.wafer.thickness_profile",
         )
     wafer = WaferSettings(**vals)
-    if wafer.thickness_profile and wafer.thickness_profile[-1][0] < wafer.radius_mm - 1e-9:
+    last_mm = wafer.thickness_profile[-1][0] if wafer.thickness_profile else wafer.radius_mm
+    if abs(last_mm - wafer.radius_mm) > 1e-9:  # beyond the edge: a unit slip, cm for mm
         raise InputError(
-            f"must reach the wafer's edge ({wafer.radius_mm:g} mm)",
+            f"must end at the wafer's edge ({wafer.radius_mm:g} mm), its last radius is "
+            f"{last_mm:g} mm",
             source=source,
             key="growth.wafer.thickness_profile",
         )

@@ -588,6 +588,14 @@ def _parse_sweep(table: dict[str, Any], *, source: str) -> SweepSettings:
             source=source,
             key="sweep.bias_max_v",
         )
+    if values["bias_min_v"] < 0 < values["bias_max_v"]:  # figures of merit are of one branch
+        raise InputError(
+            f"{values['bias_min_v']:g} to {values['bias_max_v']:g} V spans both polarities; a "
+            "study's figures of merit are those of one: give bias_min_v >= 0 (forward) or "
+            "bias_max_v <= 0 (reverse), and a second study for the other",
+            source=source,
+            key="sweep",
+        )
     points = _int_setting(table, "points", 61, 5, MAX_POINTS, source=source, name="sweep")
     return SweepSettings(points=points, **values)
 
