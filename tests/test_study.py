@@ -220,6 +220,10 @@ def test_thickness_and_metric_bound_constraints(write_study):
             lambda t: t.replace("x = 0.53", "x = {min = 0.5, max = 1.5}"),
             r"layer 4 \('[^']+'\), key 'x': with every range at its max: 1.5 outside \[0, 1\]",
         ),
+        (  # a fixed key's error is not blamed on the ranges
+            lambda t: t.replace("temperature_k = 300", "temperature_k = 0.5"),
+            r"key 'temperature_k': 0.5 outside \[1, 1000\] K$",
+        ),
         (
             lambda t: t.replace("pvcr = {min = 3}", "pvrc = {min = 3}"),
             r"key 'targets.pvrc': unknown figure of merit; allowed: peak_current_density_a_cm2",

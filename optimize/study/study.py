@@ -499,7 +499,8 @@ def _check_corners(study: Study) -> None:
         try:
             study.stack(params)
         except InputError as exc:
-            prefix = f"with every range at its {corner}: " if study.variables else ""
+            ranged = any(exc.key == v.key and exc.layer in v.layers for v in study.variables)
+            prefix = f"with every range at its {corner}: " if ranged else ""
             raise InputError(
                 prefix + exc.message,
                 source=study.source,
