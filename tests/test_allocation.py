@@ -135,6 +135,29 @@ def test_paired_gain_is_the_exact_mcnemar_test(better, worse, p):
     assert not g["measurable"]
 
 
+def test_advice_gives_the_part_of_the_gain_test_that_failed_with_its_numbers():
+    # fuzz find: "+25.0 points, within the yield's noise (+-20.7)" where the paired test's
+    # p = 0.22 decided. Exact binomial arithmetic: 4 better, 0 worse of 16 gives p = 2 / 2^4
+    # = 0.125 (fails at 0.05) and a gain of 25 points, beyond the Wilson half-width of 8 of
+    # 16 (about 22 points); 8 better, 0 worse of 200 gives p = 2 / 2^8 (passes) and a gain of
+    # 4 points, inside the half-width of 100 of 200 (about 7 points)
+    from wellwright.optimize.tolerance.analysis import _allowed_row
+
+    for n, better, decided_by_test in ((16, 4, True), (200, 8, False)):
+        old = np.zeros(n, bool)
+        old[: n // 2] = True
+        new = old.copy()
+        new[n // 2 : n // 2 + better] = True
+        row = _allowed_row(0.5, 0.5, "ML", new, old)
+        g = row["gain"]
+        assert row["action"] == "no measurable effect" and not g["measurable"]
+        assert (g["p_value"] >= g["level"]) == decided_by_test
+        assert (abs(g["gain"]) <= g["yield_half_width"]) != decided_by_test
+        p_said = f"{g['p_value']:.2g}" in row["advice"]
+        half_said = f"{100 * g['yield_half_width']:.1f}" in row["advice"]
+        assert (p_said, half_said) == (decided_by_test, not decided_by_test), row["advice"]
+
+
 def test_neighbourhood_counts_every_move_of_at_most_two_monolayers():
     # counting: 2k single +-1 moves, 2k single +-2 moves, 4 C(k, 2) pairs of +-1 moves
     for k in (1, 2, 3, 5):
@@ -182,8 +205,10 @@ def test_recentred_model_grows_the_moved_design(stack):
 
 def test_noise_guard_never_recommends_a_parameter_without_effect(stack):
     # statistical. The toy's Jp ignores the well, and barrier2's spread is set to zero:
-    # neither can change the yield, so neither may be recommended for tightening. barrier1
-    # does matter (the test can fail: it must come out as "tighten").
+    # neither can change the yield, so neither may be recommended for tightening; the target
+    # is out of reach with either held exactly, so the design must change (fuzz find: "no
+    # measurable effect, do not tighten it" hid that). barrier1 does matter (the test can
+    # fail: it must come out as "tighten").
     model = growth_model(
         stack, GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0, x_sigma=0, doping_sigma=0)
     )
@@ -207,9 +232,10 @@ def test_noise_guard_never_recommends_a_parameter_without_effect(stack):
     )
     by = {r["parameter"]: r for r in rows}
     for name in ("well.thickness_ml", "barrier2.thickness_ml"):
-        assert by[name]["action"] == "no measurable effect", by[name]
+        assert by[name]["action"] == "redesign", by[name]
+        assert by[name]["allowed_sigma"] is None and by[name]["yield_held_exactly"] < 0.9
         assert by[name]["gain"]["gain"] == 0.0 and not by[name]["gain"]["measurable"]
-        assert "do not tighten" in by[name]["advice"]
+        assert "do not tighten" not in by[name]["advice"]
     b1 = by["barrier1.thickness_ml"]
     assert b1["action"] == "tighten"
     assert b1["allowed_sigma"] < b1["nominal_sigma"] and b1["yield_at_allowed"] >= 0.9
@@ -257,7 +283,9 @@ def test_recentring_moves_the_barrier_the_toy_physics_asks_for(stack, tmp_path):
     assert len(well_only) == 4 and len(set(well_only)) == 1
     rows = {r["parameter"]: r for r in rec["allocation"]}
     assert all(r["action"] in ACTIONS and r["advice"] for r in rows.values())
-    assert rows["well.thickness_ml"]["action"] == "no measurable effect"
+    # the target is out of reach with the well held exactly: the row points to the new design
+    assert rows["well.thickness_ml"]["action"] == "re-centre"
+    assert rc["design"]["label"] in rows["well.thickness_ml"]["advice"]
     # what the grower gets on file: the re-centred growth sheet, the advice per row
     sheet = list(csv.DictReader((tmp_path / "growth_sheet_recentred.csv").open()))
     by_name = {r["name"]: r for r in sheet}

@@ -177,6 +177,52 @@ def test_a_sobol_run_with_wide_intervals_says_so(stack):
     assert not any("sampling noise" in n for n in many["notes"])
 
 
+@pytest.mark.parametrize(("window", "outcome"), [((1.0, 1e12), "passed"), ((1e12, 1e13), "failed")])
+def test_sobol_ranks_nothing_by_pass_fail_where_every_sample_passes_or_fails(
+    stack, tmp_path, capsys, window, outcome
+):
+    # fuzz find: with every sample passing, pass/fail has no variance, yet the command printed
+    # a pass/fail "ranking" in the stack's order, drew an empty sobol_pass.png, and did not
+    # say that its budget of 32 was raised to Sobol's smallest design. Statistical (seeded
+    # Sobol estimates) for the Jp ranking: the toy's Jp depends on the two barriers only
+    from wellwright.optimize.cli.cmd_tolerance import _print_summary
+    from wellwright.optimize.report.build import _resolution_text
+    from wellwright.optimize.tolerance.analysis import (
+        NO_CONTROL_STANDS_OUT,
+        evaluations_text,
+        ranking_without_variance,
+    )
+
+    g = GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0.01, x_sigma=0.0, doping_sigma=0.0)
+    spec = Spec((("peak_current_density_a_cm2", *window),))
+    rec = run_tolerance(
+        growth_model(stack, g),
+        spec,
+        _ToyRunner(),
+        method="sobol",
+        samples=32,
+        seed=7,
+        allocate=0,
+        out_dir=tmp_path,
+    )
+    ranking = rec["ranking"]
+    assert ranking["every_sample"] == outcome and ranking["ranked"] == []
+    assert "pass" not in rec["sobol"] and not (tmp_path / "sobol_pass.png").exists()
+    top2 = {r["parameter"] for r in rec["sobol"]["peak_current_density_a_cm2"][:2]}
+    assert top2 == {"barrier1.thickness_ml", "barrier2.thickness_ml"}  # still ranked
+    _print_summary(rec)
+    out = capsys.readouterr().out
+    assert ranking_without_variance(ranking) in out and "Sobol index of pass" not in out
+    # the raised budget, in the words of the report
+    assert ranking["evaluations"] > ranking["budget"] == 32
+    assert evaluations_text(ranking) in out and evaluations_text(ranking) in _resolution_text(
+        ranking
+    )
+    # what to control hardest: the same fact (every as-grown sample), not "more samples"
+    cli, report = _control_said(rec, tmp_path, capsys)
+    assert cli == report != NO_CONTROL_STANDS_OUT and outcome in cli
+
+
 def test_same_seed_same_results_and_sobol_ranks_barriers(stack):
     g = GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0.01, x_sigma=0.0, doping_sigma=0.0)
     model = growth_model(stack, g)
@@ -536,13 +582,23 @@ def test_island_truncation_beyond_a_tenth_is_said_as_a_warning():
     assert "indicative only" in text and "island_layers" in text
 
 
+def _control_said(record, tmp_path, capsys) -> tuple[str, str]:
+    """What the command line and the report say of what to control hardest."""
+    from wellwright.optimize.cli.cmd_tolerance import _print_summary
+    from wellwright.optimize.report.build import _control_html
+
+    _print_summary(record)
+    out = capsys.readouterr().out.splitlines()
+    line = next(x for x in out if x.startswith("control hardest"))
+    head = _control_html(record, tmp_path, "rank01").split("</b>")[1].split("</p>")[0]
+    return line.split("): ", 1)[1], head.split("): ", 1)[1].removesuffix(".")
+
+
 def test_cli_and_report_say_the_same_of_what_to_control_hardest(tmp_path, capsys):
     # fuzz find: `wellwright tolerance --method mc` with 100 % yield scores every control 0.0,
     # and the command printed "control hardest: layer emitter (...), then layer spacer1 ...",
     # the stack's order, where the report said that none stands out; both now take their
     # words from control_summary
-    from wellwright.optimize.cli.cmd_tolerance import _print_summary
-    from wellwright.optimize.report.build import _control_html
     from wellwright.optimize.tolerance.analysis import NO_CONTROL_STANDS_OUT, control_summary
 
     measure = "correlation of |deviation| with failure (Monte Carlo)"
@@ -559,22 +615,15 @@ def test_cli_and_report_say_the_same_of_what_to_control_hardest(tmp_path, capsys
         "notes": [],
     }
 
-    def said() -> tuple[str, str]:
-        _print_summary(record)
-        out = capsys.readouterr().out.splitlines()
-        line = next(x for x in out if x.startswith("control hardest"))
-        head = _control_html(record, tmp_path, "rank01").split("</b>")[1].split("</p>")[0]
-        return line.split("): ", 1)[1], head.split("): ", 1)[1].removesuffix(".")
-
-    cli, report = said()
+    cli, report = _control_said(record, tmp_path, capsys)
     assert cli == report == NO_CONTROL_STANDS_OUT
     for row in order:  # equal scores: none stands out from the others either
         row["score"] = 0.4
-    cli, report = said()
+    cli, report = _control_said(record, tmp_path, capsys)
     assert cli == report == "no source cell or layer stands out from the others (equal scores)"
     for row, score in zip(order, (0.4, 0.4, 0.2, 0.0), strict=True):
         row["score"] = score
-    cli, report = said()
+    cli, report = _control_said(record, tmp_path, capsys)
     assert report == "layer emitter and layer spacer1 first"
     assert (
         cli

@@ -10,6 +10,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from wellwright.optimize.shared import names
 from wellwright.optimize.shared.outputs import check_output_folder
 from wellwright.optimize.study.growth import growth_model, parse_growth, split_layer_growth
 from wellwright.optimize.study.study import MAX_JOBS, Study, check_process_count, load_study
@@ -18,6 +19,8 @@ from wellwright.optimize.tolerance.analysis import (
     Runner,
     Spec,
     control_summary,
+    evaluations_text,
+    ranking_without_variance,
     run_tolerance,
 )
 from wellwright.physics import checks
@@ -307,13 +310,7 @@ def _print_summary(rec: dict[str, Any]) -> None:
     fails = {k: v for k, v in rec["failures"].items() if v}
     if fails:
         print("failures: " + ", ".join(f"{k} {v}" for k, v in fails.items()))
-    if rec["sobol"].get("pass"):
-        print(
-            "ranking (total Sobol index of pass/fail): "
-            + ", ".join(
-                f"{r['parameter']} {r['total_index']:.2f}" for r in rec["sobol"]["pass"][:5]
-            )
-        )
+    _print_ranking(rec)
     if rec.get("control_order"):
         print(
             f"control hardest (by {rec['control_order'][0]['measure']}): "
@@ -332,3 +329,22 @@ def _print_summary(rec: dict[str, Any]) -> None:
         )
     for note in rec["notes"]:
         print(f"note: {note}")
+
+
+def _print_ranking(rec: dict[str, Any]) -> None:
+    """The Sobol ranking of pass/fail, or where every sample passed (or failed) that in words
+    and the ranking of the peak current density instead; and the evaluations used."""
+    ranking = rec.get("ranking") or {}
+    uniform = ranking_without_variance(ranking)
+    if uniform is not None:
+        print(f"ranking: {uniform}")
+    output = next((k for k in ("pass", "peak_current_density_a_cm2") if rec["sobol"].get(k)), None)
+    if output is not None and (output == "pass" or uniform is not None):
+        print(
+            f"ranking (total Sobol index of {names.words(output)}): "
+            + ", ".join(
+                f"{r['parameter']} {r['total_index']:.2f}" for r in rec["sobol"][output][:5]
+            )
+        )
+    if ranking:
+        print(f"{rec['settings']['method'].capitalize()}: {evaluations_text(ranking)}")

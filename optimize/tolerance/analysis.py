@@ -79,6 +79,9 @@ __all__ = [
     "control_order",
     "control_summary",
     "controls_standing_out",
+    "evaluations_text",
+    "ranking_without_variance",
+    "uniform_outcome",
     "NO_CONTROL_STANDS_OUT",
     "run_tolerance",
     "wafer_yield",
@@ -449,6 +452,21 @@ def yield_record(ok: np.ndarray, confidence: float = 0.95) -> dict[str, Any]:
     }
 
 
+def uniform_outcome(passed: np.ndarray) -> str | None:
+    """``"passed"`` when every sample passed, ``"failed"`` when every one failed, else None
+    (and for no samples): pass/fail then has no variance for a ranking to apportion.
+
+    Parameters
+    ----------
+    passed
+        Pass/fail outcomes (bool, or 0 and 1).
+    """
+    ok = np.asarray(passed, bool)
+    if ok.size == 0 or ok.any() != ok.all():
+        return None
+    return "passed" if ok.all() else "failed"
+
+
 def monte_carlo_yield(
     model: GrowthModel,
     spec: Spec,
@@ -809,9 +827,12 @@ def sobol_analysis(
     design starts at ``base_samples`` and doubles until the ranking of
     pass/fail is resolved or the budget is spent (:func:`sobol_until_resolved`);
     without, it is one design of ``base_samples``. A figure of merit that is
-    NaN (no NDR) in some sample is skipped with a note. Returns ``sobol``
-    (name -> ordered list), ``notes``, ``evaluations``, ``base_samples`` and
-    ``resolution`` (:func:`ranking_resolution` of pass/fail); with
+    NaN (no NDR) in some sample, or the same in every sample, is skipped with a
+    note; so is pass/fail when every sample passed or every one failed (no
+    variance to apportion), which ``every_sample`` says (:func:`uniform_outcome`).
+    Returns ``sobol`` (name -> ordered list), ``notes``, ``evaluations``,
+    ``base_samples``, ``every_sample`` and ``resolution``
+    (:func:`ranking_resolution` of pass/fail); with
     ``second_order`` (``N (2 D + 2)`` evaluations instead of ``N (D + 2)``)
     also ``sobol_second_order`` (name -> pairs of parameters with their
     interaction index, largest first).
@@ -853,6 +874,7 @@ def sobol_analysis(
     )
     outputs = grown["outputs"]
     unsolved = int(np.count_nonzero(outputs.pop(SOLVE_FAILED)))
+    every = uniform_outcome(outputs["pass"])
     out: dict[str, list] = {}
     pairs: dict[str, list] = {}
     notes = []
@@ -862,6 +884,10 @@ def sobol_analysis(
             why = f" ({unsolved} of them: solve did not converge)" if unsolved else ""
             notes.append(f"sobol of {name} skipped: no NDR in {bad} of {y.size} samples{why}")
             continue
+        if np.ptp(y) == 0.0:  # nothing to apportion; pass/fail is said by every_sample
+            if name != "pass":
+                notes.append(f"sobol of {name} skipped: the same value in every sample")
+            continue
         if second_order:
             pairs[name] = []
         out[name] = sobol_table(model.names, y, seed=rng, pairs=pairs.get(name))
@@ -870,6 +896,7 @@ def sobol_analysis(
         "notes": notes,
         "evaluations": int(grown["evaluations"]),
         "base_samples": int(grown["base_samples"]),
+        "every_sample": every,
         "resolution": ranking_resolution(out.get("pass", [])),
     }
     if second_order:
@@ -915,8 +942,10 @@ def morris_analysis(
     Returns
     -------
     dict
-        ``morris`` (output -> rows), ``notes``, ``evaluations``, ``resolution``
-        (:func:`ranking_resolution` of pass/fail) and ``trajectories`` used.
+        ``morris`` (output -> rows; none for an output the same in every sample, such as
+        pass/fail where every sample passed), ``notes``, ``evaluations``, ``resolution``
+        (:func:`ranking_resolution` of pass/fail), ``every_sample``
+        (:func:`uniform_outcome`) and ``trajectories`` used.
 
     References
     ----------
@@ -948,6 +977,7 @@ def morris_analysis(
         "notes": notes,
         "evaluations": int(x.shape[0]),
         "resolution": resolution,
+        "every_sample": uniform_outcome(spec.passes(metrics)),
         "trajectories": t,
     }
 
@@ -963,6 +993,10 @@ def _morris_tables(problem, model, spec, x, metrics, levels, rng):
     for name, y in outputs.items():
         if not np.all(np.isfinite(y)):
             notes.append(f"morris of {name} skipped: no NDR in some samples")
+            continue
+        if np.ptp(y) == 0.0:  # nothing to apportion; pass/fail is said by every_sample
+            if name != "pass":
+                notes.append(f"morris of {name} skipped: the same value in every sample")
             continue
         res = morris_analyze.analyze(
             problem,
@@ -1190,7 +1224,7 @@ def paired_gain(
     the yield's own noise); a measurable change may be a loss (``gain`` < 0).
 
     Returns ``gain`` (difference of the yields), ``better``, ``worse``
-    (samples passing with only one of them), ``samples``, ``p_value``,
+    (samples passing with only one of them), ``samples``, ``p_value``, ``level``,
     ``yield_half_width``, ``measurable`` and ``test`` (its name).
 
     Parameters
@@ -1223,6 +1257,7 @@ def paired_gain(
         "worse": worse,
         "samples": n,
         "p_value": p,
+        "level": level,
         "yield_half_width": half,
         "measurable": bool(p < level and abs(gain) > half),
         "test": "exact McNemar test on the paired samples (common random numbers), "
@@ -1666,14 +1701,17 @@ def _advice_recentre(recentred: dict[str, Any] | None) -> tuple[str, str]:
     if recentred is not None and recentred.get("design") is None and recentred.get("candidates"):
         return "redesign", (
             "no whole-monolayer design within two monolayers does better: relax the spec or "
-            "change the design"
+            "the target yield, or change the design"
         )
     if recentred is not None and recentred.get("design") is not None:
         return "redesign", (
             f"the best nearby design ({recentred['design']['label']}) gains no measurable "
-            "yield: relax the spec or change the design"
+            "yield: relax the spec or the target yield, or change the design"
         )
-    return "redesign", "the design itself must change (relax the spec or search again)"
+    return "redesign", (
+        "the design itself must change (re-centre it or search again), or relax the spec or "
+        "the target yield"
+    )
 
 
 def allocate_tolerances(
@@ -1710,12 +1748,13 @@ def allocate_tolerances(
     - ``keep``: the target holds at the present spread (up to the allowed one);
     - ``tighten``: the allowed spread reaches the target and the gain over the
       present spread is measurable (:func:`paired_gain`, which ``gain`` holds);
-    - ``no measurable effect``: the gain from tightening it (to the allowed
-      spread, or holding it exactly when that misses the target) is within the
-      yield's noise, so tightening it is not recommended;
+    - ``no measurable effect``: the allowed spread reaches the target but the gain over
+      the present spread is not measurable (the advice says which part of the test
+      failed, with its numbers), so tightening it is not recommended;
     - ``re-centre`` / ``redesign``: the target is missed even with it held
-      exactly though it matters; the re-centred design if one does measurably
-      better, else the spec or the design must change.
+      exactly, so tightening it alone cannot reach it, whatever its effect; the
+      re-centred design if one does measurably better, else the design, the spec
+      or the target must change.
 
     Parameters
     ----------
@@ -1791,7 +1830,7 @@ def allocate_tolerances(
         ok_lo = passes_at(0.0)
         rec["yield_held_exactly"] = float(np.mean(ok_lo))
         if np.mean(ok_lo) < target_yield:
-            rec.update(_missed_when_held(ok_lo, ok_nominal, recentred))
+            rec.update(_missed_when_held(ok_lo, ok_nominal, recentred, target_yield))
             out.append(rec)
             continue
         lo, hi, ok_best = 0.0, max_scale, ok_lo
@@ -1811,34 +1850,55 @@ def _pct(value: float) -> str:
     return f"{100 * value:.0f} %"
 
 
+def _not_measurable(gain: dict[str, Any]) -> str:
+    """Why a :func:`paired_gain` is no measurable gain, with the numbers of what decided it:
+    the paired test's p-value against its level, the change against the yield's noise, or
+    both (a measurable loss: said so)."""
+    level = gain.get("level", GAIN_TEST_LEVEL)
+    why = []
+    if not gain["p_value"] < level:
+        why.append(f"paired test p = {gain['p_value']:.2g}, not below {level:g}")
+    if not abs(gain["gain"]) > gain["yield_half_width"]:
+        why.append(f"within the yield's noise of +-{100 * gain['yield_half_width']:.1f} points")
+    return ", and ".join(why) or "a measurable loss"
+
+
 def _missed_when_held(
-    ok_held: np.ndarray, ok_nominal: np.ndarray, recentred: dict[str, Any] | None
+    ok_held: np.ndarray,
+    ok_nominal: np.ndarray,
+    recentred: dict[str, Any] | None,
+    target_yield: float,
 ) -> dict[str, Any]:
-    """An allocation row's fields when the target is missed even with the parameter held
-    exactly (pass/fail ``ok_held``): no measurable effect, else re-centre or redesign."""
+    """An allocation row's fields when ``target_yield`` is missed even with the parameter
+    held exactly (pass/fail ``ok_held``): tightening it alone cannot reach the target, so
+    re-centre or redesign (:func:`_advice_recentre`), whatever its own effect."""
     gain = paired_gain(ok_held, ok_nominal)
-    row: dict[str, Any] = {
+    action, what = _advice_recentre(recentred)
+    yields = (
+        f"yield {_pct(np.mean(ok_held))} against {_pct(np.mean(ok_nominal))} at the present spread"
+    )
+    if gain["measurable"] and gain["gain"] < 0:
+        why = (
+            "holding this exactly lowers the yield (the nominal misses the spec and the "
+            f"spread carries some samples into it; {yields})"
+        )
+    else:
+        effect = (
+            f"a measurable gain, paired p = {gain['p_value']:.2g}"
+            if gain["measurable"]
+            else f"no measurable gain: {_not_measurable(gain)}"
+        )
+        why = (
+            f"the target {_pct(target_yield)} is not reached even with this held exactly "
+            f"({yields}; {effect}), so tightening it alone cannot reach it"
+        )
+    return {
         "allowed_sigma": None,
         "yield_at_allowed": float(np.mean(ok_held)),
         "gain": gain,
+        "action": action,
+        "advice": f"{why}: {what}",
     }
-    if not gain["measurable"]:
-        return {
-            **row,
-            "action": "no measurable effect",
-            "advice": f"no measurable effect: holding it exactly changes the yield by "
-            f"{100 * gain['gain']:+.1f} points, within the yield's noise "
-            f"(+-{100 * gain['yield_half_width']:.1f}); do not tighten it",
-        }
-    action, what = _advice_recentre(recentred)
-    why = (
-        "target missed even with this held exactly"
-        if gain["gain"] > 0
-        else "holding this exactly lowers the yield (the nominal misses the spec "
-        "and the spread carries some samples into it)"
-    )
-    yields = f"yield {_pct(np.mean(ok_held))} against {_pct(np.mean(ok_nominal))}"
-    return {**row, "action": action, "advice": f"{why} ({yields}); {what}"}
 
 
 def _allowed_row(
@@ -1872,8 +1932,8 @@ def _allowed_row(
         **row,
         "action": "no measurable effect",
         "advice": f"no measurable effect: tightening it to {allowed:.3g} {unit} changes "
-        f"the yield by {100 * gain['gain']:+.1f} points, within the yield's noise "
-        f"(+-{100 * gain['yield_half_width']:.1f}); do not tighten it",
+        f"the yield by {100 * gain['gain']:+.1f} points, no measurable gain "
+        f"({_not_measurable(gain)}); do not tighten it on this evidence",
     }
 
 
@@ -1935,9 +1995,9 @@ def _island_note(islands: dict[str, Any]) -> str:
     if check and check.get("peak_current_density_a_cm2") is not None:
         text += (
             f" (truncation error against the mixture over every layer, largest on "
-            f"{check['samples']} samples: Jp {100 * check['peak_current_density_a_cm2']:.2g} %, "
-            f"Vp {100 * (check['peak_voltage_v'] or 0):.2g} %, "
-            f"PVCR {100 * (check['pvcr'] or 0):.2g} %)"
+            f"{check['samples']} samples: Jp {100 * check['peak_current_density_a_cm2']:.3g} %, "
+            f"Vp {100 * (check['peak_voltage_v'] or 0):.3g} %, "
+            f"PVCR {100 * (check['pvcr'] or 0):.3g} %)"
         )
     return text
 
@@ -2006,10 +2066,54 @@ def controls_standing_out(record: dict[str, Any]) -> list[bool]:
     ]
 
 
+def _no_variance(outcome: str, samples: int, what: str) -> str:
+    return (
+        f"every one of the {samples} {what} {outcome} the spec, so pass/fail has no "
+        "variance to apportion and nothing is ranked by it"
+    )
+
+
+def ranking_without_variance(ranking: dict[str, Any] | None) -> str | None:
+    """Where every sample of a Sobol or Morris ranking passed (or every one failed), that in
+    words (the command line and the report both say this in place of a ranking); else None.
+
+    Parameters
+    ----------
+    ranking
+        The record's ``ranking`` (``every_sample``, ``evaluations``).
+    """
+    if not ranking or ranking.get("every_sample") is None:
+        return None
+    return _no_variance(
+        ranking["every_sample"], ranking["evaluations"], "samples the ranking evaluated"
+    )
+
+
+def evaluations_text(ranking: dict[str, Any]) -> str:
+    """The evaluations a Sobol or Morris ranking used against its budget (``--samples``), in
+    words. A budget below the method's smallest design (Sobol: 8 base samples of D + 2
+    evaluations; Morris: two trajectories of D + 1) was raised to that design, which is then
+    what ran, and this says so (the command line and the report both say this).
+
+    Parameters
+    ----------
+    ranking
+        The record's ``ranking`` (``evaluations``, ``budget``).
+    """
+    used, budget = ranking.get("evaluations", "?"), ranking.get("budget", "?")
+    if isinstance(used, int) and isinstance(budget, int) and used > budget:
+        return (
+            f"{used} evaluations used: the budget of {budget} (--samples) is below the "
+            f"method's smallest design, so it was raised by {used - budget} to that"
+        )
+    return f"{used} of a budget of {budget} evaluations used"
+
+
 def control_summary(record: dict[str, Any], *, top: int = 1, parameters: bool = False) -> str:
     """What the grower controls hardest, in words: "layer barrier1 first, then In cell";
     controls of equal score share a place ("A and B first"); said plainly where none
-    stands out from zero or from the others (the command line and the report both say this).
+    stands out from zero or from the others, or where every as-grown sample passed (or
+    failed) so that nothing can (the command line and the report both say this).
 
     Parameters
     ----------
@@ -2023,6 +2127,10 @@ def control_summary(record: dict[str, Any], *, top: int = 1, parameters: bool = 
     order = record.get("control_order") or []
     standing = [c for c, s in zip(order, controls_standing_out(record), strict=True) if s]
     if not standing:
+        y = record.get("yield") or {}
+        if y.get("samples") and y.get("passed") in (0, y["samples"]):
+            outcome = "passed" if y["passed"] else "failed"
+            return _no_variance(outcome, y["samples"], "as-grown samples")
         return NO_CONTROL_STANDS_OUT
     if len(order) > 1 and all(c["score"] == order[0]["score"] for c in order):
         return "no source cell or layer stands out from the others (equal scores)"
@@ -2348,7 +2456,7 @@ def _sobol_fields(
         seed=seed,
     )
     notes += s["notes"]
-    widest = max((r["total_conf"] for r in s["sobol"]["pass"]), default=0.0)
+    widest = max((r["total_conf"] for r in s["sobol"].get("pass", [])), default=0.0)
     if widest > SOBOL_WIDE_CONF:
         notes.append(
             f"Sobol on {s['base_samples']} base samples for {d} parameters: confidence "
@@ -2364,6 +2472,7 @@ def _sobol_fields(
             "measure": "total Sobol index of pass/fail",
             "evaluations": s["evaluations"],
             "budget": samples,
+            "every_sample": s["every_sample"],
         },
     }
     if second_order:
@@ -2399,6 +2508,7 @@ def _morris_fields(
             "measure": "Morris mu* of pass/fail",
             "evaluations": m["evaluations"],
             "budget": samples,
+            "every_sample": m["every_sample"],
         },
     }
 
