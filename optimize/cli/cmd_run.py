@@ -7,7 +7,13 @@ import os
 import sys
 from pathlib import Path
 
-from wellwright.optimize.cli.pipeline import EXIT_SPEC_NOT_MET, METHODS, SpecNotMet, run_pipeline
+from wellwright.optimize.cli.pipeline import (
+    EXIT_SPEC_NOT_MET,
+    METHODS,
+    RUN_OPTIONS,
+    SpecNotMet,
+    run_pipeline,
+)
 from wellwright.optimize.study.study import MAX_JOBS, MAX_WORKERS, check_process_count
 
 
@@ -67,7 +73,8 @@ def register(sub: argparse._SubParsersAction) -> None:
         description="Search a study file's design space, check the top designs against growth "
         "spreads (yield, Sobol/Morris ranking, tornado, tolerance allocation) and write "
         "DIR/report.html. Rerunning the same command skips finished stages and resumes the "
-        "search from its storage; a changed study file reruns what depends on it.",
+        "search from its storage; a changed study file reruns what depends on it. A folder "
+        "holding the run of another study is refused unless --fresh is given.",
     )
     p.add_argument(
         "study",
@@ -81,21 +88,26 @@ def register(sub: argparse._SubParsersAction) -> None:
         help="analyse and report the closest designs even when none meets the spec "
         "(default: stop after the search with exit status 3)",
     )
+    p.add_argument(
+        "--fresh",
+        action="store_true",
+        help="delete what an earlier run wrote in DIR (search storage file, designs, tolerance "
+        "results, report) and start there from scratch (default: resume; a folder holding "
+        "another study's run is refused)",
+    )
     p.add_argument("--no-progress", action="store_true", help="no progress bars")
     p.set_defaults(func=run)
 
 
 def overrides(args: argparse.Namespace) -> dict:
-    return {
-        "trials": args.trials,
-        "designs": args.designs,
-        "samples": args.samples,
-        "method": args.method,
-        "seed": args.seed,
-        "workers": args.workers,
-        "storage": args.storage,
-        "jobs": args.jobs or os.cpu_count() or 1,
-    }
+    """The run settings the options give (None: not given; ``jobs`` defaults to every core).
+
+    Parameters
+    ----------
+    args
+        The parsed command line.
+    """
+    return {k: getattr(args, k) for k in RUN_OPTIONS} | {"jobs": args.jobs or os.cpu_count() or 1}
 
 
 def run(args: argparse.Namespace) -> int:
@@ -115,6 +127,7 @@ def run(args: argparse.Namespace) -> int:
             settings=overrides(args),
             progress=not args.no_progress,
             continue_infeasible=args.continue_infeasible,
+            fresh=args.fresh,
         )
     except SpecNotMet as exc:  # after the search: its results stay in DIR/search/
         print(f"wellwright run: {exc}", file=sys.stderr)

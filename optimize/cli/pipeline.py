@@ -18,11 +18,16 @@ stage whose fingerprint is unchanged and whose outputs exist, and reruns it
 and everything after it otherwise. The search resumes from its Optuna storage
 (kept between runs), so a run interrupted anywhere continues where it stopped;
 a tolerance analysis interrupted half way is redone for that design only.
+
+A folder holds the run of one study: the name its search is stored under and what
+defines that search (``pipeline.json`` records both). A study file that differs in
+either is another study, refused there unless ``fresh`` deletes the earlier run.
 """
 
 from __future__ import annotations
 
 import json
+import shutil
 from collections.abc import Callable
 from dataclasses import asdict
 from pathlib import Path
@@ -46,11 +51,13 @@ from wellwright.optimize.study.run_folder import (
     PIPELINE_FILE,
     STUDY_COPY,
     fingerprint,
+    folder_identity,
     linked_calibration,
     load_run,
     stage_fingerprint,
     study_from_run,
     study_from_text,
+    study_identity,
 )
 from wellwright.optimize.study.run_settings import (
     METHODS,
@@ -72,10 +79,17 @@ __all__ = [
     "PIPELINE_FILE",
     "STAGES",
     "METHODS",
+    "RUN_OPTIONS",
     "check_settings",
 ]
 
 STAGES = ("search", "tolerance", "report")
+#: The settings ``wellwright run`` takes as options of the same name (``--trials`` ...): what
+#: the command line passes as ``settings``, and what the record's rerun command repeats.
+RUN_OPTIONS = ("trials", "designs", "samples", "method", "seed", "workers", "storage", "jobs")
+#: What a run writes in its folder, removed by ``fresh`` (the record last, so that a folder
+#: left half cleared still names its study); the report's files are added from its module.
+RUN_ENTRIES = ("search", "tolerance", "report.html", CALIBRATION_COPY, PIPELINE_FILE, STUDY_COPY)
 
 
 def run_settings(study: Study, overrides: dict[str, Any] | None = None) -> RunSettings:
@@ -250,6 +264,47 @@ def _stage_fingerprints(study_bytes: bytes, s: RunSettings, designs: list[dict] 
     return fp
 
 
+def _given_options(settings: dict[str, Any] | None, continue_infeasible: bool) -> dict[str, Any]:
+    """The options of ``wellwright run`` this run was given (:data:`RUN_OPTIONS` that are
+    set, and ``continue_infeasible``), for the record's rerun command."""
+    settings = settings or {}
+    given = {k: settings[k] for k in RUN_OPTIONS if settings.get(k) is not None}
+    return {**given, "continue_infeasible": True} if continue_infeasible else given
+
+
+def _check_same_study(run_dir: Path, old: dict[str, Any], study: Study, path: Path) -> None:
+    """:class:`InputError` when the folder holds the run of another study (another search
+    name, or the same name made from another search space, spec, sweep or model)."""
+    held = folder_identity(run_dir, old) if old else None
+    if held is None or held == study_identity(study):
+        return
+    was = f"run folder {run_dir} holds the run of study '{held['search_name']}'"
+    was += f" ({old['study']['path']})"
+    if held["search_name"] == study.optuna_name:
+        why = f"made from another search space, spec, sweep or model than {path.resolve()}"
+        where, key = "another --out or [search] study_name", "search.study_name"
+    else:
+        why = f"not of '{study.optuna_name}' ({path.resolve()})"
+        where, key = "another --out", "--out"
+    raise InputError(
+        f"{was}, {why}; give {where}, or add --fresh to delete that run and start this one there",
+        source=str(path),
+        key=key,
+    )
+
+
+def _clear(run_dir: Path) -> None:
+    """Delete what earlier runs wrote in the folder (:data:`RUN_ENTRIES`, the report's files)."""
+    from wellwright.optimize.report.build import FILES_DIR
+
+    for name in (FILES_DIR, *RUN_ENTRIES):
+        entry = run_dir / name
+        if entry.is_dir():
+            shutil.rmtree(entry)
+        else:
+            entry.unlink(missing_ok=True)
+
+
 def _is_run_folder(run_dir: Path) -> bool:
     """Empty, or holding a study copy or a pipeline record (a run stopped at any moment)."""
     return (
@@ -305,6 +360,7 @@ def run_pipeline(
     label: str | None = None,
     report: Callable[..., Any] | None = None,
     continue_infeasible: bool = False,
+    fresh: bool = False,
 ) -> dict[str, Any]:
     """Run, or resume, the whole pipeline of a study file into ``out_dir``.
 
@@ -326,6 +382,9 @@ def run_pipeline(
     continue_infeasible
         Go on to the tolerance stage and the report when no design meets the
         spec (default: stop with :class:`SpecNotMet` after the search).
+    fresh
+        Delete what an earlier run wrote in ``out_dir`` and start there from scratch
+        (default: resume it, and refuse a folder holding the run of another study).
 
     Returns
     -------
@@ -335,7 +394,8 @@ def run_pipeline(
     Raises
     ------
     InputError
-        For a bad study file or setting, before anything is written.
+        For a bad study file or setting, or a folder holding another study's run (unless
+        ``fresh``), before anything is written.
     SpecNotMet
         When no searched design meets the spec (unless ``continue_infeasible``).
     """
@@ -348,10 +408,13 @@ def run_pipeline(
             key="--out",
             source=str(run_dir),
         )
-    inputs = _write_inputs(run_dir, study, study_bytes)
     old: dict[str, Any] = {}
-    if (run_dir / PIPELINE_FILE).is_file():
+    if (run_dir / PIPELINE_FILE).is_file() and not fresh:
         old = load_run(run_dir)
+    _check_same_study(run_dir, old, study, path)
+    if fresh and run_dir.is_dir():
+        _clear(run_dir)
+    inputs = _write_inputs(run_dir, study, study_bytes)
     record: dict[str, Any] = {
         "format": FORMAT_VERSION,
         "study": {
@@ -360,10 +423,12 @@ def run_pipeline(
             "fingerprint": fingerprint(study_bytes),
             "changed_since_last_run": bool(old)
             and old.get("study", {}).get("fingerprint") != fingerprint(study_bytes),
+            **study_identity(study),
         },
         "label": label if label is not None else old.get("label"),
         "version": run_folder.package_version(),
         "settings": asdict(s),
+        "options": _given_options(settings, continue_infeasible),
         "stages": dict(old.get("stages", {})),
     }
     _search_stage(study, s, run_dir, record, _stage_fingerprints(inputs, s, None), progress)
@@ -379,7 +444,9 @@ def run_pipeline(
         raise SpecNotMet(closest_miss(study, chosen[0]))
     fp = _stage_fingerprints(inputs, s, chosen)
     _tolerance_stage(study, s, run_dir, record, fp, chosen, progress)
-    _report_stage(run_dir, record, fingerprint(fp), report, progress)
+    # the report shows the command of the run: a new study path or new options rebuild it
+    report_fp = fingerprint(fp, record["study"]["path"], record["options"])
+    _report_stage(run_dir, record, report_fp, report, progress)
     return record
 
 
@@ -445,7 +512,16 @@ def _search_stage(
     ):
         _log(progress, "search: done earlier, skipped")
         return
-    _log(progress, "search: resuming from its storage" if prev else "search: running")
+    if progress:
+        from wellwright.optimize.search.storage import storage_url, stored_trials
+
+        held = stored_trials(study, storage_url(s.storage, run_dir / "search"))
+        _log(
+            progress,
+            f"search: resuming {held} complete trials from its storage"
+            if held
+            else "search: running",
+        )
     stages["search"] = {"status": "running", "fingerprint": fp["search"]}
     stages.pop("report", None)
     _save(run_dir, record)

@@ -45,7 +45,9 @@ from wellwright.optimize.shared.outputs import (
 from wellwright.optimize.study.run_folder import (
     DESIGN_DIR,
     DESIGN_RECORD,
+    hide_password,
     load_run,
+    rerun_command,
     study_from_run,
 )
 from wellwright.optimize.study.study import Study
@@ -970,28 +972,60 @@ def _finished_tolerance_dirs(run_dir: Path, record: dict[str, Any]) -> dict[str,
     return {k: run_dir / tol[k]["dir"] for k in done}
 
 
+def _settings_used(record: dict[str, Any], study: Study) -> dict[str, Any]:
+    """The run's settings as they took effect: a setting left to the study file (None in the
+    record) takes the study's value; the search seed and the storage, which the search
+    stage records, are its.
+
+    Parameters
+    ----------
+    record
+        The run's ``pipeline.json`` record.
+    study
+        The study of the run (from its copy).
+    """
+    search = record["stages"]["search"]
+    left_to_study = {
+        "trials": study.search.trials,
+        "workers": study.search.workers,
+        "bias_points": study.sweep.points,
+    }
+    out = {}
+    for key, value in record.get("settings", {}).items():
+        if key == "search_seed":
+            value = search.get("seed")
+        elif key == "storage":
+            value = hide_password(str(search.get("storage") or value))
+        elif value is None:
+            value = left_to_study.get(key)
+        out[key] = value
+    return out
+
+
 def _reproduce_html(
-    record: dict[str, Any], run_dir: Path, vers: dict[str, str], seeds: dict[str, Any]
+    record: dict[str, Any],
+    run_dir: Path,
+    vers: dict[str, str],
+    seeds: dict[str, Any],
+    settings: dict[str, Any],
 ) -> str:
     """How to reproduce the run: the study's fingerprint, the command, versions, seeds,
-    settings and the search storage."""
+    settings (:func:`_settings_used`) and the search storage."""
     search = record["stages"]["search"]
-    settings = record.get("settings", {})
     vrows = [[_esc(k), _esc(v)] for k, v in vers.items()]
     srows = [[_esc(k), _esc(v)] for k, v in seeds.items()]
-    srows += [[_esc(k), _esc(v)] for k, v in settings.items() if k not in ("seed",)]
-    src = Path(record["study"]["path"])
+    srows += [[_esc(k), _esc(v)] for k, v in settings.items() if k not in ("seed", "search_seed")]
     return (
         "<p>The same study file, settings, seeds and versions give the same numbers. The study "
         f"file as run is kept in <code>study.toml</code> (fingerprint "
         f"<code>{_esc(record['study']['fingerprint'])}</code>); rerun with</p>"
-        f"<pre><code>wellwright run {_esc(src.name)} --out {_esc(run_dir.name)}</code></pre>"
+        f"<pre><code>{_esc(rerun_command(run_dir, record))}</code></pre>"
         + '<div class="pair"><div>'
         + _table(["package", "version"], vrows)
         + "</div><div>"
         + _table(["setting", "value"], srows)
         + "</div></div>"
-        + f'<p class="small">Search storage: <code>{_esc(search.get("storage"))}</code> '
+        + f'<p class="small">Search storage: <code>{_esc(settings.get("storage"))}</code> '
         f"(study <code>{_esc(search.get('study_name'))}</code>; open it with optuna.load_study "
         "or the Optuna dashboard).</p>"
     )
@@ -1011,6 +1045,7 @@ def build_report(run_dir: str | Path) -> Path:
     stages = record.get("stages", {})
     finished = _finished_tolerance_dirs(run_dir, record)
     study = study_from_run(run_dir, record)
+    _check_needed_files(run_dir, record, [], [])  # the search's records, before reading them
     designs = _read_json(run_dir / "search" / "designs.json", list)
     reported = [d for d in designs if f"rank{d['rank']:02d}" in finished]
     tol_dirs = [finished[f"rank{d['rank']:02d}"] for d in reported]
@@ -1020,7 +1055,7 @@ def build_report(run_dir: str | Path) -> Path:
     files = run_dir / FILES_DIR
     figs = _Figures(files)
     search = stages["search"]
-    settings = record.get("settings", {})
+    settings = _settings_used(record, study)
     # the model that ran, from the run's own record (tolerance.json), else from the study copy
     ran = [r["model"] for r in records if isinstance(r.get("model"), dict)]
     model = model_from_record(ran[0]) if ran else study.stack(designs[0]["params"]).model
@@ -1034,7 +1069,10 @@ def build_report(run_dir: str | Path) -> Path:
     ]
     growth_html, growth_data = _growth(records, figs, files, run_dir, tol_dirs)
     vers = versions()
-    seeds = {"search sampler seed": search.get("seed"), "tolerance seed": settings.get("seed")}
+    seeds = {
+        "search sampler seed": settings.get("search_seed"),
+        "tolerance seed": settings.get("seed"),
+    }
     label = record.get("label")
     title = f"wellwright report: {study.name}"
     now = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
@@ -1045,7 +1083,7 @@ def build_report(run_dir: str | Path) -> Path:
         "designs": "".join(h for h, _ in cards),
         "growth": growth_html,
         "model": _model_html(study, model),
-        "reproduce": _reproduce_html(record, run_dir, vers, seeds),
+        "reproduce": _reproduce_html(record, run_dir, vers, seeds, settings),
     }
     page = _page(
         title, label, study, f"built {now} by wellwright {vers['wellwright']}", section_body
@@ -1075,10 +1113,7 @@ def _check_needed_files(
     (:func:`_needed_files`), with the command that writes it."""
     for path in _needed_files(run_dir, reported, tol_dirs):
         if not path.is_file():
-            study_path = record.get("study", {}).get("path", "STUDY.toml")
-            raise InputError(
-                f"{RERUN}: wellwright run {study_path} --out {run_dir}", source=str(path)
-            )
+            raise InputError(f"{RERUN}: {rerun_command(run_dir, record)}", source=str(path))
 
 
 def _model_html(study: Study, model: Any) -> str:

@@ -29,6 +29,7 @@ __all__ = [
     "check_storage_url",
     "make_storage",
     "open_study",
+    "stored_trials",
     "fail_dead_trials",
     "worker_identity",
     "HEARTBEAT_INTERVAL_S",
@@ -208,6 +209,36 @@ def open_study(
             key="search.study_name",
         )
     return ostudy
+
+
+def stored_trials(study: Study, url: str) -> int:
+    """Complete trials a storage holds of this study (its name and fingerprint), else 0.
+
+    Creates nothing: a SQLite file that does not exist holds none.
+
+    Parameters
+    ----------
+    study
+        The study the search runs.
+    url
+        The storage URL (:func:`storage_url`).
+    """
+    if url.startswith("sqlite"):
+        import sqlalchemy.engine
+
+        database = sqlalchemy.engine.make_url(url).database
+        if not database or not Path(database).is_file():
+            return 0
+    storage = make_storage(url)
+    try:
+        sid = storage.get_study_id_from_name(study.optuna_name)
+        if storage.get_study_user_attrs(sid).get("wellwright_fingerprint") != study.fingerprint():
+            return 0
+        return len(storage.get_all_trials(sid, deepcopy=False, states=(TrialState.COMPLETE,)))
+    except KeyError:
+        return 0
+    finally:
+        storage.engine.dispose()
 
 
 def worker_identity() -> str:

@@ -1,4 +1,5 @@
-"""The record of a run folder: ``pipeline.json``, the study copy, stage fingerprints.
+"""The record of a run folder: ``pipeline.json``, the study copy, stage fingerprints, which
+study the folder holds and the command that reproduces its run.
 
 Written by :mod:`wellwright.optimize.cli.pipeline`, read by the report; kept
 here, below both, so that the report never imports the pipeline.
@@ -8,6 +9,8 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
+import shlex
 from pathlib import Path
 from typing import Any
 
@@ -125,3 +128,66 @@ def study_from_run(run_dir: str | Path, record: dict[str, Any]) -> Study:
     if isinstance(table, dict) and "from" in table and (d / CALIBRATION_COPY).is_file():
         data = {**data, "calibration": {**table, "from": str((d / CALIBRATION_COPY).resolve())}}
     return parse_study(data, source=source, name=origin["name"], base_dir=Path(source).parent)
+
+
+def study_identity(study: Study) -> dict[str, str]:
+    """What makes two study files one study of a run folder: the name its search is stored
+    under and the fingerprint of what defines the search (space, spec, sweep, model).
+
+    Files that agree on both share the search's trials; what else they differ in (growth,
+    ``[report]``) reruns only the stages after the search.
+    """
+    return {"search_name": study.optuna_name, "search_fingerprint": study.fingerprint()}
+
+
+def folder_identity(run_dir: str | Path, record: dict[str, Any]) -> dict[str, str] | None:
+    """The :func:`study_identity` of the study a run folder holds: as its record has it, else
+    (a folder of an earlier version) from its study copy; None when neither tells.
+
+    Parameters
+    ----------
+    run_dir
+        The run folder.
+    record
+        Its ``pipeline.json`` record.
+    """
+    origin = record.get("study") or {}
+    if "search_name" in origin and "search_fingerprint" in origin:
+        return {k: origin[k] for k in ("search_name", "search_fingerprint")}
+    try:
+        return study_identity(study_from_run(run_dir, record))
+    except (InputError, KeyError, TypeError, OSError):
+        return None
+
+
+def hide_password(url: str) -> str:
+    """A database URL with its password replaced by ``***`` (for a report that is passed on)."""
+    return re.sub(r"(://[^:/@]+:)[^@/]*@", r"\1***@", url)
+
+
+def rerun_command(run_dir: str | Path, record: dict[str, Any]) -> str:
+    """The shell command that reproduces a run: ``wellwright run`` on the study file it ran,
+    with this folder as ``--out`` and the options the run was given (``options`` of its
+    record; a storage URL's password hidden).
+
+    Parameters
+    ----------
+    run_dir
+        The run folder (absolute in the command).
+    record
+        Its ``pipeline.json`` record.
+    """
+    argv = [
+        "wellwright",
+        "run",
+        str(record["study"]["path"]),
+        "--out",
+        str(Path(run_dir).resolve()),
+    ]
+    for key, value in (record.get("options") or {}).items():
+        flag = "--" + key.replace("_", "-")
+        if value is True:
+            argv.append(flag)
+        elif value is not None and value is not False:
+            argv += [flag, hide_password(str(value)) if key == "storage" else str(value)]
+    return shlex.join(argv)
