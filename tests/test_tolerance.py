@@ -215,9 +215,10 @@ def test_sobol_ranks_nothing_by_pass_fail_where_every_sample_passes_or_fails(
     assert ranking_without_variance(ranking) in out and "Sobol index of pass" not in out
     # the raised budget, in the words of the report
     assert ranking["evaluations"] > ranking["budget"] == 32
-    assert evaluations_text(ranking) in out and evaluations_text(ranking) in _resolution_text(
-        ranking
-    )
+    said = _resolution_text(ranking)
+    assert evaluations_text(ranking) in out and evaluations_text(ranking) in said
+    # the report says it too, not "not resolved ... rerun with more --samples"
+    assert ranking_without_variance(ranking) in said and "not resolved" not in said
     # what to control hardest: the same fact (every as-grown sample), not "more samples"
     cli, report = _control_said(rec, tmp_path, capsys)
     assert cli == report != NO_CONTROL_STANDS_OUT and outcome in cli
@@ -425,6 +426,9 @@ def test_cli_runs_on_best_design(tmp_path, study, capsys):
     )
     assert (out / "samples.csv").is_file() and (out / "histograms.png").stat().st_size > 1000
     assert not list(out.glob(".*.tmp"))
+    # the record's files are named relative to its folder (they were relative to the cwd)
+    assert rec["files"]["samples_csv"] == "samples.csv"
+    assert all((out / f).is_file() for f in rec["files"].values())
 
 
 def test_cli_sobol_with_second_order(tmp_path, capsys):

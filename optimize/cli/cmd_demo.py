@@ -37,6 +37,11 @@ def register(sub: argparse._SubParsersAction) -> None:
         action="store_true",
         help="fewer trials, samples and bias points, Morris instead of Sobol",
     )
+    p.add_argument(
+        "--fresh",
+        action="store_true",
+        help="delete what an earlier run wrote in the folder and start from scratch (as for run)",
+    )
     p.add_argument("--no-progress", action="store_true", help="no progress bars")
     p.set_defaults(func=run)
 
@@ -55,6 +60,7 @@ def run(args: argparse.Namespace) -> int:
         settings={"jobs": 1 if args.quick else (os.cpu_count() or 1)},
         progress=not args.no_progress,
         label=DEMO_LABEL,
+        fresh=args.fresh,
     )
     print(f"report: {(out / 'report.html').resolve()}")
     return 0

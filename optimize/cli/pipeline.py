@@ -328,7 +328,7 @@ class SpecNotMet(RuntimeError):
 EXIT_SPEC_NOT_MET = 3
 
 
-def closest_miss(study: Study, design: dict[str, Any]) -> str:
+def closest_miss(study: Study, design: dict[str, Any], *, tied: int = 1) -> str:
     """One line: the closest design and each window of the spec it misses, by how much.
 
     Parameters
@@ -337,6 +337,9 @@ def closest_miss(study: Study, design: dict[str, Any]) -> str:
         The study (its targets).
     design
         The closest design's record (``trial``, ``params``, ``metrics``, ``constraints``).
+    tied
+        How many designs miss the spec by exactly as much (itself included): more than one,
+        and none is closer than another, which the line says.
     """
     misses = [r["text"] for r in window_report(study.targets, design["metrics"]) if not r["inside"]]
     if not misses:
@@ -344,8 +347,14 @@ def closest_miss(study: Study, design: dict[str, Any]) -> str:
             f"a constraint ({', '.join(k for k, v in design['constraints'].items() if v > 0)})"
         ]
     params = ", ".join(f"{k} = {v:g}" for k, v in design["params"].items())
+    which = (
+        f"the closest (trial {design['trial']}: {params})"
+        if tied <= 1
+        else f"{tied} designs miss it by as much and none comes closer; the first of them "
+        f"(trial {design['trial']}: {params})"
+    )
     return (
-        f"no design meets the spec; the closest (trial {design['trial']}: {params}) misses "
+        f"no design meets the spec; {which} misses "
         + "; ".join(misses)
         + " (widen the ranges or relax the spec; --continue-infeasible analyses it anyway)"
     )
@@ -441,7 +450,9 @@ def run_pipeline(
             source=study.source,
         )
     if not chosen[0].get("feasible") and not continue_infeasible:
-        raise SpecNotMet(closest_miss(study, chosen[0]))
+        miss = chosen[0].get("spec_violation")
+        tied = sum(d.get("spec_violation") == miss for d in designs) if miss is not None else 1
+        raise SpecNotMet(closest_miss(study, chosen[0], tied=tied))
     fp = _stage_fingerprints(inputs, s, chosen)
     _tolerance_stage(study, s, run_dir, record, fp, chosen, progress)
     # the report shows the command of the run: a new study path or new options rebuild it
@@ -573,6 +584,16 @@ def _tolerance_stage(
         stages.pop("report", None)
         _save(run_dir, record)
         rec = tolerance_of_design(study, d, s, out, progress=progress)
+        if rec.get("ranking"):  # a raised budget or a ranking with nothing to rank, said now
+            from wellwright.optimize.tolerance.analysis import (
+                evaluations_text,
+                ranking_without_variance,
+            )
+
+            said = ranking_without_variance(rec["ranking"])
+            _log(progress, f"tolerance {key}: {evaluations_text(rec['ranking'])}")
+            if said:
+                _log(progress, f"tolerance {key}: {said}")
         write_design_files(study, d, out / DESIGN_DIR)
         tol[key] = {
             "status": "done",

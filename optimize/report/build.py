@@ -51,7 +51,12 @@ from wellwright.optimize.study.run_folder import (
     study_from_run,
 )
 from wellwright.optimize.study.study import Study
-from wellwright.optimize.tolerance.analysis import control_summary, controls_standing_out
+from wellwright.optimize.tolerance.analysis import (
+    control_summary,
+    controls_standing_out,
+    evaluations_text,
+    ranking_without_variance,
+)
 from wellwright.physics.errors import InputError
 
 __all__ = ["build_report", "SECTIONS", "versions"]
@@ -398,6 +403,11 @@ def _resolution_text(ranking: dict | None) -> str:
     if not ranking:
         return ""
     words = names.parameter_words
+    uniform = ranking_without_variance(ranking)
+    if uniform is not None:  # nothing to rank: said, not "not resolved, rerun"
+        return (
+            f"<p><b>No ranking of pass/fail:</b> {_esc(uniform)} ({evaluations_text(ranking)}).</p>"
+        )
     if ranking.get("resolved"):
         head = (
             f"<p><b>Ranking of pass/fail resolved:</b> {_esc(words(ranking['leader']))} leads "
@@ -419,20 +429,7 @@ def _resolution_text(ranking: dict | None) -> str:
         if zero
         else ""
     )
-    return f"{head} ({_evaluations_text(ranking)}).{tail}</p>"
-
-
-def _evaluations_text(ranking: dict) -> str:
-    """The evaluations a ranking used against its budget (``--samples``). A budget below the
-    method's smallest design (Sobol: 8 base samples of D + 2 evaluations; Morris: two
-    trajectories of D + 1) was raised to that design, which is then what ran."""
-    used, budget = ranking.get("evaluations", "?"), ranking.get("budget", "?")
-    if isinstance(used, int) and isinstance(budget, int) and used > budget:
-        return (
-            f"{used} evaluations used: the budget of {budget} (--samples) is below the "
-            f"method's smallest design, so it was raised by {used - budget} to that"
-        )
-    return f"{used} of a budget of {budget} evaluations used"
+    return f"{head} ({evaluations_text(ranking)}).{tail}</p>"
 
 
 def _device_table(designs: list[dict], reported: int) -> str:
@@ -676,7 +673,9 @@ def _allocation_html(
         "recommended for tightening only when the gain is measurable: an exact McNemar test "
         "on the paired samples (Q. McNemar, Psychometrika 12, 153 (1947)) and a gain beyond "
         "the half-width of the yield's own interval; otherwise it has no measurable "
-        "effect.</p>"
+        "effect. Where the target is missed even with a parameter held exactly, tightening "
+        "it alone cannot reach it: the design must be re-centred, or the spec or the target "
+        "yield relaxed.</p>"
     )
     body.append(
         _table(["parameter", "nominal sigma", "allowed sigma", "yield there", "what to do"], arows)

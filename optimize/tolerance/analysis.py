@@ -2597,7 +2597,8 @@ def write_outputs(
     Parameters
     ----------
     record
-        The tolerance record (:func:`run_tolerance`); its ``files`` are set.
+        The tolerance record (:func:`run_tolerance`); its ``files`` are set (paths relative
+        to ``out``; the returned ones as written).
     mc
         The Monte Carlo record (:func:`monte_carlo_yield`, with ``wafer`` when there is one).
     out
@@ -2664,6 +2665,7 @@ def write_outputs(
         from wellwright.optimize.tolerance import figures as tf
 
         files.update(tf.save_all(record, mc, out))
-    record["files"] = files
+    # on file, relative to the record's own folder: a moved or archived folder still holds
+    record["files"] = {k: Path(v).relative_to(out).as_posix() for k, v in files.items()}
     write_json(out / "tolerance.json", record)
     return files
