@@ -832,7 +832,8 @@ def _growth_card(r: dict, figs: _Figures, files: Path, where: Path, tdir: Path) 
     body = [f'<div class="card"><h3>Growth check of rank {rank}</h3>']
     warning = (r.get("islands") or {}).get("warning")
     if warning:
-        body.append(f'<div class="caution"><b>Monolayer islands.</b> {_esc(warning)}.</div>')
+        said = warning[:1].upper() + warning[1:]  # a sentence after the heading
+        body.append(f'<div class="caution"><b>Monolayer islands.</b> {_esc(said)}.</div>')
     method, output, rows = ranking_rows(r)
     fig = ranking_figure(r)
     if fig is not None:
