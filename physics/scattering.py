@@ -254,6 +254,32 @@ Departures from [2]_, each stated:
    A state is treated alone: no scattering between states, no coherence between them.
    Stacks with more than two barriers take the region between the outer
    barriers as the well.
+7. *A hump before the emitter barrier.* A thick undoped spacer on the injecting side
+   fills with electrons that raise a space-charge hump above the contact's band edge
+   (0.17 eV, a WKB action of 50 at the edge, on a GaAs/AlAs stack at 400 K with a 100 nm
+   spacer). An emitter electron reaches the barrier through the hump, and a well state
+   leaks out through the barrier, the pocket between barrier and hump and the hump. The
+   pocket's phase averaged, the two are scatterers in series [12]_:
+   ``T = T_b T_h / (T_b + T_h - T_b T_h)`` with ``T_b``, ``T_h`` the WKB transparencies of
+   the barrier and the hump [9]_ at the longitudinal energy ``z``; so behind a hump
+   ``Gamma_L(z)`` takes the factor ``H(z) = T_h / (T_b + T_h - T_b T_h)`` (1 above the hump's
+   top, ``T_h / T_b`` where the hump is the more opaque), and the state's own width at
+   ``E_n`` the same factor. The state is the probe's (whose source side is lowered: no hump,
+   no pocket) and no coherent line is matched to it: below the hump's top the device's lines
+   are the well's and the pocket's states mixed, 1e-9 to 1e-4 eV wide and some 10 meV
+   apart, and which one lay within a width of the state changed from one bias to the next
+   (with it ``Gamma_L``: the current stepped between -56 and -211 A/cm^2 on biases 1 mV
+   apart, and between -25462 and -92 on an 18 ML well; measured 2026-12-05). Where the
+   action at the contact's edge is below 6 (:data:`HUMP_ACTION`, the well-charge search's
+   gate; the 218 stacks of ``benchmarks/check_default_metrics.py`` reach 3.2) nothing
+   changes (the hump's effect on a matched state is in its line's width, and an unmatched
+   state is coupled as if the hump were absent, as before); from 6 to 12 the factor is
+   ``H^w`` and the matched line's weight (note 4) is ``(1 - w)`` of what it was, ``w`` a
+   smoothstep of the action, so that the current is continuous where a bias or a spacer
+   carries the action across the gate (this project's choice). Departures: the pocket's
+   resonances (its states mixed with the well's) are averaged out, the WKB ``T_h`` is 1 at
+   the hump's top (a parabolic top gives 1/2 there), and the pocket's own electrons (the
+   spacer's Thomas-Fermi charge) are not taken as an emitter of their own.
 
 Defaults (no first-principles value exists): roughness height ``Delta`` =
 0.3 nm (one monolayer) and correlation length ``Lambda`` = 5 nm, the values
@@ -281,6 +307,9 @@ References
    Quantum Processes in Semiconductors (Oxford) (from memory).
 .. [11] G. Bastard, Appl. Phys. Lett. 43, 591 (1983) (alloy scattering in
    quantum wells; from memory).
+.. [12] S. Datta, Electronic Transport in Mesoscopic Systems (Cambridge, 1995), ch. 2:
+   the transmission of two scatterers in series with phase randomisation between them
+   (from memory).
 """
 
 from __future__ import annotations
@@ -294,6 +323,7 @@ import numpy as np
 
 from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR2_2M0_EV_NM2, VACUUM_PERMITTIVITY_F_M
+from .electrostatics import WELL_SEARCH_HUMP_ACTION
 from .fermi import occupation
 from .resonances import grid_maxima
 from .transmission import compiled_kernel, transmission_rows
@@ -305,6 +335,8 @@ __all__ = [
     "sequential_fluxes_ev2",
     "sequential_integral_ev2",
     "BARRIER_MIN_EV",
+    "injecting_hump",
+    "hump_weight",
 ]
 
 #: A layer whose band edge lies this far above the emitter's (at zero bias) is a barrier.
@@ -328,6 +360,14 @@ RESOLVED_BELOW = 0.5
 #: 24 of the grid scan, whose Jp a bare share rule moved by 20 %)
 MATCH_PEAK_SHARE = 1e-6
 MATCH_EDGE_WIDTHS = 100.0
+#: A hump of the injecting side (the space-charge hump of a thick undoped spacer) whose WKB
+#: action ``int kappa dz`` at the injecting contact's band edge exceeds HUMP_ACTION (the
+#: well-charge search's gate, ``electrostatics.WELL_SEARCH_HUMP_ACTION``: 6; the 218 stacks of
+#: ``benchmarks/check_default_metrics.py`` reach 3.2) couples the well's states to the
+#: emitter through its own transmission (module note 7); in full from HUMP_FULL_ACTION, a
+#: smoothstep of the action between (:func:`hump_weight`)
+HUMP_ACTION = WELL_SEARCH_HUMP_ACTION
+HUMP_FULL_ACTION = 2.0 * WELL_SEARCH_HUMP_ACTION
 #: Where ``T`` is looked at for the dip beside a line, in its widths from its centre
 DIP_OFFSETS = 2.0 ** np.arange(-2.0, 2.01, 0.5)
 #: e^2 / (4 pi eps0), eV nm
@@ -935,6 +975,96 @@ def _lead_coupling(z, lead_edges, lead_mass, barrier: _Barrier, edge, mass, widt
     return out
 
 
+def injecting_hump(profile: Profile, *, table, bias_v) -> tuple[np.ndarray, np.ndarray]:
+    """The hump of the injecting side (module note 7): its WKB action and its top.
+
+    The injecting side is every slice before the first barrier in forward bias, after the
+    last in reverse (barriers as in :func:`sequential_integral_ev2`); the action is
+    ``int kappa dz`` over its slices at the injecting contact's band edge (Landau and
+    Lifshitz [9]_), the same sum as the well-charge search's gate
+    (``electrostatics._hump_action``), 0 without a hump.
+
+    Parameters
+    ----------
+    profile
+        Band profiles, batch ``(n_stacks, n_biases)``, emitter edge at 0.
+    table
+        The :class:`~physics.stack.LayerTable` the profiles come from.
+    bias_v
+        Biases, V, batch-shaped.
+
+    Returns
+    -------
+    action, top_ev
+        Batch-shaped: the action, and the highest band edge of the injecting side (eV, on
+        the profile's scale) where the action exceeds :data:`HUMP_ACTION` (``-inf``
+        elsewhere).
+    """
+    edge, mass, _, width = profile.slice_arrays
+    rel = table.edge_ev - table.edge_ev[:, :1]
+    is_barrier = rel > BARRIER_MIN_EV
+    is_barrier[:, [0, -1]] = False
+    barrier = is_barrier[:, profile.layer_index]  # (stacks, n)
+    n = barrier.shape[-1]
+    has = barrier.any(axis=-1)
+    first = np.where(has, np.argmax(barrier, axis=-1), 0)  # no side without a barrier
+    last = np.where(has, n - 1 - np.argmax(barrier[:, ::-1], axis=-1), n - 1)
+    rev = np.broadcast_to(np.asarray(bias_v, float), edge.shape[:-1]) < 0
+    per_stack = (-1,) + (1,) * (edge.ndim - 1)  # (stacks, 1, ..., 1)
+    # the columns some entry's side holds (a sweep of one polarity: one side per stack)
+    if rev.any():
+        lo, hi = (0 if (~rev).any() else int(last.min()) + 1), n
+        col = np.arange(lo, hi)
+        side = np.where(
+            rev[..., None], col > last.reshape(per_stack), col < first.reshape(per_stack)
+        )
+        injecting = np.where(rev, edge[..., -1], 0.0)[..., None]
+        height = np.where(side, edge[..., lo:hi] - injecting, 0.0)
+    else:  # forward only: the emitter's edge is 0
+        lo, hi = 0, int(first.max())
+        side = np.arange(hi) < first.reshape(per_stack)
+        height = np.where(side, edge[..., :hi], 0.0)
+    action = np.zeros(rev.shape)
+    top = np.full(rev.shape, -np.inf)
+    np.maximum(height, 0.0, out=height)
+    if not height.any():
+        return action, top
+    height *= mass[..., lo:hi]
+    height /= HBAR2_2M0_EV_NM2
+    kappa = np.sqrt(height, out=height)
+    action = np.sum(kappa * width[..., lo:hi], axis=-1)
+    behind = np.nonzero(action > HUMP_ACTION)  # the top where the gate is open
+    side = np.broadcast_to(side, kappa.shape)[behind]
+    top[behind] = np.max(np.where(side, edge[..., lo:hi][behind], -np.inf), axis=-1)
+    return action, top
+
+
+def hump_weight(action):
+    """The weight ``w`` of module note 7 at a hump's ``action``: 0 up to :data:`HUMP_ACTION`,
+    1 from :data:`HUMP_FULL_ACTION`, a smoothstep between."""
+    action = np.asarray(action, float)
+    if not (action > HUMP_ACTION).any():
+        return np.zeros(action.shape)
+    x = np.clip((action - HUMP_ACTION) / (HUMP_FULL_ACTION - HUMP_ACTION), 0.0, 1.0)
+    return x * x * (3.0 - 2.0 * x)
+
+
+def _hump_factor(z, edge, mass, width, geo: _Geometry, barrier: _Barrier, weight):
+    """``H(z)^w`` of module note 7 at energies ``z`` ``(..., L, K)`` of an oriented profile:
+    the hump's (the source side's) transparency in series with the source barrier's,
+    against the barrier's alone; exactly 1 where ``weight`` (``(...)``) is 0."""
+    out = np.ones(z.shape)
+    rows = np.nonzero(weight > 0.0)
+    if not rows[0].size:
+        return out
+    e, m, d, zz = edge[rows], mass[rows], width[rows], z[rows]
+    t_b = _theta(zz, e, m, d, barrier.run[rows], barrier.lo, barrier.hi)
+    t_h = _theta(zz, e, m, d, geo.source[rows], 0, int(geo.outer1.max()))
+    series = t_h / np.maximum(t_b + t_h - t_b * t_h, 1e-300)
+    out[rows] = series ** weight[rows][..., None, None]
+    return out
+
+
 #: How sharply the WKB couplings' ratio assigns the larger root to a lead (note 4)
 WKB_SHARPNESS = 6.0
 
@@ -1080,7 +1210,7 @@ def _half_maximum_width(
     return out, out_peak
 
 
-def _match_lines(e_n, gamma_p, peak_p, valid, lines, top):
+def _match_lines(e_n, gamma_p, peak_p, valid, lines, top, unmatched=None):
     """The coherent line that is each state (its centre, width and peak are exact there).
 
     A state is matched only when it and the line both lie above the emitter band edge by
@@ -1089,8 +1219,8 @@ def _match_lines(e_n, gamma_p, peak_p, valid, lines, top):
     coupling there, which vanishes at the edge, overstated ``Gamma_L(z)`` 20 times and the
     current 6.5 times within 4 uV of bias on a GaAs/AlGaAs stack) and a narrow line lies
     within its width (lowering the emitter side moves a state by a fraction of its
-    width). Returns the state's centre, width and peak and
-    ``matched``, all ``(..., L)``.
+    width), and not where ``unmatched`` (``(...)``, behind a hump: module note 7). Returns
+    the state's centre, width and peak and ``matched``, all ``(..., L)``.
     """
     d = np.abs(e_n[..., :, None] - lines["center_ev"][..., None, :])
     narrow = lines["valid"] & (lines["width_ev"] < top[..., None] - lines["center_ev"])
@@ -1106,6 +1236,8 @@ def _match_lines(e_n, gamma_p, peak_p, valid, lines, top):
         & (np.min(d, axis=-1) < 0.5 * (gamma_p + line_width))
         & ((line_peak >= MATCH_PEAK_SHARE * peak_p) | (e_n < MATCH_EDGE_WIDTHS * gamma_p))
     )
+    if unmatched is not None:
+        matched &= ~unmatched[..., None]
     center = np.where(valid, np.where(matched, line_center, e_n), 0.0)
     width = np.where(valid, np.where(matched, line_width, gamma_p), 1.0)
     peak = np.where(matched, line_peak, peak_p)
@@ -1152,11 +1284,25 @@ def _towards_probe(trust, line, probe, matched):
 
 
 def _state_widths(
-    edge, mass, width, geo, barriers, e_n, width_c, peak_c, matched, kt, params, probe, bound
+    edge,
+    mass,
+    width,
+    geo,
+    barriers,
+    e_n,
+    width_c,
+    peak_c,
+    matched,
+    kt,
+    params,
+    probe,
+    bound,
+    hump=None,
 ):
     """Per state: ``Gamma_R``, the scale of ``Gamma_L(z)``, ``Gamma_t`` and the rates (notes 4-5);
     ``probe``: the width, peak and centre of the probe's line of each state; ``bound``: the
-    share of the rates each state takes (:func:`_bound_share`)."""
+    share of the rates each state takes (:func:`_bound_share`); ``hump``: the weight of the
+    source side's hump, ``(...)`` (note 7), or ``None``."""
     n = edge.shape[-1]
     z = e_n[..., None]
     (tau_r,) = _lead_coupling(z, (edge[..., -1],), mass[..., n - 1], barriers[1], edge, mass, width)
@@ -1168,6 +1314,8 @@ def _state_widths(
             z, (0.0, edge[..., -1]), mass[..., 0], barriers[0], edge, mass, width
         )
     )
+    if hump is not None:  # the device's coupling through the hump as well (note 7)
+        tau_l_dev = tau_l_dev * _hump_factor(z, edge, mass, width, geo, barriers[0], hump)[..., 0]
     tau_l = np.where(matched, tau_l_dev, tau_l_probe)
     # the probe's line (its source side lowered, its drain side the device's) sets which root
     # of a matched line is the drain's: near the emitter edge the device line's Gamma_L
@@ -1191,6 +1339,8 @@ def _state_widths(
     scale_probe = gamma_l_probe / np.maximum(tau_l_probe, 1e-300)
     spread = kt[..., None] + 0.5 * (width_c + g_ifr)
     trust = -np.expm1(-np.maximum(e_n - np.maximum(probe[0], width_c), 0.0) / spread)
+    if hump is not None:  # the line's own share fades with the hump's weight (note 7)
+        trust = trust * (1.0 - hump[..., None])
     line_scale = scale
     scale = _towards_probe(trust, scale, scale_probe, matched)
     gamma_r = _towards_probe(trust, gamma_r, gamma_r_probe, matched)
@@ -1267,12 +1417,13 @@ def _energy_nodes(st, high_ev, supply_top_ev, params):
     return np.sort(np.clip(nodes, e_lo[..., None], e_hi[..., None]), axis=-1)
 
 
-def _couplings(both, steps, st, edge, mass, width, barrier: _Barrier):
+def _couplings(both, steps, st, edge, mass, width, barrier: _Barrier, hump=None):
     """Reservoir couplings ``g_L, g_R`` (elastic) and ``p_L, p_R`` (phonon emission, per
     ``N + 1``) at the total energies ``nodes`` (module notes 1-3).
 
     ``both`` is ``nodes`` and ``nodes + hbar w`` side by side along the last axis
-    (``(..., L, 2K)``), ``steps`` the ``np.diff`` of ``nodes``."""
+    (``(..., L, 2K)``), ``steps`` the ``np.diff`` of ``nodes``; ``hump``: the factor of
+    ``Gamma_L`` at ``both`` behind a hump (:func:`_hump_factor`, note 7), or ``None``."""
 
     def ex(q):
         return q[..., None]
@@ -1295,6 +1446,8 @@ def _couplings(both, steps, st, edge, mass, width, barrier: _Barrier):
     lateral = np.exp(-ex(st["lateral_per_ev"]) * np.maximum(above, 0.0))
     # tau_L at z = E and at z = E + hbar w in one call (same barrier, same lead)
     (tau_both,) = _lead_coupling(both, (0.0,), mass[..., 0], barrier, edge, mass, width)
+    if hump is not None:
+        tau_both = tau_both * hump
     gl_el = ex(st["scale"]) * tau_both[..., :n_k] * lateral
     gl_lo = ex(st["scale"]) * tau_both[..., n_k:]
     half2 = 0.25 * gamma_t**2
@@ -1443,6 +1596,7 @@ def sequential_fluxes_ev2(
     lines,
     params: ScatteringParameters,
     per_stack: bool = False,
+    hump=None,
 ):
     """Sequential flux into the well from the left lead and out of it to the right, eV^2.
 
@@ -1480,6 +1634,9 @@ def sequential_fluxes_ev2(
         Whether ``mass``, ``width``, ``barrier`` and ``phonon`` are the same at every bias
         (axis -2) of a stack: the well and the barriers are then found once per stack
         (``barrier`` and ``phonon`` may then be ``(..., 1, n)``).
+    hump
+        The weight of the source side's hump (:func:`hump_weight`, module note 7), ``(...)``;
+        ``None`` or 0: no hump.
     """
     geo = _geometry(edge, mass, width, barrier, *phonon, per_stack=per_stack)
     kt = np.broadcast_to(kt_ev, geo.has.shape)
@@ -1489,7 +1646,12 @@ def sequential_fluxes_ev2(
     e_p, gamma_p, peak_p, valid, resolved = _find_states(
         edge, mass, alpha, width, geo, top, high_ev, params
     )
+    weight = None if hump is None or not np.any(hump > 0) else np.broadcast_to(hump, top.shape)
     e_n, width_c, peak_c, matched = _match_lines(e_p, gamma_p, peak_p, valid, lines, top)
+    if weight is not None and (weight >= 1.0).any():  # behind a full hump: no line (note 7)
+        e_n, width_c, peak_c, matched = _match_lines(
+            e_p, gamma_p, peak_p, valid, lines, top, unmatched=weight >= 1.0
+        )
     # a matched line's width and peak as the probe's: T at its centre and half-maximum points
     device = _slices_profile(edge, mass, alpha, width)
     width_c, peak_c = _half_maximum_width(
@@ -1510,6 +1672,7 @@ def sequential_fluxes_ev2(
         params,
         (gamma_p, peak_p, e_p),
         _bound_share(e_p, gamma_p, top) * resolved,
+        weight,
     )
     # the states' coherent transmission goes from width Gamma to Gamma_t (Buttiker)
     reduction = {
@@ -1524,11 +1687,16 @@ def sequential_fluxes_ev2(
     # occupations at both in one call each
     both = np.concatenate([nodes, nodes + st["hw"][..., None]], axis=-1)
     steps = np.diff(nodes)
-    fluxes = _compiled_node_fluxes(
-        both, steps, st, edge, mass, width, barriers[0], mu_left_ev, mu_right_ev, kt
-    )
+    fluxes = None
+    hump_nodes = None
+    if weight is not None:  # behind a hump: the numpy statement with its factor (note 7)
+        hump_nodes = _hump_factor(both, edge, mass, width, geo, barriers[0], weight)
+    else:
+        fluxes = _compiled_node_fluxes(
+            both, steps, st, edge, mass, width, barriers[0], mu_left_ev, mu_right_ev, kt
+        )
     if fluxes is None:  # the numpy statement
-        couplings = _couplings(both, steps, st, edge, mass, width, barriers[0])
+        couplings = _couplings(both, steps, st, edge, mass, width, barriers[0], hump_nodes)
 
         def ex2(q):
             return np.asarray(q)[..., None, None]
@@ -1561,6 +1729,7 @@ def sequential_integral_ev2(
     high_ev,
     lines,
     params: ScatteringParameters,
+    hump_action=None,
 ):
     """Scattering-assisted current integral of every (stack, bias), either polarity.
 
@@ -1578,6 +1747,9 @@ def sequential_integral_ev2(
         ``valid``; ``batch + (R,)``) from :mod:`physics.current`.
     params
         Channel settings.
+    hump_action
+        The WKB action of the injecting side's hump (:func:`injecting_hump`), batch-shaped;
+        ``None``: computed here.
 
     Returns
     -------
@@ -1594,6 +1766,8 @@ def sequential_integral_ev2(
     """
     edge, mass, alpha, width = profile.slice_arrays
     shape = edge.shape
+    if hump_action is None:
+        hump_action = injecting_hump(profile, table=table, bias_v=bias_v)[0]
     li = profile.layer_index
     rel = table.edge_ev - table.edge_ev[:, :1]
     is_barrier = rel > BARRIER_MIN_EV
@@ -1641,6 +1815,7 @@ def sequential_integral_ev2(
         lines=lines_o,
         params=params,
         per_stack=per_stack,
+        hump=hump_weight(hump_action),
     )
     # detailed balance makes the channel vanish at zero bias; enforce it past rounding
     sign = np.where(rev, -1.0, 1.0) * (np.asarray(bias_v) != 0.0)
