@@ -16,7 +16,9 @@ mixing took the state's centre and coherent width: barrier1 5.97 ML, 95 % interv
 6.00; the well 14.00 ML, 13.97 to 14.03; remade again after the channel's resolved share,
 the last two currents moved by 1e-6 and the fit printed the same; remade after the
 channel's kinetic energy in the well became the state's own ``<E_n - U>``: barrier1 5.97 ML,
-5.93 to 6.00, the well 14.00 ML, 13.97 to 14.03); the rate, which trades with the series
+5.93 to 6.00, the well 14.00 ML, 13.97 to 14.03; remade after the fit's layer tables took
+the layers' own LO-phonon energies (they had GaAs's): barrier1 5.97 ML, 5.94 to 6.00, the
+well 14.00 ML, 13.97 to 14.03); the rate, which trades with the series
 resistance and the roughness, stays near its prior's nominal 1.00, its interval just short
 of the true 1.02 (the README says what that does). Rerun with ``python studies/make_invented_wafer1.py``
 after a change of the default model (fitting data made by an older model makes the fit

@@ -276,7 +276,18 @@ class Problem:
         ml = np.maximum(self.thickness_ml(dev), 1.0)
         grown = np.isfinite(ml)
         thick = np.where(grown, np.nan_to_num(ml) * np.nan_to_num(mono), rows(base.thickness_nm))
-        table = LayerTable(edge, mass, alpha, thick, doping, perm, np.full(m, stack.temperature_k))
+        # every other column (the layers' LO-phonon energies and high-frequency permittivities
+        # of the scattering channel) as the stack has it: a fitted composition shift of a few
+        # per cent leaves the phonons as grown, as in the growth model
+        table = replace(
+            base.take(np.zeros(m, int)),
+            edge_ev=edge,
+            mass_m0=mass,
+            nonparabolicity_per_ev=alpha,
+            thickness_nm=thick,
+            doping_cm3=doping,
+            permittivity_r=perm,
+        )
         if continuous or not self.island_layers:
             return table, np.ones((m, 1))
         isl = list(self.island_layers)

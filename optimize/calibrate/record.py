@@ -422,9 +422,10 @@ def _with_measurements(problem: Problem, measurements: list) -> Problem:
 def calibrated_toml(problem: Problem, result: FitResult, *, note: str) -> str:
     """A stack file of the as-grown stack with the fitted model parameters.
 
-    Thicknesses are the fitted monolayers; a fractional value is an island
-    average in the fit and a uniform layer of that thickness for the other
-    commands (close to, not equal to, the island mean). Compositions, doping,
+    Thicknesses as the fit modelled them, so that ``wellwright iv`` on the file gives the
+    fitted curve: the fitted layers in monolayers (a fractional value is monolayer islands in
+    the fit and in every command), the others (spacers scaled by a source's rate) in nm, a
+    uniform layer as in the fit. Compositions, doping,
     band-edge corrections (as ``conduction_band_ev`` of the layers), model
     options and the specific series resistance are written; an
     area-independent resistance is noted in a comment.
@@ -474,10 +475,11 @@ def calibrated_toml(problem: Problem, result: FitResult, *, note: str) -> str:
             if x is not None:
                 lines.append(f"x = {x:.6g}")
         if 0 < i < n - 1:
-            if np.isfinite(ml[i]):
-                lines.append(f"thickness_ml = {ml[i]:.4f}")
-            else:
-                lines.append(f"thickness_nm = {layer.thickness_nm:.6g}")
+            if i in problem.island_layers:  # as the fit took it: islands, as `iv` takes it
+                whole = abs(ml[i] - round(ml[i])) < 5e-4  # no islands of 0 % of the area
+                lines.append(f"thickness_ml = {round(ml[i]) if whole else f'{ml[i]:.4f}'}")
+            else:  # a uniform layer in the fit (a rate-scaled spacer): its thickness in nm
+                lines.append(f"thickness_nm = {table.thickness_nm[0, i]:.6g}")
         doping = table.doping_cm3[0, i]
         if doping > 0:
             lines.append(f"doping_cm3 = {doping:.6g}")

@@ -104,8 +104,8 @@ def write_outputs(out: str | Path, problem, result, record: dict[str, Any]) -> P
     note = (
         f"As-grown stack calibrated by wellwright calibrate from {problem.source} and "
         f"{', '.join(Path(m.source).name for m in problem.measurements)}.\n"
-        "Fractional monolayers are island averages in the fit; other commands take them as a "
-        "uniform layer of that thickness."
+        "Fitted layers in monolayers (a fractional value is monolayer islands, in the fit and "
+        "in every command), the others in nm as the fit took them: iv gives the fitted curve."
     )
     atomic_write_text(out / "calibrated.toml", calibrated_toml(problem, result, note=note))
     overlay_figure(record, out / "overlay.png")
