@@ -11,6 +11,7 @@ a NaN or an infinity is an error here, never a traceback later.
 from __future__ import annotations
 
 import math
+import numbers
 from collections.abc import Collection, Mapping
 from typing import Any
 
@@ -101,7 +102,8 @@ def number(
     """
     span = _range_text(low, high, unit, open_low, open_high)
     within = f" in {span}" if math.isfinite(low) or math.isfinite(high) else ""
-    if isinstance(value, bool) or not isinstance(value, int | float):
+    # numbers.Real: int, float and numpy's scalars (np.int64 from an array); not a bool
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
         raise InputError(f"must be a number{within}, got {show(value)}", **_where(where))
     try:
         x = float(value)

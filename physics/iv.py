@@ -532,6 +532,19 @@ class _Devices:
         return self.table.take(np.argmax(self.weights, axis=1))
 
 
+def _sweep_biases(bias_v) -> np.ndarray:
+    """``bias_v`` as a float array, or a ValueError unless 1-D, finite and strictly increasing."""
+    bias = np.asarray(bias_v, float)
+    if bias.ndim != 1 or bias.size < 1:
+        raise ValueError(f"bias_v must be a 1-D array of biases, got shape {bias.shape}")
+    if not np.all(np.isfinite(bias)):
+        at = int(np.flatnonzero(~np.isfinite(bias))[0])
+        raise ValueError(f"bias_v must be finite, got {bias[at]} at index {at}")
+    if np.any(np.diff(bias) <= 0):
+        raise ValueError("bias_v must be strictly increasing")
+    return bias
+
+
 def _check_area_weights(area_weights, n_stacks: int) -> np.ndarray:
     w = np.asarray(area_weights, float)
     if w.ndim != 2 or w.shape[1] != n_stacks:
@@ -1849,9 +1862,7 @@ def _sweep_on(
 ) -> tuple[IVCurves, dict]:
     """:func:`sweep`'s work; also returns, with ``look_between``, the devices whose well
     charge falls before their peak (:func:`_hidden_collapse`): device -> three biases."""
-    bias = np.asarray(bias_v, float)
-    if bias.ndim != 1 or bias.size < 1 or np.any(np.diff(bias) <= 0):
-        raise ValueError("bias_v must be a 1-D strictly increasing array")
+    bias = _sweep_biases(bias_v)
     if area_weights is not None:
         area_weights = _check_area_weights(area_weights, table.n_stacks)
     devices = _Devices(table, area_weights)
@@ -1960,6 +1971,11 @@ def stack_iv(
         Indices (from 0) of layers with a fractional ``thickness_ml`` taken as monolayer
         islands.
     """
+    if not isinstance(stack, Stack):
+        raise TypeError(
+            "stack must be a Stack (physics.load_stack(path) or parse_stack(dict)), "
+            f"got {type(stack).__name__}"
+        )
     table, weights = island_table([stack], island_layers)
     return sweep(
         table,
@@ -2055,9 +2071,7 @@ def sweep_hysteresis(
     """
     model = ModelOptions() if model is None else model
     grid = EnergyGrid() if grid is None else grid
-    bias = np.asarray(bias_v, float)
-    if bias.ndim != 1 or np.any(np.diff(bias) <= 0):
-        raise ValueError("bias_v must be a 1-D strictly increasing array")
+    bias = _sweep_biases(bias_v)
     if model.electrostatics != "self-consistent":
         j = current_at_bias(table, bias, model=model, grid=grid)
         return HysteresisCurves(bias, j, j.copy())

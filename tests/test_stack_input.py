@@ -103,3 +103,26 @@ def test_study_example_loads_without_warning() -> None:
         warnings.simplefilter("error")
         stack = load_stack("studies/inp_thz_oscillator.toml")
     assert stack.layers[2].thickness_ml == pytest.approx(5)
+
+
+def test_the_python_api_takes_numpy_scalars_and_refuses_what_is_no_stack_or_sweep():
+    """A new user's fuzz finds (common practice: numpy's integer scalars are numbers; a wrong
+    argument gets an exception that says what was expected, not one from deep inside):
+    thickness_ml = np.int64(5) was refused while np.float64 passed; a NaN bias gave a
+    convergence error at 'nan V'; a file name given for the stack an AttributeError."""
+    import numpy as np
+    from wellwright.physics import stack_iv
+
+    layers = [
+        {"material": "GaAs", "doping_cm3": 1e18},
+        {"material": "AlAs", "thickness_ml": np.int64(5)},
+        {"material": "GaAs", "thickness_ml": np.int32(15)},
+        {"material": "AlAs", "thickness_ml": 5},
+        {"material": "GaAs", "doping_cm3": 1e18},
+    ]
+    stack = parse_stack({"layers": layers})
+    assert stack.layers[1].thickness_ml == 5.0 and stack.layers[2].thickness_ml == 15.0
+    with pytest.raises(ValueError, match=r"finite, got nan at index 1"):
+        stack_iv(stack, np.array([0.0, np.nan, 0.2]))
+    with pytest.raises(TypeError, match=r"stack must be a Stack .* got str"):
+        stack_iv("studies/inp_thz_oscillator.toml", np.linspace(0, 1, 5))
