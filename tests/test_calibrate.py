@@ -123,6 +123,13 @@ BAD_FILES = {
         _csv().replace(",300.0", ","),
         "line 4, column 2 (current_density_a_cm2): empty cell",
     ),
+    # a fuzz find: probes swapped, fitted as if the signs were right (the overlay then drew
+    # the measurement below zero and the fit above it)
+    "current_against_the_bias": (
+        "bias_v,current_density_a_cm2\n"
+        + "\n".join(f"{0.05 * i:.2f},{-100.0 * (i + 1)}" for i in range(12)),
+        "most currents are negative on a positive sweep; the current carries the sign of the bias",
+    ),
 }
 
 

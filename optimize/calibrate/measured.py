@@ -126,6 +126,14 @@ def read_measured(path: str | Path) -> Measurement:
         j = values["current_density_a_cm2"]
     if np.all(j == 0):
         raise InputError("every current is zero", source=source)
+    away = bias != 0
+    if np.mean(direction * j[away] < 0) > 0.5:  # a few near zero bias: an offset, kept
+        sign, other = ("positive", "negative") if direction > 0 else ("negative", "positive")
+        raise InputError(
+            f"column {column}: most currents are {other} on a {sign} sweep; the current "
+            "carries the sign of the bias (probes swapped? flip the column's sign)",
+            source=source,
+        )
     if direction < 0:
         bias, j = bias[::-1], j[::-1]
     return Measurement(source, bias.copy(), j.copy(), area, temperature, column)
