@@ -574,6 +574,13 @@ def _table_material(
         substrate_lattice_nm=substrate_lattice_nm,
         strain=strain,
     )
+    gap = float(np.min(params.gap_ev))
+    if gap <= 0.0:  # Varshni's fit extrapolated past its use (InSb above 880 K, molten)
+        raise err(
+            f"{values['material']} has no band gap at {temperature_k:g} K in the material "
+            f"table (its Varshni fit gives {gap:.3g} eV there): lower temperature_k",
+            "material",
+        )
     return _LayerMaterial(
         material=material,
         x=x,

@@ -126,3 +126,20 @@ def test_the_python_api_takes_numpy_scalars_and_refuses_what_is_no_stack_or_swee
         stack_iv(stack, np.array([0.0, np.nan, 0.2]))
     with pytest.raises(TypeError, match=r"stack must be a Stack .* got str"):
         stack_iv("studies/inp_thz_oscillator.toml", np.linspace(0, 1, 5))
+
+
+def test_a_material_without_a_band_gap_at_the_stack_temperature_is_refused():
+    """InSb at 1000 K (a fuzz find): the Varshni fit of the material table (Vurgaftman et al.
+    2001) extrapolates its gap below zero near 880 K, above InSb's melting point (about
+    800 K, common knowledge); the stack was refused on a derived key the user never wrote
+    ('nonparabolicity_per_ev: -25.3 outside [0, 50]'). At 700 K it still has a gap."""
+    layers = [
+        {"material": "InSb", "doping_cm3": 1e18},
+        {"material": "AlSb", "thickness_ml": 5},
+        {"material": "InSb", "thickness_ml": 15},
+        {"material": "AlSb", "thickness_ml": 5},
+        {"material": "InSb", "doping_cm3": 1e18},
+    ]
+    with pytest.raises(InputError, match=r"key 'material': InSb has no band gap at 1000 K"):
+        parse_stack({"temperature_k": 1000, "layers": layers})
+    parse_stack({"temperature_k": 700, "layers": layers})

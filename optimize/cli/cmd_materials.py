@@ -58,6 +58,12 @@ def run(args) -> int:
         " (with strain in a stack); x_valley_ev, l_valley_ev: X and L edges on the same scale, unstrained."
         "\nThe current is computed in the Gamma valley only: X and L valleys carry none in the model."
     )
+    for row in rows:  # the same rule refuses a stack at this temperature
+        if row["gap_ev"] <= 0.0:
+            print(
+                f"{row['material']}: no band gap at {args.temperature_k:g} K (its Varshni fit "
+                "extrapolated past its use): a stack with it is refused at this temperature"
+            )
     sources = sorted({row.get("source", "") for row in rows} - {""})
     for s in sources:
         print(f"source: {s}")
