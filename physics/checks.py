@@ -108,7 +108,7 @@ def number(
     try:
         x = float(value)
     except OverflowError:
-        digits = int(int(value).bit_length() * math.log10(2)) + 1  # str() fails past 4300 digits
+        digits = int(int(math.trunc(value)).bit_length() * math.log10(2)) + 1  # no str() past 4300
         raise InputError(f"an integer of ~{digits} digits is too large", **_where(where)) from None
     if not math.isfinite(x):
         raise InputError(f"must be a finite number{within}, got {show(value)}", **_where(where))

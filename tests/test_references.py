@@ -448,3 +448,18 @@ def test_cli_packet_rejects_bad_input(tmp_path, capsys, option, value, message):
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and option in err and re.search(message, err)
     assert not out.exists()  # nothing written on bad input
+
+
+def test_the_packet_command_says_when_packet_and_t_disagree():
+    """A new user's fuzz find: far above the band edge with nonparabolicity the packet's
+    transmitted fraction moved with the grid step (0.72, 0.57, 0.33) against T(E)'s 0.50,
+    with no word; the agreement the cross-check rests on is the 0.01 of the test above."""
+    from types import SimpleNamespace
+
+    from wellwright.optimize.cli.cmd_packet import PACKET_AGREEMENT, packet_disagreement
+
+    left = SimpleNamespace(stop_reason="left the stack", transmitted=0.72)
+    assert "disagree by 0.22" in packet_disagreement(left, 0.50)
+    assert packet_disagreement(left, 0.72 - PACKET_AGREEMENT / 2) is None
+    held = SimpleNamespace(stop_reason="time limit", transmitted=0.2)  # said otherwise
+    assert packet_disagreement(held, 0.50) is None

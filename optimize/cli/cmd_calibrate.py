@@ -15,7 +15,7 @@ def register(sub) -> None:
         help="fit the model to measured I-V: as-grown stack, corrections, uncertainties",
         description="Fit the model to one or more measured I-V sweeps (CSV; format in "
         "studies/README.md): as-grown layer thicknesses, growth-rate factors, series resistance "
-        "and the chosen model corrections, with 95 %% intervals. Writes calibration.json, "
+        "and the chosen model corrections, with 95 % intervals. Writes calibration.json, "
         "calibrated.toml, overlay.png, figures_of_merit.csv and calibration.html.",
     )
     p.add_argument("stack", help="the grown stack: a stack or study file without ranges (TOML)")
@@ -33,7 +33,8 @@ def register(sub) -> None:
         type=int,
         default=2,
         metavar="K",
-        help="local fits from the best K whole-monolayer starts (default 2)",
+        help="at most K local fits, from the best whole-monolayer starts (a start far worse than "
+        "the best is not fitted; default 2)",
     )
     p.add_argument(
         "--seed",
