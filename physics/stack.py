@@ -71,6 +71,8 @@ MODEL_KEYS = {
 }
 DEVICE_KEYS = {"area_um2": float, "series_resistance_ohm_um2": float}
 TOP_KEYS = {"temperature_k", "substrate", "model", "device", "layers"}
+#: Tables that make a file a study (optimize.study), not a stack
+STUDY_KEYS = ("targets", "constraints", "search", "sweep", "growth", "tolerance", "report")
 
 
 class CriticalThicknessWarning(UserWarning):
@@ -361,6 +363,14 @@ def parse_stack(data: dict[str, Any], *, source: str = "<dict>") -> Stack:
     InputError
         Naming the file, the layer index and the key, with the allowed range.
     """
+    study = [k for k in STUDY_KEYS if isinstance(data, dict) and k in data]
+    if study:  # one line on what the file is, not "unknown key"
+        raise InputError(
+            f"a study file's table: a stack is wanted here (no {', '.join(STUDY_KEYS)}); "
+            "give the study to search, tolerance or run",
+            source=source,
+            key=study[0],
+        )
     checks.table(data, sorted(TOP_KEYS), source=source)
     lo, hi = TEMPERATURE_RANGE_K
     temperature_k = checks.number(

@@ -82,6 +82,15 @@ def test_huge_integer_in_a_layer_names_the_layer_from_1(tmp_path, capsys):
     assert not (tmp_path / "o").exists()
 
 
+def test_a_study_file_given_to_iv_is_named_as_one(write_study, tmp_path, capsys):
+    # a fuzz find: "key 'targets': unknown key" did not say what the file is
+    study = write_study(study_text())
+    assert main(["iv", str(study), "--points", "5", "--out", str(tmp_path / "o")]) == 2
+    line = _one_error_line(capsys, "iv")
+    assert "key 'targets': a study file's table" in line and "search, tolerance or run" in line
+    assert not (tmp_path / "o").exists()
+
+
 def test_tiny_step_is_refused_before_the_search(write_study, tmp_path, capsys):
     path = write_study(
         study_text(barrier="{min = 4, max = 7}", well_x="{min = 0.4, max = 0.6, step = 1e-300}")

@@ -19,6 +19,7 @@ import numpy as np
 import pytest
 from helpers_physics import BAD_STACKS, stack_toml, write_stack
 from wellwright.optimize.cli import build_parser, main
+from wellwright.optimize.shared import names
 
 ROOT = Path(__file__).resolve().parents[1]
 STUDY = ROOT / "studies" / "inp_thz_oscillator.toml"
@@ -219,6 +220,11 @@ def test_series_resistance_in_reverse_bias(tmp_path, capsys) -> None:
     assert m["peak_voltage_external_v"] == pytest.approx(
         m["peak_voltage_v"] - m["peak_current_density_a_cm2"] * 20.0 * 1e-8, rel=1e-12
     )
+    # ... and the text says both (a fuzz find: it gave the layers' voltage alone, unlabelled)
+    assert main(args[:-1]) == 0
+    text = capsys.readouterr().out
+    said = names.format_value("peak_voltage_v", m["peak_voltage_external_v"], with_unit=True)
+    assert f"at the terminals, with the series resistance (20 ohm um^2): peak {said}" in text
 
 
 def test_critical_thickness_warns_but_succeeds(tmp_path) -> None:

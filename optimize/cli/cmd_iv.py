@@ -257,6 +257,17 @@ def _print_text(stack, record: dict, bias: np.ndarray) -> None:
         value = names.format_bound(key, m[key], bounded=bound, with_unit=True)
         print(f"  {names.words(key):<38} {value}")
     shown = functools.partial(names.format_value, with_unit=True)
+    if m.get("peak_voltage_external_v") is not None:  # the biases above are the device's own
+        terminal = [
+            f"{what} {shown('peak_voltage_v', m[f'{what}_voltage_external_v'])}"
+            for what in ("peak", "valley")
+            if m.get(f"{what}_voltage_external_v") is not None
+        ]
+        print(
+            "  the voltages above are across the layers; at the terminals, with the series "
+            f"resistance ({stack.device.series_resistance_ohm_um2:g} ohm um^2): "
+            + ", ".join(terminal)
+        )
     if bound:
         print(
             f"  valley not reached: the current still falls at "
