@@ -395,7 +395,7 @@ def test_report_cautions_where_the_island_mixture_was_truncated_too_far(demo_dir
     tol.write_text(json.dumps(rec))
     build_report(run)
     html = _html(run)
-    assert "<b>Monolayer islands.</b> the island mixture misses it (invented for the test)" in html
+    assert "<b>Monolayer islands.</b> The island mixture misses it (invented for the test)" in html
 
 
 def test_report_describes_the_model_from_the_run_record(demo_dir, tmp_path):
