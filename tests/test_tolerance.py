@@ -224,6 +224,23 @@ def test_sobol_ranks_nothing_by_pass_fail_where_every_sample_passes_or_fails(
     assert cli == report != NO_CONTROL_STANDS_OUT and outcome in cli
 
 
+@pytest.mark.parametrize("method", ["mc", "morris"])
+def test_an_allocation_where_every_sample_passes_takes_the_controls_that_move_jp(stack, method):
+    # statistical (seeded). Every sample passes: nothing orders the controls by the yield,
+    # and the allocation took its parameter in the order of all-zero scores (a fuzz run's
+    # dopant cell); now those that move the peak current most, here a barrier (the toy's Jp
+    # depends on the two barriers only)
+    g = GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0.01, x_sigma=0.0, doping_sigma=0.0)
+    spec = Spec((("peak_current_density_a_cm2", 1.0, 1e12),))
+    rec = run_tolerance(
+        growth_model(stack, g), spec, _ToyRunner(), method=method, samples=32, seed=7, allocate=1
+    )
+    assert rec["yield"]["passed"] == rec["yield"]["samples"]
+    row = rec["allocation"][0]  # (then a row for every layer thickness at once)
+    assert row["parameter"] in ("barrier1.thickness_ml", "barrier2.thickness_ml"), row
+    assert row["action"] == "keep"
+
+
 def test_same_seed_same_results_and_sobol_ranks_barriers(stack):
     g = GrowthSettings(thickness_ml_sigma=0.5, rate_sigma=0.01, x_sigma=0.0, doping_sigma=0.0)
     model = growth_model(stack, g)

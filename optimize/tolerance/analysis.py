@@ -2539,14 +2539,34 @@ def _control_scores(
         abs(np.corrcoef(np.abs(mc["z"][:, j]), fail)[0, 1]) if fail.std() > 0 else 0.0
         for j in range(len(model.parameters))
     ]
+    measure = "correlation of |deviation| with failure (Monte Carlo)"
+    if fail.std() > 0:
+        notes.append(f"allocation parameters ranked by {measure}")
+        return [model.names[j] for j in np.argsort(score)[::-1]], _named(model, score), measure
+    # every sample passed (or failed): nothing orders the controls by the yield, so the
+    # allocation takes those that move the peak current most (how far each may loosen)
+    jp = "peak_current_density_a_cm2"
+    table = record["sobol"].get(jp) or record["morris"].get(jp)
+    if table:
+        order = [r["parameter"] for r in table]  # most effect first
+    else:
+        y = np.asarray(mc["metrics"][jp], float)
+        dev = np.abs(y - np.nanmedian(y))
+        effect = [
+            abs(np.corrcoef(np.abs(mc["z"][:, j]), dev)[0, 1]) if np.nanstd(dev) > 0 else 0.0
+            for j in range(len(model.parameters))
+        ]
+        order = [model.names[j] for j in np.argsort(np.nan_to_num(effect))[::-1]]
     notes.append(
-        "allocation parameters ranked by correlation of |deviation| with failure in the Monte Carlo"
+        "every sample passed or every one failed: allocation parameters ordered by their effect "
+        "on the peak current density"
     )
-    return (
-        [model.names[j] for j in np.argsort(score)[::-1]],
-        dict(zip(model.names, map(float, score), strict=True)),
-        "correlation of |deviation| with failure (Monte Carlo)",
-    )
+    return order, _named(model, score), measure
+
+
+def _named(model: GrowthModel, score: Sequence[float]) -> dict[str, float]:
+    """Scores by parameter name."""
+    return dict(zip(model.names, map(float, score), strict=True))
 
 
 #: The growth sheet of the re-centred design (written when it is a measurable gain).
