@@ -44,7 +44,8 @@ def synthetic_measurement(
     truth
         True values of calibration parameters by name.
     bias_v
-        Terminal biases of the invented measurement, V.
+        Terminal biases of the invented measurement, V, strictly increasing (as a
+        :class:`Measurement` holds them: a negative sweep from its far end up to zero).
     area_um2
         Mesa area, um^2, recorded with the sweep.
     noise
@@ -58,8 +59,15 @@ def synthetic_measurement(
     source
         Name recorded as the measurement's source.
     """
+    bias = np.asarray(bias_v, float)
+    if bias.ndim != 1 or bias.size < 2 or np.any(np.diff(bias) <= 0):
+        # a measured sweep is stored increasing (a negative one from its far end up to zero);
+        # decreasing biases gave every current zero, silently
+        raise ValueError(
+            "bias_v must be strictly increasing (a negative sweep from its far end up to 0)"
+        )
     rng = as_generator(seed)
-    template = Measurement(source, np.asarray(bias_v, float), np.ones(len(bias_v)), area_um2)
+    template = Measurement(source, bias, np.ones(bias.size), area_um2)
     problem = build_problem(data, [template], fit=list(truth), bias_points=bias_points)
     dev = problem.deviations_of(truth)
     j = problem.predict(dev[None, :])[0][0]
