@@ -564,21 +564,11 @@ def _injecting_sides(inside: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return has & (node < first), has & (node > last)
 
 
-def hump_action(edge_ev, mass_m0, width_nm, side, injecting_ev):
-    """WKB action ``int kappa dz`` at the injecting contact's band edge over the slices of
-    the injecting side whose edge lies above it (Landau and Lifshitz, Quantum Mechanics, WKB
-    transparency ``exp(-2 int kappa dz)``): the gate of the dense searches behind the hump of
-    a thick undoped spacer, here and in :mod:`physics.scattering`.
-
-    Parameters
-    ----------
-    edge_ev, mass_m0, width_nm
-        Slice band edges, masses and widths, ``batch + (n_nodes,)`` or broadcasting to that.
-    side
-        Boolean, the same shape: the injecting side's slices (:func:`_injecting_sides`).
-    injecting_ev
-        The injecting contact's band edge, batch-shaped.
-    """
+def _hump_action(edge_ev, mass_m0, width_nm, side, injecting_ev):
+    """WKB action ``int kappa dz`` at the injecting contact's band edge ``injecting_ev``
+    (batch-shaped) over the slices ``side`` (the injecting side, :func:`_injecting_sides`)
+    whose edge lies above it; arrays ``batch + (n_nodes,)`` or broadcasting to that
+    (Landau and Lifshitz, Quantum Mechanics, WKB transparency ``exp(-2 int kappa dz)``)."""
     from .constants import HBAR2_2M0_EV_NM2
 
     above = np.maximum(edge_ev - np.asarray(injecting_ev)[..., None], 0.0)
@@ -1380,7 +1370,7 @@ class _WellChargeStep:
         # entries behind a hump on their injecting side: the search again on the dense grid
         # (well_sheet_density_cm2's second search, the same numbers)
         side = np.where((bias >= 0)[..., None], sides[0], sides[1])
-        dense = hump_action(edge_ev, rows[0], rows[2], side, edge) > WELL_SEARCH_HUMP_ACTION
+        dense = _hump_action(edge_ev, rows[0], rows[2], side, edge) > WELL_SEARCH_HUMP_ACTION
         if dense.any():
             at = np.nonzero(dense)
             lo = np.broadcast_to(edge, dense.shape)[at] + 1e-6
@@ -1485,7 +1475,7 @@ def well_sheet_density_cm2(
     before, after = _injecting_sides(_barrier_region(table, grid)[0])
     side = np.where(forward[..., None], before[:, None, :], after[:, None, :])
     shape = profile.batch_shape
-    dense = hump_action(profile.edge_ev, profile.mass_m0, profile.width_nm, side, edge)
+    dense = _hump_action(profile.edge_ev, profile.mass_m0, profile.width_nm, side, edge)
     dense = np.broadcast_to(dense > WELL_SEARCH_HUMP_ACTION, shape)
     if dense.any():
         at = np.nonzero(dense)

@@ -323,7 +323,7 @@ import numpy as np
 
 from .bands import Profile
 from .constants import ELEMENTARY_CHARGE_C, HBAR2_2M0_EV_NM2, VACUUM_PERMITTIVITY_F_M
-from .electrostatics import WELL_SEARCH_HUMP_ACTION, hump_action
+from .electrostatics import WELL_SEARCH_HUMP_ACTION
 from .fermi import occupation
 from .resonances import grid_maxima
 from .transmission import compiled_kernel, transmission_rows
@@ -982,7 +982,7 @@ def injecting_hump(profile: Profile, *, table, bias_v) -> tuple[np.ndarray, np.n
     last in reverse (barriers as in :func:`sequential_integral_ev2`); the action is
     ``int kappa dz`` over its slices at the injecting contact's band edge (Landau and
     Lifshitz [9]_), the same sum as the well-charge search's gate
-    (:func:`physics.electrostatics.hump_action`, on the side's columns), 0 without a hump.
+    (``electrostatics._hump_action``), 0 without a hump.
 
     Parameters
     ----------
@@ -1018,17 +1018,24 @@ def injecting_hump(profile: Profile, *, table, bias_v) -> tuple[np.ndarray, np.n
         side = np.where(
             rev[..., None], col > last.reshape(per_stack), col < first.reshape(per_stack)
         )
-        injecting = np.where(rev, edge[..., -1], 0.0)
+        injecting = np.where(rev, edge[..., -1], 0.0)[..., None]
+        height = np.where(side, edge[..., lo:hi] - injecting, 0.0)
     else:  # forward only: the emitter's edge is 0
         lo, hi = 0, int(first.max())
         side = np.arange(hi) < first.reshape(per_stack)
-        injecting = np.zeros(rev.shape)
-    at = slice(lo, hi)
-    action = hump_action(edge[..., at], mass[..., at], width[..., at], side, injecting)
+        height = np.where(side, edge[..., :hi], 0.0)
+    action = np.zeros(rev.shape)
     top = np.full(rev.shape, -np.inf)
+    np.maximum(height, 0.0, out=height)
+    if not height.any():
+        return action, top
+    height *= mass[..., lo:hi]
+    height /= HBAR2_2M0_EV_NM2
+    kappa = np.sqrt(height, out=height)
+    action = np.sum(kappa * width[..., lo:hi], axis=-1)
     behind = np.nonzero(action > HUMP_ACTION)  # the top where the gate is open
-    side = np.broadcast_to(side, edge[..., at].shape)[behind]
-    top[behind] = np.max(np.where(side, edge[..., at][behind], -np.inf), axis=-1)
+    side = np.broadcast_to(side, kappa.shape)[behind]
+    top[behind] = np.max(np.where(side, edge[..., lo:hi][behind], -np.inf), axis=-1)
     return action, top
 
 

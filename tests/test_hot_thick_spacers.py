@@ -74,7 +74,7 @@ def test_the_hump_of_the_thick_spacer_takes_the_dense_state_search() -> None:
         profile = profile_from_potential(table, grid, sol.potential_ev)
         edge = np.where(bias >= 0, 0.0, profile.edge_ev[..., -1])
         side = np.where((bias >= 0)[None, :, None], before[:, None, :], after[:, None, :])
-        return es.hump_action(profile.edge_ev, profile.mass_m0, profile.width_nm, side, edge)
+        return es._hump_action(profile.edge_ev, profile.mass_m0, profile.width_nm, side, edge)
 
     hot = actions(_stack().table(), BIASES)
     assert hot.min() > 4 * es.WELL_SEARCH_HUMP_ACTION  # measured 48-56
